@@ -1,0 +1,7 @@
+"""Allow ``python -m lidmelt``."""
+
+import sys
+
+from lidmelt.cli import main
+
+sys.exit(main())

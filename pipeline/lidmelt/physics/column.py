@@ -1,0 +1,553 @@
+"""The isentropic melting column beneath a lid: direct, vectorized integration.
+
+Mantle at potential temperature Tp rises along its solid isentrope, crosses the (water-depressed)
+solidus at the onset pressure P0 and melts by decompression, consuming latent heat, until it
+meets the top of the melting column (the deeper of the lid base and a minimum depth). Every
+function here takes arrays of any shape and broadcasts them; no Python loop runs over cells.
+
+Definitions (PHYSICS.md section 8, fixed by lidmelt):
+
+* Tp is the P = 0 intercept of the solid isentrope T = Tp exp(alpha_s P / (rho_s c_p)), T in K.
+* Depth is below the seafloor with P = rho g z (the model's ``lithostatic_density_kg_m3`` and
+  ``gravity_m_s2``).
+* The onset is the shallowest P at which the isentrope meets the solidus, searched from the
+  surface down to ``model.max_onset_pressure_gpa``.
+* Melt thickness H = integral of F dz from the top of melting to the onset [km]; 0 where the
+  onset is shallower than the top. Max melt fraction is F at the top; mean melt pressure is
+  integral of P dF / F_top (NaN where no melt).
+* Water is batch-partitioned and stays in the column.
+
+Numerical method
+----------------
+Above the solidus the state (P, T, F) conserves the entropy of [Katz2003]_ eq. 20,
+ds = c_p dT/T - abar dP + Delta S dF = 0 with abar = (1 - F) alpha_s/rho_s + F alpha_f/rho_f
+(PHYSICS.md 1.4). Each pressure step conserves it exactly in discrete form,
+
+    c_p ln(T1/T0) - abar((F0 + F1)/2) (P1 - P0) + Delta S (F1 - F0) = 0,   T1 = T_model(P1, F1),
+
+(second order in the step, the trapezoid rule for the abar term) and is solved for F1 by
+bracketing; :meth:`MeltingModel.temperature_c` is explicit in F, so the hydrous law needs no
+inner iteration and the kinks at the solidus and at cpx exhaustion need no derivatives. Steps
+fall on a fixed pressure grid (plus one partial step from the onset and one to the top); a test
+proves convergence in the step.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from lidmelt.physics.melting import GPA, MeltingModel, get_model
+
+FLAG_INVALID_INPUT = 1  #: NaN input, negative lid, Tp below the surface solidus, or bad water
+FLAG_NO_ONSET = 2  #: the isentrope does not meet the solidus within the model's search range
+FLAG_BEYOND_CALIBRATION = 4  #: onset deeper than the model's calibrated range (computed anyway)
+FLAG_WATER_SATURATED = 8  #: bulk water above what the solid source holds at the onset
+
+FLAG_MEANINGS = {
+    FLAG_INVALID_INPUT: "invalid input (NaN, negative lid, Tp below the surface solidus)",
+    FLAG_NO_ONSET: "no solidus crossing within the model's pressure range",
+    FLAG_BEYOND_CALIBRATION: "onset deeper than the model's calibrated pressure range",
+    FLAG_WATER_SATURATED: "source water above saturation at the onset (free water)",
+}
+
+COLUMN_OUTPUTS = (
+    "melt_thickness_km",
+    "onset_depth_km",
+    "onset_pressure_gpa",
+    "lid_depth_km",
+    "max_melt_fraction",
+    "mean_melt_pressure_gpa",
+)
+
+DEFAULT_PRESSURE_STEP_GPA = 0.01  # proven converged in tests/test_column.py
+DEFAULT_MIN_TOP_KM = (
+    7.0  # base of normal oceanic crust (PHYSICS.md 8; White et al. 1992, from memory)
+)
+_SEARCH_STEP_GPA = 0.05
+_BLOCK = 8192
+
+
+@dataclass(frozen=True)
+class ColumnResult:
+    """Outputs of :func:`melt_column`, each an array of the broadcast input shape.
+
+    Attributes
+    ----------
+    melt_thickness_km, onset_depth_km, onset_pressure_gpa, lid_depth_km, max_melt_fraction,
+    mean_melt_pressure_gpa : numpy.ndarray
+        The output variables of DESIGN.md (``lid_depth_km`` is the top of melting used).
+    flag : numpy.ndarray of uint8
+        Bit flags ``FLAG_*``; 0 where the cell is valid and calibrated.
+    model : MeltingModel
+        The model (with every parameter) that produced the result.
+    """
+
+    melt_thickness_km: np.ndarray
+    onset_depth_km: np.ndarray
+    onset_pressure_gpa: np.ndarray
+    lid_depth_km: np.ndarray
+    max_melt_fraction: np.ndarray
+    mean_melt_pressure_gpa: np.ndarray
+    flag: np.ndarray
+    model: MeltingModel
+
+    def as_dict(self) -> dict[str, np.ndarray]:
+        """The output arrays and the flag by name."""
+        out = {name: getattr(self, name) for name in COLUMN_OUTPUTS}
+        out["flag"] = self.flag
+        return out
+
+
+# ------------------------------------------------------------------------------------------------
+# onset
+# ------------------------------------------------------------------------------------------------
+def onset_pressure_gpa(model: MeltingModel, potential_temperature_c, water_wt_pct=0.0):
+    """Shallowest pressure [GPa] where the solid isentrope meets the solidus; NaN if none.
+
+    Searched from the surface down to ``model.max_onset_pressure_gpa`` on a 0.05 GPa grid, then
+    refined by bisection to 1e-12 GPa (PHYSICS.md trap 7: the Katz solidus turns over at
+    13.03 GPa, so a search from below could find the wrong crossing). NaN where Tp is at or below
+    the surface solidus (no crossing at all) or where the isentrope stays above the solidus down
+    to the search limit.
+    """
+    tp, w = np.broadcast_arrays(
+        np.asarray(potential_temperature_c, float), np.asarray(water_wt_pct, float)
+    )
+    out = np.full(tp.shape, np.nan)
+    flat_tp, flat_w, flat_out = tp.ravel(), w.ravel(), out.reshape(-1)
+    grid = np.arange(0.0, model.max_onset_pressure_gpa + 1e-9, _SEARCH_STEP_GPA)
+    for start in range(0, flat_tp.size, _BLOCK // 4):
+        sl = slice(start, start + _BLOCK // 4)
+        t, ww = flat_tp[sl, None], flat_w[sl, None]
+        excess = model.solid_adiabat_c(t, grid[None, :]) - model.solidus_c(grid[None, :], ww)
+        below = excess <= 0.0
+        below[:, 0] = False
+        has = below.any(axis=1) & (excess[:, 0] > 0.0)
+        k = np.argmax(below, axis=1)
+        lo = grid[np.maximum(k - 1, 0)]
+        hi = grid[k]
+        tt, wv = t[:, 0], ww[:, 0]
+        for _ in range(42):
+            mid = 0.5 * (lo + hi)
+            melted = model.solid_adiabat_c(tt, mid) - model.solidus_c(mid, wv) > 0.0
+            lo = np.where(melted, mid, lo)
+            hi = np.where(melted, hi, mid)
+        flat_out[sl] = np.where(has, 0.5 * (lo + hi), np.nan)
+    return out
+
+
+def refine_onset_gpa(
+    model: MeltingModel, potential_temperature_c, water_wt_pct, guess_gpa, *, iterations: int = 2
+):
+    """Newton steps on isentrope minus solidus from a close guess of the onset pressure [GPa].
+
+    Used by the table path to make interpolated onsets exact where the water content varies;
+    the derivative is a forward difference over 1e-6 GPa. Callers keep the guess only where it
+    is close (away from the tangency of isentrope and solidus, where Newton is ill-conditioned).
+    """
+    p = np.asarray(guess_gpa, float)
+    delta = 1e-6
+
+    def gap(pp):
+        return model.solid_adiabat_c(potential_temperature_c, pp) - model.solidus_c(
+            pp, water_wt_pct
+        )
+
+    for _ in range(iterations):
+        g0 = gap(p)
+        slope = (gap(p + delta) - g0) / delta
+        with np.errstate(invalid="ignore", divide="ignore"):
+            p = np.where(slope < 0, p - g0 / slope, p)
+    return p
+
+
+# ------------------------------------------------------------------------------------------------
+# one entropy-conserving step and the integrator
+# ------------------------------------------------------------------------------------------------
+def _step(model, p0, t0_k, f0, p1, water):
+    """Advance (p0, t0_k, f0) to pressure p1 along the isentrope; return (t1_k, f1).
+
+    Solves h(F) = c_p ln(T(p1, F)/t0) - abar((f0 + F)/2)(p1 - p0) + dS (F - f0) = 0, which
+    increases with F, by the Illinois variant of regula falsi on a bracket in [0, 1].
+    """
+    cp = model.specific_heat_j_kg_k
+    ds = model.entropy_of_melting_j_kg_k
+    a_s = model.solid_expansivity_k / model.solid_density_kg_m3
+    a_f = model.melt_expansivity_k / model.melt_density_kg_m3
+    dp_pa = (p1 - p0) * GPA
+    terms = model.pressure_terms(p1, water)
+
+    def h(f):
+        t1 = model.temperature_from_terms(terms, f) + 273.15
+        fm = 0.5 * (f0 + f)
+        abar = (1.0 - fm) * a_s + fm * a_f
+        return cp * np.log(t1 / t0_k) - abar * dp_pa + ds * (f - f0)
+
+    lo = np.maximum(f0 - 0.02, 0.0)
+    hi = np.minimum(f0 + 0.05, 1.0)
+    h_lo, h_hi = h(lo), h(hi)
+    widen = ~((h_lo <= 0.0) & (h_hi >= 0.0))
+    if widen.any():
+        lo = np.where(widen, 0.0, lo)
+        hi = np.where(widen, 1.0, hi)
+        h_lo = np.where(widen, h(lo), h_lo)
+        h_hi = np.where(widen, h(hi), h_hi)
+    solid = h_lo > 0.0  # even F = 0 is hotter than the isentrope: the column is subsolidus
+    molten = h_hi < 0.0
+    side = np.zeros(lo.shape, dtype=np.int8)
+    f = lo
+    for _ in range(60):
+        denom = h_hi - h_lo
+        with np.errstate(invalid="ignore", divide="ignore"):
+            f = np.where(denom > 0.0, hi - h_hi * (hi - lo) / denom, 0.5 * (lo + hi))
+        f = np.clip(f, lo, hi)
+        hf = h(f)
+        pos = hf > 0.0
+        # Illinois: halve the retained end's value when the same end is kept twice.
+        h_lo = np.where(~pos & (side == -1), 0.5 * h_lo, h_lo)
+        h_hi = np.where(pos & (side == 1), 0.5 * h_hi, h_hi)
+        hi = np.where(pos, f, hi)
+        h_hi = np.where(pos, hf, h_hi)
+        lo = np.where(pos, lo, f)
+        h_lo = np.where(pos, h_lo, hf)
+        side = np.where(pos, 1, -1).astype(np.int8)
+        if np.all((hi - lo) < 1e-13) or np.nanmax(np.abs(hf), initial=0.0) < 1e-9:
+            break
+    f = np.where(solid, 0.0, np.where(molten, 1.0, f))
+    t1 = model.temperature_from_terms(terms, f) + 273.15
+    if solid.any():
+        fm = 0.5 * f0
+        abar = (1.0 - fm) * a_s + fm * a_f
+        t_solid = t0_k * np.exp((abar * dp_pa + ds * f0) / cp)
+        t1 = np.where(solid, t_solid, t1)
+    return t1, f
+
+
+def integrate_columns(
+    model,
+    potential_temperature_c,
+    water_wt_pct,
+    p_onset,
+    p_top,
+    *,
+    step_gpa=DEFAULT_PRESSURE_STEP_GPA,
+    record_nodes=None,
+):
+    """Integrate 1-D arrays of columns from their onset ``p_onset`` up to ``p_top`` [GPa].
+
+    Steps fall on the nodes k * ``step_gpa`` below each onset (one partial step from the onset
+    and one to ``p_top``). Columns with NaN onset or ``p_onset <= p_top`` stay unmelted.
+
+    Parameters
+    ----------
+    record_nodes : int, optional
+        If given, also return the state at every pressure node ``j * step_gpa`` for
+        j < ``record_nodes`` (zeros below the onset), as arrays of shape (n, record_nodes).
+
+    Returns
+    -------
+    dict
+        ``melt_thickness_km``, ``max_melt_fraction`` (F at the top), ``temperature_c`` at the top,
+        ``int_p_df_gpa`` (integral of P dF), and with ``record_nodes`` the recorded
+        ``node_melt_thickness_km``, ``node_melt_fraction``, ``node_int_p_df_gpa``,
+        ``node_temperature_c``.
+    """
+    tp, water, p_on, p_top = (
+        a.ravel()
+        for a in np.broadcast_arrays(
+            *(np.asarray(v, float) for v in (potential_temperature_c, water_wt_pct, p_onset, p_top))
+        )
+    )
+    km_per_gpa = float(model.depth_km(1.0))
+    melts = np.isfinite(p_on) & (p_on > p_top)
+    p = np.where(melts, p_on, p_top)
+    t_k = model.solid_adiabat_c(tp, p) + 273.15
+    f = np.zeros(tp.shape)
+    h_km = np.zeros(tp.shape)
+    g = np.zeros(tp.shape)
+    rec = None
+    if record_nodes is not None:
+        rec = {
+            k: np.zeros((tp.size, record_nodes))
+            for k in (
+                "node_melt_thickness_km",
+                "node_melt_fraction",
+                "node_int_p_df_gpa",
+                "node_temperature_c",
+            )
+        }
+    if melts.any():
+        idx = np.flatnonzero(melts)
+        # the first node strictly shallower than the onset
+        first = np.ceil(p_on[idx] / step_gpa - 1.0 - 1e-9)
+        nsteps = int(np.max(first - np.floor(p_top[idx] / step_gpa)) + 2)
+        pc, tc, fc, hc, gc = p[idx], t_k[idx], f[idx], h_km[idx], g[idx]
+        tpc, wc, topc = tp[idx], water[idx], p_top[idx]
+        for k in range(nsteps):
+            node = (first - k) * step_gpa
+            p_next = np.maximum(node, topc)
+            active = pc > topc
+            if not active.any():
+                break
+            sub = np.flatnonzero(active)
+            t1, f1 = _step(model, pc[sub], tc[sub], fc[sub], p_next[sub], wc[sub])
+            hc[sub] += 0.5 * (fc[sub] + f1) * (pc[sub] - p_next[sub]) * km_per_gpa
+            gc[sub] += 0.5 * (pc[sub] + p_next[sub]) * (f1 - fc[sub])
+            pc[sub], tc[sub], fc[sub] = p_next[sub], t1, f1
+            if rec is not None:
+                j = np.rint(p_next[sub] / step_gpa).astype(int)
+                on_node = (np.abs(p_next[sub] - j * step_gpa) < 1e-9) & (j < record_nodes)
+                rows, cols = idx[sub[on_node]], j[on_node]
+                rec["node_melt_thickness_km"][rows, cols] = hc[sub[on_node]]
+                rec["node_melt_fraction"][rows, cols] = fc[sub[on_node]]
+                rec["node_int_p_df_gpa"][rows, cols] = gc[sub[on_node]]
+                rec["node_temperature_c"][rows, cols] = tc[sub[on_node]] - 273.15
+        del tpc
+        p[idx], t_k[idx], f[idx], h_km[idx], g[idx] = pc, tc, fc, hc, gc
+    out = {
+        "melt_thickness_km": h_km,
+        "max_melt_fraction": f,
+        "temperature_c": t_k - 273.15,
+        "int_p_df_gpa": g,
+    }
+    if rec is not None:
+        out.update(rec)
+    return out
+
+
+# ------------------------------------------------------------------------------------------------
+# public API
+# ------------------------------------------------------------------------------------------------
+def top_of_melting_km(lid_depth_km, min_top_km=DEFAULT_MIN_TOP_KM):
+    """The top of the melting column [km]: the deeper of the lid base and ``min_top_km``."""
+    return np.maximum(np.asarray(lid_depth_km, float), float(min_top_km))
+
+
+def input_flags(model: MeltingModel, potential_temperature_c, lid_depth_km, water_wt_pct):
+    """FLAG_INVALID_INPUT where inputs are NaN, the lid negative, water negative (or, for an
+    anhydrous model, non-zero), or Tp at or below the surface solidus."""
+    tp, lid, w = np.broadcast_arrays(
+        np.asarray(potential_temperature_c, float),
+        np.asarray(lid_depth_km, float),
+        np.asarray(water_wt_pct, float),
+    )
+    with np.errstate(invalid="ignore"):
+        bad = ~np.isfinite(tp) | ~np.isfinite(lid) | ~np.isfinite(w) | (lid < 0) | (w < 0)
+        if not model.hydrous:
+            bad |= w > 0
+        bad |= tp <= model.solidus_c(0.0, 0.0)
+    return np.where(bad, FLAG_INVALID_INPUT, 0).astype(np.uint8)
+
+
+def finish_outputs(model, tp, w, top_km, p_on, melt_thickness_km, f_top, int_p_df, flag):
+    """Assemble a ColumnResult from onset and integrals; set the derived flags and NaNs."""
+    with np.errstate(invalid="ignore", divide="ignore"):
+        top_p = model.pressure_gpa(top_km)
+        invalid = (flag & FLAG_INVALID_INPUT) > 0
+        no_onset = ~invalid & ~np.isfinite(p_on)
+        flag = flag | np.where(no_onset, FLAG_NO_ONSET, 0).astype(np.uint8)
+        deep = np.isfinite(p_on) & (p_on > model.calibrated_max_pressure_gpa)
+        flag = flag | np.where(deep, FLAG_BEYOND_CALIBRATION, 0).astype(np.uint8)
+        saturated = np.isfinite(p_on) & (w > model.water_saturated_bulk_wt_pct(p_on))
+        flag = flag | np.where(saturated, FLAG_WATER_SATURATED, 0).astype(np.uint8)
+        bad = invalid | no_onset | saturated
+        melting = ~bad & (p_on > top_p)
+        h = np.where(bad, np.nan, np.where(melting, melt_thickness_km, 0.0))
+        f = np.where(bad, np.nan, np.where(melting, f_top, 0.0))
+        mean_p = np.where(melting & (f > 0), int_p_df / np.where(f > 0, f, 1.0), np.nan)
+        p_on = np.where(bad, np.nan, p_on)
+    return ColumnResult(
+        melt_thickness_km=h,
+        onset_depth_km=model.depth_km(p_on),
+        onset_pressure_gpa=p_on,
+        lid_depth_km=np.where(invalid, np.nan, top_km),
+        max_melt_fraction=f,
+        mean_melt_pressure_gpa=mean_p,
+        flag=flag,
+        model=model,
+    )
+
+
+def melt_column(
+    potential_temperature_c,
+    lid_depth_km,
+    water_wt_pct=0.0,
+    *,
+    model: str | MeltingModel = "katz2003",
+    method: str = "table",
+    min_top_km: float = DEFAULT_MIN_TOP_KM,
+    step_gpa: float = DEFAULT_PRESSURE_STEP_GPA,
+    table=None,
+) -> ColumnResult:
+    """Melt production of upwelling mantle beneath a lid, for arrays of cells.
+
+    Parameters
+    ----------
+    potential_temperature_c : array_like
+        Potential temperature Tp of the mantle [deg C] (ambient plus thermal anomaly).
+    lid_depth_km : array_like
+        Depth of the lid base (lithosphere) below the seafloor [km], >= 0.
+    water_wt_pct : array_like, optional
+        Water in the bulk source [wt%] (0.01 wt% = 100 ppm). Default 0 (dry).
+    model : str or MeltingModel, optional
+        A registry name or model object (see :func:`lidmelt.physics.melting.get_model`).
+    method : {"table", "direct"}
+        ``"table"`` interpolates a precomputed table (fast; its error is bounded in the tests),
+        falling back to direct integration outside the table. ``"direct"`` integrates every
+        column.
+    min_top_km : float, optional
+        Melting stops at max(lid, min_top_km) [km]; default 7 km, the base of normal oceanic
+        crust (PHYSICS.md 8).
+    step_gpa : float, optional
+        Pressure step of the direct integration [GPa].
+    table : MeltTable, optional
+        A table to use (default: the cached table of the model).
+
+    Returns
+    -------
+    ColumnResult
+        Arrays of the broadcast input shape and a ``flag`` array (see ``FLAG_*``). Invalid or
+        unmeltable cells are NaN and flagged, never clipped.
+    """
+    model = get_model(model)
+    tp, lid, w = np.broadcast_arrays(
+        np.asarray(potential_temperature_c, float),
+        np.asarray(lid_depth_km, float),
+        np.asarray(water_wt_pct, float),
+    )
+    if method == "table":
+        from lidmelt.physics.table import get_table
+
+        tab = table if table is not None else get_table(model)
+        return tab.melt_column(tp, lid, w, min_top_km=min_top_km)
+    if method != "direct":
+        msg = f"unknown method {method!r}; use 'table' (fast) or 'direct' (integrates each column)."
+        raise ValueError(msg)
+    return _direct(model, tp, lid, w, min_top_km=min_top_km, step_gpa=step_gpa)
+
+
+def _direct(model, tp, lid, w, *, min_top_km, step_gpa):
+    flag = input_flags(model, tp, lid, w)
+    ok = flag == 0
+    top_km = top_of_melting_km(np.where(ok, lid, 0.0), min_top_km)
+    p_on = np.full(tp.shape, np.nan)
+    p_on[ok] = onset_pressure_gpa(model, tp[ok], w[ok])
+    res = integrate_columns(
+        model,
+        np.where(ok, tp, 1300.0),
+        np.where(ok, w, 0.0),
+        p_on,
+        model.pressure_gpa(top_km),
+        step_gpa=step_gpa,
+    )
+    return finish_outputs(
+        model,
+        tp,
+        w,
+        top_km,
+        p_on,
+        res["melt_thickness_km"].reshape(tp.shape),
+        res["max_melt_fraction"].reshape(tp.shape),
+        res["int_p_df_gpa"].reshape(tp.shape),
+        flag,
+    )
+
+
+def excess_to_melt_k(
+    lid_depth_km,
+    water_wt_pct=0.0,
+    *,
+    ambient_potential_temperature_c=1350.0,
+    model: str | MeltingModel = "katz2003",
+    min_top_km: float = DEFAULT_MIN_TOP_KM,
+):
+    """Thermal anomaly [K] above ambient Tp at which melting would just begin beneath the lid.
+
+    Melting begins when the onset reaches the top of melting z_top = max(lid, min_top_km), that
+    is when the solid isentrope passes through the solidus at P_top:
+    Tp* = T_sol(P_top, water) exp(-alpha_s P_top / (rho_s c_p)) (temperatures in K) [derived from
+    the isentrope of PHYSICS.md 1.4]. Returns Tp* - ambient: negative where ambient mantle already
+    melts beneath this lid. NaN for invalid inputs and beyond the model's search range (where the
+    solidus-isentrope crossing at P_top would not be the shallowest one).
+    """
+    model = get_model(model)
+    lid, w = np.broadcast_arrays(np.asarray(lid_depth_km, float), np.asarray(water_wt_pct, float))
+    with np.errstate(invalid="ignore"):
+        top_p = model.pressure_gpa(top_of_melting_km(lid, min_top_km))
+        tp_k = (model.solidus_c(top_p, w) + 273.15) * np.exp(
+            -model.adiabat_coefficient_per_gpa * top_p
+        )
+        bad = (
+            ~np.isfinite(lid)
+            | (lid < 0)
+            | ~np.isfinite(w)
+            | (w < 0)
+            | (top_p > model.max_onset_pressure_gpa)
+        )
+    return np.where(bad, np.nan, tp_k - 273.15 - float(ambient_potential_temperature_c))
+
+
+def column_profile(
+    potential_temperature_c: float,
+    lid_depth_km: float,
+    water_wt_pct: float = 0.0,
+    *,
+    model: str | MeltingModel = "katz2003",
+    min_top_km: float = DEFAULT_MIN_TOP_KM,
+    step_gpa: float = DEFAULT_PRESSURE_STEP_GPA,
+    below_onset_km: float = 30.0,
+):
+    """Depth, pressure, temperature and melt fraction along one column, deepest first.
+
+    The profile starts ``below_onset_km`` below the onset on the solid isentrope (or at twice the
+    top depth when the column does not melt) and ends at the top of melting.
+
+    Returns
+    -------
+    dict of numpy.ndarray
+        ``depth_km``, ``pressure_gpa``, ``temperature_c``, ``melt_fraction``.
+    """
+    model = get_model(model)
+    tp, w = float(potential_temperature_c), float(water_wt_pct)
+    top_km = float(top_of_melting_km(lid_depth_km, min_top_km))
+    top_p = float(model.pressure_gpa(top_km))
+    p_on = float(onset_pressure_gpa(model, tp, w))
+    base_p = (p_on if np.isfinite(p_on) else top_p) + float(model.pressure_gpa(below_onset_km))
+    base_p = max(base_p, 2.0 * top_p)
+    nodes = int(np.ceil(base_p / step_gpa)) + 1
+    pressures = np.linspace(base_p, top_p, max(nodes - int(top_p / step_gpa), 2))
+    if np.isfinite(p_on) and p_on > top_p:
+        solid_p = pressures[pressures > p_on]
+        melt_p = np.concatenate([[p_on], pressures[pressures < p_on]])
+        temps, fracs = [], []
+        t_k, f = model.solid_adiabat_c(tp, p_on) + 273.15, 0.0
+        prev = p_on
+        for pn in melt_p:
+            if pn < prev:
+                t_arr, f_arr = _step(
+                    model,
+                    np.array([prev]),
+                    np.array([t_k]),
+                    np.array([f]),
+                    np.array([pn]),
+                    np.array([w]),
+                )
+                t_k, f = float(t_arr[0]), float(f_arr[0])
+            temps.append(t_k - 273.15)
+            fracs.append(f)
+            prev = pn
+        p_all = np.concatenate([solid_p, melt_p])
+        t_all = np.concatenate([model.solid_adiabat_c(tp, solid_p), temps])
+        f_all = np.concatenate([np.zeros(solid_p.size), fracs])
+    else:
+        p_all = pressures
+        t_all = model.solid_adiabat_c(tp, p_all)
+        f_all = np.zeros(p_all.size)
+    return {
+        "depth_km": model.depth_km(p_all),
+        "pressure_gpa": p_all,
+        "temperature_c": t_all,
+        "melt_fraction": f_all,
+    }

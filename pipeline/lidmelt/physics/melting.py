@@ -1,0 +1,564 @@
+"""Melting models: named, frozen, cited parameter sets with vectorized melting laws.
+
+A melting model gives, at pressure ``P`` (GPa) and source water content (wt% of the bulk
+source), the temperature (deg C) at which the source holds a melt mass fraction ``F``:
+:meth:`MeltingModel.temperature_c`. Because that is explicit in ``F`` for every model here, the
+isentropic column (:mod:`lidmelt.physics.column`) solves for ``F`` rather than for ``T``, and
+the implicit hydrous melt fraction needs no nested iteration. :meth:`MeltingModel.melt_fraction`
+is the inverse, solved by bracketing.
+
+Each model also carries the thermodynamic constants of its isentrope (specific heat, entropy of
+melting, expansivities and densities) and the lithostatic pressure-depth conversion, so that
+every number a run produces follows from the parameters stored with it.
+
+References
+----------
+.. [Katz2003] Katz, R. F., Spiegelman, M. & Langmuir, C. H. (2003). A new parameterization of
+   hydrous mantle melting. Geochem. Geophys. Geosyst. 4(9), 1073, doi:10.1029/2002GC000433.
+.. [MB1988] McKenzie, D. & Bickle, M. J. (1988). The volume and composition of melt generated
+   by extension of the lithosphere. J. Petrology 29, 625-679.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import difflib
+from dataclasses import dataclass, field
+from typing import Any, ClassVar
+
+import numpy as np
+
+from lidmelt.errors import ModelError
+
+GPA = 1.0e9  # Pa per GPa (definition)
+
+
+def _bisect_increasing(func, lo, hi, target, *, iterations=60):
+    """Solve ``func(x) = target`` for x in [lo, hi] elementwise, func increasing; vectorized."""
+    lo = np.array(lo, dtype=float, copy=True)
+    hi = np.array(hi, dtype=float, copy=True)
+    for _ in range(iterations):
+        mid = 0.5 * (lo + hi)
+        above = func(mid) > target
+        hi = np.where(above, mid, hi)
+        lo = np.where(above, lo, mid)
+    return 0.5 * (lo + hi)
+
+
+@dataclass(frozen=True, kw_only=True)
+class MeltingModel:
+    """Common fields of a melting model. SI units unless a suffix says otherwise.
+
+    Parameters
+    ----------
+    name : str
+        Registry name, e.g. ``"katz2003"``.
+    specific_heat_j_kg_k : float
+        Specific heat c_p of solid and melt. Units: J kg^-1 K^-1.
+    entropy_of_melting_j_kg_k : float
+        Entropy change on melting Delta S. Units: J kg^-1 K^-1.
+    solid_expansivity_k, melt_expansivity_k : float
+        Thermal expansivities alpha_s, alpha_f. Units: K^-1.
+    solid_density_kg_m3, melt_density_kg_m3 : float
+        Densities rho_s, rho_f used in the isentrope. Units: kg m^-3.
+    lithostatic_density_kg_m3, gravity_m_s2 : float
+        Pressure below the seafloor is P = rho g z (lidmelt's fixed definition, PHYSICS.md
+        section 8). Defaults 3300 kg m^-3 and 9.81 m s^-2: common practice, no single source.
+    max_onset_pressure_gpa : float
+        Deepest pressure searched for the solidus crossing. Units: GPa.
+    calibrated_max_pressure_gpa : float
+        Onsets deeper than this are computed but flagged as beyond calibration. Units: GPa.
+    reference : str
+        Citation of the parameter set.
+    """
+
+    name: str
+    specific_heat_j_kg_k: float
+    entropy_of_melting_j_kg_k: float
+    solid_expansivity_k: float
+    melt_expansivity_k: float
+    solid_density_kg_m3: float
+    melt_density_kg_m3: float
+    lithostatic_density_kg_m3: float = 3300.0
+    gravity_m_s2: float = 9.81
+    max_onset_pressure_gpa: float = 13.0
+    calibrated_max_pressure_gpa: float = 7.0
+    reference: str = ""
+    sources: dict[str, str] = field(default_factory=dict, compare=False, hash=False, repr=False)
+
+    hydrous: ClassVar[bool] = False
+
+    def __post_init__(self) -> None:
+        for f in dataclasses.fields(self):
+            value = getattr(self, f.name)
+            if f.type in ("float", float) and not (np.isfinite(value)):
+                msg = f"model parameter {f.name}={value!r} must be a finite number."
+                raise ModelError(msg)
+        positive = (
+            "specific_heat_j_kg_k",
+            "entropy_of_melting_j_kg_k",
+            "solid_density_kg_m3",
+            "melt_density_kg_m3",
+            "lithostatic_density_kg_m3",
+            "gravity_m_s2",
+            "max_onset_pressure_gpa",
+            "calibrated_max_pressure_gpa",
+        )
+        for key in positive:
+            value = getattr(self, key)
+            if not value > 0:
+                msg = (
+                    f"model parameter {key}={value!r} must be > 0 (SI units as its suffix "
+                    "says). Check the override in the workflow's [model.parameters]."
+                )
+                raise ModelError(msg)
+
+    # -- parameters ---------------------------------------------------------------------------
+    def parameters(self) -> dict[str, float]:
+        """All numeric parameters by name (for provenance and the table cache key)."""
+        skip = {"name", "reference", "sources"}
+        return {
+            f.name: float(getattr(self, f.name))
+            for f in dataclasses.fields(self)
+            if f.name not in skip
+        }
+
+    def describe(self) -> str:
+        """A short text with every parameter, its value and its source."""
+        lines = [f"{self.name}: {self.reference}"]
+        for key, value in self.parameters().items():
+            src = self.sources.get(key, "")
+            lines.append(f"  {key} = {value:g}" + (f"  [{src}]" if src else ""))
+        return "\n".join(lines)
+
+    # -- pressure and the solid isentrope ------------------------------------------------------
+    def depth_km(self, pressure_gpa):
+        """Depth below the seafloor [km] of lithostatic pressure ``pressure_gpa`` (P = rho g z)."""
+        return (
+            np.asarray(pressure_gpa)
+            * GPA
+            / (self.lithostatic_density_kg_m3 * self.gravity_m_s2)
+            / 1e3
+        )
+
+    def pressure_gpa(self, depth_km):
+        """Lithostatic pressure [GPa] at ``depth_km`` below the seafloor (P = rho g z)."""
+        return np.asarray(depth_km) * 1e3 * self.lithostatic_density_kg_m3 * self.gravity_m_s2 / GPA
+
+    @property
+    def adiabat_coefficient_per_gpa(self) -> float:
+        """alpha_s / (rho_s c_p) in GPa^-1: the solid isentrope is T = Tp exp(coef * P), T in K.
+
+        Follows from ds = c_p dT/T - (alpha_s/rho_s) dP = 0 (PHYSICS.md 1.4) [derived].
+        """
+        return (
+            self.solid_expansivity_k / (self.solid_density_kg_m3 * self.specific_heat_j_kg_k) * GPA
+        )
+
+    def solid_adiabat_c(self, potential_temperature_c, pressure_gpa):
+        """Temperature [deg C] on the solid isentrope of potential temperature Tp at ``P``."""
+        tp_k = np.asarray(potential_temperature_c) + 273.15
+        return tp_k * np.exp(self.adiabat_coefficient_per_gpa * np.asarray(pressure_gpa)) - 273.15
+
+    # -- the melting law (model specific) --------------------------------------------------------
+    def pressure_terms(self, pressure_gpa, water_wt_pct=0.0) -> tuple:
+        """Quantities of the melting law that depend on P and water only (reused while F varies)."""
+        raise NotImplementedError
+
+    def temperature_from_terms(self, terms: tuple, melt_fraction):
+        """T [deg C] at melt fraction F, given :meth:`pressure_terms` of the same P and water."""
+        raise NotImplementedError
+
+    def temperature_c(self, pressure_gpa, melt_fraction, water_wt_pct=0.0):
+        """Temperature [deg C] at which the source holds melt fraction F at pressure P."""
+        p, f, w = np.broadcast_arrays(
+            np.asarray(pressure_gpa, float),
+            np.asarray(melt_fraction, float),
+            np.asarray(water_wt_pct, float),
+        )
+        return self.temperature_from_terms(self.pressure_terms(p, w), f)
+
+    def solidus_c(self, pressure_gpa, water_wt_pct=0.0):
+        """(Water-depressed) solidus [deg C]: :meth:`temperature_c` at F = 0."""
+        return self.temperature_c(
+            pressure_gpa, np.zeros_like(np.asarray(pressure_gpa, float)), water_wt_pct
+        )
+
+    def liquidus_c(self, pressure_gpa, water_wt_pct=0.0):
+        """(Water-depressed) liquidus [deg C]: :meth:`temperature_c` at F = 1."""
+        return self.temperature_c(
+            pressure_gpa, np.ones_like(np.asarray(pressure_gpa, float)), water_wt_pct
+        )
+
+    def melt_fraction(self, pressure_gpa, temperature_c, water_wt_pct=0.0):
+        """Equilibrium melt mass fraction F in [0, 1] at P [GPa], T [deg C] (batch melting).
+
+        Solved by bisection on F, since :meth:`temperature_c` increases with F.
+        """
+        p, t, w = np.broadcast_arrays(
+            np.asarray(pressure_gpa, float),
+            np.asarray(temperature_c, float),
+            np.asarray(water_wt_pct, float),
+        )
+        f = _bisect_increasing(
+            lambda x: self.temperature_c(p, x, w), np.zeros(p.shape), np.ones(p.shape), t
+        )
+        f = np.where(t <= self.temperature_c(p, 0.0, w), 0.0, f)
+        f = np.where(t >= self.temperature_c(p, 1.0, w), 1.0, f)
+        return np.where(np.isnan(t) | np.isnan(p) | np.isnan(w), np.nan, f)
+
+    def water_saturated_bulk_wt_pct(self, pressure_gpa):
+        """Bulk water [wt%] above which the source holds free water at P (inf if anhydrous law)."""
+        return np.full_like(np.asarray(pressure_gpa, float), np.inf)
+
+
+@dataclass(frozen=True, kw_only=True)
+class KatzModel(MeltingModel):
+    """Katz, Spiegelman & Langmuir (2003) parameterization of dry and hydrous peridotite melting.
+
+    Temperatures in deg C, pressures in GPa, water in wt%. All constants are from Table 2 of
+    [Katz2003]_, verified (secondary) against a geodynamics code's parameter header that quotes
+    the table (PHYSICS.md 1.2), except where a field's source says [from memory].
+
+    Notes
+    -----
+    Anhydrous law ([Katz2003]_ eqs. 3-10; forms from memory, branch structure verified
+    secondary)::
+
+        T_sol = A1 + A2 P + A3 P^2          T_lherz = B1 + B2 P + B3 P^2
+        T_liq = C1 + C2 P + C3 P^2          R_cpx = r0 + r1 P
+        F_cpx-out = M_cpx / R_cpx
+        T_cpx-out = F_cpx-out^(1/beta1) (T_lherz - T_sol) + T_sol
+        F = ((T - T_sol)/(T_lherz - T_sol))^beta1                             T <= T_cpx-out
+        F = F_cpx-out + (1 - F_cpx-out) ((T - T_cpx-out)/(T_liq - T_cpx-out))^beta2
+
+    Water lowers every branch by Delta T = K X^gamma with X = min(X_bulk/(D + F(1 - D)), X_sat)
+    and X_sat = chi1 P^lambda + chi2 P (batch partitioning, [Katz2003]_ section 2.3; PHYSICS.md
+    1.3). Inverted for T at given F, both branches are explicit, so this class returns T(P, F).
+    """
+
+    solidus_a1_c: float = 1085.7
+    solidus_a2_c_gpa: float = 132.9
+    solidus_a3_c_gpa2: float = -5.1
+    lherzolite_liquidus_b1_c: float = 1475.0
+    lherzolite_liquidus_b2_c_gpa: float = 80.0
+    lherzolite_liquidus_b3_c_gpa2: float = -3.2
+    liquidus_c1_c: float = 1780.0
+    liquidus_c2_c_gpa: float = 45.0
+    liquidus_c3_c_gpa2: float = -2.0
+    cpx_reaction_r0: float = 0.5
+    cpx_reaction_r1_gpa: float = 0.08
+    beta1: float = 1.5
+    beta2: float = 1.5
+    cpx_mass_fraction: float = 0.17
+    water_depression_k_c: float = 43.0
+    water_depression_gamma: float = 0.75
+    water_partition_coefficient: float = 0.01
+    saturation_chi1_wt_pct: float = 12.0
+    saturation_chi2_wt_pct_gpa: float = 1.0
+    saturation_lambda: float = 0.6
+
+    hydrous: ClassVar[bool] = True
+
+    def __post_init__(self) -> None:
+        super().__post_init__()
+        checks = {
+            "cpx_mass_fraction": (0.0, 1.0),
+            "water_partition_coefficient": (0.0, 1.0),
+            "beta1": (0.0, np.inf),
+            "beta2": (0.0, np.inf),
+            "water_depression_gamma": (0.0, np.inf),
+        }
+        for key, (lo, hi) in checks.items():
+            value = getattr(self, key)
+            if not lo < value <= hi:
+                msg = (
+                    f"Katz (2003) parameter {key}={value!r} is outside ({lo}, {hi}]. "
+                    "Table 2 of Katz et al. (2003) gives the published value."
+                )
+                raise ModelError(msg)
+
+    def saturation_wt_pct(self, pressure_gpa):
+        """Water saturation of the melt X_sat = chi1 P^lambda + chi2 P [wt%] ([Katz2003]_ eq 17)."""
+        p = np.maximum(np.asarray(pressure_gpa, float), 0.0)
+        return (
+            self.saturation_chi1_wt_pct * p**self.saturation_lambda
+            + self.saturation_chi2_wt_pct_gpa * p
+        )
+
+    def pressure_terms(self, pressure_gpa, water_wt_pct=0.0) -> tuple:
+        """T_sol, T_lherz, T_liq, F_cpx-out, T_cpx-out, X_sat and bulk water at P."""
+        p = np.asarray(pressure_gpa, float)
+        t_sol = self.solidus_a1_c + self.solidus_a2_c_gpa * p + self.solidus_a3_c_gpa2 * p * p
+        t_lherz = (
+            self.lherzolite_liquidus_b1_c
+            + self.lherzolite_liquidus_b2_c_gpa * p
+            + self.lherzolite_liquidus_b3_c_gpa2 * p * p
+        )
+        t_liq = self.liquidus_c1_c + self.liquidus_c2_c_gpa * p + self.liquidus_c3_c_gpa2 * p * p
+        f_cpx = np.minimum(
+            self.cpx_mass_fraction / (self.cpx_reaction_r0 + self.cpx_reaction_r1_gpa * p), 1.0
+        )
+        t_cpx = f_cpx ** (1.0 / self.beta1) * (t_lherz - t_sol) + t_sol
+        w = np.asarray(water_wt_pct, float)
+        x_sat = self.saturation_wt_pct(p) if np.any(w) else None
+        return t_sol, t_lherz, t_liq, f_cpx, t_cpx, x_sat, w
+
+    def temperature_from_terms(self, terms: tuple, melt_fraction):
+        """T(P, F, water) [deg C]: the inverse of [Katz2003]_ eqs. 3 and 9, lowered by water.
+
+        Delta T = K X^gamma with X = min(X_bulk/(D + F(1 - D)), X_sat) ([Katz2003]_ eq. 16, 18).
+        """
+        t_sol, t_lherz, t_liq, f_cpx, t_cpx, x_sat, w = terms
+        f = np.clip(melt_fraction, 0.0, 1.0)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            t_present = t_sol + f ** (1.0 / self.beta1) * (t_lherz - t_sol)
+            reduced = np.clip((f - f_cpx) / (1.0 - f_cpx), 0.0, 1.0)
+            t_free = t_cpx + reduced ** (1.0 / self.beta2) * (t_liq - t_cpx)
+        t = np.where(f <= f_cpx, t_present, t_free)
+        if x_sat is None:
+            return t
+        d = self.water_partition_coefficient
+        x = np.minimum(w / (d + f * (1.0 - d)), x_sat)
+        return t - self.water_depression_k_c * np.maximum(x, 0.0) ** self.water_depression_gamma
+
+    def water_in_melt_wt_pct(self, pressure_gpa, melt_fraction, water_wt_pct):
+        """Water in the melt X = min(X_bulk / (D + F (1 - D)), X_sat) [wt%] (batch, capped)."""
+        d = self.water_partition_coefficient
+        x = np.asarray(water_wt_pct, float) / (d + np.asarray(melt_fraction, float) * (1.0 - d))
+        return np.minimum(x, self.saturation_wt_pct(pressure_gpa))
+
+    def water_saturated_bulk_wt_pct(self, pressure_gpa):
+        """Bulk water [wt%] that saturates the solid source, D X_sat(P) [derived].
+
+        Above it the source holds free water at P, outside the batch-partitioning model.
+        """
+        return self.water_partition_coefficient * self.saturation_wt_pct(pressure_gpa)
+
+
+@dataclass(frozen=True, kw_only=True)
+class McKenzieBickleModel(MeltingModel):
+    """McKenzie & Bickle (1988) anhydrous melting of peridotite.
+
+    Notes
+    -----
+    All forms and constants are [from memory] (PHYSICS.md 2; the paper was not at hand)::
+
+        P = (T_s - s0)/s1 + s2 exp[s3 (T_s - s0)]       (solidus, implicit in T_s)
+        T_l = l0 + l1 P + l2 atan(P / l3)                (liquidus)
+        T' = (T - (T_s + T_l)/2) / (T_l - T_s)
+        F = 0.5 + T' + (T'^2 - 0.25)(a0 + a1 T')
+
+    The thermodynamic constants of the isentrope are not verified (PHYSICS.md 2: c_p = 1200,
+    alpha = 4e-5, Delta S = 250, [from memory, low confidence]). The model is anhydrous: a
+    source with water is outside it and is flagged invalid.
+    """
+
+    solidus_s0_c: float = 1100.0
+    solidus_s1_c_gpa: float = 136.0
+    solidus_s2_gpa: float = 4.968e-4
+    solidus_s3_per_c: float = 1.2e-2
+    liquidus_l0_c: float = 1736.2
+    liquidus_l1_c_gpa: float = 4.343
+    liquidus_l2_c: float = 180.0
+    liquidus_l3_gpa: float = 2.2169
+    fraction_a0: float = 0.4256
+    fraction_a1: float = 2.988
+
+    def solidus_dry_c(self, pressure_gpa):
+        """Dry solidus T_s(P) [deg C], by bisection of the implicit form (increasing in T_s)."""
+        p = np.asarray(pressure_gpa, float)
+
+        def pressure_of(ts):
+            return (ts - self.solidus_s0_c) / self.solidus_s1_c_gpa + self.solidus_s2_gpa * np.exp(
+                self.solidus_s3_per_c * (ts - self.solidus_s0_c)
+            )
+
+        lo = np.full(p.shape, self.solidus_s0_c - 200.0)
+        hi = np.full(
+            p.shape, self.solidus_s0_c + self.solidus_s1_c_gpa * np.maximum(p, 0.0) + 200.0
+        )
+        return _bisect_increasing(pressure_of, lo, hi, p, iterations=50)
+
+    def liquidus_dry_c(self, pressure_gpa):
+        """Dry liquidus T_l(P) [deg C]."""
+        p = np.asarray(pressure_gpa, float)
+        return (
+            self.liquidus_l0_c
+            + self.liquidus_l1_c_gpa * p
+            + self.liquidus_l2_c * np.arctan(p / self.liquidus_l3_gpa)
+        )
+
+    def melt_fraction_of_reduced(self, reduced_temperature):
+        """F(T') = 0.5 + T' + (T'^2 - 0.25)(a0 + a1 T') ([MB1988]_, from memory)."""
+        tr = np.asarray(reduced_temperature, float)
+        return 0.5 + tr + (tr * tr - 0.25) * (self.fraction_a0 + self.fraction_a1 * tr)
+
+    def _reduced_of_fraction(self, f):
+        """Invert F(T') on [-0.5, 0.5] (monotone): a table guess, then Newton steps."""
+        grid = np.linspace(-0.5, 0.5, 2001)
+        tr = np.interp(f, self.melt_fraction_of_reduced(grid), grid)
+        a0, a1 = self.fraction_a0, self.fraction_a1
+        for _ in range(3):
+            slope = 1.0 + 2.0 * tr * (a0 + a1 * tr) + a1 * (tr * tr - 0.25)
+            tr = np.clip(tr - (self.melt_fraction_of_reduced(tr) - f) / slope, -0.5, 0.5)
+        return tr
+
+    def pressure_terms(self, pressure_gpa, water_wt_pct=0.0) -> tuple:
+        """Dry solidus and liquidus at P, and the water (which must be zero)."""
+        p = np.asarray(pressure_gpa, float)
+        return self.solidus_dry_c(p), self.liquidus_dry_c(p), np.asarray(water_wt_pct, float)
+
+    def temperature_from_terms(self, terms: tuple, melt_fraction):
+        """T(P, F) [deg C] = T' (T_l - T_s) + (T_s + T_l)/2; NaN where the source has water."""
+        t_s, t_l, w = terms
+        tr = self._reduced_of_fraction(np.clip(melt_fraction, 0.0, 1.0))
+        t = tr * (t_l - t_s) + 0.5 * (t_s + t_l)
+        return np.where(w > 0, np.nan, t) if np.any(w) else t
+
+
+_KATZ_SOURCES = {
+    **dict.fromkeys(
+        (
+            "solidus_a1_c",
+            "solidus_a2_c_gpa",
+            "solidus_a3_c_gpa2",
+            "lherzolite_liquidus_b1_c",
+            "lherzolite_liquidus_b2_c_gpa",
+            "lherzolite_liquidus_b3_c_gpa2",
+            "liquidus_c1_c",
+            "liquidus_c2_c_gpa",
+            "liquidus_c3_c_gpa2",
+            "cpx_reaction_r0",
+            "cpx_reaction_r1_gpa",
+            "beta1",
+            "beta2",
+            "water_depression_k_c",
+            "water_depression_gamma",
+            "water_partition_coefficient",
+            "saturation_chi1_wt_pct",
+            "saturation_chi2_wt_pct_gpa",
+            "saturation_lambda",
+            "specific_heat_j_kg_k",
+            "entropy_of_melting_j_kg_k",
+        ),
+        "Katz et al. 2003, Table 2 (verified secondary)",
+    ),
+    "cpx_mass_fraction": "Katz et al. 2003, fertile lherzolite (from memory)",
+    "solid_expansivity_k": "Katz et al. 2003, Table 2 (from memory)",
+    "melt_expansivity_k": "Katz et al. 2003, Table 2 (from memory)",
+    "solid_density_kg_m3": "Katz et al. 2003, Table 2 (from memory)",
+    "melt_density_kg_m3": "Katz et al. 2003, Table 2 (from memory)",
+    "lithostatic_density_kg_m3": "lidmelt definition, common practice",
+    "gravity_m_s2": "lidmelt definition, common practice",
+    "max_onset_pressure_gpa": "turnover of the Katz solidus quadratic at 13.03 GPa [derived]",
+    "calibrated_max_pressure_gpa": "onsets beyond ~7 GPa are extrapolation (PHYSICS.md trap 7)",
+}
+
+KATZ2003 = KatzModel(
+    name="katz2003",
+    specific_heat_j_kg_k=1000.0,
+    entropy_of_melting_j_kg_k=300.0,
+    solid_expansivity_k=40e-6,
+    melt_expansivity_k=68e-6,
+    solid_density_kg_m3=3300.0,
+    melt_density_kg_m3=2900.0,
+    reference=(
+        "Katz, R. F., Spiegelman, M. & Langmuir, C. H. (2003), G-cubed 4(9) 1073, "
+        "doi:10.1029/2002GC000433, Table 2"
+    ),
+    sources=_KATZ_SOURCES,
+)
+
+MCKENZIE_BICKLE1988 = McKenzieBickleModel(
+    name="mckenzie-bickle1988",
+    specific_heat_j_kg_k=1200.0,
+    entropy_of_melting_j_kg_k=250.0,
+    solid_expansivity_k=4e-5,
+    melt_expansivity_k=4e-5,
+    solid_density_kg_m3=3300.0,
+    melt_density_kg_m3=3300.0,
+    calibrated_max_pressure_gpa=7.0,
+    reference="McKenzie, D. & Bickle, M. J. (1988), J. Petrology 29, 625-679 (forms from memory)",
+    sources={
+        **dict.fromkeys(
+            (
+                "solidus_s0_c",
+                "solidus_s1_c_gpa",
+                "solidus_s2_gpa",
+                "solidus_s3_per_c",
+                "liquidus_l0_c",
+                "liquidus_l1_c_gpa",
+                "liquidus_l2_c",
+                "liquidus_l3_gpa",
+                "fraction_a0",
+                "fraction_a1",
+            ),
+            "McKenzie & Bickle 1988 (from memory)",
+        ),
+        **dict.fromkeys(
+            (
+                "specific_heat_j_kg_k",
+                "entropy_of_melting_j_kg_k",
+                "solid_expansivity_k",
+                "melt_expansivity_k",
+                "solid_density_kg_m3",
+                "melt_density_kg_m3",
+            ),
+            "McKenzie & Bickle 1988 (from memory, low confidence)",
+        ),
+        "lithostatic_density_kg_m3": "lidmelt definition, common practice",
+        "gravity_m_s2": "lidmelt definition, common practice",
+        "max_onset_pressure_gpa": "lidmelt search limit (upper mantle)",
+        "calibrated_max_pressure_gpa": "lidmelt choice, as for Katz 2003 (from memory)",
+    },
+)
+
+MODELS: dict[str, MeltingModel] = {m.name: m for m in (KATZ2003, MCKENZIE_BICKLE1988)}
+
+
+def get_model(name: str | MeltingModel = "katz2003", **parameters: Any) -> MeltingModel:
+    """Return the named melting model, with any parameters replaced.
+
+    Parameters
+    ----------
+    name : str or MeltingModel
+        A registry name (``"katz2003"``, ``"mckenzie-bickle1988"``) or a model object.
+    **parameters
+        Overrides of named fields, e.g. ``cpx_mass_fraction=0.15``. The variant keeps the name
+        and its parameter values travel with every result made from it.
+
+    Raises
+    ------
+    ModelError
+        Unknown model name or parameter name, or an invalid value.
+    """
+    if isinstance(name, MeltingModel):
+        base = name
+    else:
+        key = str(name).strip().lower()
+        if key not in MODELS:
+            near = difflib.get_close_matches(key, list(MODELS), n=1)
+            hint = f" Did you mean {near[0]!r}?" if near else ""
+            msg = f"unknown melting model {name!r}. Valid models: {', '.join(MODELS)}.{hint}"
+            raise ModelError(msg)
+        base = MODELS[key]
+    if not parameters:
+        return base
+    valid = list(base.parameters())
+    for key in parameters:
+        if key not in valid:
+            near = difflib.get_close_matches(key, valid, n=1)
+            hint = f" Did you mean {near[0]!r}?" if near else ""
+            msg = (
+                f"{base.name} has no parameter {key!r}.{hint} Valid parameters: {', '.join(valid)}."
+            )
+            raise ModelError(msg)
+    try:
+        values = {k: float(v) for k, v in parameters.items()}
+    except (TypeError, ValueError) as exc:
+        msg = f"model parameters must be numbers; got {parameters!r}."
+        raise ModelError(msg) from exc
+    sources = dict(base.sources)
+    sources.update(dict.fromkeys(values, "user override"))
+    return dataclasses.replace(base, sources=sources, **values)

@@ -1,0 +1,393 @@
+"""The fast path: a precomputed melting table per model and parameter set.
+
+A column depends only on (Tp, water, top of melting), and for a given (Tp, water) the melt
+thickness, melt fraction and integral of P dF at every top pressure come from one integration
+from the onset to the surface. The table stores them on nodes of Tp, water and pressure, plus the
+onset pressure on nodes of Tp and water; evaluation is interpolation (bilinear in Tp and pressure,
+linear in the water coordinate u = water^0.75, in which the Katz solidus depression is linear
+below saturation). Cells outside the table, or next to a node with no onset, are integrated
+directly, so results are never clipped. The worst-case error against the direct integration is
+measured in tests/test_table.py over the whole supported range.
+
+Tables are cached on disk (``$LIDMELT_CACHE_DIR``, else ``$XDG_CACHE_HOME/lidmelt``, else
+``~/.cache/lidmelt``) under a SHA-256 of the model's class, every parameter value and the table
+layout, so that changing any parameter builds a new table.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import hashlib
+import json
+import os
+import tempfile
+from dataclasses import asdict, dataclass
+from functools import lru_cache
+from pathlib import Path
+
+import numpy as np
+
+from lidmelt.physics.column import (
+    COLUMN_OUTPUTS,
+    FLAG_BEYOND_CALIBRATION,
+    ColumnResult,
+    _direct,
+    finish_outputs,
+    input_flags,
+    integrate_columns,
+    onset_pressure_gpa,
+    refine_onset_gpa,
+    top_of_melting_km,
+)
+from lidmelt.physics.melting import MeltingModel, get_model
+
+TABLE_FORMAT = 1
+WATER_EXPONENT = 0.75  # the water coordinate u = water^0.75 (Katz et al. 2003 gamma)
+_BLOCK = 1 << 16
+
+
+@dataclass(frozen=True)
+class TableLayout:
+    """Nodes of the table. Temperatures in deg C, water in wt%, pressure in GPa."""
+
+    tp_min_c: float = 1100.0
+    tp_max_c: float = 1800.0
+    tp_step_k: float = 2.0
+    water_max_wt_pct: float = 0.1
+    water_nodes: int = 11
+    pressure_step_gpa: float = 0.02
+    integration_step_gpa: float = 0.01
+
+
+def cache_dir() -> Path:
+    """The folder where tables are cached."""
+    if os.environ.get("LIDMELT_CACHE_DIR"):
+        return Path(os.environ["LIDMELT_CACHE_DIR"])
+    base = os.environ.get("XDG_CACHE_HOME") or Path.home() / ".cache"
+    return Path(base) / "lidmelt"
+
+
+def table_key(model: MeltingModel, layout: TableLayout) -> str:
+    """SHA-256 of the model class, every parameter and the layout (the cache key)."""
+    doc = {
+        "format": TABLE_FORMAT,
+        "class": type(model).__name__,
+        "parameters": model.parameters(),
+        "layout": asdict(layout),
+    }
+    return hashlib.sha256(json.dumps(doc, sort_keys=True).encode()).hexdigest()
+
+
+class MeltTable:
+    """Tabulated melting columns of one model; evaluate with :meth:`melt_column`."""
+
+    def __init__(self, model: MeltingModel, layout: TableLayout, arrays: dict[str, np.ndarray]):
+        self.model = model
+        self.layout = layout
+        self.tp_c = arrays["tp_c"]
+        self.water_u = arrays["water_u"]
+        self.pressure_gpa = arrays["pressure_gpa"]
+        self.onset_gpa = arrays["onset_gpa"]  # (n_tp, n_water)
+        self.values = arrays["values"]  # (n_tp, n_water, n_p, 3): H km, F, int P dF
+        self._slices: dict[float, np.ndarray] = {}
+
+    # -- building --------------------------------------------------------------------------------
+    @classmethod
+    def build(cls, model: MeltingModel, layout: TableLayout = TableLayout()) -> MeltTable:
+        """Integrate every (Tp, water) node column from its onset to the surface."""
+        if not model.hydrous:
+            layout = TableLayout(**{**asdict(layout), "water_max_wt_pct": 0.0, "water_nodes": 1})
+        n_tp = round((layout.tp_max_c - layout.tp_min_c) / layout.tp_step_k) + 1
+        tp = layout.tp_min_c + layout.tp_step_k * np.arange(n_tp)
+        water_u = np.linspace(0.0, layout.water_max_wt_pct**WATER_EXPONENT, layout.water_nodes)
+        water = water_u ** (1.0 / WATER_EXPONENT)
+        p_max = model.max_onset_pressure_gpa
+        ratio = round(layout.pressure_step_gpa / layout.integration_step_gpa)
+        n_p = int(np.floor(p_max / layout.pressure_step_gpa + 1e-9)) + 1
+        pressure = layout.pressure_step_gpa * np.arange(n_p)
+        tt, ww = np.meshgrid(tp, water, indexing="ij")
+        onset = onset_pressure_gpa(model, tt, ww)
+        rec = integrate_columns(
+            model,
+            tt.ravel(),
+            ww.ravel(),
+            onset.ravel(),
+            0.0,
+            step_gpa=layout.integration_step_gpa,
+            record_nodes=(n_p - 1) * ratio + 1,
+        )
+        keys = ("node_melt_thickness_km", "node_melt_fraction", "node_int_p_df_gpa")
+        values = np.stack([rec[k][:, ::ratio] for k in keys], axis=-1)
+        values = values.reshape(n_tp, layout.water_nodes, n_p, 3)
+        values[~np.isfinite(onset)] = np.nan
+        arrays = {
+            "tp_c": tp,
+            "water_u": water_u,
+            "pressure_gpa": pressure,
+            "onset_gpa": onset,
+            "values": values.astype(np.float32),
+        }
+        return cls(model, layout, arrays)
+
+    def save(self, path: Path) -> None:
+        """Write the table as .npz through a temporary file renamed into place."""
+        path.parent.mkdir(parents=True, exist_ok=True)
+        fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=".tmp-", suffix=".npz")
+        try:
+            with os.fdopen(fd, "wb") as fh:
+                np.savez(
+                    fh,
+                    tp_c=self.tp_c,
+                    water_u=self.water_u,
+                    pressure_gpa=self.pressure_gpa,
+                    onset_gpa=self.onset_gpa,
+                    values=self.values,
+                    key=np.array(table_key(self.model, self.layout)),
+                )
+            Path(tmp).replace(path)
+        except BaseException:
+            Path(tmp).unlink(missing_ok=True)
+            raise
+
+    @classmethod
+    def load(cls, path: Path, model: MeltingModel, layout: TableLayout) -> MeltTable | None:
+        """Read a cached table; None if missing, unreadable or made for other parameters."""
+        try:
+            with np.load(path) as data:
+                if str(data["key"]) != table_key(model, layout):
+                    return None
+                arrays = {
+                    k: data[k] for k in ("tp_c", "water_u", "pressure_gpa", "onset_gpa", "values")
+                }
+        except (OSError, KeyError, ValueError):
+            return None
+        return cls(model, layout, arrays)
+
+    # -- evaluation ------------------------------------------------------------------------------
+    def _rough_intervals(self, onset: np.ndarray) -> np.ndarray:
+        """Tp intervals (axis 0) where linear interpolation of the onset is not accurate.
+
+        Linear interpolation errs by about h^2 |P0''| / 8; intervals where the second difference
+        of the onset says that exceeds 0.02 km, or that touch a node without an onset (near the
+        tangency of isentrope and solidus, PHYSICS.md trap 7), are integrated directly instead.
+        """
+        km = float(self.model.depth_km(1.0))
+        second = np.full(onset.shape, np.inf)
+        if onset.shape[0] > 2:
+            second[1:-1] = np.abs(onset[:-2] - 2 * onset[1:-1] + onset[2:]) / 8.0 * km
+            second[0], second[-1] = second[1], second[-2]
+        bad = ~np.isfinite(second) | (second > 0.02)
+        out = bad[:-1] | bad[1:]
+        out[:-1] |= bad[2:]
+        out[1:] |= bad[:-2]
+        return out
+
+    @property
+    def rough(self) -> np.ndarray:
+        """(n_tp - 1, max(n_water - 1, 1)) table cells integrated directly (see above)."""
+        if not hasattr(self, "_rough"):
+            on = self.onset_gpa
+            along_tp = self._rough_intervals(on)
+            if on.shape[1] == 1:
+                self._rough = along_tp
+            else:
+                no_onset = ~np.isfinite(on)
+                near_w = no_onset[:, :-1] | no_onset[:, 1:]
+                self._rough = along_tp[:, :-1] | along_tp[:, 1:] | near_w[:-1] | near_w[1:]
+        return self._rough
+
+    def _water_index(self, water):
+        if self.water_u.size == 1:
+            return np.zeros(np.shape(water), np.intp), np.zeros(np.shape(water))
+        u = np.maximum(water, 0.0) ** WATER_EXPONENT / (self.water_u[1] - self.water_u[0])
+        j = np.clip(u.astype(np.intp), 0, self.water_u.size - 2)
+        return j, u - j
+
+    def _slice(self, water: float) -> np.ndarray:
+        """The table at one water content, packed for one gather per cell.
+
+        Row i * (n_p - 1) + k holds the 4 corners (i, k), (i, k + 1), (i + 1, k), (i + 1, k + 1)
+        of (H, F, integral P dF, onset), 16 float32 values. H, F and P dF are linear in the water
+        coordinate between nodes; the onsets are exact at this water (searched at every Tp node).
+        Rough intervals get NaN onsets, which sends their cells to direct integration.
+        """
+        key = float(water)
+        if key not in self._slices:
+            j, a = (
+                int(v) if n == 0 else float(v)
+                for n, v in enumerate(self._water_index(np.array(key)))
+            )
+            j1 = min(j + 1, self.water_u.size - 1)
+            vals = (1 - a) * self.values[:, j] + a * self.values[:, j1]
+            onset = onset_pressure_gpa(self.model, self.tp_c, key)
+            rough = self._rough_intervals(onset)
+            n_p = self.pressure_gpa.size
+            v = np.concatenate([vals, np.repeat(onset[:, None, None], n_p, axis=1)], axis=2)
+            packed = np.concatenate([v[:-1, :-1], v[:-1, 1:], v[1:, :-1], v[1:, 1:]], axis=2)
+            packed[rough, :, 3::4] = np.nan
+            if len(self._slices) > 16:
+                self._slices.clear()
+            self._slices[key] = np.ascontiguousarray(packed.reshape(-1, 16), dtype=np.float32)
+        return self._slices[key]
+
+    def in_range(self, tp, water):
+        """Where (Tp, water) lie inside the table's nodes."""
+        lay = self.layout
+        with np.errstate(invalid="ignore"):
+            return (
+                (tp >= lay.tp_min_c)
+                & (tp <= lay.tp_max_c)
+                & (water >= 0)
+                & (water <= lay.water_max_wt_pct)
+            )
+
+    def _fast(self, tp, lid, water, min_top_km, out):
+        """One-water evaluation into ``out`` (dict of 1-D arrays); return cells it cannot do.
+
+        The cells it returns (invalid inputs, outside the table, rough or without onset,
+        saturated water) are left for :func:`lidmelt.physics.column._direct`, which is exact.
+        """
+        model, lay = self.model, self.layout
+        packed = self._slice(water)
+        n_tp, n_p = self.tp_c.size, self.pressure_gpa.size
+        gpa_per_km = float(model.pressure_gpa(1.0))
+        km_per_gpa = 1.0 / gpa_per_km
+        sol0 = float(model.solidus_c(0.0, 0.0))
+        tp_lo = max(lay.tp_min_c, np.nextafter(sol0, np.inf))
+        p_sat = _saturation_onset_gpa(model, water)
+        cal = model.calibrated_max_pressure_gpa
+        special = np.zeros(tp.size, bool)
+        x_hi = n_tp - 1.0
+        inv_dtp, inv_dp = 1.0 / lay.tp_step_k, 1.0 / lay.pressure_step_gpa
+        x_lo = (tp_lo - lay.tp_min_c) * inv_dtp
+        for start in range(0, tp.size, _BLOCK):
+            sl = slice(start, start + _BLOCK)
+            lb = lid[sl]
+            x = (tp[sl] - lay.tp_min_c) * inv_dtp
+            top_km = np.maximum(lb, min_top_km)
+            top_p = top_km * gpa_per_km
+            y = top_p * inv_dp
+            i = x.astype(np.intp)
+            k = y.astype(np.intp)
+            a = (x - i).astype(np.float32)[:, None]
+            b = (y - k).astype(np.float32)[:, None]
+            # indices of invalid cells may be garbage: mode="clip" keeps the gather in bounds
+            v = np.take(packed, i * (n_p - 1) + np.minimum(k, n_p - 2), axis=0, mode="clip")
+            v0 = v[:, 0:4] + b * (v[:, 4:8] - v[:, 0:4])
+            r = v0 + a * (v[:, 8:12] + b * (v[:, 12:16] - v[:, 8:12]) - v0)
+            p_on = r[:, 3]
+            with np.errstate(invalid="ignore", divide="ignore"):
+                special[sl] = ~((x >= x_lo) & (x <= x_hi) & (lb >= 0) & (p_on >= p_sat))
+                melting = p_on > top_p
+                h = np.where(melting, r[:, 0], 0.0)
+                f = np.where(melting, r[:, 1], 0.0)
+                # the mean pressure of melting lies between the top and the onset [derived]
+                mean_p = np.clip(r[:, 2] / f, top_p, p_on)
+                out["mean_melt_pressure_gpa"][sl] = np.where(f > 0, mean_p, np.nan)
+            out["melt_thickness_km"][sl] = h
+            out["max_melt_fraction"][sl] = f
+            out["onset_pressure_gpa"][sl] = p_on
+            np.multiply(p_on, km_per_gpa, out=out["onset_depth_km"][sl])
+            out["lid_depth_km"][sl] = top_km
+            out["flag"][sl] = (p_on > cal) * np.uint8(FLAG_BEYOND_CALIBRATION)
+        return special
+
+    def _general(self, tp, lid, w, min_top_km):
+        """Evaluation where the water content varies: trilinear, onsets refined by Newton."""
+        model, lay = self.model, self.layout
+        n_tp, n_w, n_p = self.tp_c.size, self.water_u.size, self.pressure_gpa.size
+        flag = input_flags(model, tp, lid, w)
+        top_km = top_of_melting_km(lid, min_top_km)
+        top_p = model.pressure_gpa(top_km)
+        good = (flag == 0) & self.in_range(tp, w)
+        t = np.where(good, tp, lay.tp_min_c)
+        ww = np.where(good, w, 0.0)
+        x = (t - lay.tp_min_c) / lay.tp_step_k
+        i = np.clip(x.astype(np.intp), 0, n_tp - 2)
+        a = (x - i)[:, None]
+        y = np.where(good, top_p, 0.0) / lay.pressure_step_gpa
+        k = np.clip(y.astype(np.intp), 0, n_p - 2)
+        b = (y - k)[:, None]
+        j, c = self._water_index(ww)
+        j1 = np.minimum(j + 1, n_w - 1)
+        flat = self.values.reshape(-1, 3)
+        vals = 0.0
+        for jj, wgt in ((j, 1 - c[:, None]), (j1, c[:, None])):
+            q = (i * n_w + jj) * n_p + k
+            v00, v01 = flat[q], flat[q + 1]
+            v10, v11 = flat[q + n_w * n_p], flat[q + n_w * n_p + 1]
+            vals = vals + wgt * ((v00 + b * (v01 - v00)) * (1 - a) + (v10 + b * (v11 - v10)) * a)
+        on, a1 = self.onset_gpa, a[:, 0]
+        p_on = (on[i, j] * (1 - a1) + on[i + 1, j] * a1) * (1 - c) + (
+            on[i, j1] * (1 - a1) + on[i + 1, j1] * a1
+        ) * c
+        rough = self.rough[i, np.minimum(j, self.rough.shape[1] - 1)]
+        wet = good & ~rough & (ww > 0)
+        if wet.any():  # the onset is not linear in water: make it exact by Newton steps
+            p_on[wet] = refine_onset_gpa(model, t[wet], ww[wet], p_on[wet])
+        res = finish_outputs(model, tp, w, top_km, p_on, vals[:, 0], vals[:, 1], vals[:, 2], flag)
+        out = res.as_dict()
+        with np.errstate(invalid="ignore"):
+            out["mean_melt_pressure_gpa"] = np.clip(out["mean_melt_pressure_gpa"], top_p, p_on)
+        return out, (flag == 0) & (~good | rough)
+
+    def melt_column(
+        self, potential_temperature_c, lid_depth_km, water_wt_pct=0.0, *, min_top_km: float = 7.0
+    ):
+        """Table evaluation of :func:`lidmelt.physics.column.melt_column` (same outputs)."""
+        model = self.model
+        tp, lid, w = np.broadcast_arrays(
+            np.asarray(potential_temperature_c, float),
+            np.asarray(lid_depth_km, float),
+            np.asarray(water_wt_pct, float),
+        )
+        shape = tp.shape
+        tp, lid, w = tp.ravel(), lid.ravel(), w.ravel()
+        w0 = float(w[0]) if w.size else 0.0
+        if w.size and np.all(w == w0) and self.in_range(np.array(self.layout.tp_min_c), w0):
+            out = {name: np.empty(tp.size) for name in COLUMN_OUTPUTS}
+            out["flag"] = np.empty(tp.size, np.uint8)
+            direct = self._fast(tp, lid, w0, float(min_top_km), out)
+        else:
+            out, direct = self._general(tp, lid, w, min_top_km)
+        if direct.any():
+            exact = _direct(
+                model,
+                tp[direct],
+                lid[direct],
+                w[direct],
+                min_top_km=min_top_km,
+                step_gpa=self.layout.integration_step_gpa,
+            )
+            for name, arr in exact.as_dict().items():
+                out[name][direct] = arr
+        out = {name: arr.reshape(shape) for name, arr in out.items()}
+        return ColumnResult(**out, model=model)
+
+
+def _saturation_onset_gpa(model: MeltingModel, water: float) -> float:
+    """Pressure below which ``water`` [wt%] saturates the solid source (0 if never)."""
+    if water <= 0 or not model.hydrous:
+        return 0.0
+    p = np.linspace(0.0, model.max_onset_pressure_gpa, 13001)
+    over = water > model.water_saturated_bulk_wt_pct(p)
+    return float(p[np.argmin(over)]) if over.any() else 0.0
+
+
+@lru_cache(maxsize=16)
+def _cached_table(model: MeltingModel, layout: TableLayout, folder: str) -> MeltTable:
+    key = table_key(model, layout)
+    path = Path(folder) / f"{model.name}-{key[:16]}.npz"
+    table = MeltTable.load(path, model, layout)
+    if table is None:
+        table = MeltTable.build(model, layout)
+        with contextlib.suppress(OSError):  # a read-only cache only costs a rebuild next time
+            table.save(path)
+    return table
+
+
+def get_table(
+    model: str | MeltingModel = "katz2003", layout: TableLayout = TableLayout()
+) -> MeltTable:
+    """The table of ``model``, from memory, the disk cache, or built now (a few seconds)."""
+    return _cached_table(get_model(model), layout, str(cache_dir()))

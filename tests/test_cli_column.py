@@ -1,0 +1,155 @@
+"""The `lidmelt column` command, tested in-process and once as a subprocess."""
+
+import json
+import subprocess
+import sys
+
+import numpy as np
+import pytest
+
+from lidmelt.cli import main
+from lidmelt.physics import excess_to_melt_k, get_cooling_model, isotherm_depth_km, melt_column
+
+KEYS = {
+    "melt_thickness_km",
+    "onset_depth_km",
+    "onset_pressure_gpa",
+    "lid_depth_km",
+    "max_melt_fraction",
+    "mean_melt_pressure_gpa",
+    "excess_to_melt_k",
+}
+
+
+def run_json(capsys, *args):
+    assert main(["column", *args, "--json"]) == 0
+    return json.loads(capsys.readouterr().out)
+
+
+def test_json_has_every_key_and_matches_the_api(capsys):
+    doc = run_json(capsys, "--excess-temperature", "200", "--age", "80")
+    assert set(doc) >= KEYS
+    lid = float(isotherm_depth_km(1100.0, 80.0, model=get_cooling_model("half-space")))
+    res = melt_column(1550.0, lid, 0.0, method="direct")
+    assert doc["melt_thickness_km"] == pytest.approx(float(res.melt_thickness_km))
+    assert doc["lid_depth_km"] == pytest.approx(lid)
+    assert doc["excess_to_melt_k"] == pytest.approx(float(excess_to_melt_k(lid)))
+    # physically sensible (common practice): a 200 K plume under 80 Ma seafloor melts from below
+    # the lid; the onset is deeper than the lid and the excess needed is below the 200 K given
+    assert doc["melt_thickness_km"] > 0
+    assert doc["onset_depth_km"] > doc["lid_depth_km"]
+    assert 0 < doc["excess_to_melt_k"] < 200
+    assert doc["validity_flag"] == 0
+    assert doc["model"] == "katz2003"
+
+
+def test_no_melt_gives_null_mean_pressure(capsys):
+    doc = run_json(capsys, "--potential-temperature", "1350", "--lid-depth", "150")
+    assert doc["melt_thickness_km"] == 0.0
+    assert doc["mean_melt_pressure_gpa"] is None
+
+
+def test_model_parameter_override(capsys):
+    base = run_json(capsys, "--potential-temperature", "1550", "--lid-depth", "0")
+    lean = run_json(
+        capsys,
+        "--potential-temperature",
+        "1550",
+        "--lid-depth",
+        "0",
+        "--param",
+        "cpx_mass_fraction=0.12",
+    )
+    assert lean["model_parameters"]["cpx_mass_fraction"] == 0.12
+    assert lean["melt_thickness_km"] < base["melt_thickness_km"]
+
+
+def test_readable_table_and_profile(tmp_path, capsys):
+    prof = tmp_path / "column.csv"
+    assert (
+        main(
+            [
+                "column",
+                "--potential-temperature",
+                "1450",
+                "--lid-depth",
+                "40",
+                "--water",
+                "0.01",
+                "--profile",
+                str(prof),
+            ]
+        )
+        == 0
+    )
+    out = capsys.readouterr().out
+    assert "melt thickness" in out
+    assert "km" in out
+    assert "onset depth" in out
+    data = np.genfromtxt(prof, delimiter=",", names=True)
+    assert data.dtype.names == ("depth_km", "pressure_gpa", "temperature_c", "melt_fraction")
+    assert np.all(np.diff(data["depth_km"]) < 0)  # deepest first, up to the top of melting
+    assert data["depth_km"][-1] == pytest.approx(40.0)
+    assert 0 < data["melt_fraction"].max() <= 1
+    assert not list(tmp_path.glob(".*.tmp"))
+
+
+@pytest.mark.parametrize(
+    ("args", "message"),
+    [
+        (["--potential-temperature", "1000", "--lid-depth", "10"], "surface solidus"),
+        (["--potential-temperature", "1350", "--lid-depth", "-5"], "negative"),
+        (["--potential-temperature", "nan", "--lid-depth", "10"], "not a finite number"),
+        (["--potential-temperature", "1350", "--lid-depth", "10", "--water", "0.6"], "water"),
+        (["--potential-temperature", "1350", "--age", "-3"], "negative"),
+        (["--potential-temperature", "1350", "--lid-depth", "10", "--model", "katz"], "katz2003"),
+        (
+            [
+                "--potential-temperature",
+                "1350",
+                "--lid-depth",
+                "10",
+                "--model",
+                "mckenzie-bickle1988",
+                "--water",
+                "0.01",
+            ],
+            "anhydrous",
+        ),
+        (
+            ["--potential-temperature", "1350", "--lid-depth", "10", "--param", "beta1"],
+            "NAME=NUMBER",
+        ),
+    ],
+)
+def test_bad_input_is_a_clear_error(capsys, args, message):
+    assert main(["column", *args]) == 1
+    err = capsys.readouterr().err
+    assert message in err
+    assert "Traceback" not in err
+
+
+def test_beyond_calibration_is_noted(capsys):
+    doc = run_json(capsys, "--potential-temperature", "1640", "--lid-depth", "0")
+    assert doc["validity_flag"] == 4
+    assert "calibration" in capsys.readouterr().err or doc["onset_pressure_gpa"] > 7
+
+
+def test_python_dash_m_lidmelt():
+    out = subprocess.run(
+        [
+            sys.executable,
+            "-m",
+            "lidmelt",
+            "column",
+            "--potential-temperature",
+            "1350",
+            "--lid-depth",
+            "0",
+            "--json",
+        ],
+        capture_output=True,
+        text=True,
+        check=True,
+    )
+    assert 6.3 < json.loads(out.stdout)["melt_thickness_km"] < 7.9  # White et al. 1992, from memory

@@ -1,0 +1,123 @@
+"""The fast table path against the direct integration, and the table cache.
+
+The check values here are the direct integration itself (tests/test_column.py proves it against
+published values, identities and an independent solve_ivp solution); the tolerances are the
+issue's: 0.5 % or 0.02 km on melt thickness, whichever is larger, and 0.2 km on onset depth.
+"""
+
+import numpy as np
+import numpy.testing as npt
+import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
+
+from lidmelt.physics import get_model, get_table, melt_column
+from lidmelt.physics.table import MeltTable, TableLayout, cache_dir, table_key
+
+
+def assert_within_tolerance(direct, table):
+    for name in ("melt_thickness_km", "onset_depth_km", "max_melt_fraction", "lid_depth_km"):
+        a, b = getattr(direct, name), getattr(table, name)
+        npt.assert_array_equal(np.isnan(a), np.isnan(b), err_msg=name)
+    npt.assert_array_equal(direct.flag, table.flag)
+    ok = np.isfinite(direct.melt_thickness_km)
+    h_d, h_t = direct.melt_thickness_km[ok], table.melt_thickness_km[ok]
+    tol = np.maximum(0.005 * np.abs(h_d), 0.02)
+    worst = np.max(np.abs(h_t - h_d) / tol) if ok.any() else 0.0
+    assert worst <= 1.0, f"melt thickness error is {worst:.2f} x the tolerance"
+    on = np.isfinite(direct.onset_depth_km)
+    npt.assert_allclose(table.onset_depth_km[on], direct.onset_depth_km[on], atol=0.2)
+    npt.assert_allclose(table.max_melt_fraction[ok], direct.max_melt_fraction[ok], atol=2e-3)
+    return worst
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("water", [0.0, 0.004, 0.01, 0.037, 0.1, "varying"])
+def test_worst_case_error_over_the_supported_range(water):
+    # the whole supported range: Tp 1200 to 1700 C, lid 0 to 250 km, water 0 to 0.1 wt%
+    rng = np.random.default_rng(42)
+    n = 800
+    tp = np.concatenate([rng.uniform(1200.0, 1700.0, n), np.linspace(1200.0, 1700.0, 60)])
+    lid = np.concatenate([rng.uniform(0.0, 250.0, n), rng.uniform(0.0, 250.0, 60)])
+    w = rng.uniform(0.0, 0.1, tp.size) if water == "varying" else float(water)
+    table = melt_column(tp, lid, w, method="table")
+    direct = melt_column(tp, lid, w, method="direct")
+    assert_within_tolerance(direct, table)
+    assert np.sum(direct.melt_thickness_km > 0) > 100  # the sample really melts
+
+
+def test_table_equals_direct_near_the_onset_and_at_the_top():
+    # where the lid is just above or below the onset, and at lid 0 (top 7 km) and 250 km
+    model = get_model("katz2003")
+    tp = np.array([1350.0, 1350.0, 1350.0, 1500.0, 1500.0, 1690.0, 1200.0])
+    p_on = melt_column(tp, 0.0, method="direct").onset_depth_km
+    lid = np.array([p_on[0] - 0.3, p_on[1] + 0.3, 0.0, 250.0, p_on[4] - 1.0, 100.0, 0.0])
+    assert_within_tolerance(
+        melt_column(tp, lid, method="direct", model=model),
+        melt_column(tp, lid, method="table", model=model),
+    )
+
+
+@settings(max_examples=10, deadline=None)
+@given(
+    st.lists(
+        st.tuples(st.floats(1200.0, 1700.0), st.floats(0.0, 250.0), st.floats(0.0, 0.1)),
+        min_size=1,
+        max_size=8,
+    )
+)
+def test_table_equals_direct_at_random_points(cells):
+    tp, lid, w = (np.array(c) for c in zip(*cells, strict=True))
+    assert_within_tolerance(
+        melt_column(tp, lid, w, method="direct"), melt_column(tp, lid, w, method="table")
+    )
+
+
+def test_table_covers_mckenzie_bickle():
+    tp = np.linspace(1250.0, 1600.0, 15)
+    lid = np.linspace(0.0, 120.0, 15)
+    assert_within_tolerance(
+        melt_column(tp, lid, model="mckenzie-bickle1988", method="direct"),
+        melt_column(tp, lid, model="mckenzie-bickle1988", method="table"),
+    )
+
+
+def test_outside_the_table_falls_back_to_direct_not_clipping():
+    # Tp 1850 C and water 0.15 wt% lie outside the table's nodes: results must equal direct
+    tp = np.array([1850.0, 1400.0, 1150.0])
+    w = np.array([0.0, 0.15, 0.0])
+    direct = melt_column(tp, 30.0, w, method="direct")
+    table = melt_column(tp, 30.0, w, method="table")
+    npt.assert_array_equal(direct.flag, table.flag)
+    npt.assert_allclose(table.melt_thickness_km, direct.melt_thickness_km, equal_nan=True)
+
+
+def test_cache_is_keyed_by_parameters(tmp_path, monkeypatch):
+    monkeypatch.setenv("LIDMELT_CACHE_DIR", str(tmp_path))
+    layout = TableLayout(tp_min_c=1300.0, tp_max_c=1400.0, water_nodes=2, water_max_wt_pct=0.01)
+    base = get_model("katz2003")
+    variant = get_model("katz2003", cpx_mass_fraction=0.15)
+    assert table_key(base, layout) != table_key(variant, layout)
+    assert table_key(base, layout) == table_key(get_model("katz2003"), layout)
+    t1 = get_table(base, layout)
+    files = sorted(p.name for p in cache_dir().glob("*.npz"))
+    assert len(files) == 1
+    assert table_key(base, layout)[:16] in files[0]
+    get_table(variant, layout)
+    assert len(list(cache_dir().glob("*.npz"))) == 2
+    # a fresh load from disk gives the same arrays
+    path = cache_dir() / files[0]
+    loaded = MeltTable.load(path, base, layout)
+    npt.assert_array_equal(loaded.values, t1.values)
+    # a table made for other parameters is never used for these
+    assert MeltTable.load(path, variant, layout) is None
+    # a damaged cache file is ignored (rebuilt), not trusted
+    path.write_bytes(b"not a table")
+    assert MeltTable.load(path, base, layout) is None
+
+
+def test_table_shapes_and_model():
+    tp = np.full((3, 4), 1450.0)
+    res = melt_column(tp, np.linspace(0, 90, 4), 0.0)
+    assert res.melt_thickness_km.shape == (3, 4)
+    assert res.model.name == "katz2003"
