@@ -39,14 +39,9 @@ def build_parser() -> argparse.ArgumentParser:
     parser.add_argument("--version", action="version", version=f"lidmelt {__version__}")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND")
     _add_column(sub)
+    _add_run(sub)
     for name in _COMMAND_MODULES:
-        try:
-            module = importlib.import_module(name)
-        except ModuleNotFoundError as exc:  # TEMPORARY while the stages are being built
-            if exc.name == name:
-                continue
-            raise
-        module.add_cli(sub)
+        importlib.import_module(name).add_cli(sub)
     return parser
 
 
@@ -345,6 +340,77 @@ def _write_profile_csv(path: Path, prof: dict) -> None:
     except BaseException:
         Path(tmp).unlink(missing_ok=True)
         raise
+
+
+# ------------------------------------------------------------------------------------------------
+# lidmelt run
+# ------------------------------------------------------------------------------------------------
+def _add_run(sub) -> None:
+    p = sub.add_parser(
+        "run",
+        help="run a whole basin from a workflow file",
+        description=(
+            "Read the inputs a workflow file names, align them onto one grid, evaluate every "
+            "output variable cell by cell and write GeoTIFF maps, a run summary (and by "
+            "default map figures and a report) into the run directory. The workflow format is "
+            "described in docs/workflow.md; workflows/template.toml is a commented template."
+        ),
+    )
+    p.add_argument("workflow", type=Path, metavar="WORKFLOW.toml", help="the workflow file")
+    p.add_argument(
+        "--set",
+        dest="overrides",
+        action="append",
+        default=[],
+        metavar="KEY=VALUE",
+        help="override a workflow value (repeatable), e.g. "
+        "--set model.ambient_potential_temperature_c=1400",
+    )
+    p.add_argument(
+        "-o",
+        "--output-dir",
+        type=Path,
+        metavar="OUT_DIR",
+        help="run directory (default: the workflow's run.output_dir)",
+    )
+    p.add_argument("--no-maps", action="store_true", help="do not draw map figures or the report")
+    p.add_argument("--quiet", action="store_true", help="no progress output")
+    p.set_defaults(func=_run_run)
+
+
+def _run_run(args) -> int:
+    from lidmelt.engine import run_basin
+    from lidmelt.workflow import load_workflow
+
+    cfg = load_workflow(args.workflow, overrides=args.overrides, output_dir=args.output_dir)
+    result = run_basin(cfg, progress=False if args.quiet else None)
+    files = list(result.files)
+    if not args.no_maps and cfg.run.maps:
+        files += _draw_products(result.run_dir, report=cfg.run.report)
+    st = result.summary["statistics"]
+    print(f"lidmelt run: {cfg.run.name} -> {result.run_dir}")
+    print(
+        f"  grid {result.summary['grid']['width']} x {result.summary['grid']['height']}, "
+        f"{st['data_cells']} cells with data, {st['melting_cells']} melting"
+    )
+    print(
+        f"  melting area {st['melting_area_km2']:.6g} km2, melt volume "
+        f"{st['melt_volume_km3']:.6g} km3, in {result.timings_s['total_s']:.1f} s"
+    )
+    for path in files:
+        print(f"  wrote {path}")
+    return 0
+
+
+def _draw_products(run_dir: Path, *, report: bool) -> list[Path]:
+    from lidmelt.products.maps import draw_run_maps
+
+    paths = list(draw_run_maps(run_dir))
+    if report:
+        from lidmelt.products.report import write_report
+
+        paths.append(write_report(run_dir, maps=paths))
+    return paths
 
 
 def main(argv: list[str] | None = None) -> int:

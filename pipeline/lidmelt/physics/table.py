@@ -267,8 +267,9 @@ class MeltTable:
             top_km = np.maximum(lb, min_top_km)
             top_p = top_km * gpa_per_km
             y = top_p * inv_dp
-            i = x.astype(np.intp)
-            k = y.astype(np.intp)
+            with np.errstate(invalid="ignore"):  # NaN cells are sent to _direct below
+                i = x.astype(np.intp)
+                k = y.astype(np.intp)
             a = (x - i).astype(np.float32)[:, None]
             b = (y - k).astype(np.float32)[:, None]
             # indices of invalid cells may be garbage: mode="clip" keeps the gather in bounds

@@ -1,0 +1,793 @@
+"""The target grid of a run, and alignment of input grids onto it.
+
+A :class:`TargetGrid` is the one grid every input is resampled onto and every output is written
+on: a CRS, a north-up affine transform and a size. :func:`align` puts any grid read by
+:func:`lidmelt.grids.io.open_grid` onto it with GDAL's warper (through rasterio), after
+arranging geographic inputs so that 0..360 and -180..180 longitudes, and grids that cross the
+antimeridian, line up with the target (GDAL does not wrap longitudes by itself: global inputs
+are padded with periodic columns, regional ones are shifted by whole turns of 360 degrees).
+"""
+
+from __future__ import annotations
+
+import math
+import os
+from dataclasses import dataclass
+from functools import lru_cache
+from typing import Any
+
+import numpy as np
+import rioxarray  # noqa: F401  (registers the .rio accessor)
+import xarray as xr
+from affine import Affine
+from pyproj import CRS, Transformer
+from pyproj.exceptions import CRSError, ProjError
+from rasterio.crs import CRS as RioCRS
+from rasterio.enums import Resampling
+from rasterio.warp import reproject
+
+from lidmelt.errors import GridError
+
+__all__ = ["RESAMPLING_METHODS", "TargetGrid", "align"]
+
+#: Resampling names accepted by :func:`align` (GDAL warper kernels).
+RESAMPLING_METHODS = {
+    "nearest": Resampling.nearest,
+    "bilinear": Resampling.bilinear,
+    "cubic": Resampling.cubic,
+    "average": Resampling.average,
+}
+
+# Tolerance for "the same grid": transform coefficients may differ by this fraction of a cell.
+_SAME_GRID_TOL = 1e-6
+
+
+@lru_cache(maxsize=64)
+def _crs(text: str) -> CRS:
+    return CRS.from_user_input(text)
+
+
+@lru_cache(maxsize=64)
+def _to_lonlat(crs_text: str) -> Transformer:
+    crs = _crs(crs_text)
+    return Transformer.from_crs(crs, crs.geodetic_crs, always_xy=True)
+
+
+def _normalise_crs(value: Any) -> str:
+    """'EPSG:n' when the CRS is exactly an EPSG one, else its WKT; GridError if unreadable."""
+    text = value.to_wkt() if hasattr(value, "to_wkt") else value
+    if not isinstance(text, str) or not text.strip():
+        msg = (
+            f"crs={value!r} is not a CRS; expected an 'EPSG:<code>' string or WKT text, "
+            "e.g. crs='EPSG:4326' for longitude/latitude."
+        )
+        raise GridError(msg)
+    try:
+        crs = _crs(text)
+    except CRSError as exc:
+        msg = (
+            f"crs={text[:80]!r} is not a CRS that PROJ understands ({exc}); expected an "
+            "'EPSG:<code>' string or WKT, e.g. 'EPSG:4326'."
+        )
+        raise GridError(msg) from exc
+    epsg = crs.to_epsg(min_confidence=100)
+    return f"EPSG:{epsg}" if epsg is not None else crs.to_wkt()
+
+
+def _crs_label(crs: CRS) -> str:
+    epsg = crs.to_epsg()
+    return f"EPSG:{epsg}" if epsg is not None else repr(crs.name)
+
+
+@dataclass(frozen=True)
+class TargetGrid:
+    """A north-up regular grid: CRS, affine transform and size.
+
+    Parameters
+    ----------
+    crs : str
+        ``"EPSG:<code>"`` or WKT. Stored normalised: ``"EPSG:<code>"`` whenever the CRS is
+        exactly an EPSG one, its WKT otherwise.
+    transform : tuple of 6 float
+        Affine coefficients ``(a, b, c, d, e, f)`` (rasterio/affine order): cell width ``a`` > 0,
+        ``b = d = 0``, cell height ``e`` < 0 (north up), ``(c, f)`` the north-west corner.
+        Units: those of the CRS (degrees or metres).
+    width, height : int
+        Number of columns and rows.
+
+    Raises
+    ------
+    GridError
+        For an unreadable CRS, a rotated or south-up transform, non-positive sizes, or a
+        geographic grid wider than 360 degrees or with cell centres beyond the poles.
+    """
+
+    crs: str
+    transform: tuple[float, float, float, float, float, float]
+    width: int
+    height: int
+
+    def __post_init__(self) -> None:
+        object.__setattr__(self, "crs", _normalise_crs(self.crs))
+        try:
+            coeffs = tuple(float(v) for v in tuple(self.transform)[:6])
+        except (TypeError, ValueError) as exc:
+            msg = (
+                f"transform={self.transform!r} is not 6 numbers; expected (a, b, c, d, e, f) "
+                "as in affine.Affine, e.g. (0.1, 0, -180, 0, -0.1, 90)."
+            )
+            raise GridError(msg) from exc
+        if len(coeffs) != 6 or not all(math.isfinite(v) for v in coeffs):
+            msg = f"transform={self.transform!r} must be 6 finite numbers (a, b, c, d, e, f)."
+            raise GridError(msg)
+        a, b, _, d, e, _ = coeffs
+        if b != 0 or d != 0 or not a > 0 or not e < 0:
+            msg = (
+                f"transform={coeffs!r} is not north-up: expected a > 0 (cell width), "
+                "b = d = 0 (no rotation) and e < 0 (rows run north to south). Flip or warp "
+                "the grid first ('gdalwarp'), or build the target with TargetGrid.from_extent."
+            )
+            raise GridError(msg)
+        object.__setattr__(self, "transform", coeffs)
+        for field in ("width", "height"):
+            value = getattr(self, field)
+            if isinstance(value, bool) or not isinstance(value, int | np.integer) or value < 1:
+                msg = f"{field}={value!r} must be a whole number of cells >= 1."
+                raise GridError(msg)
+            object.__setattr__(self, field, int(value))
+        if self.is_geographic:
+            west, south, east, north = self.bounds
+            tol = 1e-9 * max(1.0, abs(a))
+            if east - west > 360.0 + tol:
+                msg = (
+                    f"geographic target grid spans {east - west!r} degrees of longitude "
+                    f"({west!r} to {east!r}); expected at most 360. Reduce the width or "
+                    "the resolution."
+                )
+                raise GridError(msg)
+            top, bottom = north + e / 2, south - e / 2
+            if top > 90.0 + tol or bottom < -90.0 - tol:
+                msg = (
+                    f"geographic target grid has cell centres from {bottom!r} to {top!r} "
+                    "degrees of latitude; expected them within -90..90. Use "
+                    "TargetGrid.from_extent with south >= -90 and north <= 90."
+                )
+                raise GridError(msg)
+
+    # ---------------------------------------------------------------- constructors
+
+    @classmethod
+    def from_extent(
+        cls,
+        west: float,
+        east: float,
+        south: float,
+        north: float,
+        resolution: float | tuple[float, float],
+        *,
+        crs: str = "EPSG:4326",
+    ) -> TargetGrid:
+        """Grid covering ``[west, east] x [south, north]`` with square (or (dx, dy)) cells.
+
+        Parameters
+        ----------
+        west, east, south, north : float
+            Cell-edge extent in CRS units (degrees for geographic CRSs; longitudes may be
+            -180..180 or 0..360, and ``east`` may exceed 180 for a grid across the
+            antimeridian).
+        resolution : float or (float, float)
+            Cell size in CRS units; the extent must hold a whole number of cells.
+        crs : str
+            ``"EPSG:<code>"`` or WKT. Default longitude/latitude on WGS 84.
+
+        Raises
+        ------
+        GridError
+            If the extent is empty or reversed, or not a whole number of cells.
+        """
+        if isinstance(resolution, tuple | list):
+            dx, dy = (float(v) for v in resolution)
+        else:
+            dx = dy = float(resolution)
+        if not (dx > 0 and dy > 0 and math.isfinite(dx) and math.isfinite(dy)):
+            msg = f"resolution={resolution!r} must be positive and finite (CRS units per cell)."
+            raise GridError(msg)
+        values = (west, east, south, north)
+        if not all(math.isfinite(float(v)) for v in values) or not (east > west and north > south):
+            msg = (
+                f"extent west={west!r}, east={east!r}, south={south!r}, north={north!r} is "
+                "empty or reversed; expected west < east and south < north (CRS units)."
+            )
+            raise GridError(msg)
+        sizes = []
+        for span, step, axis in (
+            (east - west, dx, "east - west"),
+            (north - south, dy, "north - south"),
+        ):
+            count = span / step
+            if abs(count - round(count)) > 1e-6 * max(1.0, count):
+                msg = (
+                    f"{axis} = {span!r} is not a whole number of cells of {step!r} "
+                    f"({count:.6g} cells). Adjust the extent or the resolution."
+                )
+                raise GridError(msg)
+            sizes.append(round(count))
+        return cls(crs, (dx, 0.0, float(west), 0.0, -dy, float(north)), sizes[0], sizes[1])
+
+    @classmethod
+    def from_grid(cls, da: xr.DataArray) -> TargetGrid:
+        """The grid a DataArray (e.g. from :func:`~lidmelt.grids.io.open_grid`) lies on.
+
+        Raises
+        ------
+        GridError
+            If ``da`` has no CRS, lacks ``y``/``x`` dimensions or is not north-up.
+        """
+        _check_dataarray(da, what="grid")
+        return cls(
+            _normalise_crs(da.rio.crs), tuple(_transform_of(da))[:6], da.sizes["x"], da.sizes["y"]
+        )
+
+    @classmethod
+    def from_dict(cls, doc: dict[str, Any]) -> TargetGrid:
+        """Inverse of :meth:`to_dict` (accepts ``crs_wkt`` or ``crs``)."""
+        try:
+            crs = doc.get("crs_wkt") or doc["crs"]
+            return cls(crs, tuple(doc["transform"]), doc["width"], doc["height"])
+        except (KeyError, TypeError) as exc:
+            msg = (
+                f"grid description {doc!r} lacks a key ({exc}); expected 'crs_wkt', "
+                "'transform' (6 numbers), 'width' and 'height'."
+            )
+            raise GridError(msg) from exc
+
+    # ---------------------------------------------------------------- properties
+
+    @property
+    def affine(self) -> Affine:
+        """The transform as an :class:`affine.Affine`."""
+        return Affine(*self.transform)
+
+    @property
+    def shape(self) -> tuple[int, int]:
+        """``(height, width)``, the shape of a ``(y, x)`` array on this grid."""
+        return (self.height, self.width)
+
+    @property
+    def resolution(self) -> tuple[float, float]:
+        """Cell size ``(dx, dy)``, both positive, in CRS units."""
+        return (self.transform[0], -self.transform[4])
+
+    @property
+    def bounds(self) -> tuple[float, float, float, float]:
+        """Cell-edge extent ``(west, south, east, north)`` in CRS units."""
+        a, _, c, _, e, f = self.transform
+        return (c, f + e * self.height, c + a * self.width, f)
+
+    @property
+    def pyproj_crs(self) -> CRS:
+        """The CRS as a :class:`pyproj.CRS`."""
+        return _crs(self.crs)
+
+    @property
+    def is_geographic(self) -> bool:
+        """True for a longitude/latitude CRS (coordinates in degrees)."""
+        return self.pyproj_crs.is_geographic
+
+    def to_dict(self) -> dict[str, Any]:
+        """JSON-ready description (the ``grid`` entry of a run's ``summary.json``)."""
+        return {
+            "crs_wkt": self.pyproj_crs.to_wkt(),
+            "transform": list(self.transform),
+            "width": self.width,
+            "height": self.height,
+            "bounds": list(self.bounds),
+        }
+
+    # ---------------------------------------------------------------- coordinates
+
+    def x_centres(self) -> np.ndarray:
+        """Cell-centre x coordinates (CRS units), west to east, float64."""
+        a, _, c, *_ = self.transform
+        return c + a * (np.arange(self.width) + 0.5)
+
+    def y_centres(self) -> np.ndarray:
+        """Cell-centre y coordinates (CRS units), north to south, float64."""
+        *_, e, f = self.transform
+        return f + e * (np.arange(self.height) + 0.5)
+
+    def template(self, chunks: int | tuple[int, int] | dict | None = None) -> xr.DataArray:
+        """A float32 ``(y, x)`` DataArray of NaN on this grid, CRS and transform written.
+
+        Parameters
+        ----------
+        chunks : int, tuple or dict, optional
+            If given, the array is a lazy dask array with these chunks.
+        """
+        if chunks is None:
+            data: Any = np.full(self.shape, np.nan, dtype=np.float32)
+        else:
+            import dask.array as dsa
+
+            if isinstance(chunks, dict):
+                chunks = (chunks.get("y", self.height), chunks.get("x", self.width))
+            data = dsa.full(self.shape, np.nan, dtype=np.float32, chunks=chunks)
+        da = xr.DataArray(
+            data, dims=("y", "x"), coords={"y": self.y_centres(), "x": self.x_centres()}
+        )
+        da = da.rio.write_crs(RioCRS.from_user_input(self.crs))
+        return da.rio.write_transform(self.affine)
+
+    def lonlat_centres(
+        self, *, rows: slice | None = None, cols: slice | None = None
+    ) -> tuple[np.ndarray, np.ndarray]:
+        """Longitude and latitude of the cell centres, 2-D ``(y, x)`` arrays in degrees.
+
+        Parameters
+        ----------
+        rows, cols : slice, optional
+            A window of the grid (default: all of it).
+
+        Returns
+        -------
+        lon, lat : numpy.ndarray
+            Degrees on the CRS's own geodetic datum (WGS 84 for EPSG:4326 and EPSG:3857).
+            For geographic grids these are read-only broadcast views of the coordinates
+            (longitudes as stored, 0..360 stays 0..360); projected grids are transformed with
+            pyproj.
+        """
+        xs = self.x_centres()[cols or slice(None)]
+        ys = self.y_centres()[rows or slice(None)]
+        shape = (ys.size, xs.size)
+        if self.is_geographic:
+            return np.broadcast_to(xs[None, :], shape), np.broadcast_to(ys[:, None], shape)
+        xx, yy = np.meshgrid(xs, ys)
+        lon, lat = _to_lonlat(self.crs).transform(xx, yy)
+        return np.asarray(lon), np.asarray(lat)
+
+    def matches(self, da: xr.DataArray) -> bool:
+        """True if ``da`` lies exactly on this grid (same CRS, transform and shape)."""
+        if not isinstance(da, xr.DataArray) or set(da.dims) != {"y", "x"}:
+            return False
+        if (da.sizes["y"], da.sizes["x"]) != self.shape or da.rio.crs is None:
+            return False
+        if not _crs(_normalise_crs(da.rio.crs)).equals(self.pyproj_crs, ignore_axis_order=True):
+            return False
+        return _same_transform(_transform_of(da), self.affine)
+
+
+# --------------------------------------------------------------------------------------------
+# Alignment
+# --------------------------------------------------------------------------------------------
+
+
+def align(
+    da: xr.DataArray,
+    target: TargetGrid,
+    *,
+    resampling: str = "bilinear",
+    name: str | None = None,
+) -> xr.DataArray:
+    """Resample a grid onto the target grid.
+
+    Parameters
+    ----------
+    da : xarray.DataArray
+        A ``(y, x)`` grid with a CRS (as from :func:`~lidmelt.grids.io.open_grid`), NaN for
+        nodata. Any CRS PROJ knows; geographic longitudes may be 0..360 or -180..180.
+    target : TargetGrid
+        The grid to resample onto.
+    resampling : {"bilinear", "nearest", "cubic", "average"}
+        Bilinear for continuous fields (default), nearest for categories or flags, average
+        when coarsening a lot; cubic is GDAL's cubic convolution.
+    name : str, optional
+        Name of the result (default: ``da.name``).
+
+    Returns
+    -------
+    xarray.DataArray
+        Exactly on ``target``: same CRS, transform and shape, coordinates identical to
+        ``target.template()``; float32 for float32 input, else float64; NaN where the input
+        has no data or does not reach; ``attrs`` of ``da`` plus ``resampling``. If ``da`` is
+        already on the target grid it is returned with the target's coordinates, neither
+        resampled nor loaded (a dask-backed input stays lazy).
+
+    Raises
+    ------
+    GridError
+        If ``da`` has no CRS or no ``y``/``x`` dims, if ``resampling`` is unknown, or if the
+        grid does not overlap the target (the message gives both extents and CRSs).
+
+    Notes
+    -----
+    The input window that covers the target (plus a margin of a few cells) is loaded into
+    memory. Where the target cells are no larger than the input cells (the median over a
+    21 x 21 sample of target cells, measured in input cells), ``"bilinear"`` is evaluated here:
+    each target cell centre is transformed exactly into the input CRS (pyproj) and the four
+    surrounding input values are weighted bilinearly. NaN neighbours are left out and the
+    weights renormalised; a target cell whose centre falls in a NaN input cell is NaN, so
+    holes keep their size. Centres between the outermost input centres and the input edge take
+    the edge values. Otherwise (coarsening, or the other methods) GDAL's warper is used through
+    :func:`rasterio.warp.reproject` (``src_nodata = dst_nodata = NaN``, ``tolerance=0`` for an
+    exact transformation; GDAL widens the kernel when coarsening). GDAL's own bilinear is not
+    used for refinement between different CRSs: its kernel scale is estimated per processing
+    chunk, which smoothed a polar-stereographic test case to 9 times the interpolation error
+    bound.
+
+    For geographic input, the input is presented in the target's longitude frame:
+
+    * a global input (its width is 360 degrees; a duplicated 0/360 column is dropped) is
+      indexed periodically so that the window extends past either edge (no clamped edge
+      columns at the antimeridian);
+    * a regional input is shifted by whole multiples of 360 degrees, and each shift that
+      overlaps the target fills the target cells whose longitude lies inside it.
+
+    Poles are not wrapped: rows beyond the outermost input row take the edge values.
+    """
+    _check_dataarray(da, what=f"grid {da.name!r}" if isinstance(da, xr.DataArray) else "grid")
+    if not isinstance(target, TargetGrid):
+        msg = f"target={target!r} must be a TargetGrid (see TargetGrid.from_extent)."
+        raise GridError(msg)
+    if resampling not in RESAMPLING_METHODS:
+        msg = (
+            f"resampling={resampling!r} is not supported; expected one of "
+            f"{sorted(RESAMPLING_METHODS)} (bilinear for continuous fields, nearest for flags)."
+        )
+        raise GridError(msg)
+    out_name = name if name is not None else da.name
+    coords = target.template(chunks=target.shape).coords  # lazy: only the coordinates are used
+    attrs = {**da.attrs, "resampling": resampling}
+    if "band" in da.dims:
+        da = da.squeeze("band", drop=True)
+    if da.dims != ("y", "x"):
+        da = da.transpose("y", "x")
+
+    if target.matches(da):
+        out = da.drop_vars("spatial_ref", errors="ignore").assign_coords(coords)
+        out.attrs = {**da.attrs}
+        out.encoding = {}
+        out.name = out_name
+        return out
+
+    src_crs = _crs(_normalise_crs(da.rio.crs))
+    src_transform = _transform_of(da)
+    pieces = _source_pieces(da, src_transform, src_crs, target)
+    if not pieces:
+        raise GridError(_no_overlap_message(da, src_transform, src_crs, target))
+
+    dtype = np.float32 if da.dtype == np.float32 else np.float64
+    loaded = [
+        (np.asarray(piece.values, dtype=dtype), tr, lon_range) for piece, tr, lon_range in pieces
+    ]
+    loaded = [item for item in loaded if item[0].size]
+    if resampling == "bilinear" and _median_footprint(target, src_crs, src_transform) <= 1.0:
+        result = _interpolate_bilinear(loaded, target, src_crs, dtype)
+    else:
+        result = _warp_gdal(loaded, target, src_crs, dtype, RESAMPLING_METHODS[resampling])
+
+    return xr.DataArray(result, dims=("y", "x"), coords=coords, attrs=attrs, name=out_name)
+
+
+# --------------------------------------------------------------------------------------------
+# Helpers
+# --------------------------------------------------------------------------------------------
+
+
+def _check_dataarray(da: Any, *, what: str) -> None:
+    if not isinstance(da, xr.DataArray):
+        msg = f"{what} must be an xarray.DataArray, got {type(da).__name__}."
+        raise GridError(msg)
+    dims = [d for d in da.dims if not (d == "band" and da.sizes[d] == 1)]
+    if sorted(dims) != ["x", "y"]:
+        msg = (
+            f"{what} has dims {tuple(da.dims)}; expected ('y', 'x'). Read files with "
+            "lidmelt.grids.io.open_grid, or rename: da.rename(lat='y', lon='x')."
+        )
+        raise GridError(msg)
+    if da.rio.crs is None:
+        msg = (
+            f"{what} has no CRS. Write one with da.rio.write_crs('EPSG:4326') (longitude/"
+            "latitude) or read the file with lidmelt.grids.io.open_grid."
+        )
+        raise GridError(msg)
+    transform = _transform_of(da)
+    if transform.b != 0 or transform.d != 0 or not transform.a > 0 or not transform.e < 0:
+        msg = (
+            f"{what} is not north-up with x ascending (transform {tuple(transform)[:6]}). "
+            "Sort it: da.sortby('y', ascending=False).sortby('x'), or read it with open_grid."
+        )
+        raise GridError(msg)
+
+
+def _transform_of(da: xr.DataArray) -> Affine:
+    """The grid's transform: from its coordinates, or the stored one if they agree.
+
+    The stored (``spatial_ref`` GeoTransform) coefficients are exact where the coordinates
+    carry float rounding; they are used only when they match the coordinates to 1e-6 of a
+    cell, so a stale stored transform (after slicing or sorting) is never used.
+    """
+    cached = da.rio.transform()
+    if not (da.sizes.get("x", 0) > 1 and da.sizes.get("y", 0) > 1):
+        return cached
+    computed = da.rio.transform(recalc=True)
+    return cached if _same_transform(cached, computed) else computed
+
+
+def _same_transform(t1: Affine, t2: Affine) -> bool:
+    cell = max(abs(t2.a), abs(t2.e))
+    return all(
+        abs(p - q) <= _SAME_GRID_TOL * cell
+        for p, q in zip(tuple(t1)[:6], tuple(t2)[:6], strict=True)
+    )
+
+
+def _footprint(target: TargetGrid, src_crs: CRS) -> tuple[float, float, float, float] | None:
+    """Target extent (west, south, east, north) in the source CRS, or None if unknown."""
+    try:
+        tr = Transformer.from_crs(target.pyproj_crs, src_crs, always_xy=True)
+        west, south, east, north = tr.transform_bounds(*target.bounds, densify_pts=21)
+    except (ProjError, CRSError, ValueError):
+        return None
+    values = (west, south, east, north)
+    if not all(math.isfinite(v) for v in values):
+        return None
+    return values
+
+
+def _index_range(
+    lo: float, hi: float, origin: float, step: float, size: int, margin: int
+) -> tuple[int, int]:
+    """Cells [i0, i1) of an axis (edges origin + step*i, step > 0) touching [lo, hi] +- margin."""
+    i0 = math.floor((lo - origin) / step) - margin
+    i1 = math.ceil((hi - origin) / step) + margin
+    return max(0, i0), min(size, i1)
+
+
+def _target_longitudes(target: TargetGrid, src_crs: CRS) -> np.ndarray:
+    """Longitudes of the target cell centres as GDAL sees them in the (geographic) source CRS."""
+    if target.is_geographic and src_crs.equals(target.pyproj_crs, ignore_axis_order=True):
+        return np.broadcast_to(target.x_centres()[None, :], target.shape)
+    xx, yy = np.meshgrid(target.x_centres(), target.y_centres())
+    lon, _ = Transformer.from_crs(target.pyproj_crs, src_crs, always_xy=True).transform(xx, yy)
+    return np.asarray(lon)
+
+
+def _source_pieces(
+    da: xr.DataArray, transform: Affine, src_crs: CRS, target: TargetGrid
+) -> list[tuple[xr.DataArray, Affine, tuple[float, float] | None]]:
+    """Windows of the source (lazy) that cover the target.
+
+    Each comes with its transform and, for a shifted regional geographic input, the longitude
+    range (source cell edges, in the target's frame) it is valid for.
+    """
+    height, width = da.sizes["y"], da.sizes["x"]
+    dx, dy = transform.a, -transform.e
+    west, north = transform.c, transform.f
+    south = north - dy * height
+
+    if src_crs.is_geographic:
+        if target.is_geographic and src_crs.equals(target.pyproj_crs, ignore_axis_order=True):
+            t_west, t_south, t_east, t_north = target.bounds
+        else:
+            box = _footprint(target, src_crs)
+            if box is None:
+                t_west, t_south, t_east, t_north = -180.0, -90.0, 180.0, 90.0
+            else:
+                t_west, t_south, t_east, t_north = box
+                if t_east <= t_west:  # the footprint crosses the antimeridian
+                    t_west, t_east = -180.0, 180.0
+        ratio = max(
+            1.0,
+            (t_east - t_west) / max(target.width, 1) / dx,
+            (t_north - t_south) / max(target.height, 1) / dy,
+        )
+        margin = 2 + math.ceil(2 * ratio)
+        if not (south < t_north and north > t_south):
+            return []
+        r0, r1 = _index_range(north - t_north, north - t_south, 0.0, dy, height, margin)
+
+        periodic_width = None
+        if abs(dx * width - 360.0) < 0.5 * dx:
+            periodic_width = width
+        elif abs(dx * (width - 1) - 360.0) < 0.5 * dx:  # gridline-registered: 0 and 360 both
+            periodic_width = width - 1
+        if periodic_width is not None:
+            j0 = math.floor((t_west - west) / dx) - margin
+            j1 = math.ceil((t_east - west) / dx) + margin
+            cols = np.arange(j0, j1) % periodic_width
+            piece = da.isel(y=slice(r0, r1), x=cols)
+            return [(piece, Affine(dx, 0.0, west + j0 * dx, 0.0, -dy, north - r0 * dy), None)]
+
+        pieces = []
+        overlaps = []
+        for turn in (0, -1, 1, -2, 2):
+            lo = west + 360.0 * turn
+            hi = lo + dx * width
+            overlap = min(hi, t_east) - max(lo, t_west)
+            if overlap > 0:
+                overlaps.append((overlap, turn, lo))
+        for _, _turn, lo in sorted(overlaps, key=lambda item: -item[0]):
+            c0, c1 = _index_range(t_west, t_east, lo, dx, width, margin)
+            piece = da.isel(y=slice(r0, r1), x=slice(c0, c1))
+            pieces.append(
+                (
+                    piece,
+                    Affine(dx, 0.0, lo + c0 * dx, 0.0, -dy, north - r0 * dy),
+                    (lo, lo + dx * width),
+                )
+            )
+        return pieces
+
+    east = west + dx * width
+    box = _footprint(target, src_crs)
+    if box is None:
+        return [(da, transform, None)]
+    t_west, t_south, t_east, t_north = box
+    if not (west < t_east and east > t_west and south < t_north and north > t_south):
+        return []
+    ratio = max(
+        1.0,
+        (t_east - t_west) / max(target.width, 1) / dx,
+        (t_north - t_south) / max(target.height, 1) / dy,
+    )
+    margin = 2 + math.ceil(2 * ratio)
+    c0, c1 = _index_range(t_west, t_east, west, dx, width, margin)
+    r0, r1 = _index_range(north - t_north, north - t_south, 0.0, dy, height, margin)
+    piece = da.isel(y=slice(r0, r1), x=slice(c0, c1))
+    return [(piece, Affine(dx, 0.0, west + c0 * dx, 0.0, -dy, north - r0 * dy), None)]
+
+
+def _coords_in_source(
+    target: TargetGrid, src_crs: CRS, rows: slice
+) -> tuple[np.ndarray, np.ndarray]:
+    """Target cell centres of some rows, in source CRS coordinates (exact pyproj transform)."""
+    xs = target.x_centres()
+    ys = target.y_centres()[rows]
+    if src_crs.equals(target.pyproj_crs, ignore_axis_order=True):
+        return (
+            np.broadcast_to(xs[None, :], (ys.size, xs.size)),
+            np.broadcast_to(ys[:, None], (ys.size, xs.size)),
+        )
+    xx, yy = np.meshgrid(xs, ys)
+    tr = Transformer.from_crs(target.pyproj_crs, src_crs, always_xy=True)
+    x, y = tr.transform(xx, yy)
+    return np.asarray(x), np.asarray(y)
+
+
+def _median_footprint(target: TargetGrid, src_crs: CRS, src_transform: Affine) -> float:
+    """Median size of a target cell in input cells (> 1: the target is coarser)."""
+    rows = np.unique(np.linspace(0, target.height - 1, 21).round().astype(int))
+    cols = np.unique(np.linspace(0, target.width - 1, 21).round().astype(int))
+    a, _, c, _, e, f = target.transform
+    xs, ys = np.meshgrid(c + a * (cols + 0.5), f + e * (rows + 0.5))
+    if src_crs.equals(target.pyproj_crs, ignore_axis_order=True):
+        return max(a / src_transform.a, e / src_transform.e)
+    tr = Transformer.from_crs(target.pyproj_crs, src_crs, always_xy=True)
+    x0, y0 = (np.asarray(v) for v in tr.transform(xs, ys))
+    sizes = []
+    for dx, dy in ((a, 0.0), (0.0, e)):
+        x1, y1 = (np.asarray(v) for v in tr.transform(xs + dx, ys + dy))
+        ddx = x1 - x0
+        if src_crs.is_geographic:
+            ddx = (ddx + 180.0) % 360.0 - 180.0
+        sizes.append(np.hypot(ddx / src_transform.a, (y1 - y0) / src_transform.e))
+    size = np.maximum(*sizes)
+    size = size[np.isfinite(size)]
+    return float(np.median(size)) if size.size else math.inf
+
+
+def _interpolate_bilinear(
+    pieces: list, target: TargetGrid, src_crs: CRS, dtype: type
+) -> np.ndarray:
+    """Bilinear interpolation at the exact target cell centres, piece by piece."""
+    result = np.full(target.shape, np.nan, dtype=dtype)
+    step = max(1, (1 << 20) // target.width)
+    for r0 in range(0, target.height, step):
+        rows = slice(r0, min(target.height, r0 + step))
+        x, y = _coords_in_source(target, src_crs, rows)
+        block = result[rows]
+        for values, tr, lon_range in pieces:
+            take = np.isnan(block)
+            if lon_range is not None:
+                take &= (x >= lon_range[0]) & (x <= lon_range[1])
+            if take.any():
+                block[take] = _bilinear(values, tr, x[take], y[take])
+    return result
+
+
+def _bilinear(values: np.ndarray, tr: Affine, x: np.ndarray, y: np.ndarray) -> np.ndarray:
+    """Bilinear interpolation of a north-up grid at points (x, y) in its CRS.
+
+    Points between the outermost cell centres and the grid edge take the edge values (as GDAL
+    does); points outside the grid, and points whose containing cell is NaN, give NaN. NaN
+    neighbours of a valid cell are left out and the remaining weights renormalised, so holes
+    keep their size.
+    """
+    ny, nx = values.shape
+    col = (x - tr.c) / tr.a - 0.5
+    row = (y - tr.f) / tr.e - 0.5
+    inside = (col >= -0.5) & (col <= nx - 0.5) & (row >= -0.5) & (row <= ny - 0.5)
+    col = np.clip(np.where(inside, col, 0.0), 0.0, nx - 1)
+    row = np.clip(np.where(inside, row, 0.0), 0.0, ny - 1)
+    j0 = np.minimum(np.floor(col).astype(np.intp), max(nx - 2, 0))
+    i0 = np.minimum(np.floor(row).astype(np.intp), max(ny - 2, 0))
+    j1 = np.minimum(j0 + 1, nx - 1)
+    i1 = np.minimum(i0 + 1, ny - 1)
+    u = col - j0
+    t = row - i0
+    num = np.zeros(x.shape, dtype=np.float64)
+    den = np.zeros(x.shape, dtype=np.float64)
+    for ii, jj, w in (
+        (i0, j0, (1 - t) * (1 - u)),
+        (i0, j1, (1 - t) * u),
+        (i1, j0, t * (1 - u)),
+        (i1, j1, t * u),
+    ):
+        v = values[ii, jj].astype(np.float64)
+        ok = ~np.isnan(v)
+        num += np.where(ok, w * np.where(ok, v, 0.0), 0.0)
+        den += np.where(ok, w, 0.0)
+    centre = values[np.rint(row).astype(np.intp), np.rint(col).astype(np.intp)]
+    good = inside & ~np.isnan(centre) & (den > 0)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return np.where(good, num / np.where(good, den, 1.0), np.nan)
+
+
+def _warp_gdal(
+    pieces: list, target: TargetGrid, src_crs: CRS, dtype: type, method: Resampling
+) -> np.ndarray:
+    """GDAL warper, piece by piece (nearest, cubic, average, and coarsening bilinear)."""
+    result = np.full(target.shape, np.nan, dtype=dtype)
+    dst_crs = RioCRS.from_user_input(target.crs)
+    # one CRS object for both sides when they are equal, so that GDAL does an identity transform
+    src_rio = (
+        dst_crs
+        if src_crs.equals(target.pyproj_crs, ignore_axis_order=True)
+        else (RioCRS.from_wkt(src_crs.to_wkt()))
+    )
+    threads = max(1, os.cpu_count() or 1)
+    target_lon = None
+    for values, piece_transform, lon_range in pieces:
+        warped = np.full(target.shape, np.nan, dtype=dtype)
+        reproject(
+            source=values,
+            destination=warped,
+            src_transform=piece_transform,
+            src_crs=src_rio,
+            src_nodata=np.nan,
+            dst_transform=target.affine,
+            dst_crs=dst_crs,
+            dst_nodata=np.nan,
+            resampling=method,
+            num_threads=threads,
+            tolerance=0.0,
+        )
+        take = np.isnan(result)
+        if lon_range is not None:
+            # GDAL may wrap target longitudes onto the cropped margin of a shifted piece; keep
+            # only the cells whose longitude lies inside this shift of the input.
+            if target_lon is None:
+                target_lon = _target_longitudes(target, src_crs)
+            take &= (target_lon >= lon_range[0]) & (target_lon <= lon_range[1])
+        result[take] = warped[take]
+    return result
+
+
+def _no_overlap_message(
+    da: xr.DataArray, transform: Affine, src_crs: CRS, target: TargetGrid
+) -> str:
+    height, width = da.sizes["y"], da.sizes["x"]
+    src_bounds = (
+        transform.c,
+        transform.f + transform.e * height,
+        transform.c + transform.a * width,
+        transform.f,
+    )
+    fmt = ", ".join
+    return (
+        f"grid {da.name!r} (extent west, south, east, north = "
+        f"{fmt(f'{v:.6g}' for v in src_bounds)} in {_crs_label(src_crs)}) does not overlap "
+        f"the target grid (extent {fmt(f'{v:.6g}' for v in target.bounds)} in "
+        f"{_crs_label(target.pyproj_crs)}). Give an input that covers the target region, "
+        "or choose a target extent inside the input."
+    )

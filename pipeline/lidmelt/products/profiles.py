@@ -1,0 +1,484 @@
+"""Values of a finished run along a ship track, and the profile figure.
+
+:func:`sample_track` places points every ``spacing_km`` along the geodesics (WGS84 ellipsoid,
+pyproj.Geod) that join a track's waypoints and samples every variable of the run there (the
+rules of :mod:`lidmelt.products.sites`); :func:`plot_profile` draws melt thickness, onset depth
+and lid depth against distance along the track. ``lidmelt profile`` is the command-line form.
+
+Tracks
+------
+Waypoints in a CSV (coordinate columns as for stations), or a vector file GDAL reads holding
+points (the waypoints, in file order) or one line (its vertices are the waypoints; a
+MultiLineString, or several line features, are joined when each part starts where the previous
+one ends).
+
+Points
+------
+The first point is the first waypoint (distance 0); then one every ``spacing_km`` km of
+distance along the track, the spacing carried across waypoints (a point may fall between two
+waypoints on either side of a turn; its distance is measured along the track); the last point
+is the last waypoint, at the track's total length. ``waypoint_index`` is the index of the
+last waypoint at or before the point (0-based; the final point has the last waypoint's index).
+"""
+
+from __future__ import annotations
+
+import argparse
+import math
+import os
+from pathlib import Path
+from typing import TYPE_CHECKING, Any
+
+import numpy as np
+import pandas as pd
+import pyproj
+
+from lidmelt.errors import InputError
+from lidmelt.grids.rundir import RunDir
+from lidmelt.products import _sampling as smp
+
+if TYPE_CHECKING:
+    import geopandas as gpd
+
+__all__ = [
+    "add_cli",
+    "plot_profile",
+    "read_track",
+    "sample_track",
+    "track_points",
+    "waypoint_distances_km",
+    "write_profile",
+]
+
+#: Ellipsoid of the track geodesics.
+GEOD = pyproj.Geod(ellps="WGS84")
+
+#: More points than this along one track is taken as a mistake in the spacing.
+MAX_POINTS = 5_000_000
+
+#: A track end this close (km) to the last regular point is not added again.
+_END_TOLERANCE_KM = 1e-6
+
+
+def read_track(
+    track: gpd.GeoDataFrame | str | os.PathLike[str],
+    *,
+    lon_column: str | None = None,
+    lat_column: str | None = None,
+    crs: Any = None,
+) -> tuple[np.ndarray, np.ndarray]:
+    """Read a track's waypoints as WGS84 longitudes and latitudes (degrees).
+
+    Parameters
+    ----------
+    track : geopandas.GeoDataFrame or path
+        Waypoints (CSV or point features, in order) or one line (see the module notes).
+    lon_column, lat_column, crs
+        As for :func:`lidmelt.products.sites.sample_stations`.
+
+    Returns
+    -------
+    lon, lat : numpy.ndarray
+        Waypoint coordinates, consecutive repeats removed. Units: degrees (WGS84).
+
+    Raises
+    ------
+    lidmelt.errors.InputError
+        If the file cannot be read, or has fewer than two distinct waypoints, mixed or
+        disconnected geometries, or no CRS.
+    """
+    import shapely
+
+    if isinstance(track, (str, os.PathLike)):
+        source = f"track file {str(track)!r}"
+        gdf = smp.read_points(
+            track, lon_column=lon_column, lat_column=lat_column, crs=crs, what="track"
+        )
+    else:
+        source = "the track table"
+        gdf = smp.apply_crs(track, crs=crs, source=source)
+    geoms = gdf.geometry.to_numpy()
+    if len(geoms) == 0:
+        msg = f"{source} has no features; expected two or more waypoints, or one line."
+        raise InputError(msg)
+    types = set(shapely.get_type_id(geoms).tolist())
+    point, line, multi = (
+        int(shapely.GeometryType.POINT),
+        int(shapely.GeometryType.LINESTRING),
+        int(shapely.GeometryType.MULTILINESTRING),
+    )
+    if types == {point}:
+        x, y = smp.check_points(gdf, source=source)
+    elif types <= {line, multi}:
+        x, y = _line_vertices(geoms, source=source)
+    else:
+        kinds = sorted({g.geom_type if g is not None else "missing" for g in geoms})
+        msg = (
+            f"{source} holds {', '.join(kinds)} geometries; expected points (the waypoints) or "
+            "lines. Convert it, or give the waypoints as a CSV."
+        )
+        raise InputError(msg)
+    lon, lat = smp.lonlat_from(pyproj.CRS.from_user_input(gdf.crs), x, y)
+    keep = np.ones(lon.size, dtype=bool)
+    keep[1:] = (np.diff(lon) != 0) | (np.diff(lat) != 0)
+    lon, lat = lon[keep], lat[keep]
+    if lon.size < 2:
+        msg = (
+            f"{source} has {lon.size} distinct waypoint(s); a track needs at least two. "
+            "Give the waypoints in order, start to end."
+        )
+        raise InputError(msg)
+    return lon, lat
+
+
+def _line_vertices(geoms: np.ndarray, *, source: str) -> tuple[np.ndarray, np.ndarray]:
+    import shapely
+
+    parts = [p for g in geoms for p in shapely.get_parts(g) if not p.is_empty]
+    if not parts:
+        msg = f"{source} holds only empty lines; expected a line with two or more vertices."
+        raise InputError(msg)
+    coords = [shapely.get_coordinates(parts[0])]
+    for k, part in enumerate(parts[1:], start=1):
+        c = shapely.get_coordinates(part)
+        if not np.allclose(c[0], coords[-1][-1], rtol=0, atol=1e-9):
+            msg = (
+                f"{source} has {len(parts)} line parts and part {k + 1} does not start where "
+                f"part {k} ends ({tuple(coords[-1][-1])} vs {tuple(c[0])}); expected one "
+                "connected track. Join the parts in order, or profile each part on its own."
+            )
+            raise InputError(msg)
+        coords.append(c[1:])
+    xy = np.concatenate(coords)
+    return xy[:, 0], xy[:, 1]
+
+
+def track_points(
+    lon: np.ndarray, lat: np.ndarray, *, spacing_km: float
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Points every ``spacing_km`` along the geodesics joining waypoints ``(lon, lat)``.
+
+    Parameters
+    ----------
+    lon, lat : numpy.ndarray
+        Waypoints in order. Units: degrees (WGS84).
+    spacing_km : float
+        Distance between points along the track. Units: km; > 0.
+
+    Returns
+    -------
+    lon, lat : numpy.ndarray
+        Point coordinates, longitude in -180..180. Units: degrees.
+    distance_km : numpy.ndarray
+        Distance along the track from the first waypoint. Units: km.
+    waypoint_index : numpy.ndarray
+        Index of the last waypoint at or before each point.
+
+    Raises
+    ------
+    lidmelt.errors.InputError
+        If ``spacing_km`` is not a positive number or gives more than 5 million points.
+    """
+    try:
+        spacing = float(spacing_km)
+    except (TypeError, ValueError):
+        spacing = math.nan
+    if not (np.isfinite(spacing) and spacing > 0):
+        msg = (
+            f"spacing {spacing_km!r} km is not a positive distance; expected the distance "
+            "between profile points in km, e.g. --spacing 5."
+        )
+        raise InputError(msg)
+    lon = np.asarray(lon, dtype=float)
+    lat = np.asarray(lat, dtype=float)
+    azimuth, _, _ = GEOD.inv(lon[:-1], lat[:-1], lon[1:], lat[1:])
+    azimuth = np.atleast_1d(np.asarray(azimuth, dtype=float))
+    starts = waypoint_distances_km(lon, lat)
+    seg_km = np.diff(starts)
+    total = float(starts[-1])
+    count = int(np.floor(total / spacing * (1 + 1e-12))) + 1
+    if count > MAX_POINTS:
+        msg = (
+            f"spacing {spacing} km along a {total:.1f} km track gives {count} points, more than "
+            f"{MAX_POINTS}; expected a spacing in km (not m). Give a larger --spacing."
+        )
+        raise InputError(msg)
+    distance = np.arange(count) * spacing
+    if total - distance[-1] > _END_TOLERANCE_KM:
+        distance = np.append(distance, total)
+    else:
+        distance[-1] = min(distance[-1], total)
+    segment = np.clip(np.searchsorted(starts, distance, side="right") - 1, 0, seg_km.size - 1)
+    local_m = (distance - starts[segment]) * 1000.0
+    plon, plat, _ = GEOD.fwd(lon[segment], lat[segment], azimuth[segment], local_m)
+    plon = np.mod(np.asarray(plon, dtype=float) + 180.0, 360.0) - 180.0
+    plat = np.asarray(plat, dtype=float)
+    index = np.searchsorted(starts, distance + 1e-9, side="right") - 1
+    index = np.clip(index, 0, lon.size - 1)
+    index[-1] = lon.size - 1
+    plon[-1], plat[-1] = np.mod(lon[-1] + 180.0, 360.0) - 180.0, lat[-1]
+    return plon, plat, distance, index
+
+
+def waypoint_distances_km(lon: np.ndarray, lat: np.ndarray) -> np.ndarray:
+    """Distance along the track of each waypoint (km; 0 at the first), WGS84 geodesics."""
+    lon = np.asarray(lon, dtype=float)
+    lat = np.asarray(lat, dtype=float)
+    _, _, seg_m = GEOD.inv(lon[:-1], lat[:-1], lon[1:], lat[1:])
+    seg_km = np.atleast_1d(np.asarray(seg_m, dtype=float)) / 1000.0
+    return np.concatenate([[0.0], np.cumsum(seg_km)])
+
+
+def sample_track(
+    run: RunDir | str | os.PathLike[str],
+    track: gpd.GeoDataFrame | str | os.PathLike[str],
+    *,
+    spacing_km: float,
+    method: str = "bilinear",
+    lon_column: str | None = None,
+    lat_column: str | None = None,
+    crs: Any = None,
+) -> gpd.GeoDataFrame:
+    """Sample every variable of a run along a track.
+
+    Parameters
+    ----------
+    run : RunDir or path
+        A run directory written by ``lidmelt run``.
+    track : geopandas.GeoDataFrame or path
+        Waypoints or one line (see the module notes).
+    spacing_km : float
+        Distance between points along the track. Units: km.
+    method : {"bilinear", "nearest"}
+        As for :func:`lidmelt.products.sites.sample_stations`.
+    lon_column, lat_column, crs
+        Coordinate columns and CRS of a CSV track (default: common names, EPSG:4326).
+
+    Returns
+    -------
+    geopandas.GeoDataFrame
+        One row per point in EPSG:4326: ``distance_km`` (km along the track),
+        ``waypoint_index``, ``lon`` and ``lat`` (degrees), one column per output variable and
+        input of the run, ``status``, and Point geometries.
+
+    Raises
+    ------
+    lidmelt.errors.InputError, lidmelt.errors.RunDirError
+        On a bad track, spacing, method or run directory.
+    """
+    import geopandas as gpd
+
+    smp.check_method(method)
+    run = smp.as_run(run)
+    wlon, wlat = read_track(track, lon_column=lon_column, lat_column=lat_column, crs=crs)
+    lon, lat, distance, index = track_points(wlon, wlat, spacing_km=spacing_km)
+    grid = smp.grid_info(run)
+    gx, gy = grid.to_grid_xy(lon, lat, smp.WGS84)
+    columns, status = smp.sample_run(run, grid, gx, gy, method=method)
+    frame = pd.DataFrame(
+        {"distance_km": distance, "waypoint_index": index, "lon": lon, "lat": lat, **columns}
+    )
+    frame["status"] = pd.array(status, dtype=object)
+    gdf = gpd.GeoDataFrame(frame, geometry=gpd.points_from_xy(lon, lat), crs=smp.WGS84)
+    gdf.attrs["lidmelt_coordinate_columns"] = ("lon", "lat")
+    gdf.attrs["lidmelt_units"] = smp.units_of(run, list(columns))
+    gdf.attrs["lidmelt_waypoint_distance_km"] = waypoint_distances_km(wlon, wlat).tolist()
+    smp.warn_outside(gdf, status, what="track point", stacklevel=2)
+    return gdf
+
+
+def plot_profile(gdf: gpd.GeoDataFrame, path: str | os.PathLike[str], *, title: str = "") -> Path:
+    """Draw a track profile: melt thickness, and onset and lid depth, against distance.
+
+    Parameters
+    ----------
+    gdf : geopandas.GeoDataFrame
+        The result of :func:`sample_track` (needs ``distance_km`` and at least one of
+        ``melt_thickness_km``, ``onset_depth_km``, ``lid_depth_km``).
+    path : path
+        PNG file to write (written under a temporary name, then renamed).
+    title : str
+        Figure title.
+
+    Returns
+    -------
+    Path
+        The PNG written.
+
+    Raises
+    ------
+    lidmelt.errors.InputError
+        If ``gdf`` lacks the columns to plot.
+    """
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+
+    needed = {"melt_thickness_km", "onset_depth_km", "lid_depth_km"}
+    if "distance_km" not in gdf.columns or not needed & set(gdf.columns):
+        msg = (
+            f"the profile table has columns {', '.join(map(str, gdf.columns))}; expected "
+            "distance_km and melt_thickness_km, onset_depth_km or lid_depth_km. Give the "
+            "result of sample_track()."
+        )
+        raise InputError(msg)
+    path = Path(path)
+    d = gdf["distance_km"].to_numpy(dtype=float)
+    fig, (top, bottom) = plt.subplots(
+        2, 1, sharex=True, figsize=(9, 6.5), height_ratios=(1, 1.4), layout="constrained"
+    )
+    if "melt_thickness_km" in gdf.columns:
+        melt = gdf["melt_thickness_km"].to_numpy(dtype=float)
+        top.fill_between(d, 0, melt, color="tab:red", alpha=0.3, lw=0)
+        top.plot(d, melt, color="tab:red", lw=1.6, label="melt thickness")
+        top.set_ylim(bottom=0)
+    top.set_ylabel("Melt thickness (km)")
+    top.grid(alpha=0.3)
+
+    lid = gdf["lid_depth_km"].to_numpy(dtype=float) if "lid_depth_km" in gdf.columns else None
+    onset = gdf["onset_depth_km"].to_numpy(dtype=float) if "onset_depth_km" in gdf.columns else None
+    if lid is not None and onset is not None:
+        melting = np.isfinite(lid) & np.isfinite(onset) & (onset > lid)
+        if "melt_thickness_km" in gdf.columns:
+            melting &= gdf["melt_thickness_km"].to_numpy(dtype=float) > 0
+        bottom.fill_between(
+            d,
+            lid,
+            onset,
+            where=melting,
+            color="tab:orange",
+            alpha=0.25,
+            lw=0,
+            label="melting column",
+        )
+    if onset is not None:
+        bottom.plot(d, onset, color="tab:orange", lw=1.6, label="onset depth (solidus crossing)")
+    if lid is not None:
+        bottom.plot(d, lid, color="tab:blue", lw=1.6, label="lid depth (top of melting)")
+    bottom.invert_yaxis()
+    bottom.set_ylabel("Depth (km)")
+    bottom.set_xlabel("Distance along track (km)")
+    bottom.grid(alpha=0.3)
+    if bottom.lines:
+        bottom.legend(loc="best", fontsize=9, framealpha=0.8)
+
+    turns = gdf.attrs.get("lidmelt_waypoint_distance_km", [])[1:-1]
+    for ax in (top, bottom):
+        for x in turns:
+            ax.axvline(x, color="0.5", lw=0.8, ls=":")
+    if len(turns):
+        bottom.text(
+            turns[0],
+            1.0,
+            " waypoints (dotted)",
+            transform=bottom.get_xaxis_transform(),
+            va="bottom",
+            ha="left",
+            fontsize=8,
+            color="0.4",
+        )
+    top.set_xlim(d.min(), d.max() if d.max() > d.min() else d.min() + 1)
+    top.set_title(title or "Track profile", fontsize=12)
+    for ax in (top, bottom):
+        ax.tick_params(labelsize=10)
+    with smp.atomic_paths(path) as (temp,):
+        fig.savefig(temp, dpi=150, format="png")
+    plt.close(fig)
+    return path
+
+
+def write_profile(
+    gdf: gpd.GeoDataFrame, path: str | os.PathLike[str], *, title: str = ""
+) -> tuple[Path, Path]:
+    """Write a profile's CSV and its PNG figure beside it (same stem); return both paths."""
+    path = smp.check_output_path(path, (".csv",), what="profile")
+    png = path.with_suffix(".png")
+    with smp.atomic_paths(path) as (temp,):
+        smp.table_with_coordinates(gdf).to_csv(temp, index=False)
+        plot_profile(gdf, png, title=title)
+    return path, png
+
+
+def _run_cli(args: argparse.Namespace) -> int:
+    out = args.output or f"{Path(args.track).stem}_profile.csv"
+    out = smp.check_output_path(out, (".csv",), what="profile")
+    with smp.cli_warnings("profile"):
+        gdf = sample_track(
+            args.run_dir,
+            args.track,
+            spacing_km=args.spacing,
+            method=args.method,
+            lon_column=args.lon_column,
+            lat_column=args.lat_column,
+            crs=args.crs,
+        )
+    shown = [
+        c
+        for c in (
+            "distance_km",
+            "waypoint_index",
+            "lon",
+            "lat",
+            "melt_thickness_km",
+            "onset_depth_km",
+            "lid_depth_km",
+            "status",
+        )
+        if c in gdf.columns
+    ]
+    print(smp.format_table(pd.DataFrame(gdf[shown]), max_rows=10))
+    print(
+        smp.status_summary(np.asarray(gdf["status"]), what="points")
+        + f"; track length {gdf['distance_km'].iloc[-1]:.3f} km, spacing {args.spacing:g} km"
+    )
+    title = f"{Path(args.run_dir).name}: {Path(args.track).name}"
+    csv_path, png = write_profile(gdf, out, title=title)
+    print(f"wrote {csv_path} and {png}")
+    return 0
+
+
+def add_cli(subparsers: argparse._SubParsersAction) -> None:
+    """Register ``lidmelt profile``."""
+    p = subparsers.add_parser(
+        "profile",
+        help="values of a run along a ship track, with a profile figure",
+        description=(
+            "Sample every variable of a run every KM km along the geodesics (WGS84) joining a "
+            "track's waypoints; write a CSV and a PNG profile of melt thickness, onset depth "
+            "and lid depth next to it."
+        ),
+    )
+    p.add_argument("run_dir", metavar="RUN_DIR", help="output folder of 'lidmelt run'")
+    p.add_argument(
+        "track",
+        metavar="TRACK",
+        help="waypoints (CSV with lon/lat columns, or a point file) or a line file, any CRS",
+    )
+    p.add_argument(
+        "--spacing",
+        metavar="KM",
+        type=float,
+        required=True,
+        help="distance between profile points along the track, in km",
+    )
+    p.add_argument(
+        "-o",
+        "--output",
+        metavar="OUT.csv",
+        help="CSV to write (default TRACKNAME_profile.csv here); the PNG goes beside it",
+    )
+    p.add_argument(
+        "--method",
+        choices=smp.METHODS,
+        default="bilinear",
+        help="bilinear between cell centres (default) or the containing cell's value",
+    )
+    p.add_argument("--lon-column", metavar="NAME", help="longitude (x) column of a CSV track")
+    p.add_argument("--lat-column", metavar="NAME", help="latitude (y) column of a CSV track")
+    p.add_argument(
+        "--crs",
+        metavar="CRS",
+        help="CRS of a CSV track's coordinates (default EPSG:4326) or of a file without one",
+    )
+    p.set_defaults(func=_run_cli)

@@ -1,0 +1,234 @@
+"""Values of a finished run at stations (dredge sites, drill sites, seamounts...).
+
+:func:`sample_stations` reads every output variable and every input of a run at a set of points
+and returns them as a table with one row per station, in the stations' order, with a ``status``
+column; ``lidmelt sample`` is the command-line form.
+
+Stations
+--------
+A CSV file (comma, semicolon, tab or ``|`` separated) with a longitude and a latitude column,
+found under their common names (``lon``/``long``/``longitude``/``x`` and ``lat``/``latitude``/
+``y``, any case) or named with ``lon_column``/``lat_column``; its coordinates are EPSG:4326
+unless ``crs`` says otherwise. Every other column is kept as it was: numbers as numbers, text
+(identifiers such as ``007`` too) as text. Or any point file GDAL reads (GeoPackage, GeoJSON,
+Shapefile...), in any CRS, or a :class:`geopandas.GeoDataFrame` of points.
+
+Sampling
+--------
+Station coordinates are transformed into the grid's CRS. On a geographic grid, longitudes in
+0..360 and -180..180 both work, and so do grids that span the antimeridian (stations are
+wrapped into the grid's longitude range; a global grid is treated as periodic, so a station
+between its last and first column is interpolated across the seam).
+
+``bilinear`` (default) interpolates between the four surrounding cell centres; ``nearest`` takes
+the value of the cell that contains the station. Statuses:
+
+``ok``
+    Within the grid, with data.
+``outside_grid``
+    Beyond the grid's outer edge: every value NaN. The station is kept, never dropped, and a
+    warning names it.
+``nodata``
+    The cell containing the station has no data (NaN ``melt_thickness_km``): every output NaN.
+``next_to_nodata``
+    (bilinear only) One of the four cells around the station has no data: the values are those
+    of the cell containing the station (nearest-cell fallback), not an interpolation.
+
+A variable that is NaN by definition at some cells (``onset_depth_km`` where the mantle never
+reaches its solidus) follows the same rule on its own cells. Within the outer half cell of the
+grid the values are those of the edge cells.
+"""
+
+from __future__ import annotations
+
+import argparse
+import os
+from pathlib import Path
+from typing import TYPE_CHECKING, Any
+
+import numpy as np
+import pandas as pd
+import pyproj
+
+from lidmelt.errors import InputError
+from lidmelt.grids.rundir import RunDir
+from lidmelt.products import _sampling as smp
+
+if TYPE_CHECKING:
+    import geopandas as gpd
+
+__all__ = ["add_cli", "sample_stations", "write_stations"]
+
+#: Output suffixes of ``lidmelt sample``.
+OUTPUT_SUFFIXES = (".csv", ".gpkg")
+
+#: Columns shown in the printed table, when the run has them.
+_SHOWN_VARIABLES = ("melt_thickness_km", "onset_depth_km", "lid_depth_km")
+
+
+def sample_stations(
+    run: RunDir | str | os.PathLike[str],
+    stations: gpd.GeoDataFrame | str | os.PathLike[str],
+    *,
+    method: str = "bilinear",
+    lon_column: str | None = None,
+    lat_column: str | None = None,
+    crs: Any = None,
+) -> gpd.GeoDataFrame:
+    """Sample every output variable and input of a run at stations.
+
+    Parameters
+    ----------
+    run : RunDir or path
+        A run directory written by ``lidmelt run``.
+    stations : geopandas.GeoDataFrame or path
+        Points with a CRS, or a file: CSV (see the module notes) or any point file GDAL reads.
+    method : {"bilinear", "nearest"}
+        Interpolation between cell centres, or the value of the containing cell.
+    lon_column, lat_column : str, optional
+        Coordinate columns of a CSV (default: found under their common names).
+    crs : str or pyproj.CRS, optional
+        CRS of a CSV's coordinates (default EPSG:4326), or of a vector file that declares none.
+
+    Returns
+    -------
+    geopandas.GeoDataFrame
+        The stations in their order and CRS with their columns, then one column per output
+        variable and input of the run (units in the names: ``_km`` km, ``_gpa`` GPa, ``_k`` K,
+        ``_ma`` Ma, ``_wt_pct`` wt%; ``max_melt_fraction`` is a fraction, 0..1), then
+        ``status`` (``ok``, ``outside_grid``, ``nodata``, ``next_to_nodata``).
+
+    Raises
+    ------
+    lidmelt.errors.RunDirError
+        If ``run`` is not a run directory.
+    lidmelt.errors.InputError
+        If the stations cannot be read, have no coordinates or CRS, are not points, or
+        ``method`` is unknown.
+
+    Warns
+    -----
+    UserWarning
+        Naming the stations outside the grid (they are kept, with NaN values).
+    """
+    smp.check_method(method)
+    run = smp.as_run(run)
+    if isinstance(stations, (str, os.PathLike)):
+        source = f"station file {str(stations)!r}"
+        gdf = smp.read_points(
+            stations, lon_column=lon_column, lat_column=lat_column, crs=crs, what="station"
+        )
+    else:
+        source = "the station table"
+        gdf = smp.apply_crs(stations, crs=crs, source=source)
+        if len(gdf) == 0:
+            msg = f"{source} has no rows; expected one Point per station."
+            raise InputError(msg)
+    x, y = smp.check_points(gdf, source=source)
+    grid = smp.grid_info(run)
+    gx, gy = grid.to_grid_xy(x, y, pyproj.CRS.from_user_input(gdf.crs))
+    columns, status = smp.sample_run(run, grid, gx, gy, method=method)
+
+    names = [*columns, "status"]
+    out = smp.replace_columns(gdf, names, source=source)
+    out = out.assign(**columns, status=pd.array(status, dtype=object))
+    geometry = out.geometry.name
+    out = out[[c for c in out.columns if c != geometry] + [geometry]]
+    out.attrs = {**gdf.attrs, "lidmelt_units": smp.units_of(run, list(columns))}
+    smp.warn_outside(out, status, what="station", stacklevel=2)
+    return out
+
+
+def write_stations(gdf: gpd.GeoDataFrame, path: str | os.PathLike[str]) -> Path:
+    """Write sampled stations as CSV or GeoPackage, chosen by the suffix of ``path``.
+
+    The file is written under a temporary name in the destination folder and renamed when
+    complete. A CSV has no geometry column: it keeps the stations' own coordinate columns, or
+    gets ``longitude``/``latitude`` (WGS84 degrees) when the stations came from a vector file.
+
+    Raises
+    ------
+    lidmelt.errors.InputError
+        If the suffix is neither ``.csv`` nor ``.gpkg``.
+    """
+    path = smp.check_output_path(path, OUTPUT_SUFFIXES, what="station table")
+    smp.write_table(gdf, path, layer=smp.safe_layer_name(path))
+    return path
+
+
+def _printed_table(gdf: gpd.GeoDataFrame) -> str:
+    frame = smp.table_with_coordinates(gdf)
+    coords = list(gdf.attrs.get("lidmelt_coordinate_columns", ("longitude", "latitude")))
+    sampled = set(gdf.attrs.get("lidmelt_units", {})) | {"status"}
+    own = [c for c in frame.columns if c not in sampled and c not in coords][:2]
+    shown = [c for c in _SHOWN_VARIABLES if c in frame.columns]
+    return smp.format_table(frame[own + coords + shown + ["status"]])
+
+
+def _run_cli(args: argparse.Namespace) -> int:
+    out = (
+        None
+        if args.output is None
+        else smp.check_output_path(args.output, OUTPUT_SUFFIXES, what="station table")
+    )
+    with smp.cli_warnings("sample"):
+        gdf = sample_stations(
+            args.run_dir,
+            args.stations,
+            method=args.method,
+            lon_column=args.lon_column,
+            lat_column=args.lat_column,
+            crs=args.crs,
+        )
+    print(_printed_table(gdf))
+    print(smp.status_summary(np.asarray(gdf["status"]), what="stations"))
+    if out is None:
+        print("no file written (give -o OUT.csv or -o OUT.gpkg to save the table)")
+    else:
+        write_stations(gdf, out)
+        print(f"wrote {out}")
+    return 0
+
+
+def add_cli(subparsers: argparse._SubParsersAction) -> None:
+    """Register ``lidmelt sample``."""
+    p = subparsers.add_parser(
+        "sample",
+        help="values of a run at stations (CSV or point file)",
+        description=(
+            "Sample every output variable and input of a run at stations, with a status column "
+            "(ok, outside_grid, nodata, next_to_nodata). Prints a short table; -o writes it."
+        ),
+    )
+    p.add_argument("run_dir", metavar="RUN_DIR", help="output folder of 'lidmelt run'")
+    p.add_argument(
+        "stations",
+        metavar="STATIONS",
+        help=(
+            "CSV with longitude/latitude columns (lon/long/longitude/x, lat/latitude/y), or a "
+            "point file (GeoPackage, GeoJSON, Shapefile) in any CRS"
+        ),
+    )
+    p.add_argument(
+        "-o",
+        "--output",
+        metavar="OUT",
+        help="write the table to OUT.csv or OUT.gpkg (format chosen by the suffix)",
+    )
+    p.add_argument(
+        "--method",
+        choices=smp.METHODS,
+        default="bilinear",
+        help="bilinear between cell centres (default) or the containing cell's value",
+    )
+    p.add_argument("--lon-column", metavar="NAME", help="longitude (x) column of a CSV")
+    p.add_argument("--lat-column", metavar="NAME", help="latitude (y) column of a CSV")
+    p.add_argument(
+        "--crs",
+        metavar="CRS",
+        help=(
+            "CRS of a CSV's coordinates (default EPSG:4326), or of a vector file that declares "
+            "none, e.g. EPSG:32633"
+        ),
+    )
+    p.set_defaults(func=_run_cli)

@@ -1,0 +1,295 @@
+"""Basin runs end to end: workflow -> aligned inputs -> kernel -> GeoTIFFs and summary.
+
+Grids here are invented test inputs; every check value comes from an independent calculation:
+``lidmelt.melt_column`` (direct integration) on the same cell's inputs, the cooling model on the
+same age, pyproj's CRS and transform, or an identity (same inputs, same outputs).
+"""
+
+import json
+import shutil
+from pathlib import Path
+
+import numpy as np
+import numpy.testing as npt
+import pytest
+import rasterio
+from rasterio.transform import from_origin
+
+from lidmelt.cli import main
+from lidmelt.engine import VARIABLES, run_basin
+from lidmelt.grids.rundir import open_run
+from lidmelt.physics import excess_to_melt_k, get_cooling_model, isotherm_depth_km, melt_column
+from lidmelt.workflow import load_workflow
+
+ROOT = Path(__file__).resolve().parents[1]
+DEMO = ROOT / "workflows" / "demo.toml"
+
+
+def write_tif(path, values, transform, crs="EPSG:4326", units="Ma"):
+    with rasterio.open(
+        path,
+        "w",
+        driver="GTiff",
+        height=values.shape[0],
+        width=values.shape[1],
+        count=1,
+        dtype="float32",
+        crs=crs,
+        transform=transform,
+        nodata=np.nan,
+    ) as dst:
+        dst.write(values.astype("float32"), 1)
+        dst.units = (units,)
+    return path
+
+
+def small_basin(folder: Path, *, age_name="age.tif", extra="", age=None) -> Path:
+    """A 40 x 60 invented basin at 0.25 degree with a NaN margin, and its workflow file."""
+    folder.mkdir(parents=True, exist_ok=True)
+    lon = -30 + 0.25 * (np.arange(60) + 0.5)
+    lat = 10 - 0.25 * (np.arange(40) + 0.5)
+    if age is None:
+        age = np.broadcast_to(2.0 * (lon - lon[0]) + 0.5, (40, 60)).copy() + 0 * lat[:, None]
+        age[:, -6:] = np.nan
+    write_tif(folder / age_name, age, from_origin(-30, 10, 0.25, 0.25))
+    wf = folder / "basin.toml"
+    wf.write_text(
+        f"""
+[run]
+name = "small"
+maps = false
+report = false
+[grid]
+like = "plate_age"
+[inputs.plate_age]
+path = "{age_name}"
+[inputs.thermal_anomaly]
+[[inputs.thermal_anomaly.plumes]]
+longitude = -20.0
+latitude = 5.0
+radius_km = 300.0
+peak_excess_k = 250.0
+[inputs.water]
+constant = 0.0
+[compute]
+chunk_size = 512
+{extra}
+""",
+        encoding="utf-8",
+    )
+    return wf
+
+
+@pytest.fixture(scope="module")
+def demo_run(tmp_path_factory):
+    out = tmp_path_factory.mktemp("demo") / "run"
+    cfg = load_workflow(DEMO, output_dir=out)
+    return run_basin(cfg, progress=False)
+
+
+def test_demo_outputs_grid_and_nodata(demo_run):
+    run = open_run(demo_run.run_dir)
+    assert set(VARIABLES) <= set(run.outputs)
+    with rasterio.open(ROOT / "grids_demo" / "plate_age_ma.tif") as src:
+        crs, transform, age = src.crs, src.transform, src.read(1)
+    for name in VARIABLES:
+        with rasterio.open(run.file(name)) as dst:
+            assert dst.crs == crs and dst.transform == transform, name
+            assert dst.dtypes[0] == "float32"
+            assert np.isnan(dst.nodata)
+            assert dst.units[0] == VARIABLES[name][0]
+            assert dst.descriptions[0] == VARIABLES[name][1]
+            values = dst.read(1)
+            tags = dst.tags()
+        assert np.all(np.isnan(values[np.isnan(age)])), name  # land/margin stays nodata
+        assert tags["model"] == "katz2003"
+        params = json.loads(tags["model_parameters"])
+        assert params["cpx_mass_fraction"] == 0.17  # every parameter is named
+        assert "plate_age_ma" in json.loads(tags["inputs"])
+        assert tags["workflow"] == DEMO.read_text(encoding="utf-8")
+    with rasterio.open(demo_run.run_dir / "validity_flag.tif") as dst:
+        assert dst.dtypes[0] == "uint8"
+        assert dst.nodata == 255
+    assert (demo_run.run_dir / "lidmelt.nc").is_file()
+
+
+def test_demo_cells_equal_melt_column(demo_run):
+    run = open_run(demo_run.run_dir)
+    age = run.open("plate_age_ma").values
+    anomaly = run.open("thermal_anomaly_k").values
+    out = {name: run.open(name).values for name in VARIABLES}
+    rng = np.random.default_rng(7)
+    iy, ix = np.nonzero(np.isfinite(age))
+    pick = rng.choice(iy.size, 50, replace=False)
+    # half of the sample on melting cells so that melt thickness is really tested
+    melt_y, melt_x = np.nonzero(out["melt_thickness_km"] > 0.5)
+    pick_m = rng.choice(melt_y.size, 25, replace=False)
+    ys = np.concatenate([iy[pick], melt_y[pick_m]])
+    xs = np.concatenate([ix[pick], melt_x[pick_m]])
+    lid = isotherm_depth_km(1100.0, age[ys, xs], model=get_cooling_model("half-space"))
+    ref = melt_column(1350.0 + anomaly[ys, xs], lid, 0.0, method="direct")
+    h = out["melt_thickness_km"][ys, xs]
+    tol = np.maximum(0.005 * ref.melt_thickness_km, 0.02)  # the table tolerance
+    assert np.all(np.abs(h - ref.melt_thickness_km) <= tol + 1e-5)
+    npt.assert_allclose(out["onset_depth_km"][ys, xs], ref.onset_depth_km, atol=0.2)
+    npt.assert_allclose(out["lid_depth_km"][ys, xs], ref.lid_depth_km, rtol=1e-5)
+    npt.assert_allclose(out["max_melt_fraction"][ys, xs], ref.max_melt_fraction, atol=2e-3)
+    npt.assert_allclose(out["excess_to_melt_k"][ys, xs], excess_to_melt_k(lid), atol=1e-3)
+
+
+def test_demo_summary(demo_run):
+    s = open_run(demo_run.run_dir).summary
+    st = s["statistics"]
+    thickness = open_run(demo_run.run_dir).open("melt_thickness_km").values
+    assert st["melting_cells"] == int(np.sum(thickness > 0))
+    assert st["data_cells"] == int(np.sum(np.isfinite(thickness)))
+    npt.assert_allclose(
+        st["variables"]["melt_thickness_km"]["max"], np.nanmax(thickness), rtol=1e-6
+    )
+    # volume = sum of thickness x geodesic cell area (authalic formula, GEOSTACK.md 5)
+    from lidmelt.grids.align import TargetGrid
+    from lidmelt.grids.area import cell_area_km2
+
+    area = cell_area_km2(TargetGrid.from_dict(s["grid"])).values
+    npt.assert_allclose(st["melt_volume_km3"], np.nansum(thickness * area), rtol=1e-5)
+    npt.assert_allclose(st["melting_area_km2"], np.sum(area[thickness > 0]), rtol=1e-6)
+    assert s["inputs"]["plate_age_ma"]["sha256"]
+    assert s["model"]["name"] == "katz2003"
+
+
+def test_runs_are_deterministic(tmp_path):
+    wf = small_basin(tmp_path / "in")
+    a = run_basin(load_workflow(wf, output_dir=tmp_path / "a"), progress=False)
+    b = run_basin(load_workflow(wf, output_dir=tmp_path / "b"), progress=False)
+    for name in VARIABLES:
+        npt.assert_array_equal(
+            open_run(a.run_dir).open(name).values, open_run(b.run_dir).open(name).values
+        )
+
+
+def test_alignment_of_other_grids_gives_the_same_outputs(tmp_path):
+    # the same smooth age field given at twice the resolution, in EPSG:3857 and in 0..360
+    # longitudes, onto the grid of the first: outputs agree within interpolation error
+    import pyproj
+
+    def age_of(lon, lat):
+        return 20.0 + 1.5 * (lon + 30.0) + 0.5 * (lat - 0.0)
+
+    base = tmp_path / "base"
+    lon = -30 + 0.25 * (np.arange(60) + 0.5)
+    lat = 10 - 0.25 * (np.arange(40) + 0.5)
+    wf = small_basin(base, age=age_of(lon[None, :], lat[:, None]))
+    ref = run_basin(load_workflow(wf, output_dir=tmp_path / "ref"), progress=False)
+    ref_h = open_run(ref.run_dir).open("melt_thickness_km").values
+    extent = 'extent = [-30.0, -15.0, 0.0, 10.0]\nresolution = 0.25\ncrs = "EPSG:4326"'
+
+    fine_lon = -32 + 0.125 * (np.arange(160) + 0.5)
+    fine_lat = 12 - 0.125 * (np.arange(100) + 0.5)
+    variants = {
+        "fine": (
+            age_of(fine_lon[None, :], fine_lat[:, None]),
+            from_origin(-32, 12, 0.125, 0.125),
+            "EPSG:4326",
+        ),
+        "lon360": (
+            age_of(fine_lon[None, :], fine_lat[:, None]),
+            from_origin(-32 + 360, 12, 0.125, 0.125),
+            "EPSG:4326",
+        ),
+    }
+    merc = pyproj.Transformer.from_crs("EPSG:3857", "EPSG:4326", always_xy=True)
+    x = -3.6e6 + 10000.0 * (np.arange(200) + 0.5)
+    y = 1.4e6 - 10000.0 * (np.arange(170) + 0.5)
+    mlon, mlat = merc.transform(*np.meshgrid(x, y))
+    variants["mercator"] = (
+        age_of(mlon, mlat),
+        from_origin(-3.6e6, 1.4e6, 10000.0, 10000.0),
+        "EPSG:3857",
+    )
+    for name, (values, transform, crs) in variants.items():
+        folder = tmp_path / name
+        folder.mkdir()
+        write_tif(folder / "age.tif", values, transform, crs=crs)
+        text = (
+            wf.read_text()
+            .replace('like = "plate_age"', extent)
+            .replace('path = "age.tif"', f'path = "{folder / "age.tif"}"')
+        )
+        (folder / "w.toml").write_text(text)
+        res = run_basin(load_workflow(folder / "w.toml", output_dir=folder / "out"), progress=False)
+        h = open_run(res.run_dir).open("melt_thickness_km").values
+        # a linear age field is interpolated almost exactly; the lid is smooth in age
+        npt.assert_allclose(h, ref_h, atol=0.05, err_msg=name)
+
+
+def test_cli_run_and_bad_inputs(tmp_path, capsys):
+    wf = small_basin(tmp_path / "in")
+    assert main(["run", str(wf), "-o", str(tmp_path / "ok"), "--quiet"]) == 0
+    assert "melt_thickness_km.tif" in capsys.readouterr().out
+
+    def fails(args, message):
+        out_dir = tmp_path / f"bad{len(list(tmp_path.iterdir()))}"
+        assert main(["run", *args, "-o", str(out_dir), "--quiet"]) == 1
+        err = capsys.readouterr().err
+        assert message in err, err
+        assert "Traceback" not in err
+        leftovers = [p for p in out_dir.rglob("*") if p.suffix in (".tif", ".json", ".nc")]
+        assert not leftovers, leftovers  # nothing half-written under a final name
+
+    fails([str(tmp_path / "missing.toml")], "missing.toml")
+    fails([str(wf), "--set", "model.name=katz2030"], "katz2003")
+    fails(
+        [str(wf), "--set", "model.ambiant_potential_temperature_c=1400"],
+        "ambient_potential_temperature_c",
+    )
+    # a corrupt GeoTIFF
+    bad = small_basin(tmp_path / "corrupt")
+    (tmp_path / "corrupt" / "age.tif").write_bytes(b"II*\x00 not really a tiff")
+    fails([str(bad)], "age.tif")
+    # ages in seconds instead of Ma: values far outside 0 to 400
+    sec = small_basin(tmp_path / "seconds")
+    age = np.full((40, 60), 50.0 * 3.15576e13)
+    write_tif(tmp_path / "seconds" / "age.tif", age, from_origin(-30, 10, 0.25, 0.25))
+    fails([str(sec)], "seconds")
+    # a negative lid thickness grid
+    small_basin(tmp_path / "neg", extra="")
+    write_tif(
+        tmp_path / "neg" / "lid.tif",
+        np.full((40, 60), -10.0),
+        from_origin(-30, 10, 0.25, 0.25),
+        units="km",
+    )
+    text = (tmp_path / "neg" / "basin.toml").read_text()
+    text = text.replace(
+        "[inputs.thermal_anomaly]",
+        '[inputs.lid_thickness]\npath = "lid.tif"\n[inputs.thermal_anomaly]',
+    )
+    (tmp_path / "neg" / "basin.toml").write_text(text)
+    fails([str(tmp_path / "neg" / "basin.toml")], "lid_thickness_km")
+
+
+def test_no_crs_input_is_a_clear_error(tmp_path, capsys):
+    wf = small_basin(tmp_path / "in")
+    with rasterio.open(
+        tmp_path / "in" / "age.tif",
+        "w",
+        driver="GTiff",
+        height=4,
+        width=4,
+        count=1,
+        dtype="float32",
+    ) as dst:
+        dst.write(np.ones((4, 4), "float32"), 1)
+    assert main(["run", str(wf), "-o", str(tmp_path / "out"), "--quiet"]) == 1
+    assert "CRS" in capsys.readouterr().err
+
+
+def test_demo_workflow_runs_from_its_own_folder(tmp_path, monkeypatch):
+    # the README's main command runs the demo from the project root; it must also run from a
+    # copy of the project (paths in the workflow are relative to the workflow file)
+    copy = tmp_path / "proj"
+    shutil.copytree(ROOT / "workflows", copy / "workflows")
+    shutil.copytree(ROOT / "grids_demo", copy / "grids_demo")
+    monkeypatch.chdir(copy)
+    cfg = load_workflow(Path("workflows/demo.toml"))
+    assert cfg.run.output_dir == copy / "runs" / "demo"
