@@ -94,7 +94,8 @@ def test_demo_outputs_grid_and_nodata(demo_run):
         crs, transform, age = src.crs, src.transform, src.read(1)
     for name in VARIABLES:
         with rasterio.open(run.file(name)) as dst:
-            assert dst.crs == crs and dst.transform == transform, name
+            assert dst.crs == crs, name
+            assert dst.transform == transform, name
             assert dst.dtypes[0] == "float32"
             assert np.isnan(dst.nodata)
             assert dst.units[0] == VARIABLES[name][0]
