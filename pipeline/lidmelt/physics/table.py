@@ -30,6 +30,7 @@ import numpy as np
 from lidmelt.physics.column import (
     COLUMN_OUTPUTS,
     FLAG_BEYOND_CALIBRATION,
+    FLAG_NO_ONSET,
     ColumnResult,
     _direct,
     finish_outputs,
@@ -44,6 +45,10 @@ from lidmelt.physics.melting import MeltingModel, get_model
 TABLE_FORMAT = 1
 WATER_EXPONENT = 0.75  # the water coordinate u = water^0.75 (Katz et al. 2003 gamma)
 _BLOCK = 1 << 16
+# Step of the direct integration for the few cells the table cannot do: 0.04 GPa changes melt
+# thickness by < 4e-4 km against 0.0025 GPa (tests/test_column.py::test_step_convergence), far
+# inside the table tolerance, and is 4 times faster than the default step.
+FALLBACK_STEP_GPA = 0.04
 
 
 @dataclass(frozen=True)
@@ -203,13 +208,14 @@ class MeltTable:
         j = np.clip(u.astype(np.intp), 0, self.water_u.size - 2)
         return j, u - j
 
-    def _slice(self, water: float) -> np.ndarray:
+    def _slice(self, water: float) -> tuple[np.ndarray, float]:
         """The table at one water content, packed for one gather per cell.
 
         Row i * (n_p - 1) + k holds the 4 corners (i, k), (i, k + 1), (i + 1, k), (i + 1, k + 1)
         of (H, F, integral P dF, onset), 16 float32 values. H, F and P dF are linear in the water
         coordinate between nodes; the onsets are exact at this water (searched at every Tp node).
-        Rough intervals get NaN onsets, which sends their cells to direct integration.
+        Rough intervals get NaN onsets, which sends their cells to direct integration. Also
+        returns the Tp from which on no cell has an onset.
         """
         key = float(water)
         if key not in self._slices:
@@ -225,9 +231,21 @@ class MeltTable:
             v = np.concatenate([vals, np.repeat(onset[:, None, None], n_p, axis=1)], axis=2)
             packed = np.concatenate([v[:-1, :-1], v[:-1, 1:], v[1:, :-1], v[1:, 1:]], axis=2)
             packed[rough, :, 3::4] = np.nan
+            # an isentrope hotter than one that never meets the solidus never meets it either,
+            # so from the first node without an onset on, cells have none (exact, not rough)
+            finite = np.isfinite(onset)
+            last = int(np.flatnonzero(finite)[-1]) if finite.any() else -1
+            no_onset_from = (
+                self.tp_c[last + 1]
+                if last + 1 < onset.size and not finite[last + 1 :].any()
+                else np.inf
+            )
             if len(self._slices) > 16:
                 self._slices.clear()
-            self._slices[key] = np.ascontiguousarray(packed.reshape(-1, 16), dtype=np.float32)
+            self._slices[key] = (
+                np.ascontiguousarray(packed.reshape(-1, 16), dtype=np.float32),
+                float(no_onset_from),
+            )
         return self._slices[key]
 
     def in_range(self, tp, water):
@@ -248,7 +266,7 @@ class MeltTable:
         saturated water) are left for :func:`lidmelt.physics.column._direct`, which is exact.
         """
         model, lay = self.model, self.layout
-        packed = self._slice(water)
+        packed, no_onset_from = self._slice(water)
         n_tp, n_p = self.tp_c.size, self.pressure_gpa.size
         gpa_per_km = float(model.pressure_gpa(1.0))
         km_per_gpa = 1.0 / gpa_per_km
@@ -278,10 +296,13 @@ class MeltTable:
             r = v0 + a * (v[:, 8:12] + b * (v[:, 12:16] - v[:, 8:12]) - v0)
             p_on = r[:, 3]
             with np.errstate(invalid="ignore", divide="ignore"):
-                special[sl] = ~((x >= x_lo) & (x <= x_hi) & (lb >= 0) & (p_on >= p_sat))
+                no_onset = tp[sl] >= no_onset_from
+                special[sl] = ~(
+                    (x >= x_lo) & (x <= x_hi) & (lb >= 0) & ((p_on >= p_sat) | no_onset)
+                )
                 melting = p_on > top_p
-                h = np.where(melting, r[:, 0], 0.0)
-                f = np.where(melting, r[:, 1], 0.0)
+                h = np.where(melting, r[:, 0], np.where(no_onset, np.nan, 0.0))
+                f = np.where(melting, r[:, 1], np.where(no_onset, np.nan, 0.0))
                 # the mean pressure of melting lies between the top and the onset [derived]
                 mean_p = np.clip(r[:, 2] / f, top_p, p_on)
                 out["mean_melt_pressure_gpa"][sl] = np.where(f > 0, mean_p, np.nan)
@@ -290,7 +311,9 @@ class MeltTable:
             out["onset_pressure_gpa"][sl] = p_on
             np.multiply(p_on, km_per_gpa, out=out["onset_depth_km"][sl])
             out["lid_depth_km"][sl] = top_km
-            out["flag"][sl] = (p_on > cal) * np.uint8(FLAG_BEYOND_CALIBRATION)
+            out["flag"][sl] = np.where(
+                no_onset, FLAG_NO_ONSET, (p_on > cal) * np.uint8(FLAG_BEYOND_CALIBRATION)
+            )
         return special
 
     def _general(self, tp, lid, w, min_top_km):
@@ -358,7 +381,7 @@ class MeltTable:
                 lid[direct],
                 w[direct],
                 min_top_km=min_top_km,
-                step_gpa=self.layout.integration_step_gpa,
+                step_gpa=FALLBACK_STEP_GPA,
             )
             for name, arr in exact.as_dict().items():
                 out[name][direct] = arr
