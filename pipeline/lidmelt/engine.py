@@ -242,46 +242,26 @@ def _kernel(
 # ------------------------------------------------------------------------------------------------
 # the run
 # ------------------------------------------------------------------------------------------------
-class _LogProgress:
-    """Plain log lines at every 10 % when not on a terminal (a dask callback)."""
-
-    def __init__(self, stream=None) -> None:
-        from dask.callbacks import Callback
-
-        outer = self
-
-        class _CB(Callback):
-            def _start_state(self, dsk, state):
-                outer.total = max(sum(len(state[k]) for k in ("ready", "waiting", "running")), 1)
-                outer.done, outer.next = 0, 10
-
-            def _posttask(self, key, result, dsk, state, worker_id):
-                outer.done += 1
-                pct = 100 * outer.done // outer.total
-                if pct >= outer.next:
-                    print(f"lidmelt run: {pct:3d} % of chunks done", file=outer.stream, flush=True)
-                    outer.next = (pct // 10 + 1) * 10
-
-        self.stream = stream or sys.stderr
-        self.cb = _CB()
-
-    def __enter__(self):
-        return self.cb.__enter__()
-
-    def __exit__(self, *exc):
-        return self.cb.__exit__(*exc)
-
-
-def _progress(show: bool | None):
+def _reporter(show: bool | None):
+    """Progress by bands: a line that updates in place on a terminal, log lines otherwise."""
     if show is False:
-        return []
-    if show is None:
-        show = sys.stderr.isatty()
-    if show:
-        from dask.diagnostics import ProgressBar
+        return None
+    tty = sys.stderr.isatty() if show is None else bool(show)
 
-        return [ProgressBar(minimum=1.0, dt=0.5, out=sys.stderr)]
-    return [_LogProgress()]
+    def report(done: int, total: int) -> None:
+        pct = 100 * done // total
+        if tty:
+            bar = "#" * (pct // 4)
+            end = "\n" if done == total else ""
+            print(f"\rlidmelt run: [{bar:<25}] {pct:3d} %", end=end, file=sys.stderr, flush=True)
+        else:
+            print(
+                f"lidmelt run: {pct:3d} % of the grid done ({done}/{total} bands)",
+                file=sys.stderr,
+                flush=True,
+            )
+
+    return report
 
 
 def run_basin(
@@ -393,18 +373,27 @@ def run_basin(
         da.rio.write_crs(template.rio.crs, inplace=True)
 
     area = cell_area_km2(target, chunks=chunks).data.rechunk(ref.chunks)
-    thickness = stacked[0]
-    melting = thickness > 0
-    reductions = {
-        "melting_cells": dsa.sum(melting),
-        "data_cells": dsa.sum(dsa.isfinite(thickness)),
-        "melting_area_km2": dsa.sum(dsa.where(melting, area, 0.0)),
-        "melt_volume_km3": dsa.nansum(thickness * area),
-    }
-    for name, da in outputs.items():
-        reductions[f"{name}.min"] = dsa.nanmin(da.data)
-        reductions[f"{name}.max"] = dsa.nanmax(da.data)
-        reductions[f"{name}.mean"] = dsa.nanmean(da.data)
+    out_index = [k for k, name in enumerate(VARIABLES) if name in outputs]
+
+    def band_stats(rows):
+        """Sums, counts, minima and maxima of one band (combined over bands below)."""
+        thickness, cell_area = stacked[0, rows], area[rows]
+        melting = thickness > 0
+        parts = [
+            dsa.sum(melting),
+            dsa.sum(dsa.isfinite(thickness)),
+            dsa.sum(dsa.where(melting, cell_area, 0.0)),
+            dsa.nansum(thickness * cell_area),
+        ]
+        for k in out_index:
+            band = stacked[k, rows]
+            parts += [
+                dsa.nanmin(band),
+                dsa.nanmax(band),
+                dsa.nansum(band.astype(np.float64)),
+                dsa.sum(dsa.isfinite(band)),
+            ]
+        return parts
 
     tags = _provenance_tags(cfg, model, cooling, provenance)
     items = []
@@ -453,14 +442,28 @@ def run_basin(
 
     t1 = time.perf_counter()
     with GeoTiffSet(items, cog=True) as out:
-        keys = list(reductions)
-        values = out.compute(
-            extra=[reductions[k] for k in keys],
+        bands = out.compute(
+            extra=band_stats,
+            band_rows=2 * ref.chunks[0][0],
             num_workers=int(cfg.compute.workers),
-            callbacks=_progress(progress),
+            report=_reporter(progress),
         )
     timings["compute_and_write_s"] = time.perf_counter() - t1
-    stats = dict(zip(keys, (float(v) for v in values), strict=True))
+    parts = np.array(bands, dtype=float)  # (bands, values)
+    stats = {
+        "melting_cells": parts[:, 0].sum(),
+        "data_cells": parts[:, 1].sum(),
+        "melting_area_km2": parts[:, 2].sum(),
+        "melt_volume_km3": parts[:, 3].sum(),
+    }
+    for j, k in enumerate(out_index):
+        name = list(VARIABLES)[k]
+        col = parts[:, 4 + 4 * j : 8 + 4 * j]
+        count = col[:, 3].sum()
+        with np.errstate(invalid="ignore"):
+            stats[f"{name}.min"] = float(np.nanmin(col[:, 0])) if count else np.nan
+            stats[f"{name}.max"] = float(np.nanmax(col[:, 1])) if count else np.nan
+        stats[f"{name}.mean"] = col[:, 2].sum() / count if count else np.nan
     files = [item.path for item in items]
 
     if cfg.run.netcdf:

@@ -108,9 +108,10 @@ def cell_area_km2(
         else:
             import dask.array as dsa
 
-            data = dsa.from_array(
-                np.broadcast_to(rows[:, None], target.shape), chunks=template.data.chunks
-            )
+            # broadcast lazily: a dask array made from a broadcast numpy view would be hashed
+            # and copied whole (466 MB for a global 2-arc-minute grid)
+            column = dsa.from_array(rows[:, None], chunks=(template.data.chunks[0], 1))
+            data = dsa.broadcast_to(column, target.shape, chunks=template.data.chunks)
     else:
         method = "geodesic quadrilateral through the cell corners (pyproj.Geod)"
         if chunks is None:

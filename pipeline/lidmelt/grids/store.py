@@ -11,6 +11,8 @@ removed, so no half-written output is ever left under its final name.
 from __future__ import annotations
 
 import threading
+import warnings
+from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -63,13 +65,24 @@ class _WindowTarget:
             self.dst.write(value, 1, window=window)
 
 
+class _RowOffset:
+    """A store target that writes a band's blocks at their rows in the whole grid."""
+
+    def __init__(self, target: _WindowTarget, row0: int) -> None:
+        self.target, self.row0 = target, row0
+
+    def __setitem__(self, key: tuple[slice, slice], value: np.ndarray) -> None:
+        ys, xs = key
+        self.target[slice(ys.start + self.row0, ys.stop + self.row0), xs] = value
+
+
 class GeoTiffSet:
     """Context manager that writes several tiled, ZSTD-compressed GeoTIFFs in one dask pass.
 
     Usage::
 
         with GeoTiffSet(items, cog=True) as out:
-            stats = out.compute(extra=[...])   # stores every item and evaluates ``extra``
+            stats = out.compute(extra=lambda rows: [...], band_rows=1024)
         # on leaving the block without error every file is in place
 
     Creation options are those of :func:`lidmelt.grids.write.write_geotiff` (512 x 512 tiles,
@@ -85,6 +98,10 @@ class GeoTiffSet:
         self._done = False
 
     def __enter__(self) -> GeoTiffSet:
+        # GDAL's block cache defaults to 5 % of RAM and fills with written tiles of every open
+        # file; a fixed cap keeps peak memory independent of the grid size
+        self._env = rasterio.Env(GDAL_CACHEMAX=_COG_CACHE_MB)
+        self._env.__enter__()
         try:
             for item in self.items:
                 da = item.da.transpose("y", "x")
@@ -116,9 +133,21 @@ class GeoTiffSet:
         return self
 
     def compute(
-        self, *, extra: list[Any] = (), num_workers: int | None = None, callbacks: list[Any] = ()
-    ) -> list[Any]:
-        """Store every item and compute ``extra`` (dask objects) in one pass; return ``extra``."""
+        self,
+        *,
+        extra: Callable[[slice], list[Any]] | None = None,
+        band_rows: int | None = None,
+        num_workers: int | None = None,
+        report: Callable[[int, int], None] | None = None,
+    ) -> list[list[Any]]:
+        """Store every item band by band, computing ``extra(rows)`` with each band.
+
+        Each band of ``band_rows`` rows (default: everything at once) is one :func:`dask.compute`
+        that stores the band of every item and evaluates the dask objects ``extra(rows)``
+        returns, so shared inputs are computed once and at most one band of chunks is held in
+        memory, whatever the grid size. Returns the computed ``extra`` of every band;
+        ``report(done, total)`` is called after each band.
+        """
         import dask
         import dask.array as dsa
 
@@ -134,14 +163,22 @@ class GeoTiffSet:
             )
             sources.append(data)
             targets.append(_WindowTarget(dst, threading.Lock()))
-        delayed = dsa.store(sources, targets, lock=False, compute=False) if sources else None
+        height = self.items[0].da.sizes["y"]
+        step = height if not band_rows else max(TILE, band_rows // TILE * TILE)
+        bands = [slice(r, min(r + step, height)) for r in range(0, height, step)]
+        results = []
         with dask.config.set(scheduler="threads", num_workers=num_workers):
-            if callbacks:
-                with _nested(callbacks):
-                    results = dask.compute(delayed, *extra)
-            else:
-                results = dask.compute(delayed, *extra)
-        return list(results[1:])
+            for k, rows in enumerate(bands):
+                parts = [src[rows] for src in sources]
+                shifted = [_RowOffset(t, rows.start) for t in targets]
+                delayed = dsa.store(parts, shifted, lock=False, compute=False) if parts else None
+                with warnings.catch_warnings():  # all-NaN bands (land) have NaN min/max
+                    warnings.simplefilter("ignore", RuntimeWarning)
+                    done = dask.compute(delayed, *(extra(rows) if extra else []))
+                results.append(list(done[1:]))
+                if report:
+                    report(k + 1, len(bands))
+        return results
 
     def __exit__(self, exc_type, exc, tb) -> None:
         if exc_type is not None:
@@ -177,6 +214,7 @@ class GeoTiffSet:
                     final = tmp_cog
                 final.replace(item.path)
             self._done = True
+            self._close_env()
         except (rasterio.errors.RasterioError, OSError) as err:
             self._abort()
             msg = (
@@ -193,18 +231,9 @@ class GeoTiffSet:
             if not dst.closed:
                 dst.close()
         _remove(*self._tmps)
+        self._close_env()
 
-
-class _nested:
-    """Enter several dask callbacks as one context."""
-
-    def __init__(self, callbacks: list[Any]) -> None:
-        self.callbacks = callbacks
-
-    def __enter__(self) -> None:
-        for cb in self.callbacks:
-            cb.__enter__()
-
-    def __exit__(self, *exc: Any) -> None:
-        for cb in reversed(self.callbacks):
-            cb.__exit__(*exc)
+    def _close_env(self) -> None:
+        if getattr(self, "_env", None) is not None:
+            self._env.__exit__(None, None, None)
+            self._env = None
