@@ -452,7 +452,7 @@ _KATZ_SOURCES = {
     "lithostatic_density_kg_m3": "lidmelt definition, common practice",
     "gravity_m_s2": "lidmelt definition, common practice",
     "max_onset_pressure_gpa": "turnover of the Katz solidus quadratic at 13.03 GPa [derived]",
-    "calibrated_max_pressure_gpa": "onsets beyond ~7 GPa are extrapolation (PHYSICS.md trap 7)",
+    "calibrated_max_pressure_gpa": "onsets beyond ~7 GPa extrapolate the experiments (from memory)",
 }
 
 KATZ2003 = KatzModel(
