@@ -19,7 +19,6 @@ from typing import Any
 
 import numpy as np
 import rasterio
-import rasterio.shutil
 import xarray as xr
 from rasterio.crs import CRS as RioCRS
 from rasterio.windows import Window
@@ -38,6 +37,7 @@ from lidmelt.grids.write import (
     _temporary,
     _tile_aligned,
     _transform_of,
+    copy_to_cog,
 )
 
 
@@ -194,19 +194,7 @@ class GeoTiffSet:
                     integer = np.dtype(item.dtype).kind in "iu"
                     tmp_cog = _temporary(item.path)
                     self._tmps.append(tmp_cog)
-                    with rasterio.Env(GDAL_CACHEMAX=_COG_CACHE_MB):
-                        rasterio.shutil.copy(
-                            tmp,
-                            tmp_cog,
-                            driver="COG",
-                            COMPRESS="ZSTD",
-                            LEVEL=1,
-                            PREDICTOR="STANDARD" if integer else "FLOATING_POINT",
-                            BLOCKSIZE=TILE,
-                            BIGTIFF="IF_SAFER",
-                            NUM_THREADS="ALL_CPUS",
-                            RESAMPLING="NEAREST" if integer else "AVERAGE",
-                        )
+                    copy_to_cog(tmp, tmp_cog, integer=integer)
                     _ensure_metadata(
                         tmp_cog, item.description, item.units, _stringify_tags(item.tags)
                     )

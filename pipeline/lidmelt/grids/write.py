@@ -141,19 +141,7 @@ def write_geotiff(
             _set_metadata(dst, description, units, text_tags)
         final = tmp
         if cog and _has_cog_driver():
-            with rasterio.Env(GDAL_CACHEMAX=_COG_CACHE_MB):
-                rasterio.shutil.copy(
-                    tmp,
-                    tmp_cog,
-                    driver="COG",
-                    COMPRESS="ZSTD",
-                    LEVEL=1,
-                    PREDICTOR="STANDARD" if integer else "FLOATING_POINT",
-                    BLOCKSIZE=TILE,
-                    BIGTIFF="IF_SAFER",
-                    NUM_THREADS="ALL_CPUS",
-                    RESAMPLING="NEAREST" if integer else "AVERAGE",
-                )
+            copy_to_cog(tmp, tmp_cog, integer=integer)
             _ensure_metadata(tmp_cog, description, units, text_tags)
             tmp.unlink()
             final = tmp_cog
@@ -499,6 +487,23 @@ def _set_metadata(dst: Any, description: str, units: str, tags: dict[str, str]) 
     dst.units = (str(units),)
     if tags:
         dst.update_tags(**tags)
+
+
+def copy_to_cog(src: Path, dst: Path, *, integer: bool) -> None:
+    """Copy a finished tiled GTiff to Cloud-Optimized layout (ZSTD, 512 blocks, overviews)."""
+    with rasterio.Env(GDAL_CACHEMAX=_COG_CACHE_MB):
+        rasterio.shutil.copy(
+            src,
+            dst,
+            driver="COG",
+            COMPRESS="ZSTD",
+            LEVEL=1,
+            PREDICTOR="STANDARD" if integer else "FLOATING_POINT",
+            BLOCKSIZE=TILE,
+            BIGTIFF="IF_SAFER",
+            NUM_THREADS="ALL_CPUS",
+            RESAMPLING="NEAREST" if integer else "AVERAGE",
+        )
 
 
 def _ensure_metadata(path: Path, description: str, units: str, tags: dict[str, str]) -> None:
