@@ -28,9 +28,25 @@ def stage_of(module: str) -> str | None:
 
 def test_physics_uses_numpy_and_scipy_only():
     allowed = {"numpy", "scipy", "lidmelt"}
-    stdlib_ok = {"__future__", "contextlib", "dataclasses", "difflib", "functools", "hashlib",
-                 "json", "math", "os", "tempfile", "pathlib", "typing", "collections", "types",
-                 "warnings", "numbers", "collections.abc"}
+    stdlib_ok = {
+        "__future__",
+        "contextlib",
+        "dataclasses",
+        "difflib",
+        "functools",
+        "hashlib",
+        "json",
+        "math",
+        "os",
+        "tempfile",
+        "pathlib",
+        "typing",
+        "collections",
+        "types",
+        "warnings",
+        "numbers",
+        "collections.abc",
+    }
     for path in (PACKAGE / "physics").glob("*.py"):
         for module in imported_modules(path):
             top = module.split(".")[0]

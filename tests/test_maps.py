@@ -493,3 +493,21 @@ def test_cli_writes_maps(blocks_run, tmp_path, capsys):
     png = out / "melt_thickness_km.png"
     assert str(png) in capsys.readouterr().out
     assert mpimg.imread(png).shape[1] == 200  # 5 in x 40 dpi
+
+
+def test_values_at_or_below_the_lower_limit_get_the_first_scale_colour():
+    # identity of the class encoding: a value clipped to vmin must draw the colour map's first
+    # colour, never the "no melting" or nodata class colours (a half-bin offset keeps it clear)
+    import matplotlib as mpl
+
+    # limits where a value exactly at vmin landed on the edge of the "no melting" bin (seen on a
+    # demo excess-to-melt map); any limits must work, these are the ones that once failed
+    vmin, vmax = -210.17019073486327, 126.78192291259765
+    values = np.array([[vmin - 5.0, vmin, vmax, np.nan]])
+    out, cmap, norm = maps._encode_classes(values, mpl.colormaps["inferno"], vmin, vmax, None)
+    colours = cmap(norm(out))[0]
+    first, last = mpl.colormaps["inferno"].resampled(256)([0.0, 1.0])
+    np.testing.assert_allclose(colours[0], first)
+    np.testing.assert_allclose(colours[1], first)
+    np.testing.assert_allclose(colours[2], last)
+    np.testing.assert_allclose(colours[3][:3], mpl.colors.to_rgb(maps.NODATA_COLOR))
