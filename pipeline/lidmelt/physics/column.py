@@ -409,7 +409,9 @@ def melt_column(
     -------
     ColumnResult
         Arrays of the broadcast input shape and a ``flag`` array (see ``FLAG_*``). Invalid or
-        unmeltable cells are NaN and flagged, never clipped.
+        unmeltable cells are NaN and flagged, never clipped. The table path returns float32
+        arrays where one water content applies to every cell (single precision is far finer
+        than the table's error, and halves the memory traffic); otherwise float64.
     """
     model = get_model(model)
     tp, lid, w = np.broadcast_arrays(

@@ -369,7 +369,7 @@ class MeltTable:
         tp, lid, w = tp.ravel(), lid.ravel(), w.ravel()
         w0 = float(w[0]) if w.size else 0.0
         if w.size and np.all(w == w0) and self.in_range(np.array(self.layout.tp_min_c), w0):
-            out = {name: np.empty(tp.size) for name in COLUMN_OUTPUTS}
+            out = {name: np.empty(tp.size, np.float32) for name in COLUMN_OUTPUTS}
             out["flag"] = np.empty(tp.size, np.uint8)
             direct = self._fast(tp, lid, w0, float(min_top_km), out)
         else:
