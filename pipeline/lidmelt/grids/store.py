@@ -20,7 +20,6 @@ from typing import Any
 import numpy as np
 import rasterio
 import xarray as xr
-from rasterio.crs import CRS as RioCRS
 from rasterio.windows import Window
 
 from lidmelt.errors import InputError
@@ -36,8 +35,8 @@ from lidmelt.grids.write import (
     _stringify_tags,
     _temporary,
     _tile_aligned,
-    _transform_of,
     copy_to_cog,
+    gtiff_profile,
 )
 
 
@@ -109,23 +108,8 @@ class GeoTiffSet:
                 item.path.parent.mkdir(parents=True, exist_ok=True)
                 tmp = _temporary(item.path)
                 self._tmps.append(tmp)
-                profile = {
-                    "driver": "GTiff",
-                    "height": da.sizes["y"],
-                    "width": da.sizes["x"],
-                    "count": 1,
-                    "dtype": np_dtype.name,
-                    "crs": RioCRS.from_wkt(da.rio.crs.to_wkt()),
-                    "transform": _transform_of(da),
-                    "nodata": item.nodata,
-                    "tiled": True,
-                    "blockxsize": TILE,
-                    "blockysize": TILE,
-                    "compress": "ZSTD",
-                    "zstd_level": 1,
-                    "predictor": 2 if np_dtype.kind in "iu" else 3,
-                    "BIGTIFF": "IF_SAFER",
-                }
+                # one file per output is written at once: threads come from dask, not GDAL
+                profile = gtiff_profile(da, np_dtype, item.nodata, threads=False)
                 self._handles.append(rasterio.open(tmp, "w", **profile))
         except BaseException:
             self._abort()
