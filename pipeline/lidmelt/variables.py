@@ -1,0 +1,211 @@
+"""Every input and output variable of a lidmelt run, in one registry.
+
+The engine, the workflow checks, the GeoTIFF and NetCDF attributes, the maps, the report and
+the command-line tables all read this module; adding an output variable is one :class:`Variable`
+entry here plus its computation in :mod:`lidmelt.physics.evaluate`.
+
+Physical ranges of inputs are common practice (wider than any real Earth value, so that only unit
+mistakes fall outside), with the advice printed when a value is outside. Each output's meaning is
+the definition lidmelt fixes (docs/physics.md, "Definitions").
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+from lidmelt.errors import InputError
+
+__all__ = [
+    "FLAG_NODATA",
+    "FLAG_VARIABLE",
+    "INPUTS",
+    "OUTPUTS",
+    "VARIABLES",
+    "Variable",
+    "get_variable",
+    "input_for_workflow_key",
+]
+
+
+@dataclass(frozen=True, kw_only=True)
+class Variable:
+    """One variable of a run.
+
+    Parameters
+    ----------
+    name : str
+        File and variable name; the unit is in the suffix (``_km``, ``_gpa``, ``_k``, ...).
+    units : str
+        UDUNITS-style unit written to GeoTIFF tags and NetCDF attributes ("1" = dimensionless).
+    long_name : str
+        Readable name for titles, tables and the CF ``long_name`` attribute.
+    kind : str
+        ``"output"`` (computed by the kernel), ``"input"`` (an aligned workflow input) or
+        ``"flag"`` (the validity bit flags).
+    style : str
+        Key of the map style (colour scale, limits) in the presentation registry of the maps.
+    valid_range : tuple of float, optional
+        ``(low, high)`` physical range of an input; values outside are refused as unit mistakes.
+    advice : str
+        What the value is expected to be and how to fix a unit mistake (inputs only).
+    workflow_key : str
+        The workflow's name of an input (``[inputs.<workflow_key>]``).
+    zero_means_no_melt : bool
+        0 marks a valid cell that does not melt (drawn as "no melting", not as data).
+    undefined_without_melt : bool
+        NaN marks a valid cell that does not melt (e.g. the mean melt pressure).
+    """
+
+    name: str
+    units: str
+    long_name: str
+    kind: str = "output"
+    style: str = ""
+    valid_range: tuple[float, float] | None = None
+    advice: str = ""
+    workflow_key: str = ""
+    zero_means_no_melt: bool = False
+    undefined_without_melt: bool = False
+
+    @property
+    def title(self) -> str:
+        """The long name with a capital first letter, for figure titles."""
+        return self.long_name[:1].upper() + self.long_name[1:]
+
+
+_OUTPUT_LIST = (
+    Variable(
+        name="melt_thickness_km",
+        units="km",
+        long_name="melt thickness (column-integrated melt fraction)",
+        style="melt",
+        zero_means_no_melt=True,
+    ),
+    Variable(
+        name="onset_depth_km",
+        units="km",
+        long_name="onset depth of melting below the seafloor",
+        style="depth",
+    ),
+    Variable(
+        name="onset_pressure_gpa",
+        units="GPa",
+        long_name="onset pressure of melting",
+        style="depth",
+    ),
+    Variable(
+        name="lid_depth_km",
+        units="km",
+        long_name="top of the melting column (lid base or crust base)",
+        style="depth",
+    ),
+    Variable(
+        name="max_melt_fraction",
+        units="1",
+        long_name="melt fraction at the top of the melting column",
+        style="fraction",
+        zero_means_no_melt=True,
+    ),
+    Variable(
+        name="mean_melt_pressure_gpa",
+        units="GPa",
+        long_name="melt-fraction-weighted mean pressure of melting",
+        style="depth",
+        undefined_without_melt=True,
+    ),
+    Variable(
+        name="excess_to_melt_k",
+        units="K",
+        long_name="thermal anomaly at which melting would begin beneath this lid",
+        style="excess",
+    ),
+)
+
+_INPUT_LIST = (
+    Variable(
+        name="plate_age_ma",
+        units="Ma",
+        long_name="plate age",
+        kind="input",
+        style="age",
+        workflow_key="plate_age",
+        valid_range=(0.0, 400.0),
+        advice=(
+            "Ma; the oldest ocean floor is about 200 Ma (from memory). A grid in years divides "
+            "by 1e6, in seconds by 3.15576e13"
+        ),
+    ),
+    Variable(
+        name="lid_thickness_km",
+        units="km",
+        long_name="lid (lithosphere) thickness given as input",
+        kind="input",
+        style="depth",
+        workflow_key="lid_thickness",
+        valid_range=(0.0, 400.0),
+        advice="km below the seafloor. A grid in metres divides by 1000",
+    ),
+    Variable(
+        name="thermal_anomaly_k",
+        units="K",
+        long_name="thermal anomaly above the ambient potential temperature",
+        kind="input",
+        style="anomaly",
+        workflow_key="thermal_anomaly",
+        valid_range=(-1000.0, 1000.0),
+        advice=(
+            "K above the ambient potential temperature (plumes are typically 100-300 K, from "
+            "memory). If the grid holds absolute Tp, subtract the ambient Tp "
+            "(model.ambient_potential_temperature_c)"
+        ),
+    ),
+    Variable(
+        name="water_wt_pct",
+        units="wt%",
+        long_name="water in the bulk source",
+        kind="input",
+        style="water",
+        workflow_key="water",
+        valid_range=(0.0, 5.0),
+        advice=(
+            "wt% of the bulk source (MORB sources hold about 0.01 wt% = 100 ppm, from memory). "
+            "A grid in ppm divides by 10000"
+        ),
+    ),
+)
+
+#: The validity bit flags (uint8; bit meanings in :data:`lidmelt.physics.FLAG_MEANINGS`).
+FLAG_VARIABLE = Variable(
+    name="validity_flag", units="1", long_name="validity bit flags", kind="flag", style="flag"
+)
+#: Nodata value of the flag grid (outside the data; the bits themselves use 1, 2, 4, 8).
+FLAG_NODATA = 255
+
+#: Output variables computed by the kernel, in file order.
+OUTPUTS: dict[str, Variable] = {v.name: v for v in _OUTPUT_LIST}
+#: Aligned inputs written to the run directory as ``input_<name>.tif``.
+INPUTS: dict[str, Variable] = {v.name: v for v in _INPUT_LIST}
+#: Every variable by name.
+VARIABLES: dict[str, Variable] = {**OUTPUTS, **INPUTS, FLAG_VARIABLE.name: FLAG_VARIABLE}
+
+
+def get_variable(name: str) -> Variable:
+    """The registered variable ``name``; an :class:`InputError` listing the names otherwise."""
+    try:
+        return VARIABLES[name]
+    except KeyError:
+        msg = (
+            f"unknown variable {name!r}; lidmelt knows {', '.join(VARIABLES)}. "
+            "Check the spelling (the unit is part of the name)."
+        )
+        raise InputError(msg) from None
+
+
+def input_for_workflow_key(key: str) -> Variable:
+    """The input variable named ``[inputs.<key>]`` in a workflow (``plate_age``, ``water``, ...)."""
+    for var in INPUTS.values():
+        if var.workflow_key == key:
+            return var
+    known = ", ".join(v.workflow_key for v in INPUTS.values())
+    msg = f"unknown input {key!r}; the inputs are {known}."
+    raise InputError(msg)
