@@ -799,22 +799,6 @@ def write_table(gdf: gpd.GeoDataFrame, path: Path, *, layer: str) -> None:
             gdf.to_file(temp, driver="GPKG", layer=layer)
 
 
-def format_table(frame: pd.DataFrame, *, max_rows: int = 20) -> str:
-    """A short plain-text table of ``frame`` (numbers to 5 significant digits)."""
-    shown = frame.head(max_rows)
-    text = shown.to_string(index=False, float_format=lambda v: f"{v:.5g}", na_rep="nan")
-    if len(frame) > max_rows:
-        text += f"\n... ({len(frame) - max_rows} more rows)"
-    return text
-
-
-def status_summary(status: Sequence[str], *, what: str) -> str:
-    """One line counting the statuses, e.g. '12 stations: 10 ok, 2 outside_grid'."""
-    counts = pd.Series(list(status), dtype=object).value_counts()
-    parts = [f"{int(counts[s])} {s}" for s in STATUSES if s in counts]
-    return f"{len(status)} {what}: " + ", ".join(parts)
-
-
 def warn_outside(frame: pd.DataFrame, status: np.ndarray, *, what: str, stacklevel: int) -> None:
     """Warn once, naming them, about points that fall outside the grid."""
     outside = np.flatnonzero(status == STATUS_OUTSIDE)
@@ -845,19 +829,3 @@ def safe_layer_name(path: Path) -> str:
     """A GeoPackage layer name from a file stem (letters, digits and underscores)."""
     name = re.sub(r"\W+", "_", path.stem).strip("_")
     return name or "lidmelt"
-
-
-@contextlib.contextmanager
-def cli_warnings(command: str) -> Iterator[None]:
-    """Show lidmelt's user warnings as short ``lidmelt COMMAND: warning: ...`` lines on stderr
-    (library deprecation notices are not shown on the command line)."""
-    import sys
-
-    with warnings.catch_warnings(record=True) as caught:
-        warnings.simplefilter("ignore")
-        warnings.simplefilter("always", UserWarning)
-        try:
-            yield
-        finally:
-            for w in caught:
-                print(f"lidmelt {command}: warning: {w.message}", file=sys.stderr)

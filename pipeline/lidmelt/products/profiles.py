@@ -23,7 +23,6 @@ last waypoint at or before the point (0-based; the final point has the last wayp
 
 from __future__ import annotations
 
-import argparse
 import math
 import os
 from pathlib import Path
@@ -41,7 +40,6 @@ if TYPE_CHECKING:
     import geopandas as gpd
 
 __all__ = [
-    "add_cli",
     "plot_profile",
     "read_track",
     "sample_track",
@@ -398,87 +396,3 @@ def write_profile(
         smp.table_with_coordinates(gdf).to_csv(temp, index=False)
         plot_profile(gdf, png, title=title)
     return path, png
-
-
-def _run_cli(args: argparse.Namespace) -> int:
-    out = args.output or f"{Path(args.track).stem}_profile.csv"
-    out = smp.check_output_path(out, (".csv",), what="profile")
-    with smp.cli_warnings("profile"):
-        gdf = sample_track(
-            args.run_dir,
-            args.track,
-            spacing_km=args.spacing,
-            method=args.method,
-            lon_column=args.lon_column,
-            lat_column=args.lat_column,
-            crs=args.crs,
-        )
-    shown = [
-        c
-        for c in (
-            "distance_km",
-            "waypoint_index",
-            "lon",
-            "lat",
-            "melt_thickness_km",
-            "onset_depth_km",
-            "lid_depth_km",
-            "status",
-        )
-        if c in gdf.columns
-    ]
-    print(smp.format_table(pd.DataFrame(gdf[shown]), max_rows=10))
-    print(
-        smp.status_summary(np.asarray(gdf["status"]), what="points")
-        + f"; track length {gdf['distance_km'].iloc[-1]:.3f} km, spacing {args.spacing:g} km"
-    )
-    title = f"{Path(args.run_dir).name}: {Path(args.track).name}"
-    csv_path, png = write_profile(gdf, out, title=title)
-    print(f"wrote {csv_path} and {png}")
-    return 0
-
-
-def add_cli(subparsers: argparse._SubParsersAction) -> None:
-    """Register ``lidmelt profile``."""
-    p = subparsers.add_parser(
-        "profile",
-        help="values of a run along a ship track, with a profile figure",
-        description=(
-            "Sample every variable of a run every KM km along the geodesics (WGS84) joining a "
-            "track's waypoints; write a CSV and a PNG profile of melt thickness, onset depth "
-            "and lid depth next to it."
-        ),
-    )
-    p.add_argument("run_dir", metavar="RUN_DIR", help="output folder of 'lidmelt run'")
-    p.add_argument(
-        "track",
-        metavar="TRACK",
-        help="waypoints (CSV with lon/lat columns, or a point file) or a line file, any CRS",
-    )
-    p.add_argument(
-        "--spacing",
-        metavar="KM",
-        type=float,
-        required=True,
-        help="distance between profile points along the track, in km",
-    )
-    p.add_argument(
-        "-o",
-        "--output",
-        metavar="OUT.csv",
-        help="CSV to write (default TRACKNAME_profile.csv here); the PNG goes beside it",
-    )
-    p.add_argument(
-        "--method",
-        choices=smp.METHODS,
-        default="bilinear",
-        help="bilinear between cell centres (default) or the containing cell's value",
-    )
-    p.add_argument("--lon-column", metavar="NAME", help="longitude (x) column of a CSV track")
-    p.add_argument("--lat-column", metavar="NAME", help="latitude (y) column of a CSV track")
-    p.add_argument(
-        "--crs",
-        metavar="CRS",
-        help="CRS of a CSV track's coordinates (default EPSG:4326) or of a file without one",
-    )
-    p.set_defaults(func=_run_cli)

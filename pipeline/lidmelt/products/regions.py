@@ -55,7 +55,6 @@ on the sphere).
 
 from __future__ import annotations
 
-import argparse
 import math
 import os
 import warnings
@@ -78,7 +77,6 @@ if TYPE_CHECKING:
 
 __all__ = [
     "STAT_COLUMNS",
-    "add_cli",
     "region_statistics",
     "screen",
     "write_candidates",
@@ -650,114 +648,3 @@ def write_regions(gdf: gpd.GeoDataFrame, path: str | os.PathLike[str]) -> Path:
         else:
             gdf.to_file(temp, driver="GPKG", layer=smp.safe_layer_name(path), promote_to_multi=True)
     return path
-
-
-# --------------------------------------------------------------------------------------------
-# Command line
-# --------------------------------------------------------------------------------------------
-
-_SHOWN = (
-    "area_km2",
-    "melting_area_km2",
-    "mean_melt_thickness_km",
-    "max_melt_thickness_km",
-    "melt_volume_km3",
-    "shallowest_onset_depth_km",
-)
-
-
-def _run_regions(args: argparse.Namespace) -> int:
-    out = (
-        None
-        if args.output is None
-        else smp.check_output_path(args.output, (".gpkg", ".csv"), what="region statistics")
-    )
-    with smp.cli_warnings("regions"):
-        gdf = region_statistics(args.run_dir, args.polygons, crs=args.crs)
-    own = [c for c in gdf.columns if c not in STAT_COLUMNS and c != gdf.geometry.name][:2]
-    shown = own + [c for c in _SHOWN if c in gdf.columns]
-    print(smp.format_table(pd.DataFrame(gdf[shown])))
-    if out is None:
-        print(f"{len(gdf)} polygons; no file written (give -o OUT.gpkg or -o OUT.csv to save)")
-    else:
-        write_regions(gdf, out)
-        print(f"{len(gdf)} polygons; wrote {out}")
-    return 0
-
-
-def _run_screen(args: argparse.Namespace) -> int:
-    out = args.output or f"{Path(args.run_dir).resolve().name}_candidates.gpkg"
-    out = smp.check_output_path(out, (".gpkg",), what="candidate regions")
-    with smp.cli_warnings("screen"):
-        gdf = screen(
-            args.run_dir,
-            min_melt_thickness_km=args.min_melt_thickness,
-            min_area_km2=args.min_area,
-        )
-    shown = ["rank", *[c for c in _SHOWN if c in gdf.columns], "centroid_lon", "centroid_lat"]
-    if len(gdf):
-        print(smp.format_table(pd.DataFrame(gdf[shown])))
-    print(
-        f"{len(gdf)} candidate region(s) with melt thickness >= {args.min_melt_thickness:g} km "
-        f"and area >= {args.min_area:g} km2 (8-connected cells)"
-    )
-    gpkg, geojson = write_candidates(gdf, out)
-    print(f"wrote {gpkg} and {geojson}")
-    return 0
-
-
-def add_cli(subparsers: argparse._SubParsersAction) -> None:
-    """Register ``lidmelt regions`` and ``lidmelt screen``."""
-    p = subparsers.add_parser(
-        "regions",
-        help="statistics of a run inside polygons",
-        description=(
-            "For each polygon: geodesic area, melting area, mean and max melt thickness, melt "
-            "volume, shallowest onset depth and mean thermal anomaly of the cells whose centres "
-            "fall inside; the polygons' own attributes are kept."
-        ),
-    )
-    p.add_argument("run_dir", metavar="RUN_DIR", help="output folder of 'lidmelt run'")
-    p.add_argument("polygons", metavar="POLYGONS", help="polygon file (any format GDAL reads)")
-    p.add_argument(
-        "-o",
-        "--output",
-        metavar="OUT",
-        help="write OUT.gpkg (with polygons) or OUT.csv (table only), chosen by the suffix",
-    )
-    p.add_argument("--crs", metavar="CRS", help="CRS of a polygon file that declares none")
-    p.set_defaults(func=_run_regions)
-
-    s = subparsers.add_parser(
-        "screen",
-        help="candidate volcanic regions: connected cells above a melt thickness",
-        description=(
-            "Candidate regions are groups of cells with melt_thickness_km >= KM touching along "
-            "an edge or at a corner (8-connectivity), with area >= KM2; written as polygons "
-            "ranked by melt volume (rank 1 = largest) to a GeoPackage and a GeoJSON (RFC 7946, "
-            "lon/lat) beside it."
-        ),
-    )
-    s.add_argument("run_dir", metavar="RUN_DIR", help="output folder of 'lidmelt run'")
-    s.add_argument(
-        "--min-melt-thickness",
-        metavar="KM",
-        type=float,
-        required=True,
-        help="least melt thickness of a candidate cell, in km (> 0)",
-    )
-    s.add_argument(
-        "--min-area",
-        metavar="KM2",
-        type=float,
-        default=0.0,
-        help="smallest area of a candidate region, in km2 (default 0)",
-    )
-    s.add_argument(
-        "-o",
-        "--output",
-        metavar="OUT.gpkg",
-        help="GeoPackage to write (default RUNNAME_candidates.gpkg here); the .geojson goes "
-        "beside it",
-    )
-    s.set_defaults(func=_run_screen)

@@ -14,7 +14,6 @@ the caution and the summary, one page per map, then text pages with the tables a
 
 from __future__ import annotations
 
-import argparse
 import base64
 import html
 import io
@@ -632,43 +631,3 @@ def write_report(
     if pdf:
         _write_pdf(run, images, out.with_suffix(".pdf"))
     return out
-
-
-def add_cli(subparsers: Any) -> None:
-    """Register ``lidmelt report``."""
-    p = subparsers.add_parser(
-        "report",
-        help="write the run report (self-contained HTML, optionally PDF)",
-        description=(
-            "Write one self-contained HTML page describing a run: the job, the maps, the "
-            "summary numbers, the model parameters with their sources, the lid, the input "
-            "provenance (SHA-256) and the workflow. Maps in RUN_DIR/maps newer than the run "
-            "are reused; others are drawn (offline, coastlines only from local data)."
-        ),
-    )
-    p.add_argument("run_dir", metavar="RUN_DIR", help="output folder of 'lidmelt run'")
-    p.add_argument(
-        "-o",
-        "--output",
-        metavar="REPORT.html",
-        default=None,
-        help="HTML file to write (default RUN_DIR/report.html)",
-    )
-    p.add_argument(
-        "--pdf", action="store_true", help="also write a PDF beside the HTML (same name, .pdf)"
-    )
-    p.add_argument(
-        "--coastlines",
-        metavar="SHAPEFILE",
-        default=None,
-        help="local coastline shapefile for maps drawn for the report",
-    )
-    p.set_defaults(func=_cli_report)
-
-
-def _cli_report(args: argparse.Namespace) -> int:
-    out = write_report(args.run_dir, path=args.output, pdf=args.pdf, coastlines=args.coastlines)
-    print(out)
-    if args.pdf:
-        print(out.with_suffix(".pdf"))
-    return 0

@@ -41,12 +41,10 @@ grid the values are those of the edge cells.
 
 from __future__ import annotations
 
-import argparse
 import os
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
-import numpy as np
 import pandas as pd
 import pyproj
 
@@ -57,13 +55,12 @@ from lidmelt.products import _sampling as smp
 if TYPE_CHECKING:
     import geopandas as gpd
 
-__all__ = ["add_cli", "sample_stations", "write_stations"]
+__all__ = ["sample_stations", "write_stations"]
 
 #: Output suffixes of ``lidmelt sample``.
 OUTPUT_SUFFIXES = (".csv", ".gpkg")
 
 #: Columns shown in the printed table, when the run has them.
-_SHOWN_VARIABLES = ("melt_thickness_km", "onset_depth_km", "lid_depth_km")
 
 
 def sample_stations(
@@ -154,81 +151,3 @@ def write_stations(gdf: gpd.GeoDataFrame, path: str | os.PathLike[str]) -> Path:
     path = smp.check_output_path(path, OUTPUT_SUFFIXES, what="station table")
     smp.write_table(gdf, path, layer=smp.safe_layer_name(path))
     return path
-
-
-def _printed_table(gdf: gpd.GeoDataFrame) -> str:
-    frame = smp.table_with_coordinates(gdf)
-    coords = list(gdf.attrs.get("lidmelt_coordinate_columns", ("longitude", "latitude")))
-    sampled = set(gdf.attrs.get("lidmelt_units", {})) | {"status"}
-    own = [c for c in frame.columns if c not in sampled and c not in coords][:2]
-    shown = [c for c in _SHOWN_VARIABLES if c in frame.columns]
-    return smp.format_table(frame[own + coords + shown + ["status"]])
-
-
-def _run_cli(args: argparse.Namespace) -> int:
-    out = (
-        None
-        if args.output is None
-        else smp.check_output_path(args.output, OUTPUT_SUFFIXES, what="station table")
-    )
-    with smp.cli_warnings("sample"):
-        gdf = sample_stations(
-            args.run_dir,
-            args.stations,
-            method=args.method,
-            lon_column=args.lon_column,
-            lat_column=args.lat_column,
-            crs=args.crs,
-        )
-    print(_printed_table(gdf))
-    print(smp.status_summary(np.asarray(gdf["status"]), what="stations"))
-    if out is None:
-        print("no file written (give -o OUT.csv or -o OUT.gpkg to save the table)")
-    else:
-        write_stations(gdf, out)
-        print(f"wrote {out}")
-    return 0
-
-
-def add_cli(subparsers: argparse._SubParsersAction) -> None:
-    """Register ``lidmelt sample``."""
-    p = subparsers.add_parser(
-        "sample",
-        help="values of a run at stations (CSV or point file)",
-        description=(
-            "Sample every output variable and input of a run at stations, with a status column "
-            "(ok, outside_grid, nodata, next_to_nodata). Prints a short table; -o writes it."
-        ),
-    )
-    p.add_argument("run_dir", metavar="RUN_DIR", help="output folder of 'lidmelt run'")
-    p.add_argument(
-        "stations",
-        metavar="STATIONS",
-        help=(
-            "CSV with longitude/latitude columns (lon/long/longitude/x, lat/latitude/y), or a "
-            "point file (GeoPackage, GeoJSON, Shapefile) in any CRS"
-        ),
-    )
-    p.add_argument(
-        "-o",
-        "--output",
-        metavar="OUT",
-        help="write the table to OUT.csv or OUT.gpkg (format chosen by the suffix)",
-    )
-    p.add_argument(
-        "--method",
-        choices=smp.METHODS,
-        default="bilinear",
-        help="bilinear between cell centres (default) or the containing cell's value",
-    )
-    p.add_argument("--lon-column", metavar="NAME", help="longitude (x) column of a CSV")
-    p.add_argument("--lat-column", metavar="NAME", help="latitude (y) column of a CSV")
-    p.add_argument(
-        "--crs",
-        metavar="CRS",
-        help=(
-            "CRS of a CSV's coordinates (default EPSG:4326), or of a vector file that declares "
-            "none, e.g. EPSG:32633"
-        ),
-    )
-    p.set_defaults(func=_run_cli)

@@ -1,0 +1,323 @@
+"""``lidmelt column``: melting beneath one site (one column)."""
+
+from __future__ import annotations
+
+import argparse
+import csv
+import json
+import math
+import sys
+from pathlib import Path
+from typing import Any
+
+from lidmelt.errors import InputError
+from lidmelt.files import atomic_path
+from lidmelt.physics import (
+    DEFAULT_AMBIENT_TP_C,
+    DEFAULT_COOLING,
+    DEFAULT_LID_ISOTHERM_C,
+    FLAG_BEYOND_CALIBRATION,
+    FLAG_INVALID_INPUT,
+    FLAG_NO_ONSET,
+    FLAG_WATER_SATURATED,
+    column_profile,
+    excess_to_melt_k,
+    get_cooling_model,
+    get_model,
+    isotherm_depth_km,
+    melt_column,
+)
+
+__all__ = ["register"]
+
+
+def register(subparsers: argparse._SubParsersAction) -> None:
+    """Register ``lidmelt column``."""
+    p = subparsers.add_parser(
+        "column",
+        help="melting beneath one site (one column)",
+        description=(
+            "Melt production of upwelling mantle beneath one lid: onset depth, melt thickness, "
+            "melt fraction and the excess temperature needed to melt. Give the mantle as "
+            "--potential-temperature, or as --excess-temperature above --ambient; give the lid "
+            "as --lid-depth, or as --age through a cooling model."
+        ),
+    )
+    _add_mantle_options(p)
+    _add_lid_options(p)
+    _add_model_options(p)
+    p.add_argument("--json", action="store_true", help="print one JSON object")
+    p.add_argument(
+        "--profile",
+        type=Path,
+        metavar="FILE.csv",
+        help="write depth, pressure, temperature and melt fraction along the column",
+    )
+    p.set_defaults(func=run)
+
+
+def _add_mantle_options(p: argparse.ArgumentParser) -> None:
+    tp = p.add_mutually_exclusive_group(required=True)
+    tp.add_argument(
+        "--potential-temperature",
+        type=float,
+        metavar="C",
+        help="mantle potential temperature Tp [deg C]",
+    )
+    tp.add_argument(
+        "--excess-temperature",
+        type=float,
+        metavar="K",
+        help="thermal anomaly above the ambient Tp [K]",
+    )
+    p.add_argument(
+        "--ambient",
+        type=float,
+        default=DEFAULT_AMBIENT_TP_C,
+        metavar="C",
+        help=f"ambient potential temperature [deg C] (default {DEFAULT_AMBIENT_TP_C:g}, "
+        "Herzberg et al. 2010)",
+    )
+    p.add_argument(
+        "--water",
+        type=float,
+        default=0.0,
+        metavar="WT_PCT",
+        help="water in the bulk source [wt%%] (default 0; 0.01 = 100 ppm)",
+    )
+
+
+def _add_lid_options(p: argparse.ArgumentParser) -> None:
+    lid = p.add_mutually_exclusive_group(required=True)
+    lid.add_argument(
+        "--lid-depth",
+        type=float,
+        metavar="KM",
+        help="depth of the lid base below the seafloor [km]",
+    )
+    lid.add_argument("--age", type=float, metavar="MA", help="plate age [Ma]")
+    p.add_argument(
+        "--cooling",
+        default=DEFAULT_COOLING,
+        choices=["half-space", "gdh1", "ps77"],
+        help=f"cooling model for --age (default {DEFAULT_COOLING})",
+    )
+    p.add_argument(
+        "--lid-isotherm",
+        type=float,
+        default=DEFAULT_LID_ISOTHERM_C,
+        metavar="C",
+        help=f"isotherm that defines the lid base [deg C] (default {DEFAULT_LID_ISOTHERM_C:g})",
+    )
+    p.add_argument(
+        "--min-top",
+        type=float,
+        default=7.0,
+        metavar="KM",
+        help="melting stops at max(lid, this depth) [km] (default 7, the crust base)",
+    )
+
+
+def _add_model_options(p: argparse.ArgumentParser) -> None:
+    p.add_argument(
+        "--model",
+        default="katz2003",
+        help="melting model: katz2003 (default) or mckenzie-bickle1988",
+    )
+    p.add_argument(
+        "--param",
+        action="append",
+        metavar="NAME=VALUE",
+        help="override a model parameter (repeatable), e.g. cpx_mass_fraction=0.15",
+    )
+    p.add_argument(
+        "--method",
+        choices=["direct", "table"],
+        default="direct",
+        help="direct integration (default for one column) or the fast table",
+    )
+
+
+def _parse_params(items: list[str] | None) -> dict[str, float]:
+    params = {}
+    for item in items or []:
+        key, sep, value = item.partition("=")
+        try:
+            if not sep:
+                raise ValueError
+            params[key.strip()] = float(value)
+        except ValueError:
+            msg = f"--param {item!r} must be NAME=NUMBER, e.g. --param cpx_mass_fraction=0.15."
+            raise InputError(msg) from None
+    return params
+
+
+def _check_numbers(args: argparse.Namespace) -> None:
+    """Refuse non-finite and negative values of the numeric options, naming the option."""
+    for value, option, unit in (
+        (args.potential_temperature, "--potential-temperature", "deg C"),
+        (args.excess_temperature, "--excess-temperature", "K"),
+        (args.ambient, "--ambient", "deg C"),
+        (args.lid_depth, "--lid-depth", "km"),
+        (args.age, "--age", "Ma"),
+        (args.water, "--water", "wt%"),
+        (args.min_top, "--min-top", "km"),
+        (args.lid_isotherm, "--lid-isotherm", "deg C"),
+    ):
+        if value is not None and not math.isfinite(value):
+            msg = f"{option} {value!r} is not a finite number; give a value in {unit}."
+            raise InputError(msg)
+    negative = {
+        "--age": (args.age, "{:g} is negative; plate age is in Ma, 0 at the ridge."),
+        "--lid-depth": (
+            args.lid_depth,
+            "{:g} km is negative; give the lid base depth below the seafloor.",
+        ),
+        "--water": (args.water, "{:g} is negative; give the bulk water content in wt% (>= 0)."),
+        "--min-top": (args.min_top, "{:g} km is negative; give a depth >= 0."),
+    }
+    for option, (value, text) in negative.items():
+        if value is not None and value < 0:
+            msg = f"{option} " + text.format(value)
+            raise InputError(msg)
+
+
+def _lid_km(args: argparse.Namespace) -> float:
+    """The lid base [km]: given, or the lid isotherm's depth at ``--age`` in the cooling model."""
+    if args.age is None:
+        return float(args.lid_depth)
+    cooling = get_cooling_model(args.cooling)
+    return float(isotherm_depth_km(args.lid_isotherm, args.age, model=cooling))
+
+
+def _check_flag(flag: int, model: Any, tp: float, args: argparse.Namespace, res: Any) -> None:
+    """Turn the flags of an unusable column into an error that says what to change."""
+    if flag & FLAG_INVALID_INPUT:
+        if not model.hydrous and args.water > 0:
+            msg = (
+                f"model {model.name} is anhydrous, but --water is {args.water:g} wt%. Use "
+                "--model katz2003 for a hydrous source, or --water 0."
+            )
+        else:
+            msg = (
+                f"potential temperature {tp:g} C is at or below the surface solidus of "
+                f"{model.name} ({float(model.solidus_c(0.0)):.1f} C): the mantle cannot melt. "
+                "Give a Tp above it (ambient upper mantle is about 1300-1400 C)."
+            )
+        raise InputError(msg)
+    if flag & FLAG_WATER_SATURATED:
+        held = float(model.water_saturated_bulk_wt_pct(res.onset_pressure_gpa))
+        msg = (
+            f"--water {args.water:g} wt% is above the water the solid source holds at the "
+            f"onset ({held:.3g} wt%): the source would carry free water, outside the "
+            "batch-melting model. Give a lower --water (oceanic mantle holds about 0.005-0.03 "
+            "wt%)."
+        )
+        raise InputError(msg)
+    if flag & FLAG_NO_ONSET:
+        msg = (
+            f"the isentrope of Tp {tp:g} C does not meet the {model.name} solidus above "
+            f"{model.max_onset_pressure_gpa:g} GPa, so the column has no defined onset. Give "
+            "a lower Tp or less water (this model is calibrated for onsets shallower than "
+            f"{model.calibrated_max_pressure_gpa:g} GPa)."
+        )
+        raise InputError(msg)
+
+
+def run(args: argparse.Namespace) -> int:
+    """Evaluate one column and print it as a table or as JSON."""
+    _check_numbers(args)
+    model = get_model(args.model, **_parse_params(args.param))
+    tp = (
+        args.potential_temperature
+        if args.potential_temperature is not None
+        else args.ambient + args.excess_temperature
+    )
+    lid = _lid_km(args)
+    res = melt_column(tp, lid, args.water, model=model, method=args.method, min_top_km=args.min_top)
+    flag = int(res.flag)
+    _check_flag(flag, model, tp, args, res)
+    values = {name: float(v) for name, v in res.as_dict().items() if name != "flag"}
+    values["excess_to_melt_k"] = float(
+        excess_to_melt_k(
+            lid,
+            args.water,
+            ambient_potential_temperature_c=args.ambient,
+            model=model,
+            min_top_km=args.min_top,
+        )
+    )
+    if args.profile:
+        prof = column_profile(tp, lid, args.water, model=model, min_top_km=args.min_top)
+        _write_profile_csv(args.profile, prof)
+    if flag & FLAG_BEYOND_CALIBRATION:
+        print(
+            f"note: the onset ({values['onset_pressure_gpa']:.2f} GPa) is deeper than the "
+            f"{model.name} calibration ({model.calibrated_max_pressure_gpa:g} GPa); treat the "
+            "result as an extrapolation.",
+            file=sys.stderr,
+        )
+    if args.json:
+        print(json.dumps(_json_document(args, model, tp, lid, flag, values), indent=2))
+    else:
+        _print_table(args, model, tp, lid, values)
+    return 0
+
+
+def _json_document(args, model, tp: float, lid: float, flag: int, values: dict) -> dict:
+    doc: dict[str, Any] = {k: (None if not math.isfinite(v) else v) for k, v in values.items()}
+    doc.update(
+        {
+            "potential_temperature_c": tp,
+            "water_wt_pct": args.water,
+            "validity_flag": flag,
+            "model": model.name,
+            "model_parameters": model.parameters(),
+        }
+    )
+    if args.age is not None:
+        doc.update(
+            {
+                "plate_age_ma": args.age,
+                "cooling": args.cooling,
+                "lid_isotherm_c": args.lid_isotherm,
+                "lid_base_km": lid,
+            }
+        )
+    return doc
+
+
+def _print_table(args, model, tp: float, lid: float, values: dict) -> None:
+    lid_label = "lid base"
+    if args.age is not None:
+        lid_label += f" ({args.cooling}, {args.lid_isotherm:g} C at {args.age:g} Ma)"
+    rows = [
+        ("potential temperature", tp, "C"),
+        (lid_label, lid, "km"),
+        ("top of melting", values["lid_depth_km"], "km"),
+        ("onset depth", values["onset_depth_km"], "km"),
+        ("onset pressure", values["onset_pressure_gpa"], "GPa"),
+        ("melt thickness", values["melt_thickness_km"], "km"),
+        ("max melt fraction", values["max_melt_fraction"], ""),
+        ("mean melt pressure", values["mean_melt_pressure_gpa"], "GPa"),
+        ("excess to melt", values["excess_to_melt_k"], f"K above {args.ambient:g} C"),
+    ]
+    print(f"lidmelt column: {model.name}, water {args.water:g} wt%")
+    for label, value, unit in rows:
+        text = "-" if not math.isfinite(value) else f"{value:10.3f}"
+        print(f"  {label:<48} {text:>10} {unit}")
+    if args.profile:
+        print(f"profile written to {args.profile}")
+
+
+def _write_profile_csv(path: Path, prof: dict) -> None:
+    path = Path(path)
+    if not path.parent.exists():
+        msg = f"--profile folder {str(path.parent)!r} does not exist; create it or pick another."
+        raise InputError(msg)
+    columns = ["depth_km", "pressure_gpa", "temperature_c", "melt_fraction"]
+    with atomic_path(path) as temp, temp.open("w", newline="", encoding="utf-8") as fh:
+        writer = csv.writer(fh)
+        writer.writerow(columns)
+        for row in zip(*(prof[c] for c in columns), strict=True):
+            writer.writerow([f"{v:.6g}" for v in row])

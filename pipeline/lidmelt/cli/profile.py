@@ -1,0 +1,92 @@
+"""``lidmelt profile``: values of a run along a ship track, with a profile figure."""
+
+from __future__ import annotations
+
+import argparse
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from lidmelt.cli._common import (
+    coordinate_options,
+    format_table,
+    print_warnings,
+    run_dir_option,
+    sampling_method_option,
+    status_summary,
+)
+from lidmelt.products._sampling import check_output_path
+from lidmelt.products.profiles import sample_track, write_profile
+
+__all__ = ["register"]
+
+_SHOWN = (
+    "distance_km",
+    "waypoint_index",
+    "lon",
+    "lat",
+    "melt_thickness_km",
+    "onset_depth_km",
+    "lid_depth_km",
+    "status",
+)
+
+
+def register(subparsers: argparse._SubParsersAction) -> None:
+    """Register ``lidmelt profile``."""
+    p = subparsers.add_parser(
+        "profile",
+        parents=[run_dir_option(), sampling_method_option(), coordinate_options("track")],
+        help="values of a run along a ship track, with a profile figure",
+        description=(
+            "Sample every variable of a run every KM km along the geodesics (WGS84) joining a "
+            "track's waypoints; write a CSV and a PNG profile of melt thickness, onset depth "
+            "and lid depth next to it."
+        ),
+    )
+    p.add_argument(
+        "track",
+        metavar="TRACK",
+        help="waypoints (CSV with lon/lat columns, or a point file) or a line file, any CRS",
+    )
+    p.add_argument(
+        "--spacing",
+        metavar="KM",
+        type=float,
+        required=True,
+        help="distance between profile points along the track, in km",
+    )
+    p.add_argument(
+        "-o",
+        "--output",
+        metavar="OUT.csv",
+        help="CSV to write (default TRACKNAME_profile.csv here); the PNG goes beside it",
+    )
+    p.set_defaults(func=run)
+
+
+def run(args: argparse.Namespace) -> int:
+    """Sample the track, print a short table and write the CSV and the profile figure."""
+    out = args.output or f"{Path(args.track).stem}_profile.csv"
+    out = check_output_path(out, (".csv",), what="profile")
+    with print_warnings("profile"):
+        gdf = sample_track(
+            args.run_dir,
+            args.track,
+            spacing_km=args.spacing,
+            method=args.method,
+            lon_column=args.lon_column,
+            lat_column=args.lat_column,
+            crs=args.crs,
+        )
+    shown = [c for c in _SHOWN if c in gdf.columns]
+    print(format_table(pd.DataFrame(gdf[shown]), max_rows=10))
+    print(
+        status_summary(np.asarray(gdf["status"]), what="points")
+        + f"; track length {gdf['distance_km'].iloc[-1]:.3f} km, spacing {args.spacing:g} km"
+    )
+    title = f"{Path(args.run_dir).name}: {Path(args.track).name}"
+    csv_path, png = write_profile(gdf, out, title=title)
+    print(f"wrote {csv_path} and {png}")
+    return 0
