@@ -16,9 +16,10 @@ import rasterio
 from rasterio.transform import from_origin
 
 from lidmelt.cli import main
-from lidmelt.engine import VARIABLES, run_basin
+from lidmelt.engine import run_basin
 from lidmelt.grids.rundir import open_run
 from lidmelt.physics import excess_to_melt_k, get_cooling_model, isotherm_depth_km, melt_column
+from lidmelt.variables import OUTPUTS
 from lidmelt.workflow import load_workflow
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -89,17 +90,17 @@ def demo_run(tmp_path_factory):
 
 def test_demo_outputs_grid_and_nodata(demo_run):
     run = open_run(demo_run.run_dir)
-    assert set(VARIABLES) <= set(run.outputs)
+    assert set(OUTPUTS) <= set(run.outputs)
     with rasterio.open(ROOT / "grids_demo" / "plate_age_ma.tif") as src:
         crs, transform, age = src.crs, src.transform, src.read(1)
-    for name in VARIABLES:
+    for name in OUTPUTS:
         with rasterio.open(run.file(name)) as dst:
             assert dst.crs == crs, name
             assert dst.transform == transform, name
             assert dst.dtypes[0] == "float32"
             assert np.isnan(dst.nodata)
-            assert dst.units[0] == VARIABLES[name][0]
-            assert dst.descriptions[0] == VARIABLES[name][1]
+            assert dst.units[0] == OUTPUTS[name].units
+            assert dst.descriptions[0] == OUTPUTS[name].long_name
             values = dst.read(1)
             tags = dst.tags()
         assert np.all(np.isnan(values[np.isnan(age)])), name  # land/margin stays nodata
@@ -118,7 +119,7 @@ def test_demo_cells_equal_melt_column(demo_run):
     run = open_run(demo_run.run_dir)
     age = run.open("plate_age_ma").values
     anomaly = run.open("thermal_anomaly_k").values
-    out = {name: run.open(name).values for name in VARIABLES}
+    out = {name: run.open(name).values for name in OUTPUTS}
     rng = np.random.default_rng(7)
     iy, ix = np.nonzero(np.isfinite(age))
     pick = rng.choice(iy.size, 50, replace=False)
@@ -147,7 +148,7 @@ def test_demo_summary(demo_run):
     npt.assert_allclose(
         st["variables"]["melt_thickness_km"]["max"], np.nanmax(thickness), rtol=1e-6
     )
-    # volume = sum of thickness x geodesic cell area (authalic formula, GEOSTACK.md 5)
+    # volume = sum of thickness x ellipsoidal cell area (authalic latitude, Snyder 1987 eq. 3-12)
     from lidmelt.grids.align import TargetGrid
     from lidmelt.grids.area import cell_area_km2
 
@@ -162,7 +163,7 @@ def test_runs_are_deterministic(tmp_path):
     wf = small_basin(tmp_path / "in")
     a = run_basin(load_workflow(wf, output_dir=tmp_path / "a"), progress=False)
     b = run_basin(load_workflow(wf, output_dir=tmp_path / "b"), progress=False)
-    for name in VARIABLES:
+    for name in OUTPUTS:
         npt.assert_array_equal(
             open_run(a.run_dir).open(name).values, open_run(b.run_dir).open(name).values
         )
