@@ -16,9 +16,11 @@ import rasterio
 from rasterio.transform import from_origin
 
 from lidmelt.cli import main
-from lidmelt.engine import VARIABLES, run_basin
-from lidmelt.grids.rundir import open_run
+from lidmelt.engine import run_basin
+from lidmelt.errors import InputError
+from lidmelt.grids.rundir import RUN_FORMAT_VERSION, SUMMARY_NAME, open_run, write_summary
 from lidmelt.physics import excess_to_melt_k, get_cooling_model, isotherm_depth_km, melt_column
+from lidmelt.variables import FLAG_VARIABLE, INPUTS, OUTPUTS
 from lidmelt.workflow import load_workflow
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -80,6 +82,19 @@ chunk_size = 512
     return wf
 
 
+def with_lid_grid(folder: Path, values: np.ndarray) -> Path:
+    """``small_basin`` in ``folder`` with a lid thickness grid (km) besides the plate age."""
+    small_basin(folder)
+    write_tif(folder / "lid.tif", values, from_origin(-30, 10, 0.25, 0.25), units="km")
+    text = (folder / "basin.toml").read_text()
+    text = text.replace(
+        "[inputs.thermal_anomaly]",
+        '[inputs.lid_thickness]\npath = "lid.tif"\n[inputs.thermal_anomaly]',
+    )
+    (folder / "basin.toml").write_text(text)
+    return folder / "basin.toml"
+
+
 @pytest.fixture(scope="module")
 def demo_run(tmp_path_factory):
     out = tmp_path_factory.mktemp("demo") / "run"
@@ -89,17 +104,17 @@ def demo_run(tmp_path_factory):
 
 def test_demo_outputs_grid_and_nodata(demo_run):
     run = open_run(demo_run.run_dir)
-    assert set(VARIABLES) <= set(run.outputs)
+    assert set(OUTPUTS) <= set(run.outputs)
     with rasterio.open(ROOT / "grids_demo" / "plate_age_ma.tif") as src:
         crs, transform, age = src.crs, src.transform, src.read(1)
-    for name in VARIABLES:
+    for name in OUTPUTS:
         with rasterio.open(run.file(name)) as dst:
             assert dst.crs == crs, name
             assert dst.transform == transform, name
             assert dst.dtypes[0] == "float32"
             assert np.isnan(dst.nodata)
-            assert dst.units[0] == VARIABLES[name][0]
-            assert dst.descriptions[0] == VARIABLES[name][1]
+            assert dst.units[0] == OUTPUTS[name].units
+            assert dst.descriptions[0] == OUTPUTS[name].long_name
             values = dst.read(1)
             tags = dst.tags()
         assert np.all(np.isnan(values[np.isnan(age)])), name  # land/margin stays nodata
@@ -111,6 +126,7 @@ def test_demo_outputs_grid_and_nodata(demo_run):
     with rasterio.open(demo_run.run_dir / "validity_flag.tif") as dst:
         assert dst.dtypes[0] == "uint8"
         assert dst.nodata == 255
+        assert dst.descriptions[0] == FLAG_VARIABLE.long_name  # the registry's name
     assert (demo_run.run_dir / "lidmelt.nc").is_file()
 
 
@@ -118,7 +134,7 @@ def test_demo_cells_equal_melt_column(demo_run):
     run = open_run(demo_run.run_dir)
     age = run.open("plate_age_ma").values
     anomaly = run.open("thermal_anomaly_k").values
-    out = {name: run.open(name).values for name in VARIABLES}
+    out = {name: run.open(name).values for name in OUTPUTS}
     rng = np.random.default_rng(7)
     iy, ix = np.nonzero(np.isfinite(age))
     pick = rng.choice(iy.size, 50, replace=False)
@@ -147,7 +163,7 @@ def test_demo_summary(demo_run):
     npt.assert_allclose(
         st["variables"]["melt_thickness_km"]["max"], np.nanmax(thickness), rtol=1e-6
     )
-    # volume = sum of thickness x geodesic cell area (authalic formula, GEOSTACK.md 5)
+    # volume = sum of thickness x ellipsoidal cell area (authalic latitude, Snyder 1987 eq. 3-12)
     from lidmelt.grids.align import TargetGrid
     from lidmelt.grids.area import cell_area_km2
 
@@ -162,7 +178,7 @@ def test_runs_are_deterministic(tmp_path):
     wf = small_basin(tmp_path / "in")
     a = run_basin(load_workflow(wf, output_dir=tmp_path / "a"), progress=False)
     b = run_basin(load_workflow(wf, output_dir=tmp_path / "b"), progress=False)
-    for name in VARIABLES:
+    for name in OUTPUTS:
         npt.assert_array_equal(
             open_run(a.run_dir).open(name).values, open_run(b.run_dir).open(name).values
         )
@@ -253,20 +269,32 @@ def test_cli_run_and_bad_inputs(tmp_path, capsys):
     write_tif(tmp_path / "seconds" / "age.tif", age, from_origin(-30, 10, 0.25, 0.25))
     fails([str(sec)], "seconds")
     # a negative lid thickness grid
-    small_basin(tmp_path / "neg", extra="")
-    write_tif(
-        tmp_path / "neg" / "lid.tif",
-        np.full((40, 60), -10.0),
-        from_origin(-30, 10, 0.25, 0.25),
-        units="km",
+    fails([str(with_lid_grid(tmp_path / "neg", np.full((40, 60), -10.0)))], "lid_thickness_km")
+    # a lid grid in metres: 90000 is far above the registry's 400 km; the advice says what to do
+    fails(
+        [str(with_lid_grid(tmp_path / "metres", np.full((40, 60), 9.0e4)))],
+        "metres divides by 1000",
     )
-    text = (tmp_path / "neg" / "basin.toml").read_text()
-    text = text.replace(
-        "[inputs.thermal_anomaly]",
-        '[inputs.lid_thickness]\npath = "lid.tif"\n[inputs.thermal_anomaly]',
-    )
-    (tmp_path / "neg" / "basin.toml").write_text(text)
-    fails([str(tmp_path / "neg" / "basin.toml")], "lid_thickness_km")
+
+
+def test_lid_limit_is_the_registry_one(tmp_path):
+    # one limit for the lid thickness: lidmelt.variables (400 km); 450 km is refused, 390 km runs
+    assert INPUTS["lid_thickness_km"].valid_range == (0.0, 400.0)
+    deep = with_lid_grid(tmp_path / "deep", np.full((40, 60), 450.0))
+    with pytest.raises(InputError, match="outside 0 to 400"):
+        run_basin(load_workflow(deep, output_dir=tmp_path / "deep_out"), progress=False)
+    ok = with_lid_grid(tmp_path / "ok", np.full((40, 60), 390.0))
+    res = run_basin(load_workflow(ok, output_dir=tmp_path / "ok_out"), progress=False)
+    # the lid grid wins over the age: every cell's lid is 390 km (identity with the input)
+    npt.assert_allclose(open_run(res.run_dir).open("lid_depth_km").values, 390.0)
+
+
+def test_write_summary_is_read_back_by_run_dir(tmp_path):
+    # the run directory's one writer and its reader agree (identity), and no temporary is left
+    doc = {"lidmelt_run": RUN_FORMAT_VERSION, "outputs": {}, "inputs": {}, "value": 1.5}
+    assert write_summary(tmp_path, doc) == tmp_path / SUMMARY_NAME
+    assert open_run(tmp_path).summary == doc
+    assert [p.name for p in tmp_path.iterdir()] == [SUMMARY_NAME]
 
 
 def test_no_crs_input_is_a_clear_error(tmp_path, capsys):

@@ -1,35 +1,83 @@
-"""Read a run directory written by ``lidmelt run``.
+"""The run directory written by ``lidmelt run``: its file names, its summary and its tags.
+
+This module is the one home of the run directory's format: the engine writes it through
+:func:`build_summary`, :func:`write_summary` and :func:`provenance_tags`, and every reader opens
+it through :class:`RunDir`.
 
 A run directory holds ``summary.json`` (with the marker ``"lidmelt_run": 1``), one GeoTIFF per
 output variable (``<variable>.tif``), the run's inputs aligned to the target grid
-(``input_<name>.tif``) and optionally ``validity_flag.tif``, ``lidmelt.nc``, ``maps/`` and
+(``input_<name>.tif``), ``validity_flag.tif`` and optionally ``lidmelt.nc``, ``maps/`` and
 ``report.html``. The keys of ``summary.json`` that readers may rely on:
 
 ``lidmelt_run`` (int, format version), ``lidmelt_version``, ``created_utc``,
 ``grid`` {``crs_wkt``, ``transform`` (6 affine coefficients a, b, c, d, e, f), ``width``,
 ``height``, ``bounds`` [west, south, east, north] in the grid CRS},
-``model`` {``name``, ``parameters`` {name: value}, ``reference``},
+``model`` {``name``, ``parameters`` {name: value}, ``reference``, ``sources``},
 ``ambient_potential_temperature_c``, ``cooling`` ({``name``, ``lid_isotherm_c``,
-``parameters``} or null when a lid grid was given), ``min_top_of_melting_km``,
-``inputs`` {name: {``file`` (aligned grid in this folder), ``source`` (path or null),
-``sha256`` (or null), ...}}, ``outputs`` {variable: {``file``, ``units``, ``long_name``}},
-``statistics`` {``melting_cells``, ``melting_area_km2``, ``melt_volume_km3``,
-``variables`` {variable: {``min``, ``max``, ``mean``}}}, ``workflow`` (the workflow text).
+``parameters``, ``reference``} or null when a lid grid was given), ``min_top_of_melting_km``,
+``method`` (``"table"`` or ``"direct"``),
+``inputs`` {name: {``file`` (aligned grid in this folder, or null for a constant), ``source``
+(path or null), ``sha256`` (or null), ``units``, ``long_name``, ...}},
+``outputs`` {variable: {``file``, ``units``, ``long_name``}},
+``validity_flag`` {``file``, ``nodata``, ``meanings`` {bit: text}},
+``statistics`` {``data_cells``, ``melting_cells``, ``melting_area_km2``, ``melt_volume_km3``,
+``variables`` {variable: {``min``, ``max``, ``mean``} (null where no cell has data)}},
+``workflow_file``, ``workflow_overrides`` (the ``--set`` overrides), ``workflow`` (the
+workflow text).
+
+The GeoTIFFs and the NetCDF carry :func:`provenance_tags` (version, model and its parameters,
+cooling model, input sources and checksums, workflow text) as metadata.
 """
 
 from __future__ import annotations
 
 import json
+from collections.abc import Collection, Mapping, Sequence
+from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any
 
 import numpy as np
 import xarray as xr
 
+from lidmelt import __version__
 from lidmelt.errors import RunDirError
+from lidmelt.files import write_json_atomic
+from lidmelt.physics import FLAG_MEANINGS
+from lidmelt.variables import FLAG_NODATA, FLAG_VARIABLE, OUTPUTS
 
+__all__ = [
+    "FLAG_FILE",
+    "NETCDF_NAME",
+    "RUN_FORMAT_VERSION",
+    "SUMMARY_NAME",
+    "RunDir",
+    "build_summary",
+    "input_file",
+    "open_run",
+    "output_file",
+    "provenance_tags",
+    "write_summary",
+]
+
+#: The run summary (JSON) in a run directory.
 SUMMARY_NAME = "summary.json"
+#: Version of the run directory format (the ``lidmelt_run`` marker of the summary).
 RUN_FORMAT_VERSION = 1
+#: The validity bit flags (uint8 GeoTIFF).
+FLAG_FILE = f"{FLAG_VARIABLE.name}.tif"
+#: The optional CF NetCDF of every output and aligned input.
+NETCDF_NAME = "lidmelt.nc"
+
+
+def output_file(name: str) -> str:
+    """File name of output variable ``name`` in a run directory."""
+    return f"{name}.tif"
+
+
+def input_file(name: str) -> str:
+    """File name of the aligned input ``name`` in a run directory."""
+    return f"input_{name}.tif"
 
 
 class RunDir:
@@ -131,3 +179,127 @@ class RunDir:
 def open_run(path: str | Path) -> RunDir:
     """Open and validate a run directory; see :class:`RunDir`."""
     return RunDir(path)
+
+
+# ------------------------------------------------------------------------------------------------
+# writing
+# ------------------------------------------------------------------------------------------------
+def provenance_tags(
+    cfg: Any, *, model: Any, cooling: Any | None, provenance: Mapping[str, Mapping[str, Any]]
+) -> dict[str, Any]:
+    """Metadata written into every GeoTIFF and the NetCDF of a run.
+
+    Parameters
+    ----------
+    cfg : RunConfig
+        The run configuration (``cfg.model``, ``cfg.lithosphere``, ``cfg.text``,
+        ``cfg.overrides`` are read).
+    model : MeltingModel
+        The melting model of the run.
+    cooling : cooling model or None
+        The lid's cooling model, None when a lid grid was given.
+    provenance : mapping
+        Per input name: ``source``, ``sha256`` and ``constant`` (others are ignored).
+    """
+    return {
+        "lidmelt_version": __version__,
+        "model": model.name,
+        "model_reference": model.reference,
+        "model_parameters": model.parameters(),
+        "ambient_potential_temperature_c": cfg.model.ambient_potential_temperature_c,
+        "min_top_of_melting_km": cfg.model.min_top_of_melting_km,
+        "cooling_model": cooling.name if cooling is not None else "none (lid grid)",
+        "cooling_parameters": cooling.parameters() if cooling is not None else {},
+        "lid_isotherm_c": cfg.lithosphere.lid_isotherm_c if cooling is not None else None,
+        "inputs": {
+            name: {
+                "source": p.get("source"),
+                "sha256": p.get("sha256"),
+                "constant": p.get("constant"),
+            }
+            for name, p in provenance.items()
+        },
+        "workflow": cfg.text,
+        "workflow_overrides": list(cfg.overrides),
+    }
+
+
+def build_summary(
+    cfg: Any,
+    *,
+    grid: Any,
+    model: Any,
+    cooling: Any | None,
+    provenance: Mapping[str, Mapping[str, Any]],
+    gridded_inputs: Collection[str],
+    outputs: Sequence[str],
+    statistics: Mapping[str, Any],
+) -> dict[str, Any]:
+    """The ``summary.json`` document of a run (keys in the module docstring).
+
+    Parameters
+    ----------
+    cfg : RunConfig
+        The run configuration.
+    grid : TargetGrid
+        The grid of every output.
+    model, cooling
+        The melting model and the lid's cooling model (None when a lid grid was given).
+    provenance : mapping
+        Per input name, the input's provenance (units, long name, source, checksum, ...).
+    gridded_inputs : collection of str
+        Inputs written as an aligned grid (the others were constants).
+    outputs : sequence of str
+        The output variables written, in file order.
+    statistics : mapping
+        The ``statistics`` entry, JSON-ready (no NaN).
+    """
+    return {
+        "lidmelt_run": RUN_FORMAT_VERSION,
+        "lidmelt_version": __version__,
+        "created_utc": datetime.now(UTC).strftime("%Y-%m-%dT%H:%M:%SZ"),
+        "grid": grid.to_dict(),
+        "model": {
+            "name": model.name,
+            "parameters": model.parameters(),
+            "reference": model.reference,
+            "sources": dict(model.sources),
+        },
+        "ambient_potential_temperature_c": cfg.model.ambient_potential_temperature_c,
+        "cooling": None
+        if cooling is None
+        else {
+            "name": cooling.name,
+            "lid_isotherm_c": cfg.lithosphere.lid_isotherm_c,
+            "parameters": cooling.parameters(),
+            "reference": cooling.reference,
+        },
+        "min_top_of_melting_km": cfg.model.min_top_of_melting_km,
+        "method": cfg.compute.method,
+        "inputs": {
+            name: {**prov, "file": input_file(name) if name in gridded_inputs else None}
+            for name, prov in provenance.items()
+        },
+        "outputs": {
+            name: {
+                "file": output_file(name),
+                "units": OUTPUTS[name].units,
+                "long_name": OUTPUTS[name].long_name,
+            }
+            for name in outputs
+        },
+        "validity_flag": {
+            "file": FLAG_FILE,
+            "nodata": FLAG_NODATA,
+            "meanings": {str(k): v for k, v in FLAG_MEANINGS.items()},
+        },
+        "statistics": dict(statistics),
+        "workflow_file": str(cfg.workflow_path),
+        "workflow_overrides": list(cfg.overrides),
+        "workflow": cfg.text,
+    }
+
+
+def write_summary(run_dir: str | Path, doc: Mapping[str, Any]) -> Path:
+    """Write ``doc`` as the run directory's ``summary.json`` atomically; return its path."""
+    return write_json_atomic(Path(run_dir) / SUMMARY_NAME, doc)
