@@ -1,4 +1,4 @@
-"""Tests of lidmelt.workflow: reading, overriding and validating workflow files.
+"""Tests of lidmelt.workflow and lidmelt.config: reading, overriding and validating workflow files.
 
 Check values are the inputs the tests write themselves, the defaults documented in
 docs/workflow.md (with the published source of the physical ones), the path rules of
@@ -16,15 +16,11 @@ from pathlib import Path
 
 import pytest
 
+from lidmelt.config import OUTPUT_VARIABLES, Parameters, RunConfig
 from lidmelt.errors import WorkflowError
-from lidmelt.workflow import (
-    _ALL_KEYS,
-    _SCHEMA,
-    OUTPUT_VARIABLES,
-    Parameters,
-    RunConfig,
-    load_workflow,
-)
+from lidmelt.variables import INPUTS
+from lidmelt.workflow import load_workflow
+from lidmelt.workflow.schema import ALL_KEYS, SCHEMA
 
 ROOT = Path(__file__).resolve().parents[1]
 
@@ -95,14 +91,14 @@ def test_template_loads():
 
 
 def _is_table(key: str) -> bool:
-    return key in _SCHEMA or f"{key}[]" in _SCHEMA
+    return key in SCHEMA or f"{key}[]" in SCHEMA
 
 
 def test_template_shows_every_key():
     """Every key of the schema appears in the template: tables as ``[table`` and values as
     ``key =`` (set or commented out)."""
     text = (ROOT / "workflows" / "template.toml").read_text(encoding="utf-8")
-    for key in _ALL_KEYS:
+    for key in ALL_KEYS:
         if _is_table(key):
             assert f"[{key}" in text, key
         else:
@@ -113,7 +109,7 @@ def test_template_shows_every_key():
 def test_docs_list_every_key_and_variable():
     """docs/workflow.md documents every key of the schema and every output variable."""
     text = (ROOT / "docs" / "workflow.md").read_text(encoding="utf-8")
-    for key in _ALL_KEYS:
+    for key in ALL_KEYS:
         if _is_table(key):
             assert f"[{key}" in text, key
         else:
@@ -172,9 +168,9 @@ def test_demo_loads_and_matches_the_demo_readme(monkeypatch):
 def test_choices_match_the_stages_that_use_them():
     """The workflow's choices are the ones the grid stage accepts (lidmelt.grids as reference),
     and the model names documented in docs/workflow.md are the physics registries' names."""
+    from lidmelt.config import PLUME_SHAPES, RESAMPLING_METHODS
     from lidmelt.grids.align import RESAMPLING_METHODS as ALIGN_RESAMPLING
     from lidmelt.grids.anomaly import PLUME_SHAPES as ANOMALY_SHAPES
-    from lidmelt.workflow import PLUME_SHAPES, RESAMPLING_METHODS
 
     assert set(RESAMPLING_METHODS) == set(ALIGN_RESAMPLING)
     assert set(PLUME_SHAPES) == set(ANOMALY_SHAPES)
@@ -196,6 +192,11 @@ def test_plume_spec_as_plume(basin):
         250.0,
     )  # the values written in BASE
     assert plume.shape == "gaussian"
+    # The grid stage's own call (lidmelt.config does not import lidmelt.grids).
+    from lidmelt.grids.anomaly import Plume
+
+    spec = cfg.inputs.thermal_anomaly.plumes[0]
+    assert Plume(**spec.plume_fields()) == plume
 
 
 # ---------------------------------------------------------------------------------------------
@@ -221,9 +222,10 @@ def test_defaults_are_applied(basin, tmp_path, monkeypatch):
     assert cfg.inputs.thermal_anomaly.plumes == ()
     assert cfg.inputs.water.constant == 0.0
     assert cfg.model.name == "katz2003"
-    # Ambient Tp 1350 C: Herzberg, Condie & Korenaga (2010), PHYSICS.md sections 4 and 8.
+    # Ambient Tp 1350 C: the present MORB source of Herzberg, Condie & Korenaga (2010).
     assert cfg.model.ambient_potential_temperature_c == 1350.0
-    # Top of melting 7 km, the base of normal oceanic crust (PHYSICS.md section 8).
+    # Top of melting 7 km, the base of normal oceanic crust (7.1 +- 0.8 km, White, McKenzie &
+    # O'Nions 1992; from memory).
     assert cfg.model.min_top_of_melting_km == 7.0
     assert cfg.model.parameters == {}
     assert cfg.lithosphere.cooling == "half-space"
@@ -381,6 +383,32 @@ def test_absolute_and_home_paths(tmp_path, monkeypatch):
     cfg = load_workflow(wf)
     assert cfg.inputs.plate_age.path == (Path("~/age.tif").expanduser()).resolve()
     assert cfg.inputs.water.path == (tmp_path / "home" / "age.tif").resolve()
+
+
+@pytest.mark.parametrize("var", list(INPUTS.values()), ids=lambda v: v.workflow_key)
+def test_constant_ranges_are_the_registry_ranges(basin, var):
+    """inputs.<name>.constant accepts values up to the upper bound of the variable registry's
+    valid_range (lidmelt.variables) and refuses a value above it with the registry's advice:
+    one limit for each input, the one the engine applies to grid values too."""
+    low, high = var.valid_range
+    path = basin(
+        "[grid]\nextent = [0.0, 1.0, 0.0, 1.0]\nresolution = 0.5\n"
+        "[inputs.lid_thickness]\nconstant = 50.0\n"
+    )
+    key = f"inputs.{var.workflow_key}.constant"
+    cfg = load_workflow(path, overrides=[f"{key}={high!r}"])
+    assert cfg.inputs[var.workflow_key].constant == high
+    match = (
+        rf"'{re.escape(key)}'.* outside the accepted range {low:g} to {high:g} "
+        rf"{re.escape(var.units)}; expected {re.escape(var.advice)}"
+    )
+    with pytest.raises(WorkflowError, match=match):
+        load_workflow(path, overrides=[f"{key}={high + 1.0!r}"])
+
+
+def test_lid_thickness_limit_is_the_documented_one():
+    """The lid thickness limit is 0-400 km (docs/workflow.md, "Accepted ranges of constant")."""
+    assert INPUTS["lid_thickness_km"].valid_range == (0.0, 400.0)
 
 
 # ---------------------------------------------------------------------------------------------
@@ -660,13 +688,13 @@ ERROR_CASES = [
         "water in ppm",
         "constant = 0.01",
         "constant = 100.0",
-        r"'inputs\.water\.constant'.*100 wt%.*divide by 10000",
+        r"'inputs\.water\.constant'.*100 wt%.*ppm divides by 10000",
     ),
     (
         "plate age in years",
         'path = "grids/age.tif"',
         "constant = 5.0e7",
-        r"'inputs\.plate_age\.constant'.*Ma.*divide years by 1e6",
+        r"'inputs\.plate_age\.constant'.*Ma.*years divides by 1e6",
     ),
     (
         "empty input table",
@@ -732,8 +760,9 @@ def physics():
             "lithosphere.parameters.plate_thickness=100.0",
             r"'lithosphere\.parameters'.*Did you mean 'plate_thickness_km'",
         ),
-        # The half-space default mantle temperature is 1300 C (Turcotte & Schubert textbook
-        # constants, PHYSICS.md trap 12), so the 1350 C isotherm lies in the mantle.
+        # The half-space default mantle temperature is 1300 C (Turcotte & Schubert,
+        # Geodynamics, textbook constants; from memory), so the 1350 C isotherm lies in the
+        # mantle.
         ("lithosphere.lid_isotherm_c=1350", r"'lithosphere\.lid_isotherm_c' = 1350\.0.*1300"),
     ],
 )
@@ -752,7 +781,8 @@ def test_model_errors_in_file(basin):
 @pytest.mark.usefixtures("physics")
 def test_valid_model_overrides_pass(basin):
     """Valid names and parameters pass: the GDH1 mantle is at 1450 C (Stein & Stein 1992), so a
-    1350 C lid isotherm is allowed there; 0.15 is a valid cpx mass fraction (PHYSICS.md 1.2)."""
+    1350 C lid isotherm is allowed there; 0.15 is a valid cpx mass fraction (Katz et al. 2003,
+    Table 2, use 0.17 for fertile lherzolite; from memory)."""
     cfg = load_workflow(
         basin(),
         overrides=[

@@ -1,0 +1,369 @@
+"""The run configuration: :class:`RunConfig` and its frozen tables.
+
+A :class:`RunConfig` is what :func:`lidmelt.workflow.load_workflow` returns after reading and
+validating a workflow file; the engine, the products and the report read it. Every table is a
+frozen, hashable dataclass (safe to share between threads, to cache and to pickle), and
+:meth:`RunConfig.to_dict` gives the JSON provenance record. This module imports only the
+standard library and :mod:`lidmelt.variables`, so that every stage can type against it.
+
+The names of the inputs and outputs, their units and their accepted ranges come from the
+variable registry :mod:`lidmelt.variables`.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+from collections.abc import Iterator, Mapping
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+from lidmelt import variables
+
+__all__ = [
+    "AMBIENT_TP_RANGE_C",
+    "INPUT_NAMES",
+    "INPUT_UNITS",
+    "LID_ISOTHERM_RANGE_C",
+    "METHODS",
+    "MIN_CHUNK_SIZE",
+    "OUTPUT_VARIABLES",
+    "PLUME_SHAPES",
+    "RESAMPLING_METHODS",
+    "ComputeOptions",
+    "GridSpec",
+    "InputSpec",
+    "Inputs",
+    "LithosphereOptions",
+    "ModelOptions",
+    "OutputOptions",
+    "Parameters",
+    "PlumeSpec",
+    "RunConfig",
+    "RunOptions",
+]
+
+#: Output variables a run can write, in the order a run writes them (all by default).
+OUTPUT_VARIABLES: tuple[str, ...] = tuple(variables.OUTPUTS)
+#: The inputs a workflow can name under ``[inputs.<name>]`` (the registry's ``workflow_key``).
+INPUT_NAMES: tuple[str, ...] = tuple(v.workflow_key for v in variables.INPUTS.values())
+#: Unit of each input's grid values and constant, by workflow name.
+INPUT_UNITS: dict[str, str] = {v.workflow_key: v.units for v in variables.INPUTS.values()}
+#: How an input grid is resampled onto the target grid (the choices of ``lidmelt.grids.align``).
+RESAMPLING_METHODS: tuple[str, ...] = ("bilinear", "nearest", "cubic", "average")
+#: How melting is evaluated: interpolate a precomputed lookup table, or integrate each column.
+METHODS: tuple[str, ...] = ("table", "direct")
+#: Plume shapes (the shapes of ``lidmelt.grids.anomaly.Plume``).
+PLUME_SHAPES: tuple[str, ...] = ("gaussian", "cosine", "top-hat")
+#: Accepted ambient potential temperature, degrees C. Published ambient values run from about
+#: 1280 C (McKenzie & Bickle 1988) to about 1450 C (from memory); 1350 C is the present MORB
+#: source (Herzberg, Condie & Korenaga 2010). Outside 1000-2000 C the value is almost certainly
+#: a unit slip (kelvin, or a plume's total Tp), so it is rejected; the bounds are common practice.
+AMBIENT_TP_RANGE_C: tuple[float, float] = (1000.0, 2000.0)
+#: Accepted lid isotherm, degrees C, exclusive bounds (common practice: above the surface and
+#: below any cooling model's mantle temperature).
+LID_ISOTHERM_RANGE_C: tuple[float, float] = (0.0, 1600.0)
+#: Smallest chunk side, cells (smaller chunks cost more in overhead than they save; common
+#: practice).
+MIN_CHUNK_SIZE = 64
+
+
+class Parameters(Mapping[str, Any]):
+    """A read-only, hashable mapping of model parameter overrides (name -> value).
+
+    Use it like a dict: ``get_model(name, **cfg.model.parameters)``.
+    """
+
+    __slots__ = ("_items",)
+
+    def __init__(self, items: Mapping[str, Any] | None = None) -> None:
+        self._items: tuple[tuple[str, Any], ...] = tuple(sorted((items or {}).items()))
+
+    def __getitem__(self, key: str) -> Any:
+        for name, value in self._items:
+            if name == key:
+                return value
+        raise KeyError(key)
+
+    def __iter__(self) -> Iterator[str]:
+        return (name for name, _ in self._items)
+
+    def __len__(self) -> int:
+        return len(self._items)
+
+    def __hash__(self) -> int:
+        return hash(self._items)
+
+    def __eq__(self, other: object) -> bool:
+        if isinstance(other, Mapping):
+            return dict(self) == dict(other)
+        return NotImplemented
+
+    def __repr__(self) -> str:
+        return f"Parameters({dict(self._items)!r})"
+
+    def __getstate__(self) -> tuple[tuple[str, Any], ...]:
+        return self._items
+
+    def __setstate__(self, state: tuple[tuple[str, Any], ...]) -> None:
+        self._items = state
+
+
+@dataclass(frozen=True, kw_only=True)
+class RunOptions:
+    """The ``[run]`` table.
+
+    Parameters
+    ----------
+    name : str
+        Run name; the default output folder is ``runs/<name>``.
+    output_dir : Path
+        Absolute output folder (the ``-o`` option, else ``run.output_dir``, else
+        ``runs/<name>``; relative paths are relative to the current working directory).
+    netcdf : bool
+        Also write one CF NetCDF file of all variables.
+    maps : bool
+        Draw the map figures.
+    report : bool
+        Write the run report.
+    """
+
+    name: str
+    output_dir: Path
+    netcdf: bool = False
+    maps: bool = True
+    report: bool = True
+
+
+@dataclass(frozen=True, kw_only=True)
+class GridSpec:
+    """The ``[grid]`` table: the target grid, either like an input or by extent and resolution.
+
+    Parameters
+    ----------
+    like : str or None
+        Name of an input (with a ``path``) whose grid is the target grid.
+    extent : tuple of 4 float or None
+        ``(west, east, south, north)`` in the units of ``crs`` (degrees for EPSG:4326).
+    resolution : float or None
+        Cell size in the units of ``crs``.
+    crs : str or None
+        The target CRS (any string pyproj reads); ``"EPSG:4326"`` when ``extent`` is given
+        without it, None with ``like`` (the input's CRS is used).
+    """
+
+    like: str | None = None
+    extent: tuple[float, float, float, float] | None = None
+    resolution: float | None = None
+    crs: str | None = None
+
+
+@dataclass(frozen=True, kw_only=True)
+class PlumeSpec:
+    """One plume of ``[[inputs.thermal_anomaly.plumes]]``.
+
+    Parameters
+    ----------
+    longitude, latitude : float
+        Plume centre, degrees east and north (EPSG:4326 whatever the grid CRS).
+    radius_km : float
+        Plume radius r, km (> 0).
+    peak_excess_k : float
+        Excess temperature A at the centre, K.
+    shape : str
+        One of :data:`PLUME_SHAPES`, as defined by ``lidmelt.grids.anomaly.Plume`` at geodesic
+        distance d: ``"gaussian"`` A exp(-(d/r)^2), ``"cosine"`` A cos^2(pi d / 2r) for d < r,
+        ``"top-hat"`` A for d <= r.
+    name : str or None
+        An optional label.
+    """
+
+    longitude: float
+    latitude: float
+    radius_km: float
+    peak_excess_k: float
+    shape: str = "gaussian"
+    name: str | None = None
+
+    def plume_fields(self) -> dict[str, Any]:
+        """The keyword arguments of ``lidmelt.grids.anomaly.Plume`` (every field but the name).
+
+        The grid stage builds its plume with ``Plume(**spec.plume_fields())``.
+        """
+        return {f.name: getattr(self, f.name) for f in dataclasses.fields(self) if f.name != "name"}
+
+
+@dataclass(frozen=True, kw_only=True)
+class InputSpec:
+    """One ``[inputs.<name>]`` table.
+
+    Parameters
+    ----------
+    name : str
+        One of :data:`INPUT_NAMES`; values are in ``INPUT_UNITS[name]``.
+    path : Path or None
+        Absolute path of the grid file (GeoTIFF or NetCDF), resolved against the workflow
+        file's folder.
+    path_as_written : str or None
+        The path as written in the workflow (or by ``--set``).
+    variable : str or None
+        NetCDF variable name (None: the file's only data variable).
+    resampling : str
+        How the grid is resampled onto the target grid; one of :data:`RESAMPLING_METHODS`.
+    constant : float or None
+        A uniform value. For ``thermal_anomaly`` it is added to the grid and plumes
+        (default 0.0); for the other inputs it replaces the grid (give one or the other).
+    plumes : tuple of PlumeSpec
+        Plumes added to the thermal anomaly (``thermal_anomaly`` only).
+    """
+
+    name: str
+    path: Path | None = None
+    path_as_written: str | None = None
+    variable: str | None = None
+    resampling: str = "bilinear"
+    constant: float | None = None
+    plumes: tuple[PlumeSpec, ...] = ()
+
+    @property
+    def units(self) -> str:
+        """Unit of the values (``Ma``, ``km``, ``K`` or ``wt%``)."""
+        return INPUT_UNITS[self.name]
+
+
+@dataclass(frozen=True, kw_only=True)
+class Inputs:
+    """The ``[inputs]`` table. ``thermal_anomaly`` and ``water`` always exist (default: the
+    constant 0.0); at least one of ``plate_age`` and ``lid_thickness`` is given. Where both are
+    given, the lid grid is used where it has values and the age-derived lid elsewhere."""
+
+    plate_age: InputSpec | None
+    lid_thickness: InputSpec | None
+    thermal_anomaly: InputSpec
+    water: InputSpec
+
+    def __getitem__(self, name: str) -> InputSpec | None:
+        if name not in INPUT_NAMES:
+            raise KeyError(name)
+        return getattr(self, name)
+
+    def given(self) -> dict[str, InputSpec]:
+        """The inputs that are set, by name, in the order of :data:`INPUT_NAMES`."""
+        return {n: s for n in INPUT_NAMES if (s := getattr(self, n)) is not None}
+
+
+@dataclass(frozen=True, kw_only=True)
+class ModelOptions:
+    """The ``[model]`` table: the melting model and the mantle it melts.
+
+    Parameters
+    ----------
+    name : str
+        Melting model name (see ``lidmelt.physics.melting.get_model``).
+    ambient_potential_temperature_c : float
+        Ambient mantle potential temperature, degrees C (default 1350 °C, the present MORB
+        source of Herzberg, Condie & Korenaga 2010).
+    min_top_of_melting_km : float
+        Melting stops at the deeper of the lid base and this depth, km (default 7, the base of
+        normal oceanic crust, 7.1 ± 0.8 km in White, McKenzie & O'Nions 1992; from memory).
+    parameters : Parameters
+        Overrides of the model's named parameters.
+    """
+
+    name: str = "katz2003"
+    ambient_potential_temperature_c: float = 1350.0
+    min_top_of_melting_km: float = 7.0
+    parameters: Parameters = field(default_factory=Parameters)
+
+
+@dataclass(frozen=True, kw_only=True)
+class LithosphereOptions:
+    """The ``[lithosphere]`` table: the lid from plate age.
+
+    Parameters
+    ----------
+    cooling : str
+        Cooling model name (see ``lidmelt.physics.cooling.get_cooling_model``).
+    lid_isotherm_c : float
+        The lid base is the depth of this isotherm, degrees C (default 1100 °C, common
+        practice); it must lie below the cooling model's mantle temperature.
+    parameters : Parameters
+        Overrides of the cooling model's parameters.
+    """
+
+    cooling: str = "half-space"
+    lid_isotherm_c: float = 1100.0
+    parameters: Parameters = field(default_factory=Parameters)
+
+
+@dataclass(frozen=True, kw_only=True)
+class ComputeOptions:
+    """The ``[compute]`` table.
+
+    Parameters
+    ----------
+    chunk_size : int
+        Cells per chunk side (>= :data:`MIN_CHUNK_SIZE`; a multiple of the GeoTIFF writer's
+        512-cell tiles writes fastest).
+    workers : int
+        Threads (>= 1).
+    method : str
+        One of :data:`METHODS`: ``"table"`` (interpolate a precomputed lookup table) or
+        ``"direct"`` (integrate each column).
+    """
+
+    chunk_size: int = 1024
+    workers: int = 2
+    method: str = "table"
+
+
+@dataclass(frozen=True, kw_only=True)
+class OutputOptions:
+    """The ``[outputs]`` table: which variables to write (default all of OUTPUT_VARIABLES)."""
+
+    variables: tuple[str, ...] = OUTPUT_VARIABLES
+
+
+@dataclass(frozen=True, kw_only=True)
+class RunConfig:
+    """One validated run configuration, as read from a workflow file.
+
+    Parameters
+    ----------
+    workflow_path : Path
+        Absolute path of the workflow file.
+    text : str
+        The workflow file's text as read (before overrides).
+    overrides : tuple of str
+        The ``--set KEY=VALUE`` items applied, in order.
+    run, grid, inputs, model, lithosphere, compute, outputs
+        The validated tables.
+    """
+
+    workflow_path: Path
+    text: str
+    overrides: tuple[str, ...]
+    run: RunOptions
+    grid: GridSpec
+    inputs: Inputs
+    model: ModelOptions
+    lithosphere: LithosphereOptions
+    compute: ComputeOptions
+    outputs: OutputOptions
+
+    def to_dict(self) -> dict[str, Any]:
+        """A JSON-serialisable dict of the whole configuration, for provenance."""
+        return _jsonable(self)
+
+
+def _jsonable(obj: Any) -> Any:
+    """``obj`` with dataclasses and mappings as dicts, paths as strings, tuples as lists."""
+    if dataclasses.is_dataclass(obj) and not isinstance(obj, type):
+        return {f.name: _jsonable(getattr(obj, f.name)) for f in dataclasses.fields(obj)}
+    if isinstance(obj, Path):
+        return str(obj)
+    if isinstance(obj, Mapping):
+        return {str(k): _jsonable(v) for k, v in obj.items()}
+    if isinstance(obj, list | tuple):
+        return [_jsonable(v) for v in obj]
+    return obj

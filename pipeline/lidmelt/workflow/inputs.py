@@ -1,0 +1,192 @@
+"""Reading the ``[inputs]`` tables: grid files, constants and plumes.
+
+The units and accepted ranges of the constants are those of the variable registry
+(:mod:`lidmelt.variables`: ``valid_range`` and ``advice``), the same limits the engine applies to
+the grid values.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+from typing import Any
+
+from lidmelt import variables
+from lidmelt.config import (
+    INPUT_NAMES,
+    PLUME_SHAPES,
+    RESAMPLING_METHODS,
+    Inputs,
+    InputSpec,
+    PlumeSpec,
+)
+from lidmelt.errors import LidmeltError, WorkflowError
+from lidmelt.workflow.checks import Context, choice, in_range, string, table, wrong_type
+
+__all__ = ["WorkflowPlume", "read_inputs"]
+
+# Physical ranges of the plume fields: (low, high, unit, advice when outside); common practice.
+_PLUME_RANGES: dict[str, tuple[float, float, str, str]] = {
+    "longitude": (-360.0, 360.0, "degrees", "give degrees east, -180 to 180 or 0 to 360"),
+    "latitude": (
+        -90.0,
+        90.0,
+        "degrees",
+        "give degrees north, -90 to 90; were longitude and latitude swapped?",
+    ),
+    "radius_km": (0.0, 20000.0, "km", "give the plume radius in km, not m"),
+    "peak_excess_k": (
+        -1000.0,
+        1000.0,
+        "K",
+        "give the excess over ambient in K (plumes are typically 100-300 K, from memory)",
+    ),
+}
+
+
+class WorkflowPlume(PlumeSpec):
+    """A :class:`lidmelt.config.PlumeSpec` read from a workflow, which can build its plume.
+
+    The workflow checks each plume by building it; the configuration module itself does not
+    import the grid stage.
+    """
+
+    def as_plume(self) -> Any:
+        """This plume as a :class:`lidmelt.grids.anomaly.Plume` (without the name)."""
+        from lidmelt.grids.anomaly import Plume
+
+        return Plume(**self.plume_fields())
+
+
+def read_inputs(ctx: Context, values: dict[str, Any], base_dir: Path) -> Inputs:
+    """The ``[inputs]`` table; input paths are resolved against ``base_dir``."""
+    specs: dict[str, InputSpec | None] = dict.fromkeys(INPUT_NAMES)
+    for name in INPUT_NAMES:
+        if name in values:
+            sub = table(ctx, f"inputs.{name}", values[name])
+            specs[name] = _read_input(ctx, name, sub, base_dir)
+    if specs["plate_age"] is None and specs["lid_thickness"] is None:
+        msg = (
+            f"{ctx.where('inputs')} names neither 'plate_age' nor 'lid_thickness'; a run needs "
+            "one of them to place the lid. Add [inputs.plate_age] with the path of a plate age "
+            "grid (Ma), or [inputs.lid_thickness] with a lid thickness grid (km)."
+        )
+        raise WorkflowError(msg)
+    for name in ("thermal_anomaly", "water"):
+        if specs[name] is None:
+            specs[name] = InputSpec(name=name, constant=0.0)
+    return Inputs(**specs)  # type: ignore[arg-type]
+
+
+def _read_input(ctx: Context, name: str, values: dict[str, Any], base_dir: Path) -> InputSpec:
+    prefix = f"inputs.{name}"
+    var = variables.input_for_workflow_key(name)
+    unit = var.units
+    path, written, variable = _read_source(ctx, prefix, values, base_dir)
+    resampling = "bilinear"
+    if "resampling" in values:
+        resampling = choice(ctx, f"{prefix}.resampling", values["resampling"], RESAMPLING_METHODS)
+    constant = 0.0 if name == "thermal_anomaly" else None
+    if "constant" in values:
+        low, high = var.valid_range or (-float("inf"), float("inf"))
+        key = f"{prefix}.constant"
+        constant = in_range(ctx, key, values["constant"], low, high, unit, f"expected {var.advice}")
+        if path is not None and name != "thermal_anomaly":
+            msg = (
+                f"{ctx.where(prefix)} has both 'path' and 'constant'; expected one of them "
+                f"(a grid, or one value in {unit}). Remove one."
+            )
+            raise WorkflowError(msg)
+    plumes: tuple[PlumeSpec, ...] = ()
+    if "plumes" in values:
+        plumes = _read_plumes(ctx, f"{prefix}.plumes", values["plumes"])
+    if path is None and constant is None:
+        msg = (
+            f"{ctx.where(prefix)} gives neither 'path' nor 'constant'; expected a grid file "
+            f'(path = "grid.tif", values in {unit}) or one value (constant = ..., in {unit}).'
+        )
+        raise WorkflowError(msg)
+    return InputSpec(
+        name=name,
+        path=path,
+        path_as_written=written,
+        variable=variable,
+        resampling=resampling,
+        constant=constant,
+        plumes=plumes,
+    )
+
+
+def _read_source(
+    ctx: Context, prefix: str, values: dict[str, Any], base_dir: Path
+) -> tuple[Path | None, str | None, str | None]:
+    """The grid file of an input: (absolute path, path as written, NetCDF variable)."""
+    path = written = variable = None
+    if "path" in values:
+        written = string(ctx, f"{prefix}.path", values["path"], example="grids/my_grid.tif")
+        path = (base_dir / Path(written).expanduser()).resolve()
+        if not path.is_file():
+            state = "is a folder, not a file" if path.is_dir() else "does not exist"
+            msg = (
+                f"input file for {ctx.where(prefix + '.path')} {state}: written {written!r}, "
+                f"resolved to '{path}'. Input paths are relative to the workflow file's folder "
+                f"({base_dir}); fix the path or give an absolute one."
+            )
+            raise WorkflowError(msg)
+    if "variable" in values:
+        variable = string(ctx, f"{prefix}.variable", values["variable"], example="age")
+        if path is None:
+            msg = (
+                f"{ctx.where(prefix + '.variable')} is set but {prefix}.path is not; the "
+                "variable names a NetCDF variable of the grid file. Add the path or remove it."
+            )
+            raise WorkflowError(msg)
+        if path.suffix.lower() in (".tif", ".tiff"):
+            msg = (
+                f"{ctx.where(prefix + '.variable')} is {variable!r} but the file {written!r} is "
+                "a GeoTIFF, which has one band and no variables; remove 'variable' (it is for "
+                "NetCDF files only)."
+            )
+            raise WorkflowError(msg)
+    return path, written, variable
+
+
+def _read_plumes(ctx: Context, key: str, value: Any) -> tuple[PlumeSpec, ...]:
+    if not isinstance(value, list):
+        raise wrong_type(
+            ctx, key, value, "an array of tables", f"[[{key}]] above each plume's keys"
+        )
+    return tuple(_read_plume(ctx, key, i, item) for i, item in enumerate(value, start=1))
+
+
+def _read_plume(ctx: Context, key: str, i: int, item: Any) -> PlumeSpec:
+    pkey = f"{key}.{i}"
+    if not isinstance(item, dict):
+        raise wrong_type(ctx, pkey, item, "a table of plume fields", f"[[{key}]]")
+    for required in _PLUME_RANGES:
+        if required not in item:
+            msg = (
+                f"{ctx.where(pkey)} (plume {i}) lacks '{required}'; every plume needs "
+                "longitude and latitude (degrees), radius_km (km) and peak_excess_k (K)."
+            )
+            raise WorkflowError(msg)
+    fields = {
+        name: in_range(ctx, f"{pkey}.{name}", item[name], *bounds)
+        for name, bounds in _PLUME_RANGES.items()
+    }
+    if not fields["radius_km"] > 0:
+        msg = (
+            f"{ctx.where(pkey + '.radius_km')} is {fields['radius_km']:g} km; expected a "
+            "radius > 0 km (plume heads are typically a few hundred km across)."
+        )
+        raise WorkflowError(msg)
+    if "shape" in item:
+        fields["shape"] = choice(ctx, f"{pkey}.shape", item["shape"], PLUME_SHAPES)
+    if "name" in item:
+        fields["name"] = string(ctx, f"{pkey}.name", item["name"], example="plume A")
+    spec = WorkflowPlume(**fields)
+    try:
+        spec.as_plume()  # the anomaly builder's own checks
+    except LidmeltError as exc:
+        msg = f"{ctx.where(pkey)} (plume {i}) is not valid: {exc}"
+        raise WorkflowError(msg) from exc
+    return spec

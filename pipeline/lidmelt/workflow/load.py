@@ -1,0 +1,143 @@
+"""Reading a workflow file: TOML, ``--set`` overrides, validation, model checks."""
+
+from __future__ import annotations
+
+import tomllib
+from collections.abc import Sequence
+from pathlib import Path
+from typing import Any
+
+from lidmelt.config import RunConfig
+from lidmelt.errors import LidmeltError, WorkflowError
+from lidmelt.workflow.checks import Context
+from lidmelt.workflow.overrides import apply_override
+from lidmelt.workflow.tables import read_config
+
+__all__ = ["load_workflow", "validate_models"]
+
+
+def load_workflow(
+    path: str | Path,
+    *,
+    overrides: Sequence[str] = (),
+    output_dir: str | Path | None = None,
+) -> RunConfig:
+    """Read, override and validate a workflow file.
+
+    Parameters
+    ----------
+    path : str or Path
+        The workflow file (TOML). Input paths in it are relative to its folder.
+    overrides : sequence of str
+        ``KEY=VALUE`` items (the ``--set`` options), applied in order before validation.
+        KEY is a dotted key into the TOML tree (``model.parameters.cpx_mass_fraction``; array
+        items are counted from 1: ``inputs.thermal_anomaly.plumes.1.radius_km``). VALUE is
+        read as a TOML value (``1400``, ``0.01``, ``true``, ``"gdh1"``, ``[1, 2]``) and taken
+        as a plain string if it is not one.
+    output_dir : str or Path, optional
+        The ``-o`` option: the output folder, overriding ``run.output_dir``; relative to the
+        current working directory.
+
+    Returns
+    -------
+    RunConfig
+        The validated configuration with absolute paths.
+
+    Raises
+    ------
+    WorkflowError
+        If the file cannot be read or parsed, has an unknown key, a value of the wrong type or
+        out of range, misses a required input or grid, names an input file that does not exist,
+        or names an unknown model or model parameter.
+    """
+    given = Path(path)
+    workflow_path = given.expanduser().resolve()
+    source = str(given)
+    if not workflow_path.is_file():
+        state = "is a folder" if workflow_path.is_dir() else "does not exist"
+        msg = (
+            f"workflow file {source!r} {state} (resolved to '{workflow_path}'); expected a TOML "
+            "workflow file. Copy workflows/template.toml to start one."
+        )
+        raise WorkflowError(msg)
+    try:
+        text = workflow_path.read_text(encoding="utf-8")
+    except (OSError, UnicodeDecodeError) as exc:
+        msg = f"workflow file {source!r} cannot be read as UTF-8 text ({exc}); save it as UTF-8."
+        raise WorkflowError(msg) from exc
+    try:
+        tree = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        msg = (
+            f"workflow file {source!r} is not valid TOML: {exc}. Check that line (strings need "
+            'quotes: name = "demo"; tables are written [model]; see docs/workflow.md).'
+        )
+        raise WorkflowError(msg) from exc
+    ctx = Context(source, {})
+    items = tuple(overrides)
+    for item in items:
+        apply_override(ctx, tree, item)
+    cfg = read_config(
+        ctx, tree, workflow_path=workflow_path, text=text, overrides=items, output_dir=output_dir
+    )
+    validate_models(cfg)
+    return cfg
+
+
+def validate_models(cfg: RunConfig) -> None:
+    """Check the melting and cooling models, their parameter overrides and the lid isotherm.
+
+    Calls ``lidmelt.physics.melting.get_model(name, **parameters)``,
+    ``lidmelt.physics.cooling.get_cooling_model(name, **parameters)`` and
+    ``lidmelt.physics.cooling.isotherm_depth_km`` (which checks that the lid isotherm lies below
+    the cooling model's mantle temperature). They raise :class:`lidmelt.errors.ModelError` for
+    an unknown model or parameter or a bad value; that error is re-raised as a WorkflowError
+    that names the file and the key.
+
+    Parameters
+    ----------
+    cfg : RunConfig
+        The configuration to check.
+
+    Raises
+    ------
+    WorkflowError
+        If a model, one of its parameters or the lid isotherm is not valid.
+    """
+    from lidmelt.physics.cooling import get_cooling_model, isotherm_depth_km
+    from lidmelt.physics.melting import get_model
+
+    model, litho = cfg.model, cfg.lithosphere
+    checks: list[tuple[str, Any, Any]] = [  # (key, value, the call that checks it)
+        ("model.name", model.name, lambda: get_model(model.name)),
+        (
+            "model.parameters",
+            dict(model.parameters),
+            lambda: get_model(model.name, **model.parameters),
+        ),
+        ("lithosphere.cooling", litho.cooling, lambda: get_cooling_model(litho.cooling)),
+        (
+            "lithosphere.parameters",
+            dict(litho.parameters),
+            lambda: get_cooling_model(litho.cooling, **litho.parameters),
+        ),
+        (
+            "lithosphere.lid_isotherm_c",
+            litho.lid_isotherm_c,
+            lambda: isotherm_depth_km(
+                litho.lid_isotherm_c,
+                0.0,
+                model=get_cooling_model(litho.cooling, **litho.parameters),
+            ),
+        ),
+    ]
+    for key, value, check in checks:
+        try:
+            check()
+        except LidmeltError as exc:
+            sets = [
+                item for item in cfg.overrides if item.partition("=")[0].strip().startswith(key)
+            ]
+            origin = f" (with --set {', '.join(sets)})" if sets else ""
+            msg = f"'{key}' = {value!r} in {cfg.workflow_path.name}{origin} is not valid: {exc}"
+            raise WorkflowError(msg) from exc
