@@ -273,7 +273,7 @@ def test_cli_run_and_bad_inputs(tmp_path, capsys):
     # a lid grid in metres: 90000 is far above the registry's 400 km; the advice says what to do
     fails(
         [str(with_lid_grid(tmp_path / "metres", np.full((40, 60), 9.0e4)))],
-        "metres divides by 1000",
+        "metres: divide by 1000",
     )
 
 

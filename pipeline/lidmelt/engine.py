@@ -30,7 +30,7 @@ import xarray as xr
 from lidmelt.errors import InputError
 from lidmelt.grids import rundir
 from lidmelt.grids.align import TargetGrid, align
-from lidmelt.grids.anomaly import plume_anomaly
+from lidmelt.grids.anomaly import Plume, plume_anomaly
 from lidmelt.grids.area import cell_area_km2
 from lidmelt.grids.io import open_grid, sha256_file
 from lidmelt.grids.store import GeoTiffItem, GeoTiffSet
@@ -207,7 +207,7 @@ def _load_input(
 
 def _add_plumes(inp, background, prov: dict, target: TargetGrid, chunks: int) -> xr.DataArray:
     """The thermal anomaly: the workflow's plumes on ``background`` (recorded in ``prov``)."""
-    plumes = [p.as_plume() for p in inp.plumes]
+    plumes = [Plume(**p.plume_fields()) for p in inp.plumes]
     keys = ("name", "longitude", "latitude", "radius_km", "peak_excess_k", "shape")
     prov["plumes"] = [{k: getattr(p, k) for k in keys} for p in inp.plumes]
     return plume_anomaly(target, plumes, background=background, chunks=chunks)

@@ -131,8 +131,8 @@ _INPUT_LIST = (
         workflow_key="plate_age",
         valid_range=(0.0, 400.0),
         advice=(
-            "Ma; the oldest ocean floor is about 200 Ma (from memory). A grid in years divides "
-            "by 1e6, in seconds by 3.15576e13"
+            "Ma; the oldest ocean floor is about 200 Ma (from memory). Values in years: divide "
+            "by 1e6; in seconds: divide by 3.15576e13"
         ),
     ),
     Variable(
@@ -143,7 +143,7 @@ _INPUT_LIST = (
         style="depth",
         workflow_key="lid_thickness",
         valid_range=(0.0, 400.0),
-        advice="km below the seafloor. A grid in metres divides by 1000",
+        advice="km below the seafloor. Values in metres: divide by 1000",
     ),
     Variable(
         name="thermal_anomaly_k",
@@ -169,7 +169,7 @@ _INPUT_LIST = (
         valid_range=(0.0, 5.0),
         advice=(
             "wt% of the bulk source (MORB sources hold about 0.01 wt% = 100 ppm, from memory). "
-            "A grid in ppm divides by 10000"
+            "Values in ppm: divide by 10000"
         ),
     ),
 )

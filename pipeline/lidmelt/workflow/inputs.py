@@ -20,9 +20,10 @@ from lidmelt.config import (
     PlumeSpec,
 )
 from lidmelt.errors import LidmeltError, WorkflowError
+from lidmelt.grids.anomaly import Plume
 from lidmelt.workflow.checks import Context, choice, in_range, string, table, wrong_type
 
-__all__ = ["WorkflowPlume", "read_inputs"]
+__all__ = ["read_inputs"]
 
 # Physical ranges of the plume fields: (low, high, unit, advice when outside); common practice.
 _PLUME_RANGES: dict[str, tuple[float, float, str, str]] = {
@@ -41,20 +42,6 @@ _PLUME_RANGES: dict[str, tuple[float, float, str, str]] = {
         "give the excess over ambient in K (plumes are typically 100-300 K, from memory)",
     ),
 }
-
-
-class WorkflowPlume(PlumeSpec):
-    """A :class:`lidmelt.config.PlumeSpec` read from a workflow, which can build its plume.
-
-    The workflow checks each plume by building it; the configuration module itself does not
-    import the grid stage.
-    """
-
-    def as_plume(self) -> Any:
-        """This plume as a :class:`lidmelt.grids.anomaly.Plume` (without the name)."""
-        from lidmelt.grids.anomaly import Plume
-
-        return Plume(**self.plume_fields())
 
 
 def read_inputs(ctx: Context, values: dict[str, Any], base_dir: Path) -> Inputs:
@@ -183,9 +170,9 @@ def _read_plume(ctx: Context, key: str, i: int, item: Any) -> PlumeSpec:
         fields["shape"] = choice(ctx, f"{pkey}.shape", item["shape"], PLUME_SHAPES)
     if "name" in item:
         fields["name"] = string(ctx, f"{pkey}.name", item["name"], example="plume A")
-    spec = WorkflowPlume(**fields)
+    spec = PlumeSpec(**fields)
     try:
-        spec.as_plume()  # the anomaly builder's own checks
+        Plume(**spec.plume_fields())  # the anomaly builder's own checks
     except LidmeltError as exc:
         msg = f"{ctx.where(pkey)} (plume {i}) is not valid: {exc}"
         raise WorkflowError(msg) from exc
