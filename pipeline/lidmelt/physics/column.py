@@ -225,6 +225,14 @@ def _step(model, p0, t0_k, f0, p1, water):
     return t1, f
 
 
+_NODE_KEYS = (
+    "node_melt_thickness_km",
+    "node_melt_fraction",
+    "node_int_p_df_gpa",
+    "node_temperature_c",
+)
+
+
 def integrate_columns(
     model,
     potential_temperature_c,
@@ -260,52 +268,19 @@ def integrate_columns(
             *(np.asarray(v, float) for v in (potential_temperature_c, water_wt_pct, p_onset, p_top))
         )
     )
-    km_per_gpa = float(model.depth_km(1.0))
     melts = np.isfinite(p_on) & (p_on > p_top)
-    p = np.where(melts, p_on, p_top)
-    t_k = model.solid_adiabat_c(tp, p) + 273.15
+    t_k = model.solid_adiabat_c(tp, np.where(melts, p_on, p_top)) + 273.15
     f = np.zeros(tp.shape)
     h_km = np.zeros(tp.shape)
     g = np.zeros(tp.shape)
     rec = None
     if record_nodes is not None:
-        rec = {
-            k: np.zeros((tp.size, record_nodes))
-            for k in (
-                "node_melt_thickness_km",
-                "node_melt_fraction",
-                "node_int_p_df_gpa",
-                "node_temperature_c",
-            )
-        }
+        rec = {k: np.zeros((tp.size, record_nodes)) for k in _NODE_KEYS}
     if melts.any():
         idx = np.flatnonzero(melts)
-        # the first node strictly shallower than the onset
-        first = np.ceil(p_on[idx] / step_gpa - 1.0 - 1e-9)
-        nsteps = int(np.max(first - np.floor(p_top[idx] / step_gpa)) + 2)
-        pc, tc, fc, hc, gc = p[idx], t_k[idx], f[idx], h_km[idx], g[idx]
-        tpc, wc, topc = tp[idx], water[idx], p_top[idx]
-        for k in range(nsteps):
-            node = (first - k) * step_gpa
-            p_next = np.maximum(node, topc)
-            active = pc > topc
-            if not active.any():
-                break
-            sub = np.flatnonzero(active)
-            t1, f1 = _step(model, pc[sub], tc[sub], fc[sub], p_next[sub], wc[sub])
-            hc[sub] += 0.5 * (fc[sub] + f1) * (pc[sub] - p_next[sub]) * km_per_gpa
-            gc[sub] += 0.5 * (pc[sub] + p_next[sub]) * (f1 - fc[sub])
-            pc[sub], tc[sub], fc[sub] = p_next[sub], t1, f1
-            if rec is not None:
-                j = np.rint(p_next[sub] / step_gpa).astype(int)
-                on_node = (np.abs(p_next[sub] - j * step_gpa) < 1e-9) & (j < record_nodes)
-                rows, cols = idx[sub[on_node]], j[on_node]
-                rec["node_melt_thickness_km"][rows, cols] = hc[sub[on_node]]
-                rec["node_melt_fraction"][rows, cols] = fc[sub[on_node]]
-                rec["node_int_p_df_gpa"][rows, cols] = gc[sub[on_node]]
-                rec["node_temperature_c"][rows, cols] = tc[sub[on_node]] - 273.15
-        del tpc
-        p[idx], t_k[idx], f[idx], h_km[idx], g[idx] = pc, tc, fc, hc, gc
+        t_k[idx], f[idx], h_km[idx], g[idx] = _march(
+            model, p_on[idx], p_top[idx], water[idx], t_k[idx], step_gpa, rows=idx, rec=rec
+        )
     out = {
         "melt_thickness_km": h_km,
         "max_melt_fraction": f,
@@ -315,6 +290,43 @@ def integrate_columns(
     if rec is not None:
         out.update(rec)
     return out
+
+
+def _march(model, p_on, p_top, water, t_k, step_gpa, *, rows, rec):
+    """Step melting columns (1-D, ``p_on > p_top``) from the onset temperature ``t_k`` to the top.
+
+    Returns (T [K], F, H [km], integral of P dF [GPa]) at ``p_top``. With ``rec``, the state at
+    every pressure node is written into it at the global ``rows`` (see :func:`_record_nodes`).
+    """
+    km_per_gpa = float(model.depth_km(1.0))
+    # the first node strictly shallower than the onset
+    first = np.ceil(p_on / step_gpa - 1.0 - 1e-9)
+    nsteps = int(np.max(first - np.floor(p_top / step_gpa)) + 2)
+    p, t_k = p_on.copy(), t_k.copy()
+    f, h_km, g = np.zeros(p.shape), np.zeros(p.shape), np.zeros(p.shape)
+    for k in range(nsteps):
+        p_next = np.maximum((first - k) * step_gpa, p_top)
+        sub = np.flatnonzero(p > p_top)
+        if sub.size == 0:
+            break
+        t1, f1 = _step(model, p[sub], t_k[sub], f[sub], p_next[sub], water[sub])
+        h_km[sub] += 0.5 * (f[sub] + f1) * (p[sub] - p_next[sub]) * km_per_gpa
+        g[sub] += 0.5 * (p[sub] + p_next[sub]) * (f1 - f[sub])
+        p[sub], t_k[sub], f[sub] = p_next[sub], t1, f1
+        if rec is not None:
+            _record_nodes(rec, rows[sub], p[sub], h_km[sub], f[sub], g[sub], t_k[sub], step_gpa)
+    return t_k, f, h_km, g
+
+
+def _record_nodes(rec, rows, p, h_km, f, g, t_k, step_gpa):
+    """Store the state of the columns ``rows`` whose pressure ``p`` lies on a recorded node."""
+    j = np.rint(p / step_gpa).astype(int)
+    on_node = (np.abs(p - j * step_gpa) < 1e-9) & (j < rec["node_melt_fraction"].shape[1])
+    rows, cols = rows[on_node], j[on_node]
+    rec["node_melt_thickness_km"][rows, cols] = h_km[on_node]
+    rec["node_melt_fraction"][rows, cols] = f[on_node]
+    rec["node_int_p_df_gpa"][rows, cols] = g[on_node]
+    rec["node_temperature_c"][rows, cols] = t_k[on_node] - 273.15
 
 
 # ------------------------------------------------------------------------------------------------
