@@ -425,7 +425,7 @@ def test_parameters_dict_for_provenance():
     assert set(params) == {
         f.name
         for f in dataclasses.fields(CoolingModel)
-        if f.name not in ("name", "kind", "reference")
+        if f.name not in ("name", "kind", "reference", "sources")
     }
     assert HALF_SPACE.parameters()["plate_thickness_km"] is None
     json.dumps(params)  # plain numbers, serializable
@@ -525,3 +525,17 @@ def test_cooling_imports_only_numpy_scipy_and_stdlib():
     allowed |= {"typing", "numpy", "scipy", "lidmelt"}
     assert roots <= allowed, roots - allowed
     assert "from lidmelt.errors import" in Path(cooling.__file__).read_text(encoding="utf-8")
+
+
+def test_every_parameter_names_its_source_and_overrides_are_marked():
+    # Each named model cites a source for every numeric parameter (the provenance contract of
+    # the melting models); an override is marked "user override", the named instance untouched.
+    for model in ALL_MODELS:
+        assert set(model.sources) == set(model.parameters()), model.name
+        assert all(model.sources.values()), model.name
+    variant = get_cooling_model("gdh1", plate_thickness_km=100.0)
+    assert variant.sources["plate_thickness_km"] == "user override"
+    assert variant.sources["mantle_temperature_c"] == GDH1.sources["mantle_temperature_c"]
+    assert "verified" in GDH1.sources["plate_thickness_km"]
+    assert GDH1.sources["plate_thickness_km"] != "user override"
+    assert get_cooling_model(GDH1) is GDH1  # a model object is used as it is
