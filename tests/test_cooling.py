@@ -45,7 +45,8 @@ def sqrt_kappa_t_km(model, age_ma):
 
 def fourier_reference(model, depth_km, age_ma, terms=3000):
     """The plate series (Parsons & Sclater 1977, from memory) summed naively with many terms
-    (independent of the module's two-form evaluation). Returns (T in deg C, depth in m, heat flow in mW/m^2)."""
+    (independent of the module's two-form evaluation). Returns (T in deg C, depth in m, heat flow
+    in mW/m^2)."""
     z = np.asarray(depth_km, float)[:, None]
     t = np.asarray(age_ma, float)[None, :]
     a = model.plate_thickness_km
