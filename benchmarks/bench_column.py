@@ -45,12 +45,14 @@ def main() -> None:
     rates = {}
     chunk = 1 << 20  # the cells of one 1024 x 1024 chunk of a basin run
     for water in (0.0, 0.01):
-        table.melt_column(tp[:chunk], lid[:chunk], water)  # warm the water slice
+        melt_column(tp[:chunk], lid[:chunk], water, table=table)  # warm the water slice
         best = np.inf
         for _ in range(3):
             t = time.perf_counter()
             for start in range(0, args.cells, chunk):
-                table.melt_column(tp[start : start + chunk], lid[start : start + chunk], water)
+                melt_column(
+                    tp[start : start + chunk], lid[start : start + chunk], water, table=table
+                )
             best = min(best, time.perf_counter() - t)
         rates[f"table, water {water}"] = args.cells / best
 

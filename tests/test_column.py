@@ -42,19 +42,21 @@ def test_ridge_at_ambient_makes_normal_oceanic_crust():
 
 
 def test_solid_isentrope_gradient():
-    # PHYSICS.md 1.4 [derived]: alpha_s T / (rho_s c_p) = 19.7 K/GPa ~ 0.64 K/km at Tp 1350 C
+    # derived from the solid isentrope (docs/physics.md, Katz et al. 2003 constants): alpha_s T /
+    # (rho_s c_p) = 19.7 K/GPa ~ 0.64 K/km at Tp 1350 C
     t0 = K.solid_adiabat_c(1350.0, 0.0)
     gradient = (K.solid_adiabat_c(1350.0, 1e-4) - t0) / 1e-4
     npt.assert_allclose(t0, 1350.0)
     npt.assert_allclose(gradient, 19.7, atol=0.05)
     npt.assert_allclose(gradient / float(K.depth_km(1.0)), 0.64, atol=0.005)
-    # 1 GPa = 30.89 km with rho 3300 kg/m3 and g 9.81 m/s2 (PHYSICS.md 5, derived)
+    # 1 GPa = 30.89 km with rho 3300 kg/m3 and g 9.81 m/s2 (derived: P = rho g z)
     npt.assert_allclose(K.depth_km(1.0), 30.89, atol=0.005)
 
 
 @pytest.mark.parametrize("water", [0.0, 0.02])
 def test_entropy_is_conserved_along_the_column(water):
-    # identity (PHYSICS.md 1.4): s = c_p ln T - int abar dP + dS F is constant on the isentrope
+    # identity (Katz et al. 2003, eq. 20, from memory): s = c_p ln T - int abar dP + dS F is
+    # constant on the isentrope
     prof = column_profile(1500.0, 20.0, water, step_gpa=0.005)
     p = prof["pressure_gpa"] * GPA
     t = prof["temperature_c"] + 273.15
@@ -138,7 +140,8 @@ def test_old_thick_lid_ambient_versus_plume():
 
 
 def test_water_moves_the_onset_more_than_the_melt():
-    # PHYSICS.md trap 15: 100 ppm moves the onset deeper by more than 10 km, but adds under 1 km
+    # derived (Katz et al. 2003 hydrous law, Table 2 constants): 100 ppm moves the onset deeper by
+    # more than 10 km, but adds under 1 km
     # of melt at ambient Tp (ridge, dry vs 0.01 wt%)
     dry, wet = direct(1350.0, 0.0, 0.0), direct(1350.0, 0.0, 0.01)
     assert float(wet.onset_depth_km - dry.onset_depth_km) > 10.0
@@ -147,7 +150,7 @@ def test_water_moves_the_onset_more_than_the_melt():
 
 def test_outputs_definitions():
     res = direct(np.array([1350.0, 1550.0]), np.array([30.0, 3.0]))
-    # top of melting = max(lid, 7 km) (PHYSICS.md 8)
+    # top of melting = max(lid, 7 km) (lidmelt definition, docs/physics.md)
     npt.assert_allclose(res.lid_depth_km, [30.0, 7.0])
     # onset pressure and depth agree through P = rho g z
     npt.assert_allclose(res.onset_depth_km, K.depth_km(res.onset_pressure_gpa))
@@ -159,7 +162,8 @@ def test_outputs_definitions():
 
 
 def test_zero_melt_keeps_the_onset():
-    # PHYSICS.md trap 20: the onset is reported, H = 0, mean pressure NaN
+    # lidmelt definition (docs/physics.md, melt thickness): the onset is reported, H = 0, mean
+    # pressure NaN
     res = direct(1350.0, 120.0)
     assert float(res.melt_thickness_km) == 0.0
     assert float(res.max_melt_fraction) == 0.0
@@ -168,7 +172,8 @@ def test_zero_melt_keeps_the_onset():
 
 
 def test_onset_is_the_shallowest_crossing():
-    # PHYSICS.md trap 7: the isentrope must equal the solidus at the onset, and be hotter above it
+    # definition of the onset (docs/physics.md): the isentrope must equal the solidus at the onset,
+    # and be hotter above it
     for tp, w in ((1350.0, 0.0), (1600.0, 0.0), (1400.0, 0.03)):
         p0 = float(onset_pressure_gpa(K, tp, w))
         npt.assert_allclose(K.solid_adiabat_c(tp, p0), K.solidus_c(p0, w), atol=1e-6)
@@ -190,7 +195,8 @@ def test_invalid_inputs_are_nan_and_flagged():
     water = np.array([0.0, 0.0, 0.0, -0.01, 0.0, 0.5])
     res = direct(tp, lid, water)
     assert np.all(res.flag[:5] & FLAG_INVALID_INPUT)
-    # 0.5 wt% exceeds what the solid holds, D X_sat (PHYSICS.md 1.3, derived): the solidus is
+    # 0.5 wt% exceeds what the solid holds, D X_sat (derived from Katz et al. 2003 eq. 17 and Table
+    # 2): the solidus is
     # then depressed so far that no onset exists, or the source is saturated at it
     assert res.flag[5] & (FLAG_WATER_SATURATED | FLAG_NO_ONSET)
     for name in ("melt_thickness_km", "onset_depth_km", "max_melt_fraction"):
@@ -198,7 +204,8 @@ def test_invalid_inputs_are_nan_and_flagged():
 
 
 def test_beyond_calibration_is_flagged_not_clipped():
-    # PHYSICS.md trap 7: onsets deeper than about 7 GPa are extrapolation; Tp 1700 C dry has no
+    # derived (docs/physics.md, where the onset is searched): onsets deeper than about 7 GPa are
+    # extrapolation; Tp 1700 C dry has no
     # crossing above the turnover of the solidus quadratic (13.03 GPa)
     res = direct(np.array([1640.0, 1700.0]), 0.0)
     assert res.flag[0] == FLAG_BEYOND_CALIBRATION

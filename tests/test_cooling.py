@@ -1,8 +1,8 @@
 """Tests for lidmelt.physics.cooling: half-space and plate cooling models.
 
-Every check value names its source beside it. "PHYSICS.md" is /work/shared/PHYSICS.md, the
-project's collection of published equations and constants, whose marks ([verified],
-[from memory], [derived]) are repeated here.
+Every check value names its source beside it, with a mark: [verified] (read in the source),
+[verified (secondary)] (read in a later text that quotes it), [from memory] (not checked against
+a text) or [derived] (follows by algebra; docs/physics.md, section "Lithosphere from plate age").
 """
 
 from __future__ import annotations
@@ -44,8 +44,9 @@ def sqrt_kappa_t_km(model, age_ma):
 
 
 def fourier_reference(model, depth_km, age_ma, terms=3000):
-    """The plate series of PHYSICS.md 3.2 summed naively with many terms (independent of the
-    module's two-form evaluation). Returns (T in deg C, depth in m, heat flow in mW/m^2)."""
+    """The plate series (Parsons & Sclater 1977, from memory) summed naively with many terms
+    (independent of the module's two-form evaluation). Returns (T in deg C, depth in m, heat flow
+    in mW/m^2)."""
     z = np.asarray(depth_km, float)[:, None]
     t = np.asarray(age_ma, float)[None, :]
     a = model.plate_thickness_km
@@ -92,7 +93,8 @@ def test_half_space_thermal_thickness_is_2_32_sqrt_kappa_t(age_ma):
 
 
 def test_half_space_worked_numbers():
-    # PHYSICS.md 3.1 worked numbers [derived] for kappa = 1e-6, dT = 1300 K, alpha = 3e-5,
+    # Turcotte & Schubert 2002 formulas, worked numbers [derived] for kappa = 1e-6, dT = 1300 K,
+    # alpha = 3e-5,
     # rho_m = 3300, rho_w = 1000, k = 3.3: z_L = 41, 92, 117 km at 10, 50, 80 Ma (to the nearest
     # km); w - d_r = 0.355 km sqrt(t); q = 136 and 43 mW/m^2 at 10 and 100 Ma. (Its "130 km at
     # 100 Ma" and "13.0 km sqrt(t)" use the rounded 2.32 of Turcotte & Schubert: 2.3262 gives
@@ -129,7 +131,7 @@ def test_half_space_heat_flow_closed_form_and_fouriers_law(model):
     npt.assert_allclose(q, 1e3 * model.conductivity_w_m_k * grad, rtol=1e-5)
 
 
-# Stein & Stein (1992) GDH1 closed-form fits, PHYSICS.md 3.3: depth 2600 + 365 sqrt(t) for
+# Stein & Stein (1992) GDH1 closed-form fits: depth 2600 + 365 sqrt(t) for
 # t < 20 Ma [from memory] and 5651 - 2473 exp(-0.0278 t) for t >= 20 Ma [verified (secondary):
 # Fowler eq. 7.57b]; heat flow 510 / sqrt(t) for t <= 55 Ma [verified (secondary): Fowler
 # eq. 7.58a] and 48 + 96 exp(-0.0278 t) for t > 55 Ma [from memory].
@@ -155,7 +157,7 @@ def test_gdh1_heat_flow_matches_stein_stein_fits():
 
 
 def test_gdh1_limits_match_fit_coefficients():
-    # PHYSICS.md 3.3 [derived]: the GDH1 fits' coefficients follow from the parameters:
+    # [derived] (docs/physics.md, GDH1): the GDH1 fits' coefficients follow from the parameters:
     # asymptotic depth 2600 + 3051 = 5651 m and heat flow k Tm / a = 47.9 mW/m^2 (fit: 48).
     # The fits are quoted to 4 and 2 significant figures, so the tolerances are 1 m and 0.1.
     npt.assert_allclose(seafloor_depth_m(3000.0, model=GDH1), 5651.0, atol=1.0)
@@ -163,7 +165,7 @@ def test_gdh1_limits_match_fit_coefficients():
 
 
 def test_ps77_seafloor_depth_matches_parsons_sclater_fits():
-    # Parsons & Sclater (1977) abstract [verified, PHYSICS.md 3.4]: d = 2500 + 350 sqrt(t) m for
+    # Parsons & Sclater (1977) abstract [verified]: d = 2500 + 350 sqrt(t) m for
     # 0-70 Ma and d = 6400 - 3200 exp(-t/62.8) m for t > 20 Ma (data to 160 Ma). The paper gives
     # no numeric misfit. Its two fits disagree with each other by up to 78 m (1.46 %) where both
     # apply (20-70 Ma; computed below from the fits themselves), so no single curve can match
@@ -183,7 +185,7 @@ def test_ps77_seafloor_depth_matches_parsons_sclater_fits():
 
 
 def test_ps77_heat_flow_matches_parsons_sclater_fit():
-    # Parsons & Sclater (1977) abstract [verified, PHYSICS.md 3.4]: "within the scatter of the
+    # Parsons & Sclater (1977) abstract [verified]: "within the scatter of the
     # data, from 0 to 120 m.y." q = 11.3 t^-1/2 ucal cm^-2 s^-1; 1 ucal cm^-2 s^-1 = 41.868
     # mW/m^2 (definition of the thermochemical calorie). No numeric misfit is stated; we use the
     # same 2 % as for depth (the plate departs from t^-1/2 by about 1 % at 120 Ma, as the
@@ -193,7 +195,8 @@ def test_ps77_heat_flow_matches_parsons_sclater_fit():
 
 
 def test_lid_isotherm_depends_on_model_trap_12():
-    # PHYSICS.md trap 12 [derived], quoted in whole km: at 100 Ma the 1100 C isotherm is at
+    # [derived] (docs/physics.md, lithosphere from plate age), quoted in whole km: at 100 Ma the
+    # 1100 C isotherm is at
     # 69 km in the GDH1 plate, 84 km in a half-space with GDH1 constants, and 113 km in a
     # half-space with Tm = 1300 C and kappa = 1e-6 m^2/s. The middle figure is 83.5 km
     # rounded up (2 sqrt(kappa t) erfinv(1100/1450) = 2 x 50.39 km x 0.8284), so the
@@ -217,7 +220,8 @@ def test_lid_isotherm_depends_on_model_trap_12():
 
 @pytest.mark.parametrize("model", PLATES, ids=lambda m: m.name)
 def test_plate_matches_fourier_series_at_all_ages(model):
-    # Analytic series of PHYSICS.md 3.2 with 3000 terms (converged for t >= 0.05 Ma, where the
+    # Analytic series (Parsons & Sclater 1977, from memory) with 3000 terms (converged for t >= 0.05
+    # Ma, where the
     # terms fall below 1e-16 by n ~ 200). This checks the module's small-age image form, its
     # switch to the Fourier form, and the old-age limit.
     ages = np.concatenate([np.geomspace(0.05, 400.0, 60), [30.0, 35.0, 36.0, 60.0, 62.0, 64.0]])
@@ -233,7 +237,7 @@ def test_plate_matches_fourier_series_at_all_ages(model):
 def test_plate_equals_half_space_at_small_ages(model):
     # Method of images (Carslaw & Jaeger 1959, section 3.3): the plate differs from the
     # half-space with the same constants by at most (Tm - T0) erfc((2a - z) / (2 sqrt(kappa t)))
-    # above the base; PHYSICS.md trap 13 says they are identical for t <~ 20 Ma.
+    # above the base, so they are identical for t <~ 20 Ma [derived].
     same = dataclasses.replace(model, name="hs", kind="half-space", plate_thickness_km=None)
     ages = np.array([0.01, 0.5, 2.0, 5.0, 10.0, 20.0])
     depths = np.linspace(0.0, model.plate_thickness_km, 20)[:, None]
@@ -250,7 +254,8 @@ def test_plate_equals_half_space_at_small_ages(model):
 def test_plate_limits_ridge_and_old_age(model):
     depths = np.array([0.0, 1.0, 30.0, model.plate_thickness_km, 300.0])
     tm, t0 = model.mantle_temperature_c, model.surface_temperature_c
-    # Initial condition of the plate model (PHYSICS.md 3.2): T = Tm at t = 0 below the surface,
+    # Initial condition of the plate model (Parsons & Sclater 1977, from memory): T = Tm at t = 0
+    # below the surface,
     # T0 at the surface (boundary condition).
     npt.assert_array_equal(temperature_c(depths, 0.0, model=model), [t0, tm, tm, tm, tm])
     # Steady state (analytic, t -> inf): the linear geotherm T0 + (Tm - T0) z / a, Tm below a.
@@ -282,7 +287,8 @@ def test_plate_geotherm_increases_with_depth(model):
 @pytest.mark.parametrize("model", PLATES, ids=lambda m: m.name)
 @pytest.mark.parametrize("fraction", [0.5, 0.9])
 def test_plate_isotherm_monotone_and_saturating(model, fraction):
-    # PHYSICS.md trap 12: no isotherm goes deeper than the plate, and the 0.9 Tm depth saturates
+    # [derived] from the plate's boundary conditions: no isotherm goes deeper than the plate, and
+    # the 0.9 Tm depth saturates
     # near 0.9 a (85 km for GDH1), the depth of that temperature on the linear steady geotherm.
     t0, tm = model.surface_temperature_c, model.mantle_temperature_c
     iso = t0 + fraction * (tm - t0)
@@ -391,11 +397,11 @@ def test_named_models_and_registry():
     assert COOLING_MODELS["half-space"] is HALF_SPACE
     assert COOLING_MODELS["gdh1"] is GDH1
     assert COOLING_MODELS["ps77"] is PS77
-    # PHYSICS.md 3.3: GDH1 a = 95 km, Tm = 1450 C [verified (secondary)]; kappa = k / (rho cp)
+    # Stein & Stein 1992: GDH1 a = 95 km, Tm = 1450 C [verified (secondary)]; kappa = k / (rho cp)
     # = 3.138 / (3330 * 1171) = 8.04e-7 m^2/s [derived].
     assert (GDH1.plate_thickness_km, GDH1.mantle_temperature_c) == (95.0, 1450.0)
     npt.assert_allclose(GDH1.diffusivity_m2_s, 8.04e-7, rtol=1e-3)
-    # PHYSICS.md 3.4: PS77 a = 125 km, Tm = 1350 C, alpha = 3.2e-5 [verified: abstract];
+    # Parsons & Sclater 1977: PS77 a = 125 km, Tm = 1350 C, alpha = 3.2e-5 [verified: abstract];
     # a^2 / (pi^2 kappa) = 62.8 Ma [verified: abstract, fit decay time].
     assert (PS77.plate_thickness_km, PS77.mantle_temperature_c, PS77.expansivity_k) == (
         125.0,
@@ -405,7 +411,7 @@ def test_named_models_and_registry():
     npt.assert_allclose(
         (125e3) ** 2 / (np.pi**2 * PS77.diffusivity_m2_s * SECONDS_PER_MA), 62.8, rtol=1e-12
     )
-    # PHYSICS.md 3.1: Turcotte & Schubert constants [from memory].
+    # Turcotte & Schubert 2002 constants [from memory].
     assert HALF_SPACE.plate_thickness_km is None
     assert (HALF_SPACE.diffusivity_m2_s, HALF_SPACE.mantle_temperature_c) == (1e-6, 1300.0)
     for model in ALL_MODELS:
@@ -415,7 +421,7 @@ def test_named_models_and_registry():
 
 
 def test_seconds_per_ma_is_julian():
-    # Julian year: 365.25 days of 86400 s (IAU definition); PHYSICS.md trap 21.
+    # Julian year: 365.25 days of 86400 s (IAU definition; common practice).
     assert SECONDS_PER_MA == 365.25 * 86400 * 1e6
 
 
@@ -425,7 +431,7 @@ def test_parameters_dict_for_provenance():
     assert set(params) == {
         f.name
         for f in dataclasses.fields(CoolingModel)
-        if f.name not in ("name", "kind", "reference")
+        if f.name not in ("name", "kind", "reference", "sources")
     }
     assert HALF_SPACE.parameters()["plate_thickness_km"] is None
     json.dumps(params)  # plain numbers, serializable
@@ -525,3 +531,17 @@ def test_cooling_imports_only_numpy_scipy_and_stdlib():
     allowed |= {"typing", "numpy", "scipy", "lidmelt"}
     assert roots <= allowed, roots - allowed
     assert "from lidmelt.errors import" in Path(cooling.__file__).read_text(encoding="utf-8")
+
+
+def test_every_parameter_names_its_source_and_overrides_are_marked():
+    # Each named model cites a source for every numeric parameter (the provenance contract of
+    # the melting models); an override is marked "user override", the named instance untouched.
+    for model in ALL_MODELS:
+        assert set(model.sources) == set(model.parameters()), model.name
+        assert all(model.sources.values()), model.name
+    variant = get_cooling_model("gdh1", plate_thickness_km=100.0)
+    assert variant.sources["plate_thickness_km"] == "user override"
+    assert variant.sources["mantle_temperature_c"] == GDH1.sources["mantle_temperature_c"]
+    assert "verified" in GDH1.sources["plate_thickness_km"]
+    assert GDH1.sources["plate_thickness_km"] != "user override"
+    assert get_cooling_model(GDH1) is GDH1  # a model object is used as it is

@@ -1,8 +1,8 @@
 """Melting laws: Katz et al. (2003) and McKenzie & Bickle (1988).
 
 Check values name their source beside them. "Katz 2003 Table 2" values are verified against a
-secondary source that quotes the table (PHYSICS.md 1.2); "derived" values follow from the
-published formulas by algebra (PHYSICS.md marks them so).
+secondary source that quotes the table; "derived" values follow from the published formulas
+by algebra; "from memory" marks values not checked against the paper.
 """
 
 import dataclasses
@@ -19,7 +19,7 @@ K = KATZ2003
 
 
 def test_katz_table2_constants():
-    # Katz, Spiegelman & Langmuir 2003, Table 2 (verified secondary, PHYSICS.md 1.2)
+    # Katz, Spiegelman & Langmuir 2003, Table 2 (verified secondary)
     expected = {
         "solidus_a1_c": 1085.7,
         "solidus_a2_c_gpa": 132.9,
@@ -50,7 +50,8 @@ def test_katz_table2_constants():
 
 @pytest.mark.parametrize("p", [0.0, 1.0, 3.0, 6.0])
 def test_katz_polynomials(p):
-    # Katz 2003 eqs. 4, 5, 10 with the Table 2 constants (PHYSICS.md 1.1-1.2)
+    # Katz 2003 eqs. 4, 5, 10 with the Table 2 constants (forms from memory, constants verified
+    # secondary)
     npt.assert_allclose(K.solidus_c(p), 1085.7 + 132.9 * p - 5.1 * p**2, rtol=1e-12)
     npt.assert_allclose(K.liquidus_c(p), 1780.0 + 45.0 * p - 2.0 * p**2, rtol=1e-12)
     _t_sol, t_lherz, *_ = K.pressure_terms(p)
@@ -68,7 +69,8 @@ def test_katz_limits_and_cpx_continuity(p, water):
     t_cpx = K.temperature_c(p, f_cpx, water)
     for eps in (1e-6, -1e-6):
         npt.assert_allclose(K.melt_fraction(p, t_cpx + eps, water), f_cpx, atol=1e-6)
-    # the cpx-free branch uses the true liquidus C with T_cpx-out (PHYSICS.md trap 4)
+    # the cpx-free branch uses the true liquidus C with T_cpx-out (Katz et al. 2003, eq. 9, from
+    # memory)
     _t_sol, _t_lherz, t_liq, _, t_cpx_dry, _, _ = K.pressure_terms(p)
     mid = t_cpx_dry + 0.5 * (t_liq - t_cpx_dry)
     npt.assert_allclose(K.melt_fraction(p, mid), f_cpx + (1 - f_cpx) * 0.5**1.5, rtol=1e-9)
@@ -85,7 +87,8 @@ def test_katz_inverse_round_trip():
 
 
 def test_katz_wet_solidus_depression():
-    # PHYSICS.md 1.3 [derived]: the wet solidus is K*min(X_bulk/D, X_sat)^gamma below the dry one:
+    # derived from Katz et al. 2003 eqs. 16-18 and Table 2: the wet solidus is K*min(X_bulk/D,
+    # X_sat)^gamma below the dry one:
     # 43 K for 0.01 wt% and 43 * 10^0.75 = 241.8 K for 0.1 wt% (unsaturated at 3 GPa).
     npt.assert_allclose(K.solidus_c(3.0) - K.solidus_c(3.0, 0.01), 43.0, rtol=1e-12)
     npt.assert_allclose(K.solidus_c(3.0) - K.solidus_c(3.0, 0.1), 43.0 * 10**0.75, rtol=1e-12)
@@ -99,7 +102,8 @@ def test_katz_wet_solidus_depression():
 
 
 def test_katz_hotter_than_1500_runs_through_the_cpx_free_branch():
-    # PHYSICS.md trap 16: only Tp >= ~1450 C reaches F > F_cpx-out; check it is reached and that
+    # derived (Katz et al. 2003 Table 2, M_cpx 0.17 from memory): only Tp >= ~1450 C reaches F >
+    # F_cpx-out; check it is reached and that
     # the cpx-free branch is continuous with the cpx-present one along the column.
     res = melt_column(1550.0, 0.0, method="direct")
     top_p = float(K.pressure_gpa(7.0))
@@ -114,15 +118,17 @@ def test_katz_hotter_than_1500_runs_through_the_cpx_free_branch():
 
 def test_mckenzie_bickle_limits():
     m = MCKENZIE_BICKLE1988
-    # PHYSICS.md 2 [derived]: x(-0.5) = 0, x(+0.5) = 1; dx/dT' = 2.07 at the solidus
+    # derived from McKenzie & Bickle 1988 (from memory): x(-0.5) = 0, x(+0.5) = 1; dx/dT' = 2.07 at
+    # the solidus
     npt.assert_allclose(m.melt_fraction_of_reduced([-0.5, 0.5]), [0.0, 1.0], atol=1e-12)
     slope = (m.melt_fraction_of_reduced(-0.5 + 1e-7) - 0.0) / 1e-7
     npt.assert_allclose(slope, 2.07, atol=0.005)
-    # PHYSICS.md 2 [derived]: T_s(0) = 1099.9 C, T_s(1.5 GPa) ~ 1303 C, T_s(3 GPa) ~ 1500 C
+    # derived from McKenzie & Bickle 1988 (from memory): T_s(0) = 1099.9 C, T_s(1.5 GPa) ~ 1303 C,
+    # T_s(3 GPa) ~ 1500 C
     npt.assert_allclose(m.solidus_c(0.0), 1099.9, atol=0.1)
     npt.assert_allclose(m.solidus_c(1.5), 1303.0, atol=2.0)
     npt.assert_allclose(m.solidus_c(3.0), 1500.0, atol=3.0)
-    # liquidus formula (PHYSICS.md 2, from memory): T_l(0) = 1736.2 C
+    # liquidus formula (McKenzie & Bickle 1988, from memory): T_l(0) = 1736.2 C
     npt.assert_allclose(m.liquidus_c(0.0), 1736.2)
     npt.assert_allclose(m.melt_fraction(2.0, m.temperature_c(2.0, 0.3)), 0.3, atol=1e-9)
 

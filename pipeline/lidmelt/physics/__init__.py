@@ -1,9 +1,12 @@
 """Pure numpy/scipy physics: melting models, the isentropic column, its table, cooling models.
 
-Nothing in this subpackage reads or writes files.
+Nothing in this subpackage reads or writes files, except the melting table's disk cache
+(:mod:`lidmelt.physics.table`). Callers outside the subpackage import from here.
 """
 
-from lidmelt.physics.column import (
+from lidmelt.physics.column import column_profile
+from lidmelt.physics.cooling import COOLING_MODELS, get_cooling_model, isotherm_depth_km
+from lidmelt.physics.evaluate import (
     COLUMN_OUTPUTS,
     FLAG_BEYOND_CALIBRATION,
     FLAG_INVALID_INPUT,
@@ -11,18 +14,43 @@ from lidmelt.physics.column import (
     FLAG_NO_ONSET,
     FLAG_WATER_SATURATED,
     ColumnResult,
-    column_profile,
     excess_to_melt_k,
     melt_column,
 )
-from lidmelt.physics.cooling import COOLING_MODELS, get_cooling_model, isotherm_depth_km
 from lidmelt.physics.melting import MODELS, MeltingModel, get_model
 from lidmelt.physics.table import MeltTable, get_table
 
+__all__ = [
+    "COLUMN_OUTPUTS",
+    "COOLING_MODELS",
+    "DEFAULT_AMBIENT_TP_C",
+    "DEFAULT_COOLING",
+    "DEFAULT_LID_ISOTHERM_C",
+    "FLAG_BEYOND_CALIBRATION",
+    "FLAG_INVALID_INPUT",
+    "FLAG_MEANINGS",
+    "FLAG_NO_ONSET",
+    "FLAG_WATER_SATURATED",
+    "MODELS",
+    "ColumnResult",
+    "MeltTable",
+    "MeltingModel",
+    "column_profile",
+    "excess_to_melt_k",
+    "get_cooling_model",
+    "get_model",
+    "get_table",
+    "isotherm_depth_km",
+    "melt_column",
+]
+
 #: Default lid-base isotherm [deg C]: 1100 C is a common choice for the base of the thermal
-#: lithosphere (common practice, no single source; PHYSICS.md trap 12 shows how much it matters).
+#: lithosphere (common practice, no single source). How much the choice matters depends on the
+#: cooling model: at 100 Ma the 1100 C isotherm lies at 69 km in the GDH1 plate and 113 km in
+#: the default half-space [derived; docs/physics.md, section "Lithosphere from plate age"].
 DEFAULT_LID_ISOTHERM_C = 1100.0
 #: Default cooling model: half-space cooling with Turcotte & Schubert constants.
 DEFAULT_COOLING = "half-space"
-#: Default ambient potential temperature [deg C] (Herzberg, Condie & Korenaga 2010; PHYSICS.md 8).
+#: Default ambient potential temperature [deg C] (Herzberg, Condie & Korenaga 2010, EPSL 292,
+#: 79: 1350 C for the present MORB source).
 DEFAULT_AMBIENT_TP_C = 1350.0

@@ -1,27 +1,22 @@
-"""The isentropic melting column beneath a lid: direct, vectorized integration.
+"""The isentropic melting column beneath a lid: the direct, vectorized integrator.
 
 Mantle at potential temperature Tp rises along its solid isentrope, crosses the (water-depressed)
 solidus at the onset pressure P0 and melts by decompression, consuming latent heat, until it
-meets the top of the melting column (the deeper of the lid base and a minimum depth). Every
-function here takes arrays of any shape and broadcasts them; no Python loop runs over cells.
-
-Definitions (PHYSICS.md section 8, fixed by lidmelt):
-
-* Tp is the P = 0 intercept of the solid isentrope T = Tp exp(alpha_s P / (rho_s c_p)), T in K.
-* Depth is below the seafloor with P = rho g z (the model's ``lithostatic_density_kg_m3`` and
-  ``gravity_m_s2``).
-* The onset is the shallowest P at which the isentrope meets the solidus, searched from the
-  surface down to ``model.max_onset_pressure_gpa``.
-* Melt thickness H = integral of F dz from the top of melting to the onset [km]; 0 where the
-  onset is shallower than the top. Max melt fraction is F at the top; mean melt pressure is
-  integral of P dF / F_top (NaN where no melt).
-* Water is batch-partitioned and stays in the column.
+meets the top of the melting column (the deeper of the lid base and a minimum depth). This module
+finds the onset (:func:`onset_pressure_gpa`), integrates columns from it
+(:func:`integrate_columns`, which the table also uses to tabulate them) and traces one column
+(:func:`column_profile`). Turning inputs into the output variables and their validity flag is
+:mod:`lidmelt.physics.evaluate`. Every function here takes arrays of any shape and broadcasts
+them; no Python loop runs over cells. The definitions (Tp, depth, onset, top of melting, melt
+thickness) are those of docs/physics.md, section "Definitions lidmelt fixes".
 
 Numerical method
 ----------------
 Above the solidus the state (P, T, F) conserves the entropy of [Katz2003]_ eq. 20,
 ds = c_p dT/T - abar dP + Delta S dF = 0 with abar = (1 - F) alpha_s/rho_s + F alpha_f/rho_f
-(PHYSICS.md 1.4). Each pressure step conserves it exactly in discrete form,
+(Katz et al. 2003, eq. 20 [from memory]; the discrete form is derived in docs/physics.md,
+section "Isentropic decompression melting"). Each pressure step conserves it exactly in discrete
+form,
 
     c_p ln(T1/T0) - abar((F0 + F1)/2) (P1 - P0) + Delta S (F1 - F0) = 0,   T1 = T_model(P1, F1),
 
@@ -30,74 +25,35 @@ bracketing; :meth:`MeltingModel.temperature_c` is explicit in F, so the hydrous 
 inner iteration and the kinks at the solidus and at cpx exhaustion need no derivatives. Steps
 fall on a fixed pressure grid (plus one partial step from the onset and one to the top); a test
 proves convergence in the step.
+
+References
+----------
+.. [Katz2003] Katz, R. F., Spiegelman, M. & Langmuir, C. H. (2003). A new parameterization of
+   hydrous mantle melting. Geochem. Geophys. Geosyst. 4(9), 1073, doi:10.1029/2002GC000433.
 """
 
 from __future__ import annotations
-
-from dataclasses import dataclass
 
 import numpy as np
 
 from lidmelt.physics.melting import GPA, MeltingModel, get_model
 
-FLAG_INVALID_INPUT = 1  #: NaN input, negative lid, Tp below the surface solidus, or bad water
-FLAG_NO_ONSET = 2  #: the isentrope does not meet the solidus within the model's search range
-FLAG_BEYOND_CALIBRATION = 4  #: onset deeper than the model's calibrated range (computed anyway)
-FLAG_WATER_SATURATED = 8  #: bulk water above what the solid source holds at the onset
-
-FLAG_MEANINGS = {
-    FLAG_INVALID_INPUT: "invalid input (NaN, negative lid, Tp below the surface solidus)",
-    FLAG_NO_ONSET: "no solidus crossing within the model's pressure range",
-    FLAG_BEYOND_CALIBRATION: "onset deeper than the model's calibrated pressure range",
-    FLAG_WATER_SATURATED: "source water above saturation at the onset (free water)",
-}
-
-COLUMN_OUTPUTS = (
-    "melt_thickness_km",
-    "onset_depth_km",
+__all__ = [
+    "DEFAULT_MIN_TOP_KM",
+    "DEFAULT_PRESSURE_STEP_GPA",
+    "column_profile",
+    "integrate_columns",
     "onset_pressure_gpa",
-    "lid_depth_km",
-    "max_melt_fraction",
-    "mean_melt_pressure_gpa",
-)
+    "refine_onset_gpa",
+    "top_of_melting_km",
+]
 
 DEFAULT_PRESSURE_STEP_GPA = 0.01  # proven converged in tests/test_column.py
-DEFAULT_MIN_TOP_KM = (
-    7.0  # base of normal oceanic crust (PHYSICS.md 8; White et al. 1992, from memory)
-)
+#: Default minimum top of melting [km]: the base of normal oceanic crust, 7.1 +- 0.8 km by
+#: seismic refraction (White, McKenzie & O'Nions 1992, JGR 97, 19683; from memory).
+DEFAULT_MIN_TOP_KM = 7.0
 _SEARCH_STEP_GPA = 0.05
 _BLOCK = 8192
-
-
-@dataclass(frozen=True)
-class ColumnResult:
-    """Outputs of :func:`melt_column`, each an array of the broadcast input shape.
-
-    Attributes
-    ----------
-    melt_thickness_km, onset_depth_km, onset_pressure_gpa, lid_depth_km, max_melt_fraction,
-    mean_melt_pressure_gpa : numpy.ndarray
-        The output variables of DESIGN.md (``lid_depth_km`` is the top of melting used).
-    flag : numpy.ndarray of uint8
-        Bit flags ``FLAG_*``; 0 where the cell is valid and calibrated.
-    model : MeltingModel
-        The model (with every parameter) that produced the result.
-    """
-
-    melt_thickness_km: np.ndarray
-    onset_depth_km: np.ndarray
-    onset_pressure_gpa: np.ndarray
-    lid_depth_km: np.ndarray
-    max_melt_fraction: np.ndarray
-    mean_melt_pressure_gpa: np.ndarray
-    flag: np.ndarray
-    model: MeltingModel
-
-    def as_dict(self) -> dict[str, np.ndarray]:
-        """The output arrays and the flag by name."""
-        out = {name: getattr(self, name) for name in COLUMN_OUTPUTS}
-        out["flag"] = self.flag
-        return out
 
 
 # ------------------------------------------------------------------------------------------------
@@ -107,8 +63,10 @@ def onset_pressure_gpa(model: MeltingModel, potential_temperature_c, water_wt_pc
     """Shallowest pressure [GPa] where the solid isentrope meets the solidus; NaN if none.
 
     Searched from the surface down to ``model.max_onset_pressure_gpa`` on a 0.05 GPa grid, then
-    refined by bisection to 1e-12 GPa (PHYSICS.md trap 7: the Katz solidus turns over at
-    13.03 GPa, so a search from below could find the wrong crossing). NaN where Tp is at or below
+    refined by bisection to 1e-12 GPa. The search runs from the top because the Katz et al. (2003)
+    solidus quadratic turns over at 13.03 GPa [derived: dT/dP = A2 + 2 A3 P = 0], so a search
+    from below could find the wrong crossing (docs/physics.md, section "Where the onset is
+    searched"). NaN where Tp is at or below
     the surface solidus (no crossing at all) or where the isentrope stays above the solidus down
     to the search limit.
     """
@@ -225,6 +183,14 @@ def _step(model, p0, t0_k, f0, p1, water):
     return t1, f
 
 
+_NODE_KEYS = (
+    "node_melt_thickness_km",
+    "node_melt_fraction",
+    "node_int_p_df_gpa",
+    "node_temperature_c",
+)
+
+
 def integrate_columns(
     model,
     potential_temperature_c,
@@ -260,52 +226,19 @@ def integrate_columns(
             *(np.asarray(v, float) for v in (potential_temperature_c, water_wt_pct, p_onset, p_top))
         )
     )
-    km_per_gpa = float(model.depth_km(1.0))
     melts = np.isfinite(p_on) & (p_on > p_top)
-    p = np.where(melts, p_on, p_top)
-    t_k = model.solid_adiabat_c(tp, p) + 273.15
+    t_k = model.solid_adiabat_c(tp, np.where(melts, p_on, p_top)) + 273.15
     f = np.zeros(tp.shape)
     h_km = np.zeros(tp.shape)
     g = np.zeros(tp.shape)
     rec = None
     if record_nodes is not None:
-        rec = {
-            k: np.zeros((tp.size, record_nodes))
-            for k in (
-                "node_melt_thickness_km",
-                "node_melt_fraction",
-                "node_int_p_df_gpa",
-                "node_temperature_c",
-            )
-        }
+        rec = {k: np.zeros((tp.size, record_nodes)) for k in _NODE_KEYS}
     if melts.any():
         idx = np.flatnonzero(melts)
-        # the first node strictly shallower than the onset
-        first = np.ceil(p_on[idx] / step_gpa - 1.0 - 1e-9)
-        nsteps = int(np.max(first - np.floor(p_top[idx] / step_gpa)) + 2)
-        pc, tc, fc, hc, gc = p[idx], t_k[idx], f[idx], h_km[idx], g[idx]
-        tpc, wc, topc = tp[idx], water[idx], p_top[idx]
-        for k in range(nsteps):
-            node = (first - k) * step_gpa
-            p_next = np.maximum(node, topc)
-            active = pc > topc
-            if not active.any():
-                break
-            sub = np.flatnonzero(active)
-            t1, f1 = _step(model, pc[sub], tc[sub], fc[sub], p_next[sub], wc[sub])
-            hc[sub] += 0.5 * (fc[sub] + f1) * (pc[sub] - p_next[sub]) * km_per_gpa
-            gc[sub] += 0.5 * (pc[sub] + p_next[sub]) * (f1 - fc[sub])
-            pc[sub], tc[sub], fc[sub] = p_next[sub], t1, f1
-            if rec is not None:
-                j = np.rint(p_next[sub] / step_gpa).astype(int)
-                on_node = (np.abs(p_next[sub] - j * step_gpa) < 1e-9) & (j < record_nodes)
-                rows, cols = idx[sub[on_node]], j[on_node]
-                rec["node_melt_thickness_km"][rows, cols] = hc[sub[on_node]]
-                rec["node_melt_fraction"][rows, cols] = fc[sub[on_node]]
-                rec["node_int_p_df_gpa"][rows, cols] = gc[sub[on_node]]
-                rec["node_temperature_c"][rows, cols] = tc[sub[on_node]] - 273.15
-        del tpc
-        p[idx], t_k[idx], f[idx], h_km[idx], g[idx] = pc, tc, fc, hc, gc
+        t_k[idx], f[idx], h_km[idx], g[idx] = _march(
+            model, p_on[idx], p_top[idx], water[idx], t_k[idx], step_gpa, rows=idx, rec=rec
+        )
     out = {
         "melt_thickness_km": h_km,
         "max_melt_fraction": f,
@@ -317,178 +250,49 @@ def integrate_columns(
     return out
 
 
+def _march(model, p_on, p_top, water, t_k, step_gpa, *, rows, rec):
+    """Step melting columns (1-D, ``p_on > p_top``) from the onset temperature ``t_k`` to the top.
+
+    Returns (T [K], F, H [km], integral of P dF [GPa]) at ``p_top``. With ``rec``, the state at
+    every pressure node is written into it at the global ``rows`` (see :func:`_record_nodes`).
+    """
+    km_per_gpa = float(model.depth_km(1.0))
+    # the first node strictly shallower than the onset
+    first = np.ceil(p_on / step_gpa - 1.0 - 1e-9)
+    nsteps = int(np.max(first - np.floor(p_top / step_gpa)) + 2)
+    p, t_k = p_on.copy(), t_k.copy()
+    f, h_km, g = np.zeros(p.shape), np.zeros(p.shape), np.zeros(p.shape)
+    for k in range(nsteps):
+        p_next = np.maximum((first - k) * step_gpa, p_top)
+        sub = np.flatnonzero(p > p_top)
+        if sub.size == 0:
+            break
+        t1, f1 = _step(model, p[sub], t_k[sub], f[sub], p_next[sub], water[sub])
+        h_km[sub] += 0.5 * (f[sub] + f1) * (p[sub] - p_next[sub]) * km_per_gpa
+        g[sub] += 0.5 * (p[sub] + p_next[sub]) * (f1 - f[sub])
+        p[sub], t_k[sub], f[sub] = p_next[sub], t1, f1
+        if rec is not None:
+            _record_nodes(rec, rows[sub], p[sub], h_km[sub], f[sub], g[sub], t_k[sub], step_gpa)
+    return t_k, f, h_km, g
+
+
+def _record_nodes(rec, rows, p, h_km, f, g, t_k, step_gpa):
+    """Store the state of the columns ``rows`` whose pressure ``p`` lies on a recorded node."""
+    j = np.rint(p / step_gpa).astype(int)
+    on_node = (np.abs(p - j * step_gpa) < 1e-9) & (j < rec["node_melt_fraction"].shape[1])
+    rows, cols = rows[on_node], j[on_node]
+    rec["node_melt_thickness_km"][rows, cols] = h_km[on_node]
+    rec["node_melt_fraction"][rows, cols] = f[on_node]
+    rec["node_int_p_df_gpa"][rows, cols] = g[on_node]
+    rec["node_temperature_c"][rows, cols] = t_k[on_node] - 273.15
+
+
 # ------------------------------------------------------------------------------------------------
-# public API
+# the top of melting and one column's profile
 # ------------------------------------------------------------------------------------------------
 def top_of_melting_km(lid_depth_km, min_top_km=DEFAULT_MIN_TOP_KM):
     """The top of the melting column [km]: the deeper of the lid base and ``min_top_km``."""
     return np.maximum(np.asarray(lid_depth_km, float), float(min_top_km))
-
-
-def input_flags(model: MeltingModel, potential_temperature_c, lid_depth_km, water_wt_pct):
-    """FLAG_INVALID_INPUT where inputs are NaN, the lid negative, water negative (or, for an
-    anhydrous model, non-zero), or Tp at or below the surface solidus."""
-    tp, lid, w = np.broadcast_arrays(
-        np.asarray(potential_temperature_c, float),
-        np.asarray(lid_depth_km, float),
-        np.asarray(water_wt_pct, float),
-    )
-    with np.errstate(invalid="ignore"):
-        bad = ~np.isfinite(tp) | ~np.isfinite(lid) | ~np.isfinite(w) | (lid < 0) | (w < 0)
-        if not model.hydrous:
-            bad |= w > 0
-        bad |= tp <= model.solidus_c(0.0, 0.0)
-    return np.where(bad, FLAG_INVALID_INPUT, 0).astype(np.uint8)
-
-
-def finish_outputs(model, tp, w, top_km, p_on, melt_thickness_km, f_top, int_p_df, flag):
-    """Assemble a ColumnResult from onset and integrals; set the derived flags and NaNs."""
-    with np.errstate(invalid="ignore", divide="ignore"):
-        top_p = model.pressure_gpa(top_km)
-        invalid = (flag & FLAG_INVALID_INPUT) > 0
-        no_onset = ~invalid & ~np.isfinite(p_on)
-        flag = flag | np.where(no_onset, FLAG_NO_ONSET, 0).astype(np.uint8)
-        deep = np.isfinite(p_on) & (p_on > model.calibrated_max_pressure_gpa)
-        flag = flag | np.where(deep, FLAG_BEYOND_CALIBRATION, 0).astype(np.uint8)
-        saturated = np.isfinite(p_on) & (w > model.water_saturated_bulk_wt_pct(p_on))
-        flag = flag | np.where(saturated, FLAG_WATER_SATURATED, 0).astype(np.uint8)
-        bad = invalid | no_onset | saturated
-        melting = ~bad & (p_on > top_p)
-        h = np.where(bad, np.nan, np.where(melting, melt_thickness_km, 0.0))
-        f = np.where(bad, np.nan, np.where(melting, f_top, 0.0))
-        mean_p = np.where(melting & (f > 0), int_p_df / np.where(f > 0, f, 1.0), np.nan)
-        p_on = np.where(bad, np.nan, p_on)
-    return ColumnResult(
-        melt_thickness_km=h,
-        onset_depth_km=model.depth_km(p_on),
-        onset_pressure_gpa=p_on,
-        lid_depth_km=np.where(invalid, np.nan, top_km),
-        max_melt_fraction=f,
-        mean_melt_pressure_gpa=mean_p,
-        flag=flag,
-        model=model,
-    )
-
-
-def melt_column(
-    potential_temperature_c,
-    lid_depth_km,
-    water_wt_pct=0.0,
-    *,
-    model: str | MeltingModel = "katz2003",
-    method: str = "table",
-    min_top_km: float = DEFAULT_MIN_TOP_KM,
-    step_gpa: float = DEFAULT_PRESSURE_STEP_GPA,
-    table=None,
-) -> ColumnResult:
-    """Melt production of upwelling mantle beneath a lid, for arrays of cells.
-
-    Parameters
-    ----------
-    potential_temperature_c : array_like
-        Potential temperature Tp of the mantle [deg C] (ambient plus thermal anomaly).
-    lid_depth_km : array_like
-        Depth of the lid base (lithosphere) below the seafloor [km], >= 0.
-    water_wt_pct : array_like, optional
-        Water in the bulk source [wt%] (0.01 wt% = 100 ppm). Default 0 (dry).
-    model : str or MeltingModel, optional
-        A registry name or model object (see :func:`lidmelt.physics.melting.get_model`).
-    method : {"table", "direct"}
-        ``"table"`` interpolates a precomputed table (fast; its error is bounded in the tests),
-        falling back to direct integration outside the table. ``"direct"`` integrates every
-        column.
-    min_top_km : float, optional
-        Melting stops at max(lid, min_top_km) [km]; default 7 km, the base of normal oceanic
-        crust (PHYSICS.md 8).
-    step_gpa : float, optional
-        Pressure step of the direct integration [GPa].
-    table : MeltTable, optional
-        A table to use (default: the cached table of the model).
-
-    Returns
-    -------
-    ColumnResult
-        Arrays of the broadcast input shape and a ``flag`` array (see ``FLAG_*``). Invalid or
-        unmeltable cells are NaN and flagged, never clipped. The table path returns float32
-        arrays where one water content applies to every cell (single precision is far finer
-        than the table's error, and halves the memory traffic); otherwise float64.
-    """
-    model = get_model(model)
-    tp, lid, w = np.broadcast_arrays(
-        np.asarray(potential_temperature_c, float),
-        np.asarray(lid_depth_km, float),
-        np.asarray(water_wt_pct, float),
-    )
-    if method == "table":
-        from lidmelt.physics.table import get_table
-
-        tab = table if table is not None else get_table(model)
-        return tab.melt_column(tp, lid, w, min_top_km=min_top_km)
-    if method != "direct":
-        msg = f"unknown method {method!r}; use 'table' (fast) or 'direct' (integrates each column)."
-        raise ValueError(msg)
-    return _direct(model, tp, lid, w, min_top_km=min_top_km, step_gpa=step_gpa)
-
-
-def _direct(model, tp, lid, w, *, min_top_km, step_gpa):
-    flag = input_flags(model, tp, lid, w)
-    ok = flag == 0
-    top_km = top_of_melting_km(np.where(ok, lid, 0.0), min_top_km)
-    p_on = np.full(tp.shape, np.nan)
-    p_on[ok] = onset_pressure_gpa(model, tp[ok], w[ok])
-    res = integrate_columns(
-        model,
-        np.where(ok, tp, 1300.0),
-        np.where(ok, w, 0.0),
-        p_on,
-        model.pressure_gpa(top_km),
-        step_gpa=step_gpa,
-    )
-    return finish_outputs(
-        model,
-        tp,
-        w,
-        top_km,
-        p_on,
-        res["melt_thickness_km"].reshape(tp.shape),
-        res["max_melt_fraction"].reshape(tp.shape),
-        res["int_p_df_gpa"].reshape(tp.shape),
-        flag,
-    )
-
-
-def excess_to_melt_k(
-    lid_depth_km,
-    water_wt_pct=0.0,
-    *,
-    ambient_potential_temperature_c=1350.0,
-    model: str | MeltingModel = "katz2003",
-    min_top_km: float = DEFAULT_MIN_TOP_KM,
-):
-    """Thermal anomaly [K] above ambient Tp at which melting would just begin beneath the lid.
-
-    Melting begins when the onset reaches the top of melting z_top = max(lid, min_top_km), that
-    is when the solid isentrope passes through the solidus at P_top:
-    Tp* = T_sol(P_top, water) exp(-alpha_s P_top / (rho_s c_p)) (temperatures in K) [derived from
-    the isentrope of PHYSICS.md 1.4]. Returns Tp* - ambient: negative where ambient mantle already
-    melts beneath this lid. NaN for invalid inputs and beyond the model's search range (where the
-    solidus-isentrope crossing at P_top would not be the shallowest one).
-    """
-    model = get_model(model)
-    lid, w = np.broadcast_arrays(np.asarray(lid_depth_km, float), np.asarray(water_wt_pct, float))
-    with np.errstate(invalid="ignore"):
-        top_p = model.pressure_gpa(top_of_melting_km(lid, min_top_km))
-        tp_k = (model.solidus_c(top_p, w) + 273.15) * np.exp(
-            -model.adiabat_coefficient_per_gpa * top_p
-        )
-        bad = (
-            ~np.isfinite(lid)
-            | (lid < 0)
-            | ~np.isfinite(w)
-            | (w < 0)
-            | (top_p > model.max_onset_pressure_gpa)
-        )
-    return np.where(bad, np.nan, tp_k - 273.15 - float(ambient_potential_temperature_c))
 
 
 def column_profile(

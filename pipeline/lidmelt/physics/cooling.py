@@ -12,7 +12,7 @@ cited parameter objects (:class:`CoolingModel`) and four vectorized functions of
 All functions take ages in Ma and depths in km below the seafloor and broadcast over arrays of
 any shape. They return float64 (a numpy scalar for scalar input). Inside, everything is SI.
 
-Time: 1 Ma = 3.15576e13 s (the Julian year of 365.25 days; PHYSICS.md trap 21; common practice).
+Time: 1 Ma = 3.15576e13 s (the Julian year of 365.25 days; common practice).
 
 Conventions at the edges of the domain
 --------------------------------------
@@ -28,14 +28,10 @@ Conventions at the edges of the domain
 
 Plate-model evaluation
 ----------------------
-The plate solution is evaluated in two exact forms, chosen by the dimensionless age
-tau = kappa t / a^2: the Fourier series of PHYSICS.md section 3.2 for tau >= 0.1, and the
-equivalent image (erfc) series for tau < 0.1, which converges in three terms where the Fourier
-series would need hundreds or thousands (PHYSICS.md trap 13). At the switch both forms are
-truncated far below double precision (the first omitted terms are below 1e-40). The image form
-is the method-of-images solution of the same boundary value problem (Carslaw & Jaeger, Conduction
-of Heat in Solids, 1959, section 3.3 [from memory]); its agreement with the Fourier series is
-checked numerically in tests/test_cooling.py [derived].
+The plate solution is summed as its Fourier series for tau = kappa t / a^2 >= 0.1 and as the
+equivalent image (erfc) series below, which converges in three terms where the Fourier series
+would need hundreds or thousands (:mod:`lidmelt.physics._plate`; docs/physics.md, section
+"Lithosphere from plate age").
 
 :func:`isotherm_depth_km` in the plate model interpolates a fine 1-D table of isotherm depth
 against sqrt(age), built once per (model, isotherm) by bisection on the exact temperature
@@ -47,13 +43,10 @@ model and about 400 million with the half-space (benchmarks/bench_cooling.py).
 
 from __future__ import annotations
 
-import dataclasses
-import difflib
 import functools
 import math
 import numbers
 import types
-from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
@@ -61,6 +54,9 @@ import numpy.typing as npt
 from scipy import special
 
 from lidmelt.errors import ModelError
+from lidmelt.physics import _plate
+from lidmelt.physics._cooling_model import CoolingModel
+from lidmelt.physics._registry import lookup
 
 __all__ = [
     "COOLING_MODELS",
@@ -82,203 +78,8 @@ SECONDS_PER_MA: float = 3.15576e13
 #: 1 ucal cm^-2 s^-1 (one "heat flow unit") in mW m^-2: 4.1868 J/cal x 1e4 cm^2/m^2 x 1e-6 x 1e3.
 _MW_M2_PER_HFU = 41.868
 
-_KINDS = ("half-space", "plate")
 
-# Dimensionless age tau = kappa t / a^2 at which the plate evaluation switches from the image
-# series (below) to the Fourier series (at and above). Truncation at the switch: Fourier term
-# n = 11 is exp(-121 pi^2 0.1) ~ 1e-52; image term k = 3 is erfc(6 / (2 sqrt(0.1))) ~ 1e-40.
-_TAU_SWITCH = 0.1
-_FOURIER_TERMS = 10
-_IMAGE_TERMS = 3
-# The isotherm table runs to tau = 3; beyond, the geotherm is linear to within
-# exp(-3 pi^2) ~ 1e-13 of the plate thickness, so the last node is the asymptote.
-_TABLE_TAU_MAX = 3.0
-_TABLE_NODES = 4097
-_BISECTION_STEPS = 60
-
-_NUMERIC_FIELDS = (
-    "plate_thickness_km",
-    "mantle_temperature_c",
-    "surface_temperature_c",
-    "diffusivity_m2_s",
-    "conductivity_w_m_k",
-    "expansivity_k",
-    "mantle_density_kg_m3",
-    "water_density_kg_m3",
-    "ridge_depth_m",
-)
-
-
-@dataclass(frozen=True, kw_only=True)
-class CoolingModel:
-    """A conductive cooling model of oceanic lithosphere; frozen, with its source.
-
-    Change a value with ``dataclasses.replace(model, ...)`` or
-    ``get_cooling_model(name, **overrides)``; the copy is validated again.
-
-    Parameters
-    ----------
-    name : str
-        Short name used in workflow files and provenance, e.g. ``"gdh1"``.
-    kind : {"half-space", "plate"}
-        Half-space cooling (no base) or a plate of fixed thickness whose base is held at the
-        mantle temperature.
-    plate_thickness_km : float or None
-        Plate thickness a. Units: km. ``None`` for a half-space; required (> 0) for a plate.
-    mantle_temperature_c : float
-        Mantle (initial and basal) temperature Tm. Units: deg C. This is the cooling model's
-        own Tm, not the melting potential temperature (PHYSICS.md trap 12).
-    surface_temperature_c : float
-        Seafloor temperature T0. Units: deg C. 0 in all the named models.
-    diffusivity_m2_s : float
-        Thermal diffusivity kappa. Units: m^2 s^-1 (rocks are about 1e-6).
-    conductivity_w_m_k : float
-        Thermal conductivity k, used for the heat flow. Units: W m^-1 K^-1.
-    expansivity_k : float
-        Volumetric thermal expansion coefficient alpha, used for the subsidence. Units: K^-1.
-    mantle_density_kg_m3 : float
-        Mantle density rho_m at Tm. Units: kg m^-3.
-    water_density_kg_m3 : float
-        Seawater density rho_w. Units: kg m^-3. Must be below the mantle density.
-    ridge_depth_m : float
-        Seafloor depth at age 0 below sea level, d_r. Units: m.
-    reference : str
-        Citation for the values (author, year, table/equation), stored verbatim in outputs.
-
-    Raises
-    ------
-    ModelError
-        If a field has the wrong type or lies outside its physical range.
-    """
-
-    name: str
-    kind: str
-    plate_thickness_km: float | None
-    mantle_temperature_c: float
-    surface_temperature_c: float = 0.0
-    diffusivity_m2_s: float
-    conductivity_w_m_k: float
-    expansivity_k: float
-    mantle_density_kg_m3: float
-    water_density_kg_m3: float
-    ridge_depth_m: float
-    reference: str
-
-    def __post_init__(self) -> None:
-        if not isinstance(self.name, str) or not self.name.strip():
-            msg = f"Cooling model name={self.name!r} must be a non-empty string, e.g. 'my-plate'."
-            raise ModelError(msg)
-        if not isinstance(self.reference, str):
-            msg = (
-                f"Cooling model {self.name!r}: reference={self.reference!r} must be a string "
-                "citing the source of the values (author, year, table or equation)."
-            )
-            raise ModelError(msg)
-        if self.kind not in _KINDS:
-            hint = _suggest(str(self.kind), _KINDS)
-            msg = (
-                f"Cooling model {self.name!r}: kind={self.kind!r} is not known; expected one of "
-                f"{', '.join(repr(k) for k in _KINDS)}.{hint}"
-            )
-            raise ModelError(msg)
-        for field in _NUMERIC_FIELDS:
-            value = getattr(self, field)
-            if field == "plate_thickness_km" and value is None:
-                continue
-            if isinstance(value, bool) or not isinstance(value, numbers.Real):
-                msg = (
-                    f"Cooling model {self.name!r}: {field}={value!r} must be a real number "
-                    f"(got {type(value).__name__}); give it as a float in the units of its name."
-                )
-                raise ModelError(msg)
-            if not math.isfinite(value):
-                msg = (
-                    f"Cooling model {self.name!r}: {field}={value!r} must be finite; give a real "
-                    "value in the units of its name."
-                )
-                raise ModelError(msg)
-            object.__setattr__(self, field, float(value))
-        self._check_ranges()
-
-    def _check_ranges(self) -> None:
-        name = self.name
-        if self.kind == "plate":
-            if self.plate_thickness_km is None:
-                msg = (
-                    f"Cooling model {name!r} is a plate but plate_thickness_km is None; give the "
-                    "plate thickness in km (GDH1 uses 95, Parsons & Sclater 1977 use 125), or "
-                    "set kind='half-space'."
-                )
-                raise ModelError(msg)
-            if not 0.0 < self.plate_thickness_km <= 1000.0:
-                msg = (
-                    f"Cooling model {name!r}: plate_thickness_km={self.plate_thickness_km!r} must "
-                    "be in (0, 1000] km (oceanic plate models use 90-130 km). If you have metres, "
-                    "divide by 1000."
-                )
-                raise ModelError(msg)
-        elif self.plate_thickness_km is not None:
-            msg = (
-                f"Cooling model {name!r} is a half-space but plate_thickness_km="
-                f"{self.plate_thickness_km!r}; set plate_thickness_km=None, or set kind='plate' "
-                "to use a plate of that thickness."
-            )
-            raise ModelError(msg)
-        if not -273.15 < self.surface_temperature_c < self.mantle_temperature_c:
-            msg = (
-                f"Cooling model {name!r}: need -273.15 < surface_temperature_c < "
-                f"mantle_temperature_c (deg C), got surface {self.surface_temperature_c!r} and "
-                f"mantle {self.mantle_temperature_c!r}. Temperatures are in deg C: subtract "
-                "273.15 from kelvin values."
-            )
-            raise ModelError(msg)
-        if not 0.0 < self.diffusivity_m2_s < 1e-4:
-            msg = (
-                f"Cooling model {name!r}: diffusivity_m2_s={self.diffusivity_m2_s!r} must be in "
-                "(0, 1e-4) m^2/s (rocks are about 1e-6). If you have mm^2/s, multiply by 1e-6."
-            )
-            raise ModelError(msg)
-        if not 0.0 < self.conductivity_w_m_k < 100.0:
-            msg = (
-                f"Cooling model {name!r}: conductivity_w_m_k={self.conductivity_w_m_k!r} must be "
-                "in (0, 100) W/m/K (mantle rocks are about 3)."
-            )
-            raise ModelError(msg)
-        if not 0.0 < self.expansivity_k < 1e-3:
-            msg = (
-                f"Cooling model {name!r}: expansivity_k={self.expansivity_k!r} must be in "
-                "(0, 1e-3) per K (mantle rocks are about 3e-5). If you have 1e-5 units, multiply "
-                "by 1e-5."
-            )
-            raise ModelError(msg)
-        if not 0.0 < self.water_density_kg_m3 < self.mantle_density_kg_m3:
-            msg = (
-                f"Cooling model {name!r}: need 0 < water_density_kg_m3 < mantle_density_kg_m3, "
-                f"got water {self.water_density_kg_m3!r} and mantle "
-                f"{self.mantle_density_kg_m3!r} kg/m^3 (typical: 1000-1030 and 3300-3330). If you "
-                "have g/cm^3, multiply by 1000."
-            )
-            raise ModelError(msg)
-        if not 0.0 <= self.ridge_depth_m <= 11000.0:
-            msg = (
-                f"Cooling model {name!r}: ridge_depth_m={self.ridge_depth_m!r} must be in "
-                "[0, 11000] m below sea level (ridges are about 2500-2600 m). If you have km, "
-                "multiply by 1000; depths are positive downwards."
-            )
-            raise ModelError(msg)
-
-    def parameters(self) -> dict[str, float | None]:
-        """The numeric fields as a plain dict, for provenance.
-
-        Returns
-        -------
-        dict
-            ``{field name: value}`` for every numeric field, units as in the names.
-            ``plate_thickness_km`` is ``None`` for a half-space (kept so the keys are the same
-            for every model).
-        """
-        return {field: getattr(self, field) for field in _NUMERIC_FIELDS}
-
+_SEAFLOOR_AT_0C = "common practice: seafloor at 0 deg C"
 
 # --------------------------------------------------------------------------------------------
 # Named models
@@ -301,18 +102,35 @@ HALF_SPACE = CoolingModel(
         "and 4.23, with their textbook constants [from memory]; ridge depth 2600 m as in GDH1, "
         "Stein & Stein 1992 [from memory]"
     ),
+    sources={
+        "plate_thickness_km": "none: a half-space has no base",
+        **dict.fromkeys(
+            ("mantle_temperature_c", "diffusivity_m2_s"),
+            "Turcotte & Schubert 2002, Geodynamics, section 4.15 (from memory)",
+        ),
+        "surface_temperature_c": _SEAFLOOR_AT_0C,
+        "conductivity_w_m_k": "Turcotte & Schubert 2002, Geodynamics, section 4.16 (from memory)",
+        **dict.fromkeys(
+            ("expansivity_k", "mantle_density_kg_m3", "water_density_kg_m3"),
+            "Turcotte & Schubert 2002, Geodynamics, section 4.23 (from memory)",
+        ),
+        "ridge_depth_m": "Stein & Stein 1992, Nature 359, 123, GDH1 (from memory)",
+    },
 )
 """Half-space cooling with the textbook constants of Turcotte & Schubert, *Geodynamics*.
 
 T(z, t) = T0 + (Tm - T0) erf(z / (2 sqrt(kappa t))) (T&S section 4.15 [from memory]).
 kappa = 1e-6 m^2/s, Tm = 1300 deg C, T0 = 0 deg C, k = 3.3 W/m/K, alpha = 3e-5 /K,
-rho_m = 3300 and rho_w = 1000 kg/m^3: all [from memory] (PHYSICS.md section 3.1). The ridge
-depth of 2600 m is GDH1's (Stein & Stein 1992 [from memory]). With these values the thermal
-thickness (0.9 isotherm) is 13.0 km sqrt(t/Ma), the subsidence 355 m sqrt(t/Ma), and the heat
-flow 136 mW/m^2 at 10 Ma (PHYSICS.md section 3.1 [derived]).
+rho_m = 3300 and rho_w = 1000 kg/m^3: all [from memory] (Turcotte & Schubert 2002, sections
+4.15-4.16 and 4.23). The ridge depth of 2600 m is GDH1's (Stein & Stein 1992 [from memory]).
+With these values the thermal thickness (0.9 isotherm) is 13.0 km sqrt(t/Ma), the subsidence
+355 m sqrt(t/Ma), and the heat flow 136 mW/m^2 at 10 Ma [derived; docs/physics.md, section
+"Lithosphere from plate age"].
 """
 
-_GDH1_HEAT_CAPACITY_J_KG_K = 1171.0  # Stein & Stein 1992 [from memory]; PHYSICS.md 3.3
+_GDH1_HEAT_CAPACITY_J_KG_K = 1171.0  # Stein & Stein 1992, Nature 359, 123 [from memory]
+_GDH1_MEMORY = "Stein & Stein 1992, Nature 359, 123, GDH1 (from memory)"
+_GDH1_VERIFIED = "Stein & Stein 1992, Nature 359, 123 (verified secondary: Honda & Yuen 2004)"
 
 GDH1 = CoolingModel(
     name="gdh1",
@@ -332,15 +150,32 @@ GDH1 = CoolingModel(
         "cp = 1171 J/kg/K, rho_m = 3330, rho_w = 1000 kg/m^3, ridge depth 2600 m [from memory]; "
         "kappa = k/(rho_m cp) [derived]"
     ),
+    sources={
+        **dict.fromkeys(("plate_thickness_km", "mantle_temperature_c"), _GDH1_VERIFIED),
+        "surface_temperature_c": _SEAFLOOR_AT_0C,
+        "diffusivity_m2_s": "derived: k / (rho_m c_p) with c_p = 1171 J/kg/K, Stein & Stein "
+        "1992 (from memory)",
+        **dict.fromkeys(
+            (
+                "conductivity_w_m_k",
+                "expansivity_k",
+                "mantle_density_kg_m3",
+                "water_density_kg_m3",
+                "ridge_depth_m",
+            ),
+            _GDH1_MEMORY,
+        ),
+    },
 )
-"""GDH1 (Stein & Stein 1992, Nature 359, 123), PHYSICS.md section 3.3.
+"""GDH1 (Stein & Stein 1992, Nature 359, 123).
 
 Plate thickness a = 95 km and basal temperature Tm = 1450 deg C [verified (secondary): Honda &
 Yuen 2004 abstract]. alpha = 3.1e-5 /K, k = 3.138 W/m/K, c_p = 1171 J/kg/K, rho_m = 3330 kg/m^3,
 rho_w = 1000 kg/m^3 and ridge depth 2600 m are [from memory];
 kappa = k / (rho_m c_p) = 8.047e-7 m^2/s [derived]. The parameters reproduce the coefficients of
-the published GDH1 fits (365 m Ma^-1/2, 2473 m, 0.0278 /Ma, 510 and 48 mW/m^2) [derived,
-PHYSICS.md 3.3], which is strong evidence that the remembered values are right.
+the published GDH1 fits (365 m Ma^-1/2, 2473 m, 0.0278 /Ma, 510 and 48 mW/m^2) [derived;
+docs/physics.md, section "Lithosphere from plate age"], which is strong evidence that the
+remembered values are right.
 """
 
 _PS77_DECAY_MA = 62.8  # thermal time a^2 / (pi^2 kappa) in the depth fit, PS77 abstract [verified]
@@ -371,8 +206,23 @@ PS77 = CoolingModel(
         "a^2/(pi^2 kappa) = 62.8 Ma and k from q = 11.3 t^-1/2 ucal/cm^2/s [derived]; "
         "rho_m = 3330, rho_w = 1000 kg/m^3 [assumption, from memory]"
     ),
+    sources={
+        **dict.fromkeys(
+            ("plate_thickness_km", "mantle_temperature_c", "expansivity_k"),
+            "Parsons & Sclater 1977, JGR 82, 803, abstract (verified)",
+        ),
+        "surface_temperature_c": _SEAFLOOR_AT_0C,
+        "diffusivity_m2_s": "derived: a^2 / (pi^2 kappa) = 62.8 Ma, Parsons & Sclater 1977 "
+        "abstract (verified)",
+        "conductivity_w_m_k": "derived: q = 11.3 t^-1/2 ucal cm^-2 s^-1 = k Tm / sqrt(pi kappa t), "
+        "Parsons & Sclater 1977 abstract (verified)",
+        "mantle_density_kg_m3": "assumption (from memory)",
+        "water_density_kg_m3": "common practice (from memory)",
+        "ridge_depth_m": "Parsons & Sclater 1977 abstract: intercept of d = 2500 + 350 t^1/2 m "
+        "(verified)",
+    },
 )
-"""Parsons & Sclater (1977, JGR 82, 803) plate model, PHYSICS.md section 3.4.
+"""Parsons & Sclater (1977, JGR 82, 803) plate model.
 
 Plate thickness 125 km, basal temperature 1350 deg C, alpha = 3.2e-5 /K [verified: abstract;
 the paper gives +-10 km, +-275 deg C, +-1.1e-5]. Ridge depth 2500 m is the intercept of the
@@ -381,7 +231,7 @@ decay time a^2 / (pi^2 kappa) = 62.8 Ma of the fit d = 6400 - 3200 exp(-t/62.8) 
 k = 3.12 W/m/K follows from the heat-flow fit q = 11.3 t^-1/2 ucal cm^-2 s^-1
 (= 473 t^-1/2 mW/m^2) through q = k Tm / sqrt(pi kappa t) [derived]; it is close to the
 0.0075 cal/cm/s/K (3.14 W/m/K) commonly used at the time [from memory]. rho_m = 3330 kg/m^3 is
-an assumption (PHYSICS.md 3.4) and rho_w = 1000 kg/m^3 [from memory].
+an assumption [from memory] and rho_w = 1000 kg/m^3 [from memory].
 
 With these values the old-age heat flow is k Tm / a = 33.7 mW/m^2 (0.80 HFU) [derived]; an
 asymptote of 1.1 HFU that is sometimes quoted [from memory] cannot be reached by a single
@@ -394,22 +244,17 @@ COOLING_MODELS: types.MappingProxyType[str, CoolingModel] = types.MappingProxyTy
 """The named cooling models, by name (read-only)."""
 
 
-def _suggest(word: str, choices: Any) -> str:
-    close = difflib.get_close_matches(word, list(choices), n=1, cutoff=0.5)
-    return f" Did you mean {close[0]!r}?" if close else ""
-
-
-def get_cooling_model(name: str, **overrides: Any) -> CoolingModel:
+def get_cooling_model(name: str | CoolingModel, **overrides: Any) -> CoolingModel:
     """Return a named cooling model, optionally with some fields replaced.
 
     Parameters
     ----------
-    name : str
+    name : str or CoolingModel
         One of ``COOLING_MODELS`` (``"half-space"``, ``"gdh1"``, ``"ps77"``); case and
-        surrounding spaces are ignored.
+        surrounding spaces are ignored. A model object is used as it is.
     **overrides
         Fields of :class:`CoolingModel` to replace, e.g. ``mantle_temperature_c=1350.0``. The
-        copy is validated again.
+        copy is validated again, and its ``sources`` mark the replaced fields "user override".
 
     Returns
     -------
@@ -428,130 +273,7 @@ def get_cooling_model(name: str, **overrides: Any) -> CoolingModel:
     >>> get_cooling_model("GDH1", plate_thickness_km=100.0).plate_thickness_km
     100.0
     """
-    if not isinstance(name, str):
-        msg = (
-            f"Cooling model name must be a string, got {type(name).__name__} {name!r}; use one "
-            f"of {', '.join(repr(n) for n in COOLING_MODELS)}."
-        )
-        raise ModelError(msg)
-    key = name.strip().lower()
-    if key not in COOLING_MODELS:
-        msg = (
-            f"Unknown cooling model {name!r}; valid names are "
-            f"{', '.join(repr(n) for n in COOLING_MODELS)}.{_suggest(key, COOLING_MODELS)}"
-        )
-        raise ModelError(msg)
-    model = COOLING_MODELS[key]
-    if not overrides:
-        return model
-    fields = [f.name for f in dataclasses.fields(CoolingModel)]
-    for field in overrides:
-        if field not in fields:
-            msg = (
-                f"Unknown cooling-model parameter {field!r} for {key!r}; valid parameters are "
-                f"{', '.join(fields)}.{_suggest(field, fields)}"
-            )
-            raise ModelError(msg)
-    return dataclasses.replace(model, **overrides)
-
-
-# --------------------------------------------------------------------------------------------
-# Dimensionless kernels. zeta = z / a, tau = kappa t / a^2, theta = (T - T0) / (Tm - T0).
-# --------------------------------------------------------------------------------------------
-
-
-def _theta_fourier(zeta: np.ndarray, tau: np.ndarray) -> np.ndarray:
-    """Plate temperature by the Fourier series (PHYSICS.md 3.2; McKenzie 1967 [from memory]).
-
-    theta = zeta + (2/pi) sum_n (1/n) exp(-n^2 pi^2 tau) sin(n pi zeta). For tau >= 0.1.
-    """
-    theta = zeta.copy()
-    for n in range(1, _FOURIER_TERMS + 1):
-        theta += (
-            (2.0 / (math.pi * n)) * np.exp(-(n * n) * math.pi**2 * tau) * np.sin(n * math.pi * zeta)
-        )
-    return theta
-
-
-def _theta_images(zeta: np.ndarray, tau: np.ndarray) -> np.ndarray:
-    """Plate temperature by images, for 0 < tau < 0.1 [derived; Carslaw & Jaeger 1959, from memory].
-
-    1 - theta = sum_k [erfc((2k + zeta) / (2 sqrt(tau))) - erfc((2k + 2 - zeta) / (2 sqrt(tau)))],
-    which is 1 at zeta = 0, 0 at zeta = 1 and 0 everywhere inside at tau = 0. The k = 0 term
-    alone is the half-space solution.
-    """
-    inv = 0.5 / np.sqrt(tau)
-    u = np.zeros_like(zeta)
-    for k in range(_IMAGE_TERMS):
-        u += special.erfc((2 * k + zeta) * inv) - special.erfc((2 * k + 2 - zeta) * inv)
-    return 1.0 - u
-
-
-def _theta_plate(zeta: np.ndarray, tau: np.ndarray) -> np.ndarray:
-    """Plate temperature for 0 <= zeta <= 1 and tau > 0 (1-D arrays of equal length)."""
-    theta = np.empty_like(tau)
-    small = tau < _TAU_SWITCH
-    if small.any():
-        theta[small] = _theta_images(zeta[small], tau[small])
-    big = ~small
-    if big.any():
-        theta[big] = _theta_fourier(zeta[big], tau[big])
-    return theta
-
-
-def _ierfc(x: np.ndarray) -> np.ndarray:
-    """First integral of erfc, exp(-x^2)/sqrt(pi) - x erfc(x) (Abramowitz & Stegun 1964, 7.2)."""
-    return np.exp(-x * x) / math.sqrt(math.pi) - x * special.erfc(x)
-
-
-def _plate_subsidence_fraction(tau: np.ndarray) -> np.ndarray:
-    """Subsidence as a fraction of its limit, for tau > 0.
-
-    Fourier form (PHYSICS.md 3.2): 1 - (8/pi^2) sum_{n odd} exp(-n^2 pi^2 tau) / n^2.
-    Image form for tau < 0.1 [derived]: 2 * integral_0^1 (1 - theta) dzeta
-    = 2 s sum_k [ierfc(2k/s) - 2 ierfc((2k+1)/s) + ierfc((2k+2)/s)], s = 2 sqrt(tau).
-    """
-    out = np.empty_like(tau)
-    small = tau < _TAU_SWITCH
-    if small.any():
-        s = 2.0 * np.sqrt(tau[small])
-        acc = np.zeros_like(s)
-        for k in range(_IMAGE_TERMS):
-            acc += _ierfc(2 * k / s) - 2.0 * _ierfc((2 * k + 1) / s) + _ierfc((2 * k + 2) / s)
-        out[small] = 2.0 * s * acc
-    big = ~small
-    if big.any():
-        tb = tau[big]
-        acc = np.zeros_like(tb)
-        for n in range(1, 2 * _FOURIER_TERMS, 2):
-            acc += np.exp(-(n * n) * math.pi**2 * tb) / (n * n)
-        out[big] = 1.0 - (8.0 / math.pi**2) * acc
-    return out
-
-
-def _plate_heat_flow_factor(tau: np.ndarray) -> np.ndarray:
-    """q a / (k (Tm - T0)) for tau > 0.
-
-    Fourier form (PHYSICS.md 3.2): 1 + 2 sum_n exp(-n^2 pi^2 tau). Image form for tau < 0.1
-    (the same theta function after Poisson summation [derived]):
-    (1 + 2 sum_k exp(-k^2 / tau)) / sqrt(pi tau).
-    """
-    out = np.empty_like(tau)
-    small = tau < _TAU_SWITCH
-    if small.any():
-        ts = tau[small]
-        acc = np.ones_like(ts)
-        for k in range(1, _IMAGE_TERMS):
-            acc += 2.0 * np.exp(-(k * k) / ts)
-        out[small] = acc / np.sqrt(math.pi * ts)
-    big = ~small
-    if big.any():
-        tb = tau[big]
-        acc = np.ones_like(tb)
-        for n in range(1, _FOURIER_TERMS + 1):
-            acc += 2.0 * np.exp(-(n * n) * math.pi**2 * tb)
-        out[big] = acc
-    return out
+    return lookup(name, COOLING_MODELS, "cooling model", CoolingModel, **overrides)
 
 
 # --------------------------------------------------------------------------------------------
@@ -608,13 +330,14 @@ def temperature_c(
 
     Notes
     -----
-    Half-space (Turcotte & Schubert, Geodynamics, section 4.15 [from memory]; PHYSICS.md 3.1):
+    Half-space (Turcotte & Schubert 2002, Geodynamics, section 4.15 [from memory]):
     T = T0 + (Tm - T0) erf(z / (2 sqrt(kappa t))).
 
     Plate of thickness a (Parsons & Sclater 1977; McKenzie 1967 [forms from memory];
-    PHYSICS.md 3.2): T = T0 + (Tm - T0) [z/a + (2/pi) sum (1/n) exp(-n^2 pi^2 kappa t/a^2)
-    sin(n pi z/a)] for 0 <= z <= a and Tm below; evaluated by the equivalent image series at
-    small ages (see the module docstring). At t = 0 the temperature is Tm below the surface.
+    docs/physics.md, section "Lithosphere from plate age"):
+    T = T0 + (Tm - T0) [z/a + (2/pi) sum (1/n) exp(-n^2 pi^2 kappa t/a^2) sin(n pi z/a)] for
+    0 <= z <= a and Tm below; evaluated by the equivalent image series at small ages (see the
+    module docstring). At t = 0 the temperature is Tm below the surface.
 
     Examples
     --------
@@ -642,7 +365,7 @@ def temperature_c(
         zeta = z / model.plate_thickness_km
         inside = zeta < 1.0
         th = np.ones_like(zeta)
-        th[inside] = _theta_plate(zeta[inside], t[inside] * _tau_per_ma(model))
+        th[inside] = _plate.theta(zeta[inside], t[inside] * _tau_per_ma(model))
         theta[cooling] = th
     dt = model.mantle_temperature_c - model.surface_temperature_c
     out = model.surface_temperature_c + dt * theta
@@ -669,41 +392,15 @@ def _check_isotherm(isotherm_c: Any, model: CoolingModel) -> float:
     return value
 
 
-def _plate_isotherm_direct(theta_star: float, tau: np.ndarray) -> np.ndarray:
-    """zeta at which theta(zeta, tau) = theta_star, by vectorized bisection (tau > 0).
-
-    theta increases monotonically with zeta in the plate (tested), from 0 at the surface to 1 at
-    the base, so the root is unique and bisection on [0, 1] converges to 2^-60 of a.
-    """
-    lo = np.zeros_like(tau)
-    hi = np.ones_like(tau)
-    for _ in range(_BISECTION_STEPS):
-        mid = 0.5 * (lo + hi)
-        above = _theta_plate(mid, tau) >= theta_star
-        hi = np.where(above, mid, hi)
-        lo = np.where(above, lo, mid)
-    return 0.5 * (lo + hi)
-
-
 @functools.lru_cache(maxsize=64)
 def _plate_isotherm_table(model: CoolingModel, isotherm_c: float) -> tuple[float, np.ndarray]:
     """Isotherm depth (km) on a uniform grid of sqrt(age / Ma); returns (1/step, depths).
 
-    The grid runs from age 0 to the age at which tau = 3, where the geotherm is linear to
-    within exp(-3 pi^2) ~ 1e-13 of a; older ages take the last node. Depth is close to linear in
-    sqrt(age) at small ages (half-space regime), which keeps linear interpolation accurate.
+    Cached per (model, isotherm); see :func:`lidmelt.physics._plate.isotherm_depth_table`.
     """
     dt = model.mantle_temperature_c - model.surface_temperature_c
     theta_star = (isotherm_c - model.surface_temperature_c) / dt
-    s_max = math.sqrt(_TABLE_TAU_MAX / _tau_per_ma(model))
-    s = np.linspace(0.0, s_max, _TABLE_NODES)
-    depth = np.zeros_like(s)
-    if theta_star > 0.0:
-        depth[1:] = model.plate_thickness_km * _plate_isotherm_direct(
-            theta_star, s[1:] ** 2 * _tau_per_ma(model)
-        )
-    depth.setflags(write=False)
-    return (_TABLE_NODES - 1) / s_max, depth
+    return _plate.isotherm_depth_table(theta_star, _tau_per_ma(model), model.plate_thickness_km)
 
 
 def isotherm_depth_km(
@@ -735,15 +432,15 @@ def isotherm_depth_km(
 
     Notes
     -----
-    Half-space (Turcotte & Schubert, Geodynamics, sections 4.15-4.16 [from memory];
-    PHYSICS.md 3.1): z_T = 2 sqrt(kappa t) erfinv((T - T0) / (Tm - T0)).
+    Half-space (Turcotte & Schubert 2002, Geodynamics, sections 4.15-4.16 [from memory]):
+    z_T = 2 sqrt(kappa t) erfinv((T - T0) / (Tm - T0)).
 
     Plate: the root of T(z, t) = T_iso with the plate temperature of :func:`temperature_c`,
     tabulated once per (model, isotherm) on 4097 nodes uniform in sqrt(age) by bisection and
     interpolated linearly (error < 2 cm up to 0.9 Tm, < 0.3 m at Tm - 1 K; tested against a
     direct root-find within 1 m). It can
-    never exceed the plate thickness; at old ages it tends to a (T - T0)/(Tm - T0)
-    (PHYSICS.md trap 12).
+    never exceed the plate thickness; at old ages it tends to a (T - T0)/(Tm - T0) [derived from
+    the steady linear geotherm].
 
     Examples
     --------
@@ -797,10 +494,10 @@ def seafloor_depth_m(age_ma: npt.ArrayLike, *, model: CoolingModel) -> np.ndarra
 
     Notes
     -----
-    Half-space (Turcotte & Schubert, Geodynamics, section 4.23 [from memory]; PHYSICS.md 3.1):
+    Half-space (Turcotte & Schubert 2002, Geodynamics, section 4.23 [from memory]):
     w = d_r + 2 rho_m alpha (Tm - T0) sqrt(kappa t / pi) / (rho_m - rho_w).
 
-    Plate (Parsons & Sclater 1977 [form from memory]; PHYSICS.md 3.2):
+    Plate (Parsons & Sclater 1977 [form from memory]):
     d = d_r + rho_m alpha (Tm - T0) a / (2 (rho_m - rho_w)) [1 - (8/pi^2) sum_{n odd}
     exp(-n^2 pi^2 kappa t / a^2) / n^2], with the image form at small ages.
 
@@ -836,7 +533,7 @@ def seafloor_depth_m(age_ma: npt.ArrayLike, *, model: CoolingModel) -> np.ndarra
         )
         frac = np.zeros(t.shape)
         pos = t > 0.0
-        frac[pos] = _plate_subsidence_fraction(t[pos] * _tau_per_ma(model))
+        frac[pos] = _plate.subsidence_fraction(t[pos] * _tau_per_ma(model))
         out[ok] = model.ridge_depth_m + limit * frac[ok]
     return out[()]
 
@@ -858,10 +555,10 @@ def heat_flow_mw_m2(age_ma: npt.ArrayLike, *, model: CoolingModel) -> np.ndarray
 
     Notes
     -----
-    Half-space (Turcotte & Schubert, Geodynamics, section 4.16 [from memory]; PHYSICS.md 3.1):
+    Half-space (Turcotte & Schubert 2002, Geodynamics, section 4.16 [from memory]):
     q = k (Tm - T0) / sqrt(pi kappa t).
 
-    Plate (Parsons & Sclater 1977 [form from memory]; PHYSICS.md 3.2):
+    Plate (Parsons & Sclater 1977 [form from memory]):
     q = k (Tm - T0) / a [1 + 2 sum_n exp(-n^2 pi^2 kappa t / a^2)], with the equivalent
     (Poisson-summed) form at small ages.
 
@@ -886,5 +583,5 @@ def heat_flow_mw_m2(age_ma: npt.ArrayLike, *, model: CoolingModel) -> np.ndarray
         out[pos] = coef / np.sqrt(t[pos])
     else:
         q_inf = 1e3 * model.conductivity_w_m_k * dt / (model.plate_thickness_km * 1e3)
-        out[pos] = q_inf * _plate_heat_flow_factor(t[pos] * _tau_per_ma(model))
+        out[pos] = q_inf * _plate.heat_flow_factor(t[pos] * _tau_per_ma(model))
     return out[()]

@@ -22,13 +22,13 @@ References
 from __future__ import annotations
 
 import dataclasses
-import difflib
 from dataclasses import dataclass, field
 from typing import Any, ClassVar
 
 import numpy as np
 
 from lidmelt.errors import ModelError
+from lidmelt.physics._registry import lookup
 
 GPA = 1.0e9  # Pa per GPa (definition)
 
@@ -62,8 +62,9 @@ class MeltingModel:
     solid_density_kg_m3, melt_density_kg_m3 : float
         Densities rho_s, rho_f used in the isentrope. Units: kg m^-3.
     lithostatic_density_kg_m3, gravity_m_s2 : float
-        Pressure below the seafloor is P = rho g z (lidmelt's fixed definition, PHYSICS.md
-        section 8). Defaults 3300 kg m^-3 and 9.81 m s^-2: common practice, no single source.
+        Pressure below the seafloor is P = rho g z (lidmelt's fixed definition, docs/physics.md,
+        section "Definitions lidmelt fixes"). Defaults 3300 kg m^-3 and 9.81 m s^-2: common
+        practice, no single source.
     max_onset_pressure_gpa : float
         Deepest pressure searched for the solidus crossing. Units: GPa.
     calibrated_max_pressure_gpa : float
@@ -87,13 +88,26 @@ class MeltingModel:
     sources: dict[str, str] = field(default_factory=dict, compare=False, hash=False, repr=False)
 
     hydrous: ClassVar[bool] = False
+    #: Fields that identify the model; :func:`get_model` overrides may not change them.
+    FIXED_FIELDS: ClassVar[tuple[str, ...]] = ("name", "reference")
 
     def __post_init__(self) -> None:
         for f in dataclasses.fields(self):
+            if f.type not in ("float", float):
+                continue
             value = getattr(self, f.name)
-            if f.type in ("float", float) and not (np.isfinite(value)):
+            try:
+                number = float(value)
+            except (TypeError, ValueError):
+                msg = (
+                    f"model parameter {f.name}={value!r} must be a number (SI units as its "
+                    "suffix says). Check the override in the workflow's [model.parameters]."
+                )
+                raise ModelError(msg) from None
+            if not np.isfinite(number):
                 msg = f"model parameter {f.name}={value!r} must be a finite number."
                 raise ModelError(msg)
+            object.__setattr__(self, f.name, number)
         positive = (
             "specific_heat_j_kg_k",
             "entropy_of_melting_j_kg_k",
@@ -149,7 +163,9 @@ class MeltingModel:
     def adiabat_coefficient_per_gpa(self) -> float:
         """alpha_s / (rho_s c_p) in GPa^-1: the solid isentrope is T = Tp exp(coef * P), T in K.
 
-        Follows from ds = c_p dT/T - (alpha_s/rho_s) dP = 0 (PHYSICS.md 1.4) [derived].
+        Follows from ds = c_p dT/T - (alpha_s/rho_s) dP = 0, the entropy balance of Katz et al.
+        2003 (eq. 20 [from memory]) with F = 0 [derived; docs/physics.md, section "Isentropic
+        decompression melting"].
         """
         return (
             self.solid_expansivity_k / (self.solid_density_kg_m3 * self.specific_heat_j_kg_k) * GPA
@@ -218,7 +234,7 @@ class KatzModel(MeltingModel):
 
     Temperatures in deg C, pressures in GPa, water in wt%. All constants are from Table 2 of
     [Katz2003]_, verified (secondary) against a geodynamics code's parameter header that quotes
-    the table (PHYSICS.md 1.2), except where a field's source says [from memory].
+    the table, except where a field's source says [from memory].
 
     Notes
     -----
@@ -233,8 +249,9 @@ class KatzModel(MeltingModel):
         F = F_cpx-out + (1 - F_cpx-out) ((T - T_cpx-out)/(T_liq - T_cpx-out))^beta2
 
     Water lowers every branch by Delta T = K X^gamma with X = min(X_bulk/(D + F(1 - D)), X_sat)
-    and X_sat = chi1 P^lambda + chi2 P (batch partitioning, [Katz2003]_ section 2.3; PHYSICS.md
-    1.3). Inverted for T at given F, both branches are explicit, so this class returns T(P, F).
+    and X_sat = chi1 P^lambda + chi2 P (batch partitioning, [Katz2003]_ section 2.3; forms from
+    memory, the capped F-dependent shift verified secondary). Inverted for T at given F, both
+    branches are explicit, so this class returns T(P, F).
     """
 
     solidus_a1_c: float = 1085.7
@@ -342,15 +359,15 @@ class McKenzieBickleModel(MeltingModel):
 
     Notes
     -----
-    All forms and constants are [from memory] (PHYSICS.md 2; the paper was not at hand)::
+    All forms and constants are [from memory] ([MB1988]_; the paper was not at hand)::
 
         P = (T_s - s0)/s1 + s2 exp[s3 (T_s - s0)]       (solidus, implicit in T_s)
         T_l = l0 + l1 P + l2 atan(P / l3)                (liquidus)
         T' = (T - (T_s + T_l)/2) / (T_l - T_s)
         F = 0.5 + T' + (T'^2 - 0.25)(a0 + a1 T')
 
-    The thermodynamic constants of the isentrope are not verified (PHYSICS.md 2: c_p = 1200,
-    alpha = 4e-5, Delta S = 250, [from memory, low confidence]). The model is anhydrous: a
+    The thermodynamic constants of the isentrope are not verified (c_p = 1200 J/kg/K,
+    alpha = 4e-5 /K, Delta S = 250 J/kg/K [from memory, low confidence]). The model is anhydrous: a
     source with water is outside it and is flagged invalid.
     """
 
@@ -417,8 +434,24 @@ class McKenzieBickleModel(MeltingModel):
         return np.where(w > 0, np.nan, t) if np.any(w) else t
 
 
-_KATZ_SOURCES = {
-    **dict.fromkeys(
+#: Sources of the parameters every model shares by lidmelt's definition.
+_DEFINITION_SOURCES = {
+    "lithostatic_density_kg_m3": "lidmelt definition, common practice",
+    "gravity_m_s2": "lidmelt definition, common practice",
+}
+
+
+def _sources(*groups: tuple[tuple[str, ...], str], **single: str) -> dict[str, str]:
+    """Per-parameter sources: each group gives one source to several parameters."""
+    out = dict(_DEFINITION_SOURCES)
+    for names, source in groups:
+        out.update(dict.fromkeys(names, source))
+    out.update(single)
+    return out
+
+
+_KATZ_SOURCES = _sources(
+    (
         (
             "solidus_a1_c",
             "solidus_a2_c_gpa",
@@ -444,16 +477,45 @@ _KATZ_SOURCES = {
         ),
         "Katz et al. 2003, Table 2 (verified secondary)",
     ),
-    "cpx_mass_fraction": "Katz et al. 2003, fertile lherzolite (from memory)",
-    "solid_expansivity_k": "Katz et al. 2003, Table 2 (from memory)",
-    "melt_expansivity_k": "Katz et al. 2003, Table 2 (from memory)",
-    "solid_density_kg_m3": "Katz et al. 2003, Table 2 (from memory)",
-    "melt_density_kg_m3": "Katz et al. 2003, Table 2 (from memory)",
-    "lithostatic_density_kg_m3": "lidmelt definition, common practice",
-    "gravity_m_s2": "lidmelt definition, common practice",
-    "max_onset_pressure_gpa": "turnover of the Katz solidus quadratic at 13.03 GPa [derived]",
-    "calibrated_max_pressure_gpa": "onsets beyond ~7 GPa extrapolate the experiments (from memory)",
-}
+    (
+        ("solid_expansivity_k", "melt_expansivity_k", "solid_density_kg_m3", "melt_density_kg_m3"),
+        "Katz et al. 2003, Table 2 (from memory)",
+    ),
+    cpx_mass_fraction="Katz et al. 2003, fertile lherzolite (from memory)",
+    max_onset_pressure_gpa="turnover of the Katz solidus quadratic at 13.03 GPa [derived]",
+    calibrated_max_pressure_gpa="onsets beyond ~7 GPa extrapolate the experiments (from memory)",
+)
+
+_MB1988_SOURCES = _sources(
+    (
+        (
+            "solidus_s0_c",
+            "solidus_s1_c_gpa",
+            "solidus_s2_gpa",
+            "solidus_s3_per_c",
+            "liquidus_l0_c",
+            "liquidus_l1_c_gpa",
+            "liquidus_l2_c",
+            "liquidus_l3_gpa",
+            "fraction_a0",
+            "fraction_a1",
+        ),
+        "McKenzie & Bickle 1988 (from memory)",
+    ),
+    (
+        (
+            "specific_heat_j_kg_k",
+            "entropy_of_melting_j_kg_k",
+            "solid_expansivity_k",
+            "melt_expansivity_k",
+            "solid_density_kg_m3",
+            "melt_density_kg_m3",
+        ),
+        "McKenzie & Bickle 1988 (from memory, low confidence)",
+    ),
+    max_onset_pressure_gpa="lidmelt search limit (upper mantle)",
+    calibrated_max_pressure_gpa="lidmelt choice, as for Katz 2003 (from memory)",
+)
 
 KATZ2003 = KatzModel(
     name="katz2003",
@@ -480,38 +542,7 @@ MCKENZIE_BICKLE1988 = McKenzieBickleModel(
     melt_density_kg_m3=3300.0,
     calibrated_max_pressure_gpa=7.0,
     reference="McKenzie, D. & Bickle, M. J. (1988), J. Petrology 29, 625-679 (forms from memory)",
-    sources={
-        **dict.fromkeys(
-            (
-                "solidus_s0_c",
-                "solidus_s1_c_gpa",
-                "solidus_s2_gpa",
-                "solidus_s3_per_c",
-                "liquidus_l0_c",
-                "liquidus_l1_c_gpa",
-                "liquidus_l2_c",
-                "liquidus_l3_gpa",
-                "fraction_a0",
-                "fraction_a1",
-            ),
-            "McKenzie & Bickle 1988 (from memory)",
-        ),
-        **dict.fromkeys(
-            (
-                "specific_heat_j_kg_k",
-                "entropy_of_melting_j_kg_k",
-                "solid_expansivity_k",
-                "melt_expansivity_k",
-                "solid_density_kg_m3",
-                "melt_density_kg_m3",
-            ),
-            "McKenzie & Bickle 1988 (from memory, low confidence)",
-        ),
-        "lithostatic_density_kg_m3": "lidmelt definition, common practice",
-        "gravity_m_s2": "lidmelt definition, common practice",
-        "max_onset_pressure_gpa": "lidmelt search limit (upper mantle)",
-        "calibrated_max_pressure_gpa": "lidmelt choice, as for Katz 2003 (from memory)",
-    },
+    sources=_MB1988_SOURCES,
 )
 
 MODELS: dict[str, MeltingModel] = {m.name: m for m in (KATZ2003, MCKENZIE_BICKLE1988)}
@@ -523,42 +554,17 @@ def get_model(name: str | MeltingModel = "katz2003", **parameters: Any) -> Melti
     Parameters
     ----------
     name : str or MeltingModel
-        A registry name (``"katz2003"``, ``"mckenzie-bickle1988"``) or a model object.
+        A registry name (``"katz2003"``, ``"mckenzie-bickle1988"``; case and surrounding spaces
+        are ignored) or a model object.
     **parameters
-        Overrides of named fields, e.g. ``cpx_mass_fraction=0.15``. The variant keeps the name
-        and its parameter values travel with every result made from it.
+        Overrides of named fields, e.g. ``cpx_mass_fraction=0.15``. The variant keeps the name,
+        its ``sources`` mark the overridden fields "user override", and its parameter values
+        travel with every result made from it.
 
     Raises
     ------
     ModelError
-        Unknown model name or parameter name, or an invalid value.
+        Unknown model name or parameter name (the message suggests the nearest), or an invalid
+        value.
     """
-    if isinstance(name, MeltingModel):
-        base = name
-    else:
-        key = str(name).strip().lower()
-        if key not in MODELS:
-            near = difflib.get_close_matches(key, list(MODELS), n=1)
-            hint = f" Did you mean {near[0]!r}?" if near else ""
-            msg = f"unknown melting model {name!r}. Valid models: {', '.join(MODELS)}.{hint}"
-            raise ModelError(msg)
-        base = MODELS[key]
-    if not parameters:
-        return base
-    valid = list(base.parameters())
-    for key in parameters:
-        if key not in valid:
-            near = difflib.get_close_matches(key, valid, n=1)
-            hint = f" Did you mean {near[0]!r}?" if near else ""
-            msg = (
-                f"{base.name} has no parameter {key!r}.{hint} Valid parameters: {', '.join(valid)}."
-            )
-            raise ModelError(msg)
-    try:
-        values = {k: float(v) for k, v in parameters.items()}
-    except (TypeError, ValueError) as exc:
-        msg = f"model parameters must be numbers; got {parameters!r}."
-        raise ModelError(msg) from exc
-    sources = dict(base.sources)
-    sources.update(dict.fromkeys(values, "user override"))
-    return dataclasses.replace(base, sources=sources, **values)
+    return lookup(name, MODELS, "melting model", MeltingModel, **parameters)

@@ -6,7 +6,7 @@ F(P, T) taken by central differences of :meth:`MeltingModel.melt_fraction`,
 
     dT/dP = (T / c_p) (abar - Delta S F_P) / (1 + T Delta S F_T / c_p)
 
-(PHYSICS.md 1.4, [Katz2003]_ eq. 20 rearranged; T in K, P in Pa), integrated from the onset to
+(Katz et al. 2003, eq. 20 rearranged [from memory]; T in K, P in Pa), integrated from the onset to
 the top of melting with an adaptive Runge-Kutta method, and H = integral of F dz by quadrature of
 the dense output. It shares only the melting law and the constants with
 :mod:`lidmelt.physics.column`, not the discretisation, so the tests use it as a cross-check and

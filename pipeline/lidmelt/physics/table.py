@@ -6,8 +6,9 @@ from the onset to the surface. The table stores them on nodes of Tp, water and p
 onset pressure on nodes of Tp and water; evaluation is interpolation (bilinear in Tp and pressure,
 linear in the water coordinate u = water^0.75, in which the Katz solidus depression is linear
 below saturation). Cells outside the table, or next to a node with no onset, are integrated
-directly, so results are never clipped. The worst-case error against the direct integration is
-measured in tests/test_table.py over the whole supported range.
+directly (by :mod:`lidmelt.physics.evaluate`, which turns the interpolated values into outputs
+and flags), so results are never clipped. The worst-case error against the direct integration
+is measured in tests/test_table.py over the whole supported range.
 
 Tables are cached on disk (``$LIDMELT_CACHE_DIR``, else ``$XDG_CACHE_HOME/lidmelt``, else
 ``~/.cache/lidmelt``) under a SHA-256 of the model's class, every parameter value and the table
@@ -20,31 +21,28 @@ import contextlib
 import hashlib
 import json
 import os
-import tempfile
 from dataclasses import asdict, dataclass
 from functools import lru_cache
 from pathlib import Path
 
 import numpy as np
 
-from lidmelt.physics.column import (
-    COLUMN_OUTPUTS,
-    FLAG_BEYOND_CALIBRATION,
-    FLAG_NO_ONSET,
-    ColumnResult,
-    _direct,
-    finish_outputs,
-    input_flags,
-    integrate_columns,
-    onset_pressure_gpa,
-    refine_onset_gpa,
-    top_of_melting_km,
-)
+from lidmelt.files import atomic_path
+from lidmelt.physics.column import integrate_columns, onset_pressure_gpa
 from lidmelt.physics.melting import MeltingModel, get_model
+
+__all__ = [
+    "FALLBACK_STEP_GPA",
+    "TABLE_FORMAT",
+    "MeltTable",
+    "TableLayout",
+    "cache_dir",
+    "get_table",
+    "table_key",
+]
 
 TABLE_FORMAT = 1
 WATER_EXPONENT = 0.75  # the water coordinate u = water^0.75 (Katz et al. 2003 gamma)
-_BLOCK = 1 << 16
 # Step of the direct integration for the few cells the table cannot do: 0.04 GPa changes melt
 # thickness by < 4e-4 km against 0.0025 GPa (tests/test_column.py::test_step_convergence), far
 # inside the table tolerance, and is 4 times faster than the default step.
@@ -84,7 +82,10 @@ def table_key(model: MeltingModel, layout: TableLayout) -> str:
 
 
 class MeltTable:
-    """Tabulated melting columns of one model; evaluate with :meth:`melt_column`."""
+    """Tabulated melting columns of one model.
+
+    Evaluate it with ``lidmelt.physics.melt_column(..., table=table)``.
+    """
 
     def __init__(self, model: MeltingModel, layout: TableLayout, arrays: dict[str, np.ndarray]):
         self.model = model
@@ -135,24 +136,17 @@ class MeltTable:
         return cls(model, layout, arrays)
 
     def save(self, path: Path) -> None:
-        """Write the table as .npz through a temporary file renamed into place."""
-        path.parent.mkdir(parents=True, exist_ok=True)
-        fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=".tmp-", suffix=".npz")
-        try:
-            with os.fdopen(fd, "wb") as fh:
-                np.savez(
-                    fh,
-                    tp_c=self.tp_c,
-                    water_u=self.water_u,
-                    pressure_gpa=self.pressure_gpa,
-                    onset_gpa=self.onset_gpa,
-                    values=self.values,
-                    key=np.array(table_key(self.model, self.layout)),
-                )
-            Path(tmp).replace(path)
-        except BaseException:
-            Path(tmp).unlink(missing_ok=True)
-            raise
+        """Write the table as .npz, atomically (:func:`lidmelt.files.atomic_path`)."""
+        with atomic_path(path) as tmp, tmp.open("wb") as fh:
+            np.savez(
+                fh,
+                tp_c=self.tp_c,
+                water_u=self.water_u,
+                pressure_gpa=self.pressure_gpa,
+                onset_gpa=self.onset_gpa,
+                values=self.values,
+                key=np.array(table_key(self.model, self.layout)),
+            )
 
     @classmethod
     def load(cls, path: Path, model: MeltingModel, layout: TableLayout) -> MeltTable | None:
@@ -174,7 +168,8 @@ class MeltTable:
 
         Linear interpolation errs by about h^2 |P0''| / 8; intervals where the second difference
         of the onset says that exceeds 0.02 km, or that touch a node without an onset (near the
-        tangency of isentrope and solidus, PHYSICS.md trap 7), are integrated directly instead.
+        tangency of isentrope and solidus, where the Katz et al. 2003 solidus quadratic turns
+        over), are integrated directly instead.
         """
         km = float(self.model.depth_km(1.0))
         second = np.full(onset.shape, np.inf)
@@ -201,14 +196,15 @@ class MeltTable:
                 self._rough = along_tp[:, :-1] | along_tp[:, 1:] | near_w[:-1] | near_w[1:]
         return self._rough
 
-    def _water_index(self, water):
+    def water_index(self, water):
+        """Lower water node index and the fraction towards the next node (water coordinate)."""
         if self.water_u.size == 1:
             return np.zeros(np.shape(water), np.intp), np.zeros(np.shape(water))
         u = np.maximum(water, 0.0) ** WATER_EXPONENT / (self.water_u[1] - self.water_u[0])
         j = np.clip(u.astype(np.intp), 0, self.water_u.size - 2)
         return j, u - j
 
-    def _slice(self, water: float) -> tuple[np.ndarray, float]:
+    def water_slice(self, water: float) -> tuple[np.ndarray, float]:
         """The table at one water content, packed for one gather per cell.
 
         Row i * (n_p - 1) + k holds the 4 corners (i, k), (i, k + 1), (i + 1, k), (i + 1, k + 1)
@@ -221,7 +217,7 @@ class MeltTable:
         if key not in self._slices:
             j, a = (
                 int(v) if n == 0 else float(v)
-                for n, v in enumerate(self._water_index(np.array(key)))
+                for n, v in enumerate(self.water_index(np.array(key)))
             )
             j1 = min(j + 1, self.water_u.size - 1)
             vals = (1 - a) * self.values[:, j] + a * self.values[:, j1]
@@ -258,144 +254,6 @@ class MeltTable:
                 & (water >= 0)
                 & (water <= lay.water_max_wt_pct)
             )
-
-    def _fast(self, tp, lid, water, min_top_km, out):
-        """One-water evaluation into ``out`` (dict of 1-D arrays); return cells it cannot do.
-
-        The cells it returns (invalid inputs, outside the table, rough or without onset,
-        saturated water) are left for :func:`lidmelt.physics.column._direct`, which is exact.
-        """
-        model, lay = self.model, self.layout
-        packed, no_onset_from = self._slice(water)
-        n_tp, n_p = self.tp_c.size, self.pressure_gpa.size
-        gpa_per_km = float(model.pressure_gpa(1.0))
-        km_per_gpa = 1.0 / gpa_per_km
-        sol0 = float(model.solidus_c(0.0, 0.0))
-        tp_lo = max(lay.tp_min_c, np.nextafter(sol0, np.inf))
-        p_sat = _saturation_onset_gpa(model, water)
-        cal = model.calibrated_max_pressure_gpa
-        special = np.zeros(tp.size, bool)
-        x_hi = n_tp - 1.0
-        inv_dtp, inv_dp = 1.0 / lay.tp_step_k, 1.0 / lay.pressure_step_gpa
-        x_lo = (tp_lo - lay.tp_min_c) * inv_dtp
-        for start in range(0, tp.size, _BLOCK):
-            sl = slice(start, start + _BLOCK)
-            lb = lid[sl]
-            x = (tp[sl] - lay.tp_min_c) * inv_dtp
-            top_km = np.maximum(lb, min_top_km)
-            top_p = top_km * gpa_per_km
-            y = top_p * inv_dp
-            with np.errstate(invalid="ignore"):  # NaN cells are sent to _direct below
-                i = x.astype(np.intp)
-                k = y.astype(np.intp)
-            a = (x - i).astype(np.float32)[:, None]
-            b = (y - k).astype(np.float32)[:, None]
-            # indices of invalid cells may be garbage: mode="clip" keeps the gather in bounds
-            v = np.take(packed, i * (n_p - 1) + np.minimum(k, n_p - 2), axis=0, mode="clip")
-            v0 = v[:, 0:4] + b * (v[:, 4:8] - v[:, 0:4])
-            r = v0 + a * (v[:, 8:12] + b * (v[:, 12:16] - v[:, 8:12]) - v0)
-            p_on = r[:, 3]
-            with np.errstate(invalid="ignore", divide="ignore"):
-                no_onset = tp[sl] >= no_onset_from
-                special[sl] = ~(
-                    (x >= x_lo) & (x <= x_hi) & (lb >= 0) & ((p_on >= p_sat) | no_onset)
-                )
-                melting = p_on > top_p
-                h = np.where(melting, r[:, 0], np.where(no_onset, np.nan, 0.0))
-                f = np.where(melting, r[:, 1], np.where(no_onset, np.nan, 0.0))
-                # the mean pressure of melting lies between the top and the onset [derived]
-                mean_p = np.clip(r[:, 2] / f, top_p, p_on)
-                out["mean_melt_pressure_gpa"][sl] = np.where(f > 0, mean_p, np.nan)
-            out["melt_thickness_km"][sl] = h
-            out["max_melt_fraction"][sl] = f
-            out["onset_pressure_gpa"][sl] = p_on
-            np.multiply(p_on, km_per_gpa, out=out["onset_depth_km"][sl])
-            out["lid_depth_km"][sl] = top_km
-            out["flag"][sl] = np.where(
-                no_onset, FLAG_NO_ONSET, (p_on > cal) * np.uint8(FLAG_BEYOND_CALIBRATION)
-            )
-        return special
-
-    def _general(self, tp, lid, w, min_top_km):
-        """Evaluation where the water content varies: trilinear, onsets refined by Newton."""
-        model, lay = self.model, self.layout
-        n_tp, n_w, n_p = self.tp_c.size, self.water_u.size, self.pressure_gpa.size
-        flag = input_flags(model, tp, lid, w)
-        top_km = top_of_melting_km(lid, min_top_km)
-        top_p = model.pressure_gpa(top_km)
-        good = (flag == 0) & self.in_range(tp, w)
-        t = np.where(good, tp, lay.tp_min_c)
-        ww = np.where(good, w, 0.0)
-        x = (t - lay.tp_min_c) / lay.tp_step_k
-        i = np.clip(x.astype(np.intp), 0, n_tp - 2)
-        a = (x - i)[:, None]
-        y = np.where(good, top_p, 0.0) / lay.pressure_step_gpa
-        k = np.clip(y.astype(np.intp), 0, n_p - 2)
-        b = (y - k)[:, None]
-        j, c = self._water_index(ww)
-        j1 = np.minimum(j + 1, n_w - 1)
-        flat = self.values.reshape(-1, 3)
-        vals = 0.0
-        for jj, wgt in ((j, 1 - c[:, None]), (j1, c[:, None])):
-            q = (i * n_w + jj) * n_p + k
-            v00, v01 = flat[q], flat[q + 1]
-            v10, v11 = flat[q + n_w * n_p], flat[q + n_w * n_p + 1]
-            vals = vals + wgt * ((v00 + b * (v01 - v00)) * (1 - a) + (v10 + b * (v11 - v10)) * a)
-        on, a1 = self.onset_gpa, a[:, 0]
-        p_on = (on[i, j] * (1 - a1) + on[i + 1, j] * a1) * (1 - c) + (
-            on[i, j1] * (1 - a1) + on[i + 1, j1] * a1
-        ) * c
-        rough = self.rough[i, np.minimum(j, self.rough.shape[1] - 1)]
-        wet = good & ~rough & (ww > 0)
-        if wet.any():  # the onset is not linear in water: make it exact by Newton steps
-            p_on[wet] = refine_onset_gpa(model, t[wet], ww[wet], p_on[wet])
-        res = finish_outputs(model, tp, w, top_km, p_on, vals[:, 0], vals[:, 1], vals[:, 2], flag)
-        out = res.as_dict()
-        with np.errstate(invalid="ignore"):
-            out["mean_melt_pressure_gpa"] = np.clip(out["mean_melt_pressure_gpa"], top_p, p_on)
-        return out, (flag == 0) & (~good | rough)
-
-    def melt_column(
-        self, potential_temperature_c, lid_depth_km, water_wt_pct=0.0, *, min_top_km: float = 7.0
-    ):
-        """Table evaluation of :func:`lidmelt.physics.column.melt_column` (same outputs)."""
-        model = self.model
-        tp, lid, w = np.broadcast_arrays(
-            np.asarray(potential_temperature_c, float),
-            np.asarray(lid_depth_km, float),
-            np.asarray(water_wt_pct, float),
-        )
-        shape = tp.shape
-        tp, lid, w = tp.ravel(), lid.ravel(), w.ravel()
-        w0 = float(w[0]) if w.size else 0.0
-        if w.size and np.all(w == w0) and self.in_range(np.array(self.layout.tp_min_c), w0):
-            out = {name: np.empty(tp.size, np.float32) for name in COLUMN_OUTPUTS}
-            out["flag"] = np.empty(tp.size, np.uint8)
-            direct = self._fast(tp, lid, w0, float(min_top_km), out)
-        else:
-            out, direct = self._general(tp, lid, w, min_top_km)
-        if direct.any():
-            exact = _direct(
-                model,
-                tp[direct],
-                lid[direct],
-                w[direct],
-                min_top_km=min_top_km,
-                step_gpa=FALLBACK_STEP_GPA,
-            )
-            for name, arr in exact.as_dict().items():
-                out[name][direct] = arr
-        out = {name: arr.reshape(shape) for name, arr in out.items()}
-        return ColumnResult(**out, model=model)
-
-
-def _saturation_onset_gpa(model: MeltingModel, water: float) -> float:
-    """Pressure below which ``water`` [wt%] saturates the solid source (0 if never)."""
-    if water <= 0 or not model.hydrous:
-        return 0.0
-    p = np.linspace(0.0, model.max_onset_pressure_gpa, 13001)
-    over = water > model.water_saturated_bulk_wt_pct(p)
-    return float(p[np.argmin(over)]) if over.any() else 0.0
 
 
 @lru_cache(maxsize=16)

@@ -1,0 +1,411 @@
+"""Outputs of the melting column and their validity flag, by the table or by direct integration.
+
+:func:`melt_column` is the one entry point: it checks the inputs (:func:`input_flags`), finds
+the onset and integrates the column (:mod:`lidmelt.physics.column`) or interpolates the
+precomputed table (:mod:`lidmelt.physics.table`), and assembles every output variable and the
+bit flag (:func:`finish_outputs`). :func:`excess_to_melt_k` inverts the onset condition at the
+top of melting.
+
+Definitions (docs/physics.md, section "Definitions lidmelt fixes"):
+
+* Tp is the P = 0 intercept of the solid isentrope T = Tp exp(alpha_s P / (rho_s c_p)), T in K.
+* Depth is below the seafloor with P = rho g z (the model's ``lithostatic_density_kg_m3`` and
+  ``gravity_m_s2``).
+* The onset is the shallowest P at which the isentrope meets the solidus, searched from the
+  surface down to ``model.max_onset_pressure_gpa``.
+* Melt thickness H = integral of F dz from the top of melting to the onset [km]; 0 where the
+  onset is shallower than the top. Max melt fraction is F at the top; mean melt pressure is
+  integral of P dF / F_top (NaN where no melt).
+* Water is batch-partitioned and stays in the column.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from lidmelt.physics.column import (
+    DEFAULT_MIN_TOP_KM,
+    DEFAULT_PRESSURE_STEP_GPA,
+    integrate_columns,
+    onset_pressure_gpa,
+    refine_onset_gpa,
+    top_of_melting_km,
+)
+from lidmelt.physics.melting import MeltingModel, get_model
+from lidmelt.physics.table import FALLBACK_STEP_GPA, MeltTable, get_table
+
+__all__ = [
+    "COLUMN_OUTPUTS",
+    "FLAG_BEYOND_CALIBRATION",
+    "FLAG_INVALID_INPUT",
+    "FLAG_MEANINGS",
+    "FLAG_NO_ONSET",
+    "FLAG_WATER_SATURATED",
+    "ColumnResult",
+    "excess_to_melt_k",
+    "finish_outputs",
+    "input_flags",
+    "melt_column",
+]
+
+_BLOCK = 1 << 16
+
+FLAG_INVALID_INPUT = 1  #: NaN input, negative lid, Tp below the surface solidus, or bad water
+FLAG_NO_ONSET = 2  #: the isentrope does not meet the solidus within the model's search range
+FLAG_BEYOND_CALIBRATION = 4  #: onset deeper than the model's calibrated range (computed anyway)
+FLAG_WATER_SATURATED = 8  #: bulk water above what the solid source holds at the onset
+
+FLAG_MEANINGS = {
+    FLAG_INVALID_INPUT: "invalid input (NaN, negative lid, Tp below the surface solidus)",
+    FLAG_NO_ONSET: "no solidus crossing within the model's pressure range",
+    FLAG_BEYOND_CALIBRATION: "onset deeper than the model's calibrated pressure range",
+    FLAG_WATER_SATURATED: "source water above saturation at the onset (free water)",
+}
+
+COLUMN_OUTPUTS = (
+    "melt_thickness_km",
+    "onset_depth_km",
+    "onset_pressure_gpa",
+    "lid_depth_km",
+    "max_melt_fraction",
+    "mean_melt_pressure_gpa",
+)
+
+
+@dataclass(frozen=True)
+class ColumnResult:
+    """Outputs of :func:`melt_column`, each an array of the broadcast input shape.
+
+    Attributes
+    ----------
+    melt_thickness_km, onset_depth_km, onset_pressure_gpa, lid_depth_km, max_melt_fraction,
+    mean_melt_pressure_gpa : numpy.ndarray
+        The output variables (``lid_depth_km`` is the top of melting used); their units and
+        long names are in :mod:`lidmelt.variables`.
+    flag : numpy.ndarray of uint8
+        Bit flags ``FLAG_*``; 0 where the cell is valid and calibrated.
+    model : MeltingModel
+        The model (with every parameter) that produced the result.
+    """
+
+    melt_thickness_km: np.ndarray
+    onset_depth_km: np.ndarray
+    onset_pressure_gpa: np.ndarray
+    lid_depth_km: np.ndarray
+    max_melt_fraction: np.ndarray
+    mean_melt_pressure_gpa: np.ndarray
+    flag: np.ndarray
+    model: MeltingModel
+
+    def as_dict(self) -> dict[str, np.ndarray]:
+        """The output arrays and the flag by name."""
+        out = {name: getattr(self, name) for name in COLUMN_OUTPUTS}
+        out["flag"] = self.flag
+        return out
+
+
+def input_flags(model: MeltingModel, potential_temperature_c, lid_depth_km, water_wt_pct):
+    """FLAG_INVALID_INPUT where inputs are NaN, the lid negative, water negative (or, for an
+    anhydrous model, non-zero), or Tp at or below the surface solidus."""
+    tp, lid, w = np.broadcast_arrays(
+        np.asarray(potential_temperature_c, float),
+        np.asarray(lid_depth_km, float),
+        np.asarray(water_wt_pct, float),
+    )
+    with np.errstate(invalid="ignore"):
+        bad = ~np.isfinite(tp) | ~np.isfinite(lid) | ~np.isfinite(w) | (lid < 0) | (w < 0)
+        if not model.hydrous:
+            bad |= w > 0
+        bad |= tp <= model.solidus_c(0.0, 0.0)
+    return np.where(bad, FLAG_INVALID_INPUT, 0).astype(np.uint8)
+
+
+def finish_outputs(model, tp, w, top_km, p_on, melt_thickness_km, f_top, int_p_df, flag):
+    """Assemble a ColumnResult from onset and integrals; set the derived flags and NaNs."""
+    with np.errstate(invalid="ignore", divide="ignore"):
+        top_p = model.pressure_gpa(top_km)
+        invalid = (flag & FLAG_INVALID_INPUT) > 0
+        no_onset = ~invalid & ~np.isfinite(p_on)
+        flag = flag | np.where(no_onset, FLAG_NO_ONSET, 0).astype(np.uint8)
+        deep = np.isfinite(p_on) & (p_on > model.calibrated_max_pressure_gpa)
+        flag = flag | np.where(deep, FLAG_BEYOND_CALIBRATION, 0).astype(np.uint8)
+        saturated = np.isfinite(p_on) & (w > model.water_saturated_bulk_wt_pct(p_on))
+        flag = flag | np.where(saturated, FLAG_WATER_SATURATED, 0).astype(np.uint8)
+        bad = invalid | no_onset | saturated
+        melting = ~bad & (p_on > top_p)
+        h = np.where(bad, np.nan, np.where(melting, melt_thickness_km, 0.0))
+        f = np.where(bad, np.nan, np.where(melting, f_top, 0.0))
+        mean_p = np.where(melting & (f > 0), int_p_df / np.where(f > 0, f, 1.0), np.nan)
+        p_on = np.where(bad, np.nan, p_on)
+    return ColumnResult(
+        melt_thickness_km=h,
+        onset_depth_km=model.depth_km(p_on),
+        onset_pressure_gpa=p_on,
+        lid_depth_km=np.where(invalid, np.nan, top_km),
+        max_melt_fraction=f,
+        mean_melt_pressure_gpa=mean_p,
+        flag=flag,
+        model=model,
+    )
+
+
+def melt_column(
+    potential_temperature_c,
+    lid_depth_km,
+    water_wt_pct=0.0,
+    *,
+    model: str | MeltingModel = "katz2003",
+    method: str = "table",
+    min_top_km: float = DEFAULT_MIN_TOP_KM,
+    step_gpa: float = DEFAULT_PRESSURE_STEP_GPA,
+    table: MeltTable | None = None,
+) -> ColumnResult:
+    """Melt production of upwelling mantle beneath a lid, for arrays of cells.
+
+    Parameters
+    ----------
+    potential_temperature_c : array_like
+        Potential temperature Tp of the mantle [deg C] (ambient plus thermal anomaly).
+    lid_depth_km : array_like
+        Depth of the lid base (lithosphere) below the seafloor [km], >= 0.
+    water_wt_pct : array_like, optional
+        Water in the bulk source [wt%] (0.01 wt% = 100 ppm). Default 0 (dry).
+    model : str or MeltingModel, optional
+        A registry name or model object (see :func:`lidmelt.physics.melting.get_model`).
+    method : {"table", "direct"}
+        ``"table"`` interpolates a precomputed table (fast; its error is bounded in the tests),
+        falling back to direct integration outside the table. ``"direct"`` integrates every
+        column.
+    min_top_km : float, optional
+        Melting stops at max(lid, min_top_km) [km]; default 7 km, the base of normal oceanic
+        crust (White, McKenzie & O'Nions 1992, from memory).
+    step_gpa : float, optional
+        Pressure step of the direct integration [GPa].
+    table : MeltTable, optional
+        A table to use (default: the cached table of the model).
+
+    Returns
+    -------
+    ColumnResult
+        Arrays of the broadcast input shape and a ``flag`` array (see ``FLAG_*``). Invalid or
+        unmeltable cells are NaN and flagged, never clipped. The table path returns float32
+        arrays where one water content applies to every cell (single precision is far finer
+        than the table's error, and halves the memory traffic); otherwise float64.
+    """
+    model = get_model(model)
+    tp, lid, w = np.broadcast_arrays(
+        np.asarray(potential_temperature_c, float),
+        np.asarray(lid_depth_km, float),
+        np.asarray(water_wt_pct, float),
+    )
+    if method == "table":
+        tab = table if table is not None else get_table(model)
+        return _table_columns(tab, tp, lid, w, min_top_km=min_top_km)
+    if method != "direct":
+        msg = f"unknown method {method!r}; use 'table' (fast) or 'direct' (integrates each column)."
+        raise ValueError(msg)
+    return _direct(model, tp, lid, w, min_top_km=min_top_km, step_gpa=step_gpa)
+
+
+def _direct(model, tp, lid, w, *, min_top_km, step_gpa):
+    """Direct integration of every cell (broadcast arrays of one shape)."""
+    flag = input_flags(model, tp, lid, w)
+    ok = flag == 0
+    top_km = top_of_melting_km(np.where(ok, lid, 0.0), min_top_km)
+    p_on = np.full(tp.shape, np.nan)
+    p_on[ok] = onset_pressure_gpa(model, tp[ok], w[ok])
+    res = integrate_columns(
+        model,
+        np.where(ok, tp, 1300.0),
+        np.where(ok, w, 0.0),
+        p_on,
+        model.pressure_gpa(top_km),
+        step_gpa=step_gpa,
+    )
+    return finish_outputs(
+        model,
+        tp,
+        w,
+        top_km,
+        p_on,
+        res["melt_thickness_km"].reshape(tp.shape),
+        res["max_melt_fraction"].reshape(tp.shape),
+        res["int_p_df_gpa"].reshape(tp.shape),
+        flag,
+    )
+
+
+def excess_to_melt_k(
+    lid_depth_km,
+    water_wt_pct=0.0,
+    *,
+    ambient_potential_temperature_c=1350.0,
+    model: str | MeltingModel = "katz2003",
+    min_top_km: float = DEFAULT_MIN_TOP_KM,
+):
+    """Thermal anomaly [K] above ambient Tp at which melting would just begin beneath the lid.
+
+    Melting begins when the onset reaches the top of melting z_top = max(lid, min_top_km), that
+    is when the solid isentrope passes through the solidus at P_top:
+    Tp* = T_sol(P_top, water) exp(-alpha_s P_top / (rho_s c_p)) (temperatures in K) [derived from
+    the solid isentrope; docs/physics.md, section "Definitions lidmelt fixes"]. Returns
+    Tp* - ambient: negative where ambient mantle already melts beneath this lid. NaN for invalid
+    inputs and beyond the model's search range (where the solidus-isentrope crossing at P_top
+    would not be the shallowest one).
+    """
+    model = get_model(model)
+    lid, w = np.broadcast_arrays(np.asarray(lid_depth_km, float), np.asarray(water_wt_pct, float))
+    with np.errstate(invalid="ignore"):
+        top_p = model.pressure_gpa(top_of_melting_km(lid, min_top_km))
+        tp_k = (model.solidus_c(top_p, w) + 273.15) * np.exp(
+            -model.adiabat_coefficient_per_gpa * top_p
+        )
+        bad = (
+            ~np.isfinite(lid)
+            | (lid < 0)
+            | ~np.isfinite(w)
+            | (w < 0)
+            | (top_p > model.max_onset_pressure_gpa)
+        )
+    return np.where(bad, np.nan, tp_k - 273.15 - float(ambient_potential_temperature_c))
+
+
+# ------------------------------------------------------------------------------------------------
+# the table path
+# ------------------------------------------------------------------------------------------------
+def _table_columns(table, tp, lid, w, *, min_top_km):
+    """Table evaluation of broadcast arrays (same outputs as :func:`_direct`).
+
+    Cells the table cannot do (invalid inputs, outside its nodes, rough intervals, no onset
+    nearby, saturated water) are integrated directly at ``FALLBACK_STEP_GPA``.
+    """
+    model = table.model
+    shape = tp.shape
+    tp, lid, w = tp.ravel(), lid.ravel(), w.ravel()
+    w0 = float(w[0]) if w.size else 0.0
+    if w.size and np.all(w == w0) and table.in_range(np.array(table.layout.tp_min_c), w0):
+        out = {name: np.empty(tp.size, np.float32) for name in COLUMN_OUTPUTS}
+        out["flag"] = np.empty(tp.size, np.uint8)
+        direct = _table_one_water(table, tp, lid, w0, float(min_top_km), out)
+    else:
+        out, direct = _table_any_water(table, tp, lid, w, min_top_km)
+    if direct.any():
+        exact = _direct(
+            model,
+            tp[direct],
+            lid[direct],
+            w[direct],
+            min_top_km=min_top_km,
+            step_gpa=FALLBACK_STEP_GPA,
+        )
+        for name, arr in exact.as_dict().items():
+            out[name][direct] = arr
+    out = {name: arr.reshape(shape) for name, arr in out.items()}
+    return ColumnResult(**out, model=model)
+
+
+def _table_one_water(table, tp, lid, water, min_top_km, out):
+    """One-water evaluation into ``out`` (dict of 1-D arrays); return cells it cannot do.
+
+    The cells it returns (invalid inputs, outside the table, rough or without onset,
+    saturated water) are left for :func:`_direct`, which is exact.
+    """
+    model, lay = table.model, table.layout
+    packed, no_onset_from = table.water_slice(water)
+    n_tp, n_p = table.tp_c.size, table.pressure_gpa.size
+    gpa_per_km = float(model.pressure_gpa(1.0))
+    km_per_gpa = 1.0 / gpa_per_km
+    sol0 = float(model.solidus_c(0.0, 0.0))
+    tp_lo = max(lay.tp_min_c, np.nextafter(sol0, np.inf))
+    p_sat = _saturation_onset_gpa(model, water)
+    cal = model.calibrated_max_pressure_gpa
+    special = np.zeros(tp.size, bool)
+    x_hi = n_tp - 1.0
+    inv_dtp, inv_dp = 1.0 / lay.tp_step_k, 1.0 / lay.pressure_step_gpa
+    x_lo = (tp_lo - lay.tp_min_c) * inv_dtp
+    for start in range(0, tp.size, _BLOCK):
+        sl = slice(start, start + _BLOCK)
+        lb = lid[sl]
+        x = (tp[sl] - lay.tp_min_c) * inv_dtp
+        top_km = np.maximum(lb, min_top_km)
+        top_p = top_km * gpa_per_km
+        y = top_p * inv_dp
+        with np.errstate(invalid="ignore"):  # NaN cells are sent to _direct below
+            i = x.astype(np.intp)
+            k = y.astype(np.intp)
+        a = (x - i).astype(np.float32)[:, None]
+        b = (y - k).astype(np.float32)[:, None]
+        # indices of invalid cells may be garbage: mode="clip" keeps the gather in bounds
+        v = np.take(packed, i * (n_p - 1) + np.minimum(k, n_p - 2), axis=0, mode="clip")
+        v0 = v[:, 0:4] + b * (v[:, 4:8] - v[:, 0:4])
+        r = v0 + a * (v[:, 8:12] + b * (v[:, 12:16] - v[:, 8:12]) - v0)
+        p_on = r[:, 3]
+        with np.errstate(invalid="ignore", divide="ignore"):
+            no_onset = tp[sl] >= no_onset_from
+            special[sl] = ~((x >= x_lo) & (x <= x_hi) & (lb >= 0) & ((p_on >= p_sat) | no_onset))
+            melting = p_on > top_p
+            h = np.where(melting, r[:, 0], np.where(no_onset, np.nan, 0.0))
+            f = np.where(melting, r[:, 1], np.where(no_onset, np.nan, 0.0))
+            # the mean pressure of melting lies between the top and the onset [derived]
+            mean_p = np.clip(r[:, 2] / f, top_p, p_on)
+            out["mean_melt_pressure_gpa"][sl] = np.where(f > 0, mean_p, np.nan)
+        out["melt_thickness_km"][sl] = h
+        out["max_melt_fraction"][sl] = f
+        out["onset_pressure_gpa"][sl] = p_on
+        np.multiply(p_on, km_per_gpa, out=out["onset_depth_km"][sl])
+        out["lid_depth_km"][sl] = top_km
+        out["flag"][sl] = np.where(
+            no_onset, FLAG_NO_ONSET, (p_on > cal) * np.uint8(FLAG_BEYOND_CALIBRATION)
+        )
+    return special
+
+
+def _table_any_water(table, tp, lid, w, min_top_km):
+    """Evaluation where the water content varies: trilinear, onsets refined by Newton."""
+    model, lay = table.model, table.layout
+    n_tp, n_w, n_p = table.tp_c.size, table.water_u.size, table.pressure_gpa.size
+    flag = input_flags(model, tp, lid, w)
+    top_km = top_of_melting_km(lid, min_top_km)
+    top_p = model.pressure_gpa(top_km)
+    good = (flag == 0) & table.in_range(tp, w)
+    t = np.where(good, tp, lay.tp_min_c)
+    ww = np.where(good, w, 0.0)
+    x = (t - lay.tp_min_c) / lay.tp_step_k
+    i = np.clip(x.astype(np.intp), 0, n_tp - 2)
+    a = (x - i)[:, None]
+    y = np.where(good, top_p, 0.0) / lay.pressure_step_gpa
+    k = np.clip(y.astype(np.intp), 0, n_p - 2)
+    b = (y - k)[:, None]
+    j, c = table.water_index(ww)
+    j1 = np.minimum(j + 1, n_w - 1)
+    flat = table.values.reshape(-1, 3)
+    vals = 0.0
+    for jj, wgt in ((j, 1 - c[:, None]), (j1, c[:, None])):
+        q = (i * n_w + jj) * n_p + k
+        v00, v01 = flat[q], flat[q + 1]
+        v10, v11 = flat[q + n_w * n_p], flat[q + n_w * n_p + 1]
+        vals = vals + wgt * ((v00 + b * (v01 - v00)) * (1 - a) + (v10 + b * (v11 - v10)) * a)
+    on, a1 = table.onset_gpa, a[:, 0]
+    p_on = (on[i, j] * (1 - a1) + on[i + 1, j] * a1) * (1 - c) + (
+        on[i, j1] * (1 - a1) + on[i + 1, j1] * a1
+    ) * c
+    rough = table.rough[i, np.minimum(j, table.rough.shape[1] - 1)]
+    wet = good & ~rough & (ww > 0)
+    if wet.any():  # the onset is not linear in water: make it exact by Newton steps
+        p_on[wet] = refine_onset_gpa(model, t[wet], ww[wet], p_on[wet])
+    res = finish_outputs(model, tp, w, top_km, p_on, vals[:, 0], vals[:, 1], vals[:, 2], flag)
+    out = res.as_dict()
+    with np.errstate(invalid="ignore"):
+        out["mean_melt_pressure_gpa"] = np.clip(out["mean_melt_pressure_gpa"], top_p, p_on)
+    return out, (flag == 0) & (~good | rough)
+
+
+def _saturation_onset_gpa(model: MeltingModel, water: float) -> float:
+    """Pressure below which ``water`` [wt%] saturates the solid source (0 if never)."""
+    if water <= 0 or not model.hydrous:
+        return 0.0
+    p = np.linspace(0.0, model.max_onset_pressure_gpa, 13001)
+    over = water > model.water_saturated_bulk_wt_pct(p)
+    return float(p[np.argmin(over)]) if over.any() else 0.0
