@@ -14,7 +14,7 @@ output variable (``<variable>.tif``), the run's inputs aligned to the target gri
 ``height``, ``bounds`` [west, south, east, north] in the grid CRS},
 ``model`` {``name``, ``parameters`` {name: value}, ``reference``, ``sources``},
 ``ambient_potential_temperature_c``, ``cooling`` ({``name``, ``lid_isotherm_c``,
-``parameters``, ``reference``} or null when a lid grid was given), ``min_top_of_melting_km``,
+``parameters``, ``reference``, ``sources``} or null when a lid grid was given), ``min_top_of_melting_km``,
 ``method`` (``"table"`` or ``"direct"``),
 ``inputs`` {name: {``file`` (aligned grid in this folder, or null for a constant), ``source``
 (path or null), ``sha256`` (or null), ``units``, ``long_name``, ...}},
@@ -273,6 +273,7 @@ def build_summary(
             "lid_isotherm_c": cfg.lithosphere.lid_isotherm_c,
             "parameters": cooling.parameters(),
             "reference": cooling.reference,
+            "sources": dict(cooling.sources),
         },
         "min_top_of_melting_km": cfg.model.min_top_of_melting_km,
         "method": cfg.compute.method,
