@@ -504,7 +504,7 @@ def test_values_at_or_below_the_lower_limit_get_the_first_scale_colour():
     # demo excess-to-melt map); any limits must work, these are the ones that once failed
     vmin, vmax = -210.17019073486327, 126.78192291259765
     values = np.array([[vmin - 5.0, vmin, vmax, np.nan]])
-    out, cmap, norm = maps._encode_classes(values, mpl.colormaps["inferno"], vmin, vmax, None)
+    out, cmap, norm = maps.encode_classes(values, mpl.colormaps["inferno"], vmin, vmax, None)
     colours = cmap(norm(out))[0]
     first, last = mpl.colormaps["inferno"].resampled(256)([0.0, 1.0])
     np.testing.assert_allclose(colours[0], first)
