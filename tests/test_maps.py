@@ -393,6 +393,33 @@ def test_run_maps_default_folder_formats_and_no_temp_files(blocks_run):
     assert names == ["melt_thickness_km.svg", "onset_depth_km.pdf", "onset_depth_km.svg"]
 
 
+def test_every_registered_variable_has_a_map_style():
+    # The style keys of lidmelt.variables all have an entry in the presentation registry, and
+    # each variable keeps the colour map and no-melt classes the module docstring documents
+    # (depths and pressures cividis_r, melt viridis, melt fraction plasma, excess inferno).
+    from lidmelt.variables import VARIABLES
+
+    assert {v.style for v in VARIABLES.values()} <= set(maps.STYLES)
+    documented = {
+        "melt_thickness_km": ("viridis", True, False),
+        "onset_depth_km": ("cividis_r", False, True),
+        "onset_pressure_gpa": ("cividis_r", False, True),
+        "lid_depth_km": ("cividis_r", False, False),
+        "max_melt_fraction": ("plasma", True, False),
+        "mean_melt_pressure_gpa": ("cividis_r", False, True),
+        "excess_to_melt_k": ("inferno", False, False),
+        "plate_age_ma": ("viridis", False, False),
+        "lid_thickness_km": ("cividis_r", False, False),
+        "thermal_anomaly_k": ("inferno", False, False),
+        "water_wt_pct": ("cividis", False, False),
+    }
+    for name, expected in documented.items():
+        style = maps.style_for(name)
+        assert (style.cmap, style.zero_is_no_melt, style.nan_is_no_melt) == expected, name
+        assert style.title == VARIABLES[name].title
+    assert maps.style_for("not_registered_k").cmap == "viridis"
+
+
 # Offline safety ------------------------------------------------------------------------------
 
 
@@ -504,7 +531,7 @@ def test_values_at_or_below_the_lower_limit_get_the_first_scale_colour():
     # demo excess-to-melt map); any limits must work, these are the ones that once failed
     vmin, vmax = -210.17019073486327, 126.78192291259765
     values = np.array([[vmin - 5.0, vmin, vmax, np.nan]])
-    out, cmap, norm = maps._encode_classes(values, mpl.colormaps["inferno"], vmin, vmax, None)
+    out, cmap, norm = maps.encode_classes(values, mpl.colormaps["inferno"], vmin, vmax, None)
     colours = cmap(norm(out))[0]
     first, last = mpl.colormaps["inferno"].resampled(256)([0.0, 1.0])
     np.testing.assert_allclose(colours[0], first)

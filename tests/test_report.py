@@ -203,7 +203,7 @@ def test_no_network_and_no_temporary_files(run, monkeypatch):
     monkeypatch.setattr(socket, "create_connection", refuse)
     monkeypatch.setattr(socket.socket, "connect", refuse)
     report.write_report(run, pdf=True)
-    leftovers = [p.name for p in run.iterdir() if ".tmp-" in p.name]
+    leftovers = [p.name for p in run.iterdir() if ".tmp" in p.name]
     assert leftovers == []
 
 

@@ -1,0 +1,92 @@
+"""Publication-quality map figures of a run's variables (cartopy, headless, offline).
+
+The package keeps presentation apart from drawing:
+
+- :mod:`.style`: colour maps per style key, the no-melt classes, colour limits;
+- :mod:`.layout`: projections, extents, graticule labels, font sizes, footprints;
+- :mod:`.page`: the page layout in inches (map, colour bar, legend, wrapped text);
+- :mod:`.overlays`: coastlines (local files only), plate-age contours, stations, candidates;
+- :mod:`.captions`: the subtitle and caption text;
+- :mod:`.figure`: :func:`make_map_figure`, the figure drawn in named steps;
+- :mod:`.write`: :func:`draw_map`, :func:`draw_run_maps` and :func:`save_figure`.
+"""
+
+from lidmelt.products.maps.captions import describe_lid, lid_model, map_caption, model_line
+from lidmelt.products.maps.figure import (
+    MapInfo,
+    MapOptions,
+    check_variable,
+    make_map_figure,
+    render_map,
+    resolve_options,
+)
+from lidmelt.products.maps.layout import (
+    Region,
+    check_region,
+    choose_projection,
+    make_projection,
+    projection_names,
+)
+from lidmelt.products.maps.overlays import (
+    COASTLINE_RELPATH,
+    Stations,
+    find_coastlines,
+    load_candidates,
+    load_stations,
+    require_file,
+    resolve_coastlines,
+)
+from lidmelt.products.maps.style import (
+    MELT_TOP_PERCENTILE,
+    NODATA_COLOR,
+    PERCENTILES,
+    STYLES,
+    ZERO_COLOR,
+    MapStyle,
+    VariableStyle,
+    colour_limits,
+    encode_classes,
+    style_for,
+    unit_label,
+)
+from lidmelt.products.maps.write import FORMATS, draw_map, draw_run_maps, save_figure
+
+__all__ = [
+    "COASTLINE_RELPATH",
+    "FORMATS",
+    "MELT_TOP_PERCENTILE",
+    "NODATA_COLOR",
+    "PERCENTILES",
+    "STYLES",
+    "ZERO_COLOR",
+    "MapInfo",
+    "MapOptions",
+    "MapStyle",
+    "Region",
+    "Stations",
+    "VariableStyle",
+    "check_region",
+    "check_variable",
+    "choose_projection",
+    "colour_limits",
+    "describe_lid",
+    "draw_map",
+    "draw_run_maps",
+    "encode_classes",
+    "find_coastlines",
+    "lid_model",
+    "load_candidates",
+    "load_stations",
+    "make_map_figure",
+    "make_projection",
+    "map_caption",
+    "model_line",
+    "projection_names",
+    "render_map",
+    "require_file",
+    "resolve_coastlines",
+    "resolve_options",
+    "save_figure",
+    "style_for",
+    "unit_label",
+]

@@ -1,0 +1,215 @@
+"""How each variable is drawn: colour maps per style key, no-melt classes, colour limits.
+
+The presentation registry is kept apart from the drawing code. Every variable of
+:mod:`lidmelt.variables` names a style key (:attr:`lidmelt.variables.Variable.style`); this
+module gives each key a :class:`MapStyle` (its colour map) in :data:`STYLES`, and
+:func:`style_for` combines it with the registry's facts about the variable (its title, whether 0
+or NaN means "no melting") into the :class:`VariableStyle` the figure code uses.
+
+Colours: nodata is a neutral light grey (:data:`NODATA_COLOR`); in the variables whose 0 means
+"no melting" (``melt_thickness_km``, ``max_melt_fraction``) a zero cell is white
+(:data:`ZERO_COLOR`), so it differs both from nodata and from the lowest colour of the scale
+(the smallest non-zero melt); in the variables that are undefined where nothing melts
+(``onset_depth_km``, ``onset_pressure_gpa``, ``mean_melt_pressure_gpa``), cells where
+``melt_thickness_km`` is 0 are white too. Colour limits are the 2nd and 98th percentiles of the
+valid cells (:data:`PERCENTILES`; for the two melt amounts: 0 to the 99.5th percentile of the
+melting cells, :data:`MELT_TOP_PERCENTILE`, so that the few hot plume cells keep their
+structure), with extend arrows where the data go beyond them. Depths and pressures use
+``cividis_r``: shallow is light, deep is dark. All colour maps are matplotlib's perceptually
+uniform ones (viridis family; common practice).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+from matplotlib.colors import ListedColormap, Normalize, to_rgba_array
+
+from lidmelt.variables import VARIABLES
+
+__all__ = [
+    "CANDIDATE_COLOR",
+    "DEFAULT_STYLE",
+    "MELT_TOP_PERCENTILE",
+    "NODATA_COLOR",
+    "PERCENTILES",
+    "STYLES",
+    "ZERO_COLOR",
+    "MapStyle",
+    "VariableStyle",
+    "colour_limits",
+    "encode_classes",
+    "style_for",
+    "title_of",
+    "unit_label",
+]
+
+#: Colour of nodata cells and of the map background outside the grid (neutral light grey).
+NODATA_COLOR = "#c8c8c8"
+#: Colour of cells with exactly zero melt in the melt-amount variables.
+ZERO_COLOR = "#ffffff"
+#: Outline colour of candidate regions.
+CANDIDATE_COLOR = "#d62728"
+#: Percentiles of the valid cells that set the colour limits (robust limits, common practice).
+PERCENTILES = (2.0, 98.0)
+#: Top of the colour scale of the melt amounts: this percentile of the melting cells.
+MELT_TOP_PERCENTILE = 99.5
+
+
+@dataclass(frozen=True)
+class MapStyle:
+    """The look shared by every variable with one style key.
+
+    Parameters
+    ----------
+    cmap : str
+        Name of a perceptually uniform matplotlib colour map.
+    """
+
+    cmap: str
+
+
+#: Map style per style key (:attr:`lidmelt.variables.Variable.style`).
+STYLES: dict[str, MapStyle] = {
+    "melt": MapStyle("viridis"),
+    "depth": MapStyle("cividis_r"),  # shallow light, deep dark
+    "fraction": MapStyle("plasma"),
+    "excess": MapStyle("inferno"),
+    "age": MapStyle("viridis"),
+    "anomaly": MapStyle("inferno"),
+    "water": MapStyle("cividis"),
+    "flag": MapStyle("viridis"),  # the validity flags are not drawn by 'lidmelt map'
+}
+#: Style of a variable the registry does not know, or whose key has no entry.
+DEFAULT_STYLE = MapStyle("viridis")
+
+# Variables that are NaN wherever a valid cell does not melt, beyond those the registry marks
+# (Variable.undefined_without_melt): the onset is undefined when the isentrope never meets
+# the solidus. Drawn as "no melting" as before the registry existed.
+_ALSO_UNDEFINED_WITHOUT_MELT = frozenset({"onset_depth_km", "onset_pressure_gpa"})
+
+_UNIT_LABELS = {"1": "dimensionless", "": "no unit given", "degC": "°C", "wt%": "wt %"}
+
+
+@dataclass(frozen=True)
+class VariableStyle:
+    """How one variable is drawn.
+
+    Parameters
+    ----------
+    cmap : str
+        Name of a perceptually uniform matplotlib colour map.
+    zero_is_no_melt : bool
+        Cells with value 0 mean "no melting" and are drawn in :data:`ZERO_COLOR`; the colour
+        scale then starts at 0 and covers the melting cells only.
+    nan_is_no_melt : bool
+        The variable is undefined (NaN) where a valid cell does not melt (e.g. onset depth);
+        such cells, found from ``melt_thickness_km == 0``, are drawn in :data:`ZERO_COLOR`
+        rather than as nodata.
+    title : str
+        Readable name, used when the run gives no long name.
+    """
+
+    cmap: str
+    zero_is_no_melt: bool = False
+    nan_is_no_melt: bool = False
+    title: str = ""
+
+
+def style_for(variable: str) -> VariableStyle:
+    """The style of ``variable``: its key's colour map and the registry's facts about it."""
+    var = VARIABLES.get(variable)
+    if var is None:
+        return VariableStyle(DEFAULT_STYLE.cmap)
+    return VariableStyle(
+        STYLES.get(var.style, DEFAULT_STYLE).cmap,
+        zero_is_no_melt=var.zero_means_no_melt,
+        nan_is_no_melt=var.undefined_without_melt or variable in _ALSO_UNDEFINED_WITHOUT_MELT,
+        title=var.title,
+    )
+
+
+def unit_label(units: str) -> str:
+    """Readable text of a unit string for labels (``"1"`` -> ``"dimensionless"``)."""
+    return _UNIT_LABELS.get(units, units)
+
+
+def title_of(variable: str, attrs: dict[str, Any]) -> str:
+    """Figure title: the run's long name, else the registry's, else the variable name."""
+    name = str(attrs.get("long_name") or "")
+    if not name or name == variable:
+        name = style_for(variable).title or variable.replace("_", " ")
+    return name[:1].upper() + name[1:]
+
+
+def colour_limits(values: np.ndarray, *, zero_is_no_melt: bool = False) -> tuple[float, float, str]:
+    """Robust colour limits and the matching colour-bar ``extend``.
+
+    Parameters
+    ----------
+    values : ndarray
+        The grid values; NaN is nodata.
+    zero_is_no_melt : bool
+        For melt amounts: the scale starts at 0 and its top is the 99.5th percentile of the
+        positive values only.
+
+    Returns
+    -------
+    vmin, vmax : float
+        Colour limits (in the variable's unit), vmin < vmax.
+    extend : {"neither", "min", "max", "both"}
+        Which ends of the colour bar get an arrow because valid values lie beyond the limits.
+    """
+    finite = np.asarray(values, dtype=float)
+    finite = finite[np.isfinite(finite)]
+    if finite.size > 4_000_000:  # percentiles of a regular subsample are as robust
+        finite = finite[:: finite.size // 4_000_000 + 1]
+    if zero_is_no_melt:
+        positive = finite[finite > 0]
+        vmin = 0.0
+        vmax = float(np.percentile(positive, MELT_TOP_PERCENTILE)) if positive.size else 1.0
+        if vmax <= 0.0:
+            vmax = float(positive.max()) if positive.size else 1.0
+        below, above = False, bool(positive.size and positive.max() > vmax)
+    elif finite.size:
+        vmin, vmax = (float(v) for v in np.percentile(finite, PERCENTILES))
+        below, above = bool(finite.min() < vmin), bool(finite.max() > vmax)
+    else:
+        vmin, vmax, below, above = 0.0, 1.0, False, False
+    if not vmax > vmin:  # a constant field: open a small window around it
+        half = max(abs(vmin) * 0.01, 1e-6)
+        vmin, vmax = vmin - half, vmax + half
+        below = above = False
+    extend = {
+        (False, False): "neither",
+        (True, False): "min",
+        (False, True): "max",
+        (True, True): "both",
+    }[(below, above)]
+    return vmin, vmax, extend
+
+
+def encode_classes(
+    values: np.ndarray, cmap: Any, vmin: float, vmax: float, no_melt: np.ndarray | None
+) -> tuple[np.ndarray, Any, Any]:
+    """Values, colour map and norm that draw nodata, no-melt and the scale without NaN.
+
+    The drawn colour map is the variable's 256 colours with :data:`ZERO_COLOR` before them
+    and :data:`NODATA_COLOR` after them; each class gets a value inside its own bin. No NaN
+    or masked cell reaches cartopy, whose wrapped meshes (global maps) can paint masked
+    cells with a data colour (seen with cartopy 0.26).
+    """
+    n = 256
+    lut = cmap.resampled(n)(np.linspace(0.0, 1.0, n))
+    colours = np.vstack([to_rgba_array([ZERO_COLOR]), lut, to_rgba_array([NODATA_COLOR])])
+    listed = ListedColormap(colours).with_extremes(bad="none")
+    d = (vmax - vmin) / n
+    norm = Normalize(vmin=vmin - d, vmax=vmax + d)
+    # below/above the limits: the end colours (half a bin inside, clear of the class edges)
+    out = np.clip(values, vmin + 0.5 * d, vmax - 0.5 * d)
+    out[~np.isfinite(values)] = vmax + 0.5 * d
+    if no_melt is not None:
+        out[no_melt] = vmin - 0.5 * d
+    return out, listed, norm

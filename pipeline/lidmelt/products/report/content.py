@@ -1,0 +1,317 @@
+"""The report's content, independent of the output format: sections of text and tables.
+
+Everything comes from the run's ``summary.json`` (see :mod:`lidmelt.grids.rundir`); units and
+long names of the variables come from the registry (:mod:`lidmelt.variables`) where the run's
+variables are listed. Text here is not yet escaped: each writer escapes it for its format.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+from collections.abc import Callable
+from dataclasses import dataclass
+from typing import Any
+
+from lidmelt.grids.rundir import RunDir
+from lidmelt.products.maps.captions import lid_model
+from lidmelt.variables import VARIABLES
+
+__all__ = [
+    "CAUTION",
+    "MapImage",
+    "Pre",
+    "Section",
+    "Table",
+    "build_sections",
+    "format_number",
+    "format_value",
+    "job_line",
+    "variable_label",
+    "variable_units",
+]
+
+#: The caution printed at the top of every report (HTML and PDF).
+CAUTION = (
+    "These maps and numbers are model estimates for research screening. They are not a "
+    "volcanic hazard assessment: they follow from the chosen melting model, its parameters and "
+    "the input grids, and share their uncertainties. For any question about volcanic hazard, "
+    "defer to the responsible volcano observatories and civil-protection agencies."
+)
+
+
+@dataclass(frozen=True)
+class Table:
+    """A table of text cells (already formatted, not yet escaped)."""
+
+    header: tuple[str, ...]
+    rows: tuple[tuple[str, ...], ...]
+    mono: tuple[int, ...] = ()  # columns shown in a monospace font (hashes, paths)
+
+
+@dataclass(frozen=True)
+class Pre:
+    """Preformatted text (the workflow)."""
+
+    text: str
+
+
+Block = str | Table | Pre
+
+
+@dataclass(frozen=True)
+class Section:
+    """A heading and its blocks: paragraphs (str), :class:`Table` or :class:`Pre`."""
+
+    key: str
+    heading: str
+    blocks: tuple[Block, ...]
+
+
+@dataclass(frozen=True)
+class MapImage:
+    """One embedded map."""
+
+    variable: str
+    data: bytes
+    mime: str  # "image/png" or "image/svg+xml"
+    source: str  # "rendered for this report" or the file it came from
+
+
+def format_value(value: Any) -> str:
+    """Exact text of a parameter value as stored in summary.json.
+
+    Floats use Python's shortest round-trip form (``repr``: 1085.7, 1e-06), so the report shows
+    every digit the run stored; lists, dicts and null are shown as JSON.
+    """
+    if isinstance(value, bool) or value is None:
+        return json.dumps(value)
+    if isinstance(value, float):
+        return repr(value) if math.isfinite(value) else str(value)
+    if isinstance(value, int | str):
+        return str(value)
+    return json.dumps(value, ensure_ascii=False, sort_keys=True)
+
+
+def format_number(value: Any, *, unit: str = "") -> str:
+    """Readable text of a statistic: thousands separators, 4 significant digits."""
+    if isinstance(value, bool) or not isinstance(value, int | float):
+        return "not recorded" if value is None else str(value)
+    if isinstance(value, int):
+        text = f"{value:,}"
+    elif not math.isfinite(value):
+        text = str(value)
+    elif value != 0 and (abs(value) >= 1e4 or abs(value) < 1e-3):
+        text = f"{value:,.0f}" if abs(value) >= 1e4 else f"{value:.3e}"
+    else:
+        text = f"{value:.4g}"
+    return f"{text} {unit}".strip()
+
+
+def _get(d: Any, *keys: str, default: Any = None) -> Any:
+    for key in keys:
+        if not isinstance(d, dict) or key not in d:
+            return default
+        d = d[key]
+    return d
+
+
+def variable_units(name: str, recorded: Any = "") -> str:
+    """Unit of a run variable: the registry's, else the one the run recorded (``recorded``)."""
+    var = VARIABLES.get(name)
+    if var is not None:
+        return var.units
+    return str(recorded or "")
+
+
+def variable_label(name: str) -> str:
+    """``"<name>: <long name>"`` for a registered variable, else the name."""
+    var = VARIABLES.get(name)
+    return f"{name}: {var.long_name}" if var is not None else name
+
+
+def _crs_text(wkt: str | None) -> tuple[str, bool]:
+    """Readable name of a CRS (with its EPSG code) and whether it is geographic."""
+    if not wkt:
+        return "CRS not recorded", False
+    try:
+        import pyproj
+
+        crs = pyproj.CRS.from_wkt(wkt)
+    except Exception:  # pyproj raises CRSError and others for bad WKT
+        return "CRS WKT not readable", False
+    return crs.name + (f" (EPSG:{crs.to_epsg()})" if crs.to_epsg() else ""), crs.is_geographic
+
+
+def grid_text(summary: dict[str, Any]) -> tuple[str, list[tuple[str, str]]]:
+    """The grid in one phrase (size, CRS, extent) and as (item, value) rows."""
+    grid = summary.get("grid") or {}
+    crs_name, geographic = _crs_text(grid.get("crs_wkt"))
+    width, height = grid.get("width"), grid.get("height")
+    size = f"{width} × {height} cells" if width and height else "size not recorded"
+    bounds = grid.get("bounds")
+    if isinstance(bounds, list) and len(bounds) == 4:
+        w, s, e, n = bounds
+        unit = "°" if geographic else " (CRS units)"
+        extent = f"W {w:g}{unit}, E {e:g}{unit}, S {s:g}{unit}, N {n:g}{unit}"
+    else:
+        extent = "extent not recorded"
+    rows = [("CRS", crs_name), ("Size", size), ("Extent", extent)]
+    transform = grid.get("transform")
+    if isinstance(transform, list) and len(transform) == 6:
+        rows.append(("Cell size", f"{abs(transform[0]):g} × {abs(transform[4]):g} (CRS units)"))
+    return f"{size}, {crs_name}, {extent}", rows
+
+
+def job_line(summary: dict[str, Any]) -> str:
+    """The run in one sentence: model, ambient temperature, lid, grid, time and version."""
+    grid_phrase, _ = grid_text(summary)
+    model = _get(summary, "model", "name", default="an unrecorded model")
+    tp = summary.get("ambient_potential_temperature_c")
+    tp_text = f"{tp:g} °C" if isinstance(tp, int | float) else "an unrecorded temperature"
+    lid_info = lid_model(summary)
+    if lid_info is not None:
+        name, iso = lid_info
+        lid = f"lid from plate age by {name} cooling"
+        if iso is not None:
+            lid += f" to the {iso:g} °C isotherm"
+    else:
+        lid = "lid from a lid-thickness grid"
+    when = summary.get("created_utc") or "an unrecorded time"
+    version = summary.get("lidmelt_version") or "unknown"
+    return (
+        f"Melting model {model} at ambient mantle potential temperature {tp_text}, {lid}, "
+        f"on a grid of {grid_phrase}; run at {when} with lidmelt {version}."
+    )
+
+
+def _parameter_table(block: dict[str, Any], *, fallback: str) -> Table:
+    params = block.get("parameters") or {}
+    sources = block.get("sources") if isinstance(block.get("sources"), dict) else {}
+    rows = []
+    for name, value in params.items():
+        source = sources.get(name)
+        source_text = str(source) if source else (fallback or "not recorded")
+        rows.append((str(name), format_value(value), source_text))
+    return Table(("Parameter", "Value", "Source"), tuple(rows))
+
+
+# --------------------------------------------------------------------------------------------
+# The sections, in page order
+
+
+def _summary_section(summary: dict[str, Any]) -> Section:
+    stats = summary.get("statistics") or {}
+    if not stats:
+        return Section("summary", "Summary", ("The run summary records no statistics.",))
+    totals = Table(
+        ("Quantity", "Value"),
+        (
+            ("Melting cells", format_number(stats.get("melting_cells"))),
+            ("Melting area", format_number(stats.get("melting_area_km2"), unit="km²")),
+            ("Melt volume", format_number(stats.get("melt_volume_km3"), unit="km³")),
+        ),
+    )
+    var_rows = tuple(
+        (
+            str(name),
+            variable_units(name, _get(summary, "outputs", name, "units")),
+            format_number(_get(s, "min")),
+            format_number(_get(s, "max")),
+            format_number(_get(s, "mean")),
+        )
+        for name, s in (stats.get("variables") or {}).items()
+    )
+    if not var_rows:
+        return Section("summary", "Summary", (totals,))
+    per_variable = Table(("Variable", "Unit", "Min", "Max", "Mean"), var_rows)
+    return Section("summary", "Summary", (totals, per_variable))
+
+
+def _model_section(summary: dict[str, Any]) -> Section:
+    model = summary.get("model") or {}
+    reference = str(model.get("reference") or "")
+    tp = summary.get("ambient_potential_temperature_c")
+    table = _parameter_table(model, fallback=f"model reference ({reference})" if reference else "")
+    blocks: tuple[Block, ...] = (
+        f"Model: {model.get('name') or 'not recorded'}.",
+        f"Reference: {reference or 'not recorded'}.",
+        f"Ambient mantle potential temperature: {format_value(tp)} °C.",
+        table if table.rows else "The summary lists no model parameters.",
+    )
+    return Section("model", "Melting model", blocks)
+
+
+def _lid_section(summary: dict[str, Any]) -> Section:
+    cooling = summary.get("cooling")
+    blocks: list[Block]
+    if isinstance(cooling, dict) and cooling:
+        blocks = [
+            f"Cooling model: {cooling.get('name') or 'not recorded'}.",
+            f"Lid isotherm: {format_value(cooling.get('lid_isotherm_c'))} °C.",
+        ]
+        if cooling.get("reference"):
+            blocks.append(f"Reference: {cooling['reference']}.")
+        table = _parameter_table(cooling, fallback=str(cooling.get("reference") or ""))
+        if table.rows:
+            blocks.append(table)
+    else:
+        blocks = ["No cooling model: the lid came from a lid-thickness grid."]
+    top = summary.get("min_top_of_melting_km")
+    if top is not None:
+        blocks.append(f"Shallowest top of melting (base of the crust): {format_value(top)} km.")
+    return Section("lid", "Lid (lithosphere)", tuple(blocks))
+
+
+def _grid_section(summary: dict[str, Any]) -> Section:
+    _, grid_rows = grid_text(summary)
+    return Section("grid", "Grid", (Table(("Item", "Value"), tuple(grid_rows)),))
+
+
+_INPUT_KEYS_SHOWN = {"file", "source", "sha256", "units", "long_name"}
+
+
+def _input_row(name: str, entry: Any) -> tuple[str, ...]:
+    entry = entry if isinstance(entry, dict) else {}
+    extra = {k: v for k, v in entry.items() if k not in _INPUT_KEYS_SHOWN}
+    return (
+        str(name),
+        variable_units(name, entry.get("units")),
+        str(entry.get("source") or "none recorded"),
+        str(entry.get("sha256") or "none recorded"),
+        str(entry.get("file") or ""),
+        "; ".join(f"{k}={format_value(v)}" for k, v in extra.items()),
+    )
+
+
+def _inputs_section(summary: dict[str, Any]) -> Section:
+    rows = tuple(_input_row(name, entry) for name, entry in (summary.get("inputs") or {}).items())
+    if not rows:
+        return Section("inputs", "Input provenance", ("The summary lists no inputs.",))
+    header = ("Input", "Unit", "Source", "SHA-256", "Aligned grid", "Details")
+    return Section("inputs", "Input provenance", (Table(header, rows, mono=(2, 3, 4)),))
+
+
+def _workflow_section(summary: dict[str, Any]) -> Section:
+    workflow = summary.get("workflow")
+    block = Pre(str(workflow)) if workflow else "The summary holds no workflow text."
+    return Section("workflow", "Workflow", (block,))
+
+
+_SECTIONS: tuple[Callable[[dict[str, Any]], Section], ...] = (
+    _summary_section,
+    _model_section,
+    _lid_section,
+    _grid_section,
+    _inputs_section,
+    _workflow_section,
+)
+
+
+def build_sections(run: RunDir) -> list[Section]:
+    """The report's content as sections of text, tables and preformatted blocks.
+
+    In page order: summary numbers, melting model, lid, grid, input provenance, workflow.
+    """
+    summary = run.summary
+    return [make(summary) for make in _SECTIONS]

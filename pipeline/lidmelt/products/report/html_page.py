@@ -1,0 +1,133 @@
+"""The report as one self-contained HTML page.
+
+Every string taken from a file is HTML-escaped, and the page loads nothing from outside (no
+external CSS, scripts, fonts or images; maps are embedded as base64 ``data:`` URLs), so it can
+be mailed or archived as it is.
+"""
+
+from __future__ import annotations
+
+import base64
+import html
+from collections.abc import Sequence
+from typing import Any
+
+from lidmelt import __version__
+from lidmelt.grids.rundir import RunDir
+from lidmelt.products.report.content import (
+    CAUTION,
+    Block,
+    MapImage,
+    Pre,
+    Section,
+    Table,
+    build_sections,
+    job_line,
+    variable_label,
+)
+
+__all__ = ["render_html"]
+
+_CSS = """
+body { font-family: system-ui, -apple-system, "Segoe UI", Roboto, Helvetica, Arial,
+  sans-serif; margin: 2rem auto; max-width: 60rem; padding: 0 1rem; color: #1a1a1a;
+  line-height: 1.45; }
+h1 { font-size: 1.6rem; margin-bottom: 0.3rem; }
+h2 { font-size: 1.25rem; border-bottom: 1px solid #ccc; padding-bottom: 0.2rem;
+  margin-top: 2rem; }
+p.job { font-size: 1.05rem; }
+.caution { border-left: 4px solid #b35900; background: #fff5e6; padding: 0.6rem 1rem; }
+table { border-collapse: collapse; margin: 0.6rem 0; font-size: 0.92rem; }
+th, td { border: 1px solid #d0d0d0; padding: 0.25rem 0.5rem; text-align: left;
+  vertical-align: top; }
+th { background: #f2f2f2; }
+td.mono, pre { font-family: ui-monospace, "DejaVu Sans Mono", Menlo, Consolas, monospace;
+  font-size: 0.85rem; word-break: break-all; }
+pre { background: #f7f7f7; border: 1px solid #ddd; padding: 0.6rem; white-space: pre-wrap; }
+figure { margin: 1rem 0 2rem 0; }
+figure img { max-width: 100%; height: auto; border: 1px solid #e0e0e0; }
+figcaption { font-size: 0.85rem; color: #555; }
+footer { margin-top: 2.5rem; font-size: 0.85rem; color: #555; }
+"""
+
+
+def _esc(text: Any) -> str:
+    return html.escape(str(text), quote=True)
+
+
+def _html_block(block: Block) -> str:
+    if isinstance(block, Table):
+        head = "".join(f"<th>{_esc(h)}</th>" for h in block.header)
+        body = []
+        for row in block.rows:
+            cells = "".join(
+                f'<td class="mono">{_esc(c)}</td>' if i in block.mono else f"<td>{_esc(c)}</td>"
+                for i, c in enumerate(row)
+            )
+            body.append(f"<tr>{cells}</tr>")
+        return f"<table><thead><tr>{head}</tr></thead><tbody>{''.join(body)}</tbody></table>"
+    if isinstance(block, Pre):
+        return f"<pre>{_esc(block.text)}</pre>"
+    return f"<p>{_esc(block)}</p>"
+
+
+def _html_section(section: Section) -> list[str]:
+    return [
+        f'<section id="{section.key}"><h2>{_esc(section.heading)}</h2>',
+        *(_html_block(b) for b in section.blocks),
+        "</section>",
+    ]
+
+
+def _html_maps(images: Sequence[MapImage]) -> list[str]:
+    parts = ['<section id="maps"><h2>Maps</h2>']
+    if not images:
+        parts.append("<p>No maps were included.</p>")
+    for image in images:
+        data = base64.b64encode(image.data).decode("ascii")
+        parts.append(
+            f'<figure><img alt="Map of {_esc(image.variable)}" '
+            f'src="data:{image.mime};base64,{data}">'
+            f"<figcaption>{_esc(variable_label(image.variable))} ({_esc(image.source)})"
+            "</figcaption></figure>"
+        )
+    parts.append("</section>")
+    return parts
+
+
+def render_html(run: RunDir, images: Sequence[MapImage]) -> str:
+    """The report page as one HTML string (no external resources).
+
+    The summary section comes first, then the maps, then the other sections.
+    """
+    summary = run.summary
+    sections = build_sections(run)
+    title = f"lidmelt run report: {_esc(run.path.name)}"
+    parts = [
+        "<!DOCTYPE html>",
+        '<html lang="en">',
+        "<head>",
+        '<meta charset="utf-8">',
+        '<meta name="viewport" content="width=device-width, initial-scale=1">',
+        f"<title>{title}</title>",
+        f"<style>{_CSS}</style>",
+        "</head>",
+        "<body>",
+        "<header>",
+        f"<h1>{title}</h1>",
+        f'<p class="job">{_esc(job_line(summary))}</p>',
+        "</header>",
+        f'<aside class="caution"><strong>Caution.</strong> {_esc(CAUTION)}</aside>',
+        *_html_section(sections[0]),
+        *_html_maps(images),
+    ]
+    for section in sections[1:]:
+        parts.extend(_html_section(section))
+    parts.append(
+        f"<footer>Report written by lidmelt {_esc(__version__)}; run made by lidmelt "
+        f"{_esc(summary.get('lidmelt_version') or 'unknown')} at "
+        f"{_esc(summary.get('created_utc') or 'an unrecorded time')}. Run directory: "
+        f"{_esc(run.path)}.</footer>"
+    )
+    parts.extend(["</body>", "</html>", ""])
+    return "\n".join(parts)
