@@ -40,12 +40,29 @@ def _fsync_dir(folder: Path) -> None:
             os.close(fd)
 
 
+def _umask() -> int:
+    mask = os.umask(0o022)
+    os.umask(mask)
+    return mask
+
+
+#: The process's file-creation mask, read once (reading it means setting it).
+_UMASK = _umask()
+
+
 def _reserve(path: Path) -> Path:
-    """Create an empty, exclusive temporary file beside ``path`` that keeps its suffix."""
+    """Create an empty, exclusive temporary file beside ``path`` that keeps its suffix.
+
+    :func:`tempfile.mkstemp` creates it readable by its owner only; it gets the mode an
+    ordinary new file would have (0666 less the umask) before anything is written.
+    """
     fd, name = tempfile.mkstemp(
         dir=path.parent, prefix=f".{path.name}.", suffix=f".tmp{path.suffix}"
     )
-    os.close(fd)
+    try:
+        os.fchmod(fd, 0o666 & ~_UMASK)
+    finally:
+        os.close(fd)
     return Path(name)
 
 

@@ -53,7 +53,8 @@ class Variable:
     zero_means_no_melt : bool
         0 marks a valid cell that does not melt (drawn as "no melting", not as data).
     undefined_without_melt : bool
-        NaN marks a valid cell that does not melt (e.g. the mean melt pressure).
+        The value may be NaN in a valid cell that does not melt (e.g. the mean melt pressure);
+        maps draw such cells as "no melting" rather than as nodata.
     """
 
     name: str
@@ -86,12 +87,14 @@ _OUTPUT_LIST = (
         units="km",
         long_name="onset depth of melting below the seafloor",
         style="depth",
+        undefined_without_melt=True,
     ),
     Variable(
         name="onset_pressure_gpa",
         units="GPa",
         long_name="onset pressure of melting",
         style="depth",
+        undefined_without_melt=True,
     ),
     Variable(
         name="lid_depth_km",

@@ -14,7 +14,8 @@ output variable (``<variable>.tif``), the run's inputs aligned to the target gri
 ``height``, ``bounds`` [west, south, east, north] in the grid CRS},
 ``model`` {``name``, ``parameters`` {name: value}, ``reference``, ``sources``},
 ``ambient_potential_temperature_c``, ``cooling`` ({``name``, ``lid_isotherm_c``,
-``parameters``, ``reference``, ``sources``} or null when a lid grid was given), ``min_top_of_melting_km``,
+``parameters``, ``reference``, ``sources``} or null when a lid grid was given),
+``min_top_of_melting_km``,
 ``method`` (``"table"`` or ``"direct"``),
 ``inputs`` {name: {``file`` (aligned grid in this folder, or null for a constant), ``source``
 (path or null), ``sha256`` (or null), ``units``, ``long_name``, ...}},

@@ -85,11 +85,6 @@ STYLES: dict[str, MapStyle] = {
 #: Style of a variable the registry does not know, or whose key has no entry.
 DEFAULT_STYLE = MapStyle("viridis")
 
-# Variables that are NaN wherever a valid cell does not melt, beyond those the registry marks
-# (Variable.undefined_without_melt): the onset is undefined when the isentrope never meets
-# the solidus. Drawn as "no melting" as before the registry existed.
-_ALSO_UNDEFINED_WITHOUT_MELT = frozenset({"onset_depth_km", "onset_pressure_gpa"})
-
 _UNIT_LABELS = {"1": "dimensionless", "": "no unit given", "degC": "°C", "wt%": "wt %"}
 
 
@@ -126,7 +121,7 @@ def style_for(variable: str) -> VariableStyle:
     return VariableStyle(
         STYLES.get(var.style, DEFAULT_STYLE).cmap,
         zero_is_no_melt=var.zero_means_no_melt,
-        nan_is_no_melt=var.undefined_without_melt or variable in _ALSO_UNDEFINED_WITHOUT_MELT,
+        nan_is_no_melt=var.undefined_without_melt,
         title=var.title,
     )
 
