@@ -14,8 +14,8 @@ import numpy.testing as npt
 import pytest
 
 from lidmelt.errors import GridError
-from lidmelt.grids.grid import Grid
 from lidmelt.grids.area import cell_area_km2
+from lidmelt.grids.grid import Grid
 
 # Total surface area of the WGS 84 ellipsoid: 5.10065622e14 m^2, a derived constant listed in
 # NIMA TR8350.2 (2000), table 3.5 [from memory].

@@ -33,8 +33,11 @@ import pandas as pd
 import pyproj
 
 from lidmelt.errors import InputError
+from lidmelt.files import atomic_path
+from lidmelt.grids import vector
+from lidmelt.grids.grid import WGS84, lonlat_from
 from lidmelt.grids.rundir import RunDir
-from lidmelt.products import _sampling as smp
+from lidmelt.products import sampling as smp
 
 if TYPE_CHECKING:
     import geopandas as gpd
@@ -87,18 +90,15 @@ def read_track(
     """
     import shapely
 
-    if isinstance(track, (str, os.PathLike)):
-        source = f"track file {str(track)!r}"
-        gdf = smp.read_points(
-            track, lon_column=lon_column, lat_column=lat_column, crs=crs, what="track"
-        )
-    else:
-        source = "the track table"
-        gdf = smp.apply_crs(track, crs=crs, source=source)
+    gdf, source = vector.read_features(
+        track,
+        what="track",
+        expected="two or more waypoints, or one line",
+        crs=crs,
+        lon_column=lon_column,
+        lat_column=lat_column,
+    )
     geoms = gdf.geometry.to_numpy()
-    if len(geoms) == 0:
-        msg = f"{source} has no features; expected two or more waypoints, or one line."
-        raise InputError(msg)
     types = set(shapely.get_type_id(geoms).tolist())
     point, line, multi = (
         int(shapely.GeometryType.POINT),
@@ -106,7 +106,7 @@ def read_track(
         int(shapely.GeometryType.MULTILINESTRING),
     )
     if types == {point}:
-        x, y = smp.check_points(gdf, source=source)
+        x, y = vector.check_points(gdf, source=source)
     elif types <= {line, multi}:
         x, y = _line_vertices(geoms, source=source)
     else:
@@ -116,7 +116,7 @@ def read_track(
             "lines. Convert it, or give the waypoints as a CSV."
         )
         raise InputError(msg)
-    lon, lat = smp.lonlat_from(pyproj.CRS.from_user_input(gdf.crs), x, y)
+    lon, lat = lonlat_from(gdf.crs, x, y)
     keep = np.ones(lon.size, dtype=bool)
     keep[1:] = (np.diff(lon) != 0) | (np.diff(lat) != 0)
     lon, lat = lon[keep], lat[keep]
@@ -270,14 +270,12 @@ def sample_track(
     run = smp.as_run(run)
     wlon, wlat = read_track(track, lon_column=lon_column, lat_column=lat_column, crs=crs)
     lon, lat, distance, index = track_points(wlon, wlat, spacing_km=spacing_km)
-    grid = smp.grid_info(run)
-    gx, gy = grid.to_grid_xy(lon, lat, smp.WGS84)
-    columns, status = smp.sample_run(run, grid, gx, gy, method=method)
+    columns, status = smp.sample_points(run, lon, lat, WGS84, method=method)
     frame = pd.DataFrame(
         {"distance_km": distance, "waypoint_index": index, "lon": lon, "lat": lat, **columns}
     )
     frame["status"] = pd.array(status, dtype=object)
-    gdf = gpd.GeoDataFrame(frame, geometry=gpd.points_from_xy(lon, lat), crs=smp.WGS84)
+    gdf = gpd.GeoDataFrame(frame, geometry=gpd.points_from_xy(lon, lat), crs=WGS84)
     gdf.attrs["lidmelt_coordinate_columns"] = ("lon", "lat")
     gdf.attrs["lidmelt_units"] = smp.units_of(run, list(columns))
     gdf.attrs["lidmelt_waypoint_distance_km"] = waypoint_distances_km(wlon, wlat).tolist()
@@ -380,7 +378,7 @@ def plot_profile(gdf: gpd.GeoDataFrame, path: str | os.PathLike[str], *, title: 
     top.set_title(title or "Track profile", fontsize=12)
     for ax in (top, bottom):
         ax.tick_params(labelsize=10)
-    with smp.atomic_paths(path) as (temp,):
+    with atomic_path(path) as temp:
         fig.savefig(temp, dpi=150, format="png")
     plt.close(fig)
     return path
@@ -392,7 +390,7 @@ def write_profile(
     """Write a profile's CSV and its PNG figure beside it (same stem); return both paths."""
     path = smp.check_output_path(path, (".csv",), what="profile")
     png = path.with_suffix(".png")
-    with smp.atomic_paths(path) as (temp,):
+    with atomic_path(path) as temp:
         smp.table_with_coordinates(gdf).to_csv(temp, index=False)
         plot_profile(gdf, png, title=title)
     return path, png
