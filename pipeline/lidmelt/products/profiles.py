@@ -324,21 +324,41 @@ def plot_profile(gdf: gpd.GeoDataFrame, path: str | os.PathLike[str], *, title: 
     fig, (top, bottom) = plt.subplots(
         2, 1, sharex=True, figsize=(9, 6.5), height_ratios=(1, 1.4), layout="constrained"
     )
+    _draw_melt(top, gdf, d)
+    _draw_depths(bottom, gdf, d)
+    _mark_waypoints(top, bottom, gdf.attrs.get("lidmelt_waypoint_distance_km", [])[1:-1])
+    top.set_xlim(d.min(), d.max() if d.max() > d.min() else d.min() + 1)
+    top.set_title(title or "Track profile", fontsize=12)
+    for ax in (top, bottom):
+        ax.tick_params(labelsize=10)
+    try:
+        with atomic_path(path) as temp:
+            fig.savefig(temp, dpi=150, format="png")
+    finally:
+        plt.close(fig)
+    return path
+
+
+def _draw_melt(ax: Any, gdf: gpd.GeoDataFrame, d: np.ndarray) -> None:
+    """Upper panel: melt thickness against distance, filled down to 0."""
     if "melt_thickness_km" in gdf.columns:
         melt = gdf["melt_thickness_km"].to_numpy(dtype=float)
-        top.fill_between(d, 0, melt, color="tab:red", alpha=0.3, lw=0)
-        top.plot(d, melt, color="tab:red", lw=1.6, label="melt thickness")
-        top.set_ylim(bottom=0)
-    top.set_ylabel("Melt thickness (km)")
-    top.grid(alpha=0.3)
+        ax.fill_between(d, 0, melt, color="tab:red", alpha=0.3, lw=0)
+        ax.plot(d, melt, color="tab:red", lw=1.6, label="melt thickness")
+        ax.set_ylim(bottom=0)
+    ax.set_ylabel("Melt thickness (km)")
+    ax.grid(alpha=0.3)
 
+
+def _draw_depths(ax: Any, gdf: gpd.GeoDataFrame, d: np.ndarray) -> None:
+    """Lower panel: onset and lid depth (depth down), the melting column shaded between."""
     lid = gdf["lid_depth_km"].to_numpy(dtype=float) if "lid_depth_km" in gdf.columns else None
     onset = gdf["onset_depth_km"].to_numpy(dtype=float) if "onset_depth_km" in gdf.columns else None
     if lid is not None and onset is not None:
         melting = np.isfinite(lid) & np.isfinite(onset) & (onset > lid)
         if "melt_thickness_km" in gdf.columns:
             melting &= gdf["melt_thickness_km"].to_numpy(dtype=float) > 0
-        bottom.fill_between(
+        ax.fill_between(
             d,
             lid,
             onset,
@@ -349,17 +369,19 @@ def plot_profile(gdf: gpd.GeoDataFrame, path: str | os.PathLike[str], *, title: 
             label="melting column",
         )
     if onset is not None:
-        bottom.plot(d, onset, color="tab:orange", lw=1.6, label="onset depth (solidus crossing)")
+        ax.plot(d, onset, color="tab:orange", lw=1.6, label="onset depth (solidus crossing)")
     if lid is not None:
-        bottom.plot(d, lid, color="tab:blue", lw=1.6, label="lid depth (top of melting)")
-    bottom.invert_yaxis()
-    bottom.set_ylabel("Depth (km)")
-    bottom.set_xlabel("Distance along track (km)")
-    bottom.grid(alpha=0.3)
-    if bottom.lines:
-        bottom.legend(loc="best", fontsize=9, framealpha=0.8)
+        ax.plot(d, lid, color="tab:blue", lw=1.6, label="lid depth (top of melting)")
+    ax.invert_yaxis()
+    ax.set_ylabel("Depth (km)")
+    ax.set_xlabel("Distance along track (km)")
+    ax.grid(alpha=0.3)
+    if ax.lines:
+        ax.legend(loc="best", fontsize=9, framealpha=0.8)
 
-    turns = gdf.attrs.get("lidmelt_waypoint_distance_km", [])[1:-1]
+
+def _mark_waypoints(top: Any, bottom: Any, turns: list[float]) -> None:
+    """Dotted vertical lines at the inner waypoints, labelled once."""
     for ax in (top, bottom):
         for x in turns:
             ax.axvline(x, color="0.5", lw=0.8, ls=":")
@@ -374,14 +396,6 @@ def plot_profile(gdf: gpd.GeoDataFrame, path: str | os.PathLike[str], *, title: 
             fontsize=8,
             color="0.4",
         )
-    top.set_xlim(d.min(), d.max() if d.max() > d.min() else d.min() + 1)
-    top.set_title(title or "Track profile", fontsize=12)
-    for ax in (top, bottom):
-        ax.tick_params(labelsize=10)
-    with atomic_path(path) as temp:
-        fig.savefig(temp, dpi=150, format="png")
-    plt.close(fig)
-    return path
 
 
 def write_profile(
