@@ -14,8 +14,8 @@ import numpy.testing as npt
 import pytest
 
 from lidmelt.errors import GridError
-from lidmelt.grids.align import TargetGrid
 from lidmelt.grids.area import cell_area_km2
+from lidmelt.grids.grid import Grid
 
 # Total surface area of the WGS 84 ellipsoid: 5.10065622e14 m^2, a derived constant listed in
 # NIMA TR8350.2 (2000), table 3.5 [from memory].
@@ -49,7 +49,7 @@ def densified_cell_area_km2(geod, west, east, south, north, n=64):
 
 
 def test_global_total_is_wgs84_area():
-    area = cell_area_km2(TargetGrid.from_extent(-180, 180, -90, 90, 1.0))
+    area = cell_area_km2(Grid.from_extent(-180, 180, -90, 90, 1.0))
     assert float(area.sum()) == pytest.approx(WGS84_AREA_KM2, rel=1e-4)  # 0.01 %
     assert area.attrs["units"] == "km2"
     assert area.dims == ("y", "x")
@@ -57,7 +57,7 @@ def test_global_total_is_wgs84_area():
 
 
 def test_rows_against_geod_polygons(geod):
-    t = TargetGrid.from_extent(-180, 180, -90, 90, 1.0)
+    t = Grid.from_extent(-180, 180, -90, 90, 1.0)
     area = cell_area_km2(t).values
     # all columns equal; north-south symmetry (the ellipsoid is symmetric about the equator)
     npt.assert_array_equal(area, np.repeat(area[:, :1], 360, axis=1))
@@ -72,7 +72,7 @@ def test_rows_against_geod_polygons(geod):
 def test_sphere_hat_box():
     """On a sphere (e = 0) a band has area 2 pi R^2 (sin phi2 - sin phi1) (Archimedes)."""
     r_m = 6371000.0
-    t = TargetGrid.from_extent(0, 10, -30, 60, 5.0, crs=f"+proj=longlat +R={r_m} +no_defs")
+    t = Grid.from_extent(0, 10, -30, 60, 5.0, crs=f"+proj=longlat +R={r_m} +no_defs")
     area = cell_area_km2(t).values
     lat_n = 60.0 - 5.0 * np.arange(18)
     expected = (
@@ -84,7 +84,7 @@ def test_sphere_hat_box():
 
 
 def test_fine_grid_rows(geod):
-    t = TargetGrid.from_extent(-10, 10, -80, -70, 0.1)
+    t = Grid.from_extent(-10, 10, -80, -70, 0.1)
     area = cell_area_km2(t).values
     expected = densified_cell_area_km2(geod, 0.0, 0.1, -80.0, -79.9)
     assert area[-1, 0] == pytest.approx(expected, rel=1e-7)
@@ -104,7 +104,7 @@ def test_mercator_grid(geod):
     documented definition, to 1e-9.
     """
     h = 1e5
-    t = TargetGrid.from_extent(-5e5, 5e5, -1e6, 1.2e7, h, crs="EPSG:3857")
+    t = Grid.from_extent(-5e5, 5e5, -1e6, 1.2e7, h, crs="EPSG:3857")
     area = cell_area_km2(t).values
     xs = -5e5 + h * np.arange(t.width + 1)
     ys = 1.2e7 - h * np.arange(t.height + 1)
@@ -124,7 +124,7 @@ def test_projected_cells_tile_the_region(geod):
     """Neighbouring cells share geodesic edges: their sum is the area of the outer boundary
     polygon through all the boundary corners (pyproj)."""
     h = 2e5
-    t = TargetGrid.from_extent(-1e6, 1e6, 2e6, 5e6, h, crs="EPSG:3857")
+    t = Grid.from_extent(-1e6, 1e6, 2e6, 5e6, h, crs="EPSG:3857")
     total = float(cell_area_km2(t).sum())
     xs = -1e6 + h * np.arange(t.width + 1)
     ys = 5e6 - h * np.arange(t.height + 1)
@@ -141,19 +141,19 @@ def test_projected_cells_tile_the_region(geod):
 
 
 def test_chunked_matches_numpy():
-    geo = TargetGrid.from_extent(-20, 20, -10, 10, 0.5)
+    geo = Grid.from_extent(-20, 20, -10, 10, 0.5)
     lazy = cell_area_km2(geo, chunks=(16, 32))
     assert hasattr(lazy.data, "dask")
     npt.assert_array_equal(lazy.values, cell_area_km2(geo).values)
-    proj = TargetGrid.from_extent(-5e5, 5e5, -5e5, 5e5, 5e4, crs="EPSG:3857")
+    proj = Grid.from_extent(-5e5, 5e5, -5e5, 5e5, 5e4, crs="EPSG:3857")
     lazy = cell_area_km2(proj, chunks=(7, 9))
     npt.assert_array_equal(lazy.values, cell_area_km2(proj).values)
 
 
 def test_coords_and_errors():
-    t = TargetGrid.from_extent(0, 4, 0, 2, 1.0)
+    t = Grid.from_extent(0, 4, 0, 2, 1.0)
     area = cell_area_km2(t)
     npt.assert_array_equal(area["x"], t.template()["x"])
     assert tuple(area.rio.transform())[:6] == t.transform
-    with pytest.raises(GridError, match=r"must be a TargetGrid"):
+    with pytest.raises(GridError, match=r"must be a Grid"):
         cell_area_km2("EPSG:4326")

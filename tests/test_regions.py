@@ -23,8 +23,10 @@ from affine import Affine
 
 from lidmelt.cli import main
 from lidmelt.errors import GridError, InputError
-from lidmelt.products import _sampling as smp
-from lidmelt.products.regions import region_statistics, screen, write_candidates
+from lidmelt.grids.area import cell_areas_km2, row_areas_km2
+from lidmelt.grids.grid import Grid
+from lidmelt.products.regions import region_statistics
+from lidmelt.products.screening import screen, write_candidates
 
 GEOD = pyproj.Geod(ellps="WGS84")
 
@@ -69,20 +71,21 @@ def geod_polygon_area_km2(geom, max_seg_deg=None):
 def test_global_cell_areas_sum_to_the_ellipsoid_surface():
     """Sum over a global 1-degree grid = 2 pi a^2 [1 + (1 - e^2)/e atanh(e)], the closed-form
     surface area of an ellipsoid of revolution (WGS84: a = 6378137 m, f = 1/298.257223563)."""
-    crs = pyproj.CRS.from_epsg(4326)
-    grid = smp.GridInfo(Affine(1.0, 0, -180, 0, -1.0, 90), 360, 180, crs)
+    grid = Grid("EPSG:4326", Affine(1.0, 0, -180, 0, -1.0, 90), 360, 180)
     a, f = 6378137.0, 1 / 298.257223563
     e = math.sqrt(f * (2 - f))
     surface = 2 * math.pi * a**2 * (1 + (1 - e**2) / e * math.atanh(e)) / 1e6
-    total = smp.row_areas_km2(grid).sum() * 360
+    total = row_areas_km2(grid).sum() * 360
     np.testing.assert_allclose(total, surface, rtol=1e-12)
-    np.testing.assert_allclose(total, 510_065_621.724, rtol=1e-11)  # GEOSTACK 5 (pyproj Geod)
+    np.testing.assert_allclose(
+        total, 510_065_621.724, rtol=1e-11
+    )  # WGS 84 surface area, NIMA TR8350.2 (2000) table 3.3 [from memory]
 
 
 def test_row_areas_match_pyproj_geod():
     t = Affine(0.5, 0, -40, 0, -0.5, 80)
-    grid = smp.GridInfo(t, 60, 320, pyproj.CRS.from_epsg(4326))
-    np.testing.assert_allclose(smp.row_areas_km2(grid), geod_row_areas_km2(t, 320), rtol=1e-7)
+    grid = Grid("EPSG:4326", t, 60, 320)
+    np.testing.assert_allclose(row_areas_km2(grid), geod_row_areas_km2(t, 320), rtol=1e-7)
 
 
 def test_projected_cell_areas_in_an_equal_area_projection():
@@ -91,9 +94,9 @@ def test_projected_cell_areas_in_an_equal_area_projection():
     has geodesic edges, not the map's straight ones; that second-order difference is bounded
     by (cell size / Earth radius)^2 = (25 / 6371)^2 = 1.5e-5 (common practice)."""
     t = Affine(25_000.0, 0, -2_000_000.0, 0, -25_000.0, 3_000_000.0)
-    grid = smp.GridInfo(t, 160, 240, pyproj.CRS.from_epsg(6933))
+    grid = Grid("EPSG:6933", t, 160, 240)
     flat = np.arange(0, 160 * 240, 997)
-    np.testing.assert_allclose(smp.cell_areas_km2(grid, flat), 625.0, rtol=1.5e-5)
+    np.testing.assert_allclose(cell_areas_km2(grid, flat), 625.0, rtol=1.5e-5)
 
 
 # ---------------------------------------------------------------------------------------

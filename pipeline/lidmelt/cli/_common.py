@@ -15,7 +15,7 @@ from collections.abc import Iterator, Sequence
 
 import pandas as pd
 
-from lidmelt.products._sampling import METHODS, STATUSES
+from lidmelt.products.sampling import METHODS, STATUSES
 
 __all__ = [
     "coordinate_options",

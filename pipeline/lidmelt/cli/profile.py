@@ -16,7 +16,7 @@ from lidmelt.cli._common import (
     sampling_method_option,
     status_summary,
 )
-from lidmelt.products._sampling import check_output_path
+from lidmelt.products.sampling import check_output_path
 from lidmelt.products.profiles import sample_track, write_profile
 
 __all__ = ["register"]

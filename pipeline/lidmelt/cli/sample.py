@@ -14,7 +14,7 @@ from lidmelt.cli._common import (
     sampling_method_option,
     status_summary,
 )
-from lidmelt.products._sampling import check_output_path, table_with_coordinates
+from lidmelt.products.sampling import check_output_path, table_with_coordinates
 from lidmelt.products.sites import OUTPUT_SUFFIXES, sample_stations, write_stations
 
 __all__ = ["register"]

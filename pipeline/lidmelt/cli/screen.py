@@ -9,8 +9,8 @@ import pandas as pd
 
 from lidmelt.cli._common import format_table, print_warnings, run_dir_option
 from lidmelt.cli.regions import SHOWN_STATISTICS
-from lidmelt.products._sampling import check_output_path
-from lidmelt.products.regions import screen, write_candidates
+from lidmelt.products.sampling import check_output_path
+from lidmelt.products.screening import screen, write_candidates
 
 __all__ = ["register"]
 

@@ -1,8 +1,10 @@
-"""Cell areas on the ellipsoid, for area and volume statistics.
+"""Cell areas on the ellipsoid, for area and volume statistics (the engine's and the products').
 
 Geographic grids use the closed-form area of a latitude-longitude quadrangle on the ellipsoid
 (through the authalic latitude); projected grids use the geodesic polygon of each cell's four
-corners from :meth:`pyproj.Geod.polygon_area_perimeter`.
+corners from :meth:`pyproj.Geod.polygon_area_perimeter`. :func:`cell_area_km2` gives the whole
+grid (lazily if asked), :func:`cell_areas_km2` only the cells asked for, :func:`row_areas_km2`
+one cell per row of a geographic grid.
 """
 
 from __future__ import annotations
@@ -14,9 +16,9 @@ import xarray as xr
 from pyproj import CRS, Geod, Transformer
 
 from lidmelt.errors import GridError
-from lidmelt.grids.align import TargetGrid
+from lidmelt.grids.grid import Grid
 
-__all__ = ["authalic_q", "cell_area_km2"]
+__all__ = ["authalic_q", "cell_area_km2", "cell_areas_km2", "row_areas_km2"]
 
 
 def authalic_q(lat_deg: Any, eccentricity: float) -> np.ndarray:
@@ -50,14 +52,12 @@ def authalic_q(lat_deg: Any, eccentricity: float) -> np.ndarray:
     return (1.0 - e2) * (s / (1.0 - e2 * s * s) - np.log((1.0 - e * s) / (1.0 + e * s)) / (2 * e))
 
 
-def cell_area_km2(
-    target: TargetGrid, *, chunks: int | tuple[int, int] | None = None
-) -> xr.DataArray:
+def cell_area_km2(grid: Grid, *, chunks: int | tuple[int, int] | None = None) -> xr.DataArray:
     """Area of every cell of a grid on its CRS's ellipsoid (WGS 84 for EPSG:4326/3857), km².
 
     Parameters
     ----------
-    target : TargetGrid
+    grid : Grid
         The grid.
     chunks : int or (int, int), optional
         If given, the result is a lazy dask array with these chunks.
@@ -65,13 +65,13 @@ def cell_area_km2(
     Returns
     -------
     xarray.DataArray
-        ``cell_area_km2``, float64 ``(y, x)`` with the coordinates of ``target.template()``,
+        ``cell_area_km2``, float64 ``(y, x)`` with the coordinates of ``grid.template()``,
         attrs ``units = "km2"``, ``long_name`` and ``method``.
 
     Raises
     ------
     GridError
-        If ``target`` is not a TargetGrid, or its CRS has no ellipsoid.
+        If ``grid`` is not a Grid, or its CRS has no ellipsoid.
 
     Notes
     -----
@@ -88,38 +88,28 @@ def cell_area_km2(
     projected edges by a relative amount of order (cell size / Earth radius)^2.
     Corners outside the projection's domain give NaN.
     """
-    if not isinstance(target, TargetGrid):
-        msg = f"target={target!r} must be a TargetGrid (see TargetGrid.from_extent)."
-        raise GridError(msg)
-    crs = target.pyproj_crs
-    if crs.ellipsoid is None:
-        msg = (
-            f"the CRS of the grid ({crs.name!r}) has no ellipsoid, so cell areas cannot be "
-            "computed. Use a geographic or projected CRS on an Earth ellipsoid, e.g. "
-            "EPSG:4326."
-        )
-        raise GridError(msg)
-    template = target.template(chunks=chunks)
-    if target.is_geographic:
-        rows = _geographic_row_areas_km2(target, crs)
+    _check_grid(grid)
+    template = grid.template(chunks=chunks)
+    if grid.is_geographic:
+        rows = row_areas_km2(grid)
         method = "exact ellipsoidal quadrangle area via the authalic latitude (Snyder 1987)"
         if chunks is None:
-            data: Any = np.repeat(rows[:, None], target.width, axis=1)
+            data: Any = np.repeat(rows[:, None], grid.width, axis=1)
         else:
             import dask.array as dsa
 
             # broadcast lazily: a dask array made from a broadcast numpy view would be hashed
             # and copied whole (466 MB for a global 2-arc-minute grid)
             column = dsa.from_array(rows[:, None], chunks=(template.data.chunks[0], 1))
-            data = dsa.broadcast_to(column, target.shape, chunks=template.data.chunks)
+            data = dsa.broadcast_to(column, grid.shape, chunks=template.data.chunks)
     else:
         method = "geodesic quadrilateral through the cell corners (pyproj.Geod)"
         if chunks is None:
-            data = _projected_block(target, slice(0, target.height), slice(0, target.width))
+            data = _projected_block(grid, slice(0, grid.height), slice(0, grid.width))
         else:
             data = template.data.map_blocks(
                 _projected_dask_block,
-                target,
+                grid,
                 dtype=np.float64,
                 meta=np.empty((0, 0), dtype=np.float64),
             )
@@ -132,47 +122,113 @@ def cell_area_km2(
     )
 
 
-def _geographic_row_areas_km2(target: TargetGrid, crs: CRS) -> np.ndarray:
+def row_areas_km2(grid: Grid) -> np.ndarray:
+    """Exact ellipsoidal area (km²) of one cell in each row of a geographic grid.
+
+    ``a^2 / 2 * dlon * |q(phi2) - q(phi1)|`` between the row's edge latitudes (clamped at the
+    poles), with q from :func:`authalic_q` (Snyder 1987, eq. 3-12 [from memory]) on the
+    ellipsoid of the grid's CRS; exact for cells bounded by meridians and parallels.
+
+    Raises
+    ------
+    GridError
+        If ``grid`` is not a geographic Grid, or its CRS has no ellipsoid.
+    """
+    crs = _check_grid(grid)
+    if not grid.is_geographic:
+        msg = (
+            f"row areas need a geographic (longitude/latitude) grid, but the grid's CRS is "
+            f"{crs.name!r}; on a projected grid every cell differs. Use cell_areas_km2 or "
+            "cell_area_km2 instead."
+        )
+        raise GridError(msg)
     ellipsoid = crs.ellipsoid
     a = ellipsoid.semi_major_metre
     inv_f = ellipsoid.inverse_flattening
     f = 0.0 if not inv_f else 1.0 / inv_f
     e = np.sqrt(f * (2.0 - f))
-    _, _, _, _, dy, north = target.transform
-    edges = np.clip(north + dy * np.arange(target.height + 1), -90.0, 90.0)
+    _, _, _, _, dy, north = grid.transform
+    edges = np.clip(north + dy * np.arange(grid.height + 1), -90.0, 90.0)
     q = authalic_q(edges, e)
-    dlon = np.radians(target.transform[0])
+    dlon = np.radians(grid.transform[0])
     return 0.5 * a * a * dlon * np.abs(q[:-1] - q[1:]) / 1e6
 
 
+def cell_areas_km2(grid: Grid, flat_index: Any) -> np.ndarray:
+    """Area (km²) of the cells with flat indices ``row * width + col``, by the rules of
+    :func:`cell_area_km2`, computed only for the cells asked for.
+
+    Raises
+    ------
+    GridError
+        If ``grid`` is not a Grid, or its CRS has no ellipsoid.
+    """
+    _check_grid(grid)
+    flat_index = np.asarray(flat_index, dtype=np.intp)
+    rows, cols = np.divmod(flat_index, grid.width)
+    if grid.is_geographic:
+        return row_areas_km2(grid)[rows]
+    a, _, c, _, e, f = grid.transform
+    # corners counter-clockwise in projected space: SW, SE, NE, NW
+    dc = np.array([0, 1, 1, 0])
+    dr = np.array([1, 1, 0, 0])
+    xx = c + a * (cols[:, None] + dc[None, :])
+    yy = f + e * (rows[:, None] + dr[None, :])
+    lon, lat = _geodetic_lonlat(grid, xx, yy)
+    return _quadrilateral_areas_km2(grid, lon, lat)
+
+
+def _check_grid(grid: Any) -> CRS:
+    if not isinstance(grid, Grid):
+        msg = f"grid={grid!r} must be a Grid (see lidmelt.grids.grid.Grid.from_extent)."
+        raise GridError(msg)
+    crs = grid.pyproj_crs
+    if crs.ellipsoid is None:
+        msg = (
+            f"the CRS of the grid ({crs.name!r}) has no ellipsoid, so cell areas cannot be "
+            "computed. Use a geographic or projected CRS on an Earth ellipsoid, e.g. "
+            "EPSG:4326."
+        )
+        raise GridError(msg)
+    return crs
+
+
 def _projected_dask_block(
-    block: np.ndarray, target: TargetGrid, block_info: dict | None = None
+    block: np.ndarray, grid: Grid, block_info: dict | None = None
 ) -> np.ndarray:
     (r0, r1), (c0, c1) = block_info[0]["array-location"]
-    return _projected_block(target, slice(r0, r1), slice(c0, c1))
+    return _projected_block(grid, slice(r0, r1), slice(c0, c1))
 
 
-def _projected_block(target: TargetGrid, rows: slice, cols: slice) -> np.ndarray:
-    crs = target.pyproj_crs
-    a, _, c, _, e, f = target.transform
+def _projected_block(grid: Grid, rows: slice, cols: slice) -> np.ndarray:
+    a, _, c, _, e, f = grid.transform
     xs = c + a * np.arange(cols.start, cols.stop + 1)
     ys = f + e * np.arange(rows.start, rows.stop + 1)
-    xx, yy = np.meshgrid(xs, ys)
-    geodetic = crs.geodetic_crs
-    lon, lat = Transformer.from_crs(crs, geodetic, always_xy=True).transform(xx, yy)
-    lon, lat = np.asarray(lon), np.asarray(lat)
-    geod: Geod = geodetic.get_geod()
-    nrows, ncols = rows.stop - rows.start, cols.stop - cols.start
-    out = np.full((nrows, ncols), np.nan, dtype=np.float64)
+    lon, lat = _geodetic_lonlat(grid, *np.meshgrid(xs, ys))
     # corners counter-clockwise in projected space: SW, SE, NE, NW
     quad_lon = np.stack([lon[1:, :-1], lon[1:, 1:], lon[:-1, 1:], lon[:-1, :-1]], axis=-1)
     quad_lat = np.stack([lat[1:, :-1], lat[1:, 1:], lat[:-1, 1:], lat[:-1, :-1]], axis=-1)
-    finite = np.isfinite(quad_lon).all(axis=-1) & np.isfinite(quad_lat).all(axis=-1)
+    return _quadrilateral_areas_km2(grid, quad_lon, quad_lat)
+
+
+def _geodetic_lonlat(grid: Grid, x: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Longitude and latitude on the CRS's own geodetic datum of grid-CRS points."""
+    crs = grid.pyproj_crs
+    lon, lat = Transformer.from_crs(crs, crs.geodetic_crs, always_xy=True).transform(x, y)
+    return np.asarray(lon), np.asarray(lat)
+
+
+def _quadrilateral_areas_km2(grid: Grid, quad_lon: np.ndarray, quad_lat: np.ndarray) -> np.ndarray:
+    """Areas (km²) of geodesic quadrilaterals given as ``(..., 4)`` corner arrays; NaN where a
+    corner is not finite."""
+    geod: Geod = grid.pyproj_crs.geodetic_crs.get_geod()
+    shape = quad_lon.shape[:-1]
+    qlon = quad_lon.reshape(-1, 4)
+    qlat = quad_lat.reshape(-1, 4)
+    finite = (np.isfinite(qlon).all(axis=-1) & np.isfinite(qlat).all(axis=-1)).tolist()
+    out = np.full(len(finite), np.nan, dtype=np.float64)
     area = geod.polygon_area_perimeter
-    for j in range(nrows):
-        qlon, qlat, ok = quad_lon[j].tolist(), quad_lat[j].tolist(), finite[j]
-        row = out[j]
-        for i in range(ncols):
-            if ok[i]:
-                row[i] = abs(area(qlon[i], qlat[i])[0])
-    return out / 1e6
+    for k, (lons, lats, ok) in enumerate(zip(qlon.tolist(), qlat.tolist(), finite, strict=True)):
+        if ok:
+            out[k] = abs(area(lons, lats)[0])
+    return out.reshape(shape) / 1e6

@@ -33,8 +33,11 @@ import pandas as pd
 import pyproj
 
 from lidmelt.errors import InputError
+from lidmelt.files import atomic_path
+from lidmelt.grids import vector
+from lidmelt.grids.grid import WGS84, lonlat_from
 from lidmelt.grids.rundir import RunDir
-from lidmelt.products import _sampling as smp
+from lidmelt.products import sampling as smp
 
 if TYPE_CHECKING:
     import geopandas as gpd
@@ -87,18 +90,15 @@ def read_track(
     """
     import shapely
 
-    if isinstance(track, (str, os.PathLike)):
-        source = f"track file {str(track)!r}"
-        gdf = smp.read_points(
-            track, lon_column=lon_column, lat_column=lat_column, crs=crs, what="track"
-        )
-    else:
-        source = "the track table"
-        gdf = smp.apply_crs(track, crs=crs, source=source)
+    gdf, source = vector.read_features(
+        track,
+        what="track",
+        expected="two or more waypoints, or one line",
+        crs=crs,
+        lon_column=lon_column,
+        lat_column=lat_column,
+    )
     geoms = gdf.geometry.to_numpy()
-    if len(geoms) == 0:
-        msg = f"{source} has no features; expected two or more waypoints, or one line."
-        raise InputError(msg)
     types = set(shapely.get_type_id(geoms).tolist())
     point, line, multi = (
         int(shapely.GeometryType.POINT),
@@ -106,7 +106,7 @@ def read_track(
         int(shapely.GeometryType.MULTILINESTRING),
     )
     if types == {point}:
-        x, y = smp.check_points(gdf, source=source)
+        x, y = vector.check_points(gdf, source=source)
     elif types <= {line, multi}:
         x, y = _line_vertices(geoms, source=source)
     else:
@@ -116,7 +116,7 @@ def read_track(
             "lines. Convert it, or give the waypoints as a CSV."
         )
         raise InputError(msg)
-    lon, lat = smp.lonlat_from(pyproj.CRS.from_user_input(gdf.crs), x, y)
+    lon, lat = lonlat_from(gdf.crs, x, y)
     keep = np.ones(lon.size, dtype=bool)
     keep[1:] = (np.diff(lon) != 0) | (np.diff(lat) != 0)
     lon, lat = lon[keep], lat[keep]
@@ -270,14 +270,12 @@ def sample_track(
     run = smp.as_run(run)
     wlon, wlat = read_track(track, lon_column=lon_column, lat_column=lat_column, crs=crs)
     lon, lat, distance, index = track_points(wlon, wlat, spacing_km=spacing_km)
-    grid = smp.grid_info(run)
-    gx, gy = grid.to_grid_xy(lon, lat, smp.WGS84)
-    columns, status = smp.sample_run(run, grid, gx, gy, method=method)
+    columns, status = smp.sample_points(run, lon, lat, WGS84, method=method)
     frame = pd.DataFrame(
         {"distance_km": distance, "waypoint_index": index, "lon": lon, "lat": lat, **columns}
     )
     frame["status"] = pd.array(status, dtype=object)
-    gdf = gpd.GeoDataFrame(frame, geometry=gpd.points_from_xy(lon, lat), crs=smp.WGS84)
+    gdf = gpd.GeoDataFrame(frame, geometry=gpd.points_from_xy(lon, lat), crs=WGS84)
     gdf.attrs["lidmelt_coordinate_columns"] = ("lon", "lat")
     gdf.attrs["lidmelt_units"] = smp.units_of(run, list(columns))
     gdf.attrs["lidmelt_waypoint_distance_km"] = waypoint_distances_km(wlon, wlat).tolist()
@@ -326,21 +324,41 @@ def plot_profile(gdf: gpd.GeoDataFrame, path: str | os.PathLike[str], *, title: 
     fig, (top, bottom) = plt.subplots(
         2, 1, sharex=True, figsize=(9, 6.5), height_ratios=(1, 1.4), layout="constrained"
     )
+    _draw_melt(top, gdf, d)
+    _draw_depths(bottom, gdf, d)
+    _mark_waypoints(top, bottom, gdf.attrs.get("lidmelt_waypoint_distance_km", [])[1:-1])
+    top.set_xlim(d.min(), d.max() if d.max() > d.min() else d.min() + 1)
+    top.set_title(title or "Track profile", fontsize=12)
+    for ax in (top, bottom):
+        ax.tick_params(labelsize=10)
+    try:
+        with atomic_path(path) as temp:
+            fig.savefig(temp, dpi=150, format="png")
+    finally:
+        plt.close(fig)
+    return path
+
+
+def _draw_melt(ax: Any, gdf: gpd.GeoDataFrame, d: np.ndarray) -> None:
+    """Upper panel: melt thickness against distance, filled down to 0."""
     if "melt_thickness_km" in gdf.columns:
         melt = gdf["melt_thickness_km"].to_numpy(dtype=float)
-        top.fill_between(d, 0, melt, color="tab:red", alpha=0.3, lw=0)
-        top.plot(d, melt, color="tab:red", lw=1.6, label="melt thickness")
-        top.set_ylim(bottom=0)
-    top.set_ylabel("Melt thickness (km)")
-    top.grid(alpha=0.3)
+        ax.fill_between(d, 0, melt, color="tab:red", alpha=0.3, lw=0)
+        ax.plot(d, melt, color="tab:red", lw=1.6, label="melt thickness")
+        ax.set_ylim(bottom=0)
+    ax.set_ylabel("Melt thickness (km)")
+    ax.grid(alpha=0.3)
 
+
+def _draw_depths(ax: Any, gdf: gpd.GeoDataFrame, d: np.ndarray) -> None:
+    """Lower panel: onset and lid depth (depth down), the melting column shaded between."""
     lid = gdf["lid_depth_km"].to_numpy(dtype=float) if "lid_depth_km" in gdf.columns else None
     onset = gdf["onset_depth_km"].to_numpy(dtype=float) if "onset_depth_km" in gdf.columns else None
     if lid is not None and onset is not None:
         melting = np.isfinite(lid) & np.isfinite(onset) & (onset > lid)
         if "melt_thickness_km" in gdf.columns:
             melting &= gdf["melt_thickness_km"].to_numpy(dtype=float) > 0
-        bottom.fill_between(
+        ax.fill_between(
             d,
             lid,
             onset,
@@ -351,17 +369,19 @@ def plot_profile(gdf: gpd.GeoDataFrame, path: str | os.PathLike[str], *, title: 
             label="melting column",
         )
     if onset is not None:
-        bottom.plot(d, onset, color="tab:orange", lw=1.6, label="onset depth (solidus crossing)")
+        ax.plot(d, onset, color="tab:orange", lw=1.6, label="onset depth (solidus crossing)")
     if lid is not None:
-        bottom.plot(d, lid, color="tab:blue", lw=1.6, label="lid depth (top of melting)")
-    bottom.invert_yaxis()
-    bottom.set_ylabel("Depth (km)")
-    bottom.set_xlabel("Distance along track (km)")
-    bottom.grid(alpha=0.3)
-    if bottom.lines:
-        bottom.legend(loc="best", fontsize=9, framealpha=0.8)
+        ax.plot(d, lid, color="tab:blue", lw=1.6, label="lid depth (top of melting)")
+    ax.invert_yaxis()
+    ax.set_ylabel("Depth (km)")
+    ax.set_xlabel("Distance along track (km)")
+    ax.grid(alpha=0.3)
+    if ax.lines:
+        ax.legend(loc="best", fontsize=9, framealpha=0.8)
 
-    turns = gdf.attrs.get("lidmelt_waypoint_distance_km", [])[1:-1]
+
+def _mark_waypoints(top: Any, bottom: Any, turns: list[float]) -> None:
+    """Dotted vertical lines at the inner waypoints, labelled once."""
     for ax in (top, bottom):
         for x in turns:
             ax.axvline(x, color="0.5", lw=0.8, ls=":")
@@ -376,14 +396,6 @@ def plot_profile(gdf: gpd.GeoDataFrame, path: str | os.PathLike[str], *, title: 
             fontsize=8,
             color="0.4",
         )
-    top.set_xlim(d.min(), d.max() if d.max() > d.min() else d.min() + 1)
-    top.set_title(title or "Track profile", fontsize=12)
-    for ax in (top, bottom):
-        ax.tick_params(labelsize=10)
-    with smp.atomic_paths(path) as (temp,):
-        fig.savefig(temp, dpi=150, format="png")
-    plt.close(fig)
-    return path
 
 
 def write_profile(
@@ -392,7 +404,7 @@ def write_profile(
     """Write a profile's CSV and its PNG figure beside it (same stem); return both paths."""
     path = smp.check_output_path(path, (".csv",), what="profile")
     png = path.with_suffix(".png")
-    with smp.atomic_paths(path) as (temp,):
+    with atomic_path(path) as temp:
         smp.table_with_coordinates(gdf).to_csv(temp, index=False)
         plot_profile(gdf, png, title=title)
     return path, png

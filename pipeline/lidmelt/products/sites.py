@@ -7,11 +7,12 @@ column; ``lidmelt sample`` is the command-line form.
 Stations
 --------
 A CSV file (comma, semicolon, tab or ``|`` separated) with a longitude and a latitude column,
-found under their common names (``lon``/``long``/``longitude``/``x`` and ``lat``/``latitude``/
-``y``, any case) or named with ``lon_column``/``lat_column``; its coordinates are EPSG:4326
-unless ``crs`` says otherwise. Every other column is kept as it was: numbers as numbers, text
-(identifiers such as ``007`` too) as text. Or any point file GDAL reads (GeoPackage, GeoJSON,
-Shapefile...), in any CRS, or a :class:`geopandas.GeoDataFrame` of points.
+found under their common names (:data:`lidmelt.grids.vector.LON_NAMES` and
+:data:`~lidmelt.grids.vector.LAT_NAMES`, any case) or named with ``lon_column``/``lat_column``;
+its coordinates are EPSG:4326 unless ``crs`` says otherwise. Every other column is kept as it
+was: numbers as numbers, text (identifiers such as ``007`` too) as text. Or any point file GDAL
+reads (GeoPackage, GeoJSON, Shapefile...), in any CRS, or a :class:`geopandas.GeoDataFrame` of
+points.
 
 Sampling
 --------
@@ -48,19 +49,17 @@ from typing import TYPE_CHECKING, Any
 import pandas as pd
 import pyproj
 
-from lidmelt.errors import InputError
+from lidmelt.grids import vector
 from lidmelt.grids.rundir import RunDir
-from lidmelt.products import _sampling as smp
+from lidmelt.products import sampling as smp
 
 if TYPE_CHECKING:
     import geopandas as gpd
 
-__all__ = ["sample_stations", "write_stations"]
+__all__ = ["OUTPUT_SUFFIXES", "sample_stations", "write_stations"]
 
 #: Output suffixes of ``lidmelt sample``.
 OUTPUT_SUFFIXES = (".csv", ".gpkg")
-
-#: Columns shown in the printed table, when the run has them.
 
 
 def sample_stations(
@@ -110,21 +109,18 @@ def sample_stations(
     """
     smp.check_method(method)
     run = smp.as_run(run)
-    if isinstance(stations, (str, os.PathLike)):
-        source = f"station file {str(stations)!r}"
-        gdf = smp.read_points(
-            stations, lon_column=lon_column, lat_column=lat_column, crs=crs, what="station"
-        )
-    else:
-        source = "the station table"
-        gdf = smp.apply_crs(stations, crs=crs, source=source)
-        if len(gdf) == 0:
-            msg = f"{source} has no rows; expected one Point per station."
-            raise InputError(msg)
-    x, y = smp.check_points(gdf, source=source)
-    grid = smp.grid_info(run)
-    gx, gy = grid.to_grid_xy(x, y, pyproj.CRS.from_user_input(gdf.crs))
-    columns, status = smp.sample_run(run, grid, gx, gy, method=method)
+    gdf, source = vector.read_features(
+        stations,
+        what="station",
+        expected="one Point per station",
+        crs=crs,
+        lon_column=lon_column,
+        lat_column=lat_column,
+    )
+    x, y = vector.check_points(gdf, source=source)
+    columns, status = smp.sample_points(
+        run, x, y, pyproj.CRS.from_user_input(gdf.crs), method=method
+    )
 
     names = [*columns, "status"]
     out = smp.replace_columns(gdf, names, source=source)

@@ -1,0 +1,374 @@
+"""Sampling a finished run at points, and what the point and region products share.
+
+A run's grid (:func:`run_grid`), its variables (:func:`load_variable`), the sampling stencil of a
+set of points (:func:`make_stencil`, :func:`apply_stencil`, :func:`sample_run`,
+:func:`sample_points`) with the status of every point, and the checks and writers of the
+product tables. :mod:`lidmelt.products.sites`, :mod:`~lidmelt.products.profiles` and
+:mod:`~lidmelt.products.regions` build on it; points and polygons are read by
+:mod:`lidmelt.grids.vector`, cell areas come from :mod:`lidmelt.grids.area`.
+
+Sampling rule (bilinear)
+------------------------
+A point's value is the bilinear interpolation of the four cell centres around it. Where one of
+those four centres that carries a non-zero weight is NaN, the point takes the value of the cell
+that contains it (its nearest cell centre) instead, and its status is ``next_to_nodata``; where
+that containing cell is itself NaN the value is NaN and the status is ``nodata``. Within the outer
+half cell of the grid (between the last cell centres and the grid edge) the coordinate is held at
+the last centre, so the value there is that of the edge row or column. A point beyond the grid
+edge gets NaN and the status ``outside_grid``; it is never dropped.
+
+The status describes the run's data coverage and is taken from ``melt_thickness_km`` (NaN only
+where the run has no data; 0 where the mantle does not melt). Variables that are NaN by
+definition at some data cells (``onset_depth_km`` where the mantle never reaches its solidus,
+``mean_melt_pressure_gpa`` where it does not melt) follow the same per-variable rule.
+"""
+
+from __future__ import annotations
+
+import os
+import re
+import warnings
+from collections.abc import Sequence
+from dataclasses import dataclass
+from pathlib import Path
+from typing import TYPE_CHECKING, Any
+
+import numpy as np
+import pandas as pd
+import pyproj
+
+from lidmelt.errors import InputError, RunDirError
+from lidmelt.files import atomic_path
+from lidmelt.grids.grid import Grid, lonlat_from
+from lidmelt.grids.rundir import RunDir, open_run
+from lidmelt.grids.vector import describe_rows
+
+if TYPE_CHECKING:
+    import geopandas as gpd
+
+__all__ = [
+    "METHODS",
+    "REFERENCE_VARIABLE",
+    "STATUSES",
+    "STATUS_NEXT_TO_NODATA",
+    "STATUS_NODATA",
+    "STATUS_OK",
+    "STATUS_OUTSIDE",
+    "Stencil",
+    "apply_stencil",
+    "as_run",
+    "check_method",
+    "check_output_path",
+    "load_variable",
+    "reference_name",
+    "replace_columns",
+    "run_grid",
+    "safe_layer_name",
+    "sample_points",
+    "sample_run",
+    "table_with_coordinates",
+    "units_of",
+    "variable_names",
+    "warn_outside",
+    "write_table",
+]
+
+#: Status values of a sampled point.
+STATUS_OK = "ok"
+STATUS_OUTSIDE = "outside_grid"
+STATUS_NODATA = "nodata"
+STATUS_NEXT_TO_NODATA = "next_to_nodata"
+STATUSES = (STATUS_OK, STATUS_OUTSIDE, STATUS_NODATA, STATUS_NEXT_TO_NODATA)
+
+#: The variable whose NaN cells mark where the run has no data.
+REFERENCE_VARIABLE = "melt_thickness_km"
+
+METHODS = ("bilinear", "nearest")
+
+#: Keys of the ``grid`` entry of ``summary.json`` that :func:`run_grid` needs.
+_GRID_KEYS = ("crs_wkt", "transform", "width", "height")
+
+
+# --------------------------------------------------------------------------------------------
+# Run and grid geometry
+# --------------------------------------------------------------------------------------------
+
+
+def as_run(run: RunDir | str | os.PathLike[str]) -> RunDir:
+    """Return ``run`` as a :class:`RunDir` (open it when it is a path)."""
+    if isinstance(run, RunDir):
+        return run
+    return open_run(run)
+
+
+def run_grid(run: RunDir) -> Grid:
+    """The grid of a run, from its ``summary.json``.
+
+    Raises
+    ------
+    RunDirError
+        If the summary lacks the grid keys.
+    GridError
+        If the grid is rotated, south-up or otherwise not a valid :class:`Grid`.
+    """
+    grid = run.summary.get("grid") or {}
+    try:
+        values = {key: grid[key] for key in _GRID_KEYS}
+        transform = tuple(float(v) for v in values["transform"])[:6]
+        width, height = int(values["width"]), int(values["height"])
+        pyproj.CRS.from_user_input(values["crs_wkt"])
+    except (KeyError, TypeError, ValueError, pyproj.exceptions.CRSError) as exc:
+        msg = (
+            f"the summary.json of {str(run.path)!r} has no usable 'grid' entry ({exc!r}); expected "
+            "'crs_wkt', 'transform' (6 numbers), 'width' and 'height'. The run directory is "
+            "damaged or from another program: run 'lidmelt run' again."
+        )
+        raise RunDirError(msg) from exc
+    return Grid(values["crs_wkt"], transform, width, height)
+
+
+def variable_names(run: RunDir) -> list[str]:
+    """Every output variable, then every input, of the run (the columns the products sample)."""
+    names = list(run.outputs)
+    names += [n for n in run.inputs if n not in names]
+    return names
+
+
+def units_of(run: RunDir, names: Sequence[str]) -> dict[str, str]:
+    """Units of run variables, as listed in ``summary.json`` ('' when not given)."""
+    table = {**run.summary.get("inputs", {}), **run.summary.get("outputs", {})}
+    return {n: str((table.get(n) or {}).get("units", "")) for n in names}
+
+
+def reference_name(run: RunDir) -> str:
+    """The variable whose NaN cells mark missing data (``melt_thickness_km`` when present)."""
+    if REFERENCE_VARIABLE in run.outputs:
+        return REFERENCE_VARIABLE
+    if run.outputs:
+        return run.outputs[0]
+    msg = (
+        f"run directory {str(run.path)!r} lists no output variables in its summary.json; "
+        "expected at least melt_thickness_km. Run 'lidmelt run' again."
+    )
+    raise RunDirError(msg)
+
+
+def load_variable(run: RunDir, name: str, grid: Grid) -> np.ndarray:
+    """Load one variable as a (height, width) float64 array with NaN nodata.
+
+    Raises
+    ------
+    RunDirError
+        If its shape differs from the grid in ``summary.json``.
+    """
+    values = np.asarray(run.open(name).values, dtype=np.float64)
+    if values.shape != (grid.height, grid.width):
+        msg = (
+            f"{name!r} in {str(run.path)!r} has shape {values.shape}, but summary.json gives a "
+            f"{grid.height} x {grid.width} grid. The run directory is inconsistent: run "
+            "'lidmelt run' again."
+        )
+        raise RunDirError(msg)
+    return values
+
+
+# --------------------------------------------------------------------------------------------
+# Point sampling
+# --------------------------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class Stencil:
+    """Where and how a set of points reads a grid (see the module notes for the rule)."""
+
+    inside: np.ndarray  # bool, point within the grid's outer edge
+    nearest: np.ndarray  # flat index of the containing cell
+    corners: tuple[np.ndarray, ...]  # flat indices of the 4 bilinear neighbours (or empty)
+    weights: tuple[np.ndarray, ...]  # their weights
+
+
+def make_stencil(grid: Grid, gx: np.ndarray, gy: np.ndarray, *, method: str) -> Stencil:
+    """Compute the sampling stencil of grid-CRS points ``(gx, gy)``."""
+    h, w = grid.height, grid.width
+    row, col = grid.fractional_index(gx, gy)
+    finite = np.isfinite(row) & np.isfinite(col)
+    row = np.where(finite, row, 0.0)
+    col = np.where(finite, col, 0.0)
+    inside = finite & (row >= -0.5) & (row <= h - 0.5)
+    if grid.is_periodic:
+        col = np.mod(col + 0.5, w) - 0.5
+    else:
+        inside &= (col >= -0.5) & (col <= w - 0.5)
+
+    rn = np.clip(np.floor(row + 0.5), 0, h - 1).astype(np.intp)
+    if grid.is_periodic:
+        cn = np.mod(np.floor(col + 0.5), w).astype(np.intp)
+    else:
+        cn = np.clip(np.floor(col + 0.5), 0, w - 1).astype(np.intp)
+    nearest = rn * w + cn
+    if method == "nearest":
+        return Stencil(inside=inside, nearest=nearest, corners=(), weights=())
+
+    r0, r1, t = _axis_pair(row, h, periodic=False)
+    c0, c1, u = _axis_pair(col, w, periodic=grid.is_periodic)
+    corners = (r0 * w + c0, r0 * w + c1, r1 * w + c0, r1 * w + c1)
+    weights = ((1 - t) * (1 - u), (1 - t) * u, t * (1 - u), t * u)
+    return Stencil(inside=inside, nearest=nearest, corners=corners, weights=weights)
+
+
+def _axis_pair(
+    index: np.ndarray, n: int, *, periodic: bool
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Lower and upper neighbour indices along one axis and the weight of the upper one."""
+    if periodic:
+        lo = np.floor(index)
+        frac = index - lo
+        lo = np.mod(lo, n).astype(np.intp)
+        return lo, np.mod(lo + 1, n).astype(np.intp), frac
+    if n == 1:
+        zero = np.zeros(index.shape, dtype=np.intp)
+        return zero, zero, np.zeros(index.shape)
+    held = np.clip(index, 0, n - 1)
+    lo = np.minimum(np.floor(held), n - 2)
+    return lo.astype(np.intp), (lo + 1).astype(np.intp), held - lo
+
+
+def apply_stencil(stencil: Stencil, values: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Sample a (height, width) array; return (values, next_to_nodata flags)."""
+    flat = values.ravel()
+    at_nearest = flat[stencil.nearest]
+    if not stencil.corners:
+        out = at_nearest.copy()
+        flagged = np.zeros(out.shape, dtype=bool)
+    else:
+        out = np.zeros(at_nearest.shape)
+        flagged = np.zeros(at_nearest.shape, dtype=bool)
+        for index, weight in zip(stencil.corners, stencil.weights, strict=True):
+            v = flat[index]
+            ok = np.isfinite(v)
+            flagged |= (weight > 0) & ~ok
+            out += weight * np.where(ok, v, 0.0)
+        out = np.where(flagged, at_nearest, out)
+    out = np.where(stencil.inside, out, np.nan)
+    return out, flagged & stencil.inside
+
+
+def sample_run(
+    run: RunDir, grid: Grid, gx: np.ndarray, gy: np.ndarray, *, method: str
+) -> tuple[dict[str, np.ndarray], np.ndarray]:
+    """Sample every variable of ``run`` at grid-CRS points; return ({name: values}, status).
+
+    The grids are loaded one at a time, so memory holds one variable at once.
+    """
+    check_method(method)
+    stencil = make_stencil(grid, gx, gy, method=method)
+    ref = reference_name(run)
+    columns: dict[str, np.ndarray] = {}
+    status = np.full(stencil.inside.shape, STATUS_OK, dtype=object)
+    for name in variable_names(run):
+        values, flagged = apply_stencil(stencil, load_variable(run, name, grid))
+        columns[name] = values
+        if name == ref:
+            status[flagged] = STATUS_NEXT_TO_NODATA
+            status[~np.isfinite(values)] = STATUS_NODATA
+    status[~stencil.inside] = STATUS_OUTSIDE
+    return columns, status
+
+
+def sample_points(
+    run: RunDir, x: Any, y: Any, crs: Any, *, method: str
+) -> tuple[dict[str, np.ndarray], np.ndarray]:
+    """Sample every variable of ``run`` at points ``(x, y)`` given in ``crs``; return
+    ({name: values}, status), as :func:`sample_run` does."""
+    grid = run_grid(run)
+    gx, gy = grid.to_grid_xy(x, y, crs)
+    return sample_run(run, grid, gx, gy, method=method)
+
+
+def check_method(method: str) -> None:
+    """Raise InputError unless ``method`` is a sampling method lidmelt knows."""
+    if method not in METHODS:
+        msg = (
+            f"sampling method {method!r} is not known; expected one of {', '.join(METHODS)}. "
+            "Use 'bilinear' (default) or 'nearest'."
+        )
+        raise InputError(msg)
+
+
+# --------------------------------------------------------------------------------------------
+# Writing
+# --------------------------------------------------------------------------------------------
+
+
+def check_output_path(path: str | os.PathLike[str], suffixes: Sequence[str], *, what: str) -> Path:
+    """Validate an output path's suffix before any work is done; return it as a Path."""
+    path = Path(path)
+    if path.suffix.lower() not in suffixes:
+        msg = (
+            f"output file {str(path)!r} has the suffix {path.suffix or '(none)'!r}; the {what} "
+            f"can be written as {' or '.join(suffixes)} (chosen by the suffix). Give a name "
+            f"ending in {' or '.join(suffixes)}."
+        )
+        raise InputError(msg)
+    if path.exists() and path.is_dir():
+        msg = f"output path {str(path)!r} is a folder; give a file name such as {path / 'out'}."
+        raise InputError(msg)
+    return path
+
+
+def table_with_coordinates(gdf: gpd.GeoDataFrame) -> pd.DataFrame:
+    """The attribute table of ``gdf`` for a CSV: without the geometry column, and with
+    ``longitude``/``latitude`` (WGS84 degrees) added when the table has no coordinate columns
+    of its own."""
+    frame = pd.DataFrame(gdf.drop(columns=gdf.geometry.name))
+    if "lidmelt_coordinate_columns" in gdf.attrs or {"longitude", "latitude"} <= set(frame):
+        return frame
+    import shapely
+
+    geoms = gdf.geometry.to_numpy()
+    x, y = shapely.get_x(geoms), shapely.get_y(geoms)
+    lon, lat = lonlat_from(pyproj.CRS.from_user_input(gdf.crs), x, y)
+    frame.insert(0, "latitude", lat)
+    frame.insert(0, "longitude", lon)
+    return frame
+
+
+def write_table(gdf: gpd.GeoDataFrame, path: Path, *, layer: str) -> None:
+    """Write ``gdf`` as CSV or GeoPackage (by the suffix of ``path``), atomically."""
+    with atomic_path(path) as temp:
+        if path.suffix.lower() == ".csv":
+            table_with_coordinates(gdf).to_csv(temp, index=False)
+        else:
+            gdf.to_file(temp, driver="GPKG", layer=layer)
+
+
+def warn_outside(frame: pd.DataFrame, status: np.ndarray, *, what: str, stacklevel: int) -> None:
+    """Warn once, naming them, about points that fall outside the grid."""
+    outside = np.flatnonzero(status == STATUS_OUTSIDE)
+    if outside.size:
+        warnings.warn(
+            f"{outside.size} {what}(s) lie outside the grid and were given NaN with status "
+            f"{STATUS_OUTSIDE!r}: {describe_rows(frame, outside)}",
+            UserWarning,
+            stacklevel=stacklevel + 1,
+        )
+
+
+def replace_columns(frame: pd.DataFrame, names: Sequence[str], *, source: str) -> pd.DataFrame:
+    """Drop columns of ``frame`` that the product is about to write, with one warning."""
+    clash = [n for n in names if n in frame.columns]
+    if not clash:
+        return frame
+    warnings.warn(
+        f"{source} already has column(s) {', '.join(clash)}; they are replaced by this run's "
+        "values.",
+        UserWarning,
+        stacklevel=3,
+    )
+    return frame.drop(columns=clash)
+
+
+def safe_layer_name(path: Path) -> str:
+    """A GeoPackage layer name from a file stem (letters, digits and underscores)."""
+    name = re.sub(r"\W+", "_", path.stem).strip("_")
+    return name or "lidmelt"
