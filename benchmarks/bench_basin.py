@@ -36,12 +36,12 @@ def make_inputs(folder: Path, width: int, height: int) -> None:
     import rioxarray  # noqa: F401
     import xarray as xr
 
-    from lidmelt.grids.align import TargetGrid
+    from lidmelt.grids.grid import Grid
     from lidmelt.grids.write import write_geotiff
 
     res = 360.0 / width
     half = height * res / 2.0
-    target = TargetGrid.from_extent(-180.0, 180.0, -half, half, res)
+    target = Grid.from_extent(-180.0, 180.0, -half, half, res)
     tpl = target.template(chunks=(1024, 2048))
     lon = xr.DataArray(dsa.from_array(target.x_centres(), chunks=2048), dims="x")
     lat = xr.DataArray(dsa.from_array(target.y_centres(), chunks=1024), dims="y")

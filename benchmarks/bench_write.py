@@ -44,9 +44,9 @@ def lazy_grid():
     import dask.array as dsa
     import numpy as np
 
-    from lidmelt.grids.align import TargetGrid
+    from lidmelt.grids.grid import Grid
 
-    target = TargetGrid.from_extent(-180.0, 180.0, -90.0, 90.0, 1.0 / 30.0)
+    target = Grid.from_extent(-180.0, 180.0, -90.0, 90.0, 1.0 / 30.0)
     assert target.shape == (HEIGHT, WIDTH)
 
     def block(b, block_info=None):

@@ -636,7 +636,7 @@ ERROR_CASES = [
         r"'inputs\.thermal_anomaly\.plumes\.1'.*not valid.*too large",
     ),
     (
-        # 1.0 / 0.3 = 3.33 cells (arithmetic); lidmelt.grids.align.TargetGrid needs whole cells.
+        # 1.0 / 0.3 = 3.33 cells (arithmetic); lidmelt.grids.grid.Grid needs whole cells.
         "extent not a whole number of cells",
         'like = "plate_age"',
         "extent = [0.0, 1.0, 0.0, 1.0]\nresolution = 0.3",

@@ -29,9 +29,10 @@ import xarray as xr
 
 from lidmelt.errors import InputError
 from lidmelt.grids import rundir
-from lidmelt.grids.align import TargetGrid, align
+from lidmelt.grids.align import align
 from lidmelt.grids.anomaly import Plume, plume_anomaly
 from lidmelt.grids.area import cell_area_km2
+from lidmelt.grids.grid import Grid
 from lidmelt.grids.io import open_grid, sha256_file
 from lidmelt.grids.store import GeoTiffItem, GeoTiffSet
 from lidmelt.physics import (
@@ -132,7 +133,7 @@ def load_model(cfg) -> tuple[Any, Any | None]:
     return model, table
 
 
-def resolve_target_grid(cfg) -> TargetGrid:
+def resolve_target_grid(cfg) -> Grid:
     """The grid of every output: that of the input named by ``grid.like``, or ``grid.extent``."""
     spec = cfg.grid
     if spec.like:
@@ -145,14 +146,12 @@ def resolve_target_grid(cfg) -> TargetGrid:
             units_expected=var.units,
             chunks={"y": "auto", "x": "auto"},
         )
-        return TargetGrid.from_grid(da)
+        return Grid.from_grid(da)
     west, east, south, north = spec.extent
-    return TargetGrid.from_extent(
-        west, east, south, north, spec.resolution, crs=spec.crs or "EPSG:4326"
-    )
+    return Grid.from_extent(west, east, south, north, spec.resolution, crs=spec.crs or "EPSG:4326")
 
 
-def load_inputs(cfg, *, target: TargetGrid, chunks: int) -> RunInputs:
+def load_inputs(cfg, *, target: Grid, chunks: int) -> RunInputs:
     """Every input of ``cfg.inputs`` on ``target`` (lazy, in ``chunks``-cell chunks).
 
     Raises
@@ -175,9 +174,7 @@ def load_inputs(cfg, *, target: TargetGrid, chunks: int) -> RunInputs:
     return RunInputs(values, provenance)
 
 
-def _load_input(
-    inp, name: str, target: TargetGrid, chunks: int
-) -> tuple[xr.DataArray | float, dict]:
+def _load_input(inp, name: str, target: Grid, chunks: int) -> tuple[xr.DataArray | float, dict]:
     """An input on the target grid (lazy where it already lies on it) or a constant."""
     var = INPUTS[name]
     prov: dict[str, Any] = {"units": var.units, "long_name": var.long_name}
@@ -205,7 +202,7 @@ def _load_input(
     return aligned, prov
 
 
-def _add_plumes(inp, background, prov: dict, target: TargetGrid, chunks: int) -> xr.DataArray:
+def _add_plumes(inp, background, prov: dict, target: Grid, chunks: int) -> xr.DataArray:
     """The thermal anomaly: the workflow's plumes on ``background`` (recorded in ``prov``)."""
     plumes = [Plume(**p.plume_fields()) for p in inp.plumes]
     keys = ("name", "longitude", "latitude", "radius_km", "peak_excess_k", "shape")

@@ -16,8 +16,8 @@ from lidmelt.cli._common import (
     sampling_method_option,
     status_summary,
 )
-from lidmelt.products.sampling import check_output_path
 from lidmelt.products.profiles import sample_track, write_profile
+from lidmelt.products.sampling import check_output_path
 
 __all__ = ["register"]
 

@@ -7,8 +7,8 @@ import argparse
 import pandas as pd
 
 from lidmelt.cli._common import format_table, print_warnings, run_dir_option
-from lidmelt.products.sampling import check_output_path
 from lidmelt.products.regions import STAT_COLUMNS, region_statistics, write_regions
+from lidmelt.products.sampling import check_output_path
 
 __all__ = ["SHOWN_STATISTICS", "register"]
 

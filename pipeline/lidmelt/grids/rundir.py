@@ -242,7 +242,7 @@ def build_summary(
     ----------
     cfg : RunConfig
         The run configuration.
-    grid : TargetGrid
+    grid : Grid
         The grid of every output.
     model, cooling
         The melting model and the lid's cooling model (None when a lid grid was given).

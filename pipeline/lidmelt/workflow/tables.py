@@ -191,10 +191,10 @@ def _grid_extent(ctx: Context, values: dict[str, Any]) -> GridSpec:
             f"> 0 and no larger than the extent ({min(east - west, north - south):g} {unit})."
         )
         raise WorkflowError(msg)
-    from lidmelt.grids.align import TargetGrid
+    from lidmelt.grids.grid import Grid
 
     try:  # the grid builder's own checks (a whole number of cells, a usable CRS)
-        TargetGrid.from_extent(west, east, south, north, resolution, crs=crs)
+        Grid.from_extent(west, east, south, north, resolution, crs=crs)
     except LidmeltError as exc:
         msg = (
             f"{ctx.where('grid.extent')} = {extent_raw!r} with grid.resolution = "

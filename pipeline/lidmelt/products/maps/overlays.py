@@ -26,6 +26,7 @@ from matplotlib.ticker import MaxNLocator
 
 from lidmelt.errors import InputError
 from lidmelt.grids.rundir import RunDir
+from lidmelt.grids.vector import read_labelled_points, read_polygons, read_vector
 from lidmelt.products.maps.layout import data_crs
 from lidmelt.products.maps.style import CANDIDATE_COLOR, NODATA_COLOR, ZERO_COLOR
 
@@ -92,21 +93,15 @@ class Stations:
     source: str = ""
 
 
-_LON_COLUMNS = ("lon", "longitude", "long", "lon_deg", "longitude_deg")
-_LAT_COLUMNS = ("lat", "latitude", "lat_deg", "latitude_deg")
-_NAME_COLUMNS = ("name", "station", "site", "id", "label")
-
-
 def load_stations(path: str | Path) -> Stations:
-    """Read station positions from a CSV (lon/lat columns) or a point vector file.
+    """Read station positions with :func:`lidmelt.grids.vector.read_labelled_points`.
 
     Parameters
     ----------
     path : str or Path
-        A ``.csv``/``.txt`` table with longitude and latitude columns in degrees (names such as
-        ``lon``/``lat`` or ``longitude``/``latitude``, any case) and optionally a ``name``
-        column; or any point file that geopandas reads (GeoPackage, GeoJSON, shapefile...),
-        reprojected to EPSG:4326 (a file without a CRS is taken as EPSG:4326, with a warning).
+        A CSV/text table with longitude and latitude columns in degrees (the column names
+        :data:`lidmelt.grids.vector.LON_NAMES` / ``LAT_NAMES`` accept, any case) and optionally
+        a name column; or any point file that geopandas reads, in any CRS it declares.
 
     Raises
     ------
@@ -114,75 +109,19 @@ def load_stations(path: str | Path) -> Stations:
         If the file is missing or unreadable, lacks lon/lat columns, or holds non-points.
     """
     path = _existing_file(path, "stations", "--stations")
-    if path.suffix.lower() in {".csv", ".txt", ".tsv"}:
-        import pandas as pd
-
-        try:
-            table = pd.read_csv(path, sep=None, engine="python")
-        except Exception as exc:  # pandas raises many parser error types
-            msg = f"stations file {str(path)!r} cannot be read as CSV ({exc})."
-            raise InputError(msg) from exc
-        columns = {str(c).strip().lower(): c for c in table.columns}
-        lon_col = next((columns[c] for c in _LON_COLUMNS if c in columns), None)
-        lat_col = next((columns[c] for c in _LAT_COLUMNS if c in columns), None)
-        if lon_col is None or lat_col is None:
-            msg = (
-                f"stations file {str(path)!r} has columns {list(table.columns)!r}; expected "
-                "a longitude column (lon or longitude) and a latitude column (lat or "
-                "latitude), in degrees. Rename the columns."
-            )
-            raise InputError(msg)
-        lon = pd.to_numeric(table[lon_col], errors="coerce").to_numpy(float)
-        lat = pd.to_numeric(table[lat_col], errors="coerce").to_numpy(float)
-        name_col = next((columns[c] for c in _NAME_COLUMNS if c in columns), None)
-        names = tuple(str(v) for v in table[name_col]) if name_col is not None else ()
-    else:
-        gdf = _read_vector(path, "stations")
-        if not all(t in {"Point", "MultiPoint"} for t in gdf.geom_type.dropna().unique()):
-            msg = (
-                f"stations file {str(path)!r} holds {sorted(set(gdf.geom_type))} geometries; "
-                "expected points. Give a point file or a CSV with lon/lat columns."
-            )
-            raise InputError(msg)
-        pts = gdf.geometry.representative_point()
-        lon, lat = pts.x.to_numpy(float), pts.y.to_numpy(float)
-        columns = {str(c).lower(): c for c in gdf.columns if c != "geometry"}
-        name_col = next((columns[c] for c in _NAME_COLUMNS if c in columns), None)
-        names = tuple(str(v) for v in gdf[name_col]) if name_col is not None else ()
-    bad = ~(np.isfinite(lon) & np.isfinite(lat) & (np.abs(lat) <= 90.0))
-    if bad.any():
-        rows = np.flatnonzero(bad)[:5].tolist()
-        msg = (
-            f"stations file {str(path)!r} has {int(bad.sum())} row(s) without valid "
-            f"lon/lat degrees (first rows, 0-based: {rows}). Fix or remove those rows."
-        )
-        raise InputError(msg)
-    return Stations(lon=lon, lat=lat, names=names, source=str(path))
-
-
-def _read_vector(path: Path, what: str) -> Any:
-    import geopandas as gpd
-
-    try:
-        gdf = gpd.read_file(path)
-    except Exception as exc:  # pyogrio raises several error types
-        msg = (
-            f"{what} file {str(path)!r} cannot be read as a vector file ({exc}). Give a "
-            "GeoPackage, GeoJSON or shapefile."
-        )
-        raise InputError(msg) from exc
-    if gdf.crs is None:
-        log.warning(
-            "%s file %s has no CRS; taking its coordinates as lon/lat degrees (EPSG:4326)",
-            what,
-            path,
-        )
-        gdf = gdf.set_crs("EPSG:4326")
-    return gdf.to_crs("EPSG:4326")
+    points = read_labelled_points(path, what="stations")
+    labels = list(points["label"])
+    names = tuple(str(v) for v in labels) if any(v is not None for v in labels) else ()
+    return Stations(
+        lon=points["lon"].to_numpy(float),
+        lat=points["lat"].to_numpy(float),
+        names=names,
+        source=str(path),
+    )
 
 
 def load_candidates(path: str | Path) -> list[Any]:
-    """Read candidate outlines (polygons) from a vector file, in EPSG:4326.
+    """Read candidate outlines with :func:`lidmelt.grids.vector.read_polygons`, in EPSG:4326.
 
     Parameters
     ----------
@@ -192,28 +131,15 @@ def load_candidates(path: str | Path) -> list[Any]:
     Returns
     -------
     list of shapely geometries
-        Polygons and multipolygons in lon/lat degrees (other geometry types are ignored).
+        Polygons and multipolygons in lon/lat degrees.
 
     Raises
     ------
     InputError
-        If the file is missing, unreadable or holds no polygon.
+        If the file is missing, unreadable, without CRS, or holds no polygon.
     """
     path = _existing_file(path, "candidates", "--candidates")
-    gdf = _read_vector(path, "candidates")
-    geoms = [
-        g
-        for g in gdf.geometry
-        if g is not None and not g.is_empty and g.geom_type in {"Polygon", "MultiPolygon"}
-    ]
-    if not geoms and len(gdf):
-        msg = (
-            f"candidates file {str(path)!r} holds no polygons (types "
-            f"{sorted(set(gdf.geom_type.dropna()))}). Give the polygon file of candidate "
-            "regions."
-        )
-        raise InputError(msg)
-    return geoms
+    return list(read_polygons(path, what="candidates").to_crs("EPSG:4326").geometry)
 
 
 def find_coastlines(coastlines: str | Path | None = None) -> Path | None:
@@ -300,7 +226,8 @@ def draw_coastlines(ax: Any, path: Path) -> None:
 
         geoms = list(shapereader.Reader(path).geometries())
     except Exception:  # not a shapefile cartopy reads: try geopandas
-        geoms = list(_read_vector(path, "coastlines").geometry)
+        gdf = read_vector(Path(path), crs=None, what="coastlines")
+        geoms = list(gdf.to_crs("EPSG:4326").geometry)
     ax.add_geometries(
         geoms, crs=ccrs.PlateCarree(), facecolor="none", edgecolor="black", linewidth=0.9, zorder=2
     )
