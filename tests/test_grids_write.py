@@ -21,6 +21,7 @@ from pyproj import CRS
 from lidmelt.errors import GridError, InputError
 from lidmelt.grids import write as write_module
 from lidmelt.grids.align import TargetGrid
+from lidmelt.grids.geotiff import tile_aligned
 from lidmelt.grids.io import open_grid
 from lidmelt.grids.write import write_geotiff, write_netcdf
 
@@ -126,7 +127,7 @@ def test_geotiff_dask_written_chunk_by_chunk(tmp_path):
     with rasterio.open(tmp_path / "lazy.tif") as src:
         npt.assert_array_equal(src.read(1), values)
         assert src.tags()["k"] == "v"
-    assert write_module._tile_aligned(lazy.data).chunksize == (512, 512)
+    assert tile_aligned(lazy.data).chunksize == (512, 512)
 
 
 def test_geotiff_batched_path_for_distributed(tmp_path, monkeypatch):
