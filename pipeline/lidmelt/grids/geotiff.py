@@ -227,7 +227,9 @@ def copy_to_cog(src: Path, dst: Path, *, integer: bool) -> None:
     """Copy a finished tiled GTiff to Cloud-Optimized layout (ZSTD, 512 blocks, overviews).
 
     GDAL COG driver options (https://gdal.org/drivers/raster/cog.html): overviews resampled by
-    average, or nearest for integers; ``GDAL_CACHEMAX`` capped at :data:`COG_CACHE_MB`.
+    average, or nearest for integers. Copying the finished GTiff is faster and leaner than
+    writing COG directly; the copy runs with ``GDAL_CACHEMAX`` = :data:`COG_CACHE_MB`, since
+    GDAL's default cache (5 % of RAM) let it grow to that size (``benchmarks/bench_write.py``).
     """
     with rasterio.Env(GDAL_CACHEMAX=COG_CACHE_MB):
         rasterio.shutil.copy(

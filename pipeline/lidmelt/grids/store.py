@@ -163,18 +163,17 @@ class GeoTiffSet:
 
     def _finish(self) -> None:
         """Set each file's metadata, close it and, for COG, copy it to its temporary path."""
-        for item, dst in zip(self.items, self._handles, strict=True):
-            set_metadata(dst, item.description, item.units, stringify_tags(item.tags))
+        metas = [
+            {"description": i.description, "units": i.units, "tags": stringify_tags(i.tags)}
+            for i in self.items
+        ]
+        for dst, meta in zip(self._handles, metas, strict=True):
+            set_metadata(dst, **meta)
             dst.close()
-        for item, staged, tmp in zip(self.items, self._staged, self._finals, strict=True):
-            publish(
-                staged,
-                tmp,
-                integer=np.dtype(item.dtype).kind in "iu",
-                description=item.description,
-                units=item.units,
-                tags=stringify_tags(item.tags),
-            )
+        for item, staged, tmp, meta in zip(
+            self.items, self._staged, self._finals, metas, strict=True
+        ):
+            publish(staged, tmp, integer=np.dtype(item.dtype).kind in "iu", **meta)
 
     def _abort(self, exc_type: Any, exc: BaseException | None, tb: Any) -> None:
         """Close the files and remove every temporary file (no final file is written)."""

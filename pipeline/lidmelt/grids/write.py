@@ -98,39 +98,28 @@ def write_geotiff(
 
     Notes
     -----
-    Creation options: 512 x 512 tiles, ZSTD level 1 with predictor 3 (floating point) or 2
-    (integers), ``NUM_THREADS=ALL_CPUS``, ``BIGTIFF=IF_SAFER``. A dask-backed grid is rechunked
+    Creation options are :func:`lidmelt.grids.geotiff.gtiff_profile`'s; the COG is a copy of the
+    finished GTiff (:func:`lidmelt.grids.geotiff.copy_to_cog`). A dask-backed grid is rechunked
     to multiples of the tile and stored with :func:`dask.array.store` into one open rasterio
     handle (writes serialised by a lock, chunks computed by the threaded scheduler); with a
     dask.distributed client active the chunks are computed on the cluster a few at a time and
-    written locally. The COG is made by copying the finished GTiff
-    (:func:`rasterio.shutil.copy`, ``driver="COG"``, overviews resampled by average, or
-    nearest for integers), which is faster and leaner than writing COG directly; the copy runs
-    with ``GDAL_CACHEMAX`` = 256 MB, since GDAL's default cache (5 % of RAM) let it grow to
-    that size. On the 5400 x 10800 benchmark grid: GTiff 1.7-2.4 s and COG 5-9 s, peak RSS
-    about 100 MB above the baseline for both (``benchmarks/bench_write.py``).
+    written locally. On the 5400 x 10800 benchmark grid: GTiff 1.7-2.4 s and COG 5-9 s, peak
+    RSS about 100 MB above the baseline for both (``benchmarks/bench_write.py``).
     """
     check_dataarray(da, what=f"grid {da.name!r}" if isinstance(da, xr.DataArray) else "grid")
     if "band" in da.dims:
         da = da.squeeze("band", drop=True)
     da = da.transpose("y", "x")
     np_dtype = check_dtype_nodata(dtype, nodata)
-    text_tags = stringify_tags(tags or {})
+    meta = {"description": description, "units": units, "tags": stringify_tags(tags or {})}
     path = Path(path)
     profile = gtiff_profile(da, np_dtype, nodata)
     try:
         with atomic_path(path) as tmp, staging_path(tmp, cog=cog and has_cog_driver()) as staged:
             with rasterio.open(staged, "w", **profile) as dst:
                 _write_band(dst, da, np_dtype, nodata)
-                set_metadata(dst, description, units, text_tags)
-            publish(
-                staged,
-                tmp,
-                integer=np_dtype.kind in "iu",
-                description=description,
-                units=units,
-                tags=text_tags,
-            )
+                set_metadata(dst, **meta)
+            publish(staged, tmp, integer=np_dtype.kind in "iu", **meta)
     except (rasterio.errors.RasterioError, OSError) as exc:
         raise write_failed(exc, what="GeoTIFF", where=path) from exc
     return path
