@@ -581,12 +581,25 @@ def _source_pieces(
     Each comes with its transform and, for a shifted regional geographic input, the longitude
     range (source cell edges, in the target's frame) it is valid for.
     """
-    if src_crs.is_geographic:
-        return _geographic_pieces(da, transform, _geographic_box(target, src_crs), target)
-    box = _footprint(target, src_crs)
+    geographic = src_crs.is_geographic
+    box = _geographic_box(target, src_crs) if geographic else _footprint(target, src_crs)
     if box is None:
         return [(da, transform, None)]
-    return _projected_pieces(da, transform, box, target)
+    height, width = da.sizes["y"], da.sizes["x"]
+    dx, dy = transform.a, -transform.e
+    west, north = transform.c, transform.f
+    east, south = west + dx * width, north - dy * height
+    t_west, t_south, t_east, t_north = box
+    if not (south < t_north and north > t_south):
+        return []
+    if not geographic and not (west < t_east and east > t_west):
+        return []
+    margin = _margin(box, target, transform)
+    rows = _index_range(north - t_north, north - t_south, 0.0, dy, height, margin)
+    if geographic:
+        return _geographic_pieces(da, transform, box, rows, margin)
+    c0, c1 = _index_range(t_west, t_east, west, dx, width, margin)
+    return [(*_window(da, transform, rows, slice(c0, c1), west + c0 * dx), None)]
 
 
 def _geographic_box(target: TargetGrid, src_crs: CRS) -> tuple[float, float, float, float]:
@@ -617,14 +630,6 @@ def _margin(box: tuple[float, float, float, float], target: TargetGrid, transfor
     return 2 + math.ceil(2 * ratio)
 
 
-def _row_range(
-    box: tuple[float, float, float, float], transform: Affine, height: int, margin: int
-) -> tuple[int, int]:
-    """Source rows [r0, r1) touching the footprint's latitudes (or y) +- margin."""
-    north = transform.f
-    return _index_range(north - box[3], north - box[1], 0.0, -transform.e, height, margin)
-
-
 def _window(
     da: xr.DataArray, transform: Affine, rows: tuple[int, int], cols: Any, x0: float
 ) -> tuple[xr.DataArray, Affine]:
@@ -648,22 +653,16 @@ def _geographic_pieces(
     da: xr.DataArray,
     transform: Affine,
     box: tuple[float, float, float, float],
-    target: TargetGrid,
+    rows: tuple[int, int],
+    margin: int,
 ) -> list[_Piece]:
     """A global input indexed periodically, or a regional one shifted by whole turns."""
-    height, width = da.sizes["y"], da.sizes["x"]
-    dx, dy = transform.a, -transform.e
-    west, north = transform.c, transform.f
-    t_west, t_south, t_east, t_north = box
-    margin = _margin(box, target, transform)
-    if not (north - dy * height < t_north and north > t_south):
-        return []
-    rows = _row_range(box, transform, height, margin)
-    periodic = _periodic_width(dx, width)
+    dx, west = transform.a, transform.c
+    periodic = _periodic_width(dx, da.sizes["x"])
     if periodic is None:
         return _shifted_pieces(da, transform, box, rows, margin)
-    j0 = math.floor((t_west - west) / dx) - margin
-    j1 = math.ceil((t_east - west) / dx) + margin
+    j0 = math.floor((box[0] - west) / dx) - margin
+    j1 = math.ceil((box[2] - west) / dx) + margin
     cols = np.arange(j0, j1) % periodic
     return [(*_window(da, transform, rows, cols, west + j0 * dx), None)]
 
@@ -692,26 +691,6 @@ def _shifted_pieces(
         piece, tr = _window(da, transform, rows, slice(c0, c1), lo + c0 * dx)
         pieces.append((piece, tr, (lo, lo + dx * width)))
     return pieces
-
-
-def _projected_pieces(
-    da: xr.DataArray,
-    transform: Affine,
-    box: tuple[float, float, float, float],
-    target: TargetGrid,
-) -> list[_Piece]:
-    """The one window of a projected input that covers the target footprint (+ margin)."""
-    height, width = da.sizes["y"], da.sizes["x"]
-    dx, dy = transform.a, -transform.e
-    west, north = transform.c, transform.f
-    t_west, t_south, t_east, t_north = box
-    east, south = west + dx * width, north - dy * height
-    if not (west < t_east and east > t_west and south < t_north and north > t_south):
-        return []
-    margin = _margin(box, target, transform)
-    c0, c1 = _index_range(t_west, t_east, west, dx, width, margin)
-    rows = _row_range(box, transform, height, margin)
-    return [(*_window(da, transform, rows, slice(c0, c1), west + c0 * dx), None)]
 
 
 def _coords_in_source(
