@@ -596,10 +596,16 @@ def _source_pieces(
         return []
     margin = _margin(box, target, transform)
     rows = _index_range(north - t_north, north - t_south, 0.0, dy, height, margin)
-    if geographic:
-        return _geographic_pieces(da, transform, box, rows, margin)
-    c0, c1 = _index_range(t_west, t_east, west, dx, width, margin)
-    return [(*_window(da, transform, rows, slice(c0, c1), west + c0 * dx), None)]
+    if not geographic:
+        c0, c1 = _index_range(t_west, t_east, west, dx, width, margin)
+        return [(*_window(da, transform, rows, slice(c0, c1), west + c0 * dx), None)]
+    periodic = _periodic_width(dx, width)
+    if periodic is None:  # regional: shifted by whole turns
+        return _shifted_pieces(da, transform, box, rows, margin)
+    j0 = math.floor((t_west - west) / dx) - margin  # global: indexed periodically
+    j1 = math.ceil((t_east - west) / dx) + margin
+    cols = np.arange(j0, j1) % periodic
+    return [(*_window(da, transform, rows, cols, west + j0 * dx), None)]
 
 
 def _geographic_box(target: TargetGrid, src_crs: CRS) -> tuple[float, float, float, float]:
@@ -647,24 +653,6 @@ def _periodic_width(dx: float, width: int) -> int | None:
     if abs(dx * (width - 1) - 360.0) < 0.5 * dx:  # gridline-registered: 0 and 360 both
         return width - 1
     return None
-
-
-def _geographic_pieces(
-    da: xr.DataArray,
-    transform: Affine,
-    box: tuple[float, float, float, float],
-    rows: tuple[int, int],
-    margin: int,
-) -> list[_Piece]:
-    """A global input indexed periodically, or a regional one shifted by whole turns."""
-    dx, west = transform.a, transform.c
-    periodic = _periodic_width(dx, da.sizes["x"])
-    if periodic is None:
-        return _shifted_pieces(da, transform, box, rows, margin)
-    j0 = math.floor((box[0] - west) / dx) - margin
-    j1 = math.ceil((box[2] - west) / dx) + margin
-    cols = np.arange(j0, j1) % periodic
-    return [(*_window(da, transform, rows, cols, west + j0 * dx), None)]
 
 
 def _shifted_pieces(
