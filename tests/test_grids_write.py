@@ -197,6 +197,25 @@ def test_geotiff_failures_leave_no_file(tmp_path):
     assert leftovers(tmp_path, {"f.tif"}) == []
 
 
+def test_geotiff_failure_in_one_of_many_chunks(tmp_path):
+    """A block that fails while other dask threads still write: the error comes back, no file
+    is left and nothing crashes (the file is closed only once no block is being written)."""
+    t = TargetGrid.from_extent(0, 120, 0, 80, 0.1)  # 800 x 1200: 6 tiles of 512
+    values = np.zeros(t.shape)
+    values[-1, -1] = 1.5  # not a whole number, in the last chunk
+    for _ in range(3):
+        with pytest.raises(GridError, match=r"do not fit uint8"):
+            write_geotiff(
+                grid(t, values).chunk(512),
+                tmp_path / "f.tif",
+                description="d",
+                units="1",
+                dtype="uint8",
+                nodata=255,
+            )
+    assert list(tmp_path.iterdir()) == []
+
+
 def test_geotiff_argument_errors(tmp_path):
     t = TargetGrid.from_extent(0, 10, 0, 10, 0.5)
     da = grid(t, np.zeros(t.shape))

@@ -163,22 +163,32 @@ def tile_aligned(data: Any) -> Any:
 class BandWindows:
     """A :func:`dask.array.store` target that writes ``(y, x)`` blocks into band 1 of ``dst``.
 
-    ``row0`` shifts the rows (a band of rows stored on its own); ``lock``, if given, serialises
-    the writes to this file.
+    Writes to one file are serialised by its lock (``lock``, or a new one). ``row0`` shifts the
+    rows (a band of rows stored on its own). When a store fails, dask returns the error while
+    other threads may still be writing blocks: :meth:`close` waits for the write in progress,
+    and blocks that arrive after it are dropped (the file is being discarded).
     """
 
     def __init__(self, dst: Any, *, row0: int = 0, lock: threading.Lock | None = None) -> None:
-        self.dst, self.row0, self.lock = dst, row0, lock
+        self.dst, self.row0 = dst, row0
+        self.lock = lock if lock is not None else threading.Lock()
 
     def shifted(self, row0: int) -> BandWindows:
-        """The same target with rows shifted by ``row0``."""
+        """The same file and lock with rows shifted by ``row0``."""
         return BandWindows(self.dst, row0=row0, lock=self.lock)
 
     def __setitem__(self, key: tuple[slice, slice], value: np.ndarray) -> None:
         ys, xs = key
         window = Window(xs.start, ys.start + self.row0, xs.stop - xs.start, ys.stop - ys.start)
-        with self.lock or contextlib.nullcontext():
-            self.dst.write(value, 1, window=window)
+        with self.lock:
+            if not self.dst.closed:
+                self.dst.write(value, 1, window=window)
+
+    def close(self) -> None:
+        """Close the file once no block is being written into it."""
+        with self.lock:
+            if not self.dst.closed:
+                self.dst.close()
 
 
 # --------------------------------------------------------------------------------------------

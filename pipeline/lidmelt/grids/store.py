@@ -11,7 +11,6 @@ On any error every temporary file is removed and no file is written under its fi
 from __future__ import annotations
 
 import contextlib
-import threading
 import warnings
 from collections.abc import Callable
 from dataclasses import dataclass, field
@@ -73,7 +72,7 @@ class GeoTiffSet:
     def __init__(self, items: list[GeoTiffItem], *, cog: bool = True) -> None:
         self.items = items
         self.cog = cog
-        self._handles: list[Any] = []
+        self._windows: list[BandWindows] = []  # each open file, with its lock
         self._finals: list[Path] = []  # temporary paths renamed onto the items' paths
         self._staged: list[Path] = []  # where each tiled GTiff is written
         self._stack = contextlib.ExitStack()
@@ -92,7 +91,7 @@ class GeoTiffSet:
                 self._staged.append(stack.enter_context(staging_path(tmp, cog=cog)))
                 # one file per output is written at once: threads come from dask, not GDAL
                 profile = gtiff_profile(da, np_dtype, item.nodata, threads=False)
-                self._handles.append(rasterio.open(self._staged[-1], "w", **profile))
+                self._windows.append(BandWindows(rasterio.open(self._staged[-1], "w", **profile)))
         except BaseException as exc:
             self._abort(type(exc), exc, exc.__traceback__)
             raise
@@ -118,7 +117,8 @@ class GeoTiffSet:
         import dask.array as dsa
 
         sources, targets = [], []
-        for item, dst in zip(self.items, self._handles, strict=True):
+        for item, windows in zip(self.items, self._windows, strict=True):
+            dst = windows.dst
             np_dtype = check_dtype_nodata(item.dtype, item.nodata)
             data = item.da.transpose("y", "x").data
             if not isinstance(data, dsa.Array):
@@ -128,7 +128,7 @@ class GeoTiffSet:
                 convert_block, np_dtype, item.nodata, dtype=np_dtype
             )
             sources.append(data)
-            targets.append(BandWindows(dst, lock=threading.Lock()))
+            targets.append(windows)
         height = self.items[0].da.sizes["y"]
         step = height if not band_rows else max(TILE, band_rows // TILE * TILE)
         bands = [slice(r, min(r + step, height)) for r in range(0, height, step)]
@@ -167,9 +167,9 @@ class GeoTiffSet:
             {"description": i.description, "units": i.units, "tags": stringify_tags(i.tags)}
             for i in self.items
         ]
-        for dst, meta in zip(self._handles, metas, strict=True):
-            set_metadata(dst, **meta)
-            dst.close()
+        for windows, meta in zip(self._windows, metas, strict=True):
+            set_metadata(windows.dst, **meta)
+            windows.close()
         for item, staged, tmp, meta in zip(
             self.items, self._staged, self._finals, metas, strict=True
         ):
@@ -177,7 +177,6 @@ class GeoTiffSet:
 
     def _abort(self, exc_type: Any, exc: BaseException | None, tb: Any) -> None:
         """Close the files and remove every temporary file (no final file is written)."""
-        for dst in self._handles:
-            if not dst.closed:
-                dst.close()
+        for windows in self._windows:
+            windows.close()  # waits for a block being written by a dask thread
         self._stack.__exit__(exc_type, exc, tb)

@@ -12,7 +12,6 @@ from __future__ import annotations
 
 import math
 import os
-import threading
 import warnings
 from collections.abc import Mapping
 from pathlib import Path
@@ -207,12 +206,17 @@ def _write_band(dst: Any, da: xr.DataArray, np_dtype: np.dtype, nodata: float) -
         dst.write(convert_block(np.asarray(data), np_dtype, nodata), 1)
         return
     data = tile_aligned(data).map_blocks(convert_block, np_dtype, nodata, dtype=np_dtype)
-    if _distributed_client() is not None:
-        _store_in_batches(data, BandWindows(dst))
-    else:
-        import dask.array as dsa
+    windows = BandWindows(dst)
+    try:
+        if _distributed_client() is not None:
+            _store_in_batches(data, windows)
+        else:
+            import dask.array as dsa
 
-        dsa.store(data, BandWindows(dst), lock=threading.Lock(), scheduler="threads")
+            dsa.store(data, windows, lock=False, scheduler="threads")
+    except BaseException:
+        windows.close()  # before the file is discarded: dask threads may still be writing
+        raise
 
 
 def _store_in_batches(data: Any, target: Any) -> None:
