@@ -18,7 +18,7 @@ from pyproj import CRS
 from rasterio.transform import from_origin
 
 from lidmelt.errors import GridError, InputError
-from lidmelt.grids.io import normalise_units, open_grid, sha256_file
+from lidmelt.grids.io import GRID_FORMATS, detect_format, normalise_units, open_grid, sha256_file
 
 
 def smooth_field(lon, lat):
@@ -359,3 +359,25 @@ def test_sha256_file(tmp_path):
     assert sha256_file(big) == hashlib.sha256(big.read_bytes()).hexdigest()  # hashlib, one shot
     with pytest.raises(InputError, match=r"cannot read"):
         sha256_file(tmp_path / "missing")
+
+
+def test_detect_format(tmp_path):
+    # check values: the first bytes of netCDF classic/64-bit offset/CDF-5 files ("CDF" plus the
+    # version byte; NetCDF Users Guide, "File Format Specifications") and the HDF5 signature
+    # "\x89HDF\r\n\x1a\n" (HDF5 File Format Specification, "Format Signature"; from memory)
+    assert GRID_FORMATS == ("netcdf", "gdal")
+    for magic in (b"CDF\x01", b"CDF\x02", b"CDF\x05", b"\x89HDF\r\n\x1a\n"):
+        (tmp_path / "f").write_bytes(magic + b"\x00" * 16)
+        assert detect_format(tmp_path / "f") == "netcdf"
+    cf_dataset([0.5, 1.5], [0.5, 1.5], np.zeros((2, 2))).to_netcdf(tmp_path / "g.nc")
+    assert detect_format(tmp_path / "g.nc") == "netcdf"
+    tif = write_tif(
+        tmp_path / "g.tif", np.zeros((2, 2), "float32"), transform=from_origin(0, 2, 1, 1)
+    )
+    assert detect_format(tif) == "gdal"
+    (tmp_path / "short").write_bytes(b"CD")  # shorter than any signature: left to GDAL
+    assert detect_format(tmp_path / "short") == "gdal"
+    with pytest.raises(InputError, match=r"grid file .*'dem'.* does not exist"):
+        detect_format(tmp_path / "missing.tif", name="dem")
+    with pytest.raises(InputError, match=r"is a folder, not a file"):
+        detect_format(tmp_path)

@@ -21,7 +21,9 @@ from pyproj import CRS
 from lidmelt.errors import GridError, InputError
 from lidmelt.grids import write as write_module
 from lidmelt.grids.align import TargetGrid
+from lidmelt.grids.geotiff import tile_aligned
 from lidmelt.grids.io import open_grid
+from lidmelt.grids.store import GeoTiffItem, GeoTiffSet
 from lidmelt.grids.write import write_geotiff, write_netcdf
 
 
@@ -126,7 +128,7 @@ def test_geotiff_dask_written_chunk_by_chunk(tmp_path):
     with rasterio.open(tmp_path / "lazy.tif") as src:
         npt.assert_array_equal(src.read(1), values)
         assert src.tags()["k"] == "v"
-    assert write_module._tile_aligned(lazy.data).chunksize == (512, 512)
+    assert tile_aligned(lazy.data).chunksize == (512, 512)
 
 
 def test_geotiff_batched_path_for_distributed(tmp_path, monkeypatch):
@@ -193,6 +195,25 @@ def test_geotiff_failures_leave_no_file(tmp_path):
             nodata=255,
         )
     assert leftovers(tmp_path, {"f.tif"}) == []
+
+
+def test_geotiff_failure_in_one_of_many_chunks(tmp_path):
+    """A block that fails while other dask threads still write: the error comes back, no file
+    is left and nothing crashes (the file is closed only once no block is being written)."""
+    t = TargetGrid.from_extent(0, 120, 0, 80, 0.1)  # 800 x 1200: 6 tiles of 512
+    values = np.zeros(t.shape)
+    values[-1, -1] = 1.5  # not a whole number, in the last chunk
+    for _ in range(3):
+        with pytest.raises(GridError, match=r"do not fit uint8"):
+            write_geotiff(
+                grid(t, values).chunk(512),
+                tmp_path / "f.tif",
+                description="d",
+                units="1",
+                dtype="uint8",
+                nodata=255,
+            )
+    assert list(tmp_path.iterdir()) == []
 
 
 def test_geotiff_argument_errors(tmp_path):
@@ -291,3 +312,66 @@ def test_small_lazy_grid_with_chunks_below_a_tile(tmp_path):
     write_geotiff(da, tmp_path / "o.tif", description="ones", units="1", tags={}, cog=False)
     with rasterio.open(tmp_path / "o.tif") as src:
         npt.assert_array_equal(src.read(1), 1.0)
+
+
+# ------------------------------------------------------------------------------ GeoTiffSet
+
+
+@pytest.mark.parametrize("cog", [True, False])
+def test_geotiff_set_writes_every_file_in_one_pass(tmp_path, cog):
+    t = TargetGrid.from_extent(0, 60, 0, 40, 0.05)  # 800 x 1200: two bands of 512 rows
+    values = ramp(t)
+    lazy = grid(t, values).chunk(512)
+    items = [
+        GeoTiffItem(lazy, tmp_path / "out" / "a.tif", "melt", "km", {"run": {"n": 1}}),
+        GeoTiffItem(lazy * 2, tmp_path / "out" / "b.tif", "twice", "km"),
+        GeoTiffItem(grid(t, np.where(np.isnan(values), np.nan, 1.0)), tmp_path / "out" / "c.tif",
+                    "flag", "1", dtype="uint8", nodata=255),
+    ]  # fmt: skip
+    bands = []  # (done, total) after each band
+    with GeoTiffSet(items, cog=cog) as out:
+        sums = out.compute(
+            extra=lambda rows: [lazy[rows].sum()],
+            band_rows=512,
+            report=lambda k, n: bands.append((k, n)),
+        )
+    assert bands == [(1, 2), (2, 2)]
+    # check values: the sum of each band of rows, computed here with numpy (NaN left out)
+    npt.assert_allclose(
+        [s[0] for s in sums], [np.nansum(values[:512]), np.nansum(values[512:])], rtol=1e-6
+    )
+    assert sorted(p.name for p in (tmp_path / "out").iterdir()) == ["a.tif", "b.tif", "c.tif"]
+    with rasterio.open(tmp_path / "out" / "a.tif") as src:
+        npt.assert_array_equal(src.read(1), values)
+        assert src.descriptions == ("melt",)
+        assert src.units == ("km",)
+        assert json.loads(src.tags()["run"]) == {"n": 1}
+    with rasterio.open(tmp_path / "out" / "b.tif") as src:
+        npt.assert_array_equal(src.read(1), values * 2)
+    with rasterio.open(tmp_path / "out" / "c.tif") as src:
+        assert src.nodata == 255
+        assert src.read(1)[0, 0] == 255
+        assert src.read(1)[0, 1] == 1
+
+
+def test_geotiff_set_error_writes_no_file(tmp_path):
+    t = TargetGrid.from_extent(0, 10, 0, 10, 0.5)
+    old = tmp_path / "a.tif"
+    old.write_bytes(b"previous content")
+    good = GeoTiffItem(grid(t, np.zeros(t.shape)).chunk(5), old, "a", "1")
+    bad = GeoTiffItem(grid(t, np.full(t.shape, 1.5)).chunk(5), tmp_path / "b.tif", "b", "1",
+                      dtype="uint8", nodata=255)  # fmt: skip
+    with pytest.raises(GridError, match=r"do not fit uint8"), GeoTiffSet([good, bad]) as out:
+        out.compute()
+    assert old.read_bytes() == b"previous content"  # replaced only when every file succeeds
+    assert leftovers(tmp_path, {"a.tif"}) == []
+
+    def stopped_after_compute():
+        with GeoTiffSet([good]) as out:
+            out.compute()
+            raise RuntimeError("stop")  # an error in the caller's block after the data are stored
+
+    with pytest.raises(RuntimeError, match="stop"):
+        stopped_after_compute()
+    assert old.read_bytes() == b"previous content"
+    assert leftovers(tmp_path, {"a.tif"}) == []

@@ -30,7 +30,7 @@ from lidmelt.grids.grid import Grid
 
 TargetGrid = Grid
 
-__all__ = ["RESAMPLING_METHODS", "TargetGrid", "align"]
+__all__ = ["RESAMPLING_METHODS", "TargetGrid", "align", "check_dataarray", "transform_of"]
 
 #: Resampling names accepted by :func:`align` (GDAL warper kernels).
 RESAMPLING_METHODS = {
@@ -149,7 +149,25 @@ def align(
 
     Poles are not wrapped: rows beyond the outermost input row take the edge values.
     """
-    _check_dataarray(da, what=f"grid {da.name!r}" if isinstance(da, xr.DataArray) else "grid")
+    _check_align_args(da, target, resampling)
+    out_name = name if name is not None else da.name
+    coords = target.template(chunks=target.shape).coords  # lazy: only the coordinates are used
+    da = _as_yx(da)
+    if target.matches(da):
+        out = da.drop_vars("spatial_ref", errors="ignore").assign_coords(coords)
+        out.attrs = {**da.attrs}
+        out.encoding = {}
+        out.name = out_name
+        return out
+    result = _resample(da, target, resampling)
+    attrs = {**da.attrs, "resampling": resampling}
+    return xr.DataArray(result, dims=("y", "x"), coords=coords, attrs=attrs, name=out_name)
+
+
+def _check_align_args(da: Any, target: Any, resampling: str) -> None:
+    """GridError unless ``da`` is a north-up grid with a CRS, ``target`` a TargetGrid and
+    ``resampling`` one of :data:`RESAMPLING_METHODS`."""
+    check_dataarray(da, what=f"grid {da.name!r}" if isinstance(da, xr.DataArray) else "grid")
     if not isinstance(target, TargetGrid):
         msg = f"target={target!r} must be a TargetGrid (see TargetGrid.from_extent)."
         raise GridError(msg)
@@ -159,38 +177,31 @@ def align(
             f"{sorted(RESAMPLING_METHODS)} (bilinear for continuous fields, nearest for flags)."
         )
         raise GridError(msg)
-    out_name = name if name is not None else da.name
-    coords = target.template(chunks=target.shape).coords  # lazy: only the coordinates are used
-    attrs = {**da.attrs, "resampling": resampling}
+
+
+def _as_yx(da: xr.DataArray) -> xr.DataArray:
+    """``da`` without a size-1 ``band`` dimension, dims in ``(y, x)`` order."""
     if "band" in da.dims:
         da = da.squeeze("band", drop=True)
-    if da.dims != ("y", "x"):
-        da = da.transpose("y", "x")
+    return da if da.dims == ("y", "x") else da.transpose("y", "x")
 
-    if target.matches(da):
-        out = da.drop_vars("spatial_ref", errors="ignore").assign_coords(coords)
-        out.attrs = {**da.attrs}
-        out.encoding = {}
-        out.name = out_name
-        return out
 
+def _resample(da: xr.DataArray, target: TargetGrid, resampling: str) -> np.ndarray:
+    """Values of ``da`` on ``target``: the covering source windows, loaded, then interpolated
+    here (bilinear refinement) or warped by GDAL (everything else); see :func:`align`."""
     src_crs = _crs(_normalise_crs(da.rio.crs))
-    src_transform = _transform_of(da)
+    src_transform = transform_of(da)
     pieces = _source_pieces(da, src_transform, src_crs, target)
     if not pieces:
         raise GridError(_no_overlap_message(da, src_transform, src_crs, target))
-
     dtype = np.float32 if da.dtype == np.float32 else np.float64
     loaded = [
         (np.asarray(piece.values, dtype=dtype), tr, lon_range) for piece, tr, lon_range in pieces
     ]
     loaded = [item for item in loaded if item[0].size]
     if resampling == "bilinear" and _median_footprint(target, src_crs, src_transform) <= 1.0:
-        result = _interpolate_bilinear(loaded, target, src_crs, dtype)
-    else:
-        result = _warp_gdal(loaded, target, src_crs, dtype, RESAMPLING_METHODS[resampling])
-
-    return xr.DataArray(result, dims=("y", "x"), coords=coords, attrs=attrs, name=out_name)
+        return _interpolate_bilinear(loaded, target, src_crs, dtype)
+    return _warp_gdal(loaded, target, src_crs, dtype, RESAMPLING_METHODS[resampling])
 
 
 # --------------------------------------------------------------------------------------------
@@ -198,7 +209,9 @@ def align(
 # --------------------------------------------------------------------------------------------
 
 
-def _check_dataarray(da: Any, *, what: str) -> None:
+def check_dataarray(da: Any, *, what: str) -> None:
+    """GridError unless ``da`` is a DataArray with dims ``(y, x)`` (plus a size-1 ``band``),
+    a CRS and a north-up transform with x ascending; ``what`` names it in the message."""
     if not isinstance(da, xr.DataArray):
         msg = f"{what} must be an xarray.DataArray, got {type(da).__name__}."
         raise GridError(msg)
@@ -215,7 +228,7 @@ def _check_dataarray(da: Any, *, what: str) -> None:
             "latitude) or read the file with lidmelt.grids.io.open_grid."
         )
         raise GridError(msg)
-    transform = _transform_of(da)
+    transform = transform_of(da)
     if transform.b != 0 or transform.d != 0 or not transform.a > 0 or not transform.e < 0:
         msg = (
             f"{what} is not north-up with x ascending (transform {tuple(transform)[:6]}). "
@@ -224,7 +237,7 @@ def _check_dataarray(da: Any, *, what: str) -> None:
         raise GridError(msg)
 
 
-def _transform_of(da: xr.DataArray) -> Affine:
+def transform_of(da: xr.DataArray) -> Affine:
     """The grid's transform: from its coordinates, or the stored one if they agree.
 
     The stored (``spatial_ref`` GeoTransform) coefficients are exact where the coordinates
@@ -236,6 +249,11 @@ def _transform_of(da: xr.DataArray) -> Affine:
         return cached
     computed = da.rio.transform(recalc=True)
     return cached if _same_transform(cached, computed) else computed
+
+
+# the TargetGrid class body still calls the former private names
+_check_dataarray = check_dataarray
+_transform_of = transform_of
 
 
 def _same_transform(t1: Affine, t2: Affine) -> bool:
@@ -277,89 +295,115 @@ def _target_longitudes(target: TargetGrid, src_crs: CRS) -> np.ndarray:
     return np.asarray(lon)
 
 
+_Piece = tuple[xr.DataArray, Affine, tuple[float, float] | None]
+
+
 def _source_pieces(
     da: xr.DataArray, transform: Affine, src_crs: CRS, target: TargetGrid
-) -> list[tuple[xr.DataArray, Affine, tuple[float, float] | None]]:
+) -> list[_Piece]:
     """Windows of the source (lazy) that cover the target.
 
     Each comes with its transform and, for a shifted regional geographic input, the longitude
     range (source cell edges, in the target's frame) it is valid for.
     """
+    geographic = src_crs.is_geographic
+    box = _geographic_box(target, src_crs) if geographic else _footprint(target, src_crs)
+    if box is None:
+        return [(da, transform, None)]
     height, width = da.sizes["y"], da.sizes["x"]
     dx, dy = transform.a, -transform.e
     west, north = transform.c, transform.f
-    south = north - dy * height
+    east, south = west + dx * width, north - dy * height
+    t_west, t_south, t_east, t_north = box
+    if not (south < t_north and north > t_south):
+        return []
+    if not geographic and not (west < t_east and east > t_west):
+        return []
+    margin = _margin(box, target, transform)
+    rows = _index_range(north - t_north, north - t_south, 0.0, dy, height, margin)
+    if not geographic:
+        c0, c1 = _index_range(t_west, t_east, west, dx, width, margin)
+        return [(*_window(da, transform, rows, slice(c0, c1), west + c0 * dx), None)]
+    periodic = _periodic_width(dx, width)
+    if periodic is None:  # regional: shifted by whole turns
+        return _shifted_pieces(da, transform, box, rows, margin)
+    j0 = math.floor((t_west - west) / dx) - margin  # global: indexed periodically
+    j1 = math.ceil((t_east - west) / dx) + margin
+    cols = np.arange(j0, j1) % periodic
+    return [(*_window(da, transform, rows, cols, west + j0 * dx), None)]
 
-    if src_crs.is_geographic:
-        if target.is_geographic and src_crs.equals(target.pyproj_crs, ignore_axis_order=True):
-            t_west, t_south, t_east, t_north = target.bounds
-        else:
-            box = _footprint(target, src_crs)
-            if box is None:
-                t_west, t_south, t_east, t_north = -180.0, -90.0, 180.0, 90.0
-            else:
-                t_west, t_south, t_east, t_north = box
-                if t_east <= t_west:  # the footprint crosses the antimeridian
-                    t_west, t_east = -180.0, 180.0
-        ratio = max(
-            1.0,
-            (t_east - t_west) / max(target.width, 1) / dx,
-            (t_north - t_south) / max(target.height, 1) / dy,
-        )
-        margin = 2 + math.ceil(2 * ratio)
-        if not (south < t_north and north > t_south):
-            return []
-        r0, r1 = _index_range(north - t_north, north - t_south, 0.0, dy, height, margin)
 
-        periodic_width = None
-        if abs(dx * width - 360.0) < 0.5 * dx:
-            periodic_width = width
-        elif abs(dx * (width - 1) - 360.0) < 0.5 * dx:  # gridline-registered: 0 and 360 both
-            periodic_width = width - 1
-        if periodic_width is not None:
-            j0 = math.floor((t_west - west) / dx) - margin
-            j1 = math.ceil((t_east - west) / dx) + margin
-            cols = np.arange(j0, j1) % periodic_width
-            piece = da.isel(y=slice(r0, r1), x=cols)
-            return [(piece, Affine(dx, 0.0, west + j0 * dx, 0.0, -dy, north - r0 * dy), None)]
+def _geographic_box(target: TargetGrid, src_crs: CRS) -> tuple[float, float, float, float]:
+    """Target extent (west, south, east, north) in the geographic source CRS.
 
-        pieces = []
-        overlaps = []
-        for turn in (0, -1, 1, -2, 2):
-            lo = west + 360.0 * turn
-            hi = lo + dx * width
-            overlap = min(hi, t_east) - max(lo, t_west)
-            if overlap > 0:
-                overlaps.append((overlap, turn, lo))
-        for _, _turn, lo in sorted(overlaps, key=lambda item: -item[0]):
-            c0, c1 = _index_range(t_west, t_east, lo, dx, width, margin)
-            piece = da.isel(y=slice(r0, r1), x=slice(c0, c1))
-            pieces.append(
-                (
-                    piece,
-                    Affine(dx, 0.0, lo + c0 * dx, 0.0, -dy, north - r0 * dy),
-                    (lo, lo + dx * width),
-                )
-            )
-        return pieces
-
-    east = west + dx * width
+    The whole globe where the footprint is unknown; all longitudes where it crosses the
+    antimeridian.
+    """
+    if target.is_geographic and src_crs.equals(target.pyproj_crs, ignore_axis_order=True):
+        return target.bounds
     box = _footprint(target, src_crs)
     if box is None:
-        return [(da, transform, None)]
+        return (-180.0, -90.0, 180.0, 90.0)
     t_west, t_south, t_east, t_north = box
-    if not (west < t_east and east > t_west and south < t_north and north > t_south):
-        return []
+    if t_east <= t_west:  # the footprint crosses the antimeridian
+        return (-180.0, t_south, 180.0, t_north)
+    return box
+
+
+def _margin(box: tuple[float, float, float, float], target: TargetGrid, transform: Affine) -> int:
+    """Extra source cells around the footprint: 2 plus twice the target/source cell ratio."""
+    t_west, t_south, t_east, t_north = box
     ratio = max(
         1.0,
-        (t_east - t_west) / max(target.width, 1) / dx,
-        (t_north - t_south) / max(target.height, 1) / dy,
+        (t_east - t_west) / max(target.width, 1) / transform.a,
+        (t_north - t_south) / max(target.height, 1) / -transform.e,
     )
-    margin = 2 + math.ceil(2 * ratio)
-    c0, c1 = _index_range(t_west, t_east, west, dx, width, margin)
-    r0, r1 = _index_range(north - t_north, north - t_south, 0.0, dy, height, margin)
-    piece = da.isel(y=slice(r0, r1), x=slice(c0, c1))
-    return [(piece, Affine(dx, 0.0, west + c0 * dx, 0.0, -dy, north - r0 * dy), None)]
+    return 2 + math.ceil(2 * ratio)
+
+
+def _window(
+    da: xr.DataArray, transform: Affine, rows: tuple[int, int], cols: Any, x0: float
+) -> tuple[xr.DataArray, Affine]:
+    """Rows ``rows`` and columns ``cols`` of the source, and their transform (west edge x0)."""
+    r0, r1 = rows
+    dx, dy = transform.a, -transform.e
+    piece = da.isel(y=slice(r0, r1), x=cols)
+    return piece, Affine(dx, 0.0, x0, 0.0, -dy, transform.f - r0 * dy)
+
+
+def _periodic_width(dx: float, width: int) -> int | None:
+    """Columns in one turn of a global geographic input (None for a regional one)."""
+    if abs(dx * width - 360.0) < 0.5 * dx:
+        return width
+    if abs(dx * (width - 1) - 360.0) < 0.5 * dx:  # gridline-registered: 0 and 360 both
+        return width - 1
+    return None
+
+
+def _shifted_pieces(
+    da: xr.DataArray,
+    transform: Affine,
+    box: tuple[float, float, float, float],
+    rows: tuple[int, int],
+    margin: int,
+) -> list[_Piece]:
+    """A regional geographic input shifted by 0, +-1, +-2 turns; largest overlap first."""
+    width = da.sizes["x"]
+    dx = transform.a
+    t_west, _, t_east, _ = box
+    overlaps = []
+    for turn in (0, -1, 1, -2, 2):
+        lo = transform.c + 360.0 * turn
+        hi = lo + dx * width
+        overlap = min(hi, t_east) - max(lo, t_west)
+        if overlap > 0:
+            overlaps.append((overlap, turn, lo))
+    pieces: list[_Piece] = []
+    for _, _turn, lo in sorted(overlaps, key=lambda item: -item[0]):
+        c0, c1 = _index_range(t_west, t_east, lo, dx, width, margin)
+        piece, tr = _window(da, transform, rows, slice(c0, c1), lo + c0 * dx)
+        pieces.append((piece, tr, (lo, lo + dx * width)))
+    return pieces
 
 
 def _coords_in_source(

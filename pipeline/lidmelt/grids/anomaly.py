@@ -196,6 +196,20 @@ def plume_anomaly(
     radius of curvature, a(1 - e^2), as a lower bound on distance per radian of latitude) are
     skipped, so small plumes on large grids cost little.
     """
+    plumes = _checked_plumes(target, plumes)
+    out = _with_background(_plume_sum(target, plumes, chunks), background, target)
+    out.name = "thermal_anomaly_k"
+    out.attrs = {
+        "units": "K",
+        "long_name": "mantle thermal anomaly (excess potential temperature)",
+        "combination": "sum",
+        "plumes": json.dumps([asdict(p) for p in plumes]),
+    }
+    return out
+
+
+def _checked_plumes(target: Any, plumes: Any) -> tuple[Plume, ...]:
+    """``plumes`` as a tuple; GridError/InputError unless on a TargetGrid and all Plumes."""
     if not isinstance(target, TargetGrid):
         msg = f"target={target!r} must be a TargetGrid (see TargetGrid.from_extent)."
         raise GridError(msg)
@@ -207,7 +221,13 @@ def plume_anomaly(
                 "Plume(longitude=..., latitude=..., radius_km=..., peak_excess_k=...)."
             )
             raise InputError(msg)
+    return plumes
 
+
+def _plume_sum(
+    target: TargetGrid, plumes: tuple[Plume, ...], chunks: int | tuple[int, int] | None
+) -> xr.DataArray:
+    """The summed plume profiles on ``target``: numpy, or dask evaluated block by block."""
     template = target.template(chunks=chunks)
     if chunks is None:
         data: Any = _plume_block(target, plumes, slice(0, target.height), slice(0, target.width))
@@ -219,46 +239,48 @@ def plume_anomaly(
             dtype=np.float64,
             meta=np.empty((0, 0), dtype=np.float64),
         )
-    out = xr.DataArray(data, dims=("y", "x"), coords=template.coords)
+    return xr.DataArray(data, dims=("y", "x"), coords=template.coords)
 
+
+def _with_background(
+    out: xr.DataArray, background: float | xr.DataArray | None, target: TargetGrid
+) -> xr.DataArray:
+    """``out`` plus a background grid on ``target`` (K) or a finite constant (K)."""
     if isinstance(background, xr.DataArray):
-        if not target.matches(background):
-            msg = (
-                f"background grid {background.name!r} is not on the target grid (shape "
-                f"{tuple(background.shape)} vs {target.shape}, or a different CRS/transform). "
-                "Put it on the grid first with lidmelt.grids.align.align(background, target)."
-            )
-            raise GridError(msg)
-        units = normalise_units(background.attrs.get("units"))
-        if units not in (None, "K"):
-            msg = (
-                f"background grid {background.name!r} has units "
-                f"{background.attrs.get('units')!r}; expected 'K' (an excess temperature). "
-                "Convert it, or correct its 'units' attribute if only the label is wrong."
-            )
-            raise GridError(msg)
-        out = out + background.transpose("y", "x").data
-    elif background is not None:
-        if (
-            isinstance(background, bool)
-            or not isinstance(background, int | float | np.number)
-            or not math.isfinite(float(background))
-        ):
-            msg = (
-                f"background={background!r} must be a finite number (K) or a DataArray on "
-                "the target grid."
-            )
-            raise InputError(msg)
-        out = out + float(background)
+        return out + _background_grid(background, target)
+    if background is None:
+        return out
+    if (
+        isinstance(background, bool)
+        or not isinstance(background, int | float | np.number)
+        or not math.isfinite(float(background))
+    ):
+        msg = (
+            f"background={background!r} must be a finite number (K) or a DataArray on "
+            "the target grid."
+        )
+        raise InputError(msg)
+    return out + float(background)
 
-    out.name = "thermal_anomaly_k"
-    out.attrs = {
-        "units": "K",
-        "long_name": "mantle thermal anomaly (excess potential temperature)",
-        "combination": "sum",
-        "plumes": json.dumps([asdict(p) for p in plumes]),
-    }
-    return out
+
+def _background_grid(background: xr.DataArray, target: TargetGrid) -> Any:
+    """The background's ``(y, x)`` data; GridError unless on ``target`` and in kelvin."""
+    if not target.matches(background):
+        msg = (
+            f"background grid {background.name!r} is not on the target grid (shape "
+            f"{tuple(background.shape)} vs {target.shape}, or a different CRS/transform). "
+            "Put it on the grid first with lidmelt.grids.align.align(background, target)."
+        )
+        raise GridError(msg)
+    units = normalise_units(background.attrs.get("units"))
+    if units not in (None, "K"):
+        msg = (
+            f"background grid {background.name!r} has units "
+            f"{background.attrs.get('units')!r}; expected 'K' (an excess temperature). "
+            "Convert it, or correct its 'units' attribute if only the label is wrong."
+        )
+        raise GridError(msg)
+    return background.transpose("y", "x").data
 
 
 def _plume_dask_block(

@@ -10,7 +10,8 @@ from __future__ import annotations
 
 import hashlib
 import warnings
-from collections.abc import Mapping
+from collections.abc import Callable, Mapping
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
@@ -23,13 +24,15 @@ from pyproj.exceptions import CRSError
 from rasterio.crs import CRS as RioCRS
 
 from lidmelt.errors import GridError, InputError
-from lidmelt.grids.align import _transform_of
+from lidmelt.grids.align import transform_of
 
-__all__ = ["normalise_units", "open_grid", "sha256_file"]
+__all__ = ["GRID_FORMATS", "detect_format", "normalise_units", "open_grid", "sha256_file"]
 
-# First bytes of the file formats read through xarray's netCDF4 engine (netCDF classic, 64-bit
-# offset, CDF-5, and netCDF-4/HDF5). Everything else goes to GDAL through rasterio.
+# First bytes of the file formats read through xarray's netCDF4 engine: netCDF classic, 64-bit
+# offset, CDF-5 (NetCDF Users Guide, "File Format Specifications") and netCDF-4/HDF5 (the HDF5
+# format signature). Everything else goes to GDAL through rasterio.
 _NETCDF_MAGIC = (b"CDF\x01", b"CDF\x02", b"CDF\x05", b"\x89HDF\r\n\x1a\n")
+_MAGIC_BYTES = 8
 
 _LAT_NAMES = {"lat", "latitude", "lats", "nav_lat"}
 _LON_NAMES = {"lon", "long", "longitude", "lons", "nav_lon"}
@@ -123,8 +126,9 @@ def open_grid(
     Parameters
     ----------
     path : str or Path
-        The file. NetCDF is recognised by its first bytes (classic, 64-bit offset, CDF-5 or
-        netCDF-4/HDF5); anything else is opened with GDAL.
+        The file. Its reader is chosen by :func:`detect_format`: NetCDF is recognised by its
+        first bytes (classic, 64-bit offset, CDF-5 or netCDF-4/HDF5); anything else is opened
+        with GDAL.
     variable : str, optional
         NetCDF only: the variable to read. If None, the file must hold exactly one data variable
         with two spatial dimensions (size-1 dimensions such as a single time step are dropped).
@@ -163,34 +167,8 @@ def open_grid(
     netCDF-C libraries are not thread-safe, so ``lock=False`` is used for GDAL rasters only.
     """
     path = Path(path)
-    if not path.exists():
-        msg = (
-            f"grid file {str(path)!r} for {name!r} does not exist. Check the path "
-            "(relative paths are resolved from the current folder)."
-        )
-        raise InputError(msg)
-    if not path.is_file():
-        msg = f"grid path {str(path)!r} for {name!r} is a folder, not a file. Give the grid file."
-        raise InputError(msg)
-    try:
-        with path.open("rb") as handle:
-            magic = handle.read(8)
-    except OSError as exc:
-        msg = f"cannot read grid file {str(path)!r} for {name!r} ({exc}). Check its permissions."
-        raise InputError(msg) from exc
-
-    if magic.startswith(_NETCDF_MAGIC):
-        da, file_units, long_name = _open_netcdf(path, variable=variable, name=name, chunks=chunks)
-    else:
-        if variable is not None:
-            msg = (
-                f"variable={variable!r} was given for {str(path)!r}, but that file is not "
-                "NetCDF (GDAL rasters have bands, not variables; band 1 is read). Drop the "
-                "variable option or give the NetCDF file."
-            )
-            raise GridError(msg)
-        da, file_units, long_name = _open_raster(path, name=name, chunks=chunks)
-
+    reader = _READERS[detect_format(path, name=name)]
+    da, file_units, long_name = reader.open(path, variable=variable, name=name, chunks=chunks)
     units = _check_units(file_units, units_expected, name=name, path=path)
     da.name = name
     da.attrs = {"units": units or "", "long_name": long_name or name, "source": str(path)}
@@ -198,12 +176,66 @@ def open_grid(
     return da
 
 
+def detect_format(path: str | Path, *, name: str = "grid") -> str:
+    """The format :func:`open_grid` reads ``path`` as: ``"netcdf"`` or ``"gdal"``.
+
+    Parameters
+    ----------
+    path : str or Path
+        The file.
+    name : str
+        What the file is for (used in messages).
+
+    Returns
+    -------
+    str
+        One of :data:`GRID_FORMATS`: the first reader whose magic bytes start the file; GDAL
+        (which recognises its many formats itself) for everything else.
+
+    Raises
+    ------
+    InputError
+        If the file does not exist, is a folder or cannot be read.
+    """
+    magic = _first_bytes(Path(path), name=name)
+    return next(fmt for fmt, reader in _READERS.items() if reader.recognises(magic))
+
+
+def _first_bytes(path: Path, *, name: str) -> bytes:
+    """The first bytes of a grid file; InputError naming ``name`` if there is no such file."""
+    if not path.is_file():
+        msg = (
+            f"grid file {str(path)!r} for {name!r} does not exist. Check the path (relative "
+            "paths are resolved from the current folder)."
+            if not path.exists()
+            else f"grid path {str(path)!r} for {name!r} is a folder, not a file. Give the grid "
+            "file."
+        )
+        raise InputError(msg)
+    try:
+        with path.open("rb") as handle:
+            return handle.read(_MAGIC_BYTES)
+    except OSError as exc:
+        msg = f"cannot read grid file {str(path)!r} for {name!r} ({exc}). Check its permissions."
+        raise InputError(msg) from exc
+
+
 # --------------------------------------------------------------------------------------------
 # GDAL rasters
 # --------------------------------------------------------------------------------------------
 
 
-def _open_raster(path: Path, *, name: str, chunks: Any) -> tuple[xr.DataArray, str | None, str]:
+def _open_raster(
+    path: Path, *, variable: str | None, name: str, chunks: Any
+) -> tuple[xr.DataArray, str | None, str]:
+    """Band 1 of a GDAL raster, lazily with ``chunks``; (grid, units, long_name)."""
+    if variable is not None:
+        msg = (
+            f"variable={variable!r} was given for {str(path)!r}, but that file is not "
+            "NetCDF (GDAL rasters have bands, not variables; band 1 is read). Drop the "
+            "variable option or give the NetCDF file."
+        )
+        raise GridError(msg)
     kwargs: dict[str, Any] = {"mask_and_scale": True, "band_as_variable": True}
     if chunks is not None:
         if isinstance(chunks, int):
@@ -287,8 +319,29 @@ def _spatial_dims(var: xr.DataArray, ds: xr.Dataset) -> dict[str, str] | None:
 def _open_netcdf(
     path: Path, *, variable: str | None, name: str, chunks: Any
 ) -> tuple[xr.DataArray, str | None, str]:
+    """One 2-D variable of a CF NetCDF file, lazily with ``chunks``; (grid, units, long_name)."""
+    ds = _open_dataset(path, name=name, chunks=chunks)
     try:
-        ds = xr.open_dataset(
+        variable = _pick_variable(ds, variable, path=path, name=name)
+        var, crs = _located_variable(ds, variable, path=path)
+    except BaseException:
+        ds.close()
+        raise
+    units = var.attrs.get("units")
+    long_name = var.attrs.get("long_name") or var.attrs.get("standard_name") or variable
+    var.attrs = {}
+    var.encoding = {}
+    if chunks is None:
+        var = _load(var, ds, variable=variable, path=path)
+    var = _finalise(var, crs)
+    if chunks is not None:
+        var = var.chunk(chunks if isinstance(chunks, Mapping) else {"y": chunks, "x": chunks})
+    return var, units, long_name
+
+
+def _open_dataset(path: Path, *, name: str, chunks: Any) -> xr.Dataset:
+    try:
+        return xr.open_dataset(
             path,
             engine="netcdf4",
             mask_and_scale=True,
@@ -304,11 +357,13 @@ def _open_netcdf(
         )
         raise InputError(msg) from exc
 
+
+def _pick_variable(ds: xr.Dataset, variable: str | None, *, path: Path, name: str) -> str:
+    """``variable``, or the file's one 2-D gridded variable; GridError if absent or ambiguous."""
     listing = ", ".join(f"{k}{tuple(v.dims)}" for k, v in ds.data_vars.items()) or "none"
     if variable is None:
         candidates = [k for k, v in ds.data_vars.items() if _spatial_dims(v, ds) is not None]
         if len(candidates) != 1:
-            ds.close()
             found = "no" if not candidates else f"{len(candidates)} ({', '.join(candidates)})"
             msg = (
                 f"NetCDF file {str(path)!r} for {name!r} has {found} 2-D gridded variables; "
@@ -316,78 +371,71 @@ def _open_netcdf(
                 "variable=NAME (workflow: 'variable = \"NAME\"')."
             )
             raise GridError(msg)
-        variable = candidates[0]
+        return str(candidates[0])
     if variable not in ds.data_vars:
-        ds.close()
         msg = (
             f"NetCDF file {str(path)!r} has no data variable {variable!r}. Its variables: "
             f"{listing}. Give one of these names."
         )
         raise GridError(msg)
+    return variable
+
+
+def _located_variable(ds: xr.Dataset, variable: str, *, path: Path) -> tuple[xr.DataArray, CRS]:
+    """The variable as a (lazy) ``(y, x)`` grid on exactly regular coordinates, and its CRS."""
     var = ds[variable]
     roles = _spatial_dims(var, ds)
     if roles is None:
-        ds.close()
-        shape = dict(var.sizes)
         msg = (
-            f"variable {variable!r} in {str(path)!r} has dims {shape}; expected exactly two "
-            "spatial dimensions (lat/lon, latitude/longitude or y/x, each longer than 1, "
-            "with CF units such as 'degrees_north'/'degrees_east'). Select one 2-D slice "
-            "(e.g. 'ncks -d time,0') or give the right variable."
+            f"variable {variable!r} in {str(path)!r} has dims {dict(var.sizes)}; expected "
+            "exactly two spatial dimensions (lat/lon, latitude/longitude or y/x, each longer "
+            "than 1, with CF units such as 'degrees_north'/'degrees_east'). Select one 2-D "
+            "slice (e.g. 'ncks -d time,0') or give the right variable."
         )
         raise GridError(msg)
-
     squeeze = [d for d in var.dims if var.sizes[d] == 1]
     var = var.squeeze(squeeze, drop=True) if squeeze else var
     geographic = "lat" in roles
     ydim, xdim = (roles["lat"], roles["lon"]) if geographic else (roles["y"], roles["x"])
     crs = _netcdf_crs(ds, var, path=path, geographic=geographic)
     if crs is None:
-        ds.close()
         msg = (
             f"variable {variable!r} in {str(path)!r} has projected-looking coordinates "
             f"({ydim!r}, {xdim!r}) but no CRS: no grid_mapping variable and no lat/lon "
             "units. "
         )
         raise GridError(msg + _CRS_FIX)
-
     for dim in (ydim, xdim):
         if dim not in ds.variables:
-            ds.close()
             msg = (
                 f"dimension {dim!r} of {variable!r} in {str(path)!r} has no coordinate "
                 "values, so the grid cannot be located. Add a coordinate variable with the "
                 "cell-centre positions. " + _CRS_FIX
             )
             raise GridError(msg)
-
-    units = var.attrs.get("units")
-    long_name = var.attrs.get("long_name") or var.attrs.get("standard_name") or variable
     var = var.drop_vars([c for c in var.coords if c not in (ydim, xdim)])
     var = var.rename({ydim: "y", xdim: "x"}).transpose("y", "x")
-    coords = {}
-    for dim in ("y", "x"):
-        coords[dim] = _regular_coords(
+    regular = {
+        dim: _regular_coords(
             np.asarray(var[dim].values, dtype=np.float64), dim=dim, variable=variable, path=path
         )
-    var = var.assign_coords(y=coords["y"], x=coords["x"])
-    var.attrs = {}
-    var.encoding = {}
-    if chunks is None:
-        try:
-            var = var.load()
-        except (OSError, RuntimeError, ValueError) as exc:
-            msg = (
-                f"cannot read the values of {variable!r} from {str(path)!r} ({exc}). The "
-                "file is corrupt or truncated; re-export it."
-            )
-            raise InputError(msg) from exc
-        finally:
-            ds.close()
-    var = _finalise(var, crs)
-    if chunks is not None:
-        var = var.chunk(chunks if isinstance(chunks, Mapping) else {"y": chunks, "x": chunks})
-    return var, units, long_name
+        for dim in ("y", "x")
+    }
+    return var.assign_coords(regular), crs
+
+
+def _load(var: xr.DataArray, ds: xr.Dataset, *, variable: str, path: Path) -> xr.DataArray:
+    """The values read into memory; the file is closed either way."""
+    try:
+        return var.load()
+    except (OSError, RuntimeError, ValueError) as exc:
+        msg = (
+            f"cannot read the values of {variable!r} from {str(path)!r} ({exc}). The "
+            "file is corrupt or truncated; re-export it."
+        )
+        raise InputError(msg) from exc
+    finally:
+        ds.close()
 
 
 def _netcdf_crs(ds: xr.Dataset, var: xr.DataArray, *, path: Path, geographic: bool) -> CRS | None:
@@ -456,7 +504,7 @@ def _finalise(da: xr.DataArray, crs: CRS) -> xr.DataArray:
         da = da.isel(x=slice(None, None, -1))
     if da.dtype.kind != "f":
         da = da.astype(np.float32 if np.dtype(da.dtype).itemsize <= 2 else np.float64)
-    transform = _transform_of(da)
+    transform = transform_of(da)
     da = da.drop_vars("spatial_ref", errors="ignore")
     da.attrs = {}
     da.encoding = {}
@@ -482,3 +530,32 @@ def _check_units(found: Any, expected: str | None, *, name: str, path: Path) -> 
         )
         raise GridError(msg)
     return expected_n
+
+
+# --------------------------------------------------------------------------------------------
+# Reader registry: the one place that knows the input formats
+# --------------------------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class _Reader:
+    """One input format: the first bytes that identify it and the function that opens it.
+
+    ``open(path, *, variable, name, chunks)`` returns the grid (north up, CRS and transform
+    written), the units the file states (or None) and a long name.
+    """
+
+    magic: tuple[bytes, ...]  # empty: any file (the fallback, listed last)
+    open: Callable[..., tuple[xr.DataArray, str | None, str]]
+
+    def recognises(self, first_bytes: bytes) -> bool:
+        return not self.magic or first_bytes.startswith(self.magic)
+
+
+_READERS: dict[str, _Reader] = {
+    "netcdf": _Reader(_NETCDF_MAGIC, _open_netcdf),
+    "gdal": _Reader((), _open_raster),
+}
+
+#: Formats :func:`detect_format` returns, in the order they are tried.
+GRID_FORMATS = tuple(_READERS)

@@ -1,19 +1,18 @@
 """Write grids: tiled, compressed GeoTIFF (optionally COG) and CF NetCDF, atomically.
 
-Both writers put the file under a temporary name in the destination folder and rename it when
-it is complete, so a reader never sees a half-written file and a failed write leaves nothing
-behind. Dask-backed grids are written chunk by chunk through one open file handle, so memory
-stays flat however large the grid (see ``benchmarks/bench_write.py``).
+Both writers write to a temporary path from :func:`lidmelt.files.atomic_path` that is renamed
+onto the destination only when the file is complete, so a reader never sees a half-written file
+and a failed write leaves nothing behind. The GeoTIFF layout (profile, band encoding, COG copy,
+tags) lives in :mod:`lidmelt.grids.geotiff`. Dask-backed grids are written chunk by chunk
+through one open file handle, so memory stays flat however large the grid (see
+``benchmarks/bench_write.py``).
 """
 
 from __future__ import annotations
 
-import contextlib
-import json
 import math
 import os
-import threading
-import uuid
+import warnings
 from collections.abc import Mapping
 from pathlib import Path
 from typing import Any
@@ -21,26 +20,30 @@ from typing import Any
 import numpy as np
 import rasterio
 import rasterio.errors
-import rasterio.shutil
 import xarray as xr
 from pyproj import CRS
-from rasterio.crs import CRS as RioCRS
-from rasterio.windows import Window
 
 from lidmelt import __version__
 from lidmelt.errors import GridError, InputError
-from lidmelt.grids.align import _check_dataarray, _transform_of
+from lidmelt.files import atomic_path
+from lidmelt.grids.align import check_dataarray, transform_of
+from lidmelt.grids.geotiff import (
+    TILE,
+    BandWindows,
+    check_dtype_nodata,
+    convert_block,
+    gtiff_profile,
+    has_cog_driver,
+    publish,
+    set_metadata,
+    staging_path,
+    stringify_tags,
+    tile_aligned,
+    to_json,
+    write_failed,
+)
 
 __all__ = ["TILE", "write_geotiff", "write_netcdf"]
-
-#: GeoTIFF tile size (cells); dask chunks are rechunked to multiples of it before writing.
-TILE = 512
-
-# GDAL block cache while converting to COG, MB: the default (5 % of RAM) lets the copy hold up
-# to that much; 256 MB keeps memory flat (measured in benchmarks/bench_write.py).
-_COG_CACHE_MB = 256
-
-_DTYPES = ("float32", "float64", "uint8", "uint16", "int16", "int32")
 
 
 def write_geotiff(
@@ -94,51 +97,30 @@ def write_geotiff(
 
     Notes
     -----
-    Creation options: 512 x 512 tiles, ZSTD level 1 with predictor 3 (floating point) or 2
-    (integers), ``NUM_THREADS=ALL_CPUS``, ``BIGTIFF=IF_SAFER``. A dask-backed grid is rechunked
+    Creation options are :func:`lidmelt.grids.geotiff.gtiff_profile`'s; the COG is a copy of the
+    finished GTiff (:func:`lidmelt.grids.geotiff.copy_to_cog`). A dask-backed grid is rechunked
     to multiples of the tile and stored with :func:`dask.array.store` into one open rasterio
     handle (writes serialised by a lock, chunks computed by the threaded scheduler); with a
     dask.distributed client active the chunks are computed on the cluster a few at a time and
-    written locally. The COG is made by copying the finished GTiff
-    (:func:`rasterio.shutil.copy`, ``driver="COG"``, overviews resampled by average, or
-    nearest for integers), which is faster and leaner than writing COG directly; the copy runs
-    with ``GDAL_CACHEMAX`` = 256 MB, since GDAL's default cache (5 % of RAM) let it grow to
-    that size. On the 5400 x 10800 benchmark grid: GTiff 1.7-2.4 s and COG 5-9 s, peak RSS
-    about 100 MB above the baseline for both (``benchmarks/bench_write.py``).
+    written locally. On the 5400 x 10800 benchmark grid: GTiff 1.7-2.4 s and COG 5-9 s, peak
+    RSS about 100 MB above the baseline for both (``benchmarks/bench_write.py``).
     """
-    _check_dataarray(da, what=f"grid {da.name!r}" if isinstance(da, xr.DataArray) else "grid")
+    check_dataarray(da, what=f"grid {da.name!r}" if isinstance(da, xr.DataArray) else "grid")
     if "band" in da.dims:
         da = da.squeeze("band", drop=True)
     da = da.transpose("y", "x")
-    np_dtype = _check_dtype_nodata(dtype, nodata)
-    text_tags = _stringify_tags(tags or {})
+    np_dtype = check_dtype_nodata(dtype, nodata)
+    meta = {"description": description, "units": units, "tags": stringify_tags(tags or {})}
     path = Path(path)
-    path.parent.mkdir(parents=True, exist_ok=True)
-    integer = np_dtype.kind in "iu"
     profile = gtiff_profile(da, np_dtype, nodata)
-    tmp = _temporary(path)
-    tmp_cog = _temporary(path)
     try:
-        with rasterio.open(tmp, "w", **profile) as dst:
-            _write_band(dst, da, np_dtype, nodata)
-            _set_metadata(dst, description, units, text_tags)
-        final = tmp
-        if cog and _has_cog_driver():
-            copy_to_cog(tmp, tmp_cog, integer=integer)
-            _ensure_metadata(tmp_cog, description, units, text_tags)
-            tmp.unlink()
-            final = tmp_cog
-        final.replace(path)
+        with atomic_path(path) as tmp, staging_path(tmp, cog=cog and has_cog_driver()) as staged:
+            with rasterio.open(staged, "w", **profile) as dst:
+                _write_band(dst, da, np_dtype, nodata)
+                set_metadata(dst, **meta)
+            publish(staged, tmp, integer=np_dtype.kind in "iu", **meta)
     except (rasterio.errors.RasterioError, OSError) as exc:
-        _remove(tmp, tmp_cog)
-        msg = (
-            f"cannot write GeoTIFF {str(path)!r} ({exc}). Check that the folder is writable "
-            "and the disk has space."
-        )
-        raise InputError(msg) from exc
-    except BaseException:
-        _remove(tmp, tmp_cog)
-        raise
+        raise write_failed(exc, what="GeoTIFF", where=path) from exc
     return path
 
 
@@ -164,7 +146,7 @@ def write_netcdf(
     Returns
     -------
     pathlib.Path
-        ``path``.
+        ``path``, now holding the complete file.
 
     Raises
     ------
@@ -188,239 +170,53 @@ def write_netcdf(
     in ``attrs``/``encoding`` (``_FillValue``) or their rio nodata. Dask-backed data are written
     chunk by chunk.
     """
-    if isinstance(ds, xr.DataArray):
-        ds = ds.to_dataset(name=ds.name or "data")
-    if not isinstance(ds, xr.Dataset) or not ds.data_vars:
-        msg = f"write_netcdf needs a Dataset with data variables, got {type(ds).__name__}."
-        raise GridError(msg)
+    ds = _as_dataset(ds)
     first_name = next(iter(ds.data_vars))
     first = ds[first_name]
-    _check_dataarray(first, what=f"variable {first_name!r}")
+    check_dataarray(first, what=f"variable {first_name!r}")
     crs = CRS.from_wkt(first.rio.crs.to_wkt())
-    transform = _transform_of(first)
-    ys, xs = first["y"].values, first["x"].values
-
+    ydim, xdim, coords = _cf_coords(crs, first["y"].values, first["x"].values)
     variables = {}
-    encoding = {}
+    encoding: dict[str, dict[str, Any]] = {ydim: {"_FillValue": None}, xdim: {"_FillValue": None}}
     for var_name, var in ds.data_vars.items():
-        if set(var.dims) != {"y", "x"}:
-            msg = (
-                f"variable {var_name!r} has dims {tuple(var.dims)}; expected ('y', 'x') like "
-                f"{first_name!r}. Write other variables to their own file."
-            )
-            raise GridError(msg)
-        var = var.transpose("y", "x")
-        if var.shape != first.shape or not (
-            np.array_equal(var["y"].values, ys) and np.array_equal(var["x"].values, xs)
-        ):
-            msg = (
-                f"variable {var_name!r} is not on the grid of {first_name!r} (shapes "
-                f"{var.shape} and {first.shape}). Align them first with "
-                "lidmelt.grids.align.align."
-            )
-            raise GridError(msg)
-        units = var.attrs.get("units")
-        if units is None or str(units).strip() == "":
-            msg = (
-                f"variable {var_name!r} has no 'units' attribute; CF needs one. Set it, e.g. "
-                f"ds[{var_name!r}].attrs['units'] = 'km' ('1' for dimensionless)."
-            )
-            raise InputError(msg)
-        fill = _integer_fill(var)
-        var_attrs = _stringify_attrs(
-            {
-                k: v
-                for k, v in var.attrs.items()
-                if k not in ("_FillValue", "missing_value", "grid_mapping", "coordinates")
-            },
-            where=f"variable {var_name!r}",
-        )
-        var_attrs.setdefault("long_name", str(var_name))
-        var_attrs["units"] = str(units)
-        var_attrs["grid_mapping"] = "crs"
-        data = var.data
-        variables[var_name] = (("y", "x"), data, var_attrs)
-        enc: dict[str, Any] = {
-            "zlib": True,
-            "complevel": 1,
-            "shuffle": True,
-            "chunksizes": (min(TILE, var.sizes["y"]), min(2 * TILE, var.sizes["x"])),
-        }
-        if var.dtype.kind == "f":
-            enc["_FillValue"] = np.nan
-        elif fill is not None:
-            enc["_FillValue"] = fill
-        else:
-            enc["_FillValue"] = None
-        encoding[var_name] = enc
-
-    if crs.is_geographic:
-        ydim, xdim = "lat", "lon"
-        coords = {
-            "lat": (
-                "lat",
-                ys,
-                {
-                    "standard_name": "latitude",
-                    "long_name": "latitude",
-                    "units": "degrees_north",
-                    "axis": "Y",
-                },
-            ),
-            "lon": (
-                "lon",
-                xs,
-                {
-                    "standard_name": "longitude",
-                    "long_name": "longitude",
-                    "units": "degrees_east",
-                    "axis": "X",
-                },
-            ),
-        }
-    else:
-        ydim, xdim = "y", "x"
-        unit = _axis_unit(crs)
-        coords = {
-            "y": (
-                "y",
-                ys,
-                {
-                    "standard_name": "projection_y_coordinate",
-                    "long_name": "y coordinate of projection",
-                    "units": unit,
-                    "axis": "Y",
-                },
-            ),
-            "x": (
-                "x",
-                xs,
-                {
-                    "standard_name": "projection_x_coordinate",
-                    "long_name": "x coordinate of projection",
-                    "units": unit,
-                    "axis": "X",
-                },
-            ),
-        }
-    for coord in (ydim, xdim):
-        encoding[coord] = {"_FillValue": None}
-    crs_attrs = _crs_attrs(crs, transform)
-    out = xr.Dataset(
-        {name: ((ydim, xdim), data, a) for name, (_, data, a) in variables.items()},
-        coords=coords,
-    )
-    out["crs"] = xr.DataArray(np.int32(0), attrs=crs_attrs)
+        var = _on_grid(var, name=var_name, first=first, first_name=first_name)
+        variables[var_name] = ((ydim, xdim), var.data, _variable_attrs(var, name=var_name))
+        encoding[var_name] = _variable_encoding(var)
+    out = xr.Dataset(variables, coords=coords)
+    out["crs"] = xr.DataArray(np.int32(0), attrs=_crs_attrs(crs, transform_of(first)))
     encoding["crs"] = {"dtype": "int32"}
-    global_attrs: dict[str, Any] = {"Conventions": "CF-1.8", "source": f"lidmelt {__version__}"}
-    global_attrs.update(_stringify_attrs(dict(attrs or {}), where="global attributes"))
-    global_attrs["Conventions"] = "CF-1.8"
-    out.attrs = global_attrs
-
+    out.attrs = _global_attrs(attrs)
     path = Path(path)
-    path.parent.mkdir(parents=True, exist_ok=True)
-    tmp = _temporary(path, suffix=".nc")
     try:
-        out.to_netcdf(tmp, engine="netcdf4", format="NETCDF4", encoding=encoding)
-        tmp.replace(path)
+        with atomic_path(path) as tmp:
+            out.to_netcdf(tmp, engine="netcdf4", format="NETCDF4", encoding=encoding)
     except (OSError, RuntimeError) as exc:
-        _remove(tmp)
-        msg = (
-            f"cannot write NetCDF {str(path)!r} ({exc}). Check that the folder is writable "
-            "and the disk has space."
-        )
-        raise InputError(msg) from exc
-    except BaseException:
-        _remove(tmp)
-        raise
+        raise write_failed(exc, what="NetCDF", where=path) from exc
     return path
 
 
 # --------------------------------------------------------------------------------------------
-# GeoTIFF helpers
+# GeoTIFF band writing
 # --------------------------------------------------------------------------------------------
-
-
-def _check_dtype_nodata(dtype: str, nodata: float) -> np.dtype:
-    if str(dtype) not in _DTYPES:
-        msg = f"dtype={dtype!r} is not supported for GeoTIFF output; expected one of {_DTYPES}."
-        raise GridError(msg)
-    np_dtype = np.dtype(dtype)
-    if np_dtype.kind == "f":
-        if not (
-            isinstance(nodata, int | float | np.number)
-            and not isinstance(nodata, bool)
-            and (math.isnan(nodata) or math.isfinite(nodata))
-        ):
-            msg = f"nodata={nodata!r} must be NaN or a finite number for dtype {dtype!r}."
-            raise GridError(msg)
-        return np_dtype
-    info = np.iinfo(np_dtype)
-    if (
-        isinstance(nodata, bool)
-        or not isinstance(nodata, int | float | np.number)
-        or not math.isfinite(nodata)
-        or nodata != int(nodata)
-        or not info.min <= nodata <= info.max
-    ):
-        msg = (
-            f"nodata={nodata!r} does not fit dtype {dtype!r}; integer grids need a whole "
-            f"number in {info.min}..{info.max} (e.g. 255 for a uint8 flag grid)."
-        )
-        raise GridError(msg)
-    return np_dtype
-
-
-def _convert_block(block: np.ndarray, np_dtype: np.dtype, nodata: float) -> np.ndarray:
-    """One block in the output dtype, NaN replaced by nodata; GridError if values do not fit."""
-    block = np.asarray(block)
-    if np_dtype.kind == "f":
-        out = block.astype(np_dtype, copy=False)
-        if not math.isnan(nodata):
-            out = np.where(np.isnan(out), np_dtype.type(nodata), out)
-        return out
-    if block.dtype.kind == "f":
-        missing = np.isnan(block)
-        values = block[~missing]
-    else:
-        missing = None
-        values = block.ravel()
-    if values.size:
-        info = np.iinfo(np_dtype)
-        if (
-            values.min() < info.min
-            or values.max() > info.max
-            or (block.dtype.kind == "f" and np.any(values != np.round(values)))
-        ):
-            msg = (
-                f"grid values from {values.min()!r} to {values.max()!r} (or non-integer "
-                f"values) do not fit {np_dtype.name}; convert the grid or choose another "
-                "dtype (float32 keeps fractions)."
-            )
-            raise GridError(msg)
-    out = np.where(missing, nodata, block) if missing is not None else block
-    return out.astype(np_dtype)
 
 
 def _write_band(dst: Any, da: xr.DataArray, np_dtype: np.dtype, nodata: float) -> None:
     data = da.data
     if not _is_dask(data):
-        dst.write(_convert_block(np.asarray(data), np_dtype, nodata), 1)
+        dst.write(convert_block(np.asarray(data), np_dtype, nodata), 1)
         return
-    data = _tile_aligned(data).map_blocks(_convert_block, np_dtype, nodata, dtype=np_dtype)
+    data = tile_aligned(data).map_blocks(convert_block, np_dtype, nodata, dtype=np_dtype)
+    windows = BandWindows(dst)
+    try:
+        if _distributed_client() is not None:
+            _store_in_batches(data, windows)
+        else:
+            import dask.array as dsa
 
-    class _Target:
-        def __setitem__(self, key: tuple[slice, slice], value: np.ndarray) -> None:
-            ys, xs = key
-            window = Window(xs.start, ys.start, xs.stop - xs.start, ys.stop - ys.start)
-            dst.write(value, 1, window=window)
-
-    if _distributed_client() is not None:
-        _store_in_batches(data, _Target())
-    else:
-        import dask.array as dsa
-
-        dsa.store(data, _Target(), lock=threading.Lock(), scheduler="threads")
+            dsa.store(data, windows, lock=False, scheduler="threads")
+    except BaseException:
+        windows.close()  # before the file is discarded: dask threads may still be writing
+        raise
 
 
 def _store_in_batches(data: Any, target: Any) -> None:
@@ -450,139 +246,102 @@ def _distributed_client() -> Any:
         return None
 
 
-def _tile_aligned(data: Any) -> Any:
-    """Rechunk so that every chunk boundary falls on a tile boundary (multiples of TILE)."""
-    chunks = []
-    aligned = True
-    for sizes in data.chunks:
-        if any(size % TILE for size in sizes[:-1]):
-            aligned = False
-        chunks.append(max(TILE, round(sizes[0] / TILE) * TILE))
-    return data if aligned else data.rechunk(tuple(chunks))
-
-
 def _is_dask(data: Any) -> bool:
     return type(data).__module__.startswith("dask")
-
-
-def _set_metadata(dst: Any, description: str, units: str, tags: dict[str, str]) -> None:
-    dst.set_band_description(1, str(description))
-    dst.units = (str(units),)
-    if tags:
-        dst.update_tags(**tags)
-
-
-def gtiff_profile(
-    da: xr.DataArray, np_dtype: np.dtype, nodata: float, *, threads: bool = True
-) -> dict[str, Any]:
-    """Creation options of every lidmelt GeoTIFF: 512 x 512 tiles, ZSTD level 1, predictor 3
-    for floats and 2 for integers, BIGTIFF=IF_SAFER (GEOSTACK notes: fastest at this size)."""
-    profile = {
-        "driver": "GTiff",
-        "height": da.sizes["y"],
-        "width": da.sizes["x"],
-        "count": 1,
-        "dtype": np_dtype.name,
-        "crs": RioCRS.from_wkt(da.rio.crs.to_wkt()),
-        "transform": _transform_of(da),
-        "nodata": nodata,
-        "tiled": True,
-        "blockxsize": TILE,
-        "blockysize": TILE,
-        "compress": "ZSTD",
-        "zstd_level": 1,
-        "predictor": 2 if np_dtype.kind in "iu" else 3,
-        "BIGTIFF": "IF_SAFER",
-    }
-    if threads:
-        profile["NUM_THREADS"] = "ALL_CPUS"
-    return profile
-
-
-def copy_to_cog(src: Path, dst: Path, *, integer: bool) -> None:
-    """Copy a finished tiled GTiff to Cloud-Optimized layout (ZSTD, 512 blocks, overviews)."""
-    with rasterio.Env(GDAL_CACHEMAX=_COG_CACHE_MB):
-        rasterio.shutil.copy(
-            src,
-            dst,
-            driver="COG",
-            COMPRESS="ZSTD",
-            LEVEL=1,
-            PREDICTOR="STANDARD" if integer else "FLOATING_POINT",
-            BLOCKSIZE=TILE,
-            BIGTIFF="IF_SAFER",
-            NUM_THREADS="ALL_CPUS",
-            RESAMPLING="NEAREST" if integer else "AVERAGE",
-        )
-
-
-def _ensure_metadata(path: Path, description: str, units: str, tags: dict[str, str]) -> None:
-    """Check the COG kept description, unit and tags; re-set the ones that were lost."""
-    with rasterio.open(path) as src:
-        kept = (
-            src.descriptions[0] == str(description)
-            and src.units[0] == str(units)
-            and all((src.tags().get(k) or "").strip() == v.strip() for k, v in tags.items())
-        )
-    if not kept:  # GDAL 3.10 keeps them (tested); this only guards other GDAL versions
-        with rasterio.open(path, "r+", IGNORE_COG_LAYOUT_BREAK="YES") as dst:
-            _set_metadata(dst, description, units, tags)
-
-
-def _has_cog_driver() -> bool:
-    with rasterio.Env() as env:
-        return "COG" in env.drivers()
-
-
-def _json_default(value: Any) -> Any:
-    if isinstance(value, np.generic):
-        return value.item()
-    if isinstance(value, np.ndarray):
-        return value.tolist()
-    if isinstance(value, Path):
-        return str(value)
-    msg = f"{type(value).__name__} is not JSON serialisable"
-    raise TypeError(msg)
-
-
-def _to_json(value: Any, *, key: str, where: str) -> str:
-    try:
-        return json.dumps(value, default=_json_default, allow_nan=True)
-    except (TypeError, ValueError) as exc:
-        msg = (
-            f"{where}: value of {key!r} ({type(value).__name__}) cannot be written as JSON "
-            f"({exc}). Give str, numbers, lists or dicts of them."
-        )
-        raise InputError(msg) from exc
-
-
-def _stringify_tags(tags: Mapping[str, Any]) -> dict[str, str]:
-    out = {}
-    for key, value in tags.items():
-        if not isinstance(key, str) or not key or "=" in key or key != key.strip():
-            msg = (
-                f"tag name {key!r} is not valid; expected a non-empty string without '=' or "
-                "surrounding spaces."
-            )
-            raise InputError(msg)
-        out[key] = value if isinstance(value, str) else _to_json(value, key=key, where="tags")
-    return out
-
-
-def _temporary(path: Path, suffix: str | None = None) -> Path:
-    suffix = suffix if suffix is not None else path.suffix or ".tif"
-    return path.with_name(f".{path.name}.{uuid.uuid4().hex[:8]}.tmp{suffix}")
-
-
-def _remove(*paths: Path) -> None:
-    for p in paths:
-        with contextlib.suppress(FileNotFoundError):
-            p.unlink()
 
 
 # --------------------------------------------------------------------------------------------
 # NetCDF helpers
 # --------------------------------------------------------------------------------------------
+
+# attributes xarray's NetCDF encoder owns (set through the encoding) or this writer sets itself
+_ENCODER_ATTRS = ("_FillValue", "missing_value", "grid_mapping", "coordinates")
+
+
+def _as_dataset(ds: Any) -> xr.Dataset:
+    if isinstance(ds, xr.DataArray):
+        ds = ds.to_dataset(name=ds.name or "data")
+    if not isinstance(ds, xr.Dataset) or not ds.data_vars:
+        msg = f"write_netcdf needs a Dataset with data variables, got {type(ds).__name__}."
+        raise GridError(msg)
+    return ds
+
+
+def _on_grid(var: xr.DataArray, *, name: Any, first: xr.DataArray, first_name: Any) -> xr.DataArray:
+    """``var`` as ``(y, x)``; GridError unless it lies on the grid of the first variable."""
+    if set(var.dims) != {"y", "x"}:
+        msg = (
+            f"variable {name!r} has dims {tuple(var.dims)}; expected ('y', 'x') like "
+            f"{first_name!r}. Write other variables to their own file."
+        )
+        raise GridError(msg)
+    var = var.transpose("y", "x")
+    if var.shape != first.shape or not (
+        np.array_equal(var["y"].values, first["y"].values)
+        and np.array_equal(var["x"].values, first["x"].values)
+    ):
+        msg = (
+            f"variable {name!r} is not on the grid of {first_name!r} (shapes "
+            f"{var.shape} and {first.shape}). Align them first with "
+            "lidmelt.grids.align.align."
+        )
+        raise GridError(msg)
+    return var
+
+
+def _variable_attrs(var: xr.DataArray, *, name: Any) -> dict[str, Any]:
+    """CF attributes of one data variable: its own (NetCDF-safe), long_name, units, grid_mapping."""
+    units = var.attrs.get("units")
+    if units is None or str(units).strip() == "":
+        msg = (
+            f"variable {name!r} has no 'units' attribute; CF needs one. Set it, e.g. "
+            f"ds[{name!r}].attrs['units'] = 'km' ('1' for dimensionless)."
+        )
+        raise InputError(msg)
+    own = {k: v for k, v in var.attrs.items() if k not in _ENCODER_ATTRS}
+    out = _stringify_attrs(own, where=f"variable {name!r}")
+    out.setdefault("long_name", str(name))
+    out["units"] = str(units)
+    out["grid_mapping"] = "crs"
+    return out
+
+
+def _variable_encoding(var: xr.DataArray) -> dict[str, Any]:
+    """zlib level 1 with shuffle, tile-sized chunks, NaN (floats) or the integer fill value."""
+    return {
+        "zlib": True,
+        "complevel": 1,
+        "shuffle": True,
+        "chunksizes": (min(TILE, var.sizes["y"]), min(2 * TILE, var.sizes["x"])),
+        "_FillValue": np.nan if var.dtype.kind == "f" else _integer_fill(var),
+    }
+
+
+def _cf_coords(crs: CRS, ys: np.ndarray, xs: np.ndarray) -> tuple[str, str, dict[str, Any]]:
+    """Names of the y and x dimensions and their CF coordinate variables (CF-1.8 section 4)."""
+    if crs.is_geographic:
+        axes = (
+            ("lat", ys, "latitude", "latitude", "degrees_north", "Y"),
+            ("lon", xs, "longitude", "longitude", "degrees_east", "X"),
+        )
+    else:
+        unit = _axis_unit(crs)
+        axes = (
+            ("y", ys, "projection_y_coordinate", "y coordinate of projection", unit, "Y"),
+            ("x", xs, "projection_x_coordinate", "x coordinate of projection", unit, "X"),
+        )
+    coords = {
+        dim: (dim, values, {"standard_name": std, "long_name": long, "units": u, "axis": axis})
+        for dim, values, std, long, u, axis in axes
+    }
+    return axes[0][0], axes[1][0], coords
+
+
+def _global_attrs(attrs: Mapping[str, Any] | None) -> dict[str, Any]:
+    out: dict[str, Any] = {"Conventions": "CF-1.8", "source": f"lidmelt {__version__}"}
+    out.update(_stringify_attrs(dict(attrs or {}), where="global attributes"))
+    out["Conventions"] = "CF-1.8"
+    return out
 
 
 def _stringify_attrs(attrs: Mapping[str, Any], *, where: str) -> dict[str, Any]:
@@ -592,7 +351,7 @@ def _stringify_attrs(attrs: Mapping[str, Any], *, where: str) -> dict[str, Any]:
         if isinstance(value, str):
             out[key] = value
         elif isinstance(value, bool | np.bool_) or value is None:
-            out[key] = _to_json(value if value is None else bool(value), key=key, where=where)
+            out[key] = to_json(value if value is None else bool(value), key=key, where=where)
         elif isinstance(value, int | float | np.number):
             out[key] = value
         elif (
@@ -604,7 +363,7 @@ def _stringify_attrs(attrs: Mapping[str, Any], *, where: str) -> dict[str, Any]:
         ):
             out[key] = np.asarray(value)
         else:
-            out[key] = _to_json(value, key=key, where=where)
+            out[key] = to_json(value, key=key, where=where)
     return out
 
 
@@ -629,8 +388,6 @@ def _axis_unit(crs: CRS) -> str:
 
 
 def _crs_attrs(crs: CRS, transform: Any) -> dict[str, Any]:
-    import warnings
-
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", UserWarning)  # projections CF has no name for
         attrs: dict[str, Any] = dict(crs.to_cf())
