@@ -20,7 +20,8 @@ import xarray as xr
 from pyproj import CRS
 
 from lidmelt.errors import GridError
-from lidmelt.grids.align import TargetGrid, align
+from lidmelt.grids.align import align
+from lidmelt.grids.grid import Grid
 
 DEG = math.pi / 180.0
 # WGS 84 / EPSG:3857 sphere radius a = 6378137 m (EPSG Guidance Note 7-2, Popular
@@ -57,11 +58,11 @@ def mercator_inverse(x, y):
     return lon, lat
 
 
-# ------------------------------------------------------------------------------ TargetGrid
+# ------------------------------------------------------------------------------ Grid
 
 
 def test_target_from_extent():
-    t = TargetGrid.from_extent(-30.0, 30.0, -10.0, 20.0, 0.5)
+    t = Grid.from_extent(-30.0, 30.0, -10.0, 20.0, 0.5)
     assert t.shape == (60, 120)
     assert t.bounds == (-30.0, -10.0, 30.0, 20.0)
     assert t.transform == (0.5, 0.0, -30.0, 0.0, -0.5, 20.0)
@@ -78,36 +79,36 @@ def test_target_from_extent():
 
 
 def test_target_dict_round_trip_and_from_grid():
-    t = TargetGrid.from_extent(-2e6, 2e6, -1e6, 1e6, 1e5, crs="EPSG:3857")
+    t = Grid.from_extent(-2e6, 2e6, -1e6, 1e6, 1e5, crs="EPSG:3857")
     doc = t.to_dict()
     assert set(doc) == {"crs_wkt", "transform", "width", "height", "bounds"}
-    assert TargetGrid.from_dict(doc) == t
-    assert TargetGrid.from_grid(t.template()) == t
+    assert Grid.from_dict(doc) == t
+    assert Grid.from_grid(t.template()) == t
     assert not t.is_geographic
     # the WKT of EPSG:4326 is normalised to the code, so equal grids compare equal
-    g = TargetGrid(CRS("EPSG:4326").to_wkt(), (1, 0, 0, 0, -1, 10), 10, 10)
+    g = Grid(CRS("EPSG:4326").to_wkt(), (1, 0, 0, 0, -1, 10), 10, 10)
     assert g.crs == "EPSG:4326"
 
 
 def test_target_validation():
     with pytest.raises(GridError, match=r"not a whole number of cells"):
-        TargetGrid.from_extent(0, 10, 0, 10, 3.0)
+        Grid.from_extent(0, 10, 0, 10, 3.0)
     with pytest.raises(GridError, match=r"empty or reversed"):
-        TargetGrid.from_extent(10, 0, 0, 10, 1.0)
+        Grid.from_extent(10, 0, 0, 10, 1.0)
     with pytest.raises(GridError, match=r"not north-up"):
-        TargetGrid("EPSG:4326", (1, 0, 0, 0, 1, 0), 10, 10)
+        Grid("EPSG:4326", (1, 0, 0, 0, 1, 0), 10, 10)
     with pytest.raises(GridError, match=r"at most 360"):
-        TargetGrid.from_extent(-180, 190, 0, 10, 1.0)
+        Grid.from_extent(-180, 190, 0, 10, 1.0)
     with pytest.raises(GridError, match=r"within -90..90"):
-        TargetGrid.from_extent(0, 10, 80, 100, 1.0)
+        Grid.from_extent(0, 10, 80, 100, 1.0)
     with pytest.raises(GridError, match=r"not a CRS"):
-        TargetGrid("EPSG:999999", (1, 0, 0, 0, -1, 0), 10, 10)
+        Grid("EPSG:999999", (1, 0, 0, 0, -1, 0), 10, 10)
     with pytest.raises(GridError, match=r"width=0"):
-        TargetGrid("EPSG:4326", (1, 0, 0, 0, -1, 0), 0, 10)
+        Grid("EPSG:4326", (1, 0, 0, 0, -1, 0), 0, 10)
 
 
 def test_lonlat_centres_projected_vs_mercator_formula():
-    t = TargetGrid.from_extent(-3e6, 3e6, -2e6, 4e6, 5e5, crs="EPSG:3857")
+    t = Grid.from_extent(-3e6, 3e6, -2e6, 4e6, 5e5, crs="EPSG:3857")
     lon, lat = t.lonlat_centres()
     x, y = np.meshgrid(t.template()["x"].values, t.template()["y"].values)
     elon, elat = mercator_inverse(x, y)  # check value: the closed-form inverse
@@ -132,7 +133,7 @@ def check_against_field(out, target, tol, mask=None):
 
 def test_align_finer_target_same_crs():
     src = geographic_source(-40, 40, -40, 40, 1.0)
-    target = TargetGrid.from_extent(-20, 20, -20, 20, 0.25)
+    target = Grid.from_extent(-20, 20, -20, 20, 0.25)
     out = align(src, target, name="thermal_anomaly_k")
     # bound: (1^2 + 1^2) * 10 DEG^2 / 8 = 7.6e-4 K, plus float32 storage of |f| <= 14 (1e-6)
     check_against_field(out, target, 2 * F2_DEG / 8 + 2e-6)
@@ -150,7 +151,7 @@ def test_align_zero_to_360_source_onto_global_target():
     src = xr.DataArray(
         field(lon[None, :], lat[:, None]), dims=("y", "x"), coords={"y": lat, "x": lon}, name="a"
     ).rio.write_crs("EPSG:4326")
-    target = TargetGrid.from_extent(-180, 180, -80, 80, 0.5)
+    target = Grid.from_extent(-180, 180, -80, 80, 0.5)
     out = align(src, target)
     assert out.dtype == np.float64
     check_against_field(out, target, 2 * F2_DEG / 8)
@@ -158,7 +159,7 @@ def test_align_zero_to_360_source_onto_global_target():
 
 def test_align_target_across_antimeridian():
     src = geographic_source(-180, 180, -60, 60, 1.0, dtype="float64")
-    target = TargetGrid.from_extent(170, 190, -10, 10, 0.25)  # east > 180
+    target = Grid.from_extent(170, 190, -10, 10, 0.25)  # east > 180
     out = align(src, target)
     check_against_field(out, target, 2 * F2_DEG / 8)
 
@@ -166,7 +167,7 @@ def test_align_target_across_antimeridian():
 def test_align_regional_source_in_0_360_frame_onto_global_target():
     """A source spanning 150..210 E fills 150..180 and -180..-150 of a -180..180 target."""
     src = geographic_source(150, 210, -30, 30, 1.0, dtype="float64")
-    target = TargetGrid.from_extent(-180, 180, -30, 30, 0.5)
+    target = Grid.from_extent(-180, 180, -30, 30, 0.5)
     out = align(src, target)
     lon, lat = target.lonlat_centres()
     lon360 = np.mod(lon, 360.0)
@@ -194,14 +195,14 @@ def test_align_from_mercator_source():
     src = xr.DataArray(
         field(lon, lat), dims=("y", "x"), coords={"y": y, "x": x}, name="m"
     ).rio.write_crs("EPSG:3857")
-    target = TargetGrid.from_extent(-30, 30, -30, 30, 0.1)
+    target = Grid.from_extent(-30, 30, -30, 30, 0.1)
     out = align(src, target)
     check_against_field(out, target, (h / R_3857) ** 2 * (10 + 10 + 15.73) / 8)
 
 
 def test_align_onto_mercator_target():
     src = geographic_source(-60, 60, -60, 60, 0.5, dtype="float64")
-    target = TargetGrid.from_extent(-4e6, 4e6, -4e6, 4e6, 2e4, crs="EPSG:3857")
+    target = Grid.from_extent(-4e6, 4e6, -4e6, 4e6, 2e4, crs="EPSG:3857")
     out = align(src, target)
     # bound: 0.5 degree cells, (0.5^2 + 0.5^2) * 10 DEG^2 / 8
     check_against_field(out, target, 2 * 0.25 * F2_DEG / 8)
@@ -211,7 +212,7 @@ def test_align_onto_mercator_target():
 def test_align_nodata_respected():
     src = geographic_source(0, 20, 0, 20, 1.0)
     src.values[5:10, 5:10] = np.nan  # lat 14.5..10.5, lon 5.5..9.5 (centres)
-    target = TargetGrid.from_extent(0, 20, 0, 20, 0.5)
+    target = Grid.from_extent(0, 20, 0, 20, 0.5)
     out = align(src, target)
     lon, lat = target.lonlat_centres()
     hole = (lon > 5) & (lon < 10) & (lat > 10) & (lat < 15)  # inside the NaN source cells
@@ -230,14 +231,14 @@ def test_align_nearest_categories():
         dims=("y", "x"),
         coords={"y": 3.5 - np.arange(4), "x": 0.5 + np.arange(5)},
     ).rio.write_crs("EPSG:4326")
-    target = TargetGrid.from_extent(0, 5, 0, 4, 0.5)
+    target = Grid.from_extent(0, 5, 0, 4, 0.5)
     out = align(src, target, resampling="nearest")
     # check value: the parent cell of each half-size cell (index // 2)
     npt.assert_array_equal(out.values, np.repeat(np.repeat(cats, 2, axis=0), 2, axis=1))
 
 
 def test_align_same_grid_stays_lazy():
-    target = TargetGrid.from_extent(-180, 180, -90, 90, 1.0)
+    target = Grid.from_extent(-180, 180, -90, 90, 1.0)
 
     def boom(block):
         raise AssertionError("align computed an input that was already on the target grid")
@@ -261,7 +262,7 @@ def test_align_same_grid_stays_lazy():
 
 
 def test_align_errors():
-    target = TargetGrid.from_extent(0, 10, 0, 10, 1.0)
+    target = Grid.from_extent(0, 10, 0, 10, 1.0)
     no_crs = xr.DataArray(
         np.zeros((3, 3)),
         dims=("y", "x"),
@@ -283,7 +284,7 @@ def test_align_errors():
         ),
     ):
         align(src, target)
-    merc = TargetGrid.from_extent(-1e6, 1e6, -1e6, 1e6, 1e5, crs="EPSG:3857")
+    merc = Grid.from_extent(-1e6, 1e6, -1e6, 1e6, 1e5, crs="EPSG:3857")
     with pytest.raises(GridError, match=r"does not overlap.*EPSG:3857"):
         align(src, merc)
     with pytest.raises(GridError, match=r"resampling='spline'.*bilinear"):
@@ -297,7 +298,7 @@ def test_align_global_0_360_source_onto_polar_stereographic_target():
     src = xr.DataArray(
         field(lon[None, :], lat[:, None]), dims=("y", "x"), coords={"y": lat, "x": lon}, name="a"
     ).rio.write_crs("EPSG:4326")
-    target = TargetGrid.from_extent(-2e6, 2e6, -2e6, 2e6, 1e4, crs="EPSG:3031")
+    target = Grid.from_extent(-2e6, 2e6, -2e6, 2e6, 1e4, crs="EPSG:3031")
     out = align(src, target)
     _, tlat = target.lonlat_centres()
     # The bound holds where the 10 km target cells are smaller than the 1-degree source cells
@@ -318,7 +319,7 @@ def test_align_coarsening_linear_field(resampling):
     lat = np.arange(20 - step / 2, -20, -step)
     g = 0.3 * lon[None, :] - 0.2 * lat[:, None] + 5.0
     src = xr.DataArray(g, dims=("y", "x"), coords={"y": lat, "x": lon}).rio.write_crs("EPSG:4326")
-    target = TargetGrid.from_extent(-10, 10, -10, 10, 1.0)
+    target = Grid.from_extent(-10, 10, -10, 10, 1.0)
     out = align(src, target, resampling=resampling)
     tlon, tlat = target.lonlat_centres()
     npt.assert_allclose(out.values, 0.3 * tlon - 0.2 * tlat + 5.0, atol=1e-6)

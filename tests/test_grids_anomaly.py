@@ -19,8 +19,8 @@ import xarray as xr
 from pyproj import Geod
 
 from lidmelt.errors import GridError, InputError
-from lidmelt.grids.align import TargetGrid
 from lidmelt.grids.anomaly import Plume, plume_anomaly, plume_profile
+from lidmelt.grids.grid import Grid
 
 A_WGS84_KM = 6378.137
 GEOD = Geod(ellps="WGS84")
@@ -28,7 +28,7 @@ GEOD = Geod(ellps="WGS84")
 
 def equator_grid():
     """0.1 degree grid with cell centres on the equator and on whole tenths of a degree."""
-    return TargetGrid.from_extent(-10.05, 10.05, -1.05, 1.05, 0.1)
+    return Grid.from_extent(-10.05, 10.05, -1.05, 1.05, 0.1)
 
 
 def value_at(da, lon, lat):
@@ -73,7 +73,7 @@ def test_profiles_at_known_distances_on_equator():
 
 @pytest.mark.parametrize("shape", ["gaussian", "cosine", "top-hat"])
 def test_whole_field_against_geod_distances(shape):
-    t = TargetGrid.from_extent(-30, 30, -50, -10, 0.5)
+    t = Grid.from_extent(-30, 30, -50, -10, 0.5)
     plume = Plume(5.0, -28.0, 800.0, 200.0, shape=shape)
     da = plume_anomaly(t, [plume])
     d = geod_distance_km(t, 5.0, -28.0)  # pyproj.Geod, independent distances
@@ -87,7 +87,7 @@ def test_whole_field_against_geod_distances(shape):
 
 
 def test_plume_across_antimeridian_is_symmetric():
-    t = TargetGrid.from_extent(-180, 180, -60, 20, 1.0)
+    t = Grid.from_extent(-180, 180, -60, 20, 1.0)
     da = plume_anomaly(t, [Plume(180.0, -20.0, 800.0, 100.0)])
     # column j is (j + 0.5) degrees east of -180 = 180, column 359 - j as far west of it
     npt.assert_allclose(da.values, da.values[:, ::-1], rtol=1e-12, atol=1e-12)
@@ -100,7 +100,7 @@ def test_plume_across_antimeridian_is_symmetric():
         rtol=1e-12,
         atol=1e-12,
     )
-    t360 = TargetGrid.from_extent(170, 190, -30, -10, 0.5)  # east > 180
+    t360 = Grid.from_extent(170, 190, -30, -10, 0.5)  # east > 180
     d360 = plume_anomaly(t360, [Plume(180.0, -20.0, 800.0, 100.0)])
     npt.assert_allclose(d360.values, d360.values[:, ::-1], rtol=1e-12, atol=1e-12)
     expected = 100.0 * np.exp(-((geod_distance_km(t360, 180.0, -20.0) / 800.0) ** 2))
@@ -108,14 +108,14 @@ def test_plume_across_antimeridian_is_symmetric():
 
 
 def test_plume_near_pole():
-    t = TargetGrid.from_extent(-180, 180, 60, 90, 1.0)
+    t = Grid.from_extent(-180, 180, 60, 90, 1.0)
     da = plume_anomaly(t, [Plume(30.0, 89.0, 500.0, 100.0)])
     expected = 100.0 * np.exp(-((geod_distance_km(t, 30.0, 89.0) / 500.0) ** 2))
     npt.assert_allclose(da.values, expected, rtol=1e-9, atol=1e-9)
 
 
 def test_projected_target():
-    t = TargetGrid.from_extent(-2e6, 2e6, -3e6, 1e6, 5e4, crs="EPSG:3857")
+    t = Grid.from_extent(-2e6, 2e6, -3e6, 1e6, 5e4, crs="EPSG:3857")
     da = plume_anomaly(t, [Plume(3.0, -8.0, 600.0, 120.0, shape="cosine")])
     d = geod_distance_km(t, 3.0, -8.0)
     expected = np.where(d < 600.0, 120.0 * np.cos(np.pi * d / 1200.0) ** 2, 0.0)
@@ -126,7 +126,7 @@ def test_projected_target():
 
 
 def test_plumes_sum_and_background():
-    t = TargetGrid.from_extent(-20, 20, -20, 20, 0.5)
+    t = Grid.from_extent(-20, 20, -20, 20, 0.5)
     p1 = Plume(-3.0, 0.0, 700.0, 100.0)
     p2 = Plume(4.0, 2.0, 500.0, 80.0, shape="cosine")
     both = plume_anomaly(t, [p1, p2], background=-15.0)
@@ -148,7 +148,7 @@ def test_plumes_sum_and_background():
 
 
 def test_background_grid():
-    t = TargetGrid.from_extent(-10, 10, -10, 10, 1.0)
+    t = Grid.from_extent(-10, 10, -10, 10, 1.0)
     bg = t.template().fillna(20.0).astype("float64")
     bg[3, 4] = np.nan
     bg.attrs["units"] = "kelvin"
@@ -157,7 +157,7 @@ def test_background_grid():
     expected = 20.0 + np.where(d <= 300.0, 50.0, 0.0)
     expected[3, 4] = np.nan
     npt.assert_allclose(da.values, expected, rtol=1e-12)
-    other = TargetGrid.from_extent(-10, 10, -10, 10, 0.5).template()
+    other = Grid.from_extent(-10, 10, -10, 10, 0.5).template()
     with pytest.raises(GridError, match=r"not on the target grid.*align"):
         plume_anomaly(t, [], background=other)
     bg.attrs["units"] = "km"
@@ -168,7 +168,7 @@ def test_background_grid():
 
 
 def test_chunked_matches_numpy():
-    t = TargetGrid.from_extent(-30, 30, -30, 30, 0.25)
+    t = Grid.from_extent(-30, 30, -30, 30, 0.25)
     plumes = [Plume(10.0, 5.0, 900.0, 150.0), Plume(-20.0, -10.0, 400.0, 60.0, "top-hat")]
     lazy = plume_anomaly(t, plumes, chunks=(100, 64))
     assert hasattr(lazy.data, "dask")
@@ -200,10 +200,10 @@ def test_plume_validation(kwargs, match):
 
 
 def test_plume_anomaly_rejects_non_plumes():
-    t = TargetGrid.from_extent(0, 1, 0, 1, 0.5)
+    t = Grid.from_extent(0, 1, 0, 1, 0.5)
     with pytest.raises(InputError, match=r"must hold Plume objects"):
         plume_anomaly(t, [(0, 0, 100, 100)])
-    with pytest.raises(GridError, match=r"must be a TargetGrid"):
+    with pytest.raises(GridError, match=r"must be a Grid"):
         plume_anomaly("EPSG:4326", [])
 
 

@@ -20,8 +20,8 @@ from pyproj import CRS
 
 from lidmelt.errors import GridError, InputError
 from lidmelt.grids import write as write_module
-from lidmelt.grids.align import TargetGrid
 from lidmelt.grids.geotiff import tile_aligned
+from lidmelt.grids.grid import Grid
 from lidmelt.grids.io import open_grid
 from lidmelt.grids.store import GeoTiffItem, GeoTiffSet
 from lidmelt.grids.write import write_geotiff, write_netcdf
@@ -49,7 +49,7 @@ def leftovers(folder, keep):
 
 @pytest.mark.parametrize("cog", [True, False])
 def test_geotiff_round_trip(tmp_path, cog):
-    t = TargetGrid.from_extent(-20, 10, -15, 5, 0.05)  # 400 x 600, more than one tile
+    t = Grid.from_extent(-20, 10, -15, 5, 0.05)  # 400 x 600, more than one tile
     values = ramp(t)
     tags = {
         "model": "katz2003",
@@ -91,7 +91,7 @@ def test_geotiff_round_trip(tmp_path, cog):
 
 
 def test_geotiff_projected(tmp_path):
-    t = TargetGrid.from_extent(-1e6, 1e6, -5e5, 5e5, 1e4, crs="EPSG:3857")
+    t = Grid.from_extent(-1e6, 1e6, -5e5, 5e5, 1e4, crs="EPSG:3857")
     values = ramp(t, "float64")
     path = write_geotiff(
         grid(t, values),
@@ -109,7 +109,7 @@ def test_geotiff_projected(tmp_path):
 
 
 def test_geotiff_dask_written_chunk_by_chunk(tmp_path):
-    t = TargetGrid.from_extent(0, 130, -55, 55, 0.1)  # 1100 x 1300
+    t = Grid.from_extent(0, 130, -55, 55, 0.1)  # 1100 x 1300
     values = ramp(t)
     # chunks not aligned with the 512 tiles: the writer rechunks to multiples of 512
     lazy = grid(t, values).chunk({"y": 300, "x": 700})
@@ -135,7 +135,7 @@ def test_geotiff_batched_path_for_distributed(tmp_path, monkeypatch):
     """With a dask.distributed client active the blocks are computed in batches and written
     here; the path is forced with a stand-in client."""
     monkeypatch.setattr(write_module, "_distributed_client", lambda: object())
-    t = TargetGrid.from_extent(0, 60, 0, 60, 0.05)
+    t = Grid.from_extent(0, 60, 0, 60, 0.05)
     values = ramp(t)
     write_geotiff(
         grid(t, values).chunk(512),
@@ -150,7 +150,7 @@ def test_geotiff_batched_path_for_distributed(tmp_path, monkeypatch):
 
 
 def test_geotiff_uint8_flags(tmp_path):
-    t = TargetGrid.from_extent(0, 10, 0, 10, 0.5)
+    t = Grid.from_extent(0, 10, 0, 10, 0.5)
     flags = np.arange(400, dtype="float64").reshape(20, 20) % 8
     flags[2, 2] = np.nan
     path = write_geotiff(
@@ -175,7 +175,7 @@ def test_geotiff_uint8_flags(tmp_path):
 
 
 def test_geotiff_failures_leave_no_file(tmp_path):
-    t = TargetGrid.from_extent(0, 10, 0, 10, 0.5)
+    t = Grid.from_extent(0, 10, 0, 10, 0.5)
     old = tmp_path / "f.tif"
     old.write_bytes(b"previous content")
     bad = np.full(t.shape, 1.5)  # not whole numbers
@@ -200,7 +200,7 @@ def test_geotiff_failures_leave_no_file(tmp_path):
 def test_geotiff_failure_in_one_of_many_chunks(tmp_path):
     """A block that fails while other dask threads still write: the error comes back, no file
     is left and nothing crashes (the file is closed only once no block is being written)."""
-    t = TargetGrid.from_extent(0, 120, 0, 80, 0.1)  # 800 x 1200: 6 tiles of 512
+    t = Grid.from_extent(0, 120, 0, 80, 0.1)  # 800 x 1200: 6 tiles of 512
     values = np.zeros(t.shape)
     values[-1, -1] = 1.5  # not a whole number, in the last chunk
     for _ in range(3):
@@ -217,7 +217,7 @@ def test_geotiff_failure_in_one_of_many_chunks(tmp_path):
 
 
 def test_geotiff_argument_errors(tmp_path):
-    t = TargetGrid.from_extent(0, 10, 0, 10, 0.5)
+    t = Grid.from_extent(0, 10, 0, 10, 0.5)
     da = grid(t, np.zeros(t.shape))
     kw = {"description": "d", "units": "1"}
     with pytest.raises(GridError, match=r"nodata=nan does not fit dtype 'uint8'.*255"):
@@ -240,7 +240,7 @@ def test_geotiff_argument_errors(tmp_path):
 
 
 def test_netcdf_geographic_cf(tmp_path):
-    t = TargetGrid.from_extent(-20, 10, -15, 5, 0.5)
+    t = Grid.from_extent(-20, 10, -15, 5, 0.5)
     melt = grid(t, ramp(t)).assign_attrs(units="km", long_name="melt thickness")
     flags = grid(t, np.full(t.shape, 3, dtype="uint8")).assign_attrs(units="1", _FillValue=255)
     ds = xr.Dataset({"melt_thickness_km": melt, "validity_flag": flags})
@@ -272,7 +272,7 @@ def test_netcdf_geographic_cf(tmp_path):
 
 
 def test_netcdf_projected_and_lazy(tmp_path):
-    t = TargetGrid.from_extent(-1e6, 1e6, -5e5, 5e5, 2.5e4, crs="EPSG:3857")
+    t = Grid.from_extent(-1e6, 1e6, -5e5, 5e5, 2.5e4, crs="EPSG:3857")
     da = grid(t, ramp(t)).assign_attrs(units="K").chunk(16).rename("excess_to_melt_k")
     path = write_netcdf(da, tmp_path / "p.nc", attrs={})
     with netCDF4.Dataset(path) as nc:
@@ -290,11 +290,11 @@ def test_netcdf_projected_and_lazy(tmp_path):
 
 
 def test_netcdf_errors(tmp_path):
-    t = TargetGrid.from_extent(0, 10, 0, 10, 1.0)
+    t = Grid.from_extent(0, 10, 0, 10, 1.0)
     no_units = xr.Dataset({"a": grid(t, np.zeros(t.shape))})
     with pytest.raises(InputError, match=r"'a' has no 'units'.*attrs\['units'\]"):
         write_netcdf(no_units, tmp_path / "x.nc", attrs={})
-    other = TargetGrid.from_extent(0, 10, 0, 10, 0.5)
+    other = Grid.from_extent(0, 10, 0, 10, 0.5)
     mixed = xr.Dataset({"a": grid(t, np.zeros(t.shape)).assign_attrs(units="K")})
     mixed["b"] = (
         grid(other, np.zeros(other.shape)).assign_attrs(units="K").rename({"y": "y2", "x": "x2"})
@@ -306,7 +306,7 @@ def test_netcdf_errors(tmp_path):
 
 def test_small_lazy_grid_with_chunks_below_a_tile(tmp_path):
     """A lazy grid smaller than one tile, in 5 x 5 chunks, is rechunked and written whole."""
-    t = TargetGrid.from_extent(0, 10, 0, 10, 1.0)
+    t = Grid.from_extent(0, 10, 0, 10, 1.0)
     data = dsa.ones(t.shape, chunks=5, dtype="float32")
     da = t.template().copy(data=data)
     write_geotiff(da, tmp_path / "o.tif", description="ones", units="1", tags={}, cog=False)
@@ -319,7 +319,7 @@ def test_small_lazy_grid_with_chunks_below_a_tile(tmp_path):
 
 @pytest.mark.parametrize("cog", [True, False])
 def test_geotiff_set_writes_every_file_in_one_pass(tmp_path, cog):
-    t = TargetGrid.from_extent(0, 60, 0, 40, 0.05)  # 800 x 1200: two bands of 512 rows
+    t = Grid.from_extent(0, 60, 0, 40, 0.05)  # 800 x 1200: two bands of 512 rows
     values = ramp(t)
     lazy = grid(t, values).chunk(512)
     items = [
@@ -355,7 +355,7 @@ def test_geotiff_set_writes_every_file_in_one_pass(tmp_path, cog):
 
 
 def test_geotiff_set_error_writes_no_file(tmp_path):
-    t = TargetGrid.from_extent(0, 10, 0, 10, 0.5)
+    t = Grid.from_extent(0, 10, 0, 10, 0.5)
     old = tmp_path / "a.tif"
     old.write_bytes(b"previous content")
     good = GeoTiffItem(grid(t, np.zeros(t.shape)).chunk(5), old, "a", "1")

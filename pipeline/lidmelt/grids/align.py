@@ -1,7 +1,7 @@
-"""The target grid of a run, and alignment of input grids onto it.
+"""Alignment of input grids onto the target grid of a run.
 
-A :class:`TargetGrid` is the one grid every input is resampled onto and every output is written
-on: a CRS, a north-up affine transform and a size. :func:`align` puts any grid read by
+The target is a :class:`lidmelt.grids.grid.Grid`: the one grid every input is resampled onto
+and every output is written on. :func:`align` puts any grid read by
 :func:`lidmelt.grids.io.open_grid` onto it with GDAL's warper (through rasterio), after
 arranging geographic inputs so that 0..360 and -180..180 longitudes, and grids that cross the
 antimeridian, line up with the target (GDAL does not wrap longitudes by itself: global inputs
@@ -12,7 +12,6 @@ from __future__ import annotations
 
 import math
 import os
-from functools import lru_cache
 from typing import Any
 
 import numpy as np
@@ -26,11 +25,9 @@ from rasterio.enums import Resampling
 from rasterio.warp import reproject
 
 from lidmelt.errors import GridError
-from lidmelt.grids.grid import Grid
+from lidmelt.grids.grid import Grid, cached_crs, check_dataarray, normalise_crs, transform_of
 
-TargetGrid = Grid
-
-__all__ = ["RESAMPLING_METHODS", "TargetGrid", "align", "check_dataarray", "transform_of"]
+__all__ = ["RESAMPLING_METHODS", "align"]
 
 #: Resampling names accepted by :func:`align` (GDAL warper kernels).
 RESAMPLING_METHODS = {
@@ -39,41 +36,6 @@ RESAMPLING_METHODS = {
     "cubic": Resampling.cubic,
     "average": Resampling.average,
 }
-
-# Tolerance for "the same grid": transform coefficients may differ by this fraction of a cell.
-_SAME_GRID_TOL = 1e-6
-
-
-@lru_cache(maxsize=64)
-def _crs(text: str) -> CRS:
-    return CRS.from_user_input(text)
-
-
-@lru_cache(maxsize=64)
-def _to_lonlat(crs_text: str) -> Transformer:
-    crs = _crs(crs_text)
-    return Transformer.from_crs(crs, crs.geodetic_crs, always_xy=True)
-
-
-def _normalise_crs(value: Any) -> str:
-    """'EPSG:n' when the CRS is exactly an EPSG one, else its WKT; GridError if unreadable."""
-    text = value.to_wkt() if hasattr(value, "to_wkt") else value
-    if not isinstance(text, str) or not text.strip():
-        msg = (
-            f"crs={value!r} is not a CRS; expected an 'EPSG:<code>' string or WKT text, "
-            "e.g. crs='EPSG:4326' for longitude/latitude."
-        )
-        raise GridError(msg)
-    try:
-        crs = _crs(text)
-    except CRSError as exc:
-        msg = (
-            f"crs={text[:80]!r} is not a CRS that PROJ understands ({exc}); expected an "
-            "'EPSG:<code>' string or WKT, e.g. 'EPSG:4326'."
-        )
-        raise GridError(msg) from exc
-    epsg = crs.to_epsg(min_confidence=100)
-    return f"EPSG:{epsg}" if epsg is not None else crs.to_wkt()
 
 
 def _crs_label(crs: CRS) -> str:
@@ -88,7 +50,7 @@ def _crs_label(crs: CRS) -> str:
 
 def align(
     da: xr.DataArray,
-    target: TargetGrid,
+    target: Grid,
     *,
     resampling: str = "bilinear",
     name: str | None = None,
@@ -100,7 +62,7 @@ def align(
     da : xarray.DataArray
         A ``(y, x)`` grid with a CRS (as from :func:`~lidmelt.grids.io.open_grid`), NaN for
         nodata. Any CRS PROJ knows; geographic longitudes may be 0..360 or -180..180.
-    target : TargetGrid
+    target : Grid
         The grid to resample onto.
     resampling : {"bilinear", "nearest", "cubic", "average"}
         Bilinear for continuous fields (default), nearest for categories or flags, average
@@ -165,11 +127,11 @@ def align(
 
 
 def _check_align_args(da: Any, target: Any, resampling: str) -> None:
-    """GridError unless ``da`` is a north-up grid with a CRS, ``target`` a TargetGrid and
+    """GridError unless ``da`` is a north-up grid with a CRS, ``target`` a Grid and
     ``resampling`` one of :data:`RESAMPLING_METHODS`."""
     check_dataarray(da, what=f"grid {da.name!r}" if isinstance(da, xr.DataArray) else "grid")
-    if not isinstance(target, TargetGrid):
-        msg = f"target={target!r} must be a TargetGrid (see TargetGrid.from_extent)."
+    if not isinstance(target, Grid):
+        msg = f"target={target!r} must be a Grid (see Grid.from_extent)."
         raise GridError(msg)
     if resampling not in RESAMPLING_METHODS:
         msg = (
@@ -186,10 +148,10 @@ def _as_yx(da: xr.DataArray) -> xr.DataArray:
     return da if da.dims == ("y", "x") else da.transpose("y", "x")
 
 
-def _resample(da: xr.DataArray, target: TargetGrid, resampling: str) -> np.ndarray:
+def _resample(da: xr.DataArray, target: Grid, resampling: str) -> np.ndarray:
     """Values of ``da`` on ``target``: the covering source windows, loaded, then interpolated
     here (bilinear refinement) or warped by GDAL (everything else); see :func:`align`."""
-    src_crs = _crs(_normalise_crs(da.rio.crs))
+    src_crs = cached_crs(normalise_crs(da.rio.crs))
     src_transform = transform_of(da)
     pieces = _source_pieces(da, src_transform, src_crs, target)
     if not pieces:
@@ -209,62 +171,7 @@ def _resample(da: xr.DataArray, target: TargetGrid, resampling: str) -> np.ndarr
 # --------------------------------------------------------------------------------------------
 
 
-def check_dataarray(da: Any, *, what: str) -> None:
-    """GridError unless ``da`` is a DataArray with dims ``(y, x)`` (plus a size-1 ``band``),
-    a CRS and a north-up transform with x ascending; ``what`` names it in the message."""
-    if not isinstance(da, xr.DataArray):
-        msg = f"{what} must be an xarray.DataArray, got {type(da).__name__}."
-        raise GridError(msg)
-    dims = [d for d in da.dims if not (d == "band" and da.sizes[d] == 1)]
-    if sorted(dims) != ["x", "y"]:
-        msg = (
-            f"{what} has dims {tuple(da.dims)}; expected ('y', 'x'). Read files with "
-            "lidmelt.grids.io.open_grid, or rename: da.rename(lat='y', lon='x')."
-        )
-        raise GridError(msg)
-    if da.rio.crs is None:
-        msg = (
-            f"{what} has no CRS. Write one with da.rio.write_crs('EPSG:4326') (longitude/"
-            "latitude) or read the file with lidmelt.grids.io.open_grid."
-        )
-        raise GridError(msg)
-    transform = transform_of(da)
-    if transform.b != 0 or transform.d != 0 or not transform.a > 0 or not transform.e < 0:
-        msg = (
-            f"{what} is not north-up with x ascending (transform {tuple(transform)[:6]}). "
-            "Sort it: da.sortby('y', ascending=False).sortby('x'), or read it with open_grid."
-        )
-        raise GridError(msg)
-
-
-def transform_of(da: xr.DataArray) -> Affine:
-    """The grid's transform: from its coordinates, or the stored one if they agree.
-
-    The stored (``spatial_ref`` GeoTransform) coefficients are exact where the coordinates
-    carry float rounding; they are used only when they match the coordinates to 1e-6 of a
-    cell, so a stale stored transform (after slicing or sorting) is never used.
-    """
-    cached = da.rio.transform()
-    if not (da.sizes.get("x", 0) > 1 and da.sizes.get("y", 0) > 1):
-        return cached
-    computed = da.rio.transform(recalc=True)
-    return cached if _same_transform(cached, computed) else computed
-
-
-# the TargetGrid class body still calls the former private names
-_check_dataarray = check_dataarray
-_transform_of = transform_of
-
-
-def _same_transform(t1: Affine, t2: Affine) -> bool:
-    cell = max(abs(t2.a), abs(t2.e))
-    return all(
-        abs(p - q) <= _SAME_GRID_TOL * cell
-        for p, q in zip(tuple(t1)[:6], tuple(t2)[:6], strict=True)
-    )
-
-
-def _footprint(target: TargetGrid, src_crs: CRS) -> tuple[float, float, float, float] | None:
+def _footprint(target: Grid, src_crs: CRS) -> tuple[float, float, float, float] | None:
     """Target extent (west, south, east, north) in the source CRS, or None if unknown."""
     try:
         tr = Transformer.from_crs(target.pyproj_crs, src_crs, always_xy=True)
@@ -286,7 +193,7 @@ def _index_range(
     return max(0, i0), min(size, i1)
 
 
-def _target_longitudes(target: TargetGrid, src_crs: CRS) -> np.ndarray:
+def _target_longitudes(target: Grid, src_crs: CRS) -> np.ndarray:
     """Longitudes of the target cell centres as GDAL sees them in the (geographic) source CRS."""
     if target.is_geographic and src_crs.equals(target.pyproj_crs, ignore_axis_order=True):
         return np.broadcast_to(target.x_centres()[None, :], target.shape)
@@ -298,9 +205,7 @@ def _target_longitudes(target: TargetGrid, src_crs: CRS) -> np.ndarray:
 _Piece = tuple[xr.DataArray, Affine, tuple[float, float] | None]
 
 
-def _source_pieces(
-    da: xr.DataArray, transform: Affine, src_crs: CRS, target: TargetGrid
-) -> list[_Piece]:
+def _source_pieces(da: xr.DataArray, transform: Affine, src_crs: CRS, target: Grid) -> list[_Piece]:
     """Windows of the source (lazy) that cover the target.
 
     Each comes with its transform and, for a shifted regional geographic input, the longitude
@@ -333,7 +238,7 @@ def _source_pieces(
     return [(*_window(da, transform, rows, cols, west + j0 * dx), None)]
 
 
-def _geographic_box(target: TargetGrid, src_crs: CRS) -> tuple[float, float, float, float]:
+def _geographic_box(target: Grid, src_crs: CRS) -> tuple[float, float, float, float]:
     """Target extent (west, south, east, north) in the geographic source CRS.
 
     The whole globe where the footprint is unknown; all longitudes where it crosses the
@@ -350,7 +255,7 @@ def _geographic_box(target: TargetGrid, src_crs: CRS) -> tuple[float, float, flo
     return box
 
 
-def _margin(box: tuple[float, float, float, float], target: TargetGrid, transform: Affine) -> int:
+def _margin(box: tuple[float, float, float, float], target: Grid, transform: Affine) -> int:
     """Extra source cells around the footprint: 2 plus twice the target/source cell ratio."""
     t_west, t_south, t_east, t_north = box
     ratio = max(
@@ -406,9 +311,7 @@ def _shifted_pieces(
     return pieces
 
 
-def _coords_in_source(
-    target: TargetGrid, src_crs: CRS, rows: slice
-) -> tuple[np.ndarray, np.ndarray]:
+def _coords_in_source(target: Grid, src_crs: CRS, rows: slice) -> tuple[np.ndarray, np.ndarray]:
     """Target cell centres of some rows, in source CRS coordinates (exact pyproj transform)."""
     xs = target.x_centres()
     ys = target.y_centres()[rows]
@@ -423,7 +326,7 @@ def _coords_in_source(
     return np.asarray(x), np.asarray(y)
 
 
-def _median_footprint(target: TargetGrid, src_crs: CRS, src_transform: Affine) -> float:
+def _median_footprint(target: Grid, src_crs: CRS, src_transform: Affine) -> float:
     """Median size of a target cell in input cells (> 1: the target is coarser)."""
     rows = np.unique(np.linspace(0, target.height - 1, 21).round().astype(int))
     cols = np.unique(np.linspace(0, target.width - 1, 21).round().astype(int))
@@ -445,9 +348,7 @@ def _median_footprint(target: TargetGrid, src_crs: CRS, src_transform: Affine) -
     return float(np.median(size)) if size.size else math.inf
 
 
-def _interpolate_bilinear(
-    pieces: list, target: TargetGrid, src_crs: CRS, dtype: type
-) -> np.ndarray:
+def _interpolate_bilinear(pieces: list, target: Grid, src_crs: CRS, dtype: type) -> np.ndarray:
     """Bilinear interpolation at the exact target cell centres, piece by piece."""
     result = np.full(target.shape, np.nan, dtype=dtype)
     step = max(1, (1 << 20) // target.width)
@@ -503,7 +404,7 @@ def _bilinear(values: np.ndarray, tr: Affine, x: np.ndarray, y: np.ndarray) -> n
 
 
 def _warp_gdal(
-    pieces: list, target: TargetGrid, src_crs: CRS, dtype: type, method: Resampling
+    pieces: list, target: Grid, src_crs: CRS, dtype: type, method: Resampling
 ) -> np.ndarray:
     """GDAL warper, piece by piece (nearest, cubic, average, and coarsening bilinear)."""
     result = np.full(target.shape, np.nan, dtype=dtype)
@@ -542,9 +443,7 @@ def _warp_gdal(
     return result
 
 
-def _no_overlap_message(
-    da: xr.DataArray, transform: Affine, src_crs: CRS, target: TargetGrid
-) -> str:
+def _no_overlap_message(da: xr.DataArray, transform: Affine, src_crs: CRS, target: Grid) -> str:
     height, width = da.sizes["y"], da.sizes["x"]
     src_bounds = (
         transform.c,

@@ -2,7 +2,7 @@
 
 A :class:`Plume` is a radially symmetric excess temperature centred on a point; its profile is
 a function of the geodesic distance ``d`` on the WGS 84 ellipsoid from the plume centre.
-:func:`plume_anomaly` evaluates any number of plumes on a :class:`~lidmelt.grids.align.TargetGrid`
+:func:`plume_anomaly` evaluates any number of plumes on a :class:`~lidmelt.grids.grid.Grid`
 and adds them to a constant or a background grid.
 """
 
@@ -18,7 +18,7 @@ import xarray as xr
 from pyproj import Geod
 
 from lidmelt.errors import GridError, InputError
-from lidmelt.grids.align import TargetGrid
+from lidmelt.grids.grid import Grid
 from lidmelt.grids.io import normalise_units
 
 __all__ = ["PLUME_SHAPES", "Plume", "plume_anomaly", "plume_profile"]
@@ -152,7 +152,7 @@ def plume_profile(distance_km: Any, plume: Plume) -> np.ndarray:
 
 
 def plume_anomaly(
-    target: TargetGrid,
+    target: Grid,
     plumes: list[Plume] | tuple[Plume, ...],
     *,
     background: float | xr.DataArray | None = None,
@@ -162,7 +162,7 @@ def plume_anomaly(
 
     Parameters
     ----------
-    target : TargetGrid
+    target : Grid
         The grid (any CRS; cell centres are converted to longitude/latitude with pyproj).
     plumes : sequence of Plume
         The plumes (may be empty). Where plumes overlap their excesses add (sum, not maximum),
@@ -209,9 +209,9 @@ def plume_anomaly(
 
 
 def _checked_plumes(target: Any, plumes: Any) -> tuple[Plume, ...]:
-    """``plumes`` as a tuple; GridError/InputError unless on a TargetGrid and all Plumes."""
-    if not isinstance(target, TargetGrid):
-        msg = f"target={target!r} must be a TargetGrid (see TargetGrid.from_extent)."
+    """``plumes`` as a tuple; GridError/InputError unless on a Grid and all Plumes."""
+    if not isinstance(target, Grid):
+        msg = f"target={target!r} must be a Grid (see Grid.from_extent)."
         raise GridError(msg)
     plumes = tuple(plumes)
     for item in plumes:
@@ -225,7 +225,7 @@ def _checked_plumes(target: Any, plumes: Any) -> tuple[Plume, ...]:
 
 
 def _plume_sum(
-    target: TargetGrid, plumes: tuple[Plume, ...], chunks: int | tuple[int, int] | None
+    target: Grid, plumes: tuple[Plume, ...], chunks: int | tuple[int, int] | None
 ) -> xr.DataArray:
     """The summed plume profiles on ``target``: numpy, or dask evaluated block by block."""
     template = target.template(chunks=chunks)
@@ -243,7 +243,7 @@ def _plume_sum(
 
 
 def _with_background(
-    out: xr.DataArray, background: float | xr.DataArray | None, target: TargetGrid
+    out: xr.DataArray, background: float | xr.DataArray | None, target: Grid
 ) -> xr.DataArray:
     """``out`` plus a background grid on ``target`` (K) or a finite constant (K)."""
     if isinstance(background, xr.DataArray):
@@ -263,7 +263,7 @@ def _with_background(
     return out + float(background)
 
 
-def _background_grid(background: xr.DataArray, target: TargetGrid) -> Any:
+def _background_grid(background: xr.DataArray, target: Grid) -> Any:
     """The background's ``(y, x)`` data; GridError unless on ``target`` and in kelvin."""
     if not target.matches(background):
         msg = (
@@ -284,15 +284,13 @@ def _background_grid(background: xr.DataArray, target: TargetGrid) -> Any:
 
 
 def _plume_dask_block(
-    block: np.ndarray, target: TargetGrid, plumes: tuple[Plume, ...], block_info: dict | None = None
+    block: np.ndarray, target: Grid, plumes: tuple[Plume, ...], block_info: dict | None = None
 ) -> np.ndarray:
     (r0, r1), (c0, c1) = block_info[0]["array-location"]
     return _plume_block(target, plumes, slice(r0, r1), slice(c0, c1))
 
 
-def _plume_block(
-    target: TargetGrid, plumes: tuple[Plume, ...], rows: slice, cols: slice
-) -> np.ndarray:
+def _plume_block(target: Grid, plumes: tuple[Plume, ...], rows: slice, cols: slice) -> np.ndarray:
     """Sum of plume profiles over one window of the grid (numpy, float64)."""
     nrows, ncols = rows.stop - rows.start, cols.stop - cols.start
     out = np.zeros((nrows, ncols), dtype=np.float64)

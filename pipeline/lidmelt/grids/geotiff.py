@@ -25,7 +25,7 @@ from rasterio.crs import CRS as RioCRS
 from rasterio.windows import Window
 
 from lidmelt.errors import GridError, InputError
-from lidmelt.grids.align import transform_of
+from lidmelt.grids.grid import transform_of
 
 __all__ = [
     "COG_CACHE_MB",

@@ -24,7 +24,7 @@ from pyproj.exceptions import CRSError
 from rasterio.crs import CRS as RioCRS
 
 from lidmelt.errors import GridError, InputError
-from lidmelt.grids.align import transform_of
+from lidmelt.grids.grid import transform_of
 
 __all__ = ["GRID_FORMATS", "detect_format", "normalise_units", "open_grid", "sha256_file"]
 

@@ -26,7 +26,6 @@ from pyproj import CRS
 from lidmelt import __version__
 from lidmelt.errors import GridError, InputError
 from lidmelt.files import atomic_path
-from lidmelt.grids.align import check_dataarray, transform_of
 from lidmelt.grids.geotiff import (
     TILE,
     BandWindows,
@@ -42,6 +41,7 @@ from lidmelt.grids.geotiff import (
     to_json,
     write_failed,
 )
+from lidmelt.grids.grid import check_dataarray, transform_of
 
 __all__ = ["TILE", "write_geotiff", "write_netcdf"]
 
