@@ -56,11 +56,14 @@ variables = ["melt_thickness_km", "onset_depth_km"]
 
 @pytest.fixture
 def basin(tmp_path):
-    """A folder ``basin/`` with empty grid files; returns a writer of ``basin/basin.toml``."""
+    """A folder ``basin/`` with stand-in grid files (only their format signatures: a TIFF and a
+    netCDF header, from the TIFF 6.0 and netCDF classic format specifications); returns a writer
+    of ``basin/basin.toml``."""
     folder = tmp_path / "basin"
     (folder / "grids").mkdir(parents=True)
     for name in ("age.tif", "anomaly.nc", "lid.tif", "water.tif"):
-        (folder / "grids" / name).touch()
+        signature = b"CDF\x01" if name.endswith(".nc") else b"II*\x00"
+        (folder / "grids" / name).write_bytes(signature)
 
     def write(text: str = BASE, name: str = "basin.toml") -> Path:
         path = folder / name

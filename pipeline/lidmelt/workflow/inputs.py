@@ -21,6 +21,7 @@ from lidmelt.config import (
 )
 from lidmelt.errors import LidmeltError, WorkflowError
 from lidmelt.grids.anomaly import Plume
+from lidmelt.grids.io import detect_format
 from lidmelt.workflow.checks import Context, choice, in_range, string, table, wrong_type
 
 __all__ = ["read_inputs"]
@@ -127,11 +128,11 @@ def _read_source(
                 "variable names a NetCDF variable of the grid file. Add the path or remove it."
             )
             raise WorkflowError(msg)
-        if path.suffix.lower() in (".tif", ".tiff"):
+        if detect_format(path, name=prefix) != "netcdf":
             msg = (
                 f"{ctx.where(prefix + '.variable')} is {variable!r} but the file {written!r} is "
-                "a GeoTIFF, which has one band and no variables; remove 'variable' (it is for "
-                "NetCDF files only)."
+                "a GeoTIFF or another single-grid raster format, which has no variables; remove "
+                "'variable' (it is for NetCDF files only)."
             )
             raise WorkflowError(msg)
     return path, written, variable
