@@ -19,7 +19,6 @@ SHOWN_COLUMNS = (
     "plume",
     "plume_match",
     "area_km2",
-    "melting_area_km2",
     "anomaly_melt_volume_km3",
     "melt_volume_km3",
     "min_plate_age_ma",
@@ -100,7 +99,9 @@ def run(args: argparse.Namespace) -> int:
         )
     shown = [c for c in SHOWN_COLUMNS if c in gdf.columns]
     if len(gdf):
-        print(format_table(pd.DataFrame(gdf[shown])))
+        table = pd.DataFrame(gdf[shown])
+        table["plume"] = table["plume"].replace("", "-")
+        print(format_table(table))
     age = "" if args.min_age is None else f", plate age >= {args.min_age:g} Ma"
     print(
         f"{len(gdf)} candidate region(s) with {_BASIS_TEXT[args.basis]} >= "
