@@ -173,6 +173,33 @@ def test_overlapping_polygons_are_each_right(regional):
         np.testing.assert_allclose(row["area_km2"], geod_polygon_area_km2(geom), rtol=1e-3)
 
 
+def test_flagged_fraction_is_exact(regional, add_validity_flag):
+    """Invented flags: bit 4 on a 4 x 5 block, bit 2 on the nodata hole (rows 30-33, cols 5-11:
+    no melt data, but flagged), nodata 255 on rows 0-1. A polygon's flagged_fraction is, over
+    its cells whose flag is not 255, the share with any bit set (the module's definition),
+    counted here from the constructed array; a polygon on 255 cells only gets NaN."""
+    run, _ = regional
+    flags = np.zeros((40, 60), dtype=np.uint8)
+    flags[10:14, 20:25] = 4
+    flags[30:34, 5:12] = 2
+    flags[0:2, :] = 255
+    add_validity_flag(run, flags)
+    polys = [
+        shapely.box(-36.1, -7.6, -32.9, -4.4),  # over part of the hole
+        shapely.box(-31.1, 2.1, -26.9, 5.1),  # over the bit-4 block
+        shapely.box(-39.9, 9.05, -30.1, 9.95),  # the 255 rows only
+    ]
+    out = region_statistics(run, gpd.GeoDataFrame(geometry=polys, crs="EPSG:4326"))
+    lon, lat = centres(REGIONAL, 40, 60)
+    for k, geom in enumerate(polys[:2]):
+        inside = shapely.contains_xy(geom, lon, lat)
+        known = inside & (flags != 255)
+        want = (known & (flags > 0)).sum() / known.sum()
+        assert 0 < want < 1  # precondition: both kinds of cell inside
+        assert out.loc[k, "flagged_fraction"] == pytest.approx(want, rel=1e-12)
+    assert np.isnan(out.loc[2, "flagged_fraction"])
+
+
 def test_polygon_in_a_projected_crs(regional):
     """A polygon in Web Mercator: cells whose centres, transformed by pyproj into EPSG:3857,
     fall inside; area within 0.1 % of pyproj.Geod's area of its vertices in lon/lat."""
