@@ -118,3 +118,43 @@ def make_run_dir(tmp_path):
         return write_run_dir(tmp_path / name, fields, transform=transform, crs=crs, summary=summary)
 
     return factory
+
+
+def write_validity_flag(path, flags):
+    """Write ``flags`` (2-D ints; 255 = nodata) as the run's validity_flag.tif (uint8), on the
+    grid of its summary.json, and add the summary's ``validity_flag`` entry."""
+    import rasterio
+    from affine import Affine
+
+    from lidmelt.physics import FLAG_MEANINGS
+
+    path = Path(path)
+    doc = json.loads((path / "summary.json").read_text(encoding="utf-8"))
+    grid = doc["grid"]
+    flags = np.asarray(flags, dtype=np.uint8)
+    with rasterio.open(
+        path / "validity_flag.tif",
+        "w",
+        driver="GTiff",
+        height=grid["height"],
+        width=grid["width"],
+        count=1,
+        dtype="uint8",
+        crs=rasterio.crs.CRS.from_wkt(grid["crs_wkt"]),
+        transform=Affine(*grid["transform"]),
+        nodata=255,
+    ) as dst:
+        dst.write(flags, 1)
+    doc["validity_flag"] = {
+        "file": "validity_flag.tif",
+        "nodata": 255,
+        "meanings": {str(k): v for k, v in FLAG_MEANINGS.items()},
+    }
+    (path / "summary.json").write_text(json.dumps(doc, indent=2), encoding="utf-8")
+    return path
+
+
+@pytest.fixture
+def add_validity_flag():
+    """``add_validity_flag(run_path, flags)``: see :func:`write_validity_flag`."""
+    return write_validity_flag

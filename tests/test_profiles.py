@@ -251,6 +251,25 @@ def test_cli_profile_writes_csv_and_png(run, tmp_path, capsys):
     assert sorted(p.name for p in out.parent.iterdir()) == ["leg1.csv", "leg1.png"]
 
 
+def test_cli_profile_flags_points_beyond_calibration(run, add_validity_flag, tmp_path, capsys):
+    """Bit 4 (beyond calibration) on every cell east of 180 E (invented): the points there
+    carry flag 4 and its meaning (lidmelt.physics.FLAG_MEANINGS), the others 0; points between
+    the last flagged and first unflagged column take the OR of both (the documented rule)."""
+    x, _ = centres(ACROSS, H, W)
+    add_validity_flag(run, np.where(x > 180.0, 4, 0))
+    csv = write_csv(tmp_path / "track.csv", np.array([[160.0, 0.0], [200.0, 0.0]]))
+    out = tmp_path / "leg.csv"
+    assert main(["profile", str(run), str(csv), "--spacing", "50", "-o", str(out)]) == 0
+    printed = capsys.readouterr().out
+    table = pd.read_csv(out, keep_default_na=False)
+    lon = np.mod(table["lon"].to_numpy(), 360.0)
+    expected = np.where(lon > 180.0 - 0.5 * ACROSS.a, 4, 0)  # within half a cell of 180 E too
+    np.testing.assert_array_equal(table["validity_flag"], expected)
+    meaning = "onset deeper than the model's calibrated pressure range"
+    assert set(table["flag_meaning"]) == {"", meaning}
+    assert f"{int((expected > 0).sum())} flagged ({int((expected > 0).sum())} {meaning})" in printed
+
+
 def test_cli_profile_default_output_name(run, tmp_path, monkeypatch):
     csv = write_csv(tmp_path / "leg2.csv", WAYPOINTS)
     monkeypatch.chdir(tmp_path)

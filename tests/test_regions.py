@@ -173,6 +173,33 @@ def test_overlapping_polygons_are_each_right(regional):
         np.testing.assert_allclose(row["area_km2"], geod_polygon_area_km2(geom), rtol=1e-3)
 
 
+def test_flagged_fraction_is_exact(regional, add_validity_flag):
+    """Invented flags: bit 4 on a 4 x 5 block, bit 2 on the nodata hole (rows 30-33, cols 5-11:
+    no melt data, but flagged), nodata 255 on rows 0-1. A polygon's flagged_fraction is, over
+    its cells whose flag is not 255, the share with any bit set (the module's definition),
+    counted here from the constructed array; a polygon on 255 cells only gets NaN."""
+    run, _ = regional
+    flags = np.zeros((40, 60), dtype=np.uint8)
+    flags[10:14, 20:25] = 4
+    flags[30:34, 5:12] = 2
+    flags[0:2, :] = 255
+    add_validity_flag(run, flags)
+    polys = [
+        shapely.box(-36.1, -7.6, -32.9, -4.4),  # over part of the hole
+        shapely.box(-31.1, 2.1, -26.9, 5.1),  # over the bit-4 block
+        shapely.box(-39.9, 9.05, -30.1, 9.95),  # the 255 rows only
+    ]
+    out = region_statistics(run, gpd.GeoDataFrame(geometry=polys, crs="EPSG:4326"))
+    lon, lat = centres(REGIONAL, 40, 60)
+    for k, geom in enumerate(polys[:2]):
+        inside = shapely.contains_xy(geom, lon, lat)
+        known = inside & (flags != 255)
+        want = (known & (flags > 0)).sum() / known.sum()
+        assert 0 < want < 1  # precondition: both kinds of cell inside
+        assert out.loc[k, "flagged_fraction"] == pytest.approx(want, rel=1e-12)
+    assert np.isnan(out.loc[2, "flagged_fraction"])
+
+
 def test_polygon_in_a_projected_crs(regional):
     """A polygon in Web Mercator: cells whose centres, transformed by pyproj into EPSG:3857,
     fall inside; area within 0.1 % of pyproj.Geod's area of its vertices in lon/lat."""
@@ -254,7 +281,7 @@ def test_projected_grid_regions_and_screen(make_run_dir, tmp_path):
     np.testing.assert_allclose(
         out.loc[0, "melt_volume_km3"], 2.0 * 625.0 * (inside & disk).sum(), rtol=1.5e-5
     )
-    cand = screen(run, min_melt_thickness_km=1.0)
+    cand = screen(run, min_melt_thickness_km=1.0, basis="total")
     assert len(cand) == 1
     assert cand.loc[0, "n_cells"] == disk.sum()
     np.testing.assert_allclose(cand.loc[0, "area_km2"], 625.0 * disk.sum(), rtol=1.5e-5)
@@ -374,7 +401,7 @@ def disks(make_run_dir):
 
 def test_two_disks_give_two_candidates(disks):
     run, melt, disk1, disk2 = disks
-    out = screen(run, min_melt_thickness_km=1.0)
+    out = screen(run, min_melt_thickness_km=1.0, basis="total")
     assert len(out) == 2
     areas = np.broadcast_to(geod_row_areas_km2(DISKS, 80)[:, None], (80, 80))
     lon, lat = centres(DISKS, 80, 80)
@@ -400,13 +427,13 @@ def test_two_disks_give_two_candidates(disks):
 
 def test_min_area_drops_the_small_disk(disks):
     run, _, disk1, _disk2 = disks
-    full = screen(run, min_melt_thickness_km=1.0)
+    full = screen(run, min_melt_thickness_km=1.0, basis="total")
     cut = 0.5 * (full["area_km2"].iloc[0] + full["area_km2"].iloc[1])
-    out = screen(run, min_melt_thickness_km=1.0, min_area_km2=cut)
+    out = screen(run, min_melt_thickness_km=1.0, min_area_km2=cut, basis="total")
     assert len(out) == 1
     assert out.loc[0, "n_cells"] == disk1.sum()
     # A lower threshold takes the weak patch as a third region.
-    assert len(screen(run, min_melt_thickness_km=0.4)) == 3
+    assert len(screen(run, min_melt_thickness_km=0.4, basis="total")) == 3
 
 
 def test_eight_connectivity(make_run_dir):
@@ -415,7 +442,7 @@ def test_eight_connectivity(make_run_dir):
     melt[2, 2] = melt[3, 3] = 5.0  # diagonal neighbours
     melt[7, 2] = melt[7, 4] = 5.0  # one cell apart
     run = make_run_dir({"melt_thickness_km": melt}, transform=Affine(1, 0, 0, 0, -1, 10))
-    out = screen(run, min_melt_thickness_km=1.0)
+    out = screen(run, min_melt_thickness_km=1.0, basis="total")
     assert sorted(out["n_cells"]) == [1, 1, 2]
     assert out.geometry.is_valid.all()
 
@@ -427,7 +454,7 @@ def test_region_across_the_seam_of_a_global_grid(make_run_dir, tmp_path):
     dist = np.hypot(np.mod(lon, 360.0) - 180.0, lat - 10.0)
     disk = dist < 4.0
     run = make_run_dir({"melt_thickness_km": np.where(disk, 3.0, 0.0)}, transform=t)
-    out = screen(run, min_melt_thickness_km=1.0)
+    out = screen(run, min_melt_thickness_km=1.0, basis="total")
     assert len(out) == 1
     assert out.loc[0, "n_cells"] == disk.sum()
     assert abs(abs(out.loc[0, "centroid_lon"]) - 180.0) < 1e-9
@@ -449,7 +476,7 @@ def test_geojson_of_a_grid_beyond_180_is_split(make_run_dir, tmp_path):
     lon, lat = centres(t, 40, 80)
     disk = np.hypot(lon - 180.0, lat) < 3.0
     run = make_run_dir({"melt_thickness_km": np.where(disk, 2.0, 0.0)}, transform=t)
-    out = screen(run, min_melt_thickness_km=1.0)
+    out = screen(run, min_melt_thickness_km=1.0, basis="total")
     _, geojson = write_candidates(out, tmp_path / "c.gpkg")
     back = gpd.read_file(geojson)
     geom = back.geometry.iloc[0]
@@ -464,7 +491,10 @@ def test_geojson_of_a_grid_beyond_180_is_split(make_run_dir, tmp_path):
 def test_cli_screen_writes_gpkg_and_geojson(disks, tmp_path, capsys):
     run, _, _, _ = disks
     out = tmp_path / "cands" / "screen.gpkg"
-    assert main(["screen", str(run), "--min-melt-thickness", "1", "-o", str(out)]) == 0
+    assert (
+        main(["screen", str(run), "--basis", "total", "--min-melt-thickness", "1", "-o", str(out)])
+        == 0
+    )
     assert "2 candidate region(s)" in capsys.readouterr().out
     assert sorted(p.name for p in out.parent.iterdir()) == ["screen.geojson", "screen.gpkg"]
     gpkg = gpd.read_file(out)
@@ -478,7 +508,12 @@ def test_cli_screen_writes_gpkg_and_geojson(disks, tmp_path, capsys):
 def test_cli_screen_no_candidates_writes_empty_files(disks, tmp_path, capsys):
     run, _, _, _ = disks
     out = tmp_path / "none.gpkg"
-    assert main(["screen", str(run), "--min-melt-thickness", "100", "-o", str(out)]) == 0
+    assert (
+        main(
+            ["screen", str(run), "--basis", "total", "--min-melt-thickness", "100", "-o", str(out)]
+        )
+        == 0
+    )
     assert "0 candidate region(s)" in capsys.readouterr().out
     assert len(gpd.read_file(out)) == 0
 

@@ -244,6 +244,78 @@ def test_nodata_and_next_to_nodata(make_run_dir):
 
 
 # ---------------------------------------------------------------------------------------
+# Validity flags
+# ---------------------------------------------------------------------------------------
+
+# The meaning of bit 4, as lidmelt.physics.FLAG_MEANINGS states it (the run's summary copies it).
+BEYOND = "onset deeper than the model's calibrated pressure range"
+
+
+@pytest.fixture
+def flagged_run(make_run_dir, add_validity_flag):
+    """The linear fields with invented flags: bit 4 (beyond calibration) on cell (20, 30),
+    centre (-24.75 E, -0.25 N); bits 2 and 8 on cell (20, 31); nodata (255) on cell (5, 5)
+    where the melt is NaN too."""
+    x, y = centres(REGIONAL, 40, 60)
+    fields = linear_fields(x, y)
+    fields["melt_thickness_km"][5, 5] = np.nan
+    run = make_run_dir(fields, transform=REGIONAL)
+    flags = np.zeros((40, 60), dtype=np.uint8)
+    flags[20, 30] = 4
+    flags[20, 31] = 2 | 8
+    flags[5, 5] = 255
+    add_validity_flag(run, flags)
+    return run
+
+
+def test_station_beyond_calibration_is_flagged(flagged_run):
+    """Documented rule (products.sampling notes): a station takes the bits of every cell with a
+    non-zero bilinear weight (their OR), or of its containing cell where it takes that cell's
+    value; 255 outside the grid. The status keeps its data-coverage meaning."""
+    lon = np.array([-24.75, -24.5, -30.0, -37.25, -36.9, 100.0])
+    lat = np.array([-0.25, -0.25, 5.0, 7.25, 7.1, 0.0])
+    with pytest.warns(UserWarning, match="outside the grid"):
+        out = sample_stations(flagged_run, points(lon, lat))
+    # 0: on the flagged cell's centre (neighbours' weights 0); 1: halfway between cells
+    # (20, 30) and (20, 31): 4 | 2 | 8; 2: far from flags; 3: the nodata cell; 4: in cell
+    # (5, 6) next to it (nearest-cell fallback, that cell's flag 0); 5: outside.
+    assert list(out["validity_flag"]) == [4, 14, 0, 255, 0, 255]
+    assert list(out["status"]) == ["ok", "ok", "ok", "nodata", "next_to_nodata", "outside_grid"]
+    assert out.loc[0, "flag_meaning"] == BEYOND
+    assert out.loc[1, "flag_meaning"] == (
+        "no solidus crossing within the model's pressure range; "
+        + BEYOND
+        + "; source water above saturation at the onset (free water)"
+    )
+    assert out.loc[2, "flag_meaning"] == ""
+    assert out.loc[3, "flag_meaning"] == "no data"
+    assert out["validity_flag"].dtype.kind == "i"
+    # nearest: the containing cell's flag only.
+    near = sample_stations(flagged_run, points([-24.6], [-0.25]), method="nearest")
+    assert list(near["validity_flag"]) == [4]
+
+
+def test_run_without_flag_file_has_no_flag_columns(regional_run):
+    out = sample_stations(regional_run, points([-20.0], [0.0]))
+    assert "validity_flag" not in out.columns
+    assert "flag_meaning" not in out.columns
+
+
+def test_cli_sample_counts_flagged_stations(flagged_run, tmp_path, capsys):
+    csv = tmp_path / "st.csv"
+    pd.DataFrame({"name": ["deep", "plain"], "lon": [-24.75, -30.0], "lat": [-0.25, 5.0]}).to_csv(
+        csv, index=False
+    )
+    out = tmp_path / "sampled.csv"
+    assert main(["sample", str(flagged_run), str(csv), "-o", str(out)]) == 0
+    printed = capsys.readouterr().out
+    assert f"2 stations: 2 ok; 1 flagged (1 {BEYOND})" in printed
+    table = pd.read_csv(out, keep_default_na=False)
+    assert list(table["validity_flag"]) == [4, 0]
+    assert list(table["flag_meaning"]) == [BEYOND, ""]
+
+
+# ---------------------------------------------------------------------------------------
 # Station files and columns
 # ---------------------------------------------------------------------------------------
 

@@ -15,10 +15,12 @@ from collections.abc import Iterator, Sequence
 
 import pandas as pd
 
-from lidmelt.products.sampling import METHODS, STATUSES
+from lidmelt.products.sampling import FLAG_COLUMN, FLAG_MEANING_COLUMN, METHODS, STATUSES
+from lidmelt.variables import FLAG_NODATA
 
 __all__ = [
     "coordinate_options",
+    "flag_summary",
     "format_table",
     "print_warnings",
     "run_dir_option",
@@ -85,6 +87,21 @@ def format_table(frame: pd.DataFrame, *, max_rows: int = 20) -> str:
     if len(frame) > max_rows:
         text += f"\n... ({len(frame) - max_rows} more rows)"
     return text
+
+
+def flag_summary(frame: pd.DataFrame) -> str:
+    """Count of the flagged rows of a sampled table and of each meaning, e.g.
+    '; 2 flagged (2 onset deeper than the model's calibrated pressure range)'; '' when the
+    table has no flag column. Rows outside the data (flag 255) are not counted here."""
+    if FLAG_COLUMN not in frame.columns:
+        return ""
+    flags = frame[FLAG_COLUMN].to_numpy()
+    flagged = (flags != 0) & (flags != FLAG_NODATA)
+    if not flagged.any():
+        return "; 0 flagged"
+    counts = pd.Series(frame[FLAG_MEANING_COLUMN].to_numpy()[flagged]).value_counts()
+    parts = ", ".join(f"{int(n)} {text}" for text, n in counts.items())
+    return f"; {int(flagged.sum())} flagged ({parts})"
 
 
 def status_summary(status: Sequence[str], *, what: str) -> str:

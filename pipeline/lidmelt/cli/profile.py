@@ -10,6 +10,7 @@ import pandas as pd
 
 from lidmelt.cli._common import (
     coordinate_options,
+    flag_summary,
     format_table,
     print_warnings,
     run_dir_option,
@@ -30,6 +31,7 @@ _SHOWN = (
     "onset_depth_km",
     "lid_depth_km",
     "status",
+    "validity_flag",
 )
 
 
@@ -84,6 +86,7 @@ def run(args: argparse.Namespace) -> int:
     print(format_table(pd.DataFrame(gdf[shown]), max_rows=10))
     print(
         status_summary(np.asarray(gdf["status"]), what="points")
+        + flag_summary(gdf)
         + f"; track length {gdf['distance_km'].iloc[-1]:.3f} km, spacing {args.spacing:g} km"
     )
     title = f"{Path(args.run_dir).name}: {Path(args.track).name}"

@@ -12,14 +12,17 @@ from lidmelt.products.sampling import check_output_path
 
 __all__ = ["SHOWN_STATISTICS", "register"]
 
-#: Statistics shown in the printed tables of ``regions`` and ``screen`` (files hold all).
+#: Statistics shown in the printed table of ``regions``, where present (the file holds all).
 SHOWN_STATISTICS = (
     "area_km2",
     "melting_area_km2",
     "mean_melt_thickness_km",
     "max_melt_thickness_km",
     "melt_volume_km3",
+    "anomaly_melt_volume_km3",
     "shallowest_onset_depth_km",
+    "flagged_fraction",
+    "melt_production_km3_yr",
 )
 
 
@@ -32,7 +35,9 @@ def register(subparsers: argparse._SubParsersAction) -> None:
         description=(
             "For each polygon: geodesic area, melting area, mean and max melt thickness, melt "
             "volume, shallowest onset depth and mean thermal anomaly of the cells whose centres "
-            "fall inside; the polygons' own attributes are kept."
+            "fall inside; where the run has them also the anomaly melt volume, plate-age range, "
+            "fraction of flagged cells and melt production (km3/yr). The polygons' own "
+            "attributes are kept."
         ),
     )
     p.add_argument("polygons", metavar="POLYGONS", help="polygon file (any format GDAL reads)")

@@ -8,13 +8,14 @@ import numpy as np
 
 from lidmelt.cli._common import (
     coordinate_options,
+    flag_summary,
     format_table,
     print_warnings,
     run_dir_option,
     sampling_method_option,
     status_summary,
 )
-from lidmelt.products.sampling import check_output_path, table_with_coordinates
+from lidmelt.products.sampling import FLAG_COLUMN, check_output_path, table_with_coordinates
 from lidmelt.products.sites import OUTPUT_SUFFIXES, sample_stations, write_stations
 
 __all__ = ["register"]
@@ -31,7 +32,9 @@ def register(subparsers: argparse._SubParsersAction) -> None:
         help="values of a run at stations (CSV or point file)",
         description=(
             "Sample every output variable and input of a run at stations, with a status column "
-            "(ok, outside_grid, nodata, next_to_nodata). Prints a short table; -o writes it."
+            "(ok, outside_grid, nodata, next_to_nodata) and the validity flag with its meaning "
+            "(e.g. an onset beyond the model's calibrated pressure range). Prints a short "
+            "table; -o writes it."
         ),
     )
     p.add_argument(
@@ -56,8 +59,8 @@ def _printed_table(gdf) -> str:
     coords = list(gdf.attrs.get("lidmelt_coordinate_columns", ("longitude", "latitude")))
     sampled = set(gdf.attrs.get("lidmelt_units", {})) | {"status"}
     own = [c for c in frame.columns if c not in sampled and c not in coords][:2]
-    shown = [c for c in _SHOWN_VARIABLES if c in frame.columns]
-    return format_table(frame[own + coords + shown + ["status"]])
+    shown = [c for c in (*_SHOWN_VARIABLES, "status", FLAG_COLUMN) if c in frame.columns]
+    return format_table(frame[own + coords + shown])
 
 
 def run(args: argparse.Namespace) -> int:
@@ -77,7 +80,7 @@ def run(args: argparse.Namespace) -> int:
             crs=args.crs,
         )
     print(_printed_table(gdf))
-    print(status_summary(np.asarray(gdf["status"]), what="stations"))
+    print(status_summary(np.asarray(gdf["status"]), what="stations") + flag_summary(gdf))
     if out is None:
         print("no file written (give -o OUT.csv or -o OUT.gpkg to save the table)")
     else:

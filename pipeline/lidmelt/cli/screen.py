@@ -8,11 +8,28 @@ from pathlib import Path
 import pandas as pd
 
 from lidmelt.cli._common import format_table, print_warnings, run_dir_option
-from lidmelt.cli.regions import SHOWN_STATISTICS
 from lidmelt.products.sampling import check_output_path
-from lidmelt.products.screening import screen, write_candidates
+from lidmelt.products.screening import BASES, screen, write_candidates
 
-__all__ = ["register"]
+__all__ = ["SHOWN_COLUMNS", "register"]
+
+#: Columns shown in the printed table (the files hold all), where the candidates have them.
+SHOWN_COLUMNS = (
+    "rank",
+    "plume",
+    "plume_match",
+    "area_km2",
+    "anomaly_melt_volume_km3",
+    "melt_volume_km3",
+    "min_plate_age_ma",
+    "max_plate_age_ma",
+    "flagged_fraction",
+    "melt_production_km3_yr",
+    "centroid_lon",
+    "centroid_lat",
+)
+
+_BASIS_TEXT = {"anomaly": "anomaly melt thickness", "total": "melt thickness"}
 
 
 def register(subparsers: argparse._SubParsersAction) -> None:
@@ -22,10 +39,13 @@ def register(subparsers: argparse._SubParsersAction) -> None:
         parents=[run_dir_option()],
         help="candidate volcanic regions: connected cells above a melt thickness",
         description=(
-            "Candidate regions are groups of cells with melt_thickness_km >= KM touching along "
-            "an edge or at a corner (8-connectivity), with area >= KM2; written as polygons "
-            "ranked by melt volume (rank 1 = largest) to a GeoPackage and a GeoJSON (RFC 7946, "
-            "lon/lat) beside it."
+            "Candidate regions are groups of cells whose melt reaches KM touching along an edge "
+            "or at a corner (8-connectivity), with area >= KM2. By default the melt is the one "
+            "the thermal anomaly adds (anomaly_melt_thickness_km), so young seafloor where "
+            "ambient mantle melts, as at a spreading ridge, is not a candidate; --basis total "
+            "screens all melt (melt_thickness_km). Each candidate names the workflow plume it "
+            "belongs to. Written as polygons ranked by the basis's melt volume (rank 1 = "
+            "largest) to a GeoPackage and a GeoJSON (RFC 7946, lon/lat) beside it."
         ),
     )
     s.add_argument(
@@ -33,7 +53,7 @@ def register(subparsers: argparse._SubParsersAction) -> None:
         metavar="KM",
         type=float,
         required=True,
-        help="least melt thickness of a candidate cell, in km (> 0)",
+        help="least melt thickness of a candidate cell (of the basis's melt), in km (> 0)",
     )
     s.add_argument(
         "--min-area",
@@ -41,6 +61,19 @@ def register(subparsers: argparse._SubParsersAction) -> None:
         type=float,
         default=0.0,
         help="smallest area of a candidate region, in km2 (default 0)",
+    )
+    s.add_argument(
+        "--basis",
+        choices=BASES,
+        default="anomaly",
+        help="melt a cell must reach: the melt the thermal anomaly adds (anomaly, default) or "
+        "all melt, ambient melting at young seafloor included (total)",
+    )
+    s.add_argument(
+        "--min-age",
+        metavar="MA",
+        type=float,
+        help="leave out cells of plate age below MA million years (needs a run with a plate age)",
     )
     s.add_argument(
         "-o",
@@ -61,14 +94,19 @@ def run(args: argparse.Namespace) -> int:
             args.run_dir,
             min_melt_thickness_km=args.min_melt_thickness,
             min_area_km2=args.min_area,
+            basis=args.basis,
+            min_age_ma=args.min_age,
         )
-    stats = [c for c in SHOWN_STATISTICS if c in gdf.columns]
-    shown = ["rank", *stats, "centroid_lon", "centroid_lat"]
+    shown = [c for c in SHOWN_COLUMNS if c in gdf.columns]
     if len(gdf):
-        print(format_table(pd.DataFrame(gdf[shown])))
+        table = pd.DataFrame(gdf[shown])
+        table["plume"] = table["plume"].replace("", "-")
+        print(format_table(table))
+    age = "" if args.min_age is None else f", plate age >= {args.min_age:g} Ma"
     print(
-        f"{len(gdf)} candidate region(s) with melt thickness >= {args.min_melt_thickness:g} km "
-        f"and area >= {args.min_area:g} km2 (8-connected cells)"
+        f"{len(gdf)} candidate region(s) with {_BASIS_TEXT[args.basis]} >= "
+        f"{args.min_melt_thickness:g} km and area >= {args.min_area:g} km2{age} (8-connected "
+        f"cells; basis {args.basis})"
     )
     gpkg, geojson = write_candidates(gdf, out)
     print(f"wrote {gpkg} and {geojson}")

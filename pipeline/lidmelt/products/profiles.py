@@ -257,7 +257,8 @@ def sample_track(
     geopandas.GeoDataFrame
         One row per point in EPSG:4326: ``distance_km`` (km along the track),
         ``waypoint_index``, ``lon`` and ``lat`` (degrees), one column per output variable and
-        input of the run, ``status``, and Point geometries.
+        input of the run, ``validity_flag`` and ``flag_meaning`` (where the run has its flag
+        grid; see :mod:`lidmelt.products.sampling`), ``status``, and Point geometries.
 
     Raises
     ------

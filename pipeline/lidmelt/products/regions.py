@@ -34,9 +34,22 @@ warning.
     Sum over the cells of melt thickness (km) times cell area (km^2).
 ``shallowest_onset_depth_km``
     Smallest ``onset_depth_km`` inside (only when the run has it).
+``anomaly_melt_volume_km3``
+    Sum over the cells with data of ``anomaly_melt_thickness_km`` (the melt the thermal anomaly
+    adds) times cell area (only when the run has that output).
 ``mean_thermal_anomaly_k``
     Area-weighted mean of the run's ``thermal_anomaly_k`` input over the cells with data
     (only when the run has that input).
+``min_plate_age_ma``, ``max_plate_age_ma``
+    Range of the run's ``plate_age_ma`` input over the cells with data (only when the run has
+    a plate age).
+``flagged_fraction``
+    Of the cells inside whose validity flag is not nodata (255), the fraction with any flag
+    bit set; NaN when there is none (only when the run has its flag grid). Cells without melt
+    data but with a flag (e.g. no solidus crossing) count here.
+``melt_production_km3_yr``
+    Sum over the cells with data of ``melt_production_mm_yr`` times cell area, in km^3/yr
+    (1 mm = 1e-6 km; only when the run has that output, i.e. an upwelling input).
 
 Cell areas are geodesic: on a geographic grid the exact ellipsoidal area of each cell (the
 authalic-latitude zone formula, Snyder 1987 eq. 3-12); on a projected grid the ellipsoidal area
@@ -64,13 +77,17 @@ from lidmelt.grids.area import cell_areas_km2, row_areas_km2
 from lidmelt.grids.grid import WGS84, Grid
 from lidmelt.grids.rundir import RunDir
 from lidmelt.products import sampling as smp
+from lidmelt.variables import FLAG_NODATA
 
 if TYPE_CHECKING:
     import geopandas as gpd
     import shapely
 
 __all__ = [
+    "ANOMALY_MELT_VARIABLE",
     "GEOD",
+    "OPTIONAL_STATISTICS",
+    "PRODUCTION_VARIABLE",
     "STAT_COLUMNS",
     "Zones",
     "region_statistics",
@@ -78,7 +95,8 @@ __all__ = [
     "write_regions",
 ]
 
-#: Statistics columns, in order (the last two only when the run has the variable).
+#: Statistics columns, in order (those of :data:`OPTIONAL_STATISTICS` only when the run has
+#: the variable they need).
 STAT_COLUMNS = (
     "area_km2",
     "n_cells",
@@ -87,9 +105,32 @@ STAT_COLUMNS = (
     "mean_melt_thickness_km",
     "max_melt_thickness_km",
     "melt_volume_km3",
+    "anomaly_melt_volume_km3",
     "shallowest_onset_depth_km",
     "mean_thermal_anomaly_k",
+    "min_plate_age_ma",
+    "max_plate_age_ma",
+    "flagged_fraction",
+    "melt_production_km3_yr",
 )
+
+#: Optional statistics columns and the :class:`Zones` field each needs.
+OPTIONAL_STATISTICS = {
+    "anomaly_melt_volume_km3": "anomaly_melt",
+    "shallowest_onset_depth_km": "onset",
+    "mean_thermal_anomaly_k": "anomaly",
+    "min_plate_age_ma": "plate_age",
+    "max_plate_age_ma": "plate_age",
+    "flagged_fraction": "flag",
+    "melt_production_km3_yr": "production",
+}
+
+#: Output variable of the melt the thermal anomaly adds, and of the melt production.
+ANOMALY_MELT_VARIABLE = "anomaly_melt_thickness_km"
+PRODUCTION_VARIABLE = "melt_production_mm_yr"
+
+#: km per mm (melt production in mm/yr times km^2 gives km^3/yr after this factor).
+_KM_PER_MM = 1e-6
 
 GEOD = pyproj.Geod(ellps="WGS84")
 
@@ -104,13 +145,17 @@ _DENSIFY_PARTS = 64
 
 @dataclass
 class Zones:
-    """The grids the statistics need, loaded once."""
+    """The grids the statistics need, loaded once (None: the run does not have it)."""
 
     grid: Grid
     melt: np.ndarray
     onset: np.ndarray | None
     anomaly: np.ndarray | None
     row_areas: np.ndarray | None  # geographic grids: the area of a cell in each row (km^2)
+    anomaly_melt: np.ndarray | None = None
+    plate_age: np.ndarray | None = None
+    flag: np.ndarray | None = None  # uint8 bit flags, nodata 255
+    production: np.ndarray | None = None  # mm/yr
 
     @classmethod
     def load(cls, run: RunDir) -> Zones:
@@ -122,28 +167,29 @@ class Zones:
                 "need it. Run 'lidmelt run' with melt_thickness_km among the outputs."
             )
             raise RunDirError(msg)
-        melt = smp.load_variable(run, smp.REFERENCE_VARIABLE, grid)
-        onset = (
-            smp.load_variable(run, "onset_depth_km", grid)
-            if "onset_depth_km" in run.outputs
-            else None
+
+        def optional(name: str, names: list[str]) -> np.ndarray | None:
+            return smp.load_variable(run, name, grid) if name in names else None
+
+        return cls(
+            grid=grid,
+            melt=smp.load_variable(run, smp.REFERENCE_VARIABLE, grid),
+            onset=optional("onset_depth_km", run.outputs),
+            anomaly=optional("thermal_anomaly_k", run.inputs),
+            row_areas=row_areas_km2(grid) if grid.is_geographic else None,
+            anomaly_melt=optional(ANOMALY_MELT_VARIABLE, run.outputs),
+            plate_age=optional("plate_age_ma", run.inputs),
+            flag=smp.load_flag(run, grid),
+            production=optional(PRODUCTION_VARIABLE, run.outputs),
         )
-        anomaly = (
-            smp.load_variable(run, "thermal_anomaly_k", grid)
-            if "thermal_anomaly_k" in run.inputs
-            else None
-        )
-        rows = row_areas_km2(grid) if grid.is_geographic else None
-        return cls(grid=grid, melt=melt, onset=onset, anomaly=anomaly, row_areas=rows)
 
     @property
     def columns(self) -> list[str]:
-        cols = list(STAT_COLUMNS)
-        if self.onset is None:
-            cols.remove("shallowest_onset_depth_km")
-        if self.anomaly is None:
-            cols.remove("mean_thermal_anomaly_k")
-        return cols
+        return [
+            c
+            for c in STAT_COLUMNS
+            if c not in OPTIONAL_STATISTICS or getattr(self, OPTIONAL_STATISTICS[c]) is not None
+        ]
 
     def areas(self, flat: np.ndarray) -> np.ndarray:
         if self.row_areas is not None:
@@ -152,6 +198,7 @@ class Zones:
 
     def stats(self, flat: np.ndarray) -> dict[str, float]:
         """Statistics of the cells with flat indices ``flat`` (``area_km2`` left out)."""
+        flagged = self._flagged_fraction(flat)
         thick = self.melt.ravel()[flat]
         valid = np.isfinite(thick)
         flat, thick = flat[valid], thick[valid]
@@ -166,6 +213,8 @@ class Zones:
             "max_melt_thickness_km": float(thick.max()) if thick.size else math.nan,
             "melt_volume_km3": volume,
         }
+        if self.anomaly_melt is not None:
+            out["anomaly_melt_volume_km3"] = _area_sum(self.anomaly_melt, flat, area)
         if self.onset is not None:
             onset = self.onset.ravel()[flat]
             ok = np.isfinite(onset)
@@ -177,7 +226,25 @@ class Zones:
             out["mean_thermal_anomaly_k"] = (
                 float((anomaly[ok] * area[ok]).sum() / weight) if weight > 0 else math.nan
             )
+        if self.plate_age is not None:
+            age = self.plate_age.ravel()[flat]
+            age = age[np.isfinite(age)]
+            out["min_plate_age_ma"] = float(age.min()) if age.size else math.nan
+            out["max_plate_age_ma"] = float(age.max()) if age.size else math.nan
+        if flagged is not None:
+            out["flagged_fraction"] = flagged
+        if self.production is not None:
+            out["melt_production_km3_yr"] = _KM_PER_MM * _area_sum(self.production, flat, area)
         return out
+
+    def _flagged_fraction(self, flat: np.ndarray) -> float | None:
+        """Fraction of the cells (flag not nodata) with any flag bit set; None without flags."""
+        if self.flag is None:
+            return None
+        flags = self.flag.ravel()[flat]
+        known = flags != FLAG_NODATA
+        n = int(known.sum())
+        return float((flags[known] != 0).sum()) / n if n else math.nan
 
     def centroid_lonlat(self, flat: np.ndarray) -> tuple[float, float]:
         """Area-weighted mean position (WGS84 lon, lat in degrees) of cells on the sphere."""
@@ -190,6 +257,12 @@ class Zones:
         z = (w * np.sin(phi)).sum()
         lon = (math.degrees(math.atan2(y, x)) + 180.0) % 360.0 - 180.0
         return lon, math.degrees(math.atan2(z, math.hypot(x, y)))
+
+
+def _area_sum(values: np.ndarray, flat: np.ndarray, area: np.ndarray) -> float:
+    """Sum of ``values`` (a grid) times cell area over the cells ``flat`` (NaN counts as 0)."""
+    v = values.ravel()[flat]
+    return float(np.where(np.isfinite(v), v * area, 0.0).sum())
 
 
 # --------------------------------------------------------------------------------------------

@@ -21,6 +21,16 @@ The status describes the run's data coverage and is taken from ``melt_thickness_
 where the run has no data; 0 where the mantle does not melt). Variables that are NaN by
 definition at some data cells (``onset_depth_km`` where the mantle never reaches its solidus,
 ``mean_melt_pressure_gpa`` where it does not melt) follow the same per-variable rule.
+
+Validity flag
+-------------
+Where the run has its validity flag grid (``validity_flag.tif``, uint8 bit flags, nodata 255),
+every point also gets ``validity_flag`` (integer) and ``flag_meaning`` (the meanings of the bits
+set, joined with "; "; "" for 0, "no data" for 255). A point takes the bits of every cell that
+carries a non-zero weight in its bilinear value (their bitwise OR), or those of its containing
+cell where it takes that cell's value (``nearest``, ``next_to_nodata``, ``nodata``); a point
+outside the grid gets 255. The status column keeps its meaning (data coverage): a station at an
+onset beyond the model's calibrated pressure range has status ``ok`` and the flag bit 4.
 """
 
 from __future__ import annotations
@@ -40,13 +50,17 @@ import pyproj
 from lidmelt.errors import InputError, RunDirError
 from lidmelt.files import atomic_path
 from lidmelt.grids.grid import Grid, lonlat_from
-from lidmelt.grids.rundir import RunDir, open_run
+from lidmelt.grids.rundir import FLAG_FILE, RunDir, open_run
 from lidmelt.grids.vector import describe_rows
+from lidmelt.physics import FLAG_MEANINGS
+from lidmelt.variables import FLAG_NODATA, FLAG_VARIABLE
 
 if TYPE_CHECKING:
     import geopandas as gpd
 
 __all__ = [
+    "FLAG_COLUMN",
+    "FLAG_MEANING_COLUMN",
     "METHODS",
     "REFERENCE_VARIABLE",
     "STATUSES",
@@ -55,10 +69,14 @@ __all__ = [
     "STATUS_OK",
     "STATUS_OUTSIDE",
     "Stencil",
+    "apply_flag_stencil",
     "apply_stencil",
     "as_run",
     "check_method",
     "check_output_path",
+    "describe_flags",
+    "flag_meanings",
+    "load_flag",
     "load_variable",
     "reference_name",
     "replace_columns",
@@ -84,6 +102,10 @@ STATUSES = (STATUS_OK, STATUS_OUTSIDE, STATUS_NODATA, STATUS_NEXT_TO_NODATA)
 REFERENCE_VARIABLE = "melt_thickness_km"
 
 METHODS = ("bilinear", "nearest")
+
+#: Columns of the validity flag (integer bit flags) and of its meaning (text) per point.
+FLAG_COLUMN = FLAG_VARIABLE.name
+FLAG_MEANING_COLUMN = "flag_meaning"
 
 #: Keys of the ``grid`` entry of ``summary.json`` that :func:`run_grid` needs.
 _GRID_KEYS = ("crs_wkt", "transform", "width", "height")
@@ -172,6 +194,58 @@ def load_variable(run: RunDir, name: str, grid: Grid) -> np.ndarray:
     return values
 
 
+def load_flag(run: RunDir, grid: Grid) -> np.ndarray | None:
+    """The run's validity flag grid as a (height, width) uint8 array (nodata 255), or None when
+    the run directory has no flag file.
+
+    Raises
+    ------
+    RunDirError
+        If its shape differs from the grid in ``summary.json``.
+    """
+    import rasterio
+
+    entry = run.summary.get("validity_flag") or {}
+    path = run.path / str(entry.get("file") or FLAG_FILE)
+    if not path.is_file():
+        return None
+    with rasterio.open(path) as src:
+        values = src.read(1)
+    if values.shape != (grid.height, grid.width):
+        msg = (
+            f"{path.name!r} in {str(run.path)!r} has shape {values.shape}, but summary.json gives "
+            f"a {grid.height} x {grid.width} grid. The run directory is inconsistent: run "
+            "'lidmelt run' again."
+        )
+        raise RunDirError(msg)
+    return values.astype(np.uint8)
+
+
+def flag_meanings(run: RunDir) -> dict[int, str]:
+    """Meaning of each flag bit: the run's own (``summary.json``), else this version's."""
+    raw = (run.summary.get("validity_flag") or {}).get("meanings") or {}
+    try:
+        meanings = {int(bit): str(text) for bit, text in raw.items()}
+    except (AttributeError, TypeError, ValueError):
+        meanings = {}
+    return meanings or dict(FLAG_MEANINGS)
+
+
+def describe_flags(flags: Any, meanings: dict[int, str]) -> np.ndarray:
+    """Text of each flag value: the meanings of its bits joined with "; " ("" for 0, "no data"
+    for the nodata value 255, "bit N" for a bit without a meaning)."""
+    flags = np.asarray(flags, dtype=np.int64)
+    values, inverse = np.unique(flags, return_inverse=True)
+    texts = []
+    for value in values.tolist():
+        if value == FLAG_NODATA:
+            texts.append("no data")
+            continue
+        bits = [1 << k for k in range(8) if value & (1 << k)]
+        texts.append("; ".join(meanings.get(bit, f"bit {bit}") for bit in bits))
+    return np.array(texts, dtype=object)[inverse.reshape(flags.shape)]
+
+
 # --------------------------------------------------------------------------------------------
 # Point sampling
 # --------------------------------------------------------------------------------------------
@@ -253,25 +327,48 @@ def apply_stencil(stencil: Stencil, values: np.ndarray) -> tuple[np.ndarray, np.
     return out, flagged & stencil.inside
 
 
+def apply_flag_stencil(stencil: Stencil, flags: np.ndarray, fallback: np.ndarray) -> np.ndarray:
+    """Flag of each point (int64): the bitwise OR of the flags of the cells with a non-zero
+    bilinear weight, or the containing cell's flag where ``fallback`` (the point took that
+    cell's value) or for ``nearest``; 255 outside the grid."""
+    flat = flags.ravel()
+    out = flat[stencil.nearest].astype(np.int64)
+    if stencil.corners:
+        merged = np.zeros(out.shape, dtype=np.int64)
+        for index, weight in zip(stencil.corners, stencil.weights, strict=True):
+            corner = flat[index].astype(np.int64)
+            merged |= np.where((weight > 0) & (corner != FLAG_NODATA), corner, 0)
+        out = np.where(fallback | (out == FLAG_NODATA), out, merged)
+    return np.where(stencil.inside, out, FLAG_NODATA)
+
+
 def sample_run(
     run: RunDir, grid: Grid, gx: np.ndarray, gy: np.ndarray, *, method: str
 ) -> tuple[dict[str, np.ndarray], np.ndarray]:
     """Sample every variable of ``run`` at grid-CRS points; return ({name: values}, status).
 
-    The grids are loaded one at a time, so memory holds one variable at once.
+    Where the run has a validity flag grid, the columns end with ``validity_flag`` (int64) and
+    ``flag_meaning`` (text), see the module notes. The grids are loaded one at a time, so
+    memory holds one variable at once.
     """
     check_method(method)
     stencil = make_stencil(grid, gx, gy, method=method)
     ref = reference_name(run)
     columns: dict[str, np.ndarray] = {}
     status = np.full(stencil.inside.shape, STATUS_OK, dtype=object)
+    fallback = np.ones(stencil.inside.shape, dtype=bool)
     for name in variable_names(run):
         values, flagged = apply_stencil(stencil, load_variable(run, name, grid))
         columns[name] = values
         if name == ref:
             status[flagged] = STATUS_NEXT_TO_NODATA
             status[~np.isfinite(values)] = STATUS_NODATA
+            fallback = flagged | ~np.isfinite(values)
     status[~stencil.inside] = STATUS_OUTSIDE
+    flags = load_flag(run, grid)
+    if flags is not None:
+        columns[FLAG_COLUMN] = apply_flag_stencil(stencil, flags, fallback)
+        columns[FLAG_MEANING_COLUMN] = describe_flags(columns[FLAG_COLUMN], flag_meanings(run))
     return columns, status
 
 

@@ -1,18 +1,38 @@
 """Screening a finished run for candidate volcanic regions.
 
-:func:`screen` finds the connected groups of cells whose melt thickness reaches a threshold and
-turns them into ranked candidate polygons; :func:`write_candidates` writes them as a GeoPackage
-and a GeoJSON twin. ``lidmelt screen`` is the command-line form.
+:func:`screen` finds the connected groups of cells whose melt reaches a threshold and turns them
+into ranked candidate polygons; :func:`write_candidates` writes them as a GeoPackage and a
+GeoJSON twin. ``lidmelt screen`` is the command-line form.
 
 Screening
 ---------
-Candidate regions are groups of cells with ``melt_thickness_km`` >= the threshold that touch
-along an edge or at a corner (8-connectivity; on a global geographic grid also across the
-antimeridian seam), whose area is at least ``min_area_km2``. Each becomes a (Multi)Polygon along
-its cells' edges, with the statistics columns of :mod:`lidmelt.products.regions` (``area_km2``
-is the area of the region's cells, equal to that of its polygon, which follows the cell edges)
-plus ``rank`` (1 = largest melt volume) and ``centroid_lon``/``centroid_lat`` (WGS84 degrees:
-the area-weighted mean position of its cells on the sphere).
+The basis says which melt a cell must reach: ``"anomaly"`` (default) the melt the thermal
+anomaly adds, ``anomaly_melt_thickness_km`` (melt thickness minus that of ambient mantle beneath
+the same lid and water), so that young seafloor where ambient mantle melts beneath a thin lid (as
+at a spreading ridge) is not taken for an intraplate candidate; ``"total"`` the whole
+``melt_thickness_km``. ``min_age_ma`` leaves out cells of younger plate age (the run's
+``plate_age_ma`` input).
+
+Candidate regions are groups of cells with the basis's melt >= the threshold that touch along
+an edge or at a corner (8-connectivity; on a global geographic grid also across the antimeridian
+seam), whose area is at least ``min_area_km2``. Each becomes a (Multi)Polygon along its cells'
+edges, with the statistics columns of :mod:`lidmelt.products.regions` (``area_km2`` is the area
+of the region's cells, equal to that of its polygon, which follows the cell edges; the optional
+columns appear where the run has their variable: anomaly melt volume, plate-age range, flagged
+fraction, melt production) plus ``rank`` (1 = largest melt volume of the basis:
+``anomaly_melt_volume_km3`` or ``melt_volume_km3``), ``plume``, ``plume_match`` and
+``centroid_lon``/``centroid_lat`` (WGS84 degrees: the area-weighted mean position of its cells
+on the sphere).
+
+Plumes
+------
+Each candidate is linked to a plume of the run's workflow (``summary.json`` inputs ->
+``thermal_anomaly_k`` -> ``plumes``; a plume without a name is called ``plume N`` after its
+place in the workflow, from 1): the plume whose centre lies in a cell of the region
+(``plume_match`` "centre inside"; several such plumes are joined with ", "), else the plume
+nearest to the region among those whose centre lies within their ``radius_km`` of the region's
+nearest cell centre (WGS84 geodesic distance; "within radius"), else none (``plume`` "",
+``plume_match`` "none").
 """
 
 from __future__ import annotations
@@ -26,21 +46,37 @@ import numpy as np
 import pandas as pd
 import pyproj
 
-from lidmelt.errors import InputError
+from lidmelt.errors import InputError, RunDirError
 from lidmelt.files import atomic_paths
 from lidmelt.grids.grid import WGS84
 from lidmelt.grids.rundir import RunDir
 from lidmelt.products import sampling as smp
-from lidmelt.products.regions import Zones, transform_geometries
+from lidmelt.products.regions import GEOD, Zones, transform_geometries
 
 if TYPE_CHECKING:
     import geopandas as gpd
     import shapely
 
-__all__ = ["CANDIDATE_COLUMNS", "screen", "write_candidates"]
+__all__ = [
+    "BASES",
+    "BASIS_VOLUME",
+    "CANDIDATE_COLUMNS",
+    "PLUME_MATCHES",
+    "screen",
+    "write_candidates",
+]
 
 #: Extra columns of a screening result.
-CANDIDATE_COLUMNS = ("rank", "centroid_lon", "centroid_lat")
+CANDIDATE_COLUMNS = ("rank", "plume", "plume_match", "centroid_lon", "centroid_lat")
+
+#: Screening bases: the melt a candidate cell must reach.
+BASES = ("anomaly", "total")
+
+#: The volume column that ranks the candidates of each basis.
+BASIS_VOLUME = {"anomaly": "anomaly_melt_volume_km3", "total": "melt_volume_km3"}
+
+#: Values of ``plume_match``: how a candidate's plume was found.
+PLUME_MATCHES = ("centre inside", "within radius", "none")
 
 
 def _label(mask: np.ndarray, *, periodic: bool) -> tuple[np.ndarray, int]:
@@ -103,6 +139,8 @@ def screen(
     *,
     min_melt_thickness_km: float,
     min_area_km2: float = 0.0,
+    basis: str = "anomaly",
+    min_age_ma: float | None = None,
 ) -> gpd.GeoDataFrame:
     """Find candidate regions: connected groups of cells that melt at least a threshold.
 
@@ -111,43 +149,60 @@ def screen(
     run : RunDir or path
         A run directory written by ``lidmelt run``.
     min_melt_thickness_km : float
-        A cell is a candidate cell when ``melt_thickness_km`` >= this. Units: km; > 0.
+        A cell is a candidate cell when the basis's melt thickness >= this. Units: km; > 0.
     min_area_km2 : float
         Smallest area of a candidate region. Units: km^2; >= 0.
+    basis : {"anomaly", "total"}
+        ``"anomaly"``: the melt the thermal anomaly adds (``anomaly_melt_thickness_km``);
+        ``"total"``: ``melt_thickness_km``.
+    min_age_ma : float, optional
+        Leave out cells whose plate age is below this (or unknown). Units: Ma; >= 0. Needs a
+        run with a plate age.
 
     Returns
     -------
     geopandas.GeoDataFrame
-        One row per candidate in the grid's CRS, ordered by melt volume (``rank`` 1 = largest):
-        ``rank``, the statistics columns of the module notes, ``centroid_lon``,
-        ``centroid_lat`` (WGS84 degrees), and (Multi)Polygon geometries along the cells' edges.
-        Empty (with these columns) when no region qualifies.
+        One row per candidate in the grid's CRS, ordered by the basis's melt volume (``rank``
+        1 = largest): ``rank``, ``plume``, ``plume_match``, the statistics columns of the
+        module notes, ``centroid_lon``, ``centroid_lat`` (WGS84 degrees), and (Multi)Polygon
+        geometries along the cells' edges. Empty (with these columns) when no region
+        qualifies. ``attrs["lidmelt_basis"]`` holds the basis.
 
     Raises
     ------
     lidmelt.errors.InputError
-        If a threshold is not a positive number (or the area negative).
+        If a threshold is not a positive number (or the area or age negative), the basis is
+        unknown, or ``min_age_ma`` is given for a run without a plate age.
     lidmelt.errors.RunDirError
-        If ``run`` is not a run directory or has no melt_thickness_km.
+        If ``run`` is not a run directory, has no melt_thickness_km, or (basis ``"anomaly"``)
+        no anomaly_melt_thickness_km.
     """
     import geopandas as gpd
 
     thr, min_area = _check_thresholds(min_melt_thickness_km, min_area_km2)
+    _check_basis(basis)
     run = smp.as_run(run)
     zones = Zones.load(run)
     grid = zones.grid
-    mask = np.isfinite(zones.melt) & (zones.melt >= thr)
+    values = _basis_values(zones, basis, run=run)
+    mask = np.isfinite(values) & (values >= thr)
+    if min_age_ma is not None:
+        mask &= _old_enough(zones, min_age_ma, run=run)
     labels, n = _label(mask, periodic=grid.is_periodic)
-    records = _candidate_records(zones, labels, n, min_area)
+    records = _candidate_records(zones, labels, n, min_area, volume=BASIS_VOLUME[basis])
+    _match_plumes(records, labels, zones, run_plumes(run))
     polygons = _component_polygons(labels, np.array([r["label"] for r in records]), grid.affine)
-    columns = ["rank", *zones.columns, "centroid_lon", "centroid_lat"]
+    columns = ["rank", "plume", "plume_match", *zones.columns, "centroid_lon", "centroid_lat"]
     frame = pd.DataFrame(records, columns=["label", *columns[1:]])
     frame.insert(0, "rank", np.arange(1, len(frame) + 1, dtype="int64"))
     frame["n_cells"] = frame["n_cells"].astype("int64")
+    frame[["plume", "plume_match"]] = frame[["plume", "plume_match"]].astype(object)
     geoms = [polygons[label] for label in frame["label"]]
     frame = frame.drop(columns="label")
     crs = grid.pyproj_crs
-    return gpd.GeoDataFrame(frame, geometry=gpd.GeoSeries(geoms, crs=crs), crs=crs)
+    out = gpd.GeoDataFrame(frame, geometry=gpd.GeoSeries(geoms, crs=crs), crs=crs)
+    out.attrs["lidmelt_basis"] = basis
+    return out
 
 
 def _check_thresholds(min_melt_thickness_km: Any, min_area_km2: Any) -> tuple[float, float]:
@@ -170,11 +225,55 @@ def _check_thresholds(min_melt_thickness_km: Any, min_area_km2: Any) -> tuple[fl
     return thr, min_area
 
 
+def _check_basis(basis: Any) -> None:
+    if basis not in BASES:
+        msg = (
+            f"screening basis {basis!r} is not known; expected one of {', '.join(BASES)}: "
+            "'anomaly' (the melt the thermal anomaly adds, default) or 'total' (all melt)."
+        )
+        raise InputError(msg)
+
+
+def _basis_values(zones: Zones, basis: str, *, run: RunDir) -> np.ndarray:
+    """The melt thickness grid the basis screens (km)."""
+    if basis == "total":
+        return zones.melt
+    if zones.anomaly_melt is None:
+        msg = (
+            f"run directory {str(run.path)!r} has no anomaly_melt_thickness_km output (it was "
+            "written by an earlier lidmelt); screening on the anomaly basis (the default) needs "
+            "the melt the thermal anomaly adds. Run 'lidmelt run' again with this version, or "
+            "screen the total melt with --basis total (basis='total')."
+        )
+        raise RunDirError(msg)
+    return zones.anomaly_melt
+
+
+def _old_enough(zones: Zones, min_age_ma: Any, *, run: RunDir) -> np.ndarray:
+    """Cells whose plate age is at least ``min_age_ma`` (unknown ages are left out)."""
+    age = _as_float(min_age_ma)
+    if not (np.isfinite(age) and age >= 0):
+        msg = (
+            f"--min-age {min_age_ma!r} Ma is not a non-negative plate age; expected the "
+            "youngest seafloor to keep, in Ma (million years), e.g. 20."
+        )
+        raise InputError(msg)
+    if zones.plate_age is None:
+        msg = (
+            f"--min-age {age:g} Ma needs the run's plate age, but {str(run.path)!r} has no "
+            "input_plate_age_ma (its lid came from a lid-thickness grid or a constant). Drop "
+            "--min-age, or run 'lidmelt run' with a plate-age grid ([inputs.plate_age])."
+        )
+        raise InputError(msg)
+    with np.errstate(invalid="ignore"):
+        return np.isfinite(zones.plate_age) & (zones.plate_age >= age)
+
+
 def _candidate_records(
-    zones: Zones, labels: np.ndarray, n: int, min_area: float
+    zones: Zones, labels: np.ndarray, n: int, min_area: float, *, volume: str
 ) -> list[dict[str, Any]]:
     """Statistics and centroid of each labelled region of at least ``min_area`` km^2, ordered
-    by melt volume (then area, then label)."""
+    by the ``volume`` column (then area, then label); each keeps its cells' flat indices."""
     flat_labels = labels.ravel()
     cells = np.flatnonzero(flat_labels)
     order = np.argsort(flat_labels[cells], kind="stable")
@@ -194,10 +293,69 @@ def _candidate_records(
                 **stats,
                 "centroid_lon": lon,
                 "centroid_lat": lat,
+                "cells": flat,
             }
         )
-    records.sort(key=lambda r: (-r["melt_volume_km3"], -r["area_km2"], r["label"]))
+    records.sort(key=lambda r: (-r[volume], -r["area_km2"], r["label"]))
     return records
+
+
+def run_plumes(run: RunDir) -> list[dict[str, Any]]:
+    """The workflow plumes of a run (``summary.json``), each with a ``name`` ("plume N" when
+    the workflow gave none); plumes lacking a centre or radius are skipped."""
+    entry = (run.summary.get("inputs") or {}).get("thermal_anomaly_k") or {}
+    plumes = []
+    for k, p in enumerate(entry.get("plumes") or [], start=1):
+        try:
+            lon, lat = float(p["longitude"]), float(p["latitude"])
+            radius = float(p["radius_km"])
+        except (KeyError, TypeError, ValueError):
+            continue
+        name = str(p.get("name") or f"plume {k}")
+        plumes.append({"name": name, "longitude": lon, "latitude": lat, "radius_km": radius})
+    return plumes
+
+
+def _match_plumes(
+    records: list[dict[str, Any]], labels: np.ndarray, zones: Zones, plumes: list[dict[str, Any]]
+) -> None:
+    """Set ``plume`` and ``plume_match`` of each record (rule in the module notes)."""
+    grid = zones.grid
+    inside_label = np.zeros(len(plumes), dtype=np.int64)
+    if plumes:
+        lon = np.array([p["longitude"] for p in plumes])
+        lat = np.array([p["latitude"] for p in plumes])
+        gx, gy = grid.to_grid_xy(lon, lat, WGS84)
+        stencil = smp.make_stencil(grid, gx, gy, method="nearest")
+        inside_label = np.where(stencil.inside, labels.ravel()[stencil.nearest], 0)
+    edge = _edge_cells(labels > 0)
+    for record in records:
+        cells, label = record.pop("cells"), record["label"]
+        names = [p["name"] for p, at in zip(plumes, inside_label, strict=True) if at == label]
+        if names:
+            record["plume"], record["plume_match"] = ", ".join(names), PLUME_MATCHES[0]
+            continue
+        record["plume"], record["plume_match"] = "", PLUME_MATCHES[2]
+        border = cells[edge.ravel()[cells]]
+        rows, cols = np.divmod(border, grid.width)
+        clon, clat = grid.cell_centres_lonlat(rows, cols)
+        best = math.inf
+        for p in plumes:
+            _, _, dist_m = GEOD.inv(
+                np.full(clon.shape, p["longitude"]), np.full(clat.shape, p["latitude"]), clon, clat
+            )
+            dist_km = float(np.min(dist_m)) / 1000.0 if np.size(dist_m) else math.inf
+            if dist_km <= p["radius_km"] and dist_km < best:
+                best = dist_km
+                record["plume"], record["plume_match"] = p["name"], PLUME_MATCHES[1]
+
+
+def _edge_cells(mask: np.ndarray) -> np.ndarray:
+    """Cells of ``mask`` with a 4-neighbour outside it (or on the grid's edge): the cells where
+    the geodesic distance from an outside point to the region is smallest."""
+    from scipy import ndimage
+
+    return mask & ~ndimage.binary_erosion(mask, border_value=0)
 
 
 def _rfc7946(gdf: gpd.GeoDataFrame) -> gpd.GeoDataFrame:

@@ -38,6 +38,14 @@ the value of the cell that contains the station. Statuses:
 A variable that is NaN by definition at some cells (``onset_depth_km`` where the mantle never
 reaches its solidus) follows the same rule on its own cells. Within the outer half cell of the
 grid the values are those of the edge cells.
+
+Validity flag
+-------------
+Where the run has its validity flag grid, each station also gets ``validity_flag`` (integer bit
+flags; 0 where valid and calibrated, 255 outside the data) and ``flag_meaning`` (the meanings
+of the bits set, e.g. "onset deeper than the model's calibrated pressure range"), by the rule of
+:mod:`lidmelt.products.sampling`. The status keeps its meaning: a station whose onset lies
+beyond the calibrated pressure range is ``ok`` (it has data) and carries flag bit 4.
 """
 
 from __future__ import annotations
@@ -92,6 +100,7 @@ def sample_stations(
         The stations in their order and CRS with their columns, then one column per output
         variable and input of the run (units in the names: ``_km`` km, ``_gpa`` GPa, ``_k`` K,
         ``_ma`` Ma, ``_wt_pct`` wt%; ``max_melt_fraction`` is a fraction, 0..1), then
+        ``validity_flag`` and ``flag_meaning`` (where the run has its flag grid), then
         ``status`` (``ok``, ``outside_grid``, ``nodata``, ``next_to_nodata``).
 
     Raises
