@@ -698,8 +698,8 @@ def test_melting_regime_is_drawn_as_classes_with_a_legend(make_run_dir, new_outp
 def test_melt_production_style_is_sequential_with_no_melting_white(make_run_dir, new_outputs):
     run = make_run_dir(regime_fields(), transform=BOX, name="production")
     fig, info = maps.make_map_figure(run, "melt_production_mm_yr", dpi=60, coastlines=False)
-    # Check values: the documented style (magma, sequential), 0 = no melting drawn white.
-    assert info.cmap == "magma"
+    # Check values: the documented style (plasma, sequential), 0 = no melting drawn white.
+    assert info.cmap == "plasma"
     assert not info.categorical
     assert info.colorbar is not None
     assert info.vmin == 0.0

@@ -23,7 +23,8 @@ class value gets one colour and a legend entry, and no colour bar is drawn. The 
 are white (no melting, as in the other maps) and the blue and vermillion of the colour-blind
 safe palette of Okabe & Ito (2008), "Color Universal Design" (distinct for the common forms of
 colour-vision deficiency). Melt production (``melt_production_mm_yr``) is sequential
-(``magma``), with 0 drawn as "no melting".
+(``plasma``, whose light end is yellow, not white: the white "no melting" class stays distinct;
+magma and inferno end near white), with 0 drawn as "no melting".
 """
 
 from __future__ import annotations
@@ -117,7 +118,7 @@ STYLES: dict[str, MapStyle] = {
     "water": MapStyle("cividis"),
     "flag": MapStyle("viridis"),  # the validity flags are not drawn by 'lidmelt map'
     "regime": MapStyle("viridis", classes=REGIME_CLASSES),
-    "production": MapStyle("magma", zero_is_no_melt=True),
+    "production": MapStyle("plasma", zero_is_no_melt=True),  # no near-white end (0 is white)
 }
 #: Style of a variable the registry does not know, or whose key has no entry.
 DEFAULT_STYLE = MapStyle("viridis")
