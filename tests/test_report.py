@@ -261,29 +261,11 @@ def pdf_text(data):
     )
 
 
-def write_flag_grid(path, flags):
-    import rasterio
-
-    with rasterio.open(
-        path / "validity_flag.tif",
-        "w",
-        driver="GTiff",
-        height=flags.shape[0],
-        width=flags.shape[1],
-        count=1,
-        dtype="uint8",
-        crs="EPSG:4326",
-        transform=BOX,
-        nodata=255,
-    ) as dst:
-        dst.write(flags.astype("uint8"), 1)
-
-
 WARNING = "more than a quarter of the cells with data melt at the ambient temperature (invented)"
 
 
 @pytest.fixture
-def flagged_run(make_run_dir):
+def flagged_run(make_run_dir, make_flag_grid):
     summary = {
         **SUMMARY,
         "warnings": [WARNING],
@@ -300,7 +282,7 @@ def flagged_run(make_run_dir):
     flags[5:10, 10:15] = 4  # 25 cells beyond calibration
     flags[10:12, 10:13] = 2  # 6 cells without onset
     flags[0, 20] = 4 | 8  # 1 cell beyond calibration and water-saturated
-    write_flag_grid(path, flags)
+    make_flag_grid(path, flags, transform=BOX)
     return path
 
 
