@@ -110,6 +110,32 @@ def write_run_dir(path, fields, *, transform, crs="EPSG:4326", summary=None):
     return path
 
 
+def write_flag_grid(path, flags, *, transform, crs="EPSG:4326"):
+    """Write ``flags`` (uint8 bit flags, 255 = no data) as ``path/validity_flag.tif``."""
+    import rasterio
+
+    with rasterio.open(
+        Path(path) / "validity_flag.tif",
+        "w",
+        driver="GTiff",
+        height=flags.shape[0],
+        width=flags.shape[1],
+        count=1,
+        dtype="uint8",
+        crs=crs,
+        transform=transform,
+        nodata=255,
+    ) as dst:
+        dst.write(np.asarray(flags, dtype="uint8"), 1)
+    return Path(path) / "validity_flag.tif"
+
+
+@pytest.fixture
+def make_flag_grid():
+    """``make_flag_grid(run_path, flags, transform=...)`` writes a run's validity_flag.tif."""
+    return write_flag_grid
+
+
 @pytest.fixture
 def make_run_dir(tmp_path):
     """Factory fixture: ``make_run_dir(fields, transform=..., crs=..., summary=...)``."""

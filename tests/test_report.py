@@ -238,3 +238,114 @@ def test_cli_report(run, tmp_path, capsys):
 def test_cli_report_bad_run_dir(tmp_path, capsys):
     assert main(["report", str(tmp_path / "nothing")]) == 1
     assert "does not exist" in capsys.readouterr().err
+
+
+# Warnings, flag counts and the anomaly basis (issue 11) --------------------------------------
+
+
+def pdf_text(data):
+    """The text drawn on the pages of a matplotlib PDF (its zlib streams' TJ/Tj strings)."""
+    import zlib
+
+    lines = []
+    for stream in re.findall(rb"stream\r?\n(.*?)endstream", data, re.S):
+        try:
+            content = zlib.decompress(stream)
+        except zlib.error:  # images and fonts that are not zlib streams
+            continue
+        for array in re.findall(rb"\[(.*?)\]\s*TJ", content, re.S):
+            lines.append(b"".join(re.findall(rb"\(((?:\\.|[^\\)])*)\)", array)))
+        lines.extend(re.findall(rb"\(((?:\\.|[^\\)])*)\)\s*Tj", content))
+    return "\n".join(
+        line.decode("latin-1").replace("\\(", "(").replace("\\)", ")") for line in lines
+    )
+
+
+WARNING = "more than a quarter of the cells with data melt at the ambient temperature (invented)"
+
+
+@pytest.fixture
+def flagged_run(make_run_dir, make_flag_grid):
+    summary = {
+        **SUMMARY,
+        "warnings": [WARNING],
+        "statistics": {
+            **SUMMARY["statistics"],
+            "anomaly_melt_volume_km3": 45678.9,
+            "anomaly": {"melting_cells": 42},
+            "melt_production_km3_yr": 0.012345,
+        },
+    }
+    path = make_run_dir(fields(), transform=BOX, summary=summary, name="flagged")
+    flags = np.zeros((20, 30), dtype=np.uint8)
+    flags[:, :3] = 255  # 60 cells without data
+    flags[5:10, 10:15] = 4  # 25 cells beyond calibration
+    flags[10:12, 10:13] = 2  # 6 cells without onset
+    flags[0, 20] = 4 | 8  # 1 cell beyond calibration and water-saturated
+    make_flag_grid(path, flags, transform=BOX)
+    return path
+
+
+def test_report_counts_cells_per_flag_bit(flagged_run):
+    from lidmelt.physics import FLAG_MEANINGS
+
+    text = html_of(report.write_report(flagged_run, maps=[]))
+    # Check values: counts by construction of the fixture's grid (600 cells, 60 without data,
+    # 540 with data; bit 4: 25 + 1; bit 2: 6; bit 8: 1; no flag: 540 - 32 = 508).
+    assert '<section id="flags"><h2>Validity flags</h2>' in text
+    for bit, count in ((1, 0), (2, 6), (4, 26), (8, 1)):
+        meaning = FLAG_MEANINGS[bit].replace("'", "&#x27;")
+        assert f"<td>{bit}</td><td>{meaning}</td><td>{count}</td>" in text
+    assert "<td>0</td><td>no flag: valid and calibrated</td><td>508</td>" in text
+    assert "<td>cells with data (any flag)</td><td>540</td>" in text
+    assert "<td>cells in the grid</td><td>600</td>" in text
+    assert "<td>4.81 %</td>" in text  # 26 / 540 to 3 significant figures
+    # The flags come before the maps, right after the summary.
+    assert text.index('id="summary"') < text.index('id="flags"') < text.index('id="maps"')
+
+
+def test_report_without_a_flag_grid_says_so(run):
+    text = html_of(report.write_report(run, maps=[]))
+    assert "has no validity flag grid" in text
+
+
+def test_warnings_are_shown_near_the_top(flagged_run, run):
+    text = html_of(report.write_report(flagged_run, maps=[]))
+    assert f"<li>{WARNING}</li>" in text
+    # Near the top: after the job line, before the caution and every section.
+    assert text.index('class="job"') < text.index('id="warnings"') < text.index('class="caution"')
+    assert text.index('id="warnings"') < text.index("<section")
+    assert 'id="warnings"' not in html_of(report.write_report(run, maps=[]))  # none, no box
+
+
+def test_anomaly_basis_and_further_statistics_to_three_figures(flagged_run):
+    text = html_of(report.write_report(flagged_run, maps=[]))
+    # Check values: the summary's own numbers rounded to 3 significant figures (45678.9 ->
+    # 45,700; 0.012345 -> 0.0123); counts (integers) are exact.
+    assert "<td>anomaly_melt_volume_km3</td><td>45,700 km³</td>" in text
+    assert "<td>anomaly.melting_cells</td><td>42</td>" in text
+    assert "<td>melt_production_km3_yr</td><td>0.0123 km³/yr</td>" in text
+    assert text.index("Statistic (anomaly basis)") < text.index("Further statistic")
+    # The totals keep their own table and format (unchanged).
+    assert "45,679 km²" in text
+
+
+def test_format_sig():
+    # Check values: rounding to 3 significant figures by hand.
+    assert report.format_sig(45678.9) == "45,700"
+    assert report.format_sig(2.25) == "2.25"
+    assert report.format_sig(-0.0012345, unit="K") == "-0.00123 K"
+    assert report.format_sig(1.0e-7) == "1.00e-07"
+    assert report.format_sig(999.96) == "1,000"
+    assert report.format_sig(1234567) == "1,234,567"  # a count: exact
+
+
+def test_pdf_shows_warnings_flags_and_anomaly_basis(flagged_run):
+    out = report.write_report(flagged_run, maps=[], pdf=True)
+    text = pdf_text(out.with_suffix(".pdf").read_bytes())
+    assert "WARNINGS" in text
+    assert "more than a quarter of the cells with data melt" in text
+    assert "Validity flags" in text
+    assert "Cells: 26" in text  # bit 4, as in the HTML test
+    assert "anomaly_melt_volume_km3" in text
+    assert text.index("WARNINGS") < text.index("Caution") < text.index("Validity flags")

@@ -7,6 +7,7 @@ The package keeps presentation apart from drawing:
 - :mod:`.page`: the page layout in inches (map, colour bar, legend, wrapped text);
 - :mod:`.overlays`: coastlines (local files only), plate-age contours, stations, candidates;
 - :mod:`.captions`: the subtitle and caption text;
+- :mod:`.flags`: the run's validity flags: reading, hatching flagged cells, counts;
 - :mod:`.figure`: :func:`make_map_figure`, the figure drawn in named steps;
 - :mod:`.write`: :func:`draw_map`, :func:`draw_run_maps` and :func:`save_figure`.
 """
@@ -19,6 +20,12 @@ from lidmelt.products.maps.figure import (
     make_map_figure,
     render_map,
     resolve_options,
+)
+from lidmelt.products.maps.flags import (
+    MARKED_FLAGS,
+    FlagGrid,
+    flag_counts,
+    read_flags,
 )
 from lidmelt.products.maps.layout import (
     Region,
@@ -40,11 +47,14 @@ from lidmelt.products.maps.style import (
     MELT_TOP_PERCENTILE,
     NODATA_COLOR,
     PERCENTILES,
+    REGIME_CLASSES,
     STYLES,
     ZERO_COLOR,
+    ClassStyle,
     MapStyle,
     VariableStyle,
     colour_limits,
+    encode_categories,
     encode_classes,
     style_for,
     unit_label,
@@ -54,11 +64,15 @@ from lidmelt.products.maps.write import FORMATS, draw_map, draw_run_maps, save_f
 __all__ = [
     "COASTLINE_RELPATH",
     "FORMATS",
+    "MARKED_FLAGS",
     "MELT_TOP_PERCENTILE",
     "NODATA_COLOR",
     "PERCENTILES",
+    "REGIME_CLASSES",
     "STYLES",
     "ZERO_COLOR",
+    "ClassStyle",
+    "FlagGrid",
     "MapInfo",
     "MapOptions",
     "MapStyle",
@@ -72,8 +86,10 @@ __all__ = [
     "describe_lid",
     "draw_map",
     "draw_run_maps",
+    "encode_categories",
     "encode_classes",
     "find_coastlines",
+    "flag_counts",
     "lid_model",
     "load_candidates",
     "load_stations",
@@ -82,6 +98,7 @@ __all__ = [
     "map_caption",
     "model_line",
     "projection_names",
+    "read_flags",
     "render_map",
     "require_file",
     "resolve_coastlines",

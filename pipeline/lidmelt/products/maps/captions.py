@@ -48,6 +48,8 @@ def model_line(summary: dict[str, Any]) -> str:
 
 def _limits_text(style: VariableStyle, *, no_melt: bool, extend: str) -> str:
     """How the colour limits were chosen and what white means."""
+    if style.categorical:
+        return "Colours: the classes named in the legend"
     if style.zero_is_no_melt:
         limits = (
             f"Colour scale from 0 to the {MELT_TOP_PERCENTILE:g}th percentile of the melting "
@@ -74,14 +76,21 @@ def map_caption(
     proj_name: str,
     age: bool,
     coast_path: Path | None,
+    flag_note: str = "",
 ) -> str:
-    """The caption: lid, colour limits and classes, projection, overlays, lidmelt version."""
+    """The caption: lid, colour limits and classes, hatching, projection, overlays, version.
+
+    ``flag_note`` is the sentence on the hatched (flagged) cells, if any
+    (:func:`.flags.flag_caption`).
+    """
     lid = describe_lid(summary)
     parts = [
         f"{lid[:1].upper()}{lid[1:]}.",
         f"{_limits_text(style, no_melt=no_melt, extend=extend)}; grey: no data.",
-        f"Projection: {proj_name}.",
     ]
+    if flag_note:
+        parts.append(flag_note)
+    parts.append(f"Projection: {proj_name}.")
     if age:
         parts.append("Contours: plate age (Ma).")
     if coast_path is None:

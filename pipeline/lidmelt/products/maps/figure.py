@@ -5,7 +5,9 @@ suited to the extent (:mod:`.layout`), a colour bar with the variable's long nam
 labelled graticules, optional overlays (stations, candidate outlines, plate-age contours,
 coastlines; :mod:`.overlays`) and a title and caption that name the melting model and the
 ambient mantle potential temperature (:mod:`.captions`). Colours and colour limits come from
-:mod:`.style`.
+:mod:`.style`; categorical variables (``melting_regime``) get one legend entry per class and
+no colour bar. Output variables are hatched where the run's validity flags mark cells as
+computed beyond calibration, without a solidus crossing or with free water (:mod:`.flags`).
 
 :func:`make_map_figure` runs these steps: open the variable and its colour limits
 (:func:`_open_field`), size the page around the projected extent (:func:`_start_page`), place
@@ -36,6 +38,7 @@ from matplotlib.ticker import FixedLocator, MaxNLocator
 
 from lidmelt.errors import InputError
 from lidmelt.grids.rundir import RunDir, open_run
+from lidmelt.products.maps import flags as fl
 from lidmelt.products.maps import layout as lay
 from lidmelt.products.maps import overlays as ov
 from lidmelt.products.maps import page as pg
@@ -44,7 +47,9 @@ from lidmelt.products.maps.style import (
     NODATA_COLOR,
     ZERO_COLOR,
     VariableStyle,
+    class_legend_handles,
     colour_limits,
+    encode_categories,
     encode_classes,
     style_for,
     title_of,
@@ -82,6 +87,9 @@ class MapOptions:
     coastlines : path, bool or None
         A coastline file; None: look locally (:func:`.overlays.find_coastlines`) and warn if
         none; False: draw none, silently.
+    flags : bool (or a loaded :class:`.flags.FlagGrid`)
+        Hatch the flagged cells of output variables (:mod:`.flags`) when the run has a
+        validity flag grid; False: draw no hatching.
     dpi : float
         Resolution, dots per inch; the figure is ``width_in * dpi`` pixels wide.
     width_in : float
@@ -94,6 +102,7 @@ class MapOptions:
     candidates: str | Path | Sequence[Any] | None = None
     age_contours: bool | Any = False
     coastlines: str | Path | bool | None = None
+    flags: bool | Any = True
     dpi: float = 150
     width_in: float = 8.0
 
@@ -125,6 +134,9 @@ class MapInfo:
     zero_color: str | None = None
     nodata_color: str = NODATA_COLOR
     decimation: int = 1
+    categorical: bool = False
+    flag_bits: tuple[int, ...] = ()
+    legend_labels: tuple[str, ...] = ()
     ax: Any = field(default=None, repr=False)
     colorbar: Any = field(default=None, repr=False)
     gridliner: Any = field(default=None, repr=False)
@@ -157,8 +169,9 @@ def check_variable(run: RunDir, variable: str) -> str:
 def resolve_options(run: RunDir, opts: MapOptions) -> MapOptions:
     """Check the figure size, read the overlay files, find coastlines and the age grid, once.
 
-    Returns options holding loaded stations and candidates, a coastline Path or False, and
-    the plate-age DataArray or False; resolving them again changes nothing and warns no more.
+    Returns options holding loaded stations and candidates, a coastline Path or False, the
+    plate-age DataArray or False, and the validity flag grid or False; resolving them again
+    changes nothing and warns no more.
 
     Raises
     ------
@@ -178,12 +191,14 @@ def resolve_options(run: RunDir, opts: MapOptions) -> MapOptions:
         candidates = ov.load_candidates(candidates)
     coast = ov.resolve_coastlines(opts.coastlines)
     age = ov.load_age(run, opts.age_contours)
+    flags = fl.read_flags(run) if opts.flags is True else opts.flags
     return replace(
         opts,
         stations=stations,
         candidates=candidates,
         coastlines=coast if coast is not None else False,
         age_contours=age if age is not None else False,
+        flags=flags if flags is not None else False,
     )
 
 
@@ -210,6 +225,8 @@ class _Field:
     vmax: float
     extend: str
     no_melt: np.ndarray | None
+    flag_bits: tuple[int, ...] = ()
+    flag_grid: Any = None
 
 
 def _no_melt_mask(run: RunDir, values: np.ndarray, style: VariableStyle) -> np.ndarray | None:
@@ -236,7 +253,13 @@ def _open_field(run: RunDir, variable: str, opts: MapOptions) -> _Field:
     style = style_for(variable)
     values = np.asarray(da.values, dtype=float)
     in_view = values[lay.region_mask(da, region)] if region_given else values
-    vmin, vmax, extend = colour_limits(in_view, zero_is_no_melt=style.zero_is_no_melt)
+    if style.categorical:
+        vmin, vmax, extend = 0.0, float(len(style.classes) - 1), "neither"
+    else:
+        vmin, vmax, extend = colour_limits(in_view, zero_is_no_melt=style.zero_is_no_melt)
+    flags = opts.flags
+    hatch = variable in run.outputs and isinstance(flags, fl.FlagGrid)
+    bits = flags.marked_kinds() if hatch and flags.values.shape == values.shape else ()
     return _Field(
         variable=variable,
         da=da,
@@ -253,6 +276,8 @@ def _open_field(run: RunDir, variable: str, opts: MapOptions) -> _Field:
         vmax=vmax,
         extend=extend,
         no_melt=_no_melt_mask(run, values, style),
+        flag_bits=bits,
+        flag_grid=flags if bits else None,
     )
 
 
@@ -295,7 +320,7 @@ def _compose_text(
         return pg.wrap_measured(text, renderer, FontProperties(size=size, **kw), width * fig.dpi)
 
     text_w = page.width_in - page.left - 0.1
-    cbar_label = f"{f.long_name} ({unit_label(f.units)})"
+    cbar_label = "" if f.style.categorical else f"{f.long_name} ({unit_label(f.units)})"
     caption = map_caption(
         summary,
         style=f.style,
@@ -304,13 +329,14 @@ def _compose_text(
         proj_name=f.proj_name,
         age=opts.age_contours is not False,
         coast_path=opts.coastlines or None,
+        flag_note=fl.flag_caption(opts.flags or None, f.flag_bits),
     )
     cap_w = max(page.map_w + page.right - 0.15, text_w - 0.1)
     return _Text(
         title=wrap(f.long_name, 1.2 * fs, text_w, weight="bold"),
         subtitle=wrap(model_line(summary), fs, text_w),
         cbar_label=cbar_label,
-        cbar=wrap(cbar_label, fs, page.cb_w),
+        cbar=wrap(cbar_label, fs, page.cb_w) if cbar_label else [],
         caption=caption,
         cap=wrap(caption, 0.85 * fs, cap_w),
     )
@@ -335,11 +361,14 @@ def _draw_data(ax: Any, f: _Field, page: pg.PageLayout, dpi: float) -> int:
     """The data layer, thinned to about two cells per output pixel; return the stride."""
     step = lay.decimation(f.values.shape, (page.map_w * dpi, page.map_h * dpi))
     xe, ye = lay.cell_edges(f.da, step)
-    cmap = colormaps[f.style.cmap].with_extremes(bad=NODATA_COLOR)
-    no_melt = None if f.no_melt is None else f.no_melt[::step, ::step]
-    mesh, cmap_draw, norm_draw = encode_classes(
-        f.values[::step, ::step], cmap, f.vmin, f.vmax, no_melt
-    )
+    if f.style.categorical:
+        mesh, cmap_draw, norm_draw = encode_categories(f.values[::step, ::step], f.style.classes)
+    else:
+        cmap = colormaps[f.style.cmap].with_extremes(bad=NODATA_COLOR)
+        no_melt = None if f.no_melt is None else f.no_melt[::step, ::step]
+        mesh, cmap_draw, norm_draw = encode_classes(
+            f.values[::step, ::step], cmap, f.vmin, f.vmax, no_melt
+        )
     ax.pcolormesh(
         xe,
         ye,
@@ -351,6 +380,8 @@ def _draw_data(ax: Any, f: _Field, page: pg.PageLayout, dpi: float) -> int:
         transform=f.src_crs,
         zorder=1,
     )
+    if f.flag_bits:
+        fl.draw_flag_hatching(ax, f.flag_grid, f.flag_bits, da=f.da, src_crs=f.src_crs, step=step)
     return step
 
 
@@ -421,16 +452,33 @@ def _draw_colorbar(fig: Figure, f: _Field, page: pg.PageLayout, lines: list[str]
 
 
 def _draw_text(fig: Figure, f: _Field, page: pg.PageLayout, text: _Text) -> Any:
-    """Title and subtitle above the map, the colour bar, the caption; return the colour bar."""
+    """Title and subtitle above the map, the colour bar, the caption; return the colour bar.
+
+    Categorical maps have no colour bar (None is returned).
+    """
     fs, x = page.fs, page.fx(page.left)
     title_kw = {"fontsize": 1.2 * fs, "fontweight": "bold", "linespacing": 1.2}
     fig.text(x, page.fy(0.12), "\n".join(text.title), ha="left", va="top", **title_kw)
     sub_y = page.fy(0.12 + page.title_h)
     fig.text(x, sub_y, "\n".join(text.subtitle), ha="left", va="top", fontsize=fs, linespacing=1.25)
-    cbar = _draw_colorbar(fig, f, page, text.cbar)
+    cbar = None if f.style.categorical else _draw_colorbar(fig, f, page, text.cbar)
     cap_kw = {"fontsize": 0.85 * fs, "color": "0.15", "linespacing": 1.3}
     fig.text(x, page.fy(page.cap_top), "\n".join(text.cap), ha="left", va="top", **cap_kw)
     return cbar
+
+
+def _legend_handles(f: _Field, opts: MapOptions, fs: float) -> list[Any]:
+    """Legend entries: the classes of a categorical map, then overlays, then hatching."""
+    has_stations = opts.stations is not None and len(opts.stations.lon) > 0
+    handles = ov.legend_handles(
+        no_melt=f.no_melt is not None,
+        coastlines=bool(opts.coastlines),
+        age=opts.age_contours is not False,
+        candidates=bool(opts.candidates),
+        stations=has_stations,
+        fs=fs,
+    )
+    return class_legend_handles(f.style.classes) + handles + fl.flag_legend_handles(f.flag_bits)
 
 
 def make_map_figure(
@@ -469,16 +517,9 @@ def render_map(run: RunDir, variable: str, opts: MapOptions) -> tuple[Figure, Ma
     opts = resolve_options(run, opts)
     f = _open_field(run, variable, opts)
     fig, ax, page, labels, global_view = _start_page(f, opts)
-    has_stations = opts.stations is not None and len(opts.stations.lon) > 0
-    handles = ov.legend_handles(
-        no_melt=f.no_melt is not None,
-        coastlines=bool(opts.coastlines),
-        age=opts.age_contours is not False,
-        candidates=bool(opts.candidates),
-        stations=has_stations,
-        fs=page.fs,
+    legend = pg.place_legend(
+        fig, _legend_handles(f, opts, page.fs), page, colorbar=not f.style.categorical
     )
-    legend = pg.place_legend(fig, handles, page)
     text = _compose_text(fig, page, f, run.summary, opts)
     _fix_size(fig, ax, legend, page, text, top=labels["top"], dpi=opts.dpi)
     step = _draw_data(ax, f, page, opts.dpi)
@@ -489,7 +530,7 @@ def render_map(run: RunDir, variable: str, opts: MapOptions) -> tuple[Figure, Ma
         variable=variable,
         units=f.units,
         long_name=f.long_name,
-        colorbar_label=cbar.ax.get_xlabel(),
+        colorbar_label=cbar.ax.get_xlabel() if cbar is not None else "",
         cmap=f.style.cmap,
         vmin=f.vmin,
         vmax=f.vmax,
@@ -504,6 +545,9 @@ def render_map(run: RunDir, variable: str, opts: MapOptions) -> tuple[Figure, Ma
         age_levels=age_levels,
         zero_color=ZERO_COLOR if f.no_melt is not None else None,
         decimation=step,
+        categorical=f.style.categorical,
+        flag_bits=f.flag_bits,
+        legend_labels=tuple(t.get_text() for t in legend.get_texts()),
         ax=ax,
         colorbar=cbar,
         gridliner=gl,

@@ -37,7 +37,8 @@ class PageLayout:
 
     Filled in three steps: :func:`page_columns` (map width and height), :func:`place_legend`
     (colour-bar width, legend position) and :func:`page_rows` (every block's top and the
-    figure height).
+    figure height). ``colorbar`` is False for categorical maps: the legend then takes the
+    colour bar's place.
     """
 
     width_in: float
@@ -50,6 +51,7 @@ class PageLayout:
     leg_x: float = 0.0
     leg_h: float = 0.0
     legend_below: bool = False
+    colorbar: bool = True
     title_h: float = 0.0
     top_block: float = 0.0
     cbar_h: float = 0.0
@@ -90,15 +92,18 @@ def page_columns(width_in: float, fs: float, *, right_labels: bool, aspect: floa
     return PageLayout(width_in=width_in, fs=fs, left=left, right=right, map_w=map_w, map_h=map_h)
 
 
-def place_legend(fig: Any, handles: list[Any], page: PageLayout) -> Any:
+def place_legend(fig: Any, handles: list[Any], page: PageLayout, *, colorbar: bool = True) -> Any:
     """Add the legend right of the colour bar (2 columns if they fit), or below it.
 
     The colour bar takes the left 55 % of the map width; the legend is measured as rendered,
-    and on narrow figures it goes under a full-width colour bar. Sets ``page.cb_w``,
-    ``leg_x``, ``leg_h`` and ``legend_below``; returns the legend (anchored later).
+    and on narrow figures it goes under a full-width colour bar. Without a colour bar
+    (``colorbar=False``, categorical maps) the legend starts at the map's left edge. Sets
+    ``page.cb_w``, ``leg_x``, ``leg_h``, ``legend_below`` and ``colorbar``; returns the
+    legend (anchored later).
     """
-    page.cb_w = 0.55 * page.map_w
-    page.leg_x = page.left + page.cb_w + 0.3
+    page.colorbar = colorbar
+    page.cb_w = 0.55 * page.map_w if colorbar else 0.0
+    page.leg_x = page.left + page.cb_w + (0.3 if colorbar else 0.0)
     leg_avail = page.width_in - page.leg_x - 0.1
     renderer = fig.canvas.get_renderer()
     legend = None
@@ -139,8 +144,8 @@ def page_rows(
     if top_labels:
         page.top_block += 0.1 + 1.35 * fs * PT_IN
     xlabel_block = 0.1 + 1.35 * fs * PT_IN
-    page.cbar_h = max(0.1, 1.1 * fs * PT_IN)
-    cbar_text_h = 0.05 + 1.35 * fs * PT_IN + n_cbar * 1.3 * fs * PT_IN
+    page.cbar_h = max(0.1, 1.1 * fs * PT_IN) if page.colorbar else 0.0
+    cbar_text_h = 0.05 + 1.35 * fs * PT_IN + n_cbar * 1.3 * fs * PT_IN if page.colorbar else 0.0
     page.cb_top = page.top_block + page.map_h + xlabel_block + 0.16
     if page.legend_below:
         page.leg_top = page.cb_top + page.cbar_h + cbar_text_h + 0.12

@@ -17,6 +17,14 @@ melting cells, :data:`MELT_TOP_PERCENTILE`, so that the few hot plume cells keep
 structure), with extend arrows where the data go beyond them. Depths and pressures use
 ``cividis_r``: shallow is light, deep is dark. All colour maps are matplotlib's perceptually
 uniform ones (viridis family; common practice).
+
+Categorical variables (``melting_regime``) have a style with :attr:`MapStyle.classes`: each
+class value gets one colour and a legend entry, and no colour bar is drawn. The regime colours
+are white (no melting, as in the other maps) and the blue and vermillion of the colour-blind
+safe palette of Okabe & Ito (2008), "Color Universal Design" (distinct for the common forms of
+colour-vision deficiency). Melt production (``melt_production_mm_yr``) is sequential
+(``plasma``, whose light end is yellow, not white: the white "no melting" class stays distinct;
+magma and inferno end near white), with 0 drawn as "no melting".
 """
 
 from __future__ import annotations
@@ -25,7 +33,8 @@ from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
-from matplotlib.colors import ListedColormap, Normalize, to_rgba_array
+from matplotlib.colors import BoundaryNorm, ListedColormap, Normalize, to_rgba_array
+from matplotlib.patches import Patch
 
 from lidmelt.variables import VARIABLES
 
@@ -35,11 +44,15 @@ __all__ = [
     "MELT_TOP_PERCENTILE",
     "NODATA_COLOR",
     "PERCENTILES",
+    "REGIME_CLASSES",
     "STYLES",
     "ZERO_COLOR",
+    "ClassStyle",
     "MapStyle",
     "VariableStyle",
+    "class_legend_handles",
     "colour_limits",
+    "encode_categories",
     "encode_classes",
     "style_for",
     "title_of",
@@ -59,21 +72,44 @@ MELT_TOP_PERCENTILE = 99.5
 
 
 @dataclass(frozen=True)
+class ClassStyle:
+    """One class of a categorical variable: its value, colour and legend text."""
+
+    value: int
+    color: str
+    label: str
+
+
+@dataclass(frozen=True)
 class MapStyle:
     """The look shared by every variable with one style key.
 
     Parameters
     ----------
     cmap : str
-        Name of a perceptually uniform matplotlib colour map.
+        Name of a perceptually uniform matplotlib colour map (unused by categorical styles).
+    zero_is_no_melt : bool
+        0 means "no melting" for every variable of this key, whatever the registry says.
+    classes : tuple of ClassStyle
+        The classes of a categorical variable (drawn with a legend, no colour bar).
     """
 
     cmap: str
+    zero_is_no_melt: bool = False
+    classes: tuple[ClassStyle, ...] = ()
+
+
+#: The classes of ``melting_regime`` (colours: white, then Okabe & Ito 2008 blue, vermillion).
+REGIME_CLASSES = (
+    ClassStyle(0, ZERO_COLOR, "no melting"),
+    ClassStyle(1, "#0072B2", "ambient mantle melts (ridge-like, needs only upwelling)"),
+    ClassStyle(2, "#D55E00", "melts only because of the thermal anomaly"),
+)
 
 
 #: Map style per style key (:attr:`lidmelt.variables.Variable.style`).
 STYLES: dict[str, MapStyle] = {
-    "melt": MapStyle("viridis"),
+    "melt": MapStyle("viridis", zero_is_no_melt=True),  # melt amounts: 0 is no melting
     "depth": MapStyle("cividis_r"),  # shallow light, deep dark
     "fraction": MapStyle("plasma"),
     "excess": MapStyle("inferno"),
@@ -81,6 +117,8 @@ STYLES: dict[str, MapStyle] = {
     "anomaly": MapStyle("inferno"),
     "water": MapStyle("cividis"),
     "flag": MapStyle("viridis"),  # the validity flags are not drawn by 'lidmelt map'
+    "regime": MapStyle("viridis", classes=REGIME_CLASSES),
+    "production": MapStyle("plasma", zero_is_no_melt=True),  # no near-white end (0 is white)
 }
 #: Style of a variable the registry does not know, or whose key has no entry.
 DEFAULT_STYLE = MapStyle("viridis")
@@ -105,24 +143,35 @@ class VariableStyle:
         rather than as nodata.
     title : str
         Readable name, used when the run gives no long name.
+    classes : tuple of ClassStyle
+        Non-empty for a categorical variable: drawn class by class, with a legend entry each
+        and no colour bar.
     """
 
     cmap: str
     zero_is_no_melt: bool = False
     nan_is_no_melt: bool = False
     title: str = ""
+    classes: tuple[ClassStyle, ...] = ()
+
+    @property
+    def categorical(self) -> bool:
+        """Whether the variable is drawn as classes (a legend) rather than a colour scale."""
+        return bool(self.classes)
 
 
 def style_for(variable: str) -> VariableStyle:
     """The style of ``variable``: its key's colour map and the registry's facts about it."""
     var = VARIABLES.get(variable)
-    if var is None:
+    if var is None:  # not (yet) registered: a plain continuous scale
         return VariableStyle(DEFAULT_STYLE.cmap)
+    key = STYLES.get(var.style, DEFAULT_STYLE)
     return VariableStyle(
-        STYLES.get(var.style, DEFAULT_STYLE).cmap,
-        zero_is_no_melt=var.zero_means_no_melt,
+        key.cmap,
+        zero_is_no_melt=(var.zero_means_no_melt or key.zero_is_no_melt) and not key.classes,
         nan_is_no_melt=var.undefined_without_melt,
         title=var.title,
+        classes=key.classes,
     )
 
 
@@ -208,3 +257,27 @@ def encode_classes(
     if no_melt is not None:
         out[no_melt] = vmin - 0.5 * d
     return out, listed, norm
+
+
+def encode_categories(
+    values: np.ndarray, classes: tuple[ClassStyle, ...]
+) -> tuple[np.ndarray, Any, Any]:
+    """Values, colour map and norm that draw each class in its colour and the rest as nodata.
+
+    Class ``i`` (in the order of ``classes``) is drawn as the value ``i``; NaN and any value
+    that is not a class value get :data:`NODATA_COLOR` (no NaN reaches cartopy, as in
+    :func:`encode_classes`).
+    """
+    values = np.asarray(values, dtype=float)
+    n = len(classes)
+    out = np.full(values.shape, float(n))
+    for i, item in enumerate(classes):
+        out[values == item.value] = float(i)
+    colours = to_rgba_array([c.color for c in classes] + [NODATA_COLOR])
+    listed = ListedColormap(colours).with_extremes(bad="none")
+    return out, listed, BoundaryNorm(np.arange(n + 2) - 0.5, n + 1)
+
+
+def class_legend_handles(classes: tuple[ClassStyle, ...]) -> list[Any]:
+    """One legend patch per class of a categorical variable (none for a continuous one)."""
+    return [Patch(facecolor=c.color, edgecolor="0.3", lw=0.5, label=c.label) for c in classes]

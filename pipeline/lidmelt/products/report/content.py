@@ -1,8 +1,14 @@
 """The report's content, independent of the output format: sections of text and tables.
 
-Everything comes from the run's ``summary.json`` (see :mod:`lidmelt.grids.rundir`); units and
-long names of the variables come from the registry (:mod:`lidmelt.variables`) where the run's
-variables are listed. Text here is not yet escaped: each writer escapes it for its format.
+Everything comes from the run's ``summary.json`` (see :mod:`lidmelt.grids.rundir`), except the
+flag counts, which are counted in the run's ``validity_flag.tif``; units and long names of the
+variables come from the registry (:mod:`lidmelt.variables`) where the run's variables are
+listed. Text here is not yet escaped: each writer escapes it for its format.
+
+The summary's ``"warnings"`` (:func:`run_warnings`) are shown near the top of the page; the
+summary section shows the totals, every further statistic (those on the anomaly basis, the melt
+the thermal anomaly adds, in a table of their own; 3 significant figures), the per-variable
+statistics, and the count of cells per validity flag.
 """
 
 from __future__ import annotations
@@ -15,18 +21,23 @@ from typing import Any
 
 from lidmelt.grids.rundir import RunDir
 from lidmelt.products.maps.captions import lid_model
+from lidmelt.products.maps.flags import FlagGrid, flag_counts, read_flags
 from lidmelt.variables import VARIABLES
 
 __all__ = [
     "CAUTION",
+    "FRONT_SECTIONS",
     "MapImage",
     "Pre",
     "Section",
     "Table",
     "build_sections",
+    "flags_section",
     "format_number",
+    "format_sig",
     "format_value",
     "job_line",
+    "run_warnings",
     "variable_label",
     "variable_units",
 ]
@@ -105,6 +116,28 @@ def format_number(value: Any, *, unit: str = "") -> str:
         text = f"{value:,.0f}" if abs(value) >= 1e4 else f"{value:.3e}"
     else:
         text = f"{value:.4g}"
+    return f"{text} {unit}".strip()
+
+
+def format_sig(value: Any, *, unit: str = "", digits: int = 3) -> str:
+    """Text of a statistic to ``digits`` significant figures, with thousands separators.
+
+    ``45678.9`` -> ``"45,700"``; ``0.012345`` -> ``"0.0123"``. Integers (counts) are exact
+    and shown in full (``"1,234,567"``).
+    """
+    if isinstance(value, bool) or not isinstance(value, float):
+        return format_number(value, unit=unit)
+    if value == 0 or not math.isfinite(value):
+        text = str(value) if not math.isfinite(value) else "0"
+    else:
+        rounded = float(f"{value:.{digits}g}")
+        exponent = math.floor(math.log10(abs(rounded)))
+        if exponent >= digits - 1 and abs(rounded) < 1e15:
+            text = f"{round(rounded):,}"
+        elif exponent >= -4:
+            text = f"{rounded:.{max(digits - 1 - exponent, 0)}f}"
+        else:
+            text = f"{rounded:.{digits - 1}e}"
     return f"{text} {unit}".strip()
 
 
@@ -196,6 +229,67 @@ def _parameter_table(block: dict[str, Any], *, fallback: str) -> Table:
     return Table(("Parameter", "Value", "Source"), tuple(rows))
 
 
+def run_warnings(summary: dict[str, Any]) -> list[str]:
+    """The run's warnings (``summary["warnings"]``), as text; empty when there are none."""
+    warnings = summary.get("warnings")
+    if isinstance(warnings, str):
+        warnings = [warnings]
+    if not isinstance(warnings, list | tuple):
+        return []
+    return [str(w) for w in warnings if str(w).strip()]
+
+
+#: Statistics shown in the totals table (the others go to the further tables).
+_TOTALS = ("melting_cells", "melting_area_km2", "melt_volume_km3")
+#: Unit suffixes of statistic keys, longest first, and their text.
+_STAT_UNITS = (
+    ("_km3_yr", "km³/yr"),
+    ("_km3", "km³"),
+    ("_km2", "km²"),
+    ("_mm_yr", "mm/yr"),
+    ("_km", "km"),
+    ("_gpa", "GPa"),
+    ("_k", "K"),
+    ("_c", "°C"),
+    ("_ma", "Ma"),
+)
+
+
+def _flat_statistics(stats: dict[str, Any], prefix: str = "") -> list[tuple[str, Any]]:
+    """Scalar statistics as (key, value), nested dicts as ``outer.inner`` keys."""
+    rows: list[tuple[str, Any]] = []
+    for key, value in stats.items():
+        name = f"{prefix}{key}"
+        if isinstance(value, dict):
+            rows.extend(_flat_statistics(value, prefix=f"{name}."))
+        elif isinstance(value, int | float) and not isinstance(value, bool):
+            rows.append((name, value))
+    return rows
+
+
+def _statistic_row(key: str, value: Any) -> tuple[str, str]:
+    unit = next((text for suffix, text in _STAT_UNITS if key.endswith(suffix)), "")
+    return key, format_sig(value, unit=unit)
+
+
+def _further_statistics(stats: dict[str, Any]) -> list[Block]:
+    """Tables of the statistics beyond the totals: the anomaly basis first, then the rest."""
+    rest = {k: v for k, v in stats.items() if k not in _TOTALS and k != "variables"}
+    rows = [_statistic_row(k, v) for k, v in _flat_statistics(rest)]
+    anomaly = tuple(r for r in rows if "anomaly" in r[0])
+    other = tuple(r for r in rows if "anomaly" not in r[0])
+    blocks: list[Block] = []
+    if anomaly:
+        blocks.append(
+            "Anomaly basis: the melt the thermal anomaly adds beneath the same lid (melt "
+            "thickness minus that of ambient mantle, never negative); 3 significant figures."
+        )
+        blocks.append(Table(("Statistic (anomaly basis)", "Value"), anomaly))
+    if other:
+        blocks.append(Table(("Further statistic", "Value"), other))
+    return blocks
+
+
 # --------------------------------------------------------------------------------------------
 # The sections, in page order
 
@@ -222,10 +316,39 @@ def _summary_section(summary: dict[str, Any]) -> Section:
         )
         for name, s in (stats.get("variables") or {}).items()
     )
-    if not var_rows:
-        return Section("summary", "Summary", (totals,))
-    per_variable = Table(("Variable", "Unit", "Min", "Max", "Mean"), var_rows)
-    return Section("summary", "Summary", (totals, per_variable))
+    blocks: list[Block] = [totals, *_further_statistics(stats)]
+    if var_rows:
+        blocks.append(Table(("Variable", "Unit", "Min", "Max", "Mean"), var_rows))
+    return Section("summary", "Summary", tuple(blocks))
+
+
+def _share(count: int, total: int) -> str:
+    return f"{100.0 * count / total:.3g} %" if total else "-"
+
+
+def flags_section(flags: FlagGrid | None) -> Section:
+    """The count of cells per validity flag bit, with its meaning and share of the data."""
+    heading = "Validity flags"
+    if flags is None:
+        return Section("flags", heading, ("This run directory has no validity flag grid.",))
+    with_data = int(flags.with_data.sum())
+    rows = [
+        (str(bit), meaning, f"{count:,}", _share(count, with_data))
+        for bit, meaning, count in flag_counts(flags)
+    ]
+    unflagged = int((flags.with_data & (flags.values == 0)).sum())
+    rows.append(
+        ("0", "no flag: valid and calibrated", f"{unflagged:,}", _share(unflagged, with_data))
+    )
+    rows.append(("", "cells with data (any flag)", f"{with_data:,}", _share(with_data, with_data)))
+    rows.append(("", "cells in the grid", f"{flags.values.size:,}", ""))
+    note = (
+        "Cells per flag bit (a cell may carry several bits); shares are of the cells with "
+        "data. Maps hatch the cells flagged beyond calibration, without a solidus crossing or "
+        "with free water."
+    )
+    table = Table(("Flag", "Meaning", "Cells", "Share of cells with data"), tuple(rows))
+    return Section("flags", heading, (note, table))
 
 
 def _model_section(summary: dict[str, Any]) -> Section:
@@ -298,6 +421,9 @@ def _workflow_section(summary: dict[str, Any]) -> Section:
     return Section("workflow", "Workflow", (block,))
 
 
+#: Keys of the sections shown before the maps (the numbers a reader looks at first).
+FRONT_SECTIONS = ("summary", "flags")
+
 _SECTIONS: tuple[Callable[[dict[str, Any]], Section], ...] = (
     _summary_section,
     _model_section,
@@ -311,7 +437,10 @@ _SECTIONS: tuple[Callable[[dict[str, Any]], Section], ...] = (
 def build_sections(run: RunDir) -> list[Section]:
     """The report's content as sections of text, tables and preformatted blocks.
 
-    In page order: summary numbers, melting model, lid, grid, input provenance, workflow.
+    In page order: summary numbers, validity flags, melting model, lid, grid, input
+    provenance, workflow.
     """
     summary = run.summary
-    return [make(summary) for make in _SECTIONS]
+    sections = [make(summary) for make in _SECTIONS]
+    sections.insert(1, flags_section(read_flags(run)))
+    return sections

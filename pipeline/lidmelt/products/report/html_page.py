@@ -16,6 +16,7 @@ from lidmelt import __version__
 from lidmelt.grids.rundir import RunDir
 from lidmelt.products.report.content import (
     CAUTION,
+    FRONT_SECTIONS,
     Block,
     MapImage,
     Pre,
@@ -23,6 +24,7 @@ from lidmelt.products.report.content import (
     Table,
     build_sections,
     job_line,
+    run_warnings,
     variable_label,
 )
 
@@ -37,6 +39,9 @@ h2 { font-size: 1.25rem; border-bottom: 1px solid #ccc; padding-bottom: 0.2rem;
   margin-top: 2rem; }
 p.job { font-size: 1.05rem; }
 .caution { border-left: 4px solid #b35900; background: #fff5e6; padding: 0.6rem 1rem; }
+.warnings { border: 2px solid #b30000; background: #fff0f0; padding: 0.6rem 1rem;
+  margin: 1rem 0; }
+.warnings ul { margin: 0.3rem 0 0 0; }
 table { border-collapse: collapse; margin: 0.6rem 0; font-size: 0.92rem; }
 th, td { border: 1px solid #d0d0d0; padding: 0.25rem 0.5rem; text-align: left;
   vertical-align: top; }
@@ -95,13 +100,26 @@ def _html_maps(images: Sequence[MapImage]) -> list[str]:
     return parts
 
 
+def _html_warnings(warnings: Sequence[str]) -> list[str]:
+    """The run's warnings in a framed box (nothing when there are none)."""
+    if not warnings:
+        return []
+    items = "".join(f"<li>{_esc(w)}</li>" for w in warnings)
+    return [
+        f'<aside class="warnings" id="warnings"><strong>Warnings.</strong><ul>{items}</ul></aside>'
+    ]
+
+
 def render_html(run: RunDir, images: Sequence[MapImage]) -> str:
     """The report page as one HTML string (no external resources).
 
-    The summary section comes first, then the maps, then the other sections.
+    The job line, the run's warnings and the caution come first, then the summary and flag
+    counts, the maps, and the other sections.
     """
     summary = run.summary
     sections = build_sections(run)
+    front = [s for s in sections if s.key in FRONT_SECTIONS]
+    back = [s for s in sections if s.key not in FRONT_SECTIONS]
     title = f"lidmelt run report: {_esc(run.path.name)}"
     parts = [
         "<!DOCTYPE html>",
@@ -117,11 +135,13 @@ def render_html(run: RunDir, images: Sequence[MapImage]) -> str:
         f"<h1>{title}</h1>",
         f'<p class="job">{_esc(job_line(summary))}</p>',
         "</header>",
+        *_html_warnings(run_warnings(summary)),
         f'<aside class="caution"><strong>Caution.</strong> {_esc(CAUTION)}</aside>',
-        *_html_section(sections[0]),
-        *_html_maps(images),
     ]
-    for section in sections[1:]:
+    for section in front:
+        parts.extend(_html_section(section))
+    parts.extend(_html_maps(images))
+    for section in back:
         parts.extend(_html_section(section))
     parts.append(
         f"<footer>Report written by lidmelt {_esc(__version__)}; run made by lidmelt "

@@ -1,6 +1,7 @@
 """The report as a PDF, composed with matplotlib's ``PdfPages`` (A4 portrait).
 
-Pages: text pages with the job, the caution and the summary; one page per PNG map; then text
+Pages: text pages with the job, the run's warnings (bold, red), the caution, the summary and
+the flag counts; one page per PNG map; then text
 pages with the tables and the workflow. Text is set in DejaVu Sans Mono; tables become indented
 "header: value" lines. The file carries no creation date (reproducible).
 """
@@ -18,6 +19,7 @@ from lidmelt.files import atomic_path
 from lidmelt.grids.rundir import RunDir
 from lidmelt.products.report.content import (
     CAUTION,
+    FRONT_SECTIONS,
     Block,
     MapImage,
     Pre,
@@ -25,6 +27,7 @@ from lidmelt.products.report.content import (
     Table,
     build_sections,
     job_line,
+    run_warnings,
     variable_label,
 )
 
@@ -36,7 +39,7 @@ _PDF_FONT_PT = 8.0
 _WIDTH_CHARS = int((_PAGE_IN[0] - 1.2) * 72 / (0.6 * _PDF_FONT_PT))
 _PER_PAGE = int((_PAGE_IN[1] - 1.4) * 72 / (1.45 * _PDF_FONT_PT))
 
-Line = tuple[str, str]  # (kind, text); kind is "title", "heading", "text" or "" (blank)
+Line = tuple[str, str]  # (kind, text): "title", "heading", "warning", "text" or "" (blank)
 
 
 def _text_lines(block: Block, width_chars: int) -> list[str]:
@@ -87,6 +90,13 @@ def _section_lines(sections: Sequence[Section]) -> list[Line]:
 def _head_lines(run: RunDir) -> list[Line]:
     head = [("title", f"lidmelt run report: {run.path.name}")]
     head += [("text", line) for line in _text_lines(job_line(run.summary), _WIDTH_CHARS)]
+    warnings = run_warnings(run.summary)
+    if warnings:
+        head += [("", ""), ("warning", "WARNINGS")]
+        for text in warnings:
+            wrapped = textwrap.wrap(text, _WIDTH_CHARS - 2) or [""]
+            head += [("warning", f"! {wrapped[0]}")]
+            head += [("warning", f"  {line}") for line in wrapped[1:]]
     head += [("", ""), ("heading", "Caution")]
     head += [("text", line) for line in _text_lines(CAUTION, _WIDTH_CHARS)]
     return head
@@ -104,13 +114,14 @@ def _text_page(pdf: Any, lines: list[Line]) -> None:
             fig.text(x, y, text, fontsize=13, fontweight="bold", va="top")
             y -= 2.0 * step
             continue
-        bold = kind == "heading"
+        bold = kind in {"heading", "warning"}
         fig.text(
             x,
             y,
             text,
             fontsize=_PDF_FONT_PT + (1 if bold else 0),
             fontweight="bold" if bold else "normal",
+            color="#b30000" if kind == "warning" else "black",
             va="top",
             family="DejaVu Sans Mono",
         )
@@ -149,8 +160,10 @@ def write_pdf(run: RunDir, images: Sequence[MapImage], path: Path) -> Path:
     from matplotlib.backends.backend_pdf import PdfPages
 
     sections = build_sections(run)
-    first_pages = _text_pages(_head_lines(run) + _section_lines(sections[:1]), _PER_PAGE)
-    last_pages = _text_pages(_section_lines(sections[1:]), _PER_PAGE)
+    front = [s for s in sections if s.key in FRONT_SECTIONS]
+    back = [s for s in sections if s.key not in FRONT_SECTIONS]
+    first_pages = _text_pages(_head_lines(run) + _section_lines(front), _PER_PAGE)
+    last_pages = _text_pages(_section_lines(back), _PER_PAGE)
     metadata = {
         "Title": f"lidmelt run report: {run.path.name}",
         "Creator": f"lidmelt {__version__}",
