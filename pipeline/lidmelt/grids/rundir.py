@@ -34,6 +34,7 @@ from __future__ import annotations
 
 import json
 from collections.abc import Collection, Mapping, Sequence
+from dataclasses import dataclass
 from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any
@@ -52,12 +53,14 @@ __all__ = [
     "NETCDF_NAME",
     "RUN_FORMAT_VERSION",
     "SUMMARY_NAME",
+    "FlagGrid",
     "RunDir",
     "build_summary",
     "input_file",
     "open_run",
     "output_file",
     "provenance_tags",
+    "read_flags",
     "write_summary",
 ]
 
@@ -180,6 +183,75 @@ class RunDir:
 def open_run(path: str | Path) -> RunDir:
     """Open and validate a run directory; see :class:`RunDir`."""
     return RunDir(path)
+
+
+@dataclass(frozen=True)
+class FlagGrid:
+    """The validity flag grid of a run.
+
+    Attributes
+    ----------
+    values : ndarray of uint8
+        Bit flags per cell (bits: :data:`lidmelt.physics.FLAG_MEANINGS`); ``nodata`` outside
+        the data.
+    nodata : int
+        The value of cells without input data (255).
+    meanings : dict of int to str
+        Meaning of each bit, as the run recorded it (this version's where it recorded none).
+    """
+
+    values: np.ndarray
+    nodata: int
+    meanings: dict[int, str]
+
+    @property
+    def with_data(self) -> np.ndarray:
+        """Cells with input data (boolean grid)."""
+        return self.values != self.nodata
+
+    def cells_with(self, bit: int) -> np.ndarray:
+        """Cells with data whose flag has ``bit`` set (boolean grid)."""
+        return self.with_data & ((self.values & bit) != 0)
+
+
+def _recorded_meanings(summary: Mapping[str, Any]) -> dict[int, str]:
+    recorded = (summary.get("validity_flag") or {}).get("meanings")
+    meanings = dict(FLAG_MEANINGS)
+    if isinstance(recorded, dict):
+        for key, text in recorded.items():
+            if str(key).isdigit():
+                meanings[int(key)] = str(text)
+    return meanings
+
+
+def read_flags(run: RunDir) -> FlagGrid | None:
+    """The run's validity flag grid, or None when the run directory has none.
+
+    Raises
+    ------
+    RunDirError
+        If its shape differs from the grid in ``summary.json``.
+    """
+    import rasterio
+
+    entry = run.summary.get("validity_flag") or {}
+    path = run.path / str(entry.get("file") or FLAG_FILE)
+    if not path.is_file():
+        return None
+    with rasterio.open(path) as src:
+        values = src.read(1).astype(np.uint8)
+        nodata = src.nodata
+    grid = run.summary.get("grid") or {}
+    expected = (grid.get("height"), grid.get("width"))
+    if values.shape != expected:
+        msg = (
+            f"{path.name!r} in {str(run.path)!r} has shape {values.shape}, but summary.json gives "
+            f"a {expected[0]} x {expected[1]} grid. The run directory is inconsistent: run "
+            "'lidmelt run' again."
+        )
+        raise RunDirError(msg)
+    nodata = int(entry.get("nodata", nodata if nodata is not None else FLAG_NODATA))
+    return FlagGrid(values=values, nodata=nodata, meanings=_recorded_meanings(run.summary))
 
 
 # ------------------------------------------------------------------------------------------------

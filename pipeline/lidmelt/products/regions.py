@@ -75,7 +75,7 @@ from lidmelt.files import atomic_path
 from lidmelt.grids import vector
 from lidmelt.grids.area import cell_areas_km2, row_areas_km2
 from lidmelt.grids.grid import WGS84, Grid
-from lidmelt.grids.rundir import RunDir
+from lidmelt.grids.rundir import RunDir, read_flags
 from lidmelt.products import sampling as smp
 from lidmelt.variables import FLAG_NODATA
 
@@ -143,6 +143,11 @@ _DENSIFY_PARTS = 64
 # --------------------------------------------------------------------------------------------
 
 
+def _flag_values(run: RunDir) -> np.ndarray | None:
+    flags = read_flags(run)
+    return None if flags is None else flags.values
+
+
 @dataclass
 class Zones:
     """The grids the statistics need, loaded once (None: the run does not have it)."""
@@ -179,7 +184,7 @@ class Zones:
             row_areas=row_areas_km2(grid) if grid.is_geographic else None,
             anomaly_melt=optional(ANOMALY_MELT_VARIABLE, run.outputs),
             plate_age=optional("plate_age_ma", run.inputs),
-            flag=smp.load_flag(run, grid),
+            flag=_flag_values(run),
             production=optional(PRODUCTION_VARIABLE, run.outputs),
         )
 

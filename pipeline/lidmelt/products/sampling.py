@@ -50,9 +50,8 @@ import pyproj
 from lidmelt.errors import InputError, RunDirError
 from lidmelt.files import atomic_path
 from lidmelt.grids.grid import Grid, lonlat_from
-from lidmelt.grids.rundir import FLAG_FILE, RunDir, open_run
+from lidmelt.grids.rundir import RunDir, open_run, read_flags
 from lidmelt.grids.vector import describe_rows
-from lidmelt.physics import FLAG_MEANINGS
 from lidmelt.variables import FLAG_NODATA, FLAG_VARIABLE
 
 if TYPE_CHECKING:
@@ -75,8 +74,6 @@ __all__ = [
     "check_method",
     "check_output_path",
     "describe_flags",
-    "flag_meanings",
-    "load_flag",
     "load_variable",
     "reference_name",
     "replace_columns",
@@ -192,43 +189,6 @@ def load_variable(run: RunDir, name: str, grid: Grid) -> np.ndarray:
         )
         raise RunDirError(msg)
     return values
-
-
-def load_flag(run: RunDir, grid: Grid) -> np.ndarray | None:
-    """The run's validity flag grid as a (height, width) uint8 array (nodata 255), or None when
-    the run directory has no flag file.
-
-    Raises
-    ------
-    RunDirError
-        If its shape differs from the grid in ``summary.json``.
-    """
-    import rasterio
-
-    entry = run.summary.get("validity_flag") or {}
-    path = run.path / str(entry.get("file") or FLAG_FILE)
-    if not path.is_file():
-        return None
-    with rasterio.open(path) as src:
-        values = src.read(1)
-    if values.shape != (grid.height, grid.width):
-        msg = (
-            f"{path.name!r} in {str(run.path)!r} has shape {values.shape}, but summary.json gives "
-            f"a {grid.height} x {grid.width} grid. The run directory is inconsistent: run "
-            "'lidmelt run' again."
-        )
-        raise RunDirError(msg)
-    return values.astype(np.uint8)
-
-
-def flag_meanings(run: RunDir) -> dict[int, str]:
-    """Meaning of each flag bit: the run's own (``summary.json``), else this version's."""
-    raw = (run.summary.get("validity_flag") or {}).get("meanings") or {}
-    try:
-        meanings = {int(bit): str(text) for bit, text in raw.items()}
-    except (AttributeError, TypeError, ValueError):
-        meanings = {}
-    return meanings or dict(FLAG_MEANINGS)
 
 
 def describe_flags(flags: Any, meanings: dict[int, str]) -> np.ndarray:
@@ -365,10 +325,10 @@ def sample_run(
             status[~np.isfinite(values)] = STATUS_NODATA
             fallback = flagged | ~np.isfinite(values)
     status[~stencil.inside] = STATUS_OUTSIDE
-    flags = load_flag(run, grid)
+    flags = read_flags(run)
     if flags is not None:
-        columns[FLAG_COLUMN] = apply_flag_stencil(stencil, flags, fallback)
-        columns[FLAG_MEANING_COLUMN] = describe_flags(columns[FLAG_COLUMN], flag_meanings(run))
+        columns[FLAG_COLUMN] = apply_flag_stencil(stencil, flags.values, fallback)
+        columns[FLAG_MEANING_COLUMN] = describe_flags(columns[FLAG_COLUMN], flags.meanings)
     return columns, status
 
 

@@ -23,9 +23,8 @@ from lidmelt.products.maps.figure import (
 )
 from lidmelt.products.maps.flags import (
     MARKED_FLAGS,
-    FlagGrid,
     flag_counts,
-    read_flags,
+    marked_kinds,
 )
 from lidmelt.products.maps.layout import (
     Region,
@@ -72,7 +71,6 @@ __all__ = [
     "STYLES",
     "ZERO_COLOR",
     "ClassStyle",
-    "FlagGrid",
     "MapInfo",
     "MapOptions",
     "MapStyle",
@@ -96,9 +94,9 @@ __all__ = [
     "make_map_figure",
     "make_projection",
     "map_caption",
+    "marked_kinds",
     "model_line",
     "projection_names",
-    "read_flags",
     "render_map",
     "require_file",
     "resolve_coastlines",

@@ -37,7 +37,7 @@ from matplotlib.font_manager import FontProperties
 from matplotlib.ticker import FixedLocator, MaxNLocator
 
 from lidmelt.errors import InputError
-from lidmelt.grids.rundir import RunDir, open_run
+from lidmelt.grids.rundir import FlagGrid, RunDir, open_run, read_flags
 from lidmelt.products.maps import flags as fl
 from lidmelt.products.maps import layout as lay
 from lidmelt.products.maps import overlays as ov
@@ -191,7 +191,7 @@ def resolve_options(run: RunDir, opts: MapOptions) -> MapOptions:
         candidates = ov.load_candidates(candidates)
     coast = ov.resolve_coastlines(opts.coastlines)
     age = ov.load_age(run, opts.age_contours)
-    flags = fl.read_flags(run) if opts.flags is True else opts.flags
+    flags = read_flags(run) if opts.flags is True else opts.flags
     return replace(
         opts,
         stations=stations,
@@ -258,8 +258,8 @@ def _open_field(run: RunDir, variable: str, opts: MapOptions) -> _Field:
     else:
         vmin, vmax, extend = colour_limits(in_view, zero_is_no_melt=style.zero_is_no_melt)
     flags = opts.flags
-    hatch = variable in run.outputs and isinstance(flags, fl.FlagGrid)
-    bits = flags.marked_kinds() if hatch and flags.values.shape == values.shape else ()
+    hatch = variable in run.outputs and isinstance(flags, FlagGrid)
+    bits = fl.marked_kinds(flags) if hatch and flags.values.shape == values.shape else ()
     return _Field(
         variable=variable,
         da=da,

@@ -16,32 +16,28 @@ flagged areas do not vanish.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
 from matplotlib.patches import Patch
 
-from lidmelt.grids.rundir import FLAG_FILE, RunDir
+from lidmelt.grids.rundir import FlagGrid
 from lidmelt.physics import (
     FLAG_BEYOND_CALIBRATION,
-    FLAG_MEANINGS,
     FLAG_NO_ONSET,
     FLAG_WATER_SATURATED,
 )
-from lidmelt.variables import FLAG_NODATA
 
 __all__ = [
     "FLAG_HATCHES",
     "FLAG_SHORT_LABELS",
     "HATCH_COLOR",
     "MARKED_FLAGS",
-    "FlagGrid",
     "draw_flag_hatching",
     "flag_caption",
     "flag_counts",
     "flag_legend_handles",
-    "read_flags",
+    "marked_kinds",
 ]
 
 #: The flag bits marked on maps, in legend order.
@@ -65,61 +61,9 @@ HATCH_COLOR = "0.1"
 _HATCH_LAYERS = (("white", 1.8, 1.5), (HATCH_COLOR, 0.8, 1.6))
 
 
-@dataclass(frozen=True)
-class FlagGrid:
-    """The validity flag grid of a run.
-
-    Attributes
-    ----------
-    values : ndarray of uint8
-        Bit flags per cell; ``nodata`` outside the data.
-    nodata : int
-        The value of cells without input data (255).
-    meanings : dict of int to str
-        Meaning of each bit, as the run recorded it.
-    """
-
-    values: np.ndarray
-    nodata: int
-    meanings: dict[int, str]
-
-    @property
-    def with_data(self) -> np.ndarray:
-        """Cells with input data (boolean grid)."""
-        return self.values != self.nodata
-
-    def cells_with(self, bit: int) -> np.ndarray:
-        """Cells with data whose flag has ``bit`` set (boolean grid)."""
-        return self.with_data & ((self.values & bit) != 0)
-
-    def marked_kinds(self) -> tuple[int, ...]:
-        """The bits of :data:`MARKED_FLAGS` that at least one cell carries."""
-        return tuple(bit for bit in MARKED_FLAGS if self.cells_with(bit).any())
-
-
-def _recorded_meanings(summary: dict[str, Any]) -> dict[int, str]:
-    recorded = (summary.get("validity_flag") or {}).get("meanings")
-    meanings = dict(FLAG_MEANINGS)
-    if isinstance(recorded, dict):
-        for key, text in recorded.items():
-            if str(key).isdigit():
-                meanings[int(key)] = str(text)
-    return meanings
-
-
-def read_flags(run: RunDir) -> FlagGrid | None:
-    """The run's validity flag grid, or None when the run directory has none."""
-    import rasterio
-
-    entry = run.summary.get("validity_flag") or {}
-    path = run.path / str(entry.get("file") or FLAG_FILE)
-    if not path.is_file():
-        return None
-    with rasterio.open(path) as src:
-        values = src.read(1)
-        nodata = src.nodata
-    nodata = int(entry.get("nodata", nodata if nodata is not None else FLAG_NODATA))
-    return FlagGrid(values=values, nodata=nodata, meanings=_recorded_meanings(run.summary))
+def marked_kinds(flags: FlagGrid) -> tuple[int, ...]:
+    """The bits of :data:`MARKED_FLAGS` that at least one cell carries."""
+    return tuple(bit for bit in MARKED_FLAGS if flags.cells_with(bit).any())
 
 
 def flag_counts(flags: FlagGrid) -> list[tuple[int, str, int]]:

@@ -19,9 +19,9 @@ from collections.abc import Callable
 from dataclasses import dataclass
 from typing import Any
 
-from lidmelt.grids.rundir import RunDir
+from lidmelt.grids.rundir import FlagGrid, RunDir, read_flags
 from lidmelt.products.maps.captions import lid_model
-from lidmelt.products.maps.flags import FlagGrid, flag_counts, read_flags
+from lidmelt.products.maps.flags import flag_counts
 from lidmelt.variables import VARIABLES
 
 __all__ = [
