@@ -29,6 +29,7 @@ __all__ = [
     "Grid",
     "cached_crs",
     "check_dataarray",
+    "finalise_grid",
     "lonlat_from",
     "normalise_crs",
     "same_transform",
@@ -496,3 +497,19 @@ def same_transform(t1: Affine, t2: Affine) -> bool:
         abs(p - q) <= SAME_GRID_TOL * cell
         for p, q in zip(tuple(t1)[:6], tuple(t2)[:6], strict=True)
     )
+
+
+def finalise_grid(da: xr.DataArray, crs: CRS) -> xr.DataArray:
+    """North up, x ascending, float dtype, a fresh spatial_ref with CRS and transform."""
+    if da.sizes["y"] > 1 and float(da["y"][0]) < float(da["y"][-1]):
+        da = da.isel(y=slice(None, None, -1))
+    if da.sizes["x"] > 1 and float(da["x"][0]) > float(da["x"][-1]):
+        da = da.isel(x=slice(None, None, -1))
+    if da.dtype.kind != "f":
+        da = da.astype(np.float32 if np.dtype(da.dtype).itemsize <= 2 else np.float64)
+    transform = transform_of(da)
+    da = da.drop_vars("spatial_ref", errors="ignore")
+    da.attrs = {}
+    da.encoding = {}
+    da = da.rio.write_crs(RioCRS.from_wkt(crs.to_wkt()))
+    return da.rio.write_transform(transform)
