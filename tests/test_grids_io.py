@@ -365,7 +365,7 @@ def test_detect_format(tmp_path):
     # check values: the first bytes of netCDF classic/64-bit offset/CDF-5 files ("CDF" plus the
     # version byte; NetCDF Users Guide, "File Format Specifications") and the HDF5 signature
     # "\x89HDF\r\n\x1a\n" (HDF5 File Format Specification, "Format Signature"; from memory)
-    assert GRID_FORMATS == ("netcdf", "gdal")
+    assert GRID_FORMATS == ("netcdf", "text", "gdal")
     for magic in (b"CDF\x01", b"CDF\x02", b"CDF\x05", b"\x89HDF\r\n\x1a\n"):
         (tmp_path / "f").write_bytes(magic + b"\x00" * 16)
         assert detect_format(tmp_path / "f") == "netcdf"
@@ -375,6 +375,8 @@ def test_detect_format(tmp_path):
         tmp_path / "g.tif", np.zeros((2, 2), "float32"), transform=from_origin(0, 2, 1, 1)
     )
     assert detect_format(tif) == "gdal"
+    (tmp_path / "g.xyz").write_text("0 0 1\n")  # x y value text, by its suffix
+    assert detect_format(tmp_path / "g.xyz") == "text"
     (tmp_path / "short").write_bytes(b"CD")  # shorter than any signature: left to GDAL
     assert detect_format(tmp_path / "short") == "gdal"
     with pytest.raises(InputError, match=r"grid file .*'dem'.* does not exist"):

@@ -1,4 +1,5 @@
-"""Read input grids (GeoTIFF or any GDAL raster, CF NetCDF) into checked 2-D DataArrays.
+"""Read input grids (GeoTIFF or any GDAL raster, CF NetCDF, x y value text) into checked
+2-D DataArrays.
 
 Every grid lidmelt reads goes through :func:`open_grid`, which returns one layout whatever the
 file: a 2-D ``(y, x)`` float DataArray, NaN for nodata, ``y`` descending (north up), a CRS and
@@ -9,6 +10,7 @@ an affine transform written with rioxarray, no leftover on-disk encoding, and ``
 from __future__ import annotations
 
 import hashlib
+import logging
 import warnings
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass
@@ -22,9 +24,20 @@ from pyproj import CRS
 
 from lidmelt.errors import GridError, InputError
 from lidmelt.grids.grid import finalise_grid
-from lidmelt.grids.netcdf import CRS_FIX, open_netcdf
+from lidmelt.grids.netcdf import CRS_FIX, given_crs, open_netcdf
+from lidmelt.grids.textgrid import TEXT_GRID_SUFFIXES, open_text_grid
+from lidmelt.grids.units import canonical_unit, dlnvs_to_kelvin, unit_factor
 
-__all__ = ["GRID_FORMATS", "detect_format", "normalise_units", "open_grid", "sha256_file"]
+__all__ = [
+    "GRID_FORMATS",
+    "detect_format",
+    "normalise_units",
+    "open_grid",
+    "open_input",
+    "sha256_file",
+]
+
+_log = logging.getLogger(__name__)
 
 # First bytes of the file formats read through xarray's netCDF4 engine: netCDF classic, 64-bit
 # offset, CDF-5 (NetCDF Users Guide, "File Format Specifications") and netCDF-4/HDF5 (the HDF5
@@ -108,6 +121,9 @@ def open_grid(
     name: str,
     units_expected: str | None = None,
     chunks: int | str | Mapping[str, int] | None = None,
+    crs: str | None = None,
+    x_name: str | None = None,
+    y_name: str | None = None,
 ) -> xr.DataArray:
     """Read one 2-D grid from a GeoTIFF (band 1; any GDAL raster works) or a CF NetCDF file.
 
@@ -129,6 +145,12 @@ def open_grid(
     chunks : int, str or mapping, optional
         If given, the data stay lazy (dask) with these chunks over ``y``/``x`` (GeoTIFFs are read
         with ``lock=False``). If None the values are loaded and the file is closed.
+    crs : str, optional
+        The CRS of a file that states none (``"EPSG:4326"``, WKT...); a file that states a
+        different one is an error.
+    x_name, y_name : str, optional
+        NetCDF and text grids: the names of the x and y coordinates, where the file's are not
+        recognisable (CF units, lat/lon names).
 
     Returns
     -------
@@ -156,16 +178,100 @@ def open_grid(
     """
     path = Path(path)
     reader = _READERS[detect_format(path, name=name)]
-    da, file_units, long_name = reader.open(path, variable=variable, name=name, chunks=chunks)
+    hints = {k: v for k, v in {"crs": crs, "x_name": x_name, "y_name": y_name}.items() if v}
+    da, file_units, long_name = reader.open(
+        path, variable=variable, name=name, chunks=chunks, **hints
+    )
     units = _check_units(file_units, units_expected, name=name, path=path)
     da.name = name
+    stated = {k: da.attrs[k] for k in ("node_offset",) if k in da.attrs}
     da.attrs = {"units": units or "", "long_name": long_name or name, "source": str(path)}
+    da.attrs.update(stated)
     da.encoding = {}
     return da
 
 
+def open_input(
+    spec: Any,
+    *,
+    name: str,
+    units_expected: str,
+    chunks: int | str | Mapping[str, int] | None = None,
+) -> xr.DataArray:
+    """Read the grid of a workflow input, with its per-input keys applied.
+
+    Parameters
+    ----------
+    spec : InputSpec
+        A :class:`lidmelt.config.InputSpec` (any object with its fields): ``path``,
+        ``variable``, ``crs``, ``x_name``, ``y_name`` are handed to :func:`open_grid`;
+        ``nodata`` (a value in the file, after the file's own packing) becomes NaN; then
+        ``value * scale + offset``; then the unit (``units``, else the file's, else
+        ``units_expected``) is converted to ``units_expected`` (:func:`~lidmelt.grids.units.
+        unit_factor`). With ``dlnvs_dt_per_k`` the grid holds shear-velocity anomalies in
+        percent, turned into kelvin (:func:`~lidmelt.grids.units.dlnvs_to_kelvin`). Each
+        conversion is logged.
+    name : str
+        The input's variable name (``plate_age_ma``...).
+    units_expected : str
+        The unit of the input in the variable registry.
+    chunks : optional
+        As for :func:`open_grid`.
+
+    Returns
+    -------
+    xarray.DataArray
+        As :func:`open_grid`, values in ``units_expected``; ``attrs["conversion"]`` says what
+        was done.
+
+    Raises
+    ------
+    GridError
+        For an unknown or unconvertible unit (the message lists the known ones), a CRS that
+        contradicts the file's, or axes that cannot be found.
+    """
+    opt = {k: getattr(spec, k, None) for k in ("crs", "x_name", "y_name")}
+    da = open_grid(spec.path, variable=spec.variable, name=name, chunks=chunks, **opt)
+    attrs = dict(da.attrs)
+    key = f"inputs.{getattr(spec, 'name', name)}"
+    where = f"grid {str(spec.path)!r} ({key})"
+    steps = []
+    nodata, scale, offset = (getattr(spec, k, None) for k in ("nodata", "scale", "offset"))
+    if nodata is not None:
+        da = da.where(da != nodata)
+        steps.append(f"{nodata:g} as nodata")
+    if scale is not None or offset is not None:
+        da = da * (1.0 if scale is None else scale) + (0.0 if offset is None else offset)
+        steps.append(f"value * {scale if scale is not None else 1:g} + {offset or 0:g}")
+    units = getattr(spec, "units", None) or attrs.get("units") or None
+    dlnvs = getattr(spec, "dlnvs_dt_per_k", None)
+    if dlnvs is not None:
+        if canonical_unit(units) not in (None, "%"):
+            msg = (
+                f"{where} has units {units!r}, but dlnvs_dt_per_k is set, which reads the grid "
+                'as a shear-velocity anomaly in percent. Give units = "%" or convert the file.'
+            )
+            raise GridError(msg)
+        factor = dlnvs_to_kelvin(dlnvs)
+        steps.append(f"Vs anomaly % * {factor:g} K/% (dlnvs_dt_per_k = {dlnvs:g} per K)")
+    elif units is None:
+        factor = 1.0
+        steps.append(f"no units stated: taken as {units_expected}")
+    else:
+        factor = unit_factor(units, units_expected, where=where)
+        if factor != 1.0:
+            steps.append(f"{units} -> {units_expected} (x {factor:.6g})")
+    if factor != 1.0:
+        da = da * factor
+    for step in steps:
+        _log.info("%s: %s", key, step)
+    da.attrs = {**attrs, "units": units_expected, "conversion": "; ".join(steps) or "none"}
+    da.name = name
+    return da
+
+
 def detect_format(path: str | Path, *, name: str = "grid") -> str:
-    """The format :func:`open_grid` reads ``path`` as: ``"netcdf"`` or ``"gdal"``.
+    """The format :func:`open_grid` reads ``path`` as: ``"netcdf"``, ``"text"`` or ``"gdal"``.
 
     Parameters
     ----------
@@ -177,8 +283,9 @@ def detect_format(path: str | Path, *, name: str = "grid") -> str:
     Returns
     -------
     str
-        One of :data:`GRID_FORMATS`: the first reader whose magic bytes start the file; GDAL
-        (which recognises its many formats itself) for everything else.
+        One of :data:`GRID_FORMATS`: the first reader whose magic bytes start the file (NetCDF),
+        ``"text"`` for an x y value file (suffix ``.xyz``, ``.txt``, ``.csv``, ``.dat`` or
+        ``.tsv``), GDAL (which recognises its many formats itself) for everything else.
 
     Raises
     ------
@@ -186,7 +293,8 @@ def detect_format(path: str | Path, *, name: str = "grid") -> str:
         If the file does not exist, is a folder or cannot be read.
     """
     magic = _first_bytes(Path(path), name=name)
-    return next(fmt for fmt, reader in _READERS.items() if reader.recognises(magic))
+    suffix = Path(path).suffix.lower()
+    return next(fmt for fmt, reader in _READERS.items() if reader.recognises(magic, suffix))
 
 
 def _first_bytes(path: Path, *, name: str) -> bytes:
@@ -214,9 +322,23 @@ def _first_bytes(path: Path, *, name: str) -> bytes:
 
 
 def _open_raster(
-    path: Path, *, variable: str | None, name: str, chunks: Any
+    path: Path,
+    *,
+    variable: str | None,
+    name: str,
+    chunks: Any,
+    crs: str | None = None,
+    x_name: str | None = None,
+    y_name: str | None = None,
 ) -> tuple[xr.DataArray, str | None, str]:
     """Band 1 of a GDAL raster, lazily with ``chunks``; (grid, units, long_name)."""
+    if x_name or y_name:
+        msg = (
+            f"x_name/y_name were given for {str(path)!r}, a GeoTIFF or other GDAL raster, "
+            "whose axes are fixed by its transform. Remove them (they are for NetCDF and "
+            "text grids)."
+        )
+        raise GridError(msg)
     if variable is not None:
         msg = (
             f"variable={variable!r} was given for {str(path)!r}, but that file is not "
@@ -245,9 +367,14 @@ def _open_raster(
         )
         raise InputError(msg) from exc
 
-    if da.rio.crs is None:
-        msg = f"grid file {str(path)!r} for {name!r} has no CRS (coordinate reference system). "
-        raise GridError(msg + CRS_FIX)
+    stated = None if da.rio.crs is None else CRS.from_user_input(da.rio.crs.to_wkt())
+    found = given_crs(crs, stated, source=f"grid file {str(path)!r} for {name!r}")
+    if found is None:
+        msg = (
+            f"grid file {str(path)!r} for {name!r} has no CRS (coordinate reference system). "
+            'Give it with the input key crs (e.g. crs = "EPSG:4326"), or '
+        )
+        raise GridError(msg + CRS_FIX[0].lower() + CRS_FIX[1:])
     transform = da.rio.transform()
     if transform.b != 0 or transform.d != 0:
         msg = (
@@ -256,10 +383,9 @@ def _open_raster(
             "'gdalwarp IN OUT.tif'."
         )
         raise GridError(msg)
-    crs = CRS.from_user_input(da.rio.crs.to_wkt())
     units = da.attrs.get("units") or None
     long_name = da.attrs.get("long_name") or name
-    da = finalise_grid(da, crs)
+    da = finalise_grid(da, found)
     return da, units, long_name
 
 
@@ -295,21 +421,26 @@ def _check_units(found: Any, expected: str | None, *, name: str, path: Path) -> 
 
 @dataclass(frozen=True)
 class _Reader:
-    """One input format: the first bytes that identify it and the function that opens it.
+    """One input format: the first bytes or file suffixes that identify it, and its reader.
 
-    ``open(path, *, variable, name, chunks)`` returns the grid (north up, CRS and transform
-    written), the units the file states (or None) and a long name.
+    ``open(path, *, variable, name, chunks, crs=None, x_name=None, y_name=None)`` returns the
+    grid (north up, CRS and transform written), the units the file states (or None) and a long
+    name.
     """
 
-    magic: tuple[bytes, ...]  # empty: any file (the fallback, listed last)
+    magic: tuple[bytes, ...]  # empty with no suffixes: any file (the fallback, listed last)
     open: Callable[..., tuple[xr.DataArray, str | None, str]]
+    suffixes: tuple[str, ...] = ()
 
-    def recognises(self, first_bytes: bytes) -> bool:
+    def recognises(self, first_bytes: bytes, suffix: str = "") -> bool:
+        if self.suffixes:
+            return suffix in self.suffixes and not first_bytes.startswith(_NETCDF_MAGIC)
         return not self.magic or first_bytes.startswith(self.magic)
 
 
 _READERS: dict[str, _Reader] = {
     "netcdf": _Reader(_NETCDF_MAGIC, open_netcdf),
+    "text": _Reader((), open_text_grid, TEXT_GRID_SUFFIXES),
     "gdal": _Reader((), _open_raster),
 }
 

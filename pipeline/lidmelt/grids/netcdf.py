@@ -19,7 +19,7 @@ from pyproj.exceptions import CRSError
 from lidmelt.errors import GridError, InputError
 from lidmelt.grids.grid import finalise_grid
 
-__all__ = ["CRS_FIX", "open_netcdf", "regular_coords"]
+__all__ = ["CRS_FIX", "given_crs", "open_netcdf", "regular_coords"]
 
 _LAT_NAMES = {"lat", "latitude", "lats", "nav_lat"}
 _LON_NAMES = {"lon", "long", "longitude", "lons", "nav_lon"}
@@ -53,8 +53,18 @@ def _classify(dim: str, coord: xr.DataArray | None) -> str | None:
     return None
 
 
-def _spatial_dims(var: xr.DataArray, ds: xr.Dataset) -> dict[str, str] | None:
-    """Map role ('lat'/'lon' or 'y'/'x') to dim name for a variable, or None if not spatial."""
+def _spatial_dims(
+    var: xr.DataArray, ds: xr.Dataset, names: tuple[str, str] | None = None
+) -> dict[str, str] | None:
+    """Map role ('lat'/'lon' or 'y'/'x') to dim name for a variable, or None if not spatial.
+
+    ``names`` = (y_name, x_name) given by the caller take the place of the name rules.
+    """
+    if names is not None and all(n in var.dims for n in names):
+        y_name, x_name = names
+        lat = _classify(y_name, ds[y_name] if y_name in ds.variables else None) == "lat"
+        lon = _classify(x_name, ds[x_name] if x_name in ds.variables else None) == "lon"
+        return {"lat": y_name, "lon": x_name} if lat and lon else {"y": y_name, "x": x_name}
     dims = [d for d in var.dims if var.sizes[d] > 1]
     if len(dims) != 2:
         return None
@@ -70,13 +80,28 @@ def _spatial_dims(var: xr.DataArray, ds: xr.Dataset) -> dict[str, str] | None:
 
 
 def open_netcdf(
-    path: Path, *, variable: str | None, name: str, chunks: Any
+    path: Path,
+    *,
+    variable: str | None,
+    name: str,
+    chunks: Any,
+    crs: str | None = None,
+    x_name: str | None = None,
+    y_name: str | None = None,
 ) -> tuple[xr.DataArray, str | None, str]:
-    """One 2-D variable of a CF NetCDF file, lazily with ``chunks``; (grid, units, long_name)."""
+    """One 2-D variable of a CF NetCDF file, lazily with ``chunks``; (grid, units, long_name).
+
+    ``crs`` is the CRS of a file that states none (a file that states another is an error);
+    ``x_name``/``y_name`` name the coordinate dimensions where they are not CF-recognisable.
+    The GMT global attribute ``node_offset`` (0 gridline, 1 pixel registration; GMT technical
+    reference, "netCDF files") is kept in ``attrs`` when the file has it.
+    """
+    names = (y_name, x_name) if x_name or y_name else None
     ds = _open_dataset(path, name=name, chunks=chunks)
     try:
-        variable = _pick_variable(ds, variable, path=path, name=name)
-        var, crs = _located_variable(ds, variable, path=path)
+        variable = _pick_variable(ds, variable, path=path, name=name, names=names)
+        var, found_crs = _located_variable(ds, variable, path=path, names=names, crs=crs)
+        node_offset = ds.attrs.get("node_offset")
     except BaseException:
         ds.close()
         raise
@@ -86,9 +111,11 @@ def open_netcdf(
     var.encoding = {}
     if chunks is None:
         var = _load(var, ds, variable=variable, path=path)
-    var = finalise_grid(var, crs)
+    var = finalise_grid(var, found_crs)
     if chunks is not None:
         var = var.chunk(chunks if isinstance(chunks, Mapping) else {"y": chunks, "x": chunks})
+    if node_offset is not None:
+        var.attrs["node_offset"] = int(np.asarray(node_offset).ravel()[0])
     return var, units, long_name
 
 
@@ -111,17 +138,30 @@ def _open_dataset(path: Path, *, name: str, chunks: Any) -> xr.Dataset:
         raise InputError(msg) from exc
 
 
-def _pick_variable(ds: xr.Dataset, variable: str | None, *, path: Path, name: str) -> str:
+def _pick_variable(
+    ds: xr.Dataset,
+    variable: str | None,
+    *,
+    path: Path,
+    name: str,
+    names: tuple[str | None, str | None] | None = None,
+) -> str:
     """``variable``, or the file's one 2-D gridded variable; GridError if absent or ambiguous."""
     listing = ", ".join(f"{k}{tuple(v.dims)}" for k, v in ds.data_vars.items()) or "none"
     if variable is None:
-        candidates = [k for k, v in ds.data_vars.items() if _spatial_dims(v, ds) is not None]
+        candidates = [k for k, v in ds.data_vars.items() if _spatial_dims(v, ds, names) is not None]
         if len(candidates) != 1:
+            named = (
+                f"; with y_name = {names[0]!r} and x_name = {names[1]!r}: give two of its "
+                "dimension names"
+                if names
+                else ""
+            )
             found = "no" if not candidates else f"{len(candidates)} ({', '.join(candidates)})"
             msg = (
                 f"NetCDF file {str(path)!r} for {name!r} has {found} 2-D gridded variables; "
                 f"expected exactly one. Its variables: {listing}. Choose one with "
-                "variable=NAME (workflow: 'variable = \"NAME\"')."
+                "variable=NAME (workflow: 'variable = \"NAME\"')" + named + "."
             )
             raise GridError(msg)
         return str(candidates[0])
@@ -134,10 +174,24 @@ def _pick_variable(ds: xr.Dataset, variable: str | None, *, path: Path, name: st
     return variable
 
 
-def _located_variable(ds: xr.Dataset, variable: str, *, path: Path) -> tuple[xr.DataArray, CRS]:
+def _located_variable(
+    ds: xr.Dataset,
+    variable: str,
+    *,
+    path: Path,
+    names: tuple[str | None, str | None] | None = None,
+    crs: str | None = None,
+) -> tuple[xr.DataArray, CRS]:
     """The variable as a (lazy) ``(y, x)`` grid on exactly regular coordinates, and its CRS."""
     var = ds[variable]
-    roles = _spatial_dims(var, ds)
+    if names is not None and not all(n in var.dims for n in names):
+        msg = (
+            f"variable {variable!r} in {str(path)!r} has dims {list(var.dims)}, but "
+            f"y_name = {names[0]!r} and x_name = {names[1]!r} were given (both are needed). "
+            "Give two of its dimension names."
+        )
+        raise GridError(msg)
+    roles = _spatial_dims(var, ds, names)
     if roles is None:
         msg = (
             f"variable {variable!r} in {str(path)!r} has dims {dict(var.sizes)}; expected "
@@ -150,14 +204,15 @@ def _located_variable(ds: xr.Dataset, variable: str, *, path: Path) -> tuple[xr.
     var = var.squeeze(squeeze, drop=True) if squeeze else var
     geographic = "lat" in roles
     ydim, xdim = (roles["lat"], roles["lon"]) if geographic else (roles["y"], roles["x"])
-    crs = _netcdf_crs(ds, var, path=path, geographic=geographic)
+    stated = _netcdf_crs(ds, var, path=path, geographic=geographic and crs is None)
+    crs = given_crs(crs, stated, source=f"variable {variable!r} in {str(path)!r}")
     if crs is None:
         msg = (
             f"variable {variable!r} in {str(path)!r} has projected-looking coordinates "
             f"({ydim!r}, {xdim!r}) but no CRS: no grid_mapping variable and no lat/lon "
-            "units. "
+            'units. Give its CRS with the input key crs (e.g. crs = "EPSG:3031"), or '
         )
-        raise GridError(msg + CRS_FIX)
+        raise GridError(msg + CRS_FIX[0].lower() + CRS_FIX[1:])
     for dim in (ydim, xdim):
         if dim not in ds.variables:
             msg = (
@@ -242,3 +297,31 @@ def regular_coords(values: np.ndarray, *, dim: str, variable: str, path: Path) -
         )
         raise GridError(msg)
     return regular
+
+
+def given_crs(given: str | None, stated: CRS | None, *, source: str) -> CRS | None:
+    """The CRS of a grid: ``stated`` by the file, else ``given`` by the caller.
+
+    Raises
+    ------
+    GridError
+        If ``given`` is not a CRS, or the file states a different one.
+    """
+    if given is None:
+        return stated
+    try:
+        crs = CRS.from_user_input(given)
+    except CRSError as exc:
+        msg = (
+            f"crs = {given!r} for {source} is not a CRS that PROJ understands ({exc}); "
+            "expected 'EPSG:<code>' or WKT, e.g. crs = \"EPSG:4326\"."
+        )
+        raise GridError(msg) from exc
+    if stated is not None and not stated.equals(crs, ignore_axis_order=True):
+        msg = (
+            f"{source} states the CRS {stated.to_string()!r} but crs = {given!r} was given; "
+            "the crs key only fills in a CRS the file does not state. Remove the crs key, or "
+            "fix the file's CRS."
+        )
+        raise GridError(msg)
+    return crs
