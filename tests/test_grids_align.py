@@ -323,3 +323,45 @@ def test_align_coarsening_linear_field(resampling):
     out = align(src, target, resampling=resampling)
     tlon, tlat = target.lonlat_centres()
     npt.assert_allclose(out.values, 0.3 * tlon - 0.2 * tlat + 5.0, atol=1e-6)
+
+
+def gridline_global(step=3.0, *, node_offset=None):
+    """A global gridline-registered lon/lat grid of ``field``: nodes at 0..360 and -90..90."""
+    lon = np.arange(0.0, 360.0 + step / 2, step)
+    lat = np.arange(90.0, -90.0 - step / 2, -step)
+    da = xr.DataArray(
+        field(lon[None, :], lat[:, None]), dims=("y", "x"), coords={"y": lat, "x": lon}
+    )
+    if node_offset is not None:
+        da.attrs["node_offset"] = node_offset
+    da.attrs["source"] = "age.nc"
+    return da.rio.write_crs("EPSG:4326")
+
+
+def test_gridline_global_input_as_target_grid():
+    from lidmelt.grids.grid import registration, registration_note
+
+    da = gridline_global()
+    assert registration(da) == "gridline"
+    grid = Grid.from_grid(da)
+    # check values: 121 nodes of 3 degrees from 0 to 360 are 120 distinct columns; cells are
+    # centred on the nodes, so the grid runs from -1.5 to 358.5 and is periodic
+    assert (grid.width, grid.height) == (120, 61)
+    npt.assert_allclose(grid.bounds, (-1.5, -91.5, 358.5, 91.5))
+    assert grid.is_periodic
+    assert "gridline-registered" in registration_note(da, grid)
+    assert "dropped (1)" in registration_note(da, grid)
+    # the input aligned onto its own grid returns the node values (field at the nodes)
+    out = align(da, grid, name="anomaly")
+    npt.assert_allclose(out.values, da.values[:, :-1], atol=1e-6)
+
+
+def test_gridline_attribute_and_wide_grid_errors():
+    from lidmelt.grids.grid import registration
+
+    assert registration(gridline_global(node_offset=1)) == "pixel"
+    lon = np.arange(0.5, 363.0, 1.0)  # 363 one-degree cell centres: more than one turn
+    da = xr.DataArray(np.zeros((2, lon.size)), dims=("y", "x"), coords={"y": [0.5, -0.5], "x": lon})
+    da.attrs["source"] = "wide.nc"
+    with pytest.raises(GridError, match=r"wide.nc spans 363.0 degrees.*\[grid\] like.*Cut"):
+        Grid.from_grid(da.rio.write_crs("EPSG:4326"))

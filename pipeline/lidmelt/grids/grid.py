@@ -32,6 +32,8 @@ __all__ = [
     "finalise_grid",
     "lonlat_from",
     "normalise_crs",
+    "registration",
+    "registration_note",
     "same_transform",
     "transform_of",
 ]
@@ -219,15 +221,34 @@ class Grid:
     def from_grid(cls, da: xr.DataArray) -> Grid:
         """The grid a DataArray (e.g. from :func:`~lidmelt.grids.io.open_grid`) lies on.
 
+        A global gridline-registered geographic grid (its nodes include both 0 and 360 degrees,
+        see :func:`registration`) lies on cells centred on its nodes without the last,
+        periodic column, which repeats the first.
+
         Raises
         ------
         GridError
-            If ``da`` has no CRS, lacks ``y``/``x`` dimensions or is not north-up.
+            If ``da`` has no CRS, lacks ``y``/``x`` dimensions or is not north-up; if it is
+            geographic and wider than 360 degrees (the message names its file).
         """
         check_dataarray(da, what="grid")
-        return cls(
-            normalise_crs(da.rio.crs), tuple(transform_of(da))[:6], da.sizes["x"], da.sizes["y"]
-        )
+        transform = tuple(transform_of(da))[:6]
+        width = da.sizes["x"]
+        dx = transform[0]
+        crs = normalise_crs(da.rio.crs)
+        if cached_crs(crs).is_geographic and width * dx > 360.0 + 1e-9 * max(1.0, dx):
+            if registration(da) == "gridline" and abs((width - 1) * dx - 360.0) < 0.5 * dx:
+                width -= 1  # the column at west + 360 repeats the first
+            else:
+                source = da.attrs.get("source", "the grid")
+                msg = (
+                    f"{source!s} spans {width * dx!r} degrees of longitude ({width} columns of "
+                    f"{dx!r} degrees), more than 360, so it cannot be the target grid "
+                    "([grid] like). Cut its longitudes to one turn (e.g. 'gmt grdcut' or "
+                    "xarray .isel), or give the target with [grid] extent and resolution."
+                )
+                raise GridError(msg)
+        return cls(crs, transform, width, da.sizes["y"])
 
     @classmethod
     def from_dict(cls, doc: dict[str, Any]) -> Grid:
@@ -474,6 +495,54 @@ def check_dataarray(da: Any, *, what: str) -> None:
             "Sort it: da.sortby('y', ascending=False).sortby('x'), or read it with open_grid."
         )
         raise GridError(msg)
+
+
+def registration(da: xr.DataArray) -> str:
+    """``"gridline"`` (values at nodes) or ``"pixel"`` (values for cells) for a grid.
+
+    The GMT attribute ``node_offset`` (0 gridline, 1 pixel; GMT technical reference, "netCDF
+    files"), when the file has it, decides; otherwise a geographic grid whose nodes include
+    both ends of a full turn (0 and 360, or -180 and 180) or a pole is gridline-registered,
+    and any other grid is taken as pixel-registered (cell centres), as lidmelt always did.
+    Either way lidmelt places its cells centred on the coordinates.
+    """
+    offset = da.attrs.get("node_offset")
+    if offset is not None:
+        return "pixel" if int(offset) == 1 else "gridline"
+    if not _is_geographic(da):
+        return "pixel"
+    x = np.asarray(da["x"].values, dtype=float)
+    y = np.asarray(da["y"].values, dtype=float)
+    if x.size > 1:
+        step = abs(x[1] - x[0])
+        if abs(abs(x[-1] - x[0]) - 360.0) < 1e-6 * max(1.0, step):
+            return "gridline"
+    if y.size and np.any(np.isclose(np.abs(y[[0, -1]]), 90.0, rtol=0, atol=1e-9)):
+        return "gridline"
+    return "pixel"
+
+
+def _is_geographic(da: xr.DataArray) -> bool:
+    """True when ``da`` has a geographic (longitude/latitude) CRS."""
+    crs = da.rio.crs
+    return crs is not None and cached_crs(normalise_crs(crs)).is_geographic
+
+
+def registration_note(da: xr.DataArray, grid: Grid) -> str:
+    """One sentence for a run summary: the node/cell convention of a target-grid file."""
+    kind = registration(da)
+    if kind == "pixel":
+        return "pixel-registered: values are cell means at the cell centres of the grid"
+    dropped = da.sizes["x"] - grid.width
+    extra = (
+        f"; the duplicate periodic column at +360 degrees was dropped ({dropped})"
+        if dropped
+        else ""
+    )
+    return (
+        "gridline-registered: values at grid nodes; lidmelt's cells are centred on the nodes"
+        f" (cells on a pole reach past it and are clipped in the cell areas){extra}"
+    )
 
 
 def transform_of(da: xr.DataArray) -> Affine:
