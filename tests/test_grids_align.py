@@ -365,3 +365,53 @@ def test_gridline_attribute_and_wide_grid_errors():
     da.attrs["source"] = "wide.nc"
     with pytest.raises(GridError, match=r"wide.nc spans 363.0 degrees.*\[grid\] like.*Cut"):
         Grid.from_grid(da.rio.write_crs("EPSG:4326"))
+
+
+def polar_source(step_m=25e3, half_width_m=3.5e6):
+    """``field`` on an EPSG:3031 grid (cell centres), NaN north of 55 S (a nodata margin)."""
+    x = np.arange(-half_width_m + step_m / 2, half_width_m, step_m)
+    y = x[::-1]
+    xx, yy = np.meshgrid(x, y)
+    lon, lat = (np.asarray(v) for v in _to_lonlat_3031().transform(xx, yy))
+    values = np.where(lat < -55.0, field(lon, lat), np.nan)
+    da = xr.DataArray(values, dims=("y", "x"), coords={"y": y, "x": x}, name="age")
+    return da.rio.write_crs("EPSG:3031")
+
+
+def _to_lonlat_3031():
+    from pyproj import Transformer
+
+    return Transformer.from_crs("EPSG:3031", "EPSG:4326", always_xy=True)
+
+
+def test_coarsening_polar_stereographic_stays_inside_each_cell(caplog):
+    """A 25 km polar-stereographic input onto a 2-degree lon/lat target (issue 13).
+
+    Check: every target value lies within the range of the true field over its own target
+    cell (the field sampled on 41 x 41 points of the cell, edges included; between samples the
+    field can exceed the sampled range by at most (h^2 / 8) max|f''| <= (0.05^2 / 8) F2_DEG per
+    axis, the linear-interpolation bound, far below the 1e-6 allowed here).
+    """
+    import logging
+
+    src = polar_source()
+    target = Grid.from_extent(-180, 180, -80, -56, 2.0)
+    with caplog.at_level(logging.INFO, logger="lidmelt.grids.align"):
+        out = align(src, target, name="age")
+    assert "cell means" in caplog.text
+    assert out.attrs["resampling"] == "average (cell means)"
+    west, _, _, north = target.bounds
+    s = np.linspace(0.0, 2.0, 41)
+    lo = np.full(target.shape, np.inf)
+    hi = np.full(target.shape, -np.inf)
+    for du in s:
+        for dv in s:
+            lon = west + 2.0 * np.arange(target.width)[None, :] + du
+            lat = north - 2.0 * np.arange(target.height)[:, None] - dv
+            v = field(lon, lat)
+            lo, hi = np.minimum(lo, v), np.maximum(hi, v)
+    got = out.values
+    valid = np.isfinite(got)
+    assert valid.sum() > 0.95 * got.size  # the 55 S margin lies outside the target
+    bad = valid & ((got < lo - 1e-6) | (got > hi + 1e-6))
+    assert not bad.any(), f"{bad.sum()} cells outside their range"

@@ -10,6 +10,7 @@ are padded with periodic columns, regional ones are shifted by whole turns of 36
 
 from __future__ import annotations
 
+import logging
 import math
 import os
 from typing import Any
@@ -25,9 +26,12 @@ from rasterio.enums import Resampling
 from rasterio.warp import reproject
 
 from lidmelt.errors import GridError
+from lidmelt.grids.cellmean import cell_means
 from lidmelt.grids.grid import Grid, cached_crs, check_dataarray, normalise_crs, transform_of
 
 __all__ = ["RESAMPLING_METHODS", "align"]
+
+_log = logging.getLogger(__name__)
 
 #: Resampling names accepted by :func:`align` (GDAL warper kernels).
 RESAMPLING_METHODS = {
@@ -94,7 +98,11 @@ def align(
     surrounding input values are weighted bilinearly. NaN neighbours are left out and the
     weights renormalised; a target cell whose centre falls in a NaN input cell is NaN, so
     holes keep their size. Centres between the outermost input centres and the input edge take
-    the edge values. Otherwise (coarsening, or the other methods) GDAL's warper is used through
+    the edge values. Where the target cells are larger, ``"bilinear"`` becomes an area-weighted
+    average of the input cells inside each target cell (:func:`lidmelt.grids.cellmean.
+    cell_means`; target cells that hold no input cell centre keep the bilinear value), so that
+    no value reaches beyond its cell; the switch is logged and ``attrs["resampling"]`` says
+    ``"average (cell means)"``. The other methods use GDAL's warper through
     :func:`rasterio.warp.reproject` (``src_nodata = dst_nodata = NaN``, ``tolerance=0`` for an
     exact transformation; GDAL widens the kernel when coarsening). GDAL's own bilinear is not
     used for refinement between different CRSs: its kernel scale is estimated per processing
@@ -121,8 +129,8 @@ def align(
         out.encoding = {}
         out.name = out_name
         return out
-    result = _resample(da, target, resampling)
-    attrs = {**da.attrs, "resampling": resampling}
+    result, used = _resample(da, target, resampling)
+    attrs = {**da.attrs, "resampling": used}
     return xr.DataArray(result, dims=("y", "x"), coords=coords, attrs=attrs, name=out_name)
 
 
@@ -148,9 +156,10 @@ def _as_yx(da: xr.DataArray) -> xr.DataArray:
     return da if da.dims == ("y", "x") else da.transpose("y", "x")
 
 
-def _resample(da: xr.DataArray, target: Grid, resampling: str) -> np.ndarray:
-    """Values of ``da`` on ``target``: the covering source windows, loaded, then interpolated
-    here (bilinear refinement) or warped by GDAL (everything else); see :func:`align`."""
+def _resample(da: xr.DataArray, target: Grid, resampling: str) -> tuple[np.ndarray, str]:
+    """Values of ``da`` on ``target`` and the method used: the covering source windows, loaded,
+    then interpolated or averaged here (bilinear) or warped by GDAL (the other methods); see
+    :func:`align`."""
     src_crs = cached_crs(normalise_crs(da.rio.crs))
     src_transform = transform_of(da)
     pieces = _source_pieces(da, src_transform, src_crs, target)
@@ -161,9 +170,23 @@ def _resample(da: xr.DataArray, target: Grid, resampling: str) -> np.ndarray:
         (np.asarray(piece.values, dtype=dtype), tr, lon_range) for piece, tr, lon_range in pieces
     ]
     loaded = [item for item in loaded if item[0].size]
-    if resampling == "bilinear" and _median_footprint(target, src_crs, src_transform) <= 1.0:
-        return _interpolate_bilinear(loaded, target, src_crs, dtype)
-    return _warp_gdal(loaded, target, src_crs, dtype, RESAMPLING_METHODS[resampling])
+    if resampling != "bilinear":
+        return _warp_gdal(
+            loaded, target, src_crs, dtype, RESAMPLING_METHODS[resampling]
+        ), resampling
+    footprint = _median_footprint(target, src_crs, src_transform)
+    result = _interpolate_bilinear(loaded, target, src_crs, dtype)
+    if footprint <= 1.0:
+        return result, resampling
+    _log.info(
+        "%s: the target cells are coarser than the input cells (median %.3g input cells "
+        "across); resampled by cell means (the mean of the input cells whose centres lie in "
+        "each target cell) instead of bilinear",
+        da.name,
+        footprint,
+    )
+    means, counts = cell_means(loaded, target, src_crs)
+    return np.where(counts > 0, means, result).astype(dtype), "average (cell means)"
 
 
 # --------------------------------------------------------------------------------------------
