@@ -6,15 +6,18 @@ GDAL reads (GeoPackage, GeoJSON, Shapefile...); polygons from any vector file GD
 
 Coordinate columns are found under the names of :data:`LON_NAMES` and :data:`LAT_NAMES` (any
 case; the first one present wins) unless named explicitly; a text file's coordinates are
-EPSG:4326 unless a CRS is given. Every other column is kept as it was: numbers as numbers, text
-(identifiers such as ``007`` too) as text. A vector file must declare its CRS, or one is given
-to fill it in.
+EPSG:4326 unless a CRS is given, in decimal degrees or in degrees and minutes (and seconds)
+with a sign or a hemisphere letter (:func:`parse_angle`). Every other column is kept as it
+was: numbers as numbers, text (identifiers such as ``007`` too) as text. A vector file must
+declare its CRS, or one is given to fill it in.
 """
 
 from __future__ import annotations
 
 import csv
+import math
 import os
+import re
 from collections.abc import Sequence
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
@@ -42,6 +45,7 @@ __all__ = [
     "find_coordinate_columns",
     "id_column",
     "label_column",
+    "parse_angle",
     "parse_crs",
     "read_features",
     "read_labelled_points",
@@ -155,6 +159,42 @@ def find_coordinate_columns(
     return found[0], found[1]
 
 
+_HEMISPHERES = {"lon": {"E": 1.0, "W": -1.0}, "lat": {"N": 1.0, "S": -1.0}}
+_ANGLE_MARKS = re.compile(r"[°º˚'′’\"″”:dDmM]|''")
+
+
+def parse_angle(text: Any, *, axis: str) -> float:
+    """An angle in decimal degrees from degrees-minutes(-seconds) text; NaN if not one.
+
+    Accepts a sign or a hemisphere letter (before or after; E/W for ``axis="lon"``, N/S for
+    ``axis="lat"``), and degrees, minutes and seconds separated by spaces, colons or the marks
+    ° ' " (or d m): ``06°00.0'S``, ``6 00.0 S``, ``-6:00:00``, ``W 12 30 15.5``. Minutes and
+    seconds must be below 60; a sign together with a letter is refused.
+    """
+    value = str(text).strip().upper()
+    letters = _HEMISPHERES[axis]
+    sign = 1.0
+    if value[-1:] in letters or value[:1] in letters:
+        letter = value[-1] if value[-1:] in letters else value[0]
+        value = value[:-1] if value[-1:] == letter else value[1:]
+        sign = letters[letter]
+        if value.strip().startswith(("-", "+")):
+            return math.nan
+    value = value.strip()
+    if value.startswith(("-", "+")):
+        sign, value = (-1.0 if value[0] == "-" else 1.0), value[1:]
+    parts = _ANGLE_MARKS.sub(" ", value).split()
+    try:
+        numbers = [float(p) for p in parts]
+    except ValueError:
+        return math.nan
+    if not 1 <= len(numbers) <= 3 or any(n < 0 or n >= 60 for n in numbers[1:]):
+        return math.nan
+    if any(n != int(n) for n in numbers[:-1]):  # only the last part may have decimals
+        return math.nan
+    return sign * sum(n / 60.0**i for i, n in enumerate(numbers))
+
+
 def _sniff_delimiter(path: Path) -> str:
     with path.open(encoding="utf-8-sig", errors="replace") as fh:
         sample = fh.read(65536)
@@ -218,17 +258,22 @@ def read_table_points(
         )
         raise InputError(msg)
     coords = {}
-    for name in (lon_name, lat_name):
-        numbers = pd.to_numeric(frame[name].str.strip(), errors="coerce")
-        bad = np.flatnonzero(~np.isfinite(numbers.to_numpy(dtype=float)))
+    for name, axis in ((lon_name, "lon"), (lat_name, "lat")):
+        numbers = pd.to_numeric(frame[name].str.strip(), errors="coerce").to_numpy(dtype=float)
+        if crs is None and not np.isfinite(numbers).all():  # degrees, minutes, seconds
+            numbers = np.array([parse_angle(v, axis=axis) for v in frame[name]], dtype=float)
+        bad = np.flatnonzero(~np.isfinite(numbers))
         if bad.size:
             shown = ", ".join(f"line {i + 2}: {frame[name].iloc[i]!r}" for i in bad[:10])
             msg = (
                 f"{source}: column {name!r} has {bad.size} value(s) that are not numbers "
-                f"({shown}); expected decimal coordinates. Fix or remove those rows."
+                f"nor coordinates ({shown}); expected decimal degrees or degrees and minutes "
+                "(and seconds) with a sign or a hemisphere letter, e.g. -6.0, 06°00.0'S, "
+                f"6 00.0 S, -6:00:00 ({'E/W' if axis == 'lon' else 'N/S'} for this column). "
+                "Fix or remove those rows."
             )
             raise InputError(msg)
-        coords[name] = numbers.to_numpy(dtype=float)
+        coords[name] = numbers
     out = frame.copy()
     for name in out.columns:
         out[name] = coords[name] if name in coords else _infer_column(out[name])

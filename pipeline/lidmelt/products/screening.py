@@ -286,6 +286,8 @@ def _candidate_records(
         if stats["data_area_km2"] < min_area:
             continue
         lon, lat = zones.centroid_lonlat(flat)
+        if zones.grid.is_geographic:  # the grid's own longitude convention (0..360 stays so)
+            lon = float(zones.grid.wrap_x(np.array(lon)))
         records.append(
             {
                 "label": label,
