@@ -27,7 +27,7 @@ def f(x, y):
 
 def spec(path, **keys):
     fields = dict.fromkeys(
-        ("variable", "crs", "x_name", "y_name", "units", "scale", "offset", "nodata")
+        ("variable", "crs", "x_name", "y_name", "file_units", "scale", "offset", "nodata")
     )
     fields["dlnvs_dt_per_k"] = None
     fields.update(keys)
@@ -165,7 +165,7 @@ def test_units_key_scale_offset_nodata(tmp_path):
     xr.Dataset({"z": (("y", "x"), z)}, coords={"x": x, "y": y}).to_netcdf(path)
     raw = open_grid(path, name="lid", crs="EPSG:4326").values
     nodata = -9999.0
-    keys = {"crs": "EPSG:4326", "units": "m", "scale": 2.0, "offset": 100.0, "nodata": nodata}
+    keys = {"crs": "EPSG:4326", "file_units": "m", "scale": 2.0, "offset": 100.0, "nodata": nodata}
     da = open_input(spec(path, **keys), name="lid_thickness_km", units_expected="km")
     # check value: (value * 2 + 100) m in km, by the definition of the keys
     expected = (raw * 2.0 + 100.0) * 1e-3

@@ -214,7 +214,28 @@ class InputSpec:
         A uniform value. For ``thermal_anomaly`` it is added to the grid and plumes
         (default 0.0); for the other inputs it replaces the grid (give one or the other).
     plumes : tuple of PlumeSpec
-        Plumes added to the thermal anomaly (``thermal_anomaly`` only).
+        Plumes added to the thermal anomaly (``thermal_anomaly`` only): the inline
+        ``[[plumes]]`` tables, then the rows of ``plumes_file``.
+    crs, x_name, y_name : str or None
+        The CRS of a grid file that states none; the names of its x and y coordinates.
+    file_units : str or None
+        The ``units`` key: the unit of the file's values, overriding the file's label;
+        converted to :attr:`units` (the property ``units`` is the unit the input expects).
+    scale, offset : float or None
+        Values become ``value * scale + offset`` (before the unit conversion).
+    nodata : float or None
+        A value of the file that marks missing data.
+    dlnvs_dt_per_k : float or None
+        ``thermal_anomaly`` only: the grid holds shear-velocity anomalies in percent, turned
+        into kelvin through this d ln Vs / dT (1/K, negative; no default).
+    reference : str
+        ``lid_thickness`` only: ``"seafloor"`` (default) or ``"sea_level"``, where the lid
+        depth is measured from.
+    bathymetry : Path or None
+        ``lid_thickness`` only: an elevation grid (m, negative below sea level) giving the
+        water depth for ``reference = "sea_level"``.
+    plumes_file : str or None
+        ``thermal_anomaly`` only: the plume catalogue as written in the workflow.
     """
 
     name: str
@@ -224,6 +245,17 @@ class InputSpec:
     resampling: str = "bilinear"
     constant: float | None = None
     plumes: tuple[PlumeSpec, ...] = ()
+    crs: str | None = None
+    x_name: str | None = None
+    y_name: str | None = None
+    file_units: str | None = None
+    scale: float | None = None
+    offset: float | None = None
+    nodata: float | None = None
+    dlnvs_dt_per_k: float | None = None
+    reference: str = "seafloor"
+    bathymetry: Path | None = None
+    plumes_file: str | None = None
 
     @property
     def units(self) -> str:

@@ -206,11 +206,11 @@ def open_input(
         A :class:`lidmelt.config.InputSpec` (any object with its fields): ``path``,
         ``variable``, ``crs``, ``x_name``, ``y_name`` are handed to :func:`open_grid`;
         ``nodata`` (a value in the file, after the file's own packing) becomes NaN; then
-        ``value * scale + offset``; then the unit (``units``, else the file's, else
-        ``units_expected``) is converted to ``units_expected`` (:func:`~lidmelt.grids.units.
-        unit_factor`). With ``dlnvs_dt_per_k`` the grid holds shear-velocity anomalies in
-        percent, turned into kelvin (:func:`~lidmelt.grids.units.dlnvs_to_kelvin`). Each
-        conversion is logged.
+        ``value * scale + offset``; then the unit (``file_units``, the workflow key units,
+        else the file's, else ``units_expected``) is converted to ``units_expected``
+        (:func:`lidmelt.grids.units.unit_factor`). With ``dlnvs_dt_per_k`` the grid holds
+        shear-velocity anomalies in percent, turned into kelvin
+        (:func:`lidmelt.grids.units.dlnvs_to_kelvin`). Each conversion is logged.
     name : str
         The input's variable name (``plate_age_ma``...).
     units_expected : str
@@ -243,7 +243,7 @@ def open_input(
     if scale is not None or offset is not None:
         da = da * (1.0 if scale is None else scale) + (0.0 if offset is None else offset)
         steps.append(f"value * {scale if scale is not None else 1:g} + {offset or 0:g}")
-    units = getattr(spec, "units", None) or attrs.get("units") or None
+    units = getattr(spec, "file_units", None) or attrs.get("units") or None
     dlnvs = getattr(spec, "dlnvs_dt_per_k", None)
     if dlnvs is not None:
         if canonical_unit(units) not in (None, "%"):

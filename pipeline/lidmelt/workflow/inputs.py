@@ -21,8 +21,11 @@ from lidmelt.config import (
 )
 from lidmelt.errors import LidmeltError, WorkflowError
 from lidmelt.grids.anomaly import Plume
+from lidmelt.grids.catalogue import read_plume_catalogue
 from lidmelt.grids.io import detect_format
-from lidmelt.workflow.checks import Context, choice, in_range, string, table, wrong_type
+from lidmelt.grids.lidref import LID_REFERENCES
+from lidmelt.grids.units import dlnvs_to_kelvin
+from lidmelt.workflow.checks import Context, choice, in_range, number, string, table, wrong_type
 
 __all__ = ["read_inputs"]
 
@@ -87,6 +90,9 @@ def _read_input(ctx: Context, name: str, values: dict[str, Any], base_dir: Path)
     plumes: tuple[PlumeSpec, ...] = ()
     if "plumes" in values:
         plumes = _read_plumes(ctx, f"{prefix}.plumes", values["plumes"])
+    extra = read_input_options(ctx, prefix, values, base_dir, has_path=path is not None)
+    if "plumes_file" in extra:
+        plumes = plumes + _read_plumes_file(ctx, f"{prefix}.plumes_file", extra, base_dir)
     if path is None and constant is None:
         msg = (
             f"{ctx.where(prefix)} gives neither 'path' nor 'constant'; expected a grid file "
@@ -101,6 +107,7 @@ def _read_input(ctx: Context, name: str, values: dict[str, Any], base_dir: Path)
         resampling=resampling,
         constant=constant,
         plumes=plumes,
+        **extra,
     )
 
 
@@ -128,11 +135,11 @@ def _read_source(
                 "variable names a NetCDF variable of the grid file. Add the path or remove it."
             )
             raise WorkflowError(msg)
-        if detect_format(path, name=prefix) != "netcdf":
+        if detect_format(path, name=prefix) == "gdal":
             msg = (
                 f"{ctx.where(prefix + '.variable')} is {variable!r} but the file {written!r} is "
                 "a GeoTIFF or another single-grid raster format, which has no variables; remove "
-                "'variable' (it is for NetCDF files only)."
+                "'variable' (it is for NetCDF files only, and text grids with a header line)."
             )
             raise WorkflowError(msg)
     return path, written, variable
@@ -178,3 +185,65 @@ def _read_plume(ctx: Context, key: str, i: int, item: Any) -> PlumeSpec:
         msg = f"{ctx.where(pkey)} (plume {i}) is not valid: {exc}"
         raise WorkflowError(msg) from exc
     return spec
+
+
+# Keys of issue 13: how to read a grid file, the lid reference and plume catalogues.
+_TEXT_KEYS = {"crs": "EPSG:4326", "x_name": "lon", "y_name": "lat", "units": "m"}
+_NUMBER_KEYS = {
+    "scale": "the file's units",
+    "offset": "the file's units",
+    "nodata": "the file's units",
+    "dlnvs_dt_per_k": "1/K",
+}
+
+
+def read_input_options(
+    ctx: Context, prefix: str, values: dict[str, Any], base_dir: Path, *, has_path: bool
+) -> dict[str, Any]:
+    """The per-input keys of ``[inputs.<name>]`` beyond path/variable/resampling/constant, as
+    :class:`~lidmelt.config.InputSpec` fields (only those given)."""
+    out: dict[str, Any] = {}
+    for key, example in _TEXT_KEYS.items():
+        if key in values:
+            field = "file_units" if key == "units" else key
+            out[field] = string(ctx, f"{prefix}.{key}", values[key], example=example)
+    for key, unit in _NUMBER_KEYS.items():
+        if key in values:
+            out[key] = number(ctx, f"{prefix}.{key}", values[key], unit=unit)
+    grid_keys = sorted(k for k in (*_TEXT_KEYS, *_NUMBER_KEYS) if k in values)
+    if grid_keys and not has_path:
+        msg = (
+            f"{ctx.where(prefix)} sets {', '.join(grid_keys)} but no path; these keys say how "
+            "to read a grid file. Add the path, or remove them."
+        )
+        raise WorkflowError(msg)
+    if "dlnvs_dt_per_k" in out:
+        try:
+            dlnvs_to_kelvin(out["dlnvs_dt_per_k"])
+        except LidmeltError as exc:
+            msg = f"{ctx.where(prefix + '.dlnvs_dt_per_k')} is not valid: {exc}"
+            raise WorkflowError(msg) from exc
+    if "reference" in values:
+        out["reference"] = choice(ctx, f"{prefix}.reference", values["reference"], LID_REFERENCES)
+    if "bathymetry" in values:
+        spec = {"path": values["bathymetry"]}
+        out["bathymetry"] = _read_source(ctx, f"{prefix}.bathymetry", spec, base_dir)[0]
+    if "plumes_file" in values:
+        out["plumes_file"] = string(
+            ctx, f"{prefix}.plumes_file", values["plumes_file"], example="hotspots.csv"
+        )
+    return out
+
+
+def _read_plumes_file(
+    ctx: Context, key: str, extra: dict[str, Any], base_dir: Path
+) -> tuple[PlumeSpec, ...]:
+    """The rows of a plume catalogue, checked like inline plumes."""
+    written = extra["plumes_file"]
+    path = (base_dir / Path(written).expanduser()).resolve()
+    try:
+        rows = read_plume_catalogue(path, key=f"{ctx.source}: {key}")
+    except LidmeltError as exc:
+        msg = f"{ctx.where(key)} = {written!r}: {exc}"
+        raise WorkflowError(msg) from exc
+    return tuple(_read_plume(ctx, key, i, row) for i, row in enumerate(rows, start=1))

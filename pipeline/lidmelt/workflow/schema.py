@@ -13,6 +13,8 @@ from lidmelt.workflow.checks import Context, leaf
 __all__ = ["ALL_KEYS", "SCHEMA", "TABLES", "check_unknown_keys"]
 
 _INPUT_KEYS = ("path", "variable", "resampling", "constant")
+# How to read a grid file (issue 13): any input.
+_FILE_KEYS = ("crs", "units", "scale", "offset", "x_name", "y_name", "nodata")
 _PLUME_KEYS = ("name", "longitude", "latitude", "radius_km", "peak_excess_k", "shape")
 #: The keys allowed in each table (dotted table name -> keys). ``"*"`` marks a free table whose
 #: keys are checked by the model functions (see ``validate_models``); ``"[]"`` marks an array of
@@ -22,8 +24,15 @@ SCHEMA: dict[str, tuple[str, ...]] = {
     "run": ("name", "output_dir", "netcdf", "maps", "report"),
     "grid": ("like", "extent", "resolution", "crs"),
     "inputs": INPUT_NAMES,
-    **{f"inputs.{name}": _INPUT_KEYS for name in INPUT_NAMES},
-    "inputs.thermal_anomaly": (*_INPUT_KEYS, "plumes"),
+    **{f"inputs.{name}": (*_INPUT_KEYS, *_FILE_KEYS) for name in INPUT_NAMES},
+    "inputs.thermal_anomaly": (
+        *_INPUT_KEYS,
+        "plumes",
+        *_FILE_KEYS,
+        "plumes_file",
+        "dlnvs_dt_per_k",
+    ),
+    "inputs.lid_thickness": (*_INPUT_KEYS, *_FILE_KEYS, "reference", "bathymetry"),
     "inputs.thermal_anomaly.plumes[]": _PLUME_KEYS,
     "model": ("name", "ambient_potential_temperature_c", "min_top_of_melting_km", "parameters"),
     "model.parameters": ("*",),

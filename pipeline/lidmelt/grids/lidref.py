@@ -1,0 +1,99 @@
+"""Lid thickness given below sea level: conversion to lidmelt's lid, below the seafloor.
+
+Lithosphere-thickness models often give the depth of the lid base below sea level. lidmelt's
+lid thickness is measured from the seafloor, so the water depth is subtracted:
+``lid_below_seafloor = lid_below_sea_level - water_depth`` (kept >= 0). The water depth comes
+from a bathymetry grid (elevation, negative below sea level, as GEBCO and ETOPO grids store it;
+from memory) or, where none is given, from the age-depth relation of the run's cooling model
+(:func:`lidmelt.physics.cooling.seafloor_depth_m`, which needs the plate age).
+"""
+
+from __future__ import annotations
+
+from types import SimpleNamespace
+from typing import Any
+
+import numpy as np
+import xarray as xr
+
+from lidmelt.errors import InputError
+from lidmelt.grids.align import align
+from lidmelt.grids.grid import Grid
+from lidmelt.grids.io import open_input
+from lidmelt.physics.cooling import get_cooling_model, seafloor_depth_m
+
+__all__ = ["LID_REFERENCES", "apply_lid_reference", "lid_below_seafloor_km"]
+
+#: Values of ``[inputs.lid_thickness] reference``.
+LID_REFERENCES = ("seafloor", "sea_level")
+
+
+def lid_below_seafloor_km(lid_below_sea_level_km: Any, water_depth_km: Any) -> Any:
+    """The lid thickness below the seafloor from the lid base below sea level.
+
+    Parameters
+    ----------
+    lid_below_sea_level_km, water_depth_km : array_like or DataArray
+        Depth of the lid base below sea level and depth of the seafloor below sea level, km
+        (both positive down).
+
+    Returns
+    -------
+    Same type as the inputs
+        ``max(lid - water, 0)`` km; NaN where either is NaN.
+    """
+    diff = lid_below_sea_level_km - water_depth_km
+    if isinstance(diff, xr.DataArray):
+        return diff.clip(min=0.0)
+    return np.where(np.isnan(diff), np.nan, np.maximum(diff, 0.0))
+
+
+def apply_lid_reference(
+    cfg: Any, values: dict, provenance: dict, *, target: Grid, chunks: int
+) -> None:
+    """Turn a lid grid given below sea level into lidmelt's lid (in place in ``values``).
+
+    Does nothing unless ``cfg.inputs.lid_thickness.reference == "sea_level"``. The water depth
+    is the bathymetry grid (``bathymetry`` key, elevation in m, converted by units) aligned on
+    ``target``, else the cooling model's seafloor depth at the plate age. ``provenance`` of the
+    lid records which (``"reference"`` and ``"water_depth"``), for the run summary.
+
+    Raises
+    ------
+    InputError
+        If the lid is below sea level but there is neither a bathymetry grid nor a plate age.
+    """
+    spec = cfg.inputs.lid_thickness
+    name = "lid_thickness_km"
+    if spec is None or getattr(spec, "reference", "seafloor") != "sea_level" or name not in values:
+        return
+    bathymetry = getattr(spec, "bathymetry", None)
+    if bathymetry is not None:
+        bath = SimpleNamespace(name="lid_thickness.bathymetry", path=bathymetry, variable=None)
+        elevation = open_input(bath, name="bathymetry_m", units_expected="m", chunks=chunks)
+        elevation = align(elevation, target, name="bathymetry_m")
+        depth_km = (-elevation).clip(min=0.0) / 1000.0
+        how = f"water depth from the bathymetry grid {str(bathymetry)!r}"
+    elif "plate_age_ma" in values:
+        model = get_cooling_model(cfg.lithosphere.cooling, **dict(cfg.lithosphere.parameters))
+        age = values["plate_age_ma"]
+        depth_km = (
+            xr.apply_ufunc(
+                lambda a: seafloor_depth_m(a, model=model) / 1000.0,
+                age,
+                dask="parallelized",
+                output_dtypes=[np.float64],
+            )
+            if isinstance(age, xr.DataArray)
+            else float(seafloor_depth_m(age, model=model)) / 1e3
+        )
+        how = f"water depth from the age-depth relation of the {cfg.lithosphere.cooling} model"
+    else:
+        msg = (
+            'inputs.lid_thickness has reference = "sea_level" but the run has neither a '
+            "bathymetry grid nor a plate age to give the water depth. Add "
+            'bathymetry = "elevation.nc" to [inputs.lid_thickness] or an [inputs.plate_age].'
+        )
+        raise InputError(msg)
+    values[name] = lid_below_seafloor_km(values[name], depth_km)
+    provenance[name].update(reference="sea_level", water_depth=how)
