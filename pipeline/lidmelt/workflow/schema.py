@@ -13,7 +13,15 @@ from lidmelt.workflow.checks import Context, leaf
 __all__ = ["ALL_KEYS", "SCHEMA", "TABLES", "check_unknown_keys"]
 
 _INPUT_KEYS = ("path", "variable", "resampling", "constant")
-_PLUME_KEYS = ("name", "longitude", "latitude", "radius_km", "peak_excess_k", "shape")
+_PLUME_KEYS = (
+    "name",
+    "longitude",
+    "latitude",
+    "radius_km",
+    "peak_excess_k",
+    "shape",
+    "peak_upwelling_mm_yr",
+)
 #: The keys allowed in each table (dotted table name -> keys). ``"*"`` marks a free table whose
 #: keys are checked by the model functions (see ``validate_models``); ``"[]"`` marks an array of
 #: tables.
@@ -25,7 +33,13 @@ SCHEMA: dict[str, tuple[str, ...]] = {
     **{f"inputs.{name}": _INPUT_KEYS for name in INPUT_NAMES},
     "inputs.thermal_anomaly": (*_INPUT_KEYS, "plumes"),
     "inputs.thermal_anomaly.plumes[]": _PLUME_KEYS,
-    "model": ("name", "ambient_potential_temperature_c", "min_top_of_melting_km", "parameters"),
+    "model": (
+        "name",
+        "ambient_potential_temperature_c",
+        "min_top_of_melting_km",
+        "crust_density_kg_m3",
+        "parameters",
+    ),
     "model.parameters": ("*",),
     "lithosphere": ("cooling", "lid_isotherm_c", "parameters"),
     "lithosphere.parameters": ("*",),
