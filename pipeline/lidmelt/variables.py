@@ -13,6 +13,8 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
+import numpy as np
+
 from lidmelt.errors import InputError
 
 __all__ = [
@@ -23,6 +25,7 @@ __all__ = [
     "OUTPUTS",
     "VARIABLES",
     "Variable",
+    "check_input_range",
     "default_outputs",
     "get_variable",
     "input_for_workflow_key",
@@ -277,3 +280,21 @@ def input_for_workflow_key(key: str) -> Variable:
     known = ", ".join(v.workflow_key for v in INPUTS.values())
     msg = f"unknown input {key!r}; the inputs are {known}."
     raise InputError(msg)
+
+
+def check_input_range(block: np.ndarray, name: str, source: str) -> np.ndarray:
+    """``block`` of input ``name`` unchanged, or an :class:`InputError` for values outside
+    the variable's physical range (:attr:`Variable.valid_range`); ``source`` names its file."""
+    var = INPUTS[name]
+    lo, hi = var.valid_range
+    with np.errstate(invalid="ignore"):
+        bad = (block < lo) | (block > hi)
+    if bad.any():
+        values = block[bad]
+        msg = (
+            f"{name} from {source} has values from {np.nanmin(values):.6g} to "
+            f"{np.nanmax(values):.6g}, outside {lo:g} to {hi:g}: expected {var.advice}. "
+            "Fix the grid's units (or its nodata value) and run again."
+        )
+        raise InputError(msg)
+    return block

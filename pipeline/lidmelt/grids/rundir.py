@@ -235,6 +235,7 @@ def build_summary(
     gridded_inputs: Collection[str],
     outputs: Sequence[str],
     statistics: Mapping[str, Any],
+    warnings: Sequence[str] = (),
 ) -> dict[str, Any]:
     """The ``summary.json`` document of a run (keys in the module docstring).
 
@@ -254,6 +255,8 @@ def build_summary(
         The output variables written, in file order.
     statistics : mapping
         The ``statistics`` entry, JSON-ready (no NaN).
+    warnings : sequence of str
+        The run's warnings (e.g. much of the grid melting at the ambient temperature).
     """
     return {
         "lidmelt_run": RUN_FORMAT_VERSION,
@@ -296,6 +299,7 @@ def build_summary(
             "meanings": {str(k): v for k, v in FLAG_MEANINGS.items()},
         },
         "statistics": dict(statistics),
+        "warnings": list(warnings),
         "workflow_file": str(cfg.workflow_path),
         "workflow_overrides": list(cfg.overrides),
         "workflow": cfg.text,
