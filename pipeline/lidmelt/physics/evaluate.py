@@ -415,12 +415,13 @@ def _table_one_water(table, tp, lid, water, min_top_km, out):
         top_p = top_km * gpa_per_km
         y = top_p * inv_dp
         with np.errstate(invalid="ignore"):  # NaN cells are sent to _direct below
-            i = x.astype(np.intp)
-            k = y.astype(np.intp)
+            # the last node belongs to the interval below it (a or b = 1 there)
+            i = np.minimum(x.astype(np.intp), n_tp - 2)
+            k = np.minimum(y.astype(np.intp), n_p - 2)
         a = (x - i).astype(np.float32)[:, None]
         b = (y - k).astype(np.float32)[:, None]
         # indices of invalid cells may be garbage: mode="clip" keeps the gather in bounds
-        v = np.take(packed, i * (n_p - 1) + np.minimum(k, n_p - 2), axis=0, mode="clip")
+        v = np.take(packed, i * (n_p - 1) + k, axis=0, mode="clip")
         v0 = v[:, 0:4] + b * (v[:, 4:8] - v[:, 0:4])
         r = v0 + a * (v[:, 8:12] + b * (v[:, 12:16] - v[:, 8:12]) - v0)
         p_on = r[:, 3]
