@@ -30,7 +30,7 @@ def scan(method="table"):
 
 
 def test_scan_to_1900_c_is_finite_monotonic_and_smooth():
-    tp, h, flag = scan()
+    _tp, h, flag = scan()
     assert np.all(np.isfinite(h))
     step = np.diff(h, axis=-1)
     assert np.all(step >= -1e-4), step.min()  # monotonic (float32 table values)
@@ -49,7 +49,8 @@ def test_continuation_is_continuous_monotonic_and_keeps_the_interval():
         pc = m.calibrated_max_pressure_gpa
         p = np.linspace(0.0, 30.0, 3001)
         sol, liq = m.solidus_c(p), m.liquidus_c(p)
-        assert np.all(np.diff(sol) > 0) and np.all(np.diff(liq) > 0), name
+        assert np.all(np.diff(sol) > 0), name
+        assert np.all(np.diff(liq) > 0), name
         width = liq - sol
         npt.assert_allclose(width[p >= pc], width[p == pc][0], atol=1e-6, err_msg=name)
         eps = 1e-7
