@@ -390,3 +390,21 @@ def test_demo_workflow_runs_from_its_own_folder(tmp_path, monkeypatch):
     monkeypatch.chdir(copy)
     cfg = load_workflow(Path("workflows/demo.toml"))
     assert cfg.run.output_dir == copy / "runs" / "demo"
+
+
+def test_plume_upwelling_gives_melt_production(tmp_path):
+    # issue 11: a plume's peak_upwelling_mm_yr spreads with the plume's shape; only then does the
+    # run write melt production (lidmelt definition: W x F(top), docs/physics.md)
+    wf = small_basin(tmp_path)
+    text = wf.read_text().replace(
+        "peak_excess_k = 250.0", "peak_excess_k = 250.0\npeak_upwelling_mm_yr = 100.0"
+    )
+    wf.write_text(text)
+    res = run_basin(load_workflow(wf, output_dir=tmp_path / "run"), progress=False)
+    run = open_run(res.run_dir)
+    production = run.open("melt_production_mm_yr").values
+    f_top = run.open("max_melt_fraction").values
+    upwelling = run.open("upwelling_mm_yr").values
+    assert np.nanmax(upwelling) == pytest.approx(100.0, rel=0.05)  # peak near the centre cell
+    npt.assert_allclose(production, upwelling * f_top, rtol=1e-5, atol=1e-6)
+    assert run.summary["statistics"]["melt_production_km3_yr"] > 0

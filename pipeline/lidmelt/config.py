@@ -280,6 +280,14 @@ class Inputs:
         """The inputs that are set, by name, in the order of :data:`INPUT_NAMES`."""
         return {n: s for n in INPUT_NAMES if (s := getattr(self, n)) is not None}
 
+    def available(self) -> tuple[str, ...]:
+        """The inputs a run will have: those set, and ``upwelling`` when a plume gives it."""
+        names = tuple(self.given())
+        plumes = self.thermal_anomaly.plumes
+        if "upwelling" not in names and any(p.peak_upwelling_mm_yr is not None for p in plumes):
+            names += ("upwelling",)
+        return names
+
 
 @dataclass(frozen=True, kw_only=True)
 class ModelOptions:

@@ -308,7 +308,7 @@ _COMPUTE_READERS: dict[str, Reader] = {
 
 
 def _read_outputs(ctx: Context, values: dict[str, Any], inputs: Inputs) -> OutputOptions:
-    given = inputs.given()
+    given = inputs.available()
     if "variables" not in values:
         return OutputOptions(variables=variables.default_outputs(given))
     key = "outputs.variables"
