@@ -19,7 +19,6 @@ import functools
 import sys
 import time
 import uuid
-import warnings
 from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -444,21 +443,23 @@ def store_with_statistics(
     area,
     workers: int,
     report: Callable[[int, int], None] | None,
-    age=None,
-    upwelling: bool = False,
+    inputs: RunInputs | None = None,
 ) -> dict[str, Any]:
     """Store every GeoTIFF and compute the summary statistics in one dask pass.
 
     The grid is computed in bands of two chunk rows (one :func:`dask.compute` each), so the
     kernel runs once per chunk whatever the number of files; ``area`` is the cell area (km2,
-    dask, chunked like the kernel) and ``age`` the plate age grid (dask) or None. Returns the
-    ``statistics`` entry of the summary (:func:`lidmelt.statistics.summarize_bands`); the melt
-    production total only with ``upwelling``.
+    dask, chunked like the kernel). ``inputs`` gives the plate age (for the median age of
+    ambient-melting cells) and whether upwelling is known (for the melt production total).
+    Returns the ``statistics`` entry of the summary (:func:`lidmelt.statistics.summarize_bands`).
     """
     names = list(lazy.outputs)
     out_index = [k for k, name in enumerate(OUTPUTS) if name in lazy.outputs]
-    integrals = [n for n in _INTEGRALS if upwelling or not OUTPUTS[n].needs]
+    given = inputs.values if inputs is not None else {}
+    integrals = [n for n in _INTEGRALS if not OUTPUTS[n].needs or "upwelling_mm_yr" in given]
     ref_chunks = lazy.stacked.chunks[1:]
+    age = given.get("plate_age_ma")
+    age = _as_dask(age, ref_chunks) if isinstance(age, xr.DataArray) else None
     extra = functools.partial(
         band_parts,
         stacked=lazy.stacked,
@@ -559,16 +560,11 @@ def run_basin(
         area=cell_area_km2(target, chunks=chunks).data,
         workers=int(cfg.compute.workers),
         report=_reporter(progress),
-        age=_as_dask(inputs.values["plate_age_ma"], chunks)
-        if "plate_age_ma" in inputs.gridded
-        else None,
-        upwelling="upwelling_mm_yr" in inputs.values,
+        inputs=inputs,
     )
     run_warnings = ambient_melting_warnings(
-        statistics, ambient_c=cfg.model.ambient_potential_temperature_c
+        statistics, ambient_c=cfg.model.ambient_potential_temperature_c, issue=True
     )
-    for text in run_warnings:
-        warnings.warn(text, UserWarning, stacklevel=2)
     timings["compute_and_write_s"] = time.perf_counter() - t1
     timings.update(lazy.clock)  # thread seconds inside the kernel (overlapping the I/O)
     files = [item.path for item in items]

@@ -9,6 +9,7 @@ regime values are those of :mod:`lidmelt.variables` and docs/physics.md ("Defini
 
 from __future__ import annotations
 
+import warnings
 from typing import Any
 
 import numpy as np
@@ -127,12 +128,22 @@ def summarize_bands(bands: list[list], *, names: list[str], integrals: list[str]
     return out
 
 
-def ambient_melting_warnings(statistics: dict, *, ambient_c: float) -> list[str]:
+def ambient_melting_warnings(
+    statistics: dict, *, ambient_c: float, issue: bool = False
+) -> list[str]:
     """A warning when more than a quarter of the cells with data melt at the ambient Tp.
 
     Names the likely causes with the numbers that point to them: young seafloor (the median
     plate age of those cells), a thin lid (their median top of melting), a hot ambient Tp.
+    With ``issue`` each is also issued as a :class:`UserWarning` (the command line prints them).
     """
+    texts = _ambient_melting_texts(statistics, ambient_c)
+    for text in texts if issue else ():
+        warnings.warn(text, UserWarning, stacklevel=2)
+    return texts
+
+
+def _ambient_melting_texts(statistics: dict, ambient_c: float) -> list[str]:
     amb = statistics["ambient_melting"]
     frac = amb["fraction_of_data_cells"]
     if frac is None or frac <= AMBIENT_MELT_WARN_FRACTION:

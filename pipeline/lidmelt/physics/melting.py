@@ -472,7 +472,10 @@ class McKenzieBickleModel(MeltingModel):
         Beyond the calibrated pressure both are continued (:meth:`continued_pressure`).
         """
         p, shift = self.continued_pressure(pressure_gpa)
-        t_s, t_l = self.solidus_dry_c(p), self.liquidus_dry_c(p)
+        # the implicit solidus is solved once per distinct pressure (columns share the nodes)
+        nodes, where = np.unique(p, return_inverse=True)
+        t_s = self.solidus_dry_c(nodes)[where].reshape(p.shape)
+        t_l = self.liquidus_dry_c(p)
         if shift is not None:
             t_s, t_l = t_s + shift, t_l + shift
         return t_s, t_l, np.asarray(water_wt_pct, float)
