@@ -153,3 +153,41 @@ def test_python_dash_m_lidmelt():
         check=True,
     )
     assert 6.3 < json.loads(out.stdout)["melt_thickness_km"] < 7.9  # White et al. 1992, from memory
+
+
+def test_the_ambient_used_is_reported_or_the_excess_omitted(capsys):
+    # issue 11: with only Tp given there is no ambient to compare with, so no excess is shown
+    doc = run_json(capsys, "--potential-temperature", "1450", "--lid-depth", "30")
+    assert "excess_to_melt_k" not in doc
+    assert "anomaly_melt_thickness_km" not in doc
+    assert doc["ambient_potential_temperature_c"] is None
+    assert main(["column", "--potential-temperature", "1450", "--lid-depth", "30"]) == 0
+    text = capsys.readouterr().out
+    assert "excess to melt  " not in text  # no row (the note below names it)
+    assert "--ambient" in text
+    # with --excess-temperature the default ambient (1350 C, Herzberg et al. 2010) is shown
+    doc = run_json(capsys, "--excess-temperature", "100", "--lid-depth", "30")
+    assert doc["ambient_potential_temperature_c"] == 1350.0
+    amb = melt_column(1350.0, 30.0, 0.0, method="direct").melt_thickness_km
+    tot = melt_column(1450.0, 30.0, 0.0, method="direct").melt_thickness_km
+    # lidmelt definition (docs/physics.md): anomaly melt = H(ambient + anomaly) - H(ambient)
+    assert doc["anomaly_melt_thickness_km"] == pytest.approx(float(tot - amb))
+    assert doc["melting_regime"] == 1  # ambient mantle melts beneath a 30 km lid
+    # lidmelt definition: crust = H x 3300 / crust density
+    assert doc["crustal_thickness_km"] == pytest.approx(float(tot) * 3300.0 / 2900.0)
+    doc = run_json(
+        capsys, "--excess-temperature", "100", "--lid-depth", "30", "--crust-density", "2800"
+    )
+    assert doc["crustal_thickness_km"] == pytest.approx(float(tot) * 3300.0 / 2800.0)
+
+
+def test_unit_mistakes_get_hints(capsys):
+    # water given in ppm (100 ppm = 0.01 wt%): refused with the conversion
+    assert (
+        main(["column", "--potential-temperature", "1350", "--lid-depth", "30", "--water", "100"])
+        != 0
+    )
+    assert "--water 0.01" in capsys.readouterr().err
+    # Tp in kelvin: 1623 K = 1349.85 C, a likely ambient value; a note gives the conversion
+    assert main(["column", "--potential-temperature", "1623", "--lid-depth", "30"]) == 0
+    assert "--potential-temperature 1349.85" in capsys.readouterr().err

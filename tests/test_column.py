@@ -204,15 +204,20 @@ def test_invalid_inputs_are_nan_and_flagged():
 
 
 def test_beyond_calibration_is_flagged_not_clipped():
-    # derived (docs/physics.md, where the onset is searched): onsets deeper than about 7 GPa are
-    # extrapolation; Tp 1700 C dry has no
-    # crossing above the turnover of the solidus quadratic (13.03 GPa)
-    res = direct(np.array([1640.0, 1700.0]), 0.0)
+    # lidmelt definition, docs/physics.md section "Beyond the calibrated pressure": onsets deeper
+    # than the calibrated 7 GPa lie on the continued solidus and are computed and flagged. Tp
+    # 1700 C dry met no solidus before the continuation (the quadratic turns over at 13.03 GPa);
+    # on the continuation its onset is at 10.1 GPa [derived]. Past the search range (30 GPa;
+    # Tp 2000 C with 0.1 wt% water would cross near 32 GPa [derived]) there is still no onset.
+    res = direct(np.array([1640.0, 1700.0, 2000.0]), 30.0, np.array([0.0, 0.0, 0.1]))
     assert res.flag[0] == FLAG_BEYOND_CALIBRATION
     assert float(res.onset_pressure_gpa[0]) > 7.0
     assert np.isfinite(res.melt_thickness_km[0])
-    assert res.flag[1] & FLAG_NO_ONSET
-    assert np.isnan(res.melt_thickness_km[1])
+    assert res.flag[1] == FLAG_BEYOND_CALIBRATION
+    assert float(res.onset_pressure_gpa[1]) == pytest.approx(10.106, abs=0.01)
+    assert res.melt_thickness_km[1] > res.melt_thickness_km[0] > 0
+    assert res.flag[2] & FLAG_NO_ONSET
+    assert np.isnan(res.melt_thickness_km[2])
 
 
 def test_excess_to_melt_is_the_threshold():

@@ -17,10 +17,10 @@ from rasterio.transform import from_origin
 
 from lidmelt.cli import main
 from lidmelt.engine import run_basin
-from lidmelt.errors import InputError
+from lidmelt.errors import InputError, LidmeltError
 from lidmelt.grids.rundir import RUN_FORMAT_VERSION, SUMMARY_NAME, open_run, write_summary
 from lidmelt.physics import excess_to_melt_k, get_cooling_model, isotherm_depth_km, melt_column
-from lidmelt.variables import FLAG_VARIABLE, INPUTS, OUTPUTS
+from lidmelt.variables import DEFAULT_OUTPUTS, FLAG_VARIABLE, INPUTS, OUTPUTS
 from lidmelt.workflow import load_workflow
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -104,10 +104,10 @@ def demo_run(tmp_path_factory):
 
 def test_demo_outputs_grid_and_nodata(demo_run):
     run = open_run(demo_run.run_dir)
-    assert set(OUTPUTS) <= set(run.outputs)
+    assert set(DEFAULT_OUTPUTS) <= set(run.outputs)
     with rasterio.open(ROOT / "grids_demo" / "plate_age_ma.tif") as src:
         crs, transform, age = src.crs, src.transform, src.read(1)
-    for name in OUTPUTS:
+    for name in DEFAULT_OUTPUTS:
         with rasterio.open(run.file(name)) as dst:
             assert dst.crs == crs, name
             assert dst.transform == transform, name
@@ -134,7 +134,7 @@ def test_demo_cells_equal_melt_column(demo_run):
     run = open_run(demo_run.run_dir)
     age = run.open("plate_age_ma").values
     anomaly = run.open("thermal_anomaly_k").values
-    out = {name: run.open(name).values for name in OUTPUTS}
+    out = {name: run.open(name).values for name in DEFAULT_OUTPUTS}
     rng = np.random.default_rng(7)
     iy, ix = np.nonzero(np.isfinite(age))
     pick = rng.choice(iy.size, 50, replace=False)
@@ -172,13 +172,81 @@ def test_demo_summary(demo_run):
     npt.assert_allclose(st["melting_area_km2"], np.sum(area[thickness > 0]), rtol=1e-6)
     assert s["inputs"]["plate_age_ma"]["sha256"]
     assert s["model"]["name"] == "katz2003"
+    # the melt the anomaly adds and the regimes (lidmelt definition: docs/physics.md,
+    # "Definitions"): sums over the written grids
+    run = open_run(demo_run.run_dir)
+    anomaly = run.open("anomaly_melt_thickness_km").values
+    regime = run.open("melting_regime").values
+    npt.assert_allclose(st["anomaly_melt_volume_km3"], np.nansum(anomaly * area), rtol=1e-5)
+    for value in (0, 1, 2):
+        assert st["regime_cells"][str(value)] == int(np.sum(regime == value))
+    assert np.all(anomaly[np.isfinite(anomaly)] >= 0)
+    assert np.all((anomaly <= thickness + 1e-6)[np.isfinite(thickness)])
+    assert "melt_production_km3_yr" not in st  # no upwelling input: nothing of it appears
+    # the demo's young ridge flank melts at ambient Tp: the run says so, naming the plate age
+    assert st["ambient_melting"]["fraction_of_data_cells"] > 0.25
+    assert any("median plate age" in w for w in s["warnings"])
+
+
+def test_uniform_column_melt_production_and_crust(tmp_path):
+    # lidmelt definition (docs/physics.md, "Definitions"): melt production = W x F(top) and its
+    # total is the area integral; crustal thickness = H x rho_s / rho_crust. Uniform inputs make
+    # every cell the same column, so the total is W x F_top x area.
+    wf = tmp_path / "uniform.toml"
+    wf.write_text(
+        """
+[run]
+name = "uniform"
+maps = false
+report = false
+[grid]
+extent = [-10.0, -8.0, 0.0, 2.0]
+resolution = 0.25
+[inputs.lid_thickness]
+constant = 20.0
+[inputs.thermal_anomaly]
+constant = 100.0
+[inputs.upwelling]
+constant = 40.0
+[model]
+crust_density_kg_m3 = 2800.0
+[outputs]
+variables = ["melt_thickness_km", "max_melt_fraction", "crustal_thickness_km",
+             "melt_production_mm_yr"]
+""",
+        encoding="utf-8",
+    )
+    res = run_basin(load_workflow(wf, output_dir=tmp_path / "run"), progress=False)
+    run = open_run(res.run_dir)
+    ref = melt_column(1450.0, 20.0, 0.0, method="direct")
+    f_top, h = float(ref.max_melt_fraction), float(ref.melt_thickness_km)
+    production = run.open("melt_production_mm_yr").values
+    npt.assert_allclose(production, 40.0 * f_top, atol=40.0 * 2e-3)  # table tolerance on F
+    crust = run.open("crustal_thickness_km").values
+    npt.assert_allclose(crust, h * 3300.0 / 2800.0, rtol=0.006)  # table tolerance on H
+    from lidmelt.grids.area import cell_area_km2
+    from lidmelt.grids.grid import Grid
+
+    area = cell_area_km2(Grid.from_dict(run.summary["grid"])).values.sum()
+    st = run.summary["statistics"]
+    # km3/yr = mm/yr x 1e-6 km/mm x km2, summed over the cells
+    npt.assert_allclose(
+        st["melt_production_km3_yr"], 1e-6 * float(production[0, 0]) * area, rtol=1e-5
+    )
+    npt.assert_allclose(st["melt_production_km3_yr"], 40.0e-6 * f_top * area, rtol=0.01)
+
+
+def test_listing_melt_production_without_upwelling_is_an_error(tmp_path):
+    wf = small_basin(tmp_path, extra='[outputs]\nvariables = ["melt_production_mm_yr"]')
+    with pytest.raises(LidmeltError, match="upwelling"):
+        load_workflow(wf)
 
 
 def test_runs_are_deterministic(tmp_path):
     wf = small_basin(tmp_path / "in")
     a = run_basin(load_workflow(wf, output_dir=tmp_path / "a"), progress=False)
     b = run_basin(load_workflow(wf, output_dir=tmp_path / "b"), progress=False)
-    for name in OUTPUTS:
+    for name in DEFAULT_OUTPUTS:
         npt.assert_array_equal(
             open_run(a.run_dir).open(name).values, open_run(b.run_dir).open(name).values
         )
@@ -322,3 +390,21 @@ def test_demo_workflow_runs_from_its_own_folder(tmp_path, monkeypatch):
     monkeypatch.chdir(copy)
     cfg = load_workflow(Path("workflows/demo.toml"))
     assert cfg.run.output_dir == copy / "runs" / "demo"
+
+
+def test_plume_upwelling_gives_melt_production(tmp_path):
+    # issue 11: a plume's peak_upwelling_mm_yr spreads with the plume's shape; only then does the
+    # run write melt production (lidmelt definition: W x F(top), docs/physics.md)
+    wf = small_basin(tmp_path)
+    text = wf.read_text().replace(
+        "peak_excess_k = 250.0", "peak_excess_k = 250.0\npeak_upwelling_mm_yr = 100.0"
+    )
+    wf.write_text(text)
+    res = run_basin(load_workflow(wf, output_dir=tmp_path / "run"), progress=False)
+    run = open_run(res.run_dir)
+    production = run.open("melt_production_mm_yr").values
+    f_top = run.open("max_melt_fraction").values
+    upwelling = run.open("upwelling_mm_yr").values
+    assert np.nanmax(upwelling) == pytest.approx(100.0, rel=0.05)  # peak near the centre cell
+    npt.assert_allclose(production, upwelling * f_top, rtol=1e-5, atol=1e-6)
+    assert run.summary["statistics"]["melt_production_km3_yr"] > 0

@@ -18,6 +18,7 @@ from affine import Affine
 
 from lidmelt.cli import main
 from lidmelt.errors import InputError
+from lidmelt.physics import FLAG_BEYOND_CALIBRATION, FLAG_MEANINGS
 from lidmelt.products.profiles import plot_profile, read_track, sample_track, track_points
 
 GEOD = pyproj.Geod(ellps="WGS84")
@@ -265,7 +266,7 @@ def test_cli_profile_flags_points_beyond_calibration(run, add_validity_flag, tmp
     lon = np.mod(table["lon"].to_numpy(), 360.0)
     expected = np.where(lon > 180.0 - 0.5 * ACROSS.a, 4, 0)  # within half a cell of 180 E too
     np.testing.assert_array_equal(table["validity_flag"], expected)
-    meaning = "onset deeper than the model's calibrated pressure range"
+    meaning = FLAG_MEANINGS[FLAG_BEYOND_CALIBRATION]  # the meaning the run records
     assert set(table["flag_meaning"]) == {"", meaning}
     assert f"{int((expected > 0).sum())} flagged ({int((expected > 0).sum())} {meaning})" in printed
 

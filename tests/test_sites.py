@@ -21,6 +21,7 @@ from affine import Affine
 
 from lidmelt.cli import main
 from lidmelt.errors import InputError, RunDirError
+from lidmelt.physics import FLAG_BEYOND_CALIBRATION, FLAG_MEANINGS
 from lidmelt.products.sites import sample_stations, write_stations
 
 OUTPUTS = [
@@ -248,7 +249,7 @@ def test_nodata_and_next_to_nodata(make_run_dir):
 # ---------------------------------------------------------------------------------------
 
 # The meaning of bit 4, as lidmelt.physics.FLAG_MEANINGS states it (the run's summary copies it).
-BEYOND = "onset deeper than the model's calibrated pressure range"
+BEYOND = FLAG_MEANINGS[FLAG_BEYOND_CALIBRATION]  # the meaning the run records
 
 
 @pytest.fixture

@@ -244,7 +244,10 @@ def test_defaults_are_applied(basin, tmp_path, monkeypatch):
         "max_melt_fraction",
         "mean_melt_pressure_gpa",
         "excess_to_melt_k",
-    )  # the seven variables of docs/workflow.md, in that order
+        "anomaly_melt_thickness_km",
+        "melting_regime",
+    )  # the nine default variables of docs/workflow.md, in that order (crustal thickness only
+    # when listed, melt production only with an upwelling input: lidmelt.variables)
     assert cfg.overrides == ()
 
 

@@ -22,6 +22,9 @@ from lidmelt import variables
 
 __all__ = [
     "AMBIENT_TP_RANGE_C",
+    "CRUST_DENSITY_RANGE_KG_M3",
+    "DEFAULT_CRUST_DENSITY_KG_M3",
+    "DEFAULT_OUTPUT_VARIABLES",
     "INPUT_NAMES",
     "INPUT_UNITS",
     "LID_ISOTHERM_RANGE_C",
@@ -43,8 +46,16 @@ __all__ = [
     "RunOptions",
 ]
 
-#: Output variables a run can write, in the order a run writes them (all by default).
+#: Output variables a run can write, in the order a run writes them.
 OUTPUT_VARIABLES: tuple[str, ...] = tuple(variables.OUTPUTS)
+#: Output variables written when ``[outputs]`` does not list them and no optional input is
+#: given (the registry's ``default`` outputs; see :func:`lidmelt.variables.default_outputs`).
+DEFAULT_OUTPUT_VARIABLES: tuple[str, ...] = variables.DEFAULT_OUTPUTS
+#: Crust density [kg m^-3] of the crustal thickness output: 2900 kg/m3, common practice for
+#: oceanic crust (the melt density of Katz et al. 2003 Table 2, from memory).
+DEFAULT_CRUST_DENSITY_KG_M3 = 2900.0
+#: Accepted crust density, kg m^-3 (common practice: any rock; outside is a unit slip).
+CRUST_DENSITY_RANGE_KG_M3: tuple[float, float] = (2000.0, 3500.0)
 #: The inputs a workflow can name under ``[inputs.<name>]`` (the registry's ``workflow_key``).
 INPUT_NAMES: tuple[str, ...] = tuple(v.workflow_key for v in variables.INPUTS.values())
 #: Unit of each input's grid values and constant, by workflow name.
@@ -176,6 +187,9 @@ class PlumeSpec:
         ``"top-hat"`` A for d <= r.
     name : str or None
         An optional label.
+    peak_upwelling_mm_yr : float or None
+        Solid upwelling velocity at the centre, mm/yr, spread with the same shape and radius
+        (added to ``[inputs.upwelling]``); None: the plume adds no upwelling.
     """
 
     longitude: float
@@ -184,13 +198,27 @@ class PlumeSpec:
     peak_excess_k: float
     shape: str = "gaussian"
     name: str | None = None
+    peak_upwelling_mm_yr: float | None = None
 
     def plume_fields(self) -> dict[str, Any]:
-        """The keyword arguments of ``lidmelt.grids.anomaly.Plume`` (every field but the name).
+        """The keyword arguments of ``lidmelt.grids.anomaly.Plume`` (the shape and excess).
 
         The grid stage builds its plume with ``Plume(**spec.plume_fields())``.
         """
-        return {f.name: getattr(self, f.name) for f in dataclasses.fields(self) if f.name != "name"}
+        skip = ("name", "peak_upwelling_mm_yr")
+        return {
+            f.name: getattr(self, f.name) for f in dataclasses.fields(self) if f.name not in skip
+        }
+
+    def upwelling_fields(self) -> dict[str, Any] | None:
+        """:meth:`plume_fields` with the peak upwelling (mm/yr) as the peak; None without it.
+
+        The plume's shape function is the same whatever the unit of its peak, so the grid stage
+        spreads the upwelling with ``Plume(**spec.upwelling_fields())``.
+        """
+        if self.peak_upwelling_mm_yr is None:
+            return None
+        return {**self.plume_fields(), "peak_excess_k": self.peak_upwelling_mm_yr}
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -273,6 +301,7 @@ class Inputs:
     lid_thickness: InputSpec | None
     thermal_anomaly: InputSpec
     water: InputSpec
+    upwelling: InputSpec | None = None
 
     def __getitem__(self, name: str) -> InputSpec | None:
         if name not in INPUT_NAMES:
@@ -282,6 +311,14 @@ class Inputs:
     def given(self) -> dict[str, InputSpec]:
         """The inputs that are set, by name, in the order of :data:`INPUT_NAMES`."""
         return {n: s for n in INPUT_NAMES if (s := getattr(self, n)) is not None}
+
+    def available(self) -> tuple[str, ...]:
+        """The inputs a run will have: those set, and ``upwelling`` when a plume gives it."""
+        names = tuple(self.given())
+        plumes = self.thermal_anomaly.plumes
+        if "upwelling" not in names and any(p.peak_upwelling_mm_yr is not None for p in plumes):
+            names += ("upwelling",)
+        return names
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -298,6 +335,9 @@ class ModelOptions:
     min_top_of_melting_km : float
         Melting stops at the deeper of the lid base and this depth, km (default 7, the base of
         normal oceanic crust, 7.1 ± 0.8 km in White, McKenzie & O'Nions 1992; from memory).
+    crust_density_kg_m3 : float
+        Density of the crust in the crustal thickness output H rho_s / rho_c, kg m^-3 (default
+        :data:`DEFAULT_CRUST_DENSITY_KG_M3`).
     parameters : Parameters
         Overrides of the model's named parameters.
     """
@@ -305,6 +345,7 @@ class ModelOptions:
     name: str = "katz2003"
     ambient_potential_temperature_c: float = 1350.0
     min_top_of_melting_km: float = 7.0
+    crust_density_kg_m3: float = DEFAULT_CRUST_DENSITY_KG_M3
     parameters: Parameters = field(default_factory=Parameters)
 
 
@@ -351,9 +392,10 @@ class ComputeOptions:
 
 @dataclass(frozen=True, kw_only=True)
 class OutputOptions:
-    """The ``[outputs]`` table: which variables to write (default all of OUTPUT_VARIABLES)."""
+    """The ``[outputs]`` table: which variables to write (default DEFAULT_OUTPUT_VARIABLES, plus
+    the outputs that need an optional input when the workflow gives it)."""
 
-    variables: tuple[str, ...] = OUTPUT_VARIABLES
+    variables: tuple[str, ...] = DEFAULT_OUTPUT_VARIABLES
 
 
 @dataclass(frozen=True, kw_only=True)

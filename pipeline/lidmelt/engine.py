@@ -32,19 +32,27 @@ from lidmelt.grids import rundir
 from lidmelt.grids.align import align
 from lidmelt.grids.anomaly import Plume, plume_anomaly
 from lidmelt.grids.area import cell_area_km2
-from lidmelt.grids.grid import Grid
-from lidmelt.grids.io import open_grid, sha256_file
+from lidmelt.grids.grid import Grid, registration
+from lidmelt.grids.io import open_grid, open_input, sha256_file
+from lidmelt.grids.lidref import apply_lid_reference
 from lidmelt.grids.store import GeoTiffItem, GeoTiffSet
 from lidmelt.physics import (
     FLAG_MEANINGS,
-    excess_to_melt_k,
+    evaluate_cells,
     get_cooling_model,
     get_model,
     get_table,
     isotherm_depth_km,
-    melt_column,
 )
-from lidmelt.variables import FLAG_NODATA, FLAG_VARIABLE, INPUTS, OUTPUTS, input_for_workflow_key
+from lidmelt.statistics import ambient_melting_warnings, band_parts, summarize_bands
+from lidmelt.variables import (
+    FLAG_NODATA,
+    FLAG_VARIABLE,
+    INPUTS,
+    OUTPUTS,
+    check_input_range,
+    input_for_workflow_key,
+)
 
 __all__ = [
     "KernelSettings",
@@ -66,7 +74,15 @@ __all__ = [
 #: Inputs the lid is built from; missing, they are NaN (no lid) rather than 0.
 _LID_INPUTS = ("plate_age_ma", "lid_thickness_km")
 #: The kernel's inputs, in the order of its positional arguments.
-_KERNEL_INPUTS = ("plate_age_ma", "lid_thickness_km", "thermal_anomaly_k", "water_wt_pct")
+_KERNEL_INPUTS = (
+    "plate_age_ma",
+    "lid_thickness_km",
+    "thermal_anomaly_k",
+    "water_wt_pct",
+    "upwelling_mm_yr",
+)
+#: Outputs whose area integral goes into the summary (km: volume km3; mm/yr: km3/yr).
+_INTEGRALS = ("anomaly_melt_thickness_km", "melt_production_mm_yr")
 
 
 @dataclass
@@ -108,6 +124,8 @@ class KernelSettings:
     min_top_km: float
     method: str
     sources: dict[str, str]
+    crust_density_kg_m3: float = 2900.0
+    upwelling: bool = False
 
 
 @dataclass
@@ -139,12 +157,8 @@ def resolve_target_grid(cfg) -> Grid:
     if spec.like:
         inp = cfg.inputs[spec.like]
         var = input_for_workflow_key(spec.like)
-        da = open_grid(
-            inp.path,
-            variable=inp.variable,
-            name=var.name,
-            units_expected=var.units,
-            chunks={"y": "auto", "x": "auto"},
+        da = open_input(
+            inp, name=var.name, units_expected=var.units, chunks={"y": "auto", "x": "auto"}
         )
         return Grid.from_grid(da)
     west, east, south, north = spec.extent
@@ -168,9 +182,11 @@ def load_inputs(cfg, *, target: Grid, chunks: int) -> RunInputs:
         values[name], provenance[name] = _load_input(inp, name, target, chunks)
         if name == "thermal_anomaly_k" and inp.plumes:
             values[name] = _add_plumes(inp, values[name], provenance[name], target, chunks)
+    _add_plume_upwelling(cfg, values, provenance, target, chunks)
     if not any(name in values for name in _LID_INPUTS):
         msg = "the workflow gives neither inputs.plate_age nor inputs.lid_thickness; give one."
         raise InputError(msg)
+    apply_lid_reference(cfg, values, provenance, target=target, chunks=chunks)
     return RunInputs(values, provenance)
 
 
@@ -182,15 +198,15 @@ def _load_input(inp, name: str, target: Grid, chunks: int) -> tuple[xr.DataArray
         value = float(inp.constant if inp.constant is not None else 0.0)
         prov.update({"source": None, "sha256": None, "constant": value})
         return value, prov
-    da = open_grid(
-        inp.path, variable=inp.variable, name=name, units_expected=var.units, chunks=chunks
-    )
+    da = open_input(inp, name=name, units_expected=var.units, chunks=chunks)
     prov.update(
         {
             "source": str(inp.path),
             "sha256": sha256_file(inp.path),
             "variable": inp.variable,
             "resampling": inp.resampling,
+            "registration": registration(da),
+            **({"conversion": da.attrs["conversion"]} if "conversion" in da.attrs else {}),
         }
     )
     aligned = align(da, target, resampling=inp.resampling, name=name)
@@ -210,6 +226,27 @@ def _add_plumes(inp, background, prov: dict, target: Grid, chunks: int) -> xr.Da
     return plume_anomaly(target, plumes, background=background, chunks=chunks)
 
 
+def _add_plume_upwelling(cfg, values: dict, provenance: dict, target: Grid, chunks: int):
+    """Add the plumes' ``peak_upwelling_mm_yr`` (same shape and radius) to the upwelling input.
+
+    Without ``[inputs.upwelling]`` the plumes' upwelling lies on a background of 0 mm/yr.
+    """
+    anomaly = cfg.inputs["thermal_anomaly"]
+    specs = [p for p in anomaly.plumes if p.peak_upwelling_mm_yr is not None]
+    if not specs:
+        return
+    name = "upwelling_mm_yr"
+    var = INPUTS[name]
+    if name not in values:
+        values[name] = 0.0
+        provenance[name] = {"units": var.units, "long_name": var.long_name, "source": None}
+    plumes = [Plume(**p.upwelling_fields()) for p in specs]
+    provenance[name]["plumes"] = [
+        {"name": p.name, "peak_upwelling_mm_yr": p.peak_upwelling_mm_yr} for p in specs
+    ]
+    values[name] = plume_anomaly(target, plumes, background=values[name], chunks=chunks)
+
+
 def lid_cooling_model(cfg, *, inputs: RunInputs):
     """The cooling model that turns plate age into a lid, or None when no age is given.
 
@@ -222,38 +259,24 @@ def lid_cooling_model(cfg, *, inputs: RunInputs):
 
 
 # ---- the kernel ----------------------------------------------------------------------------------
-def _check_input_range(block: np.ndarray, name: str, source: str) -> np.ndarray:
-    """``block`` of input ``name`` unchanged, or an :class:`InputError` for values outside
-    the variable's physical range (:attr:`lidmelt.variables.Variable.valid_range`)."""
-    var = INPUTS[name]
-    lo, hi = var.valid_range
-    with np.errstate(invalid="ignore"):
-        bad = (block < lo) | (block > hi)
-    if bad.any():
-        values = block[bad]
-        msg = (
-            f"{name} from {source} has values from {np.nanmin(values):.6g} to "
-            f"{np.nanmax(values):.6g}, outside {lo:g} to {hi:g}: expected {var.advice}. "
-            "Fix the grid's units (or its nodata value) and run again."
-        )
-        raise InputError(msg)
-    return block
-
-
-def evaluate_chunk(age, lid_grid, anomaly, water, *, settings: KernelSettings, clock=None):
+def evaluate_chunk(
+    age, lid_grid, anomaly, water, upwelling=0.0, *, settings: KernelSettings, clock=None
+):
     """Every output of one chunk, stacked as (n_outputs + 1, y, x) float32 (flag last).
 
     The lid is the input lid thickness where finite, else the isotherm depth of the cooling
     model at the plate age; cells without a lid, anomaly or water are NaN (flag
-    :data:`lidmelt.variables.FLAG_NODATA`). ``clock``, a dict, accumulates the thread seconds
-    spent on the lid and on melting.
+    :data:`lidmelt.variables.FLAG_NODATA`), and so are outputs the inputs do not give (melt
+    production without upwelling). ``clock``, a dict, accumulates the thread seconds spent on
+    the lid and on melting.
     """
     s = settings
     t0 = time.perf_counter()
-    shape = np.broadcast_shapes(*(np.shape(a) for a in (age, lid_grid, anomaly, water)))
-    for name, block in zip(_KERNEL_INPUTS, (age, lid_grid, anomaly, water), strict=True):
+    blocks = (age, lid_grid, anomaly, water, upwelling)
+    shape = np.broadcast_shapes(*(np.shape(a) for a in blocks))
+    for name, block in zip(_KERNEL_INPUTS, blocks, strict=True):
         if name in s.sources and np.ndim(block):
-            _check_input_range(block, name, s.sources[name])
+            check_input_range(block, name, s.sources[name])
     lid = np.broadcast_to(np.asarray(lid_grid, float), shape)
     if s.cooling is not None:
         from_age = isotherm_depth_km(s.lid_isotherm_c, np.broadcast_to(age, shape), model=s.cooling)
@@ -261,22 +284,24 @@ def evaluate_chunk(age, lid_grid, anomaly, water, *, settings: KernelSettings, c
     t1 = time.perf_counter()
     tp = s.ambient_c + np.broadcast_to(np.asarray(anomaly, float), shape)
     water_arg = water if np.ndim(water) == 0 else np.broadcast_to(water, shape)
-    res = melt_column(
-        tp, lid, water_arg, model=s.model, method=s.method, table=s.table, min_top_km=s.min_top_km
-    )
-    excess = excess_to_melt_k(
+    res = evaluate_cells(
+        tp,
         lid,
         water_arg,
         ambient_potential_temperature_c=s.ambient_c,
         model=s.model,
+        method=s.method,
+        table=s.table,
         min_top_km=s.min_top_km,
+        upwelling_mm_yr=np.broadcast_to(upwelling, shape) if s.upwelling else None,
+        crust_density_kg_m3=s.crust_density_kg_m3,
     )
     nodata = ~(np.isfinite(lid) & np.isfinite(tp) & np.isfinite(np.broadcast_to(water_arg, shape)))
     out = np.empty((len(OUTPUTS) + 1, *shape), np.float32)
     for k, name in enumerate(OUTPUTS):
-        out[k] = excess if name == "excess_to_melt_k" else getattr(res, name)
+        out[k] = res.get(name, np.nan)
     out[: len(OUTPUTS), nodata] = np.nan
-    out[-1] = np.where(nodata, FLAG_NODATA, res.flag)
+    out[-1] = np.where(nodata, FLAG_NODATA, res["flag"])
     if clock is not None:  # dict updates of floats are atomic enough for a timing summary
         clock["lid_thread_s"] = clock.get("lid_thread_s", 0.0) + t1 - t0
         clock["melting_thread_s"] = clock.get("melting_thread_s", 0.0) + time.perf_counter() - t1
@@ -330,6 +355,8 @@ def build_kernel(
         min_top_km=cfg.model.min_top_of_melting_km,
         method=cfg.compute.method,
         sources=inputs.sources(),
+        crust_density_kg_m3=cfg.model.crust_density_kg_m3,
+        upwelling="upwelling_mm_yr" in inputs.values,
     )
     args = [
         _as_dask(inputs.values.get(n, np.nan if n in _LID_INPUTS else 0.0), chunks)
@@ -404,56 +431,6 @@ def plan_geotiffs(
     return [*items, flag]
 
 
-def _band_parts(rows: slice, *, stacked, area, out_index: list[int]) -> list:
-    """Sums, counts, minima and maxima of one band (combined by :func:`_summarize_bands`)."""
-    import dask.array as dsa
-
-    thickness, cell_area = stacked[0, rows], area[rows]
-    melting = thickness > 0
-    parts = [
-        dsa.sum(melting),
-        dsa.sum(dsa.isfinite(thickness)),
-        dsa.sum(dsa.where(melting, cell_area, 0.0)),
-        dsa.nansum(thickness * cell_area),
-    ]
-    for k in out_index:
-        band = stacked[k, rows]
-        parts += [
-            dsa.nanmin(band),
-            dsa.nanmax(band),
-            dsa.nansum(band.astype(np.float64)),
-            dsa.sum(dsa.isfinite(band)),
-        ]
-    return parts
-
-
-def _summarize_bands(bands: list[list], *, names: list[str]) -> dict[str, Any]:
-    """The ``statistics`` entry of the summary from the per-band parts of :func:`_band_parts`.
-
-    Counts, the melting area (km2) and the melt volume (km3, thickness x cell area) are sums
-    over bands; per variable the minimum, maximum and mean over cells with data (None where
-    no cell has data).
-    """
-    parts = np.array(bands, dtype=float)  # (bands, values)
-    variables = {}
-    for j, name in enumerate(names):
-        col = parts[:, 4 + 4 * j : 8 + 4 * j]
-        count = col[:, 3].sum()
-        with np.errstate(invalid="ignore"):
-            low = float(np.nanmin(col[:, 0])) if count else np.nan
-            high = float(np.nanmax(col[:, 1])) if count else np.nan
-        mean = col[:, 2].sum() / count if count else np.nan
-        stats = {"min": low, "max": high, "mean": mean}
-        variables[name] = {k: v if np.isfinite(v) else None for k, v in stats.items()}
-    return {
-        "data_cells": int(parts[:, 1].sum()),
-        "melting_cells": int(parts[:, 0].sum()),
-        "melting_area_km2": parts[:, 2].sum(),
-        "melt_volume_km3": parts[:, 3].sum(),
-        "variables": variables,
-    }
-
-
 def store_with_statistics(
     items: list[GeoTiffItem],
     *,
@@ -461,23 +438,35 @@ def store_with_statistics(
     area,
     workers: int,
     report: Callable[[int, int], None] | None,
+    inputs: RunInputs | None = None,
 ) -> dict[str, Any]:
     """Store every GeoTIFF and compute the summary statistics in one dask pass.
 
     The grid is computed in bands of two chunk rows (one :func:`dask.compute` each), so the
     kernel runs once per chunk whatever the number of files; ``area`` is the cell area (km2,
-    dask, chunked like the kernel). Returns the ``statistics`` entry of the summary.
+    dask, chunked like the kernel). ``inputs`` gives the plate age (for the median age of
+    ambient-melting cells) and whether upwelling is known (for the melt production total).
+    Returns the ``statistics`` entry of the summary (:func:`lidmelt.statistics.summarize_bands`).
     """
     names = list(lazy.outputs)
     out_index = [k for k, name in enumerate(OUTPUTS) if name in lazy.outputs]
+    given = inputs.values if inputs is not None else {}
+    integrals = [n for n in _INTEGRALS if not OUTPUTS[n].needs or "upwelling_mm_yr" in given]
     ref_chunks = lazy.stacked.chunks[1:]
+    age = given.get("plate_age_ma")
+    age = _as_dask(age, ref_chunks) if isinstance(age, xr.DataArray) else None
     extra = functools.partial(
-        _band_parts, stacked=lazy.stacked, area=area.rechunk(ref_chunks), out_index=out_index
+        band_parts,
+        stacked=lazy.stacked,
+        area=area.rechunk(ref_chunks),
+        age=None if age is None else age.rechunk(ref_chunks),
+        out_index=out_index,
+        integrals=[list(OUTPUTS).index(n) for n in integrals],
     )
     rows = 2 * ref_chunks[0][0]
     with GeoTiffSet(items, cog=True) as out:
         bands = out.compute(extra=extra, band_rows=rows, num_workers=workers, report=report)
-    return _summarize_bands(bands, names=names)
+    return summarize_bands(bands, names=names, integrals=integrals)
 
 
 def write_run_netcdf(
@@ -566,6 +555,10 @@ def run_basin(
         area=cell_area_km2(target, chunks=chunks).data,
         workers=int(cfg.compute.workers),
         report=_reporter(progress),
+        inputs=inputs,
+    )
+    run_warnings = ambient_melting_warnings(
+        statistics, ambient_c=cfg.model.ambient_potential_temperature_c, issue=True
     )
     timings["compute_and_write_s"] = time.perf_counter() - t1
     timings.update(lazy.clock)  # thread seconds inside the kernel (overlapping the I/O)
@@ -589,6 +582,7 @@ def run_basin(
         gridded_inputs=inputs.gridded,
         outputs=list(lazy.outputs),
         statistics=statistics,
+        warnings=run_warnings,
     )
     files.append(rundir.write_summary(run_dir, summary))
     timings["total_s"] = time.perf_counter() - t0

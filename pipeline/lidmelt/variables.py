@@ -13,15 +13,20 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
+import numpy as np
+
 from lidmelt.errors import InputError
 
 __all__ = [
+    "DEFAULT_OUTPUTS",
     "FLAG_NODATA",
     "FLAG_VARIABLE",
     "INPUTS",
     "OUTPUTS",
     "VARIABLES",
     "Variable",
+    "check_input_range",
+    "default_outputs",
     "get_variable",
     "input_for_workflow_key",
 ]
@@ -55,6 +60,12 @@ class Variable:
     undefined_without_melt : bool
         The value may be NaN in a valid cell that does not melt (e.g. the mean melt pressure);
         maps draw such cells as "no melting" rather than as nodata.
+    default : bool
+        Written when the workflow's ``[outputs]`` table does not list the variables (outputs
+        only); False: written only when listed.
+    needs : str
+        The workflow input (``workflow_key``) an output needs; without that input the output is
+        neither computed nor written (``""``: none).
     """
 
     name: str
@@ -67,6 +78,8 @@ class Variable:
     workflow_key: str = ""
     zero_means_no_melt: bool = False
     undefined_without_melt: bool = False
+    default: bool = True
+    needs: str = ""
 
     @property
     def title(self) -> str:
@@ -122,6 +135,38 @@ _OUTPUT_LIST = (
         long_name="thermal anomaly at which melting would begin beneath this lid",
         style="excess",
     ),
+    Variable(
+        name="anomaly_melt_thickness_km",
+        units="km",
+        long_name="melt thickness added by the thermal anomaly (above that of ambient mantle)",
+        style="melt",
+        zero_means_no_melt=True,
+    ),
+    Variable(
+        name="melting_regime",
+        units="1",
+        long_name=(
+            "melting regime (0 no melting, 1 ambient mantle melts beneath this lid, "
+            "2 melts only because of the thermal anomaly)"
+        ),
+        style="regime",
+    ),
+    Variable(
+        name="crustal_thickness_km",
+        units="km",
+        long_name="crustal thickness equivalent of the melt (melt thickness x solid/crust density)",
+        style="melt",
+        zero_means_no_melt=True,
+        default=False,
+    ),
+    Variable(
+        name="melt_production_mm_yr",
+        units="mm/yr",
+        long_name="melt production rate (rock-equivalent melt volume per area and time)",
+        style="production",
+        zero_means_no_melt=True,
+        needs="upwelling",
+    ),
 )
 
 _INPUT_LIST = (
@@ -175,6 +220,20 @@ _INPUT_LIST = (
             "Values in ppm: divide by 10000"
         ),
     ),
+    Variable(
+        name="upwelling_mm_yr",
+        units="mm/yr",
+        long_name="solid mantle upwelling velocity",
+        kind="input",
+        style="production",
+        workflow_key="upwelling",
+        valid_range=(0.0, 2000.0),
+        advice=(
+            "mm/yr of upward solid flow (ridges: about half the spreading rate, 10-100 mm/yr; "
+            "plume stems up to a few hundred mm/yr; common practice, from memory). Values in "
+            "m/yr: multiply by 1000; in cm/yr: multiply by 10; in m/s: multiply by 3.15576e10"
+        ),
+    ),
 )
 
 #: The validity bit flags (uint8; bit meanings in :data:`lidmelt.physics.FLAG_MEANINGS`).
@@ -188,6 +247,8 @@ FLAG_NODATA = 255
 OUTPUTS: dict[str, Variable] = {v.name: v for v in _OUTPUT_LIST}
 #: Aligned inputs written to the run directory as ``input_<name>.tif``.
 INPUTS: dict[str, Variable] = {v.name: v for v in _INPUT_LIST}
+#: Outputs written when the workflow does not list them (needing no optional input).
+DEFAULT_OUTPUTS: tuple[str, ...] = tuple(v.name for v in _OUTPUT_LIST if v.default and not v.needs)
 #: Every variable by name.
 VARIABLES: dict[str, Variable] = {**OUTPUTS, **INPUTS, FLAG_VARIABLE.name: FLAG_VARIABLE}
 
@@ -204,6 +265,13 @@ def get_variable(name: str) -> Variable:
         raise InputError(msg) from None
 
 
+def default_outputs(given_inputs) -> tuple[str, ...]:
+    """The outputs written by default when the workflow inputs ``given_inputs`` (workflow keys)
+    are given: every default output whose needed input is among them, in file order."""
+    given = set(given_inputs)
+    return tuple(v.name for v in _OUTPUT_LIST if v.default and (not v.needs or v.needs in given))
+
+
 def input_for_workflow_key(key: str) -> Variable:
     """The input variable named ``[inputs.<key>]`` in a workflow (``plate_age``, ``water``, ...)."""
     for var in INPUTS.values():
@@ -212,3 +280,21 @@ def input_for_workflow_key(key: str) -> Variable:
     known = ", ".join(v.workflow_key for v in INPUTS.values())
     msg = f"unknown input {key!r}; the inputs are {known}."
     raise InputError(msg)
+
+
+def check_input_range(block: np.ndarray, name: str, source: str) -> np.ndarray:
+    """``block`` of input ``name`` unchanged, or an :class:`InputError` for values outside
+    the variable's physical range (:attr:`Variable.valid_range`); ``source`` names its file."""
+    var = INPUTS[name]
+    lo, hi = var.valid_range
+    with np.errstate(invalid="ignore"):
+        bad = (block < lo) | (block > hi)
+    if bad.any():
+        values = block[bad]
+        msg = (
+            f"{name} from {source} has values from {np.nanmin(values):.6g} to "
+            f"{np.nanmax(values):.6g}, outside {lo:g} to {hi:g}: expected {var.advice}. "
+            "Fix the grid's units (or its nodata value) and run again."
+        )
+        raise InputError(msg)
+    return block

@@ -10,6 +10,7 @@ import sys
 from pathlib import Path
 from typing import Any
 
+from lidmelt.config import DEFAULT_CRUST_DENSITY_KG_M3
 from lidmelt.errors import InputError
 from lidmelt.files import atomic_path
 from lidmelt.physics import (
@@ -21,14 +22,21 @@ from lidmelt.physics import (
     FLAG_NO_ONSET,
     FLAG_WATER_SATURATED,
     column_profile,
-    excess_to_melt_k,
+    evaluate_cells,
     get_cooling_model,
     get_model,
     isotherm_depth_km,
-    melt_column,
 )
+from lidmelt.variables import INPUTS
 
 __all__ = ["register"]
+
+#: Meanings of the melting regime values (lidmelt definition, docs/physics.md).
+_REGIMES = {
+    0: "(no melting)",
+    1: "(ambient mantle melts here: needs only upwelling)",
+    2: "(melts only because of the anomaly)",
+}
 
 
 def register(subparsers: argparse._SubParsersAction) -> None:
@@ -73,10 +81,11 @@ def _add_mantle_options(p: argparse.ArgumentParser) -> None:
     p.add_argument(
         "--ambient",
         type=float,
-        default=DEFAULT_AMBIENT_TP_C,
+        default=None,
         metavar="C",
         help=f"ambient potential temperature [deg C] (default {DEFAULT_AMBIENT_TP_C:g}, "
-        "Herzberg et al. 2010)",
+        "Herzberg et al. 2010, with --excess-temperature; with --potential-temperature the "
+        "excess to melt and the melt the anomaly adds are shown only when it is given)",
     )
     p.add_argument(
         "--water",
@@ -115,6 +124,14 @@ def _add_lid_options(p: argparse.ArgumentParser) -> None:
         default=7.0,
         metavar="KM",
         help="melting stops at max(lid, this depth) [km] (default 7, the crust base)",
+    )
+    p.add_argument(
+        "--crust-density",
+        type=float,
+        default=DEFAULT_CRUST_DENSITY_KG_M3,
+        metavar="KG_M3",
+        help="crust density of the crustal thickness [kg/m3] (default "
+        f"{DEFAULT_CRUST_DENSITY_KG_M3:g}, common practice)",
     )
 
 
@@ -163,6 +180,7 @@ def _check_numbers(args: argparse.Namespace) -> None:
         (args.water, "--water", "wt%"),
         (args.min_top, "--min-top", "km"),
         (args.lid_isotherm, "--lid-isotherm", "deg C"),
+        (args.crust_density, "--crust-density", "kg/m3"),
     ):
         if value is not None and not math.isfinite(value):
             msg = f"{option} {value!r} is not a finite number; give a value in {unit}."
@@ -175,11 +193,42 @@ def _check_numbers(args: argparse.Namespace) -> None:
         ),
         "--water": (args.water, "{:g} is negative; give the bulk water content in wt% (>= 0)."),
         "--min-top": (args.min_top, "{:g} km is negative; give a depth >= 0."),
+        "--crust-density": (args.crust_density, "{:g} is not > 0; give kg/m3 (crust ~2900)."),
     }
     for option, (value, text) in negative.items():
-        if value is not None and value < 0:
+        if value is not None and (value < 0 or (option == "--crust-density" and value == 0)):
             msg = f"{option} " + text.format(value)
             raise InputError(msg)
+    low, high = INPUTS["water_wt_pct"].valid_range
+    if not low <= args.water <= high:
+        msg = (
+            f"--water {args.water:g} wt% is outside {low:g} to {high:g} wt%: expected "
+            f"{INPUTS['water_wt_pct'].advice} (--water {args.water / 1e4:g} if you meant "
+            f"{args.water:g} ppm)."
+        )
+        raise InputError(msg)
+
+
+def _unit_hints(args: argparse.Namespace, tp: float) -> list[str]:
+    """Notes on values that look like unit mistakes (water in ppm, Tp in kelvin)."""
+    notes = []
+    if args.water > 0.1:
+        notes.append(
+            f"--water {args.water:g} wt% is far wetter than oceanic mantle (about 0.005-0.03 "
+            f"wt%, from memory); if you meant {args.water:g} ppm, give --water {args.water / 1e4:g}"
+        )
+    in_kelvin = tp - 273.15
+    if tp > 1500.0 and 1250.0 <= in_kelvin <= 1450.0:
+        notes.append(
+            f"Tp {tp:g} C is hotter than ambient mantle (about 1300-1400 C); if it is in kelvin, "
+            f"give --potential-temperature {in_kelvin:g}"
+        )
+    elif tp > 1900.0:
+        notes.append(
+            f"Tp {tp:g} C is hotter than hotspot estimates (up to about 1800 C); is it in kelvin "
+            f"({in_kelvin:g} C)?"
+        )
+    return notes
 
 
 def _lid_km(args: argparse.Namespace) -> float:
@@ -206,7 +255,7 @@ def _check_flag(flag: int, model: Any, tp: float, args: argparse.Namespace, res:
             )
         raise InputError(msg)
     if flag & FLAG_WATER_SATURATED:
-        held = float(model.water_saturated_bulk_wt_pct(res.onset_pressure_gpa))
+        held = float(model.water_saturated_bulk_wt_pct(res["onset_pressure_gpa"]))
         msg = (
             f"--water {args.water:g} wt% is above the water the solid source holds at the "
             f"onset ({held:.3g} wt%): the source would carry free water, outside the "
@@ -228,33 +277,39 @@ def run(args: argparse.Namespace) -> int:
     """Evaluate one column and print it as a table or as JSON."""
     _check_numbers(args)
     model = get_model(args.model, **_parse_params(args.param))
-    tp = (
-        args.potential_temperature
-        if args.potential_temperature is not None
-        else args.ambient + args.excess_temperature
-    )
+    if args.potential_temperature is not None:
+        tp, ambient = args.potential_temperature, args.ambient
+    else:
+        ambient = DEFAULT_AMBIENT_TP_C if args.ambient is None else args.ambient
+        tp = ambient + args.excess_temperature
     lid = _lid_km(args)
-    res = melt_column(tp, lid, args.water, model=model, method=args.method, min_top_km=args.min_top)
-    flag = int(res.flag)
-    _check_flag(flag, model, tp, args, res)
-    values = {name: float(v) for name, v in res.as_dict().items() if name != "flag"}
-    values["excess_to_melt_k"] = float(
-        excess_to_melt_k(
-            lid,
-            args.water,
-            ambient_potential_temperature_c=args.ambient,
-            model=model,
-            min_top_km=args.min_top,
-        )
+    for note in _unit_hints(args, tp):  # before any error, which they may explain
+        print(f"note: {note}.", file=sys.stderr)
+    out = evaluate_cells(
+        tp,
+        lid,
+        args.water,
+        ambient_potential_temperature_c=tp if ambient is None else ambient,
+        model=model,
+        method=args.method,
+        min_top_km=args.min_top,
+        crust_density_kg_m3=args.crust_density,
     )
+    flag = int(out.pop("flag"))
+    _check_flag(flag, model, tp, args, out)
+    values = {name: float(v) for name, v in out.items()}
+    if ambient is None:  # only Tp given: no ambient to compare with
+        for name in ("excess_to_melt_k", "anomaly_melt_thickness_km", "melting_regime"):
+            values.pop(name)
+    values["ambient_potential_temperature_c"] = math.nan if ambient is None else ambient
     if args.profile:
         prof = column_profile(tp, lid, args.water, model=model, min_top_km=args.min_top)
         _write_profile_csv(args.profile, prof)
     if flag & FLAG_BEYOND_CALIBRATION:
         print(
             f"note: the onset ({values['onset_pressure_gpa']:.2f} GPa) is deeper than the "
-            f"{model.name} calibration ({model.calibrated_max_pressure_gpa:g} GPa); treat the "
-            "result as an extrapolation.",
+            f"{model.name} calibration ({model.calibrated_max_pressure_gpa:g} GPa): it lies on "
+            "the continued phase boundaries; treat the result as an extrapolation.",
             file=sys.stderr,
         )
     if args.json:
@@ -300,12 +355,27 @@ def _print_table(args, model, tp: float, lid: float, values: dict) -> None:
         ("melt thickness", values["melt_thickness_km"], "km"),
         ("max melt fraction", values["max_melt_fraction"], ""),
         ("mean melt pressure", values["mean_melt_pressure_gpa"], "GPa"),
-        ("excess to melt", values["excess_to_melt_k"], f"K above {args.ambient:g} C"),
+        (
+            "crustal thickness",
+            values["crustal_thickness_km"],
+            f"km (crust {args.crust_density:g} kg/m3)",
+        ),
     ]
+    ambient = values["ambient_potential_temperature_c"]
+    if math.isfinite(ambient):
+        rows += [
+            ("ambient potential temperature", ambient, "C"),
+            ("excess to melt", values["excess_to_melt_k"], f"K above {ambient:g} C"),
+            ("melt the anomaly adds", values["anomaly_melt_thickness_km"], "km"),
+            ("melting regime", values["melting_regime"], _REGIMES[int(values["melting_regime"])]),
+        ]
     print(f"lidmelt column: {model.name}, water {args.water:g} wt%")
     for label, value, unit in rows:
         text = "-" if not math.isfinite(value) else f"{value:10.3f}"
         print(f"  {label:<48} {text:>10} {unit}")
+    if not math.isfinite(ambient):
+        print("  (no ambient Tp given: give --ambient C for the excess to melt and the melt the")
+        print("   anomaly adds)")
     if args.profile:
         print(f"profile written to {args.profile}")
 

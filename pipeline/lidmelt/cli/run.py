@@ -5,6 +5,7 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
+from lidmelt.cli._common import print_warnings
 from lidmelt.engine import run_basin
 from lidmelt.products.maps import draw_run_maps
 from lidmelt.products.report import write_report
@@ -50,7 +51,8 @@ def register(subparsers: argparse._SubParsersAction) -> None:
 def run(args: argparse.Namespace) -> int:
     """Run the basin, draw its maps and report, and print what was written."""
     cfg = load_workflow(args.workflow, overrides=args.overrides, output_dir=args.output_dir)
-    result = run_basin(cfg, progress=False if args.quiet else None)
+    with print_warnings("run"):
+        result = run_basin(cfg, progress=False if args.quiet else None)
     files = list(result.files)
     if not args.no_maps and cfg.run.maps:
         maps = list(draw_run_maps(result.run_dir))

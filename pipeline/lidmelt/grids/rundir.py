@@ -11,7 +11,8 @@ output variable (``<variable>.tif``), the run's inputs aligned to the target gri
 
 ``lidmelt_run`` (int, format version), ``lidmelt_version``, ``created_utc``,
 ``grid`` {``crs_wkt``, ``transform`` (6 affine coefficients a, b, c, d, e, f), ``width``,
-``height``, ``bounds`` [west, south, east, north] in the grid CRS},
+``height``, ``bounds`` [west, south, east, north] in the grid CRS, ``registration`` ("pixel"
+or "gridline": the node/cell convention of the file that set the grid)},
 ``model`` {``name``, ``parameters`` {name: value}, ``reference``, ``sources``},
 ``ambient_potential_temperature_c``, ``cooling`` ({``name``, ``lid_isotherm_c``,
 ``parameters``, ``reference``, ``sources``} or null when a lid grid was given),
@@ -46,7 +47,7 @@ from lidmelt import __version__
 from lidmelt.errors import RunDirError
 from lidmelt.files import write_json_atomic
 from lidmelt.physics import FLAG_MEANINGS
-from lidmelt.variables import FLAG_NODATA, FLAG_VARIABLE, OUTPUTS
+from lidmelt.variables import FLAG_NODATA, FLAG_VARIABLE, OUTPUTS, input_for_workflow_key
 
 __all__ = [
     "FLAG_FILE",
@@ -307,6 +308,7 @@ def build_summary(
     gridded_inputs: Collection[str],
     outputs: Sequence[str],
     statistics: Mapping[str, Any],
+    warnings: Sequence[str] = (),
 ) -> dict[str, Any]:
     """The ``summary.json`` document of a run (keys in the module docstring).
 
@@ -326,12 +328,14 @@ def build_summary(
         The output variables written, in file order.
     statistics : mapping
         The ``statistics`` entry, JSON-ready (no NaN).
+    warnings : sequence of str
+        The run's warnings (e.g. much of the grid melting at the ambient temperature).
     """
     return {
         "lidmelt_run": RUN_FORMAT_VERSION,
         "lidmelt_version": __version__,
         "created_utc": datetime.now(UTC).strftime("%Y-%m-%dT%H:%M:%SZ"),
-        "grid": grid.to_dict(),
+        "grid": {**grid.to_dict(), "registration": _registration(cfg, provenance)},
         "model": {
             "name": model.name,
             "parameters": model.parameters(),
@@ -368,10 +372,19 @@ def build_summary(
             "meanings": {str(k): v for k, v in FLAG_MEANINGS.items()},
         },
         "statistics": dict(statistics),
+        "warnings": list(warnings),
         "workflow_file": str(cfg.workflow_path),
         "workflow_overrides": list(cfg.overrides),
         "workflow": cfg.text,
     }
+
+
+def _registration(cfg: Any, provenance: Mapping[str, Mapping[str, Any]]) -> str:
+    """The node/cell convention of the grid: that of the ``grid.like`` file; a grid built from
+    an extent is made of cells. lidmelt's cells are always centred on the coordinates."""
+    if not cfg.grid.like:
+        return "pixel"
+    return str(provenance.get(input_for_workflow_key(cfg.grid.like).name, {}).get("registration"))
 
 
 def write_summary(run_dir: str | Path, doc: Mapping[str, Any]) -> Path:

@@ -4,7 +4,8 @@
 the onset and integrates the column (:mod:`lidmelt.physics.column`) or interpolates the
 precomputed table (:mod:`lidmelt.physics.table`), and assembles every output variable and the
 bit flag (:func:`finish_outputs`). :func:`excess_to_melt_k` inverts the onset condition at the
-top of melting.
+top of melting. :func:`evaluate_cells` computes every output variable of a run from the cell
+inputs (the column outputs, the melt the anomaly adds, the regime, crust and melt production).
 
 Definitions (docs/physics.md, section "Definitions lidmelt fixes"):
 
@@ -43,7 +44,11 @@ __all__ = [
     "FLAG_MEANINGS",
     "FLAG_NO_ONSET",
     "FLAG_WATER_SATURATED",
+    "REGIME_AMBIENT_MELTS",
+    "REGIME_ANOMALY_ONLY",
+    "REGIME_NO_MELTING",
     "ColumnResult",
+    "evaluate_cells",
     "excess_to_melt_k",
     "finish_outputs",
     "input_flags",
@@ -54,13 +59,15 @@ _BLOCK = 1 << 16
 
 FLAG_INVALID_INPUT = 1  #: NaN input, negative lid, Tp below the surface solidus, or bad water
 FLAG_NO_ONSET = 2  #: the isentrope does not meet the solidus within the model's search range
-FLAG_BEYOND_CALIBRATION = 4  #: onset deeper than the model's calibrated range (computed anyway)
+FLAG_BEYOND_CALIBRATION = 4  #: onset beyond the calibrated range (computed on the continuation)
 FLAG_WATER_SATURATED = 8  #: bulk water above what the solid source holds at the onset
 
 FLAG_MEANINGS = {
     FLAG_INVALID_INPUT: "invalid input (NaN, negative lid, Tp below the surface solidus)",
     FLAG_NO_ONSET: "no solidus crossing within the model's pressure range",
-    FLAG_BEYOND_CALIBRATION: "onset deeper than the model's calibrated pressure range",
+    FLAG_BEYOND_CALIBRATION: (
+        "onset deeper than the model's calibrated pressure range (phase boundaries continued)"
+    ),
     FLAG_WATER_SATURATED: "source water above saturation at the onset (free water)",
 }
 
@@ -273,6 +280,80 @@ def excess_to_melt_k(
 
 
 # ------------------------------------------------------------------------------------------------
+# every output of a cell
+# ------------------------------------------------------------------------------------------------
+#: Regime values of the ``melting_regime`` output (docs/physics.md, "Definitions").
+REGIME_NO_MELTING, REGIME_AMBIENT_MELTS, REGIME_ANOMALY_ONLY = 0, 1, 2
+
+
+def evaluate_cells(
+    potential_temperature_c,
+    lid_depth_km,
+    water_wt_pct=0.0,
+    *,
+    ambient_potential_temperature_c: float,
+    model: str | MeltingModel = "katz2003",
+    method: str = "table",
+    table: MeltTable | None = None,
+    min_top_km: float = DEFAULT_MIN_TOP_KM,
+    upwelling_mm_yr=None,
+    crust_density_kg_m3: float = 2900.0,
+) -> dict[str, np.ndarray]:
+    """Every output variable of :mod:`lidmelt.variables` and the ``"flag"``, for arrays of cells.
+
+    Beside the column outputs of :func:`melt_column` (Tp = ambient + anomaly):
+
+    * ``excess_to_melt_k``: :func:`excess_to_melt_k` at the ambient Tp.
+    * ``anomaly_melt_thickness_km``: H(Tp) - H(ambient), same lid and water, never negative.
+      H(ambient) is non-zero only where ambient mantle melts beneath the lid, that is where the
+      excess to melt is negative, so the ambient column is evaluated only there.
+    * ``melting_regime``: 0 no melting (H = 0); 1 H > 0 and ambient mantle melts beneath this lid
+      (melting needs only upwelling); 2 H > 0 only because of the anomaly. NaN where H is.
+    * ``crustal_thickness_km``: H rho_s / rho_crust, rho_s the model's solid density.
+    * ``melt_production_mm_yr`` (only with ``upwelling_mm_yr``): W F(top), the rock-equivalent
+      melt volume per unit area and time leaving the top of a steady one-dimensional column
+      (mass balance: solid flux rho_s W enters, a fraction F(top) of it leaves as melt).
+
+    Definitions: docs/physics.md, section "Definitions lidmelt fixes"; ``water_wt_pct`` may stay a
+    scalar (the table's fast path). Returns arrays of the broadcast input shape.
+    """
+    model = get_model(model)
+    shape = np.broadcast_shapes(np.shape(potential_temperature_c), np.shape(lid_depth_km))
+    lid = np.broadcast_to(np.asarray(lid_depth_km, float), shape)
+    common = {"model": model, "method": method, "table": table, "min_top_km": min_top_km}
+    out = melt_column(potential_temperature_c, lid, water_wt_pct, **common).as_dict()
+    ambient = float(ambient_potential_temperature_c)
+    excess = excess_to_melt_k(
+        lid,
+        water_wt_pct,
+        ambient_potential_temperature_c=ambient,
+        model=model,
+        min_top_km=min_top_km,
+    )
+    out["excess_to_melt_k"] = excess
+    h = out["melt_thickness_km"]
+    with np.errstate(invalid="ignore"):
+        ambient_melts = np.broadcast_to(excess < 0, h.shape)
+    h_ambient = np.zeros(h.shape, h.dtype)
+    if ambient_melts.any():
+        water = np.broadcast_to(np.asarray(water_wt_pct, float), h.shape)
+        w_sel = water[ambient_melts] if np.ndim(water_wt_pct) else float(water_wt_pct)
+        amb = melt_column(ambient, lid[ambient_melts], w_sel, **common)
+        h_ambient[ambient_melts] = np.nan_to_num(amb.melt_thickness_km, nan=0.0)
+    with np.errstate(invalid="ignore"):
+        out["anomaly_melt_thickness_km"] = np.maximum(h - h_ambient, 0.0)
+        regime = np.where(ambient_melts, REGIME_AMBIENT_MELTS, REGIME_ANOMALY_ONLY)
+        regime = np.where(h > 0, regime, REGIME_NO_MELTING).astype(h.dtype)
+        out["melting_regime"] = np.where(np.isnan(h), np.nan, regime).astype(h.dtype)
+        out["crustal_thickness_km"] = h * (model.solid_density_kg_m3 / crust_density_kg_m3)
+        if upwelling_mm_yr is not None:
+            out["melt_production_mm_yr"] = out["max_melt_fraction"] * np.asarray(
+                upwelling_mm_yr, float
+            )
+    return out
+
+
+# ------------------------------------------------------------------------------------------------
 # the table path
 # ------------------------------------------------------------------------------------------------
 def _table_columns(table, tp, lid, w, *, min_top_km):
@@ -321,6 +402,7 @@ def _table_one_water(table, tp, lid, water, min_top_km, out):
     tp_lo = max(lay.tp_min_c, np.nextafter(sol0, np.inf))
     p_sat = _saturation_onset_gpa(model, water)
     cal = model.calibrated_max_pressure_gpa
+    top_max = table.top_pressure_max_gpa
     special = np.zeros(tp.size, bool)
     x_hi = n_tp - 1.0
     inv_dtp, inv_dp = 1.0 / lay.tp_step_k, 1.0 / lay.pressure_step_gpa
@@ -333,18 +415,20 @@ def _table_one_water(table, tp, lid, water, min_top_km, out):
         top_p = top_km * gpa_per_km
         y = top_p * inv_dp
         with np.errstate(invalid="ignore"):  # NaN cells are sent to _direct below
-            i = x.astype(np.intp)
-            k = y.astype(np.intp)
+            # the last node belongs to the interval below it (a or b = 1 there)
+            i = np.minimum(x.astype(np.intp), n_tp - 2)
+            k = np.minimum(y.astype(np.intp), n_p - 2)
         a = (x - i).astype(np.float32)[:, None]
         b = (y - k).astype(np.float32)[:, None]
         # indices of invalid cells may be garbage: mode="clip" keeps the gather in bounds
-        v = np.take(packed, i * (n_p - 1) + np.minimum(k, n_p - 2), axis=0, mode="clip")
+        v = np.take(packed, i * (n_p - 1) + k, axis=0, mode="clip")
         v0 = v[:, 0:4] + b * (v[:, 4:8] - v[:, 0:4])
         r = v0 + a * (v[:, 8:12] + b * (v[:, 12:16] - v[:, 8:12]) - v0)
         p_on = r[:, 3]
         with np.errstate(invalid="ignore", divide="ignore"):
             no_onset = tp[sl] >= no_onset_from
-            special[sl] = ~((x >= x_lo) & (x <= x_hi) & (lb >= 0) & ((p_on >= p_sat) | no_onset))
+            inside = (x >= x_lo) & (x <= x_hi) & (lb >= 0) & (top_p <= top_max)
+            special[sl] = ~(inside & ((p_on >= p_sat) | no_onset))
             melting = p_on > top_p
             h = np.where(melting, r[:, 0], np.where(no_onset, np.nan, 0.0))
             f = np.where(melting, r[:, 1], np.where(no_onset, np.nan, 0.0))
@@ -369,7 +453,8 @@ def _table_any_water(table, tp, lid, w, min_top_km):
     flag = input_flags(model, tp, lid, w)
     top_km = top_of_melting_km(lid, min_top_km)
     top_p = model.pressure_gpa(top_km)
-    good = (flag == 0) & table.in_range(tp, w)
+    with np.errstate(invalid="ignore"):
+        good = (flag == 0) & table.in_range(tp, w) & (top_p <= table.top_pressure_max_gpa)
     t = np.where(good, tp, lay.tp_min_c)
     ww = np.where(good, w, 0.0)
     x = (t - lay.tp_min_c) / lay.tp_step_k

@@ -29,6 +29,7 @@ import numpy as np
 
 from lidmelt.errors import ModelError
 from lidmelt.physics._registry import lookup
+from lidmelt.physics._sources import KATZ_SOURCES, MB1988_SOURCES
 
 GPA = 1.0e9  # Pa per GPa (definition)
 
@@ -66,9 +67,15 @@ class MeltingModel:
         section "Definitions lidmelt fixes"). Defaults 3300 kg m^-3 and 9.81 m s^-2: common
         practice, no single source.
     max_onset_pressure_gpa : float
-        Deepest pressure searched for the solidus crossing. Units: GPa.
+        Deepest pressure searched for the solidus crossing. Units: GPa. Default 30 GPa: on the
+        continued Katz et al. (2003) solidus (:meth:`continued_pressure`) the deepest onset of
+        Tp <= 1900 deg C with water <= 0.1 wt% is 26.5 GPa (Tp 1900 deg C, 0.1 wt%) [derived:
+        docs/physics.md, section "Beyond the calibrated pressure"]; 30 GPa leaves a margin of
+        about 30 K in Tp. (The continued McKenzie & Bickle 1988 solidus is flatter: within 30 GPa
+        it is reached by Tp up to about 1805 deg C, dry [derived].)
     calibrated_max_pressure_gpa : float
-        Onsets deeper than this are computed but flagged as beyond calibration. Units: GPa.
+        Onsets deeper than this are computed but flagged as beyond calibration; the phase
+        boundaries are continued beyond it (:meth:`continued_pressure`). Units: GPa.
     reference : str
         Citation of the parameter set.
     """
@@ -82,7 +89,7 @@ class MeltingModel:
     melt_density_kg_m3: float
     lithostatic_density_kg_m3: float = 3300.0
     gravity_m_s2: float = 9.81
-    max_onset_pressure_gpa: float = 13.0
+    max_onset_pressure_gpa: float = 30.0
     calibrated_max_pressure_gpa: float = 7.0
     reference: str = ""
     sources: dict[str, str] = field(default_factory=dict, compare=False, hash=False, repr=False)
@@ -178,8 +185,33 @@ class MeltingModel:
 
     # -- the melting law (model specific) --------------------------------------------------------
     def pressure_terms(self, pressure_gpa, water_wt_pct=0.0) -> tuple:
-        """Quantities of the melting law that depend on P and water only (reused while F varies)."""
+        """Quantities of the melting law that depend on P and water only (reused while F varies).
+
+        Beyond ``calibrated_max_pressure_gpa`` they follow :meth:`continued_pressure`.
+        """
         raise NotImplementedError
+
+    def solidus_slope_c_gpa(self) -> float:
+        """dT_sol/dP of the dry solidus at ``calibrated_max_pressure_gpa`` [K/GPa] (model law)."""
+        raise NotImplementedError
+
+    def continued_pressure(self, pressure_gpa) -> tuple:
+        """The pressure at which to evaluate the law, and the temperature shift [K] to add.
+
+        Continuation beyond the calibrated pressure P_c (lidmelt's choice; docs/physics.md,
+        section "Beyond the calibrated pressure"): every phase boundary runs parallel to the
+        tangent of the dry solidus at P_c, T_b(P) = T_b(P_c) + T_sol'(P_c) (P - P_c), with the
+        pressure-dependent melting parameters held at their P_c values. So T(P, F) =
+        T(P_c, F) + T_sol'(P_c) (P - P_c): continuous at P_c, the solidus also in slope, monotonic,
+        and the melting interval keeps its calibrated width and order. Returns
+        (min(P, P_c), shift) with shift None where no P exceeds P_c (the law is then unchanged).
+        """
+        p = np.asarray(pressure_gpa, float)
+        pc = self.calibrated_max_pressure_gpa
+        if not np.any(p > pc):
+            return p, None
+        shift = self.solidus_slope_c_gpa() * np.maximum(p - pc, 0.0)
+        return np.minimum(p, pc), shift
 
     def temperature_from_terms(self, terms: tuple, melt_fraction):
         """T [deg C] at melt fraction F, given :meth:`pressure_terms` of the same P and water."""
@@ -304,8 +336,11 @@ class KatzModel(MeltingModel):
         )
 
     def pressure_terms(self, pressure_gpa, water_wt_pct=0.0) -> tuple:
-        """T_sol, T_lherz, T_liq, F_cpx-out, T_cpx-out, X_sat and bulk water at P."""
-        p = np.asarray(pressure_gpa, float)
+        """T_sol, T_lherz, T_liq, F_cpx-out, T_cpx-out, X_sat and bulk water at P.
+
+        Beyond the calibrated pressure the law is continued (:meth:`continued_pressure`).
+        """
+        p, shift = self.continued_pressure(pressure_gpa)
         t_sol = self.solidus_a1_c + self.solidus_a2_c_gpa * p + self.solidus_a3_c_gpa2 * p * p
         t_lherz = (
             self.lherzolite_liquidus_b1_c
@@ -319,7 +354,15 @@ class KatzModel(MeltingModel):
         t_cpx = f_cpx ** (1.0 / self.beta1) * (t_lherz - t_sol) + t_sol
         w = np.asarray(water_wt_pct, float)
         x_sat = self.saturation_wt_pct(p) if np.any(w) else None
+        if shift is not None:
+            t_sol, t_lherz, t_liq, t_cpx = (t + shift for t in (t_sol, t_lherz, t_liq, t_cpx))
         return t_sol, t_lherz, t_liq, f_cpx, t_cpx, x_sat, w
+
+    def solidus_slope_c_gpa(self) -> float:
+        """A2 + 2 A3 P_c: slope of the [Katz2003]_ solidus quadratic at the calibrated limit."""
+        return (
+            self.solidus_a2_c_gpa + 2.0 * self.solidus_a3_c_gpa2 * self.calibrated_max_pressure_gpa
+        )
 
     def temperature_from_terms(self, terms: tuple, melt_fraction):
         """T(P, F, water) [deg C]: the inverse of [Katz2003]_ eqs. 3 and 9, lowered by water.
@@ -343,14 +386,16 @@ class KatzModel(MeltingModel):
         """Water in the melt X = min(X_bulk / (D + F (1 - D)), X_sat) [wt%] (batch, capped)."""
         d = self.water_partition_coefficient
         x = np.asarray(water_wt_pct, float) / (d + np.asarray(melt_fraction, float) * (1.0 - d))
-        return np.minimum(x, self.saturation_wt_pct(pressure_gpa))
+        return np.minimum(x, self.saturation_wt_pct(self.continued_pressure(pressure_gpa)[0]))
 
     def water_saturated_bulk_wt_pct(self, pressure_gpa):
         """Bulk water [wt%] that saturates the solid source, D X_sat(P) [derived].
 
-        Above it the source holds free water at P, outside the batch-partitioning model.
+        Above it the source holds free water at P, outside the batch-partitioning model. X_sat is
+        held at its calibrated-limit value deeper down (:meth:`continued_pressure`).
         """
-        return self.water_partition_coefficient * self.saturation_wt_pct(pressure_gpa)
+        p, _ = self.continued_pressure(pressure_gpa)
+        return self.water_partition_coefficient * self.saturation_wt_pct(p)
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -422,9 +467,26 @@ class McKenzieBickleModel(MeltingModel):
         return tr
 
     def pressure_terms(self, pressure_gpa, water_wt_pct=0.0) -> tuple:
-        """Dry solidus and liquidus at P, and the water (which must be zero)."""
-        p = np.asarray(pressure_gpa, float)
-        return self.solidus_dry_c(p), self.liquidus_dry_c(p), np.asarray(water_wt_pct, float)
+        """Dry solidus and liquidus at P, and the water (which must be zero).
+
+        Beyond the calibrated pressure both are continued (:meth:`continued_pressure`).
+        """
+        p, shift = self.continued_pressure(pressure_gpa)
+        # the implicit solidus is solved once per distinct pressure (columns share the nodes)
+        nodes, where = np.unique(p, return_inverse=True)
+        t_s = self.solidus_dry_c(nodes)[where].reshape(p.shape)
+        t_l = self.liquidus_dry_c(p)
+        if shift is not None:
+            t_s, t_l = t_s + shift, t_l + shift
+        return t_s, t_l, np.asarray(water_wt_pct, float)
+
+    def solidus_slope_c_gpa(self) -> float:
+        """dT_s/dP at P_c = 1 / (1/s1 + s2 s3 exp[s3 (T_s - s0)]), from the implicit solidus."""
+        excess = float(self.solidus_dry_c(self.calibrated_max_pressure_gpa)) - self.solidus_s0_c
+        dp_dt = 1.0 / self.solidus_s1_c_gpa + self.solidus_s2_gpa * self.solidus_s3_per_c * np.exp(
+            self.solidus_s3_per_c * excess
+        )
+        return float(1.0 / dp_dt)
 
     def temperature_from_terms(self, terms: tuple, melt_fraction):
         """T(P, F) [deg C] = T' (T_l - T_s) + (T_s + T_l)/2; NaN where the source has water."""
@@ -433,89 +495,6 @@ class McKenzieBickleModel(MeltingModel):
         t = tr * (t_l - t_s) + 0.5 * (t_s + t_l)
         return np.where(w > 0, np.nan, t) if np.any(w) else t
 
-
-#: Sources of the parameters every model shares by lidmelt's definition.
-_DEFINITION_SOURCES = {
-    "lithostatic_density_kg_m3": "lidmelt definition, common practice",
-    "gravity_m_s2": "lidmelt definition, common practice",
-}
-
-
-def _sources(*groups: tuple[tuple[str, ...], str], **single: str) -> dict[str, str]:
-    """Per-parameter sources: each group gives one source to several parameters."""
-    out = dict(_DEFINITION_SOURCES)
-    for names, source in groups:
-        out.update(dict.fromkeys(names, source))
-    out.update(single)
-    return out
-
-
-_KATZ_SOURCES = _sources(
-    (
-        (
-            "solidus_a1_c",
-            "solidus_a2_c_gpa",
-            "solidus_a3_c_gpa2",
-            "lherzolite_liquidus_b1_c",
-            "lherzolite_liquidus_b2_c_gpa",
-            "lherzolite_liquidus_b3_c_gpa2",
-            "liquidus_c1_c",
-            "liquidus_c2_c_gpa",
-            "liquidus_c3_c_gpa2",
-            "cpx_reaction_r0",
-            "cpx_reaction_r1_gpa",
-            "beta1",
-            "beta2",
-            "water_depression_k_c",
-            "water_depression_gamma",
-            "water_partition_coefficient",
-            "saturation_chi1_wt_pct",
-            "saturation_chi2_wt_pct_gpa",
-            "saturation_lambda",
-            "specific_heat_j_kg_k",
-            "entropy_of_melting_j_kg_k",
-        ),
-        "Katz et al. 2003, Table 2 (verified secondary)",
-    ),
-    (
-        ("solid_expansivity_k", "melt_expansivity_k", "solid_density_kg_m3", "melt_density_kg_m3"),
-        "Katz et al. 2003, Table 2 (from memory)",
-    ),
-    cpx_mass_fraction="Katz et al. 2003, fertile lherzolite (from memory)",
-    max_onset_pressure_gpa="turnover of the Katz solidus quadratic at 13.03 GPa [derived]",
-    calibrated_max_pressure_gpa="onsets beyond ~7 GPa extrapolate the experiments (from memory)",
-)
-
-_MB1988_SOURCES = _sources(
-    (
-        (
-            "solidus_s0_c",
-            "solidus_s1_c_gpa",
-            "solidus_s2_gpa",
-            "solidus_s3_per_c",
-            "liquidus_l0_c",
-            "liquidus_l1_c_gpa",
-            "liquidus_l2_c",
-            "liquidus_l3_gpa",
-            "fraction_a0",
-            "fraction_a1",
-        ),
-        "McKenzie & Bickle 1988 (from memory)",
-    ),
-    (
-        (
-            "specific_heat_j_kg_k",
-            "entropy_of_melting_j_kg_k",
-            "solid_expansivity_k",
-            "melt_expansivity_k",
-            "solid_density_kg_m3",
-            "melt_density_kg_m3",
-        ),
-        "McKenzie & Bickle 1988 (from memory, low confidence)",
-    ),
-    max_onset_pressure_gpa="lidmelt search limit (upper mantle)",
-    calibrated_max_pressure_gpa="lidmelt choice, as for Katz 2003 (from memory)",
-)
 
 KATZ2003 = KatzModel(
     name="katz2003",
@@ -529,7 +508,7 @@ KATZ2003 = KatzModel(
         "Katz, R. F., Spiegelman, M. & Langmuir, C. H. (2003), G-cubed 4(9) 1073, "
         "doi:10.1029/2002GC000433, Table 2"
     ),
-    sources=_KATZ_SOURCES,
+    sources=KATZ_SOURCES,
 )
 
 MCKENZIE_BICKLE1988 = McKenzieBickleModel(
@@ -542,7 +521,7 @@ MCKENZIE_BICKLE1988 = McKenzieBickleModel(
     melt_density_kg_m3=3300.0,
     calibrated_max_pressure_gpa=7.0,
     reference="McKenzie, D. & Bickle, M. J. (1988), J. Petrology 29, 625-679 (forms from memory)",
-    sources=_MB1988_SOURCES,
+    sources=MB1988_SOURCES,
 )
 
 MODELS: dict[str, MeltingModel] = {m.name: m for m in (KATZ2003, MCKENZIE_BICKLE1988)}

@@ -51,15 +51,24 @@ FALLBACK_STEP_GPA = 0.04
 
 @dataclass(frozen=True)
 class TableLayout:
-    """Nodes of the table. Temperatures in deg C, water in wt%, pressure in GPa."""
+    """Nodes of the table. Temperatures in deg C, water in wt%, pressure in GPa.
+
+    The Tp nodes run to 1900 deg C, the hottest plume mantle lidmelt is tested for (hotspot Tp
+    estimates reach about 1800 deg C, Bao et al. 2022, from a news summary only; 1900 deg C
+    leaves a margin). The pressure nodes are tops of melting, not onsets: they run to
+    ``top_pressure_max_gpa`` = 13 GPa (a 401 km lid, beyond the 400 km the lid inputs accept);
+    onsets may lie deeper (down to the model's ``max_onset_pressure_gpa``), and cells with a
+    deeper top are integrated directly.
+    """
 
     tp_min_c: float = 1100.0
-    tp_max_c: float = 1800.0
+    tp_max_c: float = 1900.0
     tp_step_k: float = 2.0
     water_max_wt_pct: float = 0.1
     water_nodes: int = 11
     pressure_step_gpa: float = 0.02
     integration_step_gpa: float = 0.01
+    top_pressure_max_gpa: float = 13.0
 
 
 def cache_dir() -> Path:
@@ -107,7 +116,7 @@ class MeltTable:
         tp = layout.tp_min_c + layout.tp_step_k * np.arange(n_tp)
         water_u = np.linspace(0.0, layout.water_max_wt_pct**WATER_EXPONENT, layout.water_nodes)
         water = water_u ** (1.0 / WATER_EXPONENT)
-        p_max = model.max_onset_pressure_gpa
+        p_max = layout.top_pressure_max_gpa
         ratio = round(layout.pressure_step_gpa / layout.integration_step_gpa)
         n_p = int(np.floor(p_max / layout.pressure_step_gpa + 1e-9)) + 1
         pressure = layout.pressure_step_gpa * np.arange(n_p)
@@ -243,6 +252,11 @@ class MeltTable:
                 float(no_onset_from),
             )
         return self._slices[key]
+
+    @property
+    def top_pressure_max_gpa(self) -> float:
+        """The deepest top of melting [GPa] on the table's pressure nodes."""
+        return float(self.pressure_gpa[-1])
 
     def in_range(self, tp, water):
         """Where (Tp, water) lie inside the table's nodes."""

@@ -178,6 +178,18 @@ def _read_plume(ctx: Context, key: str, i: int, item: Any) -> PlumeSpec:
         fields["shape"] = choice(ctx, f"{pkey}.shape", item["shape"], PLUME_SHAPES)
     if "name" in item:
         fields["name"] = string(ctx, f"{pkey}.name", item["name"], example="plume A")
+    if "peak_upwelling_mm_yr" in item:
+        var = variables.input_for_workflow_key("upwelling")
+        low, high = var.valid_range or (0.0, float("inf"))
+        fields["peak_upwelling_mm_yr"] = in_range(
+            ctx,
+            f"{pkey}.peak_upwelling_mm_yr",
+            item["peak_upwelling_mm_yr"],
+            low,
+            high,
+            var.units,
+            f"expected {var.advice}",
+        )
     spec = PlumeSpec(**fields)
     try:
         Plume(**spec.plume_fields())  # the anomaly builder's own checks

@@ -13,9 +13,17 @@ from lidmelt.workflow.checks import Context, leaf
 __all__ = ["ALL_KEYS", "SCHEMA", "TABLES", "check_unknown_keys"]
 
 _INPUT_KEYS = ("path", "variable", "resampling", "constant")
-# How to read a grid file (issue 13): any input.
+# How to read a grid file: any input.
 _FILE_KEYS = ("crs", "units", "scale", "offset", "x_name", "y_name", "nodata")
-_PLUME_KEYS = ("name", "longitude", "latitude", "radius_km", "peak_excess_k", "shape")
+_PLUME_KEYS = (
+    "name",
+    "longitude",
+    "latitude",
+    "radius_km",
+    "peak_excess_k",
+    "shape",
+    "peak_upwelling_mm_yr",
+)
 #: The keys allowed in each table (dotted table name -> keys). ``"*"`` marks a free table whose
 #: keys are checked by the model functions (see ``validate_models``); ``"[]"`` marks an array of
 #: tables.
@@ -34,7 +42,13 @@ SCHEMA: dict[str, tuple[str, ...]] = {
     ),
     "inputs.lid_thickness": (*_INPUT_KEYS, *_FILE_KEYS, "reference", "bathymetry"),
     "inputs.thermal_anomaly.plumes[]": _PLUME_KEYS,
-    "model": ("name", "ambient_potential_temperature_c", "min_top_of_melting_km", "parameters"),
+    "model": (
+        "name",
+        "ambient_potential_temperature_c",
+        "min_top_of_melting_km",
+        "crust_density_kg_m3",
+        "parameters",
+    ),
     "model.parameters": ("*",),
     "lithosphere": ("cooling", "lid_isotherm_c", "parameters"),
     "lithosphere.parameters": ("*",),

@@ -8,8 +8,10 @@ from functools import partial
 from pathlib import Path
 from typing import Any
 
+from lidmelt import variables
 from lidmelt.config import (
     AMBIENT_TP_RANGE_C,
+    CRUST_DENSITY_RANGE_KG_M3,
     LID_ISOTHERM_RANGE_C,
     METHODS,
     MIN_CHUNK_SIZE,
@@ -69,7 +71,7 @@ def read_config(
             **read_fields(ctx, "lithosphere", tables["lithosphere"], _LITHOSPHERE_READERS)
         ),
         compute=ComputeOptions(**read_fields(ctx, "compute", tables["compute"], _COMPUTE_READERS)),
-        outputs=_read_outputs(ctx, tables["outputs"]),
+        outputs=_read_outputs(ctx, tables["outputs"], inputs),
     )
 
 
@@ -252,6 +254,11 @@ def _min_top_of_melting(ctx: Context, key: str, value: Any) -> float:
     return depth
 
 
+def _crust_density(ctx: Context, key: str, value: Any) -> float:
+    advice = "oceanic crust is about 2900 kg/m3 (common practice); from g/cm3, multiply by 1000"
+    return in_range(ctx, key, value, *CRUST_DENSITY_RANGE_KG_M3, "kg/m3", advice)
+
+
 def _lid_isotherm(ctx: Context, key: str, value: Any) -> float:
     iso = number(ctx, key, value, unit="°C")
     low, high = LID_ISOTHERM_RANGE_C
@@ -268,6 +275,7 @@ _MODEL_READERS: dict[str, Reader] = {
     "name": partial(string, example="katz2003"),
     "ambient_potential_temperature_c": _ambient_tp,
     "min_top_of_melting_km": _min_top_of_melting,
+    "crust_density_kg_m3": _crust_density,
     "parameters": _read_parameters,
 }
 _LITHOSPHERE_READERS: dict[str, Reader] = {
@@ -299,9 +307,10 @@ _COMPUTE_READERS: dict[str, Reader] = {
 # [outputs]
 
 
-def _read_outputs(ctx: Context, values: dict[str, Any]) -> OutputOptions:
+def _read_outputs(ctx: Context, values: dict[str, Any], inputs: Inputs) -> OutputOptions:
+    given = inputs.available()
     if "variables" not in values:
-        return OutputOptions()
+        return OutputOptions(variables=variables.default_outputs(given))
     key = "outputs.variables"
     names = values["variables"]
     if not isinstance(names, list) or not names:
@@ -312,6 +321,15 @@ def _read_outputs(ctx: Context, values: dict[str, Any]) -> OutputOptions:
         name = choice(ctx, key, value, OUTPUT_VARIABLES)
         if name in chosen:
             msg = f"{ctx.where(key)} lists {name!r} twice; list each variable once."
+            raise WorkflowError(msg)
+        needs = variables.OUTPUTS[name].needs
+        if needs and needs not in given:
+            unit = variables.input_for_workflow_key(needs).units
+            msg = (
+                f"{ctx.where(key)} lists {name!r}, which needs the input {needs!r}; the workflow "
+                f"gives none. Add [inputs.{needs}] (a grid or a constant in {unit}) or drop "
+                f"{name!r} from the list."
+            )
             raise WorkflowError(msg)
         chosen.append(name)
     return OutputOptions(variables=tuple(chosen))

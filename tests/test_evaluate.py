@@ -1,0 +1,80 @@
+"""Every output of a cell from :func:`lidmelt.physics.evaluate_cells`.
+
+Check values: lidmelt definitions (docs/physics.md, section "Definitions lidmelt fixes":
+anomaly melt thickness, melting regime, melt production, crustal thickness) and McKenzie &
+Bickle (1988) for the crust of a ridge (from memory, see below).
+"""
+
+import numpy as np
+import numpy.testing as npt
+import pytest
+
+from lidmelt.physics import evaluate_cells, excess_to_melt_k, melt_column
+from lidmelt.variables import OUTPUTS
+
+
+def cells(tp, lid, water=0.0, **kw):
+    kw.setdefault("ambient_potential_temperature_c", 1350.0)
+    kw.setdefault("method", "direct")
+    return evaluate_cells(np.asarray(tp, float), np.asarray(lid, float), water, **kw)
+
+
+def test_every_registered_output_is_computed():
+    out = cells([1400.0], [60.0], upwelling_mm_yr=30.0)
+    assert set(OUTPUTS) | {"flag"} == set(out)
+    assert "melt_production_mm_yr" not in cells([1400.0], [60.0])  # no upwelling: not computed
+
+
+def test_anomaly_melt_and_regime():
+    # lidmelt definition: anomaly melt = H(Tp) - H(ambient), same lid and water, never negative;
+    # regime 1 where ambient mantle melts beneath the lid (excess to melt < 0), 2 where only the
+    # anomaly makes it melt, 0 where nothing melts
+    tp = np.array([1350.0, 1450.0, 1450.0, 1600.0, 1300.0, 1350.0])
+    lid = np.array([20.0, 20.0, 120.0, 120.0, 20.0, 150.0])
+    out = cells(tp, lid, 0.01)
+    h = melt_column(tp, lid, 0.01, method="direct").melt_thickness_km
+    h_amb = melt_column(1350.0, lid, 0.01, method="direct").melt_thickness_km
+    npt.assert_allclose(out["anomaly_melt_thickness_km"], np.maximum(h - h_amb, 0.0), atol=1e-9)
+    assert out["anomaly_melt_thickness_km"][0] == 0.0  # no anomaly: no added melt
+    assert out["anomaly_melt_thickness_km"][4] == 0.0  # a cold anomaly adds nothing (never < 0)
+    ambient_melts = excess_to_melt_k(lid, 0.01) < 0
+    assert list(ambient_melts) == [True, True, False, False, True, False]
+    npt.assert_array_equal(out["melting_regime"], [1, 1, 2, 2, 1, 0])
+
+
+def test_crust_and_melt_production_follow_their_definitions():
+    out = cells([1450.0, 1300.0], [30.0, 100.0], upwelling_mm_yr=np.array([50.0, 50.0]))
+    # lidmelt definition: crust = H rho_s / rho_crust = H x 3300 / 2900 by default
+    npt.assert_allclose(out["crustal_thickness_km"], out["melt_thickness_km"] * 3300.0 / 2900.0)
+    # lidmelt definition: production = W x F(top); 0 where nothing melts
+    npt.assert_allclose(out["melt_production_mm_yr"], 50.0 * out["max_melt_fraction"])
+    assert out["melt_production_mm_yr"][1] == 0.0
+    dense = cells([1450.0], [30.0], crust_density_kg_m3=2800.0)
+    npt.assert_allclose(dense["crustal_thickness_km"], out["melt_thickness_km"][0] * 3300 / 2800)
+
+
+def test_mckenzie_bickle_ridge_crust_at_1280_c():
+    # McKenzie & Bickle (1988): melting to the surface at Tp 1280 C gives about 7 km of crust
+    # (their paper; from memory, one significant figure, hence 0.5 km). lidmelt gives 6.95 km
+    # (docs/physics.md, "Melting models").
+    out = cells(
+        [1280.0],
+        [0.0],
+        model="mckenzie-bickle1988",
+        min_top_km=0.0,
+        ambient_potential_temperature_c=1280.0,
+    )
+    assert float(out["crustal_thickness_km"][0]) == pytest.approx(7.0, abs=0.5)
+    assert out["melting_regime"][0] == 1  # a ridge: ambient mantle melts
+
+
+def test_table_and_direct_agree_on_the_new_outputs():
+    # the table's tolerance (tests/test_table.py): 0.5 % or 0.02 km on melt thickness
+    tp = np.array([1350.0, 1420.0, 1500.0, 1650.0])
+    lid = np.array([10.0, 60.0, 90.0, 140.0])
+    a = cells(tp, lid, method="table")
+    b = cells(tp, lid, method="direct")
+    for name in ("anomaly_melt_thickness_km", "crustal_thickness_km"):
+        tol = np.maximum(0.005 * np.abs(b[name]), 0.02) * 2  # a difference of two table values
+        assert np.all(np.abs(a[name] - b[name]) <= tol), name
+    npt.assert_array_equal(a["melting_regime"], b["melting_regime"])
