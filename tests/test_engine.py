@@ -408,3 +408,20 @@ def test_plume_upwelling_gives_melt_production(tmp_path):
     assert np.nanmax(upwelling) == pytest.approx(100.0, rel=0.05)  # peak near the centre cell
     npt.assert_allclose(production, upwelling * f_top, rtol=1e-5, atol=1e-6)
     assert run.summary["statistics"]["melt_production_km3_yr"] > 0
+
+
+def test_demo_screening_finds_the_plumes_not_the_ridge_flank(demo_run):
+    # The demo's invented plumes (grids_demo/README.md): Ardent, Brisa and Corvel make at least
+    # 1 km of anomaly melt beneath their seafloor; the young ridge flank melts at ambient Tp only.
+    # Check values: the names written in workflows/demo.toml; the anomaly basis is issue 11's
+    # definition (docs/physics.md, "anomaly melt thickness").
+    from lidmelt.products.screening import screen
+
+    total = screen(demo_run.run_dir, min_melt_thickness_km=1.0, min_area_km2=5000.0, basis="total")
+    anomaly = screen(demo_run.run_dir, min_melt_thickness_km=1.0, min_area_km2=5000.0)
+    assert list(anomaly["plume"]) == ["Ardent", "Brisa", "Corvel"]
+    assert set(anomaly["plume_match"]) == {"centre inside"}
+    # each anomaly candidate is one plume's area, far smaller than the total-melt candidate
+    # that joins the whole ridge flank (3.3 million km2 before issue 11)
+    assert total["area_km2"].max() > 2e6
+    assert anomaly["area_km2"].max() < 0.25 * total["area_km2"].max()
