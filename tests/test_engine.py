@@ -425,3 +425,20 @@ def test_demo_screening_finds_the_plumes_not_the_ridge_flank(demo_run):
     # that joins the whole ridge flank (3.3 million km2 before issue 11)
     assert total["area_km2"].max() > 2e6
     assert anomaly["area_km2"].max() < 0.25 * total["area_km2"].max()
+
+
+def test_netcdf_flag_variable_follows_cf(demo_run):
+    # CF conventions 1.8, section 3.5 "Flags" (from memory): bit flags carry flag_masks and
+    # blank-separated flag_meanings; lidmelt's bits are those of lidmelt.physics.FLAG_KEYS.
+    import xarray as xr
+
+    from lidmelt.physics import FLAG_KEYS
+
+    with xr.open_dataset(demo_run.run_dir / "lidmelt.nc", mask_and_scale=False) as ds:
+        flag = ds["validity_flag"]
+        assert flag.dtype == np.uint8
+        assert list(flag.attrs["flag_masks"]) == sorted(FLAG_KEYS)
+        assert flag.attrs["flag_meanings"].split() == [FLAG_KEYS[b] for b in sorted(FLAG_KEYS)]
+        assert int(flag.attrs["_FillValue"]) == 255
+        with rasterio.open(demo_run.run_dir / "validity_flag.tif") as src:
+            np.testing.assert_array_equal(flag.values, src.read(1))

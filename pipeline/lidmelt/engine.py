@@ -7,7 +7,7 @@ aligned onto the grid, or a constant), :func:`lid_cooling_model` (the lid from t
 a lid grid), :func:`build_kernel` (the lazy dask kernel over chunks: every variable of
 :data:`lidmelt.variables.OUTPUTS` and the validity flag), :func:`plan_geotiffs` and
 :func:`store_with_statistics` (one pass that stores every GeoTIFF and computes the summary
-statistics band by band), :func:`write_run_netcdf` (optional) and the summary
+statistics band by band), :func:`lidmelt.grids.rundir.write_run_netcdf` (optional) and the summary
 (:func:`lidmelt.grids.rundir.build_summary`). Peak memory is set by the chunk size, not by the
 grid size. Units, long names and ranges come from :mod:`lidmelt.variables`; file names and the
 summary format from :mod:`lidmelt.grids.rundir`.
@@ -33,7 +33,7 @@ from lidmelt.grids.align import align
 from lidmelt.grids.anomaly import Plume, plume_anomaly
 from lidmelt.grids.area import cell_area_km2
 from lidmelt.grids.grid import Grid, registration
-from lidmelt.grids.io import open_grid, open_input, sha256_file
+from lidmelt.grids.io import open_input, sha256_file
 from lidmelt.grids.lidref import apply_lid_reference
 from lidmelt.grids.store import GeoTiffItem, GeoTiffSet
 from lidmelt.physics import (
@@ -68,7 +68,6 @@ __all__ = [
     "resolve_target_grid",
     "run_basin",
     "store_with_statistics",
-    "write_run_netcdf",
 ]
 
 #: Inputs the lid is built from; missing, they are NaN (no lid) rather than 0.
@@ -469,25 +468,6 @@ def store_with_statistics(
     return summarize_bands(bands, names=names, integrals=integrals)
 
 
-def write_run_netcdf(
-    run_dir: Path, *, outputs: list[str], gridded_inputs: list[str], tags: dict[str, Any]
-) -> Path:
-    """One CF NetCDF of every variable, read back lazily from the finished GeoTIFFs."""
-    from lidmelt.grids.write import write_netcdf
-
-    data = {}
-    for names, registry, file_of in (
-        (outputs, OUTPUTS, rundir.output_file),
-        (gridded_inputs, INPUTS, rundir.input_file),
-    ):
-        for name in names:
-            da = open_grid(run_dir / file_of(name), name=name, chunks=1024)
-            da.attrs = {"units": registry[name].units, "long_name": registry[name].long_name}
-            data[name] = da
-    ds = xr.Dataset(data)
-    return write_netcdf(ds, run_dir / rundir.NETCDF_NAME, attrs={"title": "lidmelt run", **tags})
-
-
 # ---- the run -------------------------------------------------------------------------------------
 def _reporter(show: bool | None) -> Callable[[int, int], None] | None:
     """Progress by bands: a line that updates in place on a terminal, log lines otherwise."""
@@ -567,7 +547,7 @@ def run_basin(
     if cfg.run.netcdf:
         t2 = time.perf_counter()
         files.append(
-            write_run_netcdf(
+            rundir.write_run_netcdf(
                 run_dir, outputs=list(lazy.outputs), gridded_inputs=inputs.gridded, tags=tags
             )
         )

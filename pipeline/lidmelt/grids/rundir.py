@@ -46,8 +46,16 @@ import xarray as xr
 from lidmelt import __version__
 from lidmelt.errors import RunDirError
 from lidmelt.files import write_json_atomic
-from lidmelt.physics import FLAG_MEANINGS
-from lidmelt.variables import FLAG_NODATA, FLAG_VARIABLE, OUTPUTS, input_for_workflow_key
+from lidmelt.grids.io import open_grid
+from lidmelt.grids.write import write_netcdf
+from lidmelt.physics import FLAG_KEYS, FLAG_MEANINGS
+from lidmelt.variables import (
+    FLAG_NODATA,
+    FLAG_VARIABLE,
+    INPUTS,
+    OUTPUTS,
+    input_for_workflow_key,
+)
 
 __all__ = [
     "FLAG_FILE",
@@ -62,6 +70,7 @@ __all__ = [
     "output_file",
     "provenance_tags",
     "read_flags",
+    "write_run_netcdf",
     "write_summary",
 ]
 
@@ -390,3 +399,37 @@ def _registration(cfg: Any, provenance: Mapping[str, Mapping[str, Any]]) -> str:
 def write_summary(run_dir: str | Path, doc: Mapping[str, Any]) -> Path:
     """Write ``doc`` as the run directory's ``summary.json`` atomically; return its path."""
     return write_json_atomic(Path(run_dir) / SUMMARY_NAME, doc)
+
+
+def write_run_netcdf(
+    run_dir: Path, *, outputs: list[str], gridded_inputs: list[str], tags: dict[str, Any]
+) -> Path:
+    """One CF NetCDF of every variable, read back lazily from the finished GeoTIFFs."""
+    data = {}
+    for names, registry, file_of in (
+        (outputs, OUTPUTS, output_file),
+        (gridded_inputs, INPUTS, input_file),
+    ):
+        for name in names:
+            da = open_grid(run_dir / file_of(name), name=name, chunks=1024)
+            da.attrs = {"units": registry[name].units, "long_name": registry[name].long_name}
+            data[name] = da
+    data[FLAG_VARIABLE.name] = _cf_flag_variable(run_dir)
+    ds = xr.Dataset(data)
+    return write_netcdf(ds, run_dir / NETCDF_NAME, attrs={"title": "lidmelt run", **tags})
+
+
+def _cf_flag_variable(run_dir: Path) -> xr.DataArray:
+    """The validity flags as a CF flag variable: uint8 bits with ``flag_masks`` and
+    ``flag_meanings`` (CF conventions, section "Flags"), fill value the flags' nodata."""
+    da = open_grid(run_dir / FLAG_FILE, name=FLAG_VARIABLE.name, chunks=1024)
+    da = da.fillna(FLAG_NODATA).astype(np.uint8)
+    bits = sorted(FLAG_KEYS)
+    da.attrs = {
+        "units": FLAG_VARIABLE.units,
+        "long_name": FLAG_VARIABLE.long_name,
+        "flag_masks": np.array(bits, dtype=np.uint8),
+        "flag_meanings": " ".join(FLAG_KEYS[b] for b in bits),
+        "_FillValue": np.uint8(FLAG_NODATA),
+    }
+    return da.rio.write_nodata(FLAG_NODATA, encoded=False)

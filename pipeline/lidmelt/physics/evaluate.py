@@ -41,6 +41,7 @@ __all__ = [
     "COLUMN_OUTPUTS",
     "FLAG_BEYOND_CALIBRATION",
     "FLAG_INVALID_INPUT",
+    "FLAG_KEYS",
     "FLAG_MEANINGS",
     "FLAG_NO_ONSET",
     "FLAG_WATER_SATURATED",
@@ -69,6 +70,14 @@ FLAG_MEANINGS = {
         "onset deeper than the model's calibrated pressure range (phase boundaries continued)"
     ),
     FLAG_WATER_SATURATED: "source water above saturation at the onset (free water)",
+}
+#: One word per flag bit, for CF ``flag_meanings`` (blank-separated words; CF conventions 1.8,
+#: section 3.5 "Flags", from memory).
+FLAG_KEYS = {
+    FLAG_INVALID_INPUT: "invalid_input",
+    FLAG_NO_ONSET: "no_solidus_crossing",
+    FLAG_BEYOND_CALIBRATION: "beyond_calibration",
+    FLAG_WATER_SATURATED: "water_saturated",
 }
 
 COLUMN_OUTPUTS = (
