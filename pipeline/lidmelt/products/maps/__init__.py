@@ -8,7 +8,11 @@ The package keeps presentation apart from drawing:
 - :mod:`.overlays`: coastlines (local files only), plate-age contours, stations, candidates;
 - :mod:`.captions`: the subtitle and caption text;
 - :mod:`.flags`: the run's validity flags: reading, hatching flagged cells, counts;
+- :mod:`.options`: :class:`MapOptions`, :class:`MapInfo`, the checks of the options;
+- :mod:`.field`: the data layer (variable, colour limits, no-melt cells, zero contour);
+- :mod:`.marks`: named plume centres and candidate rank labels;
 - :mod:`.figure`: :func:`make_map_figure`, the figure drawn in named steps;
+- :mod:`.overview`: :func:`make_overview_figure`, inputs and results as panels on one page;
 - :mod:`.write`: :func:`draw_map`, :func:`draw_run_maps` and :func:`save_figure`.
 """
 
