@@ -69,7 +69,7 @@ def draw_plumes(ax: Any, plumes: list[Plume], fs: float, *, names: bool = True) 
     )
     if names:
         for p in plumes:
-            place_label(ax, p.lon, p.lat, p.name, fontsize=0.85 * fs, style="italic")
+            place_label(ax, p.lon, p.lat, p.name, fontsize=0.85 * fs, below=True, style="italic")
 
 
 def plume_legend_handle(fs: float) -> Any:

@@ -329,24 +329,28 @@ def draw_stations(ax: Any, stations: Stations, fs: float) -> None:
             place_label(ax, lon, lat, name, fontsize=0.8 * fs)
 
 
-def place_label(ax: Any, lon: float, lat: float, text: str, *, fontsize: float, **kw: Any) -> Any:
+def place_label(
+    ax: Any, lon: float, lat: float, text: str, *, fontsize: float, below: bool = False, **kw: Any
+) -> Any:
     """A label beside the point (lon, lat), kept inside the map frame; None if off the map.
 
-    The label goes up and right of the point; where it would cross the frame (measured as
-    rendered) it moves to the left and/or below the point.
+    The label goes up and right of the point (down and left with ``below``, so that plume
+    names and station names at the same place do not overlap); where it would cross the
+    frame (measured as rendered) it moves to the other side of the point.
     """
     x, y = ax.projection.transform_point(lon, lat, ccrs.PlateCarree())
     u, v = (ax.transData + ax.transAxes.inverted()).transform((x, y))
     if not (np.isfinite(u) and np.isfinite(v) and 0.0 <= u <= 1.0 and 0.0 <= v <= 1.0):
         return None
+    sx, sy = (-1, -1) if below else (1, 1)
     label = ax.annotate(
         text,
         (u, v),
         xycoords="axes fraction",
-        xytext=(4, 3),
+        xytext=(4 * sx, 3 * sy),
         textcoords="offset points",
-        ha="left",
-        va="bottom",
+        ha="left" if sx > 0 else "right",
+        va="bottom" if sy > 0 else "top",
         fontsize=fontsize,
         path_effects=halo(2.0),
         zorder=7,
@@ -355,15 +359,13 @@ def place_label(ax: Any, lon: float, lat: float, text: str, *, fontsize: float, 
     )
     renderer = ax.figure.canvas.get_renderer()
     box, frame = label.get_window_extent(renderer), ax.get_window_extent(renderer)
-    dx, dy, ha, va = 4, 3, "left", "bottom"
-    if box.x1 > frame.x1:
-        dx, ha = -4, "right"
-    if box.y1 > frame.y1:
-        dy, va = -3, "top"
-    if (dx, dy) != (4, 3):
-        label.set_position((dx, dy))
-        label.set_ha(ha)
-        label.set_va(va)
+    if box.x1 > frame.x1 or box.x0 < frame.x0:
+        sx = -sx
+    if box.y1 > frame.y1 or box.y0 < frame.y0:
+        sy = -sy
+    label.set_position((4 * sx, 3 * sy))
+    label.set_ha("left" if sx > 0 else "right")
+    label.set_va("bottom" if sy > 0 else "top")
     return label
 
 
