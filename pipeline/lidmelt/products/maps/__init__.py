@@ -46,6 +46,12 @@ from lidmelt.products.maps.overlays import (
     require_file,
     resolve_coastlines,
 )
+from lidmelt.products.maps.overview import (
+    OVERVIEW_PANELS,
+    OverviewInfo,
+    draw_overview,
+    make_overview_figure,
+)
 from lidmelt.products.maps.style import (
     MELT_TOP_PERCENTILE,
     NODATA_COLOR,
@@ -62,7 +68,14 @@ from lidmelt.products.maps.style import (
     style_for,
     unit_label,
 )
-from lidmelt.products.maps.write import FORMATS, draw_map, draw_run_maps, save_figure
+from lidmelt.products.maps.write import (
+    FORMATS,
+    REPEATS,
+    default_map_variables,
+    draw_map,
+    draw_run_maps,
+    save_figure,
+)
 
 __all__ = [
     "COASTLINE_RELPATH",
@@ -70,14 +83,17 @@ __all__ = [
     "MARKED_FLAGS",
     "MELT_TOP_PERCENTILE",
     "NODATA_COLOR",
+    "OVERVIEW_PANELS",
     "PERCENTILES",
     "REGIME_CLASSES",
+    "REPEATS",
     "STYLES",
     "ZERO_COLOR",
     "ClassStyle",
     "MapInfo",
     "MapOptions",
     "MapStyle",
+    "OverviewInfo",
     "Region",
     "Stations",
     "VariableStyle",
@@ -85,8 +101,10 @@ __all__ = [
     "check_variable",
     "choose_projection",
     "colour_limits",
+    "default_map_variables",
     "describe_lid",
     "draw_map",
+    "draw_overview",
     "draw_run_maps",
     "encode_categories",
     "encode_classes",
@@ -96,6 +114,7 @@ __all__ = [
     "load_candidates",
     "load_stations",
     "make_map_figure",
+    "make_overview_figure",
     "make_projection",
     "map_caption",
     "marked_kinds",
