@@ -18,7 +18,7 @@ from lidmelt.cli._common import (
     status_summary,
 )
 from lidmelt.products.profiles import sample_track, write_profile
-from lidmelt.products.sampling import check_output_path
+from lidmelt.products.sampling import check_not_input, check_output_path
 
 __all__ = ["register"]
 
@@ -72,6 +72,8 @@ def run(args: argparse.Namespace) -> int:
     """Sample the track, print a short table and write the CSV and the profile figure."""
     out = args.output or f"{Path(args.track).stem}_profile.csv"
     out = check_output_path(out, (".csv",), what="profile")
+    for written in (out, out.with_suffix(".png")):
+        check_not_input(written, args.track, args.run_dir, what="profile")
     with print_warnings("profile"):
         gdf = sample_track(
             args.run_dir,
