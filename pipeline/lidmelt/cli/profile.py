@@ -60,12 +60,40 @@ def register(subparsers: argparse._SubParsersAction) -> None:
         help="distance between profile points along the track, in km",
     )
     p.add_argument(
+        "--stations",
+        metavar="FILE",
+        help="stations (CSV with lon/lat columns, or a point file); those within 50 km of the "
+        "track are named on the profile",
+    )
+    p.add_argument(
         "-o",
         "--output",
         metavar="OUT.csv",
         help="CSV to write (default TRACKNAME_profile.csv here); the PNG goes beside it",
     )
     p.set_defaults(func=run)
+
+
+def _figure_options(args: argparse.Namespace) -> dict:
+    """Title (the track's name), waypoint names, stations and subtitle of the figure."""
+    from lidmelt.errors import InputError
+    from lidmelt.grids.rundir import open_run
+    from lidmelt.grids.vector import read_labelled_points
+    from lidmelt.products.maps import load_stations, model_line
+
+    track = Path(args.track)
+    try:
+        labels = [v for v in read_labelled_points(track, what="track")["label"] if v]
+    except InputError:  # a line file: no waypoint names
+        labels = []
+    run = open_run(args.run_dir)
+    return {
+        "title": f"Profile along {track.stem.replace('_', ' ')}",
+        "waypoint_names": labels,
+        "stations": load_stations(args.stations) if args.stations else None,
+        "run": run,
+        "subtitle": f"Run {run.path.name}. {model_line(run.summary)}",
+    }
 
 
 def run(args: argparse.Namespace) -> int:
@@ -91,7 +119,6 @@ def run(args: argparse.Namespace) -> int:
         + flag_summary(gdf)
         + f"; track length {gdf['distance_km'].iloc[-1]:.3f} km, spacing {args.spacing:g} km"
     )
-    title = f"{Path(args.run_dir).name}: {Path(args.track).name}"
-    csv_path, png = write_profile(gdf, out, title=title)
+    csv_path, png = write_profile(gdf, out, **_figure_options(args))
     print(f"wrote {csv_path} and {png}")
     return 0
