@@ -43,6 +43,8 @@ Line = tuple[str, str]  # (kind, text): "title", "heading", "warning", "text" or
 
 
 def _text_lines(block: Block, width_chars: int) -> list[str]:
+    if isinstance(block, Pre) and block.folded:
+        return [f"{block.folded}: folded in the HTML report (not repeated here)."]
     if isinstance(block, Pre):
         lines = []
         for line in block.text.splitlines() or [""]:
