@@ -153,7 +153,8 @@ def test_page_is_self_contained_with_embedded_png_maps(run):
     assert "@import" not in text
     assert "url(" not in text
     images = re.findall(r'src="data:image/png;base64,([A-Za-z0-9+/=]+)"', text)
-    assert len(images) == 1  # one output variable in this run
+    # One output (melt thickness) and, since issue 14, the input maps the run has (plate age).
+    assert len(images) == 2
     png = base64.b64decode(images[0])
     assert png[:8] == b"\x89PNG\r\n\x1a\n"  # PNG signature (PNG spec, section 5.2)
     pixels = mpimg.imread(io.BytesIO(png), format="png")

@@ -160,6 +160,8 @@ def variable_units(name: str, recorded: Any = "") -> str:
 
 def variable_label(name: str) -> str:
     """``"<name>: <long name>"`` for a registered variable, else the name."""
+    if name == "overview":
+        return "Overview: inputs and predicted melting on one page"
     var = VARIABLES.get(name)
     return f"{name}: {var.long_name}" if var is not None else name
 

@@ -124,7 +124,7 @@ def _html_warnings(warnings: Sequence[str]) -> list[str]:
     ]
 
 
-def render_html(run: RunDir, images: Sequence[MapImage]) -> str:
+def render_html(run: RunDir, images: Sequence[MapImage], extra: Sequence[Section] = ()) -> str:
     """The report page as one HTML string (no external resources).
 
     The job line, the run's warnings and the caution come first, then the summary and flag
@@ -133,7 +133,7 @@ def render_html(run: RunDir, images: Sequence[MapImage]) -> str:
     summary = run.summary
     sections = build_sections(run)
     front = [s for s in sections if s.key in FRONT_SECTIONS]
-    back = [s for s in sections if s.key not in FRONT_SECTIONS]
+    back = [*extra, *(s for s in sections if s.key not in FRONT_SECTIONS)]
     title = f"lidmelt run report: {_esc(run.path.name)}"
     parts = [
         "<!DOCTYPE html>",
