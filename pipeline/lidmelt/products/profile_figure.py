@@ -23,7 +23,7 @@ import numpy as np
 from lidmelt.errors import InputError
 from lidmelt.files import atomic_path
 
-__all__ = ["NEAR_KM", "NearStation", "plot_profile", "stations_near_track"]
+__all__ = ["NEAR_KM", "NearStation", "make_profile_figure", "plot_profile", "stations_near_track"]
 
 #: Stations within this distance (km) of a profile point are marked on the profile.
 NEAR_KM = 50.0
@@ -201,25 +201,31 @@ def _draw_inset(fig: Any, gdf: Any, run: Any, near_lonlat: tuple) -> Any:
     return ax
 
 
-def plot_profile(
+def plot_profile(gdf: Any, path: str | os.PathLike[str], **options: Any) -> Path:
+    """Draw a track profile (:func:`make_profile_figure`) and write it as PNG, atomically."""
+    fig = make_profile_figure(gdf, **options)
+    path = Path(path)
+    with atomic_path(path) as temp:
+        fig.savefig(temp, dpi=150, format="png")
+    return path
+
+
+def make_profile_figure(
     gdf: Any,
-    path: str | os.PathLike[str],
     *,
     title: str = "",
     waypoint_names: Sequence[str] = (),
     stations: Any = None,
     run: Any = None,
     subtitle: str = "",
-) -> Path:
-    """Draw a track profile as a cross-section (see the module notes); write it as PNG.
+) -> Any:
+    """Draw a track profile as a cross-section (see the module notes); return the figure.
 
     Parameters
     ----------
     gdf : geopandas.GeoDataFrame
         The result of :func:`lidmelt.products.profiles.sample_track` (needs ``distance_km``
         and one of ``melt_thickness_km``, ``onset_depth_km``, ``lid_depth_km``).
-    path : path
-        PNG file to write (atomically).
     title : str
         The track's name (default "Track profile").
     waypoint_names : sequence of str
@@ -247,7 +253,6 @@ def plot_profile(
             "result of sample_track()."
         )
         raise InputError(msg)
-    path = Path(path)
     d = gdf["distance_km"].to_numpy(dtype=float)
     fig = Figure(figsize=(9, 8.5), dpi=150, facecolor="white")
     FigureCanvasAgg(fig)
@@ -278,6 +283,4 @@ def plot_profile(
     if subtitle:
         fig.text(0.09, 0.945, subtitle, fontsize=9, va="top", color="0.2")
     _draw_inset(fig, gdf, run, near_lonlat)
-    with atomic_path(path) as temp:
-        fig.savefig(temp, dpi=150, format="png")
-    return path
+    return fig

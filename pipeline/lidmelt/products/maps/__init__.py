@@ -55,6 +55,7 @@ from lidmelt.products.maps.overview import (
 from lidmelt.products.maps.style import (
     MELT_TOP_PERCENTILE,
     NODATA_COLOR,
+    OUTSIDE_COLOR,
     PERCENTILES,
     REGIME_CLASSES,
     STYLES,
@@ -83,6 +84,7 @@ __all__ = [
     "MARKED_FLAGS",
     "MELT_TOP_PERCENTILE",
     "NODATA_COLOR",
+    "OUTSIDE_COLOR",
     "OVERVIEW_PANELS",
     "PERCENTILES",
     "REGIME_CLASSES",
