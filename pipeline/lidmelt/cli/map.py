@@ -10,6 +10,11 @@ from lidmelt.products.maps.overview import draw_overview
 
 __all__ = ["register"]
 
+_OVERVIEW_HELP = (
+    "draw only the one-page overview (inputs and results as panels, for a proposal) as "
+    "overview.png (300 dpi, or --dpi), overview.pdf and overview.svg"
+)
+
 
 def register(subparsers: argparse._SubParsersAction) -> None:
     """Register ``lidmelt map``."""
@@ -67,12 +72,7 @@ def register(subparsers: argparse._SubParsersAction) -> None:
         metavar="SHAPEFILE",
         help="local coastline shapefile to draw (never downloaded)",
     )
-    p.add_argument(
-        "--overview",
-        action="store_true",
-        help="draw only the one-page overview (inputs and results as panels, for a proposal) "
-        "as overview.png (300 dpi, or --dpi), overview.pdf and overview.svg",
-    )
+    p.add_argument("--overview", action="store_true", help=_OVERVIEW_HELP)
     p.add_argument(
         "--format", dest="fmt", choices=FORMATS, default="png", help="figure format (default png)"
     )
