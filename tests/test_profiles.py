@@ -302,3 +302,14 @@ def test_cli_profile_not_a_run_dir_and_bad_track(run, tmp_path, capsys):
     bad.write_text("when,depth\n1,2\n", encoding="utf-8")
     assert main(["profile", str(run), str(bad), "--spacing", "5"]) == 1
     assert "no recognisable coordinate columns" in capsys.readouterr().err
+
+
+def test_cli_profile_never_overwrites_its_track(run, tmp_path, capsys, monkeypatch):
+    # Issue 14: 'profile -o track.csv' run beside track.csv overwrote the input track.
+    csv = write_csv(tmp_path / "track.csv", WAYPOINTS)
+    before = csv.read_bytes()
+    monkeypatch.chdir(tmp_path)
+    assert main(["profile", str(run), "track.csv", "--spacing", "50", "-o", "./track.csv"]) == 1
+    assert "would overwrite the input" in capsys.readouterr().err
+    assert csv.read_bytes() == before
+    assert not (tmp_path / "track.png").exists()

@@ -106,18 +106,24 @@ def test_report_carries_every_parameter_value_and_input_hash(run):
 
 
 def test_parameter_sources_per_row_with_reference_fallback(run):
+    # Issue 14: each source is written once, in a numbered list; every parameter row names
+    # its source by number (the summary's per-parameter source, else the model reference).
     text = html_of(report.write_report(run, maps=[]))
-    assert "<td>a1_c</td><td>1085.7</td><td>Katz et al. (2003) Table 2, A1</td>" in text
+    assert "<td>a1_c</td><td>1085.7</td><td>[1]</td>" in text
+    assert "<td>[1]</td><td>Katz et al. (2003) Table 2, A1</td>" in text
     ref = "Katz, Spiegelman &amp; Langmuir (2003), G-cubed 4(9), Table 2"
-    assert f"<td>a2_c_per_gpa</td><td>132.9</td><td>model reference ({ref})</td>" in text
+    assert "<td>a2_c_per_gpa</td><td>132.9</td><td>[2]</td>" in text
+    assert f"<td>[2]</td><td>model reference ({ref})</td>" in text
+    assert text.count(f"model reference ({ref})") == 1  # once, however many rows cite it
 
 
 def test_summary_numbers_lid_and_version(run):
     text = html_of(report.write_report(run, maps=[]))
-    assert "1,234,567" in text  # melting cells, thousands separators
-    assert "45,679 km²" in text  # 45678.9 rounded to whole km² (>= 1e4)
-    assert "123,456 km³" in text
-    assert "<td>melt_thickness_km</td><td>km</td><td>0</td><td>9.5</td><td>2.25</td>" in text
+    assert "1,234,567" in text  # melting cells (a count): exact, thousands separators
+    # Issue 14: statistics to 3 significant figures (45678.9 -> 45,700; 123456 -> 123,000).
+    assert "45,700 km²" in text
+    assert "123,000 km³" in text
+    assert "<td>melt_thickness_km</td><td>km</td><td>0</td><td>9.50</td><td>2.25</td>" in text
     assert "plate_gdh1" in text
     assert "1100.0 °C" in text
     assert "1315 °C" in text  # ambient potential temperature in the job line
@@ -147,7 +153,8 @@ def test_page_is_self_contained_with_embedded_png_maps(run):
     assert "@import" not in text
     assert "url(" not in text
     images = re.findall(r'src="data:image/png;base64,([A-Za-z0-9+/=]+)"', text)
-    assert len(images) == 1  # one output variable in this run
+    # One output (melt thickness) and, since issue 14, the input maps the run has (plate age).
+    assert len(images) == 2
     png = base64.b64decode(images[0])
     assert png[:8] == b"\x89PNG\r\n\x1a\n"  # PNG signature (PNG spec, section 5.2)
     pixels = mpimg.imread(io.BytesIO(png), format="png")
@@ -326,8 +333,9 @@ def test_anomaly_basis_and_further_statistics_to_three_figures(flagged_run):
     assert "<td>anomaly.melting_cells</td><td>42</td>" in text
     assert "<td>melt_production_km3_yr</td><td>0.0123 km³/yr</td>" in text
     assert text.index("Statistic (anomaly basis)") < text.index("Further statistic")
-    # The totals keep their own table and format (unchanged).
-    assert "45,679 km²" in text
+    # The totals keep their own table, now also to 3 significant figures (issue 14: no false
+    # precision): 45678.9 -> 45,700.
+    assert "<td>Melting area</td><td>45,700 km²</td>" in text
 
 
 def test_format_sig():

@@ -496,3 +496,34 @@ def test_100k_stations_well_under_a_second(make_run_dir):
         best = min(best, time.perf_counter() - start)
     assert len(out) == 100_000
     assert best < 1.0, f"sampling 100k stations took {best:.2f} s"
+
+
+def test_values_zero_within_float_noise_are_written_as_zero(make_run_dir, tmp_path):
+    # Issue 14: a bilinear sum of 0 K cells and 1e-14 K residue gave 1.7e-14 where 0 is meant.
+    # Check value: below 1e-9 of the grid's largest magnitude (280 K) a value is 0; 1e-3 K is
+    # far above it and kept.
+    anomaly = np.zeros((10, 10))
+    anomaly[0, 0] = 280.0
+    anomaly[5, 5] = 3.4e-14
+    anomaly[8, 8] = 1e-3
+    run = make_run_dir(
+        {"melt_thickness_km": np.ones((10, 10)), "thermal_anomaly_k": anomaly},
+        transform=Affine(1.0, 0, 0.0, 0, -1.0, 10.0),
+    )
+    stations = tmp_path / "s.csv"
+    stations.write_text("lon,lat\n5.5,4.5\n5.0,4.0\n8.5,1.5\n", encoding="utf-8")
+    values = sample_stations(run, stations)["thermal_anomaly_k"].to_numpy()
+    assert values[0] == 0.0  # the cell centre holding 3.4e-14
+    assert values[1] == 0.0  # a bilinear mix of it with zeros
+    assert values[2] == pytest.approx(1e-3)
+
+
+def test_cli_sample_never_overwrites_its_stations(make_run_dir, tmp_path, capsys):
+    run = make_run_dir(
+        {"melt_thickness_km": np.ones((10, 10))}, transform=Affine(1, 0, 0, 0, -1, 10)
+    )
+    stations = tmp_path / "s.csv"
+    stations.write_text("lon,lat\n5.5,4.5\n", encoding="utf-8")
+    assert main(["sample", str(run), str(stations), "-o", str(stations)]) == 1
+    assert "would overwrite the input" in capsys.readouterr().err
+    assert stations.read_text(encoding="utf-8") == "lon,lat\n5.5,4.5\n"

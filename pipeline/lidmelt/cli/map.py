@@ -6,8 +6,14 @@ import argparse
 
 from lidmelt.cli._common import run_dir_option
 from lidmelt.products.maps import FORMATS, draw_run_maps
+from lidmelt.products.maps.overview import draw_overview
 
 __all__ = ["register"]
+
+_OVERVIEW_HELP = (
+    "draw only the one-page overview (inputs and results as panels, for a proposal) as "
+    "overview.png (300 dpi, or --dpi), overview.pdf and overview.svg"
+)
 
 
 def register(subparsers: argparse._SubParsersAction) -> None:
@@ -66,6 +72,7 @@ def register(subparsers: argparse._SubParsersAction) -> None:
         metavar="SHAPEFILE",
         help="local coastline shapefile to draw (never downloaded)",
     )
+    p.add_argument("--overview", action="store_true", help=_OVERVIEW_HELP)
     p.add_argument(
         "--format", dest="fmt", choices=FORMATS, default="png", help="figure format (default png)"
     )
@@ -89,7 +96,20 @@ def register(subparsers: argparse._SubParsersAction) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    """Draw the maps and print the files written."""
+    """Draw the maps (or the overview) and print the files written."""
+    if args.overview:
+        dpi = args.dpi if args.dpi != 150.0 else 300.0
+        written = draw_overview(
+            args.run_dir,
+            out_dir=args.out_dir,
+            projection=args.projection,
+            region=args.region,
+            coastlines=args.coastlines,
+            dpi=dpi,
+        )
+        for path in written:
+            print(path)
+        return 0
     written = draw_run_maps(
         args.run_dir,
         out_dir=args.out_dir,

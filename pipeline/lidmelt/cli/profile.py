@@ -18,7 +18,7 @@ from lidmelt.cli._common import (
     status_summary,
 )
 from lidmelt.products.profiles import sample_track, write_profile
-from lidmelt.products.sampling import check_output_path
+from lidmelt.products.sampling import check_not_input, check_output_path
 
 __all__ = ["register"]
 
@@ -43,8 +43,10 @@ def register(subparsers: argparse._SubParsersAction) -> None:
         help="values of a run along a ship track, with a profile figure",
         description=(
             "Sample every variable of a run every KM km along the geodesics (WGS84) joining a "
-            "track's waypoints; write a CSV and a PNG profile of melt thickness, onset depth "
-            "and lid depth next to it."
+            "track's waypoints; write a CSV and, next to it, a PNG cross-section: plate age "
+            "and anomaly, melt thickness, and the melting column between the top of the "
+            "melting column (lid_depth_km: lid base or crust base) and the onset depth. The "
+            "output never overwrites the track."
         ),
     )
     p.add_argument(
@@ -60,6 +62,12 @@ def register(subparsers: argparse._SubParsersAction) -> None:
         help="distance between profile points along the track, in km",
     )
     p.add_argument(
+        "--stations",
+        metavar="FILE",
+        help="stations (CSV with lon/lat columns, or a point file); those within 50 km of the "
+        "track are named on the profile",
+    )
+    p.add_argument(
         "-o",
         "--output",
         metavar="OUT.csv",
@@ -68,10 +76,34 @@ def register(subparsers: argparse._SubParsersAction) -> None:
     p.set_defaults(func=run)
 
 
+def _figure_options(args: argparse.Namespace) -> dict:
+    """Title (the track's name), waypoint names, stations and subtitle of the figure."""
+    from lidmelt.errors import InputError
+    from lidmelt.grids.rundir import open_run
+    from lidmelt.grids.vector import read_labelled_points
+    from lidmelt.products.maps import load_stations, model_line
+
+    track = Path(args.track)
+    try:
+        labels = [v for v in read_labelled_points(track, what="track")["label"] if v]
+    except InputError:  # a line file: no waypoint names
+        labels = []
+    run = open_run(args.run_dir)
+    return {
+        "title": f"Profile along {track.stem.replace('_', ' ')}",
+        "waypoint_names": labels,
+        "stations": load_stations(args.stations) if args.stations else None,
+        "run": run,
+        "subtitle": f"Run {run.path.name}. {model_line(run.summary)}",
+    }
+
+
 def run(args: argparse.Namespace) -> int:
     """Sample the track, print a short table and write the CSV and the profile figure."""
     out = args.output or f"{Path(args.track).stem}_profile.csv"
     out = check_output_path(out, (".csv",), what="profile")
+    for written in (out, out.with_suffix(".png")):
+        check_not_input(written, args.track, args.run_dir, what="profile")
     with print_warnings("profile"):
         gdf = sample_track(
             args.run_dir,
@@ -89,7 +121,6 @@ def run(args: argparse.Namespace) -> int:
         + flag_summary(gdf)
         + f"; track length {gdf['distance_km'].iloc[-1]:.3f} km, spacing {args.spacing:g} km"
     )
-    title = f"{Path(args.run_dir).name}: {Path(args.track).name}"
-    csv_path, png = write_profile(gdf, out, title=title)
+    csv_path, png = write_profile(gdf, out, **_figure_options(args))
     print(f"wrote {csv_path} and {png}")
     return 0

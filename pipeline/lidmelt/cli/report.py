@@ -39,12 +39,32 @@ def register(subparsers: argparse._SubParsersAction) -> None:
         default=None,
         help="local coastline shapefile for maps drawn for the report",
     )
+    p.add_argument(
+        "--stations",
+        metavar="FILE",
+        default=None,
+        help="stations to tabulate and map (default RUN_DIR/stations.csv when present)",
+    )
+    p.add_argument(
+        "--candidates",
+        metavar="FILE",
+        default=None,
+        help="candidate regions from 'lidmelt screen' (default RUN_DIR/candidates.gpkg when "
+        "present)",
+    )
     p.set_defaults(func=run)
 
 
 def run(args: argparse.Namespace) -> int:
     """Write the report and print the files written."""
-    out = write_report(args.run_dir, path=args.output, pdf=args.pdf, coastlines=args.coastlines)
+    out = write_report(
+        args.run_dir,
+        path=args.output,
+        pdf=args.pdf,
+        coastlines=args.coastlines,
+        stations=args.stations,
+        candidates=args.candidates,
+    )
     print(out)
     if args.pdf:
         print(out.with_suffix(".pdf"))

@@ -8,6 +8,7 @@ from pathlib import Path
 from lidmelt.cli._common import print_warnings
 from lidmelt.engine import run_basin
 from lidmelt.products.maps import draw_run_maps
+from lidmelt.products.maps.overview import draw_overview
 from lidmelt.products.report import write_report
 from lidmelt.workflow import load_workflow
 
@@ -56,7 +57,7 @@ def run(args: argparse.Namespace) -> int:
     files = list(result.files)
     if not args.no_maps and cfg.run.maps:
         maps = list(draw_run_maps(result.run_dir))
-        files += maps
+        files += maps + draw_overview(result.run_dir, coastlines=False, formats=("png", "pdf"))
         if cfg.run.report:
             files.append(write_report(result.run_dir, maps=maps))
     st = result.summary["statistics"]

@@ -15,7 +15,12 @@ from lidmelt.cli._common import (
     sampling_method_option,
     status_summary,
 )
-from lidmelt.products.sampling import FLAG_COLUMN, check_output_path, table_with_coordinates
+from lidmelt.products.sampling import (
+    FLAG_COLUMN,
+    check_not_input,
+    check_output_path,
+    table_with_coordinates,
+)
 from lidmelt.products.sites import OUTPUT_SUFFIXES, sample_stations, write_stations
 
 __all__ = ["register"]
@@ -70,6 +75,8 @@ def run(args: argparse.Namespace) -> int:
         if args.output is None
         else check_output_path(args.output, OUTPUT_SUFFIXES, what="station table")
     )
+    if out is not None:
+        check_not_input(out, args.stations, args.run_dir, what="station table")
     with print_warnings("sample"):
         gdf = sample_stations(
             args.run_dir,

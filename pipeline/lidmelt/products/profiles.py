@@ -2,8 +2,10 @@
 
 :func:`sample_track` places points every ``spacing_km`` along the geodesics (WGS84 ellipsoid,
 pyproj.Geod) that join a track's waypoints and samples every variable of the run there (the
-rules of :mod:`lidmelt.products.sites`); :func:`plot_profile` draws melt thickness, onset depth
-and lid depth against distance along the track. ``lidmelt profile`` is the command-line form.
+rules of :mod:`lidmelt.products.sites`); :func:`plot_profile` (:mod:`.profile_figure`) draws
+them as a cross-section: inputs, melt thickness, and the melting column between the top of the
+melting column and the onset depth, with depth downward. ``lidmelt profile`` is the
+command-line form.
 
 Tracks
 ------
@@ -38,6 +40,7 @@ from lidmelt.grids import vector
 from lidmelt.grids.grid import WGS84, lonlat_from
 from lidmelt.grids.rundir import RunDir
 from lidmelt.products import sampling as smp
+from lidmelt.products.profile_figure import plot_profile
 
 if TYPE_CHECKING:
     import geopandas as gpd
@@ -284,128 +287,17 @@ def sample_track(
     return gdf
 
 
-def plot_profile(gdf: gpd.GeoDataFrame, path: str | os.PathLike[str], *, title: str = "") -> Path:
-    """Draw a track profile: melt thickness, and onset and lid depth, against distance.
-
-    Parameters
-    ----------
-    gdf : geopandas.GeoDataFrame
-        The result of :func:`sample_track` (needs ``distance_km`` and at least one of
-        ``melt_thickness_km``, ``onset_depth_km``, ``lid_depth_km``).
-    path : path
-        PNG file to write (written under a temporary name, then renamed).
-    title : str
-        Figure title.
-
-    Returns
-    -------
-    Path
-        The PNG written.
-
-    Raises
-    ------
-    lidmelt.errors.InputError
-        If ``gdf`` lacks the columns to plot.
-    """
-    import matplotlib
-
-    matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
-
-    needed = {"melt_thickness_km", "onset_depth_km", "lid_depth_km"}
-    if "distance_km" not in gdf.columns or not needed & set(gdf.columns):
-        msg = (
-            f"the profile table has columns {', '.join(map(str, gdf.columns))}; expected "
-            "distance_km and melt_thickness_km, onset_depth_km or lid_depth_km. Give the "
-            "result of sample_track()."
-        )
-        raise InputError(msg)
-    path = Path(path)
-    d = gdf["distance_km"].to_numpy(dtype=float)
-    fig, (top, bottom) = plt.subplots(
-        2, 1, sharex=True, figsize=(9, 6.5), height_ratios=(1, 1.4), layout="constrained"
-    )
-    _draw_melt(top, gdf, d)
-    _draw_depths(bottom, gdf, d)
-    _mark_waypoints(top, bottom, gdf.attrs.get("lidmelt_waypoint_distance_km", [])[1:-1])
-    top.set_xlim(d.min(), d.max() if d.max() > d.min() else d.min() + 1)
-    top.set_title(title or "Track profile", fontsize=12)
-    for ax in (top, bottom):
-        ax.tick_params(labelsize=10)
-    try:
-        with atomic_path(path) as temp:
-            fig.savefig(temp, dpi=150, format="png")
-    finally:
-        plt.close(fig)
-    return path
-
-
-def _draw_melt(ax: Any, gdf: gpd.GeoDataFrame, d: np.ndarray) -> None:
-    """Upper panel: melt thickness against distance, filled down to 0."""
-    if "melt_thickness_km" in gdf.columns:
-        melt = gdf["melt_thickness_km"].to_numpy(dtype=float)
-        ax.fill_between(d, 0, melt, color="tab:red", alpha=0.3, lw=0)
-        ax.plot(d, melt, color="tab:red", lw=1.6, label="melt thickness")
-        ax.set_ylim(bottom=0)
-    ax.set_ylabel("Melt thickness (km)")
-    ax.grid(alpha=0.3)
-
-
-def _draw_depths(ax: Any, gdf: gpd.GeoDataFrame, d: np.ndarray) -> None:
-    """Lower panel: onset and lid depth (depth down), the melting column shaded between."""
-    lid = gdf["lid_depth_km"].to_numpy(dtype=float) if "lid_depth_km" in gdf.columns else None
-    onset = gdf["onset_depth_km"].to_numpy(dtype=float) if "onset_depth_km" in gdf.columns else None
-    if lid is not None and onset is not None:
-        melting = np.isfinite(lid) & np.isfinite(onset) & (onset > lid)
-        if "melt_thickness_km" in gdf.columns:
-            melting &= gdf["melt_thickness_km"].to_numpy(dtype=float) > 0
-        ax.fill_between(
-            d,
-            lid,
-            onset,
-            where=melting,
-            color="tab:orange",
-            alpha=0.25,
-            lw=0,
-            label="melting column",
-        )
-    if onset is not None:
-        ax.plot(d, onset, color="tab:orange", lw=1.6, label="onset depth (solidus crossing)")
-    if lid is not None:
-        ax.plot(d, lid, color="tab:blue", lw=1.6, label="lid depth (top of melting)")
-    ax.invert_yaxis()
-    ax.set_ylabel("Depth (km)")
-    ax.set_xlabel("Distance along track (km)")
-    ax.grid(alpha=0.3)
-    if ax.lines:
-        ax.legend(loc="best", fontsize=9, framealpha=0.8)
-
-
-def _mark_waypoints(top: Any, bottom: Any, turns: list[float]) -> None:
-    """Dotted vertical lines at the inner waypoints, labelled once."""
-    for ax in (top, bottom):
-        for x in turns:
-            ax.axvline(x, color="0.5", lw=0.8, ls=":")
-    if len(turns):
-        bottom.text(
-            turns[0],
-            1.0,
-            " waypoints (dotted)",
-            transform=bottom.get_xaxis_transform(),
-            va="bottom",
-            ha="left",
-            fontsize=8,
-            color="0.4",
-        )
-
-
 def write_profile(
-    gdf: gpd.GeoDataFrame, path: str | os.PathLike[str], *, title: str = ""
+    gdf: gpd.GeoDataFrame, path: str | os.PathLike[str], *, title: str = "", **figure: Any
 ) -> tuple[Path, Path]:
-    """Write a profile's CSV and its PNG figure beside it (same stem); return both paths."""
+    """Write a profile's CSV and its PNG figure beside it (same stem); return both paths.
+
+    ``figure`` holds the further options of :func:`plot_profile` (waypoint names, stations,
+    the run for the inset map, a subtitle).
+    """
     path = smp.check_output_path(path, (".csv",), what="profile")
     png = path.with_suffix(".png")
     with atomic_path(path) as temp:
         smp.table_with_coordinates(gdf).to_csv(temp, index=False)
-        plot_profile(gdf, png, title=title)
+        plot_profile(gdf, png, title=title, **figure)
     return path, png

@@ -61,6 +61,7 @@ __all__ = [
     "FLAG_COLUMN",
     "FLAG_MEANING_COLUMN",
     "METHODS",
+    "NOISE_FRACTION",
     "REFERENCE_VARIABLE",
     "STATUSES",
     "STATUS_NEXT_TO_NODATA",
@@ -72,6 +73,7 @@ __all__ = [
     "apply_stencil",
     "as_run",
     "check_method",
+    "check_not_input",
     "check_output_path",
     "describe_flags",
     "load_variable",
@@ -86,6 +88,7 @@ __all__ = [
     "variable_names",
     "warn_outside",
     "write_table",
+    "zero_float_noise",
 ]
 
 #: Status values of a sampled point.
@@ -318,7 +321,9 @@ def sample_run(
     status = np.full(stencil.inside.shape, STATUS_OK, dtype=object)
     fallback = np.ones(stencil.inside.shape, dtype=bool)
     for name in variable_names(run):
-        values, flagged = apply_stencil(stencil, load_variable(run, name, grid))
+        grid_values = load_variable(run, name, grid)
+        values, flagged = apply_stencil(stencil, grid_values)
+        values = zero_float_noise(values, grid_values)
         columns[name] = values
         if name == ref:
             status[flagged] = STATUS_NEXT_TO_NODATA
@@ -330,6 +335,26 @@ def sample_run(
         columns[FLAG_COLUMN] = apply_flag_stencil(stencil, flags.values, fallback)
         columns[FLAG_MEANING_COLUMN] = describe_flags(columns[FLAG_COLUMN], flags.meanings)
     return columns, status
+
+
+#: Sampled values smaller than this fraction of the variable's largest magnitude are 0.
+NOISE_FRACTION = 1e-9
+
+
+def zero_float_noise(values: np.ndarray, grid_values: np.ndarray) -> np.ndarray:
+    """``values`` with 0 where they are zero within float noise.
+
+    A bilinear weighted sum of cells that are 0 and cells holding float residue (e.g. a
+    thermal anomaly of 1e-14 K where a plume's Gaussian tail vanishes) gives 1.7e-14 where 0
+    is meant; values smaller than :data:`NOISE_FRACTION` times the largest magnitude of the
+    variable's grid are set to 0 (float32 grids resolve 1.2e-7 of a value, IEEE 754, so no
+    meaningful digit is lost).
+    """
+    finite = np.abs(grid_values[np.isfinite(grid_values)])
+    if not finite.size or not np.issubdtype(np.asarray(values).dtype, np.floating):
+        return values
+    tiny = np.abs(values) <= NOISE_FRACTION * float(finite.max())
+    return np.where(tiny & np.isfinite(values), 0.0, values)
 
 
 def sample_points(
@@ -371,6 +396,31 @@ def check_output_path(path: str | os.PathLike[str], suffixes: Sequence[str], *, 
         msg = f"output path {str(path)!r} is a folder; give a file name such as {path / 'out'}."
         raise InputError(msg)
     return path
+
+
+def check_not_input(output: str | os.PathLike[str], *inputs: Any, what: str) -> None:
+    """Refuse an output file that is one of the command's inputs (resolved paths compared).
+
+    ``inputs`` may hold paths, run directories (any file inside one is refused too) or
+    objects that are not paths (ignored).
+
+    Raises
+    ------
+    InputError
+        Naming the output and the input it would overwrite.
+    """
+    out = Path(output).resolve()
+    for item in inputs:
+        if not isinstance(item, str | os.PathLike):
+            continue
+        src = Path(item).resolve()
+        if out == src or (src.is_dir() and src in out.parents and out.suffix.lower() == ".tif"):
+            msg = (
+                f"the {what} output {str(output)!r} is the input {str(item)!r} of the same "
+                "command; writing it would overwrite the input. Give another output name "
+                "with -o (e.g. track_profile.csv)."
+            )
+            raise InputError(msg)
 
 
 def table_with_coordinates(gdf: gpd.GeoDataFrame) -> pd.DataFrame:

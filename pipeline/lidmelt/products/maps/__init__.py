@@ -8,7 +8,11 @@ The package keeps presentation apart from drawing:
 - :mod:`.overlays`: coastlines (local files only), plate-age contours, stations, candidates;
 - :mod:`.captions`: the subtitle and caption text;
 - :mod:`.flags`: the run's validity flags: reading, hatching flagged cells, counts;
+- :mod:`.options`: :class:`MapOptions`, :class:`MapInfo`, the checks of the options;
+- :mod:`.field`: the data layer (variable, colour limits, no-melt cells, zero contour);
+- :mod:`.marks`: named plume centres and candidate rank labels;
 - :mod:`.figure`: :func:`make_map_figure`, the figure drawn in named steps;
+- :mod:`.overview`: :func:`make_overview_figure`, inputs and results as panels on one page;
 - :mod:`.write`: :func:`draw_map`, :func:`draw_run_maps` and :func:`save_figure`.
 """
 
@@ -42,9 +46,16 @@ from lidmelt.products.maps.overlays import (
     require_file,
     resolve_coastlines,
 )
+from lidmelt.products.maps.overview import (
+    OVERVIEW_PANELS,
+    OverviewInfo,
+    draw_overview,
+    make_overview_figure,
+)
 from lidmelt.products.maps.style import (
     MELT_TOP_PERCENTILE,
     NODATA_COLOR,
+    OUTSIDE_COLOR,
     PERCENTILES,
     REGIME_CLASSES,
     STYLES,
@@ -58,7 +69,14 @@ from lidmelt.products.maps.style import (
     style_for,
     unit_label,
 )
-from lidmelt.products.maps.write import FORMATS, draw_map, draw_run_maps, save_figure
+from lidmelt.products.maps.write import (
+    FORMATS,
+    REPEATS,
+    default_map_variables,
+    draw_map,
+    draw_run_maps,
+    save_figure,
+)
 
 __all__ = [
     "COASTLINE_RELPATH",
@@ -66,14 +84,18 @@ __all__ = [
     "MARKED_FLAGS",
     "MELT_TOP_PERCENTILE",
     "NODATA_COLOR",
+    "OUTSIDE_COLOR",
+    "OVERVIEW_PANELS",
     "PERCENTILES",
     "REGIME_CLASSES",
+    "REPEATS",
     "STYLES",
     "ZERO_COLOR",
     "ClassStyle",
     "MapInfo",
     "MapOptions",
     "MapStyle",
+    "OverviewInfo",
     "Region",
     "Stations",
     "VariableStyle",
@@ -81,8 +103,10 @@ __all__ = [
     "check_variable",
     "choose_projection",
     "colour_limits",
+    "default_map_variables",
     "describe_lid",
     "draw_map",
+    "draw_overview",
     "draw_run_maps",
     "encode_categories",
     "encode_classes",
@@ -92,6 +116,7 @@ __all__ = [
     "load_candidates",
     "load_stations",
     "make_map_figure",
+    "make_overview_figure",
     "make_projection",
     "map_caption",
     "marked_kinds",

@@ -9,10 +9,20 @@ from __future__ import annotations
 from pathlib import Path
 from typing import Any
 
-from lidmelt import __version__
-from lidmelt.products.maps.style import MELT_TOP_PERCENTILE, PERCENTILES, VariableStyle
+import numpy as np
 
-__all__ = ["describe_lid", "lid_model", "map_caption", "model_line"]
+from lidmelt import __version__
+from lidmelt.products.maps.style import MELT_TOP_PERCENTILE, VariableStyle
+
+__all__ = [
+    "describe_lid",
+    "describe_water",
+    "lid_grid_share",
+    "lid_model",
+    "map_caption",
+    "model_line",
+    "run_basis",
+]
 
 
 def lid_model(summary: dict[str, Any]) -> tuple[str, float | None] | None:
@@ -27,14 +37,70 @@ def lid_model(summary: dict[str, Any]) -> tuple[str, float | None] | None:
     return str(cooling["name"]), iso if isinstance(iso, int | float) else None
 
 
-def describe_lid(summary: dict[str, Any]) -> str:
-    """``"lid from <model> cooling, <T> °C isotherm"`` or ``"lid from the lid-thickness grid"``."""
+def lid_grid_share(run: Any) -> float | None:
+    """Share (0-1) of the cells with data whose lid came from the run's lid-thickness grid.
+
+    None when the run has no ``input_lid_thickness_km`` grid. The engine takes the lid from
+    that grid where it has data and from the cooling model of the plate age elsewhere.
+    """
+    if "lid_thickness_km" not in getattr(run, "inputs", ()):
+        return None
+    lid = np.asarray(run.open("lid_thickness_km").values, dtype=float)
+    melt = None
+    if "melt_thickness_km" in run.outputs:
+        melt = np.asarray(run.open("melt_thickness_km").values, dtype=float)
+    data = np.ones(lid.shape, bool)
+    if melt is not None and melt.shape == lid.shape:
+        data = np.isfinite(melt)
+    n = int(data.sum())
+    return float((np.isfinite(lid) & data).sum() / n) if n else 0.0
+
+
+def describe_lid(summary: dict[str, Any], grid_share: float | None = None) -> str:
+    """Where the lid came from, as used: the lid-thickness grid, the cooling model, or both.
+
+    ``grid_share`` is :func:`lid_grid_share` (None: the run has no lid-thickness grid).
+    """
     lid = lid_model(summary)
-    if lid is None:
-        return "lid from the lid-thickness grid"
-    name, iso = lid
-    iso_text = f", {iso:g} °C isotherm" if iso is not None else ""
-    return f"lid from {name} cooling{iso_text}"
+    cooling = ""
+    if lid is not None:
+        name, iso = lid
+        iso_text = f" to the {iso:g} °C isotherm" if iso is not None else ""
+        cooling = f"{name} cooling of the plate age{iso_text}"
+    if grid_share is None or grid_share <= 0.0:
+        return f"lid from {cooling}" if cooling else "lid from the lid-thickness grid"
+    if not cooling or grid_share >= 1.0:
+        return "lid from the lid-thickness grid (every cell)"
+    return (
+        f"lid from the lid-thickness grid where it has data ({100.0 * grid_share:.3g} % of the "
+        f"cells), elsewhere from {cooling}"
+    )
+
+
+def describe_water(summary: dict[str, Any]) -> str:
+    """The source water as used: a constant (wt %) or the grid it came from."""
+    water = (summary.get("inputs") or {}).get("water_wt_pct")
+    if not isinstance(water, dict):
+        return "water not recorded"
+    constant = water.get("constant")
+    if isinstance(constant, int | float) and not water.get("source"):
+        return f"source water {constant:g} wt % (constant)"
+    source = str(water.get("source") or water.get("file") or "a grid")
+    return f"source water from {Path(source).name}"
+
+
+def run_basis(summary: dict[str, Any], grid_share: float | None = None) -> str:
+    """One sentence: lid, top of melting, water and ambient temperature, as the run used them."""
+    lid = describe_lid(summary, grid_share)
+    parts = [lid[:1].upper() + lid[1:]]
+    top = summary.get("min_top_of_melting_km")
+    if isinstance(top, int | float):
+        parts.append(f"melting stops at least {top:g} km deep (crust base)")
+    parts.append(describe_water(summary))
+    tp = summary.get("ambient_potential_temperature_c")
+    if isinstance(tp, int | float):
+        parts.append(f"ambient mantle potential temperature {tp:g} °C")
+    return "; ".join(parts) + "."
 
 
 def model_line(summary: dict[str, Any]) -> str:
@@ -50,18 +116,20 @@ def _limits_text(style: VariableStyle, *, no_melt: bool, extend: str) -> str:
     """How the colour limits were chosen and what white means."""
     if style.categorical:
         return "Colours: the classes named in the legend"
+    low, high = style.percentiles
     if style.zero_is_no_melt:
         limits = (
             f"Colour scale from 0 to the {MELT_TOP_PERCENTILE:g}th percentile of the melting "
             "cells; white: no melting (exactly 0)"
         )
+    elif (low, high) == (0.0, 100.0):
+        limits = "Colour scale over the whole range of the cells drawn (minimum to maximum)"
     else:
-        limits = (
-            f"Colour limits: {PERCENTILES[0]:g}nd–{PERCENTILES[1]:g}th percentiles of "
-            "the valid cells"
-        )
-        if no_melt:
-            limits += "; white: no melting (the variable is undefined there)"
+        limits = f"Colour limits from the {low:g}th and {high:g}th percentiles of the valid cells"
+    if style.diverging:
+        limits += ", symmetric about 0 (white); black line: 0"
+    if no_melt and not style.zero_is_no_melt:
+        limits += "; white: no melting (the variable is not defined there and is not drawn)"
     if extend != "neither":
         limits += "; arrows: values beyond the limits"
     return limits
@@ -77,22 +145,30 @@ def map_caption(
     age: bool,
     coast_path: Path | None,
     flag_note: str = "",
+    outside: bool = False,
+    plumes: bool = False,
+    grid_share: float | None = None,
 ) -> str:
-    """The caption: lid, colour limits and classes, hatching, projection, overlays, version.
+    """The caption: what the run used, colour limits and classes, hatching, projection, version.
 
     ``flag_note`` is the sentence on the hatched (flagged) cells, if any
-    (:func:`.flags.flag_caption`).
+    (:func:`.flags.flag_caption`); ``outside`` says the view shows area beyond the grid;
+    ``grid_share`` is :func:`lid_grid_share`.
     """
-    lid = describe_lid(summary)
+    grey = "grey: no data in the grid"
+    if outside:
+        grey += "; pale blue-grey: outside the grid"
     parts = [
-        f"{lid[:1].upper()}{lid[1:]}.",
-        f"{_limits_text(style, no_melt=no_melt, extend=extend)}; grey: no data.",
+        run_basis(summary, grid_share),
+        f"{_limits_text(style, no_melt=no_melt, extend=extend)}; {grey}.",
     ]
     if flag_note:
         parts.append(flag_note)
+    if plumes:
+        parts.append("Ringed dots: plume centres named in the workflow.")
     parts.append(f"Projection: {proj_name}.")
     if age:
-        parts.append("Contours: plate age (Ma).")
+        parts.append("Dashed contours: plate age (Ma).")
     if coast_path is None:
         parts.append("No coastlines drawn (no local coastline data).")
     parts.append(f"lidmelt {summary.get('lidmelt_version', __version__)}.")

@@ -11,7 +11,11 @@ Automatic projection (:func:`choose_projection`), for a region W, E, S, N in deg
    60 deg, ``AlbersEqualArea`` (equal-area) for wider regions, both with standard parallels
    one sixth of the latitude span inside S and N (the "one-sixth rule" for conic projections,
    common practice; Snyder 1987, USGS Prof. Paper 1395, conic projections, from memory);
-5. anything else (wide regions that straddle the equator beyond +-30 deg): ``Robinson``.
+5. other regional views (wide regions that straddle the equator beyond +-30 deg, up to 180 deg
+   of longitude and 120 deg of latitude): ``LambertAzimuthalEqualArea`` centred on the region
+   (equal-area, its distortion grows only with distance from the centre; Snyder 1987, from
+   memory), so that a basin is not drawn in a world projection;
+6. anything else: ``Robinson``.
 
 Every projection is centred on lon0 (and lat0 where it takes one). Any other cartopy projection
 can be asked for by class name (case-insensitive), or as ``EPSG:<code>`` for a projected CRS.
@@ -26,6 +30,7 @@ from typing import Any
 
 import cartopy.crs as ccrs
 import numpy as np
+from matplotlib.ticker import FixedLocator
 
 from lidmelt.errors import InputError
 
@@ -36,12 +41,14 @@ __all__ = [
     "choose_projection",
     "data_crs",
     "decimation",
+    "draw_graticule",
     "font_size",
     "footprint",
     "grid_region",
     "label_layout",
     "make_projection",
     "nice_step",
+    "outside_grid",
     "projection_names",
     "region_mask",
     "set_view",
@@ -100,7 +107,7 @@ def nice_step(span: float, *, target: int = 5) -> float:
     """A graticule step (deg) from 1-2-2.5-5 multiples giving about ``target`` lines (common)."""
     steps = [0.1, 0.2, 0.25, 0.5, 1, 2, 2.5, 5, 10, 15, 20, 30, 45, 60, 90]
     for step in steps:
-        if span / step <= target:
+        if span / step <= target + 1e-9:  # grid bounds carry float noise (30.000000000000004)
             return float(step)
     return 90.0
 
@@ -167,6 +174,9 @@ def choose_projection(region: Sequence[float]) -> tuple[ccrs.Projection, str]:
             central_longitude=lon0, central_latitude=lat0, standard_parallels=parallels
         )
         return proj, "Albers equal-area conic (automatic: wide mid-latitude region)"
+    if lon_span <= 180.0 and lat_span <= 120.0:
+        proj = ccrs.LambertAzimuthalEqualArea(central_longitude=lon0, central_latitude=lat0)
+        return proj, "Lambert azimuthal equal-area (automatic: regional, across the equator)"
     return ccrs.Robinson(central_longitude=lon0), "Robinson (automatic: wide, across the equator)"
 
 
@@ -319,7 +329,6 @@ _RADIAL = (
     "Stereographic",
     "Orthographic",
     "AzimuthalEquidistant",
-    "LambertAzimuthalEqualArea",
     "NearsidePerspective",
     "Gnomonic",
     "Geostationary",
@@ -329,10 +338,10 @@ _RADIAL = (
 def label_layout(proj: Any, global_view: bool, ax: Any) -> dict[str, Any]:
     """Where the graticule labels go for this kind of projection (tested by eye, cartopy 0.26).
 
-    Rectangular views: longitudes at the bottom, latitudes on the left. Azimuthal (polar)
-    views: longitudes on the sides and bottom (and top when the view holds the projection
-    centre, e.g. the pole), latitudes inline. Global views of projections with a curved
-    outline: latitudes along the left outline, longitudes along the bottom.
+    Rectangular views: longitudes at the bottom, latitudes on the left and the right.
+    Azimuthal (polar) views: longitudes on the sides and bottom (and top when the view holds
+    the projection centre, e.g. the pole), latitudes inline. Global views of projections with
+    a curved outline: latitudes along the left outline, longitudes along the bottom.
     """
     if type(proj).__name__ in _RADIAL:
         (x0, x1), (y0, y1) = ax.get_xlim(), ax.get_ylim()
@@ -355,11 +364,11 @@ def label_layout(proj: Any, global_view: bool, ax: Any) -> dict[str, Any]:
             "right": False,
         }
     return {
-        "draw_labels": {"bottom": "x", "left": "y"},
+        "draw_labels": {"bottom": "x", "left": "y", "right": "y"},
         "y_inline": False,
         "ylim": None,
         "top": False,
-        "right": False,
+        "right": True,
     }
 
 
@@ -430,3 +439,66 @@ def cell_edges(da: Any, step: int) -> tuple[np.ndarray, np.ndarray]:
     iy = np.minimum(np.arange(0, ny + step, step), ny)
     ix, iy = np.unique(ix), np.unique(iy)
     return tr.c + tr.a * ix, tr.f + tr.e * iy
+
+
+def outside_grid(ax: Any, da: Any, src_crs: Any, *, n: int = 24) -> bool:
+    """Whether the map frame shows area beyond the grid (sampled on an n x n lattice)."""
+    (x0, x1), (y0, y1) = ax.get_xlim(), ax.get_ylim()
+    gx, gy = np.meshgrid(np.linspace(x0, x1, n), np.linspace(y0, y1, n))
+    pts = src_crs.transform_points(ax.projection, gx.ravel(), gy.ravel())
+    west, south, east, north = (float(v) for v in da.rio.bounds())
+    tr = da.rio.transform()
+    tol_x, tol_y = abs(tr.a), abs(tr.e)
+    x, y = pts[:, 0], pts[:, 1]
+    ok = np.isfinite(x) & np.isfinite(y)
+    if isinstance(src_crs, ccrs.PlateCarree) and east - west >= 359.0:
+        inside_x = np.ones(x.shape, bool)
+    elif isinstance(src_crs, ccrs.PlateCarree):
+        inside_x = ((x - west + tol_x) % 360.0) <= (east - west + 2 * tol_x)
+    else:
+        inside_x = (x >= west - tol_x) & (x <= east + tol_x)
+    inside = ok & inside_x & (y >= south - tol_y) & (y <= north + tol_y)
+    return bool((~inside).any())
+
+
+def draw_graticule(
+    ax: Any,
+    proj: Any,
+    region: Region,
+    *,
+    size_in: tuple[float, float],
+    fs: float,
+    labels: dict[str, Any],
+    global_view: bool,
+) -> Any:
+    """Graticule lines about every inch (at least four per axis), labelled per :func:`label_layout`.
+
+    ``size_in`` is the map's (width, height) in inches.
+    """
+    map_w, map_h = size_in
+    lon_step = nice_step(region[1] - region[0], target=int(np.clip(map_w / 1.1, 4, 7)))
+    lat_step = nice_step(region[3] - region[2], target=int(np.clip(map_h / 0.8, 4, 8)))
+    xlocs = lon_step * np.arange(math.ceil(-360.0 / lon_step), math.floor(720.0 / lon_step) + 1)
+    ylocs = lat_step * np.arange(math.ceil(-90.0 / lat_step), math.floor(90.0 / lat_step) + 1)
+    if global_view:  # the edge meridian would be labelled twice
+        lon0 = float(proj.proj4_params.get("lon_0", 0.0))
+        xlocs = xlocs[np.abs(((xlocs - lon0 + 180.0) % 360.0) - 180.0) < 180.0 - 1e-6]
+    gl = ax.gridlines(
+        crs=ccrs.PlateCarree(),
+        draw_labels=labels["draw_labels"],
+        x_inline=False,
+        y_inline=labels["y_inline"],
+        linewidth=0.5,
+        color="0.2",
+        alpha=0.6,
+        linestyle=":",
+        xlocs=FixedLocator(xlocs),
+        ylocs=FixedLocator(ylocs),
+        ylim=labels["ylim"],
+        xlabel_style={"size": fs},
+        ylabel_style={"size": fs},
+        zorder=3,
+    )
+    gl.rotate_labels = False
+    ax.spines["geo"].set_linewidth(0.8)
+    return gl

@@ -43,7 +43,9 @@ __all__ = [
     "legend_handles",
     "load_age",
     "load_candidates",
+    "load_ranked_candidates",
     "load_stations",
+    "place_label",
     "require_file",
     "resolve_coastlines",
     "station_marker_size",
@@ -140,6 +142,21 @@ def load_candidates(path: str | Path) -> list[Any]:
     """
     path = _existing_file(path, "candidates", "--candidates")
     return list(read_polygons(path, what="candidates").to_crs("EPSG:4326").geometry)
+
+
+def load_ranked_candidates(path: str | Path) -> tuple[list[Any], tuple[str, ...]]:
+    """Candidate outlines (as :func:`load_candidates`) and a label for each.
+
+    The label is the ``rank`` column of the screening file (``lidmelt screen``: 1 = largest
+    melt volume), else the position in the file (1, 2, ...).
+    """
+    path = _existing_file(path, "candidates", "--candidates")
+    gdf = read_polygons(path, what="candidates").to_crs("EPSG:4326")
+    if "rank" in gdf.columns:
+        labels = tuple(f"#{v}" for v in gdf["rank"].tolist())
+    else:
+        labels = tuple(f"#{k}" for k in range(1, len(gdf) + 1))
+    return list(gdf.geometry), labels
 
 
 def find_coastlines(coastlines: str | Path | None = None) -> Path | None:
@@ -251,12 +268,15 @@ def draw_age_contours(ax: Any, age: Any, fs: float) -> tuple[float, ...]:
         values[::step, ::step],
         levels=levels,
         colors="0.1",
-        linewidths=0.7,
+        linewidths=0.8,
         linestyles=[(0, (5.0, 2.0))],
         transform=data_crs(age),
         zorder=3,
     )
-    labels = ax.clabel(cs, fmt="%g", fontsize=0.75 * fs, inline=True, inline_spacing=2)
+    cs.set_path_effects(halo(2.0))  # the dashes stay visible on dark colours
+    labels = ax.clabel(
+        cs, fmt="%g Ma", fontsize=0.75 * fs, inline=True, inline_spacing=2, use_clabeltext=True
+    )
     to_axes = ax.transData + ax.transAxes.inverted()
     for text in labels:
         u, v = to_axes.transform(text.get_position())
@@ -293,7 +313,7 @@ _STATION_MARKER = {"marker": "^", "mfc": "black", "mec": "white", "mew": 0.7}
 
 
 def draw_stations(ax: Any, stations: Stations, fs: float) -> None:
-    """Mark stations with black triangles; label them by name when there are at most 30."""
+    """Mark stations with black triangles; label them by name (inside the frame) when <= 30."""
     n_stations = len(stations.lon)
     ax.plot(
         stations.lon,
@@ -305,19 +325,48 @@ def draw_stations(ax: Any, stations: Stations, fs: float) -> None:
         **_STATION_MARKER,
     )
     if stations.names and n_stations <= 30:
-        geo = ccrs.PlateCarree()._as_mpl_transform(ax)
         for lon, lat, name in zip(stations.lon, stations.lat, stations.names, strict=True):
-            ax.annotate(
-                name,
-                (lon, lat),
-                xycoords=geo,
-                xytext=(4, 3),
-                textcoords="offset points",
-                fontsize=0.8 * fs,
-                path_effects=halo(2.0),
-                zorder=7,
-                annotation_clip=True,
-            )
+            place_label(ax, lon, lat, name, fontsize=0.8 * fs)
+
+
+def place_label(
+    ax: Any, lon: float, lat: float, text: str, *, fontsize: float, below: bool = False, **kw: Any
+) -> Any:
+    """A label beside the point (lon, lat), kept inside the map frame; None if off the map.
+
+    The label goes up and right of the point (down and left with ``below``, so that plume
+    names and station names at the same place do not overlap); where it would cross the
+    frame (measured as rendered) it moves to the other side of the point.
+    """
+    x, y = ax.projection.transform_point(lon, lat, ccrs.PlateCarree())
+    u, v = (ax.transData + ax.transAxes.inverted()).transform((x, y))
+    if not (np.isfinite(u) and np.isfinite(v) and 0.0 <= u <= 1.0 and 0.0 <= v <= 1.0):
+        return None
+    sx, sy = (-1, -1) if below else (1, 1)
+    label = ax.annotate(
+        text,
+        (u, v),
+        xycoords="axes fraction",
+        xytext=(4 * sx, 3 * sy),
+        textcoords="offset points",
+        ha="left" if sx > 0 else "right",
+        va="bottom" if sy > 0 else "top",
+        fontsize=fontsize,
+        path_effects=halo(2.0),
+        zorder=7,
+        annotation_clip=False,
+        **kw,
+    )
+    renderer = ax.figure.canvas.get_renderer()
+    box, frame = label.get_window_extent(renderer), ax.get_window_extent(renderer)
+    if box.x1 > frame.x1 or box.x0 < frame.x0:
+        sx = -sx
+    if box.y1 > frame.y1 or box.y0 < frame.y0:
+        sy = -sy
+    label.set_position((4 * sx, 3 * sy))
+    label.set_ha("left" if sx > 0 else "right")
+    label.set_va("bottom" if sy > 0 else "top")
+    return label
 
 
 def legend_handles(

@@ -14,9 +14,16 @@ Colours: nodata is a neutral light grey (:data:`NODATA_COLOR`); in the variables
 ``melt_thickness_km`` is 0 are white too. Colour limits are the 2nd and 98th percentiles of the
 valid cells (:data:`PERCENTILES`; for the two melt amounts: 0 to the 99.5th percentile of the
 melting cells, :data:`MELT_TOP_PERCENTILE`, so that the few hot plume cells keep their
-structure), with extend arrows where the data go beyond them. Depths and pressures use
-``cividis_r``: shallow is light, deep is dark. All colour maps are matplotlib's perceptually
-uniform ones (viridis family; common practice).
+structure), with extend arrows where the data go beyond them. Depths and pressures span the
+whole range of the valid cells (:data:`FULL_RANGE`): their plume cores are few cells, and a
+percentile limit would saturate a 250 km onset and a 150 km one into one colour. They use
+``cividis_r``: shallow is light, deep is dark. Sequential colour maps are matplotlib's
+perceptually uniform ones (viridis family; common practice).
+
+Signed quantities whose zero means something (``excess_to_melt_k``: 0 is the screening line
+between mantle that melts at the ambient temperature and mantle that needs an anomaly) use the
+diverging ``RdBu_r`` (ColorBrewer, Harrower & Brewer 2003, from memory), with limits symmetric
+about zero (the larger magnitude of the 2nd and 98th percentiles) and the zero contour drawn.
 
 Categorical variables (``melting_regime``) have a style with :attr:`MapStyle.classes`: each
 class value gets one colour and a legend entry, and no colour bar is drawn. The regime colours
@@ -41,8 +48,10 @@ from lidmelt.variables import VARIABLES
 __all__ = [
     "CANDIDATE_COLOR",
     "DEFAULT_STYLE",
+    "FULL_RANGE",
     "MELT_TOP_PERCENTILE",
     "NODATA_COLOR",
+    "OUTSIDE_COLOR",
     "PERCENTILES",
     "REGIME_CLASSES",
     "STYLES",
@@ -51,6 +60,7 @@ __all__ = [
     "MapStyle",
     "VariableStyle",
     "class_legend_handles",
+    "colorbar_label",
     "colour_limits",
     "encode_categories",
     "encode_classes",
@@ -59,8 +69,10 @@ __all__ = [
     "unit_label",
 ]
 
-#: Colour of nodata cells and of the map background outside the grid (neutral light grey).
+#: Colour of nodata cells inside the grid (neutral light grey).
 NODATA_COLOR = "#c8c8c8"
+#: Colour of the map background outside the grid (a pale blue-grey, distinct from nodata).
+OUTSIDE_COLOR = "#e6edf3"
 #: Colour of cells with exactly zero melt in the melt-amount variables.
 ZERO_COLOR = "#ffffff"
 #: Outline colour of candidate regions.
@@ -69,6 +81,8 @@ CANDIDATE_COLOR = "#d62728"
 PERCENTILES = (2.0, 98.0)
 #: Top of the colour scale of the melt amounts: this percentile of the melting cells.
 MELT_TOP_PERCENTILE = 99.5
+#: Percentiles of the styles that show the whole range (depths and pressures): min and max.
+FULL_RANGE = (0.0, 100.0)
 
 
 @dataclass(frozen=True)
@@ -92,11 +106,17 @@ class MapStyle:
         0 means "no melting" for every variable of this key, whatever the registry says.
     classes : tuple of ClassStyle
         The classes of a categorical variable (drawn with a legend, no colour bar).
+    diverging : bool
+        A signed quantity: limits symmetric about 0, and the zero contour drawn.
+    percentiles : (low, high)
+        Percentiles of the valid cells that set the colour limits.
     """
 
     cmap: str
     zero_is_no_melt: bool = False
     classes: tuple[ClassStyle, ...] = ()
+    diverging: bool = False
+    percentiles: tuple[float, float] = PERCENTILES
 
 
 #: The classes of ``melting_regime`` (colours: white, then Okabe & Ito 2008 blue, vermillion).
@@ -110,9 +130,9 @@ REGIME_CLASSES = (
 #: Map style per style key (:attr:`lidmelt.variables.Variable.style`).
 STYLES: dict[str, MapStyle] = {
     "melt": MapStyle("viridis", zero_is_no_melt=True),  # melt amounts: 0 is no melting
-    "depth": MapStyle("cividis_r"),  # shallow light, deep dark
+    "depth": MapStyle("cividis_r", percentiles=FULL_RANGE),  # shallow light, deep dark
     "fraction": MapStyle("plasma"),
-    "excess": MapStyle("inferno"),
+    "excess": MapStyle("RdBu_r", diverging=True),  # signed: 0 is the screening line
     "age": MapStyle("viridis"),
     "anomaly": MapStyle("inferno"),
     "water": MapStyle("cividis"),
@@ -146,6 +166,8 @@ class VariableStyle:
     classes : tuple of ClassStyle
         Non-empty for a categorical variable: drawn class by class, with a legend entry each
         and no colour bar.
+    diverging, percentiles
+        As in :class:`MapStyle`.
     """
 
     cmap: str
@@ -153,6 +175,8 @@ class VariableStyle:
     nan_is_no_melt: bool = False
     title: str = ""
     classes: tuple[ClassStyle, ...] = ()
+    diverging: bool = False
+    percentiles: tuple[float, float] = PERCENTILES
 
     @property
     def categorical(self) -> bool:
@@ -172,12 +196,26 @@ def style_for(variable: str) -> VariableStyle:
         nan_is_no_melt=var.undefined_without_melt,
         title=var.title,
         classes=key.classes,
+        diverging=key.diverging,
+        percentiles=key.percentiles,
     )
 
 
 def unit_label(units: str) -> str:
     """Readable text of a unit string for labels (``"1"`` -> ``"dimensionless"``)."""
     return _UNIT_LABELS.get(units, units)
+
+
+def colorbar_label(long_name: str, units: str) -> str:
+    """Colour-bar label: the long name without a trailing parenthesis, then the unit.
+
+    ``"Melt thickness (column-integrated melt fraction)", "km"`` -> ``"Melt thickness (km)"``;
+    the full long name stays in the title, so the label never doubles its parenthesis.
+    """
+    base = long_name.strip()
+    if base.endswith(")") and " (" in base:
+        base = base[: base.rindex(" (")].rstrip()
+    return f"{base} ({unit_label(units)})"
 
 
 def title_of(variable: str, attrs: dict[str, Any]) -> str:
@@ -188,7 +226,13 @@ def title_of(variable: str, attrs: dict[str, Any]) -> str:
     return name[:1].upper() + name[1:]
 
 
-def colour_limits(values: np.ndarray, *, zero_is_no_melt: bool = False) -> tuple[float, float, str]:
+def colour_limits(
+    values: np.ndarray,
+    *,
+    zero_is_no_melt: bool = False,
+    diverging: bool = False,
+    percentiles: tuple[float, float] = PERCENTILES,
+) -> tuple[float, float, str]:
     """Robust colour limits and the matching colour-bar ``extend``.
 
     Parameters
@@ -198,6 +242,11 @@ def colour_limits(values: np.ndarray, *, zero_is_no_melt: bool = False) -> tuple
     zero_is_no_melt : bool
         For melt amounts: the scale starts at 0 and its top is the 99.5th percentile of the
         positive values only.
+    diverging : bool
+        For signed quantities: limits ``-m, +m`` with ``m`` the larger magnitude of the two
+        percentiles, so that 0 is the centre colour.
+    percentiles : (low, high)
+        Percentiles of the valid cells (default :data:`PERCENTILES`).
 
     Returns
     -------
@@ -218,7 +267,10 @@ def colour_limits(values: np.ndarray, *, zero_is_no_melt: bool = False) -> tuple
             vmax = float(positive.max()) if positive.size else 1.0
         below, above = False, bool(positive.size and positive.max() > vmax)
     elif finite.size:
-        vmin, vmax = (float(v) for v in np.percentile(finite, PERCENTILES))
+        vmin, vmax = (float(v) for v in np.percentile(finite, percentiles))
+        if diverging:
+            vmax = max(abs(vmin), abs(vmax)) or 1.0
+            vmin = -vmax
         below, above = bool(finite.min() < vmin), bool(finite.max() > vmax)
     else:
         vmin, vmax, below, above = 0.0, 1.0, False, False

@@ -28,10 +28,26 @@ from lidmelt.products.maps.figure import (
     resolve_options,
 )
 
-__all__ = ["FORMATS", "draw_map", "draw_run_maps", "save_figure"]
+__all__ = [
+    "FORMATS",
+    "REPEATS",
+    "default_map_variables",
+    "draw_map",
+    "draw_run_maps",
+    "save_figure",
+]
 
 #: Figure formats that :func:`draw_map` writes.
 FORMATS = ("png", "pdf", "svg")
+
+#: Outputs whose map repeats another's (same pattern, another unit): drawn only when asked for.
+#: The onset pressure is the onset depth's lithostatic pressure (a 1:1 mapping of the same cells).
+REPEATS = {"onset_pressure_gpa": "onset_depth_km"}
+
+
+def default_map_variables(run: RunDir) -> list[str]:
+    """The outputs mapped by default: every output except those whose map repeats another's."""
+    return [n for n in run.outputs if REPEATS.get(n) not in run.outputs]
 
 
 def _check_suffix(path: Path) -> str:
@@ -91,7 +107,8 @@ def draw_run_maps(
     out_dir : str, Path or None
         Destination folder; default ``RUN_DIR/maps``.
     variables : list of str or None
-        Variables to draw; default every output of the run.
+        Variables to draw; default every output of the run except those in :data:`REPEATS`
+        (the onset pressure map repeats the onset depth map).
     fmt : {"png", "pdf", "svg"}
         Figure format.
     **options
@@ -110,7 +127,7 @@ def draw_run_maps(
     if fmt not in FORMATS:
         msg = f"figure format {fmt!r}: expected one of {', '.join(FORMATS)}."
         raise InputError(msg)
-    names = list(variables) if variables else run.outputs
+    names = list(variables) if variables else default_map_variables(run)
     if not names:
         msg = (
             f"run {str(run.path)!r} lists no output variables; there is nothing to map. "

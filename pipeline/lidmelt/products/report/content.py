@@ -62,9 +62,10 @@ class Table:
 
 @dataclass(frozen=True)
 class Pre:
-    """Preformatted text (the workflow)."""
+    """Preformatted text (the workflow, raw JSON); ``folded``: shown folded under that title."""
 
     text: str
+    folded: str = ""
 
 
 Block = str | Table | Pre
@@ -159,6 +160,8 @@ def variable_units(name: str, recorded: Any = "") -> str:
 
 def variable_label(name: str) -> str:
     """``"<name>: <long name>"`` for a registered variable, else the name."""
+    if name == "overview":
+        return "Overview: inputs and predicted melting on one page"
     var = VARIABLES.get(name)
     return f"{name}: {var.long_name}" if var is not None else name
 
@@ -218,15 +221,20 @@ def job_line(summary: dict[str, Any]) -> str:
     )
 
 
-def _parameter_table(block: dict[str, Any], *, fallback: str) -> Table:
+def _parameter_table(block: dict[str, Any], *, fallback: str) -> tuple[Table, Table | None]:
+    """The parameters with a source number each, and the numbered sources (each once)."""
     params = block.get("parameters") or {}
     sources = block.get("sources") if isinstance(block.get("sources"), dict) else {}
+    numbers: dict[str, int] = {}
     rows = []
     for name, value in params.items():
         source = sources.get(name)
-        source_text = str(source) if source else (fallback or "not recorded")
-        rows.append((str(name), format_value(value), source_text))
-    return Table(("Parameter", "Value", "Source"), tuple(rows))
+        text = str(source) if source else (fallback or "not recorded")
+        number = numbers.setdefault(text, len(numbers) + 1)
+        rows.append((str(name), format_value(value), f"[{number}]"))
+    listed = tuple((f"[{n}]", text) for text, n in numbers.items())
+    table = Table(("Parameter", "Value", "Source"), tuple(rows))
+    return table, (Table(("Source", "Reference"), listed) if listed else None)
 
 
 def run_warnings(summary: dict[str, Any]) -> list[str]:
@@ -302,17 +310,17 @@ def _summary_section(summary: dict[str, Any]) -> Section:
         ("Quantity", "Value"),
         (
             ("Melting cells", format_number(stats.get("melting_cells"))),
-            ("Melting area", format_number(stats.get("melting_area_km2"), unit="km²")),
-            ("Melt volume", format_number(stats.get("melt_volume_km3"), unit="km³")),
+            ("Melting area", format_sig(stats.get("melting_area_km2"), unit="km²")),
+            ("Melt volume", format_sig(stats.get("melt_volume_km3"), unit="km³")),
         ),
     )
     var_rows = tuple(
         (
             str(name),
             variable_units(name, _get(summary, "outputs", name, "units")),
-            format_number(_get(s, "min")),
-            format_number(_get(s, "max")),
-            format_number(_get(s, "mean")),
+            format_sig(_get(s, "min")),
+            format_sig(_get(s, "max")),
+            format_sig(_get(s, "mean")),
         )
         for name, s in (stats.get("variables") or {}).items()
     )
@@ -355,12 +363,15 @@ def _model_section(summary: dict[str, Any]) -> Section:
     model = summary.get("model") or {}
     reference = str(model.get("reference") or "")
     tp = summary.get("ambient_potential_temperature_c")
-    table = _parameter_table(model, fallback=f"model reference ({reference})" if reference else "")
+    table, sources = _parameter_table(
+        model, fallback=f"model reference ({reference})" if reference else ""
+    )
     blocks: tuple[Block, ...] = (
         f"Model: {model.get('name') or 'not recorded'}.",
         f"Reference: {reference or 'not recorded'}.",
         f"Ambient mantle potential temperature: {format_value(tp)} °C.",
         table if table.rows else "The summary lists no model parameters.",
+        *((sources,) if sources is not None else ()),
     )
     return Section("model", "Melting model", blocks)
 
@@ -375,9 +386,11 @@ def _lid_section(summary: dict[str, Any]) -> Section:
         ]
         if cooling.get("reference"):
             blocks.append(f"Reference: {cooling['reference']}.")
-        table = _parameter_table(cooling, fallback=str(cooling.get("reference") or ""))
+        table, sources = _parameter_table(cooling, fallback=str(cooling.get("reference") or ""))
         if table.rows:
             blocks.append(table)
+        if sources is not None:
+            blocks.append(sources)
     else:
         blocks = ["No cooling model: the lid came from a lid-thickness grid."]
     top = summary.get("min_top_of_melting_km")
@@ -391,7 +404,7 @@ def _grid_section(summary: dict[str, Any]) -> Section:
     return Section("grid", "Grid", (Table(("Item", "Value"), tuple(grid_rows)),))
 
 
-_INPUT_KEYS_SHOWN = {"file", "source", "sha256", "units", "long_name"}
+_INPUT_KEYS_SHOWN = {"file", "source", "sha256", "units", "long_name", "plumes"}
 
 
 def _input_row(name: str, entry: Any) -> tuple[str, ...]:
@@ -407,17 +420,50 @@ def _input_row(name: str, entry: Any) -> tuple[str, ...]:
     )
 
 
+def _plume_table(summary: dict[str, Any]) -> Table | None:
+    """The workflow's plumes as a table (name, centre, radius, peak excess, shape)."""
+    entry = (summary.get("inputs") or {}).get("thermal_anomaly_k")
+    plumes = entry.get("plumes") if isinstance(entry, dict) else None
+    if not plumes:
+        return None
+    rows = tuple(
+        (
+            str(p.get("name", "")),
+            format_sig(p.get("longitude")),
+            format_sig(p.get("latitude")),
+            format_sig(p.get("radius_km"), unit="km"),
+            format_sig(p.get("peak_excess_k"), unit="K"),
+            str(p.get("shape", "")),
+        )
+        for p in plumes
+        if isinstance(p, dict)
+    )
+    header = ("Plume", "Longitude (°)", "Latitude (°)", "Radius", "Peak excess", "Shape")
+    return Table(header, rows)
+
+
 def _inputs_section(summary: dict[str, Any]) -> Section:
-    rows = tuple(_input_row(name, entry) for name, entry in (summary.get("inputs") or {}).items())
+    inputs = summary.get("inputs") or {}
+    rows = tuple(_input_row(name, entry) for name, entry in inputs.items())
     if not rows:
         return Section("inputs", "Input provenance", ("The summary lists no inputs.",))
     header = ("Input", "Unit", "Source", "SHA-256", "Aligned grid", "Details")
-    return Section("inputs", "Input provenance", (Table(header, rows, mono=(2, 3, 4)),))
+    blocks: list[Block] = [Table(header, rows, mono=(2, 3, 4))]
+    plumes = _plume_table(summary)
+    if plumes is not None:
+        blocks += ["Plumes added to the thermal anomaly (from the workflow):", plumes]
+    raw = json.dumps(inputs, indent=2, ensure_ascii=False, sort_keys=True)
+    blocks.append(Pre(raw, folded="The inputs as recorded in summary.json (JSON)"))
+    return Section("inputs", "Input provenance", tuple(blocks))
 
 
 def _workflow_section(summary: dict[str, Any]) -> Section:
     workflow = summary.get("workflow")
-    block = Pre(str(workflow)) if workflow else "The summary holds no workflow text."
+    block = (
+        Pre(str(workflow), folded="The workflow file as run (TOML)")
+        if workflow
+        else "The summary holds no workflow text."
+    )
     return Section("workflow", "Workflow", (block,))
 
 

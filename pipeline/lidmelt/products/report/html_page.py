@@ -42,7 +42,12 @@ p.job { font-size: 1.05rem; }
 .warnings { border: 2px solid #b30000; background: #fff0f0; padding: 0.6rem 1rem;
   margin: 1rem 0; }
 .warnings ul { margin: 0.3rem 0 0 0; }
-table { border-collapse: collapse; margin: 0.6rem 0; font-size: 0.92rem; }
+table { border-collapse: collapse; margin: 0.6rem 0; font-size: 0.92rem; max-width: 100%;
+  display: block; overflow-x: auto; }
+nav.toc { background: #f7f7f7; border: 1px solid #ddd; padding: 0.4rem 1rem; margin: 1rem 0; }
+nav.toc ol { margin: 0.2rem 0; }
+details { margin: 0.6rem 0; }
+summary { cursor: pointer; color: #333; }
 th, td { border: 1px solid #d0d0d0; padding: 0.25rem 0.5rem; text-align: left;
   vertical-align: top; }
 th { background: #f2f2f2; }
@@ -72,7 +77,10 @@ def _html_block(block: Block) -> str:
             body.append(f"<tr>{cells}</tr>")
         return f"<table><thead><tr>{head}</tr></thead><tbody>{''.join(body)}</tbody></table>"
     if isinstance(block, Pre):
-        return f"<pre>{_esc(block.text)}</pre>"
+        pre = f"<pre>{_esc(block.text)}</pre>"
+        if block.folded:
+            return f"<details><summary>{_esc(block.folded)}</summary>{pre}</details>"
+        return pre
     return f"<p>{_esc(block)}</p>"
 
 
@@ -82,6 +90,12 @@ def _html_section(section: Section) -> list[str]:
         *(_html_block(b) for b in section.blocks),
         "</section>",
     ]
+
+
+def _html_toc(sections: Sequence[Section]) -> list[str]:
+    """The table of contents: one link per section, in page order."""
+    items = "".join(f'<li><a href="#{s.key}">{_esc(s.heading)}</a></li>' for s in sections)
+    return [f'<nav class="toc" id="contents"><strong>Contents</strong><ol>{items}</ol></nav>']
 
 
 def _html_maps(images: Sequence[MapImage]) -> list[str]:
@@ -110,7 +124,7 @@ def _html_warnings(warnings: Sequence[str]) -> list[str]:
     ]
 
 
-def render_html(run: RunDir, images: Sequence[MapImage]) -> str:
+def render_html(run: RunDir, images: Sequence[MapImage], extra: Sequence[Section] = ()) -> str:
     """The report page as one HTML string (no external resources).
 
     The job line, the run's warnings and the caution come first, then the summary and flag
@@ -119,7 +133,7 @@ def render_html(run: RunDir, images: Sequence[MapImage]) -> str:
     summary = run.summary
     sections = build_sections(run)
     front = [s for s in sections if s.key in FRONT_SECTIONS]
-    back = [s for s in sections if s.key not in FRONT_SECTIONS]
+    back = [*extra, *(s for s in sections if s.key not in FRONT_SECTIONS)]
     title = f"lidmelt run report: {_esc(run.path.name)}"
     parts = [
         "<!DOCTYPE html>",
@@ -138,6 +152,8 @@ def render_html(run: RunDir, images: Sequence[MapImage]) -> str:
         *_html_warnings(run_warnings(summary)),
         f'<aside class="caution"><strong>Caution.</strong> {_esc(CAUTION)}</aside>',
     ]
+    maps_entry = Section("maps", "Maps", ())
+    parts.extend(_html_toc([*front, maps_entry, *back]))
     for section in front:
         parts.extend(_html_section(section))
     parts.extend(_html_maps(images))

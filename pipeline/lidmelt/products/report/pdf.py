@@ -43,6 +43,8 @@ Line = tuple[str, str]  # (kind, text): "title", "heading", "warning", "text" or
 
 
 def _text_lines(block: Block, width_chars: int) -> list[str]:
+    if isinstance(block, Pre) and block.folded:
+        return [f"{block.folded}: folded in the HTML report (not repeated here)."]
     if isinstance(block, Pre):
         lines = []
         for line in block.text.splitlines() or [""]:
@@ -155,13 +157,15 @@ def _map_page(pdf: Any, image: MapImage) -> None:
     pdf.savefig(fig)
 
 
-def write_pdf(run: RunDir, images: Sequence[MapImage], path: Path) -> Path:
+def write_pdf(
+    run: RunDir, images: Sequence[MapImage], path: Path, extra: Sequence[Section] = ()
+) -> Path:
     """Write the report PDF to ``path`` atomically; SVG maps are left out (no converter)."""
     from matplotlib.backends.backend_pdf import PdfPages
 
     sections = build_sections(run)
     front = [s for s in sections if s.key in FRONT_SECTIONS]
-    back = [s for s in sections if s.key not in FRONT_SECTIONS]
+    back = [*extra, *(s for s in sections if s.key not in FRONT_SECTIONS)]
     first_pages = _text_pages(_head_lines(run) + _section_lines(front), _PER_PAGE)
     last_pages = _text_pages(_section_lines(back), _PER_PAGE)
     metadata = {

@@ -9,12 +9,21 @@ from pathlib import Path
 from lidmelt.errors import InputError
 from lidmelt.files import write_text_atomic
 from lidmelt.grids.rundir import SUMMARY_NAME, RunDir, open_run
-from lidmelt.products.maps import make_map_figure, require_file, resolve_coastlines
+from lidmelt.products.maps import (
+    default_map_variables,
+    make_map_figure,
+    require_file,
+    resolve_coastlines,
+)
 from lidmelt.products.report.content import MapImage
 from lidmelt.products.report.html_page import render_html
 from lidmelt.products.report.pdf import write_pdf
+from lidmelt.products.report.sites import find_site_files, sites_map, sites_section
 
-__all__ = ["REPORT_MAP_DPI", "REPORT_MAP_WIDTH_IN", "collect_maps", "write_report"]
+__all__ = ["INPUT_MAPS", "REPORT_MAP_DPI", "REPORT_MAP_WIDTH_IN", "collect_maps", "write_report"]
+
+#: Inputs mapped in the report, when the run has them.
+INPUT_MAPS = ("plate_age_ma", "lid_thickness_km", "thermal_anomaly_k")
 
 #: Width (in) and resolution (dpi) of maps rendered for the report.
 REPORT_MAP_WIDTH_IN = 8.0
@@ -60,8 +69,11 @@ def collect_maps(
 ) -> list[MapImage]:
     """The images to embed: given files, or fresh renders / up-to-date RUN_DIR/maps PNGs.
 
-    A ``RUN_DIR/maps/<variable>.png`` newer than ``summary.json`` is reused; other outputs
-    are drawn afresh, with one coastline note per report (not per map).
+    In order: the overview page (``RUN_DIR/maps/overview.png``, when it is newer than
+    ``summary.json``), the outputs (those :func:`~lidmelt.products.maps.default_map_variables`
+    maps), then the input maps (:data:`INPUT_MAPS` the run has). A
+    ``RUN_DIR/maps/<variable>.png`` newer than ``summary.json`` is reused; other maps are drawn
+    afresh, with one coastline note per report (not per map).
     """
     if maps is not None:
         return [_given_map(item) for item in maps]
@@ -69,7 +81,11 @@ def collect_maps(
     coast: Path | None = None
     resolved = False
     images = []
-    for name in run.outputs:
+    overview = run.path / "maps" / "overview.png"
+    if overview.is_file() and overview.stat().st_mtime >= summary_mtime:
+        images.append(MapImage("overview", overview.read_bytes(), "image/png", str(overview)))
+    names = default_map_variables(run) + [v for v in INPUT_MAPS if v in run.inputs]
+    for name in names:
         existing = run.path / "maps" / f"{name}.png"
         if existing.is_file() and existing.stat().st_mtime >= summary_mtime:
             images.append(MapImage(name, existing.read_bytes(), "image/png", str(existing)))
@@ -88,6 +104,8 @@ def write_report(
     maps: Sequence[str | Path] | None = None,
     pdf: bool = False,
     coastlines: str | Path | bool | None = None,
+    stations: str | Path | None = None,
+    candidates: str | Path | None = None,
 ) -> Path:
     """Write the run report as one self-contained HTML file (and optionally a PDF).
 
@@ -106,6 +124,10 @@ def write_report(
         caution and summary, one page per PNG map, then the tables and workflow.
     coastlines : path, bool or None
         For maps drawn afresh; as in :func:`lidmelt.products.maps.make_map_figure`.
+    stations, candidates : path or None
+        A station file and a screening result (``lidmelt screen``); default
+        ``RUN_DIR/stations.csv`` and ``RUN_DIR/candidates.gpkg`` when present. They add a
+        map with both overlaid and their tables (:mod:`.sites`).
 
     Returns
     -------
@@ -128,7 +150,18 @@ def write_report(
         )
         raise InputError(msg)
     images = collect_maps(run, maps, coastlines)
-    write_text_atomic(out, render_html(run, images))
+    station_file, candidate_file = find_site_files(run, stations, candidates)
+    for given, what in ((station_file, "stations"), (candidate_file, "candidates")):
+        if given is not None:
+            require_file(given, what=what, fix=f"Give an existing file with --{what}.")
+    extra = sites_section(run, station_file, candidate_file)
+    site_map = sites_map(
+        run, station_file, candidate_file, dpi=REPORT_MAP_DPI, width_in=REPORT_MAP_WIDTH_IN
+    )
+    if site_map is not None:
+        images.append(site_map)
+    extra_sections = [extra] if extra is not None else []
+    write_text_atomic(out, render_html(run, images, extra_sections))
     if pdf:
-        write_pdf(run, images, out.with_suffix(".pdf"))
+        write_pdf(run, images, out.with_suffix(".pdf"), extra_sections)
     return out

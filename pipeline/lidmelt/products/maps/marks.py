@@ -1,0 +1,88 @@
+"""Named marks on a map: the workflow's plume centres and the candidates' rank labels.
+
+Plume centres come from the run's ``summary.json`` (``inputs.thermal_anomaly_k.plumes``: name,
+longitude, latitude, as the workflow gave them); each is drawn as a ringed dot with its name.
+Candidate outlines (:func:`.overlays.draw_candidates`) get their rank (``#1`` = largest melt
+volume) at a point inside each polygon. Every label stays inside the map frame
+(:func:`.overlays.place_label`).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Any
+
+import cartopy.crs as ccrs
+from matplotlib.lines import Line2D
+
+from lidmelt.products.maps.overlays import place_label
+from lidmelt.products.maps.style import CANDIDATE_COLOR
+
+__all__ = [
+    "PLUME_MARKER",
+    "Plume",
+    "draw_candidate_labels",
+    "draw_plumes",
+    "plume_legend_handle",
+    "plumes_of",
+]
+
+#: Marker of a plume centre: a white dot ringed in black.
+PLUME_MARKER = {"marker": "o", "mfc": "white", "mec": "black", "mew": 1.2}
+
+
+@dataclass(frozen=True)
+class Plume:
+    """A plume centre of the workflow (degrees) and its name."""
+
+    name: str
+    lon: float
+    lat: float
+
+
+def plumes_of(summary: dict[str, Any]) -> list[Plume]:
+    """The plume centres recorded in a run's summary (empty when the run has none)."""
+    entry = (summary.get("inputs") or {}).get("thermal_anomaly_k") or {}
+    plumes = entry.get("plumes") if isinstance(entry, dict) else None
+    out = []
+    for k, p in enumerate(plumes or [], start=1):
+        try:
+            lon, lat = float(p["longitude"]), float(p["latitude"])
+        except (KeyError, TypeError, ValueError):
+            continue
+        out.append(Plume(str(p.get("name") or f"plume {k}"), lon, lat))
+    return out
+
+
+def draw_plumes(ax: Any, plumes: list[Plume], fs: float, *, names: bool = True) -> None:
+    """Ringed dots at the plume centres, with their names inside the frame."""
+    if not plumes:
+        return
+    ax.plot(
+        [p.lon for p in plumes],
+        [p.lat for p in plumes],
+        ls="none",
+        ms=0.7 * fs,
+        transform=ccrs.PlateCarree(),
+        zorder=6,
+        **PLUME_MARKER,
+    )
+    if names:
+        for p in plumes:
+            place_label(ax, p.lon, p.lat, p.name, fontsize=0.85 * fs, below=True, style="italic")
+
+
+def plume_legend_handle(fs: float) -> Any:
+    """The legend entry of the plume centres."""
+    return Line2D([], [], ls="none", ms=0.7 * fs, label="plume centre (workflow)", **PLUME_MARKER)
+
+
+def draw_candidate_labels(
+    ax: Any, candidates: list[Any], labels: tuple[str, ...], fs: float
+) -> None:
+    """The rank label of each candidate polygon, at a point inside it (in the frame)."""
+    for geom, text in zip(candidates, labels, strict=False):
+        point = geom.representative_point()
+        place_label(
+            ax, point.x, point.y, text, fontsize=0.85 * fs, color=CANDIDATE_COLOR, weight="bold"
+        )

@@ -1,0 +1,124 @@
+"""The report's section on stations and candidate regions, where they were made.
+
+``lidmelt report RUN --stations FILE --candidates FILE`` (or ``RUN_DIR/stations.csv`` and
+``RUN_DIR/candidates.gpkg`` when present) adds a map of the melt thickness with both overlaid,
+a table of the run's values at each station (:func:`lidmelt.products.sites.sample_stations`)
+and a table of the candidate regions (``lidmelt screen``), numbers to 3 significant figures.
+"""
+
+from __future__ import annotations
+
+import io
+import warnings
+from pathlib import Path
+from typing import Any
+
+from lidmelt.grids.rundir import RunDir
+from lidmelt.products.maps import make_map_figure
+from lidmelt.products.report.content import Block, MapImage, Section, Table, format_sig
+
+__all__ = ["CANDIDATE_SHOWN", "STATION_SHOWN", "find_site_files", "sites_map", "sites_section"]
+
+#: Station columns shown (those the run has), after the station's name.
+STATION_SHOWN = (
+    "melt_thickness_km",
+    "onset_depth_km",
+    "lid_depth_km",
+    "excess_to_melt_k",
+    "flag_meaning",
+    "status",
+)
+#: Candidate columns shown (those the file has).
+CANDIDATE_SHOWN = (
+    "rank",
+    "plume",
+    "plume_match",
+    "area_km2",
+    "melt_volume_km3",
+    "anomaly_melt_volume_km3",
+    "flagged_fraction",
+)
+
+
+def find_site_files(
+    run: RunDir, stations: str | Path | None, candidates: str | Path | None
+) -> tuple[Path | None, Path | None]:
+    """The given files, else ``RUN_DIR/stations.csv`` and ``RUN_DIR/candidates.gpkg``."""
+    found = []
+    for given, default in ((stations, "stations.csv"), (candidates, "candidates.gpkg")):
+        path = Path(given) if given is not None else run.path / default
+        found.append(path if given is not None or path.is_file() else None)
+    return found[0], found[1]
+
+
+def _cell(value: Any) -> str:
+    if value is None or (isinstance(value, float) and value != value):
+        return "-"
+    if isinstance(value, float):
+        return format_sig(value)
+    return str(value)
+
+
+def _station_table(run: RunDir, path: Path) -> Table:
+    from lidmelt.products.sites import sample_stations
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")  # stations outside the grid show as such in the table
+        gdf = sample_stations(run, path)
+    name_col = next((c for c in ("name", "id", "station") if c in gdf.columns), None)
+    cols = [c for c in STATION_SHOWN if c in gdf.columns]
+    header = ("Station", *cols)
+    rows = tuple(
+        (str(row[name_col]) if name_col else str(k + 1), *(_cell(row[c]) for c in cols))
+        for k, (_, row) in enumerate(gdf.iterrows())
+    )
+    return Table(header, rows)
+
+
+def _candidate_table(path: Path) -> Table:
+    import geopandas as gpd
+
+    gdf = gpd.read_file(path)
+    cols = [c for c in CANDIDATE_SHOWN if c in gdf.columns]
+    rows = tuple(tuple(_cell(row[c]) for c in cols) for _, row in gdf.iterrows())
+    return Table(tuple(cols), rows)
+
+
+def sites_section(run: RunDir, stations: Path | None, candidates: Path | None) -> Section | None:
+    """The stations and candidates section, or None when neither was given nor found."""
+    if stations is None and candidates is None:
+        return None
+    blocks: list[Block] = []
+    if stations is not None:
+        blocks += [
+            f"Values of the run at the stations of {stations.name}:",
+            _station_table(run, stations),
+        ]
+    if candidates is not None:
+        blocks += [
+            f"Candidate regions of {candidates.name} (rank 1 = largest melt volume):",
+            _candidate_table(candidates),
+        ]
+    return Section("sites", "Stations and candidate regions", tuple(blocks))
+
+
+def sites_map(
+    run: RunDir, stations: Path | None, candidates: Path | None, *, dpi: float, width_in: float
+) -> MapImage | None:
+    """Melt thickness with the stations and candidates overlaid, as PNG bytes."""
+    if (stations is None and candidates is None) or "melt_thickness_km" not in run.outputs:
+        return None
+    fig, _ = make_map_figure(
+        run,
+        "melt_thickness_km",
+        stations=stations,
+        candidates=candidates,
+        coastlines=False,
+        dpi=dpi,
+        width_in=width_in,
+    )
+    buf = io.BytesIO()
+    fig.savefig(buf, format="png", dpi=dpi)
+    return MapImage(
+        "melt_thickness_km", buf.getvalue(), "image/png", "with stations and candidates"
+    )

@@ -1,0 +1,231 @@
+"""Issue 14: every figure kind draws with the right labels and limits (maps, overview, profile).
+
+Runs are small invented grids (the ``make_run_dir`` fixture). Check values are named beside
+them: numpy's min/max/percentile, arithmetic, the rules documented in lidmelt.products.maps.
+"""
+
+from __future__ import annotations
+
+import matplotlib.image as mpimg
+import numpy as np
+import pytest
+from affine import Affine
+
+pytest.importorskip("cartopy.crs")
+
+import cartopy.crs as ccrs
+
+from lidmelt.products import maps
+from lidmelt.products.profile_figure import make_profile_figure
+from lidmelt.products.profiles import sample_track
+
+# Invented low-latitude box, 1 degree cells: lon 10..40, lat -10..10.
+BOX = Affine(1.0, 0.0, 10.0, 0.0, -1.0, 10.0)
+PLUMES = [
+    {"name": "Invented A", "longitude": 15.0, "latitude": 0.0, "radius_km": 200.0},
+    {"name": "Invented B", "longitude": 39.5, "latitude": 9.5, "radius_km": 100.0},
+]
+SUMMARY = {
+    "inputs": {
+        "plate_age_ma": {"units": "Ma", "file": "input_plate_age_ma.tif"},
+        "thermal_anomaly_k": {
+            "units": "K",
+            "file": "input_thermal_anomaly_k.tif",
+            "plumes": PLUMES,
+        },
+        "water_wt_pct": {"units": "wt%", "constant": 0.01, "source": None},
+    },
+    "cooling": {"name": "half-space", "lid_isotherm_c": 1100.0},
+    "min_top_of_melting_km": 7.0,
+}
+
+
+def fields():
+    y, x = np.mgrid[0:20, 0:30]
+    melt = np.where(x >= 15, 0.2 * (x - 14), 0.0)
+    onset = np.where(melt > 0, 80.0 + 5.0 * (x - 15), 70.0)  # defined where nothing melts too
+    onset[0, 29] = 250.0  # one deep plume core
+    excess = 10.0 * (x - 10.0) - 40.0  # -140 .. 150 K, zero at x = 14
+    lid = 7.0 + 2.0 * x
+    return {
+        "melt_thickness_km": melt,
+        "onset_depth_km": onset,
+        "excess_to_melt_k": excess,
+        "lid_depth_km": lid,
+        "plate_age_ma": 1.0 + 3.0 * x + 0.0 * y,
+        "thermal_anomaly_k": np.exp(-((x - 5) ** 2 + (y - 10) ** 2) / 20.0) * 200.0,
+    }
+
+
+@pytest.fixture
+def run(make_run_dir):
+    return make_run_dir(fields(), transform=BOX, name="proposal", summary=SUMMARY)
+
+
+def test_excess_to_melt_is_diverging_about_zero_with_its_zero_contour(run):
+    _fig, info = maps.make_map_figure(run, "excess_to_melt_k", coastlines=False, dpi=50)
+    values = fields()["excess_to_melt_k"]
+    # Check value: symmetric limits at the larger magnitude of numpy's 2nd/98th percentiles.
+    lo, hi = np.percentile(values, [2, 98])
+    assert (info.vmin, info.vmax) == pytest.approx((-max(-lo, hi), max(-lo, hi)))
+    assert info.cmap == "RdBu_r"
+    assert info.zero_contour
+    assert "0 (zero contour)" in info.legend_labels
+    assert "symmetric about 0" in info.caption
+
+
+def test_onset_depth_spans_its_whole_range_and_is_not_drawn_where_nothing_melts(run):
+    _fig, info = maps.make_map_figure(run, "onset_depth_km", coastlines=False, dpi=50)
+    f = fields()
+    melting = f["onset_depth_km"][f["melt_thickness_km"] > 0]
+    # Check values: numpy min and max of the melting cells (80 km and the 250 km core); the
+    # 70 km of the cells that do not melt is not part of the scale.
+    assert (info.vmin, info.vmax) == pytest.approx((melting.min(), melting.max()))
+    assert info.zero_color == maps.ZERO_COLOR
+    assert "not defined there and is not drawn" in info.caption
+
+
+def test_colorbar_label_does_not_double_its_parenthesis(run):
+    _fig, info = maps.make_map_figure(run, "melt_thickness_km", coastlines=False, dpi=50)
+    assert info.title == "Melt thickness (column-integrated melt fraction)"
+    assert info.colorbar_label == "Melt thickness (km)"
+    assert info.colorbar_label.count("(") == 1
+
+
+def test_plumes_ranks_and_labels_stay_inside_the_frame(run, tmp_path):
+    import geopandas as gpd
+    from shapely.geometry import box
+
+    cands = tmp_path / "cands.gpkg"
+    gpd.GeoDataFrame(
+        {"rank": [2, 1]}, geometry=[box(30, -5, 39.9, 5), box(16, -8, 24, -2)], crs="EPSG:4326"
+    ).to_file(cands)
+    stations = tmp_path / "st.csv"
+    stations.write_text("name,lon,lat\nA station with a long name,39.8,9.8\n", encoding="utf-8")
+    fig, info = maps.make_map_figure(
+        run, "melt_thickness_km", candidates=cands, stations=stations, coastlines=False, dpi=60
+    )
+    assert info.plumes == ("Invented A", "Invented B")
+    assert "plume centre (workflow)" in info.legend_labels
+    fig.canvas.draw()
+    renderer = fig.canvas.get_renderer()
+    frame = info.ax.get_window_extent(renderer)
+    texts = {t.get_text(): t for t in info.ax.texts}
+    for name in ("Invented A", "Invented B", "#1", "#2", "A station with a long name"):
+        box_ = texts[name].get_window_extent(renderer)
+        assert frame.x0 - 1 <= box_.x0, name
+        assert box_.x1 <= frame.x1 + 1, name
+        assert frame.y0 - 1 <= box_.y0, name
+        assert box_.y1 <= frame.y1 + 1, name
+
+
+def test_latitude_labels_on_both_sides(run):
+    fig, info = maps.make_map_figure(run, "lid_depth_km", coastlines=False, dpi=50)
+    fig.canvas.draw()
+    gl = info.gridliner
+    left = [a.get_text() for a in gl.left_label_artists if a.get_visible()]
+    right = [a.get_text() for a in gl.right_label_artists if a.get_visible()]
+    assert left
+    assert right
+    assert set(left) == set(right)
+    # Check value: a 20 degree span on a ~5 in high map gets 5 degree lines (nice_step rule),
+    # so at least three latitudes (5 S, 0, 5 N) are labelled.
+    assert len(left) >= 3
+
+
+def test_outside_of_the_grid_differs_from_nodata_and_is_said(run):
+    _fig, info = maps.make_map_figure(
+        run, "melt_thickness_km", region=(0.0, 50.0, -20.0, 20.0), coastlines=False, dpi=40
+    )
+    assert info.outside_grid
+    assert "outside the grid" in info.legend_labels
+    assert "outside the grid" in info.caption
+    assert maps.OUTSIDE_COLOR != maps.NODATA_COLOR
+    _fig, inside = maps.make_map_figure(run, "melt_thickness_km", coastlines=False, dpi=40)
+    assert not inside.outside_grid
+
+
+def test_caption_states_lid_water_and_ambient_as_used(make_run_dir):
+    f = fields()
+    lid = np.full((20, 30), np.nan)
+    lid[:, :15] = 50.0  # the lid-thickness grid covers half the cells
+    f["lid_thickness_km"] = lid
+    inputs = {
+        **SUMMARY["inputs"],
+        "lid_thickness_km": {"units": "km", "file": "input_lid_thickness_km.tif"},
+    }
+    run = make_run_dir(f, transform=BOX, name="lidgrid", summary={**SUMMARY, "inputs": inputs})
+    _fig, info = maps.make_map_figure(run, "melt_thickness_km", coastlines=False, dpi=40)
+    # Check value: 15 of 30 columns -> 50 % of the cells from the grid, the rest from cooling.
+    assert "lid-thickness grid where it has data (50 % of the cells)" in info.caption
+    assert "half-space cooling" in info.caption
+    assert "source water 0.01 wt % (constant)" in info.caption
+    assert "7 km deep (crust base)" in info.caption
+
+
+def test_regional_basin_across_the_equator_is_not_in_a_world_projection():
+    # An invented 60 x 40 degree basin from 32 S to 8 N (centre 12 S, beyond 30 deg, so neither
+    # Mercator nor conic): rule 5 of lidmelt.products.maps.layout, no longer Robinson.
+    proj, reason = maps.choose_projection((-60.0, 0.0, -32.0, 8.0))
+    assert isinstance(proj, ccrs.LambertAzimuthalEqualArea)
+    assert "regional" in reason
+
+
+def test_overview_has_its_panels_labels_and_vector_copies(run, tmp_path):
+    fig, info = maps.make_overview_figure(run, coastlines=False, dpi=60)
+    assert info.variables == (
+        "plate_age_ma",
+        "thermal_anomaly_k",
+        "melt_thickness_km",
+        "onset_depth_km",
+        "excess_to_melt_k",
+        "lid_depth_km",
+    )
+    assert info.colorbar_labels[2] == "Melt thickness (km)"
+    onset = fields()["onset_depth_km"][fields()["melt_thickness_km"] > 0]
+    assert info.limits[3] == pytest.approx((onset.min(), onset.max()))  # as the single map
+    assert info.limits[4][0] == pytest.approx(-info.limits[4][1])  # diverging about 0
+    texts = " ".join(t.get_text() for t in fig.texts)
+    assert "(a) Plate age" in texts
+    assert "(f) Top of the melting column" in texts
+    assert "source water 0.01 wt %" in info.caption
+    paths = maps.draw_overview(run, out_dir=tmp_path, coastlines=False)
+    assert [p.name for p in paths] == ["overview.png", "overview.pdf", "overview.svg"]
+    png = mpimg.imread(paths[0])
+    # Check value: 7.2 in at the 300 dpi default = 2160 pixels wide.
+    assert png.shape[1] == 2160
+    assert paths[1].read_bytes()[:5] == b"%PDF-"
+    assert b"<svg" in paths[2].read_bytes()[:2000]
+
+
+def test_profile_is_a_cross_section_with_named_waypoints(run, tmp_path):
+    track = tmp_path / "leg_7.csv"
+    track.write_text("name,lon,lat\nStart,12,0\nTurn,25,5\nEnd,38,-5\n", encoding="utf-8")
+    gdf = sample_track(run, track, spacing_km=25.0)
+    stations = maps.load_stations(_station_file(tmp_path))
+    fig = make_profile_figure(
+        gdf,
+        title="Profile along leg 7",
+        waypoint_names=["Start", "Turn", "End"],
+        stations=stations,
+        run=maps.figure.as_run(run),
+    )
+    top, mid, section = fig.axes[0], fig.axes[1], fig.axes[2]
+    assert section.yaxis_inverted()  # depth downward
+    assert section.get_ylabel() == "Depth below the seafloor (km)"
+    assert mid.get_ylabel() == "Melt thickness (km)"
+    assert top.get_ylabel() == "Plate age (Ma)"
+    legend = [t.get_text() for t in section.get_legend().get_texts()]
+    assert "top of the melting column (lid base or crust base)" in legend
+    assert "melting column" in legend
+    labels = [t.get_text() for ax in fig.axes for t in ax.texts]
+    assert {"Start", "Turn", "End"} <= set(labels)
+    assert any(t.startswith("Near station") for t in labels)
+    assert "Profile along leg 7" in [t.get_text() for t in fig.texts]
+    assert any("track" in ax.get_title() for ax in fig.axes)  # the inset map
+
+
+def _station_file(tmp_path):
+    path = tmp_path / "stations.csv"
+    path.write_text("name,lon,lat\nNear station,25.1,5.1\nFar station,12,9\n", encoding="utf-8")
+    return path

@@ -1,0 +1,106 @@
+"""The report as people see it: rendered by a real headless browser (Debian's chromium).
+
+A copy of report.html gets a small script that checks, after layout, that every image has
+decoded (``naturalWidth > 0``) and that no element reaches beyond the page width, and writes
+the findings into the DOM; ``chromium --headless --dump-dom`` returns that DOM. The report
+itself loads no script (tested in test_report.py); only the test's copy carries one. Skipped,
+with its reason, where chromium is not installed (.ci/run installs it).
+"""
+
+from __future__ import annotations
+
+import json
+import re
+import shutil
+import subprocess
+
+import numpy as np
+import pytest
+from affine import Affine
+
+from lidmelt.products import report
+
+CHROMIUM = shutil.which("chromium") or shutil.which("chromium-browser")
+pytestmark = pytest.mark.skipif(
+    CHROMIUM is None, reason="chromium is not installed (apt-get install -y chromium)"
+)
+
+_PROBE = """
+<script>
+window.addEventListener("load", () => {
+  const width = document.documentElement.clientWidth;
+  const images = Array.from(document.images).map(
+    (img) => ({alt: img.alt, ok: img.complete && img.naturalWidth > 0, w: img.naturalWidth}));
+  const wide = [];
+  for (const el of document.body.querySelectorAll("*")) {
+    const r = el.getBoundingClientRect();
+    if (r.width > 0 && r.right > width + 1) {
+      wide.push(el.tagName + (el.id ? "#" + el.id : "") + " right=" + Math.round(r.right));
+    }
+  }
+  const out = {width: width, scrollWidth: document.documentElement.scrollWidth,
+               images: images, wide: wide};
+  const pre = document.createElement("pre");
+  pre.id = "probe-result";
+  pre.textContent = JSON.stringify(out);
+  document.body.appendChild(pre);
+});
+</script>
+"""
+
+
+def _render(html_path, tmp_path, width):
+    probe = tmp_path / f"probe_{width}.html"
+    text = html_path.read_text(encoding="utf-8").replace("</body>", _PROBE + "</body>")
+    probe.write_text(text, encoding="utf-8")
+    profile = tmp_path / f"chromium-profile-{width}"
+    cmd = [
+        CHROMIUM,
+        "--headless",
+        "--no-sandbox",
+        "--disable-gpu",
+        "--disable-background-networking",
+        "--disable-component-update",
+        "--disable-sync",
+        "--no-first-run",
+        f"--user-data-dir={profile}",
+        f"--window-size={width},900",
+        "--virtual-time-budget=5000",
+        "--dump-dom",
+        probe.as_uri(),
+    ]
+    done = subprocess.run(cmd, capture_output=True, text=True, timeout=120, check=False)
+    match = re.search(r'<pre id="probe-result">(.*?)</pre>', done.stdout, re.S)
+    assert match, f"chromium gave no result (exit {done.returncode}): {done.stderr[-2000:]}"
+    return json.loads(match.group(1).replace("&quot;", '"').replace("&amp;", "&"))
+
+
+@pytest.fixture
+def report_html(make_run_dir, tmp_path):
+    melt = np.zeros((20, 30))
+    melt[5:15, 10:20] = 4.0
+    melt[:, :3] = np.nan
+    age = np.tile(np.linspace(10.0, 80.0, 30), (20, 1))
+    run = make_run_dir(
+        {
+            "melt_thickness_km": melt,
+            "onset_depth_km": np.where(melt > 0, 90.0, np.nan),
+            "plate_age_ma": age,
+        },
+        transform=Affine(1.0, 0.0, 10.0, 0.0, -1.0, 10.0),
+        summary={"workflow": "[run]\nname = '" + "a-very-long-unbroken-name" * 12 + "'\n"},
+    )
+    return report.write_report(run, coastlines=False)
+
+
+@pytest.mark.parametrize("width", [1280, 600])
+def test_report_renders_in_a_browser_with_decoded_images_and_no_overflow(
+    report_html, tmp_path, width
+):
+    result = _render(report_html, tmp_path, width)
+    # Check values: the report embeds one map per output and input here (3 PNGs), and
+    # a page that fits has scrollWidth == clientWidth (CSSOM View, scrollWidth definition).
+    assert len(result["images"]) == 3
+    assert all(img["ok"] for img in result["images"]), result["images"]
+    assert result["wide"] == [], result["wide"]
+    assert result["scrollWidth"] <= result["width"]
