@@ -80,9 +80,10 @@ def plume_legend_handle(fs: float) -> Any:
 def draw_candidate_labels(
     ax: Any, candidates: list[Any], labels: tuple[str, ...], fs: float
 ) -> None:
-    """The rank label of each candidate polygon, at a point inside it (in the frame)."""
+    """The rank label of each candidate polygon at the north-west corner of its outline's
+    bounding box, clear of the plume and station marks near its centre (kept in the frame)."""
     for geom, text in zip(candidates, labels, strict=False):
-        point = geom.representative_point()
+        west, _, _, north = geom.bounds
         place_label(
-            ax, point.x, point.y, text, fontsize=0.85 * fs, color=CANDIDATE_COLOR, weight="bold"
+            ax, west, north, text, fontsize=0.85 * fs, color=CANDIDATE_COLOR, weight="bold"
         )
