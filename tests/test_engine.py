@@ -442,3 +442,24 @@ def test_netcdf_flag_variable_follows_cf(demo_run):
         assert int(flag.attrs["_FillValue"]) == 255
         with rasterio.open(demo_run.run_dir / "validity_flag.tif") as src:
             np.testing.assert_array_equal(flag.values, src.read(1))
+
+
+def test_lid_given_below_sea_level_loses_the_water_depth(tmp_path):
+    # A lid base 150 km below sea level lies 150 km minus the water depth below the seafloor;
+    # with no bathymetry grid the water depth is the cooling model's seafloor depth at the
+    # plate age (lidmelt.physics.cooling.seafloor_depth_m, half-space): an identity check.
+    from lidmelt.physics.cooling import get_cooling_model, seafloor_depth_m
+
+    wf = with_lid_grid(tmp_path / "b", np.full((40, 60), 150.0))
+    text = wf.read_text().replace('path = "lid.tif"', 'path = "lid.tif"\nreference = "sea_level"')
+    wf.write_text(text)
+    result = run_basin(load_workflow(wf, output_dir=tmp_path / "out"), progress=False)
+    run = open_run(result.run_dir)
+    age = run.open("plate_age_ma").values
+    lid = run.open("lid_depth_km").values
+    depth_km = seafloor_depth_m(age, model=get_cooling_model("half-space")) / 1000.0
+    ok = np.isfinite(age)
+    np.testing.assert_allclose(lid[ok], np.maximum(150.0 - depth_km[ok], 7.0), rtol=1e-5)
+    prov = result.summary["inputs"]["lid_thickness_km"]
+    assert prov["reference"] == "sea_level"
+    assert "age-depth relation of the half-space model" in prov["water_depth"]

@@ -527,3 +527,37 @@ def test_cli_sample_never_overwrites_its_stations(make_run_dir, tmp_path, capsys
     assert main(["sample", str(run), str(stations), "-o", str(stations)]) == 1
     assert "would overwrite the input" in capsys.readouterr().err
     assert stations.read_text(encoding="utf-8") == "lon,lat\n5.5,4.5\n"
+
+
+def test_categorical_variables_are_sampled_at_the_nearest_cell(make_run_dir):
+    """melting_regime holds classes (lidmelt.variables: categorical): between a cell of class 1
+    and one of class 2 a station gets the class of the cell it lies in, never 1.5 (the bilinear
+    mean of the two, which is no class)."""
+    x, y = centres(REGIONAL, 40, 60)
+    fields = linear_fields(x, y)
+    fields["melting_regime"] = np.where(x < -25.0, 1.0, 2.0)  # class boundary at 25 W
+    run = make_run_dir(fields, transform=REGIONAL)
+    out = sample_stations(run, points([-25.1, -24.9], [0.1, 0.1]))
+    assert list(out["melting_regime"]) == [1.0, 2.0]
+    # the amounts beside it are still interpolated (a linear field is reproduced exactly)
+    np.testing.assert_allclose(
+        out["lid_depth_km"], linear_value("lid_depth_km", np.array([-25.1, -24.9]), 0.1)
+    )
+
+
+def test_station_longitudes_follow_the_grid_convention(make_run_dir, tmp_path):
+    """On a grid given in 0..360 (here 200..240 E), stations given as -145 W come back as 215 E,
+    the same place in the grid's own convention (issue 13: outputs in the grid's convention)."""
+    t = Affine(0.5, 0.0, 200.0, 0.0, -0.5, 10.0)  # 40 x 80 cells, 200..240 E
+    x, y = centres(t, 40, 80)
+    run = make_run_dir(linear_fields(x, y), transform=t)
+    csv = tmp_path / "stations.csv"
+    pd.DataFrame({"name": ["A", "B"], "lon": [-145.0, 210.5], "lat": [1.0, -2.0]}).to_csv(
+        csv, index=False
+    )
+    out = sample_stations(run, csv)
+    np.testing.assert_allclose(out["lon"], [215.0, 210.5])
+    np.testing.assert_allclose(
+        out["lid_depth_km"],
+        linear_value("lid_depth_km", np.array([215.0, 210.5]), np.array([1.0, -2.0])),
+    )

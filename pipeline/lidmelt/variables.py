@@ -57,6 +57,9 @@ class Variable:
         The workflow's name of an input (``[inputs.<workflow_key>]``).
     zero_means_no_melt : bool
         0 marks a valid cell that does not melt (drawn as "no melting", not as data).
+    categorical : bool
+        The values are classes, not amounts: they are sampled at the nearest cell centre, never
+        interpolated.
     undefined_without_melt : bool
         The value may be NaN in a valid cell that does not melt (e.g. the mean melt pressure);
         maps draw such cells as "no melting" rather than as nodata.
@@ -78,6 +81,7 @@ class Variable:
     workflow_key: str = ""
     zero_means_no_melt: bool = False
     undefined_without_melt: bool = False
+    categorical: bool = False
     default: bool = True
     needs: str = ""
 
@@ -150,6 +154,7 @@ _OUTPUT_LIST = (
             "2 melts only because of the thermal anomaly)"
         ),
         style="regime",
+        categorical=True,
     ),
     Variable(
         name="crustal_thickness_km",

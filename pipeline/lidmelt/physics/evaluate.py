@@ -26,6 +26,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from lidmelt.errors import ModelError
 from lidmelt.physics.column import (
     DEFAULT_MIN_TOP_KM,
     DEFAULT_PRESSURE_STEP_GPA,
@@ -221,7 +222,7 @@ def melt_column(
         return _table_columns(tab, tp, lid, w, min_top_km=min_top_km)
     if method != "direct":
         msg = f"unknown method {method!r}; use 'table' (fast) or 'direct' (integrates each column)."
-        raise ValueError(msg)
+        raise ModelError(msg)
     return _direct(model, tp, lid, w, min_top_km=min_top_km, step_gpa=step_gpa)
 
 

@@ -276,7 +276,13 @@ def sample_track(
     lon, lat, distance, index = track_points(wlon, wlat, spacing_km=spacing_km)
     columns, status = smp.sample_points(run, lon, lat, WGS84, method=method)
     frame = pd.DataFrame(
-        {"distance_km": distance, "waypoint_index": index, "lon": lon, "lat": lat, **columns}
+        {
+            "distance_km": distance,
+            "waypoint_index": index,
+            "lon": smp.in_grid_convention(run, lon),
+            "lat": lat,
+            **columns,
+        }
     )
     frame["status"] = pd.array(status, dtype=object)
     gdf = gpd.GeoDataFrame(frame, geometry=gpd.points_from_xy(lon, lat), crs=WGS84)

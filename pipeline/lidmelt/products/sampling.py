@@ -52,7 +52,7 @@ from lidmelt.files import atomic_path
 from lidmelt.grids.grid import Grid, lonlat_from
 from lidmelt.grids.rundir import RunDir, open_run, read_flags
 from lidmelt.grids.vector import describe_rows
-from lidmelt.variables import FLAG_NODATA, FLAG_VARIABLE
+from lidmelt.variables import FLAG_NODATA, FLAG_VARIABLE, VARIABLES
 
 if TYPE_CHECKING:
     import geopandas as gpd
@@ -76,6 +76,7 @@ __all__ = [
     "check_not_input",
     "check_output_path",
     "describe_flags",
+    "in_grid_convention",
     "load_variable",
     "reference_name",
     "replace_columns",
@@ -316,13 +317,15 @@ def sample_run(
     """
     check_method(method)
     stencil = make_stencil(grid, gx, gy, method=method)
+    classes = make_stencil(grid, gx, gy, method="nearest")  # for categorical variables
     ref = reference_name(run)
     columns: dict[str, np.ndarray] = {}
     status = np.full(stencil.inside.shape, STATUS_OK, dtype=object)
     fallback = np.ones(stencil.inside.shape, dtype=bool)
     for name in variable_names(run):
         grid_values = load_variable(run, name, grid)
-        values, flagged = apply_stencil(stencil, grid_values)
+        categorical = name in VARIABLES and VARIABLES[name].categorical
+        values, flagged = apply_stencil(classes if categorical else stencil, grid_values)
         values = zero_float_noise(values, grid_values)
         columns[name] = values
         if name == ref:
@@ -365,6 +368,15 @@ def sample_points(
     grid = run_grid(run)
     gx, gy = grid.to_grid_xy(x, y, crs)
     return sample_run(run, grid, gx, gy, method=method)
+
+
+def in_grid_convention(run: RunDir, lon: Any) -> np.ndarray:
+    """Longitudes (degrees) in the run grid's own convention: 0..360 on a grid that uses it,
+    -180..180 on one that does; unchanged on a projected grid. Only whole turns are added, so
+    a longitude already in the convention is returned exactly as given."""
+    lon = np.asarray(lon, dtype=float)
+    turns = np.round((lon - run_grid(run).wrap_x(lon)) / 360.0)
+    return lon - 360.0 * turns
 
 
 def check_method(method: str) -> None:

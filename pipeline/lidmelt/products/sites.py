@@ -134,6 +134,9 @@ def sample_stations(
     names = [*columns, "status"]
     out = smp.replace_columns(gdf, names, source=source)
     out = out.assign(**columns, status=pd.array(status, dtype=object))
+    coordinates = gdf.attrs.get("lidmelt_coordinate_columns")
+    if coordinates and pyproj.CRS.from_user_input(gdf.crs).is_geographic:
+        out[coordinates[0]] = smp.in_grid_convention(run, out[coordinates[0]])
     geometry = out.geometry.name
     out = out[[c for c in out.columns if c != geometry] + [geometry]]
     out.attrs = {**gdf.attrs, "lidmelt_units": smp.units_of(run, list(columns))}

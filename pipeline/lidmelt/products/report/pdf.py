@@ -2,8 +2,9 @@
 
 Pages: text pages with the job, the run's warnings (bold, red), the caution, the summary and
 the flag counts; one page per PNG map; then text
-pages with the tables and the workflow. Text is set in DejaVu Sans Mono; tables become indented
-"header: value" lines. The file carries no creation date (reproducible).
+pages with the tables and the workflow. Text is set in DejaVu Sans Mono; tables are set as
+aligned columns under a header and a rule (long cells wrap within their column). The file
+carries no creation date (reproducible).
 """
 
 from __future__ import annotations
@@ -54,19 +55,42 @@ def _text_lines(block: Block, width_chars: int) -> list[str]:
             lines.extend(textwrap.wrap(line, width_chars, drop_whitespace=False) or [""])
         return lines
     if isinstance(block, Table):
-        out = []
-        for row in block.rows:
-            cells = [f"{h}: {c}" for h, c in zip(block.header, row, strict=True) if c]
-            first, *others = cells
-            out.extend(textwrap.wrap(first, width_chars, subsequent_indent="    "))
-            for cell in others:
-                out.extend(
-                    textwrap.wrap(
-                        cell, width_chars, initial_indent="    ", subsequent_indent="      "
-                    )
-                )
-        return out
+        return _table_lines(block, width_chars)
     return textwrap.wrap(block, width_chars)
+
+
+def _column_widths(block: Table, width_chars: int) -> list[int]:
+    """Each column's width: its longest cell, the widest shrunk in turn until the row fits."""
+    widths = [
+        max(len(str(c)) for c in [h, *(row[k] for row in block.rows)])
+        for k, h in enumerate(block.header)
+    ]
+    room = width_chars - 2 * (len(widths) - 1)
+    while sum(widths) > room and max(widths) > 8:
+        widths[widths.index(max(widths))] -= 1
+    return widths
+
+
+def _table_lines(block: Table, width_chars: int) -> list[str]:
+    """A table as aligned columns after a blank line: a header, a rule, then the rows; a cell
+    longer than its column wraps onto further lines of the same row."""
+    widths = _column_widths(block, width_chars)
+
+    def row_lines(cells: Sequence[Any]) -> list[str]:
+        wrapped = [textwrap.wrap(str(c), w) or [""] for c, w in zip(cells, widths, strict=True)]
+        height = max(len(w) for w in wrapped)
+        return [
+            "  ".join(
+                (col[i] if i < len(col) else "").ljust(w)
+                for col, w in zip(wrapped, widths, strict=True)
+            ).rstrip()
+            for i in range(height)
+        ]
+
+    rule = "  ".join("-" * w for w in widths)
+    return ["", *row_lines(block.header), rule] + [
+        line for row in block.rows for line in row_lines(row)
+    ]
 
 
 def _text_pages(lines: list[Line], per_page: int) -> list[list[Line]]:
@@ -114,7 +138,9 @@ def _head_lines(run: RunDir) -> list[Line]:
     if warnings:
         head += [("", ""), ("warning", "WARNINGS")]
         for text in warnings:
-            wrapped = textwrap.wrap(text, _WIDTH_CHARS - 2) or [""]
+            # warnings are set one point larger: fewer characters fit on a line
+            width = int((_WIDTH_CHARS - 2) * _PDF_FONT_PT / (_PDF_FONT_PT + 1))
+            wrapped = textwrap.wrap(text, width) or [""]
             head += [("warning", f"! {wrapped[0]}")]
             head += [("warning", f"  {line}") for line in wrapped[1:]]
     head += [("", ""), ("heading", "Caution")]
