@@ -1,4 +1,5 @@
-"""``lidmelt screen``: candidate volcanic regions, connected cells above a melt thickness."""
+"""``lidmelt screen``: candidate volcanic regions, connected cells above a melt thickness or,
+for an ensemble run, above a probability of melting."""
 
 from __future__ import annotations
 
@@ -25,6 +26,9 @@ SHOWN_COLUMNS = (
     "max_plate_age_ma",
     "flagged_fraction",
     "melt_production_km3_yr",
+    "mean_probability",
+    "max_probability",
+    "likely_area_km2",
     "centroid_lon",
     "centroid_lat",
 )
@@ -45,15 +49,33 @@ def register(subparsers: argparse._SubParsersAction) -> None:
             "ambient mantle melts, as at a spreading ridge, is not a candidate; --basis total "
             "screens all melt (melt_thickness_km). Each candidate names the workflow plume it "
             "belongs to. Written as polygons ranked by the basis's melt volume (rank 1 = "
-            "largest) to a GeoPackage and a GeoJSON (RFC 7946, lon/lat) beside it."
+            "largest) to a GeoPackage and a GeoJSON (RFC 7946, lon/lat) beside it. For an "
+            "ensemble run, --min-probability P takes the cells whose probability of melting "
+            "(fraction of members with melt > 0; with --probability-of KM, with melt >= KM) is "
+            "at least P, and each candidate gets its mean and max probability and the area "
+            "where melting is more likely than not (>= 0.5). Give --min-melt-thickness, "
+            "--min-probability or both (a cell must then pass both)."
         ),
     )
     s.add_argument(
         "--min-melt-thickness",
         metavar="KM",
         type=float,
-        required=True,
         help="least melt thickness of a candidate cell (of the basis's melt), in km (> 0)",
+    )
+    s.add_argument(
+        "--min-probability",
+        metavar="P",
+        type=float,
+        help="ensemble runs: least probability of melting of a candidate cell (0 < P <= 1), "
+        "from the run's melt_probability map",
+    )
+    s.add_argument(
+        "--probability-of",
+        metavar="KM",
+        type=float,
+        help="with --min-probability: screen the probability of melt thickness >= KM instead "
+        "(the map melt_probability_ge_<KM>km; KM one of the ensemble's thresholds_km)",
     )
     s.add_argument(
         "--min-area",
@@ -96,18 +118,27 @@ def run(args: argparse.Namespace) -> int:
             min_area_km2=args.min_area,
             basis=args.basis,
             min_age_ma=args.min_age,
+            min_probability=args.min_probability,
+            probability=args.probability_of,
         )
     shown = [c for c in SHOWN_COLUMNS if c in gdf.columns]
     if len(gdf):
         table = pd.DataFrame(gdf[shown])
         table["plume"] = table["plume"].replace("", "-")
         print(format_table(table))
-    age = "" if args.min_age is None else f", plate age >= {args.min_age:g} Ma"
-    print(
-        f"{len(gdf)} candidate region(s) with {_BASIS_TEXT[args.basis]} >= "
-        f"{args.min_melt_thickness:g} km and area >= {args.min_area:g} km2{age} (8-connected "
-        f"cells; basis {args.basis})"
-    )
+    print(f"{len(gdf)} candidate region(s) with {_conditions(args, gdf)}")
     gpkg, geojson = write_candidates(gdf, out)
     print(f"wrote {gpkg} and {geojson}")
     return 0
+
+
+def _conditions(args: argparse.Namespace, gdf: pd.DataFrame) -> str:
+    """What the candidate cells passed, for the closing line."""
+    tests = []
+    if args.min_melt_thickness is not None:
+        tests.append(f"{_BASIS_TEXT[args.basis]} >= {args.min_melt_thickness:g} km")
+    if args.min_probability is not None:
+        tests.append(f"{gdf.attrs.get('lidmelt_probability')} >= {args.min_probability:g}")
+    tests.append(f"area >= {args.min_area:g} km2")
+    age = "" if args.min_age is None else f", plate age >= {args.min_age:g} Ma"
+    return f"{' and '.join(tests)}{age} (8-connected cells; basis {args.basis})"

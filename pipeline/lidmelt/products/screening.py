@@ -24,6 +24,20 @@ fraction, melt production) plus ``rank`` (1 = largest melt volume of the basis:
 ``centroid_lon``/``centroid_lat`` (WGS84 degrees: the area-weighted mean position of its cells
 on the sphere).
 
+Probability screening
+---------------------
+An ensemble run (docs/workflow.md, ``[ensemble]``) has probability maps
+(:mod:`lidmelt.products.ensemble`): ``melt_probability``, the fraction of its members whose melt
+thickness is > 0, and ``melt_probability_ge_<T>km`` for each of its thresholds. With
+``min_probability`` P a cell is a candidate cell when the chosen map (``probability``: default
+``melt_probability``; a number T picks ``melt_probability_ge_<T>km``) is >= P; with a melt
+threshold too, a cell must pass both. The regions, ranking (by the basis's melt volume of the
+run's own outputs) and plume matching are as above. Each candidate of a run with a probability
+map gets ``mean_probability`` (area-weighted mean over its cells), ``max_probability`` and
+``likely_area_km2`` (area of its cells with probability >= 0.5, more likely than not to melt).
+A run without the map asked for is refused with a :class:`~lidmelt.errors.RunDirError` that
+says how to run an ensemble.
+
 Plumes
 ------
 Each candidate is linked to a plume of the run's workflow (``summary.json`` inputs ->
@@ -50,6 +64,7 @@ from lidmelt.errors import InputError, RunDirError
 from lidmelt.files import atomic_paths
 from lidmelt.grids.grid import WGS84
 from lidmelt.grids.rundir import RunDir
+from lidmelt.products import ensemble as ens
 from lidmelt.products import sampling as smp
 from lidmelt.products.regions import GEOD, Zones, transform_geometries
 
@@ -137,10 +152,12 @@ def _as_float(value: Any) -> float:
 def screen(
     run: RunDir | str | os.PathLike[str],
     *,
-    min_melt_thickness_km: float,
+    min_melt_thickness_km: float | None = None,
     min_area_km2: float = 0.0,
     basis: str = "anomaly",
     min_age_ma: float | None = None,
+    min_probability: float | None = None,
+    probability: str | float | None = None,
 ) -> gpd.GeoDataFrame:
     """Find candidate regions: connected groups of cells that melt at least a threshold.
 
@@ -148,8 +165,15 @@ def screen(
     ----------
     run : RunDir or path
         A run directory written by ``lidmelt run``.
-    min_melt_thickness_km : float
+    min_melt_thickness_km : float, optional
         A cell is a candidate cell when the basis's melt thickness >= this. Units: km; > 0.
+        Give this, ``min_probability`` or both (a cell then passes both).
+    min_probability : float, optional
+        An ensemble run: a cell is a candidate cell when its probability (the map chosen by
+        ``probability``) >= this. Dimensionless; 0 < P <= 1.
+    probability : str or float, optional
+        The probability map: None ``melt_probability`` (melt > 0); a number T (km)
+        ``melt_probability_ge_<T>km``; or a probability map's name. Needs ``min_probability``.
     min_area_km2 : float
         Smallest area of a candidate region. Units: km^2; >= 0.
     basis : {"anomaly", "total"}
@@ -165,50 +189,89 @@ def screen(
         One row per candidate in the grid's CRS, ordered by the basis's melt volume (``rank``
         1 = largest): ``rank``, ``plume``, ``plume_match``, the statistics columns of the
         module notes, ``centroid_lon``, ``centroid_lat`` (WGS84 degrees), and (Multi)Polygon
-        geometries along the cells' edges. Empty (with these columns) when no region
-        qualifies. ``attrs["lidmelt_basis"]`` holds the basis.
+        geometries along the cells' edges; with a probability map (screened, or the run's
+        ``melt_probability``) also ``mean_probability``, ``max_probability`` and
+        ``likely_area_km2`` (module notes). Empty (with these columns) when no region
+        qualifies. ``attrs["lidmelt_basis"]`` holds the basis, ``attrs["lidmelt_probability"]``
+        the probability map ("" without one).
 
     Raises
     ------
     lidmelt.errors.InputError
-        If a threshold is not a positive number (or the area or age negative), the basis is
-        unknown, or ``min_age_ma`` is given for a run without a plate age.
+        If no threshold is given, a threshold is not a positive number (a probability not in
+        (0, 1], the area or age negative), the basis is unknown, or ``min_age_ma`` is given
+        for a run without a plate age.
     lidmelt.errors.RunDirError
-        If ``run`` is not a run directory, has no melt_thickness_km, or (basis ``"anomaly"``)
-        no anomaly_melt_thickness_km.
+        If ``run`` is not a run directory, has no melt_thickness_km, (basis ``"anomaly"``) no
+        anomaly_melt_thickness_km, or (``min_probability``) not the probability map.
     """
-    import geopandas as gpd
-
-    thr, min_area = _check_thresholds(min_melt_thickness_km, min_area_km2)
+    thr, min_area, p_min = _check_thresholds(
+        min_melt_thickness_km, min_area_km2, min_probability, probability
+    )
     _check_basis(basis)
     run = smp.as_run(run)
     zones = Zones.load(run)
     grid = zones.grid
     values = _basis_values(zones, basis, run=run)
-    mask = np.isfinite(values) & (values >= thr)
+    prob_name, prob = _probability(run, grid, probability, screening=p_min is not None)
+    mask = np.ones(values.shape, dtype=bool) & _passing(values, thr) & _passing(prob, p_min)
     if min_age_ma is not None:
         mask &= _old_enough(zones, min_age_ma, run=run)
     labels, n = _label(mask, periodic=grid.is_periodic)
-    records = _candidate_records(zones, labels, n, min_area, volume=BASIS_VOLUME[basis])
+    volume = BASIS_VOLUME[basis]
+    records = _candidate_records(zones, labels, n, min_area, volume=volume, probability=prob)
     _match_plumes(records, labels, zones, run_plumes(run))
     polygons = _component_polygons(labels, np.array([r["label"] for r in records]), grid.affine)
-    columns = ["rank", "plume", "plume_match", *zones.columns, "centroid_lon", "centroid_lat"]
+    stats = [*zones.columns, *(ens.PROBABILITY_STATISTICS if prob is not None else ())]
+    out = _candidate_frame(records, stats, polygons, grid.pyproj_crs)
+    out.attrs["lidmelt_basis"] = basis
+    out.attrs["lidmelt_probability"] = prob_name
+    return out
+
+
+def _candidate_frame(
+    records: list[dict[str, Any]], stats: list[str], polygons: dict[int, Any], crs: Any
+) -> gpd.GeoDataFrame:
+    """The ranked candidates as a GeoDataFrame with the columns of :func:`screen`."""
+    import geopandas as gpd
+
+    columns = ["rank", "plume", "plume_match", *stats, "centroid_lon", "centroid_lat"]
     frame = pd.DataFrame(records, columns=["label", *columns[1:]])
     frame.insert(0, "rank", np.arange(1, len(frame) + 1, dtype="int64"))
     frame["n_cells"] = frame["n_cells"].astype("int64")
     frame[["plume", "plume_match"]] = frame[["plume", "plume_match"]].astype(object)
     geoms = [polygons[label] for label in frame["label"]]
     frame = frame.drop(columns="label")
-    crs = grid.pyproj_crs
-    out = gpd.GeoDataFrame(frame, geometry=gpd.GeoSeries(geoms, crs=crs), crs=crs)
-    out.attrs["lidmelt_basis"] = basis
-    return out
+    return gpd.GeoDataFrame(frame, geometry=gpd.GeoSeries(geoms, crs=crs), crs=crs)
 
 
-def _check_thresholds(min_melt_thickness_km: Any, min_area_km2: Any) -> tuple[float, float]:
-    """The screening thresholds as floats, or InputError."""
-    thr = _as_float(min_melt_thickness_km)
-    if not (np.isfinite(thr) and thr > 0):
+def _check_thresholds(
+    min_melt_thickness_km: Any, min_area_km2: Any, min_probability: Any, probability: Any
+) -> tuple[float | None, float, float | None]:
+    """The screening thresholds as floats (None: not given), or InputError."""
+    if min_melt_thickness_km is None and min_probability is None:
+        msg = (
+            "screening needs a threshold: give --min-melt-thickness KM (the least melt "
+            "thickness of a candidate cell, in km) or, for an ensemble run, --min-probability "
+            "P (the least probability of melting, 0 < P <= 1), or both."
+        )
+        raise InputError(msg)
+    if probability is not None and min_probability is None:
+        msg = (
+            f"--probability-of {probability!r} chooses the probability map to screen but no "
+            "--min-probability P was given; add --min-probability (0 < P <= 1), e.g. 0.5."
+        )
+        raise InputError(msg)
+    p_min = None if min_probability is None else _as_float(min_probability)
+    if p_min is not None and not (np.isfinite(p_min) and 0 < p_min <= 1):
+        msg = (
+            f"--min-probability {min_probability!r} is not a probability in (0, 1]; expected "
+            "the least fraction of ensemble members that melt in a candidate cell, e.g. 0.5 "
+            "(more likely than not) or 0.9."
+        )
+        raise InputError(msg)
+    thr = None if min_melt_thickness_km is None else _as_float(min_melt_thickness_km)
+    if thr is not None and not (np.isfinite(thr) and thr > 0):
         msg = (
             f"--min-melt-thickness {min_melt_thickness_km!r} km is not a positive thickness; "
             "expected the least melt thickness of a candidate cell in km, e.g. 1.0 (use a "
@@ -222,7 +285,29 @@ def _check_thresholds(min_melt_thickness_km: Any, min_area_km2: Any) -> tuple[fl
             "smallest candidate area in km^2, e.g. 5000 (0 keeps every region)."
         )
         raise InputError(msg)
-    return thr, min_area
+    return thr, min_area, p_min
+
+
+def _passing(values: np.ndarray | None, least: float | None) -> np.ndarray | bool:
+    """Cells whose value is at least ``least`` (True everywhere when ``least`` is None)."""
+    if least is None:
+        return True
+    with np.errstate(invalid="ignore"):
+        return np.isfinite(values) & (values >= least)
+
+
+def _probability(
+    run: RunDir, grid: Any, probability: Any, *, screening: bool
+) -> tuple[str, np.ndarray | None]:
+    """The probability map screened (or, when not screening, the run's melt_probability if
+    it has one) and its values; ``("", None)`` without one."""
+    if screening:
+        name = ens.probability_grid(run, probability)
+    elif ens.PROBABILITY_VARIABLE in run.outputs:
+        name = ens.PROBABILITY_VARIABLE
+    else:
+        return "", None
+    return name, smp.load_variable(run, name, grid)
 
 
 def _check_basis(basis: Any) -> None:
@@ -270,10 +355,17 @@ def _old_enough(zones: Zones, min_age_ma: Any, *, run: RunDir) -> np.ndarray:
 
 
 def _candidate_records(
-    zones: Zones, labels: np.ndarray, n: int, min_area: float, *, volume: str
+    zones: Zones,
+    labels: np.ndarray,
+    n: int,
+    min_area: float,
+    *,
+    volume: str,
+    probability: np.ndarray | None = None,
 ) -> list[dict[str, Any]]:
     """Statistics and centroid of each labelled region of at least ``min_area`` km^2, ordered
-    by the ``volume`` column (then area, then label); each keeps its cells' flat indices."""
+    by the ``volume`` column (then area, then label); each keeps its cells' flat indices.
+    With a ``probability`` grid, each also gets its probability statistics."""
     flat_labels = labels.ravel()
     cells = np.flatnonzero(flat_labels)
     order = np.argsort(flat_labels[cells], kind="stable")
@@ -285,6 +377,8 @@ def _candidate_records(
         stats = zones.stats(flat)
         if stats["data_area_km2"] < min_area:
             continue
+        if probability is not None:
+            stats.update(ens.probability_statistics(probability, flat, zones.areas(flat)))
         lon, lat = zones.centroid_lonlat(flat)
         if zones.grid.is_geographic:  # the grid's own longitude convention (0..360 stays so)
             lon = float(zones.grid.wrap_x(np.array(lon)))

@@ -122,12 +122,17 @@ def _limits_text(style: VariableStyle, *, no_melt: bool, extend: str) -> str:
             f"Colour scale from 0 to the {MELT_TOP_PERCENTILE:g}th percentile of the melting "
             "cells; white: no melting (exactly 0)"
         )
+    elif style.limits is not None:
+        limits = f"Colour scale fixed from {style.limits[0]:g} to {style.limits[1]:g}"
     elif (low, high) == (0.0, 100.0):
         limits = "Colour scale over the whole range of the cells drawn (minimum to maximum)"
     else:
         limits = f"Colour limits from the {low:g}th and {high:g}th percentiles of the valid cells"
     if style.diverging:
         limits += ", symmetric about 0 (white); black line: 0"
+    if style.contours:
+        levels = ", ".join(f"{v:g}" for v in style.contours)
+        limits += f"; labelled black line: the {levels} contour"
     if no_melt and not style.zero_is_no_melt:
         limits += "; white: no melting (the variable is not defined there and is not drawn)"
     if extend != "neither":

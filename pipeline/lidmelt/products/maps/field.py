@@ -3,7 +3,8 @@
 Shared by the one-variable figure (:mod:`.figure`) and the overview page (:mod:`.overview`):
 :func:`open_field` opens a variable of a run with its style and colour limits,
 :func:`draw_data` draws it on a cartopy axes (thinned to about two cells per output pixel),
-and :func:`draw_zero_contour` draws the zero line of a signed (diverging) variable.
+and :func:`draw_zero_contour` draws the zero line of a signed (diverging) variable; the
+labelled contours of a probability are :func:`.probability.draw_level_contours`.
 """
 
 from __future__ import annotations
@@ -19,6 +20,7 @@ from lidmelt.grids.rundir import FlagGrid, RunDir
 from lidmelt.products.maps import flags as fl
 from lidmelt.products.maps import layout as lay
 from lidmelt.products.maps.options import MapOptions
+from lidmelt.products.maps.probability import draw_level_contours, fixed_limits
 from lidmelt.products.maps.style import (
     NODATA_COLOR,
     VariableStyle,
@@ -53,6 +55,7 @@ class Field:
     no_melt: np.ndarray | None
     flag_bits: tuple[int, ...] = ()
     flag_grid: Any = None
+    contours: tuple[float, ...] = ()  # the labelled contour levels drawn (set by draw_data)
 
 
 def no_melt_mask(run: RunDir, values: np.ndarray, style: VariableStyle) -> np.ndarray | None:
@@ -95,6 +98,8 @@ def open_field(run: RunDir, variable: str, opts: MapOptions) -> Field:
     in_view = shown[lay.region_mask(da, region)] if region_given else shown
     if style.categorical:
         vmin, vmax, extend = 0.0, float(len(style.classes) - 1), "neither"
+    elif style.limits is not None:
+        vmin, vmax, extend = fixed_limits(in_view, style.limits)
     else:
         vmin, vmax, extend = colour_limits(
             in_view,
@@ -126,10 +131,11 @@ def open_field(run: RunDir, variable: str, opts: MapOptions) -> Field:
     )
 
 
-def draw_data(ax: Any, f: Field, map_px: tuple[float, float]) -> int:
+def draw_data(ax: Any, f: Field, map_px: tuple[float, float], *, fs: float = 8.0) -> int:
     """The data layer, thinned to about two cells per output pixel; return the stride.
 
-    ``map_px`` is the map's size in output pixels (width, height).
+    ``map_px`` is the map's size in output pixels (width, height); ``fs`` the font size (pt)
+    of contour labels.
     """
     step = lay.decimation(f.values.shape, map_px)
     xe, ye = lay.cell_edges(f.da, step)
@@ -156,6 +162,8 @@ def draw_data(ax: Any, f: Field, map_px: tuple[float, float]) -> int:
         fl.draw_flag_hatching(ax, f.flag_grid, f.flag_bits, da=f.da, src_crs=f.src_crs, step=step)
     if f.style.diverging:
         draw_zero_contour(ax, f)
+    if f.style.contours:
+        f.contours = draw_level_contours(ax, f.da, f.values, f.src_crs, f.style.contours, fs)
     return step
 
 

@@ -54,6 +54,11 @@ from lidmelt.products.maps.options import (
     check_variable,
     resolve_options,
 )
+from lidmelt.products.maps.probability import (
+    contour_legend_handles,
+    crossing_levels,
+    mark_colorbar,
+)
 from lidmelt.products.maps.style import (
     NODATA_COLOR,
     OUTSIDE_COLOR,
@@ -199,6 +204,7 @@ def _draw_colorbar(fig: Figure, f: Field, page: pg.PageLayout, lines: list[str])
     cbar.update_ticks()
     cbar.set_label("\n".join(lines), fontsize=fs, labelpad=3)
     cbar.outline.set_linewidth(0.6)
+    mark_colorbar(cbar, f.style.contours)
     return cbar
 
 
@@ -234,6 +240,7 @@ def _legend_handles(f: Field, opts: MapOptions, fs: float, view: _View) -> list[
         handles.insert(1, outside)
     if f.style.diverging:
         handles.append(Line2D([], [], color="black", lw=1.0, label="0 (zero contour)"))
+    handles += contour_legend_handles(crossing_levels(f.values, f.style.contours))
     if view.plumes:
         handles.append(mk.plume_legend_handle(fs))
     return class_legend_handles(f.style.classes) + handles + fl.flag_legend_handles(f.flag_bits)
@@ -280,7 +287,7 @@ def render_map(run: RunDir, variable: str, opts: MapOptions) -> tuple[Figure, Ma
     )
     text = _compose_text(fig, page, f, run, opts, view)
     _fix_size(fig, ax, legend, page, text, top=view.labels["top"], dpi=opts.dpi)
-    step = draw_data(ax, f, (page.map_w * opts.dpi, page.map_h * opts.dpi))
+    step = draw_data(ax, f, (page.map_w * opts.dpi, page.map_h * opts.dpi), fs=page.fs)
     age_levels = _draw_overlays(ax, opts, page.fs, view)
     gl = lay.draw_graticule(
         ax,
@@ -315,6 +322,7 @@ def render_map(run: RunDir, variable: str, opts: MapOptions) -> tuple[Figure, Ma
         flag_bits=f.flag_bits,
         plumes=tuple(p.name for p in view.plumes),
         zero_contour=f.style.diverging,
+        contour_levels=f.contours,
         outside_grid=view.outside,
         legend_labels=tuple(t.get_text() for t in legend.get_texts()),
         ax=ax,

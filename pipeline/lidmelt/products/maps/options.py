@@ -103,6 +103,7 @@ class MapInfo:
     flag_bits: tuple[int, ...] = ()
     plumes: tuple[str, ...] = ()
     zero_contour: bool = False
+    contour_levels: tuple[float, ...] = ()
     outside_grid: bool = False
     legend_labels: tuple[str, ...] = ()
     ax: Any = field(default=None, repr=False)

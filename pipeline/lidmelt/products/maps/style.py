@@ -32,6 +32,11 @@ safe palette of Okabe & Ito (2008), "Color Universal Design" (distinct for the c
 colour-vision deficiency). Melt production (``melt_production_mm_yr``) is sequential
 (``plasma``, whose light end is yellow, not white: the white "no melting" class stays distinct;
 magma and inferno end near white), with 0 drawn as "no melting".
+
+Probabilities of an ensemble run (style ``"probability"``) have a scale of their own with fixed
+limits 0 and 1 and the 0.5 contour drawn (:mod:`.probability`); the ensemble's percentile maps
+(``melt_thickness_km_p90``, ...) take their base variable's style
+(:func:`lidmelt.products.ensemble.variable_of`).
 """
 
 from __future__ import annotations
@@ -43,7 +48,12 @@ import numpy as np
 from matplotlib.colors import BoundaryNorm, ListedColormap, Normalize, to_rgba_array
 from matplotlib.patches import Patch
 
-from lidmelt.variables import VARIABLES
+from lidmelt.products.ensemble import PROBABILITY_STYLE, variable_of
+from lidmelt.products.maps.probability import (
+    PROBABILITY_CMAP,
+    PROBABILITY_CONTOURS,
+    PROBABILITY_LIMITS,
+)
 
 __all__ = [
     "CANDIDATE_COLOR",
@@ -110,6 +120,10 @@ class MapStyle:
         A signed quantity: limits symmetric about 0, and the zero contour drawn.
     percentiles : (low, high)
         Percentiles of the valid cells that set the colour limits.
+    limits : (low, high) or None
+        Fixed colour limits (probabilities: 0 and 1) instead of percentiles.
+    contours : tuple of float
+        Levels drawn as labelled contours (probabilities: 0.5).
     """
 
     cmap: str
@@ -117,6 +131,8 @@ class MapStyle:
     classes: tuple[ClassStyle, ...] = ()
     diverging: bool = False
     percentiles: tuple[float, float] = PERCENTILES
+    limits: tuple[float, float] | None = None
+    contours: tuple[float, ...] = ()
 
 
 #: The classes of ``melting_regime`` (colours: white, then Okabe & Ito 2008 blue, vermillion).
@@ -139,6 +155,9 @@ STYLES: dict[str, MapStyle] = {
     "flag": MapStyle("viridis"),  # the validity flags are not drawn by 'lidmelt map'
     "regime": MapStyle("viridis", classes=REGIME_CLASSES),
     "production": MapStyle("plasma", zero_is_no_melt=True),  # no near-white end (0 is white)
+    PROBABILITY_STYLE: MapStyle(
+        PROBABILITY_CMAP, limits=PROBABILITY_LIMITS, contours=PROBABILITY_CONTOURS
+    ),
 }
 #: Style of a variable the registry does not know, or whose key has no entry.
 DEFAULT_STYLE = MapStyle("viridis")
@@ -166,7 +185,7 @@ class VariableStyle:
     classes : tuple of ClassStyle
         Non-empty for a categorical variable: drawn class by class, with a legend entry each
         and no colour bar.
-    diverging, percentiles
+    diverging, percentiles, limits, contours
         As in :class:`MapStyle`.
     """
 
@@ -177,6 +196,8 @@ class VariableStyle:
     classes: tuple[ClassStyle, ...] = ()
     diverging: bool = False
     percentiles: tuple[float, float] = PERCENTILES
+    limits: tuple[float, float] | None = None
+    contours: tuple[float, ...] = ()
 
     @property
     def categorical(self) -> bool:
@@ -186,7 +207,7 @@ class VariableStyle:
 
 def style_for(variable: str) -> VariableStyle:
     """The style of ``variable``: its key's colour map and the registry's facts about it."""
-    var = VARIABLES.get(variable)
+    var = variable_of(variable)
     if var is None:  # not (yet) registered: a plain continuous scale
         return VariableStyle(DEFAULT_STYLE.cmap)
     key = STYLES.get(var.style, DEFAULT_STYLE)
@@ -198,6 +219,8 @@ def style_for(variable: str) -> VariableStyle:
         classes=key.classes,
         diverging=key.diverging,
         percentiles=key.percentiles,
+        limits=key.limits,
+        contours=key.contours,
     )
 
 

@@ -9,6 +9,7 @@ the cooling model and lid isotherm, the grid, the input provenance
 - :mod:`.content`: the sections as text and tables, independent of the format;
 - :mod:`.html_page`: the HTML page (every string escaped, nothing loaded from outside);
 - :mod:`.pdf`: the PDF (text pages, one page per map);
+- :mod:`.ensemble`: the section on an ensemble run (distributions, probability, drivers);
 - :mod:`.write`: :func:`write_report`, which gathers the maps and writes the files.
 """
 

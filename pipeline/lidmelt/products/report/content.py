@@ -20,6 +20,7 @@ from dataclasses import dataclass
 from typing import Any
 
 from lidmelt.grids.rundir import FlagGrid, RunDir, read_flags
+from lidmelt.products.ensemble import variable_of
 from lidmelt.products.maps.captions import lid_model
 from lidmelt.products.maps.flags import flag_counts
 from lidmelt.variables import VARIABLES
@@ -68,26 +69,28 @@ class Pre:
     folded: str = ""
 
 
-Block = str | Table | Pre
-
-
-@dataclass(frozen=True)
-class Section:
-    """A heading and its blocks: paragraphs (str), :class:`Table` or :class:`Pre`."""
-
-    key: str
-    heading: str
-    blocks: tuple[Block, ...]
-
-
 @dataclass(frozen=True)
 class MapImage:
-    """One embedded map."""
+    """One embedded map (or figure: a section may hold one among its blocks)."""
 
     variable: str
     data: bytes
     mime: str  # "image/png" or "image/svg+xml"
     source: str  # "rendered for this report" or the file it came from
+    caption: str = ""  # shown instead of the variable's label when given
+
+
+Block = str | Table | Pre | MapImage
+
+
+@dataclass(frozen=True)
+class Section:
+    """A heading and its blocks: paragraphs (str), :class:`Table`, :class:`Pre` or
+    :class:`MapImage` (a figure)."""
+
+    key: str
+    heading: str
+    blocks: tuple[Block, ...]
 
 
 def format_value(value: Any) -> str:
@@ -162,7 +165,7 @@ def variable_label(name: str) -> str:
     """``"<name>: <long name>"`` for a registered variable, else the name."""
     if name == "overview":
         return "Overview: inputs and predicted melting on one page"
-    var = VARIABLES.get(name)
+    var = variable_of(name)
     return f"{name}: {var.long_name}" if var is not None else name
 
 

@@ -65,7 +65,20 @@ def _esc(text: Any) -> str:
     return html.escape(str(text), quote=True)
 
 
+def _html_figure(image: MapImage) -> str:
+    """An embedded image with its caption (the variable's label and where it came from)."""
+    data = base64.b64encode(image.data).decode("ascii")
+    caption = image.caption or f"{variable_label(image.variable)} ({image.source})"
+    alt = image.caption or f"Map of {image.variable}"
+    return (
+        f'<figure><img alt="{_esc(alt)}" src="data:{image.mime};base64,{data}">'
+        f"<figcaption>{_esc(caption)}</figcaption></figure>"
+    )
+
+
 def _html_block(block: Block) -> str:
+    if isinstance(block, MapImage):
+        return _html_figure(block)
     if isinstance(block, Table):
         head = "".join(f"<th>{_esc(h)}</th>" for h in block.header)
         body = []
@@ -102,14 +115,7 @@ def _html_maps(images: Sequence[MapImage]) -> list[str]:
     parts = ['<section id="maps"><h2>Maps</h2>']
     if not images:
         parts.append("<p>No maps were included.</p>")
-    for image in images:
-        data = base64.b64encode(image.data).decode("ascii")
-        parts.append(
-            f'<figure><img alt="Map of {_esc(image.variable)}" '
-            f'src="data:{image.mime};base64,{data}">'
-            f"<figcaption>{_esc(variable_label(image.variable))} ({_esc(image.source)})"
-            "</figcaption></figure>"
-        )
+    parts.extend(_html_figure(image) for image in images)
     parts.append("</section>")
     return parts
 

@@ -44,6 +44,9 @@ Line = tuple[str, str]  # (kind, text): "title", "heading", "warning", "text" or
 
 
 def _text_lines(block: Block, width_chars: int) -> list[str]:
+    if isinstance(block, MapImage):  # placed on a page of its own (:func:`_section_pages`)
+        where = "next page" if block.mime == "image/png" else "in the HTML report only"
+        return [f"Figure: {block.caption or variable_label(block.variable)} ({where})."]
     if isinstance(block, Pre) and block.folded:
         return [f"{block.folded}: folded in the HTML report (not repeated here)."]
     if isinstance(block, Pre):
@@ -113,6 +116,21 @@ def _section_lines(sections: Sequence[Section]) -> list[Line]:
     return out
 
 
+def _section_pages(sections: Sequence[Section]) -> list[list[Line] | MapImage]:
+    """Text pages of the sections, with each PNG figure of a section on a page of its own
+    after the text before it."""
+    pages: list[list[Line] | MapImage] = []
+    lines: list[Line] = []
+    for section in sections:
+        lines += [("", ""), ("heading", section.heading)]
+        for block in section.blocks:
+            lines.extend(("text", line) for line in _text_lines(block, _WIDTH_CHARS))
+            if isinstance(block, MapImage) and block.mime == "image/png":
+                pages += [*_text_pages(lines, _PER_PAGE), block]
+                lines = []
+    return pages + _text_pages(lines, _PER_PAGE)
+
+
 def _head_lines(run: RunDir) -> list[Line]:
     head = [("title", f"lidmelt run report: {run.path.name}")]
     head += [("text", line) for line in _text_lines(job_line(run.summary), _WIDTH_CHARS)]
@@ -178,7 +196,7 @@ def _map_page(pdf: Any, image: MapImage) -> None:
     )
     ax.imshow(pixels, interpolation="none")
     ax.set_axis_off()
-    label = variable_label(image.variable)
+    label = image.caption or variable_label(image.variable)
     fig.text(0.5, 1.0 - 0.45 / _PAGE_IN[1], label, ha="center", fontsize=10)
     pdf.savefig(fig)
 
@@ -193,7 +211,7 @@ def write_pdf(
     front = [s for s in sections if s.key in FRONT_SECTIONS]
     back = [*extra, *(s for s in sections if s.key not in FRONT_SECTIONS)]
     first_pages = _text_pages(_head_lines(run) + _section_lines(front), _PER_PAGE)
-    last_pages = _text_pages(_section_lines(back), _PER_PAGE)
+    last_pages = _section_pages(back)
     metadata = {
         "Title": f"lidmelt run report: {run.path.name}",
         "Creator": f"lidmelt {__version__}",
@@ -205,6 +223,9 @@ def write_pdf(
         for image in images:
             if image.mime == "image/png":  # an SVG map cannot be placed without a converter
                 _map_page(pdf, image)
-        for lines in last_pages:
-            _text_page(pdf, lines)
+        for page in last_pages:
+            if isinstance(page, MapImage):
+                _map_page(pdf, page)
+            else:
+                _text_page(pdf, page)
     return path

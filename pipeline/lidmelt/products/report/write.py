@@ -9,6 +9,7 @@ from pathlib import Path
 from lidmelt.errors import InputError
 from lidmelt.files import write_text_atomic
 from lidmelt.grids.rundir import SUMMARY_NAME, RunDir, open_run
+from lidmelt.products.ensemble import is_ensemble_output
 from lidmelt.products.maps import (
     default_map_variables,
     make_map_figure,
@@ -16,6 +17,7 @@ from lidmelt.products.maps import (
     resolve_coastlines,
 )
 from lidmelt.products.report.content import MapImage
+from lidmelt.products.report.ensemble import ensemble_section
 from lidmelt.products.report.html_page import render_html
 from lidmelt.products.report.pdf import write_pdf
 from lidmelt.products.report.sites import find_site_files, sites_map, sites_section
@@ -71,7 +73,8 @@ def collect_maps(
 
     In order: the overview page (``RUN_DIR/maps/overview.png``, when it is newer than
     ``summary.json``), the outputs (those :func:`~lidmelt.products.maps.default_map_variables`
-    maps), then the input maps (:data:`INPUT_MAPS` the run has). A
+    maps, but the maps over an ensemble's members: its section shows the probability), then
+    the input maps (:data:`INPUT_MAPS` the run has). A
     ``RUN_DIR/maps/<variable>.png`` newer than ``summary.json`` is reused; other maps are drawn
     afresh, with one coastline note per report (not per map).
     """
@@ -84,7 +87,8 @@ def collect_maps(
     overview = run.path / "maps" / "overview.png"
     if overview.is_file() and overview.stat().st_mtime >= summary_mtime:
         images.append(MapImage("overview", overview.read_bytes(), "image/png", str(overview)))
-    names = default_map_variables(run) + [v for v in INPUT_MAPS if v in run.inputs]
+    names = [n for n in default_map_variables(run) if not is_ensemble_output(n)]
+    names += [v for v in INPUT_MAPS if v in run.inputs]
     for name in names:
         existing = run.path / "maps" / f"{name}.png"
         if existing.is_file() and existing.stat().st_mtime >= summary_mtime:
@@ -160,7 +164,8 @@ def write_report(
     )
     if site_map is not None:
         images.append(site_map)
-    extra_sections = [extra] if extra is not None else []
+    ensemble = ensemble_section(run, dpi=REPORT_MAP_DPI, width_in=REPORT_MAP_WIDTH_IN)
+    extra_sections = [s for s in (ensemble, extra) if s is not None]
     write_text_atomic(out, render_html(run, images, extra_sections))
     if pdf:
         write_pdf(run, images, out.with_suffix(".pdf"), extra_sections)
