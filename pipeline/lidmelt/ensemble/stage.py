@@ -106,6 +106,11 @@ def ensemble_stages(cfg, *, announce: bool = True) -> tuple:
     return (run_ensemble_stage,)
 
 
+def _table_key(cfg) -> tuple:
+    """What a melting table depends on: the model's name and parameter overrides."""
+    return (cfg.model.name, cfg.model.parameters)
+
+
 def _plan(context: StageContext) -> tuple[MemberPlan, list[list], int]:
     """The members' plan, each input group's kernel arguments, and the tables built."""
     cfg = context.cfg
@@ -113,7 +118,7 @@ def _plan(context: StageContext) -> tuple[MemberPlan, list[list], int]:
     chunks = int(cfg.compute.chunk_size)
     template = context.target.template(chunks)
     groups: dict[Any, tuple[int, Any]] = {cfg.inputs: (0, context.inputs)}
-    models: dict[Any, tuple] = {cfg.model: (context.model, context.table)}
+    models: dict[Any, tuple] = {_table_key(cfg): (context.model, context.table)}
     coolings: dict[Any, Any] = {}
     settings, member_groups = [], []
     for member in ens.configs:
@@ -121,9 +126,9 @@ def _plan(context: StageContext) -> tuple[MemberPlan, list[list], int]:
             inputs = load_inputs(member, target=context.target, chunks=chunks)
             groups[member.inputs] = (len(groups), inputs)
         index, inputs = groups[member.inputs]
-        if member.model not in models:
-            models[member.model] = load_model(member)
-        model, table = models[member.model]
+        if _table_key(member) not in models:
+            models[_table_key(member)] = load_model(member)
+        model, table = models[_table_key(member)]
         if member.lithosphere not in coolings:
             coolings[member.lithosphere] = lid_cooling_model(member, inputs=inputs)
         cooling = coolings[member.lithosphere]
@@ -135,7 +140,7 @@ def _plan(context: StageContext) -> tuple[MemberPlan, list[list], int]:
         member_groups.append(index)
     args = [kernel_arguments(inputs, template=template) for _, inputs in groups.values()]
     scalars = tuple(tuple(None if hasattr(a, "dask") else a for a in arg) for arg in args)
-    used = {m.model for m in ens.configs}
+    used = {_table_key(m) for m in ens.configs}
     tables = len(used) if cfg.compute.method == "table" else 0
     plan = MemberPlan(tuple(settings), tuple(member_groups), scalars, ens.thresholds_km,
                       ens.percentiles)  # fmt: skip
