@@ -203,14 +203,18 @@ def test_members_csv_and_summary(tmp_path):
     vary = DEMO_VARY + '"lithosphere.cooling" = {choice = ["half-space", "gdh1"]}\n'
     run = run_ensemble(tmp_path, "sum", vary=vary, lid=70.0, members=6)
     summary = json.loads((run.run_dir / "summary.json").read_text())["ensemble"]
-    assert summary["members"] == 6 and summary["sampling"] == "latin_hypercube"
+    assert summary["members"] == 6
+    assert summary["sampling"] == "latin_hypercube"
     assert summary["tables_built"] == 1  # Tp, lid and water change no model parameter
     assert set(summary["totals"]["melt_volume_km3"]) == {"p10", "p50", "p90", "mean"}
     assert [d["key"] for d in summary["drivers"]].count("lithosphere.cooling") == 1
     head = (run.run_dir / "ensemble_members.csv").read_text().splitlines()[0].split(",")
-    assert head[0] == "member" and head[-3:] == [
-        "melting_area_km2", "melt_volume_km3", "anomaly_melt_volume_km3",
-    ]  # fmt: skip
+    assert head[0] == "member"
+    assert head[-3:] == [
+        "melting_area_km2",
+        "melt_volume_km3",
+        "anomaly_melt_volume_km3",
+    ]
     assert len((run.run_dir / "ensemble_members.csv").read_text().splitlines()) == 7
 
 
@@ -257,7 +261,8 @@ def test_registry_knows_the_ensemble_outputs():
     assert get_variable("melt_probability").style == "probability"
     assert ensemble_variable("melt_probability_ge_0.5km").units == "1"
     p90 = get_variable("melt_thickness_km_p90")
-    assert p90.units == "km" and p90.style == "melt"
+    assert p90.units == "km"
+    assert p90.style == "melt"
     assert p90.long_name == "melt thickness, 90th percentile of the ensemble"
     assert ensemble_variable("onset_depth_km_p50").long_name.endswith(
         "50th percentile of the ensemble"
