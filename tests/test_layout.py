@@ -19,7 +19,8 @@ BASE = ["__init__", "errors", "variables", "files", "config"]
 LAYERS = [
     {"physics"},
     {"grids"},
-    {"engine", "statistics", "ensemble"},
+    {"engine", "statistics"},
+    {"ensemble"},
     {"products"},
     {"workflow"},
     {"cli"},
@@ -29,6 +30,8 @@ LAYERS = [
 def layer_of(stage: str) -> int:
     """The index of the layer that holds ``stage`` (every module must have one)."""
     return next(k for k, names in enumerate(LAYERS) if stage in names)
+
+
 MAX_MODULE_LINES = 600
 MAX_FUNCTION_LINES = 80
 #: Functions allowed to be longer, with the reason (listed in the layout issue's closing note).

@@ -798,3 +798,49 @@ def test_valid_model_overrides_pass(basin):
     assert cfg.lithosphere.parameters == {"plate_thickness_km": 100.0}
     cfg = load_workflow(basin(), overrides=["model.parameters.cpx_mass_fraction=0.15"])
     assert cfg.model.parameters == {"cpx_mass_fraction": 0.15}
+
+
+# ---- [ensemble] and compute.scheduler (issue 12) ------------------------------------------------
+ENSEMBLE = """
+[ensemble]
+members = 6
+seed = 4
+[ensemble.vary]
+"model.ambient_potential_temperature_c" = { normal = [1350.0, 20.0] }
+inputs.thermal_anomaly.plumes.1.peak_excess_k = { uniform = [200.0, 300.0] }
+"inputs.thermal_anomaly.scale" = { uniform = [0.8, 1.2] }
+"lithosphere.cooling" = { choice = ["half-space", "gdh1"], weights = [3, 1] }
+"""
+
+
+def test_ensemble_table_draws_validated_members(basin):
+    cfg = load_workflow(basin(BASE + ENSEMBLE))
+    ens = cfg.ensemble
+    assert ens.members == 6
+    assert ens.sampling == "latin_hypercube"  # the default
+    assert ens.percentiles == (10.0, 50.0, 90.0)  # the default of issue 12
+    keys = [s.key for s in ens.vary]  # quoted and dotted (nested-table) keys alike
+    assert keys[1] == "inputs.thermal_anomaly.plumes.1.peak_excess_k"
+    assert len(ens.configs) == 6
+    for row, member in zip(ens.samples, ens.configs, strict=True):
+        assert member.model.ambient_potential_temperature_c == row[0]
+        assert member.inputs.thermal_anomaly.plumes[0].peak_excess_k == row[1]
+        assert member.inputs.thermal_anomaly.scale == row[2]  # issue 13's key, reused
+        assert member.lithosphere.cooling == row[3]
+    assert "configs" not in cfg.to_dict()["ensemble"]
+    again = load_workflow(basin(BASE + ENSEMBLE))
+    assert again.ensemble.samples == ens.samples  # deterministic for a seed
+
+
+def test_ensemble_keys_take_set_overrides(basin):
+    cfg = load_workflow(
+        basin(BASE + ENSEMBLE), overrides=["ensemble.members=3", 'ensemble.sampling="random"']
+    )
+    assert cfg.ensemble.members == 3
+    assert cfg.ensemble.sampling == "random"
+
+
+def test_compute_scheduler_key(basin):
+    cfg = load_workflow(basin(BASE), overrides=['compute.scheduler="tcp://127.0.0.1:8786"'])
+    assert cfg.compute.scheduler == "tcp://127.0.0.1:8786"
+    assert load_workflow(basin(BASE)).compute.scheduler is None

@@ -25,6 +25,7 @@ __all__ = [
     "CRUST_DENSITY_RANGE_KG_M3",
     "DEFAULT_CRUST_DENSITY_KG_M3",
     "DEFAULT_OUTPUT_VARIABLES",
+    "DISTRIBUTIONS",
     "INPUT_NAMES",
     "INPUT_UNITS",
     "LID_ISOTHERM_RANGE_C",
@@ -33,7 +34,9 @@ __all__ = [
     "OUTPUT_VARIABLES",
     "PLUME_SHAPES",
     "RESAMPLING_METHODS",
+    "SAMPLING_METHODS",
     "ComputeOptions",
+    "EnsembleOptions",
     "GridSpec",
     "InputSpec",
     "Inputs",
@@ -44,6 +47,7 @@ __all__ = [
     "PlumeSpec",
     "RunConfig",
     "RunOptions",
+    "VarySpec",
 ]
 
 #: Output variables a run can write, in the order a run writes them.
@@ -74,6 +78,19 @@ AMBIENT_TP_RANGE_C: tuple[float, float] = (1000.0, 2000.0)
 #: Accepted lid isotherm, degrees C, exclusive bounds (common practice: above the surface and
 #: below any cooling model's mantle temperature).
 LID_ISOTHERM_RANGE_C: tuple[float, float] = (0.0, 1600.0)
+#: Distributions of ``[ensemble.vary]`` and the names of their parameters, in the order the
+#: workflow writes them (``normal = [mean, sd]``, ``lognormal = [median, sigma_ln]``: the
+#: natural logarithm is normal with that median and standard deviation; ``choice`` takes a list
+#: of values and optional ``weights``).
+DISTRIBUTIONS: dict[str, tuple[str, ...]] = {
+    "normal": ("mean", "sd"),
+    "uniform": ("low", "high"),
+    "lognormal": ("median", "sigma_ln"),
+    "triangular": ("low", "mode", "high"),
+    "choice": ("values",),
+}
+#: How the members are drawn: Latin hypercube (McKay, Beckman & Conover 1979) or plain random.
+SAMPLING_METHODS: tuple[str, ...] = ("latin_hypercube", "random")
 #: Smallest chunk side, cells (smaller chunks cost more in overhead than they save; common
 #: practice).
 MIN_CHUNK_SIZE = 64
@@ -383,11 +400,15 @@ class ComputeOptions:
     method : str
         One of :data:`METHODS`: ``"table"`` (interpolate a precomputed lookup table) or
         ``"direct"`` (integrate each column).
+    scheduler : str or None
+        Address of a dask.distributed scheduler (``"tcp://host:port"``) that evaluates the
+        ensemble; None: local threads (or the ``LIDMELT_SCHEDULER`` environment variable).
     """
 
     chunk_size: int = 1024
     workers: int = 2
     method: str = "table"
+    scheduler: str | None = None
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -396,6 +417,79 @@ class OutputOptions:
     the outputs that need an optional input when the workflow gives it)."""
 
     variables: tuple[str, ...] = DEFAULT_OUTPUT_VARIABLES
+
+
+@dataclass(frozen=True, kw_only=True)
+class VarySpec:
+    """One distribution of ``[ensemble.vary]``.
+
+    Parameters
+    ----------
+    key : str
+        The dotted workflow key it varies (the name ``--set`` takes).
+    distribution : str
+        One of :data:`DISTRIBUTIONS`.
+    parameters : tuple
+        The distribution's parameters in the order of :data:`DISTRIBUTIONS` (``choice``: the
+        values).
+    weights : tuple of float or None
+        ``choice`` only: relative weights of the values (None: equal).
+    """
+
+    key: str
+    distribution: str
+    parameters: tuple[Any, ...]
+    weights: tuple[float, ...] | None = None
+
+    def to_record(self) -> dict[str, Any]:
+        """``{"distribution": ..., <parameter name>: value, ...}`` for summary.json."""
+        if self.distribution == "choice":
+            rec: dict[str, Any] = {"distribution": "choice", "values": list(self.parameters)}
+            if self.weights is not None:
+                rec["weights"] = list(self.weights)
+            return rec
+        names = DISTRIBUTIONS[self.distribution]
+        return {"distribution": self.distribution, **dict(zip(names, self.parameters, strict=True))}
+
+
+@dataclass(frozen=True, kw_only=True)
+class EnsembleOptions:
+    """The ``[ensemble]`` table: members drawn from distributions of workflow keys.
+
+    Parameters
+    ----------
+    members : int
+        Number of members (default 200).
+    seed : int
+        Seed of the random generator; same workflow and seed, same members.
+    sampling : str
+        One of :data:`SAMPLING_METHODS`.
+    thresholds_km : tuple of float
+        Melt thicknesses T (km) of the ``melt_probability_ge_<T>km`` outputs.
+    percentiles : tuple of float
+        Percentiles (0-100) of the ``<output>_p<q>`` outputs (default 10, 50, 90).
+    memory_limit_gb : float
+        The run refuses an ensemble whose estimated memory exceeds this (GB, default 2).
+    vary : tuple of VarySpec
+        The distributions, in the order written.
+    samples : tuple of tuple
+        The drawn value of each varied key, per member (members x keys).
+    configs : tuple of RunConfig
+        Each member's configuration (the workflow with its drawn values); not in
+        :meth:`RunConfig.to_dict`.
+    """
+
+    members: int = 200
+    seed: int = 0
+    sampling: str = "latin_hypercube"
+    thresholds_km: tuple[float, ...] = ()
+    percentiles: tuple[float, ...] = (10.0, 50.0, 90.0)
+    memory_limit_gb: float = 2.0
+    vary: tuple[VarySpec, ...] = ()
+    samples: tuple[tuple[Any, ...], ...] = field(default=(), repr=False, compare=False)
+    configs: tuple[Any, ...] = field(
+        default=(), repr=False, compare=False, metadata={"record": False}
+    )
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -412,6 +506,8 @@ class RunConfig:
         The ``--set KEY=VALUE`` items applied, in order.
     run, grid, inputs, model, lithosphere, compute, outputs
         The validated tables.
+    ensemble : EnsembleOptions or None
+        The ``[ensemble]`` table, if the workflow has one.
     """
 
     workflow_path: Path
@@ -424,6 +520,7 @@ class RunConfig:
     lithosphere: LithosphereOptions
     compute: ComputeOptions
     outputs: OutputOptions
+    ensemble: EnsembleOptions | None = None
 
     def to_dict(self) -> dict[str, Any]:
         """A JSON-serialisable dict of the whole configuration, for provenance."""
@@ -433,7 +530,11 @@ class RunConfig:
 def _jsonable(obj: Any) -> Any:
     """``obj`` with dataclasses and mappings as dicts, paths as strings, tuples as lists."""
     if dataclasses.is_dataclass(obj) and not isinstance(obj, type):
-        return {f.name: _jsonable(getattr(obj, f.name)) for f in dataclasses.fields(obj)}
+        return {
+            f.name: _jsonable(getattr(obj, f.name))
+            for f in dataclasses.fields(obj)
+            if f.metadata.get("record", True)
+        }
     if isinstance(obj, Path):
         return str(obj)
     if isinstance(obj, Mapping):

@@ -59,8 +59,11 @@ __all__ = [
     "LazyRun",
     "RunInputs",
     "RunResult",
+    "StageContext",
     "build_kernel",
     "evaluate_chunk",
+    "kernel_arguments",
+    "kernel_settings",
     "lid_cooling_model",
     "load_inputs",
     "load_model",
@@ -74,12 +77,8 @@ __all__ = [
 _LID_INPUTS = ("plate_age_ma", "lid_thickness_km")
 #: The kernel's inputs, in the order of its positional arguments.
 _KERNEL_INPUTS = (
-    "plate_age_ma",
-    "lid_thickness_km",
-    "thermal_anomaly_k",
-    "water_wt_pct",
-    "upwelling_mm_yr",
-)
+    "plate_age_ma", "lid_thickness_km", "thermal_anomaly_k", "water_wt_pct", "upwelling_mm_yr"
+)  # fmt: skip
 #: Outputs whose area integral goes into the summary (km: volume km3; mm/yr: km3/yr).
 _INTEGRALS = ("anomaly_melt_thickness_km", "melt_production_mm_yr")
 
@@ -109,6 +108,21 @@ class RunInputs:
     def sources(self) -> dict[str, str]:
         """Where each input came from, for error messages: its file or "the workflow"."""
         return {n: (p.get("source") or "the workflow") for n, p in self.provenance.items()}
+
+
+@dataclass(frozen=True, kw_only=True)
+class StageContext:
+    """What :func:`run_basin` hands to an extra stage: ``stage(context) -> (files, entries)``."""
+
+    cfg: Any
+    run_dir: Path
+    target: Grid
+    inputs: RunInputs
+    model: Any
+    table: Any | None
+    cooling: Any | None
+    tags: dict[str, Any]
+    progress: bool | None
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -334,6 +348,27 @@ def _as_dask(value, chunks: int):
     return dsa.from_array(value.values, chunks=chunks)
 
 
+def kernel_settings(cfg, *, inputs: RunInputs, model, table, cooling) -> KernelSettings:
+    """The :class:`KernelSettings` of ``cfg`` for these inputs, model, table and cooling model."""
+    return KernelSettings(
+        model=model, table=table, cooling=cooling, lid_isotherm_c=cfg.lithosphere.lid_isotherm_c,
+        ambient_c=cfg.model.ambient_potential_temperature_c,
+        min_top_km=cfg.model.min_top_of_melting_km, method=cfg.compute.method,
+        sources=inputs.sources(), crust_density_kg_m3=cfg.model.crust_density_kg_m3,
+        upwelling="upwelling_mm_yr" in inputs.values,
+    )  # fmt: skip
+
+
+def kernel_arguments(inputs: RunInputs, *, template: xr.DataArray) -> list:
+    """The kernel's inputs: dask arrays chunked like ``template``, or constants (NaN: no lid)."""
+    import dask.array as dsa
+
+    chunks = template.data.chunks
+    values = [inputs.values.get(n, np.nan if n in _LID_INPUTS else 0.0) for n in _KERNEL_INPUTS]
+    args = [_as_dask(v, chunks) for v in values]
+    return [a.rechunk(chunks) if isinstance(a, dsa.Array) else a for a in args]
+
+
 def build_kernel(
     cfg, *, inputs: RunInputs, template: xr.DataArray, model, table, cooling
 ) -> LazyRun:
@@ -344,27 +379,12 @@ def build_kernel(
     """
     import dask.array as dsa
 
-    chunks = int(cfg.compute.chunk_size)
-    settings = KernelSettings(
-        model=model,
-        table=table,
-        cooling=cooling,
-        lid_isotherm_c=cfg.lithosphere.lid_isotherm_c,
-        ambient_c=cfg.model.ambient_potential_temperature_c,
-        min_top_km=cfg.model.min_top_of_melting_km,
-        method=cfg.compute.method,
-        sources=inputs.sources(),
-        crust_density_kg_m3=cfg.model.crust_density_kg_m3,
-        upwelling="upwelling_mm_yr" in inputs.values,
-    )
-    args = [
-        _as_dask(inputs.values.get(n, np.nan if n in _LID_INPUTS else 0.0), chunks)
-        for n in _KERNEL_INPUTS
-    ]
+    settings = kernel_settings(cfg, inputs=inputs, model=model, table=table, cooling=cooling)
+    args = kernel_arguments(inputs, template=template)
     scalars = tuple(None if isinstance(a, dsa.Array) else a for a in args)
     ref = template.data
     # with every input constant, the template alone carries the grid's chunks to the kernel
-    arrays = [a.rechunk(ref.chunks) for a in args if isinstance(a, dsa.Array)] or [ref]
+    arrays = [a for a in args if isinstance(a, dsa.Array)] or [ref]
     clock: dict[str, float] = {}
     stacked = dsa.map_blocks(
         _ChunkKernel(scalars, settings, clock),
@@ -478,36 +498,38 @@ def _reporter(show: bool | None) -> Callable[[int, int], None] | None:
 
 def _report(done: int, total: int, *, tty: bool) -> None:
     pct = 100 * done // total
-    if tty:
-        bar = "#" * (pct // 4)
-        end = "\n" if done == total else ""
-        print(f"\rlidmelt run: [{bar:<25}] {pct:3d} %", end=end, file=sys.stderr, flush=True)
-    else:
-        print(
-            f"lidmelt run: {pct:3d} % of the grid done ({done}/{total} bands)",
-            file=sys.stderr,
-            flush=True,
-        )
+    end = "\n" if done == total or not tty else ""
+    line = f"\rlidmelt run: [{'#' * (pct // 4):<25}] {pct:3d} %"
+    if not tty:
+        line = f"lidmelt run: {pct:3d} % of the grid done ({done}/{total} bands)"
+    print(line, end=end, file=sys.stderr, flush=True)
+
+
+def _run_stages(stages, context: StageContext, files: list[Path]) -> dict[str, Any]:
+    """Run each extra stage; add its files to ``files`` and return its summary entries."""
+    entries: dict[str, Any] = {}
+    for stage in stages:
+        stage_files, stage_entries = stage(context)
+        files += stage_files
+        entries.update(stage_entries)
+    return entries
 
 
 def run_basin(
-    cfg, *, output_dir: str | Path | None = None, progress: bool | None = None
+    cfg,
+    *,
+    output_dir: str | Path | None = None,
+    progress: bool | None = None,
+    extra_stages: tuple[Callable[[StageContext], tuple[list[Path], dict]], ...] = (),
 ) -> RunResult:
     """Run a whole basin from a workflow configuration; return what was written.
 
-    Parameters
-    ----------
-    cfg : RunConfig
-        From :func:`lidmelt.workflow.load_workflow`.
-    output_dir : path, optional
-        The run directory (default ``cfg.run.output_dir``).
-    progress : bool, optional
-        A progress bar (True), plain log lines (None when not on a terminal), or nothing (False).
-
-    Raises
-    ------
-    LidmeltError
-        For any bad input (file, grid, range, model); no output is left half-written.
+    ``cfg`` is a RunConfig (:func:`lidmelt.workflow.load_workflow`); ``output_dir`` the run
+    directory (default ``cfg.run.output_dir``); ``progress`` a progress bar (True), plain log
+    lines (None when not on a terminal) or nothing (False); ``extra_stages`` run after the
+    outputs are stored, each ``stage(StageContext) -> (files, summary entries)``. Raises
+    :class:`LidmeltError` for any bad input (file, grid, range, model); no output is left
+    half-written.
     """
     t0 = time.perf_counter()
     run_dir = Path(output_dir or cfg.run.output_dir)
@@ -553,6 +575,11 @@ def run_basin(
         )
         timings["netcdf_s"] = time.perf_counter() - t2
 
+    context = StageContext(
+        cfg=cfg, run_dir=run_dir, target=target, inputs=inputs, model=model, table=table,
+        cooling=cooling, tags=tags, progress=progress,
+    )  # fmt: skip
+    entries = _run_stages(extra_stages, context, files)
     summary = rundir.build_summary(
         cfg,
         grid=target,
@@ -564,6 +591,7 @@ def run_basin(
         statistics=statistics,
         warnings=run_warnings,
     )
+    summary.update(entries)
     files.append(rundir.write_summary(run_dir, summary))
     timings["total_s"] = time.perf_counter() - t0
     return RunResult(run_dir, files, summary, timings)

@@ -11,7 +11,7 @@ the definition lidmelt fixes (docs/physics.md, "Definitions").
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 
@@ -22,13 +22,16 @@ __all__ = [
     "FLAG_NODATA",
     "FLAG_VARIABLE",
     "INPUTS",
+    "MELT_PROBABILITY",
     "OUTPUTS",
     "VARIABLES",
     "Variable",
     "check_input_range",
     "default_outputs",
+    "ensemble_variable",
     "get_variable",
     "input_for_workflow_key",
+    "ordinal",
 ]
 
 
@@ -46,7 +49,7 @@ class Variable:
         Readable name for titles, tables and the CF ``long_name`` attribute.
     kind : str
         ``"output"`` (computed by the kernel), ``"input"`` (an aligned workflow input) or
-        ``"flag"`` (the validity bit flags).
+        ``"flag"`` (the validity bit flags) or ``"ensemble"`` (a reduction over ensemble members).
     style : str
         Key of the map style (colour scale, limits) in the presentation registry of the maps.
     valid_range : tuple of float, optional
@@ -258,8 +261,55 @@ DEFAULT_OUTPUTS: tuple[str, ...] = tuple(v.name for v in _OUTPUT_LIST if v.defau
 VARIABLES: dict[str, Variable] = {**OUTPUTS, **INPUTS, FLAG_VARIABLE.name: FLAG_VARIABLE}
 
 
+#: The fraction of ensemble members that melt (H > 0) in a cell.
+MELT_PROBABILITY = Variable(
+    name="melt_probability",
+    units="1",
+    long_name="probability of melting (fraction of the ensemble members with melt thickness > 0)",
+    kind="ensemble",
+    style="probability",
+)
+
+
+def ordinal(q: float) -> str:
+    """``10`` -> ``"10th"``, ``2`` -> ``"2nd"``, ``2.5`` -> ``"2.5th"`` (English ordinals)."""
+    text = f"{q:g}"
+    if not float(q).is_integer():
+        return f"{text}th"
+    n = int(q)
+    suffix = "th" if 10 <= n % 100 <= 20 else {1: "st", 2: "nd", 3: "rd"}.get(n % 10, "th")
+    return f"{text}{suffix}"
+
+
+def ensemble_variable(name: str) -> Variable | None:
+    """The Variable of an ensemble output name, or None if ``name`` is not one.
+
+    ``melt_probability``; ``melt_probability_ge_<T>km`` (fraction of members with melt
+    thickness >= T km); ``<output>_p<q>`` (the q-th percentile over the members of a registered
+    output; units and style of that output).
+    """
+    if name == MELT_PROBABILITY.name:
+        return MELT_PROBABILITY
+    prefix = "melt_probability_ge_"
+    if name.startswith(prefix) and name.endswith("km"):
+        threshold = name[len(prefix) : -2]
+        long_name = f"probability of melt thickness >= {threshold} km (fraction of members)"
+        return replace(MELT_PROBABILITY, name=name, long_name=long_name)
+    base, sep, q = name.rpartition("_p")
+    if sep and base in OUTPUTS and q.replace(".", "", 1).isdigit():
+        var = OUTPUTS[base]
+        plain = var.long_name.split(" (")[0]
+        long_name = f"{plain}, {ordinal(float(q))} percentile of the ensemble"
+        return replace(var, name=name, long_name=long_name, kind="ensemble", default=False)
+    return None
+
+
 def get_variable(name: str) -> Variable:
-    """The registered variable ``name``; an :class:`InputError` listing the names otherwise."""
+    """The registered variable ``name`` (or an ensemble output, :func:`ensemble_variable`);
+    an :class:`InputError` listing the names otherwise."""
+    derived = ensemble_variable(name)
+    if derived is not None:
+        return derived
     try:
         return VARIABLES[name]
     except KeyError:

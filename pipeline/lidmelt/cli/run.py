@@ -7,6 +7,7 @@ from pathlib import Path
 
 from lidmelt.cli._common import print_warnings
 from lidmelt.engine import run_basin
+from lidmelt.ensemble import ensemble_stages
 from lidmelt.products.maps import draw_run_maps
 from lidmelt.products.maps.overview import draw_overview
 from lidmelt.products.report import write_report
@@ -52,8 +53,9 @@ def register(subparsers: argparse._SubParsersAction) -> None:
 def run(args: argparse.Namespace) -> int:
     """Run the basin, draw its maps and report, and print what was written."""
     cfg = load_workflow(args.workflow, overrides=args.overrides, output_dir=args.output_dir)
+    stages = ensemble_stages(cfg, announce=not args.quiet)  # refuses what will not fit, first
     with print_warnings("run"):
-        result = run_basin(cfg, progress=False if args.quiet else None)
+        result = run_basin(cfg, progress=False if args.quiet else None, extra_stages=stages)
     files = list(result.files)
     if not args.no_maps and cfg.run.maps:
         maps = list(draw_run_maps(result.run_dir))

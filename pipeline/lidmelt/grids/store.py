@@ -146,6 +146,18 @@ class GeoTiffSet:
                     report(k + 1, len(bands))
         return results
 
+    def write_rows(self, row0: int, blocks: list[np.ndarray]) -> None:
+        """Write computed (rows, width) blocks, one per item in order, from row ``row0``.
+
+        For results computed elsewhere (e.g. on a dask.distributed cluster) instead of by
+        :meth:`compute`.
+        """
+        for item, windows, block in zip(self.items, self._windows, blocks, strict=True):
+            np_dtype = check_dtype_nodata(item.dtype, item.nodata)
+            rows, width = block.shape
+            target = windows.shifted(row0)
+            target[slice(0, rows), slice(0, width)] = convert_block(block, np_dtype, item.nodata)
+
     def __exit__(self, exc_type, exc, tb) -> None:
         if exc_type is not None:
             self._abort(exc_type, exc, tb)

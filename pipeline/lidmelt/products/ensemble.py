@@ -25,7 +25,7 @@ from __future__ import annotations
 
 import math
 import re
-from dataclasses import dataclass, replace
+from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
@@ -33,7 +33,7 @@ import pandas as pd
 
 from lidmelt.errors import InputError, RunDirError
 from lidmelt.grids.rundir import RunDir
-from lidmelt.variables import VARIABLES, Variable
+from lidmelt.variables import VARIABLES, Variable, ensemble_variable
 
 __all__ = [
     "LIKELY",
@@ -44,7 +44,6 @@ __all__ = [
     "EnsembleName",
     "ensemble_entry",
     "is_ensemble_output",
-    "ordinal",
     "parse_ensemble_name",
     "probability_grid",
     "probability_maps",
@@ -110,44 +109,10 @@ def is_ensemble_output(name: str) -> bool:
     return parse_ensemble_name(name) is not None
 
 
-def ordinal(q: float) -> str:
-    """``10`` -> ``"10th"``, ``2`` -> ``"2nd"``, ``2.5`` -> ``"2.5th"``."""
-    text = f"{q:g}"
-    if not float(q).is_integer():
-        return f"{text}th"
-    n = int(q)
-    suffix = "th" if 10 <= n % 100 <= 20 else {1: "st", 2: "nd", 3: "rd"}.get(n % 10, "th")
-    return f"{text}{suffix}"
-
-
 def variable_of(name: str) -> Variable | None:
-    """The variable ``name``: the registry's entry, else one derived from an ensemble name.
-
-    Returns None for a name that is neither registered nor an ensemble output.
-    """
-    if name in VARIABLES:
-        return VARIABLES[name]
-    parsed = parse_ensemble_name(name)
-    if parsed is None:
-        return None
-    if parsed.kind == "probability":
-        long_name = "probability of melting (fraction of the ensemble members that melt)"
-        if parsed.threshold_km is not None:
-            long_name = (
-                f"probability of melt thickness >= {parsed.threshold_km:g} km (fraction of the "
-                "ensemble members)"
-            )
-        return Variable(
-            name=name, units="1", long_name=long_name, style=PROBABILITY_STYLE, default=False
-        )
-    base = VARIABLES[parsed.base]
-    return replace(
-        base,
-        name=name,
-        long_name=f"{ordinal(parsed.percentile)} percentile over the ensemble of the "
-        f"{base.long_name}",
-        default=False,
-    )
+    """The variable ``name``: the registry's entry or the ensemble output it names
+    (:func:`lidmelt.variables.ensemble_variable`); None for any other name."""
+    return VARIABLES.get(name) or ensemble_variable(name)
 
 
 def probability_maps(run: RunDir) -> list[str]:

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import dataclasses
 import tomllib
 from collections.abc import Sequence
 from pathlib import Path
@@ -10,6 +11,7 @@ from typing import Any
 from lidmelt.config import RunConfig
 from lidmelt.errors import LidmeltError, WorkflowError
 from lidmelt.workflow.checks import Context
+from lidmelt.workflow.ensemble import read_ensemble
 from lidmelt.workflow.overrides import apply_override
 from lidmelt.workflow.tables import read_config
 
@@ -81,7 +83,20 @@ def load_workflow(
         ctx, tree, workflow_path=workflow_path, text=text, overrides=items, output_dir=output_dir
     )
     validate_models(cfg)
-    return cfg
+    checked: set[tuple] = {(cfg.model, cfg.lithosphere)}
+
+    def member(mctx: Context, member_tree: dict[str, Any]) -> RunConfig:
+        member_cfg = read_config(
+            mctx, member_tree, workflow_path=workflow_path, text=text, overrides=items,
+            output_dir=output_dir,
+        )  # fmt: skip
+        if (member_cfg.model, member_cfg.lithosphere) not in checked:
+            validate_models(member_cfg)
+            checked.add((member_cfg.model, member_cfg.lithosphere))
+        return member_cfg
+
+    ensemble = read_ensemble(ctx, tree, member)
+    return cfg if ensemble is None else dataclasses.replace(cfg, ensemble=ensemble)
 
 
 def validate_models(cfg: RunConfig) -> None:

@@ -28,7 +28,7 @@ _PLUME_KEYS = (
 #: keys are checked by the model functions (see ``validate_models``); ``"[]"`` marks an array of
 #: tables.
 SCHEMA: dict[str, tuple[str, ...]] = {
-    "": ("run", "grid", "inputs", "model", "lithosphere", "compute", "outputs"),
+    "": ("run", "grid", "inputs", "model", "lithosphere", "compute", "outputs", "ensemble"),
     "run": ("name", "output_dir", "netcdf", "maps", "report"),
     "grid": ("like", "extent", "resolution", "crs"),
     "inputs": INPUT_NAMES,
@@ -52,8 +52,18 @@ SCHEMA: dict[str, tuple[str, ...]] = {
     "model.parameters": ("*",),
     "lithosphere": ("cooling", "lid_isotherm_c", "parameters"),
     "lithosphere.parameters": ("*",),
-    "compute": ("chunk_size", "workers", "method"),
+    "compute": ("chunk_size", "workers", "method", "scheduler"),
     "outputs": ("variables",),
+    "ensemble": (
+        "members",
+        "seed",
+        "sampling",
+        "thresholds_km",
+        "percentiles",
+        "memory_limit_gb",
+        "vary",
+    ),
+    "ensemble.vary": ("*",),
 }
 #: The tables of :data:`SCHEMA` (not the arrays of tables).
 TABLES = frozenset(k for k in SCHEMA if k and not k.endswith("[]"))

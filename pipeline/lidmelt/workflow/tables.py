@@ -300,6 +300,7 @@ _COMPUTE_READERS: dict[str, Reader] = {
         example="2",
     ),
     "method": partial(choice, choices=METHODS),
+    "scheduler": partial(string, example="tcp://127.0.0.1:8786"),
 }
 
 

@@ -84,6 +84,4 @@ def draw_candidate_labels(
     bounding box, clear of the plume and station marks near its centre (kept in the frame)."""
     for geom, text in zip(candidates, labels, strict=False):
         west, _, _, north = geom.bounds
-        place_label(
-            ax, west, north, text, fontsize=0.85 * fs, color=CANDIDATE_COLOR, weight="bold"
-        )
+        place_label(ax, west, north, text, fontsize=0.85 * fs, color=CANDIDATE_COLOR, weight="bold")

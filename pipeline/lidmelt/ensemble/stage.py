@@ -1,0 +1,254 @@
+"""The ensemble stage of a run: members grouped, memory checked, chunks reduced and written.
+
+Members whose workflows differ only in ``[inputs]`` share one melting model and table; each
+distinct model (name and parameters) builds one table (cached on disk like every table) and the
+summary reports how many. Members with the same inputs share their input blocks. The grid is
+computed one row of chunks at a time, each chunk one task (:func:`lidmelt.ensemble.kernel.
+reduce_chunk`) on local threads or on a dask.distributed scheduler (``[compute] scheduler`` or
+the ``LIDMELT_SCHEDULER`` environment variable); the reduced rows are written here.
+"""
+
+from __future__ import annotations
+
+import os
+import sys
+import time
+import uuid
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from lidmelt.engine import (
+    StageContext,
+    kernel_arguments,
+    kernel_settings,
+    lid_cooling_model,
+    load_inputs,
+    load_model,
+)
+from lidmelt.ensemble.drivers import drivers, total_statistics
+from lidmelt.ensemble.kernel import QUANTUM, TOTALS, MemberPlan, layer_names, reduce_chunk
+from lidmelt.errors import WorkflowError
+from lidmelt.files import write_text_atomic
+from lidmelt.grids import rundir
+from lidmelt.grids.area import cell_area_km2
+from lidmelt.grids.store import GeoTiffItem, GeoTiffSet
+from lidmelt.variables import ensemble_variable
+
+__all__ = [
+    "MEMBERS_FILE",
+    "SCHEDULER_ENV",
+    "check_memory",
+    "ensemble_stages",
+    "estimate_memory_bytes",
+    "run_ensemble_stage",
+]
+
+#: The members' sampled values and basin totals, in the run directory.
+MEMBERS_FILE = "ensemble_members.csv"
+#: Environment variable naming a dask.distributed scheduler when the workflow gives none.
+SCHEDULER_ENV = "LIDMELT_SCHEDULER"
+#: Bytes per cell of one member's kernel evaluation in flight (float64 temporaries of the
+#: column evaluation and the stacked outputs; measured with bench_ensemble.py, rounded up).
+_KERNEL_BYTES_PER_CELL = 400
+#: Inputs per group held per cell (float64).
+_INPUT_BYTES_PER_CELL = 5 * 8
+
+
+def estimate_memory_bytes(cfg, *, groups: int | None = None) -> int:
+    """Peak memory of the ensemble: per worker, one chunk of every member's kept outputs (three
+    float32 layers and their sorted copy), the input blocks of every input group, one member's
+    kernel temporaries and the reduced layers."""
+    ens = cfg.ensemble
+    side = int(cfg.compute.chunk_size)
+    cells = side * side
+    groups = groups if groups is not None else len({c.inputs for c in ens.configs}) or 1
+    layers = len(layer_names(ens.thresholds_km, ens.percentiles))
+    per_cell = (
+        ens.members * 3 * 4 * 2
+        + groups * _INPUT_BYTES_PER_CELL
+        + _KERNEL_BYTES_PER_CELL
+        + layers * 4 * 2
+    )
+    return int(cells * per_cell * max(1, int(cfg.compute.workers)))
+
+
+def check_memory(cfg) -> float:
+    """The ensemble's estimated memory in GB; a WorkflowError if over ``memory_limit_gb``."""
+    need = estimate_memory_bytes(cfg) / 1e9
+    limit = cfg.ensemble.memory_limit_gb
+    if need > limit:
+        msg = (
+            f"the ensemble of {cfg.ensemble.members} members with compute.chunk_size = "
+            f"{cfg.compute.chunk_size} and {cfg.compute.workers} workers needs about {need:.3g} "
+            f"GB, over ensemble.memory_limit_gb = {limit:g} GB; memory grows with chunk_size^2 x "
+            "members x workers. Lower compute.chunk_size (e.g. 256) or compute.workers, or raise "
+            "ensemble.memory_limit_gb if the machine has the memory."
+        )
+        raise WorkflowError(msg)
+    return need
+
+
+def ensemble_stages(cfg, *, announce: bool = True) -> tuple:
+    """The extra stages of :func:`lidmelt.engine.run_basin` for ``cfg``: the ensemble, if the
+    workflow has one, its memory checked (and stated on stderr) before the run starts."""
+    if getattr(cfg, "ensemble", None) is None:
+        return ()
+    need = check_memory(cfg)
+    if announce:
+        ens = cfg.ensemble
+        print(
+            f"lidmelt run: ensemble of {ens.members} members ({ens.sampling}, seed {ens.seed}), "
+            f"about {need:.3g} GB of memory (limit {ens.memory_limit_gb:g} GB)",
+            file=sys.stderr,
+        )
+    return (run_ensemble_stage,)
+
+
+def _table_key(cfg) -> tuple:
+    """What a melting table depends on: the model's name and parameter overrides."""
+    return (cfg.model.name, cfg.model.parameters)
+
+
+def _plan(context: StageContext) -> tuple[MemberPlan, list[list], int]:
+    """The members' plan, each input group's kernel arguments, and the tables built."""
+    cfg = context.cfg
+    ens = cfg.ensemble
+    chunks = int(cfg.compute.chunk_size)
+    template = context.target.template(chunks)
+    groups: dict[Any, tuple[int, Any]] = {cfg.inputs: (0, context.inputs)}
+    models: dict[Any, tuple] = {_table_key(cfg): (context.model, context.table)}
+    coolings: dict[Any, Any] = {}
+    settings, member_groups = [], []
+    for member in ens.configs:
+        if member.inputs not in groups:
+            inputs = load_inputs(member, target=context.target, chunks=chunks)
+            groups[member.inputs] = (len(groups), inputs)
+        index, inputs = groups[member.inputs]
+        if _table_key(member) not in models:
+            models[_table_key(member)] = load_model(member)
+        model, table = models[_table_key(member)]
+        if member.lithosphere not in coolings:
+            coolings[member.lithosphere] = lid_cooling_model(member, inputs=inputs)
+        cooling = coolings[member.lithosphere]
+        if "plate_age_ma" not in inputs.values:
+            cooling = None
+        settings.append(
+            kernel_settings(member, inputs=inputs, model=model, table=table, cooling=cooling)
+        )
+        member_groups.append(index)
+    args = [kernel_arguments(inputs, template=template) for _, inputs in groups.values()]
+    scalars = tuple(tuple(None if hasattr(a, "dask") else a for a in arg) for arg in args)
+    used = {_table_key(m) for m in ens.configs}
+    tables = len(used) if cfg.compute.method == "table" else 0
+    plan = MemberPlan(tuple(settings), tuple(member_groups), scalars, ens.thresholds_km,
+                      ens.percentiles)  # fmt: skip
+    return plan, [[a for a in arg if hasattr(a, "dask")] for arg in args], tables
+
+
+def _scheduler(cfg):
+    """A dask.distributed client for the workflow's scheduler, or None (local threads)."""
+    address = cfg.compute.scheduler or os.environ.get(SCHEDULER_ENV) or None
+    if not address:
+        return None
+    from distributed import Client
+
+    try:
+        return Client(address, timeout="20s", set_as_default=False)
+    except OSError as exc:
+        msg = (
+            f"cannot reach the dask scheduler {address!r} (compute.scheduler or "
+            f"{SCHEDULER_ENV}): {exc}. Start it (dask scheduler) or remove the setting."
+        )
+        raise WorkflowError(msg) from exc
+
+
+def _compute_rows(context: StageContext, plan: MemberPlan, group_arrays, write) -> np.ndarray:
+    """Reduce every chunk, one row of chunks at a time; ``write(row0, layers)`` each row."""
+    import dask
+
+    cfg = context.cfg
+    chunks = int(cfg.compute.chunk_size)
+    area = cell_area_km2(context.target, chunks=chunks).data
+    template = context.target.template(chunks).data
+    area = area.rechunk(template.chunks).to_delayed()
+    blocks = [[a.to_delayed() for a in arrays] for arrays in group_arrays]
+    token = uuid.uuid4().hex
+    plan_d = dask.delayed(plan, name=f"lidmelt-ensemble-plan-{token}", traverse=False)
+    client = _scheduler(cfg)
+    totals = np.zeros((len(TOTALS), len(plan.settings)), np.int64)
+    kwargs = {"scheduler": "threads", "num_workers": int(cfg.compute.workers)}
+    if client is not None:
+        kwargs = {"scheduler": client.get}
+    try:
+        row0 = 0
+        for i in range(area.shape[0]):
+            tasks = [
+                dask.delayed(reduce_chunk, pure=True)(
+                    plan_d,
+                    area[i, j],
+                    [[b[i, j] for b in g] for g in blocks],
+                    dask_key_name=f"lidmelt-ensemble-{token}-{i}-{j}",
+                )
+                for j in range(area.shape[1])
+            ]
+            results = dask.compute(*tasks, **kwargs)
+            layers = np.concatenate([r[0] for r in results], axis=2)
+            for r in results:
+                totals += r[1]
+            write(row0, list(layers))
+            row0 += layers.shape[1]
+    finally:
+        if client is not None:
+            client.close()
+    return totals
+
+
+def _members_csv(ens, totals: np.ndarray) -> str:
+    """The text of :data:`MEMBERS_FILE`: member, each varied key, the basin totals."""
+    head = ["member", *(s.key for s in ens.vary), *TOTALS]
+    rows = [",".join(head)]
+    for m, sample in enumerate(ens.samples):
+        cells = [str(m + 1), *(repr(v) if not isinstance(v, str) else v for v in sample)]
+        cells += [repr(float(v)) for v in totals[:, m]]
+        rows.append(",".join(cells))
+    return "\n".join(rows) + "\n"
+
+
+def run_ensemble_stage(context: StageContext) -> tuple[list[Path], dict[str, Any]]:
+    """Evaluate the ensemble of ``context.cfg`` and write its layers, CSV and summary entry."""
+    t0 = time.perf_counter()
+    cfg = context.cfg
+    ens = cfg.ensemble
+    plan, group_arrays, tables = _plan(context)
+    names = layer_names(ens.thresholds_km, ens.percentiles)
+    template = context.target.template(int(cfg.compute.chunk_size))
+    items = []
+    for name in names:
+        var = ensemble_variable(name)
+        tags = {**context.tags, "variable": name, "units": var.units}
+        path = context.run_dir / rundir.output_file(name)
+        items.append(GeoTiffItem(template, path, var.long_name, var.units, tags))
+    with GeoTiffSet(items, cog=True) as out:
+        totals = _compute_rows(context, plan, group_arrays, out.write_rows) * QUANTUM
+    files = [item.path for item in items]
+    files.append(write_text_atomic(context.run_dir / MEMBERS_FILE, _members_csv(ens, totals)))
+    entry = {
+        "members": ens.members,
+        "seed": ens.seed,
+        "sampling": ens.sampling,
+        "vary": {spec.key: spec.to_record() for spec in ens.vary},
+        "thresholds_km": list(ens.thresholds_km),
+        "percentiles": list(ens.percentiles),
+        "tables_built": tables,
+        "input_groups": len(plan.scalars),
+        "memory_estimate_gb": estimate_memory_bytes(cfg, groups=len(plan.scalars)) / 1e9,
+        "outputs": names,
+        "totals": {
+            name: total_statistics(totals[k], ens.percentiles) for k, name in enumerate(TOTALS)
+        },
+        "drivers": drivers(ens.vary, ens.samples, totals[1]),
+        "compute_s": time.perf_counter() - t0,
+    }
+    return files, {"ensemble": entry}

@@ -1,0 +1,196 @@
+"""Reading the ``[ensemble]`` table: members, seed, sampling, outputs and ``[ensemble.vary]``.
+
+Each key of ``[ensemble.vary]`` is a dotted workflow key, the name ``--set`` takes (quoted,
+``"model.ambient_potential_temperature_c" = {normal = [1350, 25]}``, or written as nested
+tables), with one distribution of :data:`lidmelt.config.DISTRIBUTIONS`. The members are drawn
+by :func:`lidmelt.ensemble.sampling.draw_members`, and every member's workflow (the file with
+its drawn values written in, like ``--set`` items) is validated like the file itself, so a
+member outside a key's accepted range is refused before the run starts.
+"""
+
+from __future__ import annotations
+
+import copy
+import json
+import math
+import re
+from collections.abc import Callable
+from typing import Any
+
+from lidmelt.config import DISTRIBUTIONS, SAMPLING_METHODS, EnsembleOptions, RunConfig, VarySpec
+from lidmelt.ensemble.sampling import draw_members
+from lidmelt.errors import WorkflowError
+from lidmelt.workflow.checks import Context, at_least, choice, in_range, number, table, wrong_type
+from lidmelt.workflow.overrides import apply_override
+from lidmelt.workflow.schema import ALL_KEYS
+
+__all__ = ["read_ensemble"]
+
+#: Tables whose keys an ensemble may vary (the others describe the run, not the model).
+_VARIABLE_TABLES = ("model.", "lithosphere.", "inputs.")
+#: Keys that are not scalars of the model (paths, names, file layout).
+_FIXED_LEAVES = ("path", "variable", "resampling", "name", "crs", "units", "x_name", "y_name")
+
+
+def read_ensemble(
+    ctx: Context, tree: dict[str, Any], build: Callable[[Context, dict[str, Any]], RunConfig]
+) -> EnsembleOptions | None:
+    """The ``[ensemble]`` table of ``tree`` (None without one), members drawn and validated.
+
+    ``build(ctx, member_tree)`` reads one member's tree into a RunConfig (the workflow reader).
+    """
+    if "ensemble" not in tree:
+        return None
+    values = table(ctx, "ensemble", tree["ensemble"])
+    opts: dict[str, Any] = {}
+    if "members" in values:
+        opts["members"] = at_least(
+            ctx, "ensemble.members", values["members"], 2, unit=" members",
+            advice="members (a few hundred give probabilities to about 0.05).", example="200",
+        )  # fmt: skip
+    if "seed" in values:
+        opts["seed"] = at_least(
+            ctx, "ensemble.seed", values["seed"], 0, unit="", advice="(any whole number).",
+            example="1",
+        )  # fmt: skip
+    if "sampling" in values:
+        opts["sampling"] = choice(ctx, "ensemble.sampling", values["sampling"], SAMPLING_METHODS)
+    for key, low, high, unit in (("thresholds_km", 0.0, 1000.0, "km"), ("percentiles", 0, 100, "")):
+        if key in values:
+            opts[key] = _numbers(ctx, f"ensemble.{key}", values[key], low, high, unit)
+    if "memory_limit_gb" in values:
+        opts["memory_limit_gb"] = in_range(
+            ctx, "ensemble.memory_limit_gb", values["memory_limit_gb"], 0.01, 1.0e6, "GB",
+            "give the memory the run may use, in GB",
+        )  # fmt: skip
+    vary = tuple(_read_vary(ctx, table(ctx, "ensemble.vary", values.get("vary", {}))))
+    base = EnsembleOptions(**opts, vary=vary)
+    samples = draw_members(vary, base.members, seed=base.seed, sampling=base.sampling)
+    member_tree = {k: v for k, v in tree.items() if k != "ensemble"}
+    configs = tuple(
+        _member_config(ctx, member_tree, vary, row, i, build)
+        for i, row in enumerate(samples, start=1)
+    )
+    return EnsembleOptions(**opts, vary=vary, samples=samples, configs=configs)
+
+
+def _numbers(ctx: Context, key: str, value: Any, low: float, high: float, unit: str) -> tuple:
+    if not isinstance(value, list):
+        raise wrong_type(ctx, key, value, "an array of numbers", f"{key.rsplit('.', 1)[-1]} = [1]")
+    out = tuple(in_range(ctx, key, v, low, high, unit, "see docs/workflow.md") for v in value)
+    if len(set(out)) != len(out):
+        msg = f"{ctx.where(key)} lists a value twice ({list(out)}); list each once."
+        raise WorkflowError(msg)
+    return out
+
+
+def _leaves(values: dict[str, Any], prefix: str = "") -> list[tuple[str, dict[str, Any]]]:
+    """(dotted key, distribution table) pairs of a possibly nested ``[ensemble.vary]``."""
+    out = []
+    for name, value in values.items():
+        key = f"{prefix}.{name}" if prefix else name
+        if isinstance(value, dict) and not set(value) & set(DISTRIBUTIONS):
+            out.extend(_leaves(value, key))
+        else:
+            out.append((key, value))
+    return out
+
+
+def _check_key(ctx: Context, where: str, key: str) -> None:
+    pattern = re.sub(r"\.\d+\.", ".N.", key)
+    free = key.startswith(("model.parameters.", "lithosphere.parameters."))
+    leaf = key.rsplit(".", 1)[-1]
+    known = free or (pattern in ALL_KEYS and not pattern.endswith("plumes_file"))
+    if key.startswith(_VARIABLE_TABLES) and leaf not in _FIXED_LEAVES and known:
+        return
+    msg = (
+        f"{ctx.where(where)}: {key!r} is not a workflow key an ensemble can vary; expected the "
+        "dotted name of a scalar key of [model], [lithosphere] or [inputs] as --set takes it, "
+        "e.g. model.ambient_potential_temperature_c, inputs.water.constant, "
+        "inputs.thermal_anomaly.plumes.1.peak_excess_k (see docs/workflow.md)."
+    )
+    raise WorkflowError(msg)
+
+
+def _read_vary(ctx: Context, values: dict[str, Any]) -> list[VarySpec]:
+    specs = []
+    example = '"model.ambient_potential_temperature_c" = { normal = [1350.0, 25.0] }'
+    for key, dist in _leaves(values):
+        where = f"ensemble.vary.{key}"
+        _check_key(ctx, "ensemble.vary", key)
+        if not isinstance(dist, dict):
+            raise wrong_type(ctx, where, dist, "a table naming one distribution", example)
+        kinds = [k for k in dist if k in DISTRIBUTIONS]
+        extra = sorted(set(dist) - set(DISTRIBUTIONS) - {"weights"})
+        if len(kinds) != 1 or extra:
+            msg = (
+                f"{ctx.where(where)} is {dist!r}; expected exactly one of "
+                f"{', '.join(DISTRIBUTIONS)} (and 'weights' with choice), e.g. {example}."
+            )
+            raise WorkflowError(msg)
+        specs.append(_read_distribution(ctx, where, key, kinds[0], dist))
+    return specs
+
+
+def _read_distribution(ctx: Context, where: str, key: str, kind: str, dist: dict) -> VarySpec:
+    raw = dist[kind]
+    names = DISTRIBUTIONS[kind]
+    if kind == "choice":
+        if not isinstance(raw, list) or not raw:
+            raise wrong_type(
+                ctx, f"{where}.choice", raw, "a non-empty array", 'choice = ["a", "b"]'
+            )
+        weights = None
+        if "weights" in dist:
+            weights = _numbers_free(ctx, f"{where}.weights", dist["weights"], len(raw))
+        return VarySpec(key=key, distribution=kind, parameters=tuple(raw), weights=weights)
+    if "weights" in dist:
+        msg = f"{ctx.where(where)} gives weights; they belong to choice only."
+        raise WorkflowError(msg)
+    if not isinstance(raw, list) or len(raw) != len(names):
+        shape = f"[{', '.join(names)}]"
+        raise wrong_type(ctx, f"{where}.{kind}", raw, f"an array {shape}", f"{kind} = {shape}")
+    params = tuple(number(ctx, f"{where}.{kind}", v, unit="the key's unit") for v in raw)
+    bad = {
+        "normal": params[-1] < 0,
+        "uniform": params[0] > params[-1],
+        "lognormal": params[0] <= 0 or params[-1] < 0,
+        "triangular": not params[0] <= params[1] <= params[-1],
+    }[kind]
+    if bad:
+        rules = {
+            "normal": "sd >= 0",
+            "uniform": "low <= high",
+            "lognormal": "median > 0 and sigma_ln >= 0",
+            "triangular": "low <= mode <= high",
+        }
+        msg = f"{ctx.where(where)}: {kind} = {list(raw)} needs {rules[kind]}; fix the values."
+        raise WorkflowError(msg)
+    return VarySpec(key=key, distribution=kind, parameters=params)
+
+
+def _numbers_free(ctx: Context, key: str, value: Any, count: int) -> tuple[float, ...]:
+    if not isinstance(value, list) or len(value) != count:
+        raise wrong_type(ctx, key, value, f"an array of {count} weights (one per value)", "[1, 1]")
+    out = tuple(number(ctx, key, v, unit="(relative weight)") for v in value)
+    if any(w < 0 for w in out) or not math.fsum(out) > 0:
+        msg = f"{ctx.where(key)} is {list(out)}; expected weights >= 0, not all 0."
+        raise WorkflowError(msg)
+    return out
+
+
+def _member_config(
+    ctx: Context,
+    tree: dict[str, Any],
+    vary: tuple[VarySpec, ...],
+    row: tuple[Any, ...],
+    index: int,
+    build: Callable[[Context, dict[str, Any]], RunConfig],
+) -> RunConfig:
+    """Member ``index``'s configuration: ``tree`` with its drawn values written in."""
+    member = copy.deepcopy(tree)
+    mctx = Context(f"{ctx.source} (ensemble member {index})", dict(ctx.set_keys))
+    for spec, value in zip(vary, row, strict=True):
+        literal = json.dumps(value) if isinstance(value, str) else repr(value)
+        apply_override(mctx, member, f"{spec.key}={literal}")
+    return build(mctx, member)
