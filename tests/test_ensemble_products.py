@@ -17,6 +17,7 @@ from __future__ import annotations
 import base64
 import json
 import re
+from pathlib import Path
 
 import numpy as np
 import pandas as pd
@@ -437,3 +438,29 @@ def test_pdf_puts_the_section_figures_on_pages(ensemble_run):
     assert 'id="ensemble"' not in html
     without = len(re.findall(rb"/Type\s*/Page\b", (run / "report.pdf").read_bytes()))
     assert with_section >= without + 2
+
+
+@pytest.mark.slow
+def test_an_ensemble_run_lists_its_layers_as_outputs(tmp_path):
+    """The ensemble's layers are outputs of the run like any other (summary "outputs"), so
+    every product finds them; the default maps take the probability maps, not the percentiles.
+    Check values: the layer names of the ensemble contract (docs/workflow.md [ensemble])."""
+    from lidmelt.engine import run_basin
+    from lidmelt.ensemble import ensemble_stages
+    from lidmelt.grids.rundir import open_run
+    from lidmelt.products.maps.write import default_map_variables
+    from lidmelt.workflow import load_workflow
+
+    root = Path(__file__).resolve().parents[1]
+    cfg = load_workflow(
+        root / "workflows" / "demo_ensemble.toml",
+        overrides=["ensemble.members=4", "compute.chunk_size=512"],
+        output_dir=tmp_path / "ens",
+    )
+    result = run_basin(cfg, progress=False, extra_stages=ensemble_stages(cfg, announce=False))
+    run = open_run(result.run_dir)
+    assert {"melt_probability", "melt_thickness_km_p50"} <= set(run.outputs)
+    assert run.open("melt_probability").attrs["units"] == "1"
+    mapped = default_map_variables(run)
+    assert "melt_probability" in mapped
+    assert "melt_thickness_km_p50" not in mapped

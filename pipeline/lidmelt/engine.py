@@ -527,7 +527,8 @@ def run_basin(
     ``cfg`` is a RunConfig (:func:`lidmelt.workflow.load_workflow`); ``output_dir`` the run
     directory (default ``cfg.run.output_dir``); ``progress`` a progress bar (True), plain log
     lines (None when not on a terminal) or nothing (False); ``extra_stages`` run after the
-    outputs are stored, each ``stage(StageContext) -> (files, summary entries)``. Raises
+    outputs are stored, each ``stage(StageContext) -> (files, summary entries)`` (an
+    ``"outputs"`` entry adds to the run's outputs). Raises
     :class:`LidmeltError` for any bad input (file, grid, range, model); no output is left
     half-written.
     """
@@ -579,7 +580,6 @@ def run_basin(
         cfg=cfg, run_dir=run_dir, target=target, inputs=inputs, model=model, table=table,
         cooling=cooling, tags=tags, progress=progress,
     )  # fmt: skip
-    entries = _run_stages(extra_stages, context, files)
     summary = rundir.build_summary(
         cfg,
         grid=target,
@@ -590,8 +590,8 @@ def run_basin(
         outputs=list(lazy.outputs),
         statistics=statistics,
         warnings=run_warnings,
+        extra=_run_stages(extra_stages, context, files),
     )
-    summary.update(entries)
     files.append(rundir.write_summary(run_dir, summary))
     timings["total_s"] = time.perf_counter() - t0
     return RunResult(run_dir, files, summary, timings)

@@ -251,4 +251,8 @@ def run_ensemble_stage(context: StageContext) -> tuple[list[Path], dict[str, Any
         "drivers": drivers(ens.vary, ens.samples, totals[1]),
         "compute_s": time.perf_counter() - t0,
     }
-    return files, {"ensemble": entry}
+    outputs = {
+        name: {"file": item.path.name, "units": item.units, "long_name": item.description}
+        for name, item in zip(names, items, strict=True)
+    }
+    return files, {"ensemble": entry, "outputs": outputs}

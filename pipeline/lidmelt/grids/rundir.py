@@ -318,6 +318,7 @@ def build_summary(
     outputs: Sequence[str],
     statistics: Mapping[str, Any],
     warnings: Sequence[str] = (),
+    extra: Mapping[str, Any] | None = None,
 ) -> dict[str, Any]:
     """The ``summary.json`` document of a run (keys in the module docstring).
 
@@ -339,8 +340,12 @@ def build_summary(
         The ``statistics`` entry, JSON-ready (no NaN).
     warnings : sequence of str
         The run's warnings (e.g. much of the grid melting at the ambient temperature).
+    extra : mapping, optional
+        Entries of further stages (e.g. ``"ensemble"``); an ``"outputs"`` entry adds to the
+        outputs.
     """
-    return {
+    extra = dict(extra or {})
+    doc = {
         "lidmelt_run": RUN_FORMAT_VERSION,
         "lidmelt_version": __version__,
         "created_utc": datetime.now(UTC).strftime("%Y-%m-%dT%H:%M:%SZ"),
@@ -352,15 +357,7 @@ def build_summary(
             "sources": dict(model.sources),
         },
         "ambient_potential_temperature_c": cfg.model.ambient_potential_temperature_c,
-        "cooling": None
-        if cooling is None
-        else {
-            "name": cooling.name,
-            "lid_isotherm_c": cfg.lithosphere.lid_isotherm_c,
-            "parameters": cooling.parameters(),
-            "reference": cooling.reference,
-            "sources": dict(cooling.sources),
-        },
+        "cooling": _cooling_entry(cfg, cooling),
         "min_top_of_melting_km": cfg.model.min_top_of_melting_km,
         "method": cfg.compute.method,
         "inputs": {
@@ -385,6 +382,21 @@ def build_summary(
         "workflow_file": str(cfg.workflow_path),
         "workflow_overrides": list(cfg.overrides),
         "workflow": cfg.text,
+    }
+    doc["outputs"].update(extra.pop("outputs", {}))
+    return {**doc, **extra}
+
+
+def _cooling_entry(cfg: Any, cooling: Any | None) -> dict[str, Any] | None:
+    """The summary's ``cooling`` entry (None when a lid grid gave the lid everywhere)."""
+    if cooling is None:
+        return None
+    return {
+        "name": cooling.name,
+        "lid_isotherm_c": cfg.lithosphere.lid_isotherm_c,
+        "parameters": cooling.parameters(),
+        "reference": cooling.reference,
+        "sources": dict(cooling.sources),
     }
 
 

@@ -27,6 +27,7 @@ from lidmelt.products.maps.figure import (
     render_map,
     resolve_options,
 )
+from lidmelt.variables import ensemble_variable
 
 __all__ = [
     "FORMATS",
@@ -46,8 +47,14 @@ REPEATS = {"onset_pressure_gpa": "onset_depth_km"}
 
 
 def default_map_variables(run: RunDir) -> list[str]:
-    """The outputs mapped by default: every output except those whose map repeats another's."""
-    return [n for n in run.outputs if REPEATS.get(n) not in run.outputs]
+    """The outputs mapped by default: every output except those whose map repeats another's,
+    and of an ensemble's layers the probability maps (percentile maps on request only)."""
+    return [
+        n
+        for n in run.outputs
+        if REPEATS.get(n) not in run.outputs
+        and (ensemble_variable(n) is None or ensemble_variable(n).style == "probability")
+    ]
 
 
 def _check_suffix(path: Path) -> str:
