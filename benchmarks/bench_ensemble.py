@@ -33,8 +33,13 @@ def measure(workflow: Path, out: Path, overrides: list[str]) -> dict[str, float]
     from lidmelt.workflow import load_workflow
 
     plain = load_workflow(workflow, overrides=overrides, output_dir=out / "single")
-    single = run_basin(dataclasses.replace(plain, ensemble=None), progress=False)
-    kernel_s = single.timings_s.get("lid_thread_s", 0.0) + single.timings_s["melting_thread_s"]
+    # the single run three times, its fastest kernel (the machine is shared: the least noisy
+    # figure, and the strictest bound for the ensemble)
+    runs = [run_basin(dataclasses.replace(plain, ensemble=None), progress=False) for _ in range(3)]
+    single = min(runs, key=lambda r: r.timings_s["total_s"])
+    kernel_s = min(
+        r.timings_s.get("lid_thread_s", 0.0) + r.timings_s["melting_thread_s"] for r in runs
+    )
     t0 = time.perf_counter()
     both = run_basin(plain, progress=False, extra_stages=ensemble_stages(plain, announce=False))
     total = time.perf_counter() - t0

@@ -16,7 +16,6 @@ summary format from :mod:`lidmelt.grids.rundir`.
 from __future__ import annotations
 
 import functools
-import sys
 import time
 import uuid
 from collections.abc import Callable
@@ -44,7 +43,12 @@ from lidmelt.physics import (
     get_table,
     isotherm_depth_km,
 )
-from lidmelt.statistics import ambient_melting_warnings, band_parts, summarize_bands
+from lidmelt.statistics import (
+    ambient_melting_warnings,
+    band_parts,
+    progress_reporter,
+    summarize_bands,
+)
 from lidmelt.variables import (
     FLAG_NODATA,
     FLAG_VARIABLE,
@@ -178,8 +182,9 @@ def resolve_target_grid(cfg) -> Grid:
     return Grid.from_extent(west, east, south, north, spec.resolution, crs=spec.crs or "EPSG:4326")
 
 
-def load_inputs(cfg, *, target: Grid, chunks: int) -> RunInputs:
-    """Every input of ``cfg.inputs`` on ``target`` (lazy, in ``chunks``-cell chunks).
+def load_inputs(cfg, *, target: Grid, chunks: int, cache: dict | None = None) -> RunInputs:
+    """Every input of ``cfg.inputs`` on ``target`` (lazy, in ``chunks``-cell chunks); a
+    ``cache`` dict shares the grids of identical inputs between calls (ensemble members).
 
     Raises
     ------
@@ -192,7 +197,10 @@ def load_inputs(cfg, *, target: Grid, chunks: int) -> RunInputs:
         inp = cfg.inputs[var.workflow_key]
         if inp is None:
             continue
-        values[name], provenance[name] = _load_input(inp, name, target, chunks)
+        cache = {} if cache is None else cache
+        if (name, inp) not in cache:
+            cache[(name, inp)] = _load_input(inp, name, target, chunks)
+        values[name], provenance[name] = cache[(name, inp)][0], dict(cache[(name, inp)][1])
         if name == "thermal_anomaly_k" and inp.plumes:
             values[name] = _add_plumes(inp, values[name], provenance[name], target, chunks)
     _add_plume_upwelling(cfg, values, provenance, target, chunks)
@@ -489,22 +497,6 @@ def store_with_statistics(
 
 
 # ---- the run -------------------------------------------------------------------------------------
-def _reporter(show: bool | None) -> Callable[[int, int], None] | None:
-    """Progress by bands: a line that updates in place on a terminal, log lines otherwise."""
-    if show is False:
-        return None
-    return functools.partial(_report, tty=sys.stderr.isatty() if show is None else bool(show))
-
-
-def _report(done: int, total: int, *, tty: bool) -> None:
-    pct = 100 * done // total
-    end = "\n" if done == total or not tty else ""
-    line = f"\rlidmelt run: [{'#' * (pct // 4):<25}] {pct:3d} %"
-    if not tty:
-        line = f"lidmelt run: {pct:3d} % of the grid done ({done}/{total} bands)"
-    print(line, end=end, file=sys.stderr, flush=True)
-
-
 def _run_stages(stages, context: StageContext, files: list[Path]) -> dict[str, Any]:
     """Run each extra stage; add its files to ``files`` and return its summary entries."""
     entries: dict[str, Any] = {}
@@ -557,7 +549,7 @@ def run_basin(
         lazy=lazy,
         area=cell_area_km2(target, chunks=chunks).data,
         workers=int(cfg.compute.workers),
-        report=_reporter(progress),
+        report=progress_reporter(progress),
         inputs=inputs,
     )
     run_warnings = ambient_melting_warnings(

@@ -120,10 +120,11 @@ def _plan(context: StageContext) -> tuple[MemberPlan, list[list], int]:
     groups: dict[Any, tuple[int, Any]] = {cfg.inputs: (0, context.inputs)}
     models: dict[Any, tuple] = {_table_key(cfg): (context.model, context.table)}
     coolings: dict[Any, Any] = {}
+    shared: dict = {}  # identical input files are read and aligned once for all groups
     settings, member_groups = [], []
     for member in ens.configs:
         if member.inputs not in groups:
-            inputs = load_inputs(member, target=context.target, chunks=chunks)
+            inputs = load_inputs(member, target=context.target, chunks=chunks, cache=shared)
             groups[member.inputs] = (len(groups), inputs)
         index, inputs = groups[member.inputs]
         if _table_key(member) not in models:
@@ -173,7 +174,7 @@ def _compute_rows(context: StageContext, plan: MemberPlan, group_arrays, write) 
     area = cell_area_km2(context.target, chunks=chunks).data
     template = context.target.template(chunks).data
     area = area.rechunk(template.chunks).to_delayed()
-    blocks = [[a.to_delayed() for a in arrays] for arrays in group_arrays]
+    blocks = [[a.to_delayed(optimize_graph=False) for a in arrays] for arrays in group_arrays]
     token = uuid.uuid4().hex
     plan_d = dask.delayed(plan, name=f"lidmelt-ensemble-plan-{token}", traverse=False)
     client = _scheduler(cfg)
