@@ -16,11 +16,10 @@ summary format from :mod:`lidmelt.grids.rundir`.
 from __future__ import annotations
 
 import functools
-import sys
 import time
 import uuid
 from collections.abc import Callable
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any
 
@@ -36,6 +35,7 @@ from lidmelt.grids.grid import Grid, registration
 from lidmelt.grids.io import open_input, sha256_file
 from lidmelt.grids.lidref import apply_lid_reference
 from lidmelt.grids.store import GeoTiffItem, GeoTiffSet
+from lidmelt.grids.transaction import RunTransaction
 from lidmelt.physics import (
     FLAG_MEANINGS,
     evaluate_cells,
@@ -44,6 +44,7 @@ from lidmelt.physics import (
     get_table,
     isotherm_depth_km,
 )
+from lidmelt.progress import band_reporter
 from lidmelt.statistics import ambient_melting_warnings, band_parts, summarize_bands
 from lidmelt.variables import (
     FLAG_NODATA,
@@ -92,6 +93,7 @@ class RunResult:
     files: list[Path]
     summary: dict[str, Any]
     timings_s: dict[str, float] = field(default_factory=dict)
+    sources: dict[str, str] = field(default_factory=dict)
 
 
 @dataclass
@@ -469,31 +471,20 @@ def store_with_statistics(
 
 
 # ---- the run -------------------------------------------------------------------------------------
-def _reporter(show: bool | None) -> Callable[[int, int], None] | None:
-    """Progress by bands: a line that updates in place on a terminal, log lines otherwise."""
-    if show is False:
-        return None
-    return functools.partial(_report, tty=sys.stderr.isatty() if show is None else bool(show))
-
-
-def _report(done: int, total: int, *, tty: bool) -> None:
-    pct = 100 * done // total
-    if tty:
-        bar = "#" * (pct // 4)
-        end = "\n" if done == total else ""
-        print(f"\rlidmelt run: [{bar:<25}] {pct:3d} %", end=end, file=sys.stderr, flush=True)
-    else:
-        print(
-            f"lidmelt run: {pct:3d} % of the grid done ({done}/{total} bands)",
-            file=sys.stderr,
-            flush=True,
-        )
-
-
 def run_basin(
-    cfg, *, output_dir: str | Path | None = None, progress: bool | None = None
+    cfg,
+    *,
+    output_dir: str | Path | None = None,
+    progress: bool | None = None,
+    products: Callable[[Path], list[Path]] | None = None,
+    wait: bool = False,
 ) -> RunResult:
     """Run a whole basin from a workflow configuration; return what was written.
+
+    The run is a transaction (:class:`lidmelt.grids.transaction.RunTransaction`): it takes the
+    destination's lock, writes everything into a staging folder beside it, reads every file
+    back, records the manifest in the summary, and only then swaps the staging folder into
+    place. On any error or interruption the destination keeps its previous run.
 
     Parameters
     ----------
@@ -503,14 +494,30 @@ def run_basin(
         The run directory (default ``cfg.run.output_dir``).
     progress : bool, optional
         A progress bar (True), plain log lines (None when not on a terminal), or nothing (False).
+    products : callable, optional
+        ``products(staged_run_dir) -> paths``: draws figures (maps, report) into the staged,
+        sealed run, so that they are swapped into place with it.
+    wait : bool
+        Wait for another run writing the same destination instead of failing at once.
 
     Raises
     ------
     LidmeltError
-        For any bad input (file, grid, range, model); no output is left half-written.
+        For any bad input (file, grid, range, model), a destination locked by another run, or
+        a run without a single evaluable cell; nothing is left half-written.
     """
+    with RunTransaction(output_dir or cfg.run.output_dir, wait=wait) as tx:
+        result = _run_staged(cfg, tx.staging, progress)
+        rundir.seal_run(tx.staging, result.summary, sources=result.sources)
+        drawn = list(products(tx.staging)) if products else []
+        tx.commit()
+    files = [tx.dest / Path(p).relative_to(tx.staging) for p in [*result.files, *drawn]]
+    return replace(result, run_dir=tx.dest, files=files)
+
+
+def _run_staged(cfg, run_dir: Path, progress: bool | None) -> RunResult:
+    """Every stage of a run, writing into ``run_dir`` (the staging folder)."""
     t0 = time.perf_counter()
-    run_dir = Path(output_dir or cfg.run.output_dir)
     chunks = int(cfg.compute.chunk_size)
     model, table = load_model(cfg)
     timings = {"table_s": time.perf_counter() - t0}
@@ -534,7 +541,7 @@ def run_basin(
         lazy=lazy,
         area=cell_area_km2(target, chunks=chunks).data,
         workers=int(cfg.compute.workers),
-        report=_reporter(progress),
+        report=band_reporter(progress),
         inputs=inputs,
     )
     run_warnings = ambient_melting_warnings(
@@ -564,6 +571,6 @@ def run_basin(
         statistics=statistics,
         warnings=run_warnings,
     )
-    files.append(rundir.write_summary(run_dir, summary))
+    files.append(run_dir / rundir.SUMMARY_NAME)
     timings["total_s"] = time.perf_counter() - t0
-    return RunResult(run_dir, files, summary, timings)
+    return RunResult(run_dir, files, summary, timings, inputs.sources())
