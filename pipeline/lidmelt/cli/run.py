@@ -61,13 +61,13 @@ def register(subparsers: argparse._SubParsersAction) -> None:
     p.set_defaults(func=run)
 
 
-def _products(draw_maps: bool, report: bool):
+def _products(draw_maps: bool, report: bool, dest: Path):
     """The figures drawn into the staged run (swapped into place with it), or None."""
     if not draw_maps:
         return None
 
     def draw(staged: Path) -> list[Path]:
-        run_dir = RunDir(staged)
+        run_dir = RunDir(staged, shown_as=dest.absolute())
         maps = list(draw_run_maps(run_dir))
         return [*maps, write_report(run_dir, maps=maps)] if report else maps
 
@@ -90,7 +90,7 @@ def run(args: argparse.Namespace) -> int:
     cfg = load_workflow(args.workflow, overrides=args.overrides, output_dir=args.output_dir)
     if args.clean:
         return _clean(cfg)
-    products = _products(not args.no_maps and cfg.run.maps, cfg.run.report)
+    products = _products(not args.no_maps and cfg.run.maps, cfg.run.report, cfg.run.output_dir)
     with print_warnings("run"):
         result = run_basin(
             cfg, progress=False if args.quiet else None, products=products, wait=args.wait

@@ -105,15 +105,20 @@ class RunDir:
     ----------
     path : str or Path
         The folder written by ``lidmelt run``.
+    shown_as : str or Path, optional
+        The path to show users (:attr:`shown_path`): a staged run is read from its staging
+        folder but will be at its destination.
 
     Raises
     ------
     RunDirError
-        If the folder does not exist, has no readable ``summary.json`` or lacks the run marker.
+        If the folder does not exist, has no readable ``summary.json``, lacks the run marker,
+        or fails its manifest check (:func:`lidmelt.grids.manifest.verify_manifest`).
     """
 
-    def __init__(self, path: str | Path) -> None:
+    def __init__(self, path: str | Path, *, shown_as: str | Path | None = None) -> None:
         self.path = Path(path)
+        self.shown_path = Path(shown_as) if shown_as is not None else self.path
         summary_path = self.path / SUMMARY_NAME
         if not self.path.is_dir():
             raise _missing_run(self.path)
