@@ -18,14 +18,14 @@ import sys
 import traceback
 
 from lidmelt import __version__
-from lidmelt.cli import column, map, profile, regions, report, run, sample, screen
+from lidmelt.cli import cache, column, map, profile, regions, report, run, sample, screen
 from lidmelt.cli._failures import Terminated, describe_failure, termination_as_interrupt
 from lidmelt.errors import LidmeltError
 
 __all__ = ["COMMANDS", "build_parser", "main"]
 
 #: The command modules, in the order ``lidmelt --help`` lists them.
-COMMANDS = (column, run, sample, profile, regions, screen, map, report)
+COMMANDS = (column, run, sample, profile, regions, screen, map, report, cache)
 
 
 def build_parser() -> argparse.ArgumentParser:
