@@ -24,6 +24,7 @@ __all__ = [
     "AMBIENT_TP_RANGE_C",
     "CRUST_DENSITY_RANGE_KG_M3",
     "DEFAULT_CRUST_DENSITY_KG_M3",
+    "DEFAULT_MAX_CELLS",
     "DEFAULT_OUTPUT_VARIABLES",
     "INPUT_NAMES",
     "INPUT_UNITS",
@@ -77,6 +78,9 @@ LID_ISOTHERM_RANGE_C: tuple[float, float] = (0.0, 1600.0)
 #: Smallest chunk side, cells (smaller chunks cost more in overhead than they save; common
 #: practice).
 MIN_CHUNK_SIZE = 64
+#: Default of ``compute.max_cells``: the largest grid a run accepts (cells). 500 million cells
+#: are 2 GB per float32 output before compression; a global 1 arc-minute grid has 233 million.
+DEFAULT_MAX_CELLS = 500_000_000
 
 
 class Parameters(Mapping[str, Any]):
@@ -383,11 +387,14 @@ class ComputeOptions:
     method : str
         One of :data:`METHODS`: ``"table"`` (interpolate a precomputed lookup table) or
         ``"direct"`` (integrate each column).
+    max_cells : int
+        The largest grid (width x height) a run accepts; raise it for a bigger grid.
     """
 
     chunk_size: int = 1024
     workers: int = 2
     method: str = "table"
+    max_cells: int = DEFAULT_MAX_CELLS
 
 
 @dataclass(frozen=True, kw_only=True)

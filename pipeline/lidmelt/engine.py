@@ -26,6 +26,7 @@ from typing import Any
 import numpy as np
 import xarray as xr
 
+from lidmelt.config import DEFAULT_MAX_CELLS
 from lidmelt.errors import InputError
 from lidmelt.grids import rundir
 from lidmelt.grids.align import align
@@ -161,9 +162,21 @@ def resolve_target_grid(cfg) -> Grid:
         da = open_input(
             inp, name=var.name, units_expected=var.units, chunks={"y": "auto", "x": "auto"}
         )
-        return Grid.from_grid(da)
-    west, east, south, north = spec.extent
-    return Grid.from_extent(west, east, south, north, spec.resolution, crs=spec.crs or "EPSG:4326")
+        grid = Grid.from_grid(da)
+    else:
+        west, east, south, north = spec.extent
+        grid = Grid.from_extent(
+            west, east, south, north, spec.resolution, crs=spec.crs or "EPSG:4326"
+        )
+    limit = int(getattr(cfg.compute, "max_cells", DEFAULT_MAX_CELLS))
+    if grid.width * grid.height > limit:
+        msg = (
+            f"the grid has {grid.width} x {grid.height} = {grid.width * grid.height:,} cells, "
+            f"more than compute.max_cells = {limit:,}. Use a coarser grid.resolution or a "
+            "smaller grid.extent, or raise compute.max_cells in the workflow."
+        )
+        raise InputError(msg)
+    return grid
 
 
 def load_inputs(cfg, *, target: Grid, chunks: int) -> RunInputs:

@@ -300,6 +300,13 @@ _COMPUTE_READERS: dict[str, Reader] = {
         example="2",
     ),
     "method": partial(choice, choices=METHODS),
+    "max_cells": partial(
+        at_least,
+        minimum=1,
+        unit=" cells",
+        advice="cell (the largest grid, width x height, a run accepts).",
+        example="500000000",
+    ),
 }
 
 
