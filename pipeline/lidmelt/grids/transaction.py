@@ -21,6 +21,7 @@ import errno
 import json
 import os
 import shutil
+import signal
 import tempfile
 import time
 from datetime import UTC, datetime
@@ -36,6 +37,7 @@ __all__ = [
     "leftovers",
     "lock_holder",
     "lock_path",
+    "signals_deferred",
     "swap_into_place",
 ]
 
@@ -48,6 +50,22 @@ def lock_path(dest: str | Path) -> Path:
     """The lock file of destination ``dest`` (beside it, hidden)."""
     dest = Path(dest)
     return dest.parent / f".{dest.name}{_LOCK}"
+
+
+@contextlib.contextmanager
+def signals_deferred():
+    """Hold SIGINT and SIGTERM back during a step that must not be cut in half (creating a
+    folder and recording it, a swap, a clean-up); they are delivered when the step ends."""
+    held = {signal.SIGINT, signal.SIGTERM}
+    try:
+        old = signal.pthread_sigmask(signal.SIG_BLOCK, held)
+    except (AttributeError, OSError, ValueError):  # no POSIX signal masks here
+        yield
+        return
+    try:
+        yield
+    finally:
+        signal.pthread_sigmask(signal.SIG_SETMASK, old)
 
 
 def _pid_alive(pid: Any) -> bool:
@@ -142,25 +160,31 @@ class RunLock:
 
     def __enter__(self) -> RunLock:
         self.dest.parent.mkdir(parents=True, exist_ok=True)
-        while (fd := self._try()) is None:
+        while True:
+            with signals_deferred():
+                self._fd = self._try()
+                if self._fd is not None:
+                    self._record()
+                    return self
             time.sleep(self.poll_s)
+
+    def _record(self) -> None:
         info = {
             "pid": os.getpid(),
             "started_utc": datetime.now(UTC).strftime("%Y-%m-%dT%H:%M:%SZ"),
             "destination": str(self.dest),
         }
-        os.ftruncate(fd, 0)
-        os.pwrite(fd, json.dumps(info).encode("utf-8"), 0)
-        self._fd = fd
-        return self
+        os.ftruncate(self._fd, 0)
+        os.pwrite(self._fd, json.dumps(info).encode("utf-8"), 0)
 
     def __exit__(self, *exc: object) -> None:
         if self._fd is None:
             return
-        with contextlib.suppress(OSError):
-            self.path.unlink()
-        os.close(self._fd)
-        self._fd = None
+        with signals_deferred():
+            with contextlib.suppress(OSError):
+                self.path.unlink()
+            os.close(self._fd)
+            self._fd = None
 
 
 def leftovers(dest: str | Path) -> list[Path]:
@@ -281,14 +305,15 @@ class RunTransaction:
     def __enter__(self) -> RunTransaction:
         self._lock.__enter__()
         try:
-            clean_leftovers(self.dest)
-            _check_destination(self.dest, self.marker)
-            root = tempfile.mkdtemp(dir=self.dest.parent, prefix=f".{self.dest.name}{_STAGING}")
-            # the run is staged under the destination's own name (products show that name)
-            self.staging = Path(root) / self.dest.name
-            self.staging.mkdir()  # the mode of any new folder (the root is 0700)
+            with signals_deferred():
+                clean_leftovers(self.dest)
+                _check_destination(self.dest, self.marker)
+                root = tempfile.mkdtemp(dir=self.dest.parent, prefix=f".{self.dest.name}{_STAGING}")
+                # the run is staged under the destination's own name (products show that name)
+                self.staging = Path(root) / self.dest.name
+                self.staging.mkdir()  # the mode of any new folder (the root is 0700)
         except BaseException:
-            self._lock.__exit__(None, None, None)
+            self.__exit__(None, None, None)
             raise
         return self
 
@@ -297,13 +322,15 @@ class RunTransaction:
         if self.staging is None:
             msg = "RunTransaction.commit() called outside its 'with' block"
             raise RuntimeError(msg)
-        swap_into_place(self.staging, self.dest)
-        self.committed = True
+        with signals_deferred():
+            swap_into_place(self.staging, self.dest)
+            self.committed = True
         shutil.rmtree(self.staging.parent, ignore_errors=True)  # the old run, if any
 
     def __exit__(self, *exc: object) -> None:
-        try:
-            if self.staging is not None and self.staging.parent.exists():
-                shutil.rmtree(self.staging.parent, ignore_errors=True)
-        finally:
-            self._lock.__exit__(*exc)
+        with signals_deferred():
+            try:
+                if self.staging is not None and self.staging.parent.exists():
+                    shutil.rmtree(self.staging.parent, ignore_errors=True)
+            finally:
+                self._lock.__exit__(*exc)
