@@ -244,7 +244,10 @@ def test_disk_full_early_keeps_the_old_run(tiny, tmp_path):
 @pytest.mark.slow
 @pytest.mark.parametrize("fraction", [0.0, 0.2, 0.4, 0.6, 0.8, 0.95])
 def test_disk_full_at_several_moments(tiny, tmp_path, fraction):
-    assert fill_up_at(tiny, tmp_path, fraction, maps=False) == "old"
+    # the free space is a fraction of the old run's size; from about 0.6 the new run (smaller:
+    # the old one's pages are counted whole) may fit, and then it is complete
+    outcome = fill_up_at(tiny, tmp_path, fraction, maps=False)
+    assert outcome == "old" if fraction <= 0.4 else outcome in ("old", "new")
 
 
 @pytest.mark.slow

@@ -52,7 +52,7 @@ SCHEMA: dict[str, tuple[str, ...]] = {
     "model.parameters": ("*",),
     "lithosphere": ("cooling", "lid_isotherm_c", "parameters"),
     "lithosphere.parameters": ("*",),
-    "compute": ("chunk_size", "workers", "method"),
+    "compute": ("chunk_size", "workers", "method", "max_cells"),
     "outputs": ("variables",),
 }
 #: The tables of :data:`SCHEMA` (not the arrays of tables).
