@@ -23,6 +23,7 @@ import os
 import shutil
 import signal
 import tempfile
+import threading
 import time
 from datetime import UTC, datetime
 from pathlib import Path
@@ -55,17 +56,26 @@ def lock_path(dest: str | Path) -> Path:
 @contextlib.contextmanager
 def signals_deferred():
     """Hold SIGINT and SIGTERM back during a step that must not be cut in half (creating a
-    folder and recording it, a swap, a clean-up); they are delivered when the step ends."""
-    held = {signal.SIGINT, signal.SIGTERM}
-    try:
-        old = signal.pthread_sigmask(signal.SIG_BLOCK, held)
-    except (AttributeError, OSError, ValueError):  # no POSIX signal masks here
+    folder and recording it, a swap, a clean-up); a signal that came is handled when the step
+    ends. (Python runs handlers in the main thread, whichever thread the signal reached, so the
+    handlers themselves are swapped for a recorder; a no-op outside the main thread.)"""
+    if threading.current_thread() is not threading.main_thread():
         yield
         return
+    pending: list[int] = []
+    held = (signal.SIGINT, signal.SIGTERM)
+    old = {s: signal.signal(s, lambda signum, frame: pending.append(signum)) for s in held}
     try:
         yield
     finally:
-        signal.pthread_sigmask(signal.SIG_SETMASK, old)
+        for s, handler in old.items():
+            signal.signal(s, handler)
+        if pending:
+            handler = old[pending[0]]
+            if callable(handler):
+                handler(pending[0], None)
+            elif handler == signal.SIG_DFL:
+                signal.raise_signal(pending[0])
 
 
 def _pid_alive(pid: Any) -> bool:
