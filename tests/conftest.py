@@ -47,6 +47,17 @@ UNITS = {
 INPUT_NAMES = {"plate_age_ma", "lid_thickness_km", "thermal_anomaly_k", "water_wt_pct"}
 
 
+def reseal(path, **changes):
+    """Rewrite ``path``'s summary.json with ``changes`` and the manifest of the files now there
+    (what a test that edits a run directory by hand must do: lidmelt refuses a folder whose
+    files or summary differ from its manifest)."""
+    from lidmelt.grids.rundir import SUMMARY_NAME, write_summary
+
+    doc = json.loads((Path(path) / SUMMARY_NAME).read_text(encoding="utf-8"))
+    doc.update(changes)
+    return write_summary(path, doc)
+
+
 def write_run_dir(path, fields, *, transform, crs="EPSG:4326", summary=None):
     """Write ``fields`` {name: 2-D array} as a run directory at ``path``; return the path.
 
@@ -55,6 +66,8 @@ def write_run_dir(path, fields, *, transform, crs="EPSG:4326", summary=None):
     """
     import rasterio
     from rasterio.crs import CRS
+
+    from lidmelt.grids.rundir import write_summary
 
     path = Path(path)
     path.mkdir(parents=True, exist_ok=True)
@@ -106,7 +119,7 @@ def write_run_dir(path, fields, *, transform, crs="EPSG:4326", summary=None):
         "workflow": "",
     }
     doc.update(summary or {})
-    (path / "summary.json").write_text(json.dumps(doc, indent=2), encoding="utf-8")
+    write_summary(path, doc)  # sealed: the manifest of the files written above
     return path
 
 
@@ -127,6 +140,7 @@ def write_flag_grid(path, flags, *, transform, crs="EPSG:4326"):
         nodata=255,
     ) as dst:
         dst.write(np.asarray(flags, dtype="uint8"), 1)
+    reseal(path)  # the flag grid joins the run's manifest
     return Path(path) / "validity_flag.tif"
 
 
@@ -152,6 +166,7 @@ def write_validity_flag(path, flags):
     import rasterio
     from affine import Affine
 
+    from lidmelt.grids.rundir import write_summary
     from lidmelt.physics import FLAG_MEANINGS
 
     path = Path(path)
@@ -176,7 +191,7 @@ def write_validity_flag(path, flags):
         "nodata": 255,
         "meanings": {str(k): v for k, v in FLAG_MEANINGS.items()},
     }
-    (path / "summary.json").write_text(json.dumps(doc, indent=2), encoding="utf-8")
+    write_summary(path, doc)
     return path
 
 

@@ -18,6 +18,7 @@ from rasterio.transform import from_origin
 from lidmelt.cli import main
 from lidmelt.engine import run_basin
 from lidmelt.errors import InputError, LidmeltError
+from lidmelt.grids.manifest import MANIFEST_KEY, SUMMARY_HASH_KEY, summary_sha256
 from lidmelt.grids.rundir import RUN_FORMAT_VERSION, SUMMARY_NAME, open_run, write_summary
 from lidmelt.physics import excess_to_melt_k, get_cooling_model, isotherm_depth_km, melt_column
 from lidmelt.variables import DEFAULT_OUTPUTS, FLAG_VARIABLE, INPUTS, OUTPUTS
@@ -361,7 +362,11 @@ def test_write_summary_is_read_back_by_run_dir(tmp_path):
     # the run directory's one writer and its reader agree (identity), and no temporary is left
     doc = {"lidmelt_run": RUN_FORMAT_VERSION, "outputs": {}, "inputs": {}, "value": 1.5}
     assert write_summary(tmp_path, doc) == tmp_path / SUMMARY_NAME
-    assert open_run(tmp_path).summary == doc
+    summary = open_run(tmp_path).summary
+    # the writer seals the summary: an (empty) manifest and the summary's own checksum
+    assert summary.pop(MANIFEST_KEY) == {"files": {}}
+    assert summary.pop(SUMMARY_HASH_KEY) == summary_sha256({**doc, MANIFEST_KEY: {"files": {}}})
+    assert summary == doc
     assert [p.name for p in tmp_path.iterdir()] == [SUMMARY_NAME]
 
 

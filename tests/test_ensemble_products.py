@@ -24,6 +24,7 @@ import pandas as pd
 import pytest
 from affine import Affine
 
+from conftest import reseal
 from lidmelt.variables import ordinal
 
 pytest.importorskip("cartopy.crs")
@@ -109,7 +110,7 @@ def set_units(run, units):
     for name, unit in units.items():
         doc["outputs"][name]["units"] = unit
         doc["outputs"][name]["long_name"] = name
-    (run / "summary.json").write_text(json.dumps(doc), encoding="utf-8")
+    reseal(run, **doc)  # lidmelt refuses a summary edited without its manifest
 
 
 @pytest.fixture
@@ -154,6 +155,7 @@ def ensemble_run(make_run_dir):
         },
     )
     members.to_csv(run / ens.MEMBERS_FILE, index=False)
+    reseal(run)
     return run, m, members
 
 
@@ -434,6 +436,7 @@ def test_pdf_puts_the_section_figures_on_pages(ensemble_run):
     doc = json.loads((run / "summary.json").read_text(encoding="utf-8"))
     del doc["ensemble"]
     (run / "summary.json").write_text(json.dumps(doc), encoding="utf-8")
+    reseal(run)
     html = write_report(run, pdf=True).read_text(encoding="utf-8")
     assert 'id="ensemble"' not in html
     without = len(re.findall(rb"/Type\s*/Page\b", (run / "report.pdf").read_bytes()))

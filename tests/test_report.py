@@ -20,6 +20,8 @@ import numpy as np
 import pytest
 from affine import Affine
 
+from conftest import reseal
+
 pytest.importorskip("cartopy.crs")
 
 import matplotlib.image as mpimg
@@ -81,7 +83,7 @@ def run(make_run_dir):
         "sha256": SHA_ANOM,
         "units": "K",
     }
-    (path / "summary.json").write_text(json.dumps(doc), encoding="utf-8")
+    reseal(path, **doc)  # lidmelt refuses a summary edited without its manifest
     return path
 
 

@@ -19,6 +19,7 @@ import pytest
 import shapely
 from affine import Affine
 
+from conftest import reseal
 from lidmelt.cli import main
 from lidmelt.errors import InputError, RunDirError
 from lidmelt.products.regions import region_statistics
@@ -69,7 +70,7 @@ def plume_summary(run, plumes):
             }
         )
     doc["inputs"]["thermal_anomaly_k"] = {"file": None, "units": "K", "plumes": entries}
-    (run / "summary.json").write_text(json.dumps(doc), encoding="utf-8")
+    reseal(run, **doc)  # lidmelt refuses a summary edited without its manifest
 
 
 def f32(a):

@@ -135,3 +135,54 @@ def test_table_shapes_and_model():
     res = melt_column(tp, np.linspace(0, 90, 4), 0.0)
     assert res.melt_thickness_km.shape == (3, 4)
     assert res.model.name == "katz2003"
+
+
+SMALL = TableLayout(tp_min_c=1300.0, tp_max_c=1400.0, water_nodes=2, water_max_wt_pct=0.01)
+
+
+def test_tampered_cache_is_rebuilt_with_a_warning(tmp_path, monkeypatch):
+    # a cached table whose values were doubled (a tamper the old parameter key let through)
+    # fails its content SHA-256 and is rebuilt; the warning is one line naming the file
+    monkeypatch.setenv("LIDMELT_CACHE_DIR", str(tmp_path))
+    model = get_model("katz2003", beta1=1.4)  # a parameter set no other test caches in memory
+    table = get_table(model, SMALL)
+    (path,) = cache_dir().glob("*.npz")
+    with np.load(path) as data:
+        arrays = dict(data)
+    arrays["values"] = arrays["values"] * 2
+    with path.open("wb") as fh:
+        np.savez(fh, **arrays)
+    with pytest.warns(UserWarning, match="does not match its recorded SHA-256; rebuilt") as rec:
+        assert MeltTable.load(path, model, SMALL) is None
+    assert "\n" not in str(rec[0].message)
+    path.write_bytes(path.read_bytes()[:1000])  # truncated
+    with pytest.warns(UserWarning, match="cannot be read"):
+        assert MeltTable.load(path, model, SMALL) is None
+    # a fresh build writes a good file again, equal to the first (identity)
+    MeltTable.build(model, SMALL).save(path)
+    npt.assert_array_equal(MeltTable.load(path, model, SMALL).values, table.values)
+
+
+def test_cache_size_limit_evicts_the_least_recently_used(tmp_path, monkeypatch, capsys):
+    import os
+
+    from lidmelt.cli import main
+    from lidmelt.physics.tablecache import enforce_limit
+
+    monkeypatch.setenv("LIDMELT_CACHE_DIR", str(tmp_path))
+    for k, size in enumerate((400_000, 300_000, 200_000)):
+        f = tmp_path / f"katz2003-{k}.npz"
+        f.write_bytes(b"x" * size)
+        os.utime(f, (1000 + k, 1000 + k))  # k = 0 least recently used
+    monkeypatch.setenv("LIDMELT_CACHE_MAX_MB", "0.6")
+    removed = enforce_limit(tmp_path, keep=tmp_path / "katz2003-2.npz")
+    assert [p.name for p in removed] == ["katz2003-0.npz"]  # 900 kB -> 500 kB <= 600 kB
+    assert main(["cache", "--info"]) == 0
+    out = capsys.readouterr().out
+    assert "katz2003-1.npz  0.3 MB" in out
+    assert "2 table(s), 0.5 MB of 1 MB" in out
+    assert main(["cache", "--clear"]) == 0
+    assert list(tmp_path.iterdir()) == []
+    monkeypatch.setenv("LIDMELT_CACHE_MAX_MB", "lots")
+    assert main(["cache"]) == 1
+    assert "LIDMELT_CACHE_MAX_MB = 'lots'" in capsys.readouterr().err

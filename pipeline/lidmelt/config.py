@@ -24,6 +24,7 @@ __all__ = [
     "AMBIENT_TP_RANGE_C",
     "CRUST_DENSITY_RANGE_KG_M3",
     "DEFAULT_CRUST_DENSITY_KG_M3",
+    "DEFAULT_MAX_CELLS",
     "DEFAULT_OUTPUT_VARIABLES",
     "DISTRIBUTIONS",
     "INPUT_NAMES",
@@ -94,6 +95,9 @@ SAMPLING_METHODS: tuple[str, ...] = ("latin_hypercube", "random")
 #: Smallest chunk side, cells (smaller chunks cost more in overhead than they save; common
 #: practice).
 MIN_CHUNK_SIZE = 64
+#: Default of ``compute.max_cells``: the largest grid a run accepts (cells). 500 million cells
+#: are 2 GB per float32 output before compression; a global 1 arc-minute grid has 233 million.
+DEFAULT_MAX_CELLS = 500_000_000
 
 
 class Parameters(Mapping[str, Any]):
@@ -403,12 +407,15 @@ class ComputeOptions:
     scheduler : str or None
         Address of a dask.distributed scheduler (``"tcp://host:port"``) that evaluates the
         ensemble; None: local threads (or the ``LIDMELT_SCHEDULER`` environment variable).
+    max_cells : int
+        The largest grid (width x height) a run accepts; raise it for a bigger grid.
     """
 
     chunk_size: int = 1024
     workers: int = 2
     method: str = "table"
     scheduler: str | None = None
+    max_cells: int = DEFAULT_MAX_CELLS
 
 
 @dataclass(frozen=True, kw_only=True)

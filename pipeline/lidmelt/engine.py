@@ -19,66 +19,55 @@ import functools
 import time
 import uuid
 from collections.abc import Callable
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any
 
 import numpy as np
 import xarray as xr
 
-from lidmelt.errors import InputError
 from lidmelt.grids import rundir
-from lidmelt.grids.align import align
-from lidmelt.grids.anomaly import Plume, plume_anomaly
 from lidmelt.grids.area import cell_area_km2
-from lidmelt.grids.grid import Grid, registration
-from lidmelt.grids.io import open_input, sha256_file
-from lidmelt.grids.lidref import apply_lid_reference
+from lidmelt.grids.grid import Grid
 from lidmelt.grids.store import GeoTiffItem, GeoTiffSet
+from lidmelt.grids.transaction import RunTransaction
 from lidmelt.physics import (
     FLAG_MEANINGS,
     evaluate_cells,
-    get_cooling_model,
-    get_model,
-    get_table,
     isotherm_depth_km,
 )
-from lidmelt.statistics import (
-    ambient_melting_warnings,
-    band_parts,
-    progress_reporter,
-    summarize_bands,
+from lidmelt.progress import band_reporter
+from lidmelt.run_inputs import (
+    LID_INPUTS,
+    RunInputs,
+    lid_cooling_model,
+    load_inputs,
+    load_model,
+    resolve_target_grid,
 )
+from lidmelt.statistics import ambient_melting_warnings, band_parts, summarize_bands
 from lidmelt.variables import (
     FLAG_NODATA,
     FLAG_VARIABLE,
     INPUTS,
     OUTPUTS,
     check_input_range,
-    input_for_workflow_key,
 )
 
 __all__ = [
     "KernelSettings",
     "LazyRun",
-    "RunInputs",
     "RunResult",
     "StageContext",
     "build_kernel",
     "evaluate_chunk",
     "kernel_arguments",
     "kernel_settings",
-    "lid_cooling_model",
-    "load_inputs",
-    "load_model",
     "plan_geotiffs",
-    "resolve_target_grid",
     "run_basin",
     "store_with_statistics",
 ]
 
-#: Inputs the lid is built from; missing, they are NaN (no lid) rather than 0.
-_LID_INPUTS = ("plate_age_ma", "lid_thickness_km")
 #: The kernel's inputs, in the order of its positional arguments.
 _KERNEL_INPUTS = (
     "plate_age_ma", "lid_thickness_km", "thermal_anomaly_k", "water_wt_pct", "upwelling_mm_yr"
@@ -95,23 +84,7 @@ class RunResult:
     files: list[Path]
     summary: dict[str, Any]
     timings_s: dict[str, float] = field(default_factory=dict)
-
-
-@dataclass
-class RunInputs:
-    """The inputs of a run on the target grid: lazy DataArrays or constants, and provenance."""
-
-    values: dict[str, xr.DataArray | float]
-    provenance: dict[str, dict[str, Any]]
-
-    @property
-    def gridded(self) -> list[str]:
-        """Names of the inputs given as grids (written as ``input_<name>.tif``)."""
-        return [n for n, v in self.values.items() if isinstance(v, xr.DataArray)]
-
-    def sources(self) -> dict[str, str]:
-        """Where each input came from, for error messages: its file or "the workflow"."""
-        return {n: (p.get("source") or "the workflow") for n, p in self.provenance.items()}
+    sources: dict[str, str] = field(default_factory=dict)
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -158,125 +131,6 @@ class LazyRun:
     outputs: dict[str, xr.DataArray]
     flag: xr.DataArray
     clock: dict[str, float]
-
-
-# ---- model, grid and inputs ----------------------------------------------------------------------
-def load_model(cfg) -> tuple[Any, Any | None]:
-    """The melting model of ``cfg.model`` and, for ``compute.method = "table"``, its table."""
-    model = get_model(cfg.model.name, **dict(cfg.model.parameters))
-    table = get_table(model) if cfg.compute.method == "table" else None
-    return model, table
-
-
-def resolve_target_grid(cfg) -> Grid:
-    """The grid of every output: that of the input named by ``grid.like``, or ``grid.extent``."""
-    spec = cfg.grid
-    if spec.like:
-        inp = cfg.inputs[spec.like]
-        var = input_for_workflow_key(spec.like)
-        da = open_input(
-            inp, name=var.name, units_expected=var.units, chunks={"y": "auto", "x": "auto"}
-        )
-        return Grid.from_grid(da)
-    west, east, south, north = spec.extent
-    return Grid.from_extent(west, east, south, north, spec.resolution, crs=spec.crs or "EPSG:4326")
-
-
-def load_inputs(cfg, *, target: Grid, chunks: int, cache: dict | None = None) -> RunInputs:
-    """Every input of ``cfg.inputs`` on ``target`` (lazy, in ``chunks``-cell chunks); a
-    ``cache`` dict shares the grids of identical inputs between calls (ensemble members).
-
-    Raises
-    ------
-    InputError
-        If neither a plate age nor a lid thickness is given (the lid cannot be built).
-    """
-    values: dict[str, xr.DataArray | float] = {}
-    provenance: dict[str, dict[str, Any]] = {}
-    for name, var in INPUTS.items():
-        inp = cfg.inputs[var.workflow_key]
-        if inp is None:
-            continue
-        cache = {} if cache is None else cache
-        if (name, inp) not in cache:
-            cache[(name, inp)] = _load_input(inp, name, target, chunks)
-        values[name], provenance[name] = cache[(name, inp)][0], dict(cache[(name, inp)][1])
-        if name == "thermal_anomaly_k" and inp.plumes:
-            values[name] = _add_plumes(inp, values[name], provenance[name], target, chunks)
-    _add_plume_upwelling(cfg, values, provenance, target, chunks)
-    if not any(name in values for name in _LID_INPUTS):
-        msg = "the workflow gives neither inputs.plate_age nor inputs.lid_thickness; give one."
-        raise InputError(msg)
-    apply_lid_reference(cfg, values, provenance, target=target, chunks=chunks)
-    return RunInputs(values, provenance)
-
-
-def _load_input(inp, name: str, target: Grid, chunks: int) -> tuple[xr.DataArray | float, dict]:
-    """An input on the target grid (lazy where it already lies on it) or a constant."""
-    var = INPUTS[name]
-    prov: dict[str, Any] = {"units": var.units, "long_name": var.long_name}
-    if inp.path is None:
-        value = float(inp.constant if inp.constant is not None else 0.0)
-        prov.update({"source": None, "sha256": None, "constant": value})
-        return value, prov
-    da = open_input(inp, name=name, units_expected=var.units, chunks=chunks)
-    prov.update(
-        {
-            "source": str(inp.path),
-            "sha256": sha256_file(inp.path),
-            "variable": inp.variable,
-            "resampling": inp.resampling,
-            "registration": registration(da),
-            **({"conversion": da.attrs["conversion"]} if "conversion" in da.attrs else {}),
-        }
-    )
-    aligned = align(da, target, resampling=inp.resampling, name=name)
-    if aligned.chunks is None or aligned.chunks != target.template(chunks).chunks:
-        aligned = aligned.chunk({"y": chunks, "x": chunks})
-    if inp.constant:
-        aligned = aligned + float(inp.constant)
-        prov["constant"] = float(inp.constant)
-    return aligned, prov
-
-
-def _add_plumes(inp, background, prov: dict, target: Grid, chunks: int) -> xr.DataArray:
-    """The thermal anomaly: the workflow's plumes on ``background`` (recorded in ``prov``)."""
-    plumes = [Plume(**p.plume_fields()) for p in inp.plumes]
-    keys = ("name", "longitude", "latitude", "radius_km", "peak_excess_k", "shape")
-    prov["plumes"] = [{k: getattr(p, k) for k in keys} for p in inp.plumes]
-    return plume_anomaly(target, plumes, background=background, chunks=chunks)
-
-
-def _add_plume_upwelling(cfg, values: dict, provenance: dict, target: Grid, chunks: int):
-    """Add the plumes' ``peak_upwelling_mm_yr`` (same shape and radius) to the upwelling input.
-
-    Without ``[inputs.upwelling]`` the plumes' upwelling lies on a background of 0 mm/yr.
-    """
-    anomaly = cfg.inputs["thermal_anomaly"]
-    specs = [p for p in anomaly.plumes if p.peak_upwelling_mm_yr is not None]
-    if not specs:
-        return
-    name = "upwelling_mm_yr"
-    var = INPUTS[name]
-    if name not in values:
-        values[name] = 0.0
-        provenance[name] = {"units": var.units, "long_name": var.long_name, "source": None}
-    plumes = [Plume(**p.upwelling_fields()) for p in specs]
-    provenance[name]["plumes"] = [
-        {"name": p.name, "peak_upwelling_mm_yr": p.peak_upwelling_mm_yr} for p in specs
-    ]
-    values[name] = plume_anomaly(target, plumes, background=values[name], chunks=chunks)
-
-
-def lid_cooling_model(cfg, *, inputs: RunInputs):
-    """The cooling model that turns plate age into a lid, or None when no age is given.
-
-    With an age grid the lid is the depth of the ``lithosphere.lid_isotherm_c`` isotherm of
-    ``lithosphere.cooling``; where a lid thickness grid is given too, it wins where it has data.
-    """
-    if "plate_age_ma" not in inputs.values:
-        return None
-    return get_cooling_model(cfg.lithosphere.cooling, **dict(cfg.lithosphere.parameters))
 
 
 # ---- the kernel ----------------------------------------------------------------------------------
@@ -372,7 +226,7 @@ def kernel_arguments(inputs: RunInputs, *, template: xr.DataArray) -> list:
     import dask.array as dsa
 
     chunks = template.data.chunks
-    values = [inputs.values.get(n, np.nan if n in _LID_INPUTS else 0.0) for n in _KERNEL_INPUTS]
+    values = [inputs.values.get(n, np.nan if n in LID_INPUTS else 0.0) for n in _KERNEL_INPUTS]
     args = [_as_dask(v, chunks) for v in values]
     return [a.rechunk(chunks) if isinstance(a, dsa.Array) else a for a in args]
 
@@ -512,20 +366,52 @@ def run_basin(
     *,
     output_dir: str | Path | None = None,
     progress: bool | None = None,
+    products: Callable[[Path], list[Path]] | None = None,
+    wait: bool = False,
     extra_stages: tuple[Callable[[StageContext], tuple[list[Path], dict]], ...] = (),
 ) -> RunResult:
     """Run a whole basin from a workflow configuration; return what was written.
 
-    ``cfg`` is a RunConfig (:func:`lidmelt.workflow.load_workflow`); ``output_dir`` the run
-    directory (default ``cfg.run.output_dir``); ``progress`` a progress bar (True), plain log
-    lines (None when not on a terminal) or nothing (False); ``extra_stages`` run after the
-    outputs are stored, each ``stage(StageContext) -> (files, summary entries)`` (an
-    ``"outputs"`` entry adds to the run's outputs). Raises
-    :class:`LidmeltError` for any bad input (file, grid, range, model); no output is left
-    half-written.
+    The run is a transaction (:class:`lidmelt.grids.transaction.RunTransaction`): it takes the
+    destination's lock, writes everything into a staging folder beside it, reads every file
+    back, records the manifest in the summary, and only then swaps the staging folder into
+    place. On any error or interruption the destination keeps its previous run.
+
+    Parameters
+    ----------
+    cfg : RunConfig
+        From :func:`lidmelt.workflow.load_workflow`.
+    output_dir : path, optional
+        The run directory (default ``cfg.run.output_dir``).
+    progress : bool, optional
+        A progress bar (True), plain log lines (None when not on a terminal), or nothing (False).
+    products : callable, optional
+        ``products(staged_run_dir) -> paths``: draws figures (maps, report) into the staged,
+        sealed run, so that they are swapped into place with it.
+    wait : bool
+        Wait for another run writing the same destination instead of failing at once.
+    extra_stages : tuple of callables
+        Run after the outputs are stored, each ``stage(StageContext) -> (files, summary
+        entries)`` (an ``"outputs"`` entry adds to the run's outputs), e.g. the ensemble.
+
+    Raises
+    ------
+    LidmeltError
+        For any bad input (file, grid, range, model), a destination locked by another run, or
+        a run without a single evaluable cell; nothing is left half-written.
     """
+    with RunTransaction(output_dir or cfg.run.output_dir, wait=wait) as tx:
+        result = _run_staged(cfg, tx.staging, progress, extra_stages)
+        rundir.seal_run(tx.staging, result.summary, sources=result.sources)
+        drawn = list(products(tx.staging)) if products else []
+        tx.commit()
+    files = [tx.dest / Path(p).relative_to(tx.staging) for p in [*result.files, *drawn]]
+    return replace(result, run_dir=tx.dest, files=files)
+
+
+def _run_staged(cfg, run_dir: Path, progress: bool | None, extra_stages: tuple) -> RunResult:
+    """Every stage of a run, writing into ``run_dir`` (the staging folder)."""
     t0 = time.perf_counter()
-    run_dir = Path(output_dir or cfg.run.output_dir)
     chunks = int(cfg.compute.chunk_size)
     model, table = load_model(cfg)
     timings = {"table_s": time.perf_counter() - t0}
@@ -549,7 +435,7 @@ def run_basin(
         lazy=lazy,
         area=cell_area_km2(target, chunks=chunks).data,
         workers=int(cfg.compute.workers),
-        report=progress_reporter(progress),
+        report=band_reporter(progress),
         inputs=inputs,
     )
     run_warnings = ambient_melting_warnings(
@@ -584,6 +470,6 @@ def run_basin(
         warnings=run_warnings,
         extra=_run_stages(extra_stages, context, files),
     )
-    files.append(rundir.write_summary(run_dir, summary))
+    files.append(run_dir / rundir.SUMMARY_NAME)
     timings["total_s"] = time.perf_counter() - t0
-    return RunResult(run_dir, files, summary, timings)
+    return RunResult(run_dir, files, summary, timings, inputs.sources())

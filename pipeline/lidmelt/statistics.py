@@ -9,10 +9,7 @@ regime values are those of :mod:`lidmelt.variables` and docs/physics.md ("Defini
 
 from __future__ import annotations
 
-import functools
-import sys
 import warnings
-from collections.abc import Callable
 from typing import Any
 
 import numpy as np
@@ -23,7 +20,6 @@ __all__ = [
     "AMBIENT_MELT_WARN_FRACTION",
     "ambient_melting_warnings",
     "band_parts",
-    "progress_reporter",
     "summarize_bands",
 ]
 
@@ -172,20 +168,3 @@ def _ambient_melting_texts(statistics: dict, ambient_c: float) -> list[str]:
         + "; or ".join(causes)
         + ". Use anomaly_melt_thickness_km for the melt the anomalies add."
     ]
-
-
-def progress_reporter(show: bool | None) -> Callable[[int, int], None] | None:
-    """Progress of a run by bands, on stderr: a bar that updates in place on a terminal (True),
-    plain log lines (None when not on a terminal), or nothing (False)."""
-    if show is False:
-        return None
-    return functools.partial(_report, tty=sys.stderr.isatty() if show is None else bool(show))
-
-
-def _report(done: int, total: int, *, tty: bool) -> None:
-    pct = 100 * done // total
-    end = "\n" if done == total or not tty else ""
-    line = f"\rlidmelt run: [{'#' * (pct // 4):<25}] {pct:3d} %"
-    if not tty:
-        line = f"lidmelt run: {pct:3d} % of the grid done ({done}/{total} bands)"
-    print(line, end=end, file=sys.stderr, flush=True)

@@ -2,23 +2,30 @@
 
 One module per command (``lidmelt.cli.<command>``), each with ``register(subparsers)`` that adds
 its parser and sets ``func``, a callable ``func(args) -> int``; options that several commands
-share come from the parent parsers in :mod:`lidmelt.cli._common`. Errors derived from
-:class:`lidmelt.errors.LidmeltError` print without a traceback and exit with status 1.
+share come from the parent parsers in :mod:`lidmelt.cli._common`.
+
+One error handler (:func:`main`): errors derived from :class:`lidmelt.errors.LidmeltError` and
+the expected failures of :func:`lidmelt.cli._failures.describe_failure` (disk full, no
+permission, damaged GeoTIFF or NetCDF, out of memory) print one line without a traceback and
+exit with status 1; Ctrl-C (SIGINT) exits with 130 and SIGTERM with 143, after the same
+clean-up, with one line; ``lidmelt --debug COMMAND`` shows the traceback too.
 """
 
 from __future__ import annotations
 
 import argparse
 import sys
+import traceback
 
 from lidmelt import __version__
-from lidmelt.cli import column, map, profile, regions, report, run, sample, screen
+from lidmelt.cli import cache, column, map, profile, regions, report, run, sample, screen
+from lidmelt.cli._failures import Terminated, describe_failure, termination_as_interrupt
 from lidmelt.errors import LidmeltError
 
 __all__ = ["COMMANDS", "build_parser", "main"]
 
 #: The command modules, in the order ``lidmelt --help`` lists them.
-COMMANDS = (column, run, sample, profile, regions, screen, map, report)
+COMMANDS = (column, run, sample, profile, regions, screen, map, report, cache)
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -28,6 +35,9 @@ def build_parser() -> argparse.ArgumentParser:
         description="Maps of predicted mantle melt productivity beneath oceanic lithosphere.",
     )
     parser.add_argument("--version", action="version", version=f"lidmelt {__version__}")
+    parser.add_argument(
+        "--debug", action="store_true", help="show the traceback of an error (for bug reports)"
+    )
     sub = parser.add_subparsers(dest="command", metavar="COMMAND")
     for command in COMMANDS:
         command.register(sub)
@@ -42,7 +52,26 @@ def main(argv: list[str] | None = None) -> int:
         parser.print_help()
         return 0
     try:
-        return int(args.func(args) or 0)
+        with termination_as_interrupt():
+            return int(args.func(args) or 0)
+    except KeyboardInterrupt as exc:
+        _debug(args)
+        killed = "terminated (SIGTERM)" if isinstance(exc, Terminated) else "interrupted"
+        print(f"lidmelt {args.command}: {killed}; nothing half-written was left.", file=sys.stderr)
+        return 143 if isinstance(exc, Terminated) else 130
     except LidmeltError as exc:
+        _debug(args)
         print(f"lidmelt {args.command}: error: {exc}", file=sys.stderr)
         return 1
+    except Exception as exc:
+        message = describe_failure(exc)
+        if message is None:
+            raise  # a bug: its traceback is the report
+        _debug(args)
+        print(f"lidmelt {args.command}: error: {message}", file=sys.stderr)
+        return 1
+
+
+def _debug(args: argparse.Namespace) -> None:
+    if getattr(args, "debug", False):
+        traceback.print_exc()

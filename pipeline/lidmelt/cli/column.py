@@ -209,6 +209,39 @@ def _check_numbers(args: argparse.Namespace) -> None:
         raise InputError(msg)
 
 
+#: Sanity bounds of options without a registry range (not published values: a mantle hotter
+#: than 3000 deg C or a crust denser than 10000 kg/m3 is outside any model here; common practice).
+_SANE = {
+    "--potential-temperature": ("potential_temperature", 0.0, 3000.0, "deg C"),
+    "--ambient": ("ambient", 0.0, 3000.0, "deg C"),
+    "--lid-isotherm": ("lid_isotherm", 0.0, 3000.0, "deg C"),
+    "--crust-density": ("crust_density", 1000.0, 10000.0, "kg/m3"),
+}
+#: Options checked against the registry's valid range of an input variable.
+_REGISTRY = {
+    "--lid-depth": ("lid_depth", "lid_thickness_km"),
+    "--min-top": ("min_top", "lid_thickness_km"),
+    "--age": ("age", "plate_age_ma"),
+    "--excess-temperature": ("excess_temperature", "thermal_anomaly_k"),
+}
+
+
+def _check_ranges(args: argparse.Namespace) -> None:
+    """Refuse values outside their physical range (the registry's, or a sanity bound)."""
+    bounds = {opt: (attr, lo, hi, unit) for opt, (attr, lo, hi, unit) in _SANE.items()}
+    for option, (attr, name) in _REGISTRY.items():
+        low, high = INPUTS[name].valid_range
+        bounds[option] = (attr, low, high, INPUTS[name].units)
+    for option, (attr, low, high, unit) in bounds.items():
+        value = getattr(args, attr, None)
+        if value is not None and not low <= value <= high:
+            msg = (
+                f"{option} {value:g} {unit} is outside {low:g} to {high:g} {unit}. Give a value "
+                "in that range (check the unit)."
+            )
+            raise InputError(msg)
+
+
 def _unit_hints(args: argparse.Namespace, tp: float) -> list[str]:
     """Notes on values that look like unit mistakes (water in ppm, Tp in kelvin)."""
     notes = []
@@ -276,6 +309,7 @@ def _check_flag(flag: int, model: Any, tp: float, args: argparse.Namespace, res:
 def run(args: argparse.Namespace) -> int:
     """Evaluate one column and print it as a table or as JSON."""
     _check_numbers(args)
+    _check_ranges(args)
     model = get_model(args.model, **_parse_params(args.param))
     if args.potential_temperature is not None:
         tp, ambient = args.potential_temperature, args.ambient

@@ -8,6 +8,8 @@ from pathlib import Path
 from lidmelt.cli._common import print_warnings
 from lidmelt.engine import run_basin
 from lidmelt.ensemble import ensemble_stages
+from lidmelt.grids.rundir import RunDir
+from lidmelt.grids.transaction import RunLock, clean_leftovers
 from lidmelt.products.maps import draw_run_maps
 from lidmelt.products.maps.overview import draw_overview
 from lidmelt.products.report import write_report
@@ -47,21 +49,62 @@ def register(subparsers: argparse._SubParsersAction) -> None:
     )
     p.add_argument("--no-maps", action="store_true", help="do not draw map figures or the report")
     p.add_argument("--quiet", action="store_true", help="no progress output")
+    p.add_argument(
+        "--wait",
+        action="store_true",
+        help="if another run is writing the same folder, wait for it instead of failing",
+    )
+    p.add_argument(
+        "--clean",
+        action="store_true",
+        help="only remove the staging folders that interrupted runs left beside the run "
+        "directory (the run directory itself is kept), then exit",
+    )
     p.set_defaults(func=run)
+
+
+def _products(draw_maps: bool, report: bool, dest: Path):
+    """The figures drawn into the staged run (swapped into place with it), or None."""
+    if not draw_maps:
+        return None
+
+    def draw(staged: Path) -> list[Path]:
+        run_dir = RunDir(staged, shown_as=dest.absolute())
+        maps = list(draw_run_maps(run_dir))
+        overview = draw_overview(run_dir, coastlines=False, formats=("png", "pdf"))
+        drawn = [*maps, *overview]
+        return [*drawn, write_report(run_dir, maps=maps)] if report else drawn
+
+    return draw
+
+
+def _clean(cfg) -> int:
+    """``--clean``: remove what interrupted runs left beside the run directory."""
+    dest = Path(cfg.run.output_dir).absolute()
+    with RunLock(dest):
+        removed = clean_leftovers(dest)
+    for path in removed:
+        print(f"  removed {path}")
+    print(f"lidmelt run: {len(removed)} leftover folder(s) beside {dest} removed")
+    return 0
 
 
 def run(args: argparse.Namespace) -> int:
     """Run the basin, draw its maps and report, and print what was written."""
     cfg = load_workflow(args.workflow, overrides=args.overrides, output_dir=args.output_dir)
+    if args.clean:
+        return _clean(cfg)
     stages = ensemble_stages(cfg, announce=not args.quiet)  # refuses what will not fit, first
+    products = _products(not args.no_maps and cfg.run.maps, cfg.run.report, cfg.run.output_dir)
     with print_warnings("run"):
-        result = run_basin(cfg, progress=False if args.quiet else None, extra_stages=stages)
+        result = run_basin(
+            cfg,
+            progress=False if args.quiet else None,
+            products=products,
+            wait=args.wait,
+            extra_stages=stages,
+        )
     files = list(result.files)
-    if not args.no_maps and cfg.run.maps:
-        maps = list(draw_run_maps(result.run_dir))
-        files += maps + draw_overview(result.run_dir, coastlines=False, formats=("png", "pdf"))
-        if cfg.run.report:
-            files.append(write_report(result.run_dir, maps=maps))
     st = result.summary["statistics"]
     print(f"lidmelt run: {cfg.run.name} -> {result.run_dir}")
     print(

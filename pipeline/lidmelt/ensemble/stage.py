@@ -19,14 +19,7 @@ from typing import Any
 
 import numpy as np
 
-from lidmelt.engine import (
-    StageContext,
-    kernel_arguments,
-    kernel_settings,
-    lid_cooling_model,
-    load_inputs,
-    load_model,
-)
+from lidmelt.engine import StageContext, kernel_arguments, kernel_settings
 from lidmelt.ensemble.drivers import drivers, total_statistics
 from lidmelt.ensemble.kernel import QUANTUM, TOTALS, MemberPlan, layer_names, reduce_chunk
 from lidmelt.errors import WorkflowError
@@ -34,6 +27,7 @@ from lidmelt.files import write_text_atomic
 from lidmelt.grids import rundir
 from lidmelt.grids.area import cell_area_km2
 from lidmelt.grids.store import GeoTiffItem, GeoTiffSet
+from lidmelt.run_inputs import lid_cooling_model, load_inputs, load_model
 from lidmelt.variables import ensemble_variable
 
 __all__ = [

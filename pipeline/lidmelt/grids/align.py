@@ -134,6 +134,12 @@ def align(
     return xr.DataArray(result, dims=("y", "x"), coords=coords, attrs=attrs, name=out_name)
 
 
+#: Above this many target cells, or source-window cells, :func:`align` works block by block.
+BLOCK_CELLS = 4096 * 4096
+#: Side of the target blocks (cells) of the block-by-block path.
+ALIGN_BLOCK = 2048
+
+
 def _check_align_args(da: Any, target: Any, resampling: str) -> None:
     """GridError unless ``da`` is a north-up grid with a CRS, ``target`` a Grid and
     ``resampling`` one of :data:`RESAMPLING_METHODS`."""
@@ -156,15 +162,28 @@ def _as_yx(da: xr.DataArray) -> xr.DataArray:
     return da if da.dims == ("y", "x") else da.transpose("y", "x")
 
 
-def _resample(da: xr.DataArray, target: Grid, resampling: str) -> tuple[np.ndarray, str]:
+def _resample(
+    da: xr.DataArray,
+    target: Grid,
+    resampling: str,
+    *,
+    footprint: float | None = None,
+    blockwise: bool = True,
+) -> tuple[Any, str]:
     """Values of ``da`` on ``target`` and the method used: the covering source windows, loaded,
     then interpolated or averaged here (bilinear) or warped by GDAL (the other methods); see
-    :func:`align`."""
+    :func:`align`. A large target, or a large source window, is done block by block, lazily
+    (:func:`_resample_blocks`), so that no whole grid is ever allocated."""
     src_crs = cached_crs(normalise_crs(da.rio.crs))
     src_transform = transform_of(da)
     pieces = _source_pieces(da, src_transform, src_crs, target)
     if not pieces:
         raise GridError(_no_overlap_message(da, src_transform, src_crs, target))
+    if footprint is None:
+        footprint = _median_footprint(target, src_crs, src_transform)
+    window_cells = sum(int(np.prod(piece.shape)) for piece, _, _ in pieces)
+    if blockwise and max(target.width * target.height, window_cells) > BLOCK_CELLS:
+        return _resample_blocks(da, target, resampling, footprint)
     dtype = np.float32 if da.dtype == np.float32 else np.float64
     loaded = [
         (np.asarray(piece.values, dtype=dtype), tr, lon_range) for piece, tr, lon_range in pieces
@@ -174,7 +193,6 @@ def _resample(da: xr.DataArray, target: Grid, resampling: str) -> tuple[np.ndarr
         return _warp_gdal(
             loaded, target, src_crs, dtype, RESAMPLING_METHODS[resampling]
         ), resampling
-    footprint = _median_footprint(target, src_crs, src_transform)
     result = _interpolate_bilinear(loaded, target, src_crs, dtype)
     if footprint <= 1.0:
         return result, resampling
@@ -187,6 +205,36 @@ def _resample(da: xr.DataArray, target: Grid, resampling: str) -> tuple[np.ndarr
     )
     means, counts = cell_means(loaded, target, src_crs)
     return np.where(counts > 0, means, result).astype(dtype), "average (cell means)"
+
+
+def _resample_blocks(da: xr.DataArray, target: Grid, resampling: str, footprint: float):
+    """:func:`_resample` lazily, one target block of :data:`ALIGN_BLOCK` cells at a time: each
+    block reads only the source window that covers it. The choice between bilinear and cell
+    means is made once, from the whole target's footprint."""
+    import dask.array as dsa
+
+    dtype = np.float32 if da.dtype == np.float32 else np.float64
+    used = resampling if resampling != "bilinear" or footprint <= 1.0 else "average (cell means)"
+    chunks = tuple(
+        tuple(min(ALIGN_BLOCK, n - k) for k in range(0, n, ALIGN_BLOCK)) for n in target.shape
+    )
+
+    def block(block_info=None):
+        (r0, r1), (c0, c1) = block_info[None]["array-location"]
+        a, b, c, d, e, f = target.transform
+        sub = Grid(
+            crs=target.crs,
+            transform=(a, b, c + a * c0, d, e, f + e * r0),
+            width=c1 - c0,
+            height=r1 - r0,
+        )
+        try:
+            out, _ = _resample(da, sub, resampling, footprint=footprint, blockwise=False)
+        except GridError:  # this block lies outside the input
+            return np.full(sub.shape, np.nan, dtype=dtype)
+        return np.asarray(out, dtype=dtype)
+
+    return dsa.map_blocks(block, chunks=chunks, dtype=dtype, meta=np.empty((0, 0), dtype)), used
 
 
 # --------------------------------------------------------------------------------------------

@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import contextlib
 import json
+import logging
 import math
 import tempfile
 import threading
@@ -36,9 +37,11 @@ __all__ = [
     "convert_block",
     "copy_to_cog",
     "ensure_metadata",
+    "gdal_checked",
     "gtiff_profile",
     "has_cog_driver",
     "publish",
+    "read_back",
     "set_metadata",
     "staging_path",
     "stringify_tags",
@@ -228,6 +231,7 @@ def publish(
 ) -> None:
     """Make ``final_tmp`` the finished file: a COG copy of ``staged`` unless they are the same."""
     if staged == final_tmp:
+        read_back(final_tmp)
         return
     copy_to_cog(staged, final_tmp, integer=integer)
     ensure_metadata(final_tmp, description, units, tags)
@@ -241,7 +245,7 @@ def copy_to_cog(src: Path, dst: Path, *, integer: bool) -> None:
     writing COG directly; the copy runs with ``GDAL_CACHEMAX`` = :data:`COG_CACHE_MB`, since
     GDAL's default cache (5 % of RAM) let it grow to that size (``benchmarks/bench_write.py``).
     """
-    with rasterio.Env(GDAL_CACHEMAX=COG_CACHE_MB):
+    with rasterio.Env(GDAL_CACHEMAX=COG_CACHE_MB), gdal_checked(dst):
         rasterio.shutil.copy(
             src,
             dst,
@@ -254,6 +258,47 @@ def copy_to_cog(src: Path, dst: Path, *, integer: bool) -> None:
             NUM_THREADS="ALL_CPUS",
             RESAMPLING="NEAREST" if integer else "AVERAGE",
         )
+    read_back(dst)  # the copy may return without raising on a failed write (disk full)
+
+
+class _ErrorRecords(logging.Handler):
+    """Collects the GDAL errors rasterio logs instead of raising."""
+
+    def __init__(self) -> None:
+        super().__init__(level=logging.ERROR)
+        self.messages: list[str] = []
+
+    def emit(self, record: logging.LogRecord) -> None:
+        self.messages.append(record.getMessage())
+
+
+@contextlib.contextmanager
+def gdal_checked(path: str | Path) -> Iterator[None]:
+    """Raise an OSError naming ``path`` if GDAL reported an error in the block without raising.
+
+    rasterio logs (and does not raise) the errors GDAL reports inside some calls, such as a
+    failed write during a copy; they are collected from the ``rasterio`` logger here.
+    """
+    handler = _ErrorRecords()
+    logger = logging.getLogger("rasterio")
+    logger.addHandler(handler)
+    try:
+        yield
+    finally:
+        logger.removeHandler(handler)
+    if handler.messages:
+        msg = f"GDAL reported an error while writing it: {handler.messages[0]}"
+        raise OSError(0, msg, str(path))
+
+
+def read_back(path: str | Path) -> None:
+    """Read every block of a written GeoTIFF; raise if it is empty, truncated or damaged."""
+    path = Path(path)
+    if path.stat().st_size == 0:
+        raise OSError(0, "the written GeoTIFF is empty (disk full?)", str(path))
+    with gdal_checked(path), rasterio.open(path) as src:
+        for _, window in src.block_windows(1):
+            src.read(1, window=window)
 
 
 def write_failed(exc: BaseException, *, what: str, where: str | Path) -> InputError:

@@ -44,16 +44,19 @@ import numpy as np
 import xarray as xr
 
 from lidmelt import __version__
-from lidmelt.errors import RunDirError
+from lidmelt.errors import InputError, RunDirError
 from lidmelt.files import write_json_atomic
 from lidmelt.grids.io import open_grid
+from lidmelt.grids.manifest import check_written, seal_summary, verify_manifest
+from lidmelt.grids.transaction import leftovers, lock_holder
 from lidmelt.grids.write import write_netcdf
-from lidmelt.physics import FLAG_KEYS, FLAG_MEANINGS
+from lidmelt.physics import FLAG_INVALID_INPUT, FLAG_KEYS, FLAG_MEANINGS, FLAG_WATER_SATURATED
 from lidmelt.variables import (
     FLAG_NODATA,
     FLAG_VARIABLE,
     INPUTS,
     OUTPUTS,
+    ensemble_variable,
     input_for_workflow_key,
 )
 
@@ -65,11 +68,13 @@ __all__ = [
     "FlagGrid",
     "RunDir",
     "build_summary",
+    "check_evaluable",
     "input_file",
     "open_run",
     "output_file",
     "provenance_tags",
     "read_flags",
+    "seal_run",
     "write_run_netcdf",
     "write_summary",
 ]
@@ -101,22 +106,23 @@ class RunDir:
     ----------
     path : str or Path
         The folder written by ``lidmelt run``.
+    shown_as : str or Path, optional
+        The path to show users (:attr:`shown_path`): a staged run is read from its staging
+        folder but will be at its destination.
 
     Raises
     ------
     RunDirError
-        If the folder does not exist, has no readable ``summary.json`` or lacks the run marker.
+        If the folder does not exist, has no readable ``summary.json``, lacks the run marker,
+        or fails its manifest check (:func:`lidmelt.grids.manifest.verify_manifest`).
     """
 
-    def __init__(self, path: str | Path) -> None:
+    def __init__(self, path: str | Path, *, shown_as: str | Path | None = None) -> None:
         self.path = Path(path)
+        self.shown_path = Path(shown_as) if shown_as is not None else self.path
         summary_path = self.path / SUMMARY_NAME
         if not self.path.is_dir():
-            msg = (
-                f"run directory {str(self.path)!r} does not exist or is not a folder. "
-                "Give the output folder of a 'lidmelt run' (its -o OUT_DIR)."
-            )
-            raise RunDirError(msg)
+            raise _missing_run(self.path)
         if not summary_path.is_file():
             msg = (
                 f"{str(self.path)!r} is not a lidmelt run directory: it has no {SUMMARY_NAME}. "
@@ -126,7 +132,7 @@ class RunDir:
             raise RunDirError(msg)
         try:
             summary = json.loads(summary_path.read_text(encoding="utf-8"))
-        except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
+        except (OSError, ValueError, RecursionError) as exc:
             msg = (
                 f"{str(summary_path)!r} cannot be read as JSON ({exc}). The run directory is "
                 "damaged; run 'lidmelt run' again to rewrite it."
@@ -139,30 +145,39 @@ class RunDir:
             )
             raise RunDirError(msg)
         self.summary: dict[str, Any] = summary
+        self._stats = verify_manifest(self.path, summary, needed=self._listed_files())
+
+    def _listed_files(self) -> list[str]:
+        """The files the summary lists (named by the registry, never by the summary)."""
+        names = [output_file(n) for n in self.outputs]
+        names += [input_file(n) for n in self.inputs]
+        if self.summary.get("validity_flag"):
+            names.append(FLAG_FILE)
+        return names
 
     @property
     def outputs(self) -> list[str]:
-        """Names of the output variables, in the order the run wrote them."""
-        return list(self.summary.get("outputs", {}))
+        """Names of the output variables, in the order the run wrote them: registered ones and
+        the layers of an ensemble (:func:`lidmelt.variables.ensemble_variable`)."""
+        return [
+            n
+            for n in _entries(self.summary, "outputs")
+            if n in OUTPUTS or ensemble_variable(n) is not None
+        ]
 
     @property
     def inputs(self) -> list[str]:
         """Names of the aligned inputs that have a grid file in this folder."""
-        return [k for k, v in self.summary.get("inputs", {}).items() if v.get("file")]
+        entries = _entries(self.summary, "inputs")
+        return [
+            k for k, v in entries.items() if k in INPUTS and isinstance(v, dict) and v.get("file")
+        ]
 
     def file(self, name: str) -> Path:
         """Path of the GeoTIFF holding output variable or aligned input ``name``."""
-        for group in ("outputs", "inputs"):
-            entry = self.summary.get(group, {}).get(name)
-            if entry and entry.get("file"):
-                path = self.path / entry["file"]
-                if not path.is_file():
-                    msg = (
-                        f"run directory {str(self.path)!r} lists {name!r} but its file "
-                        f"{entry['file']!r} is missing. Run 'lidmelt run' again."
-                    )
-                    raise RunDirError(msg)
-                return path
+        for names, file_of in ((self.outputs, output_file), (self.inputs, input_file)):
+            if name in names:
+                return self.checked(file_of(name))
         valid = ", ".join(self.outputs + self.inputs)
         msg = f"{name!r} is not a variable of this run. Valid names: {valid}."
         raise RunDirError(msg)
@@ -188,6 +203,55 @@ class RunDir:
         """Load several variables (default: every output and input) into one Dataset."""
         names = names or self.outputs + self.inputs
         return xr.Dataset({n: self.open(n) for n in names})
+
+    @property
+    def manifest_files(self) -> list[str]:
+        """The files of the manifest (relative names), verified when the folder was opened."""
+        return list(self._stats)
+
+    def checked(self, rel: str) -> Path:
+        """Path of manifest file ``rel``, checked to be the file verified when opened.
+
+        Raises
+        ------
+        RunDirError
+            If the file is missing or was replaced since (a run swapped into the folder).
+        """
+        path = self.path / rel
+        try:
+            st = path.stat()
+        except FileNotFoundError:
+            st = None
+        old = self._stats.get(rel)
+        if st is None or old is None or (st.st_ino, st.st_size) != (old.st_ino, old.st_size):
+            msg = (
+                f"{rel!r} in run directory {str(self.path)!r} is missing or was replaced after "
+                "the folder was opened (a run finished into it meanwhile). Run the command again."
+            )
+            raise RunDirError(msg)
+        return path
+
+
+def _entries(summary: Mapping[str, Any], group: str) -> dict[str, Any]:
+    entries = summary.get(group)
+    return entries if isinstance(entries, dict) else {}
+
+
+def _missing_run(path: Path) -> RunDirError:
+    """The error for a run directory that is not there: a run in progress, or a wrong path."""
+    holder = lock_holder(path)
+    if holder is not None or (leftovers(path) and not path.exists()):
+        who = f" (process {holder.get('pid')})" if holder else ""
+        msg = (
+            f"run directory {str(path)!r} is being written by a run in progress{who}. "
+            "Run the command again when that run has finished."
+        )
+        return RunDirError(msg)
+    msg = (
+        f"run directory {str(path)!r} does not exist or is not a folder. "
+        "Give the output folder of a 'lidmelt run' (its -o OUT_DIR)."
+    )
+    return RunDirError(msg)
 
 
 def open_run(path: str | Path) -> RunDir:
@@ -245,9 +309,9 @@ def read_flags(run: RunDir) -> FlagGrid | None:
     import rasterio
 
     entry = run.summary.get("validity_flag") or {}
-    path = run.path / str(entry.get("file") or FLAG_FILE)
-    if not path.is_file():
+    if FLAG_FILE not in run.manifest_files:
         return None
+    path = run.checked(FLAG_FILE)
     with rasterio.open(path) as src:
         values = src.read(1).astype(np.uint8)
         nodata = src.nodata
@@ -409,8 +473,69 @@ def _registration(cfg: Any, provenance: Mapping[str, Mapping[str, Any]]) -> str:
 
 
 def write_summary(run_dir: str | Path, doc: Mapping[str, Any]) -> Path:
-    """Write ``doc`` as the run directory's ``summary.json`` atomically; return its path."""
-    return write_json_atomic(Path(run_dir) / SUMMARY_NAME, doc)
+    """Write ``doc`` as the run directory's ``summary.json`` atomically; return its path.
+
+    The summary is sealed first: the manifest of every file now in ``run_dir`` (but the
+    figures) and the summary's own checksum are added (:mod:`lidmelt.grids.manifest`).
+    """
+    run_dir = Path(run_dir)
+    return write_json_atomic(
+        run_dir / SUMMARY_NAME, seal_summary(dict(doc), run_dir, summary_name=SUMMARY_NAME)
+    )
+
+
+def check_evaluable(flag_counts: Mapping[int, int], *, sources: Mapping[str, str]) -> None:
+    """Refuse a run where no cell has data, or no cell with data can be evaluated.
+
+    ``flag_counts`` are the cells per validity flag value (as read back from the flag grid);
+    ``sources`` name where each input came from.
+
+    Raises
+    ------
+    InputError
+        Saying why: every input NaN over the grid, Tp at or below the surface solidus, or the
+        source water above saturation, in every cell.
+    """
+    with_data = {v: n for v, n in flag_counts.items() if v != FLAG_NODATA and n}
+    given = ", ".join(f"{k} from {v}" for k, v in sources.items()) or "no inputs"
+    if not with_data:
+        msg = (
+            "no cell of the grid has data: every cell lacks a lid (plate age or lid thickness), "
+            f"a thermal anomaly or a water content ({given}). Check that the input grids "
+            "overlap the grid's extent and are not all NaN (nodata)."
+        )
+        raise InputError(msg)
+    bad = FLAG_INVALID_INPUT | FLAG_WATER_SATURATED
+    if all(v & bad for v in with_data):
+        invalid = sum(n for v, n in with_data.items() if v & FLAG_INVALID_INPUT)
+        why = (
+            "the potential temperature is at or below the surface solidus (or an input is "
+            "out of range)"
+            if invalid
+            else "the source water is above saturation at the onset of melting"
+        )
+        msg = (
+            f"none of the {sum(with_data.values())} cells with data can be evaluated: {why} "
+            f"in every cell ({given}). Raise model.ambient_potential_temperature_c or the "
+            "thermal anomaly, or lower the water content (wt%)."
+        )
+        raise InputError(msg)
+
+
+def seal_run(run_dir: str | Path, doc: Mapping[str, Any], *, sources: Mapping[str, str]) -> Path:
+    """Check every file of a staged run, then write its summary with the manifest.
+
+    Every file is read back completely (:func:`lidmelt.grids.manifest.check_written`); a run
+    whose cells all lack data or cannot be evaluated is refused (:func:`check_evaluable`).
+    Returns the summary's path (read back and verified).
+    """
+    run_dir = Path(run_dir)
+    check = check_written(run_dir, flag_file=FLAG_FILE)
+    check_evaluable(check.flag_counts, sources=sources)
+    path = write_summary(run_dir, doc)
+    written = json.loads(path.read_text(encoding="utf-8"))
+    verify_manifest(run_dir, written)
+    return path
 
 
 def write_run_netcdf(

@@ -46,6 +46,27 @@ def _bisect_increasing(func, lo, hi, target, *, iterations=60):
     return 0.5 * (lo + hi)
 
 
+#: Ranges a parameter of :class:`MeltingModel` may take (inclusive). Sanity bounds, not
+#: published values: they keep the onset search and the table finite and the isentrope
+#: meaningful. The pressure bound: the base of the mantle transition zone lies near 24 GPa
+#: (660 km; PREM, Dziewonski & Anderson 1981, from memory); the default search depth of 30 GPa
+#: covers every onset of Tp <= 1900 deg C, and beyond 40 GPa the continued phase boundaries
+#: have no meaning. The others span about an order of magnitude around the published values
+#: (common practice).
+SANE_RANGES: dict[str, tuple[float, float]] = {
+    "max_onset_pressure_gpa": (1.0, 40.0),
+    "calibrated_max_pressure_gpa": (0.5, 40.0),
+    "specific_heat_j_kg_k": (100.0, 10000.0),
+    "entropy_of_melting_j_kg_k": (10.0, 10000.0),
+    "solid_expansivity_k": (0.0, 1e-3),
+    "melt_expansivity_k": (0.0, 1e-3),
+    "solid_density_kg_m3": (1000.0, 10000.0),
+    "melt_density_kg_m3": (1000.0, 10000.0),
+    "lithostatic_density_kg_m3": (1000.0, 10000.0),
+    "gravity_m_s2": (1.0, 30.0),
+}
+
+
 @dataclass(frozen=True, kw_only=True)
 class MeltingModel:
     """Common fields of a melting model. SI units unless a suffix says otherwise.
@@ -103,6 +124,13 @@ class MeltingModel:
             if f.type not in ("float", float):
                 continue
             value = getattr(self, f.name)
+            if isinstance(value, bool | np.bool_):
+                msg = (
+                    f"model parameter {f.name}={value!r} is a boolean (true/false); it must be "
+                    "a number (SI units as its suffix says). Check the workflow's "
+                    "[model.parameters]."
+                )
+                raise ModelError(msg)
             try:
                 number = float(value)
             except (TypeError, ValueError):
@@ -133,6 +161,26 @@ class MeltingModel:
                     "says). Check the override in the workflow's [model.parameters]."
                 )
                 raise ModelError(msg)
+        self._check_sane_ranges()
+
+    def _check_sane_ranges(self) -> None:
+        """Each parameter within :data:`SANE_RANGES`, and the calibration within the search."""
+        for key, (lo, hi) in SANE_RANGES.items():
+            value = getattr(self, key)
+            if not lo <= value <= hi:
+                msg = (
+                    f"model parameter {key}={value!r} is outside the range this model can "
+                    f"use, {lo:g} to {hi:g} (SI units as its suffix says). Use a value in "
+                    "that range in the workflow's [model.parameters]."
+                )
+                raise ModelError(msg)
+        if self.calibrated_max_pressure_gpa > self.max_onset_pressure_gpa:
+            msg = (
+                f"model parameter calibrated_max_pressure_gpa={self.calibrated_max_pressure_gpa!r}"
+                f" exceeds max_onset_pressure_gpa={self.max_onset_pressure_gpa!r} GPa; the "
+                "calibrated range must lie within the searched one. Lower it or raise the other."
+            )
+            raise ModelError(msg)
 
     # -- parameters ---------------------------------------------------------------------------
     def parameters(self) -> dict[str, float]:

@@ -12,7 +12,9 @@ is measured in tests/test_table.py over the whole supported range.
 
 Tables are cached on disk (``$LIDMELT_CACHE_DIR``, else ``$XDG_CACHE_HOME/lidmelt``, else
 ``~/.cache/lidmelt``) under a SHA-256 of the model's class, every parameter value and the table
-layout, so that changing any parameter builds a new table.
+layout, so that changing any parameter builds a new table. Each file also stores the SHA-256 of
+its content, checked on load; a damaged file is rebuilt with a one-line warning, and the cache
+folder has a size limit with least-recently-used eviction (:mod:`lidmelt.physics.tablecache`).
 """
 
 from __future__ import annotations
@@ -20,7 +22,7 @@ from __future__ import annotations
 import contextlib
 import hashlib
 import json
-import os
+import warnings
 from dataclasses import asdict, dataclass
 from functools import lru_cache
 from pathlib import Path
@@ -30,6 +32,7 @@ import numpy as np
 from lidmelt.files import atomic_path
 from lidmelt.physics.column import integrate_columns, onset_pressure_gpa
 from lidmelt.physics.melting import MeltingModel, get_model
+from lidmelt.physics.tablecache import cache_dir, content_sha256, enforce_limit, touch
 
 __all__ = [
     "FALLBACK_STEP_GPA",
@@ -42,6 +45,7 @@ __all__ = [
 ]
 
 TABLE_FORMAT = 1
+_ARRAYS = ("tp_c", "water_u", "pressure_gpa", "onset_gpa", "values")
 WATER_EXPONENT = 0.75  # the water coordinate u = water^0.75 (Katz et al. 2003 gamma)
 # Step of the direct integration for the few cells the table cannot do: 0.04 GPa changes melt
 # thickness by < 4e-4 km against 0.0025 GPa (tests/test_column.py::test_step_convergence), far
@@ -69,14 +73,6 @@ class TableLayout:
     pressure_step_gpa: float = 0.02
     integration_step_gpa: float = 0.01
     top_pressure_max_gpa: float = 13.0
-
-
-def cache_dir() -> Path:
-    """The folder where tables are cached."""
-    if os.environ.get("LIDMELT_CACHE_DIR"):
-        return Path(os.environ["LIDMELT_CACHE_DIR"])
-    base = os.environ.get("XDG_CACHE_HOME") or Path.home() / ".cache"
-    return Path(base) / "lidmelt"
 
 
 def table_key(model: MeltingModel, layout: TableLayout) -> str:
@@ -155,21 +151,37 @@ class MeltTable:
                 onset_gpa=self.onset_gpa,
                 values=self.values,
                 key=np.array(table_key(self.model, self.layout)),
+                content_sha256=np.array(content_sha256(self.arrays())),
             )
+
+    def arrays(self) -> dict[str, np.ndarray]:
+        """The table's arrays by name (what is saved and checksummed)."""
+        return {k: getattr(self, k) for k in _ARRAYS}
 
     @classmethod
     def load(cls, path: Path, model: MeltingModel, layout: TableLayout) -> MeltTable | None:
-        """Read a cached table; None if missing, unreadable or made for other parameters."""
+        """Read a cached table; None if missing or made for other parameters.
+
+        A file that cannot be read, or whose content differs from its recorded SHA-256, is
+        not trusted: a one-line warning, and None (the caller rebuilds it).
+        """
+        if not path.is_file():
+            return None
         try:
-            with np.load(path) as data:
+            with np.load(path, allow_pickle=False) as data:
                 if str(data["key"]) != table_key(model, layout):
                     return None
-                arrays = {
-                    k: data[k] for k in ("tp_c", "water_u", "pressure_gpa", "onset_gpa", "values")
-                }
-        except (OSError, KeyError, ValueError):
-            return None
-        return cls(model, layout, arrays)
+                arrays = {k: data[k] for k in _ARRAYS}
+                recorded = str(data["content_sha256"])
+        except Exception as exc:  # an untrusted file (zip, npy or key damaged): rebuild it
+            why = f"cannot be read ({type(exc).__name__}: {exc})"
+        else:
+            if recorded == content_sha256(arrays):
+                touch(path)
+                return cls(model, layout, arrays)
+            why = "does not match its recorded SHA-256"
+        warnings.warn(f"melting table cache file {str(path)!r} {why}; rebuilt.", stacklevel=2)
+        return None
 
     # -- evaluation ------------------------------------------------------------------------------
     def _rough_intervals(self, onset: np.ndarray) -> np.ndarray:
@@ -279,6 +291,7 @@ def _cached_table(model: MeltingModel, layout: TableLayout, folder: str) -> Melt
         table = MeltTable.build(model, layout)
         with contextlib.suppress(OSError):  # a read-only cache only costs a rebuild next time
             table.save(path)
+            enforce_limit(path.parent, keep=path)
     return table
 
 

@@ -10,6 +10,7 @@ from __future__ import annotations
 import difflib
 import math
 from collections.abc import Callable, Mapping, Sequence
+from pathlib import Path
 from typing import Any
 
 from lidmelt.errors import WorkflowError
@@ -27,6 +28,7 @@ __all__ = [
     "read_fields",
     "string",
     "table",
+    "user_path",
     "wrong_type",
 ]
 
@@ -184,3 +186,26 @@ def read_fields(
         for name, read in readers.items()
         if name in values
     }
+
+
+def user_path(written: str | Path, *, base: Path | None = None, what: str = "path") -> Path:
+    """``written`` as an absolute path (``~`` expanded, relative to ``base`` or the current
+    folder), or a WorkflowError naming ``what`` for a NUL character, an unknown ``~user``,
+    a name too long for the file system or a path that cannot be resolved."""
+    text = str(written)
+    problem = None
+    if "\x00" in text:
+        problem = "holds a NUL character"
+    elif len(text) > 4096 or any(len(part) > 255 for part in Path(text).parts):
+        problem = "is longer than the file system allows (4096 characters, 255 per name)"
+    if problem is None:
+        try:
+            path = Path(text).expanduser()
+            return ((base / path) if base is not None else path).resolve()
+        except RuntimeError:
+            problem = "starts with '~user' for a user this system does not know"
+        except (OSError, ValueError) as exc:
+            problem = f"cannot be resolved ({exc})"
+    shown = text if len(text) <= 80 else text[:77] + "..."
+    msg = f"{what} {shown!r} {problem}. Give a plain absolute or relative path."
+    raise WorkflowError(msg)

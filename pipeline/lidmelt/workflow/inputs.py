@@ -25,7 +25,16 @@ from lidmelt.grids.catalogue import read_plume_catalogue
 from lidmelt.grids.io import detect_format
 from lidmelt.grids.lidref import LID_REFERENCES
 from lidmelt.grids.units import dlnvs_to_kelvin
-from lidmelt.workflow.checks import Context, choice, in_range, number, string, table, wrong_type
+from lidmelt.workflow.checks import (
+    Context,
+    choice,
+    in_range,
+    number,
+    string,
+    table,
+    user_path,
+    wrong_type,
+)
 
 __all__ = ["read_inputs"]
 
@@ -118,7 +127,7 @@ def _read_source(
     path = written = variable = None
     if "path" in values:
         written = string(ctx, f"{prefix}.path", values["path"], example="grids/my_grid.tif")
-        path = (base_dir / Path(written).expanduser()).resolve()
+        path = user_path(written, base=base_dir, what=ctx.where(prefix + ".path"))
         if not path.is_file():
             state = "is a folder, not a file" if path.is_dir() else "does not exist"
             msg = (
@@ -252,7 +261,7 @@ def _read_plumes_file(
 ) -> tuple[PlumeSpec, ...]:
     """The rows of a plume catalogue, checked like inline plumes."""
     written = extra["plumes_file"]
-    path = (base_dir / Path(written).expanduser()).resolve()
+    path = user_path(written, base=base_dir, what=ctx.where(key))
     try:
         rows = read_plume_catalogue(path, key=f"{ctx.source}: {key}")
     except LidmeltError as exc:

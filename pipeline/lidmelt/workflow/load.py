@@ -10,7 +10,7 @@ from typing import Any
 
 from lidmelt.config import RunConfig
 from lidmelt.errors import LidmeltError, WorkflowError
-from lidmelt.workflow.checks import Context
+from lidmelt.workflow.checks import Context, user_path
 from lidmelt.workflow.ensemble import read_ensemble
 from lidmelt.workflow.overrides import apply_override
 from lidmelt.workflow.tables import read_config
@@ -53,7 +53,7 @@ def load_workflow(
         or names an unknown model or model parameter.
     """
     given = Path(path)
-    workflow_path = given.expanduser().resolve()
+    workflow_path = user_path(given, what="workflow file")
     source = str(given)
     if not workflow_path.is_file():
         state = "is a folder" if workflow_path.is_dir() else "does not exist"

@@ -52,7 +52,7 @@ SCHEMA: dict[str, tuple[str, ...]] = {
     "model.parameters": ("*",),
     "lithosphere": ("cooling", "lid_isotherm_c", "parameters"),
     "lithosphere.parameters": ("*",),
-    "compute": ("chunk_size", "workers", "method", "scheduler"),
+    "compute": ("chunk_size", "workers", "method", "scheduler", "max_cells"),
     "outputs": ("variables",),
     "ensemble": (
         "members",

@@ -38,6 +38,7 @@ from lidmelt.workflow.checks import (
     read_fields,
     string,
     table,
+    user_path,
     wrong_type,
 )
 from lidmelt.workflow.inputs import read_inputs
@@ -97,7 +98,7 @@ def _read_run(
         out = Path(string(ctx, "run.output_dir", run["output_dir"], example="runs/demo"))
     else:
         out = Path("runs") / name
-    out = out.expanduser().resolve()  # relative to the current working directory
+    out = user_path(out, what="the output folder")  # relative to the current folder
     if out.exists() and not out.is_dir():
         key = "-o" if output_dir is not None else "run.output_dir"
         msg = (
@@ -301,6 +302,13 @@ _COMPUTE_READERS: dict[str, Reader] = {
     ),
     "method": partial(choice, choices=METHODS),
     "scheduler": partial(string, example="tcp://127.0.0.1:8786"),
+    "max_cells": partial(
+        at_least,
+        minimum=1,
+        unit=" cells",
+        advice="cell (the largest grid, width x height, a run accepts).",
+        example="500000000",
+    ),
 }
 
 

@@ -169,7 +169,7 @@ def render_html(run: RunDir, images: Sequence[MapImage], extra: Sequence[Section
         f"<footer>Report written by lidmelt {_esc(__version__)}; run made by lidmelt "
         f"{_esc(summary.get('lidmelt_version') or 'unknown')} at "
         f"{_esc(summary.get('created_utc') or 'an unrecorded time')}. Run directory: "
-        f"{_esc(run.path)}.</footer>"
+        f"{_esc(run.shown_path)}.</footer>"
     )
     parts.extend(["</body>", "</html>", ""])
     return "\n".join(parts)

@@ -1,0 +1,249 @@
+"""Property-based fuzzing (hypothesis): workflow files and ``lidmelt column`` arguments, crafted
+to be hostile, give lidmelt's own errors (a message, exit 1), argparse's usage error (exit 2) or
+a result, never another exception or a traceback.
+
+The quick tests run a few dozen cases; the ``slow`` ones a few hundred. The check is an
+identity: the set of outcomes lidmelt documents (DEVELOPERS.md, "User errors raise a subclass of
+LidmeltError").
+"""
+
+from __future__ import annotations
+
+import json
+import math
+
+import pytest
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
+
+import runkit
+from lidmelt.cli import main
+from lidmelt.errors import LidmeltError
+from lidmelt.physics import get_cooling_model, get_model
+from lidmelt.run_inputs import resolve_target_grid
+from lidmelt.workflow import load_workflow
+
+CASES = {"workflow": 0, "column": 0}
+
+# ---- values a hostile user might write -----------------------------------------------------------
+NUMBERS = st.one_of(
+    st.sampled_from([0, -1, 1, 0.5, 4.9, 1e-9, 3e15, 1e308, -1e308, 2**63 - 1, 10**30]),
+    st.floats(allow_nan=True, allow_infinity=True),
+    st.integers(min_value=-(2**63), max_value=2**63 - 1),
+)
+SCALARS = st.one_of(
+    NUMBERS,
+    st.booleans(),
+    st.text(max_size=12),
+    st.sampled_from(["", "../../x", "~nouser/x", "a" * 5000, "katz2003", "gdh1", "nan"]),
+)
+VALUES = st.one_of(SCALARS, st.lists(SCALARS, max_size=4))
+
+
+def toml_value(value) -> str:
+    """``value`` as TOML (floats as TOML writes nan and inf; strings as JSON basic strings)."""
+    if isinstance(value, bool):
+        return "true" if value else "false"
+    if isinstance(value, float):
+        if math.isnan(value):
+            return "nan"
+        if math.isinf(value):
+            return "inf" if value > 0 else "-inf"
+        return repr(value)
+    if isinstance(value, int):
+        return str(value)
+    if isinstance(value, str):
+        return json.dumps(value)
+    return "[" + ", ".join(toml_value(v) for v in value) + "]"
+
+
+#: Keys of the tiny basin's workflow that the fuzzer sets (table, key).
+KEYS = [
+    ("run", "name"),
+    ("run", "maps"),
+    ("run", "netcdf"),
+    ("grid", "resolution"),
+    ("grid", "extent"),
+    ("grid", "crs"),
+    ("grid", "like"),
+    ("inputs.plate_age", "path"),
+    ("inputs.plate_age", "constant"),
+    ("inputs.plate_age", "resampling"),
+    ("inputs.water", "constant"),
+    ("inputs.thermal_anomaly", "constant"),
+    ("model", "name"),
+    ("model", "ambient_potential_temperature_c"),
+    ("model", "min_top_of_melting_km"),
+    ("model", "crust_density_kg_m3"),
+    ("model.parameters", "max_onset_pressure_gpa"),
+    ("model.parameters", "cpx_mass_fraction"),
+    ("model.parameters", "solid_density_kg_m3"),
+    ("model.parameters", "beta1"),
+    ("model.parameters", "unknown_key"),
+    ("lithosphere", "cooling"),
+    ("lithosphere", "lid_isotherm_c"),
+    ("lithosphere.parameters", "mantle_temperature_c"),
+    ("compute", "chunk_size"),
+    ("compute", "workers"),
+    ("compute", "method"),
+    ("compute", "max_cells"),
+    ("outputs", "variables"),
+    ("nonsense", "key"),
+]
+EDITS = st.lists(st.tuples(st.sampled_from(KEYS), VALUES), min_size=1, max_size=4)
+
+
+def workflow_text(edits) -> str:
+    tables: dict[str, dict[str, str]] = {
+        "run": {"name": '"tiny"', "maps": "false", "report": "false"},
+        "grid": {"like": '"plate_age"'},
+        "inputs.plate_age": {"path": '"age.tif"'},
+        "inputs.thermal_anomaly": {},
+        "inputs.water": {"constant": "0.0"},
+        "compute": {"chunk_size": "64"},
+    }
+    for (table, key), value in edits:
+        tables.setdefault(table, {})[key] = toml_value(value)
+    if "extent" in tables["grid"] or "resolution" in tables["grid"]:
+        tables["grid"].pop("like", None)
+    lines = []
+    for table, entries in tables.items():
+        lines.append(f"[{table}]")
+        lines.extend(f"{k} = {v}" for k, v in entries.items())
+    return "\n".join(lines) + "\n"
+
+
+@pytest.fixture(scope="module")
+def fuzz_dir(tmp_path_factory):
+    folder = tmp_path_factory.mktemp("fuzz")
+    runkit.write_age(folder / "age.tif")
+    return folder
+
+
+def check_workflow(folder, edits) -> None:
+    CASES["workflow"] += 1
+    path = folder / "w.toml"
+    path.write_text(workflow_text(edits), encoding="utf-8")
+    message = "no error"
+    try:
+        cfg = load_workflow(path, output_dir=folder / "out")
+        get_model(cfg.model.name, **dict(cfg.model.parameters))
+        get_cooling_model(cfg.lithosphere.cooling, **dict(cfg.lithosphere.parameters))
+        resolve_target_grid(cfg)
+    except LidmeltError as exc:
+        message = str(exc)
+    assert message  # every error says what was wrong
+
+
+FUZZ = settings(
+    deadline=None, database=None, suppress_health_check=[HealthCheck.function_scoped_fixture]
+)
+
+
+@settings(FUZZ, max_examples=40)
+@given(edits=EDITS)
+def test_fuzzed_workflows_give_only_lidmelt_errors(fuzz_dir, edits):
+    check_workflow(fuzz_dir, edits)
+
+
+@pytest.mark.slow
+@settings(FUZZ, max_examples=400)
+@given(edits=EDITS)
+def test_fuzzed_workflows_many(fuzz_dir, edits):
+    check_workflow(fuzz_dir, edits)
+
+
+# ---- lidmelt column ------------------------------------------------------------------------------
+def arg_value(value) -> str:
+    return value if isinstance(value, str) else repr(value)
+
+
+COLUMN_OPTIONS = st.sampled_from(
+    [
+        "--potential-temperature",
+        "--excess-temperature",
+        "--ambient",
+        "--water",
+        "--lid-depth",
+        "--age",
+        "--cooling",
+        "--lid-isotherm",
+        "--min-top",
+        "--crust-density",
+        "--model",
+        "--param",
+        "--method",
+    ]
+)
+PARAMS = st.sampled_from(
+    [
+        "max_onset_pressure_gpa",
+        "cpx_mass_fraction",
+        "beta1",
+        "solid_density_kg_m3",
+        "nope",
+    ]
+)
+
+
+@st.composite
+def column_args(draw):
+    args = [
+        draw(st.sampled_from(["--potential-temperature", "--excess-temperature"])),
+        arg_value(draw(NUMBERS)),
+        draw(st.sampled_from(["--lid-depth", "--age"])),
+        arg_value(draw(NUMBERS)),
+    ]
+    for _ in range(draw(st.integers(0, 3))):
+        option = draw(COLUMN_OPTIONS)
+        if option == "--param":
+            args += [option, f"{draw(PARAMS)}={arg_value(draw(SCALARS))}"]
+        else:
+            args += [option, arg_value(draw(SCALARS))]
+    if draw(st.booleans()):
+        args += ["--profile", draw(st.sampled_from(["p.csv", "FILE/p.csv", "deep/x/p.csv"]))]
+    return args
+
+
+def check_column(folder, args, capsys) -> None:
+    CASES["column"] += 1
+    args = [
+        a.replace("FILE/", f"{folder}/age.tif/").replace("deep/", f"{folder}/deep/")
+        if a.endswith(".csv")
+        else a
+        for a in args
+    ]
+    args = [f"{folder}/{a}" if a == "p.csv" else a for a in args]
+    try:
+        code = main(["column", *args, "--json"])
+    except SystemExit as exc:  # argparse: a usage error
+        code = exc.code
+    err = capsys.readouterr().err
+    if code == 2:
+        assert "usage: lidmelt column" in err
+        return
+    assert code in (0, 1), (args, err)
+    assert "Traceback" not in err
+    if code == 1:
+        # notes on likely unit mistakes may come first; the error is the last line
+        assert err.strip().splitlines()[-1].startswith("lidmelt column: error: "), err
+
+
+@settings(FUZZ, max_examples=30)
+@given(args=column_args())
+def test_fuzzed_column_arguments_give_only_lidmelt_errors(fuzz_dir, capsys, args):
+    check_column(fuzz_dir, args, capsys)
+
+
+@pytest.mark.slow
+@settings(FUZZ, max_examples=300)
+@given(args=column_args())
+def test_fuzzed_column_arguments_many(fuzz_dir, capsys, args):
+    check_column(fuzz_dir, args, capsys)
+
+
+def test_fuzz_case_count():
+    """Runs last in this file: how many cases were tried."""
+    print(f"\nfuzz cases: {CASES}")
+    assert CASES["workflow"] > 0
+    assert CASES["column"] > 0
