@@ -18,7 +18,14 @@ from collections.abc import Iterator
 from pathlib import Path
 from typing import Any
 
-__all__ = ["atomic_path", "atomic_paths", "fsync_file", "write_json_atomic", "write_text_atomic"]
+__all__ = [
+    "atomic_path",
+    "atomic_paths",
+    "fsync_dir",
+    "fsync_file",
+    "write_json_atomic",
+    "write_text_atomic",
+]
 
 
 def fsync_file(path: str | Path) -> None:
@@ -31,7 +38,8 @@ def fsync_file(path: str | Path) -> None:
         os.close(fd)
 
 
-def _fsync_dir(folder: Path) -> None:
+def fsync_dir(folder: str | Path) -> None:
+    """Flush a folder's entries (new names, renames) to the disk, where the system can."""
     with contextlib.suppress(OSError):
         fd = os.open(folder, os.O_RDONLY)
         try:
@@ -87,7 +95,7 @@ def atomic_paths(*paths: str | Path) -> Iterator[list[Path]]:
         for temp, final in zip(temps, finals, strict=True):
             temp.replace(final)
         for folder in {p.parent for p in finals}:
-            _fsync_dir(folder)
+            fsync_dir(folder)
     finally:
         for temp in temps:
             temp.unlink(missing_ok=True)

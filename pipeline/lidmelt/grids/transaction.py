@@ -30,6 +30,7 @@ from pathlib import Path
 from typing import Any
 
 from lidmelt.errors import RunDirError
+from lidmelt.files import fsync_dir
 
 __all__ = [
     "RunLock",
@@ -246,15 +247,6 @@ def _exchange(a: Path, b: Path) -> bool:
     raise OSError(err, os.strerror(err), str(b))
 
 
-def _fsync_dir(folder: Path) -> None:
-    with contextlib.suppress(OSError):
-        fd = os.open(folder, os.O_RDONLY)
-        try:
-            os.fsync(fd)
-        finally:
-            os.close(fd)
-
-
 def swap_into_place(staging: Path, dest: Path) -> None:
     """Make ``staging`` the destination in as few renames as the file system allows.
 
@@ -269,9 +261,9 @@ def swap_into_place(staging: Path, dest: Path) -> None:
         aside = Path(tempfile.mkdtemp(dir=dest.parent, prefix=f".{dest.name}{_OLD}"))
         dest.rename(aside)  # onto the empty folder just made: no planted name is followed
         staging.rename(dest)
-        _fsync_dir(dest.parent)
+        fsync_dir(dest.parent)
         shutil.rmtree(aside)
-    _fsync_dir(dest.parent)
+    fsync_dir(dest.parent)
 
 
 def _check_destination(dest: Path, marker: str) -> None:

@@ -26,6 +26,7 @@ __all__ = [
     "contour_legend_handles",
     "crossing_levels",
     "draw_level_contours",
+    "extend_of",
     "fixed_limits",
     "mark_colorbar",
 ]
@@ -50,13 +51,7 @@ def fixed_limits(values: np.ndarray, limits: tuple[float, float]) -> tuple[float
     finite = finite[np.isfinite(finite)]
     below = bool(finite.size and finite.min() < vmin)
     above = bool(finite.size and finite.max() > vmax)
-    extend = {
-        (False, False): "neither",
-        (True, False): "min",
-        (False, True): "max",
-        (True, True): "both",
-    }[(below, above)]
-    return vmin, vmax, extend
+    return vmin, vmax, extend_of(below, above)
 
 
 def crossing_levels(values: np.ndarray, levels: tuple[float, ...]) -> tuple[float, ...]:
@@ -100,3 +95,13 @@ def mark_colorbar(cbar: Any, levels: tuple[float, ...]) -> None:
     """Mark the contour levels on the colour bar with the contours' colour."""
     if levels:
         cbar.add_lines(list(levels), [CONTOUR_COLOR] * len(levels), [1.5] * len(levels))
+
+
+def extend_of(below: bool, above: bool) -> str:
+    """Matplotlib's colour-bar ``extend`` for values below and/or above the limits."""
+    return {
+        (False, False): "neither",
+        (True, False): "min",
+        (False, True): "max",
+        (True, True): "both",
+    }[(below, above)]

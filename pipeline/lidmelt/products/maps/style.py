@@ -53,6 +53,7 @@ from lidmelt.products.maps.probability import (
     PROBABILITY_CMAP,
     PROBABILITY_CONTOURS,
     PROBABILITY_LIMITS,
+    extend_of,
 )
 
 __all__ = [
@@ -301,13 +302,7 @@ def colour_limits(
         half = max(abs(vmin) * 0.01, 1e-6)
         vmin, vmax = vmin - half, vmax + half
         below = above = False
-    extend = {
-        (False, False): "neither",
-        (True, False): "min",
-        (False, True): "max",
-        (True, True): "both",
-    }[(below, above)]
-    return vmin, vmax, extend
+    return vmin, vmax, extend_of(below, above)
 
 
 def encode_classes(
