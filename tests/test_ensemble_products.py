@@ -467,3 +467,20 @@ def test_an_ensemble_run_lists_its_layers_as_outputs(tmp_path):
     mapped = default_map_variables(run)
     assert "melt_probability" in mapped
     assert "melt_thickness_km_p50" not in mapped
+
+
+def test_an_ensemble_layer_is_captioned_as_an_ensemble():
+    """An ensemble map says how many members were drawn, how, and what was varied; the run's
+    own lid, water and ambient Tp are named as the workflow's, not every member's (values of
+    this invented summary)."""
+    from lidmelt.products.maps.captions import ensemble_basis
+
+    summary = {
+        "ensemble": {"members": 8, "sampling": "latin_hypercube", "seed": 12, "vary": VARY},
+        "ambient_potential_temperature_c": 1350.0,
+        "min_top_of_melting_km": 7.0,
+    }
+    text = ensemble_basis(summary)
+    assert text.startswith("Ensemble of 8 members (latin hypercube sampling, seed 12) varying ")
+    assert all(key in text for key in VARY)
+    assert text.endswith("ambient mantle potential temperature 1350 °C in the workflow itself.")

@@ -17,6 +17,7 @@ from lidmelt.products.maps.style import MELT_TOP_PERCENTILE, VariableStyle
 __all__ = [
     "describe_lid",
     "describe_water",
+    "ensemble_basis",
     "lid_grid_share",
     "lid_model",
     "map_caption",
@@ -103,6 +104,19 @@ def run_basis(summary: dict[str, Any], grid_share: float | None = None) -> str:
     return "; ".join(parts) + "."
 
 
+def ensemble_basis(summary: dict[str, Any]) -> str:
+    """One sentence for an ensemble layer: how many members, how drawn, what was varied around
+    the run's own values (its lid, water and ambient Tp are not those of every member)."""
+    ens = summary.get("ensemble") or {}
+    varied = ", ".join(ens.get("vary") or {}) or "nothing"
+    sampling = str(ens.get("sampling", "")).replace("_", " ")
+    return (
+        f"Ensemble of {ens.get('members', '?')} members ({sampling} sampling, seed "
+        f"{ens.get('seed', '?')}) varying {varied} around the workflow's own values; "
+        f"{run_basis(summary)[:1].lower()}{run_basis(summary)[1:-1]} in the workflow itself."
+    )
+
+
 def model_line(summary: dict[str, Any]) -> str:
     """The figure subtitle: the melting model and the ambient mantle potential temperature."""
     model = summary.get("model") or {}
@@ -153,18 +167,19 @@ def map_caption(
     outside: bool = False,
     plumes: bool = False,
     grid_share: float | None = None,
+    ensemble: bool = False,
 ) -> str:
     """The caption: what the run used, colour limits and classes, hatching, projection, version.
 
     ``flag_note`` is the sentence on the hatched (flagged) cells, if any
     (:func:`.flags.flag_caption`); ``outside`` says the view shows area beyond the grid;
-    ``grid_share`` is :func:`lid_grid_share`.
+    ``grid_share`` is :func:`lid_grid_share`; ``ensemble`` marks a layer of the ensemble.
     """
     grey = "grey: no data in the grid"
     if outside:
         grey += "; pale blue-grey: outside the grid"
     parts = [
-        run_basis(summary, grid_share),
+        ensemble_basis(summary) if ensemble else run_basis(summary, grid_share),
         f"{_limits_text(style, no_melt=no_melt, extend=extend)}; {grey}.",
     ]
     if flag_note:

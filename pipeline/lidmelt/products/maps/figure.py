@@ -66,6 +66,7 @@ from lidmelt.products.maps.style import (
     class_legend_handles,
     colorbar_label,
 )
+from lidmelt.variables import ensemble_variable
 
 __all__ = [
     "MapInfo",
@@ -145,6 +146,7 @@ def _compose_text(
         outside=view.outside,
         plumes=bool(view.plumes),
         grid_share=lid_grid_share(run),
+        ensemble=ensemble_variable(f.variable) is not None,
     )
     cap_w = max(page.map_w + page.right - 0.15, text_w - 0.1)
     return _Text(
