@@ -34,7 +34,7 @@ from lidmelt.grids.transaction import RunTransaction
 from lidmelt.physics import (
     FLAG_MEANINGS,
     evaluate_cells,
-    isotherm_depth_km,
+    lid_lookup,
 )
 from lidmelt.progress import band_reporter
 from lidmelt.run_inputs import (
@@ -140,7 +140,8 @@ def evaluate_chunk(
     """Every output of one chunk, stacked as (n_outputs + 1, y, x) float32 (flag last).
 
     The lid is the input lid thickness where finite, else the isotherm depth of the cooling
-    model at the plate age; cells without a lid, anomaly or water are NaN (flag
+    model at the plate age (:func:`lidmelt.physics.lid_lookup`, within 0.01 km of the exact
+    depth); cells without a lid, anomaly or water are NaN (flag
     :data:`lidmelt.variables.FLAG_NODATA`), and so are outputs the inputs do not give (melt
     production without upwelling). ``clock``, a dict, accumulates the thread seconds spent on
     the lid and on melting.
@@ -154,7 +155,8 @@ def evaluate_chunk(
             check_input_range(block, name, s.sources[name])
     lid = np.broadcast_to(np.asarray(lid_grid, float), shape)
     if s.cooling is not None:
-        from_age = isotherm_depth_km(s.lid_isotherm_c, np.broadcast_to(age, shape), model=s.cooling)
+        lookup = lid_lookup(s.lid_isotherm_c, model=s.cooling)  # built once, cached
+        from_age = lookup.depth_km(np.broadcast_to(age, shape))
         lid = np.where(np.isfinite(lid), lid, from_age)
     t1 = time.perf_counter()
     tp = s.ambient_c + np.broadcast_to(np.asarray(anomaly, float), shape)

@@ -22,6 +22,7 @@ from lidmelt.physics.evaluate import (
     excess_to_melt_k,
     melt_column,
 )
+from lidmelt.physics.lidlookup import LidLookup, lid_lookup
 from lidmelt.physics.melting import MODELS, MeltingModel, get_model
 from lidmelt.physics.table import MeltTable, get_table
 
@@ -42,6 +43,7 @@ __all__ = [
     "REGIME_ANOMALY_ONLY",
     "REGIME_NO_MELTING",
     "ColumnResult",
+    "LidLookup",
     "MeltTable",
     "MeltingModel",
     "column_profile",
@@ -51,6 +53,7 @@ __all__ = [
     "get_model",
     "get_table",
     "isotherm_depth_km",
+    "lid_lookup",
     "melt_column",
 ]
 

@@ -168,15 +168,18 @@ def heat_flow_factor(tau: np.ndarray) -> np.ndarray:
 # --------------------------------------------------------------------------------------------
 
 
-def isotherm_fraction(theta_star: float, tau: np.ndarray) -> np.ndarray:
+def isotherm_fraction(
+    theta_star: float, tau: np.ndarray, *, steps: int = _BISECTION_STEPS
+) -> np.ndarray:
     """zeta at which theta(zeta, tau) = theta_star, by vectorized bisection (tau > 0).
 
     theta increases monotonically with zeta in the plate (tested), from 0 at the surface to 1 at
-    the base, so the root is unique and bisection on [0, 1] converges to 2^-60 of a.
+    the base, so the root is unique and bisection on [0, 1] converges to 2^-steps of a (60 by
+    default).
     """
     lo = np.zeros_like(tau)
     hi = np.ones_like(tau)
-    for _ in range(_BISECTION_STEPS):
+    for _ in range(steps):
         mid = 0.5 * (lo + hi)
         above = theta(mid, tau) >= theta_star
         hi = np.where(above, mid, hi)

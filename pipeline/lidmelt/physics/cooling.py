@@ -65,6 +65,8 @@ __all__ = [
     "PS77",
     "SECONDS_PER_MA",
     "CoolingModel",
+    "check_isotherm",
+    "check_model",
     "get_cooling_model",
     "heat_flow_mw_m2",
     "isotherm_depth_km",
@@ -281,7 +283,8 @@ def get_cooling_model(name: str | CoolingModel, **overrides: Any) -> CoolingMode
 # --------------------------------------------------------------------------------------------
 
 
-def _check_model(model: Any) -> CoolingModel:
+def check_model(model: Any) -> CoolingModel:
+    """Return ``model`` if it is a :class:`CoolingModel`, else raise ModelError (with a fix)."""
     if not isinstance(model, CoolingModel):
         hint = ""
         if isinstance(model, str):
@@ -346,7 +349,7 @@ def temperature_c(
     >>> float(temperature_c(200.0, 50.0, model=GDH1))
     1450.0
     """
-    model = _check_model(model)
+    model = check_model(model)
     z_km, t_ma = np.broadcast_arrays(_as_float_array(depth_km), _as_float_array(age_ma))
     shape = z_km.shape
     z_km = z_km.ravel()
@@ -372,7 +375,7 @@ def temperature_c(
     return out.reshape(shape)[()]
 
 
-def _check_isotherm(isotherm_c: Any, model: CoolingModel) -> float:
+def check_isotherm(isotherm_c: Any, model: CoolingModel) -> float:
     """Return the isotherm as a float, or raise if it is outside [T0, Tm)."""
     t0, tm = model.surface_temperature_c, model.mantle_temperature_c
     candidate = isotherm_c
@@ -447,8 +450,8 @@ def isotherm_depth_km(
     >>> round(float(isotherm_depth_km(1170.0, 100.0, model=HALF_SPACE)), 1)  # 0.9 Tm
     130.7
     """
-    model = _check_model(model)
-    iso = _check_isotherm(isotherm_c, model)
+    model = check_model(model)
+    iso = check_isotherm(isotherm_c, model)
     age = np.asarray(age_ma)
     shape = age.shape
     with np.errstate(invalid="ignore"):
@@ -506,7 +509,7 @@ def seafloor_depth_m(age_ma: npt.ArrayLike, *, model: CoolingModel) -> np.ndarra
     >>> round(float(seafloor_depth_m(0.0, model=GDH1)))
     2600
     """
-    model = _check_model(model)
+    model = check_model(model)
     t = _as_float_array(age_ma)
     dt = model.mantle_temperature_c - model.surface_temperature_c
     drho = model.mantle_density_kg_m3 - model.water_density_kg_m3
@@ -567,7 +570,7 @@ def heat_flow_mw_m2(age_ma: npt.ArrayLike, *, model: CoolingModel) -> np.ndarray
     >>> round(float(heat_flow_mw_m2(100.0, model=GDH1)), 1)
     53.9
     """
-    model = _check_model(model)
+    model = check_model(model)
     t = _as_float_array(age_ma)
     dt = model.mantle_temperature_c - model.surface_temperature_c
     out = np.full(t.shape, np.nan)
