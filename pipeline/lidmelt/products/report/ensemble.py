@@ -133,14 +133,14 @@ def candidates_table(candidates: list[Any]) -> Table:
         stats = stats if isinstance(stats, dict) else {}
         rows.append(
             (
-                _cell(c.get("rank")),
+                str(c.get("rank", _NOT_RECORDED)),
                 str(c.get("plume") or "-"),
                 _cell(c.get("melt_volume_km3")),
                 *(_cell(stats.get(k)) for k in ("p10", "p50", "p90")),
                 _leading_drivers(c.get("drivers")),
             )
         )
-    header = ("Rank", "Plume", "Melt volume, km3", "p10", "p50", "p90", "Leading drivers")
+    header = ("Rank", "Plume", "Melt volume (km³)", "p10", "p50", "p90", "Leading drivers")
     return Table(header, tuple(rows))
 
 
@@ -157,8 +157,8 @@ def _candidate_blocks(entry: dict[str, Any]) -> list[Block]:
         f"What drives each candidate: the {len(listed)} largest of the "
         f"{found.get('found', _NOT_RECORDED)} candidates of the deterministic run ('lidmelt "
         f"screen' on the {found.get('basis', _NOT_RECORDED)} basis with a least melt of "
-        f"{_cell(found.get('min_melt_thickness_km'))} km, ranked by melt volume), each with its "
-        "melt volume in the deterministic run, its percentiles over the members (the "
+        f"{format_value(found.get('min_melt_thickness_km'))} km, ranked by melt volume), each "
+        "with its melt volume in the deterministic run, its percentiles over the members (the "
         "candidate's cells, area x melt thickness of each member; ensemble_members.csv) and "
         "the varied keys that drive it (rank correlation rho and variance share):"
     )
