@@ -31,8 +31,9 @@ __all__ = ["CandidateSource", "Candidates", "candidate_column", "candidate_entri
 class Candidates:
     """The deterministic run's candidates as the ensemble tracks them.
 
-    ``labels``: (height, width) int32 on the run's grid, 0 outside, k (1..K) on the cells of
-    the candidate of rank k. ``records[k - 1]``: that candidate's screening record (at least
+    ``labels``: (height, width) unsigned integers on the run's grid (the smallest type that holds
+    K: one byte per cell for up to 255 candidates), 0 outside, k (1..K) on the cells of the
+    candidate of rank k. ``records[k - 1]``: that candidate's screening record (at least
     ``rank``, ``plume``, ``n_cells``, ``area_km2``, ``melt_volume_km3``). ``screening``: how
     they were found (basis, thresholds, how many regions qualified).
     """

@@ -537,7 +537,7 @@ def ensemble_candidates(context: Any) -> Candidates:
     records = _candidate_records(zones, labels, n, 0.0, volume=BASIS_VOLUME["anomaly"])
     kept = records[: int(cfg.ensemble.candidates)]
     _match_plumes(kept, labels, zones, run_plumes(context.inputs.provenance))
-    ranks = np.zeros(n + 1, np.int32)
+    ranks = np.zeros(n + 1, np.min_scalar_type(len(kept)))  # uint8 for up to 255 candidates
     for rank, record in enumerate(kept, start=1):
         ranks[record["label"]] = rank
         record["rank"] = rank
