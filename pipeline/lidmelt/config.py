@@ -477,6 +477,13 @@ class EnsembleOptions:
         Percentiles (0-100) of the ``<output>_p<q>`` outputs (default 10, 50, 90).
     memory_limit_gb : float
         The run refuses an ensemble whose estimated memory exceeds this (GB, default 2).
+    candidates : int
+        How many screening candidates of the deterministic run (the largest, by ``lidmelt
+        screen``'s rank) get their melt volume per member and their drivers (default 10; 0:
+        none).
+    candidate_min_melt_km : float
+        The screening threshold of those candidates: the melt the anomaly adds >= this (km,
+        default 1).
     vary : tuple of VarySpec
         The distributions, in the order written.
     samples : tuple of tuple
@@ -492,6 +499,8 @@ class EnsembleOptions:
     thresholds_km: tuple[float, ...] = ()
     percentiles: tuple[float, ...] = (10.0, 50.0, 90.0)
     memory_limit_gb: float = 2.0
+    candidates: int = 10
+    candidate_min_melt_km: float = 1.0
     vary: tuple[VarySpec, ...] = ()
     samples: tuple[tuple[Any, ...], ...] = field(default=(), repr=False, compare=False)
     configs: tuple[Any, ...] = field(

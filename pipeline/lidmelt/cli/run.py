@@ -13,6 +13,7 @@ from lidmelt.grids.transaction import RunLock, clean_leftovers
 from lidmelt.products.maps import draw_run_maps
 from lidmelt.products.maps.overview import draw_overview
 from lidmelt.products.report import write_report
+from lidmelt.products.screening import ensemble_candidates
 from lidmelt.workflow import load_workflow
 
 __all__ = ["register"]
@@ -94,7 +95,8 @@ def run(args: argparse.Namespace) -> int:
     cfg = load_workflow(args.workflow, overrides=args.overrides, output_dir=args.output_dir)
     if args.clean:
         return _clean(cfg)
-    stages = ensemble_stages(cfg, announce=not args.quiet)  # refuses what will not fit, first
+    # refuses what will not fit, first; the candidates of the deterministic run get drivers
+    stages = ensemble_stages(cfg, announce=not args.quiet, candidates=ensemble_candidates)
     products = _products(not args.no_maps and cfg.run.maps, cfg.run.report, cfg.run.output_dir)
     with print_warnings("run"):
         result = run_basin(

@@ -2,7 +2,8 @@
 
 :mod:`~lidmelt.ensemble.sampling` draws the members (Latin hypercube or random),
 :mod:`~lidmelt.ensemble.kernel` evaluates and reduces every member of one chunk (probabilities,
-percentiles, basin totals), :mod:`~lidmelt.ensemble.drivers` ranks what drives the basin melt
+percentiles, basin totals, candidate volumes), :mod:`~lidmelt.ensemble.drivers` ranks what
+drives the basin melt volume, :mod:`~lidmelt.ensemble.candidates` what drives each candidate's
 volume, and :mod:`~lidmelt.ensemble.stage` runs it all as an extra stage of
 :func:`lidmelt.engine.run_basin` (``run_basin(cfg, extra_stages=ensemble_stages(cfg))``).
 """

@@ -16,6 +16,8 @@ Definitions (lidmelt's own):
   thickness, and the area of cells with H > 0 (km2). Each cell's term is rounded to a multiple of
   2^-20 (about 1e-6 km3 or km2) and summed as 64-bit integers: integer sums do not depend on the
   order of addition, so the totals are the same bit for bit whatever the chunking and workers.
+- candidate volumes per member: the same integer sum of area x H over the cells of each
+  candidate of the deterministic run (a label grid: 0 outside, k for candidate k), exact too.
 """
 
 from __future__ import annotations
@@ -66,6 +68,7 @@ class MemberPlan:
     scalars: tuple[tuple[Any, ...], ...]
     thresholds_km: tuple[float, ...]
     percentiles: tuple[float, ...]
+    candidates: int = 0
 
 
 def order_statistics(stack: np.ndarray, percentiles) -> np.ndarray:
@@ -91,18 +94,30 @@ def _member_inputs(plan: MemberPlan, group_blocks, shape) -> list[list[Any]]:
     return out
 
 
-def reduce_chunk(plan: MemberPlan, area: np.ndarray, group_blocks) -> tuple[np.ndarray, np.ndarray]:
+def _candidate_cells(labels, candidates: int) -> list[np.ndarray]:
+    """Flat indices of the chunk's cells of candidates 1..``candidates`` (none without labels)."""
+    if labels is None or candidates == 0:
+        return []
+    flat = np.asarray(labels).ravel()
+    return [np.flatnonzero(flat == k) for k in range(1, candidates + 1)]
+
+
+def reduce_chunk(
+    plan: MemberPlan, area: np.ndarray, group_blocks, labels=None
+) -> tuple[np.ndarray, np.ndarray]:
     """Evaluate every member on one chunk and reduce them.
 
     Returns the reduced layers ((n_layers, y, x) float32, in :func:`layer_names` order) and the
-    members' totals ((3, members) int64 multiples of :data:`QUANTUM`, :data:`TOTALS` order).
+    members' totals ((3 + plan.candidates, members) int64 multiples of :data:`QUANTUM`:
+    :data:`TOTALS` order, then the melt volume of candidates 1..K of ``labels``).
     """
     area = np.asarray(area, np.float64)
     shape = area.shape
     values = _member_inputs(plan, group_blocks, shape)
     members = len(plan.settings)
     stacks = np.empty((len(BASES), members, *shape), np.float32)
-    totals = np.zeros((len(TOTALS), members), np.int64)
+    totals = np.zeros((len(TOTALS) + plan.candidates, members), np.int64)
+    cells = _candidate_cells(labels, plan.candidates)
     cell_area = np.rint(area / QUANTUM).astype(np.int64)
     for m, (settings, group) in enumerate(zip(plan.settings, plan.groups, strict=True)):
         out = evaluate_chunk(*values[group], settings=settings)
@@ -111,6 +126,8 @@ def reduce_chunk(plan: MemberPlan, area: np.ndarray, group_blocks) -> tuple[np.n
         for t, layer in ((1, stacks[0, m]), (2, stacks[1, m])):
             terms = np.rint(np.nan_to_num(layer.astype(np.float64) * area) / QUANTUM)
             totals[t, m] = terms.astype(np.int64).sum()
+            if t == 1 and cells:  # the melt volume of each candidate's cells
+                totals[len(TOTALS) :, m] = [terms.ravel()[c].astype(np.int64).sum() for c in cells]
         totals[0, m] = cell_area[stacks[0, m] > 0].sum()
     thickness = stacks[0]
     count = np.isfinite(thickness).sum(axis=0)

@@ -5,11 +5,14 @@ distinct model (name and parameters) builds one table (cached on disk like every
 summary reports how many. Members with the same inputs share their input blocks. The grid is
 computed one row of chunks at a time, each chunk one task (:func:`lidmelt.ensemble.kernel.
 reduce_chunk`) on local threads or on a dask.distributed scheduler (``[compute] scheduler`` or
-the ``LIDMELT_SCHEDULER`` environment variable); the reduced rows are written here.
+the ``LIDMELT_SCHEDULER`` environment variable); the reduced rows are written here. Given a
+candidate source (:mod:`lidmelt.ensemble.candidates`), the stage first screens the deterministic
+run and keeps, per member, the melt volume of each of its largest candidates.
 """
 
 from __future__ import annotations
 
+import functools
 import os
 import sys
 import time
@@ -20,6 +23,12 @@ from typing import Any
 import numpy as np
 
 from lidmelt.engine import StageContext, kernel_arguments, kernel_settings
+from lidmelt.ensemble.candidates import (
+    Candidates,
+    CandidateSource,
+    candidate_column,
+    candidate_entries,
+)
 from lidmelt.ensemble.drivers import drivers, total_statistics
 from lidmelt.ensemble.kernel import QUANTUM, TOTALS, MemberPlan, layer_names, reduce_chunk
 from lidmelt.errors import WorkflowError
@@ -84,9 +93,15 @@ def check_memory(cfg) -> float:
     return need
 
 
-def ensemble_stages(cfg, *, announce: bool = True) -> tuple:
+def ensemble_stages(
+    cfg, *, announce: bool = True, candidates: CandidateSource | None = None
+) -> tuple:
     """The extra stages of :func:`lidmelt.engine.run_basin` for ``cfg``: the ensemble, if the
-    workflow has one, its memory checked (and stated on stderr) before the run starts."""
+    workflow has one, its memory checked (and stated on stderr) before the run starts.
+
+    ``candidates(context)`` screens the deterministic run (:mod:`lidmelt.ensemble.candidates`);
+    without it (or with ``[ensemble] candidates = 0``) only the basin totals get drivers.
+    """
     if getattr(cfg, "ensemble", None) is None:
         return ()
     need = check_memory(cfg)
@@ -97,7 +112,9 @@ def ensemble_stages(cfg, *, announce: bool = True) -> tuple:
             f"about {need:.3g} GB of memory (limit {ens.memory_limit_gb:g} GB)",
             file=sys.stderr,
         )
-    return (run_ensemble_stage,)
+    if candidates is None or cfg.ensemble.candidates == 0:
+        return (run_ensemble_stage,)
+    return (functools.partial(run_ensemble_stage, candidates=candidates),)
 
 
 def _table_key(cfg) -> tuple:
@@ -105,7 +122,7 @@ def _table_key(cfg) -> tuple:
     return (cfg.model.name, cfg.model.parameters)
 
 
-def _plan(context: StageContext) -> tuple[MemberPlan, list[list], int]:
+def _plan(context: StageContext, candidates: int = 0) -> tuple[MemberPlan, list[list], int]:
     """The members' plan, each input group's kernel arguments, and the tables built."""
     cfg = context.cfg
     ens = cfg.ensemble
@@ -138,7 +155,7 @@ def _plan(context: StageContext) -> tuple[MemberPlan, list[list], int]:
     used = {_table_key(m) for m in ens.configs}
     tables = len(used) if cfg.compute.method == "table" else 0
     plan = MemberPlan(tuple(settings), tuple(member_groups), scalars, ens.thresholds_km,
-                      ens.percentiles)  # fmt: skip
+                      ens.percentiles, candidates)  # fmt: skip
     return plan, [[a for a in arg if hasattr(a, "dask")] for arg in args], tables
 
 
@@ -159,7 +176,20 @@ def _scheduler(cfg):
         raise WorkflowError(msg) from exc
 
 
-def _compute_rows(context: StageContext, plan: MemberPlan, group_arrays, write) -> np.ndarray:
+def _label_blocks(labels: np.ndarray | None, chunks: tuple) -> list[list]:
+    """``labels`` cut into the blocks of ``chunks`` ((rows, cols) of a dask array), or Nones."""
+    rows, cols = (np.cumsum((0, *c)) for c in chunks)
+    if labels is None:
+        return [[None] * (len(cols) - 1) for _ in range(len(rows) - 1)]
+    return [
+        [labels[rows[i] : rows[i + 1], cols[j] : cols[j + 1]] for j in range(len(cols) - 1)]
+        for i in range(len(rows) - 1)
+    ]
+
+
+def _compute_rows(
+    context: StageContext, plan: MemberPlan, group_arrays, write, labels=None
+) -> np.ndarray:
     """Reduce every chunk, one row of chunks at a time; ``write(row0, layers)`` each row."""
     import dask
 
@@ -167,12 +197,14 @@ def _compute_rows(context: StageContext, plan: MemberPlan, group_arrays, write) 
     chunks = int(cfg.compute.chunk_size)
     area = cell_area_km2(context.target, chunks=chunks).data
     template = context.target.template(chunks).data
-    area = area.rechunk(template.chunks).to_delayed()
+    area = area.rechunk(template.chunks)
+    label_blocks = _label_blocks(labels, area.chunks)
+    area = area.to_delayed()
     blocks = [[a.to_delayed(optimize_graph=False) for a in arrays] for arrays in group_arrays]
     token = uuid.uuid4().hex
     plan_d = dask.delayed(plan, name=f"lidmelt-ensemble-plan-{token}", traverse=False)
     client = _scheduler(cfg)
-    totals = np.zeros((len(TOTALS), len(plan.settings)), np.int64)
+    totals = np.zeros((len(TOTALS) + plan.candidates, len(plan.settings)), np.int64)
     kwargs = {"scheduler": "threads", "num_workers": int(cfg.compute.workers)}
     if client is not None:
         kwargs = {"scheduler": client.get}
@@ -184,6 +216,7 @@ def _compute_rows(context: StageContext, plan: MemberPlan, group_arrays, write) 
                     plan_d,
                     area[i, j],
                     [[b[i, j] for b in g] for g in blocks],
+                    label_blocks[i][j],
                     dask_key_name=f"lidmelt-ensemble-{token}-{i}-{j}",
                 )
                 for j in range(area.shape[1])
@@ -201,8 +234,10 @@ def _compute_rows(context: StageContext, plan: MemberPlan, group_arrays, write) 
 
 
 def _members_csv(ens, totals: np.ndarray) -> str:
-    """The text of :data:`MEMBERS_FILE`: member, each varied key, the basin totals."""
-    head = ["member", *(s.key for s in ens.vary), *TOTALS]
+    """The text of :data:`MEMBERS_FILE`: member, each varied key, the basin totals, then the
+    melt volume of each tracked candidate."""
+    ranks = range(1, len(totals) - len(TOTALS) + 1)
+    head = ["member", *(s.key for s in ens.vary), *TOTALS, *map(candidate_column, ranks)]
     rows = [",".join(head)]
     for m, sample in enumerate(ens.samples):
         cells = [str(m + 1), *(repr(v) if not isinstance(v, str) else v for v in sample)]
@@ -211,12 +246,23 @@ def _members_csv(ens, totals: np.ndarray) -> str:
     return "\n".join(rows) + "\n"
 
 
-def run_ensemble_stage(context: StageContext) -> tuple[list[Path], dict[str, Any]]:
-    """Evaluate the ensemble of ``context.cfg`` and write its layers, CSV and summary entry."""
+def _screen(context: StageContext, source: CandidateSource | None) -> Candidates | None:
+    """The deterministic run's candidates, the largest ``[ensemble] candidates`` of them."""
+    if source is None or context.cfg.ensemble.candidates == 0:
+        return None
+    return source(context)
+
+
+def run_ensemble_stage(
+    context: StageContext, candidates: CandidateSource | None = None
+) -> tuple[list[Path], dict[str, Any]]:
+    """Evaluate the ensemble of ``context.cfg`` and write its layers, CSV and summary entry
+    (with ``candidates``, a source of the deterministic run's candidates: their drivers too)."""
     t0 = time.perf_counter()
     cfg = context.cfg
     ens = cfg.ensemble
-    plan, group_arrays, tables = _plan(context)
+    found = _screen(context, candidates)
+    plan, group_arrays, tables = _plan(context, found.count if found else 0)
     names = layer_names(ens.thresholds_km, ens.percentiles)
     template = context.target.template(int(cfg.compute.chunk_size))
     items = []
@@ -226,7 +272,8 @@ def run_ensemble_stage(context: StageContext) -> tuple[list[Path], dict[str, Any
         path = context.run_dir / rundir.output_file(name)
         items.append(GeoTiffItem(template, path, var.long_name, var.units, tags))
     with GeoTiffSet(items, cog=True) as out:
-        totals = _compute_rows(context, plan, group_arrays, out.write_rows) * QUANTUM
+        labels = found.labels if found and found.count else None
+        totals = _compute_rows(context, plan, group_arrays, out.write_rows, labels) * QUANTUM
     files = [item.path for item in items]
     files.append(write_text_atomic(context.run_dir / MEMBERS_FILE, _members_csv(ens, totals)))
     entry = {
@@ -246,6 +293,14 @@ def run_ensemble_stage(context: StageContext) -> tuple[list[Path], dict[str, Any
         "drivers": drivers(ens.vary, ens.samples, totals[1]),
         "compute_s": time.perf_counter() - t0,
     }
+    if found is not None:
+        entry["candidates"] = {
+            **found.screening,
+            "tracked": found.count,
+            "list": candidate_entries(
+                found, ens.vary, ens.samples, totals[len(TOTALS) :], ens.percentiles
+            ),
+        }
     outputs = {
         name: {"file": item.path.name, "units": item.units, "long_name": item.description}
         for name, item in zip(names, items, strict=True)

@@ -10,9 +10,11 @@ usual outputs, per-cell maps over its members:
 
 the members' sampled parameters and basin totals in ``ensemble_members.csv`` (one row per
 member: ``member``, one column per varied workflow key, ``melting_area_km2``,
-``melt_volume_km3``, ``anomaly_melt_volume_km3``), and an ``"ensemble"`` entry in
-``summary.json`` (members, seed, sampling, the distributions, thresholds, percentiles, the
-percentiles of the basin totals and the drivers).
+``melt_volume_km3``, ``anomaly_melt_volume_km3``, then ``candidate_<rank>_melt_volume_km3`` per
+tracked candidate), and an ``"ensemble"`` entry in ``summary.json`` (members, seed, sampling, the
+distributions, thresholds, percentiles, the percentiles of the basin totals and the drivers; and
+``"candidates"``: each tracked candidate of the deterministic run with its volume's percentiles
+over the members and its drivers, :mod:`lidmelt.ensemble.candidates`).
 
 :func:`variable_of` gives the :class:`~lidmelt.variables.Variable` of any of these names: the
 registry's entry when it has one, else one derived from the name (a probability is

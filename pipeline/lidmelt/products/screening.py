@@ -38,6 +38,14 @@ map gets ``mean_probability`` (area-weighted mean over its cells), ``max_probabi
 A run without the map asked for is refused with a :class:`~lidmelt.errors.RunDirError` that
 says how to run an ensemble.
 
+Ensemble candidates
+-------------------
+:func:`ensemble_candidates` screens the deterministic outputs of an ensemble run while it is
+being written (the basis ``"anomaly"``, ``min_melt_thickness_km`` = ``[ensemble]
+candidate_min_melt_km``, no least area: the candidates ``lidmelt screen RUN --min-melt-thickness
+T`` lists, in the same order) and hands the largest ``[ensemble] candidates`` of them to the
+ensemble (:mod:`lidmelt.ensemble.candidates`), which keeps each one's melt volume per member.
+
 Plumes
 ------
 Each candidate is linked to a plume of the run's workflow (``summary.json`` inputs ->
@@ -60,13 +68,16 @@ import numpy as np
 import pandas as pd
 import pyproj
 
+from lidmelt.ensemble.candidates import Candidates
 from lidmelt.errors import InputError, RunDirError
 from lidmelt.files import atomic_paths
+from lidmelt.grids import rundir
+from lidmelt.grids.area import row_areas_km2
 from lidmelt.grids.grid import WGS84
 from lidmelt.grids.rundir import RunDir
 from lidmelt.products import ensemble as ens
 from lidmelt.products import sampling as smp
-from lidmelt.products.regions import GEOD, Zones, transform_geometries
+from lidmelt.products.regions import ANOMALY_MELT_VARIABLE, GEOD, Zones, transform_geometries
 
 if TYPE_CHECKING:
     import geopandas as gpd
@@ -77,6 +88,7 @@ __all__ = [
     "BASIS_VOLUME",
     "CANDIDATE_COLUMNS",
     "PLUME_MATCHES",
+    "ensemble_candidates",
     "screen",
     "write_candidates",
 ]
@@ -396,10 +408,12 @@ def _candidate_records(
     return records
 
 
-def run_plumes(run: RunDir) -> list[dict[str, Any]]:
-    """The workflow plumes of a run (``summary.json``), each with a ``name`` ("plume N" when
-    the workflow gave none); plumes lacking a centre or radius are skipped."""
-    entry = (run.summary.get("inputs") or {}).get("thermal_anomaly_k") or {}
+def run_plumes(run: RunDir | dict[str, Any]) -> list[dict[str, Any]]:
+    """The workflow plumes of a run (``summary.json``, or the run's input provenance as a
+    dict), each with a ``name`` ("plume N" when the workflow gave none); plumes lacking a
+    centre or radius are skipped."""
+    inputs = run if isinstance(run, dict) else run.summary.get("inputs")
+    entry = (inputs or {}).get("thermal_anomaly_k") or {}
     plumes = []
     for k, p in enumerate(entry.get("plumes") or [], start=1):
         try:
@@ -486,3 +500,51 @@ def write_candidates(gdf: gpd.GeoDataFrame, path: str | os.PathLike[str]) -> tup
             json_tmp, driver="GeoJSON", layer="candidates", RFC7946="YES", promote_to_multi=True
         )
     return path, geojson
+
+
+#: The fields of a screening record an ensemble candidate keeps in the summary.
+_ENSEMBLE_FIELDS = ("rank", "plume", "plume_match", "n_cells", "area_km2", "melt_volume_km3",
+                    "anomaly_melt_volume_km3", "centroid_lon", "centroid_lat")  # fmt: skip
+
+
+def _staged_grid(run_dir: Path, name: str) -> np.ndarray:
+    """A run's output GeoTIFF as float64 with NaN nodata (read before the run is sealed)."""
+    import rasterio
+
+    with rasterio.open(run_dir / rundir.output_file(name)) as src:
+        return src.read(1, masked=True).astype(np.float64).filled(np.nan)
+
+
+def ensemble_candidates(context: Any) -> Candidates:
+    """The candidates of an ensemble's deterministic run (module notes, Ensemble candidates).
+
+    ``context`` is the ensemble stage's :class:`lidmelt.engine.StageContext`: the outputs are in
+    its (staging) ``run_dir``, the plumes in its inputs' provenance. A run that does not write
+    melt_thickness_km and anomaly_melt_thickness_km has no candidates (the summary says why).
+    """
+    cfg, grid = context.cfg, context.target
+    threshold = float(cfg.ensemble.candidate_min_melt_km)
+    screening = {"basis": "anomaly", "min_melt_thickness_km": threshold, "min_area_km2": 0.0}
+    wanted = (smp.REFERENCE_VARIABLE, ANOMALY_MELT_VARIABLE)
+    missing = [n for n in wanted if n not in cfg.outputs.variables]
+    if missing:
+        note = f"no candidates: the run does not write {', '.join(missing)} (outputs.variables)"
+        return Candidates(np.zeros((0, 0), np.int32), (), {**screening, "found": 0, "note": note})
+    melt, anomaly = (_staged_grid(context.run_dir, n) for n in wanted)
+    zones = Zones(grid=grid, melt=melt, onset=None, anomaly=None, anomaly_melt=anomaly,
+                  row_areas=row_areas_km2(grid) if grid.is_geographic else None)  # fmt: skip
+    labels, n = _label(np.asarray(_passing(anomaly, threshold)), periodic=grid.is_periodic)
+    records = _candidate_records(zones, labels, n, 0.0, volume=BASIS_VOLUME["anomaly"])
+    kept = records[: int(cfg.ensemble.candidates)]
+    _match_plumes(kept, labels, zones, run_plumes(context.inputs.provenance))
+    ranks = np.zeros(n + 1, np.min_scalar_type(len(kept)))  # uint8 for up to 255 candidates
+    for rank, record in enumerate(kept, start=1):
+        ranks[record["label"]] = rank
+        record["rank"] = rank
+    out = tuple({k: _json_value(record[k]) for k in _ENSEMBLE_FIELDS} for record in kept)
+    return Candidates(ranks[labels], out, {**screening, "found": len(records)})
+
+
+def _json_value(value: Any) -> Any:
+    """A plain Python value (numpy scalars converted)."""
+    return value.item() if isinstance(value, np.generic) else value

@@ -63,6 +63,16 @@ def read_ensemble(
             ctx, "ensemble.memory_limit_gb", values["memory_limit_gb"], 0.01, 1.0e6, "GB",
             "give the memory the run may use, in GB",
         )  # fmt: skip
+    if "candidates" in values:
+        opts["candidates"] = at_least(
+            ctx, "ensemble.candidates", values["candidates"], 0, unit=" candidates",
+            advice="candidates whose volume per member is kept (0: none).", example="10",
+        )  # fmt: skip
+    if "candidate_min_melt_km" in values:
+        opts["candidate_min_melt_km"] = in_range(
+            ctx, "ensemble.candidate_min_melt_km", values["candidate_min_melt_km"], 1e-6, 1000.0,
+            "km", "give the least melt the anomaly adds in a candidate cell, in km",
+        )  # fmt: skip
     vary = tuple(_read_vary(ctx, table(ctx, "ensemble.vary", values.get("vary", {}))))
     base = EnsembleOptions(**opts, vary=vary)
     samples = draw_members(vary, base.members, seed=base.seed, sampling=base.sampling)

@@ -61,6 +61,8 @@ SCHEMA: dict[str, tuple[str, ...]] = {
         "thresholds_km",
         "percentiles",
         "memory_limit_gb",
+        "candidates",
+        "candidate_min_melt_km",
         "vary",
     ),
     "ensemble.vary": ("*",),

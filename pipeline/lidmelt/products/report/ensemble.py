@@ -8,7 +8,11 @@ volume as a histogram (:mod:`lidmelt.products.maps.members`), the percentiles of
 totals over the members (a table) and the varied keys ranked by what they drive (a table with
 the rank correlation of each with the basin melt volume and the fraction of its variance it
 explains, as the run computed them; ranked by that fraction, then by the size of the
-correlation). Numbers to 3 significant figures.
+correlation) and, when the run tracked candidates (``"candidates"`` in the entry:
+:mod:`lidmelt.ensemble.candidates`), one row per candidate of the deterministic run: its rank
+and plume, its melt volume in the deterministic run and its percentiles over the members, and
+its leading drivers (at most :data:`TOP_DRIVERS`, in the same order; a candidate whose volume
+is the same in every member has none). Numbers to 3 significant figures.
 """
 
 from __future__ import annotations
@@ -32,6 +36,8 @@ from lidmelt.products.report.content import (
 )
 
 __all__ = [
+    "TOP_DRIVERS",
+    "candidates_table",
     "distribution_table",
     "drivers_table",
     "ensemble_section",
@@ -40,6 +46,8 @@ __all__ = [
 ]
 
 _NOT_RECORDED = "not recorded"
+#: Drivers shown per candidate.
+TOP_DRIVERS = 3
 
 
 def _cell(value: Any) -> str:
@@ -105,6 +113,58 @@ def drivers_table(drivers: list[Any]) -> Table:
     return Table(header, rows, mono=(1,))
 
 
+def _leading_drivers(drivers: Any) -> str:
+    """The first :data:`TOP_DRIVERS` ranked drivers with a value, as "key (rho R, share F)"."""
+    shown = []
+    for d in ordered_drivers(drivers if isinstance(drivers, list) else []):
+        rho, fraction = d.get("rank_correlation_melt_volume"), d.get("variance_fraction")
+        if rho is None and fraction is None:
+            continue
+        shown.append(f"{d.get('key', _NOT_RECORDED)} (rho {_cell(rho)}, share {_cell(fraction)})")
+    return "; ".join(shown[:TOP_DRIVERS]) or "none: the same volume in every member"
+
+
+def candidates_table(candidates: list[Any]) -> Table:
+    """One row per tracked candidate: rank, plume, deterministic volume, member percentiles and
+    leading drivers of its melt volume."""
+    rows = []
+    for c in (c for c in candidates if isinstance(c, dict)):
+        stats = c.get("members_melt_volume_km3")
+        stats = stats if isinstance(stats, dict) else {}
+        rows.append(
+            (
+                str(c.get("rank", _NOT_RECORDED)),
+                str(c.get("plume") or "-"),
+                _cell(c.get("melt_volume_km3")),
+                *(_cell(stats.get(k)) for k in ("p10", "p50", "p90")),
+                _leading_drivers(c.get("drivers")),
+            )
+        )
+    header = ("Rank", "Plume", "Melt volume (km³)", "p10", "p50", "p90", "Leading drivers")
+    return Table(header, tuple(rows))
+
+
+def _candidate_blocks(entry: dict[str, Any]) -> list[Block]:
+    """The candidates paragraph and table (nothing when the run tracked none)."""
+    found = entry.get("candidates")
+    if not isinstance(found, dict):
+        return []
+    listed = found.get("list")
+    if not isinstance(listed, list) or not listed:
+        note = found.get("note") or "no region of the deterministic run qualified"
+        return [f"No candidates tracked over the members: {note}."]
+    text = (
+        f"What drives each candidate: the {len(listed)} largest of the "
+        f"{found.get('found', _NOT_RECORDED)} candidates of the deterministic run ('lidmelt "
+        f"screen' on the {found.get('basis', _NOT_RECORDED)} basis with a least melt of "
+        f"{format_value(found.get('min_melt_thickness_km'))} km, ranked by melt volume), each "
+        "with its melt volume in the deterministic run, its percentiles over the members (the "
+        "candidate's cells, area x melt thickness of each member; ensemble_members.csv) and "
+        "the varied keys that drive it (rank correlation rho and variance share):"
+    )
+    return [text, candidates_table(listed)]
+
+
 def _png(fig: Any, dpi: float) -> bytes:
     buf = io.BytesIO()
     fig.savefig(buf, format="png", dpi=dpi)
@@ -168,4 +228,5 @@ def ensemble_section(run: RunDir, *, dpi: float, width_in: float) -> Section | N
             "explains, ranked by that fraction:",
             drivers_table(drivers),
         ]
+    blocks += _candidate_blocks(entry)
     return Section("ensemble", "Ensemble: how sure are we?", tuple(blocks))
