@@ -23,33 +23,46 @@ def _block_slices(array) -> list[tuple[tuple[int, ...], tuple[slice, slice]]]:
     ]
 
 
+def _flatten(obj) -> list:
+    """The dask objects of a nested list, in order."""
+    if isinstance(obj, list | tuple):
+        return [x for item in obj for x in _flatten(item)]
+    return [obj]
+
+
+def _rebuild(obj, values):
+    """``obj`` (a nested list) with each dask object replaced by the next of ``values``."""
+    if isinstance(obj, list | tuple):
+        return [_rebuild(item, values) for item in obj]
+    return next(values)
+
+
 def store_on_client(client, sources: list, targets: list, extra: list) -> list[Any]:
     """Compute ``sources`` (2-D dask arrays) and ``extra`` (dask objects) on ``client``; write
     each block of ``sources[k]`` into ``targets[k]`` (``target[rows, cols] = block``) in this
     process; return the computed ``extra``.
 
-    Blocks and ``extra`` are one submission, so the chunks they share are computed once; graphs
-    are not optimised, so that fusion does not give the shared chunks a new name per output.
+    Everything is persisted in one call, optimised together as :func:`dask.compute` does, so
+    the chunks that outputs and ``extra`` share keep one name and are computed once (optimising
+    each array on its own fuses the kernel into each: measured 50 kernel calls per chunk). The
+    blocks stay on the workers until this process has written them.
     """
-    import dask
-    from distributed import as_completed
+    from distributed import as_completed, futures_of
 
+    flat = _flatten(extra)
+    persisted = client.persist([*sources, *flat])
+    sources, flat = persisted[: len(sources)], persisted[len(sources) :]
     where: dict[Any, list] = {}  # block key -> [(target, rows, cols)] (equal keys written alike)
-    blocks = []
     for source, target in zip(sources, targets, strict=True):
-        delayed = source.to_delayed(optimize_graph=False)
         for index, (rows, cols) in _block_slices(source):
-            block = delayed[index]
-            if block.key not in where:
-                blocks.append(block)
-            where.setdefault(block.key, []).append((target, rows, cols))
-    futures = client.compute([*blocks, dask.delayed(extra)], optimize_graph=False)
+            where.setdefault((source.name, *index), []).append((target, rows, cols))
+    futures = [f for source in sources for f in futures_of(source)]
     try:
-        pending = as_completed(futures[:-1], loop=client.loop, with_results=True)
-        for future, value in pending:
-            for target, rows, cols in where[future.key]:
+        for future, value in as_completed(futures, loop=client.loop, with_results=True):
+            for target, rows, cols in where.pop(future.key, []):
                 target[rows, cols] = value
             future.release()
-        return futures[-1].result()
+        values = iter(client.compute(flat, sync=True))
+        return _rebuild(extra, values)
     finally:
-        client.cancel(futures)
+        client.cancel([*futures, *(f for x in flat for f in futures_of(x))])
