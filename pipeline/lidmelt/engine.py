@@ -238,14 +238,14 @@ def kernel_arguments(inputs: RunInputs, *, template: xr.DataArray) -> list:
 
 
 def build_kernel(
-    cfg, *, inputs: RunInputs, template: xr.DataArray, model, table, cooling
+    cfg, *, inputs: RunInputs, template: xr.DataArray, model, table, cooling, client=None
 ) -> LazyRun:
     """The lazy kernel over the chunks of ``template``: one dask graph for every output.
 
     The outputs not in ``cfg.outputs.variables`` are computed (they share the column) but not
-    returned in :attr:`LazyRun.outputs`.
+    returned in :attr:`LazyRun.outputs`. With ``client`` (dask.distributed), the settings and
+    the table are sent to every worker once (scattered), not with each band's graph.
     """
-    import dask
     import dask.array as dsa
 
     settings = kernel_settings(cfg, inputs=inputs, model=model, table=table, cooling=cooling)
@@ -259,7 +259,7 @@ def build_kernel(
     stacked = dsa.map_blocks(
         _ChunkKernel(scalars, clock),
         *arrays,
-        settings=dask.delayed(settings, name=f"lidmelt-settings-{token}", traverse=False),
+        settings=_shared(settings, f"lidmelt-settings-{token}", client),
         name=f"lidmelt-kernel-{token}",
         dtype=np.float32,
         new_axis=0,
@@ -272,6 +272,16 @@ def build_kernel(
     }
     flag = _on_grid(stacked[-1], template, FLAG_VARIABLE.name)
     return LazyRun(stacked, outputs, flag, clock)
+
+
+def _shared(value, name: str, client):
+    """``value`` as one node of a dask graph: on ``client``'s workers (scattered to each, once),
+    or a delayed value for local threads. Never part of each task (a table is tens of MB)."""
+    import dask
+
+    if client is not None:
+        return client.scatter(value, broadcast=True, hash=False)
+    return dask.delayed(value, name=name, traverse=False)
 
 
 def _on_grid(data, template: xr.DataArray, name: str | None = None) -> xr.DataArray:
@@ -440,8 +450,9 @@ def _run_staged(
     cooling = lid_cooling_model(cfg, inputs=inputs)
 
     lazy = build_kernel(
-        cfg, inputs=inputs, template=template, model=model, table=table, cooling=cooling
-    )
+        cfg, inputs=inputs, template=template, model=model, table=table, cooling=cooling,
+        client=client,
+    )  # fmt: skip
     tags = rundir.provenance_tags(cfg, model=model, cooling=cooling, provenance=inputs.provenance)
     items = plan_geotiffs(
         run_dir, lazy=lazy, inputs=inputs, template=template, chunks=chunks, tags=tags

@@ -151,8 +151,11 @@ def _compute_rows(context: StageContext, plan: MemberPlan, group_arrays, write) 
     area = area.rechunk(template.chunks).to_delayed()
     blocks = [[a.to_delayed(optimize_graph=False) for a in arrays] for arrays in group_arrays]
     token = uuid.uuid4().hex
-    plan_d = dask.delayed(plan, name=f"lidmelt-ensemble-plan-{token}", traverse=False)
     client = context.client  # the run's (lidmelt.cluster.connect), or None: local threads
+    if client is not None:  # the plan and its tables go to each worker once, not every row
+        plan_d = client.scatter(plan, broadcast=True, hash=False)
+    else:
+        plan_d = dask.delayed(plan, name=f"lidmelt-ensemble-plan-{token}", traverse=False)
     totals = np.zeros((len(TOTALS), len(plan.settings)), np.int64)
     kwargs = {"scheduler": "threads", "num_workers": int(cfg.compute.workers)}
     if client is not None:
