@@ -19,7 +19,7 @@ BASE = ["__init__", "errors", "variables", "files", "config"]
 LAYERS = [
     {"physics"},
     {"grids"},
-    {"engine", "statistics", "progress", "run_inputs"},
+    {"engine", "cluster", "statistics", "progress", "run_inputs"},
     {"ensemble"},
     {"products"},
     {"workflow"},

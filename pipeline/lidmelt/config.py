@@ -405,8 +405,9 @@ class ComputeOptions:
         One of :data:`METHODS`: ``"table"`` (interpolate a precomputed lookup table) or
         ``"direct"`` (integrate each column).
     scheduler : str or None
-        Address of a dask.distributed scheduler (``"tcp://host:port"``) that evaluates the
-        ensemble; None: local threads (or the ``LIDMELT_SCHEDULER`` environment variable).
+        Address of a dask.distributed scheduler (``"tcp://host:port"``) whose workers compute
+        the whole run (:mod:`lidmelt.cluster`); None: the ``LIDMELT_SCHEDULER`` environment
+        variable, else local threads.
     max_cells : int
         The largest grid (width x height) a run accepts; raise it for a bigger grid.
     """

@@ -26,6 +26,7 @@ from typing import Any
 import numpy as np
 import xarray as xr
 
+from lidmelt.cluster import connect
 from lidmelt.grids import rundir
 from lidmelt.grids.area import cell_area_km2
 from lidmelt.grids.grid import Grid
@@ -100,6 +101,7 @@ class StageContext:
     cooling: Any | None
     tags: dict[str, Any]
     progress: bool | None
+    client: Any = None  # the run's dask.distributed client (lidmelt.cluster.connect), or None
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -187,18 +189,22 @@ def evaluate_chunk(
 
 @dataclass(frozen=True, eq=False)
 class _ChunkKernel:
-    """:func:`evaluate_chunk` as a dask block function: constants filled in, age broadcast."""
+    """:func:`evaluate_chunk` as a dask block function: constants filled in, age broadcast.
+
+    The settings (with the melting table, tens of MB) come as the ``settings`` argument, one
+    node of the graph that every chunk depends on: a dask.distributed scheduler sends them to
+    each worker once, not with every task.
+    """
 
     scalars: tuple  # per kernel input: its constant, or None where a dask block is passed
-    settings: KernelSettings
-    clock: dict[str, float]
+    clock: dict[str, float]  # filled on local threads only (a worker's copy stays there)
 
-    def __call__(self, *blocks, block_info=None):
+    def __call__(self, *blocks, settings: KernelSettings, block_info=None):
         it = iter(blocks)
         shape = block_info[None]["chunk-shape"][1:]
         vals = [next(it) if s is None else s for s in self.scalars]
         vals[0] = np.broadcast_to(vals[0], shape)  # the lid from age needs an age everywhere
-        return evaluate_chunk(*vals, settings=self.settings, clock=self.clock)
+        return evaluate_chunk(*vals, settings=settings, clock=self.clock)
 
 
 def _as_dask(value, chunks: int):
@@ -234,12 +240,13 @@ def kernel_arguments(inputs: RunInputs, *, template: xr.DataArray) -> list:
 
 
 def build_kernel(
-    cfg, *, inputs: RunInputs, template: xr.DataArray, model, table, cooling
+    cfg, *, inputs: RunInputs, template: xr.DataArray, model, table, cooling, client=None
 ) -> LazyRun:
     """The lazy kernel over the chunks of ``template``: one dask graph for every output.
 
     The outputs not in ``cfg.outputs.variables`` are computed (they share the column) but not
-    returned in :attr:`LazyRun.outputs`.
+    returned in :attr:`LazyRun.outputs`. With ``client`` (dask.distributed), the settings and
+    the table are sent to every worker once (scattered), not with each band's graph.
     """
     import dask.array as dsa
 
@@ -250,10 +257,12 @@ def build_kernel(
     # with every input constant, the template alone carries the grid's chunks to the kernel
     arrays = [a for a in args if isinstance(a, dsa.Array)] or [ref]
     clock: dict[str, float] = {}
+    token = uuid.uuid4().hex  # unique names spare hashing the model's table
     stacked = dsa.map_blocks(
-        _ChunkKernel(scalars, settings, clock),
+        _ChunkKernel(scalars, clock),
         *arrays,
-        name=f"lidmelt-kernel-{uuid.uuid4().hex}",  # unique; spares hashing the model's table
+        settings=_shared(settings, f"lidmelt-settings-{token}", client),
+        name=f"lidmelt-kernel-{token}",
         dtype=np.float32,
         new_axis=0,
         chunks=((len(OUTPUTS) + 1,), *ref.chunks),
@@ -265,6 +274,16 @@ def build_kernel(
     }
     flag = _on_grid(stacked[-1], template, FLAG_VARIABLE.name)
     return LazyRun(stacked, outputs, flag, clock)
+
+
+def _shared(value, name: str, client):
+    """``value`` as one node of a dask graph: on ``client``'s workers (scattered to each, once),
+    or a delayed value for local threads. Never part of each task (a table is tens of MB)."""
+    import dask
+
+    if client is not None:
+        return client.scatter(value, broadcast=True, hash=False)
+    return dask.delayed(value, name=name, traverse=False)
 
 
 def _on_grid(data, template: xr.DataArray, name: str | None = None) -> xr.DataArray:
@@ -322,6 +341,7 @@ def store_with_statistics(
     workers: int,
     report: Callable[[int, int], None] | None,
     inputs: RunInputs | None = None,
+    scheduler: Any = None,
 ) -> dict[str, Any]:
     """Store every GeoTIFF and compute the summary statistics in one dask pass.
 
@@ -330,6 +350,8 @@ def store_with_statistics(
     dask, chunked like the kernel). ``inputs`` gives the plate age (for the median age of
     ambient-melting cells) and whether upwelling is known (for the melt production total).
     Returns the ``statistics`` entry of the summary (:func:`lidmelt.statistics.summarize_bands`).
+    ``scheduler``, a dask.distributed client (:func:`lidmelt.cluster.connect`), computes the
+    chunks on its workers; the files are written here.
     """
     names = list(lazy.outputs)
     out_index = [k for k, name in enumerate(OUTPUTS) if name in lazy.outputs]
@@ -348,7 +370,9 @@ def store_with_statistics(
     )
     rows = 2 * ref_chunks[0][0]
     with GeoTiffSet(items, cog=True) as out:
-        bands = out.compute(extra=extra, band_rows=rows, num_workers=workers, report=report)
+        bands = out.compute(
+            extra=extra, band_rows=rows, num_workers=workers, report=report, scheduler=scheduler
+        )
     return summarize_bands(bands, names=names, integrals=integrals)
 
 
@@ -402,8 +426,8 @@ def run_basin(
         For any bad input (file, grid, range, model), a destination locked by another run, or
         a run without a single evaluable cell; nothing is left half-written.
     """
-    with RunTransaction(output_dir or cfg.run.output_dir, wait=wait) as tx:
-        result = _run_staged(cfg, tx.staging, progress, extra_stages)
+    with RunTransaction(output_dir or cfg.run.output_dir, wait=wait) as tx, connect(cfg) as client:
+        result = _run_staged(cfg, tx.staging, progress, extra_stages, client)
         rundir.seal_run(tx.staging, result.summary, sources=result.sources)
         drawn = list(products(tx.staging)) if products else []
         tx.commit()
@@ -411,8 +435,11 @@ def run_basin(
     return replace(result, run_dir=tx.dest, files=files)
 
 
-def _run_staged(cfg, run_dir: Path, progress: bool | None, extra_stages: tuple) -> RunResult:
-    """Every stage of a run, writing into ``run_dir`` (the staging folder)."""
+def _run_staged(
+    cfg, run_dir: Path, progress: bool | None, extra_stages: tuple, client
+) -> RunResult:
+    """Every stage of a run, writing into ``run_dir`` (the staging folder); ``client``: a
+    dask.distributed client computes the chunks, or None (local threads)."""
     t0 = time.perf_counter()
     chunks = int(cfg.compute.chunk_size)
     model, table = load_model(cfg)
@@ -425,8 +452,9 @@ def _run_staged(cfg, run_dir: Path, progress: bool | None, extra_stages: tuple) 
     cooling = lid_cooling_model(cfg, inputs=inputs)
 
     lazy = build_kernel(
-        cfg, inputs=inputs, template=template, model=model, table=table, cooling=cooling
-    )
+        cfg, inputs=inputs, template=template, model=model, table=table, cooling=cooling,
+        client=client,
+    )  # fmt: skip
     tags = rundir.provenance_tags(cfg, model=model, cooling=cooling, provenance=inputs.provenance)
     items = plan_geotiffs(
         run_dir, lazy=lazy, inputs=inputs, template=template, chunks=chunks, tags=tags
@@ -439,6 +467,7 @@ def _run_staged(cfg, run_dir: Path, progress: bool | None, extra_stages: tuple) 
         workers=int(cfg.compute.workers),
         report=band_reporter(progress),
         inputs=inputs,
+        scheduler=client,
     )
     run_warnings = ambient_melting_warnings(
         statistics, ambient_c=cfg.model.ambient_potential_temperature_c, issue=True
@@ -458,7 +487,7 @@ def _run_staged(cfg, run_dir: Path, progress: bool | None, extra_stages: tuple) 
 
     context = StageContext(
         cfg=cfg, run_dir=run_dir, target=target, inputs=inputs, model=model, table=table,
-        cooling=cooling, tags=tags, progress=progress,
+        cooling=cooling, tags=tags, progress=progress, client=client,
     )  # fmt: skip
     summary = rundir.build_summary(
         cfg,

@@ -30,3 +30,7 @@ class WorkflowError(LidmeltError, ValueError):
 
 class RunDirError(LidmeltError, ValueError):
     """A folder given as a run directory is not one written by ``lidmelt run``."""
+
+
+class ClusterError(LidmeltError, RuntimeError):
+    """The dask scheduler of a run cannot be reached, or its workers fail or cannot run it."""

@@ -13,7 +13,6 @@ run and keeps, per member, the melt volume of each of its largest candidates.
 from __future__ import annotations
 
 import functools
-import os
 import sys
 import time
 import uuid
@@ -22,6 +21,7 @@ from typing import Any
 
 import numpy as np
 
+from lidmelt.cluster import SCHEDULER_ENV
 from lidmelt.engine import StageContext, kernel_arguments, kernel_settings
 from lidmelt.ensemble.candidates import (
     Candidates,
@@ -50,8 +50,6 @@ __all__ = [
 
 #: The members' sampled values and basin totals, in the run directory.
 MEMBERS_FILE = "ensemble_members.csv"
-#: Environment variable naming a dask.distributed scheduler when the workflow gives none.
-SCHEDULER_ENV = "LIDMELT_SCHEDULER"
 #: Bytes per cell of one member's kernel evaluation in flight (float64 temporaries of the
 #: column evaluation and the stacked outputs; measured with bench_ensemble.py, rounded up).
 _KERNEL_BYTES_PER_CELL = 400
@@ -159,23 +157,6 @@ def _plan(context: StageContext, candidates: int = 0) -> tuple[MemberPlan, list[
     return plan, [[a for a in arg if hasattr(a, "dask")] for arg in args], tables
 
 
-def _scheduler(cfg):
-    """A dask.distributed client for the workflow's scheduler, or None (local threads)."""
-    address = cfg.compute.scheduler or os.environ.get(SCHEDULER_ENV) or None
-    if not address:
-        return None
-    from distributed import Client
-
-    try:
-        return Client(address, timeout="20s", set_as_default=False)
-    except OSError as exc:
-        msg = (
-            f"cannot reach the dask scheduler {address!r} (compute.scheduler or "
-            f"{SCHEDULER_ENV}): {exc}. Start it (dask scheduler) or remove the setting."
-        )
-        raise WorkflowError(msg) from exc
-
-
 def _label_blocks(labels: np.ndarray | None, chunks: tuple) -> list[list]:
     """``labels`` cut into the blocks of ``chunks`` ((rows, cols) of a dask array), or Nones."""
     rows, cols = (np.cumsum((0, *c)) for c in chunks)
@@ -202,34 +183,33 @@ def _compute_rows(
     area = area.to_delayed()
     blocks = [[a.to_delayed(optimize_graph=False) for a in arrays] for arrays in group_arrays]
     token = uuid.uuid4().hex
-    plan_d = dask.delayed(plan, name=f"lidmelt-ensemble-plan-{token}", traverse=False)
-    client = _scheduler(cfg)
+    client = context.client  # the run's (lidmelt.cluster.connect), or None: local threads
+    if client is not None:  # the plan and its tables go to each worker once, not every row
+        plan_d = client.scatter(plan, broadcast=True, hash=False)
+    else:
+        plan_d = dask.delayed(plan, name=f"lidmelt-ensemble-plan-{token}", traverse=False)
     totals = np.zeros((len(TOTALS) + plan.candidates, len(plan.settings)), np.int64)
     kwargs = {"scheduler": "threads", "num_workers": int(cfg.compute.workers)}
     if client is not None:
         kwargs = {"scheduler": client.get}
-    try:
-        row0 = 0
-        for i in range(area.shape[0]):
-            tasks = [
-                dask.delayed(reduce_chunk, pure=True)(
-                    plan_d,
-                    area[i, j],
-                    [[b[i, j] for b in g] for g in blocks],
-                    label_blocks[i][j],
-                    dask_key_name=f"lidmelt-ensemble-{token}-{i}-{j}",
-                )
-                for j in range(area.shape[1])
-            ]
-            results = dask.compute(*tasks, **kwargs)
-            layers = np.concatenate([r[0] for r in results], axis=2)
-            for r in results:
-                totals += r[1]
-            write(row0, list(layers))
-            row0 += layers.shape[1]
-    finally:
-        if client is not None:
-            client.close()
+    row0 = 0
+    for i in range(area.shape[0]):
+        tasks = [
+            dask.delayed(reduce_chunk, pure=True)(
+                plan_d,
+                area[i, j],
+                [[b[i, j] for b in g] for g in blocks],
+                label_blocks[i][j],
+                dask_key_name=f"lidmelt-ensemble-{token}-{i}-{j}",
+            )
+            for j in range(area.shape[1])
+        ]
+        results = dask.compute(*tasks, **kwargs)
+        layers = np.concatenate([r[0] for r in results], axis=2)
+        for r in results:
+            totals += r[1]
+        write(row0, list(layers))
+        row0 += layers.shape[1]
     return totals
 
 

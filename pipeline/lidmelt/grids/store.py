@@ -38,6 +38,7 @@ from lidmelt.grids.geotiff import (
     tile_aligned,
     write_failed,
 )
+from lidmelt.grids.remote import store_on_client
 
 __all__ = ["GeoTiffItem", "GeoTiffSet"]
 
@@ -104,6 +105,7 @@ class GeoTiffSet:
         band_rows: int | None = None,
         num_workers: int | None = None,
         report: Callable[[int, int], None] | None = None,
+        scheduler: Any = None,
     ) -> list[list[Any]]:
         """Store every item band by band, computing ``extra(rows)`` with each band.
 
@@ -111,7 +113,9 @@ class GeoTiffSet:
         that stores the band of every item and evaluates the dask objects ``extra(rows)``
         returns, so shared inputs are computed once and at most one band of chunks is held in
         memory, whatever the grid size. Returns the computed ``extra`` of every band;
-        ``report(done, total)`` is called after each band.
+        ``report(done, total)`` is called after each band. With ``scheduler``, a
+        dask.distributed client, its workers compute and this process writes each block as it
+        arrives (:func:`lidmelt.grids.remote.store_on_client`).
         """
         import dask
         import dask.array as dsa
@@ -137,10 +141,14 @@ class GeoTiffSet:
             for k, rows in enumerate(bands):
                 parts = [src[rows] for src in sources]
                 shifted = [t.shifted(rows.start) for t in targets]
-                delayed = dsa.store(parts, shifted, lock=False, compute=False) if parts else None
+                extras = extra(rows) if extra else []
                 with warnings.catch_warnings():  # all-NaN bands (land) have NaN min/max
                     warnings.simplefilter("ignore", RuntimeWarning)
-                    done = dask.compute(delayed, *(extra(rows) if extra else []))
+                    if scheduler is not None:  # its workers compute, this process writes
+                        done = [None, *store_on_client(scheduler, parts, shifted, extras)]
+                    else:
+                        stored = dsa.store(parts, shifted, lock=False, compute=False)
+                        done = dask.compute(stored if parts else None, *extras)
                 results.append(list(done[1:]))
                 if report:
                     report(k + 1, len(bands))
