@@ -107,48 +107,48 @@ def _jit(func=None, *, inline="never"):
 # compiled helpers (one cell)
 # ------------------------------------------------------------------------------------------------
 @_jit(inline="always")
-def _curve_at(g0, dg, us, i, u):
-    """Tp*(P_i) [deg C] at water coordinate u."""
-    return g0[i] + dg[i] * min(u, us[i])
+def _curve_at(cv, i, u):
+    """Tp*(P_i) [deg C] at water coordinate u (``cv`` rows: g0, d, u_sat; see module doc)."""
+    return cv[i, 0] + cv[i, 1] * min(u, cv[i, 2])
 
 
 @_jit(inline="always")
-def _curve_interp(g0, dg, us, p, inv_step, u):
+def _curve_interp(cv, p, inv_step, u):
     """Tp*(p) [deg C]: g0, d and u_sat each linear between the curve's nodes.
 
     Interpolating u_sat rather than the curve keeps the kink where water saturates exact.
     """
     x = p * inv_step
-    i = min(int(x), g0.size - 2)
+    i = min(int(x), cv.shape[0] - 2)
     a = x - i
-    base = g0[i] + a * (g0[i + 1] - g0[i])
-    slope = dg[i] + a * (dg[i + 1] - dg[i])
-    return base + slope * min(u, us[i] + a * (us[i + 1] - us[i]))
+    base = cv[i, 0] + a * (cv[i + 1, 0] - cv[i, 0])
+    slope = cv[i, 1] + a * (cv[i + 1, 1] - cv[i, 1])
+    return base + slope * min(u, cv[i, 2] + a * (cv[i + 1, 2] - cv[i, 2]))
 
 
 @_jit(inline="always")
-def _onset(tp, u, j, g0, dg, us, first, t0, inv_dt, p_step):
+def _onset(tp, u, j, cv, first, t0, inv_dt, p_step):
     """Onset pressure [GPa] of Tp at water coordinate u; NaN without a crossing.
 
     ``first[j, k]`` is the first node at which the running maximum of the curve of water node
     j (at or below u) reaches t0 + k dt; no node before it reaches a Tp >= that on a wetter
     curve either.
     """
-    if tp <= _curve_at(g0, dg, us, 0, u):
+    if tp <= _curve_at(cv, 0, u):
         return np.nan
     k = int((tp - t0) * inv_dt)
     k = min(max(k, 0), first.shape[1] - 1)
     i = max(first[j, k], 1)
-    n = g0.size
+    n = cv.shape[0]
     gi = 0.0
     while i < n:
-        gi = _curve_at(g0, dg, us, i, u)
+        gi = _curve_at(cv, i, u)
         if gi >= tp:
             break
         i += 1
     if i >= n:
         return np.nan
-    ga = _curve_at(g0, dg, us, i - 1, u)
+    ga = _curve_at(cv, i - 1, u)
     return (i - 1 + (tp - ga) / (gi - ga)) * p_step
 
 
@@ -189,12 +189,9 @@ def _saturation(sat, p, inv_step):
 
 
 @_jit(inline="always")
-def _column(tp, w, u, top_p, par, g0, dg, us, first, sat, vals):
-    """One valid cell: (flag, onset [GPa], H, F, mean melt pressure, needs the numpy path)."""
-    t0, inv_dt, p_step, tp_min = par[0], par[1], par[2], par[3]
-    inv_dtp, inv_dp, cal = par[4], par[5], par[6]
-    j_curve = min(int(u * par[11]), first.shape[0] - 1)
-    p_on = _onset(tp, u, j_curve, g0, dg, us, first, t0, inv_dt, p_step)
+def _column(tp, w, u, top_p, p_on, par, sat, vals):
+    """One valid cell with its onset: (flag, onset [GPa], H, F, mean melt pressure, to numpy)."""
+    p_step, tp_min, inv_dtp, inv_dp, cal = par[2], par[3], par[4], par[5], par[6]
     if not np.isfinite(p_on):
         return 2, np.nan, np.nan, np.nan, np.nan, False
     flag = 4 if p_on > cal else 0
@@ -215,16 +212,45 @@ def _column(tp, w, u, top_p, par, g0, dg, us, first, sat, vals):
 
 
 @_jit(inline="always")
-def _ambient_melt(ambient, w, u, top_p, par, g0, dg, us, first, sat, vals):
-    """H [km] of the ambient column (0 where it is flagged), and whether it needs numpy."""
-    _, _, h, _, _, slow = _column(ambient, w, u, top_p, par, g0, dg, us, first, sat, vals)
-    if slow:
+def _ambient_melt(w, u, top_p, p_on, par, sat, amb):
+    """H [km] of the ambient column (0 where it is flagged), and whether it needs numpy.
+
+    ``amb`` holds H at the ambient Tp on the table's (water, top pressure) nodes.
+    """
+    if not np.isfinite(p_on) or p_on <= top_p:
+        return 0.0, False
+    s = _saturation(sat, p_on, 1.0 / par[2])
+    if w > 0.0 and np.isfinite(s) and abs(w - s) <= _SATURATION_BAND * s:
         return 0.0, True
-    return (h if np.isfinite(h) else 0.0), False
+    if w > s:
+        return 0.0, False
+    xj = u * par[12]
+    j = min(int(xj), amb.shape[0] - 1)
+    c = xj - j
+    y = top_p * par[5]
+    k = min(int(y), amb.shape[1] - 2)
+    b = y - k
+    h = amb[j, k] + b * (amb[j, k + 1] - amb[j, k])
+    if c > 0.0:
+        j1 = min(j + 1, amb.shape[0] - 1)
+        h += c * (amb[j1, k] + b * (amb[j1, k + 1] - amb[j1, k]) - h)
+    if not np.isfinite(h):
+        return 0.0, True
+    return h, False
+
+
+@_jit(inline="always")
+def _onset_fast(tp, inv, t0, inv_dt):
+    """Onset [GPa] of one water content by the inverse table; NaN where it must be searched."""
+    x = (tp - t0) * inv_dt
+    k = int(x)
+    if k < 0 or k >= inv.shape[0]:
+        return np.nan
+    return inv[k, 0] + (x - k) * inv[k, 1]
 
 
 @_jit
-def _cells(tp, lid, water, w_stride, up, up_stride, par, g0, dg, us, first, sat, vals, out, flag):
+def _cells(tp, lid, water, w_stride, up, up_stride, par, cv, first, inv, sat, vals, amb, out, flag):
     """Every output of every cell into ``out`` (rows :data:`ROWS`) and ``flag``.
 
     Returns a mask of the cells left for the numpy path (their rows are not written).
@@ -232,6 +258,11 @@ def _cells(tp, lid, water, w_stride, up, up_stride, par, g0, dg, us, first, sat,
     sol0, min_top, gpa_per_km, top_max, max_on = par[13], par[14], par[15], par[16], par[17]
     ambient, crust_ratio, water_max, hydrous, tp_max = par[18], par[19], par[20], par[21], par[22]
     varying = par[11] > 0.0
+    n_curves = first.shape[0]
+    # one water content: one ambient onset for every cell
+    p_amb = np.nan
+    if np.isfinite(ambient):
+        p_amb = _onset(ambient, par[7], 0, cv, first, par[0], par[1], par[2])
     slow = np.zeros(tp.size, np.bool_)
     for n in range(tp.size):
         t, lid_km, w = tp[n], lid[n], water[n * w_stride]
@@ -249,21 +280,24 @@ def _cells(tp, lid, water, w_stride, up, up_stride, par, g0, dg, us, first, sat,
         u_curve = (w**WATER_EXPONENT if w > 0.0 else 0.0) if varying else par[7]
         excess = np.nan
         if lid_ok and w_ok and top_p <= max_on:
-            excess = _curve_interp(g0, dg, us, top_p, 1.0 / par[2], u_curve) - ambient
+            excess = _curve_interp(cv, top_p, 1.0 / par[2], u_curve) - ambient
         h = f = p_on = mean = np.nan
         fl = 1
         if valid:
-            fl, p_on, h, f, mean, to_numpy = _column(
-                t, w, u_curve, top_p, par, g0, dg, us, first, sat, vals
-            )
+            p_on = np.nan if varying else _onset_fast(t, inv, par[0], par[1])
+            if not np.isfinite(p_on):
+                j = min(int(u_curve * par[11]), n_curves - 1)
+                p_on = _onset(t, u_curve, j, cv, first, par[0], par[1], par[2])
+            fl, p_on, h, f, mean, to_numpy = _column(t, w, u_curve, top_p, p_on, par, sat, vals)
             if to_numpy:
                 slow[n] = True
                 continue
         h_amb = 0.0
         if excess < 0.0 and np.isfinite(h):
-            h_amb, to_numpy = _ambient_melt(
-                ambient, w, u_curve, top_p, par, g0, dg, us, first, sat, vals
-            )
+            if varying:
+                j = min(int(u_curve * par[11]), n_curves - 1)
+                p_amb = _onset(ambient, u_curve, j, cv, first, par[0], par[1], par[2])
+            h_amb, to_numpy = _ambient_melt(w, u_curve, top_p, p_amb, par, sat, amb)
             if to_numpy:
                 slow[n] = True
                 continue
@@ -355,7 +389,29 @@ def _arrays(table: MeltTable, water):
         float,
     )  # fmt: skip
     first = _first_nodes(curves, t0, n_t)
-    return par, g0, dg, us, first, sat, np.ascontiguousarray(vals, dtype=np.float32)
+    inv = _inverse(curves[0], first[0], t0) if water is not None else np.full((1, 2), np.nan)
+    cv = np.ascontiguousarray(np.stack([g0, dg, us], axis=1))
+    return par, cv, first, inv, sat, np.ascontiguousarray(vals, dtype=np.float32)
+
+
+def _inverse(curve, first, t0):
+    """(n_t, 2): onset [GPa] at t0 + k dt and its rise to the next k; NaN where not smooth.
+
+    Where the crossing moves by at most two curve nodes from one Tp node to the next, the onset
+    is linear in Tp within 1e-5 GPa [derived: h^2 |P''| / 8 with P'' = -g''/g'^3]; elsewhere
+    (near a tangency, or without a crossing) the kernel searches the curve.
+    """
+    targets = t0 + _TP_INDEX_STEP_K * np.arange(first.size)
+    i = first.astype(np.intp)
+    ok = (i >= 1) & (i < curve.size) & (targets > curve[0])
+    i = np.clip(i, 1, curve.size - 1)
+    ga, gb = curve[i - 1], curve[i]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        p = np.where(ok, (i - 1 + (targets - ga) / (gb - ga)) * ONSET_STEP_GPA, np.nan)
+    smooth = ok[:-1] & ok[1:] & (np.diff(first) <= 2)
+    rise = np.where(smooth, np.diff(p), np.nan)
+    out = np.column_stack([np.where(smooth, p[:-1], np.nan), rise])
+    return np.ascontiguousarray(np.vstack([out, [np.nan, np.nan]]))
 
 
 _CACHE: weakref.WeakKeyDictionary = weakref.WeakKeyDictionary()
@@ -377,6 +433,22 @@ def _arrays_of(table: MeltTable, water):
 # ------------------------------------------------------------------------------------------------
 # the entry point
 # ------------------------------------------------------------------------------------------------
+def _plain(values):
+    """A writable C-contiguous float64 copy or view (one compiled signature for every input)."""
+    arr = np.ascontiguousarray(values, float)
+    return arr if arr.flags.writeable else arr.copy()
+
+
+def _ambient_h(vals, par, ambient_c):
+    """H [km] at the ambient Tp on the table's (water, top pressure) nodes (linear in Tp)."""
+    if not np.isfinite(ambient_c):
+        return np.zeros((vals.shape[1], vals.shape[2]))
+    x = (ambient_c - par[3]) * par[4]
+    i = min(int(x), vals.shape[0] - 2)
+    a = x - i
+    return np.ascontiguousarray((1 - a) * vals[i, :, :, 0] + a * vals[i + 1, :, :, 0], float)
+
+
 _COMPILE = {"seconds": 0.0}
 
 
@@ -403,18 +475,23 @@ def evaluate_compiled(table, tp, lid, water, *, ambient_c, min_top_km, upwelling
     arrays = _arrays_of(table, float(water) if one else None)
     if arrays is None:
         return None
-    par, *rest = arrays
+    par, cv, first, inv, sat, vals = arrays
     par = par.copy()
     par[14], par[18], par[19] = min_top_km, ambient_c, crust_ratio
-    w = np.array([float(water)]) if one else np.ascontiguousarray(water, float)
-    up = np.array([np.nan if upwelling is None else 0.0])
-    if upwelling is not None:
-        up = np.ascontiguousarray(np.broadcast_to(np.asarray(upwelling, float), tp.shape))
+    tp, lid = _plain(tp), _plain(lid)
+    w = np.array([float(water)]) if one else _plain(water)
+    up = np.array([np.nan if upwelling is None else float(np.ravel(upwelling)[0])])
+    if upwelling is not None and np.size(upwelling) > 1:
+        up = _plain(np.broadcast_to(np.asarray(upwelling, float), tp.shape))
     out = np.empty((len(ROWS), tp.size), np.float32)
     flag = np.zeros(tp.size, np.uint8)
     first_call = _COMPILE["seconds"] == 0.0
     t = time.perf_counter()
-    slow = _cells(tp, lid, w, 0 if one else 1, up, 0 if up.size == 1 else 1, par, *rest, out, flag)
+    amb = _ambient_h(vals, par, ambient_c)
+    slow = _cells(
+        tp, lid, w, 0 if one else 1, up, 0 if up.size == 1 else 1, par, cv, first, inv, sat,
+        vals, amb, out, flag,
+    )  # fmt: skip
     if first_call:
         _COMPILE["seconds"] = time.perf_counter() - t
     names = ROWS if upwelling is not None else ROWS[:-1]
