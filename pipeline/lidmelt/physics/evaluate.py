@@ -35,14 +35,12 @@ from lidmelt.physics.column import (
     refine_onset_gpa,
     top_of_melting_km,
 )
-from lidmelt.physics.kernel import AVAILABLE as COMPILED_AVAILABLE
 from lidmelt.physics.kernel import compiled_cells, use_compiled
 from lidmelt.physics.melting import MeltingModel, get_model
 from lidmelt.physics.table import FALLBACK_STEP_GPA, MeltTable, get_table
 
 __all__ = [
     "COLUMN_OUTPUTS",
-    "COMPILED_AVAILABLE",
     "FLAG_BEYOND_CALIBRATION",
     "FLAG_INVALID_INPUT",
     "FLAG_KEYS",
