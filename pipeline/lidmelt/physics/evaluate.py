@@ -35,6 +35,7 @@ from lidmelt.physics.column import (
     refine_onset_gpa,
     top_of_melting_km,
 )
+from lidmelt.physics.kernel import compiled_cells, use_compiled
 from lidmelt.physics.melting import MeltingModel, get_model
 from lidmelt.physics.table import FALLBACK_STEP_GPA, MeltTable, get_table
 
@@ -144,6 +145,7 @@ def finish_outputs(model, tp, w, top_km, p_on, melt_thickness_km, f_top, int_p_d
     with np.errstate(invalid="ignore", divide="ignore"):
         top_p = model.pressure_gpa(top_km)
         invalid = (flag & FLAG_INVALID_INPUT) > 0
+        p_on = np.where(invalid, np.nan, p_on)  # an invalid cell has no onset to flag
         no_onset = ~invalid & ~np.isfinite(p_on)
         flag = flag | np.where(no_onset, FLAG_NO_ONSET, 0).astype(np.uint8)
         deep = np.isfinite(p_on) & (p_on > model.calibrated_max_pressure_gpa)
@@ -178,6 +180,7 @@ def melt_column(
     min_top_km: float = DEFAULT_MIN_TOP_KM,
     step_gpa: float = DEFAULT_PRESSURE_STEP_GPA,
     table: MeltTable | None = None,
+    compiled: bool | None = None,
 ) -> ColumnResult:
     """Melt production of upwelling mantle beneath a lid, for arrays of cells.
 
@@ -202,14 +205,18 @@ def melt_column(
         Pressure step of the direct integration [GPa].
     table : MeltTable, optional
         A table to use (default: the cached table of the model).
+    compiled : bool, optional
+        The table path by the compiled kernel (:mod:`lidmelt.physics.kernel`; True), or by
+        numpy (False). Default: compiled where numba imports.
 
     Returns
     -------
     ColumnResult
         Arrays of the broadcast input shape and a ``flag`` array (see ``FLAG_*``). Invalid or
         unmeltable cells are NaN and flagged, never clipped. The table path returns float32
-        arrays where one water content applies to every cell (single precision is far finer
-        than the table's error, and halves the memory traffic); otherwise float64.
+        arrays where the compiled kernel serves it or one water content applies to every cell
+        (single precision is far finer than the table's error, and halves the memory traffic);
+        otherwise float64.
     """
     model = get_model(model)
     tp, lid, w = np.broadcast_arrays(
@@ -219,6 +226,16 @@ def melt_column(
     )
     if method == "table":
         tab = table if table is not None else get_table(model)
+        if use_compiled(compiled):
+            res = compiled_cells(
+                tab, tp, lid, w, ambient=np.nan, min_top_km=min_top_km, upwelling=None,
+                crust_ratio=1.0, clock=None,
+                numpy_path=lambda t, d, ww, _: _table_columns(
+                    tab, t, d, ww, min_top_km=min_top_km
+                ).as_dict(),
+            )  # fmt: skip
+            if res is not None:
+                return ColumnResult(**{k: res[k] for k in (*COLUMN_OUTPUTS, "flag")}, model=model)
         return _table_columns(tab, tp, lid, w, min_top_km=min_top_km)
     if method != "direct":
         msg = f"unknown method {method!r}; use 'table' (fast) or 'direct' (integrates each column)."
@@ -308,6 +325,8 @@ def evaluate_cells(
     min_top_km: float = DEFAULT_MIN_TOP_KM,
     upwelling_mm_yr=None,
     crust_density_kg_m3: float = 2900.0,
+    compiled: bool | None = None,
+    clock: dict | None = None,
 ) -> dict[str, np.ndarray]:
     """Every output variable of :mod:`lidmelt.variables` and the ``"flag"``, for arrays of cells.
 
@@ -326,11 +345,56 @@ def evaluate_cells(
 
     Definitions: docs/physics.md, section "Definitions lidmelt fixes"; ``water_wt_pct`` may stay a
     scalar (the table's fast path). Returns arrays of the broadcast input shape.
+
+    The table path runs in the compiled kernel (:mod:`lidmelt.physics.kernel`, float32 outputs)
+    where numba imports and ``compiled`` is not False, else in numpy; ``compiled=True`` requires
+    the kernel. Cells the kernel leaves (outside the table's nodes, or on the edge of the
+    saturation flag) take the numpy path; ``clock``, a dict, then accumulates their number
+    (``numpy_cells``) and seconds (``numpy_s``), and ``cells`` counts every cell.
     """
+    model = get_model(model)
+    if method == "table" and use_compiled(compiled):
+        tab = table if table is not None else get_table(model)
+        shape = np.broadcast_shapes(np.shape(potential_temperature_c), np.shape(lid_depth_km))
+        tp = np.broadcast_to(np.asarray(potential_temperature_c, float), shape)
+        lid = np.broadcast_to(np.asarray(lid_depth_km, float), shape)
+        water = water_wt_pct
+        if np.ndim(water):
+            water = np.broadcast_to(np.asarray(water, float), shape)
+
+        def numpy_path(t, d, w, up):
+            return _numpy_cells(
+                t, d, w, ambient_potential_temperature_c=ambient_potential_temperature_c,
+                model=model, method=method, table=tab, min_top_km=min_top_km,
+                upwelling_mm_yr=up, crust_density_kg_m3=crust_density_kg_m3,
+            )  # fmt: skip
+
+        out = compiled_cells(
+            tab, tp, lid, water, ambient=float(ambient_potential_temperature_c),
+            min_top_km=min_top_km, upwelling=upwelling_mm_yr,
+            crust_ratio=model.solid_density_kg_m3 / crust_density_kg_m3, clock=clock,
+            numpy_path=numpy_path,
+        )  # fmt: skip
+        if out is not None:
+            return out
+    return _numpy_cells(
+        potential_temperature_c, lid_depth_km, water_wt_pct,
+        ambient_potential_temperature_c=ambient_potential_temperature_c, model=model,
+        method=method, table=table, min_top_km=min_top_km, upwelling_mm_yr=upwelling_mm_yr,
+        crust_density_kg_m3=crust_density_kg_m3,
+    )  # fmt: skip
+
+
+def _numpy_cells(
+    potential_temperature_c, lid_depth_km, water_wt_pct, *, ambient_potential_temperature_c,
+    model, method, table, min_top_km, upwelling_mm_yr, crust_density_kg_m3,
+):  # fmt: skip
+    """:func:`evaluate_cells` by numpy (the table's numpy path or direct integration)."""
     model = get_model(model)
     shape = np.broadcast_shapes(np.shape(potential_temperature_c), np.shape(lid_depth_km))
     lid = np.broadcast_to(np.asarray(lid_depth_km, float), shape)
     common = {"model": model, "method": method, "table": table, "min_top_km": min_top_km}
+    common["compiled"] = False
     out = melt_column(potential_temperature_c, lid, water_wt_pct, **common).as_dict()
     ambient = float(ambient_potential_temperature_c)
     excess = excess_to_melt_k(

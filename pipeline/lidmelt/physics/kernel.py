@@ -1,0 +1,589 @@
+"""The compiled melting kernel: every output of a cell from the table in one pass (numba).
+
+:func:`evaluate_compiled` does what :func:`lidmelt.physics.evaluate.evaluate_cells` does on its
+table path, cell by cell in compiled code that releases the GIL (the engine runs it in dask
+threads). It returns None where it cannot serve the call (numba missing, a model whose solidus
+does not have the form below, constants outside the table), and the caller then takes the numpy
+table path; single cells it cannot do are marked for that path too (outside the table, or on
+the edge of a flag that interpolation cannot decide).
+
+The onset without a search
+--------------------------
+The solid isentrope of Tp is above the solidus at P exactly when Tp > Tp*(P), with
+Tp*(P) = (T_sol(P, w) + 273.15) exp(-alpha_s P / (rho_s c_p)) - 273.15 [derived from the solid
+isentrope, docs/physics.md, "Definitions lidmelt fixes"; the same curve gives
+:func:`~lidmelt.physics.evaluate.excess_to_melt_k`]. So the onset, the shallowest crossing
+searched from the surface (:func:`lidmelt.physics.column.onset_pressure_gpa`), is the first P at
+which Tp*(P) reaches Tp. The curve is tabulated on a fine pressure grid (:data:`ONSET_STEP_GPA`)
+once per water content, with the index of the first node its running maximum reaches for every
+Tp on a fine Tp grid; a cell reads that index, steps to the first node at or above its Tp
+and interpolates linearly between the two nodes about the crossing. No interval is rough: near
+a tangency the crossing is still the first node at or above Tp.
+
+Where water varies cell by cell, the curve is Tp*(P, u) = g0(P) + d(P) min(u, u_sat(P)) with
+u = water^0.75: below saturation the Katz et al. (2003) solidus depression K (X/D)^gamma is
+linear in u (gamma = 0.75, Table 2), and at saturation it stops growing. The form is checked
+against the model's solidus when the arrays are made (else this kernel is not used). The
+curves at a few water nodes bound the cell's curve from above (more water, lower solidus), so
+the node below the cell's water gives where its step starts.
+
+H, F and the integral of P dF come from the table (bilinear in Tp and top pressure, linear in u
+between water nodes), as on the numpy path.
+
+Compiling takes 5-20 s on the 2-core development machine (``bench_column.py`` prints it); numba
+keeps the result on disk (beside this module, or in ``$NUMBA_CACHE_DIR``), and a warm cache
+loads in about 1 s. Where neither is writable, every process compiles once.
+"""
+
+from __future__ import annotations
+
+import threading
+import time
+import weakref
+
+import numpy as np
+
+from lidmelt.errors import ModelError
+from lidmelt.physics.melting import MeltingModel
+from lidmelt.physics.table import WATER_EXPONENT, MeltTable
+
+try:  # numba compiles the kernel; without it the numpy table path is used
+    import numba
+except ImportError:  # pragma: no cover - the numpy path is tested by forcing it
+    numba = None
+
+__all__ = [
+    "AVAILABLE",
+    "ONSET_STEP_GPA",
+    "compile_seconds",
+    "compiled_cells",
+    "evaluate_compiled",
+    "use_compiled",
+]
+
+AVAILABLE = numba is not None
+#: Pressure step [GPa] of the tabulated onset curve Tp*(P). Linear interpolation errs by
+#: h^2 |Tp*''| / 8 < 1e-4 K (|Tp*''| < 30 K/GPa^2 for the Katz solidus away from the surface,
+#: [derived]), far inside the 0.2 km onset tolerance of tests/test_table.py.
+ONSET_STEP_GPA = 0.005
+#: Step [K] of the Tp grid on which the first node of the running maximum is indexed; a cell
+#: steps from there over at most a few nodes (a choice of speed, not of accuracy).
+_TP_INDEX_STEP_K = 0.25
+#: Water nodes of the bracketing curves where water varies (a choice of speed).
+_WATER_CURVES = 65
+#: Relative band about the saturation limit in which the cell goes to the numpy path, where the
+#: linear interpolation of the saturation limit might decide the flag differently (a choice).
+_SATURATION_BAND = 0.02
+#: Output rows of the kernel, in order.
+ROWS = (
+    "melt_thickness_km",
+    "onset_depth_km",
+    "onset_pressure_gpa",
+    "lid_depth_km",
+    "max_melt_fraction",
+    "mean_melt_pressure_gpa",
+    "excess_to_melt_k",
+    "anomaly_melt_thickness_km",
+    "melting_regime",
+    "crustal_thickness_km",
+    "melt_production_mm_yr",
+)
+
+
+def _jit(func=None, *, inline="never"):
+    """numba.njit without the GIL, cached on disk where numba finds a writable place.
+
+    In a read-only install without ``NUMBA_CACHE_DIR``, numba has no cache location and refuses
+    ``cache=True``; the kernel is then compiled in memory once per process. The helpers of one
+    cell are inlined (``inline="always"``): called, they cost three times the work they do.
+    """
+    if func is None:
+        return lambda f: _jit(f, inline=inline)
+    if numba is None:
+        return func
+    try:
+        return numba.njit(nogil=True, cache=True, inline=inline, error_model="numpy")(func)
+    except RuntimeError:
+        return numba.njit(nogil=True, inline=inline, error_model="numpy")(func)
+
+
+# ------------------------------------------------------------------------------------------------
+# compiled helpers (one cell)
+# ------------------------------------------------------------------------------------------------
+@_jit(inline="always")
+def _curve_at(cv, i, u):
+    """Tp*(P_i) [deg C] at water coordinate u (``cv`` rows: g0, d, u_sat; see module doc)."""
+    return cv[i, 0] + cv[i, 1] * min(u, cv[i, 2])
+
+
+@_jit(inline="always")
+def _curve_interp(cv, p, inv_step, u):
+    """Tp*(p) [deg C]: g0, d and u_sat each linear between the curve's nodes.
+
+    Interpolating u_sat rather than the curve keeps the kink where water saturates exact.
+    """
+    x = p * inv_step
+    i = min(int(x), cv.shape[0] - 2)
+    a = x - i
+    base = cv[i, 0] + a * (cv[i + 1, 0] - cv[i, 0])
+    slope = cv[i, 1] + a * (cv[i + 1, 1] - cv[i, 1])
+    return base + slope * min(u, cv[i, 2] + a * (cv[i + 1, 2] - cv[i, 2]))
+
+
+@_jit
+def _onset(tp, u, j, cv, first, t0, inv_dt, p_step):
+    """Onset pressure [GPa] of Tp at water coordinate u; NaN without a crossing.
+
+    ``first[j, k]`` is the first node at which the running maximum of the curve of water node
+    j (at or below u) reaches t0 + k dt; no node before it reaches a Tp >= that on a wetter
+    curve either.
+    """
+    if tp <= _curve_at(cv, 0, u):
+        return np.nan
+    k = int((tp - t0) * inv_dt)
+    k = min(max(k, 0), first.shape[1] - 1)
+    i = max(first[j, k], 1)
+    n = cv.shape[0]
+    gi = 0.0
+    while i < n:
+        gi = _curve_at(cv, i, u)
+        if gi >= tp:
+            break
+        i += 1
+    if i >= n:
+        return np.nan
+    ga = _curve_at(cv, i - 1, u)
+    return (i - 1 + (tp - ga) / (gi - ga)) * p_step
+
+
+@_jit(inline="always")
+def _bilinear(vals, i, j, k, q, a, b):
+    """Component q of the table at water node j, bilinear in (Tp, top pressure)."""
+    v0 = vals[i, j, k, q] + b * (vals[i, j, k + 1, q] - vals[i, j, k, q])
+    v1 = vals[i + 1, j, k, q] + b * (vals[i + 1, j, k + 1, q] - vals[i + 1, j, k, q])
+    return v0 + a * (v1 - v0)
+
+
+@_jit(inline="always")
+def _lookup(vals, x, y, j, c):
+    """H, F and integral of P dF: bilinear in (Tp, top pressure), linear in water (j, c)."""
+    i = min(int(x), vals.shape[0] - 2)
+    k = min(int(y), vals.shape[2] - 2)
+    a, b = x - i, y - k
+    h = _bilinear(vals, i, j, k, 0, a, b)
+    f = _bilinear(vals, i, j, k, 1, a, b)
+    g = _bilinear(vals, i, j, k, 2, a, b)
+    if c > 0.0:
+        j1 = min(j + 1, vals.shape[1] - 1)
+        h += c * (_bilinear(vals, i, j1, k, 0, a, b) - h)
+        f += c * (_bilinear(vals, i, j1, k, 1, a, b) - f)
+        g += c * (_bilinear(vals, i, j1, k, 2, a, b) - g)
+    return h, f, g
+
+
+@_jit(inline="always")
+def _saturation(sat, p, inv_step):
+    """Bulk water [wt%] that saturates the solid source at p (linear between nodes)."""
+    x = p * inv_step
+    i = min(int(x), sat.size - 2)
+    lo, hi = sat[i], sat[i + 1]
+    if not (np.isfinite(lo) and np.isfinite(hi)):
+        return np.inf
+    return lo + (x - i) * (hi - lo)
+
+
+@_jit(inline="always")
+def _column(tp, w, u, top_p, p_on, par, sat, vals):
+    """One valid cell with its onset: (flag, onset [GPa], H, F, mean melt pressure, to numpy)."""
+    p_step, tp_min, inv_dtp, inv_dp, cal = par[2], par[3], par[4], par[5], par[6]
+    if not np.isfinite(p_on):
+        return 2, np.nan, np.nan, np.nan, np.nan, False
+    flag = 4 if p_on > cal else 0
+    s = _saturation(sat, p_on, 1.0 / p_step)
+    if w > 0.0 and np.isfinite(s) and abs(w - s) <= _SATURATION_BAND * s:
+        return flag, p_on, np.nan, np.nan, np.nan, True
+    if w > s:
+        return flag | 8, np.nan, np.nan, np.nan, np.nan, False
+    if p_on <= top_p:
+        return flag, p_on, 0.0, 0.0, np.nan, False
+    x, y = (tp - tp_min) * inv_dtp, top_p * inv_dp
+    xj = u * par[12]
+    j = min(int(xj), vals.shape[1] - 1)
+    h, f, g = _lookup(vals, x, y, j, xj - j)
+    if not (np.isfinite(h) and np.isfinite(f)):
+        return flag, p_on, np.nan, np.nan, np.nan, True
+    mean = min(max(g / f, top_p), p_on) if f > 0.0 else np.nan
+    return flag, p_on, h, f, mean, False
+
+
+@_jit(inline="always")
+def _ambient_melt(w, u, top_p, p_on, par, sat, amb):
+    """H [km] of the ambient column (0 where it is flagged), and whether it needs numpy.
+
+    ``amb`` holds H at the ambient Tp on the table's (water, top pressure) nodes.
+    """
+    if not np.isfinite(p_on) or p_on <= top_p:
+        return 0.0, False
+    s = _saturation(sat, p_on, 1.0 / par[2])
+    if w > 0.0 and np.isfinite(s) and abs(w - s) <= _SATURATION_BAND * s:
+        return 0.0, True
+    if w > s:
+        return 0.0, False
+    xj = u * par[12]
+    j = min(int(xj), amb.shape[0] - 1)
+    c = xj - j
+    y = top_p * par[5]
+    k = min(int(y), amb.shape[1] - 2)
+    b = y - k
+    h = amb[j, k] + b * (amb[j, k + 1] - amb[j, k])
+    if c > 0.0:
+        j1 = min(j + 1, amb.shape[0] - 1)
+        h += c * (amb[j1, k] + b * (amb[j1, k + 1] - amb[j1, k]) - h)
+    if not np.isfinite(h):
+        return 0.0, True
+    return h, False
+
+
+@_jit(inline="always")
+def _onset_fast(tp, u, inv, t0, inv_dt, inv_du):
+    """Onset [GPa] by the inverse table (linear in Tp, and in u between water curves); NaN
+    where it must be searched (:func:`_onset`)."""
+    x = (tp - t0) * inv_dt
+    k = int(x)
+    if k < 0 or k >= inv.shape[1]:
+        return np.nan
+    fx = x - k
+    if inv.shape[0] == 1:
+        return inv[0, k, 0] + fx * inv[0, k, 1]
+    y = u * inv_du
+    j = min(int(y), inv.shape[0] - 2)
+    p0 = inv[j, k, 0] + fx * inv[j, k, 1]
+    return p0 + (y - j) * (inv[j + 1, k, 0] + fx * inv[j + 1, k, 1] - p0)
+
+
+@_jit(inline="always")
+def _onset_any(tp, u, par, cv, first, inv):
+    """Onset [GPa]: the inverse table where it is smooth, else the search of the curve."""
+    p_on = _onset_fast(tp, u, inv, par[0], par[1], par[11])
+    if np.isfinite(p_on):
+        return p_on
+    j = min(int(u * par[11]), first.shape[0] - 1)
+    return _onset(tp, u, j, cv, first, par[0], par[1], par[2])
+
+
+@_jit
+def _cells(tp, lid, water, w_stride, up, up_stride, par, cv, first, inv, sat, vals, amb, out, flag):
+    """Every output of every cell into ``out`` (rows :data:`ROWS`) and ``flag``.
+
+    Returns a mask of the cells left for the numpy path (their rows are not written).
+    """
+    sol0, min_top, gpa_per_km, top_max, max_on = par[13], par[14], par[15], par[16], par[17]
+    ambient, crust_ratio, water_max, hydrous, tp_max = par[18], par[19], par[20], par[21], par[22]
+    varying = par[11] > 0.0
+    # one water content: one ambient onset for every cell
+    p_amb = np.nan
+    if np.isfinite(ambient):
+        p_amb = _onset_any(ambient, par[7], par, cv, first, inv)
+    slow = np.zeros(tp.size, np.bool_)
+    for n in range(tp.size):
+        t, lid_km, w = tp[n], lid[n], water[n * w_stride]
+        lid_ok = np.isfinite(lid_km) and lid_km >= 0.0
+        w_ok = np.isfinite(w) and w >= 0.0 and (hydrous > 0.0 or w == 0.0)
+        top_km = max(lid_km, min_top)
+        top_p = top_km * gpa_per_km
+        valid = lid_ok and w_ok and np.isfinite(t) and t > sol0
+        if (lid_ok and w_ok and w > water_max) or (
+            valid and (t < par[3] or t > tp_max or top_p > top_max)
+        ):
+            slow[n] = True
+            continue
+        # u = water^0.75 on the curves (one water content: its u, or 0 on its own curve)
+        u_curve = (w**WATER_EXPONENT if w > 0.0 else 0.0) if varying else par[7]
+        excess = np.nan
+        if lid_ok and w_ok and top_p <= max_on:
+            excess = _curve_interp(cv, top_p, 1.0 / par[2], u_curve) - ambient
+        h = f = p_on = mean = np.nan
+        fl = 1
+        if valid:
+            p_on = _onset_any(t, u_curve, par, cv, first, inv)
+            fl, p_on, h, f, mean, to_numpy = _column(t, w, u_curve, top_p, p_on, par, sat, vals)
+            if to_numpy:
+                slow[n] = True
+                continue
+        h_amb = 0.0
+        if excess < 0.0 and np.isfinite(h):
+            if varying:
+                p_amb = _onset_any(ambient, u_curve, par, cv, first, inv)
+            h_amb, to_numpy = _ambient_melt(w, u_curve, top_p, p_amb, par, sat, amb)
+            if to_numpy:
+                slow[n] = True
+                continue
+        regime = np.nan
+        if np.isfinite(h):
+            regime = (1.0 if excess < 0.0 else 2.0) if h > 0.0 else 0.0
+        out[0, n], out[1, n], out[2, n] = h, p_on / gpa_per_km, p_on
+        out[3, n] = top_km if valid else np.nan
+        out[4, n], out[5, n], out[6, n] = f, mean, excess
+        out[7, n] = max(h - h_amb, 0.0) if np.isfinite(h) else np.nan
+        out[8, n], out[9, n] = regime, h * crust_ratio
+        out[10, n] = f * up[n * up_stride]
+        flag[n] = fl
+    return slow
+
+
+# ------------------------------------------------------------------------------------------------
+# the arrays of a table and water content (numpy, made once and kept with the table)
+# ------------------------------------------------------------------------------------------------
+def _onset_curve(model: MeltingModel, p, water):
+    """Tp*(P) [deg C]: the Tp whose solid isentrope meets the solidus at P (see module doc)."""
+    with np.errstate(invalid="ignore", over="ignore"):
+        sol = model.solidus_c(p, water)
+    return (sol + 273.15) * np.exp(-model.adiabat_coefficient_per_gpa * p) - 273.15
+
+
+def _water_form(model: MeltingModel, p, water_max):
+    """(g0, d, u_sat) of Tp*(P, u) = g0 + d min(u, u_sat), checked; None if the model differs."""
+    g0 = _onset_curve(model, p, 0.0)
+    sat = np.asarray(model.water_saturated_bulk_wt_pct(p), float)
+    if not model.hydrous or water_max <= 0:
+        return g0, np.zeros_like(p), np.full_like(p, np.inf)
+    w_ref = 1e-3  # saturates the source only above 3.5e-4 GPa [derived], so at node 0 alone
+    d = (_onset_curve(model, p, w_ref) - g0) / w_ref**WATER_EXPONENT
+    us = sat**WATER_EXPONENT
+    for w in water_max * np.array([0.003, 0.05, 0.2, 0.5, 0.8, 1.0]):
+        form = g0 + d * np.minimum(w**WATER_EXPONENT, us)
+        if not np.all(np.abs(form - _onset_curve(model, p, w)) <= 1e-6):
+            return None
+    return g0, d, us
+
+
+def _first_nodes(curves, t0, n_t):
+    """For each curve (rows), the first node its running maximum reaches t0 + k dt (int32)."""
+    targets = t0 + _TP_INDEX_STEP_K * np.arange(n_t)
+    running = np.maximum.accumulate(curves, axis=1)
+    return np.stack([np.searchsorted(r, targets, side="left") for r in running]).astype(np.int32)
+
+
+def _arrays(table: MeltTable, water):
+    """The kernel's arrays for one water content (a float) or for water varying (None)."""
+    model, lay = table.model, table.layout
+    p = ONSET_STEP_GPA * np.arange(round(model.max_onset_pressure_gpa / ONSET_STEP_GPA) + 1)
+    sat = np.asarray(model.water_saturated_bulk_wt_pct(p), float)
+    form = _water_form(model, p, lay.water_max_wt_pct)
+    if form is not None and not np.all(np.isfinite(form[0])):
+        form = None
+    u_one = 0.0
+    if water is None:
+        if form is None:
+            return None
+        g0, dg, us = form
+        u_nodes = np.linspace(0.0, lay.water_max_wt_pct**WATER_EXPONENT, _WATER_CURVES)
+        curves = g0 + dg * np.minimum(u_nodes[:, None], us)
+        vals, inv_du_curve = table.values, (_WATER_CURVES - 1) / max(u_nodes[-1], 1e-300)
+    else:
+        if form is not None:  # the form keeps the kink where water saturates exact
+            g0, dg, us = form
+            u_one = water**WATER_EXPONENT
+        else:
+            g0 = _onset_curve(model, p, water)
+            dg, us = np.zeros_like(p), np.zeros_like(p)
+        if not np.all(np.isfinite(g0)):
+            return None
+        curves, inv_du_curve = (g0 + dg * np.minimum(u_one, us))[None], 0.0
+        j, a = (float(v) for v in table.water_index(np.array(water)))
+        j, j1 = int(j), min(int(j) + 1, table.water_u.size - 1)
+        vals = ((1 - a) * table.values[:, j] + a * table.values[:, j1])[:, None]
+    t0 = float(np.floor(np.min(curves[:, 0])))
+    n_t = int(np.ceil((np.max(curves) - t0) / _TP_INDEX_STEP_K)) + 2
+    du_table = table.water_u[1] - table.water_u[0] if table.water_u.size > 1 else np.inf
+    par = np.array(
+        [t0, 1.0 / _TP_INDEX_STEP_K, ONSET_STEP_GPA, lay.tp_min_c, 1.0 / lay.tp_step_k,
+         1.0 / lay.pressure_step_gpa, model.calibrated_max_pressure_gpa, u_one, 0.0, 0.0, 0.0,
+         inv_du_curve, 1.0 / du_table, float(model.solidus_c(0.0, 0.0)), 0.0,
+         float(model.pressure_gpa(1.0)), table.top_pressure_max_gpa,
+         model.max_onset_pressure_gpa, np.nan, 0.0, lay.water_max_wt_pct,
+         float(model.hydrous), lay.tp_max_c],
+        float,
+    )  # fmt: skip
+    first = _first_nodes(curves, t0, n_t)
+    inv = np.stack([_inverse(c, f, t0) for c, f in zip(curves, first, strict=True)])
+    if water is None:
+        _check_water_steps(inv, g0, dg, us, u_nodes, t0)
+    cv = np.ascontiguousarray(np.stack([g0, dg, us], axis=1))
+    return par, cv, first, inv, sat, np.ascontiguousarray(vals, dtype=np.float32)
+
+
+def _check_water_steps(inv, g0, dg, us, u_nodes, t0):
+    """Blank (NaN: searched) the inverse table where linear in u errs by over 1e-3 GPa.
+
+    Checked against the exact inverse on the curves halfway between water nodes. For the Katz
+    solidus the error is at most 3.6e-4 GPa (11 m) for Tp 1300-1600 C [derived: this check's
+    own figures]; 1e-3 GPa (31 m) is a seventh of the 0.2 km onset tolerance of
+    tests/test_table.py.
+    """
+    mid_u = 0.5 * (u_nodes[:-1] + u_nodes[1:])
+    mid = g0 + dg * np.minimum(mid_u[:, None], us)
+    n_t = inv.shape[1]
+    first = _first_nodes(mid, t0, n_t)
+    exact = np.stack([_inverse(c, f, t0)[:, 0] for c, f in zip(mid, first, strict=True)])
+    with np.errstate(invalid="ignore"):
+        bad = ~(np.abs(0.5 * (inv[:-1, :, 0] + inv[1:, :, 0]) - exact) <= 1e-3)
+    bad |= np.isnan(exact) & np.isfinite(inv[:-1, :, 0])
+    bad[:, :-1] |= bad[:, 1:]  # a Tp bin uses the node above it too
+    inv[:-1][bad] = np.nan
+    inv[1:][bad] = np.nan
+
+
+def _inverse(curve, first, t0):
+    """(n_t, 2): onset [GPa] at t0 + k dt and its rise to the next k; NaN where not smooth.
+
+    Where the crossing moves by at most two curve nodes from one Tp node to the next, the onset
+    is linear in Tp within 1e-5 GPa [derived: h^2 |P''| / 8 with P'' = -g''/g'^3]; elsewhere
+    (near a tangency, or without a crossing) the kernel searches the curve.
+    """
+    targets = t0 + _TP_INDEX_STEP_K * np.arange(first.size)
+    i = first.astype(np.intp)
+    ok = (i >= 1) & (i < curve.size) & (targets > curve[0])
+    i = np.clip(i, 1, curve.size - 1)
+    ga, gb = curve[i - 1], curve[i]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        p = np.where(ok, (i - 1 + (targets - ga) / (gb - ga)) * ONSET_STEP_GPA, np.nan)
+    smooth = ok[:-1] & ok[1:] & (np.diff(first) <= 2)
+    rise = np.where(smooth, np.diff(p), np.nan)
+    out = np.column_stack([np.where(smooth, p[:-1], np.nan), rise])
+    return np.ascontiguousarray(np.vstack([out, [np.nan, np.nan]]))
+
+
+_CACHE: weakref.WeakKeyDictionary = weakref.WeakKeyDictionary()
+_LOCK = threading.Lock()
+
+
+def _arrays_of(table: MeltTable, water):
+    """:func:`_arrays`, kept per table and water content (thread-safe; 16 water contents)."""
+    key = None if water is None else float(water)
+    with _LOCK:
+        per_table = _CACHE.setdefault(table, {})
+        if key not in per_table:
+            if len(per_table) > 16:
+                per_table.clear()
+            per_table[key] = _arrays(table, key)
+        return per_table[key]
+
+
+# ------------------------------------------------------------------------------------------------
+# the entry point
+# ------------------------------------------------------------------------------------------------
+def _plain(values):
+    """A writable C-contiguous float64 copy or view (one compiled signature for every input)."""
+    arr = np.ascontiguousarray(values, float)
+    return arr if arr.flags.writeable else arr.copy()
+
+
+def _ambient_h(vals, par, ambient_c):
+    """H [km] at the ambient Tp on the table's (water, top pressure) nodes (linear in Tp)."""
+    if not np.isfinite(ambient_c):
+        return np.zeros((vals.shape[1], vals.shape[2]))
+    x = (ambient_c - par[3]) * par[4]
+    i = min(int(x), vals.shape[0] - 2)
+    a = x - i
+    return np.ascontiguousarray((1 - a) * vals[i, :, :, 0] + a * vals[i + 1, :, :, 0], float)
+
+
+_COMPILE = {"seconds": 0.0}
+
+
+def compile_seconds() -> float:
+    """Seconds the first call in this process spent compiling (or loading) the kernel."""
+    return _COMPILE["seconds"]
+
+
+def evaluate_compiled(table, tp, lid, water, *, ambient_c, min_top_km, upwelling, crust_ratio):
+    """Every output of 1-D cells by the compiled kernel, or None where it cannot serve them.
+
+    ``water`` is a float (one water content) or an array like ``tp``; ``upwelling`` a float,
+    an array like ``tp`` or None (no production). Returns (outputs by name as float32 arrays,
+    flag as uint8, mask of the cells left for the numpy path).
+    """
+    if not AVAILABLE:
+        return None
+    lay = table.layout
+    if np.isfinite(ambient_c) and not lay.tp_min_c <= ambient_c <= lay.tp_max_c:
+        return None
+    one = np.ndim(water) == 0
+    if one and not 0.0 <= float(water) <= lay.water_max_wt_pct:
+        return None
+    arrays = _arrays_of(table, float(water) if one else None)
+    if arrays is None:
+        return None
+    par, cv, first, inv, sat, vals = arrays
+    par = par.copy()
+    par[14], par[18], par[19] = min_top_km, ambient_c, crust_ratio
+    tp, lid = _plain(tp), _plain(lid)
+    w = np.array([float(water)]) if one else _plain(water)
+    up = np.array([np.nan if upwelling is None else float(np.ravel(upwelling)[0])])
+    if upwelling is not None and np.size(upwelling) > 1:
+        up = _plain(np.broadcast_to(np.asarray(upwelling, float), tp.shape))
+    out = np.empty((len(ROWS), tp.size), np.float32)
+    flag = np.zeros(tp.size, np.uint8)
+    first_call = _COMPILE["seconds"] == 0.0
+    t = time.perf_counter()
+    amb = _ambient_h(vals, par, ambient_c)
+    slow = _cells(
+        tp, lid, w, 0 if one else 1, up, 0 if up.size == 1 else 1, par, cv, first, inv, sat,
+        vals, amb, out, flag,
+    )  # fmt: skip
+    if first_call:
+        _COMPILE["seconds"] = time.perf_counter() - t
+    names = ROWS if upwelling is not None else ROWS[:-1]
+    return {name: out[k] for k, name in enumerate(names)}, flag, slow
+
+
+def use_compiled(compiled: bool | None) -> bool:
+    """Whether the table path runs compiled; ``compiled=True`` without numba is an error."""
+    if compiled and not AVAILABLE:
+        msg = (
+            "compiled=True asks for the compiled melting kernel, but numba cannot be imported "
+            "here; install numba (a lidmelt dependency) or pass compiled=False (numpy path)."
+        )
+        raise ModelError(msg)
+    return AVAILABLE if compiled is None else bool(compiled)
+
+
+def compiled_cells(table, tp, lid, water, *, ambient, min_top_km, upwelling, crust_ratio, clock,
+              numpy_path):  # fmt: skip
+    """The compiled kernel on broadcast arrays; its left cells by ``numpy_path``; or None.
+
+    ``numpy_path(tp, lid, water, upwelling)`` returns the outputs of 1-D cells by name.
+    """
+    shape = tp.shape
+    t = np.ascontiguousarray(tp).ravel()
+    d = np.ascontiguousarray(lid).ravel()
+    w = water
+    if np.ndim(water):
+        w = np.ascontiguousarray(water).ravel()
+        if w.size and w.min() == w.max():  # one water content (NaN never equals)
+            w = float(w[0])
+    up = upwelling
+    if upwelling is not None and np.ndim(upwelling):
+        up = np.ascontiguousarray(np.broadcast_to(np.asarray(upwelling, float), shape)).ravel()
+    res = evaluate_compiled(
+        table, t, d, w, ambient_c=ambient, min_top_km=float(min_top_km), upwelling=up,
+        crust_ratio=crust_ratio,
+    )  # fmt: skip
+    if res is None:
+        return None
+    out, flag, slow = res
+    out["flag"] = flag
+    n_slow = int(np.count_nonzero(slow))
+    start = time.perf_counter()
+    if n_slow:
+        sub = numpy_path(
+            t[slow], d[slow], w[slow] if np.ndim(w) else w, up[slow] if np.ndim(up) else up
+        )
+        for name, arr in sub.items():
+            out[name][slow] = arr
+    if clock is not None:
+        clock["cells"] = clock.get("cells", 0) + t.size
+        clock["numpy_cells"] = clock.get("numpy_cells", 0) + n_slow
+        clock["numpy_s"] = clock.get("numpy_s", 0.0) + time.perf_counter() - start
+    return {name: arr.reshape(shape) for name, arr in out.items()}

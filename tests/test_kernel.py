@@ -1,0 +1,103 @@
+"""The compiled melting kernel and its numpy fallback, both against the direct integration.
+
+Check values: the direct integration (tests/test_column.py proves it against published values
+and an independent solve_ivp solution) and the table tolerances of tests/test_table.py (0.5 %
+or 0.02 km on melt thickness, 0.2 km on onset depth, 2e-3 on F). The goal that no valid,
+in-range cell leaves the kernel for slow integration is the one of the kernel's issue.
+"""
+
+import numpy as np
+import numpy.testing as npt
+import pytest
+
+from lidmelt.errors import ModelError
+from lidmelt.physics import evaluate_cells, excess_to_melt_k, kernel, melt_column
+from test_table import assert_within_tolerance
+
+compiled_only = pytest.mark.skipif(not kernel.AVAILABLE, reason="numba cannot be imported")
+
+
+def sample(n, seed, water):
+    rng = np.random.default_rng(seed)
+    tp = rng.uniform(1250.0, 1650.0, n)
+    lid = rng.uniform(0.0, 200.0, n)
+    w = rng.uniform(0.0, 0.1, n) if water == "varying" else water
+    return tp, lid, w
+
+
+@pytest.mark.parametrize("compiled", [pytest.param(True, marks=compiled_only), False])
+@pytest.mark.parametrize("water", [0.0, 0.01, "varying"])
+def test_both_paths_equal_direct_within_the_table_tolerance(compiled, water):
+    tp, lid, w = sample(160, 7, water)
+    tp[:3] = [np.nan, 1000.0, 1400.0]  # invalid Tp, Tp below the surface solidus, and a
+    lid[2] = -5.0  # negative lid: flagged alike on every path
+    direct = melt_column(tp, lid, w, method="direct")
+    table = melt_column(tp, lid, w, compiled=compiled)
+    assert_within_tolerance(direct, table)
+    assert np.sum(direct.melt_thickness_km > 0) > 40  # the sample really melts
+
+
+@compiled_only
+@pytest.mark.parametrize("water", [0.0, 0.01, "varying"])
+def test_every_output_of_the_kernel_equals_the_numpy_path(water):
+    tp, lid, w = sample(20000, 3, water)
+    tp[::97] = np.nan
+    lid[5::89] = np.nan
+    common = {"ambient_potential_temperature_c": 1350.0, "upwelling_mm_yr": 30.0}
+    fast = evaluate_cells(tp, lid, w, compiled=True, **common)
+    slow = evaluate_cells(tp, lid, w, compiled=False, **common)
+    assert set(fast) == set(slow)
+    npt.assert_array_equal(fast["flag"], slow["flag"])
+    for name in fast:
+        npt.assert_array_equal(np.isnan(fast[name]), np.isnan(slow[name]), err_msg=name)
+    # the excess to melt is the same curve at the top of melting (exact: excess_to_melt_k)
+    exact = excess_to_melt_k(lid, w, ambient_potential_temperature_c=1350.0)
+    npt.assert_allclose(fast["excess_to_melt_k"], exact, atol=5e-3, equal_nan=True)
+    ok = np.isfinite(slow["melt_thickness_km"])
+    for name in ("melt_thickness_km", "anomaly_melt_thickness_km", "crustal_thickness_km"):
+        a, b = fast[name][ok], slow[name][ok]
+        assert np.all(np.abs(a - b) <= np.maximum(0.01 * np.abs(b), 0.04)), name
+    on = np.isfinite(slow["onset_depth_km"])
+    npt.assert_allclose(fast["onset_depth_km"][on], slow["onset_depth_km"][on], atol=0.2)
+    # the regime differs only where the column just touches the top (H within the tolerance)
+    differ = fast["melting_regime"][ok] != slow["melting_regime"][ok]
+    assert np.all(
+        np.maximum(fast["melt_thickness_km"][ok], slow["melt_thickness_km"][ok])[differ] <= 0.04
+    )
+
+
+@compiled_only
+def test_no_valid_in_range_cell_leaves_the_kernel():
+    # the whole table range the runs use: Tp 1200-1700 C, lid 0-250 km, water 0-0.1 wt%, dry
+    # and at one water content; today's numpy path integrates cells near the tangency directly
+    rng = np.random.default_rng(11)
+    n = 200_000
+    tp, lid = rng.uniform(1200.0, 1700.0, n), rng.uniform(0.0, 250.0, n)
+    for w in (0.0, 0.01, 0.1, rng.uniform(0.0, 0.1, n)):
+        clock = {}
+        evaluate_cells(tp, lid, w, ambient_potential_temperature_c=1350.0, clock=clock)
+        assert clock["cells"] == n
+        assert clock["numpy_cells"] == 0
+
+
+@compiled_only
+def test_cells_outside_the_table_take_the_numpy_path():
+    # Tp 1950 C lies beyond the table's Tp nodes (to 1900 C) and a 450 km top below its
+    # deepest top node (TableLayout): those cells go to the numpy path, the rest stay
+    tp = np.array([1950.0, 1400.0, 1900.0, 1450.0])
+    lid = np.array([30.0, 30.0, 450.0, 60.0])
+    clock = {}
+    fast = evaluate_cells(tp, lid, 0.0, ambient_potential_temperature_c=1350.0, clock=clock)
+    slow = evaluate_cells(tp, lid, 0.0, ambient_potential_temperature_c=1350.0, compiled=False)
+    assert clock["numpy_cells"] == 2
+    npt.assert_array_equal(fast["flag"], slow["flag"])
+    npt.assert_allclose(fast["melt_thickness_km"], slow["melt_thickness_km"], rtol=1e-5)
+
+
+def test_without_numba_the_numpy_path_runs_and_compiled_true_says_why(monkeypatch):
+    monkeypatch.setattr(kernel, "AVAILABLE", False)
+    out = evaluate_cells([1450.0], [40.0], 0.01, ambient_potential_temperature_c=1350.0)
+    assert out["excess_to_melt_k"].dtype == np.float64  # the numpy path's dtype
+    assert out["melt_thickness_km"][0] > 0
+    with pytest.raises(ModelError, match=r"numba cannot be imported.*compiled=False"):
+        evaluate_cells([1450.0], [40.0], ambient_potential_temperature_c=1350.0, compiled=True)
