@@ -44,7 +44,7 @@ __all__ = [
     "table_key",
 ]
 
-TABLE_FORMAT = 1
+TABLE_FORMAT = 2
 _ARRAYS = ("tp_c", "water_u", "pressure_gpa", "onset_gpa", "values")
 WATER_EXPONENT = 0.75  # the water coordinate u = water^0.75 (Katz et al. 2003 gamma)
 # Step of the direct integration for the few cells the table cannot do: 0.04 GPa changes melt
@@ -71,7 +71,7 @@ class TableLayout:
     water_max_wt_pct: float = 0.1
     water_nodes: int = 11
     pressure_step_gpa: float = 0.02
-    integration_step_gpa: float = 0.01
+    integration_step_gpa: float = 0.02
     top_pressure_max_gpa: float = 13.0
 
 
@@ -128,7 +128,9 @@ class MeltTable:
             record_nodes=(n_p - 1) * ratio + 1,
         )
         keys = ("node_melt_thickness_km", "node_melt_fraction", "node_int_p_df_gpa")
-        values = np.stack([rec[k][:, ::ratio] for k in keys], axis=-1)
+        values = np.empty((n_tp * layout.water_nodes, n_p, 3), np.float32)
+        for k, key in enumerate(keys):
+            values[..., k] = rec[key][:, ::ratio]
         values = values.reshape(n_tp, layout.water_nodes, n_p, 3)
         values[~np.isfinite(onset)] = np.nan
         arrays = {
@@ -136,7 +138,7 @@ class MeltTable:
             "water_u": water_u,
             "pressure_gpa": pressure,
             "onset_gpa": onset,
-            "values": values.astype(np.float32),
+            "values": values,
         }
         return cls(model, layout, arrays)
 
