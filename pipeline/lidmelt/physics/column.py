@@ -81,7 +81,10 @@ def onset_pressure_gpa(model: MeltingModel, potential_temperature_c, water_wt_pc
     for start in range(0, flat_tp.size, _BLOCK // 4):
         sl = slice(start, start + _BLOCK // 4)
         t, ww = flat_tp[sl, None], flat_w[sl, None]
-        excess = model.solid_adiabat_c(t, grid[None, :]) - model.solidus_c(grid[None, :], ww)
+        # the solidus on the grid depends on the water only: once per distinct water content
+        waters, which = np.unique(ww[:, 0], return_inverse=True)
+        solidus = model.solidus_c(grid[None, :], waters[:, None])[which]
+        excess = model.solid_adiabat_c(t, grid[None, :]) - solidus
         below = excess <= 0.0
         below[:, 0] = False
         has = below.any(axis=1) & (excess[:, 0] > 0.0)
@@ -284,6 +287,7 @@ def integrate_columns(
     *,
     step_gpa=DEFAULT_PRESSURE_STEP_GPA,
     record_nodes=None,
+    deep_step_gpa=None,
 ):
     """Integrate 1-D arrays of columns from their onset ``p_onset`` up to ``p_top`` [GPa].
 
@@ -295,6 +299,9 @@ def integrate_columns(
     record_nodes : int, optional
         If given, also return the state at every pressure node ``j * step_gpa`` for
         j < ``record_nodes`` (zeros below the onset), as arrays of shape (n, record_nodes).
+    deep_step_gpa : float, optional
+        With ``record_nodes``: below the deepest recorded node, the nodes (and steps) are
+        ``deep_step_gpa`` apart instead of ``step_gpa``.
 
     Returns
     -------
@@ -322,7 +329,14 @@ def integrate_columns(
     if melts.any():
         idx = np.flatnonzero(melts)
         t_k[idx], f[idx], h_km[idx], g[idx] = _march(
-            model, p_on[idx], p_top[idx], water[idx], t_k[idx], step_gpa, rows=idx, rec=rec
+            model,
+            p_on[idx],
+            p_top[idx],
+            water[idx],
+            t_k[idx],
+            _Nodes(step_gpa, deep_step_gpa, None if record_nodes is None else record_nodes - 1),
+            rows=idx,
+            rec=rec,
         )
     out = {
         "melt_thickness_km": h_km,
@@ -352,7 +366,34 @@ def _advance(model, now, p_next, water, km_per_gpa, substeps=1):
     return now
 
 
-def _march(model, p_on, p_top, water, t_k, step_gpa, *, rows, rec):
+class _Nodes:
+    """Pressure nodes j * ``step`` [GPa]; beyond node ``deep_from``, ``deep_step`` apart."""
+
+    def __init__(self, step, deep_step=None, deep_from=None):
+        self.step = step
+        self.deep_step = step if deep_step is None or deep_from is None else deep_step
+        self.deep_from = np.iinfo(np.int64).max // 4 if deep_from is None else int(deep_from)
+        self.deep_p = self.deep_from * step
+
+    def pressure(self, j):
+        """Pressure [GPa] of node(s) ``j``."""
+        if np.ndim(j) == 0 and j <= self.deep_from:
+            return j * self.step
+        return np.where(
+            j <= self.deep_from, j * self.step, self.deep_p + (j - self.deep_from) * self.deep_step
+        )
+
+    def first_above(self, p):
+        """Index of the first node strictly shallower than ``p`` [GPa]."""
+        first = np.ceil(p / self.step - 1.0 - 1e-9).astype(np.int64)
+        deep = first > self.deep_from
+        if deep.any():
+            extra = np.ceil((p[deep] - self.deep_p) / self.deep_step - 1.0 - 1e-9)
+            first[deep] = self.deep_from + extra.astype(np.int64)
+        return first
+
+
+def _march(model, p_on, p_top, water, t_k, nodes, *, rows, rec):
     """Step melting columns (1-D, ``p_on > p_top``) from the onset temperature ``t_k`` to the top.
 
     Returns (T [K], F, H [km], integral of P dF [GPa]) at ``p_top``. With ``rec``, the state at
@@ -368,13 +409,14 @@ def _march(model, p_on, p_top, water, t_k, step_gpa, *, rows, rec):
     """
     km_per_gpa = float(model.depth_km(1.0))
     # the first node strictly shallower than the onset
-    first = np.ceil(p_on / step_gpa - 1.0 - 1e-9).astype(np.int64)
+    first = nodes.first_above(p_on)
+    step_gpa = nodes.step
     state = [p_on.copy(), t_k.copy(), *np.zeros((3, p_on.size)), *np.full((2, p_on.size), np.nan)]
     out = [t_k.copy(), *np.zeros((3, p_on.size))]
     going = np.flatnonzero(first >= 1)
     for k in range(_START_STEPS):
         going = going[first[going] - k >= 1]
-        p_next = np.maximum((first[going] - k) * step_gpa, p_top[going])
+        p_next = np.maximum(nodes.pressure(first[going] - k), p_top[going])
         now = _advance(model, [a[going] for a in state], p_next, water[going], km_per_gpa)
         for a, b in zip(state, now, strict=True):
             a[going] = b
@@ -400,7 +442,7 @@ def _march(model, p_on, p_top, water, t_k, step_gpa, *, rows, rec):
             new = order[start:joined]
             live = np.concatenate([live, new])
             now = [np.concatenate([a, b[new]]) for a, b in zip(now, state, strict=True)]
-        p_next = np.maximum(j * step_gpa, p_top[live])
+        p_next = np.maximum(nodes.pressure(j), p_top[live])
         sub = _SURFACE_SUBSTEPS if j == 0 else 1
         now = _advance(model, now, p_next, water[live], km_per_gpa, sub)
         if rec is not None:

@@ -73,6 +73,7 @@ class TableLayout:
     pressure_step_gpa: float = 0.02
     integration_step_gpa: float = 0.02
     top_pressure_max_gpa: float = 13.0
+    deep_integration_step_gpa: float = 0.1
 
 
 def table_key(model: MeltingModel, layout: TableLayout) -> str:
@@ -126,6 +127,7 @@ class MeltTable:
             0.0,
             step_gpa=layout.integration_step_gpa,
             record_nodes=(n_p - 1) * ratio + 1,
+            deep_step_gpa=layout.deep_integration_step_gpa,
         )
         keys = ("node_melt_thickness_km", "node_melt_fraction", "node_int_p_df_gpa")
         values = np.empty((n_tp * layout.water_nodes, n_p, 3), np.float32)
