@@ -23,8 +23,9 @@ form,
 (second order in the step, the trapezoid rule for the abar term) and is solved for F1 by
 bracketing; :meth:`MeltingModel.temperature_c` is explicit in F, so the hydrous law needs no
 inner iteration and the kinks at the solidus and at cpx exhaustion need no derivatives. Steps
-fall on a fixed pressure grid (plus one partial step from the onset and one to the top); a test
-proves convergence in the step.
+fall on a fixed pressure grid (plus one partial step from the onset and one to the top, the
+interval to a top within one step of the surface in four substeps); a test proves convergence in
+the step. All columns step together, node by node (:func:`integrate_columns`).
 
 References
 ----------
@@ -56,6 +57,7 @@ _SEARCH_STEP_GPA = 0.05
 _BLOCK = 8192
 _START_STEPS = 3  # steps from the onset taken for all columns together (see _march)
 _SURFACE_SUBSTEPS = 4  # steps in the interval from the first node to the surface (see _march)
+_SCAN_BELOW = 16  # columns left in a root solve from which their brackets are scanned (_step)
 
 
 # ------------------------------------------------------------------------------------------------
@@ -210,14 +212,37 @@ def _bracket(bal, guess, slope):
     return lo, hi, h_lo, h_hi
 
 
+def _scan(bal, lo, hi, h_lo, h_hi, points=32):
+    """h at ``points`` equally spaced inside each bracket, in one call.
+
+    Returns the sub-bracket that holds the root (h increases with F) with h at its ends, and
+    the scanned point of least |h| with h and T there.
+    """
+    n = lo.size
+    x = lo[:, None] + (hi - lo)[:, None] * (np.arange(1, points + 1) / (points + 1))
+    h, t = bal.take(np.repeat(np.arange(n), points))(x.ravel())
+    h, t = h.reshape(n, points), t.reshape(n, points)
+    rows = np.arange(n)
+    above = h > 0.0
+    k = np.where(above.any(axis=1), above.argmax(axis=1), points)  # first point above the root
+    below, first = np.maximum(k - 1, 0), np.minimum(k, points - 1)
+    new_lo = np.where(k > 0, x[rows, below], lo)
+    new_h_lo = np.where(k > 0, h[rows, below], h_lo)
+    new_hi = np.where(k < points, x[rows, first], hi)
+    new_h_hi = np.where(k < points, h[rows, first], h_hi)
+    best = np.argmin(np.abs(h), axis=1)
+    return new_lo, new_hi, new_h_lo, new_h_hi, x[rows, best], h[rows, best], t[rows, best]
+
+
 def _step(model, p0, t0_k, f0, p1, water, guess=None, slope=None):
     """Advance (p0, t0_k, f0) to pressure p1 along the isentrope; return (t1_k, f1, slope).
 
     Solves h(F) = c_p ln(T(p1, F)/t0) - abar((f0 + F)/2)(p1 - p0) + dS (F - f0) = 0, which
     increases with F, by the Anderson-Bjorck variant of regula falsi on a bracket in [0, 1]
     (:func:`_bracket`; ``guess`` and the ``slope`` dh/dF of the previous step, NaN where none,
-    start it). Each column iterates until |h| < 1e-9 J kg^-1 K^-1 or its bracket is narrower
-    than 1e-13, whatever the starting bracket. The ``slope`` returned is the secant of h over
+    start it; when few columns are left, their brackets are narrowed by :func:`_scan`). Each
+    column iterates until |h| < 1e-9 J kg^-1 K^-1 or its bracket is narrower than 1e-13,
+    whatever the starting bracket. The ``slope`` returned is the secant of h over
     the last two iterates (NaN where the column did not iterate), for the next step.
     """
     bal = _Balance(model, p0, t0_k, f0, p1, water)
@@ -232,27 +257,38 @@ def _step(model, p0, t0_k, f0, p1, water, guess=None, slope=None):
     lo, hi, h_lo, h_hi = lo[act], hi[act], h_lo[act], h_hi[act]
     last, h_last = lo, h_lo
     was_pos = was_neg = np.zeros(act.shape, bool)  # which end the last iterate replaced
-    for _ in range(60):
+    for it in range(60):
         if act.size == 0:
             break
-        denom = h_hi - h_lo
-        with np.errstate(invalid="ignore", divide="ignore"):
-            fa = np.where(denom > 0.0, hi - h_hi * (hi - lo) / denom, 0.5 * (lo + hi))
-        fa = np.minimum(np.maximum(fa, lo), hi)
-        hf, tf = sub(fa)
-        pos = hf > 0.0
-        # Anderson-Bjorck: when the same end is replaced twice running, scale the value at the
-        # end kept by m = 1 - h(new)/h(replaced end), or by 1/2 where m <= 0
-        with np.errstate(invalid="ignore", divide="ignore"):
-            m = 1.0 - hf / np.where(pos, h_hi, h_lo)
-            dhdf[act] = (hf - h_last) / (fa - last)
-        m = np.where(m > 0.0, m, 0.5)
-        neg = ~pos
-        h_lo = np.where(pos & was_pos, m * h_lo, h_lo)
-        h_hi = np.where(neg & was_neg, m * h_hi, h_hi)
-        hi, h_hi = np.where(pos, fa, hi), np.where(pos, hf, h_hi)
-        lo, h_lo = np.where(pos, lo, fa), np.where(pos, h_lo, hf)
-        f[act], t1[act], last, h_last, was_pos, was_neg = fa, tf, fa, hf, pos, neg
+        if it in (2, 4) and act.size <= _SCAN_BELOW:
+            # at the 3rd and 5th iterate, the few columns left (a kink of the melting law in
+            # the bracket slows regula falsi down) get one call that scans their brackets,
+            # instead of several calls one after the other
+            lo, hi, h_lo, h_hi, fa, hf, tf = _scan(sub, lo, hi, h_lo, h_hi)
+            with np.errstate(invalid="ignore", divide="ignore"):
+                dhdf[act] = (h_hi - h_lo) / (hi - lo)
+            was_pos = was_neg = np.zeros(act.shape, bool)
+            last, h_last = fa, hf
+        else:
+            denom = h_hi - h_lo
+            with np.errstate(invalid="ignore", divide="ignore"):
+                fa = np.where(denom > 0.0, hi - h_hi * (hi - lo) / denom, 0.5 * (lo + hi))
+            fa = np.minimum(np.maximum(fa, lo), hi)
+            hf, tf = sub(fa)
+            pos = hf > 0.0
+            # Anderson-Bjorck: when the same end is replaced twice running, scale the value at
+            # the end kept by m = 1 - h(new)/h(replaced end), or by 1/2 where m <= 0
+            with np.errstate(invalid="ignore", divide="ignore"):
+                m = 1.0 - hf / np.where(pos, h_hi, h_lo)
+                dhdf[act] = (hf - h_last) / (fa - last)
+            m = np.where(m > 0.0, m, 0.5)
+            neg = ~pos
+            h_lo = np.where(pos & was_pos, m * h_lo, h_lo)
+            h_hi = np.where(neg & was_neg, m * h_hi, h_hi)
+            hi, h_hi = np.where(pos, fa, hi), np.where(pos, hf, h_hi)
+            lo, h_lo = np.where(pos, lo, fa), np.where(pos, h_lo, hf)
+            last, h_last, was_pos, was_neg = fa, hf, pos, neg
+        f[act], t1[act] = fa, tf
         going = ((hi - lo) >= 1e-13) & (np.abs(hf) >= 1e-9)  # NaN (no melting law) stops too
         if not going.all():
             act, lo, hi, h_lo, h_hi, last, h_last, was_pos, was_neg = (

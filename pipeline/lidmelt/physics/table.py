@@ -63,6 +63,10 @@ class TableLayout:
     ``top_pressure_max_gpa`` = 13 GPa (a 401 km lid, beyond the 400 km the lid inputs accept);
     onsets may lie deeper (down to the model's ``max_onset_pressure_gpa``), and cells with a
     deeper top are integrated directly.
+
+    Columns are integrated in steps of ``integration_step_gpa`` at the nodes and of
+    ``deep_integration_step_gpa`` below the deepest node, where nothing is recorded; against
+    steps of 0.005 GPa both change node values by < 1e-3 km (tests/test_table.py).
     """
 
     tp_min_c: float = 1100.0
