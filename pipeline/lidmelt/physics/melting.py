@@ -22,7 +22,6 @@ References
 from __future__ import annotations
 
 import dataclasses
-import functools
 from dataclasses import dataclass, field
 from typing import Any, ClassVar
 
@@ -45,19 +44,6 @@ def _bisect_increasing(func, lo, hi, target, *, iterations=60):
         hi = np.where(above, mid, hi)
         lo = np.where(above, lo, mid)
     return 0.5 * (lo + hi)
-
-
-@functools.lru_cache(maxsize=8)
-def _reduced_grid(a0: float, a1: float) -> tuple[np.ndarray, np.ndarray]:
-    """T' on 2001 nodes of [-0.5, 0.5] and F(T') there (McKenzie & Bickle 1988, from memory).
-
-    The start of the inversion in :meth:`McKenzieBickleModel._reduced_of_fraction`, made once
-    per pair of coefficients (the same expression as ``melt_fraction_of_reduced``).
-    """
-    grid = np.linspace(-0.5, 0.5, 2001)
-    fractions = 0.5 + grid + (grid * grid - 0.25) * (a0 + a1 * grid)
-    grid.flags.writeable = fractions.flags.writeable = False
-    return grid, fractions
 
 
 #: Ranges a parameter of :class:`MeltingModel` may take (inclusive). Sanity bounds, not
@@ -490,13 +476,8 @@ class McKenzieBickleModel(MeltingModel):
     fraction_a1: float = 2.988
 
     def solidus_dry_c(self, pressure_gpa):
-        """Dry solidus T_s(P) [deg C]: the root of the implicit form, by Newton's method.
-
-        With x = T_s - s0, P(x) = x/s1 + s2 exp(s3 x) increases and is convex in x, so Newton's
-        method started above the root decreases monotonically to it. Each term alone bounds x
-        from above: s1 P, and ln(P/s2)/s3 where P > s2 [derived]. Steps until the last one is
-        below 1e-9 K (the bisection this replaced resolved 1e-12 K; the answers agree to that).
-        """
+        """Dry solidus T_s(P) [deg C]: x = T_s - s0 solves x/s1 + s2 exp(s3 x) = P (increasing,
+        convex), by Newton's method from above (s1 P, ln(P/s2)/s3 bound x) [derived]."""
         p = np.asarray(pressure_gpa, float)
         s1, s2, s3 = self.solidus_s1_c_gpa, self.solidus_s2_gpa, self.solidus_s3_per_c
         with np.errstate(divide="ignore", invalid="ignore"):
@@ -525,7 +506,10 @@ class McKenzieBickleModel(MeltingModel):
 
     def _reduced_of_fraction(self, f):
         """Invert F(T') on [-0.5, 0.5] (monotone): a table guess, then Newton steps."""
-        grid, fractions = _reduced_grid(self.fraction_a0, self.fraction_a1)
+        if "_grid" not in self.__dict__:  # made once per model (frozen: kept in __dict__)
+            grid = np.linspace(-0.5, 0.5, 2001)
+            self.__dict__["_grid"] = (grid, self.melt_fraction_of_reduced(grid))
+        grid, fractions = self.__dict__["_grid"]
         tr = np.interp(f, fractions, grid)
         a0, a1 = self.fraction_a0, self.fraction_a1
         for _ in range(3):
