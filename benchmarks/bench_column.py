@@ -1,7 +1,8 @@
 """Speed of the melting column: table path, direct vectorized integration, naive solve_ivp loop.
 
-Prints cells per second on one thread for each, and the ratios; the table is evaluated in
-chunks of 1024 x 1024 cells, as a basin run does. Run:
+Prints the table build time of every registered melting model, then cells per second on one
+thread for each path, and the ratios; the table is evaluated in chunks of 1024 x 1024 cells,
+as a basin run does. Run:
 
     .venv/bin/python benchmarks/bench_column.py [--cells 8388608] [--kernel-cells 4194304]
 
@@ -38,14 +39,15 @@ def main() -> None:
     args = parser.parse_args()
     os.environ.setdefault("LIDMELT_CACHE_DIR", tempfile.mkdtemp(prefix="lidmelt-bench-"))
 
-    from lidmelt.physics import evaluate_cells, get_table, melt_column
+    from lidmelt.physics import MODELS, evaluate_cells, get_model, get_table, melt_column
     from lidmelt.physics.kernel import AVAILABLE, compile_seconds
     from lidmelt.physics.reference import solve_ivp_column
     from lidmelt.physics.table import MeltTable
 
-    t = time.perf_counter()
-    MeltTable.build(get_table().model)
-    print(f"table build (katz2003): {time.perf_counter() - t:.1f} s", flush=True)
+    for name in MODELS:  # every registered melting model, at its published parameters
+        t = time.perf_counter()
+        MeltTable.build(get_model(name))
+        print(f"table build ({name}): {time.perf_counter() - t:.2f} s", flush=True)
     table = get_table()
     if AVAILABLE:  # before any other call, so that this one compiles (or loads numba's cache)
         t = time.perf_counter()

@@ -186,3 +186,19 @@ def test_cache_size_limit_evicts_the_least_recently_used(tmp_path, monkeypatch, 
     monkeypatch.setenv("LIDMELT_CACHE_MAX_MB", "lots")
     assert main(["cache"]) == 1
     assert "LIDMELT_CACHE_MAX_MB = 'lots'" in capsys.readouterr().err
+
+
+def test_table_steps_are_converged_including_the_deep_coarse_steps():
+    # identity of the integration: the table's steps (integration_step_gpa at the nodes,
+    # deep_integration_step_gpa below the deepest top node) give the same node values as steps
+    # of 0.005 GPa everywhere, to 5 % of the table tolerance (0.02 km on H). Tp 1750-1900 C puts
+    # onsets below 13 GPa (Tp 1900 C dry: 17.5 GPa, derived in test_outside_the_table...).
+    layout = TableLayout(tp_min_c=1750.0, tp_max_c=1900.0, tp_step_k=50.0, water_nodes=2)
+    fine = TableLayout(
+        **{**layout.__dict__, "integration_step_gpa": 0.005, "deep_integration_step_gpa": 0.005}
+    )
+    model = get_model("katz2003")
+    coarse_t, fine_t = MeltTable.build(model, layout), MeltTable.build(model, fine)
+    assert np.nanmax(coarse_t.onset_gpa) > 15.0  # the deep coarse steps are really taken
+    npt.assert_allclose(coarse_t.values[..., 0], fine_t.values[..., 0], atol=1e-3)
+    npt.assert_allclose(coarse_t.values[..., 1], fine_t.values[..., 1], atol=1e-5)

@@ -476,19 +476,19 @@ class McKenzieBickleModel(MeltingModel):
     fraction_a1: float = 2.988
 
     def solidus_dry_c(self, pressure_gpa):
-        """Dry solidus T_s(P) [deg C], by bisection of the implicit form (increasing in T_s)."""
+        """Dry solidus T_s(P) [deg C]: x = T_s - s0 solves x/s1 + s2 exp(s3 x) = P (increasing,
+        convex), by Newton's method from above (s1 P, ln(P/s2)/s3 bound x) [derived]."""
         p = np.asarray(pressure_gpa, float)
-
-        def pressure_of(ts):
-            return (ts - self.solidus_s0_c) / self.solidus_s1_c_gpa + self.solidus_s2_gpa * np.exp(
-                self.solidus_s3_per_c * (ts - self.solidus_s0_c)
-            )
-
-        lo = np.full(p.shape, self.solidus_s0_c - 200.0)
-        hi = np.full(
-            p.shape, self.solidus_s0_c + self.solidus_s1_c_gpa * np.maximum(p, 0.0) + 200.0
-        )
-        return _bisect_increasing(pressure_of, lo, hi, p, iterations=50)
+        s1, s2, s3 = self.solidus_s1_c_gpa, self.solidus_s2_gpa, self.solidus_s3_per_c
+        with np.errstate(divide="ignore", invalid="ignore"):
+            x = np.minimum(s1 * p, np.where(p > s2, np.log(p / s2) / s3, np.inf))
+        for _ in range(100):
+            e = s2 * np.exp(s3 * x)
+            step = (x / s1 + e - p) / (1.0 / s1 + s3 * e)
+            x = x - step
+            if not np.any(np.abs(step) > 1e-9):
+                break
+        return self.solidus_s0_c + x
 
     def liquidus_dry_c(self, pressure_gpa):
         """Dry liquidus T_l(P) [deg C]."""
@@ -506,8 +506,11 @@ class McKenzieBickleModel(MeltingModel):
 
     def _reduced_of_fraction(self, f):
         """Invert F(T') on [-0.5, 0.5] (monotone): a table guess, then Newton steps."""
-        grid = np.linspace(-0.5, 0.5, 2001)
-        tr = np.interp(f, self.melt_fraction_of_reduced(grid), grid)
+        if "_grid" not in self.__dict__:  # made once per model (frozen: kept in __dict__)
+            grid = np.linspace(-0.5, 0.5, 2001)
+            self.__dict__["_grid"] = (grid, self.melt_fraction_of_reduced(grid))
+        grid, fractions = self.__dict__["_grid"]
+        tr = np.interp(f, fractions, grid)
         a0, a1 = self.fraction_a0, self.fraction_a1
         for _ in range(3):
             slope = 1.0 + 2.0 * tr * (a0 + a1 * tr) + a1 * (tr * tr - 0.25)
