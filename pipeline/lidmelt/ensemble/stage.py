@@ -225,7 +225,8 @@ def run_ensemble_stage(context: StageContext) -> tuple[list[Path], dict[str, Any
         tags = {**context.tags, "variable": name, "units": var.units}
         path = context.run_dir / rundir.output_file(name)
         items.append(GeoTiffItem(template, path, var.long_name, var.units, tags))
-    with GeoTiffSet(items, cog=True) as out:
+    # the run reads every file back before it is sealed (rundir.seal_run): no read-back here
+    with GeoTiffSet(items, cog=cfg.outputs.cloud_optimized, verify=False) as out:
         totals = _compute_rows(context, plan, group_arrays, out.write_rows) * QUANTUM
     files = [item.path for item in items]
     files.append(write_text_atomic(context.run_dir / MEMBERS_FILE, _members_csv(ens, totals)))

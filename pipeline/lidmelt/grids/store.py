@@ -4,8 +4,9 @@ The outputs of a run come from one kernel per chunk. Writing them one file at a 
 recompute the kernel once per file; :class:`GeoTiffSet` opens every destination (at temporary
 paths from :func:`lidmelt.files.atomic_paths`), lets the caller run a single :func:`dask.compute`
 that stores every output and evaluates any reductions (summary statistics) in the same pass, then
-sets the metadata, converts to Cloud-Optimized layout and only then renames the files into place.
-On any error every temporary file is removed and no file is written under its final name.
+sets the metadata, converts to Cloud-Optimized layout (when asked: a second full pass over every
+file) and only then renames the files into place. On any error every temporary file is removed
+and no file is written under its final name.
 """
 
 from __future__ import annotations
@@ -66,12 +67,17 @@ class GeoTiffSet:
 
     Creation options are :func:`lidmelt.grids.geotiff.gtiff_profile`'s (512 x 512 tiles,
     ZSTD level 1, predictor 3 for floats and 2 for integers, BIGTIFF=IF_SAFER); each file has its
-    own lock, so chunks of different outputs are written concurrently.
+    own lock, so chunks of different outputs are written concurrently. ``cog`` copies each
+    finished file to Cloud-Optimized layout (overviews; a second full pass over the file).
+    ``verify`` reads every finished file back before it is renamed into place; a caller that
+    reads them back later anyway (a run: :func:`lidmelt.grids.rundir.seal_run`, before the run
+    is swapped into place) passes False and spares a full pass.
     """
 
-    def __init__(self, items: list[GeoTiffItem], *, cog: bool = True) -> None:
+    def __init__(self, items: list[GeoTiffItem], *, cog: bool = True, verify: bool = True) -> None:
         self.items = items
         self.cog = cog
+        self.verify = verify
         self._windows: list[BandWindows] = []  # each open file, with its lock
         self._finals: list[Path] = []  # temporary paths renamed onto the items' paths
         self._staged: list[Path] = []  # where each tiled GTiff is written
@@ -104,6 +110,7 @@ class GeoTiffSet:
         band_rows: int | None = None,
         num_workers: int | None = None,
         report: Callable[[int, int], None] | None = None,
+        scheduler: Any = "threads",
     ) -> list[list[Any]]:
         """Store every item band by band, computing ``extra(rows)`` with each band.
 
@@ -112,6 +119,10 @@ class GeoTiffSet:
         returns, so shared inputs are computed once and at most one band of chunks is held in
         memory, whatever the grid size. Returns the computed ``extra`` of every band;
         ``report(done, total)`` is called after each band.
+
+        ``scheduler`` is dask's: with local threads (the default) the dask threads write the
+        blocks into the open files; with any other (e.g. a dask.distributed ``Client.get``)
+        each band's blocks are computed there and written here.
         """
         import dask
         import dask.array as dsa
@@ -132,16 +143,24 @@ class GeoTiffSet:
         height = self.items[0].da.sizes["y"]
         step = height if not band_rows else max(TILE, band_rows // TILE * TILE)
         bands = [slice(r, min(r + step, height)) for r in range(0, height, step)]
+        local = scheduler in (None, "threads")
         results = []
-        with dask.config.set(scheduler="threads", num_workers=num_workers):
+        with dask.config.set(scheduler="threads" if local else scheduler, num_workers=num_workers):
             for k, rows in enumerate(bands):
                 parts = [src[rows] for src in sources]
                 shifted = [t.shifted(rows.start) for t in targets]
-                delayed = dsa.store(parts, shifted, lock=False, compute=False) if parts else None
+                extras = extra(rows) if extra else []
                 with warnings.catch_warnings():  # all-NaN bands (land) have NaN min/max
                     warnings.simplefilter("ignore", RuntimeWarning)
-                    done = dask.compute(delayed, *(extra(rows) if extra else []))
-                results.append(list(done[1:]))
+                    if local:
+                        stored = dsa.store(parts, shifted, lock=False, compute=False)
+                        done = dask.compute(stored if parts else None, *extras)[1:]
+                    else:
+                        done = dask.compute(*parts, *extras)
+                        for target, block in zip(shifted, done[: len(parts)], strict=True):
+                            target[slice(0, block.shape[0]), slice(0, block.shape[1])] = block
+                        done = done[len(parts) :]
+                results.append(list(done))
                 if report:
                     report(k + 1, len(bands))
         return results
@@ -185,7 +204,8 @@ class GeoTiffSet:
         for item, staged, tmp, meta in zip(
             self.items, self._staged, self._finals, metas, strict=True
         ):
-            publish(staged, tmp, integer=np.dtype(item.dtype).kind in "iu", **meta)
+            integer = np.dtype(item.dtype).kind in "iu"
+            publish(staged, tmp, integer=integer, verify=self.verify, **meta)
 
     def _abort(self, exc_type: Any, exc: BaseException | None, tb: Any) -> None:
         """Close the files and remove every temporary file (no final file is written)."""
