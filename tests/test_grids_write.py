@@ -20,7 +20,7 @@ from pyproj import CRS
 
 from lidmelt.errors import GridError, InputError
 from lidmelt.grids import write as write_module
-from lidmelt.grids.geotiff import tile_aligned
+from lidmelt.grids.geotiff import check_blocks, tile_aligned
 from lidmelt.grids.grid import Grid
 from lidmelt.grids.io import open_grid
 from lidmelt.grids.store import GeoTiffItem, GeoTiffSet
@@ -352,6 +352,58 @@ def test_geotiff_set_writes_every_file_in_one_pass(tmp_path, cog):
         assert src.nodata == 255
         assert src.read(1)[0, 0] == 255
         assert src.read(1)[0, 1] == 1
+
+
+def test_geotiff_set_on_another_scheduler_writes_the_same_files(tmp_path):
+    """``compute(scheduler=...)`` other than local threads computes each band there and writes
+    it here: the files equal the threaded ones; ``verify=False`` still checks the structure."""
+    t = Grid.from_extent(0, 60, 0, 40, 0.05)  # 800 x 1200: two bands of 512 rows
+    values = ramp(t)
+    lazy = grid(t, values).chunk(512)
+    got = {}
+    for scheduler in ("threads", "sync"):
+        items = [
+            GeoTiffItem(lazy, tmp_path / scheduler / "a.tif", "melt", "km"),
+            GeoTiffItem(lazy + 1, tmp_path / scheduler / "b.tif", "plus one", "km"),
+        ]
+        with GeoTiffSet(items, cog=False, verify=False) as out:
+            sums = out.compute(
+                extra=lambda rows: [lazy[rows].sum()], band_rows=512, scheduler=scheduler
+            )
+        got[scheduler] = [s[0] for s in sums]
+        with rasterio.open(tmp_path / scheduler / "a.tif") as src:
+            npt.assert_array_equal(src.read(1), values)
+        with rasterio.open(tmp_path / scheduler / "b.tif") as src:
+            npt.assert_array_equal(src.read(1), values + 1)
+    # check values: the sum of each band of rows, computed here with numpy (NaN left out)
+    npt.assert_allclose(got["sync"], [np.nansum(values[:512]), np.nansum(values[512:])], rtol=1e-6)
+    assert got["sync"] == got["threads"]
+
+
+@pytest.mark.parametrize("cog", [False, True])
+def test_check_blocks_finds_a_cut_off_file(tmp_path, cog):
+    """A whole GeoTIFF passes; one cut one byte short of its last block, or empty, is an
+    OSError naming it (the COG's header comes first, so there the block check finds it)."""
+    t = Grid.from_extent(0, 60, 0, 40, 0.05)
+    path = write_geotiff(grid(t, ramp(t)), tmp_path / "r.tif", description="ramp", units="1",
+                         cog=cog)  # fmt: skip
+    check_blocks(path)
+    with rasterio.open(path) as src:  # where the block data end (GDAL's TIFF block metadata)
+        end = max(
+            int(src.get_tag_item(f"BLOCK_OFFSET_{c}_{r}", "TIFF", bidx=1))
+            + int(src.get_tag_item(f"BLOCK_SIZE_{c}_{r}", "TIFF", bidx=1))
+            for r in range(2)
+            for c in range(3)
+        )
+    whole = path.read_bytes()
+    assert end <= len(whole)
+    path.write_bytes(whole[: end - 1])
+    with pytest.raises(OSError, match="missing" if cog else r"r\.tif"):
+        check_blocks(path)
+    path.write_bytes(b"")
+    with pytest.raises(OSError, match="empty") as err:
+        check_blocks(path)
+    assert err.value.filename == str(path)
 
 
 def test_geotiff_set_error_writes_no_file(tmp_path):

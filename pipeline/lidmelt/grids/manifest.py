@@ -5,8 +5,9 @@ A run records in ``summary.json`` a ``manifest`` {``files`` {relative name: {``s
 ``report.html``, ``report.pdf``: derived products that ``lidmelt map`` and ``lidmelt report``
 may redraw in place at any time, so they live outside the manifest), and ``summary_sha256``, the
 SHA-256 of the summary's canonical JSON (sorted keys, no blanks) without that key. Before a run
-is swapped into place, :func:`check_written` reads every file back (each GeoTIFF block by block,
-the NetCDF variable by variable in row bands, the JSON parsed); before any product reads a run,
+is swapped into place, :func:`check_written` checks every file (each GeoTIFF's blocks lie inside
+the file, the flag grid read back completely, the NetCDF read variable by variable in row bands,
+the JSON parsed) and the manifest's SHA-256 reads every byte; before any product reads a run,
 :func:`verify_manifest` checks sizes, checksums and the summary's own checksum, so a mixed,
 truncated or tampered folder is refused with a message instead of being read.
 """
@@ -25,6 +26,7 @@ from typing import Any
 import numpy as np
 
 from lidmelt.errors import RunDirError
+from lidmelt.grids.geotiff import check_blocks
 
 __all__ = [
     "FIGURE_NAMES",
@@ -49,6 +51,10 @@ FIGURE_NAMES = frozenset({"maps", "report.html", "report.pdf"})
 _NC_ROWS = 512
 #: Files read back (or hashed) at once: GDAL, HDF5 and hashlib release the GIL while they work.
 _READERS = max(1, min(4, os.cpu_count() or 1))
+#: GDAL block cache while reading back, MB: blocks read once need no cache, and GDAL's default
+#: (5 % of RAM) would hold up to a whole decompressed file, so peak memory would grow with the
+#: grid (``benchmarks/bench_basin.py``).
+_READ_CACHE_MB = 64
 
 #: Checksums already computed in this process: (path, inode, size, mtime_ns) -> SHA-256.
 _HASHES: dict[tuple[str, int, int, int], str] = {}
@@ -168,18 +174,26 @@ class FileCheck:
 
 
 def _check_geotiff(path: Path, *, count_values: bool) -> dict[int, int]:
-    """Read a GeoTIFF back, a row of blocks at a time (GDAL raises on a truncated or corrupt
-    tile); with ``count_values`` count the cells of each value."""
+    """Check a GeoTIFF; with ``count_values`` read it back, a row of blocks at a time (GDAL
+    raises on a truncated or corrupt tile), and count the cells of each value.
+
+    Without ``count_values`` only the structure is checked
+    (:func:`lidmelt.grids.geotiff.check_blocks`: the header and every block inside the file),
+    which is what a full disk or a killed writer leaves wrong, without decompressing: reading
+    every float grid back took about 6 s of a global 2-arc-minute run (a third of the raw
+    write time, ``benchmarks/bench_basin.py``).
+    """
     import rasterio
     from rasterio.windows import Window
 
+    if not count_values:
+        check_blocks(path)
+        return {}
     counts: dict[int, int] = {}
     with rasterio.open(path) as src:
         step = src.block_shapes[0][0]
         for row in range(0, src.height, step):
             block = src.read(1, window=Window(0, row, src.width, min(step, src.height - row)))
-            if not count_values:
-                continue
             if block.dtype == np.uint8:  # the flag grid: a histogram, not a sort
                 values = np.flatnonzero(n := np.bincount(block.ravel(), minlength=256))
                 n = n[values]
@@ -204,7 +218,8 @@ def _check_netcdf(path: Path) -> None:
 
 
 def check_written(folder: str | Path, *, flag_file: str | None = None) -> FileCheck:
-    """Read back every file under ``folder``: GeoTIFFs, NetCDF and JSON must parse completely.
+    """Check every file under ``folder``: GeoTIFFs whole (every block inside the file; the
+    ``flag_file`` read back completely), NetCDF and JSON must parse completely.
 
     Returns the files' sizes and, for ``flag_file``, the count of cells per flag value.
 
@@ -234,7 +249,11 @@ def check_written(folder: str | Path, *, flag_file: str | None = None) -> FileCh
             json.loads(path.read_text(encoding="utf-8"))
         return None
 
-    with ThreadPoolExecutor(_READERS) as pool:  # the first failure (in path order) is raised
+    import rasterio
+
+    # the cache size is global to GDAL: set here, for every reading thread at once
+    with rasterio.Env(GDAL_CACHEMAX=_READ_CACHE_MB), ThreadPoolExecutor(_READERS) as pool:
+        # the first failure (in path order) is raised
         for path, counts in zip(paths, pool.map(read, paths), strict=True):
             if path.relative_to(folder).as_posix() == flag_file:
                 check.flag_counts = counts or {}
