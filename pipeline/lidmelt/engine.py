@@ -329,7 +329,7 @@ def store_with_statistics(
     dask, chunked like the kernel). ``inputs`` gives the plate age (for the median age of
     ambient-melting cells) and whether upwelling is known (for the melt production total).
     ``cog`` gives the files the Cloud-Optimized layout (``[outputs] cloud_optimized``). The
-    files are not read back here: the run reads every file back before it is sealed
+    files are only checked for structure here: the run checks every file before it is sealed
     (:func:`lidmelt.grids.rundir.seal_run`). Returns the ``statistics`` entry of the summary
     (:func:`lidmelt.statistics.summarize_bands`).
     """
@@ -381,9 +381,10 @@ def run_basin(
     """Run a whole basin from a workflow configuration; return what was written.
 
     The run is a transaction (:class:`lidmelt.grids.transaction.RunTransaction`): it takes the
-    destination's lock, writes everything into a staging folder beside it, reads every file
-    back, records the manifest in the summary, and only then swaps the staging folder into
-    place. On any error or interruption the destination keeps its previous run.
+    destination's lock, writes everything into a staging folder beside it, checks every file
+    (:func:`lidmelt.grids.rundir.seal_run`), records the manifest in the summary, and only
+    then swaps the staging folder into place. On any error or interruption the destination
+    keeps its previous run.
 
     Parameters
     ----------

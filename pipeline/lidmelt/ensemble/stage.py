@@ -225,7 +225,7 @@ def run_ensemble_stage(context: StageContext) -> tuple[list[Path], dict[str, Any
         tags = {**context.tags, "variable": name, "units": var.units}
         path = context.run_dir / rundir.output_file(name)
         items.append(GeoTiffItem(template, path, var.long_name, var.units, tags))
-    # the run reads every file back before it is sealed (rundir.seal_run): no read-back here
+    # the run checks every file before it is sealed (rundir.seal_run): no read-back here
     with GeoTiffSet(items, cog=cfg.outputs.cloud_optimized, verify=False) as out:
         totals = _compute_rows(context, plan, group_arrays, out.write_rows) * QUANTUM
     files = [item.path for item in items]
