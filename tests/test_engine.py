@@ -253,6 +253,26 @@ def test_runs_are_deterministic(tmp_path):
         )
 
 
+def test_cloud_optimized_layout_is_an_option_with_the_same_values(tmp_path):
+    """``[outputs] cloud_optimized`` (default false) gives COG files holding the same cells."""
+    plain = small_basin(tmp_path / "plain")
+    cog = small_basin(tmp_path / "cog", extra="[outputs]\ncloud_optimized = true")
+    a = run_basin(load_workflow(plain, output_dir=tmp_path / "a"), progress=False)
+    b = run_basin(load_workflow(cog, output_dir=tmp_path / "b"), progress=False)
+    tifs = sorted(p.name for p in a.files if p.suffix == ".tif")
+    assert tifs == sorted(p.name for p in b.files if p.suffix == ".tif")
+    for name in tifs:
+        # the GDAL structure tag LAYOUT=COG marks the Cloud-Optimized layout (GDAL COG driver)
+        with rasterio.open(a.run_dir / name) as src_a, rasterio.open(b.run_dir / name) as src_b:
+            assert src_a.tags(ns="IMAGE_STRUCTURE").get("LAYOUT") != "COG", name
+            assert src_b.tags(ns="IMAGE_STRUCTURE").get("LAYOUT") == "COG", name
+            assert src_a.block_shapes == src_b.block_shapes == [(512, 512)]
+            npt.assert_array_equal(src_a.read(1), src_b.read(1))
+            assert src_a.descriptions == src_b.descriptions
+            assert src_a.units == src_b.units
+    open_run(b.run_dir)  # the manifest of the COG run verifies
+
+
 def test_alignment_of_other_grids_gives_the_same_outputs(tmp_path):
     # the same smooth age field given at twice the resolution, in EPSG:3857 and in 0..360
     # longitudes, onto the grid of the first: outputs agree within interpolation error

@@ -20,7 +20,7 @@ from pyproj import CRS
 
 from lidmelt.errors import GridError, InputError
 from lidmelt.grids import write as write_module
-from lidmelt.grids.geotiff import tile_aligned
+from lidmelt.grids.geotiff import check_blocks, tile_aligned
 from lidmelt.grids.grid import Grid
 from lidmelt.grids.io import open_grid
 from lidmelt.grids.store import GeoTiffItem, GeoTiffSet
@@ -352,6 +352,32 @@ def test_geotiff_set_writes_every_file_in_one_pass(tmp_path, cog):
         assert src.nodata == 255
         assert src.read(1)[0, 0] == 255
         assert src.read(1)[0, 1] == 1
+
+
+@pytest.mark.parametrize("cog", [False, True])
+def test_check_blocks_finds_a_cut_off_file(tmp_path, cog):
+    """A whole GeoTIFF passes; one cut one byte short of its last block, or empty, is an
+    OSError naming it (the COG's header comes first, so there the block check finds it)."""
+    t = Grid.from_extent(0, 60, 0, 40, 0.05)
+    path = write_geotiff(grid(t, ramp(t)), tmp_path / "r.tif", description="ramp", units="1",
+                         cog=cog)  # fmt: skip
+    check_blocks(path)
+    with rasterio.open(path) as src:  # where the block data end (GDAL's TIFF block metadata)
+        end = max(
+            int(src.get_tag_item(f"BLOCK_OFFSET_{c}_{r}", "TIFF", bidx=1))
+            + int(src.get_tag_item(f"BLOCK_SIZE_{c}_{r}", "TIFF", bidx=1))
+            for r in range(2)
+            for c in range(3)
+        )
+    whole = path.read_bytes()
+    assert end <= len(whole)
+    path.write_bytes(whole[: end - 1])
+    with pytest.raises(OSError, match="missing" if cog else r"r\.tif"):
+        check_blocks(path)
+    path.write_bytes(b"")
+    with pytest.raises(OSError, match="empty") as err:
+        check_blocks(path)
+    assert err.value.filename == str(path)
 
 
 def test_geotiff_set_error_writes_no_file(tmp_path):

@@ -422,9 +422,12 @@ class ComputeOptions:
 @dataclass(frozen=True, kw_only=True)
 class OutputOptions:
     """The ``[outputs]`` table: which variables to write (default DEFAULT_OUTPUT_VARIABLES, plus
-    the outputs that need an optional input when the workflow gives it)."""
+    the outputs that need an optional input when the workflow gives it), and whether the
+    GeoTIFFs get the Cloud-Optimized layout (a second pass over every file; off by default,
+    see docs/workflow.md)."""
 
     variables: tuple[str, ...] = DEFAULT_OUTPUT_VARIABLES
+    cloud_optimized: bool = False
 
 
 @dataclass(frozen=True, kw_only=True)

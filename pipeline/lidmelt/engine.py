@@ -342,6 +342,7 @@ def store_with_statistics(
     report: Callable[[int, int], None] | None,
     inputs: RunInputs | None = None,
     scheduler: Any = None,
+    cog: bool = False,
 ) -> dict[str, Any]:
     """Store every GeoTIFF and compute the summary statistics in one dask pass.
 
@@ -349,9 +350,11 @@ def store_with_statistics(
     kernel runs once per chunk whatever the number of files; ``area`` is the cell area (km2,
     dask, chunked like the kernel). ``inputs`` gives the plate age (for the median age of
     ambient-melting cells) and whether upwelling is known (for the melt production total).
-    Returns the ``statistics`` entry of the summary (:func:`lidmelt.statistics.summarize_bands`).
-    ``scheduler``, a dask.distributed client (:func:`lidmelt.cluster.connect`), computes the
-    chunks on its workers; the files are written here.
+    ``cog`` gives the files the Cloud-Optimized layout (``[outputs] cloud_optimized``). The
+    files are only checked for structure here: the run checks every file before it is sealed
+    (:func:`lidmelt.grids.rundir.seal_run`). ``scheduler``, a dask.distributed client
+    (:func:`lidmelt.cluster.connect`), computes the chunks on its workers; the files are written
+    here. Returns the ``statistics`` entry of the summary (:func:`lidmelt.statistics.summarize_bands`).
     """
     names = list(lazy.outputs)
     out_index = [k for k, name in enumerate(OUTPUTS) if name in lazy.outputs]
@@ -369,10 +372,14 @@ def store_with_statistics(
         integrals=[list(OUTPUTS).index(n) for n in integrals],
     )
     rows = 2 * ref_chunks[0][0]
-    with GeoTiffSet(items, cog=True) as out:
+    t0 = time.perf_counter()
+    with GeoTiffSet(items, cog=cog, verify=False) as out:
         bands = out.compute(
             extra=extra, band_rows=rows, num_workers=workers, report=report, scheduler=scheduler
         )
+        t1 = time.perf_counter()
+    lazy.clock["store_s"] = t1 - t0
+    lazy.clock["finish_files_s"] = time.perf_counter() - t1
     return summarize_bands(bands, names=names, integrals=integrals)
 
 
@@ -399,9 +406,10 @@ def run_basin(
     """Run a whole basin from a workflow configuration; return what was written.
 
     The run is a transaction (:class:`lidmelt.grids.transaction.RunTransaction`): it takes the
-    destination's lock, writes everything into a staging folder beside it, reads every file
-    back, records the manifest in the summary, and only then swaps the staging folder into
-    place. On any error or interruption the destination keeps its previous run.
+    destination's lock, writes everything into a staging folder beside it, checks every file
+    (:func:`lidmelt.grids.rundir.seal_run`), records the manifest in the summary, and only
+    then swaps the staging folder into place. On any error or interruption the destination
+    keeps its previous run.
 
     Parameters
     ----------
@@ -428,9 +436,13 @@ def run_basin(
     """
     with RunTransaction(output_dir or cfg.run.output_dir, wait=wait) as tx, connect(cfg) as client:
         result = _run_staged(cfg, tx.staging, progress, extra_stages, client)
+        t0 = time.perf_counter()
         rundir.seal_run(tx.staging, result.summary, sources=result.sources)
+        result.timings_s["seal_s"] = time.perf_counter() - t0
         drawn = list(products(tx.staging)) if products else []
+        t1 = time.perf_counter()
         tx.commit()
+        result.timings_s["commit_s"] = time.perf_counter() - t1
     files = [tx.dest / Path(p).relative_to(tx.staging) for p in [*result.files, *drawn]]
     return replace(result, run_dir=tx.dest, files=files)
 
@@ -468,6 +480,7 @@ def _run_staged(
         report=band_reporter(progress),
         inputs=inputs,
         scheduler=client,
+        cog=cfg.outputs.cloud_optimized,
     )
     run_warnings = ambient_melting_warnings(
         statistics, ambient_c=cfg.model.ambient_potential_temperature_c, issue=True

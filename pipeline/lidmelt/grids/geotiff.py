@@ -33,6 +33,7 @@ __all__ = [
     "DTYPES",
     "TILE",
     "BandWindows",
+    "check_blocks",
     "check_dtype_nodata",
     "convert_block",
     "copy_to_cog",
@@ -228,16 +229,22 @@ def publish(
     description: str,
     units: str,
     tags: dict[str, str],
+    verify: bool = True,
 ) -> None:
-    """Make ``final_tmp`` the finished file: a COG copy of ``staged`` unless they are the same."""
+    """Make ``final_tmp`` the finished file: a COG copy of ``staged`` unless they are the same.
+
+    ``verify`` reads the finished file back completely (:func:`read_back`); a caller that reads
+    every file back later anyway (a run, :func:`lidmelt.grids.rundir.seal_run`) passes False,
+    and the file's structure alone is checked (:func:`check_blocks`, no decompression).
+    """
     if staged == final_tmp:
-        read_back(final_tmp)
+        (read_back if verify else check_blocks)(final_tmp)
         return
-    copy_to_cog(staged, final_tmp, integer=integer)
+    copy_to_cog(staged, final_tmp, integer=integer, verify=verify)
     ensure_metadata(final_tmp, description, units, tags)
 
 
-def copy_to_cog(src: Path, dst: Path, *, integer: bool) -> None:
+def copy_to_cog(src: Path, dst: Path, *, integer: bool, verify: bool = True) -> None:
     """Copy a finished tiled GTiff to Cloud-Optimized layout (ZSTD, 512 blocks, overviews).
 
     GDAL COG driver options (https://gdal.org/drivers/raster/cog.html): overviews resampled by
@@ -258,7 +265,8 @@ def copy_to_cog(src: Path, dst: Path, *, integer: bool) -> None:
             NUM_THREADS="ALL_CPUS",
             RESAMPLING="NEAREST" if integer else "AVERAGE",
         )
-    read_back(dst)  # the copy may return without raising on a failed write (disk full)
+    # the copy may return without raising on a failed write (disk full)
+    (read_back if verify else check_blocks)(dst)
 
 
 class _ErrorRecords(logging.Handler):
@@ -299,6 +307,29 @@ def read_back(path: str | Path) -> None:
     with gdal_checked(path), rasterio.open(path) as src:
         for _, window in src.block_windows(1):
             src.read(1, window=window)
+
+
+def check_blocks(path: str | Path) -> None:
+    """Open a written GeoTIFF and check that every block of band 1 lies inside the file.
+
+    Catches what a full disk leaves (an empty file, a header or directory not written, blocks
+    cut off at the end) without decompressing anything; :func:`read_back` reads every block.
+    Block offsets and sizes are GDAL's ``TIFF`` metadata ``BLOCK_OFFSET_<col>_<row>`` and
+    ``BLOCK_SIZE_<col>_<row>`` (https://gdal.org/drivers/raster/gtiff.html).
+    """
+    path = Path(path)
+    size = path.stat().st_size
+    if size == 0:
+        raise OSError(0, "the written GeoTIFF is empty (disk full?)", str(path))
+    with gdal_checked(path), rasterio.open(path) as src:
+        rows, cols = src.block_shapes[0]
+        for row in range(-(-src.height // rows)):
+            for col in range(-(-src.width // cols)):
+                offset = src.get_tag_item(f"BLOCK_OFFSET_{col}_{row}", "TIFF", bidx=1)
+                count = src.get_tag_item(f"BLOCK_SIZE_{col}_{row}", "TIFF", bidx=1)
+                if not offset or not count or int(offset) + int(count) > size:
+                    msg = f"block ({row}, {col}) of the written GeoTIFF is missing (disk full?)"
+                    raise OSError(0, msg, str(path))
 
 
 def write_failed(exc: BaseException, *, what: str, where: str | Path) -> InputError:

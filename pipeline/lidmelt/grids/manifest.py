@@ -5,8 +5,9 @@ A run records in ``summary.json`` a ``manifest`` {``files`` {relative name: {``s
 ``report.html``, ``report.pdf``: derived products that ``lidmelt map`` and ``lidmelt report``
 may redraw in place at any time, so they live outside the manifest), and ``summary_sha256``, the
 SHA-256 of the summary's canonical JSON (sorted keys, no blanks) without that key. Before a run
-is swapped into place, :func:`check_written` reads every file back (each GeoTIFF block by block,
-the NetCDF variable by variable in row bands, the JSON parsed); before any product reads a run,
+is swapped into place, :func:`check_written` checks every file (each GeoTIFF's blocks lie inside
+the file, the flag grid read back completely, the NetCDF read variable by variable in row bands,
+the JSON parsed) and the manifest's SHA-256 reads every byte; before any product reads a run,
 :func:`verify_manifest` checks sizes, checksums and the summary's own checksum, so a mixed,
 truncated or tampered folder is refused with a message instead of being read.
 """
@@ -17,6 +18,7 @@ import hashlib
 import json
 import os
 from collections.abc import Iterable, Mapping
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -24,6 +26,7 @@ from typing import Any
 import numpy as np
 
 from lidmelt.errors import RunDirError
+from lidmelt.grids.geotiff import check_blocks
 
 __all__ = [
     "FIGURE_NAMES",
@@ -46,6 +49,12 @@ SUMMARY_HASH_KEY = "summary_sha256"
 FIGURE_NAMES = frozenset({"maps", "report.html", "report.pdf"})
 #: Rows per band when a NetCDF variable is read back.
 _NC_ROWS = 512
+#: Files read back (or hashed) at once: GDAL, HDF5 and hashlib release the GIL while they work.
+_READERS = max(1, min(4, os.cpu_count() or 1))
+#: GDAL block cache while reading back, MB: blocks read once need no cache, and GDAL's default
+#: (5 % of RAM) would hold up to a whole decompressed file, so peak memory would grow with the
+#: grid (``benchmarks/bench_basin.py``).
+_READ_CACHE_MB = 64
 
 #: Checksums already computed in this process: (path, inode, size, mtime_ns) -> SHA-256.
 _HASHES: dict[tuple[str, int, int, int], str] = {}
@@ -86,10 +95,12 @@ def _manifest_files(folder: Path, summary_name: str) -> list[str]:
 def build_manifest(folder: str | Path, *, summary_name: str) -> dict[str, Any]:
     """The manifest of every file under ``folder`` but the summary and the figures."""
     folder = Path(folder)
+    names = _manifest_files(folder, summary_name)
+    with ThreadPoolExecutor(_READERS) as pool:
+        hashes = list(pool.map(file_sha256, [folder / rel for rel in names]))
     files = {}
-    for rel in _manifest_files(folder, summary_name):
-        path = folder / rel
-        files[rel] = {"size": path.stat().st_size, "sha256": file_sha256(path)}
+    for rel, digest in zip(names, hashes, strict=True):
+        files[rel] = {"size": (folder / rel).stat().st_size, "sha256": digest}
     return {"files": files}
 
 
@@ -163,17 +174,33 @@ class FileCheck:
 
 
 def _check_geotiff(path: Path, *, count_values: bool) -> dict[int, int]:
-    """Read a GeoTIFF back block by block (GDAL raises on a truncated or corrupt tile)."""
-    import rasterio
+    """Check a GeoTIFF; with ``count_values`` read it back, a row of blocks at a time (GDAL
+    raises on a truncated or corrupt tile), and count the cells of each value.
 
+    Without ``count_values`` only the structure is checked
+    (:func:`lidmelt.grids.geotiff.check_blocks`: the header and every block inside the file),
+    which is what a full disk or a killed writer leaves wrong, without decompressing: reading
+    every float grid back took about 6 s of a global 2-arc-minute run (a third of the raw
+    write time, ``benchmarks/bench_basin.py``).
+    """
+    import rasterio
+    from rasterio.windows import Window
+
+    if not count_values:
+        check_blocks(path)
+        return {}
     counts: dict[int, int] = {}
     with rasterio.open(path) as src:
-        for _, window in src.block_windows(1):
-            block = src.read(1, window=window)
-            if count_values:
+        step = src.block_shapes[0][0]
+        for row in range(0, src.height, step):
+            block = src.read(1, window=Window(0, row, src.width, min(step, src.height - row)))
+            if block.dtype == np.uint8:  # the flag grid: a histogram, not a sort
+                values = np.flatnonzero(n := np.bincount(block.ravel(), minlength=256))
+                n = n[values]
+            else:
                 values, n = np.unique(block, return_counts=True)
-                for v, c in zip(values.tolist(), n.tolist(), strict=True):
-                    counts[int(v)] = counts.get(int(v), 0) + c
+            for v, c in zip(values.tolist(), n.tolist(), strict=True):
+                counts[int(v)] = counts.get(int(v), 0) + c
     return counts
 
 
@@ -191,7 +218,8 @@ def _check_netcdf(path: Path) -> None:
 
 
 def check_written(folder: str | Path, *, flag_file: str | None = None) -> FileCheck:
-    """Read back every file under ``folder``: GeoTIFFs, NetCDF and JSON must parse completely.
+    """Check every file under ``folder``: GeoTIFFs whole (every block inside the file; the
+    ``flag_file`` read back completely), NetCDF and JSON must parse completely.
 
     Returns the files' sizes and, for ``flag_file``, the count of cells per flag value.
 
@@ -202,19 +230,31 @@ def check_written(folder: str | Path, *, flag_file: str | None = None) -> FileCh
     """
     folder = Path(folder)
     check = FileCheck()
-    for path in sorted(p for p in folder.rglob("*") if p.is_file()):
+    paths = sorted(p for p in folder.rglob("*") if p.is_file())
+    for path in paths:
         rel = path.relative_to(folder).as_posix()
         check.sizes[rel] = path.stat().st_size
         if check.sizes[rel] == 0:
             msg = f"{str(path)!r} is empty after writing; the disk may be full."
             raise OSError(msg)
+
+    def read(path: Path) -> dict[int, int] | None:
+        rel = path.relative_to(folder).as_posix()
         suffix = path.suffix.lower()
         if suffix == ".tif":
-            counts = _check_geotiff(path, count_values=rel == flag_file)
-            if rel == flag_file:
-                check.flag_counts = counts
-        elif suffix == ".nc":
+            return _check_geotiff(path, count_values=rel == flag_file)
+        if suffix == ".nc":
             _check_netcdf(path)
         elif suffix == ".json":
             json.loads(path.read_text(encoding="utf-8"))
+        return None
+
+    import rasterio
+
+    # the cache size is global to GDAL: set here, for every reading thread at once
+    with rasterio.Env(GDAL_CACHEMAX=_READ_CACHE_MB), ThreadPoolExecutor(_READERS) as pool:
+        # the first failure (in path order) is raised
+        for path, counts in zip(paths, pool.map(read, paths), strict=True):
+            if path.relative_to(folder).as_posix() == flag_file:
+                check.flag_counts = counts or {}
     return check

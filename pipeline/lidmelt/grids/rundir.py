@@ -525,7 +525,8 @@ def check_evaluable(flag_counts: Mapping[int, int], *, sources: Mapping[str, str
 def seal_run(run_dir: str | Path, doc: Mapping[str, Any], *, sources: Mapping[str, str]) -> Path:
     """Check every file of a staged run, then write its summary with the manifest.
 
-    Every file is read back completely (:func:`lidmelt.grids.manifest.check_written`); a run
+    Every file is checked (:func:`lidmelt.grids.manifest.check_written`: every GeoTIFF block
+    inside its file, the flag grid, NetCDF and JSON read back completely) and hashed; a run
     whose cells all lack data or cannot be evaluated is refused (:func:`check_evaluable`).
     Returns the summary's path (read back and verified).
     """

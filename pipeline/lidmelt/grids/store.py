@@ -4,8 +4,9 @@ The outputs of a run come from one kernel per chunk. Writing them one file at a 
 recompute the kernel once per file; :class:`GeoTiffSet` opens every destination (at temporary
 paths from :func:`lidmelt.files.atomic_paths`), lets the caller run a single :func:`dask.compute`
 that stores every output and evaluates any reductions (summary statistics) in the same pass, then
-sets the metadata, converts to Cloud-Optimized layout and only then renames the files into place.
-On any error every temporary file is removed and no file is written under its final name.
+sets the metadata, converts to Cloud-Optimized layout (when asked: a second full pass over every
+file) and only then renames the files into place. On any error every temporary file is removed
+and no file is written under its final name.
 """
 
 from __future__ import annotations
@@ -67,12 +68,17 @@ class GeoTiffSet:
 
     Creation options are :func:`lidmelt.grids.geotiff.gtiff_profile`'s (512 x 512 tiles,
     ZSTD level 1, predictor 3 for floats and 2 for integers, BIGTIFF=IF_SAFER); each file has its
-    own lock, so chunks of different outputs are written concurrently.
+    own lock, so chunks of different outputs are written concurrently. ``cog`` copies each
+    finished file to Cloud-Optimized layout (overviews; a second full pass over the file).
+    ``verify`` reads every finished file back before it is renamed into place; a caller that
+    reads them back later anyway (a run: :func:`lidmelt.grids.rundir.seal_run`, before the run
+    is swapped into place) passes False and spares a full pass.
     """
 
-    def __init__(self, items: list[GeoTiffItem], *, cog: bool = True) -> None:
+    def __init__(self, items: list[GeoTiffItem], *, cog: bool = True, verify: bool = True) -> None:
         self.items = items
         self.cog = cog
+        self.verify = verify
         self._windows: list[BandWindows] = []  # each open file, with its lock
         self._finals: list[Path] = []  # temporary paths renamed onto the items' paths
         self._staged: list[Path] = []  # where each tiled GTiff is written
@@ -193,7 +199,8 @@ class GeoTiffSet:
         for item, staged, tmp, meta in zip(
             self.items, self._staged, self._finals, metas, strict=True
         ):
-            publish(staged, tmp, integer=np.dtype(item.dtype).kind in "iu", **meta)
+            integer = np.dtype(item.dtype).kind in "iu"
+            publish(staged, tmp, integer=integer, verify=self.verify, **meta)
 
     def _abort(self, exc_type: Any, exc: BaseException | None, tb: Any) -> None:
         """Close the files and remove every temporary file (no final file is written)."""

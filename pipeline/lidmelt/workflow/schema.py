@@ -53,7 +53,7 @@ SCHEMA: dict[str, tuple[str, ...]] = {
     "lithosphere": ("cooling", "lid_isotherm_c", "parameters"),
     "lithosphere.parameters": ("*",),
     "compute": ("chunk_size", "workers", "method", "scheduler", "max_cells"),
-    "outputs": ("variables",),
+    "outputs": ("variables", "cloud_optimized"),
     "ensemble": (
         "members",
         "seed",

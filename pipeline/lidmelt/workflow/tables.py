@@ -318,8 +318,9 @@ _COMPUTE_READERS: dict[str, Reader] = {
 
 def _read_outputs(ctx: Context, values: dict[str, Any], inputs: Inputs) -> OutputOptions:
     given = inputs.available()
+    flags = read_fields(ctx, "outputs", values, {"cloud_optimized": boolean})
     if "variables" not in values:
-        return OutputOptions(variables=variables.default_outputs(given))
+        return OutputOptions(variables=variables.default_outputs(given), **flags)
     key = "outputs.variables"
     names = values["variables"]
     if not isinstance(names, list) or not names:
@@ -341,4 +342,4 @@ def _read_outputs(ctx: Context, values: dict[str, Any], inputs: Inputs) -> Outpu
             )
             raise WorkflowError(msg)
         chosen.append(name)
-    return OutputOptions(variables=tuple(chosen))
+    return OutputOptions(variables=tuple(chosen), **flags)
