@@ -354,7 +354,8 @@ def store_with_statistics(
     files are only checked for structure here: the run checks every file before it is sealed
     (:func:`lidmelt.grids.rundir.seal_run`). ``scheduler``, a dask.distributed client
     (:func:`lidmelt.cluster.connect`), computes the chunks on its workers; the files are written
-    here. Returns the ``statistics`` entry of the summary (:func:`lidmelt.statistics.summarize_bands`).
+    here. Returns the ``statistics`` entry of the summary
+    (:func:`lidmelt.statistics.summarize_bands`).
     """
     names = list(lazy.outputs)
     out_index = [k for k, name in enumerate(OUTPUTS) if name in lazy.outputs]
