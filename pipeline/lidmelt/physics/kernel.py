@@ -90,21 +90,28 @@ ROWS = (
 )
 
 
-def _jit(func=None, *, inline="never"):
+def _jit(func=None, *, inline="never", refcount=True):
     """numba.njit without the GIL, cached on disk where numba finds a writable place.
 
     In a read-only install without ``NUMBA_CACHE_DIR``, numba has no cache location and refuses
     ``cache=True``; the kernel is then compiled in memory once per process. The helpers of one
     cell are inlined (``inline="always"``): called, they cost three times the work they do.
+    ``refcount=False`` compiles without numba's reference counting of arrays (its ``_nrt``
+    option) for a function that allocates nothing: inlined helpers that take arrays otherwise
+    count references on every call, atomically, which made the cell loop ten times slower
+    (``benchmarks/bench_column.py``: 46 against 470 M onsets/s).
     """
     if func is None:
-        return lambda f: _jit(f, inline=inline)
+        return lambda f: _jit(f, inline=inline, refcount=refcount)
     if numba is None:
         return func
+    opts = {"nogil": True, "inline": inline, "error_model": "numpy"}
+    if not refcount:
+        opts["_nrt"] = False
     try:
-        return numba.njit(nogil=True, cache=True, inline=inline, error_model="numpy")(func)
+        return numba.njit(cache=True, **opts)(func)
     except RuntimeError:
-        return numba.njit(nogil=True, inline=inline, error_model="numpy")(func)
+        return numba.njit(**opts)(func)
 
 
 # ------------------------------------------------------------------------------------------------
@@ -271,11 +278,14 @@ def _onset_any(tp, u, par, cv, first, inv):
     return _onset(tp, u, j, cv, first, par[0], par[1], par[2])
 
 
-@_jit
-def _cells(tp, lid, water, w_stride, up, up_stride, par, cv, first, inv, sat, vals, amb, out, flag):
+@_jit(refcount=False)
+def _cells(
+    tp, lid, water, w_stride, up, up_stride, par, cv, first, inv, sat, vals, amb, out, flag, slow
+):
     """Every output of every cell into ``out`` (rows :data:`ROWS`) and ``flag``.
 
-    Returns a mask of the cells left for the numpy path (their rows are not written).
+    Marks in ``slow`` (all False on entry) the cells left for the numpy path (their rows are
+    not written).
     """
     sol0, min_top, gpa_per_km, top_max, max_on = par[13], par[14], par[15], par[16], par[17]
     ambient, crust_ratio, water_max, hydrous, tp_max = par[18], par[19], par[20], par[21], par[22]
@@ -284,7 +294,6 @@ def _cells(tp, lid, water, w_stride, up, up_stride, par, cv, first, inv, sat, va
     p_amb = np.nan
     if np.isfinite(ambient):
         p_amb = _onset_any(ambient, par[7], par, cv, first, inv)
-    slow = np.zeros(tp.size, np.bool_)
     for n in range(tp.size):
         t, lid_km, w = tp[n], lid[n], water[n * w_stride]
         lid_ok = np.isfinite(lid_km) and lid_km >= 0.0
@@ -328,7 +337,6 @@ def _cells(tp, lid, water, w_stride, up, up_stride, par, cv, first, inv, sat, va
         out[8, n], out[9, n] = regime, h * crust_ratio
         out[10, n] = f * up[n * up_stride]
         flag[n] = fl
-    return slow
 
 
 # ------------------------------------------------------------------------------------------------
@@ -528,9 +536,10 @@ def evaluate_compiled(table, tp, lid, water, *, ambient_c, min_top_km, upwelling
     first_call = _COMPILE["seconds"] == 0.0
     t = time.perf_counter()
     amb = _ambient_h(vals, par, ambient_c)
-    slow = _cells(
+    slow = np.zeros(tp.size, np.bool_)
+    _cells(
         tp, lid, w, 0 if one else 1, up, 0 if up.size == 1 else 1, par, cv, first, inv, sat,
-        vals, amb, out, flag,
+        vals, amb, out, flag, slow,
     )  # fmt: skip
     if first_call:
         _COMPILE["seconds"] = time.perf_counter() - t
