@@ -101,3 +101,36 @@ def test_without_numba_the_numpy_path_runs_and_compiled_true_says_why(monkeypatc
     assert out["melt_thickness_km"][0] > 0
     with pytest.raises(ModelError, match=r"numba cannot be imported.*compiled=False"):
         evaluate_cells([1450.0], [40.0], ambient_potential_temperature_c=1350.0, compiled=True)
+
+
+def test_rows_are_the_registry_order():
+    """The engine writes the kernel's rows straight into its stacked array, in registry order."""
+    from lidmelt.physics.evaluate import OUTPUT_ROWS
+    from lidmelt.variables import OUTPUTS
+
+    assert tuple(OUTPUTS) == OUTPUT_ROWS
+
+
+@pytest.mark.parametrize("compiled", [True, False])
+def test_out_and_nodata_give_the_same_values_on_both_paths(compiled):
+    """``out=`` receives every output in OUTPUT_ROWS order and ``nodata=`` blanks cells with a
+    non-finite input; check values: the same call without them (NaN and the flag 255 put in by
+    hand where an input is NaN)."""
+    from lidmelt.physics.evaluate import OUTPUT_ROWS
+
+    if compiled and not kernel.AVAILABLE:
+        pytest.skip("numba is not installed")
+    rng = np.random.default_rng(3)
+    tp = rng.uniform(1300.0, 1600.0, 500)
+    lid = rng.uniform(0.0, 150.0, 500)
+    tp[::7] = np.nan
+    lid[::11] = np.nan
+    kw = {"ambient_potential_temperature_c": 1350.0, "compiled": compiled}
+    plain = evaluate_cells(tp, lid, 0.01, **kw)
+    out = np.full((len(OUTPUT_ROWS), tp.size), -1.0, np.float32)
+    got = evaluate_cells(tp, lid, 0.01, out=out, nodata=255, **kw)
+    missing = ~(np.isfinite(tp) & np.isfinite(lid))
+    npt.assert_array_equal(got["flag"], np.where(missing, 255, plain["flag"]))
+    for k, name in enumerate(OUTPUT_ROWS):
+        want = np.where(missing, np.nan, plain.get(name, np.full(tp.size, np.nan)))
+        npt.assert_array_equal(out[k], want.astype(np.float32), err_msg=name)

@@ -159,10 +159,13 @@ def evaluate_chunk(
     if s.cooling is not None:
         lookup = lid_lookup(s.lid_isotherm_c, model=s.cooling)  # built once, cached
         from_age = lookup.depth_km(np.broadcast_to(age, shape))
-        lid = np.where(np.isfinite(lid), lid, from_age)
+        given = np.ndim(lid_grid) or np.isfinite(lid_grid)
+        lid = np.where(np.isfinite(lid), lid, from_age) if given else from_age
     t1 = time.perf_counter()
     tp = s.ambient_c + np.broadcast_to(np.asarray(anomaly, float), shape)
     water_arg = water if np.ndim(water) == 0 else np.broadcast_to(water, shape)
+    out = np.empty((len(OUTPUTS) + 1, *shape), np.float32)
+    rows = out.reshape(len(OUTPUTS) + 1, -1)
     res = evaluate_cells(
         tp,
         lid,
@@ -174,13 +177,10 @@ def evaluate_chunk(
         min_top_km=s.min_top_km,
         upwelling_mm_yr=np.broadcast_to(upwelling, shape) if s.upwelling else None,
         crust_density_kg_m3=s.crust_density_kg_m3,
+        out=rows[:-1],
+        nodata=FLAG_NODATA,
     )
-    nodata = ~(np.isfinite(lid) & np.isfinite(tp) & np.isfinite(np.broadcast_to(water_arg, shape)))
-    out = np.empty((len(OUTPUTS) + 1, *shape), np.float32)
-    for k, name in enumerate(OUTPUTS):
-        out[k] = res.get(name, np.nan)
-    out[: len(OUTPUTS), nodata] = np.nan
-    out[-1] = np.where(nodata, FLAG_NODATA, res["flag"])
+    rows[-1] = res["flag"].ravel()
     if clock is not None:  # dict updates of floats are atomic enough for a timing summary
         clock["lid_thread_s"] = clock.get("lid_thread_s", 0.0) + t1 - t0
         clock["melting_thread_s"] = clock.get("melting_thread_s", 0.0) + time.perf_counter() - t1

@@ -35,6 +35,7 @@ from lidmelt.physics.column import (
     refine_onset_gpa,
     top_of_melting_km,
 )
+from lidmelt.physics.kernel import ROWS as OUTPUT_ROWS
 from lidmelt.physics.kernel import compiled_cells, use_compiled
 from lidmelt.physics.melting import MeltingModel, get_model
 from lidmelt.physics.table import FALLBACK_STEP_GPA, MeltTable, get_table
@@ -47,6 +48,7 @@ __all__ = [
     "FLAG_MEANINGS",
     "FLAG_NO_ONSET",
     "FLAG_WATER_SATURATED",
+    "OUTPUT_ROWS",
     "REGIME_AMBIENT_MELTS",
     "REGIME_ANOMALY_ONLY",
     "REGIME_NO_MELTING",
@@ -327,6 +329,8 @@ def evaluate_cells(
     crust_density_kg_m3: float = 2900.0,
     compiled: bool | None = None,
     clock: dict | None = None,
+    out: np.ndarray | None = None,
+    nodata: int | None = None,
 ) -> dict[str, np.ndarray]:
     """Every output variable of :mod:`lidmelt.variables` and the ``"flag"``, for arrays of cells.
 
@@ -351,6 +355,11 @@ def evaluate_cells(
     the kernel. Cells the kernel leaves (outside the table's nodes, or on the edge of the
     saturation flag) take the numpy path; ``clock``, a dict, then accumulates their number
     (``numpy_cells``) and seconds (``numpy_s``), and ``cells`` counts every cell.
+
+    ``out``, a float32 C-contiguous array (len(:data:`OUTPUT_ROWS`), number of cells), receives
+    every output in that order (NaN where an output is not given: melt production without
+    upwelling), without further copies on the compiled path; ``nodata``, a flag value, marks
+    cells with a non-finite Tp, lid or water: every output NaN, the flag ``nodata``.
     """
     model = get_model(model)
     if method == "table" and use_compiled(compiled):
@@ -369,20 +378,41 @@ def evaluate_cells(
                 upwelling_mm_yr=up, crust_density_kg_m3=crust_density_kg_m3,
             )  # fmt: skip
 
-        out = compiled_cells(
+        res = compiled_cells(
             tab, tp, lid, water, ambient=float(ambient_potential_temperature_c),
             min_top_km=min_top_km, upwelling=upwelling_mm_yr,
             crust_ratio=model.solid_density_kg_m3 / crust_density_kg_m3, clock=clock,
-            numpy_path=numpy_path,
+            numpy_path=numpy_path, out=out, nodata=nodata,
         )  # fmt: skip
-        if out is not None:
-            return out
-    return _numpy_cells(
+        if res is not None:
+            return res
+    res = _numpy_cells(
         potential_temperature_c, lid_depth_km, water_wt_pct,
         ambient_potential_temperature_c=ambient_potential_temperature_c, model=model,
         method=method, table=table, min_top_km=min_top_km, upwelling_mm_yr=upwelling_mm_yr,
         crust_density_kg_m3=crust_density_kg_m3,
     )  # fmt: skip
+    return _into(res, out, nodata, potential_temperature_c, lid_depth_km, water_wt_pct)
+
+
+def _into(res, out, nodata, tp, lid, water):
+    """``res`` with ``nodata`` applied and, with ``out``, copied into its rows (numpy path)."""
+    if nodata is not None:
+        shape = res["flag"].shape
+        with np.errstate(invalid="ignore"):
+            missing = ~(
+                np.isfinite(np.broadcast_to(tp, shape))
+                & np.isfinite(np.broadcast_to(lid, shape))
+                & np.isfinite(np.broadcast_to(water, shape))
+            )
+        res = {k: np.where(missing, nodata if k == "flag" else np.nan, v) for k, v in res.items()}
+        res["flag"] = res["flag"].astype(np.uint8)
+    if out is None:
+        return res
+    for k, name in enumerate(OUTPUT_ROWS):
+        out[k] = np.ravel(res[name]) if name in res else np.nan
+    views = {name: out[k].reshape(res["flag"].shape) for k, name in enumerate(OUTPUT_ROWS)}
+    return {**{n: v for n, v in views.items() if n in res}, "flag": res["flag"]}
 
 
 def _numpy_cells(

@@ -285,10 +285,13 @@ def _cells(
     """Every output of every cell into ``out`` (rows :data:`ROWS`) and ``flag``.
 
     Marks in ``slow`` (all False on entry) the cells left for the numpy path (their rows are
-    not written).
+    not written). Where ``par[23]`` (nodata) is not NaN, a cell with a non-finite input gets NaN
+    in every row and that flag value.
     """
     sol0, min_top, gpa_per_km, top_max, max_on = par[13], par[14], par[15], par[16], par[17]
     ambient, crust_ratio, water_max, hydrous, tp_max = par[18], par[19], par[20], par[21], par[22]
+    nodata = par[23]
+    nodata_on = np.isfinite(nodata)
     varying = par[11] > 0.0
     # one water content: one ambient onset for every cell
     p_amb = np.nan
@@ -296,6 +299,11 @@ def _cells(
         p_amb = _onset_any(ambient, par[7], par, cv, first, inv)
     for n in range(tp.size):
         t, lid_km, w = tp[n], lid[n], water[n * w_stride]
+        if nodata_on and not (np.isfinite(t) and np.isfinite(lid_km) and np.isfinite(w)):
+            for r in range(out.shape[0]):
+                out[r, n] = np.nan
+            flag[n] = nodata
+            continue
         lid_ok = np.isfinite(lid_km) and lid_km >= 0.0
         w_ok = np.isfinite(w) and w >= 0.0 and (hydrous > 0.0 or w == 0.0)
         top_km = max(lid_km, min_top)
@@ -410,7 +418,7 @@ def _arrays(table: MeltTable, water):
          inv_du_curve, 1.0 / du_table, float(model.solidus_c(0.0, 0.0)), 0.0,
          float(model.pressure_gpa(1.0)), table.top_pressure_max_gpa,
          model.max_onset_pressure_gpa, np.nan, 0.0, lay.water_max_wt_pct,
-         float(model.hydrous), lay.tp_max_c],
+         float(model.hydrous), lay.tp_max_c, np.nan],
         float,
     )  # fmt: skip
     first = _first_nodes(curves, t0, n_t)
@@ -505,12 +513,16 @@ def compile_seconds() -> float:
     return _COMPILE["seconds"]
 
 
-def evaluate_compiled(table, tp, lid, water, *, ambient_c, min_top_km, upwelling, crust_ratio):
+def evaluate_compiled(
+    table, tp, lid, water, *, ambient_c, min_top_km, upwelling, crust_ratio, out=None, nodata=None
+):
     """Every output of 1-D cells by the compiled kernel, or None where it cannot serve them.
 
     ``water`` is a float (one water content) or an array like ``tp``; ``upwelling`` a float,
-    an array like ``tp`` or None (no production). Returns (outputs by name as float32 arrays,
-    flag as uint8, mask of the cells left for the numpy path).
+    an array like ``tp`` or None (no production). ``out``, a float32 C-contiguous array
+    (len(ROWS), n), receives the rows (else one is made); ``nodata``, a flag value for cells
+    with a non-finite input (every row NaN). Returns (outputs by name as float32 arrays, flag as
+    uint8, mask of the cells left for the numpy path).
     """
     if not AVAILABLE:
         return None
@@ -526,12 +538,14 @@ def evaluate_compiled(table, tp, lid, water, *, ambient_c, min_top_km, upwelling
     par, cv, first, inv, sat, vals = arrays
     par = par.copy()
     par[14], par[18], par[19] = min_top_km, ambient_c, crust_ratio
+    par[23] = np.nan if nodata is None else float(nodata)
     tp, lid = _plain(tp), _plain(lid)
     w = np.array([float(water)]) if one else _plain(water)
     up = np.array([np.nan if upwelling is None else float(np.ravel(upwelling)[0])])
     if upwelling is not None and np.size(upwelling) > 1:
         up = _plain(np.broadcast_to(np.asarray(upwelling, float), tp.shape))
-    out = np.empty((len(ROWS), tp.size), np.float32)
+    if out is None:
+        out = np.empty((len(ROWS), tp.size), np.float32)
     flag = np.zeros(tp.size, np.uint8)
     first_call = _COMPILE["seconds"] == 0.0
     t = time.perf_counter()
@@ -559,10 +573,11 @@ def use_compiled(compiled: bool | None) -> bool:
 
 
 def compiled_cells(table, tp, lid, water, *, ambient, min_top_km, upwelling, crust_ratio, clock,
-              numpy_path):  # fmt: skip
+              numpy_path, out=None, nodata=None):  # fmt: skip
     """The compiled kernel on broadcast arrays; its left cells by ``numpy_path``; or None.
 
-    ``numpy_path(tp, lid, water, upwelling)`` returns the outputs of 1-D cells by name.
+    ``numpy_path(tp, lid, water, upwelling)`` returns the outputs of 1-D cells by name; ``out``
+    and ``nodata`` are :func:`evaluate_compiled`'s.
     """
     shape = tp.shape
     t = np.ascontiguousarray(tp).ravel()
@@ -577,7 +592,7 @@ def compiled_cells(table, tp, lid, water, *, ambient, min_top_km, upwelling, cru
         up = np.ascontiguousarray(np.broadcast_to(np.asarray(upwelling, float), shape)).ravel()
     res = evaluate_compiled(
         table, t, d, w, ambient_c=ambient, min_top_km=float(min_top_km), upwelling=up,
-        crust_ratio=crust_ratio,
+        crust_ratio=crust_ratio, out=out, nodata=nodata,
     )  # fmt: skip
     if res is None:
         return None
