@@ -37,15 +37,13 @@ loads in about 1 s. Where neither is writable, every process compiles once.
 
 from __future__ import annotations
 
-import threading
 import time
-import weakref
 
 import numpy as np
 
 from lidmelt.errors import ModelError
-from lidmelt.physics.melting import MeltingModel
-from lidmelt.physics.table import WATER_EXPONENT, MeltTable
+from lidmelt.physics.kernel_arrays import ONSET_STEP_GPA, ambient_melt_nodes, kernel_arrays
+from lidmelt.physics.table import WATER_EXPONENT
 
 try:  # numba compiles the kernel; without it the numpy table path is used
     import numba
@@ -62,15 +60,6 @@ __all__ = [
 ]
 
 AVAILABLE = numba is not None
-#: Pressure step [GPa] of the tabulated onset curve Tp*(P). Linear interpolation errs by
-#: h^2 |Tp*''| / 8 < 1e-4 K (|Tp*''| < 30 K/GPa^2 for the Katz solidus away from the surface,
-#: [derived]), far inside the 0.2 km onset tolerance of tests/test_table.py.
-ONSET_STEP_GPA = 0.005
-#: Step [K] of the Tp grid on which the first node of the running maximum is indexed; a cell
-#: steps from there over at most a few nodes (a choice of speed, not of accuracy).
-_TP_INDEX_STEP_K = 0.25
-#: Water nodes of the bracketing curves where water varies (a choice of speed).
-_WATER_CURVES = 65
 #: Relative band about the saturation limit in which the cell goes to the numpy path, where the
 #: linear interpolation of the saturation limit might decide the flag differently (a choice).
 _SATURATION_BAND = 0.02
@@ -348,161 +337,12 @@ def _cells(
 
 
 # ------------------------------------------------------------------------------------------------
-# the arrays of a table and water content (numpy, made once and kept with the table)
-# ------------------------------------------------------------------------------------------------
-def _onset_curve(model: MeltingModel, p, water):
-    """Tp*(P) [deg C]: the Tp whose solid isentrope meets the solidus at P (see module doc)."""
-    with np.errstate(invalid="ignore", over="ignore"):
-        sol = model.solidus_c(p, water)
-    return (sol + 273.15) * np.exp(-model.adiabat_coefficient_per_gpa * p) - 273.15
-
-
-def _water_form(model: MeltingModel, p, water_max):
-    """(g0, d, u_sat) of Tp*(P, u) = g0 + d min(u, u_sat), checked; None if the model differs."""
-    g0 = _onset_curve(model, p, 0.0)
-    sat = np.asarray(model.water_saturated_bulk_wt_pct(p), float)
-    if not model.hydrous or water_max <= 0:
-        return g0, np.zeros_like(p), np.full_like(p, np.inf)
-    w_ref = 1e-3  # saturates the source only above 3.5e-4 GPa [derived], so at node 0 alone
-    d = (_onset_curve(model, p, w_ref) - g0) / w_ref**WATER_EXPONENT
-    us = sat**WATER_EXPONENT
-    for w in water_max * np.array([0.003, 0.05, 0.2, 0.5, 0.8, 1.0]):
-        form = g0 + d * np.minimum(w**WATER_EXPONENT, us)
-        if not np.all(np.abs(form - _onset_curve(model, p, w)) <= 1e-6):
-            return None
-    return g0, d, us
-
-
-def _first_nodes(curves, t0, n_t):
-    """For each curve (rows), the first node its running maximum reaches t0 + k dt (int32)."""
-    targets = t0 + _TP_INDEX_STEP_K * np.arange(n_t)
-    running = np.maximum.accumulate(curves, axis=1)
-    return np.stack([np.searchsorted(r, targets, side="left") for r in running]).astype(np.int32)
-
-
-def _arrays(table: MeltTable, water):
-    """The kernel's arrays for one water content (a float) or for water varying (None)."""
-    model, lay = table.model, table.layout
-    p = ONSET_STEP_GPA * np.arange(round(model.max_onset_pressure_gpa / ONSET_STEP_GPA) + 1)
-    sat = np.asarray(model.water_saturated_bulk_wt_pct(p), float)
-    form = _water_form(model, p, lay.water_max_wt_pct)
-    if form is not None and not np.all(np.isfinite(form[0])):
-        form = None
-    u_one = 0.0
-    if water is None:
-        if form is None:
-            return None
-        g0, dg, us = form
-        u_nodes = np.linspace(0.0, lay.water_max_wt_pct**WATER_EXPONENT, _WATER_CURVES)
-        curves = g0 + dg * np.minimum(u_nodes[:, None], us)
-        vals, inv_du_curve = table.values, (_WATER_CURVES - 1) / max(u_nodes[-1], 1e-300)
-    else:
-        if form is not None:  # the form keeps the kink where water saturates exact
-            g0, dg, us = form
-            u_one = water**WATER_EXPONENT
-        else:
-            g0 = _onset_curve(model, p, water)
-            dg, us = np.zeros_like(p), np.zeros_like(p)
-        if not np.all(np.isfinite(g0)):
-            return None
-        curves, inv_du_curve = (g0 + dg * np.minimum(u_one, us))[None], 0.0
-        j, a = (float(v) for v in table.water_index(np.array(water)))
-        j, j1 = int(j), min(int(j) + 1, table.water_u.size - 1)
-        vals = ((1 - a) * table.values[:, j] + a * table.values[:, j1])[:, None]
-    t0 = float(np.floor(np.min(curves[:, 0])))
-    n_t = int(np.ceil((np.max(curves) - t0) / _TP_INDEX_STEP_K)) + 2
-    du_table = table.water_u[1] - table.water_u[0] if table.water_u.size > 1 else np.inf
-    par = np.array(
-        [t0, 1.0 / _TP_INDEX_STEP_K, ONSET_STEP_GPA, lay.tp_min_c, 1.0 / lay.tp_step_k,
-         1.0 / lay.pressure_step_gpa, model.calibrated_max_pressure_gpa, u_one, 0.0, 0.0, 0.0,
-         inv_du_curve, 1.0 / du_table, float(model.solidus_c(0.0, 0.0)), 0.0,
-         float(model.pressure_gpa(1.0)), table.top_pressure_max_gpa,
-         model.max_onset_pressure_gpa, np.nan, 0.0, lay.water_max_wt_pct,
-         float(model.hydrous), lay.tp_max_c, np.nan],
-        float,
-    )  # fmt: skip
-    first = _first_nodes(curves, t0, n_t)
-    inv = np.stack([_inverse(c, f, t0) for c, f in zip(curves, first, strict=True)])
-    if water is None:
-        _check_water_steps(inv, g0, dg, us, u_nodes, t0)
-    cv = np.ascontiguousarray(np.stack([g0, dg, us], axis=1))
-    return par, cv, first, inv, sat, np.ascontiguousarray(vals, dtype=np.float32)
-
-
-def _check_water_steps(inv, g0, dg, us, u_nodes, t0):
-    """Blank (NaN: searched) the inverse table where linear in u errs by over 1e-3 GPa.
-
-    Checked against the exact inverse on the curves halfway between water nodes. For the Katz
-    solidus the error is at most 3.6e-4 GPa (11 m) for Tp 1300-1600 C [derived: this check's
-    own figures]; 1e-3 GPa (31 m) is a seventh of the 0.2 km onset tolerance of
-    tests/test_table.py.
-    """
-    mid_u = 0.5 * (u_nodes[:-1] + u_nodes[1:])
-    mid = g0 + dg * np.minimum(mid_u[:, None], us)
-    n_t = inv.shape[1]
-    first = _first_nodes(mid, t0, n_t)
-    exact = np.stack([_inverse(c, f, t0)[:, 0] for c, f in zip(mid, first, strict=True)])
-    with np.errstate(invalid="ignore"):
-        bad = ~(np.abs(0.5 * (inv[:-1, :, 0] + inv[1:, :, 0]) - exact) <= 1e-3)
-    bad |= np.isnan(exact) & np.isfinite(inv[:-1, :, 0])
-    bad[:, :-1] |= bad[:, 1:]  # a Tp bin uses the node above it too
-    inv[:-1][bad] = np.nan
-    inv[1:][bad] = np.nan
-
-
-def _inverse(curve, first, t0):
-    """(n_t, 2): onset [GPa] at t0 + k dt and its rise to the next k; NaN where not smooth.
-
-    Where the crossing moves by at most two curve nodes from one Tp node to the next, the onset
-    is linear in Tp within 1e-5 GPa [derived: h^2 |P''| / 8 with P'' = -g''/g'^3]; elsewhere
-    (near a tangency, or without a crossing) the kernel searches the curve.
-    """
-    targets = t0 + _TP_INDEX_STEP_K * np.arange(first.size)
-    i = first.astype(np.intp)
-    ok = (i >= 1) & (i < curve.size) & (targets > curve[0])
-    i = np.clip(i, 1, curve.size - 1)
-    ga, gb = curve[i - 1], curve[i]
-    with np.errstate(invalid="ignore", divide="ignore"):
-        p = np.where(ok, (i - 1 + (targets - ga) / (gb - ga)) * ONSET_STEP_GPA, np.nan)
-    smooth = ok[:-1] & ok[1:] & (np.diff(first) <= 2)
-    rise = np.where(smooth, np.diff(p), np.nan)
-    out = np.column_stack([np.where(smooth, p[:-1], np.nan), rise])
-    return np.ascontiguousarray(np.vstack([out, [np.nan, np.nan]]))
-
-
-_CACHE: weakref.WeakKeyDictionary = weakref.WeakKeyDictionary()
-_LOCK = threading.Lock()
-
-
-def _arrays_of(table: MeltTable, water):
-    """:func:`_arrays`, kept per table and water content (thread-safe; 16 water contents)."""
-    key = None if water is None else float(water)
-    with _LOCK:
-        per_table = _CACHE.setdefault(table, {})
-        if key not in per_table:
-            if len(per_table) > 16:
-                per_table.clear()
-            per_table[key] = _arrays(table, key)
-        return per_table[key]
-
-
-# ------------------------------------------------------------------------------------------------
 # the entry point
 # ------------------------------------------------------------------------------------------------
 def _plain(values):
     """A writable C-contiguous float64 copy or view (one compiled signature for every input)."""
     arr = np.ascontiguousarray(values, float)
     return arr if arr.flags.writeable else arr.copy()
-
-
-def _ambient_h(vals, par, ambient_c):
-    """H [km] at the ambient Tp on the table's (water, top pressure) nodes (linear in Tp)."""
-    if not np.isfinite(ambient_c):
-        return np.zeros((vals.shape[1], vals.shape[2]))
-    x = (ambient_c - par[3]) * par[4]
-    i = min(int(x), vals.shape[0] - 2)
-    a = x - i
-    return np.ascontiguousarray((1 - a) * vals[i, :, :, 0] + a * vals[i + 1, :, :, 0], float)
 
 
 _COMPILE = {"seconds": 0.0}
@@ -532,7 +372,7 @@ def evaluate_compiled(
     one = np.ndim(water) == 0
     if one and not 0.0 <= float(water) <= lay.water_max_wt_pct:
         return None
-    arrays = _arrays_of(table, float(water) if one else None)
+    arrays = kernel_arrays(table, float(water) if one else None)
     if arrays is None:
         return None
     par, cv, first, inv, sat, vals = arrays
@@ -549,7 +389,7 @@ def evaluate_compiled(
     flag = np.zeros(tp.size, np.uint8)
     first_call = _COMPILE["seconds"] == 0.0
     t = time.perf_counter()
-    amb = _ambient_h(vals, par, ambient_c)
+    amb = ambient_melt_nodes(vals, par, ambient_c)
     slow = np.zeros(tp.size, np.bool_)
     _cells(
         tp, lid, w, 0 if one else 1, up, 0 if up.size == 1 else 1, par, cv, first, inv, sat,
