@@ -9,7 +9,7 @@ them before the kernel; ensembles (:mod:`lidmelt.ensemble`) run them once per di
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import Any
 
 import xarray as xr
@@ -103,9 +103,10 @@ def load_inputs(cfg, *, target: Grid, chunks: int, cache: dict | None = None) ->
         if inp is None:
             continue
         cache = {} if cache is None else cache
-        if (name, inp) not in cache:
-            cache[(name, inp)] = _load_input(inp, name, target, chunks)
-        values[name], provenance[name] = cache[(name, inp)][0], dict(cache[(name, inp)][1])
+        key = (name, replace(inp, plumes=()))  # the plumes are added below, per call
+        if key not in cache:
+            cache[key] = _load_input(inp, name, target, chunks)
+        values[name], provenance[name] = cache[key][0], dict(cache[key][1])
         if name == "thermal_anomaly_k" and inp.plumes:
             values[name] = _add_plumes(inp, values[name], provenance[name], target, chunks)
     _add_plume_upwelling(cfg, values, provenance, target, chunks)

@@ -69,15 +69,28 @@ def _first_nodes(curves, t0, n_t):
     return np.stack([np.searchsorted(r, targets, side="left") for r in running]).astype(np.int32)
 
 
-def _arrays(table: MeltTable, water):
-    """The kernel's arrays for one water content (a float) or for water varying (None)."""
+def _model_arrays(table: MeltTable):
+    """The pressure nodes, the saturation limit and the checked water form of ``table``'s model
+    (the same for every water content)."""
     model, lay = table.model, table.layout
     p = ONSET_STEP_GPA * np.arange(round(model.max_onset_pressure_gpa / ONSET_STEP_GPA) + 1)
     sat = np.asarray(model.water_saturated_bulk_wt_pct(p), float)
     form = _water_form(model, p, lay.water_max_wt_pct)
     if form is not None and not np.all(np.isfinite(form[0])):
         form = None
-    u_one = 0.0
+    return p, sat, form
+
+
+def _arrays(table: MeltTable, water, model_arrays):
+    """The kernel's arrays for one water content (a float) or for water varying (None).
+
+    For one water content the table's values are not copied: the kernel interpolates them in
+    the water coordinate of that content (``par[7]``), as where water varies, so that the arrays
+    of many contents (an ensemble's members) are small enough to keep.
+    """
+    model, lay = table.model, table.layout
+    p, sat, form = model_arrays
+    u_one = water**WATER_EXPONENT if water else 0.0
     if water is None:
         if form is None:
             return None
@@ -88,16 +101,13 @@ def _arrays(table: MeltTable, water):
     else:
         if form is not None:  # the form keeps the kink where water saturates exact
             g0, dg, us = form
-            u_one = water**WATER_EXPONENT
-        else:
+        else:  # the curve at this water itself; d = 0 makes it independent of u
             g0 = _onset_curve(model, p, water)
             dg, us = np.zeros_like(p), np.zeros_like(p)
         if not np.all(np.isfinite(g0)):
             return None
         curves, inv_du_curve = (g0 + dg * np.minimum(u_one, us))[None], 0.0
-        j, a = (float(v) for v in table.water_index(np.array(water)))
-        j, j1 = int(j), min(int(j) + 1, table.water_u.size - 1)
-        vals = ((1 - a) * table.values[:, j] + a * table.values[:, j1])[:, None]
+        vals = table.values
     t0 = float(np.floor(np.min(curves[:, 0])))
     n_t = int(np.ceil((np.max(curves) - t0) / TP_INDEX_STEP_K)) + 2
     du_table = table.water_u[1] - table.water_u[0] if table.water_u.size > 1 else np.inf
@@ -163,15 +173,23 @@ _CACHE: weakref.WeakKeyDictionary = weakref.WeakKeyDictionary()
 _LOCK = threading.Lock()
 
 
+#: Water contents whose arrays are kept per table (each about 0.3 MB): more than the members
+#: of a large ensemble, so that each member's are made once per process, not once per chunk.
+_KEPT = 512
+
+
 def kernel_arrays(table: MeltTable, water):
-    """:func:`_arrays`, kept per table and water content (thread-safe; 16 water contents)."""
+    """:func:`_arrays`, kept per table and water content (thread-safe)."""
     key = None if water is None else float(water)
     with _LOCK:
         per_table = _CACHE.setdefault(table, {})
         if key not in per_table:
-            if len(per_table) > 16:
+            if "model" not in per_table:
+                per_table["model"] = _model_arrays(table)
+            if len(per_table) > _KEPT:
                 per_table.clear()
-            per_table[key] = _arrays(table, key)
+                per_table["model"] = _model_arrays(table)
+            per_table[key] = _arrays(table, key, per_table["model"])
         return per_table[key]
 
 
