@@ -111,8 +111,21 @@ def _area_integral(layer: np.ndarray, finite: np.ndarray, area: np.ndarray) -> f
     return float(np.sum(layer * np.broadcast_to(area, layer.shape), where=finite))
 
 
-def _chunk_record_block(block, area, age=None, *, out_index, integrals) -> np.ndarray:
-    """:func:`chunk_record` as a dask block function: the record as a (size, 1, 1) block."""
+def _chunk_record_block(
+    block, *arrays, area_rows=None, out_index, integrals, block_info=None
+) -> np.ndarray:
+    """:func:`chunk_record` as a dask block function: the record as a (size, 1, 1) block.
+
+    ``arrays`` are the area block (unless ``area_rows``, the row areas of the whole grid as a
+    numpy column, gives it) and the age block (if any).
+    """
+    arrays = list(arrays)
+    if area_rows is None:
+        area = arrays.pop(0)
+    else:
+        (r0, r1) = block_info[0]["array-location"][1]
+        area = area_rows[r0:r1]
+    age = arrays[0] if arrays else None
     rec = chunk_record(block, area, age, out_index=out_index, integrals=integrals)
     return rec[:, None, None]
 
@@ -121,20 +134,23 @@ def band_parts(rows: slice, *, stacked, area, age, out_index: list[int], integra
     """The statistics of one band: a dask array of one :func:`chunk_record` per chunk.
 
     ``stacked`` is the kernel's (layers, y, x) dask array; ``area`` the cell area (km2, dask)
-    chunked like it, or one column of row areas ((y, 1), for a geographic grid, whose cells in
-    a row are equal); ``integrals`` lists (stacked index) the outputs whose area integral is
-    summed (melt thickness-like in km, production in mm/yr); ``age`` is the plate age (dask)
+    chunked like it, or a numpy column (y, 1) of the whole grid's row areas (a geographic grid,
+    whose cells in a row are equal; not a node of the graph); ``integrals`` lists (stacked
+    index) the outputs whose area integral is summed (melt thickness-like in km, production in
+    mm/yr); ``age`` is the plate age (dask)
     or None. One task per chunk, computed in the same pass as the stores, where the chunk is
     in memory anyway.
     """
     import dask.array as dsa
 
     band = stacked[:, rows]
-    arrays = [band, area[rows]] + ([] if age is None else [age[rows]])
+    column = isinstance(area, np.ndarray)  # row areas: no dask dependency, sliced per block
+    arrays = [band] + ([] if column else [area[rows]]) + ([] if age is None else [age[rows]])
     size = record_size(len(out_index), len(integrals), age is not None)
     records = dsa.map_blocks(
         _chunk_record_block,
         *arrays,
+        area_rows=area[rows] if column else None,
         out_index=tuple(out_index),
         integrals=tuple(integrals),
         dtype=np.float64,
