@@ -1,10 +1,11 @@
 """The summary statistics of a run, band by band, and the warnings they raise.
 
-:func:`band_parts` gives the dask sums, counts and histograms of one band of the kernel's stacked
-outputs (computed in the same pass that stores the GeoTIFFs); :func:`summarize_bands` combines
-them into the ``statistics`` entry of ``summary.json``; :func:`ambient_melting_warnings` words the
-warning when much of the grid melts at the ambient temperature. Variable names, units and the
-regime values are those of :mod:`lidmelt.variables` and docs/physics.md ("Definitions").
+:func:`band_parts` gives one record per chunk of a band of the kernel's stacked outputs (sums,
+counts, minima, maxima and histograms, :func:`chunk_record`; one dask task per chunk, computed in
+the same pass that stores the GeoTIFFs); :func:`summarize_bands` combines them into the
+``statistics`` entry of ``summary.json``; :func:`ambient_melting_warnings` words the warning when
+much of the grid melts at the ambient temperature. Variable names, units and the regime values are
+those of :mod:`lidmelt.variables` and docs/physics.md ("Definitions").
 """
 
 from __future__ import annotations
@@ -20,6 +21,8 @@ __all__ = [
     "AMBIENT_MELT_WARN_FRACTION",
     "ambient_melting_warnings",
     "band_parts",
+    "chunk_record",
+    "record_size",
     "summarize_bands",
 ]
 
@@ -38,40 +41,122 @@ def _index(name: str) -> int | None:
     return list(OUTPUTS).index(name) if name in OUTPUTS else None
 
 
-def band_parts(rows: slice, *, stacked, area, age, out_index: list[int], integrals) -> list:
-    """Sums, counts, minima and maxima of one band, with the regime-1 histograms last.
+def record_size(n_outputs: int, n_integrals: int, with_age: bool) -> int:
+    """Length of one chunk's record (:func:`chunk_record`)."""
+    return _COUNTS + n_integrals + 4 * n_outputs + _HIST_BINS * (2 if with_age else 1)
 
-    ``integrals`` lists (stacked index) of the outputs whose area integral is summed (melt
-    thickness-like in km, production in mm/yr); ``age`` is the plate age (dask) or None.
+
+def chunk_record(
+    block: np.ndarray,
+    area: np.ndarray,
+    age: np.ndarray | None,
+    *,
+    out_index: tuple[int, ...],
+    integrals: tuple[int, ...],
+) -> np.ndarray:
+    """The statistics of one chunk of the kernel's stacked outputs as one float64 record.
+
+    ``block`` is (layers, y, x) (:data:`lidmelt.variables.OUTPUTS` order, the flag last);
+    ``area`` the cell areas (km2), (y, x) or one column (y, 1) of row areas; ``age`` the plate
+    age (y, x) or None. The record holds, in order: the :data:`_COUNTS` counts and sums
+    (melting cells, cells with data, melting area, melt volume, cells of regime 0, 1, 2), the
+    area integral of each of ``integrals``, per ``out_index`` the minimum, maximum, sum and
+    count of the cells with data (NaN minimum and maximum without any), then the histograms of
+    the top of melting and (with ``age``) the plate age of the regime-1 cells. Counts are
+    exact (float64 holds whole numbers up to 2**53).
+    """
+    thickness = block[0]
+    regime = block[_index("melting_regime")]
+    finite = np.isfinite(thickness)
+    melting = thickness > 0
+    ambient = regime == 1
+    rec = [
+        np.count_nonzero(melting),
+        np.count_nonzero(finite),
+        _area_sum(melting, area),
+        _area_integral(thickness, finite, area),
+        np.count_nonzero(regime == 0),
+        np.count_nonzero(ambient),
+        np.count_nonzero(regime == 2),
+    ]
+    for k in integrals:
+        layer = block[k]
+        rec.append(_area_integral(layer, finite if k == 0 else np.isfinite(layer), area))
+    for k in out_index:
+        layer = block[k]
+        values = layer[finite if k == 0 else np.isfinite(layer)]
+        if values.size:
+            rec += [values.min(), values.max(), values.sum(dtype=np.float64), values.size]
+        else:
+            rec += [np.nan, np.nan, 0.0, 0]
+    top = block[_index("lid_depth_km")][ambient]
+    hists = [np.histogram(top, bins=_HIST_BINS, range=_HIST_RANGE)[0]]
+    if age is not None:
+        hists.append(np.histogram(age[ambient], bins=_HIST_BINS, range=_HIST_RANGE)[0])
+    return np.concatenate([np.array(rec, dtype=np.float64), *hists])
+
+
+def _area_sum(mask: np.ndarray, area: np.ndarray) -> float:
+    """Sum of the cell areas where ``mask`` (row by row when ``area`` is one column)."""
+    if area.shape[-1] == 1 and mask.shape[-1] != 1:
+        return float(area[:, 0] @ np.count_nonzero(mask, axis=1).astype(np.float64))
+    return float(np.sum(np.broadcast_to(area, mask.shape), where=mask))
+
+
+def _area_integral(layer: np.ndarray, finite: np.ndarray, area: np.ndarray) -> float:
+    """Sum of ``layer`` x cell area over the ``finite`` cells (float64)."""
+    if area.shape[-1] == 1 and layer.shape[-1] != 1:
+        rows = np.add.reduce(layer, axis=1, dtype=np.float64, where=finite)
+        return float(area[:, 0] @ rows)
+    return float(np.sum(layer * np.broadcast_to(area, layer.shape), where=finite))
+
+
+def _chunk_record_block(
+    block, *arrays, area_rows=None, out_index, integrals, block_info=None
+) -> np.ndarray:
+    """:func:`chunk_record` as a dask block function: the record as a (size, 1, 1) block.
+
+    ``arrays`` are the area block (unless ``area_rows``, the row areas of the whole grid as a
+    numpy column, gives it) and the age block (if any).
+    """
+    arrays = list(arrays)
+    if area_rows is None:
+        area = arrays.pop(0)
+    else:
+        (r0, r1) = block_info[0]["array-location"][1]
+        area = area_rows[r0:r1]
+    age = arrays[0] if arrays else None
+    rec = chunk_record(block, area, age, out_index=out_index, integrals=integrals)
+    return rec[:, None, None]
+
+
+def band_parts(rows: slice, *, stacked, area, age, out_index: list[int], integrals) -> list:
+    """The statistics of one band: a dask array of one :func:`chunk_record` per chunk.
+
+    ``stacked`` is the kernel's (layers, y, x) dask array; ``area`` the cell area (km2, dask)
+    chunked like it, or a numpy column (y, 1) of the whole grid's row areas (a geographic grid,
+    whose cells in a row are equal; not a node of the graph); ``integrals`` lists (stacked
+    index) the outputs whose area integral is summed (melt thickness-like in km, production in
+    mm/yr); ``age`` is the plate age (dask)
+    or None. One task per chunk, computed in the same pass as the stores, where the chunk is
+    in memory anyway.
     """
     import dask.array as dsa
 
-    thickness, cell_area = stacked[0, rows], area[rows]
-    regime = stacked[_index("melting_regime"), rows]
-    melting = thickness > 0
-    parts = [
-        dsa.sum(melting),
-        dsa.sum(dsa.isfinite(thickness)),
-        dsa.sum(dsa.where(melting, cell_area, 0.0)),
-        dsa.nansum(thickness * cell_area),
-        *(dsa.sum(regime == value) for value in (0, 1, 2)),
-    ]
-    parts += [dsa.nansum(stacked[k, rows].astype(np.float64) * cell_area) for k in integrals]
-    for k in out_index:
-        band = stacked[k, rows]
-        parts += [
-            dsa.nanmin(band),
-            dsa.nanmax(band),
-            dsa.nansum(band.astype(np.float64)),
-            dsa.sum(dsa.isfinite(band)),
-        ]
-    ambient = regime == 1
-    top = stacked[_index("lid_depth_km"), rows]
-    hists = [dsa.histogram(dsa.where(ambient, top, -1.0), bins=_HIST_BINS, range=_HIST_RANGE)[0]]
-    if age is not None:
-        band_age = dsa.where(ambient, age[rows], -1.0)
-        hists.append(dsa.histogram(band_age, bins=_HIST_BINS, range=_HIST_RANGE)[0])
-    return [*parts, hists]
+    band = stacked[:, rows]
+    column = isinstance(area, np.ndarray)  # row areas: no dask dependency, sliced per block
+    arrays = [band] + ([] if column else [area[rows]]) + ([] if age is None else [age[rows]])
+    size = record_size(len(out_index), len(integrals), age is not None)
+    records = dsa.map_blocks(
+        _chunk_record_block,
+        *arrays,
+        area_rows=area[rows] if column else None,
+        out_index=tuple(out_index),
+        integrals=tuple(integrals),
+        dtype=np.float64,
+        chunks=((size,), *((1,) * len(c) for c in band.chunks[1:])),
+    )
+    return [records]
 
 
 def _median_of_histogram(counts: np.ndarray) -> float | None:
@@ -85,42 +170,46 @@ def _median_of_histogram(counts: np.ndarray) -> float | None:
 
 
 def summarize_bands(bands: list[list], *, names: list[str], integrals: list[str]) -> dict:
-    """The ``statistics`` entry of the summary from the per-band parts of :func:`band_parts`.
+    """The ``statistics`` entry of the summary from the per-band records of :func:`band_parts`.
 
     Counts, the melting area (km2), the melt volume (km3, thickness x cell area), the cells per
     melting regime and the area integral of each of ``integrals`` (km3 for km, km3/yr for
-    mm/yr) are sums over bands; per variable the minimum, maximum and mean over cells with data
-    (None where no cell has data); ``ambient_melting`` describes the regime-1 cells.
+    mm/yr) are sums over the chunks; per variable the minimum, maximum and mean over cells with
+    data (None where no cell has data); ``ambient_melting`` describes the regime-1 cells.
     """
-    parts = np.array([band[:-1] for band in bands], dtype=float)  # (bands, values)
-    hists = [sum(band[-1][j] for band in bands) for j in range(len(bands[0][-1]))]
+    # every chunk's record as a column, bands in order, chunks row by row within a band
+    records = np.concatenate([np.reshape(band[0], (band[0].shape[0], -1)) for band in bands], 1)
     first = _COUNTS + len(integrals)
+    hist_start = first + 4 * len(names)
+    totals = records[:hist_start].sum(axis=1)
+    hists = records[hist_start:].sum(axis=1).reshape(-1, _HIST_BINS)
     variables = {}
     for j, name in enumerate(names):
-        col = parts[:, first + 4 * j : first + 4 + 4 * j]
-        count = col[:, 3].sum()
-        with np.errstate(invalid="ignore"):
-            low = float(np.nanmin(col[:, 0])) if count else np.nan
-            high = float(np.nanmax(col[:, 1])) if count else np.nan
-        mean = col[:, 2].sum() / count if count else np.nan
+        col = records[first + 4 * j : first + 4 + 4 * j]
+        count = totals[first + 4 * j + 3]
+        with np.errstate(invalid="ignore"), warnings.catch_warnings():
+            warnings.simplefilter("ignore", RuntimeWarning)  # chunks without data: NaN
+            low = float(np.nanmin(col[0])) if count else np.nan
+            high = float(np.nanmax(col[1])) if count else np.nan
+        mean = totals[first + 4 * j + 2] / count if count else np.nan
         stats = {"min": low, "max": high, "mean": mean}
-        variables[name] = {k: v if np.isfinite(v) else None for k, v in stats.items()}
-    totals = parts.sum(axis=0)
+        variables[name] = {k: float(v) if np.isfinite(v) else None for k, v in stats.items()}
     out: dict[str, Any] = {
         "data_cells": int(totals[1]),
         "melting_cells": int(totals[0]),
-        "melting_area_km2": totals[2],
-        "melt_volume_km3": totals[3],
+        "melting_area_km2": float(totals[2]),
+        "melt_volume_km3": float(totals[3]),
         "regime_cells": {str(v): int(totals[4 + v]) for v in (0, 1, 2)},
     }
     for j, name in enumerate(integrals):
         if OUTPUTS[name].units == "mm/yr":
-            out[name.removesuffix("_mm_yr") + "_km3_yr"] = totals[_COUNTS + j] * _KM3_PER_MM_KM2
+            total = totals[_COUNTS + j] * _KM3_PER_MM_KM2
+            out[name.removesuffix("_mm_yr") + "_km3_yr"] = float(total)
         else:
-            out[name.removesuffix("_thickness_km") + "_volume_km3"] = totals[_COUNTS + j]
+            out[name.removesuffix("_thickness_km") + "_volume_km3"] = float(totals[_COUNTS + j])
     out["ambient_melting"] = {
         "cells": int(totals[5]),
-        "fraction_of_data_cells": totals[5] / totals[1] if totals[1] else None,
+        "fraction_of_data_cells": float(totals[5] / totals[1]) if totals[1] else None,
         "median_top_of_melting_km": _median_of_histogram(hists[0]),
         "median_plate_age_ma": _median_of_histogram(hists[1]) if len(hists) > 1 else None,
     }

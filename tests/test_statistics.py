@@ -1,0 +1,91 @@
+"""The run's summary statistics from per-chunk records (lidmelt.statistics)."""
+
+from __future__ import annotations
+
+import dask.array as dsa
+import numpy as np
+import numpy.testing as npt
+
+from lidmelt.statistics import band_parts, summarize_bands
+from lidmelt.variables import OUTPUTS
+
+NAMES = list(OUTPUTS)
+K = {name: k for k, name in enumerate(NAMES)}
+INTEGRALS = ["anomaly_melt_thickness_km"]
+
+
+def _stacked(rng, shape=(40, 30)):
+    """Invented outputs: NaN land, melting and non-melting cells, regimes 0/1/2, flag last."""
+    layers = rng.uniform(0.0, 20.0, (len(NAMES) + 1, *shape)).astype(np.float32)
+    layers[K["melt_thickness_km"]][rng.random(shape) < 0.3] = 0.0
+    layers[K["melting_regime"]] = rng.integers(0, 3, shape)
+    land = rng.random(shape) < 0.25
+    layers[: len(NAMES), land] = np.nan
+    layers[K["onset_depth_km"]][layers[K["melt_thickness_km"]] == 0] = np.nan  # only melting
+    return layers
+
+
+def _summary(layers, area, age, chunks):
+    stacked = dsa.from_array(layers, chunks=(layers.shape[0], *chunks))
+    age_d = dsa.from_array(age, chunks=chunks)
+    area_arg = area if area.shape[1] == 1 else dsa.from_array(area, chunks=chunks)
+    height = layers.shape[1]
+    bands = []
+    for r in range(0, height, 2 * chunks[0]):
+        parts = band_parts(
+            slice(r, min(r + 2 * chunks[0], height)), stacked=stacked, area=area_arg,
+            age=age_d, out_index=list(range(len(NAMES))), integrals=[K[n] for n in INTEGRALS],
+        )  # fmt: skip
+        bands.append([p.compute() for p in parts])
+    return summarize_bands(bands, names=NAMES, integrals=INTEGRALS)
+
+
+def test_statistics_from_chunk_records_equal_whole_grid_numpy():
+    rng = np.random.default_rng(3)
+    layers = _stacked(rng)
+    rows = rng.uniform(10.0, 20.0, (layers.shape[1], 1))  # km2, equal along a row
+    area = np.broadcast_to(rows, layers.shape[1:])
+    age = rng.uniform(0.0, 200.0, layers.shape[1:]).astype(np.float32)
+    st = _summary(layers, rows, age, chunks=(8, 7))
+    thickness, regime = layers[0], layers[K["melting_regime"]]
+    # reference values: the definitions in docs/physics.md ("Definitions") over the whole grid
+    assert st["melting_cells"] == int(np.sum(thickness > 0))
+    assert st["data_cells"] == int(np.sum(np.isfinite(thickness)))
+    for v in (0, 1, 2):
+        assert st["regime_cells"][str(v)] == int(np.sum(regime == v))
+    npt.assert_allclose(st["melting_area_km2"], area[thickness > 0].sum(), rtol=1e-12)
+    npt.assert_allclose(st["melt_volume_km3"], np.nansum(thickness * area), rtol=1e-12)
+    anomaly = layers[K["anomaly_melt_thickness_km"]]
+    npt.assert_allclose(st["anomaly_melt_volume_km3"], np.nansum(anomaly * area), rtol=1e-12)
+    for name in NAMES:
+        layer = layers[K[name]]
+        got = st["variables"][name]
+        assert got["min"] == float(np.nanmin(layer))  # exact: a value of the grid
+        assert got["max"] == float(np.nanmax(layer))
+        npt.assert_allclose(got["mean"], np.nanmean(layer.astype(np.float64)), rtol=1e-12)
+    ambient = regime == 1
+    assert st["ambient_melting"]["cells"] == int(ambient.sum())
+    # the histogram median (0.5-wide bins, bin centre) lies within half a bin of numpy's median
+    top = layers[K["lid_depth_km"]][ambient]
+    assert abs(st["ambient_melting"]["median_top_of_melting_km"] - np.median(top)) <= 0.5
+    assert abs(st["ambient_melting"]["median_plate_age_ma"] - np.median(age[ambient])) <= 0.5
+
+
+def test_row_area_column_gives_the_full_area_grid_results():
+    rng = np.random.default_rng(4)
+    layers = _stacked(rng, shape=(33, 20))
+    rows = rng.uniform(10.0, 20.0, (33, 1))
+    age = rng.uniform(0.0, 200.0, (33, 20)).astype(np.float32)
+    column = _summary(layers, rows, age, chunks=(8, 6))
+    full = _summary(layers, np.broadcast_to(rows, (33, 20)).copy(), age, chunks=(8, 6))
+    assert column["variables"] == full["variables"]  # these do not depend on the area
+    for key in ("melting_area_km2", "melt_volume_km3", "anomaly_melt_volume_km3"):
+        npt.assert_allclose(column[key], full[key], rtol=1e-12)  # same sum, other order
+
+
+def test_a_variable_without_data_has_none_statistics():
+    rng = np.random.default_rng(5)
+    layers = _stacked(rng, shape=(16, 16))
+    layers[K["excess_to_melt_k"]] = np.nan
+    st = _summary(layers, np.ones((16, 1)), np.zeros((16, 16), np.float32), chunks=(8, 8))
+    assert st["variables"]["excess_to_melt_k"] == {"min": None, "max": None, "mean": None}
