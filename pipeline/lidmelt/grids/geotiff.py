@@ -12,6 +12,7 @@ import contextlib
 import json
 import logging
 import math
+import os
 import tempfile
 import threading
 from collections.abc import Iterator, Mapping
@@ -57,6 +58,11 @@ TILE = 512
 #: GDAL block cache while writing several files or converting to COG, MB: the default (5 % of
 #: RAM) lets GDAL hold up to that much; 256 MB keeps memory flat (benchmarks/bench_write.py).
 COG_CACHE_MB = 256
+# GDAL sizes its block cache (default 5 % of RAM, 1.2 GB here) once, when a thread first reads
+# or writes, so per-call settings come too late: capping it when lidmelt's grids are imported
+# keeps a run's peak memory flat (a global 1' run: 1290 -> 624 MB, benchmarks/bench_basin.py).
+# A value the user set in the environment wins.
+os.environ.setdefault("GDAL_CACHEMAX", str(COG_CACHE_MB))
 
 #: Data types lidmelt writes to GeoTIFF.
 DTYPES = ("float32", "float64", "uint8", "uint16", "int16", "int32")
