@@ -268,3 +268,23 @@ def test_registry_knows_the_ensemble_outputs():
         "50th percentile of the ensemble"
     )
     assert ensemble_variable("nothing_p5") is None
+
+
+def test_order_statistics_equal_a_full_sort_on_every_kind_of_cell():
+    """Cells whose members agree are not sorted; check values: the order statistic of rank
+    ceil(q n / 100) of the finite members of each cell, from a plain sort of that cell
+    (Hyndman & Fan 1996, definition 1)."""
+    from lidmelt.ensemble.kernel import order_statistics
+
+    rng = np.random.default_rng(5)
+    stack = rng.random((40, 600)).astype(np.float32)
+    stack[:, :100] = 0.0  # every member equal
+    stack[:, 100:150] = np.nan  # no member has a value
+    stack[rng.random(stack.shape) < 0.2] = np.nan  # some members without a value
+    stack[:, 150:200] = np.round(stack[:, 150:200] * 3)  # ties
+    got = order_statistics(stack, (10, 50, 90))
+    for c in range(stack.shape[1]):
+        values = np.sort(stack[np.isfinite(stack[:, c]), c])
+        for k, q in enumerate((10, 50, 90)):
+            rank = max(int(np.ceil(q * values.size / 100)) - 1, 0)
+            np.testing.assert_array_equal(got[k, c], values[rank] if values.size else np.nan)

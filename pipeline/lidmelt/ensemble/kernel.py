@@ -72,14 +72,28 @@ class MemberPlan:
 
 
 def order_statistics(stack: np.ndarray, percentiles) -> np.ndarray:
-    """Percentiles over axis 0 of ``stack`` as order statistics (NaN members left out)."""
-    ordered = np.sort(stack, axis=0)  # NaN sorts last
+    """Percentiles over axis 0 of ``stack`` as order statistics (NaN members left out).
+
+    Only cells whose members differ are sorted: where every member has the same finite value
+    (far from melting: H = 0 in all) each order statistic is that value, and where none has a
+    value it is NaN. Sorting was most of an ensemble's cost beyond the kernel
+    (``benchmarks/bench_ensemble.py``).
+    """
     count = np.isfinite(stack).sum(axis=0)
     out = np.full((len(percentiles), *stack.shape[1:]), np.nan, stack.dtype)
+    with np.errstate(invalid="ignore"):
+        low = np.fmin.reduce(stack, axis=0)
+        same = (count == len(stack)) & (low == np.fmax.reduce(stack, axis=0))
+    out[:, same] = low[same]
+    todo = ~same & (count > 0)
+    if not todo.any():
+        return out
+    ordered = np.sort(stack[:, todo], axis=0)  # NaN sorts last
+    n = count[todo]
     for k, q in enumerate(percentiles):
-        rank = np.maximum(np.ceil(q * count / 100.0).astype(np.int64) - 1, 0)
-        value = np.take_along_axis(ordered, np.minimum(rank, len(stack) - 1)[None], axis=0)[0]
-        out[k] = np.where(count > 0, value, np.nan)
+        rank = np.maximum(np.ceil(q * n / 100.0).astype(np.int64) - 1, 0)
+        rank = np.minimum(rank, len(stack) - 1)
+        out[k, todo] = np.take_along_axis(ordered, rank[None], axis=0)[0]
     return out
 
 
