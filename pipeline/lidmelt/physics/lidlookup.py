@@ -48,6 +48,11 @@ from dataclasses import dataclass
 import numpy as np
 import numpy.typing as npt
 
+try:  # compiles the plate lookup's loop; without it the numpy passes below do the same
+    import numba
+except ImportError:  # pragma: no cover - the numpy path is tested by forcing it
+    numba = None
+
 from lidmelt.physics import _plate
 from lidmelt.physics.cooling import (
     SECONDS_PER_MA,
@@ -97,7 +102,7 @@ class LidLookup:
         """Oldest age the nodes hold [Ma] (infinite for the half-space's exact line)."""
         return math.inf if self.slope_km is not None else AGE_MAX_MA
 
-    def depth_km(self, age_ma: npt.ArrayLike) -> np.ndarray:
+    def depth_km(self, age_ma: npt.ArrayLike, *, compiled: bool = True) -> np.ndarray:
         """Isotherm depth below the seafloor at these plate ages.
 
         Parameters
@@ -110,24 +115,23 @@ class LidLookup:
         numpy.ndarray
             Depth, float64, the shape of ``age_ma``. Units: km. Within :data:`TOLERANCE_KM` of
             :func:`~lidmelt.physics.cooling.isotherm_depth_km`; beyond :data:`AGE_MAX_MA` it
-            is that function's value.
+            is that function's value. A plate's nodes are read in one compiled loop where
+            numba imports (``compiled=False``: the same arithmetic in numpy passes).
         """
         age = np.asarray(age_ma)
         shape = age.shape
         flat = age.reshape(-1)
-        with np.errstate(invalid="ignore"):
-            s = np.sqrt(flat, dtype=np.float64)  # NaN for negative ages
-        if self.slope_km is not None:
-            s *= self.slope_km
-            return s.reshape(shape)[()]
-        s *= 1.0 / self.step
-        outside = ~(s <= float(self.base_km.size - 1))  # NaN, negative or beyond the nodes
-        np.copyto(s, 0.0, where=outside)
-        i = s.astype(np.intp)
-        s -= i  # fraction within the step
-        out = np.take(self.rise_km, i)
-        out *= s
-        out += np.take(self.base_km, i)
+        if numba is not None and compiled and self.slope_km is None:
+            out = np.empty(flat.size)
+            outside = np.zeros(flat.size, np.bool_)
+            _plate_loop(flat, 1.0 / self.step, self.base_km, self.rise_km, out, outside)
+        else:
+            with np.errstate(invalid="ignore"):
+                s = np.sqrt(flat, dtype=np.float64)  # NaN for negative ages
+            if self.slope_km is not None:
+                s *= self.slope_km
+                return s.reshape(shape)[()]
+            out, outside = self._plate_numpy(s)
         if outside.any():
             where = np.flatnonzero(outside)
             old = flat[where]
@@ -138,6 +142,34 @@ class LidLookup:
                     self.isotherm_c, old[beyond], model=self.model
                 )
         return out.reshape(shape)[()]
+
+    def _plate_numpy(self, s: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Depths at ``s`` = sqrt(age) (overwritten) and where ``s`` is off the nodes."""
+        s *= 1.0 / self.step
+        outside = ~(s <= float(self.base_km.size - 1))  # NaN, negative or beyond the nodes
+        np.copyto(s, 0.0, where=outside)
+        i = s.astype(np.intp)
+        s -= i  # fraction within the step
+        out = np.take(self.rise_km, i)
+        out *= s
+        out += np.take(self.base_km, i)
+        return out, outside
+
+
+def _plate_loop(age, inv_step, base, rise, out, outside):
+    """:meth:`LidLookup._plate_numpy` cell by cell (the same operations in the same order)."""
+    last = base.size - 1
+    for n in range(age.size):
+        x = np.sqrt(np.float64(age[n])) * inv_step
+        if not x <= last:  # NaN, negative or beyond the nodes
+            outside[n] = True
+            x = 0.0
+        i = int(x)
+        out[n] = rise[i] * (x - i) + base[i]
+
+
+if numba is not None:
+    _plate_loop = numba.njit(nogil=True, cache=True, error_model="numpy")(_plate_loop)
 
 
 def lid_lookup(isotherm_c: float, *, model: CoolingModel) -> LidLookup:
