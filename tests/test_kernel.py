@@ -134,3 +134,20 @@ def test_out_and_nodata_give_the_same_values_on_both_paths(compiled):
     for k, name in enumerate(OUTPUT_ROWS):
         want = np.where(missing, np.nan, plain.get(name, np.full(tp.size, np.nan)))
         npt.assert_array_equal(out[k], want.astype(np.float32), err_msg=name)
+
+
+@pytest.mark.parametrize("compiled", [True, False])
+def test_no_anomaly_means_exactly_no_anomaly_melt(compiled):
+    """Where Tp equals the ambient Tp the anomaly adds nothing: anomaly melt thickness exactly
+    0 (check value: its definition H(ambient + 0) - H(ambient), docs/physics.md), also where the
+    ambient mantle melts (young seafloor, thin lids) and with water."""
+    if compiled and not kernel.AVAILABLE:
+        pytest.skip("numba is not installed")
+    lid = np.linspace(0.0, 120.0, 2000)
+    for water in (0.0, 0.01):
+        out = evaluate_cells(
+            np.full(lid.size, 1350.0), lid, water, ambient_potential_temperature_c=1350.0,
+            compiled=compiled,
+        )  # fmt: skip
+        assert (out["melt_thickness_km"] > 0).any()  # the ambient mantle melts under thin lids
+        npt.assert_array_equal(out["anomaly_melt_thickness_km"], 0.0)

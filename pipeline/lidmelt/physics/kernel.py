@@ -42,7 +42,7 @@ import time
 import numpy as np
 
 from lidmelt.errors import ModelError
-from lidmelt.physics.kernel_arrays import ONSET_STEP_GPA, ambient_melt_nodes, kernel_arrays
+from lidmelt.physics.kernel_arrays import ONSET_STEP_GPA, kernel_arrays
 from lidmelt.physics.table import WATER_EXPONENT
 
 try:  # numba compiles the kernel; without it the numpy table path is used
@@ -213,10 +213,11 @@ def _column(tp, w, u, top_p, p_on, par, sat, vals):
 
 
 @_jit(inline="always")
-def _ambient_melt(w, u, top_p, p_on, par, sat, amb):
+def _ambient_melt(w, u, top_p, p_on, par, sat, vals):
     """H [km] of the ambient column (0 where it is flagged), and whether it needs numpy.
 
-    ``amb`` holds H at the ambient Tp on the table's (water, top pressure) nodes.
+    Looked up exactly as a cell's own H (:func:`_lookup` at the ambient Tp), so that a cell
+    without anomaly gets an anomaly melt of exactly 0, not a rounding difference.
     """
     if not np.isfinite(p_on) or p_on <= top_p:
         return 0.0, False
@@ -226,15 +227,8 @@ def _ambient_melt(w, u, top_p, p_on, par, sat, amb):
     if w > s:
         return 0.0, False
     xj = u * par[12]
-    j = min(int(xj), amb.shape[0] - 1)
-    c = xj - j
-    y = top_p * par[5]
-    k = min(int(y), amb.shape[1] - 2)
-    b = y - k
-    h = amb[j, k] + b * (amb[j, k + 1] - amb[j, k])
-    if c > 0.0:
-        j1 = min(j + 1, amb.shape[0] - 1)
-        h += c * (amb[j1, k] + b * (amb[j1, k + 1] - amb[j1, k]) - h)
+    j = min(int(xj), vals.shape[1] - 1)
+    h = _lookup(vals, (par[18] - par[3]) * par[4], top_p * par[5], j, xj - j)[0]
     if not np.isfinite(h):
         return 0.0, True
     return h, False
@@ -269,7 +263,7 @@ def _onset_any(tp, u, par, cv, first, inv):
 
 @_jit(refcount=False)
 def _cells(
-    tp, lid, water, w_stride, up, up_stride, par, cv, first, inv, sat, vals, amb, out, flag, slow
+    tp, lid, water, w_stride, up, up_stride, par, cv, first, inv, sat, vals, out, flag, slow
 ):
     """Every output of every cell into ``out`` (rows :data:`ROWS`) and ``flag``.
 
@@ -320,7 +314,7 @@ def _cells(
         if excess < 0.0 and np.isfinite(h):
             if varying:
                 p_amb = _onset_any(ambient, u_curve, par, cv, first, inv)
-            h_amb, to_numpy = _ambient_melt(w, u_curve, top_p, p_amb, par, sat, amb)
+            h_amb, to_numpy = _ambient_melt(w, u_curve, top_p, p_amb, par, sat, vals)
             if to_numpy:
                 slow[n] = True
                 continue
@@ -389,11 +383,10 @@ def evaluate_compiled(
     flag = np.zeros(tp.size, np.uint8)
     first_call = _COMPILE["seconds"] == 0.0
     t = time.perf_counter()
-    amb = ambient_melt_nodes(vals, par, ambient_c)
     slow = np.zeros(tp.size, np.bool_)
     _cells(
         tp, lid, w, 0 if one else 1, up, 0 if up.size == 1 else 1, par, cv, first, inv, sat,
-        vals, amb, out, flag, slow,
+        vals, out, flag, slow,
     )  # fmt: skip
     if first_call:
         _COMPILE["seconds"] = time.perf_counter() - t

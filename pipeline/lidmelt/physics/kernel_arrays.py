@@ -21,7 +21,6 @@ __all__ = [
     "ONSET_STEP_GPA",
     "TP_INDEX_STEP_K",
     "WATER_CURVES",
-    "ambient_melt_nodes",
     "kernel_arrays",
 ]
 
@@ -191,13 +190,3 @@ def kernel_arrays(table: MeltTable, water):
                 per_table["model"] = _model_arrays(table)
             per_table[key] = _arrays(table, key, per_table["model"])
         return per_table[key]
-
-
-def ambient_melt_nodes(vals, par, ambient_c):
-    """H [km] at the ambient Tp on the table's (water, top pressure) nodes (linear in Tp)."""
-    if not np.isfinite(ambient_c):
-        return np.zeros((vals.shape[1], vals.shape[2]))
-    x = (ambient_c - par[3]) * par[4]
-    i = min(int(x), vals.shape[0] - 2)
-    a = x - i
-    return np.ascontiguousarray((1 - a) * vals[i, :, :, 0] + a * vals[i + 1, :, :, 0], float)
