@@ -138,7 +138,15 @@ class LazyRun:
 
 # ---- the kernel ----------------------------------------------------------------------------------
 def evaluate_chunk(
-    age, lid_grid, anomaly, water, upwelling=0.0, *, settings: KernelSettings, clock=None
+    age,
+    lid_grid,
+    anomaly,
+    water,
+    upwelling=0.0,
+    *,
+    settings: KernelSettings,
+    clock=None,
+    check_inputs: bool = True,
 ):
     """Every output of one chunk, stacked as (n_outputs + 1, y, x) float32 (flag last).
 
@@ -147,14 +155,15 @@ def evaluate_chunk(
     depth); cells without a lid, anomaly or water are NaN (flag
     :data:`lidmelt.variables.FLAG_NODATA`), and so are outputs the inputs do not give (melt
     production without upwelling). ``clock``, a dict, accumulates the thread seconds spent on
-    the lid and on melting.
+    the lid and on melting. ``check_inputs=False`` skips the range check of input blocks that
+    were already checked (an ensemble's members sharing one input group).
     """
     s = settings
     t0 = time.perf_counter()
     blocks = (age, lid_grid, anomaly, water, upwelling)
     shape = np.broadcast_shapes(*(np.shape(a) for a in blocks))
     for name, block in zip(_KERNEL_INPUTS, blocks, strict=True):
-        if name in s.sources and np.ndim(block):
+        if check_inputs and name in s.sources and np.ndim(block):
             check_input_range(block, name, s.sources[name])
     lid = np.broadcast_to(np.asarray(lid_grid, float), shape)
     if s.cooling is not None:

@@ -133,8 +133,10 @@ def reduce_chunk(
     totals = np.zeros((len(TOTALS) + plan.candidates, members), np.int64)
     cells = _candidate_cells(labels, plan.candidates)
     cell_area = np.rint(area / QUANTUM).astype(np.int64)
+    checked: set[int] = set()  # input groups whose blocks were range-checked in this chunk
     for m, (settings, group) in enumerate(zip(plan.settings, plan.groups, strict=True)):
-        out = evaluate_chunk(*values[group], settings=settings)
+        out = evaluate_chunk(*values[group], settings=settings, check_inputs=group not in checked)
+        checked.add(group)
         for b, name in enumerate(BASES):
             stacks[b, m] = out[_INDEX[name]]
         for t, layer in ((1, stacks[0, m]), (2, stacks[1, m])):
