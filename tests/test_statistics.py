@@ -41,6 +41,9 @@ def _summary(layers, area, age, chunks):
 
 
 def test_statistics_from_chunk_records_equal_whole_grid_numpy():
+    """Per-chunk records give the whole grid's statistics; check values: numpy on the whole
+    invented grid (counts and extremes exact, sums to rounding, histogram medians to half a
+    0.5-wide bin)."""
     rng = np.random.default_rng(3)
     layers = _stacked(rng)
     rows = rng.uniform(10.0, 20.0, (layers.shape[1], 1))  # km2, equal along a row
