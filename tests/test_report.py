@@ -125,7 +125,8 @@ def test_summary_numbers_lid_and_version(run):
     # Issue 14: statistics to 3 significant figures (45678.9 -> 45,700; 123456 -> 123,000).
     assert "45,700 km²" in text
     assert "123,000 km³" in text
-    assert "<td>melt_thickness_km</td><td>km</td><td>0</td><td>9.50</td><td>2.25</td>" in text
+    # per variable: its long name (the registry's) and unit, min, max and mean
+    assert "<td>Melt thickness</td><td>km</td><td>0</td><td>9.50</td><td>2.25</td>" in text
     assert "plate_gdh1" in text
     assert "1100.0 °C" in text
     assert "1315 °C" in text  # ambient potential temperature in the job line
@@ -171,7 +172,9 @@ def test_fresh_maps_in_run_dir_are_reused_and_stale_ones_redrawn(run):
     fake.write_bytes(b"\x89PNG\r\n\x1a\n" + b"invented bytes")
     text = html_of(report.write_report(run))
     assert base64.b64encode(fake.read_bytes()).decode() in text
-    assert str(fake) in text
+    # named relative to the run directory (a run writes its report in a staging folder)
+    assert "(maps/melt_thickness_km.png)" in text
+    assert str(fake) not in text
     old = time.time() - 3600  # older than summary.json: redrawn for the report
     os.utime(fake, (old, old))
     text = html_of(report.write_report(run))
@@ -281,6 +284,7 @@ def flagged_run(make_run_dir, make_flag_grid):
         "statistics": {
             **SUMMARY["statistics"],
             "anomaly_melt_volume_km3": 45678.9,
+            "ambient_melt_volume_km3": 77777.1,  # 123456 - 45678.9, the summary's definition
             "anomaly": {"melting_cells": 42},
             "melt_production_km3_yr": 0.012345,
         },
@@ -331,10 +335,14 @@ def test_anomaly_basis_and_further_statistics_to_three_figures(flagged_run):
     text = html_of(report.write_report(flagged_run, maps=[]))
     # Check values: the summary's own numbers rounded to 3 significant figures (45678.9 ->
     # 45,700; 0.012345 -> 0.0123); counts (integers) are exact.
-    assert "<td>anomaly_melt_volume_km3</td><td>45,700 km³</td>" in text
-    assert "<td>anomaly.melting_cells</td><td>42</td>" in text
-    assert "<td>melt_production_km3_yr</td><td>0.0123 km³/yr</td>" in text
-    assert text.index("Statistic (anomaly basis)") < text.index("Further statistic")
+    added = "<td>Melt volume added by the thermal anomaly</td><td>45,700 km³</td>"
+    assert added in text
+    assert "<td>Anomaly: melting cells</td><td>42</td>" in text  # a key put into words
+    assert "<td>Melt production</td><td>0.0123 km³/yr</td>" in text
+    # issue 20: the anomaly-added volume leads, then the ambient one (total minus it), the total
+    ambient = "<td>Ambient melt volume (total minus anomaly-added)</td><td>77,800 km³</td>"
+    assert text.index(added) < text.index(ambient) < text.index("<td>Total melt volume</td>")
+    assert "area integral of min(H, H_ambient)" in text
     # The totals keep their own table, now also to 3 significant figures (issue 14: no false
     # precision): 45678.9 -> 45,700.
     assert "<td>Melting area</td><td>45,700 km²</td>" in text
@@ -362,5 +370,5 @@ def test_pdf_shows_warnings_flags_and_anomaly_basis(flagged_run):
     row = next(line for line in text.splitlines() if line.startswith("4 "))
     column = header.index("Cells")
     assert row[column:].split()[0] == "26"
-    assert "anomaly_melt_volume_km3" in text
+    assert "Melt volume added by the thermal anomaly" in text
     assert text.index("WARNINGS") < text.index("Caution") < text.index("Validity flags")

@@ -291,6 +291,27 @@ def test_cli_screen_default_basis_and_min_age(basin, tmp_path, capsys):
     assert "3 candidate region(s)" in capsys.readouterr().out
 
 
+def test_cli_screen_writes_into_the_run_folder_where_the_report_finds_it(
+    basin, tmp_path, capsys, monkeypatch
+):
+    """One convention: screen's default file is the one the report looks for (check values:
+    the file names in products/report/sites.py and the two plumes of this basin)."""
+    run, _ = basin
+    here = tmp_path / "here"
+    here.mkdir()
+    monkeypatch.chdir(here)  # nothing may land in the current folder
+    assert main(["screen", str(run), "--min-melt-thickness", "1"]) == 0
+    assert (run / "candidates.gpkg").is_file()
+    assert (run / "candidates.geojson").is_file()
+    assert list(here.iterdir()) == []
+    assert f"wrote {run / 'candidates.gpkg'}" in capsys.readouterr().out
+    from lidmelt.products.report import write_report
+
+    page = write_report(run, coastlines=False).read_text(encoding="utf-8")
+    assert "Candidate regions of candidates.gpkg" in page
+    assert "Alpha" in page
+
+
 def test_cli_screen_old_run_says_how_to_fix(make_run_dir, tmp_path, capsys):
     old = make_run_dir(
         {"melt_thickness_km": np.ones(SHAPE)}, transform=T, crs="EPSG:6933", name="old"

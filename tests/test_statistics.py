@@ -60,6 +60,11 @@ def test_statistics_from_chunk_records_equal_whole_grid_numpy():
     npt.assert_allclose(st["melt_volume_km3"], np.nansum(thickness * area), rtol=1e-12)
     anomaly = layers[K["anomaly_melt_thickness_km"]]
     npt.assert_allclose(st["anomaly_melt_volume_km3"], np.nansum(anomaly * area), rtol=1e-12)
+    # ambient = total - anomaly-added (the statistics' definition, docs/physics.md)
+    npt.assert_allclose(
+        st["ambient_melt_volume_km3"], np.nansum(thickness * area) - np.nansum(anomaly * area),
+        rtol=1e-12,
+    )
     for name in NAMES:
         layer = layers[K[name]]
         got = st["variables"][name]
@@ -84,6 +89,29 @@ def test_row_area_column_gives_the_full_area_grid_results():
     assert column["variables"] == full["variables"]  # these do not depend on the area
     for key in ("melting_area_km2", "melt_volume_km3", "anomaly_melt_volume_km3"):
         npt.assert_allclose(column[key], full[key], rtol=1e-12)  # same sum, other order
+
+
+def test_cells_with_added_melt_leave_out_values_below_the_least_amount():
+    """Check values: numpy on the invented grid with the registry's least anomaly melt
+    (Variable.negligible_below) as the threshold; tails below it count as none."""
+    rng = np.random.default_rng(6)
+    layers = _stacked(rng, shape=(24, 18))
+    least = OUTPUTS["anomaly_melt_thickness_km"].negligible_below
+    anomaly = layers[K["anomaly_melt_thickness_km"]]
+    anomaly[::3, ::2] = 0.5 * least  # a tail: drawn and counted as none
+    anomaly[1::3, ::2] = 0.0
+    anomaly[2::6, 1::4] = 2.0 * least  # just above: counted
+    rows = rng.uniform(10.0, 20.0, (24, 1))
+    st = _summary(layers, rows, np.zeros((24, 18), np.float32), chunks=(8, 6))
+    added = np.isfinite(anomaly) & (anomaly >= least) & (anomaly > 0)
+    assert least > 0.0
+    assert st["added_melt_cells"] == int(added.sum())
+    assert st["added_melt_cells"] < int(np.sum(anomaly > 0))  # the tails are left out
+    area = np.broadcast_to(rows, anomaly.shape)
+    npt.assert_allclose(st["added_melt_area_km2"], area[added].sum(), rtol=1e-12)
+    # the volumes come anomaly first, then ambient, then the total (summary.json's order)
+    keys = [k for k in st if k.endswith("_volume_km3")]
+    assert keys == ["anomaly_melt_volume_km3", "ambient_melt_volume_km3", "melt_volume_km3"]
 
 
 def test_a_variable_without_data_has_none_statistics():

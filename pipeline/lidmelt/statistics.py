@@ -19,6 +19,7 @@ from lidmelt.variables import OUTPUTS
 
 __all__ = [
     "AMBIENT_MELT_WARN_FRACTION",
+    "added_melt",
     "ambient_melting_warnings",
     "band_parts",
     "chunk_record",
@@ -33,7 +34,9 @@ AMBIENT_MELT_WARN_FRACTION = 0.25
 #: Histogram bins of the plate age (Ma) and the top of melting (km) of regime-1 cells, for
 #: their medians: 0.5 Ma and 0.5 km wide up to the inputs' accepted 400 (lidmelt.variables).
 _HIST_BINS, _HIST_RANGE = 800, (0.0, 400.0)
-_COUNTS = 7  # melting, data, melting area, volume, regime 0/1/2 counts
+_COUNTS = 9  # melting, data, melting area, volume, regime 0/1/2 counts, added-melt cells, area
+#: The output whose cells "with added melt" are counted (not below its ``negligible_below``).
+_ADDED = "anomaly_melt_thickness_km"
 _KM3_PER_MM_KM2 = 1e-6  # 1 mm x 1 km2 = 1e-6 km3 (definition)
 
 
@@ -79,6 +82,8 @@ def chunk_record(
         np.count_nonzero(ambient),
         np.count_nonzero(regime == 2),
     ]
+    added = added_melt(block[_index(_ADDED)])
+    rec += [np.count_nonzero(added), _area_sum(added, area)]
     for k in integrals:
         layer = block[k]
         rec.append(_area_integral(layer, finite if k == 0 else np.isfinite(layer), area))
@@ -94,6 +99,15 @@ def chunk_record(
     if age is not None:
         hists.append(np.histogram(age[ambient], bins=_HIST_BINS, range=_HIST_RANGE)[0])
     return np.concatenate([np.array(rec, dtype=np.float64), *hists])
+
+
+def added_melt(anomaly_melt: np.ndarray) -> np.ndarray:
+    """Cells with added melt: an anomaly melt thickness > 0 and not below the registry's
+    least amount (:attr:`lidmelt.variables.Variable.negligible_below`; smaller values are
+    counted as none, as the maps draw them)."""
+    least = OUTPUTS[_ADDED].negligible_below
+    with np.errstate(invalid="ignore"):
+        return (anomaly_melt > 0) & (anomaly_melt >= least)
 
 
 def _area_sum(mask: np.ndarray, area: np.ndarray) -> float:
@@ -173,9 +187,14 @@ def summarize_bands(bands: list[list], *, names: list[str], integrals: list[str]
     """The ``statistics`` entry of the summary from the per-band records of :func:`band_parts`.
 
     Counts, the melting area (km2), the melt volume (km3, thickness x cell area), the cells per
-    melting regime and the area integral of each of ``integrals`` (km3 for km, km3/yr for
-    mm/yr) are sums over the chunks; per variable the minimum, maximum and mean over cells with
-    data (None where no cell has data); ``ambient_melting`` describes the regime-1 cells.
+    melting regime, the cells with added melt and their area (:func:`added_melt`) and the area
+    integral of each of ``integrals`` (km3 for km, km3/yr for mm/yr) are sums over the chunks;
+    per variable the minimum, maximum and mean over cells with data (None where no cell has
+    data); ``ambient_melting`` describes the regime-1 cells. The volumes come anomaly first:
+    ``anomaly_melt_volume_km3`` (the area integral of the anomaly melt thickness, exact),
+    ``ambient_melt_volume_km3`` = total - anomaly-added, i.e. the area integral of
+    min(H, H_ambient), the melt ambient mantle would give beneath the same lid (the anomaly
+    melt is max(H - H_ambient, 0), docs/physics.md), then ``melt_volume_km3``, the total.
     """
     # every chunk's record as a column, bands in order, chunks row by row within a band
     records = np.concatenate([np.reshape(band[0], (band[0].shape[0], -1)) for band in bands], 1)
@@ -194,19 +213,12 @@ def summarize_bands(bands: list[list], *, names: list[str], integrals: list[str]
         mean = totals[first + 4 * j + 2] / count if count else np.nan
         stats = {"min": low, "max": high, "mean": mean}
         variables[name] = {k: float(v) if np.isfinite(v) else None for k, v in stats.items()}
-    out: dict[str, Any] = {
-        "data_cells": int(totals[1]),
-        "melting_cells": int(totals[0]),
-        "melting_area_km2": float(totals[2]),
-        "melt_volume_km3": float(totals[3]),
-        "regime_cells": {str(v): int(totals[4 + v]) for v in (0, 1, 2)},
-    }
-    for j, name in enumerate(integrals):
-        if OUTPUTS[name].units == "mm/yr":
-            total = totals[_COUNTS + j] * _KM3_PER_MM_KM2
-            out[name.removesuffix("_mm_yr") + "_km3_yr"] = float(total)
-        else:
-            out[name.removesuffix("_thickness_km") + "_volume_km3"] = float(totals[_COUNTS + j])
+    out: dict[str, Any] = {"data_cells": int(totals[1]), "melting_cells": int(totals[0])}
+    out.update(_volumes(totals, integrals))
+    out["melting_area_km2"] = float(totals[2])
+    out["added_melt_cells"] = int(totals[7])
+    out["added_melt_area_km2"] = float(totals[8])
+    out["regime_cells"] = {str(v): int(totals[4 + v]) for v in (0, 1, 2)}
     out["ambient_melting"] = {
         "cells": int(totals[5]),
         "fraction_of_data_cells": float(totals[5] / totals[1]) if totals[1] else None,
@@ -215,6 +227,24 @@ def summarize_bands(bands: list[list], *, names: list[str], integrals: list[str]
     }
     out["variables"] = variables
     return out
+
+
+def _volumes(totals: np.ndarray, integrals: list[str]) -> dict[str, float]:
+    """The area integrals: anomaly-added, ambient (total - anomaly-added) and total melt
+    volume (km3) in that order, then the other integrals (production in km3/yr)."""
+    out: dict[str, float] = {}
+    for j, name in enumerate(integrals):
+        if OUTPUTS[name].units == "mm/yr":
+            total = totals[_COUNTS + j] * _KM3_PER_MM_KM2
+            out[name.removesuffix("_mm_yr") + "_km3_yr"] = float(total)
+        else:
+            out[name.removesuffix("_thickness_km") + "_volume_km3"] = float(totals[_COUNTS + j])
+    volume = float(totals[3])
+    anomaly = out.pop("anomaly_melt_volume_km3", None)
+    first = {} if anomaly is None else {"anomaly_melt_volume_km3": anomaly}
+    if anomaly is not None:
+        first["ambient_melt_volume_km3"] = volume - anomaly
+    return {**first, "melt_volume_km3": volume, **out}
 
 
 def ambient_melting_warnings(

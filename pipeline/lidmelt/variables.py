@@ -72,6 +72,9 @@ class Variable:
     needs : str
         The workflow input (``workflow_key``) an output needs; without that input the output is
         neither computed nor written (``""``: none).
+    negligible_below : float
+        values below this are drawn and counted as none; the file keeps the exact value
+        (0.0: only values <= 0 are none, for the variables whose 0 means no melt).
     """
 
     name: str
@@ -87,6 +90,7 @@ class Variable:
     categorical: bool = False
     default: bool = True
     needs: str = ""
+    negligible_below: float = 0.0
 
     @property
     def title(self) -> str:
@@ -148,6 +152,7 @@ _OUTPUT_LIST = (
         long_name="melt thickness added by the thermal anomaly (above that of ambient mantle)",
         style="melt",
         zero_means_no_melt=True,
+        negligible_below=1e-3,  # placeholder (km): the physics sets it from the table's accuracy
     ),
     Variable(
         name="melting_regime",

@@ -10,7 +10,7 @@ from lidmelt.engine import run_basin
 from lidmelt.ensemble import ensemble_stages
 from lidmelt.grids.rundir import RunDir
 from lidmelt.grids.transaction import RunLock, clean_leftovers
-from lidmelt.products.maps import draw_run_maps
+from lidmelt.products.maps import draw_run_maps, resolve_coastlines
 from lidmelt.products.maps.overview import draw_overview
 from lidmelt.products.report import write_report
 from lidmelt.products.screening import ensemble_candidates
@@ -71,10 +71,13 @@ def _products(draw_maps: bool, report: bool, dest: Path):
 
     def draw(staged: Path) -> list[Path]:
         run_dir = RunDir(staged, shown_as=dest.absolute())
-        maps = list(draw_run_maps(run_dir))
+        coast = resolve_coastlines(None) or False  # looked up (and its absence noted) once
+        maps = list(draw_run_maps(run_dir, coastlines=coast))
         overview = draw_overview(run_dir, coastlines=False, formats=("png", "pdf"))
         drawn = [*maps, *overview]
-        return [*drawn, write_report(run_dir, maps=maps)] if report else drawn
+        # the report 'lidmelt report RUN_DIR' writes: it reuses the maps just drawn (the
+        # overview too) and draws the input maps, naming files relative to the run directory
+        return [*drawn, write_report(run_dir, coastlines=coast)] if report else drawn
 
     return draw
 
@@ -88,6 +91,18 @@ def _clean(cfg) -> int:
         print(f"  removed {path}")
     print(f"lidmelt run: {len(removed)} leftover folder(s) beside {dest} removed")
     return 0
+
+
+def volume_line(st: dict) -> str:
+    """The melt volumes, the melt the thermal anomaly adds first, then the ambient melt (total
+    minus anomaly-added) and the total (``summary.json`` statistics)."""
+    total = f"total {st['melt_volume_km3']:.6g} km3"
+    if "anomaly_melt_volume_km3" not in st:
+        return f"melt volume {total}"
+    return (
+        f"melt volume added by the thermal anomaly {st['anomaly_melt_volume_km3']:.6g} km3, "
+        f"ambient {st['ambient_melt_volume_km3']:.6g} km3, {total}"
+    )
 
 
 def run(args: argparse.Namespace) -> int:
@@ -113,10 +128,8 @@ def run(args: argparse.Namespace) -> int:
         f"  grid {result.summary['grid']['width']} x {result.summary['grid']['height']}, "
         f"{st['data_cells']} cells with data, {st['melting_cells']} melting"
     )
-    print(
-        f"  melting area {st['melting_area_km2']:.6g} km2, melt volume "
-        f"{st['melt_volume_km3']:.6g} km3, in {result.timings_s['total_s']:.1f} s"
-    )
+    print(f"  {volume_line(st)}; melting area {st['melting_area_km2']:.6g} km2")
+    print(f"  in {result.timings_s['total_s']:.1f} s")
     for path in files:
         print(f"  wrote {path}")
     return 0

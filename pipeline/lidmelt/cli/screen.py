@@ -10,6 +10,7 @@ import pandas as pd
 
 from lidmelt.cli._common import format_table, print_warnings, run_dir_option
 from lidmelt.products.sampling import check_output_path
+from lidmelt.products.report.sites import CANDIDATES_NAME
 from lidmelt.products.screening import BASES, screen, write_candidates
 
 __all__ = ["SHOWN_COLUMNS", "register"]
@@ -21,6 +22,7 @@ SHOWN_COLUMNS = (
     "plume_match",
     "area_km2",
     "anomaly_melt_volume_km3",
+    "ambient_melt_volume_km3",
     "melt_volume_km3",
     "min_plate_age_ma",
     "max_plate_age_ma",
@@ -101,15 +103,16 @@ def register(subparsers: argparse._SubParsersAction) -> None:
         "-o",
         "--output",
         metavar="OUT.gpkg",
-        help="GeoPackage to write (default RUNNAME_candidates.gpkg here); the .geojson goes "
-        "beside it",
+        help="GeoPackage to write (default RUN_DIR/candidates.gpkg, where 'lidmelt report' "
+        "finds it; like the maps it lies outside the run's manifest and a new 'lidmelt run' "
+        "replaces it); the .geojson goes beside it",
     )
     s.set_defaults(func=run)
 
 
 def run(args: argparse.Namespace) -> int:
     """Find the candidate regions, print them and write the GeoPackage and GeoJSON."""
-    out = args.output or f"{Path(args.run_dir).resolve().name}_candidates.gpkg"
+    out = args.output or Path(args.run_dir) / CANDIDATES_NAME
     out = check_output_path(out, (".gpkg",), what="candidate regions")
     with print_warnings("screen"):
         gdf = screen(

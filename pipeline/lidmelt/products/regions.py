@@ -30,13 +30,18 @@ warning.
     0), i.e. ``melt_volume_km3 / data_area_km2``.
 ``max_melt_thickness_km``
     Largest melt thickness inside.
-``melt_volume_km3``
-    Sum over the cells of melt thickness (km) times cell area (km^2).
-``shallowest_onset_depth_km``
-    Smallest ``onset_depth_km`` inside (only when the run has it).
 ``anomaly_melt_volume_km3``
     Sum over the cells with data of ``anomaly_melt_thickness_km`` (the melt the thermal anomaly
     adds) times cell area (only when the run has that output).
+``ambient_melt_volume_km3``
+    ``melt_volume_km3 - anomaly_melt_volume_km3``: the melt ambient mantle gives beneath the
+    same lid, i.e. the area integral of min(H, H_ambient) (only when the run has the anomaly
+    melt).
+``melt_volume_km3``
+    Sum over the cells of melt thickness (km) times cell area (km^2): the total.
+``shallowest_onset_depth_km``
+    Smallest ``onset_depth_km`` of the cells inside that melt (``melt_thickness_km`` > 0;
+    only when the run has it); NaN where none melts: the onset is not defined there.
 ``mean_thermal_anomaly_k``
     Area-weighted mean of the run's ``thermal_anomaly_k`` input over the cells with data
     (only when the run has that input).
@@ -104,8 +109,9 @@ STAT_COLUMNS = (
     "melting_area_km2",
     "mean_melt_thickness_km",
     "max_melt_thickness_km",
-    "melt_volume_km3",
     "anomaly_melt_volume_km3",
+    "ambient_melt_volume_km3",
+    "melt_volume_km3",
     "shallowest_onset_depth_km",
     "mean_thermal_anomaly_k",
     "min_plate_age_ma",
@@ -117,6 +123,7 @@ STAT_COLUMNS = (
 #: Optional statistics columns and the :class:`Zones` field each needs.
 OPTIONAL_STATISTICS = {
     "anomaly_melt_volume_km3": "anomaly_melt",
+    "ambient_melt_volume_km3": "anomaly_melt",
     "shallowest_onset_depth_km": "onset",
     "mean_thermal_anomaly_k": "anomaly",
     "min_plate_age_ma": "plate_age",
@@ -220,9 +227,10 @@ class Zones:
         }
         if self.anomaly_melt is not None:
             out["anomaly_melt_volume_km3"] = _area_sum(self.anomaly_melt, flat, area)
+            out["ambient_melt_volume_km3"] = volume - out["anomaly_melt_volume_km3"]
         if self.onset is not None:
             onset = self.onset.ravel()[flat]
-            ok = np.isfinite(onset)
+            ok = np.isfinite(onset) & (thick > 0)
             out["shallowest_onset_depth_km"] = float(onset[ok].min()) if ok.any() else math.nan
         if self.anomaly is not None:
             anomaly = self.anomaly.ravel()[flat]

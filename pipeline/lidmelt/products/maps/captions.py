@@ -131,10 +131,16 @@ def _limits_text(style: VariableStyle, *, no_melt: bool, extend: str) -> str:
     if style.categorical:
         return "Colours: the classes named in the legend"
     low, high = style.percentiles
-    if style.zero_is_no_melt:
+    if style.zero_is_no_melt and style.negligible_below > 0.0:
         limits = (
             f"Colour scale from 0 to the {MELT_TOP_PERCENTILE:g}th percentile of the melting "
-            "cells; white: no melting (exactly 0)"
+            f"cells; white: {style.no_melt_label}, below lidmelt's least amount (the GeoTIFF "
+            "keeps the exact values)"
+        )
+    elif style.zero_is_no_melt:
+        limits = (
+            f"Colour scale from 0 to the {MELT_TOP_PERCENTILE:g}th percentile of the melting "
+            f"cells; white: {style.no_melt_label} (exactly 0)"
         )
     elif style.limits is not None:
         limits = f"Colour scale fixed from {style.limits[0]:g} to {style.limits[1]:g}"

@@ -61,13 +61,14 @@ class Field:
 def no_melt_mask(run: RunDir, values: np.ndarray, style: VariableStyle) -> np.ndarray | None:
     """Cells to draw as "no melting", or None when the variable has no such class.
 
-    For a variable that is undefined where nothing melts (onset depth, onset pressure, mean
+    For a melt amount, the cells that are 0 or below the variable's ``negligible_below``
+    (:meth:`.style.VariableStyle.melting`). For a variable that is undefined where nothing melts (onset depth, onset pressure, mean
     melt pressure), every cell with ``melt_thickness_km == 0`` is "no melting", whether the
     file holds NaN or a value there (an onset depth exists where the solidus is crossed
     beneath the lid, but nothing melts): the map never shows such a value as data.
     """
     if style.zero_is_no_melt:
-        return np.isfinite(values) & (values <= 0.0)
+        return np.isfinite(values) & ~style.melting(values)
     if style.nan_is_no_melt and "melt_thickness_km" in run.outputs:
         melt = np.asarray(run.open("melt_thickness_km").values, dtype=float)
         if melt.shape == values.shape:
@@ -106,6 +107,7 @@ def open_field(run: RunDir, variable: str, opts: MapOptions) -> Field:
             zero_is_no_melt=style.zero_is_no_melt,
             diverging=style.diverging,
             percentiles=style.percentiles,
+            negligible_below=style.negligible_below,
         )
     flags = opts.flags
     hatch = variable in run.outputs and isinstance(flags, FlagGrid)

@@ -236,6 +236,7 @@ def _legend_handles(f: Field, opts: MapOptions, fs: float, view: _View) -> list[
         candidates=bool(opts.candidates),
         stations=has_stations,
         fs=fs,
+        no_melt_label=f.style.no_melt_label,
     )
     if view.outside:
         outside = Patch(facecolor=OUTSIDE_COLOR, edgecolor="0.3", lw=0.5, label="outside the grid")

@@ -276,7 +276,11 @@ def data_crs(da: Any) -> Any:
     import pyproj
 
     try:
-        return ccrs.Projection(pyproj.CRS.from_user_input(crs.to_wkt()))
+        pcrs = pyproj.CRS.from_user_input(crs.to_wkt())
+        code = pcrs.to_epsg()
+        # the EPSG entry carries the area of use, which cartopy needs for the projection's
+        # bounds (a GeoTIFF's WKT may lack it: EPSG:6933 drew nothing but raised)
+        return ccrs.Projection(pyproj.CRS.from_epsg(code) if code else pcrs)
     except Exception as exc:  # cartopy/pyproj raise several types
         msg = (
             f"the grid CRS of {da.name!r} ({crs.to_string()}) cannot be used by cartopy "

@@ -377,11 +377,13 @@ def legend_handles(
     candidates: bool,
     stations: bool,
     fs: float,
+    no_melt_label: str = "no melting",
 ) -> list[Any]:
-    """Legend entries for what the map shows, known before drawing (the layout needs them)."""
+    """Legend entries for what the map shows, known before drawing (the layout needs them);
+    ``no_melt_label`` names the white class (:attr:`.style.VariableStyle.no_melt_label`)."""
     handles: list[Any] = [Patch(facecolor=NODATA_COLOR, edgecolor="0.3", lw=0.5, label="no data")]
     if no_melt:
-        handles.append(Patch(facecolor=ZERO_COLOR, edgecolor="0.3", lw=0.5, label="no melting"))
+        handles.append(Patch(facecolor=ZERO_COLOR, edgecolor="0.3", lw=0.5, label=no_melt_label))
     if coastlines:
         handles.append(Line2D([], [], color="black", lw=0.9, label="coastline"))
     if age:

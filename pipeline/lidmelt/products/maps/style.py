@@ -62,6 +62,7 @@ __all__ = [
     "FULL_RANGE",
     "MELT_TOP_PERCENTILE",
     "NODATA_COLOR",
+    "NO_MELT_LABELS",
     "OUTSIDE_COLOR",
     "PERCENTILES",
     "REGIME_CLASSES",
@@ -162,6 +163,9 @@ STYLES: dict[str, MapStyle] = {
 }
 #: Style of a variable the registry does not know, or whose key has no entry.
 DEFAULT_STYLE = MapStyle("viridis")
+#: Legend text of the no-melt class per variable (default "no melting"): the anomaly melt is
+#: the melt the anomaly adds, so its white cells may melt as ambient mantle does.
+NO_MELT_LABELS = {"anomaly_melt_thickness_km": "no added melt"}
 
 _UNIT_LABELS = {"1": "dimensionless", "": "no unit given", "degC": "°C", "wt%": "wt %"}
 
@@ -181,6 +185,12 @@ class VariableStyle:
         The variable is undefined (NaN) where a valid cell does not melt (e.g. onset depth);
         such cells, found from ``melt_thickness_km == 0``, are drawn in :data:`ZERO_COLOR`
         rather than as nodata.
+    negligible_below : float
+        With ``zero_is_no_melt``: values below this (the registry's
+        :attr:`lidmelt.variables.Variable.negligible_below`) are drawn as the no-melt class
+        too, like 0 (the file keeps the exact value).
+    no_melt_label : str
+        Legend text of the no-melt class (:data:`NO_MELT_LABELS`).
     title : str
         Readable name, used when the run gives no long name.
     classes : tuple of ClassStyle
@@ -193,6 +203,8 @@ class VariableStyle:
     cmap: str
     zero_is_no_melt: bool = False
     nan_is_no_melt: bool = False
+    negligible_below: float = 0.0
+    no_melt_label: str = "no melting"
     title: str = ""
     classes: tuple[ClassStyle, ...] = ()
     diverging: bool = False
@@ -205,6 +217,12 @@ class VariableStyle:
         """Whether the variable is drawn as classes (a legend) rather than a colour scale."""
         return bool(self.classes)
 
+    def melting(self, values: np.ndarray) -> np.ndarray:
+        """Cells drawn on the colour scale of a melt amount: > 0 and not below
+        :attr:`negligible_below`."""
+        with np.errstate(invalid="ignore"):
+            return (values > 0.0) & (values >= self.negligible_below)
+
 
 def style_for(variable: str) -> VariableStyle:
     """The style of ``variable``: its key's colour map and the registry's facts about it."""
@@ -212,10 +230,16 @@ def style_for(variable: str) -> VariableStyle:
     if var is None:  # not (yet) registered: a plain continuous scale
         return VariableStyle(DEFAULT_STYLE.cmap)
     key = STYLES.get(var.style, DEFAULT_STYLE)
+    zero_is_no_melt = (var.zero_means_no_melt or key.zero_is_no_melt) and not key.classes
+    label = NO_MELT_LABELS.get(var.name.rpartition("_p")[0] if var.kind == "ensemble" else var.name)
+    if label and var.negligible_below > 0.0:
+        label += f" (< {var.negligible_below:g} {unit_label(var.units)})"
     return VariableStyle(
         key.cmap,
-        zero_is_no_melt=(var.zero_means_no_melt or key.zero_is_no_melt) and not key.classes,
+        zero_is_no_melt=zero_is_no_melt,
         nan_is_no_melt=var.undefined_without_melt,
+        negligible_below=var.negligible_below if zero_is_no_melt else 0.0,
+        no_melt_label=label or "no melting",
         title=var.title,
         classes=key.classes,
         diverging=key.diverging,
@@ -256,6 +280,7 @@ def colour_limits(
     zero_is_no_melt: bool = False,
     diverging: bool = False,
     percentiles: tuple[float, float] = PERCENTILES,
+    negligible_below: float = 0.0,
 ) -> tuple[float, float, str]:
     """Robust colour limits and the matching colour-bar ``extend``.
 
@@ -265,7 +290,7 @@ def colour_limits(
         The grid values; NaN is nodata.
     zero_is_no_melt : bool
         For melt amounts: the scale starts at 0 and its top is the 99.5th percentile of the
-        positive values only.
+        positive values only (those not below ``negligible_below``).
     diverging : bool
         For signed quantities: limits ``-m, +m`` with ``m`` the larger magnitude of the two
         percentiles, so that 0 is the centre colour.
@@ -284,7 +309,7 @@ def colour_limits(
     if finite.size > 4_000_000:  # percentiles of a regular subsample are as robust
         finite = finite[:: finite.size // 4_000_000 + 1]
     if zero_is_no_melt:
-        positive = finite[finite > 0]
+        positive = finite[(finite > 0) & (finite >= negligible_below)]
         vmin = 0.0
         vmax = float(np.percentile(positive, MELT_TOP_PERCENTILE)) if positive.size else 1.0
         if vmax <= 0.0:

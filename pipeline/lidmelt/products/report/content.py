@@ -6,24 +6,33 @@ variables come from the registry (:mod:`lidmelt.variables`) where the run's vari
 listed. Text here is not yet escaped: each writer escapes it for its format.
 
 The summary's ``"warnings"`` (:func:`run_warnings`) are shown near the top of the page; the
-summary section shows the totals, every further statistic (those on the anomaly basis, the melt
-the thermal anomaly adds, in a table of their own; 3 significant figures), the per-variable
-statistics, and the count of cells per validity flag.
+summary section (:mod:`.summary`) shows the melt volumes (the anomaly's first), the regimes,
+the further statistics and the per-variable ranges, every row in words (:mod:`.labels`); then
+comes the count of cells per validity flag. The blocks (:class:`Table`, :class:`Pre`,
+:class:`MapImage`, :class:`Section`) and the number formats live in :mod:`.blocks`.
 """
 
 from __future__ import annotations
 
 import json
-import math
 from collections.abc import Callable
-from dataclasses import dataclass
 from typing import Any
 
 from lidmelt.grids.rundir import FlagGrid, RunDir, read_flags
-from lidmelt.products.ensemble import variable_of
 from lidmelt.products.maps.captions import lid_model
 from lidmelt.products.maps.flags import flag_counts
-from lidmelt.variables import VARIABLES
+from lidmelt.products.report.blocks import (
+    Block,
+    MapImage,
+    Pre,
+    Section,
+    Table,
+    format_number,
+    format_sig,
+    format_value,
+)
+from lidmelt.products.report.labels import variable_label, variable_units
+from lidmelt.products.report.summary import summary_section
 
 __all__ = [
     "CAUTION",
@@ -52,121 +61,12 @@ CAUTION = (
 )
 
 
-@dataclass(frozen=True)
-class Table:
-    """A table of text cells (already formatted, not yet escaped)."""
-
-    header: tuple[str, ...]
-    rows: tuple[tuple[str, ...], ...]
-    mono: tuple[int, ...] = ()  # columns shown in a monospace font (hashes, paths)
-
-
-@dataclass(frozen=True)
-class Pre:
-    """Preformatted text (the workflow, raw JSON); ``folded``: shown folded under that title."""
-
-    text: str
-    folded: str = ""
-
-
-@dataclass(frozen=True)
-class MapImage:
-    """One embedded map (or figure: a section may hold one among its blocks)."""
-
-    variable: str
-    data: bytes
-    mime: str  # "image/png" or "image/svg+xml"
-    source: str  # "rendered for this report" or the file it came from
-    caption: str = ""  # shown instead of the variable's label when given
-
-
-Block = str | Table | Pre | MapImage
-
-
-@dataclass(frozen=True)
-class Section:
-    """A heading and its blocks: paragraphs (str), :class:`Table`, :class:`Pre` or
-    :class:`MapImage` (a figure)."""
-
-    key: str
-    heading: str
-    blocks: tuple[Block, ...]
-
-
-def format_value(value: Any) -> str:
-    """Exact text of a parameter value as stored in summary.json.
-
-    Floats use Python's shortest round-trip form (``repr``: 1085.7, 1e-06), so the report shows
-    every digit the run stored; lists, dicts and null are shown as JSON.
-    """
-    if isinstance(value, bool) or value is None:
-        return json.dumps(value)
-    if isinstance(value, float):
-        return repr(value) if math.isfinite(value) else str(value)
-    if isinstance(value, int | str):
-        return str(value)
-    return json.dumps(value, ensure_ascii=False, sort_keys=True)
-
-
-def format_number(value: Any, *, unit: str = "") -> str:
-    """Readable text of a statistic: thousands separators, 4 significant digits."""
-    if isinstance(value, bool) or not isinstance(value, int | float):
-        return "not recorded" if value is None else str(value)
-    if isinstance(value, int):
-        text = f"{value:,}"
-    elif not math.isfinite(value):
-        text = str(value)
-    elif value != 0 and (abs(value) >= 1e4 or abs(value) < 1e-3):
-        text = f"{value:,.0f}" if abs(value) >= 1e4 else f"{value:.3e}"
-    else:
-        text = f"{value:.4g}"
-    return f"{text} {unit}".strip()
-
-
-def format_sig(value: Any, *, unit: str = "", digits: int = 3) -> str:
-    """Text of a statistic to ``digits`` significant figures, with thousands separators.
-
-    ``45678.9`` -> ``"45,700"``; ``0.012345`` -> ``"0.0123"``. Integers (counts) are exact
-    and shown in full (``"1,234,567"``).
-    """
-    if isinstance(value, bool) or not isinstance(value, float):
-        return format_number(value, unit=unit)
-    if value == 0 or not math.isfinite(value):
-        text = str(value) if not math.isfinite(value) else "0"
-    else:
-        rounded = float(f"{value:.{digits}g}")
-        exponent = math.floor(math.log10(abs(rounded)))
-        if exponent >= digits - 1 and abs(rounded) < 1e15:
-            text = f"{round(rounded):,}"
-        elif exponent >= -4:
-            text = f"{rounded:.{max(digits - 1 - exponent, 0)}f}"
-        else:
-            text = f"{rounded:.{digits - 1}e}"
-    return f"{text} {unit}".strip()
-
-
 def _get(d: Any, *keys: str, default: Any = None) -> Any:
     for key in keys:
         if not isinstance(d, dict) or key not in d:
             return default
         d = d[key]
     return d
-
-
-def variable_units(name: str, recorded: Any = "") -> str:
-    """Unit of a run variable: the registry's, else the one the run recorded (``recorded``)."""
-    var = VARIABLES.get(name)
-    if var is not None:
-        return var.units
-    return str(recorded or "")
-
-
-def variable_label(name: str) -> str:
-    """``"<name>: <long name>"`` for a registered variable, else the name."""
-    if name == "overview":
-        return "Overview: inputs and predicted melting on one page"
-    var = variable_of(name)
-    return f"{name}: {var.long_name}" if var is not None else name
 
 
 def _crs_text(wkt: str | None) -> tuple[str, bool]:
@@ -248,89 +148,6 @@ def run_warnings(summary: dict[str, Any]) -> list[str]:
     if not isinstance(warnings, list | tuple):
         return []
     return [str(w) for w in warnings if str(w).strip()]
-
-
-#: Statistics shown in the totals table (the others go to the further tables).
-_TOTALS = ("melting_cells", "melting_area_km2", "melt_volume_km3")
-#: Unit suffixes of statistic keys, longest first, and their text.
-_STAT_UNITS = (
-    ("_km3_yr", "km³/yr"),
-    ("_km3", "km³"),
-    ("_km2", "km²"),
-    ("_mm_yr", "mm/yr"),
-    ("_km", "km"),
-    ("_gpa", "GPa"),
-    ("_k", "K"),
-    ("_c", "°C"),
-    ("_ma", "Ma"),
-)
-
-
-def _flat_statistics(stats: dict[str, Any], prefix: str = "") -> list[tuple[str, Any]]:
-    """Scalar statistics as (key, value), nested dicts as ``outer.inner`` keys."""
-    rows: list[tuple[str, Any]] = []
-    for key, value in stats.items():
-        name = f"{prefix}{key}"
-        if isinstance(value, dict):
-            rows.extend(_flat_statistics(value, prefix=f"{name}."))
-        elif isinstance(value, int | float) and not isinstance(value, bool):
-            rows.append((name, value))
-    return rows
-
-
-def _statistic_row(key: str, value: Any) -> tuple[str, str]:
-    unit = next((text for suffix, text in _STAT_UNITS if key.endswith(suffix)), "")
-    return key, format_sig(value, unit=unit)
-
-
-def _further_statistics(stats: dict[str, Any]) -> list[Block]:
-    """Tables of the statistics beyond the totals: the anomaly basis first, then the rest."""
-    rest = {k: v for k, v in stats.items() if k not in _TOTALS and k != "variables"}
-    rows = [_statistic_row(k, v) for k, v in _flat_statistics(rest)]
-    anomaly = tuple(r for r in rows if "anomaly" in r[0])
-    other = tuple(r for r in rows if "anomaly" not in r[0])
-    blocks: list[Block] = []
-    if anomaly:
-        blocks.append(
-            "Anomaly basis: the melt the thermal anomaly adds beneath the same lid (melt "
-            "thickness minus that of ambient mantle, never negative); 3 significant figures."
-        )
-        blocks.append(Table(("Statistic (anomaly basis)", "Value"), anomaly))
-    if other:
-        blocks.append(Table(("Further statistic", "Value"), other))
-    return blocks
-
-
-# --------------------------------------------------------------------------------------------
-# The sections, in page order
-
-
-def _summary_section(summary: dict[str, Any]) -> Section:
-    stats = summary.get("statistics") or {}
-    if not stats:
-        return Section("summary", "Summary", ("The run summary records no statistics.",))
-    totals = Table(
-        ("Quantity", "Value"),
-        (
-            ("Melting cells", format_number(stats.get("melting_cells"))),
-            ("Melting area", format_sig(stats.get("melting_area_km2"), unit="km²")),
-            ("Melt volume", format_sig(stats.get("melt_volume_km3"), unit="km³")),
-        ),
-    )
-    var_rows = tuple(
-        (
-            str(name),
-            variable_units(name, _get(summary, "outputs", name, "units")),
-            format_sig(_get(s, "min")),
-            format_sig(_get(s, "max")),
-            format_sig(_get(s, "mean")),
-        )
-        for name, s in (stats.get("variables") or {}).items()
-    )
-    blocks: list[Block] = [totals, *_further_statistics(stats)]
-    if var_rows:
-        blocks.append(Table(("Variable", "Unit", "Min", "Max", "Mean"), var_rows))
-    return Section("summary", "Summary", tuple(blocks))
 
 
 def _share(count: int, total: int) -> str:
@@ -474,7 +291,7 @@ def _workflow_section(summary: dict[str, Any]) -> Section:
 FRONT_SECTIONS = ("summary", "flags")
 
 _SECTIONS: tuple[Callable[[dict[str, Any]], Section], ...] = (
-    _summary_section,
+    summary_section,
     _model_section,
     _lid_section,
     _grid_section,

@@ -17,7 +17,20 @@ from lidmelt.grids.rundir import RunDir
 from lidmelt.products.maps import make_map_figure
 from lidmelt.products.report.content import Block, MapImage, Section, Table, format_sig
 
-__all__ = ["CANDIDATE_SHOWN", "STATION_SHOWN", "find_site_files", "sites_map", "sites_section"]
+__all__ = [
+    "CANDIDATES_NAME",
+    "CANDIDATE_SHOWN",
+    "STATIONS_NAME",
+    "STATION_SHOWN",
+    "find_site_files",
+    "sites_map",
+    "sites_section",
+]
+
+#: Where ``lidmelt screen`` writes its candidates by default and the report looks for them,
+#: and the station file the report looks for (in the run directory, outside its manifest).
+CANDIDATES_NAME = "candidates.gpkg"
+STATIONS_NAME = "stations.csv"
 
 #: Station columns shown (those the run has), after the station's name.
 STATION_SHOWN = (
@@ -45,7 +58,7 @@ def find_site_files(
 ) -> tuple[Path | None, Path | None]:
     """The given files, else ``RUN_DIR/stations.csv`` and ``RUN_DIR/candidates.gpkg``."""
     found = []
-    for given, default in ((stations, "stations.csv"), (candidates, "candidates.gpkg")):
+    for given, default in ((stations, STATIONS_NAME), (candidates, CANDIDATES_NAME)):
         path = Path(given) if given is not None else run.path / default
         found.append(path if given is not None or path.is_file() else None)
     return found[0], found[1]

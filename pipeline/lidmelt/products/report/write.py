@@ -66,6 +66,12 @@ def _rendered_map(run: RunDir, name: str, coast: Path | None) -> MapImage:
     return MapImage(name, buf.getvalue(), "image/png", "rendered for this report")
 
 
+def _shown(path: Path) -> str:
+    """A figure of the run directory named relative to it (``maps/x.png``): a run draws its
+    report in a staging folder that is renamed afterwards, so no absolute path is kept."""
+    return f"{path.parent.name}/{path.name}"
+
+
 def collect_maps(
     run: RunDir, maps: Sequence[str | Path] | None, coastlines: str | Path | bool | None
 ) -> list[MapImage]:
@@ -86,13 +92,13 @@ def collect_maps(
     images = []
     overview = run.path / "maps" / "overview.png"
     if overview.is_file() and overview.stat().st_mtime >= summary_mtime:
-        images.append(MapImage("overview", overview.read_bytes(), "image/png", str(overview)))
+        images.append(MapImage("overview", overview.read_bytes(), "image/png", _shown(overview)))
     names = [n for n in default_map_variables(run) if not is_ensemble_output(n)]
     names += [v for v in INPUT_MAPS if v in run.inputs]
     for name in names:
         existing = run.path / "maps" / f"{name}.png"
         if existing.is_file() and existing.stat().st_mtime >= summary_mtime:
-            images.append(MapImage(name, existing.read_bytes(), "image/png", str(existing)))
+            images.append(MapImage(name, existing.read_bytes(), "image/png", _shown(existing)))
             continue
         if not resolved:
             coast = resolve_coastlines(coastlines)
