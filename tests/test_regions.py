@@ -532,3 +532,30 @@ def test_cli_screen_errors(disks, tmp_path, capsys, monkeypatch, args, message):
     assert main(["screen", str(run), *args]) == 1
     assert message in capsys.readouterr().err
     assert sorted(p.name for p in tmp_path.iterdir()) == ["run"]
+
+
+def test_shallowest_onset_only_where_the_polygon_melts(make_run_dir, tmp_path, capsys):
+    """Issue 20: a polygon without a melting cell has no shallowest onset (NaN in the file,
+    "no melting" printed), even in a run whose onset grid holds values where nothing melts (runs
+    before issue 20). Check values: the invented fields (west: melt 0, onset 82 km; east: melt
+    2 km, onsets 90 km and 120 km)."""
+    melt = np.zeros((40, 60))
+    melt[:, 30:] = 2.0
+    onset = np.full((40, 60), 82.0)
+    onset[:, 30:45] = 120.0
+    onset[:, 45:] = 90.0
+    run = make_run_dir({"melt_thickness_km": melt, "onset_depth_km": onset}, transform=REGIONAL)
+    zones = gpd.GeoDataFrame(
+        {"zone": ["dry", "wet"]},
+        geometry=[shapely.box(-39, -9, -26, 9), shapely.box(-24, -9, -11, 9)],
+        crs="EPSG:4326",
+    )
+    got = region_statistics(run, zones)
+    assert np.isnan(got.loc[0, "shallowest_onset_depth_km"])
+    assert got.loc[0, "melting_area_km2"] == 0
+    assert got.loc[1, "shallowest_onset_depth_km"] == 90.0  # not the 82 km of the dry cells
+    path = tmp_path / "zones.geojson"
+    zones.to_file(path)
+    assert main(["regions", str(run), str(path)]) == 0
+    dry = next(line for line in capsys.readouterr().out.splitlines() if "dry" in line)
+    assert "no melting" in dry

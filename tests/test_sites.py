@@ -561,3 +561,46 @@ def test_station_longitudes_follow_the_grid_convention(make_run_dir, tmp_path):
         out["lid_depth_km"],
         linear_value("lid_depth_km", np.array([215.0, 210.5]), np.array([1.0, -2.0])),
     )
+
+
+# ---------------------------------------------------------------------------------------
+# Issue 20: no onset where nothing melts; latitude and longitude swapped
+# ---------------------------------------------------------------------------------------
+
+
+def test_onset_is_not_a_number_where_the_station_does_not_melt(make_run_dir, tmp_path, capsys):
+    """A station on a cell of melt 0 gets no onset depth, pressure or mean melt pressure
+    (registry: undefined_without_melt), also from a run whose file holds a value there (runs
+    before issue 20); the printed table says "no melting". Check values: the invented fields."""
+    x, y = centres(REGIONAL, 40, 60)
+    fields = linear_fields(x, y)
+    fields["melt_thickness_km"] = np.where(x < -25.0, 0.0, 3.0)  # west half does not melt
+    run = make_run_dir(fields, transform=REGIONAL)
+    out = sample_stations(run, points([-35.2, -15.2], [0.2, 0.2]), method="nearest")
+    for name in ("onset_depth_km", "onset_pressure_gpa", "mean_melt_pressure_gpa"):
+        assert np.isnan(out.loc[0, name])  # no melt: not defined
+        assert out.loc[1, name] == pytest.approx(linear_value(name, -15.25, 0.25))
+    assert np.isfinite(out.loc[0, "excess_to_melt_k"])  # defined everywhere (docs/physics.md)
+    assert list(out["status"]) == ["ok", "ok"]
+    stations = tmp_path / "st.csv"
+    stations.write_text("name,lon,lat\nwest,-35.2,0.2\neast,-15.2,0.2\n", encoding="utf-8")
+    assert main(["sample", str(run), str(stations), "--method", "nearest"]) == 0
+    west = next(line for line in capsys.readouterr().out.splitlines() if "west" in line)
+    assert "no melting" in west
+    assert "nan" not in west
+
+
+def test_swapped_latitude_and_longitude_get_a_hint(regional_run, tmp_path):
+    """Every station outside the grid (lon 5, 8; lat -20, -30), all inside with the columns
+    exchanged (lon -20, -30 and lat 5, 8 lie in the invented grid, -40..-10 E, -10..10 N)."""
+    stations = tmp_path / "swapped.csv"
+    stations.write_text("name,lon,lat\na,5,-20\nb,8,-30\n", encoding="utf-8")
+    with pytest.warns(UserWarning, match=r"2 of 2 would lie inside with longitude and latitude"):
+        sample_stations(regional_run, stations)
+    plain = tmp_path / "far.csv"  # outside either way: no hint
+    plain.write_text("name,lon,lat\na,50,50\n", encoding="utf-8")
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        sample_stations(regional_run, plain)
+    assert not any("swapped" in str(w.message) for w in caught)
+    assert any("outside the grid" in str(w.message) for w in caught)

@@ -62,7 +62,8 @@ def test_statistics_from_chunk_records_equal_whole_grid_numpy():
     npt.assert_allclose(st["anomaly_melt_volume_km3"], np.nansum(anomaly * area), rtol=1e-12)
     # ambient = total - anomaly-added (the statistics' definition, docs/physics.md)
     npt.assert_allclose(
-        st["ambient_melt_volume_km3"], np.nansum(thickness * area) - np.nansum(anomaly * area),
+        st["ambient_melt_volume_km3"],
+        np.nansum(thickness * area) - np.nansum(anomaly * area),
         rtol=1e-12,
     )
     for name in NAMES:

@@ -18,7 +18,7 @@ from lidmelt.cli._common import (
     status_summary,
 )
 from lidmelt.products.profiles import sample_track, write_profile
-from lidmelt.products.sampling import check_not_input, check_output_path
+from lidmelt.products.sampling import check_not_input, check_output_path, shown_without_melt
 
 __all__ = ["register"]
 
@@ -115,7 +115,7 @@ def run(args: argparse.Namespace) -> int:
             crs=args.crs,
         )
     shown = [c for c in _SHOWN if c in gdf.columns]
-    print(format_table(pd.DataFrame(gdf[shown]), max_rows=10))
+    print(format_table(shown_without_melt(pd.DataFrame(gdf[shown])), max_rows=10))
     print(
         status_summary(np.asarray(gdf["status"]), what="points")
         + flag_summary(gdf)

@@ -8,7 +8,7 @@ import pandas as pd
 
 from lidmelt.cli._common import format_table, print_warnings, run_dir_option
 from lidmelt.products.regions import STAT_COLUMNS, region_statistics, write_regions
-from lidmelt.products.sampling import check_output_path
+from lidmelt.products.sampling import NO_MELTING, check_output_path
 
 __all__ = ["SHOWN_STATISTICS", "register"]
 
@@ -52,6 +52,20 @@ def register(subparsers: argparse._SubParsersAction) -> None:
     p.set_defaults(func=run)
 
 
+def _shown_onsets(frame: pd.DataFrame) -> pd.DataFrame:
+    """The printed table with "no melting" as the shallowest onset of a polygon that has data
+    but no melting cell (the onset is not defined there; the file keeps NaN)."""
+    column = "shallowest_onset_depth_km"
+    if column not in frame.columns or "melting_area_km2" not in frame.columns:
+        return frame
+    none = (frame["melting_area_km2"] == 0) & frame[column].isna()
+    if not none.any():
+        return frame
+    out = frame.copy()
+    out[column] = out[column].astype(object).where(~none, NO_MELTING)
+    return out
+
+
 def run(args: argparse.Namespace) -> int:
     """Compute the polygon statistics, print them and write the file given with ``-o``."""
     out = (
@@ -63,7 +77,7 @@ def run(args: argparse.Namespace) -> int:
         gdf = region_statistics(args.run_dir, args.polygons, crs=args.crs)
     own = [c for c in gdf.columns if c not in STAT_COLUMNS and c != gdf.geometry.name][:2]
     shown = own + [c for c in SHOWN_STATISTICS if c in gdf.columns]
-    print(format_table(pd.DataFrame(gdf[shown])))
+    print(format_table(_shown_onsets(pd.DataFrame(gdf[shown]))))
     if out is None:
         print(f"{len(gdf)} polygons; no file written (give -o OUT.gpkg or -o OUT.csv to save)")
     else:

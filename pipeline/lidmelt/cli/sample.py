@@ -19,6 +19,7 @@ from lidmelt.products.sampling import (
     FLAG_COLUMN,
     check_not_input,
     check_output_path,
+    shown_without_melt,
     table_with_coordinates,
 )
 from lidmelt.products.sites import OUTPUT_SUFFIXES, sample_stations, write_stations
@@ -65,7 +66,7 @@ def _printed_table(gdf) -> str:
     sampled = set(gdf.attrs.get("lidmelt_units", {})) | {"status"}
     own = [c for c in frame.columns if c not in sampled and c not in coords][:2]
     shown = [c for c in (*_SHOWN_VARIABLES, "status", FLAG_COLUMN) if c in frame.columns]
-    return format_table(frame[own + coords + shown])
+    return format_table(shown_without_melt(frame[own + coords + shown]))
 
 
 def run(args: argparse.Namespace) -> int:

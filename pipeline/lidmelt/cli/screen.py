@@ -9,8 +9,8 @@ from pathlib import Path
 import pandas as pd
 
 from lidmelt.cli._common import format_table, print_warnings, run_dir_option
-from lidmelt.products.sampling import check_output_path
 from lidmelt.products.report.sites import CANDIDATES_NAME
+from lidmelt.products.sampling import check_output_path
 from lidmelt.products.screening import BASES, screen, write_candidates
 
 __all__ = ["SHOWN_COLUMNS", "register"]

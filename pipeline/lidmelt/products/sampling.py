@@ -20,7 +20,11 @@ edge gets NaN and the status ``outside_grid``; it is never dropped.
 The status describes the run's data coverage and is taken from ``melt_thickness_km`` (NaN only
 where the run has no data; 0 where the mantle does not melt). Variables that are NaN by
 definition at some data cells (``onset_depth_km`` where the mantle never reaches its solidus,
-``mean_melt_pressure_gpa`` where it does not melt) follow the same per-variable rule.
+``mean_melt_pressure_gpa`` where it does not melt) follow the same per-variable rule. The
+variables that are not defined without melt (:attr:`lidmelt.variables.Variable.
+undefined_without_melt`: onset depth and pressure, mean melt pressure) are NaN at every point
+whose sampled ``melt_thickness_km`` is 0, also in a run whose files hold a value there; tables
+shown to people say "no melting" there (:func:`shown_without_melt`).
 
 Validity flag
 -------------
@@ -62,6 +66,7 @@ __all__ = [
     "FLAG_MEANING_COLUMN",
     "METHODS",
     "NOISE_FRACTION",
+    "NO_MELTING",
     "REFERENCE_VARIABLE",
     "STATUSES",
     "STATUS_NEXT_TO_NODATA",
@@ -72,6 +77,7 @@ __all__ = [
     "apply_flag_stencil",
     "apply_stencil",
     "as_run",
+    "blank_without_melt",
     "check_method",
     "check_not_input",
     "check_output_path",
@@ -84,7 +90,10 @@ __all__ = [
     "safe_layer_name",
     "sample_points",
     "sample_run",
+    "shown_without_melt",
+    "swapped_hint",
     "table_with_coordinates",
+    "undefined_without_melt",
     "units_of",
     "variable_names",
     "warn_outside",
@@ -333,11 +342,46 @@ def sample_run(
             status[~np.isfinite(values)] = STATUS_NODATA
             fallback = flagged | ~np.isfinite(values)
     status[~stencil.inside] = STATUS_OUTSIDE
+    if ref in columns:
+        blank_without_melt(columns, columns[ref])
     flags = read_flags(run)
     if flags is not None:
         columns[FLAG_COLUMN] = apply_flag_stencil(stencil, flags.values, fallback)
         columns[FLAG_MEANING_COLUMN] = describe_flags(columns[FLAG_COLUMN], flags.meanings)
     return columns, status
+
+
+def undefined_without_melt(names: Sequence[str]) -> list[str]:
+    """The names among ``names`` of variables not defined where nothing melts (registry)."""
+    return [n for n in names if n in VARIABLES and VARIABLES[n].undefined_without_melt]
+
+
+def blank_without_melt(columns: dict[str, np.ndarray], melt: np.ndarray) -> None:
+    """Set the variables not defined without melt to NaN where ``melt`` is 0 (in place)."""
+    none = np.asarray(melt, dtype=float) == 0.0
+    for name in undefined_without_melt(list(columns)):
+        columns[name] = np.where(none, np.nan, columns[name])
+
+
+#: Text shown for a variable that is not defined because the column does not melt.
+NO_MELTING = "no melting"
+
+
+def shown_without_melt(frame: pd.DataFrame) -> pd.DataFrame:
+    """``frame`` for people: "no melting" in the cells of the variables not defined without
+    melt where ``melt_thickness_km`` is 0 (a file keeps NaN there)."""
+    if REFERENCE_VARIABLE not in frame.columns:
+        return frame
+    none = np.asarray(frame[REFERENCE_VARIABLE], dtype=float) == 0.0
+    names = undefined_without_melt(list(frame.columns))
+    if not names or not none.any():
+        return frame
+    out = frame.copy()
+    for name in names:
+        column = out[name].astype(object)
+        column[none] = NO_MELTING
+        out[name] = column
+    return out
 
 
 #: Sampled values smaller than this fraction of the variable's largest magnitude are 0.
@@ -461,13 +505,36 @@ def write_table(gdf: gpd.GeoDataFrame, path: Path, *, layer: str) -> None:
             gdf.to_file(temp, driver="GPKG", layer=layer)
 
 
-def warn_outside(frame: pd.DataFrame, status: np.ndarray, *, what: str, stacklevel: int) -> None:
-    """Warn once, naming them, about points that fall outside the grid."""
+def swapped_hint(run: RunDir, x: Any, y: Any, crs: Any, status: np.ndarray) -> str:
+    """A hint when every point lies outside the grid but some would lie inside with their
+    two coordinates exchanged (latitude given as longitude); '' otherwise."""
+    crs = pyproj.CRS.from_user_input(crs)
+    if not crs.is_geographic or not len(status) or not (status == STATUS_OUTSIDE).all():
+        return ""
+    grid = run_grid(run)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")  # latitudes beyond 90 degrees give NaN, as intended
+        gx, gy = grid.to_grid_xy(y, x, crs)
+    inside = make_stencil(grid, gx, gy, method="nearest").inside
+    if not inside.any():
+        return ""
+    return (
+        f" All of them lie outside, but {int(inside.sum())} of {inside.size} would lie inside "
+        "with longitude and latitude swapped: the file's longitude and latitude columns look "
+        "exchanged. Name them with --lon-column and --lat-column (Python: lon_column=, "
+        "lat_column=)."
+    )
+
+
+def warn_outside(
+    frame: pd.DataFrame, status: np.ndarray, *, what: str, stacklevel: int, hint: str = ""
+) -> None:
+    """Warn once, naming them, about points that fall outside the grid (``hint`` added)."""
     outside = np.flatnonzero(status == STATUS_OUTSIDE)
     if outside.size:
         warnings.warn(
             f"{outside.size} {what}(s) lie outside the grid and were given NaN with status "
-            f"{STATUS_OUTSIDE!r}: {describe_rows(frame, outside)}",
+            f"{STATUS_OUTSIDE!r}: {describe_rows(frame, outside)}.{hint}",
             UserWarning,
             stacklevel=stacklevel + 1,
         )

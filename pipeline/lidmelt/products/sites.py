@@ -36,8 +36,11 @@ the value of the cell that contains the station. Statuses:
     of the cell containing the station (nearest-cell fallback), not an interpolation.
 
 A variable that is NaN by definition at some cells (``onset_depth_km`` where the mantle never
-reaches its solidus) follows the same rule on its own cells. Within the outer half cell of the
-grid the values are those of the edge cells.
+reaches its solidus) follows the same rule on its own cells; the variables not defined where
+nothing melts (onset depth and pressure, mean melt pressure) are NaN at a station whose melt
+thickness is 0 (``lidmelt sample`` prints "no melting" there). Within the outer half cell of the
+grid the values are those of the edge cells. When every station lies outside the grid but some
+would lie inside with longitude and latitude exchanged, the warning says so.
 
 Validity flag
 -------------
@@ -140,7 +143,8 @@ def sample_stations(
     geometry = out.geometry.name
     out = out[[c for c in out.columns if c != geometry] + [geometry]]
     out.attrs = {**gdf.attrs, "lidmelt_units": smp.units_of(run, list(columns))}
-    smp.warn_outside(out, status, what="station", stacklevel=2)
+    hint = smp.swapped_hint(run, x, y, gdf.crs, status)
+    smp.warn_outside(out, status, what="station", stacklevel=2, hint=hint)
     return out
 
 

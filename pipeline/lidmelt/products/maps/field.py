@@ -62,10 +62,11 @@ def no_melt_mask(run: RunDir, values: np.ndarray, style: VariableStyle) -> np.nd
     """Cells to draw as "no melting", or None when the variable has no such class.
 
     For a melt amount, the cells that are 0 or below the variable's ``negligible_below``
-    (:meth:`.style.VariableStyle.melting`). For a variable that is undefined where nothing melts (onset depth, onset pressure, mean
-    melt pressure), every cell with ``melt_thickness_km == 0`` is "no melting", whether the
-    file holds NaN or a value there (an onset depth exists where the solidus is crossed
-    beneath the lid, but nothing melts): the map never shows such a value as data.
+    (:meth:`.style.VariableStyle.melting`). For a variable that is undefined where nothing
+    melts (onset depth, onset pressure, mean melt pressure), every cell with
+    ``melt_thickness_km == 0`` is "no melting", whether the file holds NaN or a value there
+    (runs before issue 20 kept an onset where the solidus is crossed beneath the lid, but
+    nothing melts): the map never shows such a value as data.
     """
     if style.zero_is_no_melt:
         return np.isfinite(values) & ~style.melting(values)

@@ -15,7 +15,9 @@ from typing import Any
 
 from lidmelt.grids.rundir import RunDir
 from lidmelt.products.maps import make_map_figure
-from lidmelt.products.report.content import Block, MapImage, Section, Table, format_sig
+from lidmelt.products.report.blocks import Block, MapImage, Section, Table, format_sig
+from lidmelt.products.report.labels import column_label
+from lidmelt.products.sampling import shown_without_melt
 
 __all__ = [
     "CANDIDATES_NAME",
@@ -41,14 +43,15 @@ STATION_SHOWN = (
     "flag_meaning",
     "status",
 )
-#: Candidate columns shown (those the file has).
+#: Candidate columns shown (those the file has): the anomaly-added volume first.
 CANDIDATE_SHOWN = (
     "rank",
     "plume",
     "plume_match",
     "area_km2",
-    "melt_volume_km3",
     "anomaly_melt_volume_km3",
+    "ambient_melt_volume_km3",
+    "melt_volume_km3",
     "flagged_fraction",
 )
 
@@ -80,7 +83,8 @@ def _station_table(run: RunDir, path: Path) -> Table:
         gdf = sample_stations(run, path)
     name_col = next((c for c in ("name", "id", "station") if c in gdf.columns), None)
     cols = [c for c in STATION_SHOWN if c in gdf.columns]
-    header = ("Station", *cols)
+    header = ("Station", *(column_label(c) for c in cols))
+    gdf = shown_without_melt(gdf)  # "no melting" where the onset is not defined
     rows = tuple(
         (str(row[name_col]) if name_col else str(k + 1), *(_cell(row[c]) for c in cols))
         for k, (_, row) in enumerate(gdf.iterrows())
@@ -94,7 +98,7 @@ def _candidate_table(path: Path) -> Table:
     gdf = gpd.read_file(path)
     cols = [c for c in CANDIDATE_SHOWN if c in gdf.columns]
     rows = tuple(tuple(_cell(row[c]) for c in cols) for _, row in gdf.iterrows())
-    return Table(tuple(cols), rows)
+    return Table(tuple(column_label(c) for c in cols), rows)
 
 
 def sites_section(run: RunDir, stations: Path | None, candidates: Path | None) -> Section | None:
