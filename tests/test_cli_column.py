@@ -191,3 +191,12 @@ def test_unit_mistakes_get_hints(capsys):
     # Tp in kelvin: 1623 K = 1349.85 C, a likely ambient value; a note gives the conversion
     assert main(["column", "--potential-temperature", "1623", "--lid-depth", "30"]) == 0
     assert "--potential-temperature 1349.85" in capsys.readouterr().err
+    # issue 20: an excess is a difference (1 K = 1 degree C): no kelvin hint for 200 K
+    assert main(["column", "--excess-temperature", "200", "--age", "80"]) == 0
+    err = capsys.readouterr().err
+    assert "kelvin" not in err
+    assert "--potential-temperature" not in err
+    # an excess that looks like an absolute Tp is noted as such (the note comes before the
+    # error it may explain: Tp 2250 C has no onset within the model's 30 GPa)
+    main(["column", "--excess-temperature", "900", "--age", "80"])
+    assert "give --potential-temperature 900" in capsys.readouterr().err

@@ -243,13 +243,25 @@ def _check_ranges(args: argparse.Namespace) -> None:
 
 
 def _unit_hints(args: argparse.Namespace, tp: float) -> list[str]:
-    """Notes on values that look like unit mistakes (water in ppm, Tp in kelvin)."""
+    """Notes on values that look like unit mistakes (water in ppm, Tp in kelvin, an absolute
+    temperature given as an excess)."""
     notes = []
     if args.water > 0.1:
         notes.append(
             f"--water {args.water:g} wt% is far wetter than oceanic mantle (about 0.005-0.03 "
             f"wt%, from memory); if you meant {args.water:g} ppm, give --water {args.water / 1e4:g}"
         )
+    if args.potential_temperature is None:  # an excess is a difference: kelvin = degrees C
+        excess = args.excess_temperature
+        if excess > _PLUME_EXCESS_K:
+            notes.append(
+                f"--excess-temperature {excess:g} K is hotter than plume estimates (about "
+                f"100-300 K above ambient, from memory); it is the excess above the ambient "
+                f"potential temperature ({tp - excess:g} C), so the column is at Tp {tp:g} C. If "
+                f"{excess:g} is the potential temperature itself, give --potential-temperature "
+                f"{excess:g}"
+            )
+        return notes
     in_kelvin = tp - 273.15
     if tp > 1500.0 and 1250.0 <= in_kelvin <= 1450.0:
         notes.append(
@@ -262,6 +274,11 @@ def _unit_hints(args: argparse.Namespace, tp: float) -> list[str]:
             f"({in_kelvin:g} C)?"
         )
     return notes
+
+
+#: An excess above this (K) is noted as a possible absolute temperature: plume excesses are
+#: about 100-300 K (from memory; the registry's thermal anomaly advice gives the same range).
+_PLUME_EXCESS_K = 500.0
 
 
 def _lid_km(args: argparse.Namespace) -> float:
