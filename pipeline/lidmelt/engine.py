@@ -40,10 +40,13 @@ from lidmelt.physics import (
 from lidmelt.progress import band_reporter
 from lidmelt.run_inputs import (
     LID_INPUTS,
+    READ_ERRORS,
     RunInputs,
+    explain_read_failure,
     lid_cooling_model,
     load_inputs,
     load_model,
+    refuse_without_data,
     resolve_target_grid,
 )
 from lidmelt.statistics import ambient_melting_warnings, band_parts, summarize_bands
@@ -461,7 +464,13 @@ def run_basin(
         a run without a single evaluable cell; nothing is left half-written.
     """
     with RunTransaction(output_dir or cfg.run.output_dir, wait=wait) as tx, connect(cfg) as client:
-        result = _run_staged(cfg, tx.staging, progress, extra_stages, client)
+        try:
+            result = _run_staged(cfg, tx.staging, progress, extra_stages, client)
+        except READ_ERRORS as exc:  # a damaged input file? name it and its workflow key
+            explained = explain_read_failure(cfg, exc)
+            if explained is None:
+                raise
+            raise explained from exc
         t0 = time.perf_counter()
         rundir.seal_run(tx.staging, result.summary, sources=result.sources)
         result.timings_s["seal_s"] = time.perf_counter() - t0
@@ -507,6 +516,9 @@ def _run_staged(
         inputs=inputs,
         scheduler=client,
         cog=cfg.outputs.cloud_optimized,
+    )
+    refuse_without_data(
+        cfg, inputs=inputs, statistics=statistics, flag_path=run_dir / rundir.FLAG_FILE, model=model
     )
     run_warnings = ambient_melting_warnings(
         statistics, ambient_c=cfg.model.ambient_potential_temperature_c, issue=True

@@ -5,6 +5,12 @@ every output, refused above ``compute.max_cells``), :func:`load_inputs` (every i
 the grid, or a constant; plumes and their upwelling added; a lid below sea level converted) and
 :func:`lid_cooling_model` (the lid from the plate age, or a lid grid). :mod:`lidmelt.engine` runs
 them before the kernel; ensembles (:mod:`lidmelt.ensemble`) run them once per distinct input set.
+
+Errors name the input's workflow key and file: an input grid that does not overlap the run's
+grid, a ``grid.like`` grid above ``compute.max_cells``, a file whose tiles or chunks cannot be
+read (:func:`explain_read_failure`, which finds the file after a run failed reading), and a run
+without a single cell that could be computed (:func:`refuse_without_data`, with each input's
+values and the range the model accepts).
 """
 
 from __future__ import annotations
@@ -12,10 +18,11 @@ from __future__ import annotations
 from dataclasses import dataclass, replace
 from typing import Any
 
+import numpy as np
 import xarray as xr
 
 from lidmelt.config import DEFAULT_MAX_CELLS
-from lidmelt.errors import InputError
+from lidmelt.errors import GridError, InputError, LidmeltError
 from lidmelt.grids.align import align
 from lidmelt.grids.anomaly import Plume, plume_anomaly
 from lidmelt.grids.grid import Grid, registration
@@ -26,10 +33,13 @@ from lidmelt.variables import INPUTS, input_for_workflow_key
 
 __all__ = [
     "LID_INPUTS",
+    "READ_ERRORS",
     "RunInputs",
+    "explain_read_failure",
     "lid_cooling_model",
     "load_inputs",
     "load_model",
+    "refuse_without_data",
     "resolve_target_grid",
 ]
 
@@ -64,8 +74,10 @@ def load_model(cfg) -> tuple[Any, Any | None]:
 def resolve_target_grid(cfg) -> Grid:
     """The grid of every output: that of the input named by ``grid.like``, or ``grid.extent``."""
     spec = cfg.grid
+    where = "the grid (grid.extent and grid.resolution)"
     if spec.like:
         inp = cfg.inputs[spec.like]
+        where = f"the grid of grid.like = {spec.like!r} (inputs.{spec.like}: {str(inp.path)!r})"
         var = input_for_workflow_key(spec.like)
         da = open_input(
             inp, name=var.name, units_expected=var.units, chunks={"y": "auto", "x": "auto"}
@@ -79,9 +91,10 @@ def resolve_target_grid(cfg) -> Grid:
     limit = int(getattr(cfg.compute, "max_cells", DEFAULT_MAX_CELLS))
     if grid.width * grid.height > limit:
         msg = (
-            f"the grid has {grid.width} x {grid.height} = {grid.width * grid.height:,} cells, "
+            f"{where} has {grid.width} x {grid.height} = {grid.width * grid.height:,} cells, "
             f"more than compute.max_cells = {limit:,}. Use a coarser grid.resolution or a "
-            "smaller grid.extent, or raise compute.max_cells in the workflow."
+            "smaller grid.extent (or a coarser file for grid.like), or raise compute.max_cells "
+            "in the workflow."
         )
         raise InputError(msg)
     return grid
@@ -136,7 +149,11 @@ def _load_input(inp, name: str, target: Grid, chunks: int) -> tuple[xr.DataArray
             **({"conversion": da.attrs["conversion"]} if "conversion" in da.attrs else {}),
         }
     )
-    aligned = align(da, target, resampling=inp.resampling, name=name)
+    try:
+        aligned = align(da, target, resampling=inp.resampling, name=name)
+    except GridError as exc:  # e.g. no overlap: the message names the variable; add the file
+        msg = f"inputs.{INPUTS[name].workflow_key} (file {str(inp.path)!r}): {exc}"
+        raise GridError(msg) from exc
     if aligned.chunks is None or aligned.chunks != target.template(chunks).chunks:
         aligned = aligned.chunk({"y": chunks, "x": chunks})
     if inp.constant:
@@ -183,3 +200,147 @@ def lid_cooling_model(cfg, *, inputs: RunInputs):
     if "plate_age_ma" not in inputs.values:
         return None
     return get_cooling_model(cfg.lithosphere.cooling, **dict(cfg.lithosphere.parameters))
+
+
+# ---- errors that name the input ------------------------------------------------------------------
+def _read_errors() -> tuple[type[BaseException], ...]:
+    """What a reader raises for a damaged file (GDAL; NetCDF/HDF as RuntimeError or OSError)."""
+    import rasterio.errors
+    from rasterio._err import CPLE_BaseError
+
+    return (rasterio.errors.RasterioError, CPLE_BaseError, RuntimeError, OSError)
+
+
+#: Exceptions after which :func:`explain_read_failure` looks for a damaged input file.
+READ_ERRORS = _read_errors()
+
+
+def _first_bad_block(inp, name: str, chunks: int) -> tuple[str, BaseException] | None:
+    """Read an input file block by block; the first block that fails and its error, or None."""
+    var = INPUTS[name]
+    try:
+        da = open_input(inp, name=name, units_expected=var.units, chunks=chunks)
+    except InputError as exc:
+        return "the file's header", exc
+    if not hasattr(da.data, "to_delayed"):
+        return None
+    starts = [np.cumsum((0, *c[:-1])) for c in da.data.chunks]
+    for (i, j), block in np.ndenumerate(da.data.to_delayed()):
+        try:
+            block.compute(scheduler="synchronous")
+        except READ_ERRORS as exc:
+            return f"the block from row {starts[0][i]}, column {starts[1][j]}", exc
+    return None
+
+
+def _root_message(exc: BaseException) -> str:
+    """The message at the root of an exception's chain (GDAL's names the file and block,
+    where rasterio's outer one says only "Read failed")."""
+    seen = []
+    while exc is not None and exc not in seen:
+        seen.append(exc)
+        exc = exc.__cause__ or exc.__context__
+    texts = [str(e) for e in seen if str(e) and "previous exception" not in str(e)]
+    return texts[-1] if texts else str(seen[0])
+
+
+def explain_read_failure(cfg, exc: BaseException) -> InputError | None:
+    """After a run failed with ``exc`` (a read error), the input file that cannot be read.
+
+    Each input file of ``cfg`` is read again, block by block; the first damaged one gives an
+    :class:`InputError` naming its workflow key, its file and the failing block (None when every
+    input reads: the failure was elsewhere, e.g. writing the outputs; None for lidmelt's own
+    errors, which say what is wrong already).
+    """
+    if isinstance(exc, LidmeltError):
+        return None
+    chunks = int(cfg.compute.chunk_size)
+    for name, var in INPUTS.items():
+        inp = cfg.inputs[var.workflow_key]
+        if inp is None or inp.path is None:
+            continue
+        bad = _first_bad_block(inp, name, chunks)
+        if bad is not None:
+            where, error = bad
+            msg = (
+                f"inputs.{var.workflow_key}: the grid file {str(inp.path)!r} cannot be read "
+                f"({where}: {_root_message(error)}). The file is damaged or truncated (corrupt "
+                "tiles or chunks); write it again from its source (e.g. 'gdal_translate' or "
+                "'nccopy'), or give another file in the workflow."
+            )
+            return InputError(msg)
+    return None
+
+
+def _value_range(value) -> str:
+    """An input's values as text: the constant, or the range of the grid (computed now)."""
+    if not isinstance(value, xr.DataArray):
+        return f"the constant {float(value):g}"
+    data = value.data
+    low, high = (float(v) for v in (np.nanmin(data), np.nanmax(data)))
+    return "only NaN (nodata)" if not np.isfinite(low) else f"values {low:.4g} to {high:.4g}"
+
+
+def _input_lines(cfg, inputs: RunInputs, model) -> list[str]:
+    """Per input: key, file, its values and the range accepted (water: the saturation too)."""
+    lines = []
+    for name, value in inputs.values.items():
+        var = INPUTS[name]
+        source = inputs.provenance.get(name, {}).get("source")
+        where = f"file {source!r}" if source else "set in the workflow"
+        lo, hi = var.valid_range
+        line = (
+            f"inputs.{var.workflow_key} ({where}): {_value_range(value)} {var.units}, "
+            f"accepted {lo:g} to {hi:g} {var.units}"
+        )
+        if name == "water_wt_pct" and getattr(model, "hydrous", False):
+            cal = float(getattr(model, "calibrated_max_pressure_gpa", 7.0))
+            low, high = (float(model.water_saturated_bulk_wt_pct(p)) for p in (1.0, cal))
+            line += (
+                f", but the solid source of {model.name} holds at most {low:.3g} wt% at 1 GPa "
+                f"and {high:.3g} wt% at {cal:g} GPa (more is free water)"
+            )
+        lines.append(line)
+    return lines
+
+
+def refuse_without_data(cfg, *, inputs: RunInputs, statistics: dict, flag_path, model) -> None:
+    """Refuse a run none of whose cells could be computed (no finite melt thickness anywhere).
+
+    The message counts the cells per validity flag bit that took them out (read from the
+    written flag grid at ``flag_path``) and names every input: workflow key, file, values and
+    the range the registry and the model accept.
+    """
+    if statistics.get("data_cells"):
+        return
+    import rasterio
+
+    from lidmelt.physics import FLAG_MEANINGS
+    from lidmelt.variables import FLAG_NODATA
+
+    with rasterio.open(flag_path) as src:
+        counts = np.bincount(src.read(1).ravel(), minlength=256)
+    inside = int(counts[:FLAG_NODATA].sum())
+    why = [
+        f"{int(counts[[v for v in range(FLAG_NODATA) if v & bit]].sum()):,} of them: {text} "
+        f"(flag {bit})"
+        for bit, text in FLAG_MEANINGS.items()
+        if counts[[v for v in range(FLAG_NODATA) if v & bit]].sum()
+    ]
+    if not inside:
+        what = (
+            "no cell of the grid has data: every cell lacks a lid (plate age or lid thickness), "
+            "a thermal anomaly or a water content. Check that the input grids overlap the "
+            "grid's extent and are not all NaN (nodata)"
+        )
+    else:
+        what = (
+            f"none of the {inside:,} cells with data can be evaluated (of the grid's "
+            f"{int(counts.sum()):,} cells): " + "; ".join(why)
+        )
+    msg = (
+        f"{what}. The inputs: "
+        + "; ".join(_input_lines(cfg, inputs, model))
+        + ". Fix the input that is out of range (its unit or its values) and run again."
+    )
+    raise InputError(msg)
