@@ -1,9 +1,16 @@
 """Where each parameter of the melting models comes from (shown by ``describe`` and stored
-with every run): a published table, common practice, a value from memory, or lidmelt's choice."""
+with every run): a published table, common practice, a value from memory, or lidmelt's choice.
+
+A value recalled from memory whose publication could not be read (docs/sources.md says what was
+tried) is marked "from memory, not checked against the publication" (:data:`NOT_CHECKED`), so
+that the run's summary and report say so plainly."""
 
 from __future__ import annotations
 
-__all__ = ["KATZ_SOURCES", "MB1988_SOURCES"]
+__all__ = ["KATZ_SOURCES", "MB1988_SOURCES", "NOT_CHECKED"]
+
+#: The mark of a value recalled from memory and not checked against its publication.
+NOT_CHECKED = "from memory, not checked against the publication"
 
 #: Sources of the parameters every model shares by lidmelt's definition.
 _DEFINITION_SOURCES = {
@@ -50,14 +57,16 @@ KATZ_SOURCES = _sources(
     ),
     (
         ("solid_expansivity_k", "melt_expansivity_k", "solid_density_kg_m3", "melt_density_kg_m3"),
-        "Katz et al. 2003, Table 2 (from memory)",
+        f"Katz et al. 2003, Table 2 ({NOT_CHECKED})",
     ),
-    cpx_mass_fraction="Katz et al. 2003, fertile lherzolite (from memory)",
+    cpx_mass_fraction=f"Katz et al. 2003, fertile lherzolite ({NOT_CHECKED})",
     max_onset_pressure_gpa=(
         "deepest onset of Tp <= 1900 C, water <= 0.1 wt% on the continued solidus: 26.5 GPa "
         "[derived]; 30 GPa with margin"
     ),
-    calibrated_max_pressure_gpa="onsets beyond ~7 GPa extrapolate the experiments (from memory)",
+    calibrated_max_pressure_gpa=(
+        f"onsets beyond ~7 GPa extrapolate the experiments of Katz et al. 2003 ({NOT_CHECKED})"
+    ),
 )
 
 MB1988_SOURCES = _sources(

@@ -57,6 +57,7 @@ from lidmelt.errors import ModelError
 from lidmelt.physics import _plate
 from lidmelt.physics._cooling_model import CoolingModel
 from lidmelt.physics._registry import lookup
+from lidmelt.physics._sources import NOT_CHECKED
 
 __all__ = [
     "COOLING_MODELS",
@@ -101,22 +102,24 @@ HALF_SPACE = CoolingModel(
     ridge_depth_m=2600.0,
     reference=(
         "Half-space cooling, Turcotte & Schubert, Geodynamics (2nd ed., 2002), sections 4.15-4.16 "
-        "and 4.23, with their textbook constants [from memory]; ridge depth 2600 m as in GDH1, "
-        "Stein & Stein 1992 [from memory]"
+        f"and 4.23, with their textbook constants ({NOT_CHECKED}); ridge depth 2600 m as in "
+        f"GDH1, Stein & Stein 1992 ({NOT_CHECKED})"
     ),
     sources={
         "plate_thickness_km": "none: a half-space has no base",
         **dict.fromkeys(
             ("mantle_temperature_c", "diffusivity_m2_s"),
-            "Turcotte & Schubert 2002, Geodynamics, section 4.15 (from memory)",
+            f"Turcotte & Schubert 2002, Geodynamics, section 4.15 ({NOT_CHECKED})",
         ),
         "surface_temperature_c": _SEAFLOOR_AT_0C,
-        "conductivity_w_m_k": "Turcotte & Schubert 2002, Geodynamics, section 4.16 (from memory)",
+        "conductivity_w_m_k": (
+            f"Turcotte & Schubert 2002, Geodynamics, section 4.16 ({NOT_CHECKED})"
+        ),
         **dict.fromkeys(
             ("expansivity_k", "mantle_density_kg_m3", "water_density_kg_m3"),
-            "Turcotte & Schubert 2002, Geodynamics, section 4.23 (from memory)",
+            f"Turcotte & Schubert 2002, Geodynamics, section 4.23 ({NOT_CHECKED})",
         ),
-        "ridge_depth_m": "Stein & Stein 1992, Nature 359, 123, GDH1 (from memory)",
+        "ridge_depth_m": f"Stein & Stein 1992, Nature 359, 123, GDH1 ({NOT_CHECKED})",
     },
 )
 """Half-space cooling with the textbook constants of Turcotte & Schubert, *Geodynamics*.
@@ -131,7 +134,7 @@ With these values the thermal thickness (0.9 isotherm) is 13.0 km sqrt(t/Ma), th
 """
 
 _GDH1_HEAT_CAPACITY_J_KG_K = 1171.0  # Stein & Stein 1992, Nature 359, 123 [from memory]
-_GDH1_MEMORY = "Stein & Stein 1992, Nature 359, 123, GDH1 (from memory)"
+_GDH1_MEMORY = f"Stein & Stein 1992, Nature 359, 123, GDH1 ({NOT_CHECKED})"
 _GDH1_VERIFIED = "Stein & Stein 1992, Nature 359, 123 (verified secondary: Honda & Yuen 2004)"
 
 GDH1 = CoolingModel(
@@ -149,14 +152,14 @@ GDH1 = CoolingModel(
     reference=(
         "GDH1 plate model, Stein & Stein 1992, Nature 359, 123: a = 95 km, Tm = 1450 C [verified "
         "(secondary): Honda & Yuen 2004 abstract]; alpha = 3.1e-5 /K, k = 3.138 W/m/K, "
-        "cp = 1171 J/kg/K, rho_m = 3330, rho_w = 1000 kg/m^3, ridge depth 2600 m [from memory]; "
+        f"cp = 1171 J/kg/K, rho_m = 3330, rho_w = 1000 kg/m^3, ridge depth 2600 m ({NOT_CHECKED}); "
         "kappa = k/(rho_m cp) [derived]"
     ),
     sources={
         **dict.fromkeys(("plate_thickness_km", "mantle_temperature_c"), _GDH1_VERIFIED),
         "surface_temperature_c": _SEAFLOOR_AT_0C,
         "diffusivity_m2_s": "derived: k / (rho_m c_p) with c_p = 1171 J/kg/K, Stein & Stein "
-        "1992 (from memory)",
+        f"1992 ({NOT_CHECKED})",
         **dict.fromkeys(
             (
                 "conductivity_w_m_k",

@@ -140,6 +140,21 @@ def _parameter_table(block: dict[str, Any], *, fallback: str) -> tuple[Table, Ta
     return table, (Table(("Source", "Reference"), listed) if listed else None)
 
 
+#: Said under a sources table that holds values not checked against their publication.
+UNCHECKED_NOTE = (
+    "Sources marked 'not checked against the publication' are values recalled from memory that "
+    "could not be checked against a readable copy of the publication; docs/sources.md says what "
+    "was tried. Treat them as unverified."
+)
+
+
+def _unchecked(sources: Table | None) -> tuple[str, ...]:
+    """The note on unchecked values, when a sources table holds one."""
+    if sources is None or not any("not checked" in row[1] for row in sources.rows):
+        return ()
+    return (UNCHECKED_NOTE,)
+
+
 def run_warnings(summary: dict[str, Any]) -> list[str]:
     """The run's warnings (``summary["warnings"]``), as text; empty when there are none."""
     warnings = summary.get("warnings")
@@ -192,6 +207,7 @@ def _model_section(summary: dict[str, Any]) -> Section:
         f"Ambient mantle potential temperature: {format_value(tp)} °C.",
         table if table.rows else "The summary lists no model parameters.",
         *((sources,) if sources is not None else ()),
+        *_unchecked(sources),
     )
     return Section("model", "Melting model", blocks)
 
@@ -210,7 +226,7 @@ def _lid_section(summary: dict[str, Any]) -> Section:
         if table.rows:
             blocks.append(table)
         if sources is not None:
-            blocks.append(sources)
+            blocks += [sources, *_unchecked(sources)]
     else:
         blocks = ["No cooling model: the lid came from a lid-thickness grid."]
     top = summary.get("min_top_of_melting_km")
