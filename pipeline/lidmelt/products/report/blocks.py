@@ -35,6 +35,7 @@ class Pre:
 
     text: str
     folded: str = ""
+    in_pdf: bool = True  # False: raw data the PDF leaves to the HTML page (it names it instead)
 
 
 @dataclass(frozen=True)

@@ -289,7 +289,7 @@ def _inputs_section(summary: dict[str, Any]) -> Section:
     if plumes is not None:
         blocks += ["Plumes added to the thermal anomaly (from the workflow):", plumes]
     raw = json.dumps(inputs, indent=2, ensure_ascii=False, sort_keys=True)
-    blocks.append(Pre(raw, folded="The inputs as recorded in summary.json (JSON)"))
+    blocks.append(Pre(raw, folded="The inputs as recorded in summary.json (JSON)", in_pdf=False))
     return Section("inputs", "Input provenance", tuple(blocks))
 
 

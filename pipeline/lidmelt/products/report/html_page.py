@@ -25,8 +25,8 @@ from lidmelt.products.report.content import (
     build_sections,
     job_line,
     run_warnings,
-    variable_label,
 )
+from lidmelt.products.report.labels import figure_caption
 
 __all__ = ["render_html"]
 
@@ -68,7 +68,7 @@ def _esc(text: Any) -> str:
 def _html_figure(image: MapImage) -> str:
     """An embedded image with its caption (the variable's label and where it came from)."""
     data = base64.b64encode(image.data).decode("ascii")
-    caption = image.caption or f"{variable_label(image.variable)} ({image.source})"
+    caption = image.caption or figure_caption(image.variable, image.source)
     alt = image.caption or f"Map of {image.variable}"
     return (
         f'<figure><img alt="{_esc(alt)}" src="data:{image.mime};base64,{data}">'

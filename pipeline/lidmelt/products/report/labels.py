@@ -20,6 +20,7 @@ from lidmelt.variables import OUTPUTS, VARIABLES
 __all__ = [
     "STAT_UNITS",
     "column_label",
+    "figure_caption",
     "is_categorical",
     "regime_label",
     "statistic_label",
@@ -145,8 +146,15 @@ def variable_units(name: str, recorded: Any = "") -> str:
 
 
 def variable_label(name: str) -> str:
-    """``"<Long name> (<name>)"`` for a registered variable, else the name."""
+    """The long name of a registered variable (capitalised), else the name."""
     if name == "overview":
         return "Overview: inputs and predicted melting on one page"
     var = variable_of(name)
-    return f"{var.title} ({name})" if var is not None else name
+    return var.title if var is not None else name
+
+
+def figure_caption(name: str, source: str) -> str:
+    """A figure's caption: what it shows, the variable's file name, where the image came from."""
+    label = variable_label(name)
+    shown = "" if name in ("overview", label) else f"{name}; "
+    return f"{label} ({shown}{source})"

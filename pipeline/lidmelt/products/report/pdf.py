@@ -1,16 +1,26 @@
-"""The report as a PDF, composed with matplotlib's ``PdfPages`` (A4 portrait).
+"""The report as a typeset PDF (A4 portrait), composed with reportlab's Platypus.
 
-Pages: text pages with the job, the run's warnings (bold, red), the caution, the summary and
-the flag counts; one page per PNG map; then text
-pages with the tables and the workflow. Text is set in DejaVu Sans Mono; tables are set as
-aligned columns under a header and a rule (long cells wrap within their column). The file
-carries no creation date (reproducible).
+The same sections as the HTML page (:mod:`.content`), set as a document rather than as text
+pages: paragraphs that wrap and flow from page to page, tables with a header row (repeated
+where a table continues on the next page) whose cells wrap within their column, figures at the
+full text width (scaled down to the page height where a figure is taller) with their caption,
+headings kept with what follows. The run's warnings and the caution are framed boxes under the
+job line. Each page has a running header (the run) and a footer (page number, lidmelt version),
+both inside the page. Text is set in DejaVu Sans (matplotlib's bundled TrueType fonts, embedded:
+every character the report uses, units and symbols included), code in DejaVu Sans Mono. Raw
+data (:class:`.blocks.Pre` with ``in_pdf`` False) is left to the HTML page, which the PDF
+names. The file carries no creation date (reproducible).
+
+Why reportlab: its Platypus engine breaks paragraphs and tables across pages, which
+matplotlib's PDF backend (one figure per page, no text flow) does not; printing the HTML page
+with a browser would make a browser a dependency of ``lidmelt report --pdf``.
 """
 
 from __future__ import annotations
 
+import functools
+import html
 import io
-import textwrap
 from collections.abc import Sequence
 from pathlib import Path
 from typing import Any
@@ -18,214 +28,268 @@ from typing import Any
 from lidmelt import __version__
 from lidmelt.files import atomic_path
 from lidmelt.grids.rundir import RunDir
+from lidmelt.products.report.blocks import Block, MapImage, Pre, Section, Table
 from lidmelt.products.report.content import (
     CAUTION,
     FRONT_SECTIONS,
-    Block,
-    MapImage,
-    Pre,
-    Section,
-    Table,
     build_sections,
     job_line,
     run_warnings,
-    variable_label,
 )
+from lidmelt.products.report.labels import figure_caption
 
-__all__ = ["write_pdf"]
+__all__ = ["MARGIN_PT", "PAGE_PT", "write_pdf"]
 
-_PAGE_IN = (8.27, 11.69)  # A4 portrait
-_PDF_FONT_PT = 8.0
-#: Characters per line and lines per page of the text pages (monospace, 0.6 em wide).
-_WIDTH_CHARS = int((_PAGE_IN[0] - 1.2) * 72 / (0.6 * _PDF_FONT_PT))
-_PER_PAGE = int((_PAGE_IN[1] - 1.4) * 72 / (1.45 * _PDF_FONT_PT))
-
-Line = tuple[str, str]  # (kind, text): "title", "heading", "warning", "text" or "" (blank)
+#: Page size (A4 portrait) and margins, in points (1/72 in).
+PAGE_PT = (595.2756, 841.8898)
+MARGIN_PT = 56.0
+_HEAD_PT = 28.0  # the running header and footer sit this far inside the page's edge
+_FONT, _BOLD, _ITALIC, _MONO = "LmSans", "LmSans-Bold", "LmSans-Oblique", "LmMono"
 
 
-def _text_lines(block: Block, width_chars: int) -> list[str]:
-    if isinstance(block, MapImage):  # placed on a page of its own (:func:`_section_pages`)
-        where = "next page" if block.mime == "image/png" else "in the HTML report only"
-        return [f"Figure: {block.caption or variable_label(block.variable)} ({where})."]
-    if isinstance(block, Pre) and block.folded:
-        return [f"{block.folded}: folded in the HTML report (not repeated here)."]
-    if isinstance(block, Pre):
-        lines = []
-        for line in block.text.splitlines() or [""]:
-            lines.extend(textwrap.wrap(line, width_chars, drop_whitespace=False) or [""])
-        return lines
+@functools.cache
+def _fonts() -> None:
+    """Register DejaVu Sans (regular, bold, oblique) and DejaVu Sans Mono from matplotlib."""
+    import matplotlib
+    from reportlab.lib.fonts import addMapping
+    from reportlab.pdfbase import pdfmetrics
+    from reportlab.pdfbase.ttfonts import TTFont
+
+    folder = Path(matplotlib.get_data_path(), "fonts", "ttf")
+    for name, file in (
+        (_FONT, "DejaVuSans.ttf"),
+        (_BOLD, "DejaVuSans-Bold.ttf"),
+        (_ITALIC, "DejaVuSans-Oblique.ttf"),
+        (_MONO, "DejaVuSansMono.ttf"),
+    ):
+        pdfmetrics.registerFont(TTFont(name, str(folder / file)))
+    addMapping(_FONT, 0, 0, _FONT)
+    addMapping(_FONT, 1, 0, _BOLD)
+    addMapping(_FONT, 0, 1, _ITALIC)
+    addMapping(_FONT, 1, 1, _BOLD)
+
+
+@functools.cache
+def _styles() -> dict[str, Any]:
+    from reportlab.lib import colors
+    from reportlab.lib.enums import TA_JUSTIFY
+    from reportlab.lib.styles import ParagraphStyle
+
+    _fonts()
+    body = ParagraphStyle("body", fontName=_FONT, fontSize=9.5, leading=13, spaceAfter=5)
+    styles = {
+        "title": ParagraphStyle("title", parent=body, fontName=_BOLD, fontSize=17, leading=21),
+        "h2": ParagraphStyle(
+            "h2",
+            parent=body,
+            fontName=_BOLD,
+            fontSize=12.5,
+            leading=16,
+            spaceBefore=12,
+            spaceAfter=6,
+            keepWithNext=True,
+        ),
+        "body": ParagraphStyle("text", parent=body, alignment=TA_JUSTIFY),
+        "job": ParagraphStyle("job", parent=body, fontSize=10.5, leading=14),
+        "box": ParagraphStyle("box", parent=body, spaceAfter=2),
+        "warning": ParagraphStyle("warning", parent=body, textColor=colors.HexColor("#8a0000")),
+        "cell": ParagraphStyle("cell", parent=body, fontSize=8, leading=10, spaceAfter=0),
+        "head": ParagraphStyle("head", parent=body, fontName=_BOLD, fontSize=8, leading=10),
+        "mono": ParagraphStyle("mono", parent=body, fontName=_MONO, fontSize=7, leading=8.6),
+        "caption": ParagraphStyle(
+            "caption", parent=body, fontSize=8, leading=10.5, textColor=colors.HexColor("#444444")
+        ),
+    }
+    styles["h2"].spaceAfter, styles["h2"].keepWithNext = 6, True
+    styles["warning-head"] = ParagraphStyle(
+        "warning-head", parent=styles["warning"], fontName=_BOLD, spaceAfter=3
+    )
+    return styles
+
+
+def _frame_width() -> float:
+    return PAGE_PT[0] - 2 * MARGIN_PT
+
+
+def _frame_height() -> float:
+    return PAGE_PT[1] - 2 * MARGIN_PT
+
+
+def _para(text: str, style: str = "body") -> Any:
+    """A paragraph of plain text (escaped: reportlab reads a little markup)."""
+    from reportlab.platypus import Paragraph
+
+    return Paragraph(html.escape(str(text), quote=False), _styles()[style])
+
+
+def _column_widths(block: Table, width: float) -> list[float]:
+    """Column widths in proportion to each column's longest cell (at least 6 %, wrapped)."""
+    lengths = [
+        max([len(str(block.header[k]))] + [len(str(row[k])) for row in block.rows]) + 2
+        for k in range(len(block.header))
+    ]
+    lengths = [min(n, 60) for n in lengths]
+    total = float(sum(lengths))
+    shares = [max(n / total, 0.06) for n in lengths]
+    return [width * s / sum(shares) for s in shares]
+
+
+def _table(block: Table) -> Any:
+    """A table: a header row (repeated on continued pages) and wrapped cells."""
+    from reportlab.lib import colors
+    from reportlab.platypus import Table as Grid
+    from reportlab.platypus import TableStyle
+
+    mono = set(block.mono)
+    head = [_para(h, "head") for h in block.header]
+    rows = [
+        [_para(c, "mono" if k in mono else "cell") for k, c in enumerate(row)] for row in block.rows
+    ]
+    grid = Grid(
+        [head, *rows], colWidths=_column_widths(block, _frame_width()), repeatRows=1, hAlign="LEFT"
+    )
+    grid.setStyle(
+        TableStyle(
+            [
+                ("GRID", (0, 0), (-1, -1), 0.4, colors.HexColor("#b0b0b0")),
+                ("BACKGROUND", (0, 0), (-1, 0), colors.HexColor("#eeeeee")),
+                ("VALIGN", (0, 0), (-1, -1), "TOP"),
+                ("LEFTPADDING", (0, 0), (-1, -1), 3),
+                ("RIGHTPADDING", (0, 0), (-1, -1), 3),
+                ("TOPPADDING", (0, 0), (-1, -1), 2),
+                ("BOTTOMPADDING", (0, 0), (-1, -1), 2),
+            ]
+        )
+    )
+    return grid
+
+
+def _figure(image: MapImage) -> list[Any]:
+    """A PNG at the full text width (or the page height where taller), with its caption."""
+    from reportlab.platypus import Image, KeepTogether, Spacer
+
+    caption = _para(image.caption or figure_caption(image.variable, image.source), "caption")
+    if image.mime != "image/png":  # an SVG cannot be placed without a converter
+        return [_para(f"Figure (in the HTML report only): {image.caption or image.variable}.")]
+    from PIL import Image as Pil
+
+    with Pil.open(io.BytesIO(image.data)) as pixels:
+        w, h = pixels.size
+    scale = min(_frame_width() / w, (_frame_height() - 60.0) / h)
+    picture = Image(io.BytesIO(image.data), width=w * scale, height=h * scale)
+    return [KeepTogether([picture, Spacer(1, 3), caption]), Spacer(1, 8)]
+
+
+def _pre(block: Pre) -> list[Any]:
+    """Preformatted text in a small monospace font, long lines broken; or a pointer to HTML."""
+    from reportlab.platypus import Preformatted
+
+    if not block.in_pdf:
+        return [_para(f"{block.folded or 'Raw data'}: in the HTML report.", "caption")]
+    chars = int(_frame_width() / (0.6 * _styles()["mono"].fontSize))
+    out = [_para(block.folded, "caption")] if block.folded else []
+    return [*out, Preformatted(block.text, _styles()["mono"], maxLineLength=chars, newLineChars="")]
+
+
+def _flowables(block: Block) -> list[Any]:
+    from reportlab.platypus import Spacer
+
+    if isinstance(block, MapImage):
+        return _figure(block)
     if isinstance(block, Table):
-        return _table_lines(block, width_chars)
-    return textwrap.wrap(block, width_chars)
+        return [_table(block), Spacer(1, 7)]
+    if isinstance(block, Pre):
+        return _pre(block)
+    return [_para(block)]
 
 
-def _column_widths(block: Table, width_chars: int) -> list[int]:
-    """Each column's width: its longest cell, the widest shrunk in turn until the row fits."""
-    widths = [
-        max(len(str(c)) for c in [h, *(row[k] for row in block.rows)])
-        for k, h in enumerate(block.header)
+def _box(paragraphs: list[Any], colour: str, fill: str) -> Any:
+    """Paragraphs in a framed box at the text width (warnings, caution)."""
+    from reportlab.lib import colors
+    from reportlab.platypus import Table as Grid
+    from reportlab.platypus import TableStyle
+
+    box = Grid([[paragraphs]], colWidths=[_frame_width()])
+    box.setStyle(
+        TableStyle(
+            [
+                ("BOX", (0, 0), (-1, -1), 1.2, colors.HexColor(colour)),
+                ("BACKGROUND", (0, 0), (-1, -1), colors.HexColor(fill)),
+                ("LEFTPADDING", (0, 0), (-1, -1), 8),
+                ("RIGHTPADDING", (0, 0), (-1, -1), 8),
+            ]
+        )
+    )
+    return box
+
+
+def _front(run: RunDir) -> list[Any]:
+    """Title, job line, warnings and caution."""
+    from reportlab.platypus import Spacer
+
+    out = [
+        _para(f"lidmelt run report: {run.path.name}", "title"),
+        _para(job_line(run.summary), "job"),
     ]
-    room = width_chars - 2 * (len(widths) - 1)
-    while sum(widths) > room and max(widths) > 8:
-        widths[widths.index(max(widths))] -= 1
-    return widths
-
-
-def _table_lines(block: Table, width_chars: int) -> list[str]:
-    """A table as aligned columns after a blank line: a header, a rule, then the rows; a cell
-    longer than its column wraps onto further lines of the same row."""
-    widths = _column_widths(block, width_chars)
-
-    def row_lines(cells: Sequence[Any]) -> list[str]:
-        wrapped = [textwrap.wrap(str(c), w) or [""] for c, w in zip(cells, widths, strict=True)]
-        height = max(len(w) for w in wrapped)
-        return [
-            "  ".join(
-                (col[i] if i < len(col) else "").ljust(w)
-                for col, w in zip(wrapped, widths, strict=True)
-            ).rstrip()
-            for i in range(height)
-        ]
-
-    rule = "  ".join("-" * w for w in widths)
-    return ["", *row_lines(block.header), rule] + [
-        line for row in block.rows for line in row_lines(row)
-    ]
-
-
-def _text_pages(lines: list[Line], per_page: int) -> list[list[Line]]:
-    """Split (kind, text) lines into pages of ``per_page`` lines."""
-    pages, page = [], []
-    for item in lines:
-        if len(page) >= per_page:
-            pages.append(page)
-            page = []
-        page.append(item)
-    if page:
-        pages.append(page)
-    return pages
-
-
-def _section_lines(sections: Sequence[Section]) -> list[Line]:
-    out: list[Line] = []
-    for section in sections:
-        out.append(("", ""))
-        out.append(("heading", section.heading))
-        for block in section.blocks:
-            out.extend(("text", line) for line in _text_lines(block, _WIDTH_CHARS))
+    warnings = run_warnings(run.summary)
+    if warnings:
+        lines = [_para("Warnings", "warning-head"), *(_para(w, "warning") for w in warnings)]
+        out += [_box(lines, "#b30000", "#fff0f0"), Spacer(1, 8)]
+    out += [_box([_para(f"Caution. {CAUTION}", "box")], "#b35900", "#fff5e6"), Spacer(1, 6)]
     return out
 
 
-def _section_pages(sections: Sequence[Section]) -> list[list[Line] | MapImage]:
-    """Text pages of the sections, with each PNG figure of a section on a page of its own
-    after the text before it."""
-    pages: list[list[Line] | MapImage] = []
-    lines: list[Line] = []
-    for section in sections:
-        lines += [("", ""), ("heading", section.heading)]
-        for block in section.blocks:
-            lines.extend(("text", line) for line in _text_lines(block, _WIDTH_CHARS))
-            if isinstance(block, MapImage) and block.mime == "image/png":
-                pages += [*_text_pages(lines, _PER_PAGE), block]
-                lines = []
-    return pages + _text_pages(lines, _PER_PAGE)
+def _story(run: RunDir, images: Sequence[MapImage], extra: Sequence[Section]) -> list[Any]:
+    """Everything in page order: front, summary and flags, maps, then the other sections."""
+    from reportlab.platypus import KeepTogether
+
+    sections = build_sections(run)
+    front = [s for s in sections if s.key in FRONT_SECTIONS]
+    back = [*extra, *(s for s in sections if s.key not in FRONT_SECTIONS)]
+    maps = Section("maps", "Maps", tuple(images) or ("No maps were included.",))
+    story = _front(run)
+    for section in [*front, maps, *back]:
+        flows = [f for block in section.blocks for f in _flowables(block)]
+        # the heading stays on the page of what follows it (a figure is kept whole)
+        story.append(KeepTogether([_para(section.heading, "h2"), *flows[:1]]))
+        story += flows[1:]
+    return story
 
 
-def _head_lines(run: RunDir) -> list[Line]:
-    head = [("title", f"lidmelt run report: {run.path.name}")]
-    head += [("text", line) for line in _text_lines(job_line(run.summary), _WIDTH_CHARS)]
-    warnings = run_warnings(run.summary)
-    if warnings:
-        head += [("", ""), ("warning", "WARNINGS")]
-        for text in warnings:
-            # warnings are set one point larger: fewer characters fit on a line
-            width = int((_WIDTH_CHARS - 2) * _PDF_FONT_PT / (_PDF_FONT_PT + 1))
-            wrapped = textwrap.wrap(text, width) or [""]
-            head += [("warning", f"! {wrapped[0]}")]
-            head += [("warning", f"  {line}") for line in wrapped[1:]]
-    head += [("", ""), ("heading", "Caution")]
-    head += [("text", line) for line in _text_lines(CAUTION, _WIDTH_CHARS)]
-    return head
-
-
-def _text_page(pdf: Any, lines: list[Line]) -> None:
-    from matplotlib.figure import Figure
-
-    fig = Figure(figsize=_PAGE_IN)
-    x = 0.6 / _PAGE_IN[0]
-    y = 1.0 - 0.7 / _PAGE_IN[1]
-    step = 1.45 * _PDF_FONT_PT / 72.0 / _PAGE_IN[1]
-    for kind, text in lines:
-        if kind == "title":
-            fig.text(x, y, text, fontsize=13, fontweight="bold", va="top")
-            y -= 2.0 * step
-            continue
-        bold = kind in {"heading", "warning"}
-        fig.text(
-            x,
-            y,
-            text,
-            fontsize=_PDF_FONT_PT + (1 if bold else 0),
-            fontweight="bold" if bold else "normal",
-            color="#b30000" if kind == "warning" else "black",
-            va="top",
-            family="DejaVu Sans Mono",
-        )
-        y -= step
-    pdf.savefig(fig)
-
-
-def _map_page(pdf: Any, image: MapImage) -> None:
-    """One PNG map, scaled to fit the page inside the margins, under its variable name."""
-    from matplotlib.figure import Figure
-    from matplotlib.image import imread
-
-    pixels = imread(io.BytesIO(image.data), format="png")
-    fig = Figure(figsize=_PAGE_IN)
-    h, w = pixels.shape[:2]
-    box_w, box_h = _PAGE_IN[0] - 1.0, _PAGE_IN[1] - 1.4
-    scale = min(box_w / w, box_h / h)
-    iw, ih = w * scale, h * scale
-    ax = fig.add_axes(
-        (
-            (_PAGE_IN[0] - iw) / 2 / _PAGE_IN[0],
-            1.0 - (0.7 + ih) / _PAGE_IN[1],
-            iw / _PAGE_IN[0],
-            ih / _PAGE_IN[1],
-        )
-    )
-    ax.imshow(pixels, interpolation="none")
-    ax.set_axis_off()
-    label = image.caption or variable_label(image.variable)
-    fig.text(0.5, 1.0 - 0.45 / _PAGE_IN[1], label, ha="center", fontsize=10)
-    pdf.savefig(fig)
+def _decorate(canvas: Any, doc: Any, *, name: str) -> None:
+    """The running header and the footer of every page, inside the page's edges."""
+    canvas.saveState()
+    canvas.setFont(_FONT, 7.5)
+    canvas.setFillGray(0.35)
+    top = PAGE_PT[1] - _HEAD_PT
+    canvas.drawString(MARGIN_PT, top, f"lidmelt run report: {name}")
+    canvas.drawRightString(PAGE_PT[0] - MARGIN_PT, top, "model estimates for research screening")
+    canvas.drawString(MARGIN_PT, _HEAD_PT - 7.5, f"lidmelt {__version__}")
+    canvas.drawRightString(PAGE_PT[0] - MARGIN_PT, _HEAD_PT - 7.5, f"page {doc.page}")
+    canvas.restoreState()
 
 
 def write_pdf(
     run: RunDir, images: Sequence[MapImage], path: Path, extra: Sequence[Section] = ()
 ) -> Path:
-    """Write the report PDF to ``path`` atomically; SVG maps are left out (no converter)."""
-    from matplotlib.backends.backend_pdf import PdfPages
+    """Write the report PDF to ``path`` atomically (see the module notes); return ``path``."""
+    from reportlab.platypus import BaseDocTemplate, Frame, PageTemplate
 
-    sections = build_sections(run)
-    front = [s for s in sections if s.key in FRONT_SECTIONS]
-    back = [*extra, *(s for s in sections if s.key not in FRONT_SECTIONS)]
-    first_pages = _text_pages(_head_lines(run) + _section_lines(front), _PER_PAGE)
-    last_pages = _section_pages(back)
-    metadata = {
-        "Title": f"lidmelt run report: {run.path.name}",
-        "Creator": f"lidmelt {__version__}",
-        "CreationDate": None,
-    }
-    with atomic_path(path) as tmp, PdfPages(tmp, metadata=metadata) as pdf:
-        for lines in first_pages:
-            _text_page(pdf, lines)
-        for image in images:
-            if image.mime == "image/png":  # an SVG map cannot be placed without a converter
-                _map_page(pdf, image)
-        for page in last_pages:
-            if isinstance(page, MapImage):
-                _map_page(pdf, page)
-            else:
-                _text_page(pdf, page)
+    _fonts()
+    frame = Frame(
+        MARGIN_PT, MARGIN_PT, _frame_width(), _frame_height(), leftPadding=0, rightPadding=0,
+        topPadding=0, bottomPadding=0,
+    )  # fmt: skip
+    decorate = functools.partial(_decorate, name=run.path.name)
+    with atomic_path(path) as tmp:
+        doc = BaseDocTemplate(
+            str(tmp),
+            pagesize=PAGE_PT,
+            title=f"lidmelt run report: {run.path.name}",
+            author="",
+            creator=f"lidmelt {__version__}",
+            invariant=True,
+            pageTemplates=[PageTemplate("page", [frame], onPage=decorate)],
+        )
+        doc.build(_story(run, images, extra))
     return path
