@@ -18,6 +18,7 @@ import numpy as np
 import pytest
 from affine import Affine
 
+from conftest import reseal
 from lidmelt.products import report
 
 CHROMIUM = shutil.which("chromium") or shutil.which("chromium-browser")
@@ -38,8 +39,15 @@ window.addEventListener("load", () => {
       wide.push(el.tagName + (el.id ? "#" + el.id : "") + " right=" + Math.round(r.right));
     }
   }
+  const tables = Array.from(document.querySelectorAll("table")).map((t) => {
+    const r = t.getBoundingClientRect();
+    const box = t.parentElement.getBoundingClientRect();
+    return {right: Math.round(r.right), container: Math.round(box.right),
+            scroll: t.scrollWidth, client: t.clientWidth,
+            overflow: getComputedStyle(t).overflowX};
+  });
   const out = {width: width, scrollWidth: document.documentElement.scrollWidth,
-               images: images, wide: wide};
+               images: images, wide: wide, tables: tables};
   const pre = document.createElement("pre");
   pre.id = "probe-result";
   pre.textContent = JSON.stringify(out);
@@ -88,9 +96,27 @@ def report_html(make_run_dir, tmp_path):
             "plate_age_ma": age,
         },
         transform=Affine(1.0, 0.0, 10.0, 0.0, -1.0, 10.0),
-        summary={"workflow": "[run]\nname = '" + "a-very-long-unbroken-name" * 12 + "'\n"},
+        summary={
+            "workflow": "[run]\nname = '" + "a-very-long-unbroken-name" * 12 + "'\n",
+            "statistics": {
+                "data_cells": 540,
+                "melting_cells": 100,
+                "anomaly_melt_volume_km3": 4.6e6,
+                "ambient_melt_volume_km3": 1.0e7,
+                "melt_volume_km3": 1.46e7,
+                "regime_cells": {"0": 440, "1": 100, "2": 0},
+            },
+        },
     )
-    return report.write_report(run, coastlines=False)
+    doc = json.loads((run / "summary.json").read_text(encoding="utf-8"))
+    doc["inputs"]["plate_age_ma"]["source"] = "/data/" + "a-long-folder-name/" * 12 + "age.nc"
+    reseal(run, inputs=doc["inputs"])
+    stations = tmp_path / "stations.csv"
+    stations.write_text(
+        "name,lon,lat\nA station with a long descriptive name,15.2,4.8\nB,22.7,0.5\n",
+        encoding="utf-8",
+    )
+    return report.write_report(run, coastlines=False, stations=stations)
 
 
 @pytest.mark.parametrize("width", [1280, 600])
@@ -98,9 +124,16 @@ def test_report_renders_in_a_browser_with_decoded_images_and_no_overflow(
     report_html, tmp_path, width
 ):
     result = _render(report_html, tmp_path, width)
-    # Check values: the report embeds one map per output and input here (3 PNGs), and
-    # a page that fits has scrollWidth == clientWidth (CSSOM View, scrollWidth definition).
-    assert len(result["images"]) == 3
+    # Check values: the report embeds one map per output and input here (3 PNGs) and the
+    # stations' map, and a page that fits has scrollWidth == clientWidth (CSSOM View,
+    # scrollWidth definition).
+    assert len(result["images"]) == 4
     assert all(img["ok"] for img in result["images"]), result["images"]
     assert result["wide"] == [], result["wide"]
     assert result["scrollWidth"] <= result["width"]
+    # every table fits its container, or scrolls inside it (CSS overflow-x: auto)
+    assert len(result["tables"]) >= 5
+    for table in result["tables"]:
+        assert table["right"] <= table["container"] + 1, table
+        if table["scroll"] > table["client"]:
+            assert table["overflow"] in ("auto", "scroll"), table
