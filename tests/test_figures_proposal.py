@@ -222,7 +222,107 @@ def test_profile_is_a_cross_section_with_named_waypoints(run, tmp_path):
     assert {"Start", "Turn", "End"} <= set(labels)
     assert any(t.startswith("Near station") for t in labels)
     assert "Profile along leg 7" in [t.get_text() for t in fig.texts]
-    assert any("track" in ax.get_title() for ax in fig.axes)  # the inset map
+    assert any(t.get_text().startswith("Track (red)") for t in fig.texts)  # the inset's title
+    # issue 20: the inset has labelled axes and a colour bar, and no two lines share a colour
+    inset = next(ax for ax in fig.axes if ax.get_xlabel() == "Longitude")
+    assert inset.get_ylabel() == "Latitude"
+    assert any(ax.get_ylabel() == "Melt thickness (km)" and ax is not mid for ax in fig.axes)
+    twin = [ax for ax in fig.axes if ax is not top and ax.bbox.bounds == top.bbox.bounds]
+    colours = [line.get_color() for ax in (top, *twin, section) for line in ax.get_lines()]
+    colours = [c for c in colours if c not in ("0.45",)]  # the dotted waypoint verticals
+    assert len(colours) == len(set(colours)), colours
+    # every text of the figure lies inside it
+    fig.canvas.draw()
+    page = fig.bbox
+    for text in fig.texts:
+        box_ = text.get_window_extent()
+        assert page.x0 <= box_.x0, text.get_text()
+        assert box_.x1 <= page.x1, text.get_text()
+        assert box_.y1 <= page.y1, text.get_text()
+
+
+def test_colour_bars_label_both_ends_of_their_scale(run):
+    """Check values: the colour limits the map reports (vmin, vmax) are tick positions."""
+    for name in ("melt_thickness_km", "onset_depth_km", "excess_to_melt_k", "lid_depth_km"):
+        _, info = maps.make_map_figure(run, name, coastlines=False, dpi=60)
+        ticks = list(info.colorbar.get_ticks())
+        assert ticks[0] == pytest.approx(info.vmin), name
+        assert ticks[-1] == pytest.approx(info.vmax), name
+        labels = [t.get_text() for t in info.colorbar.ax.get_xticklabels()]
+        assert labels[0], name
+        assert labels[-1], name
+
+
+def test_thermal_anomaly_scale_resolves_every_plume(run):
+    """The anomaly input spans its whole range (numpy's min and max of the invented field), so
+    a 200 K plume core is not drawn in the colour of a 135 K flank."""
+    _, info = maps.make_map_figure(run, "thermal_anomaly_k", coastlines=False, dpi=60)
+    field = fields()["thermal_anomaly_k"]
+    assert (info.vmin, info.vmax) == pytest.approx((field.min(), field.max()), rel=1e-6)
+    assert info.extend == "neither"
+
+
+def test_onset_flags_are_not_hatched_on_the_lid_or_the_excess(run, add_validity_flag):
+    """Flag 4 (onset beyond calibration) concerns the onset and the melt, not the lid (the
+    lid does not depend on the onset) nor the excess to melt (found at the lid)."""
+    from lidmelt.physics import FLAG_BEYOND_CALIBRATION
+
+    flags = np.zeros((20, 30), dtype=np.uint8)
+    flags[5:8, 20:25] = FLAG_BEYOND_CALIBRATION
+    add_validity_flag(run, flags)
+    for name, hatched in (
+        ("onset_depth_km", True),
+        ("melt_thickness_km", True),
+        ("lid_depth_km", False),
+        ("excess_to_melt_k", False),
+    ):
+        _, info = maps.make_map_figure(run, name, coastlines=False, dpi=60)
+        assert (FLAG_BEYOND_CALIBRATION in info.flag_bits) is hatched, name
+
+
+def test_labels_of_plumes_stations_and_candidates_do_not_overlap(run, tmp_path):
+    """Station names at the plume centres and a candidate's rank beside them: after placement
+    no two labels overlap (their rendered boxes) and all stay inside the frame."""
+    import geopandas as gpd
+    from shapely.geometry import box
+
+    from lidmelt.products.maps.labels import label_overlaps
+
+    cands = tmp_path / "cands.gpkg"
+    gpd.GeoDataFrame({"rank": [1]}, geometry=[box(15.0, -2.0, 20.0, 0.5)], crs="EPSG:4326").to_file(
+        cands
+    )
+    stations = tmp_path / "st.csv"
+    stations.write_text(
+        "name,lon,lat\nInvented A summit,15.1,0.1\nInvented A flank,15.6,-0.4\n"
+        "Invented B summit,39.4,9.4\n",
+        encoding="utf-8",
+    )
+    fig, info = maps.make_map_figure(
+        run, "melt_thickness_km", candidates=cands, stations=stations, coastlines=False, dpi=60
+    )
+    fig.canvas.draw()
+    names = {"Invented A", "Invented B", "#1", "Invented A summit", "Invented A flank",
+             "Invented B summit"}  # fmt: skip
+    labels = [t for t in info.ax.texts if t.get_text() in names]
+    assert len(labels) == len(names)
+    assert label_overlaps(info.ax, labels) == 0
+    frame = info.ax.get_window_extent()
+    for label in labels:
+        box_ = label.get_window_extent()
+        assert frame.contains(box_.x0 + 1, box_.y0 + 1), label.get_text()
+        assert frame.contains(box_.x1 - 1, box_.y1 - 1), label.get_text()
+
+
+def test_plume_marks_leave_the_hatching_beneath_them_visible(run):
+    """The plume mark is an open ring (no face), so flagged cells under it show their hatch."""
+    from lidmelt.products.maps.marks import PLUME_MARKER
+
+    assert PLUME_MARKER["mfc"] == "none"
+    _, info = maps.make_map_figure(run, "melt_thickness_km", coastlines=False, dpi=60)
+    rings = [line for line in info.ax.get_lines() if line.get_marker() == "o"]
+    assert rings
+    assert all(line.get_markerfacecolor() == "none" for line in rings)
 
 
 def _station_file(tmp_path):

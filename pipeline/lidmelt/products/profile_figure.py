@@ -6,8 +6,10 @@ deeper of the lid base and the crust base, ``lid_depth_km``) and the onset depth
 as lines, the melting column shaded between them and the lid shaded above. Waypoints are
 dotted verticals named at the top (their names from the track file, else WP1, WP2, ...);
 stations near the track (within :data:`NEAR_KM` km) are marked at their distance along it;
-a small map in the corner shows the track over the run's melt thickness. The title is the
-track's name. Drawn with matplotlib's Agg canvas (no display needed).
+a small map in the corner shows the track over the run's melt thickness (longitude and
+latitude labelled, with its colour bar). The title is the track's name. No two lines share a
+colour (plate age blue, thermal anomaly vermillion, onset bluish green). Drawn with
+matplotlib's Agg canvas (no display needed).
 """
 
 from __future__ import annotations
@@ -29,6 +31,9 @@ __all__ = ["NEAR_KM", "NearStation", "make_profile_figure", "plot_profile", "sta
 NEAR_KM = 50.0
 
 _LID_LABEL = "top of the melting column (lid base or crust base)"
+#: Line colours (Okabe & Ito 2008 palette, from memory): plate age blue, thermal anomaly
+#: vermillion, onset bluish green, so that no two lines of the figure share a colour.
+_ONSET_COLOR = "#009E73"
 
 
 @dataclass(frozen=True)
@@ -117,7 +122,7 @@ def _draw_section(ax: Any, gdf: Any, d: np.ndarray) -> None:
         )
     if onset is not None:
         shown = onset if melt is None else np.where(melt > 0, onset, np.nan)
-        ax.plot(d, shown, color="#D55E00", lw=1.6, label="onset depth of melting")
+        ax.plot(d, shown, color=_ONSET_COLOR, lw=1.6, label="onset depth of melting")
     ax.set_ylim(bottom=0)
     ax.invert_yaxis()
     ax.set_ylabel("Depth below the seafloor (km)")
@@ -177,14 +182,18 @@ def _mark_stations(ax: Any, near: list[NearStation]) -> None:
 
 
 def _draw_inset(fig: Any, gdf: Any, run: Any, near_lonlat: tuple) -> Any:
-    """A small lon/lat map of the track (over the run's melt thickness when given)."""
-    ax = fig.add_axes((0.80, 0.885, 0.17, 0.1))
+    """A small lon/lat map of the track over the run's melt thickness (when given), with its
+    axes labelled, a colour bar and a title, all inside the figure."""
+    from matplotlib.ticker import FuncFormatter, MaxNLocator
+
+    ax = fig.add_axes((0.73, 0.875, 0.15, 0.085))
     lon, lat = gdf["lon"].to_numpy(float), gdf["lat"].to_numpy(float)
+    image = None
     if run is not None and "melt_thickness_km" in run.outputs:
         da = run.open("melt_thickness_km")
         if da.rio.crs is not None and da.rio.crs.is_geographic:
             w, s, e, n = (float(v) for v in da.rio.bounds())
-            ax.imshow(
+            image = ax.imshow(
                 np.asarray(da.values, float),
                 extent=(w, e, s, n),
                 origin="upper",
@@ -196,8 +205,19 @@ def _draw_inset(fig: Any, gdf: Any, run: Any, near_lonlat: tuple) -> Any:
     ax.plot(lon[0], lat[0], "o", color="red", ms=3)
     if near_lonlat[0]:
         ax.plot(near_lonlat[0], near_lonlat[1], "^", ms=3, color="black")
+    degrees = FuncFormatter(lambda v, _: f"{v:g}°")
+    for axis in (ax.xaxis, ax.yaxis):
+        axis.set_major_locator(MaxNLocator(nbins=4))
+        axis.set_major_formatter(degrees)
     ax.tick_params(labelsize=6, length=2, pad=1)
-    ax.set_title("track (red) over melt thickness", fontsize=6.5, pad=2)
+    ax.set_xlabel("Longitude", fontsize=6.5, labelpad=1)
+    ax.set_ylabel("Latitude", fontsize=6.5, labelpad=1)
+    fig.text(0.69, 0.985, "Track (red) over the melt thickness", fontsize=7, va="top")
+    if image is not None:
+        cax = fig.add_axes((0.89, 0.875, 0.01, 0.085))
+        bar = fig.colorbar(image, cax=cax)
+        bar.ax.tick_params(labelsize=6, length=2, pad=1)
+        bar.set_label("Melt thickness (km)", fontsize=6.5, labelpad=2)
     return ax
 
 

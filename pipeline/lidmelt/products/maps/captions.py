@@ -191,7 +191,7 @@ def map_caption(
     if flag_note:
         parts.append(flag_note)
     if plumes:
-        parts.append("Ringed dots: plume centres named in the workflow.")
+        parts.append("Rings: plume centres named in the workflow.")
     parts.append(f"Projection: {proj_name}.")
     if age:
         parts.append("Dashed contours: plate age (Ma).")

@@ -112,7 +112,8 @@ def open_field(run: RunDir, variable: str, opts: MapOptions) -> Field:
         )
     flags = opts.flags
     hatch = variable in run.outputs and isinstance(flags, FlagGrid)
-    bits = fl.marked_kinds(flags) if hatch and flags.values.shape == values.shape else ()
+    same = hatch and flags.values.shape == values.shape
+    bits = fl.marked_kinds(flags, variable) if same else ()
     return Field(
         variable=variable,
         da=da,

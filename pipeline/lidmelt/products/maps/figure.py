@@ -37,7 +37,6 @@ from matplotlib.figure import Figure
 from matplotlib.font_manager import FontProperties
 from matplotlib.lines import Line2D
 from matplotlib.patches import Patch
-from matplotlib.ticker import MaxNLocator
 
 from lidmelt.grids.rundir import RunDir
 from lidmelt.products.maps import flags as fl
@@ -47,6 +46,7 @@ from lidmelt.products.maps import overlays as ov
 from lidmelt.products.maps import page as pg
 from lidmelt.products.maps.captions import lid_grid_share, map_caption, model_line
 from lidmelt.products.maps.field import Field, draw_data, open_field
+from lidmelt.products.maps.labels import spread_labels
 from lidmelt.products.maps.options import (
     MapInfo,
     MapOptions,
@@ -65,6 +65,7 @@ from lidmelt.products.maps.style import (
     ZERO_COLOR,
     class_legend_handles,
     colorbar_label,
+    end_ticks,
 )
 from lidmelt.variables import ensemble_variable
 
@@ -180,12 +181,16 @@ def _draw_overlays(ax: Any, opts: MapOptions, fs: float, view: _View) -> tuple[f
         ov.draw_coastlines(ax, opts.coastlines)
     age = opts.age_contours
     age_levels = ov.draw_age_contours(ax, age, fs) if age is not False else ()
+    labels = []
     if opts.candidates:
         ov.draw_candidates(ax, opts.candidates)
-        mk.draw_candidate_labels(ax, list(opts.candidates), tuple(opts.candidate_labels), fs)
-    mk.draw_plumes(ax, view.plumes, fs)
+        labels += mk.draw_candidate_labels(
+            ax, list(opts.candidates), tuple(opts.candidate_labels), fs
+        )
+    labels += mk.draw_plumes(ax, view.plumes, fs)
     if opts.stations is not None and len(opts.stations.lon):
-        ov.draw_stations(ax, opts.stations, fs)
+        labels += ov.draw_stations(ax, opts.stations, fs)[0]
+    spread_labels(ax, labels)  # no two labels overlap, none covers a named point
     return age_levels
 
 
@@ -202,8 +207,8 @@ def _draw_colorbar(fig: Figure, f: Field, page: pg.PageLayout, lines: list[str])
         extendfrac=0.04,
     )
     cbar.ax.tick_params(labelsize=fs, length=2.5, width=0.6, pad=2)
-    cbar.locator = MaxNLocator(nbins=6 if page.cb_w > 3.0 else 4)
-    cbar.update_ticks()
+    ticks, labels = end_ticks(f.vmin, f.vmax, 6 if page.cb_w > 3.0 else 4)
+    cbar.set_ticks(ticks, labels=labels)
     cbar.set_label("\n".join(lines), fontsize=fs, labelpad=3)
     cbar.outline.set_linewidth(0.6)
     mark_colorbar(cbar, f.style.contours)

@@ -7,6 +7,11 @@ per flag kind, with a legend entry each); cells with invalid inputs (bit 1) are 
 outputs already and are not hatched. The report counts the cells per flag bit
 (:func:`flag_counts`).
 
+A flag is hatched only on the maps of the variables it concerns (:func:`concerns`): the top of
+the melting column (the lid) does not depend on the onset or the water, and the excess to melt
+is found at the lid, not at the onset, so flags about the onset and the water are not drawn on
+those two maps.
+
 Hatched areas are polygons of the flagged cells (traced with :func:`rasterio.features.shapes`)
 drawn as vectors with a transparent face, so the data colours stay visible beneath them; each
 hatch line is dark over a wider white line, so it shows on dark and light colours alike. On a
@@ -33,6 +38,8 @@ __all__ = [
     "FLAG_SHORT_LABELS",
     "HATCH_COLOR",
     "MARKED_FLAGS",
+    "NOT_CONCERNED",
+    "concerns",
     "draw_flag_hatching",
     "flag_caption",
     "flag_counts",
@@ -61,9 +68,27 @@ HATCH_COLOR = "0.1"
 _HATCH_LAYERS = (("white", 1.8, 1.5), (HATCH_COLOR, 0.8, 1.6))
 
 
-def marked_kinds(flags: FlagGrid) -> tuple[int, ...]:
-    """The bits of :data:`MARKED_FLAGS` that at least one cell carries."""
-    return tuple(bit for bit in MARKED_FLAGS if flags.cells_with(bit).any())
+#: Variables that no marked flag concerns: every marked flag is about the onset of melting or
+#: the source water at the onset, which neither the lid nor the excess to melt (found at the
+#: lid) depends on.
+NOT_CONCERNED = frozenset({"lid_depth_km", "excess_to_melt_k"})
+
+
+def concerns(bit: int, variable: str) -> bool:
+    """Whether flag ``bit`` says something about ``variable`` (its map hatches those cells);
+    an ensemble layer (``<variable>_p<q>``) follows its variable."""
+    base = variable.rpartition("_p")[0] or variable
+    return bit in MARKED_FLAGS and variable not in NOT_CONCERNED and base not in NOT_CONCERNED
+
+
+def marked_kinds(flags: FlagGrid, variable: str | None = None) -> tuple[int, ...]:
+    """The bits of :data:`MARKED_FLAGS` that at least one cell carries (and, with
+    ``variable``, that concern it: :func:`concerns`)."""
+    return tuple(
+        bit
+        for bit in MARKED_FLAGS
+        if (variable is None or concerns(bit, variable)) and flags.cells_with(bit).any()
+    )
 
 
 def flag_counts(flags: FlagGrid) -> list[tuple[int, str, int]]:

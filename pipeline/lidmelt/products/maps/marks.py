@@ -15,7 +15,7 @@ from typing import Any
 import cartopy.crs as ccrs
 from matplotlib.lines import Line2D
 
-from lidmelt.products.maps.overlays import place_label
+from lidmelt.products.maps.labels import halo, place_label
 from lidmelt.products.maps.style import CANDIDATE_COLOR
 
 __all__ = [
@@ -27,8 +27,9 @@ __all__ = [
     "plumes_of",
 ]
 
-#: Marker of a plume centre: a white dot ringed in black.
-PLUME_MARKER = {"marker": "o", "mfc": "white", "mec": "black", "mew": 1.2}
+#: Marker of a plume centre: a black ring, open so that the colours and any hatching of the
+#: flagged cells beneath it stay visible, with a white halo that reads on dark colours.
+PLUME_MARKER = {"marker": "o", "mfc": "none", "mec": "black", "mew": 1.3}
 
 
 @dataclass(frozen=True)
@@ -54,34 +55,42 @@ def plumes_of(summary: dict[str, Any]) -> list[Plume]:
     return out
 
 
-def draw_plumes(ax: Any, plumes: list[Plume], fs: float, *, names: bool = True) -> None:
-    """Ringed dots at the plume centres, with their names inside the frame."""
+def draw_plumes(ax: Any, plumes: list[Plume], fs: float, *, names: bool = True) -> list[Any]:
+    """Open rings at the plume centres, with their names inside the frame; return the labels."""
     if not plumes:
-        return
+        return []
     ax.plot(
         [p.lon for p in plumes],
         [p.lat for p in plumes],
         ls="none",
-        ms=0.7 * fs,
+        ms=0.8 * fs,
         transform=ccrs.PlateCarree(),
         zorder=6,
+        path_effects=halo(2.6),
         **PLUME_MARKER,
     )
-    if names:
-        for p in plumes:
-            place_label(ax, p.lon, p.lat, p.name, fontsize=0.85 * fs, below=True, style="italic")
+    if not names:
+        return []
+    return [
+        place_label(ax, p.lon, p.lat, p.name, fontsize=0.85 * fs, below=True, style="italic")
+        for p in plumes
+    ]
 
 
 def plume_legend_handle(fs: float) -> Any:
     """The legend entry of the plume centres."""
-    return Line2D([], [], ls="none", ms=0.7 * fs, label="plume centre (workflow)", **PLUME_MARKER)
+    return Line2D([], [], ls="none", ms=0.8 * fs, label="plume centre (workflow)", **PLUME_MARKER)
 
 
 def draw_candidate_labels(
     ax: Any, candidates: list[Any], labels: tuple[str, ...], fs: float
-) -> None:
+) -> list[Any]:
     """The rank label of each candidate polygon at the north-west corner of its outline's
-    bounding box, clear of the plume and station marks near its centre (kept in the frame)."""
+    bounding box, clear of the plume and station marks near its centre (kept in the frame);
+    return the labels."""
+    out = []
     for geom, text in zip(candidates, labels, strict=False):
         west, _, _, north = geom.bounds
-        place_label(ax, west, north, text, fontsize=0.85 * fs, color=CANDIDATE_COLOR, weight="bold")
+        kw = {"fontsize": 0.85 * fs, "color": CANDIDATE_COLOR, "weight": "bold"}
+        out.append(place_label(ax, west, north, text, **kw))
+    return out

@@ -19,7 +19,6 @@ from typing import Any
 import cartopy
 import cartopy.crs as ccrs
 import numpy as np
-from matplotlib import patheffects as mpe
 from matplotlib.lines import Line2D
 from matplotlib.patches import Patch
 from matplotlib.ticker import MaxNLocator
@@ -27,6 +26,7 @@ from matplotlib.ticker import MaxNLocator
 from lidmelt.errors import InputError
 from lidmelt.grids.rundir import RunDir
 from lidmelt.grids.vector import read_labelled_points, read_polygons, read_vector
+from lidmelt.products.maps.labels import halo, place_label
 from lidmelt.products.maps.layout import data_crs
 from lidmelt.products.maps.style import CANDIDATE_COLOR, NODATA_COLOR, ZERO_COLOR
 
@@ -212,11 +212,6 @@ def resolve_coastlines(coastlines: str | Path | bool | None) -> Path | None:
     return found
 
 
-def halo(width: float) -> list[Any]:
-    """A white outline ``width`` points wide, that keeps lines and labels readable on data."""
-    return [mpe.withStroke(linewidth=width, foreground="white")]
-
-
 def load_age(run: RunDir, age_contours: bool | Any) -> Any:
     """The plate-age grid to contour, or None (not asked for, or the run has none: a warning).
 
@@ -312,10 +307,13 @@ def station_marker_size(fs: float) -> float:
 _STATION_MARKER = {"marker": "^", "mfc": "black", "mec": "white", "mew": 0.7}
 
 
-def draw_stations(ax: Any, stations: Stations, fs: float) -> None:
-    """Mark stations with black triangles; label them by name (inside the frame) when <= 30."""
+def draw_stations(ax: Any, stations: Stations, fs: float) -> tuple[list[Any], Any]:
+    """Mark stations with black triangles; label them by name (inside the frame) when <= 30.
+
+    Returns the labels and the markers (for :func:`.labels.spread_labels`).
+    """
     n_stations = len(stations.lon)
-    ax.plot(
+    (marks,) = ax.plot(
         stations.lon,
         stations.lat,
         ls="none",
@@ -324,49 +322,11 @@ def draw_stations(ax: Any, stations: Stations, fs: float) -> None:
         zorder=6,
         **_STATION_MARKER,
     )
+    labels = []
     if stations.names and n_stations <= 30:
         for lon, lat, name in zip(stations.lon, stations.lat, stations.names, strict=True):
-            place_label(ax, lon, lat, name, fontsize=0.8 * fs)
-
-
-def place_label(
-    ax: Any, lon: float, lat: float, text: str, *, fontsize: float, below: bool = False, **kw: Any
-) -> Any:
-    """A label beside the point (lon, lat), kept inside the map frame; None if off the map.
-
-    The label goes up and right of the point (down and left with ``below``, so that plume
-    names and station names at the same place do not overlap); where it would cross the
-    frame (measured as rendered) it moves to the other side of the point.
-    """
-    x, y = ax.projection.transform_point(lon, lat, ccrs.PlateCarree())
-    u, v = (ax.transData + ax.transAxes.inverted()).transform((x, y))
-    if not (np.isfinite(u) and np.isfinite(v) and 0.0 <= u <= 1.0 and 0.0 <= v <= 1.0):
-        return None
-    sx, sy = (-1, -1) if below else (1, 1)
-    label = ax.annotate(
-        text,
-        (u, v),
-        xycoords="axes fraction",
-        xytext=(4 * sx, 3 * sy),
-        textcoords="offset points",
-        ha="left" if sx > 0 else "right",
-        va="bottom" if sy > 0 else "top",
-        fontsize=fontsize,
-        path_effects=halo(2.0),
-        zorder=7,
-        annotation_clip=False,
-        **kw,
-    )
-    renderer = ax.figure.canvas.get_renderer()
-    box, frame = label.get_window_extent(renderer), ax.get_window_extent(renderer)
-    if box.x1 > frame.x1 or box.x0 < frame.x0:
-        sx = -sx
-    if box.y1 > frame.y1 or box.y0 < frame.y0:
-        sy = -sy
-    label.set_position((4 * sx, 3 * sy))
-    label.set_ha("left" if sx > 0 else "right")
-    label.set_va("bottom" if sy > 0 else "top")
-    return label
+            labels.append(place_label(ax, lon, lat, name, fontsize=0.8 * fs))
+    return labels, marks
 
 
 def legend_handles(

@@ -24,7 +24,6 @@ from matplotlib.cm import ScalarMappable
 from matplotlib.colors import Normalize
 from matplotlib.figure import Figure
 from matplotlib.font_manager import FontProperties
-from matplotlib.ticker import MaxNLocator
 
 from lidmelt.errors import InputError
 from lidmelt.grids.rundir import RunDir
@@ -34,11 +33,13 @@ from lidmelt.products.maps import overlays as ov
 from lidmelt.products.maps import page as pg
 from lidmelt.products.maps.captions import lid_grid_share, model_line, run_basis
 from lidmelt.products.maps.field import Field, draw_data, open_field
+from lidmelt.products.maps.labels import spread_labels
 from lidmelt.products.maps.options import MapOptions, as_run, resolve_options
 from lidmelt.products.maps.style import (
     OUTSIDE_COLOR,
     class_legend_handles,
     colorbar_label,
+    end_ticks,
 )
 from lidmelt.products.maps.write import save_figure
 
@@ -106,8 +107,8 @@ def _colorbar(fig: Figure, rect: tuple, f: Field, fs: float) -> str:
         extend=f.extend,
         extendfrac=0.04,
     )
-    cbar.locator = MaxNLocator(nbins=5)
-    cbar.update_ticks()
+    ticks, labels = end_ticks(f.vmin, f.vmax, 5)
+    cbar.set_ticks(ticks, labels=labels)
     cbar.ax.tick_params(labelsize=0.85 * fs, length=2, width=0.5, pad=1.5)
     label = colorbar_label(f.long_name, f.units)
     cbar.set_label(label, fontsize=0.9 * fs, labelpad=2)
@@ -120,13 +121,14 @@ def _caption(run: RunDir, proj_name: str, outside: bool, fields: list[Field]) ->
     parts = [run_basis(summary, lid_grid_share(run))]
     parts.append(
         "Colour limits per panel as on the single maps: melt amounts from 0 to the 99.5th "
-        "percentile of the melting cells, depths over their whole range, others from the 2nd "
-        "to 98th percentiles; signed quantities diverging about 0 (black line: 0)."
+        "percentile of the melting cells, depths and the thermal anomaly over their whole "
+        "range, others from the 2nd to 98th percentiles; signed quantities diverging about 0 "
+        "(black line: 0); the ends of each colour bar are labelled."
     )
     grey = "White: no melting (undefined variables are not drawn there); grey: no data"
     parts.append(grey + ("; pale blue-grey: outside the grid." if outside else "."))
     if mk.plumes_of(summary):
-        parts.append("Ringed dots: plume centres named in the workflow.")
+        parts.append("Rings: plume centres named in the workflow.")
     if any(f.flag_bits for f in fields):
         parts.append("Hatched: cells the validity flags mark (see the single maps).")
     parts.append(f"Projection: {proj_name}. {model_line(summary)}.")
@@ -189,7 +191,7 @@ def _draw_panel(
     lay.set_view(ax, f.proj, f.proj_name, f.region, box)
     ax.set_facecolor(OUTSIDE_COLOR)
     draw_data(ax, f, (grid.pw * dpi, grid.ph * dpi))
-    mk.draw_plumes(ax, plumes, grid.fs, names=k == 1)
+    spread_labels(ax, mk.draw_plumes(ax, plumes, grid.fs, names=k == 1))
     labels = {
         "draw_labels": {"bottom": "x", "left": "y"},
         "y_inline": False,

@@ -16,7 +16,8 @@ valid cells (:data:`PERCENTILES`; for the two melt amounts: 0 to the 99.5th perc
 melting cells, :data:`MELT_TOP_PERCENTILE`, so that the few hot plume cells keep their
 structure), with extend arrows where the data go beyond them. Depths and pressures span the
 whole range of the valid cells (:data:`FULL_RANGE`): their plume cores are few cells, and a
-percentile limit would saturate a 250 km onset and a 150 km one into one colour. They use
+percentile limit would saturate a 250 km onset and a 150 km one into one colour; so does the
+thermal anomaly (a 98th-percentile limit drew plumes of 150 and 280 K in one colour). They use
 ``cividis_r``: shallow is light, deep is dark. Sequential colour maps are matplotlib's
 perceptually uniform ones (viridis family; common practice).
 
@@ -76,6 +77,7 @@ __all__ = [
     "colour_limits",
     "encode_categories",
     "encode_classes",
+    "end_ticks",
     "style_for",
     "title_of",
     "unit_label",
@@ -93,7 +95,7 @@ CANDIDATE_COLOR = "#d62728"
 PERCENTILES = (2.0, 98.0)
 #: Top of the colour scale of the melt amounts: this percentile of the melting cells.
 MELT_TOP_PERCENTILE = 99.5
-#: Percentiles of the styles that show the whole range (depths and pressures): min and max.
+#: Percentiles of the styles that show the whole range (depths, pressures, thermal anomaly).
 FULL_RANGE = (0.0, 100.0)
 
 
@@ -152,7 +154,7 @@ STYLES: dict[str, MapStyle] = {
     "fraction": MapStyle("plasma"),
     "excess": MapStyle("RdBu_r", diverging=True),  # signed: 0 is the screening line
     "age": MapStyle("viridis"),
-    "anomaly": MapStyle("inferno"),
+    "anomaly": MapStyle("inferno", percentiles=FULL_RANGE),  # every plume's peak resolved
     "water": MapStyle("cividis"),
     "flag": MapStyle("viridis"),  # the validity flags are not drawn by 'lidmelt map'
     "regime": MapStyle("viridis", classes=REGIME_CLASSES),
@@ -328,6 +330,36 @@ def colour_limits(
         vmin, vmax = vmin - half, vmax + half
         below = above = False
     return vmin, vmax, extend_of(below, above)
+
+
+def end_ticks(vmin: float, vmax: float, nbins: int) -> tuple[list[float], list[str]]:
+    """Colour-bar ticks with a labelled tick at each end of the scale, and their labels.
+
+    Round interior ticks (matplotlib's MaxNLocator) are kept where they lie more than 12 % of
+    the range from an end, so that no two labels collide; the ends are labelled to 3
+    significant figures, the interior ticks as round numbers.
+    """
+    from matplotlib.ticker import MaxNLocator
+
+    gap = 0.12 * (vmax - vmin)
+    inner = [
+        float(t)
+        for t in MaxNLocator(nbins=nbins).tick_values(vmin, vmax)
+        if vmin + gap < t < vmax - gap
+    ]
+    ticks = [vmin, *inner, vmax]
+    labels = [_end_label(vmin), *(f"{t:g}" for t in inner), _end_label(vmax)]
+    return ticks, labels
+
+
+def _end_label(value: float) -> str:
+    """A scale's end value to 3 significant figures, without an exponent where it fits."""
+    if value == 0:
+        return "0"
+    text = f"{value:.3g}"
+    if "e" in text and 1e-4 <= abs(value) < 1e6:
+        text = f"{value:.6f}".rstrip("0").rstrip(".") if abs(value) < 1 else f"{value:.0f}"
+    return text
 
 
 def encode_classes(
