@@ -329,3 +329,31 @@ def _station_file(tmp_path):
     path = tmp_path / "stations.csv"
     path.write_text("name,lon,lat\nNear station,25.1,5.1\nFar station,12,9\n", encoding="utf-8")
     return path
+
+
+def test_anomaly_melt_map_draws_tails_below_the_least_amount_as_no_added_melt(make_run_dir):
+    """Cells below the registry's least anomaly melt (Variable.negligible_below) are drawn in
+    the "no added melt" class and do not set the colour scale; the file keeps them."""
+    from lidmelt.products.maps.field import open_field
+    from lidmelt.products.maps.options import MapOptions, resolve_options
+    from lidmelt.variables import OUTPUTS
+
+    least = OUTPUTS["anomaly_melt_thickness_km"].negligible_below
+    added = np.zeros((20, 30))
+    added[:, 20:] = 3.0  # melt the anomaly adds
+    added[:, 10:20] = 1e-7  # a numerical tail
+    added[:5, 10:20] = 0.5 * least  # below the least amount
+    run = make_run_dir(
+        {"melt_thickness_km": added + 1.0, "anomaly_melt_thickness_km": added},
+        transform=BOX,
+        name="tails",
+    )
+    _, info = maps.make_map_figure(run, "anomaly_melt_thickness_km", coastlines=False, dpi=60)
+    assert f"no added melt (< {least:g} km)" in info.legend_labels
+    assert "no melting" not in info.legend_labels  # ambient mantle melts there: not "none"
+    as_run = maps.figure.as_run(run)
+    field = open_field(as_run, "anomaly_melt_thickness_km", resolve_options(as_run, MapOptions()))
+    assert field.no_melt[:, 10:20].all()  # tails drawn as none
+    assert not field.no_melt[:, 20:].any()
+    kept = np.asarray(as_run.open("anomaly_melt_thickness_km").values)
+    assert np.count_nonzero((kept > 0) & (kept < least)) == 200  # the file keeps the tails
