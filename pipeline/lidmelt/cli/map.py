@@ -74,7 +74,11 @@ def register(subparsers: argparse._SubParsersAction) -> None:
     )
     p.add_argument("--overview", action="store_true", help=_OVERVIEW_HELP)
     p.add_argument(
-        "--format", dest="fmt", choices=FORMATS, default="png", help="figure format (default png)"
+        "--format",
+        dest="fmt",
+        choices=FORMATS,
+        default=None,
+        help="figure format (default png; with --overview: only this format, default all three)",
     )
     p.add_argument(
         "--dpi", type=float, default=150.0, help="resolution in dots per inch (default 150)"
@@ -106,6 +110,7 @@ def run(args: argparse.Namespace) -> int:
             region=args.region,
             coastlines=args.coastlines,
             dpi=dpi,
+            **({"formats": (args.fmt,)} if args.fmt else {}),
         )
         for path in written:
             print(path)
@@ -114,7 +119,7 @@ def run(args: argparse.Namespace) -> int:
         args.run_dir,
         out_dir=args.out_dir,
         variables=args.variables,
-        fmt=args.fmt,
+        fmt=args.fmt or "png",
         projection=args.projection,
         region=args.region,
         stations=args.stations,

@@ -8,7 +8,9 @@ own style (:mod:`.style`: colour map, limits, no-melt and nodata colours, zero c
 same projection (:func:`.layout.make_projection` of the grid's extent) and the plume centres
 of the workflow; each has its colour bar under it. One caption under the panels says what the
 run used and what the colours mean. :func:`draw_overview` writes it as PNG (300 dpi) and as
-vector PDF and SVG (the data layers are embedded images; text and lines stay vector).
+vector PDF and SVG (the data layers are embedded images; text and lines stay vector); the PNG
+carries :func:`run_stamp` in its metadata (``lidmelt-run``), so a copy of it (the README's)
+can be checked against a fresh run of the same workflow.
 """
 
 from __future__ import annotations
@@ -43,7 +45,13 @@ from lidmelt.products.maps.style import (
 )
 from lidmelt.products.maps.write import save_figure
 
-__all__ = ["OVERVIEW_PANELS", "OverviewInfo", "draw_overview", "make_overview_figure"]
+__all__ = [
+    "OVERVIEW_PANELS",
+    "OverviewInfo",
+    "draw_overview",
+    "make_overview_figure",
+    "run_stamp",
+]
 
 #: Panel choices in order: each panel shows the first variable of its tuple the run has.
 OVERVIEW_PANELS = (
@@ -125,7 +133,11 @@ def _caption(run: RunDir, proj_name: str, outside: bool, fields: list[Field]) ->
         "range, others from the 2nd to 98th percentiles; signed quantities diverging about 0 "
         "(black line: 0); the ends of each colour bar are labelled."
     )
-    grey = "White: no melting (undefined variables are not drawn there); grey: no data"
+    grey = "White: no melting (undefined variables are not drawn there)"
+    for k, f in enumerate(fields):
+        if f.no_melt is not None and f.style.no_melt_label != "no melting":
+            grey += f", in ({chr(ord('a') + k)}) {f.style.no_melt_label}"
+    grey += "; grey: no data"
     parts.append(grey + ("; pale blue-grey: outside the grid." if outside else "."))
     if mk.plumes_of(summary):
         parts.append("Rings: plume centres named in the workflow.")
@@ -311,4 +323,28 @@ def draw_overview(
     run = as_run(run)
     fig, _ = make_overview_figure(run, **options)
     out = Path(out_dir) if out_dir is not None else run.path / "maps"
-    return [save_figure(fig, out / f"overview.{fmt}", dpi=fig.dpi) for fmt in formats]
+    stamp = run_stamp(run.summary)
+    return [save_figure(fig, out / f"overview.{fmt}", dpi=fig.dpi, stamp=stamp) for fmt in formats]
+
+
+def _rounded(value: Any) -> Any:
+    """Floats to 6 significant figures, in nested dicts and lists (a stable fingerprint)."""
+    if isinstance(value, dict):
+        return {k: _rounded(v) for k, v in value.items()}
+    if isinstance(value, list | tuple):
+        return [_rounded(v) for v in value]
+    if isinstance(value, float):
+        return float(f"{value:.6g}")
+    return value
+
+
+def run_stamp(summary: dict[str, Any]) -> str:
+    """Which run an overview shows: the lidmelt version and a SHA-256 of the run's statistics
+    (6 significant figures), as JSON. A change of the physics changes the statistics and so
+    the stamp: an image whose stamp differs from a fresh run's is out of date."""
+    import hashlib
+    import json
+
+    stats = json.dumps(_rounded(summary.get("statistics") or {}), sort_keys=True)
+    digest = hashlib.sha256(stats.encode("utf-8")).hexdigest()
+    return json.dumps({"lidmelt": summary.get("lidmelt_version"), "statistics_sha256": digest})

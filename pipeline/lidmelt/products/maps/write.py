@@ -32,11 +32,15 @@ from lidmelt.variables import ensemble_variable
 __all__ = [
     "FORMATS",
     "REPEATS",
+    "STAMP_KEY",
     "default_map_variables",
     "draw_map",
     "draw_run_maps",
     "save_figure",
 ]
+
+#: The PNG metadata entry that says which run a figure shows (:func:`save_figure`).
+STAMP_KEY = "lidmelt-run"
 
 #: Figure formats that :func:`draw_map` writes.
 FORMATS = ("png", "pdf", "svg")
@@ -68,13 +72,18 @@ def _check_suffix(path: Path) -> str:
     return fmt
 
 
-def save_figure(fig: Figure, path: str | Path, *, dpi: float | None = None) -> Path:
-    """Save ``fig`` atomically; the format follows the suffix (png, pdf or svg)."""
+def save_figure(
+    fig: Figure, path: str | Path, *, dpi: float | None = None, stamp: str | None = None
+) -> Path:
+    """Save ``fig`` atomically; the format follows the suffix (png, pdf or svg). A PNG carries
+    ``stamp`` (text) in its ``lidmelt-run`` metadata entry when given."""
     path = Path(path)
     fmt = _check_suffix(path)
     metadata: dict[str, Any] = {"Creator": f"lidmelt {__version__}"}
     if fmt == "png":
         metadata = {"Software": f"lidmelt {__version__}"}
+        if stamp is not None:
+            metadata[STAMP_KEY] = stamp
     elif fmt == "pdf":
         metadata["CreationDate"] = None  # reproducible files
     elif fmt == "svg":
