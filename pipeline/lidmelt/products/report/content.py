@@ -246,8 +246,9 @@ _INPUT_KEYS_SHOWN = {"file", "source", "sha256", "units", "long_name", "plumes"}
 def _input_row(name: str, entry: Any) -> tuple[str, ...]:
     entry = entry if isinstance(entry, dict) else {}
     extra = {k: v for k, v in entry.items() if k not in _INPUT_KEYS_SHOWN}
+    label = variable_label(name)
     return (
-        str(name),
+        str(name) if label == name else f"{label} ({name})",
         variable_units(name, entry.get("units")),
         str(entry.get("source") or "none recorded"),
         str(entry.get("sha256") or "none recorded"),
