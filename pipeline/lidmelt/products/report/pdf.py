@@ -123,15 +123,37 @@ def _para(text: str, style: str = "body") -> Any:
 
 
 def _column_widths(block: Table, width: float) -> list[float]:
-    """Column widths in proportion to each column's longest cell (at least 6 %, wrapped)."""
-    lengths = [
-        max([len(str(block.header[k]))] + [len(str(row[k])) for row in block.rows]) + 2
+    """Column widths as a browser sets them: each column's natural width (its longest cell on
+    one line) where the table fits, else each its longest word plus a share of the rest in
+    proportion to what it lacks (cells then wrap between words)."""
+    from reportlab.pdfbase.pdfmetrics import stringWidth
+
+    size, pad = _styles()["cell"].fontSize, 6.5  # cell padding, left + right, plus a margin
+    columns = [
+        [str(block.header[k]), *(str(row[k]) for row in block.rows)]
         for k in range(len(block.header))
     ]
-    lengths = [min(n, 60) for n in lengths]
-    total = float(sum(lengths))
-    shares = [max(n / total, 0.06) for n in lengths]
-    return [width * s / sum(shares) for s in shares]
+    font = {k: _MONO if k in block.mono else _FONT for k in range(len(columns))}
+
+    def measure(k: int, row: int, text: str) -> float:  # the header row is set in bold
+        return stringWidth(text, _BOLD if row == 0 else font[k], size)
+
+    natural = [
+        max(measure(k, r, c) for r, c in enumerate(cells)) + pad for k, cells in enumerate(columns)
+    ]
+    least = [
+        max(measure(k, r, w) for r, c in enumerate(cells) for w in (c.split() or [""])) + pad
+        for k, cells in enumerate(columns)
+    ]
+    least = [min(n, width / len(columns)) if k in block.mono else n for k, n in enumerate(least)]
+    if sum(natural) <= width:
+        return natural
+    room = max(width - sum(least), 0.0)
+    lack = [max(n - m, 0.0) for n, m in zip(natural, least, strict=True)]
+    total = sum(lack) or 1.0
+    widths = [m + room * d / total for m, d in zip(least, lack, strict=True)]
+    scale = min(1.0, width / sum(widths))
+    return [w * scale for w in widths]
 
 
 def _table(block: Table) -> Any:
