@@ -16,6 +16,9 @@ _OVERVIEW_HELP = (
 )
 
 
+_FORMAT_HELP = "figure format (default png; with --overview: only this format, default all three)"
+
+
 def register(subparsers: argparse._SubParsersAction) -> None:
     """Register ``lidmelt map``."""
     p = subparsers.add_parser(
@@ -73,13 +76,7 @@ def register(subparsers: argparse._SubParsersAction) -> None:
         help="local coastline shapefile to draw (never downloaded)",
     )
     p.add_argument("--overview", action="store_true", help=_OVERVIEW_HELP)
-    p.add_argument(
-        "--format",
-        dest="fmt",
-        choices=FORMATS,
-        default=None,
-        help="figure format (default png; with --overview: only this format, default all three)",
-    )
+    p.add_argument("--format", dest="fmt", choices=FORMATS, default=None, help=_FORMAT_HELP)
     p.add_argument(
         "--dpi", type=float, default=150.0, help="resolution in dots per inch (default 150)"
     )
