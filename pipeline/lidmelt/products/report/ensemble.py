@@ -174,11 +174,10 @@ def _png(fig: Any, dpi: float) -> bytes:
 def _figures(run: RunDir, entry: dict[str, Any], *, dpi: float, width_in: float) -> list[Block]:
     """The probability map and the histogram of the members' melt volume (when available)."""
     blocks: list[Block] = []
-    if ens.PROBABILITY_VARIABLE in run.outputs:
-        fig, _ = make_map_figure(
-            run, ens.PROBABILITY_VARIABLE, coastlines=False, dpi=dpi, width_in=width_in
-        )
-        blocks.append(MapImage(ens.PROBABILITY_VARIABLE, _png(fig, dpi), "image/png", "ensemble"))
+    probability = ens.run_probability(run)
+    if probability is not None:
+        fig, _ = make_map_figure(run, probability, coastlines=False, dpi=dpi, width_in=width_in)
+        blocks.append(MapImage(probability, _png(fig, dpi), "image/png", "ensemble"))
     try:
         members = ens.read_members(run)
         totals = (entry.get("totals") or {}).get("melt_volume_km3")
