@@ -136,7 +136,7 @@ def test_zero_spread_equals_the_single_run(tmp_path):
     assert got.max() == 1.0  # the lid of 60 km melts at Tp 1400 C
     totals = run.summary["ensemble"]["totals"]["melt_volume_km3"]
     assert totals["p50"] == pytest.approx(run.summary["statistics"]["melt_volume_km3"], rel=1e-6)
-    np.testing.assert_array_equal(read(run, "members_without_value"), 0.0)
+    np.testing.assert_array_equal(read(run, "members_without_value_fraction"), 0.0)
 
 
 @pytest.mark.parametrize(("lid", "expected"), [(10.0, 1.0), (200.0, 0.0)])
@@ -327,8 +327,8 @@ def test_members_without_an_onset_are_counted_not_zero(tmp_path):
     (tp_driver,) = entry["drivers"]
     assert tp_driver["rank_correlation_melt_volume"] > 0.9
     assert tp_driver["rank_correlation_interval"][0] > 0
-    counts = read(run, "members_without_value")
-    assert np.all(counts == hot.sum())
+    share = read(run, "members_without_value_fraction")
+    assert np.all(share == np.float32(hot.sum() / len(members)))
     p50 = read(run, "melt_thickness_km_p50")  # over the members with a value only
     expected = np.percentile(members.loc[~hot, "melt_volume_km3"], 50, method="linear")
     area = run.summary["statistics"]["melt_volume_km3"] / float(
@@ -406,7 +406,7 @@ def test_registry_knows_the_ensemble_outputs():
         "2nd percentile of the ensemble"
     )
     assert ensemble_variable("nothing_p5") is None
-    assert get_variable("members_without_value").units == "1"
+    assert get_variable("members_without_value_fraction").units == "1"
     for old in ("melt_probability", "melt_probability_ge_2km"):  # an earlier lidmelt's names
         assert ensemble_variable(old) is None
         with pytest.raises(InputError, match="earlier lidmelt"):

@@ -347,14 +347,18 @@ MELT_PROBABILITY = Variable(
     kind="ensemble",
     style="probability",
 )
-#: Per cell, the ensemble members without a value there although the cell has input data (no
-#: solidus crossing, an invalid input): left out of the cell's probabilities and percentiles.
+#: Per cell, the fraction of the ensemble members without a value there although the cell has
+#: input data (no solidus crossing, an invalid input): left out of the cell's probabilities and
+#: percentiles.
 MEMBERS_WITHOUT_VALUE = Variable(
-    name="members_without_value",
+    name="members_without_value_fraction",
     units="1",
-    long_name="ensemble members without a value (left out of the probabilities and percentiles)",
+    long_name=(
+        "fraction of the ensemble members without a value (left out of the probabilities and "
+        "percentiles)"
+    ),
     kind="ensemble",
-    style="fraction",
+    style="member_fraction",
 )
 
 
@@ -377,8 +381,8 @@ def ensemble_variable(name: str) -> Variable | None:
     """The Variable of an ensemble output name (:func:`parse_ensemble_name`), or None.
 
     A probability (:func:`probability_name`) is dimensionless with the ``"probability"`` style;
-    a percentile ``<output>_p<q>`` keeps its output's unit and style; ``members_without_value``
-    is a count.
+    a percentile ``<output>_p<q>`` keeps its output's unit and style;
+    ``members_without_value_fraction`` is a fraction of the members.
     """
     parsed = parse_ensemble_name(name)
     if parsed is None:

@@ -33,9 +33,10 @@
   :data:`REPLICATES` resamples of the members with replacement (weighted least squares with the
   resample's counts; the same resamples for every key; drawn from the ensemble's seed, so the
   same seed gives the same intervals). The bootstrap treats the members as a simple random
-  sample: for a Latin hypercube, whose estimates vary less, the intervals are wider than needed
-  (conservative; docs/workflow.md gives measured figures). A key whose share interval reaches 0
-  is "not distinguishable from sampling noise" and is not ranked as a driver.
+  sample: with random members the intervals held the truth of a known case in 90 % of seeds;
+  for a Latin hypercube, whose estimates vary less, they are wider than needed (conservative;
+  ``benchmarks/bench_drivers.py``, figures in docs/workflow.md). A key whose share interval
+  reaches 0 is "not distinguishable from sampling noise" and is not ranked as a driver.
 - Percentiles of the totals: the same definition as the maps
   (:func:`lidmelt.ensemble.kernel.member_percentiles`, Hyndman & Fan 1996 definition 7), over
   the members with a value.

@@ -7,7 +7,8 @@ Definitions (lidmelt's own; docs/workflow.md, [ensemble]):
   :data:`lidmelt.variables.FLAG_NODATA`) and the member's melt thickness H there is a number. A
   member without a value in a cell with data (no solidus crossing within the model's pressure
   range, an invalid input) is left out of that cell's probabilities and percentiles, and counted
-  (the ``members_without_value`` layer, and per member its ``cells_without_value``); it is never
+  (the ``members_without_value_fraction`` layer, and per member its ``cells_without_value``); it
+  is never
   taken as H = 0.
 - probability ``melt_probability_<basis>_ge_<T>km``: among the members with a value in the cell,
   the fraction whose melt of the basis (:data:`lidmelt.variables.PROBABILITY_BASES`: the melt the
@@ -79,7 +80,7 @@ _INDEX = {name: list(OUTPUTS).index(name) for name in OUTPUTS}
 
 def layer_names(basis: str, thresholds_km, percentiles) -> list[str]:
     """Names of the reduced layers, in order: the probabilities (one per threshold), the
-    percentiles of each of :data:`BASES`, and ``members_without_value``."""
+    percentiles of each of :data:`BASES`, and ``members_without_value_fraction``."""
     names = [probability_name(basis, t) for t in thresholds_km]
     names += [percentile_name(base, q) for base in BASES for q in percentiles]
     return [*names, MEMBERS_WITHOUT_VALUE.name]
@@ -256,5 +257,5 @@ def reduce_chunk(
     if cells:
         _candidate_probability(sums, probability[0], area, cells)
     pcts = [member_percentiles(stacks[b], plan.percentiles) for b in range(len(BASES))]
-    lacking = np.where(has_data, without_value, np.nan).astype(np.float32)[None]
+    lacking = np.where(has_data, without_value / members, np.nan).astype(np.float32)[None]
     return np.concatenate([probability, *pcts, lacking]), sums

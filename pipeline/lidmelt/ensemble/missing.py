@@ -5,7 +5,7 @@ there (no solidus crossing within the model's pressure range, an invalid input;
 :mod:`lidmelt.ensemble.kernel`). lidmelt treats such members one way everywhere:
 
 - in a cell, its probabilities and percentiles are over the members with a value there (the
-  ``members_without_value`` layer counts the others);
+  ``members_without_value_fraction`` layer gives the share of the others);
 - a member without a value in any cell of the basin has no basin totals (NaN in
   ``ensemble_members.csv``, its ``cells_without_value`` beside them) and is left out of the
   totals' percentiles and of the basin's drivers; the same holds per candidate for the

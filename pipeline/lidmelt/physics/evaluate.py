@@ -42,7 +42,6 @@ from lidmelt.physics.table import FALLBACK_STEP_GPA, MeltTable, get_table
 
 __all__ = [
     "COLUMN_OUTPUTS",
-    "EXTRACTION_MIN_MELT_FRACTION",
     "FLAG_BEYOND_CALIBRATION",
     "FLAG_INVALID_INPUT",
     "FLAG_KEYS",
@@ -62,13 +61,7 @@ __all__ = [
 ]
 
 _BLOCK = 1 << 16
-
-#: Least melt fraction at the top of melting (``max_melt_fraction``) for a column to count as
-#: melting, below which its melt is taken as not extracted. The ensemble's probability of melting
-#: counts a member only where its melt fraction reaches this (lidmelt.ensemble.kernel).
-#: placeholder; the value and its source come with issue 18
-EXTRACTION_MIN_MELT_FRACTION = 0.005
-
+EXTRACTION_MIN_MELT_FRACTION = 0.005  # placeholder; the value and its source come with issue 18
 FLAG_INVALID_INPUT = 1  #: NaN input, negative lid, Tp below the surface solidus, or bad water
 FLAG_NO_ONSET = 2  #: the isentrope does not meet the solidus within the model's search range
 FLAG_BEYOND_CALIBRATION = 4  #: onset beyond the calibrated range (computed on the continuation)

@@ -10,7 +10,8 @@ usual outputs, per-cell maps over its members (names from the registry,
   thresholds is its probability of melting (:func:`run_probability`);
 - ``<variable>_p<q>``: the q-th percentile over the members of an output (e.g.
   ``melt_thickness_km_p90``, ``onset_depth_km_p50``);
-- ``members_without_value``: per cell, the members without a value there;
+- ``members_without_value_fraction``: per cell, the fraction of the members without a value
+  there;
 
 the members' sampled parameters and totals in ``ensemble_members.csv`` (one row per member:
 ``member``, one column per varied workflow key, ``melting_area_km2``, ``melt_volume_km3``,

@@ -193,9 +193,8 @@ def screen(
         An ensemble run: a cell is a candidate cell when its probability (the map chosen by
         ``probability``) >= this. Dimensionless; 0 < P <= 1.
     probability : str or float, optional
-        The probability map (of ``basis``): None the run's probability of melting of that
-        basis; a number T (km) ``melt_probability_<basis>_ge_<T>km``; or a probability map's
-        name. Needs ``min_probability``.
+        The probability map of ``basis``: None the run's own; a number T (km)
+        ``melt_probability_<basis>_ge_<T>km``; or its name. Needs ``min_probability``.
     min_area_km2 : float
         Smallest area of a candidate region. Units: km^2; >= 0.
     basis : {"anomaly", "total"}
@@ -242,19 +241,26 @@ def screen(
     if min_age_ma is not None:
         mask &= _old_enough(zones, min_age_ma, run=run)
     labels, n = _label(mask, periodic=grid.is_periodic)
-    volume = BASIS_VOLUME[basis]
-    records = _candidate_records(zones, labels, n, min_area, volume=volume, probability=prob)
+    records = _candidate_records(zones, labels, n, min_area, volume=BASIS_VOLUME[basis],
+                                 probability=prob)  # fmt: skip
     _match_plumes(records, labels, zones, run_plumes(run))
     polygons = _component_polygons(labels, np.array([r["label"] for r in records]), grid.affine)
-    stats = [*zones.columns, *(_PROBABILITY_COLUMNS if prob is not None else ())]
-    if prob is not None:
-        threshold = parse_ensemble_name(prob_name).threshold_km
-        for record in records:
-            record.update(probability_basis=basis, probability_threshold_km=threshold)
+    stats = [*zones.columns, *_what_probability(records, basis, prob_name)]
     out = _candidate_frame(records, stats, polygons, grid.pyproj_crs)
     out.attrs["lidmelt_basis"] = basis
     out.attrs["lidmelt_probability"] = prob_name
     return out
+
+
+def _what_probability(records: list[dict[str, Any]], basis: str, name: str) -> tuple[str, ...]:
+    """With a probability map ``name`` (else ""), give each record the probability's basis and
+    threshold; return the probability columns (none without a map)."""
+    if not name:
+        return ()
+    threshold = parse_ensemble_name(name).threshold_km
+    for record in records:
+        record.update(probability_basis=basis, probability_threshold_km=threshold)
+    return _PROBABILITY_COLUMNS
 
 
 def _candidate_frame(
