@@ -334,7 +334,7 @@ def test_a_run_of_an_earlier_lidmelt_is_refused_clearly(make_run_dir):
         screen(run, min_probability=0.5)
     single = screen(run, min_melt_thickness_km=1.0)  # screening its melt still works
     assert "mean_probability" not in single.columns
-    with pytest.raises(InputError, match="earlier lidmelt.*Run 'lidmelt run'"):
+    with pytest.raises(InputError, match=r"earlier lidmelt.*Run 'lidmelt run'"):
         make_map_figure(run, "melt_probability", coastlines=False, dpi=60)
 
 

@@ -12,8 +12,10 @@
   random-sampling high-dimensional model representation (Li, Rosenthal & Rabitz 2001, J. Phys.
   Chem. A 105, 7765; from memory): per numeric key the Legendre polynomials of degree 1..k of
   2u - 1, u = (rank - 1/2)/N the member's place in the key's order (uniform for any
-  distribution), per ``choice`` key one indicator per value but the first. The degree k is the
-  largest of 3, 2, 1 that keeps the columns p <= (N - 1)/2 (fewer members, fewer columns).
+  distribution), per ``choice`` key one indicator per value but the first. The degree k (the
+  same for every key) is that of 3, 2, 1 whose fit leaves the least residual variance
+  SS_res / (N - 1 - p) (the largest adjusted R^2), among those that keep the columns
+  p <= (N - 1)/2: with few members and many keys a higher degree does not earn its columns.
   Then, with sigma^2 = SS_res / (N - 1 - p) the residual variance (interactions and what the
   polynomials miss),
 
@@ -36,7 +38,9 @@
   sample: with random members the intervals held the truth of a known case in 90 % of seeds;
   for a Latin hypercube, whose estimates vary less, they are wider than needed (conservative;
   ``benchmarks/bench_drivers.py``, figures in docs/workflow.md). A key whose share interval
-  reaches 0 is "not distinguishable from sampling noise" and is not ranked as a driver.
+  reaches 0 is not ranked as a driver: "not distinguishable from sampling noise" when its rank
+  correlation's interval reaches 0 too, else "rank correlation only" (a monotone trend the
+  share cannot yet tell from noise).
 - Percentiles of the totals: the same definition as the maps
   (:func:`lidmelt.ensemble.kernel.member_percentiles`, Hyndman & Fan 1996 definition 7), over
   the members with a value.
@@ -57,6 +61,7 @@ from lidmelt.ensemble.kernel import member_percentiles
 
 __all__ = [
     "INTERVAL",
+    "MONOTONE_ONLY",
     "NOISE",
     "REPLICATES",
     "Design",
@@ -72,8 +77,10 @@ __all__ = [
 REPLICATES = 1000
 #: Probability content of the intervals (the 5th to the 95th percentile of the replicates).
 INTERVAL = 0.90
-#: What a key whose share interval reaches 0 is called.
+#: What a key whose share and rank-correlation intervals both reach 0 is called.
 NOISE = "not distinguishable from sampling noise"
+#: What a key is called whose share interval reaches 0 but whose rank correlation's does not.
+MONOTONE_ONLY = "rank correlation only: its share is not distinguishable from sampling noise"
 #: Largest polynomial degree per numeric key.
 _MAX_DEGREE = 3
 #: Replicates per batch of the least-squares fits (bounds the memory of a batch).
@@ -123,17 +130,39 @@ def _key_columns(x: np.ndarray, categorical: bool, degree: int) -> np.ndarray:
     return np.column_stack([legendre.legval(z, np.eye(k + 1)[k]) for k in range(1, degree + 1)])
 
 
-def design_matrix(xs: Sequence[np.ndarray], categorical: Sequence[bool]) -> Design | None:
-    """The additive model of the keys ``xs`` (module notes); None with too few members."""
+def _residual_variance(columns: np.ndarray, y: np.ndarray) -> float:
+    """sigma^2 = SS_res / (N - 1 - p) of the least-squares fit of y on [1, columns]."""
+    a = np.column_stack([np.ones(len(y)), columns])
+    beta = np.linalg.lstsq(a, y, rcond=None)[0]
+    return float(((y - a @ beta) ** 2).sum() / max(len(y) - a.shape[1], 1))
+
+
+def design_matrix(
+    xs: Sequence[np.ndarray], categorical: Sequence[bool], y: np.ndarray | None = None
+) -> Design | None:
+    """The additive model of the keys ``xs`` (module notes); None with too few members.
+
+    Of the degrees 3, 2, 1 that keep p <= (N - 1) / 2 columns (degree 1: p <= N - 3), the one
+    whose fit to ``y`` leaves the least residual variance sigma^2 = SS_res / (N - 1 - p) (the
+    largest adjusted R^2; common practice): a higher degree must earn its columns. Without
+    ``y``, the highest.
+    """
     n = len(xs[0]) if xs else 0
+    best: tuple[float, Design] | None = None
     for degree in range(_MAX_DEGREE, 0, -1):
         blocks = [_key_columns(x, c, degree) for x, c in zip(xs, categorical, strict=True)]
         p = sum(b.shape[1] for b in blocks)
-        if p <= (n - 1) / 2 or (degree == 1 and p <= n - 3):
-            owner = np.concatenate([np.full(b.shape[1], d) for d, b in enumerate(blocks)])
-            columns = np.column_stack(blocks) if p else np.zeros((n, 0))
-            return Design(columns, owner.astype(np.int64), degree)
-    return None
+        if not (p <= (n - 1) / 2 or (degree == 1 and p <= n - 3)):
+            continue
+        owner = np.concatenate([np.full(b.shape[1], d) for d, b in enumerate(blocks)])
+        columns = np.column_stack(blocks) if p else np.zeros((n, 0))
+        design = Design(columns, owner.astype(np.int64), degree)
+        if y is None:
+            return design
+        score = _residual_variance(columns, y)
+        if best is None or score <= best[0]:
+            best = (score, design)
+    return best[1] if best else None
 
 
 def first_order_shares(design: Design, y: np.ndarray, weights: np.ndarray) -> np.ndarray:
@@ -196,7 +225,7 @@ def _record(key: str, rho, rho_reps, share, share_reps) -> dict[str, Any]:
     """One key's driver record (module notes; shares and their interval clipped to 0..1)."""
     rho_ci = _interval(rho_reps) if rho is not None else None
     share_ci = _interval(share_reps) if share is not None else None
-    noise = share_ci is None or share_ci[0] <= 0.0
+    driver = share_ci is not None and share_ci[0] > 0.0
     return {
         "key": key,
         "rank_correlation_melt_volume": rho,
@@ -205,13 +234,18 @@ def _record(key: str, rho, rho_reps, share, share_reps) -> dict[str, Any]:
         "variance_fraction_interval": (
             [float(np.clip(v, 0.0, 1.0)) for v in share_ci] if share_ci else None
         ),
-        "driver": share is not None and not noise,
-        "assessment": "driver" if share is not None and not noise else _why_not(share),
+        "driver": driver,
+        "assessment": "driver" if driver else _why_not(share, rho_ci),
     }
 
 
-def _why_not(share: float | None) -> str:
-    return NOISE if share is not None else "no variation (the same total in every member)"
+def _why_not(share: float | None, rho_ci: tuple[float, float] | None) -> str:
+    """Why a key is not ranked: no variation, noise, or a rank correlation only."""
+    if share is None:
+        return "no variation (the same total in every member)"
+    if rho_ci is not None and (rho_ci[0] > 0.0 or rho_ci[1] < 0.0):
+        return MONOTONE_ONLY
+    return NOISE
 
 
 def drivers(
@@ -224,7 +258,8 @@ def drivers(
 ) -> list[dict[str, Any]]:
     """Per varied key: rank correlation and variance share with the total ``volume``, each with
     its bootstrap interval (module notes), ranked: the drivers by share (then |rho|), then the
-    keys not distinguishable from noise, then those without a value. Members whose ``volume``
+    keys with a rank correlation only, those not distinguishable from noise, those without a
+    value. Members whose ``volume``
     is NaN (no value: :mod:`lidmelt.ensemble.kernel`) are left out. ``seed`` and ``salt`` (0 for
     the basin, k for candidate k) seed the resamples."""
     y = np.asarray(volume, float)
@@ -234,7 +269,7 @@ def drivers(
     categorical = [s.distribution == "choice" for s in vary]
     n = len(y)
     varies = n > 2 and float(np.ptp(y)) > 0
-    design = design_matrix(xs, categorical) if varies and xs else None
+    design = design_matrix(xs, categorical, y) if varies and xs else None
     idx = np.random.default_rng([seed, salt, 19]).integers(0, max(n, 1), (REPLICATES, n))
     counts = np.zeros((REPLICATES, n))
     np.add.at(counts, (np.arange(REPLICATES)[:, None], idx), 1.0)
@@ -252,8 +287,10 @@ def drivers(
 
 
 def _importance(item: dict[str, Any]) -> tuple[int, float, float]:
-    """Drivers first (by share, then |rho|), then noise, then keys without a value."""
-    group = 0 if item["driver"] else (1 if item["variance_fraction"] is not None else 2)
+    """Drivers first (by share, then |rho|), then rank correlations only, then noise, then keys
+    without a value."""
+    order = {"driver": 0, MONOTONE_ONLY: 1, NOISE: 2}
+    group = order.get(item["assessment"], 3)
     rho = item["rank_correlation_melt_volume"]
     return (group, -(item["variance_fraction"] or 0.0), -abs(rho or 0.0))
 

@@ -26,6 +26,7 @@ import io
 import math
 from typing import Any
 
+from lidmelt.ensemble.drivers import MONOTONE_ONLY
 from lidmelt.errors import LidmeltError
 from lidmelt.grids.rundir import RunDir
 from lidmelt.products import ensemble as ens
@@ -66,7 +67,9 @@ def _cell(value: Any) -> str:
         return _NOT_RECORDED if value is None else str(value)
     if isinstance(value, float) and not math.isfinite(value):
         return "-"
-    return format_sig(float(value)) if isinstance(value, int | float) else str(value)
+    if isinstance(value, int):  # a count
+        return f"{value:,}"
+    return format_sig(float(value)) if isinstance(value, float) else str(value)
 
 
 def _with_interval(value: Any, interval: Any) -> str:
@@ -113,12 +116,14 @@ def _is_driver(d: dict[str, Any]) -> bool:
 
 def ordered_drivers(drivers: list[Any]) -> list[dict[str, Any]]:
     """The keys ranked: drivers first (largest variance share, then largest |rank
-    correlation|), then the keys not distinguishable from noise, then those without a value."""
+    correlation|), then those with a rank correlation only, those not distinguishable from
+    noise, those without a value."""
 
     def key(d: dict[str, Any]) -> tuple[int, float, float]:
         fraction = _number(d.get("variance_fraction"))
         rho = abs(_number(d.get("rank_correlation_melt_volume")))
-        group = 0 if _is_driver(d) else (1 if math.isfinite(fraction) else 2)
+        group = 0 if _is_driver(d) else (1 if d.get("assessment") == MONOTONE_ONLY else 2)
+        group = group if math.isfinite(fraction) else 3
         return (
             group,
             -(fraction if math.isfinite(fraction) else -math.inf),
@@ -310,7 +315,8 @@ def _drivers_text(entry: dict[str, Any]) -> str:
         "over the members with a value and its first-order variance share (the part of that "
         "volume's variance its own value explains, noise removed), each with a 90 % bootstrap "
         f"interval ({replicates} resamples of the members). Keys whose share interval reaches 0 "
-        "are not distinguishable from sampling noise and are not ranked:"
+        "are not ranked: not distinguishable from sampling noise, or with a rank correlation "
+        "only when its interval does not reach 0:"
     )
 
 
