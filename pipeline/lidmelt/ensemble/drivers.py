@@ -96,15 +96,15 @@ def numeric_column(spec: VarySpec, values: Sequence[Any]) -> np.ndarray:
 
 def spearman(x: np.ndarray, y: np.ndarray) -> float | None:
     """Spearman's rank correlation of x and y; None when either is constant."""
-    rho = _rank_correlations(np.asarray(x, float)[None], np.asarray(y, float)[None])[0]
+    ranks = [rankdata(np.asarray(v, float)[None], axis=1) for v in (x, y)]
+    rho = _rank_correlations(*ranks)[0]
     return None if np.isnan(rho) else float(rho)
 
 
-def _rank_correlations(x: np.ndarray, y: np.ndarray) -> np.ndarray:
-    """Row by row Spearman's rho of (R, N) arrays (NaN where a row is constant)."""
-    rx, ry = rankdata(x, axis=1), rankdata(y, axis=1)
-    rx -= rx.mean(axis=1, keepdims=True)
-    ry -= ry.mean(axis=1, keepdims=True)
+def _rank_correlations(rx: np.ndarray, ry: np.ndarray) -> np.ndarray:
+    """Row by row Pearson correlation of (R, N) ranks: Spearman's rho (NaN where constant)."""
+    rx = rx - rx.mean(axis=1, keepdims=True)
+    ry = ry - ry.mean(axis=1, keepdims=True)
     den = np.sqrt((rx * rx).sum(axis=1) * (ry * ry).sum(axis=1))
     with np.errstate(invalid="ignore", divide="ignore"):
         return np.where(den > 0, (rx * ry).sum(axis=1) / den, np.nan)
@@ -186,7 +186,7 @@ def _shares(design: Design, y: np.ndarray, w: np.ndarray, keys: int) -> np.ndarr
     """
     a = np.column_stack([np.ones(len(y)), design.columns])
     weighted = a.T[None] * w[:, None, :]  # (R, p + 1, N): A' W
-    g = np.linalg.pinv(weighted @ a)
+    g = _inverse(weighted @ a)
     k = (weighted * w[:, None, :]) @ a  # A' W^2 A
     beta = (g @ (weighted @ y)[..., None])[..., 0]  # (R, p + 1)
     cov = g @ k @ g
@@ -209,6 +209,15 @@ def _shares(design: Design, y: np.ndarray, w: np.ndarray, keys: int) -> np.ndarr
         parts[:, d] = var - sigma2 * noise
     with np.errstate(invalid="ignore", divide="ignore"):
         return parts / (parts.sum(axis=1) + sigma2)[:, None]
+
+
+def _inverse(m: np.ndarray) -> np.ndarray:
+    """Inverses of a stack of matrices; the pseudo-inverse where one is singular (a resample
+    without a value of a ``choice`` key leaves its column empty)."""
+    try:
+        return np.linalg.inv(m)
+    except np.linalg.LinAlgError:
+        return np.linalg.pinv(m)
 
 
 def _interval(replicates: np.ndarray) -> tuple[float, float] | None:
@@ -275,11 +284,13 @@ def drivers(
     np.add.at(counts, (np.arange(REPLICATES)[:, None], idx), 1.0)
     shares = first_order_shares(design, y, np.ones((1, n)))[0] if design else None
     reps = first_order_shares(design, y, counts) if design else None
-    y_reps = y[idx] if varies else None
+    y_ranks = rankdata(y[idx], axis=1) if varies else None
     out = []
     for d, spec in enumerate(vary):
         rho = spearman(xs[d], y) if varies else None
-        rho_reps = _rank_correlations(xs[d][idx], y_reps) if rho is not None else None
+        rho_reps = None
+        if rho is not None:
+            rho_reps = _rank_correlations(rankdata(xs[d][idx], axis=1), y_ranks)
         share = None if shares is None or not (design.owner == d).any() else float(shares[d])
         share_reps = reps[:, d] if share is not None else None
         out.append(_record(spec.key, rho, rho_reps, share, share_reps))

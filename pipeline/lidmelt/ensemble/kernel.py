@@ -182,20 +182,23 @@ def _quanta(values: np.ndarray) -> np.ndarray:
     return np.rint(np.nan_to_num(values) / QUANTUM).astype(np.int64)
 
 
-def _member_sums(sums, m: int, out: np.ndarray, area: np.ndarray, cells: list) -> np.ndarray:
-    """Member ``m``'s sums from its kernel rows ``out``; return its cells without a value."""
+def _member_sums(sums, m: int, out: np.ndarray, area: tuple, cells: list) -> np.ndarray:
+    """Member ``m``'s sums from its kernel rows ``out`` (``area``: the cells' areas and their
+    quanta); return its cells without a value."""
+    area, area_quanta = area
     melt = out[_INDEX["melt_thickness_km"]]
     flag = out[-1]
     lacking = (flag != FLAG_NODATA) & np.isnan(melt)
-    bits = flag.astype(np.int64)
     sums["cells_without_value"][m] = lacking.sum()
-    sums["cells_no_onset"][m] = (lacking & ((bits & FLAG_NO_ONSET) > 0)).sum()
-    sums["cells_invalid_input"][m] = (lacking & ((bits & FLAG_INVALID_INPUT) > 0)).sum()
+    if sums["cells_without_value"][m]:
+        bits = flag[lacking].astype(np.int64)
+        sums["cells_no_onset"][m] = ((bits & FLAG_NO_ONSET) > 0).sum()
+        sums["cells_invalid_input"][m] = ((bits & FLAG_INVALID_INPUT) > 0).sum()
     volume = _quanta(melt.astype(np.float64) * area)
     anomaly = out[_INDEX["anomaly_melt_thickness_km"]].astype(np.float64)
     sums["totals"][1, m] = volume.sum()
     sums["totals"][2, m] = _quanta(anomaly * area).sum()
-    sums["totals"][0, m] = _quanta(area)[melt > 0].sum()
+    sums["totals"][0, m] = area_quanta[melt > 0].sum()
     flat_volume, flat_lacking = volume.ravel(), lacking.ravel()
     for k, c in enumerate(cells):  # each candidate's melt volume and cells without a value
         sums["candidate_volume"][k, m] = flat_volume[c].sum()
@@ -239,13 +242,14 @@ def reduce_chunk(
     with_value = np.zeros(shape, np.int64)
     without_value = np.zeros(shape, np.int64)
     has_data = np.zeros(shape, bool)
+    area_quanta = _quanta(area)
     checked: set[int] = set()  # input groups whose blocks were range-checked in this chunk
     for m, (settings, group) in enumerate(zip(plan.settings, plan.groups, strict=True)):
         out = evaluate_chunk(*values[group], settings=settings, check_inputs=group not in checked)
         checked.add(group)
         for b, name in enumerate(BASES):
             stacks[b, m] = out[_INDEX[name]]
-        without_value += _member_sums(sums, m, out, area, cells)
+        without_value += _member_sums(sums, m, out, (area, area_quanta), cells)
         has_data |= out[-1] != FLAG_NODATA
         basis = out[basis_row]
         with_value += np.isfinite(basis)
