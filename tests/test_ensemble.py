@@ -17,9 +17,11 @@ from lidmelt.config import VarySpec
 from lidmelt.engine import run_basin
 from lidmelt.ensemble import ensemble_stages
 from lidmelt.ensemble.kernel import member_percentiles
+from lidmelt.ensemble.missing import key_contrast, missing_summary, missing_warning
 from lidmelt.ensemble.sampling import draw_members, inverse_cdf, unit_samples
 from lidmelt.errors import InputError, WorkflowError
 from lidmelt.physics import EXTRACTION_MIN_MELT_FRACTION, evaluate_cells, get_model, get_table
+from lidmelt.products.screening import ensemble_candidates
 from lidmelt.variables import ensemble_variable, get_variable, parse_ensemble_name
 from lidmelt.workflow import load_workflow
 
@@ -137,17 +139,31 @@ def test_zero_spread_equals_the_single_run(tmp_path):
     totals = run.summary["ensemble"]["totals"]["melt_volume_km3"]
     assert totals["p50"] == pytest.approx(run.summary["statistics"]["melt_volume_km3"], rel=1e-6)
     np.testing.assert_array_equal(read(run, "members_without_value_fraction"), 0.0)
+    # the threshold counts: a member whose melt equals T (its float32 value, every cell alike
+    # beneath a constant lid) reaches it
+    exact = float(melt[0, 0])
+    assert np.all(melt == melt[0, 0])
+    again = run_ensemble(
+        tmp_path, "exact", vary='"model.ambient_potential_temperature_c" = {normal = [1400.0, 0]}',
+        members=2, threshold=exact, extra=["model.ambient_potential_temperature_c=1400"],
+    )  # fmt: skip
+    (name,) = [n for n in again.summary["ensemble"]["outputs"] if n.startswith("melt_prob")]
+    assert np.all(read(again, name) == 1.0)
 
 
-@pytest.mark.parametrize(("lid", "expected"), [(10.0, 1.0), (200.0, 0.0)])
-def test_far_from_threshold_probability_is_0_or_1(tmp_path, lid, expected):
+@pytest.mark.parametrize(
+    ("lid", "basis", "expected"),
+    [(10.0, "total", 1.0), (200.0, "total", 0.0), (10.0, "anomaly", 0.0)],
+)
+def test_far_from_threshold_probability_is_0_or_1(tmp_path, lid, basis, expected):
     # a 10 km lid melts (far more than 0.5 km) for any Tp in 1300-1400 C and a 200 km lid not at
-    # all (the column below the lid starts beneath the onset: excess_to_melt_k > 50 K)
+    # all (the column below the lid starts beneath the onset: excess_to_melt_k > 50 K); without
+    # a thermal anomaly the anomaly adds nothing, however much ambient mantle melts
     assert katz_cells([1300.0], 10.0)["melt_thickness_km"][0] > 2.0
     assert katz_cells([1400.0], 200.0)["excess_to_melt_k"][0] > 50.0
     vary = '"model.ambient_potential_temperature_c" = {uniform = [1300.0, 1400.0]}'
-    run = run_ensemble(tmp_path, f"far{lid:g}", vary=vary, lid=lid, members=10)
-    assert np.all(read(run, "melt_probability_total_ge_0.5km") == expected)
+    run = run_ensemble(tmp_path, f"far{lid:g}{basis}", vary=vary, lid=lid, members=10, basis=basis)
+    assert np.all(read(run, f"melt_probability_{basis}_ge_0.5km") == expected)
 
 
 def test_probability_equals_fraction_of_anomaly_interval_that_adds_the_threshold(tmp_path):
@@ -214,6 +230,39 @@ def test_percentile_maps_equal_an_independent_computation(tmp_path):
         assert totals[f"p{q}"] == pytest.approx(
             np.percentile(volume, q, method="linear"), rel=1e-12
         )
+
+
+def test_the_warning_names_the_values_that_set_the_members_apart():
+    """Members without a value are those with b > 0.8: b sets them apart (the Mann-Whitney
+    statistic U / (n1 n0) = 1, Mann & Whitney 1947: every affected value exceeds every other),
+    the other keys do not (a Latin hypercube draws them independently of b)."""
+    vary = [
+        VarySpec(key="a", distribution="uniform", parameters=(0.0, 1.0)),
+        VarySpec(key="b", distribution="uniform", parameters=(0.0, 1.0)),
+        VarySpec(key="c", distribution="choice", parameters=("x", "y")),
+    ]
+    samples = draw_members(vary, 40, seed=3, sampling="latin_hypercube")
+    b = np.array([row[1] for row in samples])
+    affected = b > 0.8
+    named = key_contrast(vary, samples, affected)
+    low, high = b[affected].min(), b[affected].max()
+    assert named == [
+        f"b from {low:.6g} to {high:.6g} (the others {b[~affected].min():.6g} to "
+        f"{b[~affected].max():.6g})"
+    ]
+    sums = {
+        "cells_without_value": np.where(affected, 3, 0),
+        "cells_no_onset": np.where(affected, 3, 0),
+        "cells_invalid_input": np.zeros(40, np.int64),
+    }
+    entry = missing_summary(vary, samples, sums)
+    assert entry["members"] == affected.sum()
+    assert entry["member_numbers"] == [int(k) + 1 for k in np.flatnonzero(affected)]
+    text = missing_warning(entry, 40)
+    assert text.startswith(f"{affected.sum()} of 40 ensemble members")
+    assert named[0] in text
+    few = {**sums, "cells_without_value": np.where(np.arange(40) < 2, 1, 0)}  # 5 %: no warning
+    assert missing_warning(missing_summary(vary, samples, few), 40) is None
 
 
 DEMO_VARY = """
@@ -310,8 +359,9 @@ def test_members_without_an_onset_are_counted_not_zero(tmp_path):
     wf = tmp_path / "hot.toml"
     wf.write_text(NO_ONSET)
     cfg = load_workflow(wf, output_dir=tmp_path / "hot")
+    stages = ensemble_stages(cfg, announce=False, candidates=ensemble_candidates)
     with pytest.warns(UserWarning, match=r"ambient_potential_temperature_c from 14"):
-        run = run_basin(cfg, progress=False, extra_stages=ensemble_stages(cfg, announce=False))
+        run = run_basin(cfg, progress=False, extra_stages=stages)
     entry = run.summary["ensemble"]
     members = pd.read_csv(run.run_dir / "ensemble_members.csv")
     tp = members["model.ambient_potential_temperature_c"].to_numpy()
@@ -327,6 +377,12 @@ def test_members_without_an_onset_are_counted_not_zero(tmp_path):
     (tp_driver,) = entry["drivers"]
     assert tp_driver["rank_correlation_melt_volume"] > 0.9
     assert tp_driver["rank_correlation_interval"][0] > 0
+    (whole,) = entry["candidates"]["list"]  # the 400 K anomaly adds melt everywhere: one region
+    assert whole["members_without_value"] == hot.sum()
+    assert whole["members_melt_volume_km3"]["members"] == (~hot).sum()
+    assert members.loc[hot, "candidate_1_melt_volume_km3"].isna().all()
+    assert (members.loc[hot, "candidate_1_cells_without_value"] == 25).all()
+    assert whole["drivers"][0]["rank_correlation_melt_volume"] > 0.9
     share = read(run, "members_without_value_fraction")
     assert np.all(share == np.float32(hot.sum() / len(members)))
     p50 = read(run, "melt_thickness_km_p50")  # over the members with a value only
@@ -387,6 +443,34 @@ def test_bad_vary_tables_are_refused(tmp_path, vary, match):
     )
     with pytest.raises(WorkflowError, match=match):
         load_workflow(wf)
+
+
+@pytest.mark.parametrize(
+    ("override", "match"),
+    [
+        ('ensemble.probability_basis="deep"', "'deep', which is not known"),
+        ("ensemble.thresholds_km=[]", "is empty; list at least one melt thickness"),
+        ("ensemble.thresholds_km=[0.0]", "outside"),
+    ],
+)
+def test_bad_probability_keys_are_refused(tmp_path, override, match):
+    wf = tmp_path / "bad.toml"
+    wf.write_text(BASE.format(lid=60.0, chunk=64, workers=1, members=4, vary=DEMO_VARY,
+                              basis="anomaly", threshold=1.0))  # fmt: skip
+    with pytest.raises(WorkflowError, match=match):
+        load_workflow(wf, overrides=[override])
+
+
+def test_the_probability_threshold_defaults_to_the_candidates(tmp_path):
+    # one melt for the candidates and the probability (docs/workflow.md, [ensemble])
+    text = BASE.format(lid=60.0, chunk=64, workers=1, members=4, vary=DEMO_VARY, basis="anomaly",
+                       threshold=1.0).replace("thresholds_km = [1.0]\n", "")  # fmt: skip
+    assert "thresholds_km" not in text
+    wf = tmp_path / "default.toml"
+    wf.write_text(text)
+    cfg = load_workflow(wf, overrides=["ensemble.candidate_min_melt_km=2.5"])
+    assert cfg.ensemble.thresholds_km == (2.5,)
+    assert cfg.ensemble.probability_basis == "anomaly"
 
 
 def test_registry_knows_the_ensemble_outputs():

@@ -626,6 +626,20 @@ def test_an_ensemble_run_lists_its_layers_as_outputs(tmp_path):
     assert "melt_thickness_km_p50" not in mapped
 
 
+def test_captions_write_ordinals_in_english():
+    """'2nd and 98th', not '2th' (the excess to melt has limits at those percentiles)."""
+    from lidmelt.products.maps.captions import map_caption
+
+    style = style_for("excess_to_melt_k")
+    assert style.percentiles == (2.0, 98.0)
+    text = map_caption({}, style=style, no_melt=False, extend="neither", proj_name="Mercator",
+                       age=False, coast_path=None)  # fmt: skip
+    assert "from the 2nd and 98th percentiles" in text
+    melt = map_caption({}, style=style_for("melt_thickness_km"), no_melt=True, extend="neither",
+                       proj_name="Mercator", age=False, coast_path=None)  # fmt: skip
+    assert "to the 99.5th percentile" in melt
+
+
 def test_an_ensemble_layer_is_captioned_as_an_ensemble():
     """An ensemble map says how many members were drawn, how, and what was varied; the run's
     own lid, water and ambient Tp are named as the workflow's, not every member's (values of
