@@ -230,7 +230,7 @@ def _interval(replicates: np.ndarray) -> tuple[float, float] | None:
     return float(low), float(high)
 
 
-def _record(key: str, rho, rho_reps, share, share_reps) -> dict[str, Any]:
+def _record(key: str, rho, rho_reps, share, share_reps, reason: str) -> dict[str, Any]:
     """One key's driver record (module notes; shares and their interval clipped to 0..1)."""
     rho_ci = _interval(rho_reps) if rho is not None else None
     share_ci = _interval(share_reps) if share is not None else None
@@ -244,14 +244,14 @@ def _record(key: str, rho, rho_reps, share, share_reps) -> dict[str, Any]:
             [float(np.clip(v, 0.0, 1.0)) for v in share_ci] if share_ci else None
         ),
         "driver": driver,
-        "assessment": "driver" if driver else _why_not(share, rho_ci),
+        "assessment": "driver" if driver else _why_not(share, rho_ci, reason),
     }
 
 
-def _why_not(share: float | None, rho_ci: tuple[float, float] | None) -> str:
-    """Why a key is not ranked: no variation, noise, or a rank correlation only."""
+def _why_not(share: float | None, rho_ci: tuple[float, float] | None, reason: str) -> str:
+    """Why a key is not ranked: ``reason`` (no share), noise, or a rank correlation only."""
     if share is None:
-        return "no variation (the same total in every member)"
+        return reason
     if rho_ci is not None and (rho_ci[0] > 0.0 or rho_ci[1] < 0.0):
         return MONOTONE_ONLY
     return NOISE
@@ -268,9 +268,8 @@ def drivers(
     """Per varied key: rank correlation and variance share with the total ``volume``, each with
     its bootstrap interval (module notes), ranked: the drivers by share (then |rho|), then the
     keys with a rank correlation only, those not distinguishable from noise, those without a
-    value. Members whose ``volume``
-    is NaN (no value: :mod:`lidmelt.ensemble.kernel`) are left out. ``seed`` and ``salt`` (0 for
-    the basin, k for candidate k) seed the resamples."""
+    share. Members whose ``volume`` is NaN (no value: :mod:`lidmelt.ensemble.kernel`) are left
+    out. ``seed`` and ``salt`` (0 for the basin, k for candidate k) seed the resamples."""
     y = np.asarray(volume, float)
     keep = np.isfinite(y)
     y = y[keep]
@@ -285,6 +284,7 @@ def drivers(
     shares = first_order_shares(design, y, np.ones((1, n)))[0] if design else None
     reps = first_order_shares(design, y, counts) if design else None
     y_ranks = rankdata(y[idx], axis=1) if varies else None
+    reason = _no_share(n, varies, design is not None)
     out = []
     for d, spec in enumerate(vary):
         rho = spearman(xs[d], y) if varies else None
@@ -293,8 +293,18 @@ def drivers(
             rho_reps = _rank_correlations(rankdata(xs[d][idx], axis=1), y_ranks)
         share = None if shares is None or not (design.owner == d).any() else float(shares[d])
         share_reps = reps[:, d] if share is not None else None
-        out.append(_record(spec.key, rho, rho_reps, share, share_reps))
+        why = reason if shares is None else "the key has one value among these members"
+        out.append(_record(spec.key, rho, rho_reps, share, share_reps, why))
     return sorted(out, key=_importance)
+
+
+def _no_share(n: int, varies: bool, fitted: bool) -> str:
+    """Why no key has a share (when none has)."""
+    if n < 3:
+        return f"too few members with a value ({n})"
+    if not varies:
+        return "no variation (the same total in every member)"
+    return "" if fitted else f"too few members ({n}) for the additive model of every key"
 
 
 def _importance(item: dict[str, Any]) -> tuple[int, float, float]:
