@@ -1,4 +1,5 @@
-"""Ensembles: sampling, reductions, probabilities against the analytic onset, reproducibility.
+"""Ensembles: sampling, reductions, probabilities against closed forms, members without a
+value, reproducibility.
 
 Check values name their sources beside them.
 """
@@ -6,19 +7,22 @@ Check values name their sources beside them.
 import json
 
 import numpy as np
+import pandas as pd
 import pytest
 import rasterio
+from scipy.optimize import brentq
 from scipy.stats import chi2
 
 from lidmelt.config import VarySpec
 from lidmelt.engine import run_basin
 from lidmelt.ensemble import ensemble_stages
-from lidmelt.ensemble.drivers import spearman, variance_fraction
-from lidmelt.ensemble.kernel import order_statistics
+from lidmelt.ensemble.kernel import member_percentiles
+from lidmelt.ensemble.missing import key_contrast, missing_summary, missing_warning
 from lidmelt.ensemble.sampling import draw_members, inverse_cdf, unit_samples
-from lidmelt.errors import WorkflowError
-from lidmelt.physics.evaluate import excess_to_melt_k
-from lidmelt.variables import ensemble_variable, get_variable
+from lidmelt.errors import InputError, WorkflowError
+from lidmelt.physics import EXTRACTION_MIN_MELT_FRACTION, evaluate_cells, get_model, get_table
+from lidmelt.products.screening import ensemble_candidates
+from lidmelt.variables import ensemble_variable, get_variable, parse_ensemble_name
 from lidmelt.workflow import load_workflow
 
 BASE = """
@@ -35,18 +39,35 @@ workers = {workers}
 [ensemble]
 members = {members}
 seed = 7
-thresholds_km = [0.5]
+probability_basis = "{basis}"
+thresholds_km = [{threshold}]
 [ensemble.vary]
 {vary}
 """
 
 
-def run_ensemble(tmp_path, name, *, vary, lid=60.0, chunk=64, workers=1, members=20, extra=()):
+def run_ensemble(
+    tmp_path, name, *, vary, lid=60.0, chunk=64, workers=1, members=20, extra=(),
+    basis="total", threshold=0.5,
+):  # fmt: skip
     wf = tmp_path / f"{name}.toml"
-    text = BASE.format(lid=lid, chunk=chunk, workers=workers, members=members, vary=vary)
+    text = BASE.format(
+        lid=lid, chunk=chunk, workers=workers, members=members, vary=vary, basis=basis,
+        threshold=threshold,
+    )  # fmt: skip
     wf.write_text(text)
     cfg = load_workflow(wf, overrides=extra, output_dir=tmp_path / name)
     return run_basin(cfg, progress=False, extra_stages=ensemble_stages(cfg, announce=False))
+
+
+def katz_cells(tp, lid, water=0.0, ambient=1350.0):
+    """Every output of cells (Katz et al. 2003 by its table, as the runs evaluate them)."""
+    model = get_model("katz2003")
+    tp = np.atleast_1d(np.asarray(tp, float))
+    return evaluate_cells(
+        tp, np.full(tp.shape, lid), water, ambient_potential_temperature_c=ambient,
+        model=model, table=get_table(model), min_top_km=7.0,
+    )  # fmt: skip
 
 
 def read(run, name):
@@ -90,20 +111,13 @@ def test_draws_are_deterministic_for_a_seed():
     assert a != draw_members(vary, 10, seed=6, sampling="latin_hypercube")
 
 
-def test_order_statistics_are_empirical_quantiles():
-    # rank ceil(qN/100) of the sorted values (Hyndman & Fan 1996, definition 1)
+def test_percentiles_interpolate_between_order_statistics():
+    # Hyndman & Fan (1996) definition 7: h = (N - 1) q / 100, x_floor(h) + frac(h) (x_next -
+    # x_floor(h)); for the sorted values 1..5 (N = 5 finite): p10 h = 0.4 -> 1.4, p50 h = 2 -> 3,
+    # p90 h = 3.6 -> 4.6, p100 -> 5, p0 -> 1 (worked by hand from the definition)
     values = np.array([5.0, 1.0, 4.0, 2.0, 3.0, np.nan])[:, None]
-    got = order_statistics(values, [10, 50, 90, 100])[:, 0]
-    assert got.tolist() == [1.0, 3.0, 5.0, 5.0]  # N = 5 finite: ranks 1, 3, 5, 5
-
-
-def test_drivers_estimators():
-    x = np.arange(100.0)
-    # identity: a monotone function has rank correlation 1 and explains all variance in bins
-    assert spearman(x, x**3) == pytest.approx(1.0)
-    assert variance_fraction(x, x**3) > 0.9
-    noise = np.random.default_rng(0).random(100)
-    assert variance_fraction(noise, x) < 0.3  # unrelated: only the (B-1)/N bias (B = 10)
+    got = member_percentiles(values, [0, 10, 50, 90, 100])[:, 0]
+    np.testing.assert_allclose(got, [1.0, 1.4, 3.0, 4.6, 5.0], rtol=1e-15)
 
 
 def test_zero_spread_equals_the_single_run(tmp_path):
@@ -115,49 +129,140 @@ def test_zero_spread_equals_the_single_run(tmp_path):
         single = read(run, base)
         for q in (10, 50, 90):
             np.testing.assert_array_equal(read(run, f"{base}_p{q}"), single)  # identity
-    expected = (read(run, "melt_thickness_km") > 0).astype(np.float32)
-    np.testing.assert_array_equal(read(run, "melt_probability"), expected)
+    # identity: every member is the run itself, so the probability is 1 where the run's melt
+    # reaches the threshold with a melt fraction at the top of at least the extraction minimum
+    melt, top = read(run, "melt_thickness_km"), read(run, "max_melt_fraction")
+    expected = (melt >= np.float32(0.5)) & (top >= np.float32(EXTRACTION_MIN_MELT_FRACTION))
+    got = read(run, "melt_probability_total_ge_0.5km")
+    np.testing.assert_array_equal(got, expected.astype(np.float32))
+    assert got.max() == 1.0  # the lid of 60 km melts at Tp 1400 C
     totals = run.summary["ensemble"]["totals"]["melt_volume_km3"]
     assert totals["p50"] == pytest.approx(run.summary["statistics"]["melt_volume_km3"], rel=1e-6)
+    np.testing.assert_array_equal(read(run, "members_without_value_fraction"), 0.0)
+    # the threshold counts: a member whose melt equals T (its float32 value, every cell alike
+    # beneath a constant lid) reaches it
+    exact = float(melt[0, 0])
+    assert np.all(melt == melt[0, 0])
+    again = run_ensemble(
+        tmp_path, "exact", vary='"model.ambient_potential_temperature_c" = {normal = [1400.0, 0]}',
+        members=2, threshold=exact, extra=["model.ambient_potential_temperature_c=1400"],
+    )  # fmt: skip
+    (name,) = [n for n in again.summary["ensemble"]["outputs"] if n.startswith("melt_prob")]
+    assert np.all(read(again, name) == 1.0)
 
 
-@pytest.mark.parametrize(("lid", "expected"), [(10.0, 1.0), (200.0, 0.0)])
-def test_far_from_threshold_probability_is_0_or_1(tmp_path, lid, expected):
-    # a 10 km lid melts for any Tp in 1300-1400 C and a 200 km lid for none (excess_to_melt_k)
+@pytest.mark.parametrize(
+    ("lid", "basis", "expected"),
+    [(10.0, "total", 1.0), (200.0, "total", 0.0), (10.0, "anomaly", 0.0)],
+)
+def test_far_from_threshold_probability_is_0_or_1(tmp_path, lid, basis, expected):
+    # a 10 km lid melts (far more than 0.5 km) for any Tp in 1300-1400 C and a 200 km lid not at
+    # all (the column below the lid starts beneath the onset: excess_to_melt_k > 50 K); without
+    # a thermal anomaly the anomaly adds nothing, however much ambient mantle melts
+    assert katz_cells([1300.0], 10.0)["melt_thickness_km"][0] > 2.0
+    assert katz_cells([1400.0], 200.0)["excess_to_melt_k"][0] > 50.0
     vary = '"model.ambient_potential_temperature_c" = {uniform = [1300.0, 1400.0]}'
-    run = run_ensemble(tmp_path, f"far{lid:g}", vary=vary, lid=lid, members=10)
-    assert np.all(read(run, "melt_probability") == expected)
+    run = run_ensemble(tmp_path, f"far{lid:g}{basis}", vary=vary, lid=lid, members=10, basis=basis)
+    assert np.all(read(run, f"melt_probability_{basis}_ge_0.5km") == expected)
 
 
-def test_probability_equals_fraction_of_tp_interval_above_onset(tmp_path):
-    # analytic: melting begins at Tp* = 1350 + excess_to_melt_k(lid) (lidmelt's definition of the
-    # onset beneath a lid, physics.evaluate); with Tp uniform on [a, b] the probability is
-    # (b - Tp*) / (b - a), and a Latin hypercube of N members hits it within 1/N
-    lid, members = 60.0, 40
-    tp_star = 1350.0 + float(excess_to_melt_k(lid, 0.0, ambient_potential_temperature_c=1350.0))
-    a, b = tp_star - 30.0, tp_star + 10.0
-    vary = f'"model.ambient_potential_temperature_c" = {{uniform = [{a!r}, {b!r}]}}'
-    run = run_ensemble(tmp_path, "onset", vary=vary, lid=lid, members=members)
-    prob = read(run, "melt_probability")
+def test_probability_equals_fraction_of_anomaly_interval_that_adds_the_threshold(tmp_path):
+    """Held-out closed form, on the default basis: beneath a 90 km lid ambient mantle (1350 C)
+    does not melt, so the melt the anomaly adds is the column's melt H(1350 + A), which grows
+    with A. With the anomaly A uniform on [a, b] the probability that it adds >= T is
+    (b - A*) / (b - a), A* the root of H(1350 + A) = T (found by root finding on the kernel,
+    where the melt fraction at the top is well above the extraction minimum); a Latin
+    hypercube of N members hits it within 1/N (one member per stratum)."""
+    lid, members, threshold = 90.0, 40, 1.0
+    assert katz_cells([1350.0], lid)["melt_thickness_km"][0] == 0.0
+
+    def added(anomaly):
+        return float(katz_cells([1350.0 + anomaly], lid)["melt_thickness_km"][0]) - threshold
+
+    a_star = brentq(added, 0.0, 300.0, xtol=1e-6)
+    top = katz_cells([1350.0 + a_star], lid)["max_melt_fraction"][0]
+    assert top > 2 * EXTRACTION_MIN_MELT_FRACTION
+    a, b = a_star - 30.0, a_star + 10.0
+    vary = f'"inputs.thermal_anomaly.constant" = {{uniform = [{a!r}, {b!r}]}}'
+    run = run_ensemble(
+        tmp_path, "onset", vary=vary, lid=lid, members=members, basis="anomaly",
+        threshold=threshold, extra=["inputs.thermal_anomaly.constant=0.0"],
+    )  # fmt: skip
+    prob = read(run, "melt_probability_anomaly_ge_1km")
     assert np.all(prob == prob.flat[0])
     assert abs(float(prob.flat[0]) - 0.25) <= 1.0 / members
 
 
-def test_percentiles_of_monotonic_output_are_output_at_input_percentiles(tmp_path):
-    # melt thickness grows with Tp, so its order statistics are those of Tp (order-preserving)
+def test_a_column_below_the_extraction_minimum_does_not_count(tmp_path):
+    """Two Tp beneath a 60 km lid: one whose melt fraction at the top is half the extraction
+    minimum, one with twice it (roots found on the kernel). Both melt more than the threshold
+    (1 m); only the second counts (the definition, lidmelt.ensemble.kernel)."""
+    lid = 60.0
+
+    def top(tp, target):
+        return float(katz_cells([tp], lid)["max_melt_fraction"][0]) - target
+
+    for share, expected in ((0.5, 0.0), (2.0, 1.0)):
+        tp = brentq(top, 1250.0, 1450.0, args=(share * EXTRACTION_MIN_MELT_FRACTION,), xtol=1e-6)
+        assert katz_cells([tp], lid)["melt_thickness_km"][0] > 0.001
+        run = run_ensemble(
+            tmp_path, f"fmin{share:g}", lid=lid, members=3, threshold=0.001,
+            vary=f'"model.ambient_potential_temperature_c" = {{normal = [{tp!r}, 0]}}',
+            extra=[f"model.ambient_potential_temperature_c={tp!r}"],
+        )  # fmt: skip
+        assert np.all(read(run, "melt_probability_total_ge_0.001km") == expected)
+
+
+def test_percentile_maps_equal_an_independent_computation(tmp_path):
+    """Each cell's percentile is numpy's "linear" percentile (Hyndman & Fan definition 7) of the
+    members' melt thickness, each member evaluated here from its Tp (ensemble_members.csv)."""
     vary = '"model.ambient_potential_temperature_c" = {uniform = [1330.0, 1420.0]}'
     run = run_ensemble(tmp_path, "mono", vary=vary, lid=40.0, members=11)
-    lines = (run.run_dir / "ensemble_members.csv").read_text().splitlines()
-    tps = np.array([float(line.split(",")[1]) for line in lines[1:]])
+    members = pd.read_csv(run.run_dir / "ensemble_members.csv")
+    tps = members["model.ambient_potential_temperature_c"].to_numpy()
+    melt = katz_cells(tps, 40.0)["melt_thickness_km"].astype(np.float32)
     for q in (10, 50, 90):
-        tp_q = float(order_statistics(tps[:, None], [q])[0, 0])
-        single = run_ensemble(
-            tmp_path, f"single{q}", vary=vary, lid=40.0, members=2,
-            extra=[f"model.ambient_potential_temperature_c={tp_q!r}"],
-        )  # fmt: skip
-        np.testing.assert_array_equal(
-            read(run, f"melt_thickness_km_p{q}"), read(single, "melt_thickness_km")
+        expected = np.float32(np.percentile(melt.astype(np.float64), q, method="linear"))
+        np.testing.assert_allclose(read(run, f"melt_thickness_km_p{q}"), expected, rtol=2e-7)
+    totals = run.summary["ensemble"]["totals"]["melt_volume_km3"]
+    volume = members["melt_volume_km3"].to_numpy()
+    for q in (10, 50, 90):  # the totals: the same definition
+        assert totals[f"p{q}"] == pytest.approx(
+            np.percentile(volume, q, method="linear"), rel=1e-12
         )
+
+
+def test_the_warning_names_the_values_that_set_the_members_apart():
+    """Members without a value are those with b > 0.8: b sets them apart (the Mann-Whitney
+    statistic U / (n1 n0) = 1, Mann & Whitney 1947: every affected value exceeds every other),
+    the other keys do not (a Latin hypercube draws them independently of b)."""
+    vary = [
+        VarySpec(key="a", distribution="uniform", parameters=(0.0, 1.0)),
+        VarySpec(key="b", distribution="uniform", parameters=(0.0, 1.0)),
+        VarySpec(key="c", distribution="choice", parameters=("x", "y")),
+    ]
+    samples = draw_members(vary, 40, seed=3, sampling="latin_hypercube")
+    b = np.array([row[1] for row in samples])
+    affected = b > 0.8
+    named = key_contrast(vary, samples, affected)
+    low, high = b[affected].min(), b[affected].max()
+    assert named == [
+        f"b from {low:.6g} to {high:.6g} (the others {b[~affected].min():.6g} to "
+        f"{b[~affected].max():.6g})"
+    ]
+    sums = {
+        "cells_without_value": np.where(affected, 3, 0),
+        "cells_no_onset": np.where(affected, 3, 0),
+        "cells_invalid_input": np.zeros(40, np.int64),
+    }
+    entry = missing_summary(vary, samples, sums)
+    assert entry["members"] == affected.sum()
+    assert entry["member_numbers"] == [int(k) + 1 for k in np.flatnonzero(affected)]
+    text = missing_warning(entry, 40)
+    assert text.startswith(f"{affected.sum()} of 40 ensemble members")
+    assert named[0] in text
+    few = {**sums, "cells_without_value": np.where(np.arange(40) < 2, 1, 0)}  # 5 %: no warning
+    assert missing_warning(missing_summary(vary, samples, few), 40) is None
 
 
 DEMO_VARY = """
@@ -206,16 +311,86 @@ def test_members_csv_and_summary(tmp_path):
     assert summary["members"] == 6
     assert summary["sampling"] == "latin_hypercube"
     assert summary["tables_built"] == 1  # Tp, lid and water change no model parameter
-    assert set(summary["totals"]["melt_volume_km3"]) == {"p10", "p50", "p90", "mean"}
+    assert summary["probability"]["basis"] == "total"
+    assert summary["probability"]["outputs"] == ["melt_probability_total_ge_0.5km"]
+    assert summary["probability"]["min_melt_fraction"] == EXTRACTION_MIN_MELT_FRACTION
+    assert set(summary["totals"]["melt_volume_km3"]) == {"p10", "p50", "p90", "mean", "members"}
+    assert summary["members_without_value"]["members"] == 0
     assert [d["key"] for d in summary["drivers"]].count("lithosphere.cooling") == 1
     head = (run.run_dir / "ensemble_members.csv").read_text().splitlines()[0].split(",")
     assert head[0] == "member"
-    assert head[-3:] == [
+    assert head[-4:] == [
         "melting_area_km2",
         "melt_volume_km3",
         "anomaly_melt_volume_km3",
+        "cells_without_value",
     ]
     assert len((run.run_dir / "ensemble_members.csv").read_text().splitlines()) == 7
+
+
+NO_ONSET = """
+[run]
+name = "hot"
+[grid]
+extent = [0.0, 0.5, 0.0, 0.5]
+resolution = 0.1
+[inputs.lid_thickness]
+constant = 80.0
+[inputs.thermal_anomaly]
+constant = 400.0
+[model]
+name = "mckenzie-bickle1988"
+[compute]
+chunk_size = 64
+[ensemble]
+members = 20
+seed = 1
+[ensemble.vary]
+"model.ambient_potential_temperature_c" = { uniform = [1300.0, 1500.0] }
+"""
+
+
+def test_members_without_an_onset_are_counted_not_zero(tmp_path):
+    """McKenzie & Bickle, an 80 km lid, a 400 K anomaly, ambient Tp uniform 1300-1500 C: the
+    hottest columns find no solidus crossing within the model's pressure range
+    (lidmelt.physics: no onset, NaN). Such members are counted and left out of the totals and
+    drivers, never taken as zero: the volume grows with Tp (hotter mantle melts more:
+    McKenzie & Bickle 1988), so Tp's rank correlation with it is positive."""
+    wf = tmp_path / "hot.toml"
+    wf.write_text(NO_ONSET)
+    cfg = load_workflow(wf, output_dir=tmp_path / "hot")
+    stages = ensemble_stages(cfg, announce=False, candidates=ensemble_candidates)
+    with pytest.warns(UserWarning, match=r"ambient_potential_temperature_c from 14"):
+        run = run_basin(cfg, progress=False, extra_stages=stages)
+    entry = run.summary["ensemble"]
+    members = pd.read_csv(run.run_dir / "ensemble_members.csv")
+    tp = members["model.ambient_potential_temperature_c"].to_numpy()
+    hot = members["cells_without_value"].to_numpy() > 0
+    assert 0 < hot.sum() < len(members)
+    assert tp[hot].min() > tp[~hot].max()  # the hottest members, as the warning names
+    assert members.loc[hot, "melt_volume_km3"].isna().all()
+    assert (members.loc[hot, "cells_without_value"] == 25).all()  # every cell of the grid
+    assert entry["members_without_value"]["members"] == hot.sum()
+    assert entry["members_without_value"]["member_cells_no_solidus_crossing"] == 25 * hot.sum()
+    assert entry["totals"]["melt_volume_km3"]["members"] == (~hot).sum()
+    assert any("20 ensemble members" in w for w in run.summary["warnings"])
+    (tp_driver,) = entry["drivers"]
+    assert tp_driver["rank_correlation_melt_volume"] > 0.9
+    assert tp_driver["rank_correlation_interval"][0] > 0
+    (whole,) = entry["candidates"]["list"]  # the 400 K anomaly adds melt everywhere: one region
+    assert whole["members_without_value"] == hot.sum()
+    assert whole["members_melt_volume_km3"]["members"] == (~hot).sum()
+    assert members.loc[hot, "candidate_1_melt_volume_km3"].isna().all()
+    assert (members.loc[hot, "candidate_1_cells_without_value"] == 25).all()
+    assert whole["drivers"][0]["rank_correlation_melt_volume"] > 0.9
+    share = read(run, "members_without_value_fraction")
+    assert np.all(share == np.float32(hot.sum() / len(members)))
+    p50 = read(run, "melt_thickness_km_p50")  # over the members with a value only
+    expected = np.percentile(members.loc[~hot, "melt_volume_km3"], 50, method="linear")
+    area = run.summary["statistics"]["melt_volume_km3"] / float(
+        read(run, "melt_thickness_km")[0, 0]
+    )
+    assert float(np.nanmean(p50)) * area == pytest.approx(expected, rel=1e-4)
 
 
 @pytest.mark.slow
@@ -227,7 +402,17 @@ def test_distinct_model_parameters_build_one_table_each(tmp_path):
 
 def test_memory_limit_refuses_what_will_not_fit(tmp_path):
     wf = tmp_path / "big.toml"
-    wf.write_text(BASE.format(lid=60.0, chunk=2048, workers=2, members=500, vary=DEMO_VARY))
+    wf.write_text(
+        BASE.format(
+            lid=60.0,
+            chunk=2048,
+            workers=2,
+            members=500,
+            vary=DEMO_VARY,
+            basis="anomaly",
+            threshold=1.0,
+        )
+    )
     cfg = load_workflow(wf)
     with pytest.raises(WorkflowError, match="memory_limit_gb"):
         ensemble_stages(cfg, announce=False)
@@ -251,40 +436,81 @@ def test_memory_limit_refuses_what_will_not_fit(tmp_path):
 )
 def test_bad_vary_tables_are_refused(tmp_path, vary, match):
     wf = tmp_path / "bad.toml"
-    wf.write_text(BASE.format(lid=60.0, chunk=64, workers=1, members=20, vary=vary))
+    wf.write_text(
+        BASE.format(
+            lid=60.0, chunk=64, workers=1, members=20, vary=vary, basis="anomaly", threshold=1.0
+        )
+    )
     with pytest.raises(WorkflowError, match=match):
         load_workflow(wf)
 
 
+@pytest.mark.parametrize(
+    ("override", "match"),
+    [
+        ('ensemble.probability_basis="deep"', "'deep', which is not known"),
+        ("ensemble.thresholds_km=[]", "is empty; list at least one melt thickness"),
+        ("ensemble.thresholds_km=[0.0]", "outside"),
+    ],
+)
+def test_bad_probability_keys_are_refused(tmp_path, override, match):
+    wf = tmp_path / "bad.toml"
+    wf.write_text(BASE.format(lid=60.0, chunk=64, workers=1, members=4, vary=DEMO_VARY,
+                              basis="anomaly", threshold=1.0))  # fmt: skip
+    with pytest.raises(WorkflowError, match=match):
+        load_workflow(wf, overrides=[override])
+
+
+def test_the_probability_threshold_defaults_to_the_candidates(tmp_path):
+    # one melt for the candidates and the probability (docs/workflow.md, [ensemble])
+    text = BASE.format(lid=60.0, chunk=64, workers=1, members=4, vary=DEMO_VARY, basis="anomaly",
+                       threshold=1.0).replace("thresholds_km = [1.0]\n", "")  # fmt: skip
+    assert "thresholds_km" not in text
+    wf = tmp_path / "default.toml"
+    wf.write_text(text)
+    cfg = load_workflow(wf, overrides=["ensemble.candidate_min_melt_km=2.5"])
+    assert cfg.ensemble.thresholds_km == (2.5,)
+    assert cfg.ensemble.probability_basis == "anomaly"
+
+
 def test_registry_knows_the_ensemble_outputs():
-    assert get_variable("melt_probability").units == "1"
-    assert get_variable("melt_probability").style == "probability"
-    assert ensemble_variable("melt_probability_ge_0.5km").units == "1"
+    p = get_variable("melt_probability_anomaly_ge_1km")
+    assert (p.units, p.style) == ("1", "probability")
+    assert p.long_name == "probability that the melt the thermal anomaly adds is at least 1 km"
+    total = ensemble_variable("melt_probability_total_ge_0.5km")
+    assert total.long_name == "probability that the melt thickness is at least 0.5 km"
+    parsed = parse_ensemble_name("melt_probability_total_ge_0.5km")
+    assert (parsed.basis, parsed.base, parsed.threshold_km) == ("total", "melt_thickness_km", 0.5)
+    assert ensemble_variable("melt_probability_deep_ge_1km") is None  # no such basis
     p90 = get_variable("melt_thickness_km_p90")
     assert p90.units == "km"
     assert p90.style == "melt"
     assert p90.long_name == "melt thickness, 90th percentile of the ensemble"
-    assert ensemble_variable("onset_depth_km_p50").long_name.endswith(
-        "50th percentile of the ensemble"
+    assert ensemble_variable("onset_depth_km_p2").long_name.endswith(
+        "2nd percentile of the ensemble"
     )
     assert ensemble_variable("nothing_p5") is None
+    assert get_variable("members_without_value_fraction").units == "1"
+    for old in ("melt_probability", "melt_probability_ge_2km"):  # an earlier lidmelt's names
+        assert ensemble_variable(old) is None
+        with pytest.raises(InputError, match="earlier lidmelt"):
+            get_variable(old)
 
 
-def test_order_statistics_equal_a_full_sort_on_every_kind_of_cell():
-    """Cells whose members agree are not sorted; check values: the order statistic of rank
-    ceil(q n / 100) of the finite members of each cell, from a plain sort of that cell
-    (Hyndman & Fan 1996, definition 1)."""
-    from lidmelt.ensemble.kernel import order_statistics
-
+def test_percentiles_equal_numpy_on_every_kind_of_cell():
+    """Cells whose members agree are not sorted; check values: numpy's nanpercentile with
+    method "linear" (Hyndman & Fan 1996 definition 7) of each cell's finite members."""
     rng = np.random.default_rng(5)
     stack = rng.random((40, 600)).astype(np.float32)
     stack[:, :100] = 0.0  # every member equal
     stack[:, 100:150] = np.nan  # no member has a value
     stack[rng.random(stack.shape) < 0.2] = np.nan  # some members without a value
     stack[:, 150:200] = np.round(stack[:, 150:200] * 3)  # ties
-    got = order_statistics(stack, (10, 50, 90))
-    for c in range(stack.shape[1]):
-        values = np.sort(stack[np.isfinite(stack[:, c]), c])
-        for k, q in enumerate((10, 50, 90)):
-            rank = max(int(np.ceil(q * values.size / 100)) - 1, 0)
-            np.testing.assert_array_equal(got[k, c], values[rank] if values.size else np.nan)
+    stack[:, 200:210] = np.nan
+    stack[0, 200:210] = 0.25  # one member with a value
+    qs = (10, 50, 90)
+    got = member_percentiles(stack, qs)
+    with pytest.warns(RuntimeWarning):  # numpy warns of the all-NaN cells
+        expected = np.nanpercentile(stack.astype(np.float64), qs, axis=0, method="linear")
+    np.testing.assert_allclose(got, expected.astype(np.float32), rtol=2e-7, equal_nan=True)
+    assert got.dtype == np.float32

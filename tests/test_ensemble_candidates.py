@@ -19,6 +19,7 @@ Check values and their sources:
 from __future__ import annotations
 
 import json
+import re
 
 import numpy as np
 import pandas as pd
@@ -92,6 +93,8 @@ def test_each_candidate_is_driven_by_its_own_plume_only(runs):
     (rho_west,) = [d for d in west["drivers"] if d["key"] == WEST_KEY]
     assert rho_west["rank_correlation_melt_volume"] == pytest.approx(1.0, abs=1e-12)
     assert rho_west["variance_fraction"] > 0.5
+    assert rho_west["driver"]
+    assert rho_west["variance_fraction_interval"][0] > 0.5
     (rho_east,) = [d for d in east["drivers"] if d["key"] == WEST_KEY]
     assert rho_east["rank_correlation_melt_volume"] is None
     assert rho_east["variance_fraction"] is None
@@ -117,6 +120,16 @@ def test_candidates_are_those_lidmelt_screen_lists(runs):
     np.testing.assert_allclose(
         listed["melt_volume_km3"], [c["melt_volume_km3"] for c in found["list"]], rtol=1e-12
     )
+    # each carries its probability: basis, threshold and the statistics that lidmelt screen
+    # computes from the probability map over the same cells (area-weighted in float64 there,
+    # exact sums of 2^-20 multiples in the run: the same to 1e-6)
+    assert list(listed["probability_basis"]) == ["anomaly"] * len(listed)
+    for c, (_, row) in zip(found["list"], listed.iterrows(), strict=True):
+        assert c["probability"] == "melt_probability_anomaly_ge_1km"
+        assert (c["probability_basis"], c["probability_threshold_km"]) == ("anomaly", 1.0)
+        assert row["probability_threshold_km"] == 1.0
+        for key in ("mean_probability", "max_probability", "likely_area_km2"):
+            assert c[key] == pytest.approx(row[key], rel=1e-6, abs=1e-6), key
 
 
 def test_candidate_volumes_do_not_depend_on_chunking_or_workers(runs):
@@ -124,6 +137,7 @@ def test_candidate_volumes_do_not_depend_on_chunking_or_workers(runs):
     csv_a = (a.run_dir / "ensemble_members.csv").read_text()
     assert csv_a == (b.run_dir / "ensemble_members.csv").read_text()
     assert "candidate_2_melt_volume_km3" in csv_a.splitlines()[0]
+    assert "candidate_2_cells_without_value" in csv_a.splitlines()[0]
     assert a.summary["ensemble"]["candidates"] == b.summary["ensemble"]["candidates"]
 
 
@@ -133,7 +147,10 @@ def test_report_lists_each_candidate_and_its_drivers(runs):
     section = html[start : html.index("</section>", start)]
     table = section[section.index("What drives each candidate") :]
     assert table.index("<td>East</td>") < table.index("<td>West</td>")  # rank 1 first
-    assert f"{WEST_KEY} (rho 1.00, share" in table  # 3 significant figures
+    # 3 significant figures; the share with its 90 % interval, then rho
+    assert re.search(
+        rf"{re.escape(WEST_KEY)} \(share 0\.9\d+ \(0\.\d+ to 1\.00\); rho 1\.00\)", table
+    )
     assert "none: the same volume in every member" in table
 
 
@@ -141,7 +158,7 @@ def test_no_candidates_without_a_source_or_with_zero(tmp_path):
     without = two_plumes(tmp_path, "none", source=None)
     assert "candidates" not in without.summary["ensemble"]
     head = (without.run_dir / "ensemble_members.csv").read_text().splitlines()[0]
-    assert head.split(",")[-1] == "anomaly_melt_volume_km3"
+    assert head.split(",")[-2:] == ["anomaly_melt_volume_km3", "cells_without_value"]
     zero = two_plumes(tmp_path, "zero", extra="candidates = 0")
     assert "candidates" not in json.loads((zero.run_dir / "summary.json").read_text())["ensemble"]
 

@@ -475,8 +475,13 @@ class EnsembleOptions:
         Seed of the random generator; same workflow and seed, same members.
     sampling : str
         One of :data:`SAMPLING_METHODS`.
+    probability_basis : str
+        What the probabilities are of: ``"anomaly"`` (the melt the thermal anomaly adds, the
+        default) or ``"total"`` (all melt); a key of :data:`lidmelt.variables.PROBABILITY_BASES`.
     thresholds_km : tuple of float
-        Melt thicknesses T (km) of the ``melt_probability_ge_<T>km`` outputs.
+        Melt thicknesses T (km, > 0) of the ``melt_probability_<basis>_ge_<T>km`` outputs; the
+        first is the run's probability of melting (maps, report, candidates). Default: the
+        candidates' threshold ``candidate_min_melt_km`` alone.
     percentiles : tuple of float
         Percentiles (0-100) of the ``<output>_p<q>`` outputs (default 10, 50, 90).
     memory_limit_gb : float
@@ -500,7 +505,8 @@ class EnsembleOptions:
     members: int = 200
     seed: int = 0
     sampling: str = "latin_hypercube"
-    thresholds_km: tuple[float, ...] = ()
+    probability_basis: str = "anomaly"
+    thresholds_km: tuple[float, ...] = (1.0,)
     percentiles: tuple[float, ...] = (10.0, 50.0, 90.0)
     memory_limit_gb: float = 2.0
     candidates: int = 10

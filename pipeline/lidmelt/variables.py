@@ -11,6 +11,7 @@ the definition lidmelt fixes (docs/physics.md, "Definitions").
 
 from __future__ import annotations
 
+import re
 from dataclasses import dataclass, replace
 
 import numpy as np
@@ -19,19 +20,29 @@ from lidmelt.errors import InputError
 
 __all__ = [
     "DEFAULT_OUTPUTS",
+    "DEFAULT_PROBABILITY_BASIS",
+    "DEFAULT_PROBABILITY_THRESHOLD_KM",
     "FLAG_NODATA",
     "FLAG_VARIABLE",
     "INPUTS",
     "MELT_PROBABILITY",
+    "MEMBERS_WITHOUT_VALUE",
     "OUTPUTS",
+    "PROBABILITY_BASES",
     "VARIABLES",
+    "EnsembleName",
     "Variable",
     "check_input_range",
     "default_outputs",
     "ensemble_variable",
     "get_variable",
     "input_for_workflow_key",
+    "is_legacy_probability",
     "ordinal",
+    "parse_ensemble_name",
+    "percentile_name",
+    "probability_long_name",
+    "probability_name",
 ]
 
 
@@ -266,13 +277,93 @@ DEFAULT_OUTPUTS: tuple[str, ...] = tuple(v.name for v in _OUTPUT_LIST if v.defau
 VARIABLES: dict[str, Variable] = {**OUTPUTS, **INPUTS, FLAG_VARIABLE.name: FLAG_VARIABLE}
 
 
-#: The fraction of ensemble members that melt (H > 0) in a cell.
+#: What a probability of melting is of (its basis): the melt the thermal anomaly adds (the
+#: screening's default basis) or all melt, each by the output variable it compares.
+PROBABILITY_BASES: dict[str, str] = {
+    "anomaly": "anomaly_melt_thickness_km",
+    "total": "melt_thickness_km",
+}
+#: The basis and threshold of an ensemble's probability by default: the melt the anomaly adds
+#: reaching 1 km (docs/workflow.md, [ensemble], says why 1 km).
+DEFAULT_PROBABILITY_BASIS = "anomaly"
+DEFAULT_PROBABILITY_THRESHOLD_KM = 1.0
+_BASIS_TEXT = {"anomaly": "the melt the thermal anomaly adds", "total": "the melt thickness"}
+_PROBABILITY = re.compile(
+    r"^melt_probability_(?P<basis>[a-z]+)_ge_(?P<t>[0-9]+(?:\.[0-9]+)?(?:e[-+]?[0-9]+)?)km$"
+)
+_LEGACY_PROBABILITY = re.compile(r"^melt_probability(?:_ge_[0-9.e+-]+km)?$")
+
+
+@dataclass(frozen=True)
+class EnsembleName:
+    """What the name of an ensemble output says.
+
+    ``kind``: ``"probability"`` (``basis`` of :data:`PROBABILITY_BASES`, ``base`` its variable,
+    ``threshold_km``), ``"percentile"`` (``base`` the output, ``percentile`` 0-100) or
+    ``"count"`` (:data:`MEMBERS_WITHOUT_VALUE`).
+    """
+
+    kind: str
+    base: str = ""
+    basis: str = ""
+    threshold_km: float | None = None
+    percentile: float | None = None
+
+
+def probability_name(basis: str, threshold_km: float) -> str:
+    """``melt_probability_<basis>_ge_<T>km`` (T as ``%g``): the probability that a member's melt
+    of ``basis`` reaches ``threshold_km`` km, e.g. ``melt_probability_anomaly_ge_1km``."""
+    return f"melt_probability_{basis}_ge_{float(threshold_km):g}km"
+
+
+def percentile_name(base: str, q: float) -> str:
+    """``<output>_p<q>`` (q as ``%g``), e.g. ``melt_thickness_km_p90``."""
+    return f"{base}_p{float(q):g}"
+
+
+def parse_ensemble_name(name: str) -> EnsembleName | None:
+    """The meaning of an ensemble output's name, or None for any other name (an ensemble run
+    of an earlier lidmelt, ``melt_probability``, is not one: :func:`is_legacy_probability`)."""
+    if name == MEMBERS_WITHOUT_VALUE.name:
+        return EnsembleName("count")
+    match = _PROBABILITY.match(name)
+    if match and match["basis"] in PROBABILITY_BASES:
+        basis = match["basis"]
+        base = PROBABILITY_BASES[basis]
+        return EnsembleName("probability", base=base, basis=basis, threshold_km=float(match["t"]))
+    base, sep, q = name.rpartition("_p")
+    if sep and base in OUTPUTS and q.replace(".", "", 1).isdigit() and float(q) <= 100.0:
+        return EnsembleName("percentile", base=base, percentile=float(q))
+    return None
+
+
+def is_legacy_probability(name: str) -> bool:
+    """Whether ``name`` is a probability map of an ensemble run made before probabilities had a
+    basis (``melt_probability``: melt thickness > 0; ``melt_probability_ge_<T>km``)."""
+    return bool(_LEGACY_PROBABILITY.match(name))
+
+
+#: The probability of melting by default (a template: each basis and threshold has its own name,
+#: :func:`probability_name`; :func:`ensemble_variable` gives its Variable).
 MELT_PROBABILITY = Variable(
-    name="melt_probability",
+    name=probability_name(DEFAULT_PROBABILITY_BASIS, DEFAULT_PROBABILITY_THRESHOLD_KM),
     units="1",
-    long_name="probability of melting (fraction of the ensemble members with melt thickness > 0)",
+    long_name="probability that the melt the thermal anomaly adds is at least 1 km",
     kind="ensemble",
     style="probability",
+)
+#: Per cell, the fraction of the ensemble members without a value there although the cell has
+#: input data (no solidus crossing, an invalid input): left out of the cell's probabilities and
+#: percentiles.
+MEMBERS_WITHOUT_VALUE = Variable(
+    name="members_without_value_fraction",
+    units="1",
+    long_name=(
+        "fraction of the ensemble members without a value (left out of the probabilities and "
+        "percentiles)"
+    ),
+    kind="ensemble",
+    style="member_fraction",
 )
 
 
@@ -286,27 +377,30 @@ def ordinal(q: float) -> str:
     return f"{text}{suffix}"
 
 
-def ensemble_variable(name: str) -> Variable | None:
-    """The Variable of an ensemble output name, or None if ``name`` is not one.
+def probability_long_name(basis: str, threshold_km: float) -> str:
+    """``"probability that the melt the thermal anomaly adds is at least 1 km"``."""
+    return f"probability that {_BASIS_TEXT[basis]} is at least {float(threshold_km):g} km"
 
-    ``melt_probability``; ``melt_probability_ge_<T>km`` (fraction of members with melt
-    thickness >= T km); ``<output>_p<q>`` (the q-th percentile over the members of a registered
-    output; units and style of that output).
+
+def ensemble_variable(name: str) -> Variable | None:
+    """The Variable of an ensemble output name (:func:`parse_ensemble_name`), or None.
+
+    A probability (:func:`probability_name`) is dimensionless with the ``"probability"`` style;
+    a percentile ``<output>_p<q>`` keeps its output's unit and style;
+    ``members_without_value_fraction`` is a fraction of the members.
     """
-    if name == MELT_PROBABILITY.name:
-        return MELT_PROBABILITY
-    prefix = "melt_probability_ge_"
-    if name.startswith(prefix) and name.endswith("km"):
-        threshold = name[len(prefix) : -2]
-        long_name = f"probability of melt thickness >= {threshold} km (fraction of members)"
+    parsed = parse_ensemble_name(name)
+    if parsed is None:
+        return None
+    if parsed.kind == "count":
+        return MEMBERS_WITHOUT_VALUE
+    if parsed.kind == "probability":
+        long_name = probability_long_name(parsed.basis, parsed.threshold_km)
         return replace(MELT_PROBABILITY, name=name, long_name=long_name)
-    base, sep, q = name.rpartition("_p")
-    if sep and base in OUTPUTS and q.replace(".", "", 1).isdigit():
-        var = OUTPUTS[base]
-        plain = var.long_name.split(" (")[0]
-        long_name = f"{plain}, {ordinal(float(q))} percentile of the ensemble"
-        return replace(var, name=name, long_name=long_name, kind="ensemble", default=False)
-    return None
+    var = OUTPUTS[parsed.base]
+    plain = var.long_name.split(" (")[0]
+    long_name = f"{plain}, {ordinal(parsed.percentile)} percentile of the ensemble"
+    return replace(var, name=name, long_name=long_name, kind="ensemble", default=False)
 
 
 def get_variable(name: str) -> Variable:
@@ -315,6 +409,14 @@ def get_variable(name: str) -> Variable:
     derived = ensemble_variable(name)
     if derived is not None:
         return derived
+    if is_legacy_probability(name):
+        msg = (
+            f"{name!r} is a probability map of an ensemble run made by an earlier lidmelt (of "
+            "any melt, with no basis); probability maps are now named "
+            f"{probability_name('anomaly', 1.0)} (basis 'anomaly' or 'total', threshold in km). "
+            "Run 'lidmelt run' on the ensemble workflow again to write them."
+        )
+        raise InputError(msg)
     try:
         return VARIABLES[name]
     except KeyError:

@@ -12,6 +12,7 @@ from lidmelt.cli._common import format_table, print_warnings, run_dir_option
 from lidmelt.products.report.sites import CANDIDATES_NAME
 from lidmelt.products.sampling import check_output_path
 from lidmelt.products.screening import BASES, screen, write_candidates
+from lidmelt.variables import parse_ensemble_name
 
 __all__ = ["SHOWN_COLUMNS", "register"]
 
@@ -28,6 +29,8 @@ SHOWN_COLUMNS = (
     "max_plate_age_ma",
     "flagged_fraction",
     "melt_production_km3_yr",
+    "probability_basis",
+    "probability_threshold_km",
     "mean_probability",
     "max_probability",
     "likely_area_km2",
@@ -52,11 +55,14 @@ def register(subparsers: argparse._SubParsersAction) -> None:
             "screens all melt (melt_thickness_km). Each candidate names the workflow plume it "
             "belongs to. Written as polygons ranked by the basis's melt volume (rank 1 = "
             "largest) to a GeoPackage and a GeoJSON (RFC 7946, lon/lat) beside it. For an "
-            "ensemble run, --min-probability P takes the cells whose probability of melting "
-            "(fraction of members with melt > 0; with --probability-of KM, with melt >= KM) is "
-            "at least P, and each candidate gets its mean and max probability and the area "
-            "where melting is more likely than not (>= 0.5). Give --min-melt-thickness, "
-            "--min-probability or both (a cell must then pass both)."
+            "ensemble run, --min-probability P takes the cells whose probability of melting is "
+            "at least P: the probability that a member's melt of the same basis reaches the "
+            "run's threshold (melt_probability_<basis>_ge_<T>km; --probability-of KM picks "
+            "another of its thresholds); a run whose probabilities are of another basis or "
+            "threshold is refused. Each candidate gets the probability's basis and threshold, "
+            "its mean and max probability and the area where melting is more likely than not "
+            "(>= 0.5). Give --min-melt-thickness, --min-probability or both (a cell must then "
+            "pass both)."
         ),
     )
     s.add_argument(
@@ -69,15 +75,16 @@ def register(subparsers: argparse._SubParsersAction) -> None:
         "--min-probability",
         metavar="P",
         type=float,
-        help="ensemble runs: least probability of melting of a candidate cell (0 < P <= 1), "
-        "from the run's melt_probability map",
+        help="ensemble runs: least probability of melting of a candidate cell (0 < P <= 1): "
+        "the probability that the basis's melt reaches the run's threshold",
     )
     s.add_argument(
         "--probability-of",
         metavar="KM",
         type=float,
-        help="with --min-probability: screen the probability of melt thickness >= KM instead "
-        "(the map melt_probability_ge_<KM>km; KM one of the ensemble's thresholds_km)",
+        help="with --min-probability: the threshold of the probability, in km (the map "
+        "melt_probability_<basis>_ge_<KM>km; KM one of the ensemble's thresholds_km; default "
+        "its first)",
     )
     s.add_argument(
         "--min-area",
@@ -141,7 +148,10 @@ def _conditions(args: argparse.Namespace, gdf: pd.DataFrame) -> str:
     if args.min_melt_thickness is not None:
         tests.append(f"{_BASIS_TEXT[args.basis]} >= {args.min_melt_thickness:g} km")
     if args.min_probability is not None:
-        tests.append(f"{gdf.attrs.get('lidmelt_probability')} >= {args.min_probability:g}")
+        name = gdf.attrs.get("lidmelt_probability", "")
+        parsed = parse_ensemble_name(name)
+        what = f" (P({_BASIS_TEXT[args.basis]} >= {parsed.threshold_km:g} km))" if parsed else ""
+        tests.append(f"{name}{what} >= {args.min_probability:g}")
     tests.append(f"area >= {args.min_area:g} km2")
     age = "" if args.min_age is None else f", plate age >= {args.min_age:g} Ma"
     return f"{' and '.join(tests)}{age} (8-connected cells; basis {args.basis})"

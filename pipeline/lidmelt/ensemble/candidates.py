@@ -24,7 +24,14 @@ import numpy as np
 from lidmelt.config import VarySpec
 from lidmelt.ensemble.drivers import drivers, total_statistics
 
-__all__ = ["CandidateSource", "Candidates", "candidate_column", "candidate_entries"]
+__all__ = [
+    "CandidateSource",
+    "Candidates",
+    "candidate_column",
+    "candidate_entries",
+    "candidate_missing_column",
+    "candidate_probability",
+]
 
 
 @dataclass(frozen=True, eq=False)
@@ -56,25 +63,55 @@ def candidate_column(rank: int) -> str:
     return f"candidate_{rank}_melt_volume_km3"
 
 
+def candidate_missing_column(rank: int) -> str:
+    """The ``ensemble_members.csv`` column of the cells of candidate ``rank`` where a member
+    has no value (its volume there is then NaN: :mod:`lidmelt.ensemble.missing`)."""
+    return f"candidate_{rank}_cells_without_value"
+
+
+def candidate_probability(sums: dict[str, np.ndarray], k: int, quantum: float) -> dict[str, Any]:
+    """Candidate ``k`` (from 0)'s probability statistics from the ensemble's sums: the
+    area-weighted mean over its cells with a value, the largest, and the area where melting is
+    more likely than not (km2; :data:`lidmelt.ensemble.kernel.LIKELY`)."""
+    area = int(sums["candidate_value_area"][k])
+    top = int(sums["candidate_max_probability"][k])
+    return {
+        "mean_probability": sums["candidate_probability_area"][k] / area if area else None,
+        "max_probability": top * quantum if top >= 0 else None,
+        "likely_area_km2": float(sums["candidate_likely_area"][k] * quantum),
+    }
+
+
 def candidate_entries(
     found: Candidates,
     vary: Sequence[VarySpec],
     samples: Sequence[Sequence[Any]],
     volumes: np.ndarray,
     percentiles: Sequence[float],
+    *,
+    missing: np.ndarray | None = None,
+    probability: Sequence[dict[str, Any]] = (),
+    seed: int = 0,
 ) -> list[dict[str, Any]]:
     """Per candidate: its record, its volume's percentiles over the members and its drivers.
 
-    ``volumes``: (K, members) km3. The record's ``melt_volume_km3`` is the deterministic
-    (central) volume; ``members_melt_volume_km3`` the statistics over the members.
+    ``volumes``: (K, members) km3, NaN where a member has no value in some of the candidate's
+    cells (``missing``: (K, members) those cells' counts); such members are left out of the
+    percentiles and drivers and counted as ``members_without_value``. The record's
+    ``melt_volume_km3`` is the deterministic (central) volume; ``members_melt_volume_km3`` the
+    statistics over the members; ``probability`` per candidate its probability statistics
+    (:func:`candidate_probability`, with the probability's basis and threshold).
     """
     out = []
-    for record, volume in zip(found.records, volumes, strict=True):
+    for k, (record, volume) in enumerate(zip(found.records, volumes, strict=True)):
+        lacking = int((missing[k] > 0).sum()) if missing is not None else 0
         out.append(
             {
                 **record,
+                **(probability[k] if k < len(probability) else {}),
+                "members_without_value": lacking,
                 "members_melt_volume_km3": total_statistics(volume, percentiles),
-                "drivers": drivers(vary, samples, volume),
+                "drivers": drivers(vary, samples, volume, seed=seed, salt=k + 1),
             }
         )
     return out

@@ -1,23 +1,36 @@
 """One chunk of an ensemble: every member evaluated, then reduced to probabilities, percentiles
-and basin totals at once (nothing per member leaves the chunk).
+and sums at once (nothing per member leaves the chunk).
 
-Definitions (lidmelt's own):
+Definitions (lidmelt's own; docs/workflow.md, [ensemble]):
 
-- melt probability: the fraction of members with melt thickness H > 0 in a cell (among the
-  members with data there); ``melt_probability_ge_<T>km``: the fraction with H >= T (compared
-  in float32, the precision of the outputs).
-- percentile q of an output: the empirical quantile of the members' values, the order statistic
-  of rank ceil(q N / 100) (at least 1) among the N members with a value (the inverse of the
-  empirical distribution function, definition 1 of Hyndman & Fan 1996, Am. Stat. 50, 361; from
-  memory). No interpolation, so for an output that grows monotonically with one varied input the
-  percentile is the output at that input's own percentile. The onset depth is defined only where
-  a member melts: its percentiles are over the members that melt.
-- basin totals per member: sum over cells of area x H (melt volume, km3), area x anomaly melt
-  thickness, and the area of cells with H > 0 (km2). Each cell's term is rounded to a multiple of
-  2^-20 (about 1e-6 km3 or km2) and summed as 64-bit integers: integer sums do not depend on the
-  order of addition, so the totals are the same bit for bit whatever the chunking and workers.
-- candidate volumes per member: the same integer sum of area x H over the cells of each
-  candidate of the deterministic run (a label grid: 0 outside, k for candidate k), exact too.
+- a member has a value in a cell when the cell has input data (its validity flag is not
+  :data:`lidmelt.variables.FLAG_NODATA`) and the member's melt thickness H there is a number. A
+  member without a value in a cell with data (no solidus crossing within the model's pressure
+  range, an invalid input) is left out of that cell's probabilities and percentiles, and counted
+  (the ``members_without_value_fraction`` layer, and per member its ``cells_without_value``); it
+  is never
+  taken as H = 0.
+- probability ``melt_probability_<basis>_ge_<T>km``: among the members with a value in the cell,
+  the fraction whose melt of the basis (:data:`lidmelt.variables.PROBABILITY_BASES`: the melt the
+  thermal anomaly adds, or all melt) is >= T (compared in float32, the precision of the outputs)
+  and whose melt fraction at the top of melting is at least
+  :data:`lidmelt.physics.EXTRACTION_MIN_MELT_FRACTION` (a column below it does not count as
+  melting).
+- percentile q of an output: over the N members with a value, the linear interpolation between
+  order statistics of Hyndman & Fan (1996, Am. Stat. 50, 361-365), definition 7 (numpy's
+  ``"linear"``, R's default): with the values sorted x_0 <= ... <= x_(N-1) and h = (N - 1) q/100,
+  x_floor(h) + (h - floor(h)) (x_(floor(h)+1) - x_floor(h)). The onset depth is defined only
+  where a member melts: its percentiles are over the members that melt.
+- sums per member: over the cells where it has a value, area x H (melt volume, km3), area x
+  anomaly melt thickness, and the area of cells with H > 0 (km2); over each candidate of the
+  deterministic run (a label grid: 0 outside, k for candidate k) area x H. Each cell's term is
+  rounded to a multiple of 2^-20 (about 1e-6 km3 or km2) and summed as 64-bit integers: integer
+  sums do not depend on the order of addition, so they are the same bit for bit whatever the
+  chunking and workers. Beside them, per member, the cells without a value (in the basin and in
+  each candidate; and how many of them had no solidus crossing or an invalid input).
+- per candidate, from the first probability map: the sums of area x probability, of the area
+  with a probability and of the area with probability >= :data:`LIKELY` (exact like the totals),
+  and the largest probability.
 """
 
 from __future__ import annotations
@@ -28,31 +41,49 @@ from typing import Any
 import numpy as np
 
 from lidmelt.engine import KernelSettings, evaluate_chunk
-from lidmelt.variables import OUTPUTS
+from lidmelt.physics import EXTRACTION_MIN_MELT_FRACTION, FLAG_INVALID_INPUT, FLAG_NO_ONSET
+from lidmelt.variables import (
+    FLAG_NODATA,
+    MEMBERS_WITHOUT_VALUE,
+    OUTPUTS,
+    PROBABILITY_BASES,
+    percentile_name,
+    probability_name,
+)
 
 __all__ = [
     "BASES",
+    "LIKELY",
+    "MAXIMA",
     "QUANTUM",
     "TOTALS",
     "MemberPlan",
+    "combine_sums",
+    "empty_sums",
     "layer_names",
-    "order_statistics",
+    "member_percentiles",
     "reduce_chunk",
 ]
 
 #: Outputs whose percentiles an ensemble writes.
 BASES: tuple[str, ...] = ("melt_thickness_km", "anomaly_melt_thickness_km", "onset_depth_km")
-#: Basin totals of each member, in the order of :func:`reduce_chunk`'s totals.
+#: Basin totals of each member, in the order of the ``"totals"`` sums of :func:`reduce_chunk`.
 TOTALS: tuple[str, ...] = ("melting_area_km2", "melt_volume_km3", "anomaly_melt_volume_km3")
-#: Fixed-point step of the totals' cell terms (km2 or km3).
+#: Fixed-point step of the sums' cell terms (km2 or km3).
 QUANTUM = 2.0**-20
-_INDEX = {name: list(OUTPUTS).index(name) for name in BASES}
+#: A cell is "likely" to melt when its probability is at least this (more likely than not).
+LIKELY = 0.5
+#: Sums of :func:`reduce_chunk` combined by their largest value, not added.
+MAXIMA = ("candidate_max_probability",)
+_INDEX = {name: list(OUTPUTS).index(name) for name in OUTPUTS}
 
 
-def layer_names(thresholds_km, percentiles) -> list[str]:
-    """Names of the reduced layers, in order: probability, thresholds, percentiles per base."""
-    names = ["melt_probability"] + [f"melt_probability_ge_{t:g}km" for t in thresholds_km]
-    return names + [f"{base}_p{q:g}" for base in BASES for q in percentiles]
+def layer_names(basis: str, thresholds_km, percentiles) -> list[str]:
+    """Names of the reduced layers, in order: the probabilities (one per threshold), the
+    percentiles of each of :data:`BASES`, and ``members_without_value_fraction``."""
+    names = [probability_name(basis, t) for t in thresholds_km]
+    names += [percentile_name(base, q) for base in BASES for q in percentiles]
+    return [*names, MEMBERS_WITHOUT_VALUE.name]
 
 
 @dataclass(frozen=True, eq=False)
@@ -69,15 +100,16 @@ class MemberPlan:
     thresholds_km: tuple[float, ...]
     percentiles: tuple[float, ...]
     candidates: int = 0
+    basis: str = "anomaly"
 
 
-def order_statistics(stack: np.ndarray, percentiles) -> np.ndarray:
-    """Percentiles over axis 0 of ``stack`` as order statistics (NaN members left out).
+def member_percentiles(stack: np.ndarray, percentiles) -> np.ndarray:
+    """Percentiles over axis 0 of ``stack`` (NaN members left out), Hyndman & Fan definition 7.
 
     Only cells whose members differ are sorted: where every member has the same finite value
-    (far from melting: H = 0 in all) each order statistic is that value, and where none has a
-    value it is NaN. Sorting was most of an ensemble's cost beyond the kernel
-    (``benchmarks/bench_ensemble.py``).
+    (far from melting: H = 0 in all) each percentile is that value, and where none has a value
+    it is NaN. Sorting was most of an ensemble's cost beyond the kernel
+    (``benchmarks/bench_ensemble.py``). Interpolated in float64, returned in ``stack``'s type.
     """
     count = np.isfinite(stack).sum(axis=0)
     out = np.full((len(percentiles), *stack.shape[1:]), np.nan, stack.dtype)
@@ -88,12 +120,15 @@ def order_statistics(stack: np.ndarray, percentiles) -> np.ndarray:
     todo = ~same & (count > 0)
     if not todo.any():
         return out
-    ordered = np.sort(stack[:, todo], axis=0)  # NaN sorts last
-    n = count[todo]
+    ordered = np.sort(stack[:, todo], axis=0).astype(np.float64)  # NaN sorts last
+    last = count[todo] - 1
     for k, q in enumerate(percentiles):
-        rank = np.maximum(np.ceil(q * n / 100.0).astype(np.int64) - 1, 0)
-        rank = np.minimum(rank, len(stack) - 1)
-        out[k, todo] = np.take_along_axis(ordered, rank[None], axis=0)[0]
+        h = (float(q) / 100.0) * last
+        below = np.floor(h).astype(np.int64)
+        above = np.minimum(below + 1, last)
+        a = np.take_along_axis(ordered, below[None], axis=0)[0]
+        b = np.take_along_axis(ordered, above[None], axis=0)[0]
+        out[k, todo] = a + (h - below) * (b - a)
     return out
 
 
@@ -116,41 +151,115 @@ def _candidate_cells(labels, candidates: int) -> list[np.ndarray]:
     return [np.flatnonzero(flat == k) for k in range(1, candidates + 1)]
 
 
+def empty_sums(members: int, candidates: int) -> dict[str, np.ndarray]:
+    """Zeroed sums of one chunk (module notes)."""
+    zeros = np.zeros
+    return {
+        "totals": zeros((len(TOTALS), members), np.int64),
+        "cells_without_value": zeros(members, np.int64),
+        "cells_no_onset": zeros(members, np.int64),
+        "cells_invalid_input": zeros(members, np.int64),
+        "candidate_volume": zeros((candidates, members), np.int64),
+        "candidate_cells_without_value": zeros((candidates, members), np.int64),
+        "candidate_probability_area": zeros(candidates, np.int64),
+        "candidate_value_area": zeros(candidates, np.int64),
+        "candidate_likely_area": zeros(candidates, np.int64),
+        "candidate_max_probability": np.full(candidates, -1, np.int64),
+    }
+
+
+def combine_sums(total: dict[str, np.ndarray], part: dict[str, np.ndarray]) -> None:
+    """Add the sums of one chunk (``part``) into ``total`` (the :data:`MAXIMA` by maximum)."""
+    for key, value in part.items():
+        if key in MAXIMA:
+            np.maximum(total[key], value, out=total[key])
+        else:
+            total[key] += value
+
+
+def _quanta(values: np.ndarray) -> np.ndarray:
+    """Cell terms as int64 multiples of :data:`QUANTUM` (NaN as 0)."""
+    return np.rint(np.nan_to_num(values) / QUANTUM).astype(np.int64)
+
+
+def _member_sums(sums, m: int, out: np.ndarray, area: tuple, cells: list) -> np.ndarray:
+    """Member ``m``'s sums from its kernel rows ``out`` (``area``: the cells' areas and their
+    quanta); return its cells without a value."""
+    area, area_quanta = area
+    melt = out[_INDEX["melt_thickness_km"]]
+    flag = out[-1]
+    lacking = (flag != FLAG_NODATA) & np.isnan(melt)
+    sums["cells_without_value"][m] = lacking.sum()
+    if sums["cells_without_value"][m]:
+        bits = flag[lacking].astype(np.int64)
+        sums["cells_no_onset"][m] = ((bits & FLAG_NO_ONSET) > 0).sum()
+        sums["cells_invalid_input"][m] = ((bits & FLAG_INVALID_INPUT) > 0).sum()
+    volume = _quanta(melt.astype(np.float64) * area)
+    anomaly = out[_INDEX["anomaly_melt_thickness_km"]].astype(np.float64)
+    sums["totals"][1, m] = volume.sum()
+    sums["totals"][2, m] = _quanta(anomaly * area).sum()
+    sums["totals"][0, m] = area_quanta[melt > 0].sum()
+    flat_volume, flat_lacking = volume.ravel(), lacking.ravel()
+    for k, c in enumerate(cells):  # each candidate's melt volume and cells without a value
+        sums["candidate_volume"][k, m] = flat_volume[c].sum()
+        sums["candidate_cells_without_value"][k, m] = flat_lacking[c].sum()
+    return lacking
+
+
+def _candidate_probability(sums, probability: np.ndarray, area: np.ndarray, cells: list) -> None:
+    """Per candidate: sums of area x p, of the area with a p and with p >= LIKELY, largest p."""
+    p, a = probability.ravel().astype(np.float64), area.ravel()
+    for k, c in enumerate(cells):
+        pc, ac = p[c], a[c]
+        ok = np.isfinite(pc)
+        sums["candidate_probability_area"][k] = _quanta(pc[ok] * ac[ok]).sum()
+        sums["candidate_value_area"][k] = _quanta(ac[ok]).sum()
+        sums["candidate_likely_area"][k] = _quanta(ac[ok & (pc >= LIKELY)]).sum()
+        if ok.any():
+            sums["candidate_max_probability"][k] = int(np.rint(pc[ok].max() / QUANTUM))
+
+
 def reduce_chunk(
     plan: MemberPlan, area: np.ndarray, group_blocks, labels=None
-) -> tuple[np.ndarray, np.ndarray]:
-    """Evaluate every member on one chunk and reduce them.
+) -> tuple[np.ndarray, dict[str, np.ndarray]]:
+    """Evaluate every member on one chunk and reduce them (module notes).
 
     Returns the reduced layers ((n_layers, y, x) float32, in :func:`layer_names` order) and the
-    members' totals ((3 + plan.candidates, members) int64 multiples of :data:`QUANTUM`:
-    :data:`TOTALS` order, then the melt volume of candidates 1..K of ``labels``).
+    chunk's sums (int64 multiples of :data:`QUANTUM` or counts, by name; combine the chunks'
+    with :func:`combine_sums`).
     """
     area = np.asarray(area, np.float64)
     shape = area.shape
     values = _member_inputs(plan, group_blocks, shape)
     members = len(plan.settings)
     stacks = np.empty((len(BASES), members, *shape), np.float32)
-    totals = np.zeros((len(TOTALS) + plan.candidates, members), np.int64)
+    sums = empty_sums(members, plan.candidates)
     cells = _candidate_cells(labels, plan.candidates)
-    cell_area = np.rint(area / QUANTUM).astype(np.int64)
+    basis_row = _INDEX[PROBABILITY_BASES[plan.basis]]
+    f_min = np.float32(EXTRACTION_MIN_MELT_FRACTION)
+    thresholds = [np.float32(t) for t in plan.thresholds_km]
+    melting = np.zeros((len(thresholds), *shape), np.int64)
+    with_value = np.zeros(shape, np.int64)
+    without_value = np.zeros(shape, np.int64)
+    has_data = np.zeros(shape, bool)
+    area_quanta = _quanta(area)
     checked: set[int] = set()  # input groups whose blocks were range-checked in this chunk
     for m, (settings, group) in enumerate(zip(plan.settings, plan.groups, strict=True)):
         out = evaluate_chunk(*values[group], settings=settings, check_inputs=group not in checked)
         checked.add(group)
         for b, name in enumerate(BASES):
             stacks[b, m] = out[_INDEX[name]]
-        for t, layer in ((1, stacks[0, m]), (2, stacks[1, m])):
-            terms = np.rint(np.nan_to_num(layer.astype(np.float64) * area) / QUANTUM)
-            totals[t, m] = terms.astype(np.int64).sum()
-            if t == 1 and cells:  # the melt volume of each candidate's cells
-                totals[len(TOTALS) :, m] = [terms.ravel()[c].astype(np.int64).sum() for c in cells]
-        totals[0, m] = cell_area[stacks[0, m] > 0].sum()
-    thickness = stacks[0]
-    count = np.isfinite(thickness).sum(axis=0)
-    layers = [(thickness > 0).sum(axis=0)]
-    layers += [(thickness >= np.float32(t)).sum(axis=0) for t in plan.thresholds_km]
+        without_value += _member_sums(sums, m, out, (area, area_quanta), cells)
+        has_data |= out[-1] != FLAG_NODATA
+        basis = out[basis_row]
+        with_value += np.isfinite(basis)
+        extracted = out[_INDEX["max_melt_fraction"]] >= f_min
+        for t, threshold in enumerate(thresholds):
+            melting[t] += extracted & (basis >= threshold)
     with np.errstate(invalid="ignore", divide="ignore"):
-        fractions = [np.where(count > 0, n / count, np.nan) for n in layers]
-    reduced = np.stack(fractions).astype(np.float32)
-    pcts = [order_statistics(stacks[b], plan.percentiles) for b in range(len(BASES))]
-    return np.concatenate([reduced, *pcts]), totals
+        probability = np.where(with_value > 0, melting / with_value, np.nan).astype(np.float32)
+    if cells:
+        _candidate_probability(sums, probability[0], area, cells)
+    pcts = [member_percentiles(stacks[b], plan.percentiles) for b in range(len(BASES))]
+    lacking = np.where(has_data, without_value / members, np.nan).astype(np.float32)[None]
+    return np.concatenate([probability, *pcts, lacking]), sums

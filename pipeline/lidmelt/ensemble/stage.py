@@ -16,6 +16,7 @@ import functools
 import sys
 import time
 import uuid
+import warnings
 from pathlib import Path
 from typing import Any
 
@@ -28,14 +29,27 @@ from lidmelt.ensemble.candidates import (
     CandidateSource,
     candidate_column,
     candidate_entries,
+    candidate_missing_column,
+    candidate_probability,
 )
-from lidmelt.ensemble.drivers import drivers, total_statistics
-from lidmelt.ensemble.kernel import QUANTUM, TOTALS, MemberPlan, layer_names, reduce_chunk
+from lidmelt.ensemble.drivers import INTERVAL, REPLICATES, drivers, total_statistics
+from lidmelt.ensemble.kernel import (
+    LIKELY,
+    QUANTUM,
+    TOTALS,
+    MemberPlan,
+    combine_sums,
+    empty_sums,
+    layer_names,
+    reduce_chunk,
+)
+from lidmelt.ensemble.missing import missing_summary, missing_warning
 from lidmelt.errors import WorkflowError
 from lidmelt.files import write_text_atomic
 from lidmelt.grids import rundir
 from lidmelt.grids.area import cell_area_km2
 from lidmelt.grids.store import GeoTiffItem, GeoTiffSet
+from lidmelt.physics import EXTRACTION_MIN_MELT_FRACTION
 from lidmelt.run_inputs import lid_cooling_model, load_inputs, load_model
 from lidmelt.variables import ensemble_variable
 
@@ -65,7 +79,7 @@ def estimate_memory_bytes(cfg, *, groups: int | None = None) -> int:
     side = int(cfg.compute.chunk_size)
     cells = side * side
     groups = groups if groups is not None else len({c.inputs for c in ens.configs}) or 1
-    layers = len(layer_names(ens.thresholds_km, ens.percentiles))
+    layers = len(layer_names(ens.probability_basis, ens.thresholds_km, ens.percentiles))
     per_cell = (
         ens.members * 3 * 4 * 2
         + groups * _INPUT_BYTES_PER_CELL
@@ -153,7 +167,7 @@ def _plan(context: StageContext, candidates: int = 0) -> tuple[MemberPlan, list[
     used = {_table_key(m) for m in ens.configs}
     tables = len(used) if cfg.compute.method == "table" else 0
     plan = MemberPlan(tuple(settings), tuple(member_groups), scalars, ens.thresholds_km,
-                      ens.percentiles, candidates)  # fmt: skip
+                      ens.percentiles, candidates, ens.probability_basis)  # fmt: skip
     return plan, [[a for a in arg if hasattr(a, "dask")] for arg in args], tables
 
 
@@ -170,8 +184,9 @@ def _label_blocks(labels: np.ndarray | None, chunks: tuple) -> list[list]:
 
 def _compute_rows(
     context: StageContext, plan: MemberPlan, group_arrays, write, labels=None
-) -> np.ndarray:
-    """Reduce every chunk, one row of chunks at a time; ``write(row0, layers)`` each row."""
+) -> dict[str, np.ndarray]:
+    """Reduce every chunk, one row of chunks at a time; ``write(row0, layers)`` each row;
+    return the chunks' sums combined (:func:`lidmelt.ensemble.kernel.combine_sums`)."""
     import dask
 
     cfg = context.cfg
@@ -188,7 +203,7 @@ def _compute_rows(
         plan_d = client.scatter(plan, broadcast=True, hash=False)
     else:
         plan_d = dask.delayed(plan, name=f"lidmelt-ensemble-plan-{token}", traverse=False)
-    totals = np.zeros((len(TOTALS) + plan.candidates, len(plan.settings)), np.int64)
+    sums = empty_sums(len(plan.settings), plan.candidates)
     kwargs = {"scheduler": "threads", "num_workers": int(cfg.compute.workers)}
     if client is not None:
         kwargs = {"scheduler": client.get}
@@ -207,21 +222,31 @@ def _compute_rows(
         results = dask.compute(*tasks, **kwargs)
         layers = np.concatenate([r[0] for r in results], axis=2)
         for r in results:
-            totals += r[1]
+            combine_sums(sums, r[1])
         write(row0, list(layers))
         row0 += layers.shape[1]
-    return totals
+    return sums
 
 
-def _members_csv(ens, totals: np.ndarray) -> str:
-    """The text of :data:`MEMBERS_FILE`: member, each varied key, the basin totals, then the
-    melt volume of each tracked candidate."""
-    ranks = range(1, len(totals) - len(TOTALS) + 1)
-    head = ["member", *(s.key for s in ens.vary), *TOTALS, *map(candidate_column, ranks)]
+def _csv_number(value: float) -> str:
+    """A CSV cell: the number's repr, or empty for NaN (no value)."""
+    return "" if np.isnan(value) else repr(float(value))
+
+
+def _members_csv(ens, totals: np.ndarray, missing: np.ndarray, volumes, volume_missing) -> str:
+    """The text of :data:`MEMBERS_FILE`: member, each varied key, the basin totals (empty where
+    the member has no value in some cell) and its cells without a value, then per tracked
+    candidate its melt volume and cells without a value."""
+    ranks = range(1, len(volumes) + 1)
+    head = ["member", *(s.key for s in ens.vary), *TOTALS, "cells_without_value"]
+    for rank in ranks:
+        head += [candidate_column(rank), candidate_missing_column(rank)]
     rows = [",".join(head)]
     for m, sample in enumerate(ens.samples):
         cells = [str(m + 1), *(repr(v) if not isinstance(v, str) else v for v in sample)]
-        cells += [repr(float(v)) for v in totals[:, m]]
+        cells += [_csv_number(v) for v in totals[:, m]] + [str(int(missing[m]))]
+        for k in range(len(volumes)):
+            cells += [_csv_number(volumes[k, m]), str(int(volume_missing[k, m]))]
         rows.append(",".join(cells))
     return "\n".join(rows) + "\n"
 
@@ -231,6 +256,36 @@ def _screen(context: StageContext, source: CandidateSource | None) -> Candidates
     if source is None or context.cfg.ensemble.candidates == 0:
         return None
     return source(context)
+
+
+def _with_values(quanta: np.ndarray, missing: np.ndarray) -> np.ndarray:
+    """Sums in km2 or km3, NaN for the members without a value in some of their cells."""
+    return np.where(missing > 0, np.nan, quanta * QUANTUM)
+
+
+def _probability_entry(ens, names: list[str]) -> dict[str, Any]:
+    """The summary's ``probability`` entry: what the probability maps are of."""
+    return {
+        "basis": ens.probability_basis,
+        "thresholds_km": list(ens.thresholds_km),
+        "outputs": names[: len(ens.thresholds_km)],
+        "min_melt_fraction": EXTRACTION_MIN_MELT_FRACTION,
+        "likely": LIKELY,
+        "members_counted": "the members with a value in the cell",
+    }
+
+
+def _candidates_entry(found: Candidates, ens, sums, names: list[str]) -> dict[str, Any]:
+    """The summary's ``candidates`` entry (with each candidate's probability statistics)."""
+    volumes = _with_values(sums["candidate_volume"], sums["candidate_cells_without_value"])
+    basis = {"probability": names[0], "probability_basis": ens.probability_basis,
+             "probability_threshold_km": ens.thresholds_km[0]}  # fmt: skip
+    probability = [{**basis, **candidate_probability(sums, k, QUANTUM)} for k in range(found.count)]
+    listed = candidate_entries(
+        found, ens.vary, ens.samples, volumes, ens.percentiles,
+        missing=sums["candidate_cells_without_value"], probability=probability, seed=ens.seed,
+    )  # fmt: skip
+    return {**found.screening, "tracked": found.count, "list": listed}
 
 
 def run_ensemble_stage(
@@ -243,7 +298,7 @@ def run_ensemble_stage(
     ens = cfg.ensemble
     found = _screen(context, candidates)
     plan, group_arrays, tables = _plan(context, found.count if found else 0)
-    names = layer_names(ens.thresholds_km, ens.percentiles)
+    names = layer_names(ens.probability_basis, ens.thresholds_km, ens.percentiles)
     template = context.target.template(int(cfg.compute.chunk_size))
     items = []
     for name in names:
@@ -254,36 +309,48 @@ def run_ensemble_stage(
     # the run checks every file before it is sealed (rundir.seal_run): no read-back here
     with GeoTiffSet(items, cog=cfg.outputs.cloud_optimized, verify=False) as out:
         labels = found.labels if found and found.count else None
-        totals = _compute_rows(context, plan, group_arrays, out.write_rows, labels) * QUANTUM
+        sums = _compute_rows(context, plan, group_arrays, out.write_rows, labels)
+    missing = sums["cells_without_value"]
+    totals = _with_values(sums["totals"], np.broadcast_to(missing, sums["totals"].shape))
+    volumes = _with_values(sums["candidate_volume"], sums["candidate_cells_without_value"])
+    text = _members_csv(ens, totals, missing, volumes, sums["candidate_cells_without_value"])
     files = [item.path for item in items]
-    files.append(write_text_atomic(context.run_dir / MEMBERS_FILE, _members_csv(ens, totals)))
+    files.append(write_text_atomic(context.run_dir / MEMBERS_FILE, text))
+    lacking = missing_summary(ens.vary, ens.samples, sums)
+    warning = missing_warning(lacking, ens.members)
+    if warning:
+        warnings.warn(warning, UserWarning, stacklevel=2)
     entry = {
         "members": ens.members,
         "seed": ens.seed,
         "sampling": ens.sampling,
         "vary": {spec.key: spec.to_record() for spec in ens.vary},
+        "probability": _probability_entry(ens, names),
         "thresholds_km": list(ens.thresholds_km),
         "percentiles": list(ens.percentiles),
+        "percentile_definition": "Hyndman & Fan (1996) definition 7 (linear interpolation)",
         "tables_built": tables,
         "input_groups": len(plan.scalars),
         "memory_estimate_gb": estimate_memory_bytes(cfg, groups=len(plan.scalars)) / 1e9,
         "outputs": names,
+        "members_without_value": lacking,
         "totals": {
             name: total_statistics(totals[k], ens.percentiles) for k, name in enumerate(TOTALS)
         },
-        "drivers": drivers(ens.vary, ens.samples, totals[1]),
+        "drivers": drivers(ens.vary, ens.samples, totals[1], seed=ens.seed),
+        "drivers_method": {"interval": INTERVAL, "replicates": REPLICATES},
         "compute_s": time.perf_counter() - t0,
     }
     if found is not None:
-        entry["candidates"] = {
-            **found.screening,
-            "tracked": found.count,
-            "list": candidate_entries(
-                found, ens.vary, ens.samples, totals[len(TOTALS) :], ens.percentiles
-            ),
-        }
+        entry["candidates"] = (
+            _candidates_entry(found, ens, sums, names) if found.count else
+            {**found.screening, "tracked": 0, "list": []}
+        )  # fmt: skip
     outputs = {
         name: {"file": item.path.name, "units": item.units, "long_name": item.description}
         for name, item in zip(names, items, strict=True)
     }
-    return files, {"ensemble": entry, "outputs": outputs}
+    extra = {"ensemble": entry, "outputs": outputs}
+    if warning:
+        extra["warnings"] = [warning]
+    return files, extra

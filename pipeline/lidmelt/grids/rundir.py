@@ -406,7 +406,7 @@ def build_summary(
         The run's warnings (e.g. much of the grid melting at the ambient temperature).
     extra : mapping, optional
         Entries of further stages (e.g. ``"ensemble"``); an ``"outputs"`` entry adds to the
-        outputs.
+        outputs, a ``"warnings"`` entry to the warnings.
     """
     extra = dict(extra or {})
     doc = {
@@ -448,6 +448,7 @@ def build_summary(
         "workflow": cfg.text,
     }
     doc["outputs"].update(extra.pop("outputs", {}))
+    doc["warnings"] += list(extra.pop("warnings", ()))  # a stage's warnings join the run's
     return {**doc, **extra}
 
 

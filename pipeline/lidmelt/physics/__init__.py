@@ -8,6 +8,7 @@ from lidmelt.physics.column import column_profile
 from lidmelt.physics.cooling import COOLING_MODELS, get_cooling_model, isotherm_depth_km
 from lidmelt.physics.evaluate import (
     COLUMN_OUTPUTS,
+    EXTRACTION_MIN_MELT_FRACTION,
     FLAG_BEYOND_CALIBRATION,
     FLAG_INVALID_INPUT,
     FLAG_KEYS,
@@ -32,6 +33,7 @@ __all__ = [
     "DEFAULT_AMBIENT_TP_C",
     "DEFAULT_COOLING",
     "DEFAULT_LID_ISOTHERM_C",
+    "EXTRACTION_MIN_MELT_FRACTION",
     "FLAG_BEYOND_CALIBRATION",
     "FLAG_INVALID_INPUT",
     "FLAG_KEYS",

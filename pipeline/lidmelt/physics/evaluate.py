@@ -61,7 +61,7 @@ __all__ = [
 ]
 
 _BLOCK = 1 << 16
-
+EXTRACTION_MIN_MELT_FRACTION = 0.005  # placeholder; the value and its source come with issue 18
 FLAG_INVALID_INPUT = 1  #: NaN input, negative lid, Tp below the surface solidus, or bad water
 FLAG_NO_ONSET = 2  #: the isentrope does not meet the solidus within the model's search range
 FLAG_BEYOND_CALIBRATION = 4  #: onset beyond the calibrated range (computed on the continuation)

@@ -1,113 +1,84 @@
 """The outputs of an ensemble run, as the products read them.
 
 An ensemble run (a workflow with an ``[ensemble]`` table; docs/workflow.md) writes, beside the
-usual outputs, per-cell maps over its members:
+usual outputs, per-cell maps over its members (names from the registry,
+:func:`lidmelt.variables.parse_ensemble_name`):
 
-- ``melt_probability``: the fraction of members with melt thickness > 0 (0 to 1);
-- ``melt_probability_ge_<T>km``: the fraction with melt thickness >= T km (T as ``%g``);
+- ``melt_probability_<basis>_ge_<T>km``: the probability that a member's melt of the basis
+  (``anomaly``: the melt the thermal anomaly adds; ``total``: all melt) reaches T km, among the
+  members with a value in the cell (:mod:`lidmelt.ensemble.kernel`); the first of the run's
+  thresholds is its probability of melting (:func:`run_probability`);
 - ``<variable>_p<q>``: the q-th percentile over the members of an output (e.g.
   ``melt_thickness_km_p90``, ``onset_depth_km_p50``);
+- ``members_without_value_fraction``: per cell, the fraction of the members without a value
+  there;
 
-the members' sampled parameters and basin totals in ``ensemble_members.csv`` (one row per
-member: ``member``, one column per varied workflow key, ``melting_area_km2``,
-``melt_volume_km3``, ``anomaly_melt_volume_km3``, then ``candidate_<rank>_melt_volume_km3`` per
-tracked candidate), and an ``"ensemble"`` entry in ``summary.json`` (members, seed, sampling, the
-distributions, thresholds, percentiles, the percentiles of the basin totals and the drivers; and
-``"candidates"``: each tracked candidate of the deterministic run with its volume's percentiles
-over the members and its drivers, :mod:`lidmelt.ensemble.candidates`).
+the members' sampled parameters and totals in ``ensemble_members.csv`` (one row per member:
+``member``, one column per varied workflow key, ``melting_area_km2``, ``melt_volume_km3``,
+``anomaly_melt_volume_km3`` (empty where the member has no value in some cell),
+``cells_without_value``, then per tracked candidate ``candidate_<rank>_melt_volume_km3`` and
+``candidate_<rank>_cells_without_value``), and an ``"ensemble"`` entry in ``summary.json``
+(members, seed, sampling, the distributions, the probability's basis and thresholds, the
+percentiles of the totals, the members without a value, the drivers with their intervals; and
+``"candidates"``: each tracked candidate of the deterministic run with its probability
+statistics, its volume's percentiles over the members and its drivers,
+:mod:`lidmelt.ensemble.candidates`).
 
-:func:`variable_of` gives the :class:`~lidmelt.variables.Variable` of any of these names: the
-registry's entry when it has one, else one derived from the name (a probability is
-dimensionless with the ``"probability"`` style; a percentile map keeps its base variable's unit
-and style). :func:`probability_grid` and :func:`probability_statistics` serve the screening of
-probability maps (``lidmelt screen --min-probability``).
+Ensemble runs of an earlier lidmelt named their maps ``melt_probability`` (melt > 0) and
+``melt_probability_ge_<T>km``, of no stated basis: :func:`probability_grid` refuses them with a
+message that says to run again.
 """
 
 from __future__ import annotations
 
 import math
-import re
-from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
 import pandas as pd
 
+from lidmelt.ensemble import MEMBERS_FILE
+from lidmelt.ensemble.kernel import LIKELY
 from lidmelt.errors import InputError, RunDirError
 from lidmelt.grids.rundir import RunDir
-from lidmelt.variables import VARIABLES, Variable, ensemble_variable
+from lidmelt.variables import (
+    PROBABILITY_BASES,
+    VARIABLES,
+    EnsembleName,
+    Variable,
+    ensemble_variable,
+    is_legacy_probability,
+    parse_ensemble_name,
+    probability_name,
+)
 
 __all__ = [
     "LIKELY",
     "MEMBERS_FILE",
     "PROBABILITY_STATISTICS",
     "PROBABILITY_STYLE",
-    "PROBABILITY_VARIABLE",
     "EnsembleName",
     "ensemble_entry",
     "is_ensemble_output",
+    "legacy_probability_maps",
     "parse_ensemble_name",
     "probability_grid",
     "probability_maps",
     "probability_name",
     "probability_statistics",
     "read_members",
+    "run_probability",
     "variable_of",
 ]
 
-#: The probability of melting (fraction of the members with melt thickness > 0).
-PROBABILITY_VARIABLE = "melt_probability"
-#: The members' sampled parameters and basin totals, in the run directory.
-MEMBERS_FILE = "ensemble_members.csv"
 #: Style key (:mod:`lidmelt.products.maps.style`) of every probability map.
 PROBABILITY_STYLE = "probability"
-#: A cell is "likely" to melt when its probability is at least this (more likely than not).
-LIKELY = 0.5
-#: Columns a screening candidate gets from a probability map.
+#: Columns a screening candidate gets from a probability map (with its basis and threshold).
 PROBABILITY_STATISTICS = ("mean_probability", "max_probability", "likely_area_km2")
-
-_THRESHOLD = re.compile(
-    rf"^{PROBABILITY_VARIABLE}_ge_(?P<t>[0-9]+(?:\.[0-9]+)?(?:e[-+]?[0-9]+)?)km$"
-)
-_PERCENTILE = re.compile(r"^(?P<base>.+)_p(?P<q>[0-9]+(?:\.[0-9]+)?)$")
-
-
-@dataclass(frozen=True)
-class EnsembleName:
-    """What an ensemble output's name says.
-
-    ``kind`` is ``"probability"`` (``threshold_km`` None: melt > 0) or ``"percentile"``
-    (``base`` the variable, ``percentile`` in 0-100).
-    """
-
-    kind: str
-    base: str = ""
-    threshold_km: float | None = None
-    percentile: float | None = None
-
-
-def probability_name(threshold_km: float | None = None) -> str:
-    """The probability map of melt > 0 (None), or of melt thickness >= ``threshold_km`` km."""
-    if threshold_km is None:
-        return PROBABILITY_VARIABLE
-    return f"{PROBABILITY_VARIABLE}_ge_{threshold_km:g}km"
-
-
-def parse_ensemble_name(name: str) -> EnsembleName | None:
-    """The meaning of an ensemble output name, or None for any other name."""
-    if name == PROBABILITY_VARIABLE:
-        return EnsembleName("probability")
-    match = _THRESHOLD.match(name)
-    if match:
-        return EnsembleName("probability", threshold_km=float(match["t"]))
-    match = _PERCENTILE.match(name)
-    if match and match["base"] in VARIABLES and 0.0 <= float(match["q"]) <= 100.0:
-        return EnsembleName("percentile", base=match["base"], percentile=float(match["q"]))
-    return None
 
 
 def is_ensemble_output(name: str) -> bool:
-    """Whether ``name`` is a map over an ensemble's members (probability or percentile)."""
+    """Whether ``name`` is a map over an ensemble's members (probability, percentile, count)."""
     return parse_ensemble_name(name) is not None
 
 
@@ -117,10 +88,24 @@ def variable_of(name: str) -> Variable | None:
     return VARIABLES.get(name) or ensemble_variable(name)
 
 
-def probability_maps(run: RunDir) -> list[str]:
-    """The run's probability maps (``melt_probability`` first, then by threshold)."""
-    found = [n for n in run.outputs if (p := parse_ensemble_name(n)) and p.kind == "probability"]
-    return sorted(found, key=lambda n: parse_ensemble_name(n).threshold_km or -1.0)
+def probability_maps(run: RunDir, basis: str | None = None) -> list[str]:
+    """The run's probability maps (of ``basis`` only, if given), by basis then threshold."""
+    parsed = [(parse_ensemble_name(n), n) for n in run.outputs]
+    found = [(p, n) for p, n in parsed if p and p.kind == "probability"]
+    found = [(p, n) for p, n in found if basis is None or p.basis == basis]
+    return [n for p, n in sorted(found, key=lambda item: (item[0].basis, item[0].threshold_km))]
+
+
+def run_probability(run: RunDir, basis: str | None = None) -> str | None:
+    """The run's probability of melting: the first probability map its summary lists (of
+    ``basis``, if given), else the first it has; None without one."""
+    entry = (ensemble_entry(run) or {}).get("probability")
+    listed = entry.get("outputs") if isinstance(entry, dict) else None
+    maps = probability_maps(run, basis)
+    for name in listed if isinstance(listed, list) else []:
+        if name in maps:
+            return name
+    return maps[0] if maps else None
 
 
 def ensemble_entry(run: RunDir) -> dict[str, Any] | None:
@@ -149,59 +134,105 @@ def read_members(run: RunDir) -> pd.DataFrame:
         raise RunDirError(msg) from exc
 
 
-def _no_probability_maps(run: RunDir, wanted: str) -> RunDirError:
-    available = probability_maps(run)
-    if available:
+def _basis_text(basis: str) -> str:
+    return {"anomaly": "the melt the thermal anomaly adds", "total": "all melt"}.get(basis, basis)
+
+
+def legacy_probability_maps(run: RunDir) -> list[str]:
+    """The probability maps of an ensemble run of an earlier lidmelt (``melt_probability``,
+    ``melt_probability_ge_<T>km``: of any melt, no basis), as its summary lists them."""
+    listed = run.summary.get("outputs")
+    return [n for n in listed if is_legacy_probability(n)] if isinstance(listed, dict) else []
+
+
+def _missing_probability(run: RunDir, basis: str, wanted: str | None) -> RunDirError:
+    """Why the run has no probability map of ``basis`` (``wanted``: the one asked for)."""
+    path = str(run.path)
+    if not probability_maps(run) and legacy_probability_maps(run):
         msg = (
-            f"run {str(run.path)!r} has no {wanted} map; its probability maps are "
-            f"{', '.join(available)}. Choose one of their thresholds (--probability-of KM, "
-            "probability=KM), or add the threshold to [ensemble] thresholds_km and run again."
+            f"run {path!r} was made by an earlier lidmelt: its probability maps "
+            f"({', '.join(legacy_probability_maps(run))}) count any melt "
+            "and say nothing of its basis. Run 'lidmelt run' on the ensemble workflow again; "
+            f"the maps are now {probability_name('anomaly', 1.0)} and the like."
         )
-    else:
+        return RunDirError(msg)
+    if not probability_maps(run):
         msg = (
-            f"run {str(run.path)!r} has no probability maps ({wanted} is missing): it is a "
-            "single run, not an ensemble. Screening by probability needs the maps of an "
-            "ensemble: add an [ensemble] table to the workflow (see docs/workflow.md, "
-            "[ensemble]) and run 'lidmelt run' again, or screen this run's melt with "
-            "--min-melt-thickness KM."
+            f"run {path!r} has no probability maps: it is a single run, not an ensemble. "
+            "Screening by probability needs the maps of an ensemble: add an [ensemble] table to "
+            "the workflow (see docs/workflow.md, [ensemble]) and run 'lidmelt run' again, or "
+            "screen this run's melt with --min-melt-thickness KM."
         )
+        return RunDirError(msg)
+    mine = probability_maps(run, basis)
+    if not mine:
+        other = probability_maps(run)
+        bases = sorted({parse_ensemble_name(n).basis for n in other})
+        msg = (
+            f"screening basis {basis!r} ({_basis_text(basis)}) needs a probability of that "
+            f"melt, but the probability maps of run {path!r} are of basis "
+            f"{', '.join(map(repr, bases))}: {', '.join(other)}. Screen with --basis "
+            f"{bases[0]}, or run the ensemble again with [ensemble] probability_basis = "
+            f'"{basis}".'
+        )
+        return RunDirError(msg)
+    msg = (
+        f"run {path!r} has no {wanted} map; its probability maps of basis {basis!r} are "
+        f"{', '.join(mine)}. Choose one of their thresholds (--probability-of KM), or add the "
+        "threshold to [ensemble] thresholds_km and run again."
+    )
     return RunDirError(msg)
 
 
-def probability_grid(run: RunDir, probability: str | float | None) -> str:
-    """The name of the probability map to screen, checked to be in the run.
+def _named_probability(name: str, basis: str) -> EnsembleName:
+    """The parsed probability map ``name``, or an InputError."""
+    parsed = parse_ensemble_name(name)
+    if parsed is None or parsed.kind != "probability":
+        msg = (
+            f"probability map {name!r} is not a probability map name; expected "
+            "melt_probability_<basis>_ge_<T>km (basis one of "
+            f"{', '.join(PROBABILITY_BASES)}, T in km, e.g. {probability_name(basis, 1.0)}), "
+            "or a threshold in km."
+        )
+        raise InputError(msg)
+    return parsed
 
-    ``probability``: None (``melt_probability``), a melt thickness threshold in km
-    (``melt_probability_ge_<T>km``) or the name of a probability map.
+
+def probability_grid(run: RunDir, probability: str | float | None, basis: str = "anomaly") -> str:
+    """The name of the probability map of ``basis`` to screen, checked to be in the run.
+
+    ``probability``: None (the run's probability of melting of that basis,
+    :func:`run_probability`), a melt threshold in km (``melt_probability_<basis>_ge_<T>km``) or
+    the name of a probability map (of that basis).
 
     Raises
     ------
     InputError
-        If ``probability`` is neither a non-negative number nor a probability map's name.
+        If ``probability`` is neither a positive number nor a probability map's name.
     RunDirError
-        If the run has no such map (naming the maps it has, or how to run an ensemble).
+        If the run has no such map: a single run (says how to run an ensemble), a run of an
+        earlier lidmelt, or maps of another basis or threshold (naming both).
     """
-    if probability is None or isinstance(probability, str):
-        name = probability or PROBABILITY_VARIABLE
-        parsed = parse_ensemble_name(name)
-        if parsed is None or parsed.kind != "probability":
-            msg = (
-                f"probability map {name!r} is not a probability map name; expected "
-                f"{PROBABILITY_VARIABLE} or {PROBABILITY_VARIABLE}_ge_<T>km (T in km, e.g. "
-                f"{probability_name(1.0)}), or a threshold in km."
-            )
-            raise InputError(msg)
+    if isinstance(probability, str):
+        parsed = _named_probability(probability, basis)
+        if parsed.basis != basis:
+            raise _missing_probability(run, basis, probability)
+        name = probability
+    elif probability is None:
+        name = run_probability(run, basis)
+        if name is None:
+            raise _missing_probability(run, basis, None)
     else:
         threshold = float(probability) if isinstance(probability, int | float) else math.nan
-        if not (math.isfinite(threshold) and threshold >= 0):
+        if not (math.isfinite(threshold) and threshold > 0):
             msg = (
                 f"--probability-of {probability!r} km is not a melt thickness; expected a "
-                "threshold >= 0 in km among the ensemble's thresholds_km, e.g. 1."
+                "threshold > 0 in km among the ensemble's thresholds_km, e.g. 1."
             )
             raise InputError(msg)
-        name = probability_name(threshold if threshold > 0 else None)
+        name = probability_name(basis, threshold)
     if name not in run.outputs:
-        raise _no_probability_maps(run, name)
+        raise _missing_probability(run, basis, name)
     return name
 
 

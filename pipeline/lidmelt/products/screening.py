@@ -27,16 +27,20 @@ on the sphere).
 Probability screening
 ---------------------
 An ensemble run (docs/workflow.md, ``[ensemble]``) has probability maps
-(:mod:`lidmelt.products.ensemble`): ``melt_probability``, the fraction of its members whose melt
-thickness is > 0, and ``melt_probability_ge_<T>km`` for each of its thresholds. With
-``min_probability`` P a cell is a candidate cell when the chosen map (``probability``: default
-``melt_probability``; a number T picks ``melt_probability_ge_<T>km``) is >= P; with a melt
-threshold too, a cell must pass both. The regions, ranking (by the basis's melt volume of the
-run's own outputs) and plume matching are as above. Each candidate of a run with a probability
-map gets ``mean_probability`` (area-weighted mean over its cells), ``max_probability`` and
-``likely_area_km2`` (area of its cells with probability >= 0.5, more likely than not to melt).
-A run without the map asked for is refused with a :class:`~lidmelt.errors.RunDirError` that
-says how to run an ensemble.
+(:mod:`lidmelt.products.ensemble`): ``melt_probability_<basis>_ge_<T>km``, the probability that
+a member's melt of the basis reaches T km. The screen's ``basis`` chooses the map too: with
+``min_probability`` P a cell is a candidate cell when the probability of the screen's own basis
+(``probability``: default the run's probability of melting of that basis, the first of its
+thresholds; a number T picks ``melt_probability_<basis>_ge_<T>km``) is >= P; with a melt
+threshold too, a cell must pass both. A run whose probability maps are of another basis, or not
+of the threshold asked for, is refused with a :class:`~lidmelt.errors.RunDirError` naming both;
+so is an ensemble run of an earlier lidmelt (``melt_probability``: any melt, no basis). The
+regions, ranking (by the basis's melt volume of the run's own outputs) and plume matching are as
+above. Each candidate of a run with a probability map of the basis gets ``probability_basis``,
+``probability_threshold_km`` (what the probability is of), ``mean_probability`` (area-weighted
+mean over its cells), ``max_probability`` and ``likely_area_km2`` (area of its cells with
+probability >= 0.5, more likely than not to melt). A run without any probability map is refused
+with a :class:`~lidmelt.errors.RunDirError` that says how to run an ensemble.
 
 Ensemble candidates
 -------------------
@@ -78,6 +82,7 @@ from lidmelt.grids.rundir import RunDir
 from lidmelt.products import ensemble as ens
 from lidmelt.products import sampling as smp
 from lidmelt.products.regions import ANOMALY_MELT_VARIABLE, GEOD, Zones, transform_geometries
+from lidmelt.variables import PROBABILITY_BASES, parse_ensemble_name
 
 if TYPE_CHECKING:
     import geopandas as gpd
@@ -96,8 +101,12 @@ __all__ = [
 #: Extra columns of a screening result.
 CANDIDATE_COLUMNS = ("rank", "plume", "plume_match", "centroid_lon", "centroid_lat")
 
-#: Screening bases: the melt a candidate cell must reach.
-BASES = ("anomaly", "total")
+#: Columns of a candidate from a probability map: what it is of, then its statistics.
+_PROBABILITY_COLUMNS = ("probability_basis", "probability_threshold_km",
+                        *ens.PROBABILITY_STATISTICS)  # fmt: skip
+
+#: Screening bases: the melt a candidate cell must reach (the registry's probability bases).
+BASES = tuple(PROBABILITY_BASES)
 
 #: The volume column that ranks the candidates of each basis.
 BASIS_VOLUME = {"anomaly": "anomaly_melt_volume_km3", "total": "melt_volume_km3"}
@@ -184,8 +193,8 @@ def screen(
         An ensemble run: a cell is a candidate cell when its probability (the map chosen by
         ``probability``) >= this. Dimensionless; 0 < P <= 1.
     probability : str or float, optional
-        The probability map: None ``melt_probability`` (melt > 0); a number T (km)
-        ``melt_probability_ge_<T>km``; or a probability map's name. Needs ``min_probability``.
+        The probability map of ``basis``: None the run's own; a number T (km)
+        ``melt_probability_<basis>_ge_<T>km``; or its name. Needs ``min_probability``.
     min_area_km2 : float
         Smallest area of a candidate region. Units: km^2; >= 0.
     basis : {"anomaly", "total"}
@@ -201,8 +210,9 @@ def screen(
         One row per candidate in the grid's CRS, ordered by the basis's melt volume (``rank``
         1 = largest): ``rank``, ``plume``, ``plume_match``, the statistics columns of the
         module notes, ``centroid_lon``, ``centroid_lat`` (WGS84 degrees), and (Multi)Polygon
-        geometries along the cells' edges; with a probability map (screened, or the run's
-        ``melt_probability``) also ``mean_probability``, ``max_probability`` and
+        geometries along the cells' edges; with a probability map of the basis (screened, or
+        the run's probability of melting) also ``probability_basis``,
+        ``probability_threshold_km``, ``mean_probability``, ``max_probability`` and
         ``likely_area_km2`` (module notes). Empty (with these columns) when no region
         qualifies. ``attrs["lidmelt_basis"]`` holds the basis, ``attrs["lidmelt_probability"]``
         the probability map ("" without one).
@@ -215,7 +225,8 @@ def screen(
         for a run without a plate age.
     lidmelt.errors.RunDirError
         If ``run`` is not a run directory, has no melt_thickness_km, (basis ``"anomaly"``) no
-        anomaly_melt_thickness_km, or (``min_probability``) not the probability map.
+        anomaly_melt_thickness_km, or (``min_probability``) no probability map of the basis and
+        threshold (naming those it has).
     """
     thr, min_area, p_min = _check_thresholds(
         min_melt_thickness_km, min_area_km2, min_probability, probability
@@ -225,20 +236,31 @@ def screen(
     zones = Zones.load(run)
     grid = zones.grid
     values = _basis_values(zones, basis, run=run)
-    prob_name, prob = _probability(run, grid, probability, screening=p_min is not None)
+    prob_name, prob = _probability(run, grid, probability, basis, screening=p_min is not None)
     mask = np.ones(values.shape, dtype=bool) & _passing(values, thr) & _passing(prob, p_min)
     if min_age_ma is not None:
         mask &= _old_enough(zones, min_age_ma, run=run)
     labels, n = _label(mask, periodic=grid.is_periodic)
-    volume = BASIS_VOLUME[basis]
-    records = _candidate_records(zones, labels, n, min_area, volume=volume, probability=prob)
+    records = _candidate_records(zones, labels, n, min_area, volume=BASIS_VOLUME[basis],
+                                 probability=prob)  # fmt: skip
     _match_plumes(records, labels, zones, run_plumes(run))
     polygons = _component_polygons(labels, np.array([r["label"] for r in records]), grid.affine)
-    stats = [*zones.columns, *(ens.PROBABILITY_STATISTICS if prob is not None else ())]
+    stats = [*zones.columns, *_what_probability(records, basis, prob_name)]
     out = _candidate_frame(records, stats, polygons, grid.pyproj_crs)
     out.attrs["lidmelt_basis"] = basis
     out.attrs["lidmelt_probability"] = prob_name
     return out
+
+
+def _what_probability(records: list[dict[str, Any]], basis: str, name: str) -> tuple[str, ...]:
+    """With a probability map ``name`` (else ""), give each record the probability's basis and
+    threshold; return the probability columns (none without a map)."""
+    if not name:
+        return ()
+    threshold = parse_ensemble_name(name).threshold_km
+    for record in records:
+        record.update(probability_basis=basis, probability_threshold_km=threshold)
+    return _PROBABILITY_COLUMNS
 
 
 def _candidate_frame(
@@ -309,15 +331,16 @@ def _passing(values: np.ndarray | None, least: float | None) -> np.ndarray | boo
 
 
 def _probability(
-    run: RunDir, grid: Any, probability: Any, *, screening: bool
+    run: RunDir, grid: Any, probability: Any, basis: str, *, screening: bool
 ) -> tuple[str, np.ndarray | None]:
-    """The probability map screened (or, when not screening, the run's melt_probability if
-    it has one) and its values; ``("", None)`` without one."""
+    """The probability map of ``basis`` screened (or, when not screening, the run's
+    probability of melting of that basis if it has one) and its values; ``("", None)``
+    without one."""
     if screening:
-        name = ens.probability_grid(run, probability)
-    elif ens.PROBABILITY_VARIABLE in run.outputs:
-        name = ens.PROBABILITY_VARIABLE
+        name = ens.probability_grid(run, probability, basis)
     else:
+        name = ens.run_probability(run, basis)
+    if name is None:
         return "", None
     return name, smp.load_variable(run, name, grid)
 

@@ -20,6 +20,7 @@ from typing import Any
 from lidmelt.config import DISTRIBUTIONS, SAMPLING_METHODS, EnsembleOptions, RunConfig, VarySpec
 from lidmelt.ensemble.sampling import draw_members
 from lidmelt.errors import WorkflowError
+from lidmelt.variables import PROBABILITY_BASES
 from lidmelt.workflow.checks import Context, at_least, choice, in_range, number, table, wrong_type
 from lidmelt.workflow.overrides import apply_override
 from lidmelt.workflow.schema import ALL_KEYS
@@ -55,7 +56,12 @@ def read_ensemble(
         )  # fmt: skip
     if "sampling" in values:
         opts["sampling"] = choice(ctx, "ensemble.sampling", values["sampling"], SAMPLING_METHODS)
-    for key, low, high, unit in (("thresholds_km", 0.0, 1000.0, "km"), ("percentiles", 0, 100, "")):
+    if "probability_basis" in values:
+        opts["probability_basis"] = choice(
+            ctx, "ensemble.probability_basis", values["probability_basis"], tuple(PROBABILITY_BASES)
+        )
+    lists = (("thresholds_km", 1e-6, 1000.0, "km"), ("percentiles", 0, 100, ""))
+    for key, low, high, unit in lists:
         if key in values:
             opts[key] = _numbers(ctx, f"ensemble.{key}", values[key], low, high, unit)
     if "memory_limit_gb" in values:
@@ -73,6 +79,14 @@ def read_ensemble(
             ctx, "ensemble.candidate_min_melt_km", values["candidate_min_melt_km"], 1e-6, 1000.0,
             "km", "give the least melt the anomaly adds in a candidate cell, in km",
         )  # fmt: skip
+    if opts.get("thresholds_km") == ():
+        msg = (
+            f"{ctx.where('ensemble.thresholds_km')} is empty; list at least one melt thickness "
+            "in km (the first is the run's probability of melting), e.g. thresholds_km = [1.0]."
+        )
+        raise WorkflowError(msg)
+    if "thresholds_km" not in opts:  # the candidates' threshold: one melt for both
+        opts["thresholds_km"] = (opts.get("candidate_min_melt_km", 1.0),)
     vary = tuple(_read_vary(ctx, table(ctx, "ensemble.vary", values.get("vary", {}))))
     base = EnsembleOptions(**opts, vary=vary)
     samples = draw_members(vary, base.members, seed=base.seed, sampling=base.sampling)

@@ -58,6 +58,7 @@ SCHEMA: dict[str, tuple[str, ...]] = {
         "members",
         "seed",
         "sampling",
+        "probability_basis",
         "thresholds_km",
         "percentiles",
         "memory_limit_gb",

@@ -13,6 +13,7 @@ import numpy as np
 
 from lidmelt import __version__
 from lidmelt.products.maps.style import MELT_TOP_PERCENTILE, VariableStyle
+from lidmelt.variables import ordinal
 
 __all__ = [
     "describe_lid",
@@ -110,11 +111,22 @@ def ensemble_basis(summary: dict[str, Any]) -> str:
     ens = summary.get("ensemble") or {}
     varied = ", ".join(ens.get("vary") or {}) or "nothing"
     sampling = str(ens.get("sampling", "")).replace("_", " ")
-    return (
+    text = (
         f"Ensemble of {ens.get('members', '?')} members ({sampling} sampling, seed "
         f"{ens.get('seed', '?')}) varying {varied} around the workflow's own values; "
         f"{run_basis(summary)[:1].lower()}{run_basis(summary)[1:-1]} in the workflow itself."
     )
+    prob = ens.get("probability")
+    if isinstance(prob, dict) and isinstance(prob.get("min_melt_fraction"), int | float):
+        text += (
+            " Each cell over the members with a value there; a member counts toward a "
+            "probability where its melt reaches the threshold with a melt fraction of at least "
+            f"{100 * prob['min_melt_fraction']:g} % at the top of melting."
+        )
+    lacking = (ens.get("members_without_value") or {}).get("members")
+    if isinstance(lacking, int) and lacking:
+        text += f" {lacking} members have no value in some cells (see the run report)."
+    return text
 
 
 def model_line(summary: dict[str, Any]) -> str:
@@ -126,20 +138,37 @@ def model_line(summary: dict[str, Any]) -> str:
     return f"Model {name}; ambient mantle potential temperature {tp_text}"
 
 
-def _limits_text(style: VariableStyle, *, no_melt: bool, extend: str) -> str:
+def _contour_text(style: VariableStyle, drawn: tuple[float, ...] | None) -> str:
+    """The labelled contours of the style: those drawn, and why the others are not."""
+    if drawn is None:
+        drawn = style.contours
+    levels = ", ".join(f"{v:g}" for v in drawn)
+    text = f"; labelled black line: the {levels} contour (edge of the cells >= it)" if drawn else ""
+    missing = [v for v in style.contours if v not in drawn]
+    if missing:
+        text += (
+            f"; no {', '.join(f'{v:g}' for v in missing)} contour: no cell crosses it (every "
+            "cell is on one side)"
+        )
+    return text
+
+
+def _limits_text(
+    style: VariableStyle, *, no_melt: bool, extend: str, contours: tuple[float, ...] | None = None
+) -> str:
     """How the colour limits were chosen and what white means."""
     if style.categorical:
         return "Colours: the classes named in the legend"
     low, high = style.percentiles
     if style.zero_is_no_melt and style.negligible_below > 0.0:
         limits = (
-            f"Colour scale from 0 to the {MELT_TOP_PERCENTILE:g}th percentile of the melting "
+            f"Colour scale from 0 to the {ordinal(MELT_TOP_PERCENTILE)} percentile of the melting "
             f"cells; white: {style.no_melt_label}, below lidmelt's least amount (the GeoTIFF "
             "keeps the exact values)"
         )
     elif style.zero_is_no_melt:
         limits = (
-            f"Colour scale from 0 to the {MELT_TOP_PERCENTILE:g}th percentile of the melting "
+            f"Colour scale from 0 to the {ordinal(MELT_TOP_PERCENTILE)} percentile of the melting "
             f"cells; white: {style.no_melt_label} (exactly 0)"
         )
     elif style.limits is not None:
@@ -147,12 +176,14 @@ def _limits_text(style: VariableStyle, *, no_melt: bool, extend: str) -> str:
     elif (low, high) == (0.0, 100.0):
         limits = "Colour scale over the whole range of the cells drawn (minimum to maximum)"
     else:
-        limits = f"Colour limits from the {low:g}th and {high:g}th percentiles of the valid cells"
+        limits = (
+            f"Colour limits from the {ordinal(low)} and {ordinal(high)} percentiles of the valid "
+            "cells"
+        )
     if style.diverging:
         limits += ", symmetric about 0 (white); black line: 0"
     if style.contours:
-        levels = ", ".join(f"{v:g}" for v in style.contours)
-        limits += f"; labelled black line: the {levels} contour"
+        limits += _contour_text(style, contours)
     if no_melt and not style.zero_is_no_melt:
         limits += "; white: no melting (the variable is not defined there and is not drawn)"
     if extend != "neither":
@@ -174,19 +205,21 @@ def map_caption(
     plumes: bool = False,
     grid_share: float | None = None,
     ensemble: bool = False,
+    contours: tuple[float, ...] | None = None,
 ) -> str:
     """The caption: what the run used, colour limits and classes, hatching, projection, version.
 
     ``flag_note`` is the sentence on the hatched (flagged) cells, if any
     (:func:`.flags.flag_caption`); ``outside`` says the view shows area beyond the grid;
-    ``grid_share`` is :func:`lid_grid_share`; ``ensemble`` marks a layer of the ensemble.
+    ``grid_share`` is :func:`lid_grid_share`; ``ensemble`` marks a layer of the ensemble;
+    ``contours`` the style's contour levels that are drawn (None: all of them).
     """
     grey = "grey: no data in the grid"
     if outside:
         grey += "; pale blue-grey: outside the grid"
     parts = [
         ensemble_basis(summary) if ensemble else run_basis(summary, grid_share),
-        f"{_limits_text(style, no_melt=no_melt, extend=extend)}; {grey}.",
+        f"{_limits_text(style, no_melt=no_melt, extend=extend, contours=contours)}; {grey}.",
     ]
     if flag_note:
         parts.append(flag_note)

@@ -148,6 +148,7 @@ def _compose_text(
         plumes=bool(view.plumes),
         grid_share=lid_grid_share(run),
         ensemble=ensemble_variable(f.variable) is not None,
+        contours=crossing_levels(f.values, f.style.contours),
     )
     cap_w = max(page.map_w + page.right - 0.15, text_w - 0.1)
     return _Text(

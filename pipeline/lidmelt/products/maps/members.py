@@ -3,11 +3,15 @@
 :func:`member_histogram` draws how one basin total (default the melt volume) spreads over the
 members of an ensemble run (``ensemble_members.csv``; :mod:`lidmelt.products.ensemble`), with
 its percentiles (those the run's summary gives, else computed from the members with numpy's
-default linear interpolation) as labelled vertical lines. Drawn on an Agg canvas without pyplot.
+``"linear"`` method: the same definition, Hyndman & Fan 1996 definition 7) as labelled vertical
+lines. The value axis is in the total's own unit (km³ or km²), its ticks written out in full with
+thousands separators (no offset or power-of-ten multiplier). Members without a value (NaN) are
+left out and the title says how many were drawn. Drawn on an Agg canvas without pyplot.
 """
 
 from __future__ import annotations
 
+import textwrap
 from collections.abc import Mapping
 from typing import Any
 
@@ -15,6 +19,7 @@ import numpy as np
 import pandas as pd
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.figure import Figure
+from matplotlib.ticker import FuncFormatter, MaxNLocator
 
 from lidmelt.errors import InputError
 
@@ -51,7 +56,7 @@ def member_histogram(
         ``{"p10": value, "p50": ..., "p90": ..., "mean": ...}`` from the run's summary; None:
         the 10th, 50th and 90th percentiles of the members.
     width_in, dpi : float
-        Figure width (in) and resolution; the height is 0.5 x the width.
+        Figure width (in) and resolution; the height follows (the plot is 0.4 x the width).
 
     Raises
     ------
@@ -68,9 +73,16 @@ def member_histogram(
         )
         raise InputError(msg)
     marks = _marks(values, percentiles)
-    fig = Figure(figsize=(width_in, 0.5 * width_in), dpi=dpi, facecolor="white")
+    label = TOTAL_LABELS.get(column, column.replace("_", " "))
+    title = textwrap.wrap(f"{label[:1].upper()}{label[1:]} of the ensemble members",
+                          width=max(20, int((width_in - 0.8) * 10)))  # fmt: skip
+    top = 0.1 + 0.2 * len(title) + 0.22  # inches: title lines, the count line
+    height = top + 0.4 * width_in + 0.6
+    fig = Figure(figsize=(width_in, height), dpi=dpi, facecolor="white")
     FigureCanvasAgg(fig)
-    ax = fig.add_axes((0.1, 0.17, 0.86, 0.7))
+    ax = fig.add_axes(
+        (0.7 / width_in, 0.6 / height, 1.0 - 0.95 / width_in, 0.4 * width_in / height)
+    )
     bins = int(np.clip(np.sqrt(values.size), 5, 30))  # square-root rule, common practice
     ax.hist(values, bins=bins, color=HISTOGRAM_COLOR, edgecolor="white", linewidth=0.5)
     for key, value in marks.items():
@@ -84,19 +96,31 @@ def member_histogram(
             va="top",
             fontsize=8,
         )
-    label = TOTAL_LABELS.get(column, column.replace("_", " "))
     ax.set_xlabel(label, fontsize=9)
     ax.set_ylabel("members", fontsize=9)
+    ax.xaxis.set_major_locator(MaxNLocator(nbins=max(3, int(width_in / 1.2))))
+    ax.xaxis.set_major_formatter(FuncFormatter(_full_number))
+    ax.yaxis.set_major_locator(MaxNLocator(integer=True))
     ax.tick_params(labelsize=8)
     ax.spines[["top", "right"]].set_visible(False)
-    fig.suptitle(
-        f"{label[:1].upper()}{label[1:]} of the {values.size} ensemble members",
-        x=0.1,
-        ha="left",
-        fontsize=10,
-        fontweight="bold",
-    )
+    fig.text(0.1, 1.0 - 0.1 / height, "\n".join(title), ha="left", va="top", fontsize=10,
+             fontweight="bold", linespacing=1.2)  # fmt: skip
+    drawn = f"{values.size} members"
+    if values.size < len(members):
+        drawn = (
+            f"{values.size} of the {len(members)} members: the {len(members) - values.size} "
+            "without a value are left out"
+        )
+    fig.text(0.1, 1.0 - (top - 0.04) / height, drawn, ha="left", va="bottom", fontsize=8,
+             color="0.25")  # fmt: skip
     return fig
+
+
+def _full_number(value: float, _position: Any = None) -> str:
+    """A tick label in full with thousands separators: ``20000000`` -> ``"20,000,000"``."""
+    if abs(value) >= 1000 or float(value).is_integer():
+        return f"{value:,.0f}"
+    return f"{value:.3g}"
 
 
 def _marks(values: np.ndarray, given: Mapping[str, Any] | None) -> dict[str, float]:

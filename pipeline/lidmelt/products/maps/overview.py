@@ -6,11 +6,15 @@ thermal anomaly adds), (d) onset depth, (e) excess to melt (the melting regime w
 has no excess), (f) top of the melting column, the results. Every panel uses the variable's
 own style (:mod:`.style`: colour map, limits, no-melt and nodata colours, zero contour), the
 same projection (:func:`.layout.make_projection` of the grid's extent) and the plume centres
-of the workflow; each has its colour bar under it. One caption under the panels says what the
-run used and what the colours mean. :func:`draw_overview` writes it as PNG (300 dpi) and as
-vector PDF and SVG (the data layers are embedded images; text and lines stay vector); the PNG
-carries :func:`run_stamp` in its metadata (``lidmelt-run``), so a copy of it (the README's)
-can be checked against a fresh run of the same workflow.
+of the workflow; each has its colour bar under it. An ensemble run adds two panels: (g) its
+probability of melting (:func:`lidmelt.products.ensemble.run_probability`, with the 0.5
+contour) and (h) the spread of the melt the anomaly adds over the members, its 90th minus its
+10th percentile (the widest pair of percentiles the run wrote), drawn like a melt amount (white:
+every member alike). One caption under the panels says what the run used and what the colours
+mean. :func:`draw_overview` writes it as PNG (300 dpi) and as vector PDF and SVG (the data
+layers are embedded images; text and lines stay vector); the PNG carries :func:`run_stamp` in
+its metadata (``lidmelt-run``), so a copy of it (the README's) can be checked against a fresh
+run of the same workflow.
 """
 
 from __future__ import annotations
@@ -20,6 +24,7 @@ from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any
 
+import numpy as np
 from matplotlib import colormaps
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.cm import ScalarMappable
@@ -29,6 +34,7 @@ from matplotlib.font_manager import FontProperties
 
 from lidmelt.errors import InputError
 from lidmelt.grids.rundir import RunDir
+from lidmelt.products import ensemble as ens
 from lidmelt.products.maps import layout as lay
 from lidmelt.products.maps import marks as mk
 from lidmelt.products.maps import overlays as ov
@@ -41,9 +47,11 @@ from lidmelt.products.maps.style import (
     OUTSIDE_COLOR,
     class_legend_handles,
     colorbar_label,
+    colour_limits,
     end_ticks,
 )
 from lidmelt.products.maps.write import save_figure
+from lidmelt.variables import ordinal, parse_ensemble_name, percentile_name
 
 __all__ = [
     "OVERVIEW_PANELS",
@@ -95,6 +103,43 @@ def _panel_variables(run: RunDir) -> list[str]:
     return names
 
 
+#: The output whose spread over an ensemble's members the overview shows.
+SPREAD_OF = "anomaly_melt_thickness_km"
+
+
+def _spread_field(run: RunDir, opts: MapOptions) -> Field | None:
+    """The spread over the members of :data:`SPREAD_OF`: its highest minus its lowest
+    percentile map (90th minus 10th by default); None without two percentiles."""
+    qs = sorted(
+        p.percentile
+        for n in run.outputs
+        if (p := parse_ensemble_name(n)) and p.kind == "percentile" and p.base == SPREAD_OF
+    )
+    if len(qs) < 2:
+        return None
+    low, high = (open_field(run, percentile_name(SPREAD_OF, q), opts) for q in (qs[0], qs[-1]))
+    values = high.values - low.values
+    vmin, vmax, extend = colour_limits(values, zero_is_no_melt=True)
+    long_name = (
+        f"Spread of the melt the anomaly adds over the ensemble ({ordinal(qs[-1])} minus "
+        f"{ordinal(qs[0])} percentile)"
+    )
+    alike = np.isfinite(values) & (values <= 0.0)  # drawn white: every member alike
+    return replace(high, variable=f"{SPREAD_OF}_spread", values=values, vmin=vmin, vmax=vmax,
+                   extend=extend, long_name=long_name, no_melt=alike, flag_bits=(),
+                   flag_grid=None)  # fmt: skip
+
+
+def _ensemble_fields(run: RunDir, opts: MapOptions) -> list[Field]:
+    """The ensemble's panels (module notes): its probability of melting and the spread."""
+    fields = []
+    probability = ens.run_probability(run)
+    if probability is not None:
+        fields.append(replace(open_field(run, probability, opts), flag_bits=(), flag_grid=None))
+    spread = _spread_field(run, opts)
+    return [*fields, spread] if spread is not None else fields
+
+
 def _colorbar(fig: Figure, rect: tuple, f: Field, fs: float) -> str:
     """A horizontal colour bar in ``rect`` (figure fractions); return its label."""
     cax = fig.add_axes(rect)
@@ -119,14 +164,42 @@ def _colorbar(fig: Figure, rect: tuple, f: Field, fs: float) -> str:
     cbar.set_ticks(ticks, labels=labels)
     cbar.ax.tick_params(labelsize=0.85 * fs, length=2, width=0.5, pad=1.5)
     label = colorbar_label(f.long_name, f.units)
-    cbar.set_label(label, fontsize=0.9 * fs, labelpad=2)
+    width_px = rect[2] * fig.get_figwidth() * fig.dpi  # long labels wrap to the bar's width
+    lines = pg.wrap_measured(
+        label, fig.canvas.get_renderer(), FontProperties(size=0.9 * fs), width_px
+    )
+    cbar.set_label("\n".join(lines), fontsize=0.9 * fs, labelpad=2)
     cbar.outline.set_linewidth(0.5)
     return label
 
 
-def _caption(run: RunDir, proj_name: str, outside: bool, fields: list[Field]) -> str:
+def _ensemble_caption(run: RunDir, fields: list[Field], first: int) -> str:
+    """What the ensemble panels (from letter index ``first``) show."""
+    entry = ens.ensemble_entry(run) or {}
+    parts = []
+    for k, f in enumerate(fields[first:], start=first):
+        letter = chr(ord("a") + k)
+        if f.style.contours:
+            parts.append(
+                f"({letter}) over the {entry.get('members', '?')} members of the ensemble, "
+                "among those with a value in the cell (black line: 0.5, where it is crossed)"
+            )
+        else:
+            parts.append(
+                f"({letter}) where the members disagree on the melt the anomaly adds (white: "
+                "every member alike)"
+            )
+    varied = ", ".join(entry.get("vary") or {}) or "nothing"
+    return f"Ensemble panels: {'; '.join(parts)}; the members vary {varied}."
+
+
+def _caption(
+    run: RunDir, proj_name: str, outside: bool, fields: list[Field], deterministic: int
+) -> str:
     summary = run.summary
     parts = [run_basis(summary, lid_grid_share(run))]
+    if len(fields) > deterministic:
+        parts.append(_ensemble_caption(run, fields, deterministic))
     parts.append(
         "Colour limits per panel as on the single maps: melt amounts from 0 to the 99.5th "
         "percentile of the melting cells, depths and the thermal anomaly over their whole "
@@ -260,10 +333,11 @@ def make_overview_figure(
     names = _panel_variables(run)
     first = open_field(run, names[0], opts)
     fields = [first] + [open_field(run, n, replace(opts, projection=first.proj)) for n in names[1:]]
+    fields += _ensemble_fields(run, replace(opts, projection=first.proj))
     fig = Figure(figsize=(width_in, 10.0), dpi=dpi, facecolor="white")
     FigureCanvasAgg(fig)
     grid, global_view, outside = _layout(fig, first, width_in, len(fields))
-    caption = _caption(run, first.proj_name, outside, fields)
+    caption = _caption(run, first.proj_name, outside, fields, len(names))
     cap_fs = 0.9 * grid.fs
     cap = pg.wrap_measured(
         caption, fig.canvas.get_renderer(), FontProperties(size=cap_fs), (width_in - 0.8) * dpi
@@ -277,10 +351,14 @@ def make_overview_figure(
         ax, label = _draw_panel(fig, grid, k, f, global_view=global_view, plumes=plumes, dpi=dpi)
         axes.append(ax)
         labels.append(label)
+    ensemble = ""
+    if len(fields) > len(names):
+        letters = ", ".join(chr(ord("a") + k) for k in range(len(names), len(fields)))
+        ensemble = f" and its ensemble ({letters})"
     fig.text(
         grid.left / width_in,
         1.0 - 0.12 / grid.height,
-        f"Run {run.path.name}: inputs (a, b) and predicted melting (c-f)",
+        f"Run {run.path.name}: inputs (a, b) and predicted melting (c-f){ensemble}",
         fontsize=1.25 * grid.fs,
         fontweight="bold",
         va="top",
@@ -296,7 +374,7 @@ def make_overview_figure(
         linespacing=1.3,
     )
     info = OverviewInfo(
-        variables=tuple(names),
+        variables=tuple(f.variable for f in fields),
         titles=tuple(f.long_name for f in fields),
         colorbar_labels=tuple(labels),
         limits=tuple((f.vmin, f.vmax) for f in fields),

@@ -35,7 +35,8 @@ colour-vision deficiency). Melt production (``melt_production_mm_yr``) is sequen
 magma and inferno end near white), with 0 drawn as "no melting".
 
 Probabilities of an ensemble run (style ``"probability"``) have a scale of their own with fixed
-limits 0 and 1 and the 0.5 contour drawn (:mod:`.probability`); the ensemble's percentile maps
+limits 0 and 1 and the 0.5 contour drawn (:mod:`.probability`); the share of the members without
+a value (style ``"member_fraction"``) the same fixed limits; the ensemble's percentile maps
 (``melt_thickness_km_p90``, ...) take their base variable's style
 (:func:`lidmelt.products.ensemble.variable_of`).
 """
@@ -162,6 +163,8 @@ STYLES: dict[str, MapStyle] = {
     PROBABILITY_STYLE: MapStyle(
         PROBABILITY_CMAP, limits=PROBABILITY_LIMITS, contours=PROBABILITY_CONTOURS
     ),
+    # a share of the ensemble's members (those without a value): fixed 0 to 1, like probability
+    "member_fraction": MapStyle("cividis", limits=PROBABILITY_LIMITS),
 }
 #: Style of a variable the registry does not know, or whose key has no entry.
 DEFAULT_STYLE = MapStyle("viridis")
