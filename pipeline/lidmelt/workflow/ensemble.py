@@ -20,7 +20,16 @@ from typing import Any
 from lidmelt.config import DISTRIBUTIONS, SAMPLING_METHODS, EnsembleOptions, RunConfig, VarySpec
 from lidmelt.ensemble.sampling import draw_members
 from lidmelt.errors import WorkflowError
-from lidmelt.workflow.checks import Context, at_least, choice, in_range, number, table, wrong_type
+from lidmelt.workflow.checks import (
+    Context,
+    at_least,
+    choice,
+    in_range,
+    number,
+    shown,
+    table,
+    wrong_type,
+)
 from lidmelt.workflow.overrides import apply_override
 from lidmelt.workflow.schema import ALL_KEYS
 
@@ -114,8 +123,8 @@ def _check_key(ctx: Context, where: str, key: str) -> None:
     if key.startswith(_VARIABLE_TABLES) and leaf not in _FIXED_LEAVES and known:
         return
     msg = (
-        f"{ctx.where(where)}: {key!r} is not a workflow key an ensemble can vary; expected the "
-        "dotted name of a scalar key of [model], [lithosphere] or [inputs] as --set takes it, "
+        f"{ctx.where(where)}: {shown(key)} is not a workflow key an ensemble can vary; expected "
+        "the dotted name of a scalar key of [model], [lithosphere] or [inputs] as --set takes it, "
         "e.g. model.ambient_potential_temperature_c, inputs.water.constant, "
         "inputs.thermal_anomaly.plumes.1.peak_excess_k (see docs/workflow.md)."
     )
@@ -134,7 +143,7 @@ def _read_vary(ctx: Context, values: dict[str, Any]) -> list[VarySpec]:
         extra = sorted(set(dist) - set(DISTRIBUTIONS) - {"weights"})
         if len(kinds) != 1 or extra:
             msg = (
-                f"{ctx.where(where)} is {dist!r}; expected exactly one of "
+                f"{ctx.where(where)} is {shown(dist)}; expected exactly one of "
                 f"{', '.join(DISTRIBUTIONS)} (and 'weights' with choice), e.g. {example}."
             )
             raise WorkflowError(msg)

@@ -10,12 +10,16 @@ from typing import Any
 
 from lidmelt.config import RunConfig
 from lidmelt.errors import LidmeltError, WorkflowError
-from lidmelt.workflow.checks import Context, user_path
+from lidmelt.workflow.checks import Context, shortened, shown, user_path
 from lidmelt.workflow.ensemble import read_ensemble
 from lidmelt.workflow.overrides import apply_override
 from lidmelt.workflow.tables import read_config
 
-__all__ = ["load_workflow", "validate_models"]
+__all__ = ["MAX_NESTING", "load_workflow", "validate_models"]
+
+#: The deepest nesting of tables and arrays a workflow may have (the deepest valid key, an
+#: ensemble distribution written as nested tables, has about 10 levels).
+MAX_NESTING = 32
 
 
 def load_workflow(
@@ -67,18 +71,12 @@ def load_workflow(
     except (OSError, UnicodeDecodeError) as exc:
         msg = f"workflow file {source!r} cannot be read as UTF-8 text ({exc}); save it as UTF-8."
         raise WorkflowError(msg) from exc
-    try:
-        tree = tomllib.loads(text)
-    except tomllib.TOMLDecodeError as exc:
-        msg = (
-            f"workflow file {source!r} is not valid TOML: {exc}. Check that line (strings need "
-            'quotes: name = "demo"; tables are written [model]; see docs/workflow.md).'
-        )
-        raise WorkflowError(msg) from exc
+    tree = _parse(source, text)
     ctx = Context(source, {})
     items = tuple(overrides)
     for item in items:
         apply_override(ctx, tree, item)
+    _check_nesting(ctx, tree)
     cfg = read_config(
         ctx, tree, workflow_path=workflow_path, text=text, overrides=items, output_dir=output_dir
     )
@@ -97,6 +95,55 @@ def load_workflow(
 
     ensemble = read_ensemble(ctx, tree, member)
     return cfg if ensemble is None else dataclasses.replace(cfg, ensemble=ensemble)
+
+
+def _parse(source: str, text: str) -> dict[str, Any]:
+    """The TOML tree of a workflow file's text; a WorkflowError for bad TOML or for arrays or
+    inline tables nested so deeply that the parser runs out of stack (it recurses)."""
+    try:
+        return tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        msg = (
+            f"workflow file {source!r} is not valid TOML: {shortened(str(exc))}. Check that "
+            'line (strings need quotes: name = "demo"; tables are written [model]; see '
+            "docs/workflow.md)."
+        )
+        raise WorkflowError(msg) from exc
+    except (RecursionError, ValueError) as exc:  # ValueError: an integer of > 4300 digits
+        what = (
+            "nests arrays or inline tables too deeply"
+            if isinstance(exc, RecursionError)
+            else "holds a number too long to read (more than 4300 digits)"
+        )
+        msg = (
+            f"workflow file {source!r} {what}; a workflow nests tables and arrays at most "
+            f"{MAX_NESTING} levels deep and holds numbers of ordinary size. Check the file "
+            "(see docs/workflow.md)."
+        )
+        raise WorkflowError(msg) from None
+
+
+def _check_nesting(ctx: Context, tree: dict[str, Any]) -> None:
+    """A WorkflowError naming the key where tables or arrays nest more than
+    :data:`MAX_NESTING` levels deep (checked without recursion)."""
+    stack: list[tuple[Any, int, str]] = [(tree, 0, "")]
+    while stack:
+        node, depth, key = stack.pop()
+        if depth > MAX_NESTING:
+            msg = (
+                f"{ctx.where(key)} is nested {depth} or more levels deep (tables within tables, "
+                f"arrays within arrays); a workflow has at most {MAX_NESTING}. Check the "
+                "brackets and [table.headers] there against docs/workflow.md."
+            )
+            raise WorkflowError(msg)
+        if isinstance(node, dict):
+            items = node.items()
+        elif isinstance(node, list):
+            items = ((str(i), v) for i, v in enumerate(node, start=1))
+        else:
+            continue
+        for name, value in items:
+            stack.append((value, depth + 1, f"{key}.{name}" if key else name))
 
 
 def validate_models(cfg: RunConfig) -> None:
@@ -153,6 +200,8 @@ def validate_models(cfg: RunConfig) -> None:
             sets = [
                 item for item in cfg.overrides if item.partition("=")[0].strip().startswith(key)
             ]
-            origin = f" (with --set {', '.join(sets)})" if sets else ""
-            msg = f"'{key}' = {value!r} in {cfg.workflow_path.name}{origin} is not valid: {exc}"
+            origin = f" (with --set {shortened(', '.join(sets))})" if sets else ""
+            msg = (
+                f"'{key}' = {shown(value)} in {cfg.workflow_path.name}{origin} is not valid: {exc}"
+            )
             raise WorkflowError(msg) from exc
