@@ -93,7 +93,16 @@ def load_workflow(
             checked.add((member_cfg.model, member_cfg.lithosphere))
         return member_cfg
 
-    ensemble = read_ensemble(ctx, tree, member)
+    def fits(options) -> None:  # the ensemble's memory, refused before members are drawn
+        from lidmelt.ensemble.stage import check_memory
+
+        try:
+            check_memory(dataclasses.replace(cfg, ensemble=options))
+        except WorkflowError as exc:
+            msg = f"{source}: {exc}"
+            raise WorkflowError(msg) from None
+
+    ensemble = read_ensemble(ctx, tree, member, fits)
     return cfg if ensemble is None else dataclasses.replace(cfg, ensemble=ensemble)
 
 
