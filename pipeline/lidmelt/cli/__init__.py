@@ -21,6 +21,7 @@ from lidmelt import __version__
 from lidmelt.cli import cache, column, map, profile, regions, report, run, sample, screen
 from lidmelt.cli._failures import Terminated, bounded, describe_failure, termination_as_interrupt
 from lidmelt.errors import LidmeltError
+from lidmelt.physics import compiled_cache_note
 
 __all__ = ["COMMANDS", "build_parser", "main"]
 
@@ -51,6 +52,9 @@ def main(argv: list[str] | None = None) -> int:
     if not getattr(args, "func", None):
         parser.print_help()
         return 0
+    note = compiled_cache_note()
+    if note:
+        print(f"lidmelt {args.command}: note: {note}", file=sys.stderr)
     try:
         with termination_as_interrupt():
             return int(args.func(args) or 0)
