@@ -41,6 +41,7 @@ from lidmelt.progress import band_reporter
 from lidmelt.run_inputs import (
     LID_INPUTS,
     RunInputs,
+    files_read,
     lid_cooling_model,
     load_inputs,
     load_model,
@@ -460,7 +461,8 @@ def run_basin(
         For any bad input (file, grid, range, model), a destination locked by another run, or
         a run without a single evaluable cell; nothing is left half-written.
     """
-    with RunTransaction(output_dir or cfg.run.output_dir, wait=wait) as tx, connect(cfg) as client:
+    dest, reads = output_dir or cfg.run.output_dir, files_read(cfg)
+    with RunTransaction(dest, wait=wait, inputs=reads) as tx, connect(cfg) as client:
         result = _run_staged(cfg, tx.staging, progress, extra_stages, client)
         t0 = time.perf_counter()
         rundir.seal_run(tx.staging, result.summary, sources=result.sources)

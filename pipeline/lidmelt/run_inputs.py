@@ -10,10 +10,12 @@ them before the kernel; ensembles (:mod:`lidmelt.ensemble`) run them once per di
 from __future__ import annotations
 
 from dataclasses import dataclass, replace
+from pathlib import Path
 from typing import Any
 
 import xarray as xr
 
+from lidmelt.cluster import input_paths
 from lidmelt.config import DEFAULT_MAX_CELLS
 from lidmelt.errors import InputError
 from lidmelt.grids.align import align
@@ -27,6 +29,7 @@ from lidmelt.variables import INPUTS, input_for_workflow_key
 __all__ = [
     "LID_INPUTS",
     "RunInputs",
+    "files_read",
     "lid_cooling_model",
     "load_inputs",
     "load_model",
@@ -52,6 +55,17 @@ class RunInputs:
     def sources(self) -> dict[str, str]:
         """Where each input came from, for error messages: its file or "the workflow"."""
         return {n: (p.get("source") or "the workflow") for n, p in self.provenance.items()}
+
+
+def files_read(cfg) -> list[Path]:
+    """Every file a run of ``cfg`` reads: its input grids (and a lid's bathymetry), its plume
+    catalogue and its workflow file (a run must not replace a folder that holds one)."""
+    paths = input_paths(cfg)
+    anomaly = cfg.inputs.thermal_anomaly
+    workflow = getattr(cfg, "workflow_path", None)
+    if anomaly is not None and getattr(anomaly, "plumes_file", None) and workflow is not None:
+        paths.append(Path(workflow).parent / Path(anomaly.plumes_file).expanduser())
+    return [*paths, Path(workflow)] if workflow is not None else paths
 
 
 def load_model(cfg) -> tuple[Any, Any | None]:

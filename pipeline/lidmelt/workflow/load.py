@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import dataclasses
+import functools
 import tomllib
 from collections.abc import Sequence
 from pathlib import Path
@@ -93,17 +94,19 @@ def load_workflow(
             checked.add((member_cfg.model, member_cfg.lithosphere))
         return member_cfg
 
-    def fits(options) -> None:  # the ensemble's memory, refused before members are drawn
-        from lidmelt.ensemble.stage import check_memory
-
-        try:
-            check_memory(dataclasses.replace(cfg, ensemble=options))
-        except WorkflowError as exc:
-            msg = f"{source}: {exc}"
-            raise WorkflowError(msg) from None
-
-    ensemble = read_ensemble(ctx, tree, member, fits)
+    ensemble = read_ensemble(ctx, tree, member, functools.partial(_fits, cfg, source))
     return cfg if ensemble is None else dataclasses.replace(cfg, ensemble=ensemble)
+
+
+def _fits(cfg: RunConfig, source: str, options: Any) -> None:
+    """Refuse an ensemble whose estimated memory exceeds its limit, before members are drawn."""
+    from lidmelt.ensemble.stage import check_memory
+
+    try:
+        check_memory(dataclasses.replace(cfg, ensemble=options))
+    except WorkflowError as exc:
+        msg = f"{source}: {exc}"
+        raise WorkflowError(msg) from None
 
 
 def _parse(source: str, text: str) -> dict[str, Any]:
