@@ -19,7 +19,7 @@ from lidmelt.cluster import input_paths
 from lidmelt.config import DEFAULT_MAX_CELLS
 from lidmelt.errors import InputError
 from lidmelt.grids.align import align
-from lidmelt.grids.anomaly import Plume, plume_anomaly
+from lidmelt.grids.anomaly import Plume, plume_anomaly, plume_cells
 from lidmelt.grids.grid import Grid, registration
 from lidmelt.grids.io import open_input, sha256_file
 from lidmelt.grids.lidref import apply_lid_reference
@@ -98,7 +98,28 @@ def resolve_target_grid(cfg) -> Grid:
             "smaller grid.extent, or raise compute.max_cells in the workflow."
         )
         raise InputError(msg)
+    _check_plume_work(cfg, grid, limit)
     return grid
+
+
+def _check_plume_work(cfg, grid: Grid, limit: int) -> None:
+    """Refuse plumes whose geodesic distances (:func:`lidmelt.grids.anomaly.plume_cells`, one
+    per cell within a plume's reach, and again for a plume's upwelling) exceed ``limit``."""
+    anomaly = cfg.inputs.thermal_anomaly
+    specs = list(anomaly.plumes) if anomaly is not None else []
+    specs += [p for p in specs if p.peak_upwelling_mm_yr is not None]
+    if not specs:
+        return
+    cells = plume_cells(grid, [Plume(**p.plume_fields()) for p in specs])
+    if cells > limit:
+        msg = (
+            f"the {len(anomaly.plumes)} plume(s) of inputs.thermal_anomaly reach about "
+            f"{cells:,} cells of the grid in all (per plume the cells within 6 radii of a "
+            f"gaussian, 1 radius otherwise; a geodesic distance each, about 1 microsecond), "
+            f"more than compute.max_cells = {limit:,}. Use fewer or smaller plumes or a coarser "
+            "grid.resolution, or raise compute.max_cells in the workflow."
+        )
+        raise InputError(msg)
 
 
 def load_inputs(cfg, *, target: Grid, chunks: int, cache: dict | None = None) -> RunInputs:

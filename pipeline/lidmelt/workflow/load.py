@@ -16,7 +16,11 @@ from lidmelt.workflow.ensemble import read_ensemble
 from lidmelt.workflow.overrides import apply_override
 from lidmelt.workflow.tables import read_config
 
-__all__ = ["MAX_NESTING", "load_workflow", "validate_models"]
+__all__ = ["MAX_NESTING", "MAX_WORKFLOW_BYTES", "load_workflow", "validate_models"]
+
+#: The largest workflow file read (bytes): its text is parsed whole and kept in the run's
+#: summary; 10,000 inline plumes take about 1.5 MB.
+MAX_WORKFLOW_BYTES = 4_000_000
 
 #: The deepest nesting of tables and arrays a workflow may have (the deepest valid key, an
 #: ensemble distribution written as nested tables, has about 10 levels).
@@ -67,11 +71,7 @@ def load_workflow(
             "workflow file. Copy workflows/template.toml to start one."
         )
         raise WorkflowError(msg)
-    try:
-        text = workflow_path.read_text(encoding="utf-8")
-    except (OSError, UnicodeDecodeError) as exc:
-        msg = f"workflow file {source!r} cannot be read as UTF-8 text ({exc}); save it as UTF-8."
-        raise WorkflowError(msg) from exc
+    text = _read_text(source, workflow_path)
     tree = _parse(source, text)
     ctx = Context(source, {})
     items = tuple(overrides)
@@ -96,6 +96,25 @@ def load_workflow(
 
     ensemble = read_ensemble(ctx, tree, member, functools.partial(_fits, cfg, source))
     return cfg if ensemble is None else dataclasses.replace(cfg, ensemble=ensemble)
+
+
+def _read_text(source: str, workflow_path: Path) -> str:
+    """The workflow file's text; a WorkflowError if it is too large or not UTF-8 text."""
+    size = workflow_path.stat().st_size
+    if size > MAX_WORKFLOW_BYTES:
+        msg = (
+            f"workflow file {source!r} has {size:,} bytes; a workflow file has at most "
+            f"{MAX_WORKFLOW_BYTES:,} (workflows/template.toml has about 10,000). Put long plume "
+            "lists in a catalogue (inputs.thermal_anomaly.plumes_file), or check that this is "
+            "the workflow file."
+        )
+        raise WorkflowError(msg)
+    try:
+        text = workflow_path.read_text(encoding="utf-8")
+    except (OSError, UnicodeDecodeError) as exc:
+        msg = f"workflow file {source!r} cannot be read as UTF-8 text ({exc}); save it as UTF-8."
+        raise WorkflowError(msg) from exc
+    return text
 
 
 def _fits(cfg: RunConfig, source: str, options: Any) -> None:
