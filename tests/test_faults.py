@@ -26,7 +26,7 @@ from lidmelt.grids.rundir import open_run
 #: What a run folder's parent may hold after a finished command: the run only.
 ONLY_RUN = ["run"]
 #: Tally of the faults tried and their outcomes, printed at the end of the session.
-TALLY = {"faults": 0, "files_lost": 0, "tracebacks": 0}
+TALLY = {"faults": 0, "files_lost": 0, "tracebacks": 0, "killed": 0, "ended_first": 0}
 
 
 def check_outcome(dest: Path, old: dict[str, str], proc_err: str) -> str:
@@ -80,10 +80,13 @@ SIGNALS = {
 }
 
 
-def kill_at(tiny, parent: Path, moment: str, sig_name: str) -> None:
-    wf, _ = tiny
-    dest, old = fresh_old_run(tiny, parent)
-    sig, code = SIGNALS[sig_name]
+#: Runs started per fault before giving up on catching its moment (a run can end first).
+ATTEMPTS = 4
+
+
+def signal_at(wf: Path, dest: Path, parent: Path, moment: str, sig) -> tuple[bool, int, str]:
+    """Start a run into ``dest``, send ``sig`` when ``moment`` is seen; (sent while the run
+    was alive and before it was seen to end, exit code, stderr)."""
     proc = runkit.start(
         "run",
         str(wf),
@@ -93,16 +96,39 @@ def kill_at(tiny, parent: Path, moment: str, sig_name: str) -> None:
         "--set",
         "model.ambient_potential_temperature_c=1360",
     )
-    caught = runkit.wait_for(lambda: MOMENTS[moment](parent) or proc.poll() is not None)
-    if proc.poll() is None and caught:
+    seen = runkit.wait_for(lambda: bool(MOMENTS[moment](parent)) or proc.poll() is not None)
+    sent = seen and proc.poll() is None and bool(MOMENTS[moment](parent))
+    if sent:
         proc.send_signal(sig)
     _, err = proc.communicate(timeout=120)
-    outcome = check_outcome(dest, old, err)
-    if proc.returncode == 0:  # the run finished before the signal: a complete new run
+    return sent, proc.returncode, err
+
+
+def kill_at(tiny, parent: Path, moment: str, sig_name: str) -> None:
+    """Kill a run at ``moment`` and check what it leaves. The signal must land: a run that
+    ended before its moment was caught (exit 0, a complete new run) is checked and tried again,
+    and the test fails if no attempt was killed (it never passes without a signal)."""
+    wf, _ = tiny
+    dest, old = fresh_old_run(tiny, parent)
+    sig, code = SIGNALS[sig_name]
+    for _ in range(ATTEMPTS):
+        sent, returncode, err = signal_at(wf, dest, parent, moment, sig)
+        outcome = check_outcome(dest, old, err)
+        if returncode == code:
+            assert sent, err  # the exit status is the signal's: it was sent, and landed
+            TALLY["killed"] += 1
+            break
+        TALLY["ended_first"] += 1
+        # the run ended before the signal (or the signal came too late to matter)
+        assert returncode == 0, err
         assert outcome == "new"
         assert sorted(p.name for p in parent.iterdir()) == ONLY_RUN
-        return
-    assert proc.returncode == code, err
+        shutil.rmtree(dest)
+        dest, old = fresh_old_run(tiny, parent)
+    else:
+        pytest.fail(
+            f"no run was killed at {moment!r} in {ATTEMPTS} attempts: the signal never landed"
+        )
     if moment == "summary written":
         # the signal may land while the finished run is being swapped into place: the swap is
         # held until it is done, so the destination holds the complete new run (checked by
