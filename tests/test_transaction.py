@@ -12,6 +12,7 @@ import os
 import subprocess
 import sys
 import time
+from pathlib import Path
 
 import numpy as np
 import numpy.testing as npt
@@ -313,3 +314,61 @@ def test_align_block_by_block_equals_the_whole(monkeypatch):
         assert blocks.chunks is not None  # lazy
         npt.assert_array_equal(blocks.values, whole)
         monkeypatch.undo()
+
+
+def test_a_previous_run_holding_an_input_of_this_run_is_refused(first_run, tmp_path, capsys):
+    # the lid grid of this run is a previous run's own output: the swap would replace it by
+    # this run's output, and a re-run would read that (the run, not the input, would be kept)
+    import shutil
+
+    _, res = first_run
+    prev = tmp_path / "prev"
+    shutil.copytree(res.run_dir, prev)
+    wf = tmp_path / "w.toml"
+    wf.write_text(
+        '[run]\nname = "selfin"\nmaps = false\nreport = false\n[grid]\nlike = "lid_thickness"\n'
+        '[inputs.lid_thickness]\npath = "prev/lid_depth_km.tif"\n[compute]\nchunk_size = 64\n'
+    )
+    before = runkit.snapshot(tmp_path)
+    for dest in (prev, prev / "."):
+        assert main(["run", str(wf), "-o", str(dest), "--quiet"]) == 1
+        runkit.refused(
+            capsys.readouterr().err, "run", f"output folder '{prev}",
+            f"holds '{prev / 'lid_depth_km.tif'}', which this run reads",
+            "Give another output folder (-o OUT_DIR or run.output_dir), or move the file out",
+        )  # fmt: skip
+    assert runkit.snapshot(tmp_path) == before  # the input and the previous run are intact
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["prev", "w.toml"]
+
+
+def test_a_run_into_the_folder_of_its_workflow_file_is_refused(first_run, tmp_path, capsys):
+    import shutil
+
+    wf, res = first_run
+    prev = tmp_path / "prev"
+    shutil.copytree(res.run_dir, prev)
+    inner = prev / "again.toml"
+    inner.write_text(wf.read_text().replace('path = "age.tif"', f'path = "{wf.parent}/age.tif"'))
+    before = runkit.snapshot(tmp_path)
+    assert main(["run", str(inner), "-o", str(prev), "--quiet"]) == 1
+    runkit.refused(capsys.readouterr().err, "run", f"holds '{inner}', which this run reads")
+    assert runkit.snapshot(tmp_path) == before
+
+
+def test_the_root_folder_is_refused_before_any_lock_file(tmp_path, capsys, monkeypatch):
+    # as root nothing stops a file in '/': the refusal must come before the lock is opened
+    from lidmelt.grids import transaction
+
+    def no_lock(self):
+        raise AssertionError(f"a lock file was opened at {self.path}")
+
+    monkeypatch.setattr(transaction.RunLock, "_open", no_lock)
+    wf = runkit.basin(tmp_path / "in")
+    root = sorted(p.name for p in Path("/").iterdir())
+    for extra in ([], ["--clean"]):
+        assert main(["run", str(wf), "-o", "/", "--quiet", *extra]) == 1
+        runkit.refused(
+            capsys.readouterr().err, "run", "output folder '/' is the root of the file system",
+            "Give a new folder, e.g. -o /results/run1.",
+        )  # fmt: skip
+    assert sorted(p.name for p in Path("/").iterdir()) == root
