@@ -369,3 +369,17 @@ def test_a_catalogue_of_a_million_rows_is_refused_before_it_is_read(tmp_path, ca
         f"plume catalogue '{tmp_path / 'in' / 'hs.csv'}'", "has 1,000,000 rows",
         "a workflow has at most 10,000 plumes",
     )  # fmt: skip
+
+
+def test_a_text_grid_spanning_a_huge_lattice_is_refused_naming_the_file(tmp_path, capsys):
+    # five points spanning 1 800 001 x 2 000 001 nodes (tests/test_grids_inputs.py)
+    wf = runkit.basin(tmp_path / "in")
+    grid = tmp_path / "in" / "age.xyz"
+    grid.write_text(
+        "lon lat age\n0 0 1\n0.00001 0.00001 2\n0.00002 0.00002 3\n0.00003 0.00003 4\n18 20 5\n"
+    )
+    wf.write_text(wf.read_text().replace('path = "age.tif"', 'path = "age.xyz"'))
+    run_refused(
+        tmp_path, capsys, ["run", str(wf), "-o", str(tmp_path / "out"), "--quiet"],
+        f"text grid '{grid}'", "= 3.6e+12 nodes", "Convert it to a GeoTIFF or NetCDF grid",
+    )  # fmt: skip
