@@ -151,11 +151,13 @@ def _no_drawing(monkeypatch):
     monkeypatch.setattr(reader, "draw_members", drawn)
 
 
-def test_a_billion_members_are_refused_before_any_is_drawn(tmp_path, capsys, monkeypatch):
+@pytest.mark.parametrize("members", ["1000000000", "1e9"])
+def test_a_billion_members_are_refused_before_any_is_drawn(tmp_path, capsys, monkeypatch, members):
+    # written as a whole number or as a decimal (1e9): its size is what the message says
     import re
 
     _no_drawing(monkeypatch)
-    wf = ensemble_basin(tmp_path, members=1_000_000_000)
+    wf = ensemble_basin(tmp_path, members=members)
     line = run_refused(
         tmp_path, capsys, ["run", str(wf), "-o", str(tmp_path / "out"), "--quiet"],
         "ensemble.members = 1000000000 with compute.chunk_size = 64 and compute.workers = 2",

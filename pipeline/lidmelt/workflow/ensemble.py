@@ -63,12 +63,6 @@ def read_ensemble(
         return None
     values = table(ctx, "ensemble", tree["ensemble"])
     opts: dict[str, Any] = {}
-    if "members" in values:
-        opts["members"] = at_least(
-            ctx, "ensemble.members", values["members"], 2, unit=" members",
-            advice="members (a few hundred give probabilities to about 0.05).", example="200",
-        )  # fmt: skip
-
     if "seed" in values:
         opts["seed"] = at_least(
             ctx, "ensemble.seed", values["seed"], 0, unit="", advice="(any whole number).",
@@ -94,6 +88,8 @@ def read_ensemble(
             ctx, "ensemble.candidate_min_melt_km", values["candidate_min_melt_km"], 1e-6, 1000.0,
             "km", "give the least melt the anomaly adds in a candidate cell, in km",
         )  # fmt: skip
+    if "members" in values:
+        opts["members"] = _read_members(ctx, values["members"], opts, check)
     vary = tuple(_read_vary(ctx, table(ctx, "ensemble.vary", values.get("vary", {}))))
     base = EnsembleOptions(**opts, vary=vary)
     if check is not None:
@@ -113,6 +109,20 @@ def read_ensemble(
         for i, row in enumerate(samples, start=1)
     )
     return EnsembleOptions(**opts, vary=vary, samples=samples, configs=configs)
+
+
+def _read_members(
+    ctx: Context, value: Any, opts: dict[str, Any], check: Callable[[EnsembleOptions], Any] | None
+) -> int:
+    """``ensemble.members``: a whole number >= 2. One written as a decimal (``1e9``) whose
+    ensemble would not fit in memory is refused for its size first, the larger problem."""
+    whole = isinstance(value, float) and math.isfinite(value) and value.is_integer()
+    if whole and value >= 2 and check is not None:
+        check(EnsembleOptions(**{**opts, "members": int(value)}))
+    return at_least(
+        ctx, "ensemble.members", value, 2, unit=" members",
+        advice="members (a few hundred give probabilities to about 0.05).", example="200",
+    )  # fmt: skip
 
 
 def _numbers(ctx: Context, key: str, value: Any, low: float, high: float, unit: str) -> tuple:
