@@ -327,6 +327,23 @@ def test_hostile_workflow_files_give_one_short_message(fuzz_dir, tmp_path, capsy
     assert sorted(p.name for p in tmp_path.iterdir()) == ["in"]
 
 
+def test_a_catalogue_row_with_a_huge_name_gives_one_short_message(fuzz_dir, tmp_path, capsys):
+    folder = tmp_path / "in"
+    folder.mkdir()
+    (folder / "age.tif").write_bytes((fuzz_dir / "age.tif").read_bytes())
+    (folder / "hs.csv").write_text(f"name,lon,lat,radius_km,peak_excess_k\n{BIG},-25,7,100,50\n")
+    wf = folder / "w.toml"
+    wf.write_text(BASIN + '[inputs.thermal_anomaly]\nplumes_file = "hs.csv"\n')
+    before = runkit.snapshot(tmp_path)
+    assert main(["run", str(wf), "-o", str(tmp_path / "out"), "--quiet"]) == 1
+    line = runkit.refused(
+        capsys.readouterr().err, "run", "'inputs.thermal_anomaly.plumes_file.1.name' in ",
+        "(3000000 characters); expected a name of at most 200 characters",
+    )  # fmt: skip
+    assert len(line) < 1000
+    assert runkit.snapshot(tmp_path) == before
+
+
 @pytest.mark.parametrize(
     ("item", "parts"),
     [

@@ -222,6 +222,10 @@ def _read_plume(ctx: Context, key: str, i: int, item: Any) -> PlumeSpec:
         fields["shape"] = choice(ctx, f"{pkey}.shape", item["shape"], PLUME_SHAPES)
     if "name" in item:
         fields["name"] = string(ctx, f"{pkey}.name", item["name"], example="plume A")
+        if len(fields["name"]) > 200:
+            where, name = ctx.where(pkey + ".name"), shown(fields["name"])
+            msg = f"{where} is {name}; expected a name of at most 200 characters."
+            raise WorkflowError(msg)
     if "peak_upwelling_mm_yr" in item:
         var = variables.input_for_workflow_key("upwelling")
         low, high = var.valid_range or (0.0, float("inf"))
