@@ -344,6 +344,18 @@ def test_a_catalogue_row_with_a_huge_name_gives_one_short_message(fuzz_dir, tmp_
     assert runkit.snapshot(tmp_path) == before
 
 
+@pytest.mark.parametrize("case", [c for c in HOSTILE if c.startswith("3-MB")])
+def test_hostile_values_are_short_in_the_python_api_too(fuzz_dir, tmp_path, case):
+    # the error load_workflow raises (not only the line the command prints) is short
+    (tmp_path / "age.tif").write_bytes((fuzz_dir / "age.tif").read_bytes())
+    wf = tmp_path / "w.toml"
+    wf.write_text(_hostile_text(HOSTILE[case][0]), encoding="utf-8")
+    with pytest.raises(LidmeltError) as refused:
+        load_workflow(wf)
+    assert len(str(refused.value)) < 1000
+    assert "characters" in str(refused.value)  # the value's length is said instead
+
+
 @pytest.mark.parametrize(
     ("item", "parts"),
     [

@@ -233,6 +233,7 @@ def validate_models(cfg: RunConfig) -> None:
             ]
             origin = f" (with --set {shortened(', '.join(sets))})" if sets else ""
             msg = (
-                f"'{key}' = {shown(value)} in {cfg.workflow_path.name}{origin} is not valid: {exc}"
+                f"'{key}' = {shown(value)} in {cfg.workflow_path.name}{origin} is not valid: "
+                f"{shortened(str(exc), 600)}"
             )
             raise WorkflowError(msg) from exc
