@@ -40,6 +40,24 @@ def test_expected_failures_are_one_message(exc, parts):
     assert "\n" not in message
 
 
+def test_every_printed_message_is_bounded():
+    # identity: MESSAGE_CHARS (2000) bounds the line; the start (the file, the key) and the end
+    # (the fix) are kept; a short message is untouched
+    from lidmelt.cli._failures import MESSAGE_CHARS, bounded
+
+    token = bounded(f"file 'x.toml': value {'a' * 10_000_000} is bad. Fix it.")
+    assert len(token) < 400
+    assert token.startswith("file 'x.toml': value aaaa")
+    assert "...[10000000 characters]..." in token
+    assert token.endswith(" is bad. Fix it.")
+    words = bounded("start " + "ab " * 5_000_000 + "end: fix it.")
+    assert len(words) <= MESSAGE_CHARS
+    assert words.startswith("start ab")
+    assert words.endswith("ab end: fix it.")
+    assert "characters left out" in words
+    assert bounded("short: fix it.") == "short: fix it."
+
+
 def test_a_bug_keeps_its_traceback():
     assert describe_failure(KeyError("x")) is None
     assert describe_failure(RuntimeError("something else")) is None
