@@ -123,3 +123,20 @@ def wait_for(predicate, *, timeout: float = 120.0, poll: float = 0.002) -> bool:
 def staged(parent: Path, name: str, pattern: str = "*") -> list[Path]:
     """Files matching ``pattern`` inside the staging folders of run ``name`` under ``parent``."""
     return [p for root in parent.glob(f".{name}.staging-*") for p in root.glob(f"{name}/{pattern}")]
+
+
+def refused(err: str, command: str, *parts: str) -> str:
+    """Check that ``err`` (a command's stderr) is one refusal: a single line ``lidmelt COMMAND:
+    error: ...`` holding every one of ``parts`` (the file or key, the figure, the fix), no
+    traceback, at most about 2000 characters (lidmelt.cli._failures.MESSAGE_CHARS); return it.
+    Warnings and notes printed before it (their own lines) are allowed."""
+    assert "Traceback" not in err, err
+    lines = err.strip().splitlines()
+    assert lines, "nothing on stderr"
+    line = lines[-1]
+    assert line.startswith(f"lidmelt {command}: error: "), err
+    assert all(not x.startswith(f"lidmelt {command}: error") for x in lines[:-1]), err
+    assert len(line) <= 2100, len(line)
+    for part in parts:
+        assert part in line, (part, line)
+    return line

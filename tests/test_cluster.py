@@ -9,6 +9,8 @@ from __future__ import annotations
 
 import os
 import socket
+import subprocess
+import sys
 from pathlib import Path
 
 import numpy as np
@@ -137,3 +139,105 @@ def test_workers_that_cannot_read_an_input_are_refused(tmp_path):
         assert check_workers(client, [Path(__file__)]) == 1
         with pytest.raises(ClusterError, match="cannot read the input file"):
             check_workers(client, [tmp_path / "elsewhere" / "age.tif"])
+
+
+# ---- a malformed address; a worker or the scheduler killed during the run -------------------
+@pytest.mark.parametrize(
+    ("address", "problem"),
+    [
+        ("tcp://127.0.0.1:notaport", "invalid literal for int() with base 10: 'notaport'"),
+        ("htp://127.0.0.1:8786", "unknown address scheme 'htp'"),
+        ("tcp://", "missing port number"),
+        ("tcp://127.0.0.1:99999", "a port from 1 to 65535"),
+    ],
+)
+def test_a_malformed_scheduler_address_is_refused_at_once(
+    tmp_path, capsys, monkeypatch, address, problem
+):
+    # refused before any dask client is made (dask took it, hung on shutdown and printed a
+    # TimeoutError traceback); both the environment variable and the workflow key
+    from lidmelt.cli import main
+
+    wf = runkit.basin(tmp_path / "in")
+    made = []
+    monkeypatch.setattr(distributed, "Client", lambda *a, **k: made.append(a))
+    monkeypatch.setenv(SCHEDULER_ENV, address)
+    argv = ["run", str(wf), "-o", str(tmp_path / "out"), "--quiet"]
+    assert main(argv) == 1
+    runkit.refused(
+        capsys.readouterr().err, "run", f"LIDMELT_SCHEDULER is {address!r}, not a dask scheduler "
+        "address", problem, "expected 'tcp://host:port'", "remove it to run on local threads",
+    )  # fmt: skip
+    monkeypatch.delenv(SCHEDULER_ENV)
+    assert main([*argv, "--set", f'compute.scheduler="{address}"']) == 1
+    runkit.refused(
+        capsys.readouterr().err, "run", f"'compute.scheduler' in {wf} (from --set compute."
+        f'scheduler="{address}") is {address!r}, not a dask scheduler address', problem,
+    )  # fmt: skip
+    assert made == []
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["in"]
+
+
+def test_a_malformed_scheduler_address_ends_the_process_at_once(tmp_path):
+    # the process itself (not just the error): it ended after about a minute with dask's
+    # shutdown traceback; the subprocess limit (60 s) would catch a hang
+    wf = runkit.basin(tmp_path / "in")
+    env = runkit.env()
+    env[SCHEDULER_ENV] = "tcp://127.0.0.1:notaport"
+    done = subprocess.run(
+        runkit.command("run", str(wf), "-o", str(tmp_path / "out"), "--quiet"),
+        env=env, capture_output=True, text=True, timeout=60, check=False,
+    )  # fmt: skip
+    assert done.returncode == 1
+    runkit.refused(done.stderr, "run", "not a dask scheduler address")
+    assert done.stderr.count("\n") == 1
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["in"]
+
+
+def _dask(*args: str) -> subprocess.Popen:
+    """A dask scheduler or worker process of this environment (its output discarded)."""
+    module = f"distributed.cli.dask_{args[0]}"
+    return subprocess.Popen(
+        [sys.executable, "-m", module, *args[1:]], env=runkit.env(),
+        stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL,
+    )  # fmt: skip
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("killed", ["worker", "scheduler"])
+def test_a_killed_worker_or_scheduler_is_a_lost_cluster(tmp_path, killed):
+    # a real cluster of one scheduler and one worker process (no nanny to restart it), killed
+    # with SIGKILL while the run writes its GeoTIFFs: a ClusterError, not a file error
+    wf = _basin(tmp_path / "in")
+    address = f"tcp://127.0.0.1:{_closed_port()}"
+    scheduler = _dask("scheduler", "--port", address.rsplit(":", 1)[1], "--dashboard-address", ":0")
+    worker = _dask("worker", address, "--no-nanny", "--nthreads", "1")
+    try:
+        with distributed.Client(address, timeout=60, set_as_default=False) as client:
+            client.wait_for_workers(1, timeout=60)
+        env = runkit.env()
+        env[SCHEDULER_ENV] = address
+        run = subprocess.Popen(
+            runkit.command("run", str(wf), "-o", str(tmp_path / "out"), "--quiet"), env=env,
+            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
+        )  # fmt: skip
+        writing = runkit.wait_for(
+            lambda: runkit.staged(tmp_path, "out", "*.tif*") or run.poll() is not None
+        )
+        assert writing
+        assert run.poll() is None, "the run ended before it wrote a GeoTIFF"
+        (worker if killed == "worker" else scheduler).kill()
+        _, err = run.communicate(timeout=180)
+    finally:
+        for process in (worker, scheduler):
+            process.kill()
+            process.wait(timeout=30)
+    assert run.returncode == 1, err
+    runkit.refused(
+        err, "run", f"the dask cluster at {address!r} failed during the run",
+        "a worker or the scheduler was lost; nothing was written",
+        "Look at the workers' and the scheduler's logs",
+    )  # fmt: skip
+    assert "raster file" not in err
+    assert err.count("\n") == 1  # no dask log records either
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["in"]

@@ -4,7 +4,9 @@ value, reproducibility.
 Check values name their sources beside them.
 """
 
+import dataclasses
 import json
+import re
 
 import numpy as np
 import pandas as pd
@@ -413,9 +415,22 @@ def test_memory_limit_refuses_what_will_not_fit(tmp_path):
             threshold=1.0,
         )
     )
-    cfg = load_workflow(wf)
+    # refused while the workflow is read, before any member is drawn
+    with pytest.raises(WorkflowError, match=r"ensemble\.members = 500 ") as refused:
+        load_workflow(wf)
+    figure = re.search(
+        r"needs about ([0-9.e+]+) GB, over ensemble\.memory_limit_gb = 2 GB", str(refused.value)
+    )
+    # at least the members' kept layers: 2048^2 cells x 2 workers x 500 members x 3 float32
+    # outputs and their sorted copy (24 bytes; the estimate documented in lidmelt.ensemble.stage)
+    assert float(figure[1]) >= 2048**2 * 2 * 500 * 24 / 1e9
+    # the stage checks again with the members' input groups (here one: the lower bound above)
+    cfg = load_workflow(wf, overrides=["ensemble.memory_limit_gb=1e6"])
+    limited = dataclasses.replace(
+        cfg, ensemble=dataclasses.replace(cfg.ensemble, memory_limit_gb=2.0)
+    )
     with pytest.raises(WorkflowError, match="memory_limit_gb"):
-        ensemble_stages(cfg, announce=False)
+        ensemble_stages(limited, announce=False)
 
 
 @pytest.mark.parametrize(
@@ -424,7 +439,8 @@ def test_memory_limit_refuses_what_will_not_fit(tmp_path):
         ('"grid.resolution" = {uniform = [0.1, 0.2]}', "not a workflow key an ensemble can vary"),
         (
             '"model.ambient_potential_temperature_c" = {gauss = [1, 2]}',
-            "gauss' is not a workflow key",
+            "names the distribution 'gauss', which is not known; the known distributions are "
+            "normal, uniform, lognormal, triangular, choice",
         ),
         (
             '"model.ambient_potential_temperature_c" = {normal = [1, 2], uniform = [1, 2]}',

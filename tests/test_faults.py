@@ -15,6 +15,7 @@ import os
 import shutil
 import signal
 import subprocess
+import sys
 import uuid
 from pathlib import Path
 
@@ -26,7 +27,7 @@ from lidmelt.grids.rundir import open_run
 #: What a run folder's parent may hold after a finished command: the run only.
 ONLY_RUN = ["run"]
 #: Tally of the faults tried and their outcomes, printed at the end of the session.
-TALLY = {"faults": 0, "files_lost": 0, "tracebacks": 0}
+TALLY = {"faults": 0, "files_lost": 0, "tracebacks": 0, "killed": 0, "ended_first": 0}
 
 
 def check_outcome(dest: Path, old: dict[str, str], proc_err: str) -> str:
@@ -80,10 +81,13 @@ SIGNALS = {
 }
 
 
-def kill_at(tiny, parent: Path, moment: str, sig_name: str) -> None:
-    wf, _ = tiny
-    dest, old = fresh_old_run(tiny, parent)
-    sig, code = SIGNALS[sig_name]
+#: Runs started per fault before giving up on catching its moment (a run can end first).
+ATTEMPTS = 4
+
+
+def signal_at(wf: Path, dest: Path, parent: Path, moment: str, sig) -> tuple[bool, int, str]:
+    """Start a run into ``dest``, send ``sig`` when ``moment`` is seen; (sent while the run
+    was alive and before it was seen to end, exit code, stderr)."""
     proc = runkit.start(
         "run",
         str(wf),
@@ -93,16 +97,39 @@ def kill_at(tiny, parent: Path, moment: str, sig_name: str) -> None:
         "--set",
         "model.ambient_potential_temperature_c=1360",
     )
-    caught = runkit.wait_for(lambda: MOMENTS[moment](parent) or proc.poll() is not None)
-    if proc.poll() is None and caught:
+    seen = runkit.wait_for(lambda: bool(MOMENTS[moment](parent)) or proc.poll() is not None)
+    sent = seen and proc.poll() is None and bool(MOMENTS[moment](parent))
+    if sent:
         proc.send_signal(sig)
     _, err = proc.communicate(timeout=120)
-    outcome = check_outcome(dest, old, err)
-    if proc.returncode == 0:  # the run finished before the signal: a complete new run
+    return sent, proc.returncode, err
+
+
+def kill_at(tiny, parent: Path, moment: str, sig_name: str) -> None:
+    """Kill a run at ``moment`` and check what it leaves. The signal must land: a run that
+    ended before its moment was caught (exit 0, a complete new run) is checked and tried again,
+    and the test fails if no attempt was killed (it never passes without a signal)."""
+    wf, _ = tiny
+    dest, old = fresh_old_run(tiny, parent)
+    sig, code = SIGNALS[sig_name]
+    for _ in range(ATTEMPTS):
+        sent, returncode, err = signal_at(wf, dest, parent, moment, sig)
+        outcome = check_outcome(dest, old, err)
+        if returncode == code:
+            assert sent, err  # the exit status is the signal's: it was sent, and landed
+            TALLY["killed"] += 1
+            break
+        TALLY["ended_first"] += 1
+        # the run ended before the signal (or the signal came too late to matter)
+        assert returncode == 0, err
         assert outcome == "new"
         assert sorted(p.name for p in parent.iterdir()) == ONLY_RUN
-        return
-    assert proc.returncode == code, err
+        shutil.rmtree(dest)
+        dest, old = fresh_old_run(tiny, parent)
+    else:
+        pytest.fail(
+            f"no run was killed at {moment!r} in {ATTEMPTS} attempts: the signal never landed"
+        )
     if moment == "summary written":
         # the signal may land while the finished run is being swapped into place: the swap is
         # held until it is done, so the destination holds the complete new run (checked by
@@ -261,6 +288,102 @@ def test_disk_full_at_several_moments(tiny, tmp_path, fraction):
 @pytest.mark.parametrize("fraction", [0.45, 0.7, 0.9])
 def test_disk_full_while_drawing_maps_and_report(tiny, tmp_path, fraction):
     fill_up_at(tiny, tmp_path, fraction, maps=True)
+
+
+# ---- a read-only installation and HOME: numba's compiled-code cache -----------------------------
+def read_only_install(tmp_path: Path) -> dict[str, str]:
+    """A copy of the package and a HOME that cannot be written (for root: with the capabilities
+    that bypass file permissions dropped, see :func:`as_user`), a writable TMPDIR; the
+    environment of a lidmelt subprocess that imports that copy."""
+    lib, home, tmp = tmp_path / "lib", tmp_path / "home", tmp_path / "tmp"
+    shutil.copytree(
+        runkit.PIPELINE / "lidmelt", lib / "lidmelt", ignore=shutil.ignore_patterns("__pycache__")
+    )
+    home.mkdir()
+    tmp.mkdir()
+    for path in [*lib.rglob("*"), lib, home]:
+        path.chmod(0o555 if path.is_dir() else 0o444)
+    env = runkit.env()
+    for name in ("NUMBA_CACHE_DIR", "XDG_CACHE_HOME"):
+        env.pop(name, None)
+    env.update(
+        HOME=str(home), TMPDIR=str(tmp), PYTHONPATH=str(lib), PYTHONDONTWRITEBYTECODE="1",
+        MPLCONFIGDIR=str(tmp / "matplotlib"),  # matplotlib's own cache, not the subject here
+    )  # fmt: skip
+    return env
+
+
+def as_user(args: list[str]) -> list[str]:
+    """``args`` run so that file permissions apply: root bypasses them (CAP_DAC_OVERRIDE), so
+    its capabilities to do that are dropped (util-linux setpriv; skipped where missing)."""
+    if os.geteuid() != 0:
+        return args
+    if shutil.which("setpriv") is None:
+        pytest.skip("as root, a read-only folder needs setpriv to drop CAP_DAC_OVERRIDE")
+    return ["setpriv", "--bounding-set=-dac_override,-dac_read_search,-fowner", "--", *args]
+
+
+def run_read_only(env: dict[str, str], *args: str, timeout: float = 300):
+    return subprocess.run(
+        as_user([sys.executable, *args]), env=env, capture_output=True, text=True,
+        timeout=timeout, check=False,
+    )  # fmt: skip
+
+
+@pytest.mark.parametrize("temp_usable", [True, False], ids=["temp-folder", "uncached"])
+def test_read_only_install_and_home_cache_compiled_code_elsewhere(tmp_path, temp_usable):
+    env = read_only_install(tmp_path)
+    folder = tmp_path / "tmp" / f"lidmelt-numba-{os.geteuid()}"
+    if not temp_usable:  # a folder at that name others may write: never used (pickled code)
+        folder.mkdir()
+        folder.chmod(0o777)
+    installed = runkit.snapshot(tmp_path / "lib")
+    TALLY["faults"] += 1
+    done = run_read_only(env, "-m", "lidmelt", "cache", "--info")
+    assert "Traceback" not in done.stderr, done.stderr
+    assert done.returncode == 0, done.stderr
+    assert done.stdout.startswith("lidmelt cache: ")
+    if temp_usable:
+        note = (
+            f"lidmelt cache: note: compiled code is cached in {folder}: the installation's folder "
+            "and HOME are not writable (set NUMBA_CACHE_DIR to keep it elsewhere)"
+        )
+    else:
+        note = (
+            "lidmelt cache: note: compiled code is not cached: neither the installation's "
+            "folder, HOME nor a private temporary folder is writable, so each run compiles it "
+            "again (5-20 s); set NUMBA_CACHE_DIR to a writable folder"
+        )
+    assert done.stderr.splitlines() == [note]  # one line
+    if temp_usable:  # the copy is what was imported; the Python API prints nothing
+        imported = run_read_only(env, "-c", "import lidmelt.cli; print(lidmelt.__file__)")
+        assert imported.returncode == 0, imported.stderr
+        assert imported.stdout.strip() == str(tmp_path / "lib" / "lidmelt" / "__init__.py")
+        assert imported.stderr == ""
+    assert runkit.snapshot(tmp_path / "lib") == installed  # nothing written into the install
+    assert (folder.stat().st_mode & 0o777) == (0o700 if temp_usable else 0o777)
+
+
+@pytest.mark.slow
+def test_read_only_install_compiles_into_the_temporary_folder(tmp_path):
+    # a run compiles the kernel and the plate lookup (GDH1) into the private temporary folder,
+    # and the next run finds them there (numba's index files); both runs give the same files
+    env = read_only_install(tmp_path)
+    folder = tmp_path / "tmp" / f"lidmelt-numba-{os.geteuid()}"
+    wf = runkit.basin(tmp_path / "in")
+    wf.write_text(wf.read_text() + '[lithosphere]\ncooling = "gdh1"\n')
+    runs = []
+    for name in ("a", "b"):
+        done = run_read_only(env, "-m", "lidmelt", "run", str(wf), "-o", str(tmp_path / name))
+        assert done.returncode == 0, done.stderr
+        assert "Traceback" not in done.stderr
+        assert done.stderr.splitlines()[0].startswith("lidmelt run: note: compiled code is cached")
+        runs.append(open_run(tmp_path / name).summary["statistics"])
+        if name == "a":
+            indexes = sorted(p.name for p in folder.rglob("*.nbi"))
+            assert any("_plate_loop" in n for n in indexes), indexes
+            assert any("_cells" in n for n in indexes), indexes
+    assert runs[0] == runs[1]
 
 
 def test_fault_tally_is_clean():

@@ -242,6 +242,142 @@ def test_fuzzed_column_arguments_many(fuzz_dir, capsys, args):
     check_column(fuzz_dir, args, capsys)
 
 
+# ---- hostile workflow files: deep nesting, huge values ---------------------------------------
+BASIN = """[run]
+name = "tiny"
+maps = false
+report = false
+[grid]
+like = "plate_age"
+[inputs.plate_age]
+path = "age.tif"
+"""
+BIG = "a" * 3_000_000  # under the 4 MB a workflow file may have, so it is parsed and checked
+HOSTILE = {
+    "arrays-100000-deep": (
+        "[model.parameters]\nx = " + "[" * 100_000 + "]" * 100_000 + "\n",
+        ["nests arrays or inline tables too deeply", "at most 32 levels deep"],
+    ),
+    "inline-tables-100000-deep": (
+        "[model.parameters]\nx = " + "{a = " * 100_000 + "1" + "}" * 100_000 + "\n",
+        ["nests arrays or inline tables too deeply"],
+    ),
+    "tables-20000-deep": (
+        "[model.parameters." + ".".join(["a"] * 20_000) + "]\nx = 1\n",
+        ["'model.parameters.a.a.a", "is nested 33 or more levels deep (tables within tables, "
+         "arrays within arrays); a workflow has at most 32"],
+    ),
+    "vary-tables-20000-deep": (
+        "[ensemble]\nmembers = 4\n[ensemble.vary." + ".".join(["a"] * 20_000) + "]\nx = 1\n",
+        ["'ensemble.vary.a.a.a", "is nested 33 or more levels deep"],
+    ),
+    "integer-of-10000-digits": (
+        "[model]\nambient_potential_temperature_c = " + "9" * 10_000 + "\n",
+        ["holds a number too long to read (more than 4300 digits)"],
+    ),
+    "3-MB-model-name": (
+        f'[model]\nname = "{BIG}"\n',
+        ["'model.name' = 'aaaa", "(3000000 characters) in w.toml is not valid",
+         "Unknown melting model", "valid names are 'katz2003', 'mckenzie-bickle1988'"],
+    ),
+    "3-MB-key": (
+        f"[model]\n{BIG} = 1\n", ["unknown key 'model.aaaa", "(3000006 characters)' in "]
+    ),
+    "3-MB-run-name": (
+        f'[run]\nname = "{BIG}"\n',
+        ["'run.name' in ", "(3000000 characters); expected a folder-safe name of up to 200"],
+    ),
+    "3-MB-crs": (
+        f'[grid]\nextent = [-30, -21, 4, 10]\nresolution = 0.25\ncrs = "{BIG}"\n',
+        ["'grid.crs' in ", "(3000000 characters), which is not a readable CRS"],
+    ),
+    "3-MB-output-name": (
+        f'[outputs]\nvariables = ["{BIG}"]\n',
+        ["'outputs.variables' in ", "(3000000 characters), which is not known"],
+    ),
+    "10-MB-file": ("# " + "a" * 10_000_000 + "\n", ["has 10,000,", "bytes; a workflow file has "
+                                                     "at most 4,000,000"]),
+}  # fmt: skip
+
+
+def _hostile_text(extra: str) -> str:
+    """The tiny basin with ``extra``; a table it repeats replaces the basin's own."""
+    base = BASIN
+    for table in ("[run]", "[grid]"):
+        if extra.startswith(table):
+            start = base.index(table)
+            end = base.index("[", start + 1)
+            base = base[:start] + base[end:]
+    return base + extra
+
+
+@pytest.mark.parametrize("case", list(HOSTILE))
+def test_hostile_workflow_files_give_one_short_message(fuzz_dir, tmp_path, capsys, case):
+    extra, parts = HOSTILE[case]
+    folder = tmp_path / "in"
+    folder.mkdir()
+    (folder / "age.tif").write_bytes((fuzz_dir / "age.tif").read_bytes())
+    wf = folder / "w.toml"
+    wf.write_text(_hostile_text(extra), encoding="utf-8")
+    before = runkit.snapshot(tmp_path)
+    assert main(["run", str(wf), "-o", str(tmp_path / "out"), "--quiet"]) == 1
+    line = runkit.refused(capsys.readouterr().err, "run", *parts)
+    assert len(line) < 1000  # never the value whole
+    assert runkit.snapshot(tmp_path) == before
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["in"]
+
+
+def test_a_catalogue_row_with_a_huge_name_gives_one_short_message(fuzz_dir, tmp_path, capsys):
+    folder = tmp_path / "in"
+    folder.mkdir()
+    (folder / "age.tif").write_bytes((fuzz_dir / "age.tif").read_bytes())
+    (folder / "hs.csv").write_text(f"name,lon,lat,radius_km,peak_excess_k\n{BIG},-25,7,100,50\n")
+    wf = folder / "w.toml"
+    wf.write_text(BASIN + '[inputs.thermal_anomaly]\nplumes_file = "hs.csv"\n')
+    before = runkit.snapshot(tmp_path)
+    assert main(["run", str(wf), "-o", str(tmp_path / "out"), "--quiet"]) == 1
+    line = runkit.refused(
+        capsys.readouterr().err, "run", "'inputs.thermal_anomaly.plumes_file.1.name' in ",
+        "(3000000 characters); expected a name of at most 200 characters",
+    )  # fmt: skip
+    assert len(line) < 1000
+    assert runkit.snapshot(tmp_path) == before
+
+
+@pytest.mark.parametrize("case", [c for c in HOSTILE if c.startswith("3-MB")])
+def test_hostile_values_are_short_in_the_python_api_too(fuzz_dir, tmp_path, case):
+    # the error load_workflow raises (not only the line the command prints) is short
+    (tmp_path / "age.tif").write_bytes((fuzz_dir / "age.tif").read_bytes())
+    wf = tmp_path / "w.toml"
+    wf.write_text(_hostile_text(HOSTILE[case][0]), encoding="utf-8")
+    with pytest.raises(LidmeltError) as refused:
+        load_workflow(wf)
+    assert len(str(refused.value)) < 1000
+    assert "characters" in str(refused.value)  # the value's length is said instead
+
+
+@pytest.mark.parametrize(
+    ("item", "parts"),
+    [
+        ("model.parameters.x=" + "[" * 50_000 + "]" * 50_000,
+         ["--set value '[[[[", "(100000 characters)' cannot be read", "nested too deeply"]),
+        ("model.parameters.x=" + "9" * 10_000, ["a number too long"]),
+        (".".join(["a"] * 20_000) + "=1", ["is nested 33 or more levels deep"]),
+        ("model.name=" + "b" * 100_000,
+         ["'model.name' = 'bbbb", "(with --set model.name=bbbb", "(100011 characters))",
+          "Unknown melting model"]),
+    ],
+    ids=["deep-array", "long-integer", "deep-key", "long-value"],
+)  # fmt: skip
+def test_hostile_set_items_give_one_short_message(fuzz_dir, tmp_path, capsys, item, parts):
+    wf = tmp_path / "w.toml"
+    wf.write_text(BASIN.replace('"age.tif"', json.dumps(str(fuzz_dir / "age.tif"))))
+    assert main(["run", str(wf), "-o", str(tmp_path / "out"), "--quiet", "--set", item]) == 1
+    line = runkit.refused(capsys.readouterr().err, "run", *parts)
+    assert len(line) < 1000
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["w.toml"]
+
+
 def test_fuzz_case_count():
     """Runs last in this file: how many cases were tried."""
     print(f"\nfuzz cases: {CASES}")

@@ -216,3 +216,71 @@ def test_plume_profile_function():
         rtol=1e-12,
     )
     assert plume_profile(601.0, p) == 0.0
+
+
+# ------------------------------------------------------------------------------ many plumes
+
+
+def _scattered_plumes(n, seed=3):
+    """Invented plumes of every shape, some near the poles and across the antimeridian."""
+    rng = np.random.default_rng(seed)
+    shapes = ("gaussian", "cosine", "top-hat")
+    return [
+        Plume(
+            float(rng.choice([rng.uniform(150, 210), rng.uniform(-180, 180)])),
+            float(rng.choice([rng.uniform(70, 89.9), rng.uniform(-60, 60)])),
+            float(rng.uniform(20, 1500)),
+            float(rng.uniform(-200, 300)),
+            shape=shapes[k % 3],
+        )
+        for k in range(n)
+    ]
+
+
+def test_cells_skipped_beyond_reach_leave_the_sum_unchanged():
+    # check values: every plume's profile at pyproj.Geod distances to every cell, summed in
+    # the same order (the cells skipped by the bound are exactly those whose profile is 0)
+    t = Grid.from_extent(120.0, 240.0, -80.0, 90.0, 2.5)
+    plumes = _scattered_plumes(24)
+    expected = np.zeros(t.shape)
+    for p in plumes:
+        expected += plume_profile(geod_distance_km(t, p.longitude, p.latitude), p)
+    got = plume_anomaly(t, plumes).values
+    npt.assert_array_equal(got, expected)
+
+
+def test_many_plumes_lazy_equal_the_eager_sum():
+    # more than SHARED_PLUMES plumes are summed in one task per block: the same arithmetic as
+    # the eager (numpy) sum, so equal bit for bit; fewer, one layer each (unit profile times
+    # the peak: equal to rounding)
+    from lidmelt.grids.anomaly import SHARED_PLUMES
+
+    t = Grid.from_extent(150.0, 210.0, -40.0, 40.0, 1.0)
+    rng = np.random.default_rng(4)
+    plumes = [  # every one centred on the grid, so every one counts
+        Plume(float(rng.uniform(150, 210)), float(rng.uniform(-40, 40)), 300.0, 10.0 + k)
+        for k in range(SHARED_PLUMES + 8)
+    ]
+    lazy = plume_anomaly(t, plumes, chunks=32)
+    assert len(lazy.data.dask.layers) < 10  # one layer for the plumes, not one each
+    npt.assert_array_equal(lazy.values, plume_anomaly(t, plumes).values)
+    few = plumes[:SHARED_PLUMES]
+    npt.assert_allclose(
+        plume_anomaly(t, few, chunks=32).values, plume_anomaly(t, few).values, rtol=1e-12,
+        atol=1e-9,
+    )  # fmt: skip
+
+
+def test_plume_cells_estimates_the_cells_within_reach():
+    # check values: the cells whose pyproj.Geod distance is within the reach, counted
+    from lidmelt.grids.anomaly import plume_cells
+
+    t = Grid.from_extent(-40.0, 40.0, -50.0, 50.0, 0.5)
+    for plume in (Plume(0.0, 10.0, 150.0, 100.0), Plume(5.0, -30.0, 900.0, 50.0, shape="cosine")):
+        counted = int(
+            (geod_distance_km(t, plume.longitude, plume.latitude) <= plume.reach_km).sum()
+        )
+        estimate = plume_cells(t, [plume])
+        assert 0.9 * counted <= estimate <= 1.1 * counted, (estimate, counted)
+    huge = Plume(0.0, 0.0, 5000.0, 10.0)  # reaches the whole grid: at most every cell
+    assert plume_cells(t, [huge, huge]) == 2 * t.width * t.height

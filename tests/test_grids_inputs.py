@@ -83,6 +83,38 @@ def test_text_grid_errors(tmp_path):
         open_grid(path, name="age", crs="EPSG:4326")
 
 
+def test_a_text_grid_spanning_a_huge_lattice_is_refused_by_its_size_first(tmp_path):
+    # five points whose median step (1e-5) and span (18 x 20 degrees) make a lattice of
+    # 1 800 001 x 2 000 001 = 3.6e12 nodes (an identity of the lattice rule above)
+    import tracemalloc
+
+    path = tmp_path / "g.xyz"
+    path.write_text(
+        "lon lat age\n0 0 1\n0.00001 0.00001 2\n0.00002 0.00002 3\n0.00003 0.00003 4\n18 20 5\n"
+    )
+    tracemalloc.start()
+    with pytest.raises(GridError) as refused:
+        open_grid(path, name="age")
+    peak = tracemalloc.get_traced_memory()[1]
+    tracemalloc.stop()
+    message = str(refused.value)
+    assert f"text grid '{path}' for 'age'" in message
+    assert "its 5 points span a lattice of 1,800,001 x 2,000,001 = 3.6e+12 nodes" in message
+    assert "more than the 100,000,000 a text grid may have" in message
+    assert "Convert it to a GeoTIFF or NetCDF grid" in message
+    assert peak < 50e6  # refused before any lattice-sized allocation (bytes)
+
+
+def test_a_text_grid_file_too_large_is_refused_before_it_is_read(tmp_path, monkeypatch):
+    import lidmelt.grids.textgrid as textgrid
+
+    monkeypatch.setattr(textgrid, "MAX_TEXT_GRID_BYTES", 100)
+    path = tmp_path / "g.xyz"
+    path.write_text("\n".join(xyz_lines(np.arange(0.5, 9.0), np.arange(0.5, 9.0))))
+    with pytest.raises(InputError, match=r"g.xyz' for 'age' has [0-9,]+ bytes, more than the 100"):
+        open_grid(path, name="age", crs="EPSG:4326")
+
+
 def xyz_netcdf(path, units="Myr"):
     """A NetCDF with x/y coordinates, variable z and no CRS attributes (the issue's case)."""
     x, y = np.arange(100.5, 110.0, 1.0), np.arange(-20.5, -10.0, 1.0)

@@ -12,6 +12,7 @@ import os
 import subprocess
 import sys
 import time
+from pathlib import Path
 
 import numpy as np
 import numpy.testing as npt
@@ -24,7 +25,7 @@ from lidmelt.engine import run_basin
 from lidmelt.errors import InputError, RunDirError
 from lidmelt.grids.grid import Grid
 from lidmelt.grids.manifest import MANIFEST_KEY, verify_manifest
-from lidmelt.grids.rundir import SUMMARY_NAME, open_run
+from lidmelt.grids.rundir import SUMMARY_NAME
 from lidmelt.grids.transaction import RunLock, RunTransaction, leftovers, lock_path
 from lidmelt.workflow import load_workflow
 
@@ -118,22 +119,56 @@ def test_products_refuse_a_damaged_run(first_run, tmp_path, capsys, damage, mess
     assert not (tmp_path.parent / "x.csv").exists()
 
 
-def test_output_names_come_from_the_registry_not_the_summary(first_run, tmp_path):
-    # a summary naming an output '../../x' (resealed, as an attacker could) is never followed
+@pytest.mark.parametrize(
+    ("group", "name", "file"),
+    [
+        ("outputs", "../../x", "../../x.tif"),  # a name no run writes
+        ("outputs", "melt_thickness_km", "../../x.tif"),  # a registered name, another file
+        ("inputs", "../../x", "../../x.tif"),
+    ],
+    ids=["unknown-output", "output-file", "unknown-input"],
+)
+def test_a_resealed_summary_naming_other_files_is_refused_as_tampered(
+    first_run, tmp_path, capsys, group, name, file
+):
+    # a summary naming an output '../../x', resealed as an attacker could: every product
+    # command refuses the run as tampered (the manifest's own checksum is intact)
     from conftest import reseal
 
     _, res = first_run
     run = copy_run(res.run_dir, tmp_path / "a" / "b" / "run")
     doc = json.loads((run / SUMMARY_NAME).read_text())
-    doc["outputs"]["../../x"] = {"file": "../../x.tif", "units": "km", "long_name": "x"}
-    doc["outputs"]["melt_thickness_km"]["file"] = "../../x.tif"
+    doc[group].setdefault(name, {"units": "km", "long_name": "x"})["file"] = file
     reseal(run, **doc)
-    opened = open_run(run)
-    assert "../../x" not in opened.outputs
-    assert opened.file("melt_thickness_km") == run / "melt_thickness_km.tif"
-    assert main(["map", str(run), "--variable", "melt_thickness_km"]) == 0
+    sites = tmp_path / "sites.csv"
+    sites.write_text("lon,lat\n-25,7\n-20,5\n")
+    boxes = tmp_path / "boxes.geojson"
+    boxes.write_text(
+        '{"type": "FeatureCollection", "features": [{"type": "Feature", "properties": {}, '
+        '"geometry": {"type": "Polygon", "coordinates": '
+        "[[[-28, 4], [-22, 4], [-22, 9], [-28, 9], [-28, 4]]]}}]}"
+    )
+    before = runkit.snapshot(tmp_path)
+    out = tmp_path.parent / f"{tmp_path.name}-out"
+    for argv in (
+        ["sample", str(run), str(sites), "-o", f"{out}.csv"],
+        ["profile", str(run), str(sites), "--spacing", "50", "-o", f"{out}-p.csv"],
+        ["regions", str(run), str(boxes), "-o", f"{out}-r.csv"],
+        ["screen", str(run), "--min-melt-thickness", "1", "-o", f"{out}.gpkg"],
+        ["map", str(run), "--variable", "melt_thickness_km"],
+        ["report", str(run)],
+    ):
+        assert main(argv) == 1, argv
+        err = capsys.readouterr().err
+        assert err.count("\n") == 1, err  # one line
+        assert err.startswith(f"lidmelt {argv[0]}: error: run directory "), err
+        assert "fails its manifest check: summary.json lists" in err, err
+        assert f"{name!r} in {group} with the file {file!r}" in err, err
+        assert "(tampered). Run 'lidmelt run' again" in err, err
+        assert "Traceback" not in err
+    assert runkit.snapshot(tmp_path) == before  # nothing written or replaced
     assert sorted(p.name for p in (tmp_path / "a").iterdir()) == ["b"]
-    assert (run / "maps" / "melt_thickness_km.png").is_file()
+    assert list(tmp_path.parent.glob(f"{tmp_path.name}-out*")) == []
 
 
 def test_a_second_run_into_the_same_folder_fails_at_once(tmp_path):
@@ -279,3 +314,61 @@ def test_align_block_by_block_equals_the_whole(monkeypatch):
         assert blocks.chunks is not None  # lazy
         npt.assert_array_equal(blocks.values, whole)
         monkeypatch.undo()
+
+
+def test_a_previous_run_holding_an_input_of_this_run_is_refused(first_run, tmp_path, capsys):
+    # the lid grid of this run is a previous run's own output: the swap would replace it by
+    # this run's output, and a re-run would read that (the run, not the input, would be kept)
+    import shutil
+
+    _, res = first_run
+    prev = tmp_path / "prev"
+    shutil.copytree(res.run_dir, prev)
+    wf = tmp_path / "w.toml"
+    wf.write_text(
+        '[run]\nname = "selfin"\nmaps = false\nreport = false\n[grid]\nlike = "lid_thickness"\n'
+        '[inputs.lid_thickness]\npath = "prev/lid_depth_km.tif"\n[compute]\nchunk_size = 64\n'
+    )
+    before = runkit.snapshot(tmp_path)
+    for dest in (prev, prev / "."):
+        assert main(["run", str(wf), "-o", str(dest), "--quiet"]) == 1
+        runkit.refused(
+            capsys.readouterr().err, "run", f"output folder '{prev}",
+            f"holds '{prev / 'lid_depth_km.tif'}', which this run reads",
+            "Give another output folder (-o OUT_DIR or run.output_dir), or move the file out",
+        )  # fmt: skip
+    assert runkit.snapshot(tmp_path) == before  # the input and the previous run are intact
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["prev", "w.toml"]
+
+
+def test_a_run_into_the_folder_of_its_workflow_file_is_refused(first_run, tmp_path, capsys):
+    import shutil
+
+    wf, res = first_run
+    prev = tmp_path / "prev"
+    shutil.copytree(res.run_dir, prev)
+    inner = prev / "again.toml"
+    inner.write_text(wf.read_text().replace('path = "age.tif"', f'path = "{wf.parent}/age.tif"'))
+    before = runkit.snapshot(tmp_path)
+    assert main(["run", str(inner), "-o", str(prev), "--quiet"]) == 1
+    runkit.refused(capsys.readouterr().err, "run", f"holds '{inner}', which this run reads")
+    assert runkit.snapshot(tmp_path) == before
+
+
+def test_the_root_folder_is_refused_before_any_lock_file(tmp_path, capsys, monkeypatch):
+    # as root nothing stops a file in '/': the refusal must come before the lock is opened
+    from lidmelt.grids import transaction
+
+    def no_lock(self):
+        raise AssertionError(f"a lock file was opened at {self.path}")
+
+    monkeypatch.setattr(transaction.RunLock, "_open", no_lock)
+    wf = runkit.basin(tmp_path / "in")
+    root = sorted(p.name for p in Path("/").iterdir())
+    for extra in ([], ["--clean"]):
+        assert main(["run", str(wf), "-o", "/", "--quiet", *extra]) == 1
+        runkit.refused(
+            capsys.readouterr().err, "run", "output folder '/' is the root of the file system",
+            "Give a new folder, e.g. -o /results/run1.",
+        )  # fmt: skip
+    assert sorted(p.name for p in Path("/").iterdir()) == root

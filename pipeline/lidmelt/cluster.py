@@ -16,15 +16,17 @@ the workers need no access to the output folder.
 from __future__ import annotations
 
 import contextlib
+import logging
 import os
 from collections.abc import Iterator
 from pathlib import Path
 from typing import Any
 
-from lidmelt.errors import ClusterError
+from lidmelt.errors import ClusterError, LidmeltError
 
 __all__ = [
     "SCHEDULER_ENV",
+    "check_address",
     "check_workers",
     "connect",
     "input_paths",
@@ -39,9 +41,42 @@ WORKER_WAIT_S = 20.0
 
 
 def scheduler_address(cfg) -> str | None:
-    """``cfg.compute.scheduler``, else the :data:`SCHEDULER_ENV` variable, else None."""
-    address = getattr(cfg.compute, "scheduler", None) or os.environ.get(SCHEDULER_ENV, "")
-    return address.strip() or None
+    """``cfg.compute.scheduler``, else the :data:`SCHEDULER_ENV` variable, else None; checked
+    by :func:`check_address`."""
+    given = getattr(cfg.compute, "scheduler", None)
+    address = (given or os.environ.get(SCHEDULER_ENV, "")).strip()
+    if not address:
+        return None
+    return check_address(address, where="compute.scheduler" if given else SCHEDULER_ENV)
+
+
+def check_address(address: str, *, where: str) -> str:
+    """``address`` if dask.distributed can connect to it (``scheme://host:port``, a known
+    scheme, a port 1-65535), else a ClusterError naming ``where`` (the key or variable).
+
+    Checked before any client is made: dask takes a malformed address only to fail in its
+    connection loop, then hangs on shutdown.
+    """
+    from distributed.comm.addressing import parse_address, parse_host_port
+    from distributed.comm.registry import get_backend
+
+    shown = address if len(address) <= 80 else f"{address[:77]}..."
+    try:
+        scheme, location = parse_address(address)
+        get_backend(scheme)
+        if scheme != "inproc":
+            host, port = parse_host_port(location)
+            if not host or not 0 < int(port) < 65536:
+                msg = f"expected a host and a port from 1 to 65535, found {location!r}"
+                raise ValueError(msg)
+    except (ValueError, TypeError) as exc:
+        msg = (
+            f"{where} is {shown!r}, not a dask scheduler address ({exc}); expected "
+            "'tcp://host:port', e.g. 'tcp://127.0.0.1:8786' (dask scheduler prints it when it "
+            "starts). Fix the address, or remove it to run on local threads."
+        )
+        raise ClusterError(msg) from None
+    return address
 
 
 def input_paths(cfg) -> list[Path]:
@@ -119,13 +154,40 @@ def _open_client(address: str):
     return client
 
 
-def _lost(exc: BaseException) -> bool:
-    """True for a failure of the cluster itself (a lost worker, scheduler or connection)."""
+def _lost(exc: BaseException, client) -> bool:
+    """True for a failure of the cluster itself (a lost worker, scheduler or connection): a
+    failure of the kind, or any failure once the client has lost its scheduler."""
     from distributed import KilledWorker
     from distributed.client import FutureCancelledError
     from distributed.comm import CommClosedError
 
-    return isinstance(exc, KilledWorker | FutureCancelledError | CommClosedError)
+    if isinstance(exc, KilledWorker | FutureCancelledError | CommClosedError):
+        return True
+    return not isinstance(exc, LidmeltError) and client.status != "running"
+
+
+def _short(exc: BaseException) -> str:
+    """The first line of ``exc``'s message, at most 200 characters."""
+    text = (str(exc).strip().splitlines() or [""])[0]
+    return text if len(text) <= 200 else f"{text[:197]}..."
+
+
+@contextlib.contextmanager
+def _quiet_dask_logs() -> Iterator[None]:
+    """No log records of dask.distributed in this process within the block: a lost worker or
+    scheduler is reported once, as lidmelt's ClusterError, not also as dask's tracebacks of its
+    reconnection attempts (the scheduler's and the workers' own logs keep theirs)."""
+    known = list(logging.root.manager.loggerDict)
+    names = ["distributed", *(n for n in known if n.startswith("distributed."))]
+    loggers = [logging.getLogger(n) for n in names]
+    levels = [lg.level for lg in loggers]
+    for lg in loggers:
+        lg.setLevel(logging.CRITICAL + 1)
+    try:
+        yield
+    finally:
+        for lg, level in zip(loggers, levels, strict=True):
+            lg.setLevel(level)
 
 
 @contextlib.contextmanager
@@ -140,18 +202,20 @@ def connect(cfg, *, paths: list[Path] | None = None) -> Iterator[Any]:
     if address is None:
         yield None
         return
-    client = _open_client(address)
-    try:
-        check_workers(client, input_paths(cfg) if paths is None else paths)
-        yield client
-    except Exception as exc:
-        if not _lost(exc):
-            raise
-        msg = (
-            f"the dask cluster at {address!r} failed during the run ({type(exc).__name__}: "
-            f"{exc}); nothing was written. Look at the workers' logs (a worker killed for "
-            "memory: lower compute.chunk_size or give each worker more memory), then run again."
-        )
-        raise ClusterError(msg) from exc
-    finally:
-        client.close()
+    with _quiet_dask_logs():
+        client = _open_client(address)
+        try:
+            check_workers(client, input_paths(cfg) if paths is None else paths)
+            yield client
+        except Exception as exc:
+            if not _lost(exc, client):
+                raise
+            msg = (
+                f"the dask cluster at {address!r} failed during the run ({type(exc).__name__}: "
+                f"{_short(exc)}): a worker or the scheduler was lost; nothing was written. Look "
+                "at the workers' and the scheduler's logs (a worker killed for memory: lower "
+                "compute.chunk_size or give each worker more memory), then run again."
+            )
+            raise ClusterError(msg) from exc
+        finally:
+            client.close(timeout=5)

@@ -30,6 +30,7 @@ __all__ = [
     "INPUT_NAMES",
     "INPUT_UNITS",
     "LID_ISOTHERM_RANGE_C",
+    "MAX_PLUMES",
     "METHODS",
     "MIN_CHUNK_SIZE",
     "OUTPUT_VARIABLES",
@@ -95,6 +96,10 @@ SAMPLING_METHODS: tuple[str, ...] = ("latin_hypercube", "random")
 #: Smallest chunk side, cells (smaller chunks cost more in overhead than they save; common
 #: practice).
 MIN_CHUNK_SIZE = 64
+#: The most plumes a workflow may have, inline and catalogue rows together (each is checked
+#: before the run; hotspot catalogues hold tens to hundreds, common practice). Their cost on
+#: the grid is bounded by ``compute.max_cells`` (:func:`lidmelt.grids.anomaly.plume_cells`).
+MAX_PLUMES = 10_000
 #: Default of ``compute.max_cells``: the largest grid a run accepts (cells). 500 million cells
 #: are 2 GB per float32 output before compression; a global 1 arc-minute grid has 233 million.
 DEFAULT_MAX_CELLS = 500_000_000

@@ -43,6 +43,7 @@ from lidmelt.run_inputs import (
     READ_ERRORS,
     RunInputs,
     explain_read_failure,
+    files_read,
     lid_cooling_model,
     load_inputs,
     load_model,
@@ -463,7 +464,8 @@ def run_basin(
         For any bad input (file, grid, range, model), a destination locked by another run, or
         a run without a single evaluable cell; nothing is left half-written.
     """
-    with RunTransaction(output_dir or cfg.run.output_dir, wait=wait) as tx, connect(cfg) as client:
+    dest, reads = output_dir or cfg.run.output_dir, files_read(cfg)
+    with RunTransaction(dest, wait=wait, inputs=reads) as tx, connect(cfg) as client:
         try:
             result = _run_staged(cfg, tx.staging, progress, extra_stages, client)
         except READ_ERRORS as exc:  # a damaged input file? name it and its workflow key

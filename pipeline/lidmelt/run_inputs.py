@@ -16,15 +16,17 @@ values and the range the model accepts).
 from __future__ import annotations
 
 from dataclasses import dataclass, replace
+from pathlib import Path
 from typing import Any
 
 import numpy as np
 import xarray as xr
 
+from lidmelt.cluster import input_paths
 from lidmelt.config import DEFAULT_MAX_CELLS
 from lidmelt.errors import GridError, InputError, LidmeltError
 from lidmelt.grids.align import align
-from lidmelt.grids.anomaly import Plume, plume_anomaly
+from lidmelt.grids.anomaly import Plume, plume_anomaly, plume_cells
 from lidmelt.grids.grid import Grid, registration
 from lidmelt.grids.io import open_input, sha256_file
 from lidmelt.grids.lidref import apply_lid_reference
@@ -36,6 +38,7 @@ __all__ = [
     "READ_ERRORS",
     "RunInputs",
     "explain_read_failure",
+    "files_read",
     "lid_cooling_model",
     "load_inputs",
     "load_model",
@@ -62,6 +65,17 @@ class RunInputs:
     def sources(self) -> dict[str, str]:
         """Where each input came from, for error messages: its file or "the workflow"."""
         return {n: (p.get("source") or "the workflow") for n, p in self.provenance.items()}
+
+
+def files_read(cfg) -> list[Path]:
+    """Every file a run of ``cfg`` reads: its input grids (and a lid's bathymetry), its plume
+    catalogue and its workflow file (a run must not replace a folder that holds one)."""
+    paths = input_paths(cfg)
+    anomaly = cfg.inputs.thermal_anomaly
+    workflow = getattr(cfg, "workflow_path", None)
+    if anomaly is not None and getattr(anomaly, "plumes_file", None) and workflow is not None:
+        paths.append(Path(workflow).parent / Path(anomaly.plumes_file).expanduser())
+    return [*paths, Path(workflow)] if workflow is not None else paths
 
 
 def load_model(cfg) -> tuple[Any, Any | None]:
@@ -97,7 +111,28 @@ def resolve_target_grid(cfg) -> Grid:
             "in the workflow."
         )
         raise InputError(msg)
+    _check_plume_work(cfg, grid, limit)
     return grid
+
+
+def _check_plume_work(cfg, grid: Grid, limit: int) -> None:
+    """Refuse plumes whose geodesic distances (:func:`lidmelt.grids.anomaly.plume_cells`, one
+    per cell within a plume's reach, and again for a plume's upwelling) exceed ``limit``."""
+    anomaly = cfg.inputs.thermal_anomaly
+    specs = list(anomaly.plumes) if anomaly is not None else []
+    specs += [p for p in specs if p.peak_upwelling_mm_yr is not None]
+    if not specs:
+        return
+    cells = plume_cells(grid, [Plume(**p.plume_fields()) for p in specs])
+    if cells > limit:
+        msg = (
+            f"the {len(anomaly.plumes)} plume(s) of inputs.thermal_anomaly reach about "
+            f"{cells:,} cells of the grid in all (per plume the cells within 6 radii of a "
+            f"gaussian, 1 radius otherwise; a geodesic distance each, about 1 microsecond), "
+            f"more than compute.max_cells = {limit:,}. Use fewer or smaller plumes or a coarser "
+            "grid.resolution, or raise compute.max_cells in the workflow."
+        )
+        raise InputError(msg)
 
 
 def load_inputs(cfg, *, target: Grid, chunks: int, cache: dict | None = None) -> RunInputs:

@@ -19,8 +19,9 @@ import traceback
 
 from lidmelt import __version__
 from lidmelt.cli import cache, column, map, profile, regions, report, run, sample, screen
-from lidmelt.cli._failures import Terminated, describe_failure, termination_as_interrupt
+from lidmelt.cli._failures import Terminated, bounded, describe_failure, termination_as_interrupt
 from lidmelt.errors import LidmeltError
+from lidmelt.physics import compiled_cache_note
 
 __all__ = ["COMMANDS", "build_parser", "main"]
 
@@ -51,6 +52,9 @@ def main(argv: list[str] | None = None) -> int:
     if not getattr(args, "func", None):
         parser.print_help()
         return 0
+    note = compiled_cache_note()
+    if note:
+        print(f"lidmelt {args.command}: note: {note}", file=sys.stderr)
     try:
         with termination_as_interrupt():
             return int(args.func(args) or 0)
@@ -61,14 +65,14 @@ def main(argv: list[str] | None = None) -> int:
         return 143 if isinstance(exc, Terminated) else 130
     except LidmeltError as exc:
         _debug(args)
-        print(f"lidmelt {args.command}: error: {exc}", file=sys.stderr)
+        print(f"lidmelt {args.command}: error: {bounded(str(exc))}", file=sys.stderr)
         return 1
     except Exception as exc:
         message = describe_failure(exc)
         if message is None:
             raise  # a bug: its traceback is the report
         _debug(args)
-        print(f"lidmelt {args.command}: error: {message}", file=sys.stderr)
+        print(f"lidmelt {args.command}: error: {bounded(message)}", file=sys.stderr)
         return 1
 
 

@@ -9,10 +9,15 @@ from __future__ import annotations
 
 import contextlib
 import errno
+import re
 import signal
 from typing import Any
 
-__all__ = ["Terminated", "describe_failure", "termination_as_interrupt"]
+__all__ = ["MESSAGE_CHARS", "Terminated", "bounded", "describe_failure", "termination_as_interrupt"]
+
+#: The longest error message the command line prints (characters); a longer one (a hostile
+#: value echoed by a library) keeps its start and its end, where the file and the fix are.
+MESSAGE_CHARS = 2000
 
 #: What to do, per errno of an OSError.
 _ADVICE = {
@@ -44,6 +49,22 @@ def _gdal_types() -> tuple[type[BaseException], ...]:
     from rasterio._err import CPLE_BaseError
 
     return (rasterio.errors.RasterioError, CPLE_BaseError)
+
+
+def bounded(message: str) -> str:
+    """``message`` of at most about :data:`MESSAGE_CHARS` characters: each run of more than
+    200 characters without a space (a hostile value echoed whole) is cut in its middle, then a
+    message still too long loses its middle."""
+    if len(message) <= MESSAGE_CHARS:
+        return message
+    message = re.sub(
+        r"\S{201,}", lambda m: f"{m[0][:80]}...[{len(m[0])} characters]...{m[0][-80:]}", message
+    )
+    if len(message) <= MESSAGE_CHARS:
+        return message
+    keep = MESSAGE_CHARS // 2 - 40
+    left = len(message) - 2 * keep
+    return f"{message[:keep]} [... {left} characters left out ...] {message[-keep:]}"
 
 
 def describe_failure(exc: BaseException) -> str | None:

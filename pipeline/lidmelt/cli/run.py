@@ -6,6 +6,7 @@ import argparse
 from pathlib import Path
 
 from lidmelt.cli._common import print_warnings
+from lidmelt.cluster import scheduler_address
 from lidmelt.engine import run_basin
 from lidmelt.ensemble import ensemble_stages
 from lidmelt.grids.rundir import RunDir
@@ -110,6 +111,7 @@ def run(args: argparse.Namespace) -> int:
     cfg = load_workflow(args.workflow, overrides=args.overrides, output_dir=args.output_dir)
     if args.clean:
         return _clean(cfg)
+    scheduler_address(cfg)  # a malformed LIDMELT_SCHEDULER is refused before anything starts
     # refuses what will not fit, first; the candidates of the deterministic run get drivers
     stages = ensemble_stages(cfg, announce=not args.quiet, candidates=ensemble_candidates)
     products = _products(not args.no_maps and cfg.run.maps, cfg.run.report, cfg.run.output_dir)

@@ -95,11 +95,12 @@ def check_memory(cfg) -> float:
     limit = cfg.ensemble.memory_limit_gb
     if need > limit:
         msg = (
-            f"the ensemble of {cfg.ensemble.members} members with compute.chunk_size = "
-            f"{cfg.compute.chunk_size} and {cfg.compute.workers} workers needs about {need:.3g} "
-            f"GB, over ensemble.memory_limit_gb = {limit:g} GB; memory grows with chunk_size^2 x "
-            "members x workers. Lower compute.chunk_size (e.g. 256) or compute.workers, or raise "
-            "ensemble.memory_limit_gb if the machine has the memory."
+            f"an ensemble of ensemble.members = {cfg.ensemble.members} with compute.chunk_size "
+            f"= {cfg.compute.chunk_size} and compute.workers = {cfg.compute.workers} needs about "
+            f"{need:.3g} GB, over ensemble.memory_limit_gb = {limit:g} GB; memory grows with "
+            "chunk_size^2 x members x workers. Lower ensemble.members, compute.chunk_size (e.g. "
+            "256) or compute.workers, or raise ensemble.memory_limit_gb if the machine has the "
+            "memory."
         )
         raise WorkflowError(msg)
     return need

@@ -21,7 +21,14 @@ from lidmelt.errors import GridError, InputError
 from lidmelt.grids.grid import Grid
 from lidmelt.grids.io import normalise_units
 
-__all__ = ["PLUME_SHAPES", "Plume", "plume_anomaly", "plume_profile"]
+__all__ = [
+    "PLUME_SHAPES",
+    "SHARED_PLUMES",
+    "Plume",
+    "plume_anomaly",
+    "plume_cells",
+    "plume_profile",
+]
 
 #: Profile names accepted by :class:`Plume`.
 PLUME_SHAPES = ("gaussian", "cosine", "top-hat")
@@ -45,6 +52,11 @@ _GEOD = Geod(ellps="WGS84")
 
 # cells per block evaluated at once (bounds temporary memory to a few tens of MB)
 _BLOCK_CELLS = 1 << 20
+#: Up to this many plumes, each is a layer of its own in a lazy anomaly (its unit profile is
+#: shared by runs whose plumes differ only in their peaks, e.g. ensemble members); more are
+#: summed in one task per block: dask's graph optimisation grows with the square of the layers
+#: (1000 plumes took minutes before the first block).
+SHARED_PLUMES = 32
 
 
 @dataclass(frozen=True)
@@ -232,6 +244,11 @@ def _plume_sum(
     if chunks is None:
         data: Any = _plume_block(target, plumes, slice(0, target.height), slice(0, target.width))
         return xr.DataArray(data, dims=("y", "x"), coords=template.coords)
+    if len(plumes) > SHARED_PLUMES:  # one task per block for all: a graph of one layer
+        data = template.data.map_blocks(
+            _plume_dask_block, target, plumes, dtype=np.float64, meta=np.empty((0, 0))
+        )
+        return xr.DataArray(data, dims=("y", "x"), coords=template.coords)
     data = template.data.map_blocks(np.zeros_like, dtype=np.float64)
     for plume in plumes:
         data = data + plume.peak_excess_k * _unit_profile(template, target, plume)
@@ -316,9 +333,10 @@ def _plume_block(target: Grid, plumes: tuple[Plume, ...], rows: slice, cols: sli
         sub = slice(start, min(rows.stop, start + step))
         lon, lat = target.lonlat_centres(rows=sub, cols=cols)
         dest = out[sub.start - rows.start : sub.stop - rows.start]
+        phi, lam = np.radians(lat), np.radians(lon)
+        cos_phi = np.cos(phi)
         for plume in plumes:
-            reach_m = plume.reach_km * 1000.0
-            near = np.abs(np.radians(lat - plume.latitude)) * _MERIDIAN_MIN_M <= reach_m
+            near = _within_reach(phi, lam, cos_phi, plume)
             if not near.any():
                 continue
             lon_n, lat_n = lon[near], lat[near]
@@ -329,4 +347,46 @@ def _plume_block(target: Grid, plumes: tuple[Plume, ...], rows: slice, cols: sli
                 lat_n,
             )
             dest[near] += plume_profile(np.asarray(dist_m) / 1000.0, plume)
+    return out
+
+
+def _within_reach(phi: np.ndarray, lam: np.ndarray, cos_phi: np.ndarray, plume: Plume) -> Any:
+    """Where the geodesic distance from ``plume``'s centre may be within its reach.
+
+    On the ellipsoid ds^2 = M^2 dphi^2 + N^2 cos^2(phi) dlambda^2 with the radii of curvature
+    M >= a(1 - e^2) and N >= a >= a(1 - e^2), so every path, the geodesic included, is at
+    least a(1 - e^2) times its central angle on the unit sphere of the same geodetic latitude
+    and longitude (haversine formula, common practice) [derived]. Cells beyond the reach by
+    that bound get no geodesic: their profile is 0 exactly, so the sum is unchanged.
+    """
+    reach_m = plume.reach_km * 1000.0
+    phi0, lam0 = math.radians(plume.latitude), math.radians(plume.longitude)
+    band = np.abs(phi - phi0) * _MERIDIAN_MIN_M <= reach_m
+    if not band.any():
+        return band
+    h = np.sin((phi - phi0) * 0.5) ** 2 + math.cos(phi0) * cos_phi * np.sin((lam - lam0) * 0.5) ** 2
+    angle = 2.0 * np.arcsin(np.sqrt(np.minimum(h, 1.0)))
+    # a margin of 1e-9 of the reach for rounding in the bound: never cuts a reached cell
+    return band & (angle * _MERIDIAN_MIN_M <= reach_m * (1.0 + 1e-9))
+
+
+def plume_cells(target: Grid, plumes: Any) -> int:
+    """An estimate of the work of the plumes on ``target``: per plume the cells within its
+    reach (the disk of radius :attr:`Plume.reach_km` over the cell area at its centre on a
+    sphere of the equatorial radius, at most every cell), summed. Each such cell costs one
+    geodesic distance (about 1 microsecond, the dear part of an anomaly); known before any is
+    computed."""
+    total = target.width * target.height
+    dx, dy = target.resolution
+    if target.is_geographic:
+        cell_km2 = math.radians(dx) * math.radians(dy) * (_WGS84_A_M / 1000.0) ** 2
+    else:
+        axes = target.pyproj_crs.axis_info
+        metres = axes[0].unit_conversion_factor if axes else 1.0
+        cell_km2 = dx * dy * (metres / 1000.0) ** 2
+    out = 0
+    for plume in plumes:
+        shrink = math.cos(math.radians(plume.latitude)) if target.is_geographic else 1.0
+        disk = math.pi * plume.reach_km**2 / max(cell_km2 * shrink, 1e-30)
+        out += min(total, math.ceil(disk))
     return out

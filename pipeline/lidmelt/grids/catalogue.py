@@ -24,6 +24,7 @@ from typing import Any
 
 import numpy as np
 
+from lidmelt.config import MAX_PLUMES
 from lidmelt.errors import InputError
 from lidmelt.grids.grid import WGS84
 from lidmelt.grids.vector import check_points, read_points
@@ -35,7 +36,9 @@ CATALOGUE_DEFAULTS = {"shape": "gaussian"}
 _REQUIRED = ("radius_km", "peak_excess_k")
 
 
-def read_plume_catalogue(path: str | Path, *, crs: Any = None, key: str) -> list[dict[str, Any]]:
+def read_plume_catalogue(
+    path: str | Path, *, crs: Any = None, key: str, max_rows: int | None = None
+) -> list[dict[str, Any]]:
     """The rows of a plume catalogue as dicts of the plume fields (EPSG:4326 degrees).
 
     Parameters
@@ -46,6 +49,9 @@ def read_plume_catalogue(path: str | Path, *, crs: Any = None, key: str) -> list
         CRS of a CSV's coordinates, or of a vector file that states none.
     key : str
         The workflow key that named the file, for messages.
+    max_rows : int, optional
+        The most rows accepted; a file with more is refused after counting its lines (a text
+        file) or features (a vector file), before any row is read.
 
     Returns
     -------
@@ -56,9 +62,12 @@ def read_plume_catalogue(path: str | Path, *, crs: Any = None, key: str) -> list
     Raises
     ------
     InputError
-        If the file cannot be read, has no coordinates or lacks a required column.
+        If the file cannot be read, has no coordinates or lacks a required column, or has more
+        than ``max_rows`` rows.
     """
     path = Path(path)
+    if max_rows is not None:
+        _check_row_count(path, max_rows, key)
     gdf = read_points(path, crs=crs, what=f"plume catalogue ({key})")
     source = f"plume catalogue {str(path)!r} ({key})"
     columns = {str(c).strip().lower(): c for c in gdf.columns if c != "geometry"}
@@ -97,3 +106,26 @@ def _cell(gdf: Any, column: Any, i: int) -> Any:
     if isinstance(value, str):
         return value.strip() or None
     return value.item() if hasattr(value, "item") else value
+
+
+def _check_row_count(path: Path, max_rows: int, key: str) -> None:
+    """Refuse a catalogue of more than ``max_rows`` rows, counted without reading them: the
+    lines of a text file (the header counts as one), the features of a vector file."""
+    try:
+        if path.suffix.lower() in (".csv", ".tsv", ".txt"):
+            with path.open("rb") as f:
+                rows = sum(block.count(b"\n") for block in iter(lambda: f.read(1 << 20), b"")) - 1
+        else:
+            import pyogrio
+
+            rows = int(pyogrio.read_info(path)["features"])
+    except Exception:  # unreadable: read_points gives the message
+        return
+    if rows > max_rows:
+        msg = (
+            f"plume catalogue {str(path)!r} ({key}) has {rows:,} rows, more than the "
+            f"{max_rows:,} it may add: a workflow has at most {MAX_PLUMES:,} plumes, inline and "
+            "catalogue rows together (each is checked before the run and costs the grid cells "
+            "within its reach). Keep the plumes that reach the grid, or merge nearby ones."
+        )
+        raise InputError(msg)

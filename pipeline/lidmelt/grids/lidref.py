@@ -22,10 +22,20 @@ from lidmelt.grids.grid import Grid
 from lidmelt.grids.io import open_input
 from lidmelt.physics.cooling import get_cooling_model, seafloor_depth_m
 
-__all__ = ["LID_REFERENCES", "apply_lid_reference", "lid_below_seafloor_km"]
+__all__ = [
+    "DEEPEST_SEAFLOOR_M",
+    "LID_REFERENCES",
+    "apply_lid_reference",
+    "check_bathymetry",
+    "lid_below_seafloor_km",
+]
 
 #: Values of ``[inputs.lid_thickness] reference``.
 LID_REFERENCES = ("seafloor", "sea_level")
+#: The deepest seafloor, m below sea level: about 11 km at the Challenger Deep (from memory).
+#: A bathymetry grid with values well beyond it, or with every value within 11 m of sea level,
+#: is taken for a unit slip (:func:`check_bathymetry`).
+DEEPEST_SEAFLOOR_M = 11_000.0
 
 
 def lid_below_seafloor_km(lid_below_sea_level_km: Any, water_depth_km: Any) -> Any:
@@ -61,7 +71,8 @@ def apply_lid_reference(
     Raises
     ------
     InputError
-        If the lid is below sea level but there is neither a bathymetry grid nor a plate age.
+        If the lid is below sea level but there is neither a bathymetry grid nor a plate age,
+        or the bathymetry grid's sign or unit is wrong (:func:`check_bathymetry`).
     """
     spec = cfg.inputs.lid_thickness
     name = "lid_thickness_km"
@@ -72,6 +83,8 @@ def apply_lid_reference(
         bath = SimpleNamespace(name="lid_thickness.bathymetry", path=bathymetry, variable=None)
         elevation = open_input(bath, name="bathymetry_m", units_expected="m", chunks=chunks)
         elevation = align(elevation, target, name="bathymetry_m")
+        where = f"bathymetry grid {str(bathymetry)!r} (inputs.lid_thickness.bathymetry)"
+        check_bathymetry(elevation, source=where)
         depth_km = (-elevation).clip(min=0.0) / 1000.0
         how = f"water depth from the bathymetry grid {str(bathymetry)!r}"
     elif "plate_age_ma" in values:
@@ -97,3 +110,59 @@ def apply_lid_reference(
         raise InputError(msg)
     values[name] = lid_below_seafloor_km(values[name], depth_km)
     provenance[name].update(reference="sea_level", water_depth=how)
+
+
+def check_bathymetry(elevation: Any, *, source: str) -> None:
+    """Refuse an elevation grid (m, negative below sea level) whose sign or unit is wrong.
+
+    lidmelt maps ocean basins, so most cells of a bathymetry grid lie below sea level: a grid
+    with more than half of its cells above holds depths positive down. Every value within
+    ``DEEPEST_SEAFLOOR_M`` / 1000 = 11 m of sea level is a grid in km read as metres, and a
+    value beyond 1.1 x 11 km (below or above sea level) one in a smaller unit. One pass over
+    the grid, block by block, before the run computes anything.
+
+    Raises
+    ------
+    InputError
+        Naming ``source`` (the file and key), the values found and the fix.
+    """
+    data = elevation.data if isinstance(elevation, xr.DataArray) else np.asarray(elevation)
+    lazy = hasattr(data, "dask")
+    if lazy:
+        import dask
+        import dask.array as xp
+    else:
+        xp = np
+    finite = xp.isfinite(data)
+    stats = (
+        xp.where(finite, data, np.inf).min(),
+        xp.where(finite, data, -np.inf).max(),
+        finite.sum(),
+        (data > 0).sum(),  # NaN is not above sea level
+    )
+    low, high, count, above = (float(v) for v in (dask.compute(*stats) if lazy else stats))
+    if count == 0:
+        return
+    found = (
+        f"{source} has values from {low:.6g} to {high:.6g} m, {above / count:.0%} of its cells "
+        "above sea level"
+    )
+    if above > count / 2:
+        problem = (
+            "expected elevation, negative below sea level (as GEBCO and ETOPO grids store it). "
+            "If the file holds depths positive down, multiply it by -1"
+        )
+    elif max(abs(low), abs(high)) <= DEEPEST_SEAFLOOR_M / 1000.0:
+        problem = (
+            "all within 11 m of sea level, as if in km; expected metres. Label the file's "
+            'units "km" (lidmelt converts them) or convert it to metres'
+        )
+    elif max(abs(low), abs(high)) > 1.1 * DEEPEST_SEAFLOOR_M:
+        problem = (
+            "some beyond the deepest seafloor (about 11 000 m); expected metres. Label the "
+            "file's units or convert it to metres"
+        )
+    else:
+        return
+    msg = f"{found}: {problem}, then run again."
+    raise InputError(msg)

@@ -48,6 +48,7 @@ def store_on_client(client, sources: list, targets: list, extra: list) -> list[A
     blocks stay on the workers until this process has written them.
     """
     from distributed import as_completed, futures_of
+    from distributed.client import FutureCancelledError
 
     flat = _flatten(extra)
     persisted = client.persist([*sources, *flat])
@@ -59,6 +60,10 @@ def store_on_client(client, sources: list, targets: list, extra: list) -> list[A
     futures = [f for source in sources for f in futures_of(source)]
     try:
         for future, value in as_completed(futures, loop=client.loop, with_results=True):
+            if future.status != "finished":  # cancelled: its worker or the scheduler was lost
+                if isinstance(value, FutureCancelledError):
+                    raise value
+                raise FutureCancelledError(future.key, f"{future.status} ({value!r})")
             for target, rows, cols in where.pop(future.key, []):
                 target[rows, cols] = value
             future.release()

@@ -146,6 +146,7 @@ class RunDir:
             raise RunDirError(msg)
         self.summary: dict[str, Any] = summary
         self._stats = verify_manifest(self.path, summary, needed=self._listed_files())
+        _check_entries(self.path, summary)
 
     def _listed_files(self) -> list[str]:
         """The files the summary lists (named by the registry, never by the summary)."""
@@ -230,6 +231,25 @@ class RunDir:
             )
             raise RunDirError(msg)
         return path
+
+
+def _check_entries(path: Path, summary: Mapping[str, Any]) -> None:
+    """A RunDirError for an entry of the summary's outputs or inputs that no run writes (a name
+    outside the registry, or another file than the registry's): a summary changed and resealed
+    after the run is refused like any tampered run, not skipped."""
+    for group, file_of in (("outputs", output_file), ("inputs", input_file)):
+        for name, entry in _entries(summary, group).items():
+            known = name in INPUTS if group == "inputs" else name in OUTPUTS
+            known = known or (group == "outputs" and ensemble_variable(name) is not None)
+            listed = entry.get("file") if isinstance(entry, dict) else None
+            if not known or listed not in (None, file_of(name)):
+                msg = (
+                    f"run directory {str(path)!r} fails its manifest check: summary.json lists "
+                    f"{str(name)[:80]!r} in {group} with the file {str(listed)[:80]!r}, which no "
+                    "lidmelt run writes: the summary was changed after the run (tampered). Run "
+                    "'lidmelt run' again to rewrite the folder."
+                )
+                raise RunDirError(msg)
 
 
 def _entries(summary: Mapping[str, Any], group: str) -> dict[str, Any]:

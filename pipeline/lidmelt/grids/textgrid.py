@@ -26,7 +26,13 @@ from lidmelt.errors import GridError, InputError
 from lidmelt.grids.grid import finalise_grid
 from lidmelt.grids.netcdf import given_crs
 
-__all__ = ["TEXT_GRID_SUFFIXES", "open_text_grid", "regular_lattice"]
+__all__ = [
+    "MAX_TEXT_GRID_BYTES",
+    "MAX_TEXT_GRID_NODES",
+    "TEXT_GRID_SUFFIXES",
+    "open_text_grid",
+    "regular_lattice",
+]
 
 #: File suffixes read as text grids.
 TEXT_GRID_SUFFIXES = (".xyz", ".txt", ".csv", ".dat", ".tsv")
@@ -35,6 +41,17 @@ _SPLIT = re.compile(r"[\s,;|]+")
 _LON = ("lon", "long", "longitude", "lon_deg", "longitude_deg")
 _LAT = ("lat", "latitude", "lat_deg", "latitude_deg")
 _TOL = 0.01
+#: The largest lattice a text grid may span (nodes): it is read whole, 16 bytes a node (the
+#: float64 grid and the index count), so 1.6 GB; a bigger grid belongs in a GeoTIFF or NetCDF
+#: file, which lidmelt reads window by window.
+MAX_TEXT_GRID_NODES = 100_000_000
+#: The largest text grid file read (bytes): its lines are split in memory, several times the
+#: file's size.
+MAX_TEXT_GRID_BYTES = 1_000_000_000
+_CONVERT = (
+    "Convert it to a GeoTIFF or NetCDF grid (e.g. GMT's xyz2grd or GDAL's gdal_translate), "
+    "which lidmelt reads window by window."
+)
 
 
 def open_text_grid(
@@ -75,6 +92,15 @@ def open_text_grid(
     x0, dx, col = regular_lattice(xs, axis="x", source=source)
     y0, dy, row = regular_lattice(ys, axis="y", source=source)
     nx, ny = int(col.max()) + 1, int(row.max()) + 1
+    if nx * ny > MAX_TEXT_GRID_NODES:
+        msg = (
+            f"{source}: its {len(xs):,} points span a lattice of {nx:,} x {ny:,} = "
+            f"{nx * ny:.3g} nodes (x {x0:.6g} to {x0 + (nx - 1) * dx:.6g} by {dx:.6g}, y "
+            f"{y0:.6g} to {y0 + (ny - 1) * dy:.6g} by {dy:.6g}: the median steps), more than "
+            f"the {MAX_TEXT_GRID_NODES:,} a text grid may have. Check for a stray coordinate or "
+            f"a point set that is not a grid. {_CONVERT}"
+        )
+        raise GridError(msg)
     flat = (ny - 1 - row) * nx + col  # north up
     counts = np.bincount(flat)
     if counts.max() > 1:
@@ -134,6 +160,14 @@ def regular_lattice(values: np.ndarray, *, axis: str, source: str) -> tuple[floa
 def _read_table(path: Path, *, name: str) -> tuple[list[str] | None, np.ndarray]:
     """(header names or None, float table) of a text grid."""
     try:
+        size = path.stat().st_size
+        if size > MAX_TEXT_GRID_BYTES:
+            msg = (
+                f"text grid {str(path)!r} for {name!r} has {size:,} bytes, more than the "
+                f"{MAX_TEXT_GRID_BYTES:,} a text grid may have (it is read whole, several "
+                f"times its size in memory). {_CONVERT}"
+            )
+            raise InputError(msg)
         lines = path.read_text(encoding="utf-8-sig").splitlines()
     except (OSError, UnicodeDecodeError) as exc:
         msg = f"cannot read text grid {str(path)!r} for {name!r} ({exc}). Save it as UTF-8 text."

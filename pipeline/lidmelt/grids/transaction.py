@@ -25,6 +25,7 @@ import signal
 import tempfile
 import threading
 import time
+from collections.abc import Iterable
 from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any
@@ -122,12 +123,20 @@ class RunLock:
     Raises
     ------
     RunDirError
-        When another live run holds the lock (and ``wait`` is false), or the lock file is a
-        symlink or cannot be created.
+        When another live run holds the lock (and ``wait`` is false), the lock file is a
+        symlink or cannot be created, or ``dest`` is the root of the file system (no folder
+        beside it; refused when the lock is made, before any file).
     """
 
     def __init__(self, dest: str | Path, *, wait: bool = False, poll_s: float = 0.2) -> None:
         self.dest = Path(dest)
+        if self.dest.absolute().parent == self.dest.absolute():
+            msg = (
+                f"output folder {str(self.dest)!r} is the root of the file system: a run "
+                "replaces its folder as a whole and keeps its lock and staging folder beside "
+                "it. Give a new folder, e.g. -o /results/run1."
+            )
+            raise RunDirError(msg)
         self.path = lock_path(self.dest)
         self.wait = wait
         self.poll_s = poll_s
@@ -266,6 +275,22 @@ def swap_into_place(staging: Path, dest: Path) -> None:
     fsync_dir(dest.parent)
 
 
+def _check_inputs_outside(dest: Path, inputs: Iterable[Path]) -> None:
+    """Refuse a destination that holds a file the run reads: the swap would remove it (or the
+    run would write its own output over it, and a re-run would read that instead)."""
+    real = dest.resolve()
+    for path in inputs:
+        inside = Path(path).resolve()
+        if inside == real or real in inside.parents:
+            msg = (
+                f"output folder {str(dest)!r} holds {str(path)!r}, which this run reads: a run "
+                "replaces its folder as a whole, so the file would be lost or replaced by the "
+                "run's own output. Give another output folder (-o OUT_DIR or run.output_dir), "
+                "or move the file out of it."
+            )
+            raise RunDirError(msg)
+
+
 def _check_destination(dest: Path, marker: str) -> None:
     """Refuse to replace a folder that is neither empty nor a run (a user's own files)."""
     if dest.exists() and not dest.is_dir():
@@ -292,19 +317,32 @@ class RunTransaction:
             tx.commit()
 
     Leaving the block without :meth:`commit` (an error, an interruption) removes the staging
-    folder; the destination keeps its old run.
+    folder; the destination keeps its old run. A destination that holds one of ``inputs`` (the
+    files the run reads), the root of the file system (:class:`RunLock`), or a folder that is
+    neither empty nor a run is refused before its lock file is made.
     """
 
-    def __init__(self, dest: str | Path, *, wait: bool = False, marker: str = "summary.json"):
+    def __init__(
+        self,
+        dest: str | Path,
+        *,
+        wait: bool = False,
+        marker: str = "summary.json",
+        inputs: Iterable[Path] = (),
+    ):
         self.dest = Path(dest).absolute()
         if self.dest.is_symlink():  # a link the user chose: the run goes where it points
             self.dest = self.dest.resolve()
         self.marker = marker
+        self.inputs = list(inputs)
         self._lock = RunLock(self.dest, wait=wait)
         self.staging: Path | None = None
         self.committed = False
 
     def __enter__(self) -> RunTransaction:
+        # refused before the lock file is made beside the destination; checked again with it
+        _check_destination(self.dest, self.marker)
+        _check_inputs_outside(self.dest, self.inputs)
         self._lock.__enter__()
         try:
             with signals_deferred():

@@ -4,6 +4,7 @@ Nothing in this subpackage reads or writes files, except the melting table's dis
 (:mod:`lidmelt.physics.table`). Callers outside the subpackage import from here.
 """
 
+from lidmelt.physics._jitcache import cache_note as compiled_cache_note
 from lidmelt.physics.column import column_profile
 from lidmelt.physics.cooling import COOLING_MODELS, get_cooling_model, isotherm_depth_km
 from lidmelt.physics.evaluate import (
@@ -49,6 +50,7 @@ __all__ = [
     "MeltTable",
     "MeltingModel",
     "column_profile",
+    "compiled_cache_note",
     "evaluate_cells",
     "excess_to_melt_k",
     "get_cooling_model",

@@ -31,8 +31,9 @@ H, F and the integral of P dF come from the table (bilinear in Tp and top pressu
 between water nodes), as on the numpy path.
 
 Compiling takes 5-20 s on the 2-core development machine (``bench_column.py`` prints it); numba
-keeps the result on disk (beside this module, or in ``$NUMBA_CACHE_DIR``), and a warm cache
-loads in about 1 s. Where neither is writable, every process compiles once.
+keeps the result on disk (beside this module, in ``$NUMBA_CACHE_DIR`` or under HOME, else in
+a private temporary folder), and a warm cache loads in about 1 s. Where none is writable, every
+process compiles once.
 """
 
 from __future__ import annotations
@@ -42,6 +43,7 @@ import time
 import numpy as np
 
 from lidmelt.errors import ModelError
+from lidmelt.physics._jitcache import njit
 from lidmelt.physics.kernel_arrays import ONSET_STEP_GPA, kernel_arrays
 from lidmelt.physics.table import WATER_EXPONENT
 
@@ -82,8 +84,9 @@ ROWS = (
 def _jit(func=None, *, inline="never", refcount=True):
     """numba.njit without the GIL, cached on disk where numba finds a writable place.
 
-    In a read-only install without ``NUMBA_CACHE_DIR``, numba has no cache location and refuses
-    ``cache=True``; the kernel is then compiled in memory once per process. The helpers of one
+    In a read-only install and HOME without ``NUMBA_CACHE_DIR``, numba has no cache location;
+    :func:`lidmelt.physics._jitcache.njit` then caches in a private temporary folder, or
+    compiles in memory once per process, with a one-line note. The helpers of one
     cell are inlined (``inline="always"``): called, they cost three times the work they do.
     ``refcount=False`` compiles without numba's reference counting of arrays (its ``_nrt``
     option) for a function that allocates nothing: inlined helpers that take arrays otherwise
@@ -97,10 +100,7 @@ def _jit(func=None, *, inline="never", refcount=True):
     opts = {"nogil": True, "inline": inline, "error_model": "numpy"}
     if not refcount:
         opts["_nrt"] = False
-    try:
-        return numba.njit(cache=True, **opts)(func)
-    except RuntimeError:
-        return numba.njit(**opts)(func)
+    return njit(func, **opts)
 
 
 # ------------------------------------------------------------------------------------------------

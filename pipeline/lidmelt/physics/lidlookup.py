@@ -54,6 +54,7 @@ except ImportError:  # pragma: no cover - the numpy path is tested by forcing it
     numba = None
 
 from lidmelt.physics import _plate
+from lidmelt.physics._jitcache import njit
 from lidmelt.physics.cooling import (
     SECONDS_PER_MA,
     CoolingModel,
@@ -169,7 +170,7 @@ def _plate_loop(age, inv_step, base, rise, out, outside):
 
 
 if numba is not None:
-    _plate_loop = numba.njit(nogil=True, cache=True, error_model="numpy")(_plate_loop)
+    _plate_loop = njit(_plate_loop, nogil=True, error_model="numpy")
 
 
 def lid_lookup(isotherm_c: float, *, model: CoolingModel) -> LidLookup:

@@ -38,7 +38,15 @@ _PATTERN = "*.npz"
 
 
 def cache_dir() -> Path:
-    """The folder where tables are cached."""
+    """The folder where tables are cached.
+
+    Raises
+    ------
+    InputError
+        If ``$LIDMELT_CACHE_MAX_MB`` is set but not a positive number (checked on every use,
+        whether the table is then built or found in the cache).
+    """
+    cache_limit_bytes()
     if os.environ.get("LIDMELT_CACHE_DIR"):
         return Path(os.environ["LIDMELT_CACHE_DIR"])
     base = os.environ.get("XDG_CACHE_HOME") or Path.home() / ".cache"

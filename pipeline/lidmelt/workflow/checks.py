@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import difflib
 import math
+import reprlib
 from collections.abc import Callable, Mapping, Sequence
 from pathlib import Path
 from typing import Any
@@ -26,6 +27,8 @@ __all__ = [
     "leaf",
     "number",
     "read_fields",
+    "shortened",
+    "shown",
     "string",
     "table",
     "user_path",
@@ -34,6 +37,41 @@ __all__ = [
 
 #: A reader of one value: ``reader(ctx, dotted_key, value) -> checked value``.
 Reader = Callable[["Context", str, Any], Any]
+
+#: The longest text of one value or key that a message echoes (characters).
+SHOWN_CHARS = 80
+
+
+def _repr_of_bounded_size() -> reprlib.Repr:
+    short = reprlib.Repr()
+    short.maxstring = short.maxother = SHOWN_CHARS
+    short.maxlist = short.maxtuple = short.maxdict = 6
+    short.maxlevel = 3
+    return short
+
+
+_SHORT = _repr_of_bounded_size()
+
+
+def shown(value: Any) -> str:
+    """``repr(value)`` for a message, at most about :data:`SHOWN_CHARS` characters: a long
+    string or number is cut in the middle and its length given, a long or deep array or table
+    is elided (a hostile 10 MB value is never echoed whole)."""
+    if isinstance(value, int) and not isinstance(value, bool) and value.bit_length() > 256:
+        return f"a whole number of about {value.bit_length() * 0.30103:.0f} digits"
+    text = _SHORT.repr(value)
+    if isinstance(value, str) and len(value) > SHOWN_CHARS:
+        text += f" ({len(value)} characters)"
+    return text
+
+
+def shortened(text: str, limit: int = SHOWN_CHARS) -> str:
+    """``text`` (a key, a --set item, a library's message) for a message, cut in the middle if
+    longer than ``limit`` characters."""
+    if len(text) <= limit:
+        return text
+    half = limit // 2
+    return f"{text[:half]}...{text[-half:]} ({len(text)} characters)"
 
 
 class Context:
@@ -55,12 +93,12 @@ class Context:
         """`` (from --set ITEM)`` when a --set item wrote this key or a parent table, else ''."""
         for set_key, item in self.set_keys.items():
             if key == set_key or key.startswith(set_key + "."):
-                return f" (from --set {item})"
+                return f" (from --set {shortened(item)})"
         return ""
 
     def where(self, key: str) -> str:
         """``'key' in file.toml``, plus the --set item that wrote it, if any."""
-        return f"'{key}' in {self.source}{self.origin(key)}"
+        return f"'{shortened(key)}' in {self.source}{self.origin(key)}"
 
 
 _TYPE_NAMES: tuple[tuple[type, str], ...] = (
@@ -83,7 +121,7 @@ def _type_name(value: Any) -> str:
 def wrong_type(ctx: Context, key: str, value: Any, expected: str, example: str) -> WorkflowError:
     """The error for a value of the wrong type (to raise), with an example of the right one."""
     return WorkflowError(
-        f"{ctx.where(key)} is {value!r} ({_type_name(value)}); expected {expected}. "
+        f"{ctx.where(key)} is {shown(value)} ({_type_name(value)}); expected {expected}. "
         f"Write it like: {example}"
     )
 
@@ -98,7 +136,7 @@ def number(ctx: Context, key: str, value: Any, *, unit: str) -> float:
     if isinstance(value, bool) or not isinstance(value, int | float):
         raise wrong_type(ctx, key, value, f"a number in {unit}", f"{leaf(key)} = 1.0")
     if not math.isfinite(value):
-        msg = f"{ctx.where(key)} is {value!r}; expected a finite number in {unit}."
+        msg = f"{ctx.where(key)} is {shown(value)}; expected a finite number in {unit}."
         raise WorkflowError(msg)
     return float(value)
 
@@ -147,7 +185,7 @@ def choice(ctx: Context, key: str, value: Any, choices: Sequence[str]) -> str:
         near = difflib.get_close_matches(value, choices, n=1)
         hint = f" Did you mean {near[0]!r}?" if near else ""
         msg = (
-            f"{ctx.where(key)} is {value!r}, which is not known; expected one of "
+            f"{ctx.where(key)} is {shown(value)}, which is not known; expected one of "
             f"{', '.join(repr(c) for c in choices)}.{hint}"
         )
         raise WorkflowError(msg)

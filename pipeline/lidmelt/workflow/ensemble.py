@@ -11,6 +11,7 @@ member outside a key's accepted range is refused before the run starts.
 from __future__ import annotations
 
 import copy
+import difflib
 import json
 import math
 import re
@@ -21,11 +22,25 @@ from lidmelt.config import DISTRIBUTIONS, SAMPLING_METHODS, EnsembleOptions, Run
 from lidmelt.ensemble.sampling import draw_members
 from lidmelt.errors import WorkflowError
 from lidmelt.variables import PROBABILITY_BASES
-from lidmelt.workflow.checks import Context, at_least, choice, in_range, number, table, wrong_type
+from lidmelt.workflow.checks import (
+    Context,
+    at_least,
+    choice,
+    in_range,
+    number,
+    shown,
+    table,
+    wrong_type,
+)
 from lidmelt.workflow.overrides import apply_override
 from lidmelt.workflow.schema import ALL_KEYS
 
-__all__ = ["read_ensemble"]
+__all__ = ["MAX_MEMBERS", "read_ensemble"]
+
+#: The most members an ensemble may have: each member's workflow is validated before the run
+#: (about 1 ms, up to 30 ms when a plate model's lid isotherm varies), so 10^5 members take
+#: minutes before the first chunk; their memory is bounded by ``memory_limit_gb``.
+MAX_MEMBERS = 100_000
 
 #: Tables whose keys an ensemble may vary (the others describe the run, not the model).
 _VARIABLE_TABLES = ("model.", "lithosphere.", "inputs.")
@@ -34,21 +49,21 @@ _FIXED_LEAVES = ("path", "variable", "resampling", "name", "crs", "units", "x_na
 
 
 def read_ensemble(
-    ctx: Context, tree: dict[str, Any], build: Callable[[Context, dict[str, Any]], RunConfig]
+    ctx: Context,
+    tree: dict[str, Any],
+    build: Callable[[Context, dict[str, Any]], RunConfig],
+    check: Callable[[EnsembleOptions], Any] | None = None,
 ) -> EnsembleOptions | None:
     """The ``[ensemble]`` table of ``tree`` (None without one), members drawn and validated.
 
-    ``build(ctx, member_tree)`` reads one member's tree into a RunConfig (the workflow reader).
+    ``build(ctx, member_tree)`` reads one member's tree into a RunConfig (the workflow reader);
+    ``check(options)`` (the options without members) may refuse the ensemble by its size
+    before any member is drawn.
     """
     if "ensemble" not in tree:
         return None
     values = table(ctx, "ensemble", tree["ensemble"])
     opts: dict[str, Any] = {}
-    if "members" in values:
-        opts["members"] = at_least(
-            ctx, "ensemble.members", values["members"], 2, unit=" members",
-            advice="members (a few hundred give probabilities to about 0.05).", example="200",
-        )  # fmt: skip
     if "seed" in values:
         opts["seed"] = at_least(
             ctx, "ensemble.seed", values["seed"], 0, unit="", advice="(any whole number).",
@@ -87,8 +102,20 @@ def read_ensemble(
         raise WorkflowError(msg)
     if "thresholds_km" not in opts:  # the candidates' threshold: one melt for both
         opts["thresholds_km"] = (opts.get("candidate_min_melt_km", 1.0),)
+    if "members" in values:
+        opts["members"] = _read_members(ctx, values["members"], opts, check)
     vary = tuple(_read_vary(ctx, table(ctx, "ensemble.vary", values.get("vary", {}))))
     base = EnsembleOptions(**opts, vary=vary)
+    if check is not None:
+        check(base)
+    if base.members > MAX_MEMBERS:
+        msg = (
+            f"{ctx.where('ensemble.members')} is {base.members}; expected at most "
+            f"{MAX_MEMBERS} members: each member's workflow is checked before the run starts, "
+            f"about 1 to 30 ms each, here {base.members * 1e-3:.3g} to {base.members * 3e-2:.3g}"
+            " s. Lower ensemble.members; a few hundred give probabilities to about 0.05."
+        )
+        raise WorkflowError(msg)
     samples = draw_members(vary, base.members, seed=base.seed, sampling=base.sampling)
     member_tree = {k: v for k, v in tree.items() if k != "ensemble"}
     configs = tuple(
@@ -96,6 +123,20 @@ def read_ensemble(
         for i, row in enumerate(samples, start=1)
     )
     return EnsembleOptions(**opts, vary=vary, samples=samples, configs=configs)
+
+
+def _read_members(
+    ctx: Context, value: Any, opts: dict[str, Any], check: Callable[[EnsembleOptions], Any] | None
+) -> int:
+    """``ensemble.members``: a whole number >= 2. One written as a decimal (``1e9``) whose
+    ensemble would not fit in memory is refused for its size first, the larger problem."""
+    whole = isinstance(value, float) and math.isfinite(value) and value.is_integer()
+    if whole and value >= 2 and check is not None:
+        check(EnsembleOptions(**{**opts, "members": int(value)}))
+    return at_least(
+        ctx, "ensemble.members", value, 2, unit=" members",
+        advice="members (a few hundred give probabilities to about 0.05).", example="200",
+    )  # fmt: skip
 
 
 def _numbers(ctx: Context, key: str, value: Any, low: float, high: float, unit: str) -> tuple:
@@ -109,11 +150,15 @@ def _numbers(ctx: Context, key: str, value: Any, low: float, high: float, unit: 
 
 
 def _leaves(values: dict[str, Any], prefix: str = "") -> list[tuple[str, dict[str, Any]]]:
-    """(dotted key, distribution table) pairs of a possibly nested ``[ensemble.vary]``."""
+    """(dotted key, distribution table) pairs of a possibly nested ``[ensemble.vary]``.
+
+    A table is a distribution when it names one or holds a value that is not a table (a key's
+    parts are tables; ``{gamma = [1, 2]}`` is a distribution of an unknown kind)."""
     out = []
     for name, value in values.items():
         key = f"{prefix}.{name}" if prefix else name
-        if isinstance(value, dict) and not set(value) & set(DISTRIBUTIONS):
+        nested = isinstance(value, dict) and not set(value) & set(DISTRIBUTIONS)
+        if nested and value and all(isinstance(v, dict) for v in value.values()):
             out.extend(_leaves(value, key))
         else:
             out.append((key, value))
@@ -128,8 +173,8 @@ def _check_key(ctx: Context, where: str, key: str) -> None:
     if key.startswith(_VARIABLE_TABLES) and leaf not in _FIXED_LEAVES and known:
         return
     msg = (
-        f"{ctx.where(where)}: {key!r} is not a workflow key an ensemble can vary; expected the "
-        "dotted name of a scalar key of [model], [lithosphere] or [inputs] as --set takes it, "
+        f"{ctx.where(where)}: {shown(key)} is not a workflow key an ensemble can vary; expected "
+        "the dotted name of a scalar key of [model], [lithosphere] or [inputs] as --set takes it, "
         "e.g. model.ambient_potential_temperature_c, inputs.water.constant, "
         "inputs.thermal_anomaly.plumes.1.peak_excess_k (see docs/workflow.md)."
     )
@@ -146,14 +191,26 @@ def _read_vary(ctx: Context, values: dict[str, Any]) -> list[VarySpec]:
             raise wrong_type(ctx, where, dist, "a table naming one distribution", example)
         kinds = [k for k in dist if k in DISTRIBUTIONS]
         extra = sorted(set(dist) - set(DISTRIBUTIONS) - {"weights"})
+        if not kinds and extra:
+            raise _unknown_distribution(ctx, where, extra[0])
         if len(kinds) != 1 or extra:
             msg = (
-                f"{ctx.where(where)} is {dist!r}; expected exactly one of "
+                f"{ctx.where(where)} is {shown(dist)}; expected exactly one of "
                 f"{', '.join(DISTRIBUTIONS)} (and 'weights' with choice), e.g. {example}."
             )
             raise WorkflowError(msg)
         specs.append(_read_distribution(ctx, where, key, kinds[0], dist))
     return specs
+
+
+def _unknown_distribution(ctx: Context, where: str, name: str) -> WorkflowError:
+    near = difflib.get_close_matches(name, list(DISTRIBUTIONS), n=1)
+    hint = f" Did you mean {near[0]!r}?" if near else ""
+    return WorkflowError(
+        f"{ctx.where(where)} names the distribution {shown(name)}, which is not known; the "
+        f"known distributions are {', '.join(DISTRIBUTIONS)}.{hint} Write one of them, e.g. "
+        "{ normal = [1350.0, 25.0] } (see docs/workflow.md)."
+    )
 
 
 def _read_distribution(ctx: Context, where: str, key: str, kind: str, dist: dict) -> VarySpec:

@@ -13,6 +13,7 @@ from typing import Any
 from lidmelt import variables
 from lidmelt.config import (
     INPUT_NAMES,
+    MAX_PLUMES,
     PLUME_SHAPES,
     RESAMPLING_METHODS,
     Inputs,
@@ -30,6 +31,7 @@ from lidmelt.workflow.checks import (
     choice,
     in_range,
     number,
+    shown,
     string,
     table,
     user_path,
@@ -100,8 +102,10 @@ def _read_input(ctx: Context, name: str, values: dict[str, Any], base_dir: Path)
     if "plumes" in values:
         plumes = _read_plumes(ctx, f"{prefix}.plumes", values["plumes"])
     extra = read_input_options(ctx, prefix, values, base_dir, has_path=path is not None)
+    inline = len(plumes)
     if "plumes_file" in extra:
-        plumes = plumes + _read_plumes_file(ctx, f"{prefix}.plumes_file", extra, base_dir)
+        plumes = plumes + _read_plumes_file(ctx, f"{prefix}.plumes_file", extra, base_dir, inline)
+    _check_plume_names(ctx, prefix, plumes, inline)
     if path is None and constant is None:
         msg = (
             f"{ctx.where(prefix)} gives neither 'path' nor 'constant'; expected a grid file "
@@ -154,11 +158,42 @@ def _read_source(
     return path, written, variable
 
 
+def _too_many_plumes(ctx: Context, key: str, count: int) -> WorkflowError:
+    return WorkflowError(
+        f"{ctx.where(key)} gives {count:,} plumes; a workflow has at most {MAX_PLUMES:,} (inline "
+        "and catalogue rows together; each is checked before the run, and each costs the grid "
+        "cells within its reach). Keep the plumes that reach the grid, or merge nearby ones."
+    )
+
+
+def _check_plume_names(
+    ctx: Context, prefix: str, plumes: tuple[PlumeSpec, ...], inline: int
+) -> None:
+    """Refuse two plumes of one name (a plume without one is ``plume N``, N its place from 1
+    over the ``inline`` [[plumes]] then the catalogue's rows, as the products call it):
+    candidates and ensemble drivers are matched to plumes by name."""
+    seen: dict[str, str] = {}
+    for i, plume in enumerate(plumes, start=1):
+        name = plume.name or f"plume {i}"
+        where = f"{prefix}.plumes.{i}" if i <= inline else f"{prefix}.plumes_file.{i - inline}"
+        if name in seen:
+            msg = (
+                f"{ctx.where(where)} is called {shown(name)}, as {seen[name]} is (a plume "
+                "without a name is 'plume N', N its place from 1 over [[plumes]] then the rows "
+                "of plumes_file); candidates are matched to plumes by name, so give each plume "
+                "its own name."
+            )
+            raise WorkflowError(msg)
+        seen[name] = where
+
+
 def _read_plumes(ctx: Context, key: str, value: Any) -> tuple[PlumeSpec, ...]:
     if not isinstance(value, list):
         raise wrong_type(
             ctx, key, value, "an array of tables", f"[[{key}]] above each plume's keys"
         )
+    if len(value) > MAX_PLUMES:
+        raise _too_many_plumes(ctx, key, len(value))
     return tuple(_read_plume(ctx, key, i, item) for i, item in enumerate(value, start=1))
 
 
@@ -187,6 +222,10 @@ def _read_plume(ctx: Context, key: str, i: int, item: Any) -> PlumeSpec:
         fields["shape"] = choice(ctx, f"{pkey}.shape", item["shape"], PLUME_SHAPES)
     if "name" in item:
         fields["name"] = string(ctx, f"{pkey}.name", item["name"], example="plume A")
+        if len(fields["name"]) > 200:
+            where, name = ctx.where(pkey + ".name"), shown(fields["name"])
+            msg = f"{where} is {name}; expected a name of at most 200 characters."
+            raise WorkflowError(msg)
     if "peak_upwelling_mm_yr" in item:
         var = variables.input_for_workflow_key("upwelling")
         low, high = var.valid_range or (0.0, float("inf"))
@@ -257,14 +296,14 @@ def read_input_options(
 
 
 def _read_plumes_file(
-    ctx: Context, key: str, extra: dict[str, Any], base_dir: Path
+    ctx: Context, key: str, extra: dict[str, Any], base_dir: Path, inline: int
 ) -> tuple[PlumeSpec, ...]:
-    """The rows of a plume catalogue, checked like inline plumes."""
+    """The rows of a plume catalogue, checked like inline plumes (``inline`` of them before)."""
     written = extra["plumes_file"]
     path = user_path(written, base=base_dir, what=ctx.where(key))
     try:
-        rows = read_plume_catalogue(path, key=f"{ctx.source}: {key}")
+        rows = read_plume_catalogue(path, key=f"{ctx.source}: {key}", max_rows=MAX_PLUMES - inline)
     except LidmeltError as exc:
-        msg = f"{ctx.where(key)} = {written!r}: {exc}"
+        msg = f"{ctx.where(key)} = {shown(written)}: {exc}"
         raise WorkflowError(msg) from exc
     return tuple(_read_plume(ctx, key, i, row) for i, row in enumerate(rows, start=1))

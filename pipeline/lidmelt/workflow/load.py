@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import dataclasses
+import functools
 import tomllib
 from collections.abc import Sequence
 from pathlib import Path
@@ -10,12 +11,20 @@ from typing import Any
 
 from lidmelt.config import RunConfig
 from lidmelt.errors import LidmeltError, WorkflowError
-from lidmelt.workflow.checks import Context, user_path
+from lidmelt.workflow.checks import Context, shortened, shown, user_path
 from lidmelt.workflow.ensemble import read_ensemble
 from lidmelt.workflow.overrides import apply_override
 from lidmelt.workflow.tables import read_config
 
-__all__ = ["load_workflow", "validate_models"]
+__all__ = ["MAX_NESTING", "MAX_WORKFLOW_BYTES", "load_workflow", "validate_models"]
+
+#: The largest workflow file read (bytes): its text is parsed whole and kept in the run's
+#: summary; 10,000 inline plumes take about 1.5 MB.
+MAX_WORKFLOW_BYTES = 4_000_000
+
+#: The deepest nesting of tables and arrays a workflow may have (the deepest valid key, an
+#: ensemble distribution written as nested tables, has about 10 levels).
+MAX_NESTING = 32
 
 
 def load_workflow(
@@ -62,23 +71,13 @@ def load_workflow(
             "workflow file. Copy workflows/template.toml to start one."
         )
         raise WorkflowError(msg)
-    try:
-        text = workflow_path.read_text(encoding="utf-8")
-    except (OSError, UnicodeDecodeError) as exc:
-        msg = f"workflow file {source!r} cannot be read as UTF-8 text ({exc}); save it as UTF-8."
-        raise WorkflowError(msg) from exc
-    try:
-        tree = tomllib.loads(text)
-    except tomllib.TOMLDecodeError as exc:
-        msg = (
-            f"workflow file {source!r} is not valid TOML: {exc}. Check that line (strings need "
-            'quotes: name = "demo"; tables are written [model]; see docs/workflow.md).'
-        )
-        raise WorkflowError(msg) from exc
+    text = _read_text(source, workflow_path)
+    tree = _parse(source, text)
     ctx = Context(source, {})
     items = tuple(overrides)
     for item in items:
         apply_override(ctx, tree, item)
+    _check_nesting(ctx, tree)
     cfg = read_config(
         ctx, tree, workflow_path=workflow_path, text=text, overrides=items, output_dir=output_dir
     )
@@ -95,8 +94,87 @@ def load_workflow(
             checked.add((member_cfg.model, member_cfg.lithosphere))
         return member_cfg
 
-    ensemble = read_ensemble(ctx, tree, member)
+    ensemble = read_ensemble(ctx, tree, member, functools.partial(_fits, cfg, source))
     return cfg if ensemble is None else dataclasses.replace(cfg, ensemble=ensemble)
+
+
+def _read_text(source: str, workflow_path: Path) -> str:
+    """The workflow file's text; a WorkflowError if it is too large or not UTF-8 text."""
+    size = workflow_path.stat().st_size
+    if size > MAX_WORKFLOW_BYTES:
+        msg = (
+            f"workflow file {source!r} has {size:,} bytes; a workflow file has at most "
+            f"{MAX_WORKFLOW_BYTES:,} (workflows/template.toml has about 10,000). Put long plume "
+            "lists in a catalogue (inputs.thermal_anomaly.plumes_file), or check that this is "
+            "the workflow file."
+        )
+        raise WorkflowError(msg)
+    try:
+        text = workflow_path.read_text(encoding="utf-8")
+    except (OSError, UnicodeDecodeError) as exc:
+        msg = f"workflow file {source!r} cannot be read as UTF-8 text ({exc}); save it as UTF-8."
+        raise WorkflowError(msg) from exc
+    return text
+
+
+def _fits(cfg: RunConfig, source: str, options: Any) -> None:
+    """Refuse an ensemble whose estimated memory exceeds its limit, before members are drawn."""
+    from lidmelt.ensemble.stage import check_memory
+
+    try:
+        check_memory(dataclasses.replace(cfg, ensemble=options))
+    except WorkflowError as exc:
+        msg = f"{source}: {exc}"
+        raise WorkflowError(msg) from None
+
+
+def _parse(source: str, text: str) -> dict[str, Any]:
+    """The TOML tree of a workflow file's text; a WorkflowError for bad TOML or for arrays or
+    inline tables nested so deeply that the parser runs out of stack (it recurses)."""
+    try:
+        return tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        msg = (
+            f"workflow file {source!r} is not valid TOML: {shortened(str(exc))}. Check that "
+            'line (strings need quotes: name = "demo"; tables are written [model]; see '
+            "docs/workflow.md)."
+        )
+        raise WorkflowError(msg) from exc
+    except (RecursionError, ValueError) as exc:  # ValueError: an integer of > 4300 digits
+        what = (
+            "nests arrays or inline tables too deeply"
+            if isinstance(exc, RecursionError)
+            else "holds a number too long to read (more than 4300 digits)"
+        )
+        msg = (
+            f"workflow file {source!r} {what}; a workflow nests tables and arrays at most "
+            f"{MAX_NESTING} levels deep and holds numbers of ordinary size. Check the file "
+            "(see docs/workflow.md)."
+        )
+        raise WorkflowError(msg) from None
+
+
+def _check_nesting(ctx: Context, tree: dict[str, Any]) -> None:
+    """A WorkflowError naming the key where tables or arrays nest more than
+    :data:`MAX_NESTING` levels deep (checked without recursion)."""
+    stack: list[tuple[Any, int, str]] = [(tree, 0, "")]
+    while stack:
+        node, depth, key = stack.pop()
+        if depth > MAX_NESTING:
+            msg = (
+                f"{ctx.where(key)} is nested {depth} or more levels deep (tables within tables, "
+                f"arrays within arrays); a workflow has at most {MAX_NESTING}. Check the "
+                "brackets and [table.headers] there against docs/workflow.md."
+            )
+            raise WorkflowError(msg)
+        if isinstance(node, dict):
+            items = node.items()
+        elif isinstance(node, list):
+            items = ((str(i), v) for i, v in enumerate(node, start=1))
+        else:
+            continue
+        for name, value in items:
+            stack.append((value, depth + 1, f"{key}.{name}" if key else name))
 
 
 def validate_models(cfg: RunConfig) -> None:
@@ -153,6 +231,9 @@ def validate_models(cfg: RunConfig) -> None:
             sets = [
                 item for item in cfg.overrides if item.partition("=")[0].strip().startswith(key)
             ]
-            origin = f" (with --set {', '.join(sets)})" if sets else ""
-            msg = f"'{key}' = {value!r} in {cfg.workflow_path.name}{origin} is not valid: {exc}"
+            origin = f" (with --set {shortened(', '.join(sets))})" if sets else ""
+            msg = (
+                f"'{key}' = {shown(value)} in {cfg.workflow_path.name}{origin} is not valid: "
+                f"{shortened(str(exc), 600)}"
+            )
             raise WorkflowError(msg) from exc

@@ -6,17 +6,25 @@ import tomllib
 from typing import Any
 
 from lidmelt.errors import WorkflowError
-from lidmelt.workflow.checks import Context
+from lidmelt.workflow.checks import Context, shortened, shown
 
 __all__ = ["apply_override", "parse_value"]
 
 
 def parse_value(text: str) -> Any:
-    """A --set VALUE as a TOML value, falling back to the plain string."""
+    """A --set VALUE as a TOML value, falling back to the plain string; a WorkflowError for
+    arrays or inline tables nested too deeply for the parser (it recurses)."""
     try:
         parsed = tomllib.loads(f"v = {text}")
     except tomllib.TOMLDecodeError:
         return text
+    except (RecursionError, ValueError) as exc:  # ValueError: an integer of > 4300 digits
+        msg = (
+            f"--set value {shortened(text)!r} cannot be read ({type(exc).__name__}: nested too "
+            "deeply, or a number too long); give an ordinary TOML value: a number, a string, "
+            "true/false, an array or an inline table (see docs/workflow.md)."
+        )
+        raise WorkflowError(msg) from None
     if set(parsed) != {"v"}:  # e.g. a value with a newline and a second key
         return text
     return parsed["v"]
@@ -29,8 +37,9 @@ def apply_override(ctx: Context, tree: dict[str, Any], item: str) -> None:
     parts = key.split(".")
     if not sep or not key or any(not p.strip() for p in parts):
         msg = (
-            f"--set {item!r} is not KEY=VALUE; expected a dotted key into the workflow, e.g. "
-            "--set model.ambient_potential_temperature_c=1400 or --set inputs.water.constant=0.01."
+            f"--set {shortened(item)!r} is not KEY=VALUE; expected a dotted key into the "
+            "workflow, e.g. --set model.ambient_potential_temperature_c=1400 or "
+            "--set inputs.water.constant=0.01."
         )
         raise WorkflowError(msg)
     parts = [p.strip() for p in parts]
@@ -43,8 +52,9 @@ def apply_override(ctx: Context, tree: dict[str, Any], item: str) -> None:
             node = node.setdefault(part, {})
         if not isinstance(node, dict | list):
             msg = (
-                f"--set {item}: '{here}' in {ctx.source} is a value ({node!r}), not a table, "
-                f"so '{key}' cannot be set. Check the key against docs/workflow.md."
+                f"--set {shortened(item)}: '{shortened(here)}' in {ctx.source} is a value "
+                f"({shown(node)}), not a table, so '{shortened(key)}' cannot be set. Check the "
+                "key against docs/workflow.md."
             )
             raise WorkflowError(msg)
     last = parts[-1]
@@ -58,8 +68,8 @@ def apply_override(ctx: Context, tree: dict[str, Any], item: str) -> None:
 def _list_index(ctx: Context, node: list[Any], part: str, here: str, item: str) -> int:
     if not part.isdigit() or not 1 <= int(part) <= len(node):
         msg = (
-            f"--set {item}: '{here}' needs an item number from 1 to {len(node)} (the array "
-            f"in {ctx.source} has {len(node)} items, counted from 1), e.g. "
+            f"--set {shortened(item)}: '{shortened(here)}' needs an item number from 1 to "
+            f"{len(node)} (the array in {ctx.source} has {len(node)} items, counted from 1), e.g. "
             "inputs.thermal_anomaly.plumes.1.radius_km=300."
         )
         raise WorkflowError(msg)

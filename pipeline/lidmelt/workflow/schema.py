@@ -8,7 +8,7 @@ from typing import Any
 
 from lidmelt.config import INPUT_NAMES
 from lidmelt.errors import WorkflowError
-from lidmelt.workflow.checks import Context, leaf
+from lidmelt.workflow.checks import Context, leaf, shortened
 
 __all__ = ["ALL_KEYS", "SCHEMA", "TABLES", "check_unknown_keys"]
 
@@ -119,4 +119,5 @@ def _unknown_key(ctx: Context, key: str, allowed: Sequence[str]) -> WorkflowErro
     else:
         where = f"[{prefix}]" if prefix else "the top level"
         hint = f"valid keys in {where}: {', '.join(allowed)}. See docs/workflow.md."
-    return WorkflowError(f"unknown key '{key}' in {ctx.source}{ctx.origin(key)}; {hint}")
+    msg = f"unknown key '{shortened(key)}' in {ctx.source}{ctx.origin(key)}; {hint}"
+    return WorkflowError(msg)

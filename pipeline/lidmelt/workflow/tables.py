@@ -26,7 +26,7 @@ from lidmelt.config import (
     RunConfig,
     RunOptions,
 )
-from lidmelt.errors import LidmeltError, WorkflowError
+from lidmelt.errors import ClusterError, LidmeltError, WorkflowError
 from lidmelt.workflow.checks import (
     Context,
     Reader,
@@ -36,6 +36,8 @@ from lidmelt.workflow.checks import (
     in_range,
     number,
     read_fields,
+    shortened,
+    shown,
     string,
     table,
     user_path,
@@ -86,10 +88,11 @@ def _read_run(
     name = workflow_path.stem
     if "name" in run:
         name = string(ctx, "run.name", run["name"], example="my_basin")
-    if not re.fullmatch(r"[A-Za-z0-9][A-Za-z0-9_.-]*", name):
+    if not re.fullmatch(r"[A-Za-z0-9][A-Za-z0-9_.-]{0,199}", name):
         msg = (
-            f"{ctx.where('run.name')} is {name!r}; expected a folder-safe name (letters, "
-            "digits, '_', '-', '.'; no spaces or slashes), e.g. name = \"north_basin\"."
+            f"{ctx.where('run.name')} is {shown(name)}; expected a folder-safe name of up to "
+            "200 letters, digits, '_', '-', '.' (no spaces or slashes), e.g. name = "
+            '"north_basin".'
         )
         raise WorkflowError(msg)
     if output_dir is not None:
@@ -149,7 +152,7 @@ def _grid_like(ctx: Context, value: Any, inputs: Inputs) -> GridSpec:
     if like not in given:
         choices = ", ".join(repr(n) for n in given) or "none: no input has a path"
         msg = (
-            f"{ctx.where('grid.like')} is {like!r}, which is not an input with a grid file; "
+            f"{ctx.where('grid.like')} is {shown(like)}, which is not an input with a grid file; "
             f"expected the name of an [inputs.<name>] table that has a 'path' ({choices}). "
             "Or give extent and resolution instead."
         )
@@ -171,8 +174,8 @@ def _grid_extent(ctx: Context, values: dict[str, Any]) -> GridSpec:
     west, east, south, north = (number(ctx, "grid.extent", v, unit=unit) for v in extent_raw)
     if not (west < east and south < north):
         msg = (
-            f"{ctx.where('grid.extent')} is {extent_raw!r}; expected [west, east, south, north] "
-            "with west < east and south < north. For a grid across the antimeridian use "
+            f"{ctx.where('grid.extent')} is {shown(extent_raw)}; expected [west, east, south, "
+            "north] with west < east and south < north. For a grid across the antimeridian use "
             "longitudes 0 to 360 (e.g. [170.0, 200.0, ...])."
         )
         raise WorkflowError(msg)
@@ -182,7 +185,7 @@ def _grid_extent(ctx: Context, values: dict[str, Any]) -> GridSpec:
         or east - west > 360.0
     ):  # fmt: skip
         msg = (
-            f"{ctx.where('grid.extent')} is {extent_raw!r}; for a geographic CRS ({crs}) the "
+            f"{ctx.where('grid.extent')} is {shown(extent_raw)}; for a geographic CRS ({crs}) the "
             "latitudes must lie in -90 to 90 degrees and the longitudes in -180 to 360 degrees, "
             "spanning at most 360. Check the order: [west, east, south, north]."
         )
@@ -200,7 +203,7 @@ def _grid_extent(ctx: Context, values: dict[str, Any]) -> GridSpec:
         Grid.from_extent(west, east, south, north, resolution, crs=crs)
     except LidmeltError as exc:
         msg = (
-            f"{ctx.where('grid.extent')} = {extent_raw!r} with grid.resolution = "
+            f"{ctx.where('grid.extent')} = {shown(extent_raw)} with grid.resolution = "
             f"{resolution:g} does not make a grid: {exc}"
         )
         raise WorkflowError(msg) from exc
@@ -215,8 +218,9 @@ def _parse_crs(ctx: Context, crs: str) -> Any:
         return CRS.from_user_input(crs)
     except CRSError as exc:
         msg = (
-            f"{ctx.where('grid.crs')} is {crs!r}, which is not a readable CRS ({exc}); expected "
-            'an authority code such as "EPSG:4326" (longitude/latitude) or a WKT/PROJ string.'
+            f"{ctx.where('grid.crs')} is {shown(crs)}, which is not a readable CRS "
+            f"({shortened(str(exc), 200)}); expected an authority code such as "
+            '"EPSG:4326" (longitude/latitude) or a WKT/PROJ string.'
         )
         raise WorkflowError(msg) from exc
 
@@ -231,7 +235,7 @@ def _read_parameters(ctx: Context, key: str, value: Any) -> Parameters:
         if isinstance(v, dict | list):
             raise wrong_type(ctx, f"{key}.{name}", v, "a single value (a number)", f"{name} = 0.15")
         if isinstance(v, float) and not math.isfinite(v):
-            msg = f"{ctx.where(f'{key}.{name}')} is {v!r}; expected a finite number."
+            msg = f"{ctx.where(f'{key}.{name}')} is {shown(v)}; expected a finite number."
             raise WorkflowError(msg)
     return Parameters(values)
 
@@ -284,6 +288,19 @@ _LITHOSPHERE_READERS: dict[str, Reader] = {
     "lid_isotherm_c": _lid_isotherm,
     "parameters": _read_parameters,
 }
+
+
+def _scheduler(ctx: Context, key: str, value: Any) -> str:
+    """A dask scheduler address, checked like the one of ``LIDMELT_SCHEDULER``."""
+    from lidmelt.cluster import check_address
+
+    address = string(ctx, key, value, example="tcp://127.0.0.1:8786").strip()
+    try:
+        return check_address(address, where=ctx.where(key))
+    except ClusterError as exc:
+        raise WorkflowError(str(exc)) from None
+
+
 _COMPUTE_READERS: dict[str, Reader] = {
     "chunk_size": partial(
         at_least,
@@ -301,7 +318,7 @@ _COMPUTE_READERS: dict[str, Reader] = {
         example="2",
     ),
     "method": partial(choice, choices=METHODS),
-    "scheduler": partial(string, example="tcp://127.0.0.1:8786"),
+    "scheduler": _scheduler,
     "max_cells": partial(
         at_least,
         minimum=1,
