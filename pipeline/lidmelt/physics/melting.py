@@ -30,6 +30,7 @@ import numpy as np
 from lidmelt.errors import ModelError
 from lidmelt.physics._registry import lookup
 from lidmelt.physics._sources import KATZ_SOURCES, MB1988_SOURCES
+from lidmelt.physics.highpressure import at_fraction_of_interval, continued_solidus_liquidus
 
 GPA = 1.0e9  # Pa per GPa (definition)
 
@@ -239,27 +240,36 @@ class MeltingModel:
         """
         raise NotImplementedError
 
-    def solidus_slope_c_gpa(self) -> float:
-        """dT_sol/dP of the dry solidus at ``calibrated_max_pressure_gpa`` [K/GPa] (model law)."""
-        raise NotImplementedError
-
     def continued_pressure(self, pressure_gpa) -> tuple:
-        """The pressure at which to evaluate the law, and the temperature shift [K] to add.
+        """min(P, P_c), and where P exceeds P_c (None where no P does: the law is unchanged).
 
-        Continuation beyond the calibrated pressure P_c (lidmelt's choice; docs/physics.md,
-        section "Beyond the calibrated pressure"): every phase boundary runs parallel to the
-        tangent of the dry solidus at P_c, T_b(P) = T_b(P_c) + T_sol'(P_c) (P - P_c), with the
-        pressure-dependent melting parameters held at their P_c values. So T(P, F) =
-        T(P_c, F) + T_sol'(P_c) (P - P_c): continuous at P_c, the solidus also in slope, monotonic,
-        and the melting interval keeps its calibrated width and order. Returns
-        (min(P, P_c), shift) with shift None where no P exceeds P_c (the law is then unchanged).
+        Beyond the calibrated pressure P_c the dry solidus and liquidus follow published
+        high-pressure peridotite curves joined at P_c, and every other boundary keeps its
+        fraction of the melting interval (:meth:`continue_boundaries`); the pressure-dependent
+        melting parameters (Katz R_cpx, hence F_cpx-out, and the water saturation X_sat) are held
+        at their P_c values (docs/physics.md, section "Beyond the calibrated pressure").
         """
         p = np.asarray(pressure_gpa, float)
         pc = self.calibrated_max_pressure_gpa
         if not np.any(p > pc):
             return p, None
-        shift = self.solidus_slope_c_gpa() * np.maximum(p - pc, 0.0)
-        return np.minimum(p, pc), shift
+        return np.minimum(p, pc), p > pc
+
+    def continue_boundaries(self, pressure_gpa, beyond, solidus_c, liquidus_c, *inner_c):
+        """The boundaries (evaluated at min(P, P_c)) continued where ``beyond``.
+
+        Solidus and liquidus: the shapes of :mod:`lidmelt.physics.highpressure` (Herzberg,
+        Raterron & Zhang 2000 solidus; a peridotite batch-melting liquidus), each shifted to
+        the model's value at P_c. ``inner_c``: boundaries held at their fraction of the
+        solidus-liquidus interval at P_c. Returns (solidus, liquidus, *inner) [deg C].
+        """
+        pc = self.calibrated_max_pressure_gpa
+        sol, liq = continued_solidus_liquidus(pressure_gpa, pc, solidus_c, liquidus_c)
+        inner = [at_fraction_of_interval(t, solidus_c, liquidus_c, sol, liq) for t in inner_c]
+        return tuple(
+            np.where(beyond, new, old)
+            for new, old in zip((sol, liq, *inner), (solidus_c, liquidus_c, *inner_c), strict=True)
+        )
 
     def temperature_from_terms(self, terms: tuple, melt_fraction):
         """T [deg C] at melt fraction F, given :meth:`pressure_terms` of the same P and water."""
@@ -388,7 +398,7 @@ class KatzModel(MeltingModel):
 
         Beyond the calibrated pressure the law is continued (:meth:`continued_pressure`).
         """
-        p, shift = self.continued_pressure(pressure_gpa)
+        p, beyond = self.continued_pressure(pressure_gpa)
         t_sol = self.solidus_a1_c + self.solidus_a2_c_gpa * p + self.solidus_a3_c_gpa2 * p * p
         t_lherz = (
             self.lherzolite_liquidus_b1_c
@@ -402,15 +412,11 @@ class KatzModel(MeltingModel):
         t_cpx = f_cpx ** (1.0 / self.beta1) * (t_lherz - t_sol) + t_sol
         w = np.asarray(water_wt_pct, float)
         x_sat = self.saturation_wt_pct(p) if np.any(w) else None
-        if shift is not None:
-            t_sol, t_lherz, t_liq, t_cpx = (t + shift for t in (t_sol, t_lherz, t_liq, t_cpx))
+        if beyond is not None:
+            t_sol, t_liq, t_lherz, t_cpx = self.continue_boundaries(
+                pressure_gpa, beyond, t_sol, t_liq, t_lherz, t_cpx
+            )
         return t_sol, t_lherz, t_liq, f_cpx, t_cpx, x_sat, w
-
-    def solidus_slope_c_gpa(self) -> float:
-        """A2 + 2 A3 P_c: slope of the [Katz2003]_ solidus quadratic at the calibrated limit."""
-        return (
-            self.solidus_a2_c_gpa + 2.0 * self.solidus_a3_c_gpa2 * self.calibrated_max_pressure_gpa
-        )
 
     def temperature_from_terms(self, terms: tuple, melt_fraction):
         """T(P, F, water) [deg C]: the inverse of [Katz2003]_ eqs. 3 and 9, lowered by water.
@@ -522,22 +528,14 @@ class McKenzieBickleModel(MeltingModel):
 
         Beyond the calibrated pressure both are continued (:meth:`continued_pressure`).
         """
-        p, shift = self.continued_pressure(pressure_gpa)
+        p, beyond = self.continued_pressure(pressure_gpa)
         # the implicit solidus is solved once per distinct pressure (columns share the nodes)
         nodes, where = np.unique(p, return_inverse=True)
         t_s = self.solidus_dry_c(nodes)[where].reshape(p.shape)
         t_l = self.liquidus_dry_c(p)
-        if shift is not None:
-            t_s, t_l = t_s + shift, t_l + shift
+        if beyond is not None:
+            t_s, t_l = self.continue_boundaries(pressure_gpa, beyond, t_s, t_l)
         return t_s, t_l, np.asarray(water_wt_pct, float)
-
-    def solidus_slope_c_gpa(self) -> float:
-        """dT_s/dP at P_c = 1 / (1/s1 + s2 s3 exp[s3 (T_s - s0)]), from the implicit solidus."""
-        excess = float(self.solidus_dry_c(self.calibrated_max_pressure_gpa)) - self.solidus_s0_c
-        dp_dt = 1.0 / self.solidus_s1_c_gpa + self.solidus_s2_gpa * self.solidus_s3_per_c * np.exp(
-            self.solidus_s3_per_c * excess
-        )
-        return float(1.0 / dp_dt)
 
     def temperature_from_terms(self, terms: tuple, melt_fraction):
         """T(P, F) [deg C] = T' (T_l - T_s) + (T_s + T_l)/2; NaN where the source has water."""
