@@ -64,22 +64,26 @@ _SCAN_BELOW = 16  # columns left in a root solve from which their brackets are s
 # onset
 # ------------------------------------------------------------------------------------------------
 def onset_pressure_gpa(model: MeltingModel, potential_temperature_c, water_wt_pct=0.0):
-    """Shallowest pressure [GPa] where the solid isentrope meets the solidus; NaN if none.
+    """Shallowest pressure [GPa] where the solid isentrope meets the solidus, else the floor.
 
-    Searched from the surface down to ``model.max_onset_pressure_gpa`` on a 0.05 GPa grid, then
+    Searched from the surface down to the upper mantle's floor ``model.max_onset_pressure_gpa``
+    on a 0.05 GPa grid, then
     refined by bisection to 1e-12 GPa. The search runs from the top because the Katz et al. (2003)
     solidus quadratic turns over at 13.03 GPa [derived: dT/dP = A2 + 2 A3 P = 0], so a search
     from below could find the wrong crossing (docs/physics.md, section "Where the onset is
-    searched"). NaN where Tp is at or below
-    the surface solidus (no crossing at all) or where the isentrope stays above the solidus down
-    to the search limit.
+    searched"). NaN where Tp is at or below the surface solidus (no crossing at all); the floor
+    itself where the isentrope stays above the solidus down to it (the column melts from there;
+    docs/physics.md, section "The upper mantle's floor").
     """
     tp, w = np.broadcast_arrays(
         np.asarray(potential_temperature_c, float), np.asarray(water_wt_pct, float)
     )
     out = np.full(tp.shape, np.nan)
     flat_tp, flat_w, flat_out = tp.ravel(), w.ravel(), out.reshape(-1)
-    grid = np.arange(0.0, model.max_onset_pressure_gpa + 1e-9, _SEARCH_STEP_GPA)
+    floor = float(model.max_onset_pressure_gpa)
+    grid = np.arange(0.0, floor + 1e-9, _SEARCH_STEP_GPA)
+    if grid[-1] < floor:
+        grid = np.append(grid, floor)
     for start in range(0, flat_tp.size, _BLOCK // 4):
         sl = slice(start, start + _BLOCK // 4)
         t, ww = flat_tp[sl, None], flat_w[sl, None]
@@ -89,7 +93,9 @@ def onset_pressure_gpa(model: MeltingModel, potential_temperature_c, water_wt_pc
         excess = model.solid_adiabat_c(t, grid[None, :]) - solidus
         below = excess <= 0.0
         below[:, 0] = False
-        has = below.any(axis=1) & (excess[:, 0] > 0.0)
+        hot = excess[:, 0] > 0.0
+        has = below.any(axis=1) & hot
+        at_floor = hot & ~below.any(axis=1)  # above the solidus down to the floor
         k = np.argmax(below, axis=1)
         lo = grid[np.maximum(k - 1, 0)]
         hi = grid[k]
@@ -99,7 +105,7 @@ def onset_pressure_gpa(model: MeltingModel, potential_temperature_c, water_wt_pc
             melted = model.solid_adiabat_c(tt, mid) - model.solidus_c(mid, wv) > 0.0
             lo = np.where(melted, mid, lo)
             hi = np.where(melted, hi, mid)
-        flat_out[sl] = np.where(has, 0.5 * (lo + hi), np.nan)
+        flat_out[sl] = np.where(has, 0.5 * (lo + hi), np.where(at_floor, floor, np.nan))
     return out
 
 
@@ -388,15 +394,22 @@ def integrate_columns(
 def _advance(model, now, p_next, water, km_per_gpa, substeps=1):
     """Step the columns ``now`` (P, T, F, H, int P dF, -dF/dP, dh/dF) to ``p_next``.
 
-    In ``substeps`` equal steps; the first starts from F extrapolated from the last step.
+    In ``substeps`` equal steps; the first starts from F extrapolated from the last step. H
+    grows by the mean F times the step's depth, ``dp * km_per_gpa`` above the join of the
+    depth-pressure relation, Z(p) - Z(p1) below it (:mod:`lidmelt.physics.pressure`).
     """
     p_start = now[0]
+    join = model.depth_pressure.join_gpa
     for k in range(1, substeps + 1):
         p, t, f, h_km, g, dfdp, dhdf = now
         p1 = p_next if k == substeps else p_start + (p_next - p_start) * (k / substeps)
         dp = p - p1
         t1, f1, dhdf = _step(model, p, t, f, p1, water, f + dfdp * dp, dhdf)
-        h_km = h_km + 0.5 * (f + f1) * dp * km_per_gpa
+        if np.any(p > join):
+            dz = model.depth_pressure.step_km(p, p1, km_per_gpa)
+            h_km = h_km + 0.5 * (f + f1) * dz
+        else:
+            h_km = h_km + 0.5 * (f + f1) * dp * km_per_gpa
         g = g + 0.5 * (p + p1) * (f1 - f)
         now = [p1, t1, f1, h_km, g, (f1 - f) / dp, dhdf]
     return now

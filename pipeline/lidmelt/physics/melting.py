@@ -31,6 +31,7 @@ from lidmelt.errors import ModelError
 from lidmelt.physics._registry import lookup
 from lidmelt.physics._sources import KATZ_SOURCES, MB1988_SOURCES
 from lidmelt.physics.highpressure import at_fraction_of_interval, continued_solidus_liquidus
+from lidmelt.physics.pressure import UPPER_MANTLE_FLOOR_GPA, DepthPressure, depth_pressure
 
 GPA = 1.0e9  # Pa per GPa (definition)
 
@@ -48,15 +49,12 @@ def _bisect_increasing(func, lo, hi, target, *, iterations=60):
 
 
 #: Ranges a parameter of :class:`MeltingModel` may take (inclusive). Sanity bounds, not
-#: published values: they keep the onset search and the table finite and the isentrope
-#: meaningful. The pressure bound: the base of the mantle transition zone lies near 24 GPa
-#: (660 km; PREM, Dziewonski & Anderson 1981, from memory); the default search depth of 30 GPa
-#: covers every onset of Tp <= 1900 deg C, and beyond 40 GPa the continued phase boundaries
-#: have no meaning. The others span about an order of magnitude around the published values
-#: (common practice).
+#: published values. The pressures stay within 22.5 GPa, the deepest experiment of the
+#: published solidus that continues every model (Herzberg, Raterron & Zhang 2000); the others
+#: span about an order of magnitude around the published values (common practice).
 SANE_RANGES: dict[str, tuple[float, float]] = {
-    "max_onset_pressure_gpa": (1.0, 40.0),
-    "calibrated_max_pressure_gpa": (0.5, 40.0),
+    "max_onset_pressure_gpa": (1.0, 22.5),
+    "calibrated_max_pressure_gpa": (0.5, 22.5),
     "specific_heat_j_kg_k": (100.0, 10000.0),
     "entropy_of_melting_j_kg_k": (10.0, 10000.0),
     "solid_expansivity_k": (0.0, 1e-3),
@@ -85,19 +83,15 @@ class MeltingModel:
     solid_density_kg_m3, melt_density_kg_m3 : float
         Densities rho_s, rho_f used in the isentrope. Units: kg m^-3.
     lithostatic_density_kg_m3, gravity_m_s2 : float
-        Pressure below the seafloor is P = rho g z (lidmelt's fixed definition, docs/physics.md,
-        section "Definitions lidmelt fixes"). Defaults 3300 kg m^-3 and 9.81 m s^-2: common
-        practice, no single source.
+        The constant rho g of the depth-pressure relation above 7.25 GPa (PREM below;
+        :mod:`lidmelt.physics.pressure`). Defaults 3300 kg m^-3, 9.81 m s^-2: common practice.
     max_onset_pressure_gpa : float
-        Deepest pressure searched for the solidus crossing. Units: GPa. Default 30 GPa: on the
-        continued Katz et al. (2003) solidus (:meth:`continued_pressure`) the deepest onset of
-        Tp <= 1900 deg C with water <= 0.1 wt% is 26.5 GPa (Tp 1900 deg C, 0.1 wt%) [derived:
-        docs/physics.md, section "Beyond the calibrated pressure"]; 30 GPa leaves a margin of
-        about 30 K in Tp. (The continued McKenzie & Bickle 1988 solidus is flatter: within 30 GPa
-        it is reached by Tp up to about 1805 deg C, dry [derived].)
+        The upper mantle's floor, the deepest onset [GPa]: an isentrope still above the solidus
+        there melts from there (flagged). Default 13.35 GPa, PREM's pressure at its 400 km
+        discontinuity (Dziewonski & Anderson 1981, Table II; :mod:`lidmelt.physics.pressure`).
     calibrated_max_pressure_gpa : float
-        Onsets deeper than this are computed but flagged as beyond calibration; the phase
-        boundaries are continued beyond it (:meth:`continued_pressure`). Units: GPa.
+        Where the melting law's experiments end; beyond it the phase boundaries are continued
+        (:meth:`continued_pressure`) and outputs resting on them are flagged. Units: GPa.
     reference : str
         Citation of the parameter set.
     """
@@ -111,7 +105,7 @@ class MeltingModel:
     melt_density_kg_m3: float
     lithostatic_density_kg_m3: float = 3300.0
     gravity_m_s2: float = 9.81
-    max_onset_pressure_gpa: float = 30.0
+    max_onset_pressure_gpa: float = UPPER_MANTLE_FLOOR_GPA
     calibrated_max_pressure_gpa: float = 7.0
     reference: str = ""
     sources: dict[str, str] = field(default_factory=dict, compare=False, hash=False, repr=False)
@@ -202,18 +196,20 @@ class MeltingModel:
         return "\n".join(lines)
 
     # -- pressure and the solid isentrope ------------------------------------------------------
-    def depth_km(self, pressure_gpa):
-        """Depth below the seafloor [km] of lithostatic pressure ``pressure_gpa`` (P = rho g z)."""
-        return (
-            np.asarray(pressure_gpa)
-            * GPA
-            / (self.lithostatic_density_kg_m3 * self.gravity_m_s2)
-            / 1e3
-        )
+    @property
+    def depth_pressure(self) -> DepthPressure:
+        """The depth-pressure relation of this model's density and gravity
+        (:mod:`lidmelt.physics.pressure`: constant rho g above 7.25 GPa, PREM below)."""
+        return depth_pressure(self.lithostatic_density_kg_m3, self.gravity_m_s2)
 
-    def pressure_gpa(self, depth_km):
-        """Lithostatic pressure [GPa] at ``depth_km`` below the seafloor (P = rho g z)."""
-        return np.asarray(depth_km) * 1e3 * self.lithostatic_density_kg_m3 * self.gravity_m_s2 / GPA
+    def depth_km(self, pressure_gpa, load_km=0.0):
+        """Depth below the seafloor [km] of pressure ``pressure_gpa``: Z(P) - ``load_km``, the
+        water load's rock-equivalent depth (:func:`lidmelt.physics.pressure.water_load_km`)."""
+        return self.depth_pressure.depth_km(pressure_gpa) - load_km
+
+    def pressure_gpa(self, depth_km, load_km=0.0):
+        """Pressure [GPa] at ``depth_km`` below the seafloor beneath a water load ``load_km``."""
+        return self.depth_pressure.pressure_gpa(np.asarray(depth_km) + load_km)
 
     @property
     def adiabat_coefficient_per_gpa(self) -> float:

@@ -44,7 +44,9 @@ __all__ = [
     "table_key",
 ]
 
-TABLE_FORMAT = 2
+#: Changes with the physics a table stores beyond its parameters: 3 = phase boundaries continued
+#: with published high-pressure shapes, PREM below 7.25 GPa, the upper mantle's floor.
+TABLE_FORMAT = 3
 _ARRAYS = ("tp_c", "water_u", "pressure_gpa", "onset_gpa", "values")
 WATER_EXPONENT = 0.75  # the water coordinate u = water^0.75 (Katz et al. 2003 gamma)
 # Step of the direct integration for the few cells the table cannot do: 0.04 GPa changes melt
@@ -60,9 +62,10 @@ class TableLayout:
     The Tp nodes run to 1900 deg C, the hottest plume mantle lidmelt is tested for (hotspot Tp
     estimates reach about 1800 deg C, Bao et al. 2022, from a news summary only; 1900 deg C
     leaves a margin). The pressure nodes are tops of melting, not onsets: they run to
-    ``top_pressure_max_gpa`` = 13 GPa (a 401 km lid, beyond the 400 km the lid inputs accept);
-    onsets may lie deeper (down to the model's ``max_onset_pressure_gpa``), and cells with a
-    deeper top are integrated directly.
+    ``top_pressure_max_gpa`` = 13.4 GPa, below the upper mantle's floor (13.35 GPa, PREM's 400
+    km), the deepest onset (the model's ``max_onset_pressure_gpa``), so that every lid the
+    inputs accept (400 km at most) has its nodes; cells with a deeper top (beneath a water load)
+    are integrated directly.
 
     Columns are integrated in steps of ``integration_step_gpa`` at the nodes and of
     ``deep_integration_step_gpa`` below the deepest node, where nothing is recorded; against
@@ -76,7 +79,7 @@ class TableLayout:
     water_nodes: int = 11
     pressure_step_gpa: float = 0.02
     integration_step_gpa: float = 0.02
-    top_pressure_max_gpa: float = 13.0
+    top_pressure_max_gpa: float = 13.4
     deep_integration_step_gpa: float = 0.1
 
 
