@@ -14,6 +14,7 @@ import weakref
 
 import numpy as np
 
+from lidmelt.physics.column import onset_pressure_gpa
 from lidmelt.physics.melting import MeltingModel
 from lidmelt.physics.table import WATER_EXPONENT, MeltTable
 
@@ -89,6 +90,8 @@ def _arrays(table: MeltTable, water, model_arrays):
     """
     model, lay = table.model, table.layout
     p, sat, form = model_arrays
+    depth = model.depth_pressure
+    zp = np.ascontiguousarray(np.column_stack([depth.nodes_gpa, depth.nodes_km]))
     u_one = water**WATER_EXPONENT if water else 0.0
     if water is None:
         if form is None:
@@ -116,7 +119,8 @@ def _arrays(table: MeltTable, water, model_arrays):
          inv_du_curve, 1.0 / du_table, float(model.solidus_c(0.0, 0.0)), 0.0,
          float(model.pressure_gpa(1.0)), table.top_pressure_max_gpa,
          model.max_onset_pressure_gpa, np.nan, 0.0, lay.water_max_wt_pct,
-         float(model.hydrous), lay.tp_max_c, np.nan],
+         float(model.hydrous), lay.tp_max_c, np.nan, depth.join_gpa, depth.join_km,
+         1.0 / depth.node_step_gpa],
         float,
     )  # fmt: skip
     first = _first_nodes(curves, t0, n_t)
@@ -124,7 +128,30 @@ def _arrays(table: MeltTable, water, model_arrays):
     if water is None:
         _check_water_steps(inv, g0, dg, us, u_nodes, t0)
     cv = np.ascontiguousarray(np.stack([g0, dg, us], axis=1))
-    return par, cv, first, inv, sat, np.ascontiguousarray(vals, dtype=np.float32)
+    vals = np.ascontiguousarray(vals, dtype=np.float32)
+    return par, cv, first, inv, sat, vals, zp, _rough(table, water)
+
+
+def _rough(table: MeltTable, water):
+    """(n_tp - 1, n) uint8: 1 where the table's values are not smooth in Tp beyond the
+    calibrated pressure, for one water content (n = 1) or every water interval.
+
+    Beyond P_c the continued solidus flattens towards the isentrope (Herzberg et al. 2000), so
+    near their tangency the onset, and H with it, moves fast with Tp: there the Tp intervals the
+    numpy path integrates directly (:meth:`MeltTable.rough`) whose onsets lie beyond P_c are left
+    to it by the kernel too (bilinear H erred by up to 1.03 times the table tolerance there).
+    """
+    pc = table.model.calibrated_max_pressure_gpa
+    with np.errstate(invalid="ignore"):
+        if water is None:
+            deep = (table.onset_gpa[:-1] > pc) | (table.onset_gpa[1:] > pc)
+            if deep.shape[1] > 1:
+                deep = deep[:, :-1] | deep[:, 1:]
+            rough = table.rough & deep
+        else:
+            on = onset_pressure_gpa(table.model, table.tp_c, float(water))
+            rough = (table.rough_at(water) & ((on[:-1] > pc) | (on[1:] > pc)))[:, None]
+    return np.ascontiguousarray(rough, dtype=np.uint8)
 
 
 def _check_water_steps(inv, g0, dg, us, u_nodes, t0):

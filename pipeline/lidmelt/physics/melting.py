@@ -260,8 +260,9 @@ class MeltingModel:
         solidus-liquidus interval at P_c. Returns (solidus, liquidus, *inner) [deg C].
         """
         pc = self.calibrated_max_pressure_gpa
-        sol, liq = continued_solidus_liquidus(pressure_gpa, pc, solidus_c, liquidus_c)
-        inner = [at_fraction_of_interval(t, solidus_c, liquidus_c, sol, liq) for t in inner_c]
+        with np.errstate(invalid="ignore"):  # P = 0 (log) is never beyond P_c
+            sol, liq = continued_solidus_liquidus(pressure_gpa, pc, solidus_c, liquidus_c)
+            inner = [at_fraction_of_interval(t, solidus_c, liquidus_c, sol, liq) for t in inner_c]
         return tuple(
             np.where(beyond, new, old)
             for new, old in zip((sol, liq, *inner), (solidus_c, liquidus_c, *inner_c), strict=True)

@@ -228,6 +228,10 @@ class MeltTable:
                 self._rough = along_tp[:, :-1] | along_tp[:, 1:] | near_w[:-1] | near_w[1:]
         return self._rough
 
+    def rough_at(self, water: float) -> np.ndarray:
+        """(n_tp - 1,) Tp intervals integrated directly at one water content (see above)."""
+        return self._rough_intervals(onset_pressure_gpa(self.model, self.tp_c, float(water)))
+
     def water_index(self, water):
         """Lower water node index and the fraction towards the next node (water coordinate)."""
         if self.water_u.size == 1:
@@ -254,7 +258,7 @@ class MeltTable:
             j1 = min(j + 1, self.water_u.size - 1)
             vals = (1 - a) * self.values[:, j] + a * self.values[:, j1]
             onset = onset_pressure_gpa(self.model, self.tp_c, key)
-            rough = self._rough_intervals(onset)
+            rough = self.rough_at(key)
             n_p = self.pressure_gpa.size
             v = np.concatenate([vals, np.repeat(onset[:, None, None], n_p, axis=1)], axis=2)
             packed = np.concatenate([v[:-1, :-1], v[:-1, 1:], v[1:, :-1], v[1:, 1:]], axis=2)
