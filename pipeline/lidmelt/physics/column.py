@@ -534,11 +534,13 @@ def column_profile(
     min_top_km: float = DEFAULT_MIN_TOP_KM,
     step_gpa: float = DEFAULT_PRESSURE_STEP_GPA,
     below_onset_km: float = 30.0,
+    water_load_km: float = 0.0,
 ):
     """Depth, pressure, temperature and melt fraction along one column, deepest first.
 
     The profile starts ``below_onset_km`` below the onset on the solid isentrope (or at twice the
-    top depth when the column does not melt) and ends at the top of melting.
+    top depth when the column does not melt) and ends at the top of melting; depths are below a
+    seafloor loaded by ``water_load_km`` (:func:`lidmelt.physics.pressure.water_load_km`).
 
     Returns
     -------
@@ -548,7 +550,7 @@ def column_profile(
     model = get_model(model)
     tp, w = float(potential_temperature_c), float(water_wt_pct)
     top_km = float(top_of_melting_km(lid_depth_km, min_top_km))
-    top_p = float(model.pressure_gpa(top_km))
+    top_p = float(model.pressure_gpa(top_km, water_load_km))
     p_on = float(onset_pressure_gpa(model, tp, w))
     base_p = (p_on if np.isfinite(p_on) else top_p) + float(model.pressure_gpa(below_onset_km))
     base_p = max(base_p, 2.0 * top_p)
@@ -582,7 +584,7 @@ def column_profile(
         t_all = model.solid_adiabat_c(tp, p_all)
         f_all = np.zeros(p_all.size)
     return {
-        "depth_km": model.depth_km(p_all),
+        "depth_km": model.depth_km(p_all, water_load_km),
         "pressure_gpa": p_all,
         "temperature_c": t_all,
         "melt_fraction": f_all,
