@@ -186,3 +186,24 @@ def test_table_equals_direct_in_the_continued_range():
         assert np.all(np.abs(h_t - h_d) <= np.maximum(0.005 * np.abs(h_d), 0.02))
         npt.assert_allclose(table.onset_depth_km, direct.onset_depth_km, atol=0.2)
         npt.assert_allclose(table.deep_melt_share, direct.deep_melt_share, atol=5e-3)
+
+
+def test_deep_melt_share_is_the_melt_made_beyond_calibration():
+    # the definition (docs/physics.md, "How much is extrapolation"), checked with separate
+    # columns of the public API: H_deep = H(top at P_c) + F(P_c) (z_c - z_top), share = H_deep/H;
+    # 0 where the onset is shallower than P_c, 1 where the top is deeper than P_c
+    m = get_model("katz2003")
+    z_c = float(m.depth_km(m.calibrated_max_pressure_gpa))  # 216.2 km, above the PREM join
+    at_c = melt_column(1700.0, z_c, 0.0, method="direct", min_top_km=0.0)
+    full = melt_column(1700.0, 0.0, 0.0, method="direct")  # top at 7 km
+    h_deep = at_c.melt_thickness_km + at_c.max_melt_fraction * (z_c - 7.0)
+    npt.assert_allclose(full.deep_melt_share, h_deep / full.melt_thickness_km, rtol=1e-6)
+    for compiled in (True, False):
+        res = melt_column(
+            np.array([1700.0, 1450.0, 1700.0, 1350.0]), np.array([0.0, 0.0, 230.0, 150.0]),
+            0.0, compiled=compiled,
+        )  # fmt: skip
+        npt.assert_allclose(res.deep_melt_share[0], h_deep / full.melt_thickness_km, atol=5e-3)
+        assert res.deep_melt_share[1] == 0.0  # onset 4.1 GPa: nothing made beyond 7 GPa
+        assert res.deep_melt_share[2] == 1.0  # top 7.5 GPa: everything
+        assert np.isnan(res.deep_melt_share[3])  # no melt

@@ -174,7 +174,7 @@ _OUTPUT_LIST = (
             "share of the melt thickness made beyond the melting model's calibrated pressure "
             "(extrapolated phase relations)"
         ),
-        style="fraction",
+        style="share",
         undefined_without_melt=True,
     ),
     Variable(
