@@ -67,13 +67,10 @@ def onset_pressure_gpa(model: MeltingModel, potential_temperature_c, water_wt_pc
     """Shallowest pressure [GPa] where the solid isentrope meets the solidus, else the floor.
 
     Searched from the surface down to the upper mantle's floor ``model.max_onset_pressure_gpa``
-    on a 0.05 GPa grid, then
-    refined by bisection to 1e-12 GPa. The search runs from the top because the Katz et al. (2003)
-    solidus quadratic turns over at 13.03 GPa [derived: dT/dP = A2 + 2 A3 P = 0], so a search
-    from below could find the wrong crossing (docs/physics.md, section "Where the onset is
-    searched"). NaN where Tp is at or below the surface solidus (no crossing at all); the floor
-    itself where the isentrope stays above the solidus down to it (the column melts from there;
-    docs/physics.md, section "The upper mantle's floor").
+    on a 0.05 GPa grid, then bisected to 1e-12 GPa; from the top, because a hot isentrope comes
+    close to the flattening continued solidus again deeper down (docs/physics.md, "Where the
+    onset is searched"). NaN where Tp is at or below the surface solidus; the floor where the
+    isentrope stays above the solidus down to it (docs/physics.md, "The upper mantle's floor").
     """
     tp, w = np.broadcast_arrays(
         np.asarray(potential_temperature_c, float), np.asarray(water_wt_pct, float)
@@ -370,15 +367,17 @@ def integrate_columns(
         rec = {k: np.zeros((record_nodes, tp.size)) for k in _NODE_KEYS}
     if melts.any():
         idx = np.flatnonzero(melts)
+        t_start, f_start = _at_floor_in_equilibrium(model, p_on[idx], t_k[idx], water[idx])
         t_k[idx], f[idx], h_km[idx], g[idx] = _march(
             model,
             p_on[idx],
             p_top[idx],
             water[idx],
-            t_k[idx],
+            t_start,
             _Nodes(step_gpa, deep_step_gpa, None if record_nodes is None else record_nodes - 1),
             rows=idx,
             rec=rec,
+            f_start=f_start,
         )
     out = {
         "melt_thickness_km": h_km,
@@ -395,8 +394,7 @@ def _advance(model, now, p_next, water, km_per_gpa, substeps=1):
     """Step the columns ``now`` (P, T, F, H, int P dF, -dF/dP, dh/dF) to ``p_next``.
 
     In ``substeps`` equal steps; the first starts from F extrapolated from the last step. H
-    grows by the mean F times the step's depth, ``dp * km_per_gpa`` above the join of the
-    depth-pressure relation, Z(p) - Z(p1) below it (:mod:`lidmelt.physics.pressure`).
+    grows by the mean F times the step's depth (:meth:`DepthPressure.step_km`).
     """
     p_start = now[0]
     join = model.depth_pressure.join_gpa
@@ -405,9 +403,8 @@ def _advance(model, now, p_next, water, km_per_gpa, substeps=1):
         p1 = p_next if k == substeps else p_start + (p_next - p_start) * (k / substeps)
         dp = p - p1
         t1, f1, dhdf = _step(model, p, t, f, p1, water, f + dfdp * dp, dhdf)
-        if np.any(p > join):
-            dz = model.depth_pressure.step_km(p, p1, km_per_gpa)
-            h_km = h_km + 0.5 * (f + f1) * dz
+        if np.any(p > join):  # below the join of the depth-pressure relation
+            h_km = h_km + 0.5 * (f + f1) * model.depth_pressure.step_km(p, p1, km_per_gpa)
         else:
             h_km = h_km + 0.5 * (f + f1) * dp * km_per_gpa
         g = g + 0.5 * (p + p1) * (f1 - f)
@@ -442,7 +439,19 @@ class _Nodes:
         return first
 
 
-def _march(model, p_on, p_top, water, t_k, nodes, *, rows, rec):
+def _at_floor_in_equilibrium(model, p_on, t_k, water):
+    """(T [K], F) at the start: the isentrope at the onset; at the floor (isentrope above the
+    solidus) the equilibrium of the same entropy, a zero-length :func:`_step`."""
+    f = np.zeros(p_on.shape)
+    floor = p_on >= model.max_onset_pressure_gpa - 1e-9
+    if floor.any():
+        t_k = t_k.copy()
+        sel = np.flatnonzero(floor)
+        t_k[sel], f[sel], _ = _step(model, p_on[sel], t_k[sel], f[sel], p_on[sel], water[sel])
+    return t_k, f
+
+
+def _march(model, p_on, p_top, water, t_k, nodes, *, rows, rec, f_start=None):
     """Step melting columns (1-D, ``p_on > p_top``) from the onset temperature ``t_k`` to the top.
 
     Returns (T [K], F, H [km], integral of P dF [GPa]) at ``p_top``. With ``rec``, the state at
@@ -461,6 +470,8 @@ def _march(model, p_on, p_top, water, t_k, nodes, *, rows, rec):
     first = nodes.first_above(p_on)
     step_gpa = nodes.step
     state = [p_on.copy(), t_k.copy(), *np.zeros((3, p_on.size)), *np.full((2, p_on.size), np.nan)]
+    if f_start is not None:
+        state[2] = f_start.copy()
     out = [t_k.copy(), *np.zeros((3, p_on.size))]
     going = np.flatnonzero(first >= 1)
     for k in range(_START_STEPS):

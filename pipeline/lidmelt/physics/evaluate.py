@@ -356,8 +356,7 @@ def evaluate_cells(
     every output in that order (NaN where an output is not given: melt production without
     upwelling), without further copies on the compiled path; ``nodata``, a flag value, marks
     cells with a non-finite Tp, lid or water: every output NaN, the flag ``nodata``.
-    ``water_load_km``: the water above the seafloor as its rock-equivalent depth (a scalar or an
-    array like the cells; :func:`melt_column`).
+    ``water_load_km``: the water load, a scalar or an array like the cells (:func:`melt_column`).
     """
     model = get_model(model)
     if method == "table" and use_compiled(compiled):

@@ -138,19 +138,19 @@ def _rough(table: MeltTable, water):
 
     Beyond P_c the continued solidus flattens towards the isentrope (Herzberg et al. 2000), so
     near their tangency the onset, and H with it, moves fast with Tp: there the Tp intervals the
-    numpy path integrates directly (:meth:`MeltTable.rough`) whose onsets lie beyond P_c are left
-    to it by the kernel too (bilinear H erred by up to 1.03 times the table tolerance there).
+    numpy path integrates directly (:meth:`MeltTable.rough`, :meth:`MeltTable.rough_at`: between
+    water nodes every interval beyond P_c) whose onsets lie beyond P_c are left to it by the
+    kernel too (interpolated H erred by up to 3 times the table tolerance there).
     """
-    pc = table.model.calibrated_max_pressure_gpa
-    with np.errstate(invalid="ignore"):
-        if water is None:
-            deep = (table.onset_gpa[:-1] > pc) | (table.onset_gpa[1:] > pc)
-            if deep.shape[1] > 1:
-                deep = deep[:, :-1] | deep[:, 1:]
-            rough = table.rough & deep
-        else:
-            on = onset_pressure_gpa(table.model, table.tp_c, float(water))
-            rough = (table.rough_at(water) & ((on[:-1] > pc) | (on[1:] > pc)))[:, None]
+    if water is None:
+        deep = table.beyond_intervals(table.onset_gpa)
+        rough = table.rough & (deep[:, :-1] | deep[:, 1:] if deep.shape[1] > 1 else deep)
+    else:
+        deep = table.beyond_intervals(onset_pressure_gpa(table.model, table.tp_c, float(water)))
+        j = int(np.ravel(table.water_index(np.array([float(water)]))[0])[0])
+        for jj in {j, min(j + 1, table.water_u.size - 1)}:  # the bracketing water nodes
+            deep |= table.beyond_intervals(table.onset_gpa[:, jj])
+        rough = (table.rough_at(water) & deep)[:, None]
     return np.ascontiguousarray(rough, dtype=np.uint8)
 
 

@@ -225,12 +225,33 @@ class MeltTable:
             else:
                 no_onset = ~np.isfinite(on)
                 near_w = no_onset[:, :-1] | no_onset[:, 1:]
-                self._rough = along_tp[:, :-1] | along_tp[:, 1:] | near_w[:-1] | near_w[1:]
+                rough = along_tp[:, :-1] | along_tp[:, 1:] | near_w[:-1] | near_w[1:]
+                deep = self.beyond_intervals(on)
+                self._rough = rough | deep[:, :-1] | deep[:, 1:]
         return self._rough
 
+    def beyond_intervals(self, onset: np.ndarray) -> np.ndarray:
+        """Tp intervals (axis 0) with an onset beyond the calibrated pressure at either node.
+
+        There, near the tangency of the isentrope and the flattening continued solidus, H and F
+        are not linear in the water coordinate between water nodes (they erred by up to 3 times
+        the table tolerance), so cells between water nodes are integrated directly.
+        """
+        with np.errstate(invalid="ignore"):
+            deep = onset > self.model.calibrated_max_pressure_gpa
+        return deep[:-1] | deep[1:]
+
     def rough_at(self, water: float) -> np.ndarray:
-        """(n_tp - 1,) Tp intervals integrated directly at one water content (see above)."""
-        return self._rough_intervals(onset_pressure_gpa(self.model, self.tp_c, float(water)))
+        """(n_tp - 1,) Tp intervals integrated directly at one water content (see above): rough
+        onsets, and between water nodes the intervals beyond the calibrated pressure."""
+        onset = onset_pressure_gpa(self.model, self.tp_c, float(water))
+        rough = self._rough_intervals(onset)
+        j, c = (np.ravel(v)[0] for v in self.water_index(np.array([float(water)])))
+        if c > 0.0 and self.water_u.size > 1:  # between water nodes
+            j1 = min(int(j) + 1, self.water_u.size - 1)
+            for on in (onset, self.onset_gpa[:, int(j)], self.onset_gpa[:, j1]):
+                rough |= self.beyond_intervals(on)
+        return rough
 
     def water_index(self, water):
         """Lower water node index and the fraction towards the next node (water coordinate)."""
