@@ -82,15 +82,18 @@ def tangency_band_c(water, model="katz2003"):
 
 def test_no_valid_in_range_cell_leaves_the_kernel():
     # the whole table range the runs use: Tp 1200-1700 C, lid 0-250 km, water 0-0.1 wt%, dry
-    # and at one water content. Only columns whose onset lies beyond the calibrated pressure,
-    # near the tangency of isentrope and continued solidus, leave (lidmelt choice,
-    # physics/kernel_arrays.py::_rough); away from that Tp band none does.
+    # and at one water content. Only columns whose onset lies beyond the calibrated pressure
+    # leave (lidmelt choice, physics/kernel_arrays.py::_rough): at a water content on a table
+    # node those near the tangency of isentrope and continued solidus, between water nodes all
+    # of them; away from them none does.
     rng = np.random.default_rng(11)
     n = 200_000
     tp, lid = rng.uniform(1200.0, 1700.0, n), rng.uniform(0.0, 250.0, n)
-    lo, hi = tangency_band_c(0.1)[0], tangency_band_c(0.0)[1]  # wettest to driest
-    outside = (tp < lo) | (tp > hi)
+    lo = tangency_band_c(0.1)[0]  # below it every onset is calibrated, at any water
     for w in (0.0, 0.01, 0.1, rng.uniform(0.0, 0.1, n)):
+        on_node = np.ndim(w) == 0 and w in (0.0, 0.1)  # the table's first and last water nodes
+        band = tangency_band_c(w) if on_node else (lo, np.inf)
+        outside = (tp < band[0]) | (tp > band[1])
         clock = {}
         evaluate_cells(tp, lid, w, ambient_potential_temperature_c=1350.0, clock=clock)
         assert clock["cells"] == n

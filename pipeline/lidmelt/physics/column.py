@@ -27,10 +27,8 @@ fall on a fixed pressure grid (plus one partial step from the onset and one to t
 interval to a top within one step of the surface in four substeps); a test proves convergence in
 the step. All columns step together, node by node (:func:`integrate_columns`).
 
-References
-----------
-.. [Katz2003] Katz, R. F., Spiegelman, M. & Langmuir, C. H. (2003). A new parameterization of
-   hydrous mantle melting. Geochem. Geophys. Geosyst. 4(9), 1073, doi:10.1029/2002GC000433.
+.. [Katz2003] Katz, R. F., Spiegelman, M. & Langmuir, C. H. (2003), G-cubed 4(9), 1073,
+   doi:10.1029/2002GC000433.
 """
 
 from __future__ import annotations

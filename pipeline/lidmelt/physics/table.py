@@ -247,7 +247,7 @@ class MeltTable:
         onset = onset_pressure_gpa(self.model, self.tp_c, float(water))
         rough = self._rough_intervals(onset)
         j, c = (np.ravel(v)[0] for v in self.water_index(np.array([float(water)])))
-        if c > 0.0 and self.water_u.size > 1:  # between water nodes
+        if 0.0 < c < 1.0 and self.water_u.size > 1:  # between water nodes
             j1 = min(int(j) + 1, self.water_u.size - 1)
             for on in (onset, self.onset_gpa[:, int(j)], self.onset_gpa[:, j1]):
                 rough |= self.beyond_intervals(on)
