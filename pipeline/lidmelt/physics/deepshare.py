@@ -79,6 +79,14 @@ def table_at_calibration(table, tp, water, onset_gpa, top_gpa):
         v0 = v[i, jj, k] + b * (v[i, jj, k + 1] - v[i, jj, k])
         v1 = v[i + 1, jj, k] + b * (v[i + 1, jj, k + 1] - v[i + 1, jj, k])
         vals = vals + wgt * (v0 + a * (v1 - v0))
+    if np.ndim(water) == 0:  # one water content: the columns integrated at exactly it
+        i0, exact = table.deep_columns(float(water))
+        sel = i >= i0
+        if sel.any():
+            ii, aa = i[sel] - i0, a[sel]
+            v0 = exact[ii, k] + b * (exact[ii, k + 1] - exact[ii, k])
+            v1 = exact[ii + 1, k] + b * (exact[ii + 1, k + 1] - exact[ii + 1, k])
+            vals[sel] = v0 + aa * (v1 - v0)
     h_c[need], f_c[need] = vals[:, 0], vals[:, 1]
     return h_c, f_c
 

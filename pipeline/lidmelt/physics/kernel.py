@@ -179,6 +179,16 @@ def _lookup(vals, x, y, j, c):
 
 
 @_jit(inline="always")
+def _lookup_at(vals, deep, par, x, y, j, c):
+    """:func:`_lookup`, from the columns integrated at exactly this water content (``deep``,
+    Tp nodes from ``par[27]`` on; :meth:`MeltTable.deep_columns`) where it has them."""
+    i0 = par[27]
+    if x >= i0:
+        return _lookup(deep, x - i0, y, 0, 0.0)
+    return _lookup(vals, x, y, j, c)
+
+
+@_jit(inline="always")
 def _saturation(sat, p, inv_step):
     """Bulk water [wt%] that saturates the solid source at p (linear between nodes)."""
     x = p * inv_step
@@ -214,7 +224,7 @@ def _depth_of_pressure(p, par, zp):
 
 
 @_jit(inline="always")
-def _deep_share(vals, x, j, c, h, top_p, p_on, par, zp):
+def _deep_share(vals, deep, x, j, c, h, top_p, p_on, par, zp):
     """H_deep / H (:mod:`lidmelt.physics.deepshare`): H and F at the top P_c from the table."""
     cal = par[6]
     if not h > 0.0:
@@ -223,13 +233,13 @@ def _deep_share(vals, x, j, c, h, top_p, p_on, par, zp):
         return 0.0
     if top_p >= cal:
         return 1.0
-    h_c, f_c, _ = _lookup(vals, x, cal * par[5], j, c)
+    h_c, f_c, _ = _lookup_at(vals, deep, par, x, cal * par[5], j, c)
     dz = _depth_of_pressure(cal, par, zp) - _depth_of_pressure(top_p, par, zp)
     return min(max((h_c + f_c * dz) / h, 0.0), 1.0)
 
 
 @_jit(inline="always")
-def _column(tp, w, u, top_p, p_on, par, sat, vals, zp, rough):
+def _column(tp, w, u, top_p, p_on, par, sat, vals, zp, rough, deep):
     """One valid cell with its onset: (flag, onset [GPa], H, F, mean melt pressure, deep melt
     share, to numpy)."""
     p_step, tp_min, inv_dtp, inv_dp, cal = par[2], par[3], par[4], par[5], par[6]
@@ -250,16 +260,16 @@ def _column(tp, w, u, top_p, p_on, par, sat, vals, zp, rough):
     j = min(int(xj), vals.shape[1] - 1)
     if rough[min(int(x), rough.shape[0] - 1), min(j, rough.shape[1] - 1)]:
         return flag, p_on, np.nan, np.nan, np.nan, np.nan, True
-    h, f, g = _lookup(vals, x, y, j, xj - j)
+    h, f, g = _lookup_at(vals, deep, par, x, y, j, xj - j)
     if not (np.isfinite(h) and np.isfinite(f)):
         return flag, p_on, np.nan, np.nan, np.nan, np.nan, True
     mean = min(max(g / f, top_p), p_on) if f > 0.0 else np.nan
-    share = _deep_share(vals, x, j, xj - j, h, top_p, p_on, par, zp)
+    share = _deep_share(vals, deep, x, j, xj - j, h, top_p, p_on, par, zp)
     return flag, p_on, h, f, mean, share, False
 
 
 @_jit(inline="always")
-def _ambient_melt(w, u, top_p, p_on, par, sat, vals):
+def _ambient_melt(w, u, top_p, p_on, par, sat, vals, deep):
     """H [km] of the ambient column (0 where it is flagged), and whether it needs numpy.
 
     Looked up exactly as a cell's own H (:func:`_lookup` at the ambient Tp), so that a cell
@@ -274,7 +284,7 @@ def _ambient_melt(w, u, top_p, p_on, par, sat, vals):
         return 0.0, False
     xj = u * par[12]
     j = min(int(xj), vals.shape[1] - 1)
-    h = _lookup(vals, (par[18] - par[3]) * par[4], top_p * par[5], j, xj - j)[0]
+    h = _lookup_at(vals, deep, par, (par[18] - par[3]) * par[4], top_p * par[5], j, xj - j)[0]
     if not np.isfinite(h):
         return 0.0, True
     return h, False
@@ -313,7 +323,7 @@ def _onset_any(tp, u, par, cv, first, inv):
 @_jit(refcount=False)
 def _cells(
     tp, lid, water, w_stride, up, up_stride, par, cv, first, inv, sat, vals, out, flag, slow,
-    load, load_stride, zp, rough,
+    load, load_stride, zp, rough, deep,
 ):  # fmt: skip
     """Every output of every cell into ``out`` (rows :data:`ROWS`) and ``flag``.
 
@@ -357,7 +367,7 @@ def _cells(
         if valid:
             p_on = _onset_any(t, u_curve, par, cv, first, inv)
             fl, p_on, h, f, mean, share, to_numpy = _column(
-                t, w, u_curve, top_p, p_on, par, sat, vals, zp, rough
+                t, w, u_curve, top_p, p_on, par, sat, vals, zp, rough, deep
             )
             if to_numpy:
                 slow[n] = True
@@ -366,7 +376,7 @@ def _cells(
         if excess < 0.0 and np.isfinite(h):
             if varying:
                 p_amb = _onset_any(ambient, u_curve, par, cv, first, inv)
-            h_amb, to_numpy = _ambient_melt(w, u_curve, top_p, p_amb, par, sat, vals)
+            h_amb, to_numpy = _ambient_melt(w, u_curve, top_p, p_amb, par, sat, vals, deep)
             if to_numpy:
                 slow[n] = True
                 continue
@@ -425,7 +435,7 @@ def evaluate_compiled(
     arrays = kernel_arrays(table, float(water) if one else None)
     if arrays is None:
         return None
-    par, cv, first, inv, sat, vals, zp, rough = arrays
+    par, cv, first, inv, sat, vals, zp, rough, deep = arrays
     par = par.copy()
     par[14], par[18], par[19] = min_top_km, ambient_c, crust_ratio
     par[23] = np.nan if nodata is None else float(nodata)
@@ -445,7 +455,7 @@ def evaluate_compiled(
     slow = np.zeros(tp.size, np.bool_)
     _cells(
         tp, lid, w, 0 if one else 1, up, 0 if up.size == 1 else 1, par, cv, first, inv, sat,
-        vals, out, flag, slow, zw, 0 if zw.size == 1 else 1, zp, rough,
+        vals, out, flag, slow, zw, 0 if zw.size == 1 else 1, zp, rough, deep,
     )  # fmt: skip
     if first_call:
         _COMPILE["seconds"] = time.perf_counter() - t

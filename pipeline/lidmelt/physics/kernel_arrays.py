@@ -129,7 +129,12 @@ def _arrays(table: MeltTable, water, model_arrays):
         _check_water_steps(inv, g0, dg, us, u_nodes, t0)
     cv = np.ascontiguousarray(np.stack([g0, dg, us], axis=1))
     vals = np.ascontiguousarray(vals, dtype=np.float32)
-    return par, cv, first, inv, sat, vals, zp, _rough(table, water)
+    i0, exact = (table.tp_c.size, None) if water is None else table.deep_columns(water)
+    if exact is None or exact.shape[0] == 0:
+        i0, exact = table.tp_c.size, np.zeros((2, 1, table.pressure_gpa.size, 3), np.float32)
+    par = np.append(par, float(i0))  # par[27]: the first Tp node of the exact columns
+    deep = np.ascontiguousarray(exact.reshape(exact.shape[0], 1, -1, 3), dtype=np.float32)
+    return par, cv, first, inv, sat, vals, zp, _rough(table, water), deep
 
 
 def _rough(table: MeltTable, water):
@@ -150,7 +155,7 @@ def _rough(table: MeltTable, water):
         j = int(np.ravel(table.water_index(np.array([float(water)]))[0])[0])
         for jj in {j, min(j + 1, table.water_u.size - 1)}:  # the bracketing water nodes
             deep |= table.beyond_intervals(table.onset_gpa[:, jj])
-        rough = (table.rough_at(water) & deep)[:, None]
+        rough = (table.rough_at(water) & deep)[:, None]  # near the tangency
     return np.ascontiguousarray(rough, dtype=np.uint8)
 
 

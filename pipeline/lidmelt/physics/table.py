@@ -242,16 +242,40 @@ class MeltTable:
         return deep[:-1] | deep[1:]
 
     def rough_at(self, water: float) -> np.ndarray:
-        """(n_tp - 1,) Tp intervals integrated directly at one water content (see above): rough
-        onsets, and between water nodes the intervals beyond the calibrated pressure."""
-        onset = onset_pressure_gpa(self.model, self.tp_c, float(water))
-        rough = self._rough_intervals(onset)
-        j, c = (np.ravel(v)[0] for v in self.water_index(np.array([float(water)])))
-        if 0.0 < c < 1.0 and self.water_u.size > 1:  # between water nodes
-            j1 = min(int(j) + 1, self.water_u.size - 1)
-            for on in (onset, self.onset_gpa[:, int(j)], self.onset_gpa[:, j1]):
-                rough |= self.beyond_intervals(on)
-        return rough
+        """(n_tp - 1,) Tp intervals integrated directly at one water content (see above)."""
+        return self._rough_intervals(onset_pressure_gpa(self.model, self.tp_c, float(water)))
+
+    def deep_columns(self, water: float) -> tuple[int, np.ndarray]:
+        """(i0, (n_tp - i0, n_p, 3) float32): for a water content between water nodes, the
+        columns of the Tp nodes from i0 on (one node before the first onset beyond the calibrated
+        pressure) integrated at exactly this water, as :meth:`build` does; there H and F are
+        not linear in the water coordinate (:meth:`beyond_intervals`). (n_tp, empty) otherwise.
+        """
+        key = float(water)
+        cache = self.__dict__.setdefault("_deep", {})
+        if key not in cache:
+            lay, n_tp, n_p = self.layout, self.tp_c.size, self.pressure_gpa.size
+            c = float(np.ravel(self.water_index(np.array([key]))[1])[0])
+            onset = onset_pressure_gpa(self.model, self.tp_c, key)
+            with np.errstate(invalid="ignore"):
+                deep = np.flatnonzero(onset > self.model.calibrated_max_pressure_gpa)
+            res = (n_tp, np.zeros((0, n_p, 3), np.float32))
+            if 0.0 < c < 1.0 and self.water_u.size > 1 and deep.size:
+                i0 = min(max(int(deep[0]) - 1, 0), n_tp - 2)
+                ratio = round(lay.pressure_step_gpa / lay.integration_step_gpa)
+                rec = integrate_columns(
+                    self.model, self.tp_c[i0:], key, onset[i0:], 0.0,
+                    step_gpa=lay.integration_step_gpa, record_nodes=(n_p - 1) * ratio + 1,
+                    deep_step_gpa=lay.deep_integration_step_gpa,
+                )  # fmt: skip
+                keys = ("node_melt_thickness_km", "node_melt_fraction", "node_int_p_df_gpa")
+                vals = np.stack([rec[k][:, ::ratio] for k in keys], axis=-1).astype(np.float32)
+                vals[~np.isfinite(onset[i0:])] = np.nan
+                res = (i0, vals)
+            if len(cache) > 16:
+                cache.clear()
+            cache[key] = res
+        return cache[key]
 
     def water_index(self, water):
         """Lower water node index and the fraction towards the next node (water coordinate)."""
@@ -266,7 +290,8 @@ class MeltTable:
 
         Row i * (n_p - 1) + k holds the 4 corners (i, k), (i, k + 1), (i + 1, k), (i + 1, k + 1)
         of (H, F, integral P dF, onset), 16 float32 values. H, F and P dF are linear in the water
-        coordinate between nodes; the onsets are exact at this water (searched at every Tp node).
+        coordinate between nodes, except the columns beyond the calibrated pressure
+        (:meth:`deep_columns`); the onsets are exact at this water (searched at every Tp node).
         Rough intervals get NaN onsets, which sends their cells to direct integration. Also
         returns the Tp from which on no cell has an onset.
         """
@@ -278,6 +303,8 @@ class MeltTable:
             )
             j1 = min(j + 1, self.water_u.size - 1)
             vals = (1 - a) * self.values[:, j] + a * self.values[:, j1]
+            i0, exact = self.deep_columns(key)
+            vals[i0:] = exact  # beyond the calibrated pressure: integrated at this water
             onset = onset_pressure_gpa(self.model, self.tp_c, key)
             rough = self.rough_at(key)
             n_p = self.pressure_gpa.size
