@@ -138,24 +138,30 @@ def _arrays(table: MeltTable, water, model_arrays):
 
 
 def _rough(table: MeltTable, water):
-    """(n_tp - 1, n) uint8: 1 where the table's values are not smooth in Tp beyond the
-    calibrated pressure, for one water content (n = 1) or every water interval.
+    """(n_tp - 1, n) uint8: Tp intervals the kernel leaves to the numpy path, for one water
+    content (n = 1) or every water interval.
 
-    Beyond P_c the continued solidus flattens towards the isentrope (Herzberg et al. 2000), so
-    near their tangency the onset, and H with it, moves fast with Tp: there the Tp intervals the
-    numpy path integrates directly (:meth:`MeltTable.rough`, :meth:`MeltTable.rough_at`: between
-    water nodes every interval beyond P_c) whose onsets lie beyond P_c are left to it by the
-    kernel too (interpolated H erred by up to 3 times the table tolerance there).
+    Beyond P_c the continued solidus flattens towards the isentrope (Herzberg et al. 2000): the
+    onset moves fast with Tp, then jumps to the upper mantle's floor where the isentrope no
+    longer meets the solidus, and H is not smooth in Tp there. For one water content the kernel's
+    onset is exact (the curve) and the table's columns are integrated at that water
+    (:meth:`MeltTable.deep_columns`), so only the intervals within two nodes of that jump are
+    left (bilinear H erred by up to 1.8 times the table tolerance there, 0.5 elsewhere in the
+    band). Where water varies, every interval beyond P_c that the numpy path integrates
+    directly (:meth:`MeltTable.rough`) is left too.
     """
     if water is None:
         deep = table.beyond_intervals(table.onset_gpa)
         rough = table.rough & (deep[:, :-1] | deep[:, 1:] if deep.shape[1] > 1 else deep)
     else:
-        deep = table.beyond_intervals(onset_pressure_gpa(table.model, table.tp_c, float(water)))
-        j = int(np.ravel(table.water_index(np.array([float(water)]))[0])[0])
-        for jj in {j, min(j + 1, table.water_u.size - 1)}:  # the bracketing water nodes
-            deep |= table.beyond_intervals(table.onset_gpa[:, jj])
-        rough = (table.rough_at(water) & deep)[:, None]  # near the tangency
+        onset = onset_pressure_gpa(table.model, table.tp_c, float(water))
+        floor = onset >= table.model.max_onset_pressure_gpa - 1e-9
+        jump = floor[:-1] != floor[1:]
+        rough = jump.copy()
+        for shift in (1, 2):  # two intervals on either side
+            rough[shift:] |= jump[:-shift]
+            rough[:-shift] |= jump[shift:]
+        rough = rough[:, None]
     return np.ascontiguousarray(rough, dtype=np.uint8)
 
 
