@@ -125,6 +125,10 @@ def _arrays(table: MeltTable, water, model_arrays):
     )  # fmt: skip
     first = _first_nodes(curves, t0, n_t)
     inv = np.stack([_inverse(c, f, t0) for c, f in zip(curves, first, strict=True)])
+    # the continued solidus has a kink at P_c (highpressure.py): onsets across it are searched
+    cal = model.calibrated_max_pressure_gpa
+    with np.errstate(invalid="ignore"):
+        inv[(inv[..., 0] <= cal) & (inv[..., 0] + inv[..., 1] > cal)] = np.nan
     if water is None:
         _check_water_steps(inv, g0, dg, us, u_nodes, t0)
     cv = np.ascontiguousarray(np.stack([g0, dg, us], axis=1))
