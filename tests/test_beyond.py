@@ -1,63 +1,137 @@
-"""No holes where the mantle is hottest: the phase boundaries continued beyond 7 GPa.
+"""Hot plumes: the phase boundaries beyond 7 GPa follow a published high-pressure solidus.
 
-Check values: lidmelt definitions (docs/physics.md, sections "Definitions lidmelt fixes" and
-"Beyond the calibrated pressure"): valid inputs from the table's lowest Tp to 1900 C, water 0 to
-0.1 wt%, lid 0 to 250 km give finite outputs; melt thickness is monotonic in Tp and never jumps by
-more than 0.5 km per 1 K step.
+Check values:
+
+* Herzberg, Raterron & Zhang (2000), G-cubed 1, 2000GC000089, abstract: the anhydrous solidus of
+  peridotite KLB-1 is T = 1086 - 5.7 P + 390 ln P (deg C, GPa), +-68 deg C (2 sigma), from 2.7
+  to 22.5 GPa. lidmelt joins it to each model at P_c = 7 GPa by shifting it by the model's own
+  offset there (docs/physics.md, section "Beyond the calibrated pressure"): Katz et al. (2003)
+  Table 2 gives T_sol(7) = 1085.7 + 132.9 * 7 - 5.1 * 49 = 1766.1 deg C against the fit's
+  1805.0 (-38.9 K).
+* With water, the onset lies on that curve lowered by the Katz et al. (2003) water depression
+  K min(X_bulk / D, X_sat)^gamma at F = 0 (Table 2: K = 43, gamma = 0.75, D = 0.01; X_sat held at
+  its 7 GPa value beyond it, lidmelt's choice).
+* The floor: PREM's pressure at 400 km, 13.35 GPa (Dziewonski & Anderson 1981, Table II).
+* lidmelt definitions (docs/physics.md): outputs finite or flagged, melt thickness monotonic in
+  Tp.
 """
 
 import numpy as np
 import numpy.testing as npt
 import pytest
 
-from lidmelt.physics import FLAG_BEYOND_CALIBRATION, get_model, get_table, melt_column
+from lidmelt.physics import (
+    FLAG_BEYOND_CALIBRATION,
+    FLAG_INVALID_INPUT,
+    FLAG_NO_ONSET,
+    FLAG_UPPER_MANTLE_FLOOR,
+    FLAG_WATER_SATURATED,
+    get_model,
+    melt_column,
+)
 from lidmelt.physics.table import TableLayout
 
-WATERS = (0.0, 0.01, 0.05, 0.1)
+WATERS = (0.0, 0.01, 0.05)
 LIDS = (0.0, 100.0, 250.0)
+MODELS = ("katz2003", "mckenzie-bickle1988")
+BAND_K = 68.0  # Herzberg et al. (2000): 2 sigma of their fit
 
 
-def scan(method="table"):
-    """Melt thickness and flag on a 1 K Tp grid, per (water, lid): arrays (water, lid, tp)."""
-    tp = np.arange(TableLayout().tp_min_c, 1900.0 + 0.5, 1.0)
-    h = np.empty((len(WATERS), len(LIDS), tp.size))
-    flag = np.empty(h.shape, np.uint8)
-    for i, w in enumerate(WATERS):
-        for j, lid in enumerate(LIDS):
-            res = melt_column(tp, lid, w, method=method)
-            h[i, j], flag[i, j] = res.melt_thickness_km, res.flag
-    return tp, h, flag
+def herzberg_2000_c(p):
+    """The published fit itself (abstract), written out here, not taken from lidmelt."""
+    return 1086.0 - 5.7 * p + 390.0 * np.log(p)
 
 
-def test_scan_to_1900_c_is_finite_monotonic_and_smooth():
-    _tp, h, flag = scan()
-    assert np.all(np.isfinite(h))
-    step = np.diff(h, axis=-1)
-    assert np.all(step >= -1e-4), step.min()  # monotonic (float32 table values)
-    largest = step.max()
-    assert largest <= 0.5, largest  # km per 1 K step
-    # the hot end lies beyond calibration and is flagged, computed anyway
-    assert np.all(flag[..., -1] & FLAG_BEYOND_CALIBRATION)
+def reference_onset_c(model, p, water):
+    """The shifted fit lowered by the water depression at the onset (see the module doc)."""
+    pc = model.calibrated_max_pressure_gpa
+    dry_pc = float(model.solidus_c(pc))  # the model's own published law at P_c
+    ref = dry_pc + herzberg_2000_c(p) - herzberg_2000_c(pc)
+    if water > 0:
+        x_sat = 12.0 * pc**0.6 + 1.0 * pc  # Katz et al. (2003) Table 2, at P_c
+        ref = ref - 43.0 * min(water / 0.01, x_sat) ** 0.75
+    return ref
 
 
-def test_continuation_is_continuous_monotonic_and_keeps_the_interval():
-    # lidmelt definition (docs/physics.md, "Beyond the calibrated pressure"): every boundary
-    # shifted by T_sol'(P_c) (P - P_c); the Katz slope A2 + 2 A3 P_c = 132.9 - 71.4 = 61.5 K/GPa
-    # (Katz et al. 2003 Table 2 constants [derived])
-    for name in ("katz2003", "mckenzie-bickle1988"):
+def scan(model_name, *, tp_step=1.0):
+    """Every output on a Tp grid from the table's lowest Tp to 1900 C, per (water, lid)."""
+    tp = np.arange(TableLayout().tp_min_c, 1900.0 + 0.5 * tp_step, tp_step)
+    out = {}
+    for w in WATERS:
+        for lid in LIDS:
+            out[w, lid] = melt_column(tp, lid, w, model=model_name)
+    return tp, out
+
+
+def check_scan(model_name, tp_step=1.0):
+    """The figures the tests assert (and the closing note quotes)."""
+    model = get_model(model_name)
+    tp, res = scan(model_name, tp_step=tp_step)
+    figures = {"cells": 0, "flag_counts": {}, "max_band_dev_k": 0.0, "max_slope_k_gpa": 0.0}
+    for (w, _lid), r in res.items():
+        figures["cells"] += tp.size
+        for bit in (1, 2, 4, 8, 16):
+            figures["flag_counts"][bit] = figures["flag_counts"].get(bit, 0) + int(
+                np.count_nonzero(r.flag & bit)
+            )
+        unusable = (r.flag & (FLAG_INVALID_INPUT | FLAG_NO_ONSET | FLAG_WATER_SATURATED)) > 0
+        for name, arr in r.as_dict().items():
+            if name in ("flag", "mean_melt_pressure_gpa", "deep_melt_share"):
+                continue  # undefined without melt: NaN where H = 0 (registry)
+            assert np.all(np.isfinite(arr[~unusable])), (model_name, w, name)
+        h = np.where(unusable, np.nan, r.melt_thickness_km)
+        ok = np.isfinite(h)
+        assert np.all(np.diff(h[ok]) >= -1e-4), (model_name, w, np.diff(h[ok]).min())
+        # onsets that are solidus crossings between 7 and 13.5 GPa (not the floor, flag 16)
+        p = r.onset_pressure_gpa
+        cross = ~unusable & (p > 7.0) & (p <= 13.5) & ~(r.flag & FLAG_UPPER_MANTLE_FLOOR > 0)
+        if not cross.any():
+            continue
+        t_on = model.solid_adiabat_c(tp[cross], p[cross])
+        dev = np.abs(t_on - reference_onset_c(model, p[cross], w))
+        figures["max_band_dev_k"] = max(figures["max_band_dev_k"], float(dev.max()))
+        sel = p[cross] >= 9.0
+        if sel.sum() > 2:
+            pp, tt = p[cross][sel], t_on[sel]
+            order = np.argsort(pp)
+            dp, dt = np.diff(pp[order]), np.diff(tt[order])
+            slope = dt[dp > 0.02] / dp[dp > 0.02]  # finite differences over the scan
+            figures["max_slope_k_gpa"] = max(figures["max_slope_k_gpa"], float(slope.max()))
+    return figures
+
+
+@pytest.mark.parametrize("model_name", MODELS)
+def test_scan_to_1900_c_onsets_on_the_published_solidus(model_name):
+    fig = check_scan(model_name, tp_step=1.0 if model_name == "katz2003" else 2.0)
+    assert fig["max_band_dev_k"] <= BAND_K, fig
+    assert fig["max_slope_k_gpa"] < 45.0, fig  # the 7 GPa tangent was 61.5 K/GPa
+    assert fig["flag_counts"][FLAG_UPPER_MANTLE_FLOOR] > 0  # hot columns reach the floor
+    assert fig["flag_counts"][FLAG_NO_ONSET] == 0  # never a hole: the floor bounds the onset
+
+
+def test_the_join_is_continuous_and_follows_the_published_shapes():
+    # Katz et al. (2003) Table 2 at 7 GPa and the Herzberg et al. (2000) fit: offset -38.9 K
+    m = get_model("katz2003")
+    npt.assert_allclose(float(m.solidus_c(7.0)), 1766.1, atol=1e-9)
+    npt.assert_allclose(herzberg_2000_c(7.0), 1805.0, atol=0.05)
+    p = np.array([7.5, 10.0, 13.0, 20.0])
+    npt.assert_allclose(m.solidus_c(p), 1766.1 + herzberg_2000_c(p) - herzberg_2000_c(7.0))
+    for name in MODELS:
         m = get_model(name)
         pc = m.calibrated_max_pressure_gpa
-        p = np.linspace(0.0, 30.0, 3001)
-        sol, liq = m.solidus_c(p), m.liquidus_c(p)
+        for f in (0.0, 0.2, 0.5, 1.0):  # every boundary continuous at P_c
+            npt.assert_allclose(
+                m.temperature_c(pc + 1e-9, f), m.temperature_c(pc - 1e-9, f), atol=1e-5
+            )
+        grid = np.linspace(0.01, 22.5, 4000)
+        sol, liq = m.solidus_c(grid), m.liquidus_c(grid)
         assert np.all(np.diff(sol) > 0), name
         assert np.all(np.diff(liq) > 0), name
-        width = liq - sol
-        npt.assert_allclose(width[p >= pc], width[p == pc][0], atol=1e-6, err_msg=name)
-        eps = 1e-7
-        npt.assert_allclose(m.solidus_c(pc + eps), m.solidus_c(pc - eps), atol=1e-4)
-        slope_in = (m.solidus_c(pc) - m.solidus_c(pc - 1e-4)) / 1e-4
-        npt.assert_allclose(slope_in, m.solidus_slope_c_gpa(), rtol=1e-3, err_msg=name)
-    npt.assert_allclose(get_model("katz2003").solidus_slope_c_gpa(), 61.5)
+        assert np.all(liq - sol > 100.0), name  # the melting interval stays open (physical)
+        # the slope flattens as the published solidus does: 390/P - 5.7 (derivative of the fit)
+        for pp in (10.0, 15.0):
+            slope = (m.solidus_c(pp + 1e-4) - m.solidus_c(pp - 1e-4)) / 2e-4
+            npt.assert_allclose(slope, 390.0 / pp - 5.7, rtol=1e-4)
 
 
 def test_below_the_calibrated_pressure_nothing_changes():
@@ -68,19 +142,68 @@ def test_below_the_calibrated_pressure_nothing_changes():
     npt.assert_array_equal(m.solidus_c(p), 1085.7 + 132.9 * p + -5.1 * p * p)
 
 
+def test_lid_deeper_than_calibration_flags_the_excess_to_melt():
+    # lidmelt definition (docs/physics.md, flag 4): an output resting on the continued
+    # boundaries is flagged; a 250 km lid puts the top of melting (7.9 GPa, PREM below 7.25 GPa)
+    # beyond 7 GPa, where the excess to melt reads the continued solidus
+    from lidmelt.physics import evaluate_cells
+
+    for compiled in (True, False):
+        out = evaluate_cells(
+            np.array([1350.0, 1350.0]), np.array([250.0, 100.0]), 0.0,
+            ambient_potential_temperature_c=1350.0, compiled=compiled,
+        )  # fmt: skip
+        assert out["flag"][0] & FLAG_BEYOND_CALIBRATION
+        assert out["flag"][1] == 0
+        assert np.isfinite(out["excess_to_melt_k"][0])
+
+
+def test_uniform_water_outside_the_table_runs_on_the_compiled_path():
+    # a cell beyond the table's Tp nodes (1900 C) with one uniform water content used to raise
+    # AttributeError on the numpy fallback; both cells now give the direct integration's values
+    from lidmelt import melt_column as api_melt_column
+
+    res = api_melt_column(np.array([1950.0, 1350.0]), 80.0, 0.0)
+    direct = melt_column(np.array([1950.0, 1350.0]), 80.0, 0.0, method="direct")
+    npt.assert_allclose(res.melt_thickness_km, direct.melt_thickness_km, rtol=5e-3, atol=0.02)
+    npt.assert_array_equal(res.flag, direct.flag)
+
+
 @pytest.mark.slow
 def test_table_equals_direct_in_the_continued_range():
     # the table's tolerance (tests/test_table.py: 0.5 % or 0.02 km on H, 0.2 km on onset depth)
-    # where the onsets lie on the continuation (Tp 1650 to 1900 C)
+    # where the onsets lie on the continuation or at the floor (Tp 1600 to 1900 C)
     rng = np.random.default_rng(11)
     n = 60
-    tp = rng.uniform(1650.0, 1900.0, n)
+    tp = rng.uniform(1600.0, 1900.0, n)
     lid = rng.uniform(0.0, 250.0, n)
     for water in (0.0, 0.05, rng.uniform(0.0, 0.1, n)):
-        table = melt_column(tp, lid, water, method="table", table=get_table())
+        table = melt_column(tp, lid, water, method="table")
         direct = melt_column(tp, lid, water, method="direct")
         npt.assert_array_equal(table.flag, direct.flag)
         h_d, h_t = direct.melt_thickness_km, table.melt_thickness_km
         assert np.all(np.isfinite(h_d))
         assert np.all(np.abs(h_t - h_d) <= np.maximum(0.005 * np.abs(h_d), 0.02))
         npt.assert_allclose(table.onset_depth_km, direct.onset_depth_km, atol=0.2)
+        npt.assert_allclose(table.deep_melt_share, direct.deep_melt_share, atol=5e-3)
+
+
+def test_deep_melt_share_is_the_melt_made_beyond_calibration():
+    # the definition (docs/physics.md, "How much is extrapolation"), checked with separate
+    # columns of the public API: H_deep = H(top at P_c) + F(P_c) (z_c - z_top), share = H_deep/H;
+    # 0 where the onset is shallower than P_c, 1 where the top is deeper than P_c
+    m = get_model("katz2003")
+    z_c = float(m.depth_km(m.calibrated_max_pressure_gpa))  # 216.2 km, above the PREM join
+    at_c = melt_column(1700.0, z_c, 0.0, method="direct", min_top_km=0.0)
+    full = melt_column(1700.0, 0.0, 0.0, method="direct")  # top at 7 km
+    h_deep = at_c.melt_thickness_km + at_c.max_melt_fraction * (z_c - 7.0)
+    npt.assert_allclose(full.deep_melt_share, h_deep / full.melt_thickness_km, rtol=1e-6)
+    for compiled in (True, False):
+        res = melt_column(
+            np.array([1700.0, 1450.0, 1700.0, 1350.0]), np.array([0.0, 0.0, 230.0, 150.0]),
+            0.0, compiled=compiled,
+        )  # fmt: skip
+        npt.assert_allclose(res.deep_melt_share[0], h_deep / full.melt_thickness_km, atol=5e-3)
+        assert res.deep_melt_share[1] == 0.0  # onset 4.1 GPa: nothing made beyond 7 GPa
+        assert res.deep_melt_share[2] == 1.0  # top 7.5 GPa: everything
+        assert np.isnan(res.deep_melt_share[3])  # no melt

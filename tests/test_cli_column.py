@@ -9,6 +9,8 @@ import pytest
 
 from lidmelt.cli import main
 from lidmelt.physics import excess_to_melt_k, get_cooling_model, isotherm_depth_km, melt_column
+from lidmelt.physics.cooling import seafloor_depth_m
+from lidmelt.physics.pressure import water_load_km
 
 KEYS = {
     "melt_thickness_km",
@@ -29,11 +31,19 @@ def run_json(capsys, *args):
 def test_json_has_every_key_and_matches_the_api(capsys):
     doc = run_json(capsys, "--excess-temperature", "200", "--age", "80")
     assert set(doc) >= KEYS
-    lid = float(isotherm_depth_km(1100.0, 80.0, model=get_cooling_model("half-space")))
-    res = melt_column(1550.0, lid, 0.0, method="direct")
+    half_space = get_cooling_model("half-space")
+    lid = float(isotherm_depth_km(1100.0, 80.0, model=half_space))
+    # with --age the water above the seafloor loads the column: the cooling model's seafloor
+    # depth at that age (docs/physics.md, section "Depth and pressure")
+    depth_m = float(seafloor_depth_m(80.0, model=half_space))
+    load = float(water_load_km(depth_m))
+    assert doc["water_depth_m"] == pytest.approx(depth_m)
+    res = melt_column(1550.0, lid, 0.0, method="direct", water_load_km=load)
     assert doc["melt_thickness_km"] == pytest.approx(float(res.melt_thickness_km))
     assert doc["lid_depth_km"] == pytest.approx(lid)
-    assert doc["excess_to_melt_k"] == pytest.approx(float(excess_to_melt_k(lid)))
+    assert doc["excess_to_melt_k"] == pytest.approx(
+        float(excess_to_melt_k(lid, water_load_km=load))
+    )
     # physically sensible (common practice): a 200 K plume under 80 Ma seafloor melts from below
     # the lid; the onset is deeper than the lid and the excess needed is below the 200 K given
     assert doc["melt_thickness_km"] > 0

@@ -101,11 +101,11 @@ def test_tp_below_the_solidus_everywhere_is_an_error(tmp_path, capsys):
 @pytest.mark.parametrize(
     ("param", "value", "match"),
     [
-        ("max_onset_pressure_gpa", 100.0, "outside the range this model can use, 1 to 40"),
+        ("max_onset_pressure_gpa", 100.0, "outside the range this model can use, 1 to 22.5"),
         ("max_onset_pressure_gpa", 1e308, "outside the range"),
         ("cpx_mass_fraction", True, "is a boolean"),
         ("gravity_m_s2", 1e6, "outside the range"),
-        ("calibrated_max_pressure_gpa", 35.0, "exceeds max_onset_pressure_gpa"),
+        ("calibrated_max_pressure_gpa", 20.0, "exceeds max_onset_pressure_gpa"),
     ],
 )
 def test_model_parameters_have_ranges(param, value, match):

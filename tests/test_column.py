@@ -14,6 +14,7 @@ from lidmelt.physics import (
     FLAG_BEYOND_CALIBRATION,
     FLAG_INVALID_INPUT,
     FLAG_NO_ONSET,
+    FLAG_UPPER_MANTLE_FLOOR,
     FLAG_WATER_SATURATED,
     column_profile,
     excess_to_melt_k,
@@ -204,20 +205,20 @@ def test_invalid_inputs_are_nan_and_flagged():
 
 
 def test_beyond_calibration_is_flagged_not_clipped():
-    # lidmelt definition, docs/physics.md section "Beyond the calibrated pressure": onsets deeper
-    # than the calibrated 7 GPa lie on the continued solidus and are computed and flagged. Tp
-    # 1700 C dry met no solidus before the continuation (the quadratic turns over at 13.03 GPa);
-    # on the continuation its onset is at 10.1 GPa [derived]. Past the search range (30 GPa;
-    # Tp 2000 C with 0.1 wt% water would cross near 32 GPa [derived]) there is still no onset.
-    res = direct(np.array([1640.0, 1700.0, 2000.0]), 30.0, np.array([0.0, 0.0, 0.1]))
+    # lidmelt definitions, docs/physics.md sections "Beyond the calibrated pressure" and "The
+    # upper mantle's floor": an onset deeper than 7 GPa lies on the continued solidus (the
+    # Herzberg, Raterron & Zhang 2000 fit 1086 - 5.7 P + 390 ln P, shifted to Katz's 1766.1 C at
+    # 7 GPa) and is flagged; an isentrope above the solidus at PREM's 400 km (13.35 GPa,
+    # Dziewonski & Anderson 1981) melts from there, flagged 16
+    res = direct(np.array([1630.0, 1700.0]), 30.0, 0.0)
     assert res.flag[0] == FLAG_BEYOND_CALIBRATION
-    assert float(res.onset_pressure_gpa[0]) > 7.0
-    assert np.isfinite(res.melt_thickness_km[0])
-    assert res.flag[1] == FLAG_BEYOND_CALIBRATION
-    assert float(res.onset_pressure_gpa[1]) == pytest.approx(10.106, abs=0.01)
+    p0 = float(res.onset_pressure_gpa[0])
+    assert 7.0 < p0 < 13.35
+    fit = 1086.0 - 5.7 * p0 + 390.0 * np.log(p0) - (1086.0 - 5.7 * 7 + 390.0 * np.log(7.0))
+    npt.assert_allclose(K.solid_adiabat_c(1630.0, p0), 1766.1 + fit, atol=1e-6)
+    assert res.flag[1] == FLAG_BEYOND_CALIBRATION | FLAG_UPPER_MANTLE_FLOOR
+    assert float(res.onset_pressure_gpa[1]) == 13.35
     assert res.melt_thickness_km[1] > res.melt_thickness_km[0] > 0
-    assert res.flag[2] & FLAG_NO_ONSET
-    assert np.isnan(res.melt_thickness_km[2])
 
 
 def test_excess_to_melt_is_the_threshold():

@@ -21,6 +21,8 @@ from lidmelt.errors import InputError, LidmeltError
 from lidmelt.grids.manifest import MANIFEST_KEY, SUMMARY_HASH_KEY, summary_sha256
 from lidmelt.grids.rundir import RUN_FORMAT_VERSION, SUMMARY_NAME, open_run, write_summary
 from lidmelt.physics import excess_to_melt_k, get_cooling_model, isotherm_depth_km, melt_column
+from lidmelt.physics.cooling import seafloor_depth_m
+from lidmelt.physics.pressure import water_load_km
 from lidmelt.variables import DEFAULT_OUTPUTS, FLAG_VARIABLE, INPUTS, OUTPUTS
 from lidmelt.workflow import load_workflow
 
@@ -144,15 +146,21 @@ def test_demo_cells_equal_melt_column(demo_run):
     pick_m = rng.choice(melt_y.size, 25, replace=False)
     ys = np.concatenate([iy[pick], melt_y[pick_m]])
     xs = np.concatenate([ix[pick], melt_x[pick_m]])
-    lid = isotherm_depth_km(1100.0, age[ys, xs], model=get_cooling_model("half-space"))
-    ref = melt_column(1350.0 + anomaly[ys, xs], lid, 0.0, method="direct")
+    half_space = get_cooling_model("half-space")
+    lid = isotherm_depth_km(1100.0, age[ys, xs], model=half_space)
+    # the water load: the half-space seafloor depth at the age (docs/physics.md, "Depth and
+    # pressure"; the demo has a plate age and no bathymetry)
+    load = water_load_km(seafloor_depth_m(age[ys, xs], model=half_space))
+    ref = melt_column(1350.0 + anomaly[ys, xs], lid, 0.0, method="direct", water_load_km=load)
     h = out["melt_thickness_km"][ys, xs]
     tol = np.maximum(0.005 * ref.melt_thickness_km, 0.02)  # the table tolerance
     assert np.all(np.abs(h - ref.melt_thickness_km) <= tol + 1e-5)
     npt.assert_allclose(out["onset_depth_km"][ys, xs], ref.onset_depth_km, atol=0.2)
     npt.assert_allclose(out["lid_depth_km"][ys, xs], ref.lid_depth_km, rtol=1e-5)
     npt.assert_allclose(out["max_melt_fraction"][ys, xs], ref.max_melt_fraction, atol=2e-3)
-    npt.assert_allclose(out["excess_to_melt_k"][ys, xs], excess_to_melt_k(lid), atol=1e-3)
+    excess = excess_to_melt_k(lid, water_load_km=load)
+    npt.assert_allclose(out["excess_to_melt_k"][ys, xs], excess, atol=1e-3)
+    assert "age-depth relation" in run.summary["water_load"]
 
 
 def test_demo_summary(demo_run):

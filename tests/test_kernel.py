@@ -67,16 +67,42 @@ def test_every_output_of_the_kernel_equals_the_numpy_path(water):
 
 
 @compiled_only
+def tangency_band_c(water, model="katz2003"):
+    """(lo, hi): the Tp whose onsets lie beyond the calibrated pressure below the floor, from
+    Tp*(P) = (T_sol(P) + 273.15) exp(-alpha_s P / (rho_s c_p)) - 273.15 (the onset condition,
+    docs/physics.md) between P_c and the floor, widened by three table nodes (6 K: a rough
+    interval's neighbours to two nodes are rough too, MeltTable._rough_intervals)."""
+    from lidmelt.physics import get_model
+
+    m = get_model(model)
+    p = np.linspace(m.calibrated_max_pressure_gpa, m.max_onset_pressure_gpa, 2001)
+    curve = (m.solidus_c(p, water) + 273.15) * np.exp(-m.adiabat_coefficient_per_gpa * p)
+    return curve[0] - 273.15 - 6.0, curve.max() - 273.15 + 6.0
+
+
 def test_no_valid_in_range_cell_leaves_the_kernel():
     # the whole table range the runs use: Tp 1200-1700 C, lid 0-250 km, water 0-0.1 wt%, dry
-    # and at one water content; today's numpy path integrates cells near the tangency directly
+    # and at one water content. Only columns whose onset lies beyond the calibrated pressure
+    # leave (lidmelt choice, physics/kernel_arrays.py::_rough): at a water content on a table
+    # node those near the tangency of isentrope and continued solidus, between water nodes all
+    # of them; away from them none does.
     rng = np.random.default_rng(11)
     n = 200_000
     tp, lid = rng.uniform(1200.0, 1700.0, n), rng.uniform(0.0, 250.0, n)
+    lo = tangency_band_c(0.1)[0]  # below it every onset is calibrated, at any water
     for w in (0.0, 0.01, 0.1, rng.uniform(0.0, 0.1, n)):
+        on_node = np.ndim(w) == 0 and w in (0.0, 0.1)  # the table's first and last water nodes
+        band = tangency_band_c(w) if on_node else (lo, np.inf)
+        outside = (tp < band[0]) | (tp > band[1])
         clock = {}
         evaluate_cells(tp, lid, w, ambient_potential_temperature_c=1350.0, clock=clock)
         assert clock["cells"] == n
+        assert 0 < clock["numpy_cells"] <= np.count_nonzero(~outside)
+        clock = {}
+        w_out = w if np.ndim(w) == 0 else w[outside]
+        evaluate_cells(
+            tp[outside], lid[outside], w_out, ambient_potential_temperature_c=1350.0, clock=clock
+        )
         assert clock["numpy_cells"] == 0
 
 

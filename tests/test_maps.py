@@ -541,3 +541,14 @@ def test_values_at_or_below_the_lower_limit_get_the_first_scale_colour():
     np.testing.assert_allclose(colours[1], first)
     np.testing.assert_allclose(colours[2], last)
     np.testing.assert_allclose(colours[3][:3], mpl.colors.to_rgb(maps.NODATA_COLOR))
+
+
+def test_deep_melt_share_has_a_fixed_scale_from_0_to_1():
+    # lidmelt choice (products/maps/style.py, key "share"): a share of the melt is drawn on
+    # fixed limits 0 and 1 (its definition's range, docs/physics.md "How much is extrapolation"),
+    # so that maps of runs compare and an all-zero map is not stretched to +-1e-7
+    from lidmelt.products.maps.style import style_for
+
+    style = style_for("deep_melt_share")
+    assert style.limits == (0.0, 1.0)
+    assert style.nan_is_no_melt  # NaN without melt (the registry's undefined_without_melt)

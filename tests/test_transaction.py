@@ -45,6 +45,7 @@ RUN_FILES = {  # what a run of runkit.basin() writes (registry names; identity)
     "melting_regime.tif",
     "onset_depth_km.tif",
     "onset_pressure_gpa.tif",
+    "deep_melt_share.tif",
     "summary.json",
     "validity_flag.tif",
 }

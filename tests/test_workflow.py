@@ -246,7 +246,8 @@ def test_defaults_are_applied(basin, tmp_path, monkeypatch):
         "excess_to_melt_k",
         "anomaly_melt_thickness_km",
         "melting_regime",
-    )  # the nine default variables of docs/workflow.md, in that order (crustal thickness only
+        "deep_melt_share",
+    )  # the ten default variables of docs/workflow.md, in that order (crustal thickness only
     # when listed, melt production only with an upwelling input: lidmelt.variables)
     assert cfg.overrides == ()
 

@@ -37,6 +37,8 @@ from lidmelt.physics import (
     evaluate_cells,
     lid_lookup,
 )
+from lidmelt.physics.cooling import seafloor_depth_m
+from lidmelt.physics.pressure import water_load_km
 from lidmelt.progress import band_reporter
 from lidmelt.run_inputs import (
     LID_INPUTS,
@@ -76,7 +78,8 @@ __all__ = [
 
 #: The kernel's inputs, in the order of its positional arguments.
 _KERNEL_INPUTS = (
-    "plate_age_ma", "lid_thickness_km", "thermal_anomaly_k", "water_wt_pct", "upwelling_mm_yr"
+    "plate_age_ma", "lid_thickness_km", "thermal_anomaly_k", "water_wt_pct", "upwelling_mm_yr",
+    "water_depth_m",
 )  # fmt: skip
 #: Outputs whose area integral goes into the summary (km: volume km3; mm/yr: km3/yr).
 _INTEGRALS = ("anomaly_melt_thickness_km", "melt_production_mm_yr")
@@ -123,6 +126,7 @@ class KernelSettings:
     sources: dict[str, str]
     crust_density_kg_m3: float = 2900.0
     upwelling: bool = False
+    water_load: str = "none"  # "bathymetry", "age" or "none" (RunInputs.water_load)
 
 
 @dataclass
@@ -147,6 +151,7 @@ def evaluate_chunk(
     anomaly,
     water,
     upwelling=0.0,
+    water_depth=np.nan,
     *,
     settings: KernelSettings,
     clock=None,
@@ -158,13 +163,15 @@ def evaluate_chunk(
     model at the plate age (:func:`lidmelt.physics.lid_lookup`, within 0.01 km of the exact
     depth); cells without a lid, anomaly or water are NaN (flag
     :data:`lidmelt.variables.FLAG_NODATA`), and so are outputs the inputs do not give (melt
-    production without upwelling). ``clock``, a dict, accumulates the thread seconds spent on
-    the lid and on melting. ``check_inputs=False`` skips the range check of input blocks that
-    were already checked (an ensemble's members sharing one input group).
+    production without upwelling). The water above the seafloor loads the column
+    (``settings.water_load``: the ``water_depth`` block [m] of a bathymetry, or the cooling
+    model's seafloor depth at the plate age; none otherwise). ``clock``, a dict, accumulates the
+    thread seconds spent on the lid and on melting. ``check_inputs=False`` skips the range
+    check of input blocks that were already checked (an ensemble's members sharing one input group).
     """
     s = settings
     t0 = time.perf_counter()
-    blocks = (age, lid_grid, anomaly, water, upwelling)
+    blocks = (age, lid_grid, anomaly, water, upwelling, water_depth)
     shape = np.broadcast_shapes(*(np.shape(a) for a in blocks))
     for name, block in zip(_KERNEL_INPUTS, blocks, strict=True):
         if check_inputs and name in s.sources and np.ndim(block):
@@ -175,6 +182,7 @@ def evaluate_chunk(
         from_age = lookup.depth_km(np.broadcast_to(age, shape))
         given = np.ndim(lid_grid) or np.isfinite(lid_grid)
         lid = np.where(np.isfinite(lid), lid, from_age) if given else from_age
+    load = _water_load(s, age, water_depth, shape)
     t1 = time.perf_counter()
     tp = s.ambient_c + np.broadcast_to(np.asarray(anomaly, float), shape)
     water_arg = water if np.ndim(water) == 0 else np.broadcast_to(water, shape)
@@ -193,12 +201,24 @@ def evaluate_chunk(
         crust_density_kg_m3=s.crust_density_kg_m3,
         out=rows[:-1],
         nodata=FLAG_NODATA,
+        water_load_km=load,
     )
     rows[-1] = res["flag"].ravel()
     if clock is not None:  # dict updates of floats are atomic enough for a timing summary
         clock["lid_thread_s"] = clock.get("lid_thread_s", 0.0) + t1 - t0
         clock["melting_thread_s"] = clock.get("melting_thread_s", 0.0) + time.perf_counter() - t1
     return out
+
+
+def _water_load(s: KernelSettings, age, water_depth, shape):
+    """The water load's rock-equivalent depth [km] of a chunk (0.0 without one)."""
+    if s.water_load == "bathymetry":
+        depth_m = np.broadcast_to(np.asarray(water_depth, float), shape)
+    elif s.water_load == "age" and s.cooling is not None:
+        depth_m = seafloor_depth_m(np.broadcast_to(age, shape), model=s.cooling)
+    else:
+        return 0.0
+    return water_load_km(depth_m, s.model.lithostatic_density_kg_m3)
 
 
 @dataclass(frozen=True, eq=False)
@@ -239,7 +259,7 @@ def kernel_settings(cfg, *, inputs: RunInputs, model, table, cooling) -> KernelS
         ambient_c=cfg.model.ambient_potential_temperature_c,
         min_top_km=cfg.model.min_top_of_melting_km, method=cfg.compute.method,
         sources=inputs.sources(), crust_density_kg_m3=cfg.model.crust_density_kg_m3,
-        upwelling="upwelling_mm_yr" in inputs.values,
+        upwelling="upwelling_mm_yr" in inputs.values, water_load=inputs.water_load[0],
     )  # fmt: skip
 
 
@@ -249,6 +269,8 @@ def kernel_arguments(inputs: RunInputs, *, template: xr.DataArray) -> list:
 
     chunks = template.data.chunks
     values = [inputs.values.get(n, np.nan if n in LID_INPUTS else 0.0) for n in _KERNEL_INPUTS]
+    if inputs.water_load[1] is not None:
+        values[-1] = inputs.water_load[1]
     args = [_as_dask(v, chunks) for v in values]
     return [a.rechunk(chunks) if isinstance(a, dsa.Array) else a for a in args]
 
@@ -552,7 +574,7 @@ def _run_staged(
         outputs=list(lazy.outputs),
         statistics=statistics,
         warnings=run_warnings,
-        extra=_run_stages(extra_stages, context, files),
+        extra={"water_load": inputs.water_load[2], **_run_stages(extra_stages, context, files)},
     )
     files.append(run_dir / rundir.SUMMARY_NAME)
     timings["total_s"] = time.perf_counter() - t0

@@ -29,7 +29,7 @@ from lidmelt.grids.align import align
 from lidmelt.grids.anomaly import Plume, plume_anomaly, plume_cells
 from lidmelt.grids.grid import Grid, registration
 from lidmelt.grids.io import open_input, sha256_file
-from lidmelt.grids.lidref import apply_lid_reference
+from lidmelt.grids.lidref import apply_lid_reference, water_load_source
 from lidmelt.physics import get_cooling_model, get_model, get_table
 from lidmelt.variables import INPUTS, input_for_workflow_key
 
@@ -56,6 +56,9 @@ class RunInputs:
 
     values: dict[str, xr.DataArray | float]
     provenance: dict[str, dict[str, Any]]
+    #: the water load above the seafloor: its source ("bathymetry", "age" or "none"), the water
+    #: depth grid [m] of a bathymetry, and a description for the run summary
+    water_load: tuple[str, xr.DataArray | None, str] = ("none", None, "no water load")
 
     @property
     def gridded(self) -> list[str]:
@@ -162,7 +165,8 @@ def load_inputs(cfg, *, target: Grid, chunks: int, cache: dict | None = None) ->
         msg = "the workflow gives neither inputs.plate_age nor inputs.lid_thickness; give one."
         raise InputError(msg)
     apply_lid_reference(cfg, values, provenance, target=target, chunks=chunks)
-    return RunInputs(values, provenance)
+    load = water_load_source(cfg, values, target=target, chunks=chunks)
+    return RunInputs(values, provenance, load)
 
 
 def _load_input(inp, name: str, target: Grid, chunks: int) -> tuple[xr.DataArray | float, dict]:

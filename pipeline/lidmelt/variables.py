@@ -184,6 +184,16 @@ _OUTPUT_LIST = (
         default=False,
     ),
     Variable(
+        name="deep_melt_share",
+        units="1",
+        long_name=(
+            "share of the melt thickness made beyond the melting model's calibrated pressure "
+            "(extrapolated phase relations)"
+        ),
+        style="share",
+        undefined_without_melt=True,
+    ),
+    Variable(
         name="melt_production_mm_yr",
         units="mm/yr",
         long_name="melt production rate (rock-equivalent melt volume per area and time)",

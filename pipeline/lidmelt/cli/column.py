@@ -20,6 +20,7 @@ from lidmelt.physics import (
     FLAG_BEYOND_CALIBRATION,
     FLAG_INVALID_INPUT,
     FLAG_NO_ONSET,
+    FLAG_UPPER_MANTLE_FLOOR,
     FLAG_WATER_SATURATED,
     column_profile,
     evaluate_cells,
@@ -27,6 +28,8 @@ from lidmelt.physics import (
     get_model,
     isotherm_depth_km,
 )
+from lidmelt.physics.cooling import seafloor_depth_m
+from lidmelt.physics.pressure import water_load_km
 from lidmelt.variables import INPUTS
 
 __all__ = ["register"]
@@ -119,6 +122,14 @@ def _add_lid_options(p: argparse.ArgumentParser) -> None:
         help=f"isotherm that defines the lid base [deg C] (default {DEFAULT_LID_ISOTHERM_C:g})",
     )
     p.add_argument(
+        "--water-depth",
+        type=float,
+        default=None,
+        metavar="M",
+        help="water depth above the seafloor [m], whose weight loads the column (default: with "
+        "--age the cooling model's seafloor depth at that age; with --lid-depth none)",
+    )
+    p.add_argument(
         "--min-top",
         type=float,
         default=7.0,
@@ -181,6 +192,7 @@ def _check_numbers(args: argparse.Namespace) -> None:
         (args.min_top, "--min-top", "km"),
         (args.lid_isotherm, "--lid-isotherm", "deg C"),
         (args.crust_density, "--crust-density", "kg/m3"),
+        (args.water_depth, "--water-depth", "m"),
     ):
         if value is not None and not math.isfinite(value):
             msg = f"{option} {value!r} is not a finite number; give a value in {unit}."
@@ -194,6 +206,7 @@ def _check_numbers(args: argparse.Namespace) -> None:
         "--water": (args.water, "{:g} is negative; give the bulk water content in wt% (>= 0)."),
         "--min-top": (args.min_top, "{:g} km is negative; give a depth >= 0."),
         "--crust-density": (args.crust_density, "{:g} is not > 0; give kg/m3 (crust ~2900)."),
+        "--water-depth": (args.water_depth, "{:g} m is negative; give the depth below sea level."),
     }
     for option, (value, text) in negative.items():
         if value is not None and (value < 0 or (option == "--crust-density" and value == 0)):
@@ -216,6 +229,7 @@ _SANE = {
     "--ambient": ("ambient", 0.0, 3000.0, "deg C"),
     "--lid-isotherm": ("lid_isotherm", 0.0, 3000.0, "deg C"),
     "--crust-density": ("crust_density", 1000.0, 10000.0, "kg/m3"),
+    "--water-depth": ("water_depth", 0.0, 11000.0, "m"),
 }
 #: Options checked against the registry's valid range of an input variable.
 _REGISTRY = {
@@ -289,6 +303,16 @@ def _lid_km(args: argparse.Namespace) -> float:
     return float(isotherm_depth_km(args.lid_isotherm, args.age, model=cooling))
 
 
+def _water_depth_m(args: argparse.Namespace) -> float:
+    """The water depth [m]: given, else the cooling model's seafloor depth at ``--age``
+    (:func:`lidmelt.physics.cooling.seafloor_depth_m`), else 0 (no water load)."""
+    if args.water_depth is not None:
+        return float(args.water_depth)
+    if args.age is None:
+        return 0.0
+    return float(seafloor_depth_m(args.age, model=get_cooling_model(args.cooling)))
+
+
 def _check_flag(flag: int, model: Any, tp: float, args: argparse.Namespace, res: Any) -> None:
     """Turn the flags of an unusable column into an error that says what to change."""
     if flag & FLAG_INVALID_INPUT:
@@ -334,6 +358,8 @@ def run(args: argparse.Namespace) -> int:
         ambient = DEFAULT_AMBIENT_TP_C if args.ambient is None else args.ambient
         tp = ambient + args.excess_temperature
     lid = _lid_km(args)
+    water_depth = _water_depth_m(args)
+    load = float(water_load_km(water_depth, model.lithostatic_density_kg_m3))
     for note in _unit_hints(args, tp):  # before any error, which they may explain
         print(f"note: {note}.", file=sys.stderr)
     out = evaluate_cells(
@@ -345,6 +371,7 @@ def run(args: argparse.Namespace) -> int:
         method=args.method,
         min_top_km=args.min_top,
         crust_density_kg_m3=args.crust_density,
+        water_load_km=load,
     )
     flag = int(out.pop("flag"))
     _check_flag(flag, model, tp, args, out)
@@ -353,14 +380,24 @@ def run(args: argparse.Namespace) -> int:
         for name in ("excess_to_melt_k", "anomaly_melt_thickness_km", "melting_regime"):
             values.pop(name)
     values["ambient_potential_temperature_c"] = math.nan if ambient is None else ambient
+    values["water_depth_m"] = water_depth
     if args.profile:
-        prof = column_profile(tp, lid, args.water, model=model, min_top_km=args.min_top)
+        prof = column_profile(
+            tp, lid, args.water, model=model, min_top_km=args.min_top, water_load_km=load
+        )
         _write_profile_csv(args.profile, prof)
     if flag & FLAG_BEYOND_CALIBRATION:
         print(
-            f"note: the onset ({values['onset_pressure_gpa']:.2f} GPa) is deeper than the "
-            f"{model.name} calibration ({model.calibrated_max_pressure_gpa:g} GPa): it lies on "
-            "the continued phase boundaries; treat the result as an extrapolation.",
+            f"note: the onset ({values['onset_pressure_gpa']:.2f} GPa) or the top of melting is "
+            f"deeper than the {model.name} calibration ({model.calibrated_max_pressure_gpa:g} "
+            "GPa): the result rests on the continued phase boundaries; treat it as an "
+            "extrapolation"
+            + (
+                " (the isentrope is above the solidus at the upper mantle's floor, PREM's 400 km:"
+                " melting is counted from there)."
+                if flag & FLAG_UPPER_MANTLE_FLOOR
+                else "."
+            ),
             file=sys.stderr,
         )
     if args.json:
@@ -406,6 +443,8 @@ def _print_table(args, model, tp: float, lid: float, values: dict) -> None:
         ("melt thickness", values["melt_thickness_km"], "km"),
         ("max melt fraction", values["max_melt_fraction"], ""),
         ("mean melt pressure", values["mean_melt_pressure_gpa"], "GPa"),
+        ("melt made beyond the calibrated pressure", values["deep_melt_share"], "(share)"),
+        ("water depth (its weight loads the column)", values["water_depth_m"], "m"),
         (
             "crustal thickness",
             values["crustal_thickness_km"],

@@ -28,6 +28,7 @@ __all__ = [
     "apply_lid_reference",
     "check_bathymetry",
     "lid_below_seafloor_km",
+    "water_load_source",
 ]
 
 #: Values of ``[inputs.lid_thickness] reference``.
@@ -80,12 +81,7 @@ def apply_lid_reference(
         return
     bathymetry = getattr(spec, "bathymetry", None)
     if bathymetry is not None:
-        bath = SimpleNamespace(name="lid_thickness.bathymetry", path=bathymetry, variable=None)
-        elevation = open_input(bath, name="bathymetry_m", units_expected="m", chunks=chunks)
-        elevation = align(elevation, target, name="bathymetry_m")
-        where = f"bathymetry grid {str(bathymetry)!r} (inputs.lid_thickness.bathymetry)"
-        check_bathymetry(elevation, source=where)
-        depth_km = (-elevation).clip(min=0.0) / 1000.0
+        depth_km = _bathymetry_depth_m(bathymetry, target, chunks) / 1000.0
         how = f"water depth from the bathymetry grid {str(bathymetry)!r}"
     elif "plate_age_ma" in values:
         model = get_cooling_model(cfg.lithosphere.cooling, **dict(cfg.lithosphere.parameters))
@@ -166,3 +162,33 @@ def check_bathymetry(elevation: Any, *, source: str) -> None:
         return
     msg = f"{found}: {problem}, then run again."
     raise InputError(msg)
+
+
+def _bathymetry_depth_m(bathymetry, target: Grid, chunks: int) -> xr.DataArray:
+    """The water depth [m] of an elevation grid (negative below sea level) on ``target``."""
+    bath = SimpleNamespace(name="lid_thickness.bathymetry", path=bathymetry, variable=None)
+    elevation = open_input(bath, name="bathymetry_m", units_expected="m", chunks=chunks)
+    elevation = align(elevation, target, name="bathymetry_m")
+    where = f"bathymetry grid {str(bathymetry)!r} (inputs.lid_thickness.bathymetry)"
+    check_bathymetry(elevation, source=where)
+    return (-elevation).clip(min=0.0)
+
+
+def water_load_source(cfg: Any, values: dict, *, target: Grid, chunks: int):
+    """Where a run's water load comes from (docs/physics.md, section "Depth and pressure").
+
+    Returns (kind, water depth grid [m] or None, description): ``"bathymetry"`` with the grid of
+    ``[inputs.lid_thickness] bathymetry`` where the workflow gives one; else ``"age"`` where a
+    plate age is given (the cooling model's age-depth relation,
+    :func:`lidmelt.physics.cooling.seafloor_depth_m`, evaluated by the kernel); else ``"none"``:
+    with only a lid grid the water depth is unknown and no water load is applied.
+    """
+    spec = cfg.inputs.lid_thickness
+    bathymetry = getattr(spec, "bathymetry", None) if spec is not None else None
+    if bathymetry is not None:
+        depth = _bathymetry_depth_m(bathymetry, target, chunks)
+        return "bathymetry", depth, f"water load from the bathymetry grid {str(bathymetry)!r}"
+    if "plate_age_ma" in values:
+        how = f"water load from the age-depth relation of the {cfg.lithosphere.cooling} model"
+        return "age", None, how
+    return "none", None, "no water load (neither a bathymetry grid nor a plate age is given)"

@@ -14,8 +14,8 @@ NOT_CHECKED = "from memory, not checked against the publication"
 
 #: Sources of the parameters every model shares by lidmelt's definition.
 _DEFINITION_SOURCES = {
-    "lithostatic_density_kg_m3": "lidmelt definition, common practice",
-    "gravity_m_s2": "lidmelt definition, common practice",
+    "lithostatic_density_kg_m3": "lidmelt definition above 7.25 GPa (PREM below), common practice",
+    "gravity_m_s2": "lidmelt definition above 7.25 GPa (PREM below), common practice",
 }
 
 
@@ -61,8 +61,8 @@ KATZ_SOURCES = _sources(
     ),
     cpx_mass_fraction=f"Katz et al. 2003, fertile lherzolite ({NOT_CHECKED})",
     max_onset_pressure_gpa=(
-        "deepest onset of Tp <= 1900 C, water <= 0.1 wt% on the continued solidus: 26.5 GPa "
-        "[derived]; 30 GPa with margin"
+        "the upper mantle's floor: PREM's pressure at its 400 km discontinuity, 13.35 GPa "
+        "(Dziewonski & Anderson 1981, Table II; verified secondary)"
     ),
     calibrated_max_pressure_gpa=(
         f"onsets beyond ~7 GPa extrapolate the experiments of Katz et al. 2003 ({NOT_CHECKED})"
@@ -97,8 +97,8 @@ MB1988_SOURCES = _sources(
         "McKenzie & Bickle 1988 (from memory, low confidence)",
     ),
     max_onset_pressure_gpa=(
-        "lidmelt search limit, as for Katz 2003; reached by Tp up to about 1805 C on the "
-        "continued solidus [derived]"
+        "the upper mantle's floor, as for Katz 2003: PREM's pressure at 400 km, 13.35 GPa "
+        "(Dziewonski & Anderson 1981, Table II; verified secondary)"
     ),
     calibrated_max_pressure_gpa="lidmelt choice, as for Katz 2003 (from memory)",
 )

@@ -27,10 +27,8 @@ fall on a fixed pressure grid (plus one partial step from the onset and one to t
 interval to a top within one step of the surface in four substeps); a test proves convergence in
 the step. All columns step together, node by node (:func:`integrate_columns`).
 
-References
-----------
-.. [Katz2003] Katz, R. F., Spiegelman, M. & Langmuir, C. H. (2003). A new parameterization of
-   hydrous mantle melting. Geochem. Geophys. Geosyst. 4(9), 1073, doi:10.1029/2002GC000433.
+.. [Katz2003] Katz, R. F., Spiegelman, M. & Langmuir, C. H. (2003), G-cubed 4(9), 1073,
+   doi:10.1029/2002GC000433.
 """
 
 from __future__ import annotations
@@ -64,22 +62,23 @@ _SCAN_BELOW = 16  # columns left in a root solve from which their brackets are s
 # onset
 # ------------------------------------------------------------------------------------------------
 def onset_pressure_gpa(model: MeltingModel, potential_temperature_c, water_wt_pct=0.0):
-    """Shallowest pressure [GPa] where the solid isentrope meets the solidus; NaN if none.
+    """Shallowest pressure [GPa] where the solid isentrope meets the solidus, else the floor.
 
-    Searched from the surface down to ``model.max_onset_pressure_gpa`` on a 0.05 GPa grid, then
-    refined by bisection to 1e-12 GPa. The search runs from the top because the Katz et al. (2003)
-    solidus quadratic turns over at 13.03 GPa [derived: dT/dP = A2 + 2 A3 P = 0], so a search
-    from below could find the wrong crossing (docs/physics.md, section "Where the onset is
-    searched"). NaN where Tp is at or below
-    the surface solidus (no crossing at all) or where the isentrope stays above the solidus down
-    to the search limit.
+    Searched from the surface down to the upper mantle's floor ``model.max_onset_pressure_gpa``
+    on a 0.05 GPa grid, then bisected to 1e-12 GPa; from the top, because a hot isentrope comes
+    close to the flattening continued solidus again deeper down (docs/physics.md, "Where the
+    onset is searched"). NaN where Tp is at or below the surface solidus; the floor where the
+    isentrope stays above the solidus down to it (docs/physics.md, "The upper mantle's floor").
     """
     tp, w = np.broadcast_arrays(
         np.asarray(potential_temperature_c, float), np.asarray(water_wt_pct, float)
     )
     out = np.full(tp.shape, np.nan)
     flat_tp, flat_w, flat_out = tp.ravel(), w.ravel(), out.reshape(-1)
-    grid = np.arange(0.0, model.max_onset_pressure_gpa + 1e-9, _SEARCH_STEP_GPA)
+    floor = float(model.max_onset_pressure_gpa)
+    grid = np.arange(0.0, floor + 1e-9, _SEARCH_STEP_GPA)
+    if grid[-1] < floor:
+        grid = np.append(grid, floor)
     for start in range(0, flat_tp.size, _BLOCK // 4):
         sl = slice(start, start + _BLOCK // 4)
         t, ww = flat_tp[sl, None], flat_w[sl, None]
@@ -89,7 +88,9 @@ def onset_pressure_gpa(model: MeltingModel, potential_temperature_c, water_wt_pc
         excess = model.solid_adiabat_c(t, grid[None, :]) - solidus
         below = excess <= 0.0
         below[:, 0] = False
-        has = below.any(axis=1) & (excess[:, 0] > 0.0)
+        hot = excess[:, 0] > 0.0
+        has = below.any(axis=1) & hot
+        at_floor = hot & ~below.any(axis=1)  # above the solidus down to the floor
         k = np.argmax(below, axis=1)
         lo = grid[np.maximum(k - 1, 0)]
         hi = grid[k]
@@ -99,7 +100,7 @@ def onset_pressure_gpa(model: MeltingModel, potential_temperature_c, water_wt_pc
             melted = model.solid_adiabat_c(tt, mid) - model.solidus_c(mid, wv) > 0.0
             lo = np.where(melted, mid, lo)
             hi = np.where(melted, hi, mid)
-        flat_out[sl] = np.where(has, 0.5 * (lo + hi), np.nan)
+        flat_out[sl] = np.where(has, 0.5 * (lo + hi), np.where(at_floor, floor, np.nan))
     return out
 
 
@@ -364,15 +365,17 @@ def integrate_columns(
         rec = {k: np.zeros((record_nodes, tp.size)) for k in _NODE_KEYS}
     if melts.any():
         idx = np.flatnonzero(melts)
+        t_start, f_start = _at_floor_in_equilibrium(model, p_on[idx], t_k[idx], water[idx])
         t_k[idx], f[idx], h_km[idx], g[idx] = _march(
             model,
             p_on[idx],
             p_top[idx],
             water[idx],
-            t_k[idx],
+            t_start,
             _Nodes(step_gpa, deep_step_gpa, None if record_nodes is None else record_nodes - 1),
             rows=idx,
             rec=rec,
+            f_start=f_start,
         )
     out = {
         "melt_thickness_km": h_km,
@@ -388,15 +391,20 @@ def integrate_columns(
 def _advance(model, now, p_next, water, km_per_gpa, substeps=1):
     """Step the columns ``now`` (P, T, F, H, int P dF, -dF/dP, dh/dF) to ``p_next``.
 
-    In ``substeps`` equal steps; the first starts from F extrapolated from the last step.
+    In ``substeps`` equal steps; the first starts from F extrapolated from the last step. H
+    grows by the mean F times the step's depth (:meth:`DepthPressure.step_km`).
     """
     p_start = now[0]
+    join = model.depth_pressure.join_gpa
     for k in range(1, substeps + 1):
         p, t, f, h_km, g, dfdp, dhdf = now
         p1 = p_next if k == substeps else p_start + (p_next - p_start) * (k / substeps)
         dp = p - p1
         t1, f1, dhdf = _step(model, p, t, f, p1, water, f + dfdp * dp, dhdf)
-        h_km = h_km + 0.5 * (f + f1) * dp * km_per_gpa
+        if np.any(p > join):  # below the join of the depth-pressure relation
+            h_km = h_km + 0.5 * (f + f1) * model.depth_pressure.step_km(p, p1, km_per_gpa)
+        else:
+            h_km = h_km + 0.5 * (f + f1) * dp * km_per_gpa
         g = g + 0.5 * (p + p1) * (f1 - f)
         now = [p1, t1, f1, h_km, g, (f1 - f) / dp, dhdf]
     return now
@@ -429,7 +437,19 @@ class _Nodes:
         return first
 
 
-def _march(model, p_on, p_top, water, t_k, nodes, *, rows, rec):
+def _at_floor_in_equilibrium(model, p_on, t_k, water):
+    """(T [K], F) at the start: the isentrope at the onset; at the floor (isentrope above the
+    solidus) the equilibrium of the same entropy, a zero-length :func:`_step`."""
+    f = np.zeros(p_on.shape)
+    floor = p_on >= model.max_onset_pressure_gpa - 1e-9
+    if floor.any():
+        t_k = t_k.copy()
+        sel = np.flatnonzero(floor)
+        t_k[sel], f[sel], _ = _step(model, p_on[sel], t_k[sel], f[sel], p_on[sel], water[sel])
+    return t_k, f
+
+
+def _march(model, p_on, p_top, water, t_k, nodes, *, rows, rec, f_start=None):
     """Step melting columns (1-D, ``p_on > p_top``) from the onset temperature ``t_k`` to the top.
 
     Returns (T [K], F, H [km], integral of P dF [GPa]) at ``p_top``. With ``rec``, the state at
@@ -448,6 +468,8 @@ def _march(model, p_on, p_top, water, t_k, nodes, *, rows, rec):
     first = nodes.first_above(p_on)
     step_gpa = nodes.step
     state = [p_on.copy(), t_k.copy(), *np.zeros((3, p_on.size)), *np.full((2, p_on.size), np.nan)]
+    if f_start is not None:
+        state[2] = f_start.copy()
     out = [t_k.copy(), *np.zeros((3, p_on.size))]
     going = np.flatnonzero(first >= 1)
     for k in range(_START_STEPS):
@@ -521,11 +543,13 @@ def column_profile(
     min_top_km: float = DEFAULT_MIN_TOP_KM,
     step_gpa: float = DEFAULT_PRESSURE_STEP_GPA,
     below_onset_km: float = 30.0,
+    water_load_km: float = 0.0,
 ):
     """Depth, pressure, temperature and melt fraction along one column, deepest first.
 
     The profile starts ``below_onset_km`` below the onset on the solid isentrope (or at twice the
-    top depth when the column does not melt) and ends at the top of melting.
+    top depth when the column does not melt) and ends at the top of melting; depths are below a
+    seafloor loaded by ``water_load_km`` (:func:`lidmelt.physics.pressure.water_load_km`).
 
     Returns
     -------
@@ -535,7 +559,7 @@ def column_profile(
     model = get_model(model)
     tp, w = float(potential_temperature_c), float(water_wt_pct)
     top_km = float(top_of_melting_km(lid_depth_km, min_top_km))
-    top_p = float(model.pressure_gpa(top_km))
+    top_p = float(model.pressure_gpa(top_km, water_load_km))
     p_on = float(onset_pressure_gpa(model, tp, w))
     base_p = (p_on if np.isfinite(p_on) else top_p) + float(model.pressure_gpa(below_onset_km))
     base_p = max(base_p, 2.0 * top_p)
@@ -569,7 +593,7 @@ def column_profile(
         t_all = model.solid_adiabat_c(tp, p_all)
         f_all = np.zeros(p_all.size)
     return {
-        "depth_km": model.depth_km(p_all),
+        "depth_km": model.depth_km(p_all, water_load_km),
         "pressure_gpa": p_all,
         "temperature_c": t_all,
         "melt_fraction": f_all,

@@ -35,6 +35,25 @@ from lidmelt.physics.column import (
     refine_onset_gpa,
     top_of_melting_km,
 )
+from lidmelt.physics.deepshare import (
+    deep_melt_share,
+    direct_at_calibration,
+    onset_depth,
+    table_at_calibration,
+    top_pressure,
+)
+from lidmelt.physics.flags import (
+    FLAG_BEYOND_CALIBRATION,
+    FLAG_INVALID_INPUT,
+    FLAG_KEYS,
+    FLAG_MEANINGS,
+    FLAG_NO_ONSET,
+    FLAG_UPPER_MANTLE_FLOOR,
+    FLAG_WATER_SATURATED,
+    beyond_flags,
+    input_flags,
+    saturation_onset_gpa,
+)
 from lidmelt.physics.kernel import ROWS as OUTPUT_ROWS
 from lidmelt.physics.kernel import compiled_cells, use_compiled
 from lidmelt.physics.melting import MeltingModel, get_model
@@ -47,6 +66,7 @@ __all__ = [
     "FLAG_KEYS",
     "FLAG_MEANINGS",
     "FLAG_NO_ONSET",
+    "FLAG_UPPER_MANTLE_FLOOR",
     "FLAG_WATER_SATURATED",
     "OUTPUT_ROWS",
     "REGIME_AMBIENT_MELTS",
@@ -62,27 +82,6 @@ __all__ = [
 
 _BLOCK = 1 << 16
 EXTRACTION_MIN_MELT_FRACTION = 0.005  # placeholder; the value and its source come with issue 18
-FLAG_INVALID_INPUT = 1  #: NaN input, negative lid, Tp below the surface solidus, or bad water
-FLAG_NO_ONSET = 2  #: the isentrope does not meet the solidus within the model's search range
-FLAG_BEYOND_CALIBRATION = 4  #: onset beyond the calibrated range (computed on the continuation)
-FLAG_WATER_SATURATED = 8  #: bulk water above what the solid source holds at the onset
-
-FLAG_MEANINGS = {
-    FLAG_INVALID_INPUT: "invalid input (NaN, negative lid, Tp below the surface solidus)",
-    FLAG_NO_ONSET: "no solidus crossing within the model's pressure range",
-    FLAG_BEYOND_CALIBRATION: (
-        "onset deeper than the model's calibrated pressure range (phase boundaries continued)"
-    ),
-    FLAG_WATER_SATURATED: "source water above saturation at the onset (free water)",
-}
-#: One word per flag bit, for CF ``flag_meanings`` (blank-separated words; CF conventions 1.8,
-#: section 3.5 "Flags", from memory).
-FLAG_KEYS = {
-    FLAG_INVALID_INPUT: "invalid_input",
-    FLAG_NO_ONSET: "no_solidus_crossing",
-    FLAG_BEYOND_CALIBRATION: "beyond_calibration",
-    FLAG_WATER_SATURATED: "water_saturated",
-}
 
 COLUMN_OUTPUTS = (
     "melt_thickness_km",
@@ -91,6 +90,7 @@ COLUMN_OUTPUTS = (
     "lid_depth_km",
     "max_melt_fraction",
     "mean_melt_pressure_gpa",
+    "deep_melt_share",
 )
 
 
@@ -101,7 +101,7 @@ class ColumnResult:
     Attributes
     ----------
     melt_thickness_km, onset_depth_km, onset_pressure_gpa, lid_depth_km, max_melt_fraction,
-    mean_melt_pressure_gpa : numpy.ndarray
+    mean_melt_pressure_gpa, deep_melt_share : numpy.ndarray
         The output variables (``lid_depth_km`` is the top of melting used); their units and
         long names are in :mod:`lidmelt.variables`.
     flag : numpy.ndarray of uint8
@@ -116,6 +116,7 @@ class ColumnResult:
     lid_depth_km: np.ndarray
     max_melt_fraction: np.ndarray
     mean_melt_pressure_gpa: np.ndarray
+    deep_melt_share: np.ndarray
     flag: np.ndarray
     model: MeltingModel
 
@@ -126,32 +127,21 @@ class ColumnResult:
         return out
 
 
-def input_flags(model: MeltingModel, potential_temperature_c, lid_depth_km, water_wt_pct):
-    """FLAG_INVALID_INPUT where inputs are NaN, the lid negative, water negative (or, for an
-    anhydrous model, non-zero), or Tp at or below the surface solidus."""
-    tp, lid, w = np.broadcast_arrays(
-        np.asarray(potential_temperature_c, float),
-        np.asarray(lid_depth_km, float),
-        np.asarray(water_wt_pct, float),
-    )
-    with np.errstate(invalid="ignore"):
-        bad = ~np.isfinite(tp) | ~np.isfinite(lid) | ~np.isfinite(w) | (lid < 0) | (w < 0)
-        if not model.hydrous:
-            bad |= w > 0
-        bad |= tp <= model.solidus_c(0.0, 0.0)
-    return np.where(bad, FLAG_INVALID_INPUT, 0).astype(np.uint8)
+def finish_outputs(
+    model, tp, w, top_km, p_on, melt_thickness_km, f_top, int_p_df, flag, *, deep, load_km=0.0
+):
+    """Assemble a ColumnResult from onset and integrals; set the derived flags and NaNs.
 
-
-def finish_outputs(model, tp, w, top_km, p_on, melt_thickness_km, f_top, int_p_df, flag):
-    """Assemble a ColumnResult from onset and integrals; set the derived flags and NaNs."""
+    ``deep``: (H, F) of the columns with their top at the calibrated pressure
+    (:mod:`lidmelt.physics.deepshare`); ``load_km``: the water load's rock-equivalent depth.
+    """
     with np.errstate(invalid="ignore", divide="ignore"):
-        top_p = model.pressure_gpa(top_km)
+        top_p = model.pressure_gpa(top_km, load_km)
         invalid = (flag & FLAG_INVALID_INPUT) > 0
         p_on = np.where(invalid, np.nan, p_on)  # an invalid cell has no onset to flag
         no_onset = ~invalid & ~np.isfinite(p_on)
         flag = flag | np.where(no_onset, FLAG_NO_ONSET, 0).astype(np.uint8)
-        deep = np.isfinite(p_on) & (p_on > model.calibrated_max_pressure_gpa)
-        flag = flag | np.where(deep, FLAG_BEYOND_CALIBRATION, 0).astype(np.uint8)
+        flag = flag | beyond_flags(model, p_on, np.where(invalid, np.nan, top_p))
         saturated = np.isfinite(p_on) & (w > model.water_saturated_bulk_wt_pct(p_on))
         flag = flag | np.where(saturated, FLAG_WATER_SATURATED, 0).astype(np.uint8)
         bad = invalid | no_onset | saturated
@@ -160,13 +150,15 @@ def finish_outputs(model, tp, w, top_km, p_on, melt_thickness_km, f_top, int_p_d
         f = np.where(bad, np.nan, np.where(melting, f_top, 0.0))
         mean_p = np.where(melting & (f > 0), int_p_df / np.where(f > 0, f, 1.0), np.nan)
         p_on = np.where(bad, np.nan, p_on)
+        share = deep_melt_share(model, h, p_on, top_p, *deep)
     return ColumnResult(
         melt_thickness_km=h,
-        onset_depth_km=model.depth_km(p_on),
+        onset_depth_km=model.depth_km(p_on, load_km),
         onset_pressure_gpa=p_on,
         lid_depth_km=np.where(invalid, np.nan, top_km),
         max_melt_fraction=f,
         mean_melt_pressure_gpa=mean_p,
+        deep_melt_share=share,
         flag=flag,
         model=model,
     )
@@ -183,6 +175,7 @@ def melt_column(
     step_gpa: float = DEFAULT_PRESSURE_STEP_GPA,
     table: MeltTable | None = None,
     compiled: bool | None = None,
+    water_load_km=0.0,
 ) -> ColumnResult:
     """Melt production of upwelling mantle beneath a lid, for arrays of cells.
 
@@ -210,6 +203,9 @@ def melt_column(
     compiled : bool, optional
         The table path by the compiled kernel (:mod:`lidmelt.physics.kernel`; True), or by
         numpy (False). Default: compiled where numba imports.
+    water_load_km : array_like, optional
+        The water above the seafloor as its rock-equivalent depth Z(P_w) [km]
+        (:func:`lidmelt.physics.pressure.water_load_km`); default 0 (no water load).
 
     Returns
     -------
@@ -221,45 +217,42 @@ def melt_column(
         otherwise float64.
     """
     model = get_model(model)
-    tp, lid, w = np.broadcast_arrays(
+    tp, lid, w, load = np.broadcast_arrays(
         np.asarray(potential_temperature_c, float),
         np.asarray(lid_depth_km, float),
         np.asarray(water_wt_pct, float),
+        np.asarray(water_load_km, float),
     )
     if method == "table":
         tab = table if table is not None else get_table(model)
         if use_compiled(compiled):
             res = compiled_cells(
                 tab, tp, lid, w, ambient=np.nan, min_top_km=min_top_km, upwelling=None,
-                crust_ratio=1.0, clock=None,
-                numpy_path=lambda t, d, ww, _: _table_columns(
-                    tab, t, d, ww, min_top_km=min_top_km
+                crust_ratio=1.0, clock=None, load=water_load_km,
+                numpy_path=lambda t, d, ww, _, zw: _table_columns(
+                    tab, t, *np.broadcast_arrays(d, ww, zw), min_top_km=min_top_km
                 ).as_dict(),
             )  # fmt: skip
             if res is not None:
                 return ColumnResult(**{k: res[k] for k in (*COLUMN_OUTPUTS, "flag")}, model=model)
-        return _table_columns(tab, tp, lid, w, min_top_km=min_top_km)
+        return _table_columns(tab, tp, lid, w, load, min_top_km=min_top_km)
     if method != "direct":
         msg = f"unknown method {method!r}; use 'table' (fast) or 'direct' (integrates each column)."
         raise ModelError(msg)
-    return _direct(model, tp, lid, w, min_top_km=min_top_km, step_gpa=step_gpa)
+    return _direct(model, tp, lid, w, min_top_km=min_top_km, step_gpa=step_gpa, load_km=load)
 
 
-def _direct(model, tp, lid, w, *, min_top_km, step_gpa):
+def _direct(model, tp, lid, w, *, min_top_km, step_gpa, load_km):
     """Direct integration of every cell (broadcast arrays of one shape)."""
     flag = input_flags(model, tp, lid, w)
     ok = flag == 0
     top_km = top_of_melting_km(np.where(ok, lid, 0.0), min_top_km)
     p_on = np.full(tp.shape, np.nan)
     p_on[ok] = onset_pressure_gpa(model, tp[ok], w[ok])
-    res = integrate_columns(
-        model,
-        np.where(ok, tp, 1300.0),
-        np.where(ok, w, 0.0),
-        p_on,
-        model.pressure_gpa(top_km),
-        step_gpa=step_gpa,
-    )
+    top_p = model.pressure_gpa(top_km, load_km)
+    t_ok, w_ok = np.where(ok, tp, 1300.0), np.where(ok, w, 0.0)
+    res = integrate_columns(model, t_ok, w_ok, p_on, top_p, step_gpa=step_gpa)
+    deep = direct_at_calibration(model, t_ok, w_ok, p_on, top_p, step_gpa)
     return finish_outputs(
         model,
         tp,
@@ -270,6 +263,8 @@ def _direct(model, tp, lid, w, *, min_top_km, step_gpa):
         res["max_melt_fraction"].reshape(tp.shape),
         res["int_p_df_gpa"].reshape(tp.shape),
         flag,
+        deep=deep,
+        load_km=load_km,
     )
 
 
@@ -280,6 +275,7 @@ def excess_to_melt_k(
     ambient_potential_temperature_c=1350.0,
     model: str | MeltingModel = "katz2003",
     min_top_km: float = DEFAULT_MIN_TOP_KM,
+    water_load_km=0.0,
 ):
     """Thermal anomaly [K] above ambient Tp at which melting would just begin beneath the lid.
 
@@ -294,7 +290,7 @@ def excess_to_melt_k(
     model = get_model(model)
     lid, w = np.broadcast_arrays(np.asarray(lid_depth_km, float), np.asarray(water_wt_pct, float))
     with np.errstate(invalid="ignore"):
-        top_p = model.pressure_gpa(top_of_melting_km(lid, min_top_km))
+        top_p = model.pressure_gpa(top_of_melting_km(lid, min_top_km), water_load_km)
         tp_k = (model.solidus_c(top_p, w) + 273.15) * np.exp(
             -model.adiabat_coefficient_per_gpa * top_p
         )
@@ -331,6 +327,7 @@ def evaluate_cells(
     clock: dict | None = None,
     out: np.ndarray | None = None,
     nodata: int | None = None,
+    water_load_km=0.0,
 ) -> dict[str, np.ndarray]:
     """Every output variable of :mod:`lidmelt.variables` and the ``"flag"``, for arrays of cells.
 
@@ -360,6 +357,7 @@ def evaluate_cells(
     every output in that order (NaN where an output is not given: melt production without
     upwelling), without further copies on the compiled path; ``nodata``, a flag value, marks
     cells with a non-finite Tp, lid or water: every output NaN, the flag ``nodata``.
+    ``water_load_km``: the water load, a scalar or an array like the cells (:func:`melt_column`).
     """
     model = get_model(model)
     if method == "table" and use_compiled(compiled):
@@ -371,18 +369,18 @@ def evaluate_cells(
         if np.ndim(water):
             water = np.broadcast_to(np.asarray(water, float), shape)
 
-        def numpy_path(t, d, w, up):
+        def numpy_path(t, d, w, up, zw):
             return _numpy_cells(
                 t, d, w, ambient_potential_temperature_c=ambient_potential_temperature_c,
                 model=model, method=method, table=tab, min_top_km=min_top_km,
-                upwelling_mm_yr=up, crust_density_kg_m3=crust_density_kg_m3,
+                upwelling_mm_yr=up, crust_density_kg_m3=crust_density_kg_m3, water_load_km=zw,
             )  # fmt: skip
 
         res = compiled_cells(
             tab, tp, lid, water, ambient=float(ambient_potential_temperature_c),
             min_top_km=min_top_km, upwelling=upwelling_mm_yr,
             crust_ratio=model.solid_density_kg_m3 / crust_density_kg_m3, clock=clock,
-            numpy_path=numpy_path, out=out, nodata=nodata,
+            numpy_path=numpy_path, out=out, nodata=nodata, load=water_load_km,
         )  # fmt: skip
         if res is not None:
             return res
@@ -390,7 +388,7 @@ def evaluate_cells(
         potential_temperature_c, lid_depth_km, water_wt_pct,
         ambient_potential_temperature_c=ambient_potential_temperature_c, model=model,
         method=method, table=table, min_top_km=min_top_km, upwelling_mm_yr=upwelling_mm_yr,
-        crust_density_kg_m3=crust_density_kg_m3,
+        crust_density_kg_m3=crust_density_kg_m3, water_load_km=water_load_km,
     )  # fmt: skip
     return _into(res, out, nodata, potential_temperature_c, lid_depth_km, water_wt_pct)
 
@@ -417,15 +415,18 @@ def _into(res, out, nodata, tp, lid, water):
 
 def _numpy_cells(
     potential_temperature_c, lid_depth_km, water_wt_pct, *, ambient_potential_temperature_c,
-    model, method, table, min_top_km, upwelling_mm_yr, crust_density_kg_m3,
+    model, method, table, min_top_km, upwelling_mm_yr, crust_density_kg_m3, water_load_km=0.0,
 ):  # fmt: skip
     """:func:`evaluate_cells` by numpy (the table's numpy path or direct integration)."""
     model = get_model(model)
     shape = np.broadcast_shapes(np.shape(potential_temperature_c), np.shape(lid_depth_km))
     lid = np.broadcast_to(np.asarray(lid_depth_km, float), shape)
+    load = np.broadcast_to(np.asarray(water_load_km, float), shape)
     common = {"model": model, "method": method, "table": table, "min_top_km": min_top_km}
     common["compiled"] = False
-    out = melt_column(potential_temperature_c, lid, water_wt_pct, **common).as_dict()
+    out = melt_column(
+        potential_temperature_c, lid, water_wt_pct, water_load_km=load, **common
+    ).as_dict()
     ambient = float(ambient_potential_temperature_c)
     excess = excess_to_melt_k(
         lid,
@@ -433,6 +434,7 @@ def _numpy_cells(
         ambient_potential_temperature_c=ambient,
         model=model,
         min_top_km=min_top_km,
+        water_load_km=load,
     )
     out["excess_to_melt_k"] = excess
     h = out["melt_thickness_km"]
@@ -442,7 +444,9 @@ def _numpy_cells(
     if ambient_melts.any():
         water = np.broadcast_to(np.asarray(water_wt_pct, float), h.shape)
         w_sel = water[ambient_melts] if np.ndim(water_wt_pct) else float(water_wt_pct)
-        amb = melt_column(ambient, lid[ambient_melts], w_sel, **common)
+        amb = melt_column(
+            ambient, lid[ambient_melts], w_sel, water_load_km=load[ambient_melts], **common
+        )
         h_ambient[ambient_melts] = np.nan_to_num(amb.melt_thickness_km, nan=0.0)
     with np.errstate(invalid="ignore"):
         out["anomaly_melt_thickness_km"] = np.maximum(h - h_ambient, 0.0)
@@ -460,7 +464,7 @@ def _numpy_cells(
 # ------------------------------------------------------------------------------------------------
 # the table path
 # ------------------------------------------------------------------------------------------------
-def _table_columns(table, tp, lid, w, *, min_top_km):
+def _table_columns(table, tp, lid, w, load, *, min_top_km):
     """Table evaluation of broadcast arrays (same outputs as :func:`_direct`).
 
     Cells the table cannot do (invalid inputs, outside its nodes, rough intervals, no onset
@@ -468,14 +472,14 @@ def _table_columns(table, tp, lid, w, *, min_top_km):
     """
     model = table.model
     shape = tp.shape
-    tp, lid, w = tp.ravel(), lid.ravel(), w.ravel()
+    tp, lid, w, load = tp.ravel(), lid.ravel(), w.ravel(), load.ravel()
     w0 = float(w[0]) if w.size else 0.0
     if w.size and np.all(w == w0) and table.in_range(np.array(table.layout.tp_min_c), w0):
         out = {name: np.empty(tp.size, np.float32) for name in COLUMN_OUTPUTS}
         out["flag"] = np.empty(tp.size, np.uint8)
-        direct = _table_one_water(table, tp, lid, w0, float(min_top_km), out)
+        direct = _table_one_water(table, tp, lid, w0, float(min_top_km), out, load)
     else:
-        out, direct = _table_any_water(table, tp, lid, w, min_top_km)
+        out, direct = _table_any_water(table, tp, lid, w, min_top_km, load)
     if direct.any():
         exact = _direct(
             model,
@@ -484,6 +488,7 @@ def _table_columns(table, tp, lid, w, *, min_top_km):
             w[direct],
             min_top_km=min_top_km,
             step_gpa=FALLBACK_STEP_GPA,
+            load_km=load[direct],
         )
         for name, arr in exact.as_dict().items():
             out[name][direct] = arr
@@ -491,7 +496,7 @@ def _table_columns(table, tp, lid, w, *, min_top_km):
     return ColumnResult(**out, model=model)
 
 
-def _table_one_water(table, tp, lid, water, min_top_km, out):
+def _table_one_water(table, tp, lid, water, min_top_km, out, load):
     """One-water evaluation into ``out`` (dict of 1-D arrays); return cells it cannot do.
 
     The cells it returns (invalid inputs, outside the table, rough or without onset,
@@ -504,8 +509,7 @@ def _table_one_water(table, tp, lid, water, min_top_km, out):
     km_per_gpa = 1.0 / gpa_per_km
     sol0 = float(model.solidus_c(0.0, 0.0))
     tp_lo = max(lay.tp_min_c, np.nextafter(sol0, np.inf))
-    p_sat = _saturation_onset_gpa(model, water)
-    cal = model.calibrated_max_pressure_gpa
+    p_sat = saturation_onset_gpa(model, water)
     top_max = table.top_pressure_max_gpa
     special = np.zeros(tp.size, bool)
     x_hi = n_tp - 1.0
@@ -516,7 +520,7 @@ def _table_one_water(table, tp, lid, water, min_top_km, out):
         lb = lid[sl]
         x = (tp[sl] - lay.tp_min_c) * inv_dtp
         top_km = np.maximum(lb, min_top_km)
-        top_p = top_km * gpa_per_km
+        top_p = top_pressure(model, top_km, load[sl], gpa_per_km)
         y = top_p * inv_dp
         with np.errstate(invalid="ignore"):  # NaN cells are sent to _direct below
             # the last node belongs to the interval below it (a or b = 1 there)
@@ -542,21 +546,21 @@ def _table_one_water(table, tp, lid, water, min_top_km, out):
         out["melt_thickness_km"][sl] = h
         out["max_melt_fraction"][sl] = f
         out["onset_pressure_gpa"][sl] = p_on
-        np.multiply(p_on, km_per_gpa, out=out["onset_depth_km"][sl])
+        out["onset_depth_km"][sl] = onset_depth(model, p_on, load[sl], km_per_gpa)
         out["lid_depth_km"][sl] = top_km
-        out["flag"][sl] = np.where(
-            no_onset, FLAG_NO_ONSET, (p_on > cal) * np.uint8(FLAG_BEYOND_CALIBRATION)
-        )
+        out["flag"][sl] = np.where(no_onset, FLAG_NO_ONSET, beyond_flags(model, p_on, top_p))
+        deep = table_at_calibration(table, tp[sl], water, p_on, top_p)
+        out["deep_melt_share"][sl] = deep_melt_share(model, h, p_on, top_p, *deep)
     return special
 
 
-def _table_any_water(table, tp, lid, w, min_top_km):
+def _table_any_water(table, tp, lid, w, min_top_km, load):
     """Evaluation where the water content varies: trilinear, onsets refined by Newton."""
     model, lay = table.model, table.layout
     n_tp, n_w, n_p = table.tp_c.size, table.water_u.size, table.pressure_gpa.size
     flag = input_flags(model, tp, lid, w)
     top_km = top_of_melting_km(lid, min_top_km)
-    top_p = model.pressure_gpa(top_km)
+    top_p = model.pressure_gpa(top_km, load)
     with np.errstate(invalid="ignore"):
         good = (flag == 0) & table.in_range(tp, w) & (top_p <= table.top_pressure_max_gpa)
     t = np.where(good, tp, lay.tp_min_c)
@@ -584,17 +588,12 @@ def _table_any_water(table, tp, lid, w, min_top_km):
     wet = good & ~rough & (ww > 0)
     if wet.any():  # the onset is not linear in water: make it exact by Newton steps
         p_on[wet] = refine_onset_gpa(model, t[wet], ww[wet], p_on[wet])
-    res = finish_outputs(model, tp, w, top_km, p_on, vals[:, 0], vals[:, 1], vals[:, 2], flag)
+    deep = table_at_calibration(table, t, ww, np.where(good, p_on, np.nan), top_p)
+    res = finish_outputs(
+        model, tp, w, top_km, p_on, vals[:, 0], vals[:, 1], vals[:, 2], flag, deep=deep,
+        load_km=load,
+    )  # fmt: skip
     out = res.as_dict()
     with np.errstate(invalid="ignore"):
         out["mean_melt_pressure_gpa"] = np.clip(out["mean_melt_pressure_gpa"], top_p, p_on)
     return out, (flag == 0) & (~good | rough)
-
-
-def _saturation_onset_gpa(model: MeltingModel, water: float) -> float:
-    """Pressure below which ``water`` [wt%] saturates the solid source (0 if never)."""
-    if water <= 0 or not model.hydrous:
-        return 0.0
-    p = np.linspace(0.0, model.max_onset_pressure_gpa, 13001)
-    over = water > model.water_saturated_bulk_wt_pct(p)
-    return float(p[np.argmin(over)]) if over.any() else 0.0

@@ -77,6 +77,7 @@ ROWS = (
     "anomaly_melt_thickness_km",
     "melting_regime",
     "crustal_thickness_km",
+    "deep_melt_share",
     "melt_production_mm_yr",
 )
 
@@ -178,6 +179,16 @@ def _lookup(vals, x, y, j, c):
 
 
 @_jit(inline="always")
+def _lookup_at(vals, deep, par, x, y, j, c):
+    """:func:`_lookup`, from the columns integrated at exactly this water content (``deep``,
+    Tp nodes from ``par[27]`` on; :meth:`MeltTable.deep_columns`) where it has them."""
+    i0 = par[27]
+    if x >= i0:
+        return _lookup(deep, x - i0, y, 0, 0.0)
+    return _lookup(vals, x, y, j, c)
+
+
+@_jit(inline="always")
 def _saturation(sat, p, inv_step):
     """Bulk water [wt%] that saturates the solid source at p (linear between nodes)."""
     x = p * inv_step
@@ -189,31 +200,76 @@ def _saturation(sat, p, inv_step):
 
 
 @_jit(inline="always")
-def _column(tp, w, u, top_p, p_on, par, sat, vals):
-    """One valid cell with its onset: (flag, onset [GPa], H, F, mean melt pressure, to numpy)."""
-    p_step, tp_min, inv_dtp, inv_dp, cal = par[2], par[3], par[4], par[5], par[6]
-    if not np.isfinite(p_on):
-        return 2, np.nan, np.nan, np.nan, np.nan, False
-    flag = 4 if p_on > cal else 0
-    s = _saturation(sat, p_on, 1.0 / p_step)
-    if w > 0.0 and np.isfinite(s) and abs(w - s) <= _SATURATION_BAND * s:
-        return flag, p_on, np.nan, np.nan, np.nan, True
-    if w > s:
-        return flag | 8, np.nan, np.nan, np.nan, np.nan, False
-    if p_on <= top_p:
-        return flag, p_on, 0.0, 0.0, np.nan, False
-    x, y = (tp - tp_min) * inv_dtp, top_p * inv_dp
-    xj = u * par[12]
-    j = min(int(xj), vals.shape[1] - 1)
-    h, f, g = _lookup(vals, x, y, j, xj - j)
-    if not (np.isfinite(h) and np.isfinite(f)):
-        return flag, p_on, np.nan, np.nan, np.nan, True
-    mean = min(max(g / f, top_p), p_on) if f > 0.0 else np.nan
-    return flag, p_on, h, f, mean, False
+def _pressure_of_depth(z, par, zp):
+    """P [GPa] at rock-equivalent depth z [km]: constant rho g above the join (``par[25]``),
+    the tabulated PREM relation below (``zp`` rows: P, Z; :mod:`lidmelt.physics.pressure`)."""
+    if not z > par[25]:
+        return z * par[15]
+    # PREM's rho g exceeds the constant one below the join: the node is at or after the guess
+    k = min(int((z - par[25]) * par[15] * par[26]), zp.shape[0] - 2)
+    while k + 2 < zp.shape[0] and zp[k + 1, 1] < z:
+        k += 1
+    a = (z - zp[k, 1]) / (zp[k + 1, 1] - zp[k, 1])
+    return zp[k, 0] + a * (zp[k + 1, 0] - zp[k, 0])
 
 
 @_jit(inline="always")
-def _ambient_melt(w, u, top_p, p_on, par, sat, vals):
+def _depth_of_pressure(p, par, zp):
+    """Rock-equivalent depth [km] of pressure p [GPa] (the inverse of the above)."""
+    if not p > par[24]:
+        return p / par[15]
+    x = (p - par[24]) * par[26]
+    k = min(int(x), zp.shape[0] - 2)
+    return zp[k, 1] + (x - k) * (zp[k + 1, 1] - zp[k, 1])
+
+
+@_jit(inline="always")
+def _deep_share(vals, deep, x, j, c, h, top_p, p_on, par, zp):
+    """H_deep / H (:mod:`lidmelt.physics.deepshare`): H and F at the top P_c from the table."""
+    cal = par[6]
+    if not h > 0.0:
+        return np.nan
+    if p_on <= cal:
+        return 0.0
+    if top_p >= cal:
+        return 1.0
+    h_c, f_c, _ = _lookup_at(vals, deep, par, x, cal * par[5], j, c)
+    dz = _depth_of_pressure(cal, par, zp) - _depth_of_pressure(top_p, par, zp)
+    return min(max((h_c + f_c * dz) / h, 0.0), 1.0)
+
+
+@_jit(inline="always")
+def _column(tp, w, u, top_p, p_on, par, sat, vals, zp, rough, deep):
+    """One valid cell with its onset: (flag, onset [GPa], H, F, mean melt pressure, deep melt
+    share, to numpy)."""
+    p_step, tp_min, inv_dtp, inv_dp, cal = par[2], par[3], par[4], par[5], par[6]
+    if not np.isfinite(p_on):
+        return 2, np.nan, np.nan, np.nan, np.nan, np.nan, False
+    flag = 4 if (p_on > cal or top_p > cal) else 0
+    if p_on >= par[17] - 1e-9:
+        flag |= 16
+    s = _saturation(sat, p_on, 1.0 / p_step)
+    if w > 0.0 and np.isfinite(s) and abs(w - s) <= _SATURATION_BAND * s:
+        return flag, p_on, np.nan, np.nan, np.nan, np.nan, True
+    if w > s:
+        return flag | 8, np.nan, np.nan, np.nan, np.nan, np.nan, False
+    if p_on <= top_p:
+        return flag, p_on, 0.0, 0.0, np.nan, np.nan, False
+    x, y = (tp - tp_min) * inv_dtp, top_p * inv_dp
+    xj = u * par[12]
+    j = min(int(xj), vals.shape[1] - 1)
+    if rough[min(int(x), rough.shape[0] - 1), min(j, rough.shape[1] - 1)]:
+        return flag, p_on, np.nan, np.nan, np.nan, np.nan, True
+    h, f, g = _lookup_at(vals, deep, par, x, y, j, xj - j)
+    if not (np.isfinite(h) and np.isfinite(f)):
+        return flag, p_on, np.nan, np.nan, np.nan, np.nan, True
+    mean = min(max(g / f, top_p), p_on) if f > 0.0 else np.nan
+    share = _deep_share(vals, deep, x, j, xj - j, h, top_p, p_on, par, zp)
+    return flag, p_on, h, f, mean, share, False
+
+
+@_jit(inline="always")
+def _ambient_melt(w, u, top_p, p_on, par, sat, vals, deep):
     """H [km] of the ambient column (0 where it is flagged), and whether it needs numpy.
 
     Looked up exactly as a cell's own H (:func:`_lookup` at the ambient Tp), so that a cell
@@ -228,7 +284,7 @@ def _ambient_melt(w, u, top_p, p_on, par, sat, vals):
         return 0.0, False
     xj = u * par[12]
     j = min(int(xj), vals.shape[1] - 1)
-    h = _lookup(vals, (par[18] - par[3]) * par[4], top_p * par[5], j, xj - j)[0]
+    h = _lookup_at(vals, deep, par, (par[18] - par[3]) * par[4], top_p * par[5], j, xj - j)[0]
     if not np.isfinite(h):
         return 0.0, True
     return h, False
@@ -258,20 +314,24 @@ def _onset_any(tp, u, par, cv, first, inv):
     if np.isfinite(p_on):
         return p_on
     j = min(int(u * par[11]), first.shape[0] - 1)
-    return _onset(tp, u, j, cv, first, par[0], par[1], par[2])
+    p_on = _onset(tp, u, j, cv, first, par[0], par[1], par[2])
+    if np.isnan(p_on) and tp > _curve_at(cv, 0, u):
+        return par[17]  # above the solidus down to the upper mantle's floor: onset there
+    return p_on
 
 
 @_jit(refcount=False)
 def _cells(
-    tp, lid, water, w_stride, up, up_stride, par, cv, first, inv, sat, vals, out, flag, slow
-):
+    tp, lid, water, w_stride, up, up_stride, par, cv, first, inv, sat, vals, out, flag, slow,
+    load, load_stride, zp, rough, deep,
+):  # fmt: skip
     """Every output of every cell into ``out`` (rows :data:`ROWS`) and ``flag``.
 
     Marks in ``slow`` (all False on entry) the cells left for the numpy path (their rows are
     not written). Where ``par[23]`` (nodata) is not NaN, a cell with a non-finite input gets NaN
     in every row and that flag value.
     """
-    sol0, min_top, gpa_per_km, top_max, max_on = par[13], par[14], par[15], par[16], par[17]
+    sol0, min_top, top_max, max_on = par[13], par[14], par[16], par[17]
     ambient, crust_ratio, water_max, hydrous, tp_max = par[18], par[19], par[20], par[21], par[22]
     nodata = par[23]
     nodata_on = np.isfinite(nodata)
@@ -290,7 +350,7 @@ def _cells(
         lid_ok = np.isfinite(lid_km) and lid_km >= 0.0
         w_ok = np.isfinite(w) and w >= 0.0 and (hydrous > 0.0 or w == 0.0)
         top_km = max(lid_km, min_top)
-        top_p = top_km * gpa_per_km
+        top_p = _pressure_of_depth(top_km + load[n * load_stride], par, zp)
         valid = lid_ok and w_ok and np.isfinite(t) and t > sol0
         if (lid_ok and w_ok and w > water_max) or (
             valid and (t < par[3] or t > tp_max or top_p > top_max)
@@ -302,11 +362,13 @@ def _cells(
         excess = np.nan
         if lid_ok and w_ok and top_p <= max_on:
             excess = _curve_interp(cv, top_p, 1.0 / par[2], u_curve) - ambient
-        h = f = p_on = mean = np.nan
+        h = f = p_on = mean = share = np.nan
         fl = 1
         if valid:
             p_on = _onset_any(t, u_curve, par, cv, first, inv)
-            fl, p_on, h, f, mean, to_numpy = _column(t, w, u_curve, top_p, p_on, par, sat, vals)
+            fl, p_on, h, f, mean, share, to_numpy = _column(
+                t, w, u_curve, top_p, p_on, par, sat, vals, zp, rough, deep
+            )
             if to_numpy:
                 slow[n] = True
                 continue
@@ -314,19 +376,21 @@ def _cells(
         if excess < 0.0 and np.isfinite(h):
             if varying:
                 p_amb = _onset_any(ambient, u_curve, par, cv, first, inv)
-            h_amb, to_numpy = _ambient_melt(w, u_curve, top_p, p_amb, par, sat, vals)
+            h_amb, to_numpy = _ambient_melt(w, u_curve, top_p, p_amb, par, sat, vals, deep)
             if to_numpy:
                 slow[n] = True
                 continue
         regime = np.nan
         if np.isfinite(h):
             regime = (1.0 if excess < 0.0 else 2.0) if h > 0.0 else 0.0
-        out[0, n], out[1, n], out[2, n] = h, p_on / gpa_per_km, p_on
+        out[0, n], out[2, n] = h, p_on
+        out[1, n] = _depth_of_pressure(p_on, par, zp) - load[n * load_stride]
         out[3, n] = top_km if valid else np.nan
         out[4, n], out[5, n], out[6, n] = f, mean, excess
         out[7, n] = max(h - h_amb, 0.0) if np.isfinite(h) else np.nan
         out[8, n], out[9, n] = regime, h * crust_ratio
-        out[10, n] = f * up[n * up_stride]
+        out[10, n] = share
+        out[11, n] = f * up[n * up_stride]
         flag[n] = fl
 
 
@@ -348,12 +412,14 @@ def compile_seconds() -> float:
 
 
 def evaluate_compiled(
-    table, tp, lid, water, *, ambient_c, min_top_km, upwelling, crust_ratio, out=None, nodata=None
-):
+    table, tp, lid, water, *, ambient_c, min_top_km, upwelling, crust_ratio, out=None,
+    nodata=None, load=0.0,
+):  # fmt: skip
     """Every output of 1-D cells by the compiled kernel, or None where it cannot serve them.
 
     ``water`` is a float (one water content) or an array like ``tp``; ``upwelling`` a float,
-    an array like ``tp`` or None (no production). ``out``, a float32 C-contiguous array
+    an array like ``tp`` or None (no production); ``load`` the water load's rock-equivalent
+    depth [km], a float or an array like ``tp``. ``out``, a float32 C-contiguous array
     (len(ROWS), n), receives the rows (else one is made); ``nodata``, a flag value for cells
     with a non-finite input (every row NaN). Returns (outputs by name as float32 arrays, flag as
     uint8, mask of the cells left for the numpy path).
@@ -369,7 +435,7 @@ def evaluate_compiled(
     arrays = kernel_arrays(table, float(water) if one else None)
     if arrays is None:
         return None
-    par, cv, first, inv, sat, vals = arrays
+    par, cv, first, inv, sat, vals, zp, rough, deep = arrays
     par = par.copy()
     par[14], par[18], par[19] = min_top_km, ambient_c, crust_ratio
     par[23] = np.nan if nodata is None else float(nodata)
@@ -380,13 +446,16 @@ def evaluate_compiled(
         up = _plain(np.broadcast_to(np.asarray(upwelling, float), tp.shape))
     if out is None:
         out = np.empty((len(ROWS), tp.size), np.float32)
+    if upwelling is None:  # no production: NaN also in the cells left to the numpy path
+        out[-1] = np.nan
+    zw = _plain(np.ravel(load)) if np.size(load) > 1 else np.array([float(np.ravel(load)[0])])
     flag = np.zeros(tp.size, np.uint8)
     first_call = _COMPILE["seconds"] == 0.0
     t = time.perf_counter()
     slow = np.zeros(tp.size, np.bool_)
     _cells(
         tp, lid, w, 0 if one else 1, up, 0 if up.size == 1 else 1, par, cv, first, inv, sat,
-        vals, out, flag, slow,
+        vals, out, flag, slow, zw, 0 if zw.size == 1 else 1, zp, rough, deep,
     )  # fmt: skip
     if first_call:
         _COMPILE["seconds"] = time.perf_counter() - t
@@ -406,11 +475,11 @@ def use_compiled(compiled: bool | None) -> bool:
 
 
 def compiled_cells(table, tp, lid, water, *, ambient, min_top_km, upwelling, crust_ratio, clock,
-              numpy_path, out=None, nodata=None):  # fmt: skip
+              numpy_path, out=None, nodata=None, load=0.0):  # fmt: skip
     """The compiled kernel on broadcast arrays; its left cells by ``numpy_path``; or None.
 
-    ``numpy_path(tp, lid, water, upwelling)`` returns the outputs of 1-D cells by name; ``out``
-    and ``nodata`` are :func:`evaluate_compiled`'s.
+    ``numpy_path(tp, lid, water, upwelling, load)`` returns the outputs of 1-D cells by name;
+    ``out``, ``nodata`` and ``load`` (the water load) are :func:`evaluate_compiled`'s.
     """
     shape = tp.shape
     t = np.ascontiguousarray(tp).ravel()
@@ -423,9 +492,12 @@ def compiled_cells(table, tp, lid, water, *, ambient, min_top_km, upwelling, cru
     up = upwelling
     if upwelling is not None and np.ndim(upwelling):
         up = np.ascontiguousarray(np.broadcast_to(np.asarray(upwelling, float), shape)).ravel()
+    zw = float(np.ravel(load)[0]) if np.size(load) == 1 else load
+    if np.ndim(zw):
+        zw = np.ascontiguousarray(np.broadcast_to(np.asarray(zw, float), shape)).ravel()
     res = evaluate_compiled(
         table, t, d, w, ambient_c=ambient, min_top_km=float(min_top_km), upwelling=up,
-        crust_ratio=crust_ratio, out=out, nodata=nodata,
+        crust_ratio=crust_ratio, out=out, nodata=nodata, load=zw,
     )  # fmt: skip
     if res is None:
         return None
@@ -435,8 +507,9 @@ def compiled_cells(table, tp, lid, water, *, ambient, min_top_km, upwelling, cru
     start = time.perf_counter()
     if n_slow:
         sub = numpy_path(
-            t[slow], d[slow], w[slow] if np.ndim(w) else w, up[slow] if np.ndim(up) else up
-        )
+            t[slow], d[slow], w[slow] if np.ndim(w) else w, up[slow] if np.ndim(up) else up,
+            zw[slow] if np.ndim(zw) else zw,
+        )  # fmt: skip
         for name, arr in sub.items():
             out[name][slow] = arr
     if clock is not None:

@@ -14,6 +14,7 @@ import weakref
 
 import numpy as np
 
+from lidmelt.physics.column import onset_pressure_gpa
 from lidmelt.physics.melting import MeltingModel
 from lidmelt.physics.table import WATER_EXPONENT, MeltTable
 
@@ -89,6 +90,8 @@ def _arrays(table: MeltTable, water, model_arrays):
     """
     model, lay = table.model, table.layout
     p, sat, form = model_arrays
+    depth = model.depth_pressure
+    zp = np.ascontiguousarray(np.column_stack([depth.nodes_gpa, depth.nodes_km]))
     u_one = water**WATER_EXPONENT if water else 0.0
     if water is None:
         if form is None:
@@ -116,15 +119,54 @@ def _arrays(table: MeltTable, water, model_arrays):
          inv_du_curve, 1.0 / du_table, float(model.solidus_c(0.0, 0.0)), 0.0,
          float(model.pressure_gpa(1.0)), table.top_pressure_max_gpa,
          model.max_onset_pressure_gpa, np.nan, 0.0, lay.water_max_wt_pct,
-         float(model.hydrous), lay.tp_max_c, np.nan],
+         float(model.hydrous), lay.tp_max_c, np.nan, depth.join_gpa, depth.join_km,
+         1.0 / depth.node_step_gpa],
         float,
     )  # fmt: skip
     first = _first_nodes(curves, t0, n_t)
     inv = np.stack([_inverse(c, f, t0) for c, f in zip(curves, first, strict=True)])
+    # the continued solidus has a kink at P_c (highpressure.py): onsets across it are searched
+    cal = model.calibrated_max_pressure_gpa
+    with np.errstate(invalid="ignore"):
+        inv[(inv[..., 0] <= cal) & (inv[..., 0] + inv[..., 1] > cal)] = np.nan
     if water is None:
         _check_water_steps(inv, g0, dg, us, u_nodes, t0)
     cv = np.ascontiguousarray(np.stack([g0, dg, us], axis=1))
-    return par, cv, first, inv, sat, np.ascontiguousarray(vals, dtype=np.float32)
+    vals = np.ascontiguousarray(vals, dtype=np.float32)
+    i0, exact = (table.tp_c.size, None) if water is None else table.deep_columns(water)
+    if exact is None or exact.shape[0] == 0:
+        i0, exact = table.tp_c.size, np.zeros((2, 1, table.pressure_gpa.size, 3), np.float32)
+    par = np.append(par, float(i0))  # par[27]: the first Tp node of the exact columns
+    deep = np.ascontiguousarray(exact.reshape(exact.shape[0], 1, -1, 3), dtype=np.float32)
+    return par, cv, first, inv, sat, vals, zp, _rough(table, water), deep
+
+
+def _rough(table: MeltTable, water):
+    """(n_tp - 1, n) uint8: Tp intervals the kernel leaves to the numpy path, for one water
+    content (n = 1) or every water interval.
+
+    Beyond P_c the continued solidus flattens towards the isentrope (Herzberg et al. 2000): the
+    onset moves fast with Tp, then jumps to the upper mantle's floor where the isentrope no
+    longer meets the solidus, and H is not smooth in Tp there. For one water content the kernel's
+    onset is exact (the curve) and the table's columns are integrated at that water
+    (:meth:`MeltTable.deep_columns`), so only the intervals within two nodes of that jump are
+    left (bilinear H erred by up to 1.8 times the table tolerance there, 0.5 elsewhere in the
+    band). Where water varies, every interval beyond P_c that the numpy path integrates
+    directly (:meth:`MeltTable.rough`) is left too.
+    """
+    if water is None:
+        deep = table.beyond_intervals(table.onset_gpa)
+        rough = table.rough & (deep[:, :-1] | deep[:, 1:] if deep.shape[1] > 1 else deep)
+    else:
+        onset = onset_pressure_gpa(table.model, table.tp_c, float(water))
+        floor = onset >= table.model.max_onset_pressure_gpa - 1e-9
+        jump = floor[:-1] != floor[1:]
+        rough = jump.copy()
+        for shift in (1, 2):  # two intervals on either side
+            rough[shift:] |= jump[:-shift]
+            rough[:-shift] |= jump[shift:]
+        rough = rough[:, None]
+    return np.ascontiguousarray(rough, dtype=np.uint8)
 
 
 def _check_water_steps(inv, g0, dg, us, u_nodes, t0):

@@ -30,6 +30,8 @@ import numpy as np
 from lidmelt.errors import ModelError
 from lidmelt.physics._registry import lookup
 from lidmelt.physics._sources import KATZ_SOURCES, MB1988_SOURCES
+from lidmelt.physics.highpressure import at_fraction_of_interval, continued_solidus_liquidus
+from lidmelt.physics.pressure import UPPER_MANTLE_FLOOR_GPA, DepthPressure, depth_pressure
 
 GPA = 1.0e9  # Pa per GPa (definition)
 
@@ -47,15 +49,12 @@ def _bisect_increasing(func, lo, hi, target, *, iterations=60):
 
 
 #: Ranges a parameter of :class:`MeltingModel` may take (inclusive). Sanity bounds, not
-#: published values: they keep the onset search and the table finite and the isentrope
-#: meaningful. The pressure bound: the base of the mantle transition zone lies near 24 GPa
-#: (660 km; PREM, Dziewonski & Anderson 1981, from memory); the default search depth of 30 GPa
-#: covers every onset of Tp <= 1900 deg C, and beyond 40 GPa the continued phase boundaries
-#: have no meaning. The others span about an order of magnitude around the published values
-#: (common practice).
+#: published values. The pressures stay within 22.5 GPa, the deepest experiment of the
+#: published solidus that continues every model (Herzberg, Raterron & Zhang 2000); the others
+#: span about an order of magnitude around the published values (common practice).
 SANE_RANGES: dict[str, tuple[float, float]] = {
-    "max_onset_pressure_gpa": (1.0, 40.0),
-    "calibrated_max_pressure_gpa": (0.5, 40.0),
+    "max_onset_pressure_gpa": (1.0, 22.5),
+    "calibrated_max_pressure_gpa": (0.5, 22.5),
     "specific_heat_j_kg_k": (100.0, 10000.0),
     "entropy_of_melting_j_kg_k": (10.0, 10000.0),
     "solid_expansivity_k": (0.0, 1e-3),
@@ -84,19 +83,15 @@ class MeltingModel:
     solid_density_kg_m3, melt_density_kg_m3 : float
         Densities rho_s, rho_f used in the isentrope. Units: kg m^-3.
     lithostatic_density_kg_m3, gravity_m_s2 : float
-        Pressure below the seafloor is P = rho g z (lidmelt's fixed definition, docs/physics.md,
-        section "Definitions lidmelt fixes"). Defaults 3300 kg m^-3 and 9.81 m s^-2: common
-        practice, no single source.
+        The constant rho g of the depth-pressure relation above 7.25 GPa (PREM below;
+        :mod:`lidmelt.physics.pressure`). Defaults 3300 kg m^-3, 9.81 m s^-2: common practice.
     max_onset_pressure_gpa : float
-        Deepest pressure searched for the solidus crossing. Units: GPa. Default 30 GPa: on the
-        continued Katz et al. (2003) solidus (:meth:`continued_pressure`) the deepest onset of
-        Tp <= 1900 deg C with water <= 0.1 wt% is 26.5 GPa (Tp 1900 deg C, 0.1 wt%) [derived:
-        docs/physics.md, section "Beyond the calibrated pressure"]; 30 GPa leaves a margin of
-        about 30 K in Tp. (The continued McKenzie & Bickle 1988 solidus is flatter: within 30 GPa
-        it is reached by Tp up to about 1805 deg C, dry [derived].)
+        The upper mantle's floor, the deepest onset [GPa]: an isentrope still above the solidus
+        there melts from there (flagged). Default 13.35 GPa, PREM's pressure at its 400 km
+        discontinuity (Dziewonski & Anderson 1981, Table II; :mod:`lidmelt.physics.pressure`).
     calibrated_max_pressure_gpa : float
-        Onsets deeper than this are computed but flagged as beyond calibration; the phase
-        boundaries are continued beyond it (:meth:`continued_pressure`). Units: GPa.
+        Where the melting law's experiments end; beyond it the phase boundaries are continued
+        (:meth:`continued_pressure`) and outputs resting on them are flagged. Units: GPa.
     reference : str
         Citation of the parameter set.
     """
@@ -110,7 +105,7 @@ class MeltingModel:
     melt_density_kg_m3: float
     lithostatic_density_kg_m3: float = 3300.0
     gravity_m_s2: float = 9.81
-    max_onset_pressure_gpa: float = 30.0
+    max_onset_pressure_gpa: float = UPPER_MANTLE_FLOOR_GPA
     calibrated_max_pressure_gpa: float = 7.0
     reference: str = ""
     sources: dict[str, str] = field(default_factory=dict, compare=False, hash=False, repr=False)
@@ -201,18 +196,20 @@ class MeltingModel:
         return "\n".join(lines)
 
     # -- pressure and the solid isentrope ------------------------------------------------------
-    def depth_km(self, pressure_gpa):
-        """Depth below the seafloor [km] of lithostatic pressure ``pressure_gpa`` (P = rho g z)."""
-        return (
-            np.asarray(pressure_gpa)
-            * GPA
-            / (self.lithostatic_density_kg_m3 * self.gravity_m_s2)
-            / 1e3
-        )
+    @property
+    def depth_pressure(self) -> DepthPressure:
+        """The depth-pressure relation of this model's density and gravity
+        (:mod:`lidmelt.physics.pressure`: constant rho g above 7.25 GPa, PREM below)."""
+        return depth_pressure(self.lithostatic_density_kg_m3, self.gravity_m_s2)
 
-    def pressure_gpa(self, depth_km):
-        """Lithostatic pressure [GPa] at ``depth_km`` below the seafloor (P = rho g z)."""
-        return np.asarray(depth_km) * 1e3 * self.lithostatic_density_kg_m3 * self.gravity_m_s2 / GPA
+    def depth_km(self, pressure_gpa, load_km=0.0):
+        """Depth below the seafloor [km] of pressure ``pressure_gpa``: Z(P) - ``load_km``, the
+        water load's rock-equivalent depth (:func:`lidmelt.physics.pressure.water_load_km`)."""
+        return self.depth_pressure.depth_km(pressure_gpa) - load_km
+
+    def pressure_gpa(self, depth_km, load_km=0.0):
+        """Pressure [GPa] at ``depth_km`` below the seafloor beneath a water load ``load_km``."""
+        return self.depth_pressure.pressure_gpa(np.asarray(depth_km) + load_km)
 
     @property
     def adiabat_coefficient_per_gpa(self) -> float:
@@ -239,27 +236,37 @@ class MeltingModel:
         """
         raise NotImplementedError
 
-    def solidus_slope_c_gpa(self) -> float:
-        """dT_sol/dP of the dry solidus at ``calibrated_max_pressure_gpa`` [K/GPa] (model law)."""
-        raise NotImplementedError
-
     def continued_pressure(self, pressure_gpa) -> tuple:
-        """The pressure at which to evaluate the law, and the temperature shift [K] to add.
+        """min(P, P_c), and where P exceeds P_c (None where no P does: the law is unchanged).
 
-        Continuation beyond the calibrated pressure P_c (lidmelt's choice; docs/physics.md,
-        section "Beyond the calibrated pressure"): every phase boundary runs parallel to the
-        tangent of the dry solidus at P_c, T_b(P) = T_b(P_c) + T_sol'(P_c) (P - P_c), with the
-        pressure-dependent melting parameters held at their P_c values. So T(P, F) =
-        T(P_c, F) + T_sol'(P_c) (P - P_c): continuous at P_c, the solidus also in slope, monotonic,
-        and the melting interval keeps its calibrated width and order. Returns
-        (min(P, P_c), shift) with shift None where no P exceeds P_c (the law is then unchanged).
+        Beyond the calibrated pressure P_c the dry solidus and liquidus follow published
+        high-pressure peridotite curves joined at P_c, and every other boundary keeps its
+        fraction of the melting interval (:meth:`continue_boundaries`); the pressure-dependent
+        melting parameters (Katz R_cpx, hence F_cpx-out, and the water saturation X_sat) are held
+        at their P_c values (docs/physics.md, section "Beyond the calibrated pressure").
         """
         p = np.asarray(pressure_gpa, float)
         pc = self.calibrated_max_pressure_gpa
         if not np.any(p > pc):
             return p, None
-        shift = self.solidus_slope_c_gpa() * np.maximum(p - pc, 0.0)
-        return np.minimum(p, pc), shift
+        return np.minimum(p, pc), p > pc
+
+    def continue_boundaries(self, pressure_gpa, beyond, solidus_c, liquidus_c, *inner_c):
+        """The boundaries (evaluated at min(P, P_c)) continued where ``beyond``.
+
+        Solidus and liquidus: the shapes of :mod:`lidmelt.physics.highpressure` (Herzberg,
+        Raterron & Zhang 2000 solidus; a peridotite batch-melting liquidus), each shifted to
+        the model's value at P_c. ``inner_c``: boundaries held at their fraction of the
+        solidus-liquidus interval at P_c. Returns (solidus, liquidus, *inner) [deg C].
+        """
+        pc = self.calibrated_max_pressure_gpa
+        with np.errstate(invalid="ignore"):  # P = 0 (log) is never beyond P_c
+            sol, liq = continued_solidus_liquidus(pressure_gpa, pc, solidus_c, liquidus_c)
+            inner = [at_fraction_of_interval(t, solidus_c, liquidus_c, sol, liq) for t in inner_c]
+        return tuple(
+            np.where(beyond, new, old)
+            for new, old in zip((sol, liq, *inner), (solidus_c, liquidus_c, *inner_c), strict=True)
+        )
 
     def temperature_from_terms(self, terms: tuple, melt_fraction):
         """T [deg C] at melt fraction F, given :meth:`pressure_terms` of the same P and water."""
@@ -388,7 +395,7 @@ class KatzModel(MeltingModel):
 
         Beyond the calibrated pressure the law is continued (:meth:`continued_pressure`).
         """
-        p, shift = self.continued_pressure(pressure_gpa)
+        p, beyond = self.continued_pressure(pressure_gpa)
         t_sol = self.solidus_a1_c + self.solidus_a2_c_gpa * p + self.solidus_a3_c_gpa2 * p * p
         t_lherz = (
             self.lherzolite_liquidus_b1_c
@@ -402,15 +409,11 @@ class KatzModel(MeltingModel):
         t_cpx = f_cpx ** (1.0 / self.beta1) * (t_lherz - t_sol) + t_sol
         w = np.asarray(water_wt_pct, float)
         x_sat = self.saturation_wt_pct(p) if np.any(w) else None
-        if shift is not None:
-            t_sol, t_lherz, t_liq, t_cpx = (t + shift for t in (t_sol, t_lherz, t_liq, t_cpx))
+        if beyond is not None:
+            t_sol, t_liq, t_lherz, t_cpx = self.continue_boundaries(
+                pressure_gpa, beyond, t_sol, t_liq, t_lherz, t_cpx
+            )
         return t_sol, t_lherz, t_liq, f_cpx, t_cpx, x_sat, w
-
-    def solidus_slope_c_gpa(self) -> float:
-        """A2 + 2 A3 P_c: slope of the [Katz2003]_ solidus quadratic at the calibrated limit."""
-        return (
-            self.solidus_a2_c_gpa + 2.0 * self.solidus_a3_c_gpa2 * self.calibrated_max_pressure_gpa
-        )
 
     def temperature_from_terms(self, terms: tuple, melt_fraction):
         """T(P, F, water) [deg C]: the inverse of [Katz2003]_ eqs. 3 and 9, lowered by water.
@@ -522,22 +525,14 @@ class McKenzieBickleModel(MeltingModel):
 
         Beyond the calibrated pressure both are continued (:meth:`continued_pressure`).
         """
-        p, shift = self.continued_pressure(pressure_gpa)
+        p, beyond = self.continued_pressure(pressure_gpa)
         # the implicit solidus is solved once per distinct pressure (columns share the nodes)
         nodes, where = np.unique(p, return_inverse=True)
         t_s = self.solidus_dry_c(nodes)[where].reshape(p.shape)
         t_l = self.liquidus_dry_c(p)
-        if shift is not None:
-            t_s, t_l = t_s + shift, t_l + shift
+        if beyond is not None:
+            t_s, t_l = self.continue_boundaries(pressure_gpa, beyond, t_s, t_l)
         return t_s, t_l, np.asarray(water_wt_pct, float)
-
-    def solidus_slope_c_gpa(self) -> float:
-        """dT_s/dP at P_c = 1 / (1/s1 + s2 s3 exp[s3 (T_s - s0)]), from the implicit solidus."""
-        excess = float(self.solidus_dry_c(self.calibrated_max_pressure_gpa)) - self.solidus_s0_c
-        dp_dt = 1.0 / self.solidus_s1_c_gpa + self.solidus_s2_gpa * self.solidus_s3_per_c * np.exp(
-            self.solidus_s3_per_c * excess
-        )
-        return float(1.0 / dp_dt)
 
     def temperature_from_terms(self, terms: tuple, melt_fraction):
         """T(P, F) [deg C] = T' (T_l - T_s) + (T_s + T_l)/2; NaN where the source has water."""

@@ -44,7 +44,9 @@ __all__ = [
     "table_key",
 ]
 
-TABLE_FORMAT = 2
+#: Changes with the physics a table stores beyond its parameters: 3 = phase boundaries continued
+#: with published high-pressure shapes, PREM below 7.25 GPa, the upper mantle's floor.
+TABLE_FORMAT = 3
 _ARRAYS = ("tp_c", "water_u", "pressure_gpa", "onset_gpa", "values")
 WATER_EXPONENT = 0.75  # the water coordinate u = water^0.75 (Katz et al. 2003 gamma)
 # Step of the direct integration for the few cells the table cannot do: 0.04 GPa changes melt
@@ -60,9 +62,10 @@ class TableLayout:
     The Tp nodes run to 1900 deg C, the hottest plume mantle lidmelt is tested for (hotspot Tp
     estimates reach about 1800 deg C, Bao et al. 2022, from a news summary only; 1900 deg C
     leaves a margin). The pressure nodes are tops of melting, not onsets: they run to
-    ``top_pressure_max_gpa`` = 13 GPa (a 401 km lid, beyond the 400 km the lid inputs accept);
-    onsets may lie deeper (down to the model's ``max_onset_pressure_gpa``), and cells with a
-    deeper top are integrated directly.
+    ``top_pressure_max_gpa`` = 13.4 GPa, below the upper mantle's floor (13.35 GPa, PREM's 400
+    km), the deepest onset (the model's ``max_onset_pressure_gpa``), so that every lid the
+    inputs accept (400 km at most) has its nodes; cells with a deeper top (beneath a water load)
+    are integrated directly.
 
     Columns are integrated in steps of ``integration_step_gpa`` at the nodes and of
     ``deep_integration_step_gpa`` below the deepest node, where nothing is recorded; against
@@ -76,7 +79,7 @@ class TableLayout:
     water_nodes: int = 11
     pressure_step_gpa: float = 0.02
     integration_step_gpa: float = 0.02
-    top_pressure_max_gpa: float = 13.0
+    top_pressure_max_gpa: float = 13.4
     deep_integration_step_gpa: float = 0.1
 
 
@@ -222,8 +225,57 @@ class MeltTable:
             else:
                 no_onset = ~np.isfinite(on)
                 near_w = no_onset[:, :-1] | no_onset[:, 1:]
-                self._rough = along_tp[:, :-1] | along_tp[:, 1:] | near_w[:-1] | near_w[1:]
+                rough = along_tp[:, :-1] | along_tp[:, 1:] | near_w[:-1] | near_w[1:]
+                deep = self.beyond_intervals(on)
+                self._rough = rough | deep[:, :-1] | deep[:, 1:]
         return self._rough
+
+    def beyond_intervals(self, onset: np.ndarray) -> np.ndarray:
+        """Tp intervals (axis 0) with an onset beyond the calibrated pressure at either node.
+
+        There, near the tangency of the isentrope and the flattening continued solidus, H and F
+        are not linear in the water coordinate between water nodes (they erred by up to 3 times
+        the table tolerance), so cells between water nodes are integrated directly.
+        """
+        with np.errstate(invalid="ignore"):
+            deep = onset > self.model.calibrated_max_pressure_gpa
+        return deep[:-1] | deep[1:]
+
+    def rough_at(self, water: float) -> np.ndarray:
+        """(n_tp - 1,) Tp intervals integrated directly at one water content (see above)."""
+        return self._rough_intervals(onset_pressure_gpa(self.model, self.tp_c, float(water)))
+
+    def deep_columns(self, water: float) -> tuple[int, np.ndarray]:
+        """(i0, (n_tp - i0, n_p, 3) float32): for a water content between water nodes, the
+        columns of the Tp nodes from i0 on (one node before the first onset beyond the calibrated
+        pressure) integrated at exactly this water, as :meth:`build` does; there H and F are
+        not linear in the water coordinate (:meth:`beyond_intervals`). (n_tp, empty) otherwise.
+        """
+        key = float(water)
+        cache = self.__dict__.setdefault("_deep", {})
+        if key not in cache:
+            lay, n_tp, n_p = self.layout, self.tp_c.size, self.pressure_gpa.size
+            c = float(np.ravel(self.water_index(np.array([key]))[1])[0])
+            onset = onset_pressure_gpa(self.model, self.tp_c, key)
+            with np.errstate(invalid="ignore"):
+                deep = np.flatnonzero(onset > self.model.calibrated_max_pressure_gpa)
+            res = (n_tp, np.zeros((0, n_p, 3), np.float32))
+            if 0.0 < c < 1.0 and self.water_u.size > 1 and deep.size:
+                i0 = min(max(int(deep[0]) - 1, 0), n_tp - 2)
+                ratio = round(lay.pressure_step_gpa / lay.integration_step_gpa)
+                rec = integrate_columns(
+                    self.model, self.tp_c[i0:], key, onset[i0:], 0.0,
+                    step_gpa=lay.integration_step_gpa, record_nodes=(n_p - 1) * ratio + 1,
+                    deep_step_gpa=lay.deep_integration_step_gpa,
+                )  # fmt: skip
+                keys = ("node_melt_thickness_km", "node_melt_fraction", "node_int_p_df_gpa")
+                vals = np.stack([rec[k][:, ::ratio] for k in keys], axis=-1).astype(np.float32)
+                vals[~np.isfinite(onset[i0:])] = np.nan
+                res = (i0, vals)
+            if len(cache) > 16:
+                cache.clear()
+            cache[key] = res
+        return cache[key]
 
     def water_index(self, water):
         """Lower water node index and the fraction towards the next node (water coordinate)."""
@@ -238,7 +290,8 @@ class MeltTable:
 
         Row i * (n_p - 1) + k holds the 4 corners (i, k), (i, k + 1), (i + 1, k), (i + 1, k + 1)
         of (H, F, integral P dF, onset), 16 float32 values. H, F and P dF are linear in the water
-        coordinate between nodes; the onsets are exact at this water (searched at every Tp node).
+        coordinate between nodes, except the columns beyond the calibrated pressure
+        (:meth:`deep_columns`); the onsets are exact at this water (searched at every Tp node).
         Rough intervals get NaN onsets, which sends their cells to direct integration. Also
         returns the Tp from which on no cell has an onset.
         """
@@ -250,8 +303,10 @@ class MeltTable:
             )
             j1 = min(j + 1, self.water_u.size - 1)
             vals = (1 - a) * self.values[:, j] + a * self.values[:, j1]
+            i0, exact = self.deep_columns(key)
+            vals[i0:] = exact  # beyond the calibrated pressure: integrated at this water
             onset = onset_pressure_gpa(self.model, self.tp_c, key)
-            rough = self._rough_intervals(onset)
+            rough = self.rough_at(key)
             n_p = self.pressure_gpa.size
             v = np.concatenate([vals, np.repeat(onset[:, None, None], n_p, axis=1)], axis=2)
             packed = np.concatenate([v[:-1, :-1], v[:-1, 1:], v[1:, :-1], v[1:, 1:]], axis=2)

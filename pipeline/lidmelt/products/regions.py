@@ -52,6 +52,10 @@ warning.
     Of the cells inside whose validity flag is not nodata (255), the fraction with any flag
     bit set; NaN when there is none (only when the run has its flag grid). Cells without melt
     data but with a flag (e.g. no solidus crossing) count here.
+``deep_melt_share``
+    Melt-volume-weighted mean of ``deep_melt_share`` (the share of the melt made beyond the
+    melting model's calibrated pressure): sum of share x melt thickness x area over the melt
+    volume (only when the run has that output; NaN without melt).
 ``melt_production_km3_yr``
     Sum over the cells with data of ``melt_production_mm_yr`` times cell area, in km^3/yr
     (1 mm = 1e-6 km; only when the run has that output, i.e. an upwelling input).
@@ -117,6 +121,7 @@ STAT_COLUMNS = (
     "min_plate_age_ma",
     "max_plate_age_ma",
     "flagged_fraction",
+    "deep_melt_share",
     "melt_production_km3_yr",
 )
 
@@ -129,6 +134,7 @@ OPTIONAL_STATISTICS = {
     "min_plate_age_ma": "plate_age",
     "max_plate_age_ma": "plate_age",
     "flagged_fraction": "flag",
+    "deep_melt_share": "deep_share",
     "melt_production_km3_yr": "production",
 }
 
@@ -168,6 +174,7 @@ class Zones:
     plate_age: np.ndarray | None = None
     flag: np.ndarray | None = None  # uint8 bit flags, nodata 255
     production: np.ndarray | None = None  # mm/yr
+    deep_share: np.ndarray | None = None  # fraction of the melt made beyond calibration
 
     @classmethod
     def load(cls, run: RunDir) -> Zones:
@@ -193,6 +200,7 @@ class Zones:
             plate_age=optional("plate_age_ma", run.inputs),
             flag=_flag_values(run),
             production=optional(PRODUCTION_VARIABLE, run.outputs),
+            deep_share=optional("deep_melt_share", run.outputs),
         )
 
     @property
@@ -248,6 +256,10 @@ class Zones:
             out["flagged_fraction"] = flagged
         if self.production is not None:
             out["melt_production_km3_yr"] = _KM_PER_MM * _area_sum(self.production, flat, area)
+        if self.deep_share is not None:
+            share = np.nan_to_num(self.deep_share.ravel()[flat], nan=0.0)
+            deep = float((share * thick * area).sum())
+            out["deep_melt_share"] = deep / volume if volume > 0 else math.nan
         return out
 
     def _flagged_fraction(self, flat: np.ndarray) -> float | None:

@@ -153,6 +153,8 @@ STYLES: dict[str, MapStyle] = {
     "melt": MapStyle("viridis", zero_is_no_melt=True),  # melt amounts: 0 is no melting
     "depth": MapStyle("cividis_r", percentiles=FULL_RANGE),  # shallow light, deep dark
     "fraction": MapStyle("plasma"),
+    # a share of the melt (deep_melt_share): fixed limits 0 and 1, so that maps compare
+    "share": MapStyle("plasma", limits=(0.0, 1.0)),
     "excess": MapStyle("RdBu_r", diverging=True),  # signed: 0 is the screening line
     "age": MapStyle("viridis"),
     "anomaly": MapStyle("inferno", percentiles=FULL_RANGE),  # every plume's peak resolved
