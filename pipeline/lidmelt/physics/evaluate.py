@@ -4,8 +4,9 @@
 the onset and integrates the column (:mod:`lidmelt.physics.column`) or interpolates the
 precomputed table (:mod:`lidmelt.physics.table`), and assembles every output variable and the
 bit flag (:func:`finish_outputs`). :func:`excess_to_melt_k` inverts the onset condition at the
-top of melting. :func:`evaluate_cells` computes every output variable of a run from the cell
-inputs (the column outputs, the melt the anomaly adds, the regime, crust and melt production).
+top of melting. :func:`lidmelt.physics.cells.evaluate_cells` computes every output variable of
+a run from the cell inputs (the column outputs, the melt the anomaly adds, the regime, crust
+and melt production); :data:`EXTRACTION_MIN_MELT_FRACTION` is its least extracted melt fraction.
 
 Definitions (docs/physics.md, section "Definitions lidmelt fixes"):
 
@@ -16,7 +17,8 @@ Definitions (docs/physics.md, section "Definitions lidmelt fixes"):
   surface down to ``model.max_onset_pressure_gpa``.
 * Melt thickness H = integral of F dz from the top of melting to the onset [km]; 0 where the
   onset is shallower than the top. Max melt fraction is F at the top; mean melt pressure is
-  integral of P dF / F_top (NaN where no melt).
+  integral of P dF / F_top, onset depth and pressure are given where H > 0 (NaN where no melt);
+  the solidus crossing depth is the onset's depth whatever the lid.
 * Water is batch-partitioned and stays in the column.
 """
 
@@ -38,10 +40,17 @@ from lidmelt.physics.column import (
 from lidmelt.physics.kernel import ROWS as OUTPUT_ROWS
 from lidmelt.physics.kernel import compiled_cells, use_compiled
 from lidmelt.physics.melting import MeltingModel, get_model
+from lidmelt.physics.regime import (
+    REGIME_AMBIENT_AND_ANOMALY,
+    REGIME_AMBIENT_ONLY,
+    REGIME_ANOMALY_ONLY,
+    REGIME_NO_MELTING,
+)
 from lidmelt.physics.table import FALLBACK_STEP_GPA, MeltTable, get_table
 
 __all__ = [
     "COLUMN_OUTPUTS",
+    "EXTRACTION_MIN_MELT_FRACTION",
     "FLAG_BEYOND_CALIBRATION",
     "FLAG_INVALID_INPUT",
     "FLAG_KEYS",
@@ -49,11 +58,11 @@ __all__ = [
     "FLAG_NO_ONSET",
     "FLAG_WATER_SATURATED",
     "OUTPUT_ROWS",
-    "REGIME_AMBIENT_MELTS",
+    "REGIME_AMBIENT_AND_ANOMALY",
+    "REGIME_AMBIENT_ONLY",
     "REGIME_ANOMALY_ONLY",
     "REGIME_NO_MELTING",
     "ColumnResult",
-    "evaluate_cells",
     "excess_to_melt_k",
     "finish_outputs",
     "input_flags",
@@ -61,6 +70,20 @@ __all__ = [
 ]
 
 _BLOCK = 1 << 16
+
+#: The least melt fraction at the top of melting for which a column counts as melting (regime,
+#: ensemble probability, screening); below it the melt stays in the matrix. Geochemical models
+#: of ridge melting have melt separate from the matrix at porosities of order 0.1 % (Faul 2001,
+#: Nature 410, 920, abstract [verified]); U-series disequilibria give 0.1-0.2 % of melt beneath
+#: a ridge (Lundstrom, Gill, Williams & Perfit 1995, Science 270, 1958, abstract [verified]) and
+#: a residual porosity of "a few parts per thousand" (Bourdon & Elliott 2010, in Timescales of
+#: Magmatic Processes, Wiley, abstract [verified]); near-fractional melting needs porosities
+#: below 1 % (Kelemen, Hirth, Shimizu, Spiegelman & Dick 1997, Phil. Trans. R. Soc. A 355, 283,
+#: abstract [verified; journal from memory]). lidmelt takes 0.5 %, "a few parts per thousand" at
+#: its upper end, so that a column counted as melting has made more melt than any of these
+#: estimates leaves behind (a choice). F is a mass fraction and porosity a volume fraction
+#: (about F rho_s / rho_f, 14 % more [derived]), well inside the spread of the estimates.
+EXTRACTION_MIN_MELT_FRACTION = 0.005
 
 FLAG_INVALID_INPUT = 1  #: NaN input, negative lid, Tp below the surface solidus, or bad water
 FLAG_NO_ONSET = 2  #: the isentrope does not meet the solidus within the model's search range
@@ -91,6 +114,7 @@ COLUMN_OUTPUTS = (
     "lid_depth_km",
     "max_melt_fraction",
     "mean_melt_pressure_gpa",
+    "solidus_crossing_depth_km",
 )
 
 
@@ -101,9 +125,9 @@ class ColumnResult:
     Attributes
     ----------
     melt_thickness_km, onset_depth_km, onset_pressure_gpa, lid_depth_km, max_melt_fraction,
-    mean_melt_pressure_gpa : numpy.ndarray
-        The output variables (``lid_depth_km`` is the top of melting used); their units and
-        long names are in :mod:`lidmelt.variables`.
+    mean_melt_pressure_gpa, solidus_crossing_depth_km : numpy.ndarray
+        The output variables (``lid_depth_km`` is the top of melting used; the onset is NaN
+        where H = 0, the solidus crossing is not); units and long names: :mod:`lidmelt.variables`.
     flag : numpy.ndarray of uint8
         Bit flags ``FLAG_*``; 0 where the cell is valid and calibrated.
     model : MeltingModel
@@ -116,6 +140,7 @@ class ColumnResult:
     lid_depth_km: np.ndarray
     max_melt_fraction: np.ndarray
     mean_melt_pressure_gpa: np.ndarray
+    solidus_crossing_depth_km: np.ndarray
     flag: np.ndarray
     model: MeltingModel
 
@@ -128,14 +153,15 @@ class ColumnResult:
 
 def input_flags(model: MeltingModel, potential_temperature_c, lid_depth_km, water_wt_pct):
     """FLAG_INVALID_INPUT where inputs are NaN, the lid negative, water negative (or, for an
-    anhydrous model, non-zero), or Tp at or below the surface solidus."""
+    anhydrous model, non-zero), or Tp at or below the surface solidus. A lid of +inf is valid:
+    the column meets its geotherm nowhere (:mod:`lidmelt.physics.geotherm`) and does not melt."""
     tp, lid, w = np.broadcast_arrays(
         np.asarray(potential_temperature_c, float),
         np.asarray(lid_depth_km, float),
         np.asarray(water_wt_pct, float),
     )
     with np.errstate(invalid="ignore"):
-        bad = ~np.isfinite(tp) | ~np.isfinite(lid) | ~np.isfinite(w) | (lid < 0) | (w < 0)
+        bad = ~np.isfinite(tp) | np.isnan(lid) | ~np.isfinite(w) | (lid < 0) | (w < 0)
         if not model.hydrous:
             bad |= w > 0
         bad |= tp <= model.solidus_c(0.0, 0.0)
@@ -160,13 +186,15 @@ def finish_outputs(model, tp, w, top_km, p_on, melt_thickness_km, f_top, int_p_d
         f = np.where(bad, np.nan, np.where(melting, f_top, 0.0))
         mean_p = np.where(melting & (f > 0), int_p_df / np.where(f > 0, f, 1.0), np.nan)
         p_on = np.where(bad, np.nan, p_on)
+        p_melt = np.where(h > 0, p_on, np.nan)  # the onset where the column melts
     return ColumnResult(
         melt_thickness_km=h,
-        onset_depth_km=model.depth_km(p_on),
-        onset_pressure_gpa=p_on,
-        lid_depth_km=np.where(invalid, np.nan, top_km),
+        onset_depth_km=model.depth_km(p_melt),
+        onset_pressure_gpa=p_melt,
+        lid_depth_km=np.where(invalid | np.isinf(top_km), np.nan, top_km),
         max_melt_fraction=f,
         mean_melt_pressure_gpa=mean_p,
+        solidus_crossing_depth_km=model.depth_km(p_on),
         flag=flag,
         model=model,
     )
@@ -191,7 +219,8 @@ def melt_column(
     potential_temperature_c : array_like
         Potential temperature Tp of the mantle [deg C] (ambient plus thermal anomaly).
     lid_depth_km : array_like
-        Depth of the lid base (lithosphere) below the seafloor [km], >= 0.
+        Depth of the lid base (lithosphere) below the seafloor [km], >= 0 (+inf: the column
+        meets its geotherm nowhere and does not melt, :mod:`lidmelt.physics.geotherm`).
     water_wt_pct : array_like, optional
         Water in the bulk source [wt%] (0.01 wt% = 100 ppm). Default 0 (dry).
     model : str or MeltingModel, optional
@@ -232,7 +261,7 @@ def melt_column(
             res = compiled_cells(
                 tab, tp, lid, w, ambient=np.nan, min_top_km=min_top_km, upwelling=None,
                 crust_ratio=1.0, clock=None,
-                numpy_path=lambda t, d, ww, _: _table_columns(
+                numpy_path=lambda t, d, ww, *_: _table_columns(
                     tab, t, d, ww, min_top_km=min_top_km
                 ).as_dict(),
             )  # fmt: skip
@@ -257,7 +286,7 @@ def _direct(model, tp, lid, w, *, min_top_km, step_gpa):
         np.where(ok, tp, 1300.0),
         np.where(ok, w, 0.0),
         p_on,
-        model.pressure_gpa(top_km),
+        model.pressure_gpa(np.where(np.isinf(top_km), np.nan, top_km)),
         step_gpa=step_gpa,
     )
     return finish_outputs(
@@ -306,155 +335,6 @@ def excess_to_melt_k(
             | (top_p > model.max_onset_pressure_gpa)
         )
     return np.where(bad, np.nan, tp_k - 273.15 - float(ambient_potential_temperature_c))
-
-
-# ------------------------------------------------------------------------------------------------
-# every output of a cell
-# ------------------------------------------------------------------------------------------------
-#: Regime values of the ``melting_regime`` output (docs/physics.md, "Definitions").
-REGIME_NO_MELTING, REGIME_AMBIENT_MELTS, REGIME_ANOMALY_ONLY = 0, 1, 2
-
-
-def evaluate_cells(
-    potential_temperature_c,
-    lid_depth_km,
-    water_wt_pct=0.0,
-    *,
-    ambient_potential_temperature_c: float,
-    model: str | MeltingModel = "katz2003",
-    method: str = "table",
-    table: MeltTable | None = None,
-    min_top_km: float = DEFAULT_MIN_TOP_KM,
-    upwelling_mm_yr=None,
-    crust_density_kg_m3: float = 2900.0,
-    compiled: bool | None = None,
-    clock: dict | None = None,
-    out: np.ndarray | None = None,
-    nodata: int | None = None,
-) -> dict[str, np.ndarray]:
-    """Every output variable of :mod:`lidmelt.variables` and the ``"flag"``, for arrays of cells.
-
-    Beside the column outputs of :func:`melt_column` (Tp = ambient + anomaly):
-
-    * ``excess_to_melt_k``: :func:`excess_to_melt_k` at the ambient Tp.
-    * ``anomaly_melt_thickness_km``: H(Tp) - H(ambient), same lid and water, never negative.
-      H(ambient) is non-zero only where ambient mantle melts beneath the lid, that is where the
-      excess to melt is negative, so the ambient column is evaluated only there.
-    * ``melting_regime``: 0 no melting (H = 0); 1 H > 0 and ambient mantle melts beneath this lid
-      (melting needs only upwelling); 2 H > 0 only because of the anomaly. NaN where H is.
-    * ``crustal_thickness_km``: H rho_s / rho_crust, rho_s the model's solid density.
-    * ``melt_production_mm_yr`` (only with ``upwelling_mm_yr``): W F(top), the rock-equivalent
-      melt volume per unit area and time leaving the top of a steady one-dimensional column
-      (mass balance: solid flux rho_s W enters, a fraction F(top) of it leaves as melt).
-
-    Definitions: docs/physics.md, section "Definitions lidmelt fixes"; ``water_wt_pct`` may stay a
-    scalar (the table's fast path). Returns arrays of the broadcast input shape.
-
-    The table path runs in the compiled kernel (:mod:`lidmelt.physics.kernel`, float32 outputs)
-    where numba imports and ``compiled`` is not False, else in numpy; ``compiled=True`` requires
-    the kernel. Cells the kernel leaves (outside the table's nodes, or on the edge of the
-    saturation flag) take the numpy path; ``clock``, a dict, then accumulates their number
-    (``numpy_cells``) and seconds (``numpy_s``), and ``cells`` counts every cell.
-
-    ``out``, a float32 C-contiguous array (len(:data:`OUTPUT_ROWS`), number of cells), receives
-    every output in that order (NaN where an output is not given: melt production without
-    upwelling), without further copies on the compiled path; ``nodata``, a flag value, marks
-    cells with a non-finite Tp, lid or water: every output NaN, the flag ``nodata``.
-    """
-    model = get_model(model)
-    if method == "table" and use_compiled(compiled):
-        tab = table if table is not None else get_table(model)
-        shape = np.broadcast_shapes(np.shape(potential_temperature_c), np.shape(lid_depth_km))
-        tp = np.broadcast_to(np.asarray(potential_temperature_c, float), shape)
-        lid = np.broadcast_to(np.asarray(lid_depth_km, float), shape)
-        water = water_wt_pct
-        if np.ndim(water):
-            water = np.broadcast_to(np.asarray(water, float), shape)
-
-        def numpy_path(t, d, w, up):
-            return _numpy_cells(
-                t, d, w, ambient_potential_temperature_c=ambient_potential_temperature_c,
-                model=model, method=method, table=tab, min_top_km=min_top_km,
-                upwelling_mm_yr=up, crust_density_kg_m3=crust_density_kg_m3,
-            )  # fmt: skip
-
-        res = compiled_cells(
-            tab, tp, lid, water, ambient=float(ambient_potential_temperature_c),
-            min_top_km=min_top_km, upwelling=upwelling_mm_yr,
-            crust_ratio=model.solid_density_kg_m3 / crust_density_kg_m3, clock=clock,
-            numpy_path=numpy_path, out=out, nodata=nodata,
-        )  # fmt: skip
-        if res is not None:
-            return res
-    res = _numpy_cells(
-        potential_temperature_c, lid_depth_km, water_wt_pct,
-        ambient_potential_temperature_c=ambient_potential_temperature_c, model=model,
-        method=method, table=table, min_top_km=min_top_km, upwelling_mm_yr=upwelling_mm_yr,
-        crust_density_kg_m3=crust_density_kg_m3,
-    )  # fmt: skip
-    return _into(res, out, nodata, potential_temperature_c, lid_depth_km, water_wt_pct)
-
-
-def _into(res, out, nodata, tp, lid, water):
-    """``res`` with ``nodata`` applied and, with ``out``, copied into its rows (numpy path)."""
-    if nodata is not None:
-        shape = res["flag"].shape
-        with np.errstate(invalid="ignore"):
-            missing = ~(
-                np.isfinite(np.broadcast_to(tp, shape))
-                & np.isfinite(np.broadcast_to(lid, shape))
-                & np.isfinite(np.broadcast_to(water, shape))
-            )
-        res = {k: np.where(missing, nodata if k == "flag" else np.nan, v) for k, v in res.items()}
-        res["flag"] = res["flag"].astype(np.uint8)
-    if out is None:
-        return res
-    for k, name in enumerate(OUTPUT_ROWS):
-        out[k] = np.ravel(res[name]) if name in res else np.nan
-    views = {name: out[k].reshape(res["flag"].shape) for k, name in enumerate(OUTPUT_ROWS)}
-    return {**{n: v for n, v in views.items() if n in res}, "flag": res["flag"]}
-
-
-def _numpy_cells(
-    potential_temperature_c, lid_depth_km, water_wt_pct, *, ambient_potential_temperature_c,
-    model, method, table, min_top_km, upwelling_mm_yr, crust_density_kg_m3,
-):  # fmt: skip
-    """:func:`evaluate_cells` by numpy (the table's numpy path or direct integration)."""
-    model = get_model(model)
-    shape = np.broadcast_shapes(np.shape(potential_temperature_c), np.shape(lid_depth_km))
-    lid = np.broadcast_to(np.asarray(lid_depth_km, float), shape)
-    common = {"model": model, "method": method, "table": table, "min_top_km": min_top_km}
-    common["compiled"] = False
-    out = melt_column(potential_temperature_c, lid, water_wt_pct, **common).as_dict()
-    ambient = float(ambient_potential_temperature_c)
-    excess = excess_to_melt_k(
-        lid,
-        water_wt_pct,
-        ambient_potential_temperature_c=ambient,
-        model=model,
-        min_top_km=min_top_km,
-    )
-    out["excess_to_melt_k"] = excess
-    h = out["melt_thickness_km"]
-    with np.errstate(invalid="ignore"):
-        ambient_melts = np.broadcast_to(excess < 0, h.shape)
-    h_ambient = np.zeros(h.shape, h.dtype)
-    if ambient_melts.any():
-        water = np.broadcast_to(np.asarray(water_wt_pct, float), h.shape)
-        w_sel = water[ambient_melts] if np.ndim(water_wt_pct) else float(water_wt_pct)
-        amb = melt_column(ambient, lid[ambient_melts], w_sel, **common)
-        h_ambient[ambient_melts] = np.nan_to_num(amb.melt_thickness_km, nan=0.0)
-    with np.errstate(invalid="ignore"):
-        out["anomaly_melt_thickness_km"] = np.maximum(h - h_ambient, 0.0)
-        regime = np.where(ambient_melts, REGIME_AMBIENT_MELTS, REGIME_ANOMALY_ONLY)
-        regime = np.where(h > 0, regime, REGIME_NO_MELTING).astype(h.dtype)
-        out["melting_regime"] = np.where(np.isnan(h), np.nan, regime).astype(h.dtype)
-        out["crustal_thickness_km"] = h * (model.solid_density_kg_m3 / crust_density_kg_m3)
-        if upwelling_mm_yr is not None:
-            out["melt_production_mm_yr"] = out["max_melt_fraction"] * np.asarray(
-                upwelling_mm_yr, float
-            )
-    return out
 
 
 # ------------------------------------------------------------------------------------------------
@@ -541,8 +421,10 @@ def _table_one_water(table, tp, lid, water, min_top_km, out):
             out["mean_melt_pressure_gpa"][sl] = np.where(f > 0, mean_p, np.nan)
         out["melt_thickness_km"][sl] = h
         out["max_melt_fraction"][sl] = f
-        out["onset_pressure_gpa"][sl] = p_on
-        np.multiply(p_on, km_per_gpa, out=out["onset_depth_km"][sl])
+        np.multiply(p_on, km_per_gpa, out=out["solidus_crossing_depth_km"][sl])
+        p_melt = np.where(h > 0, p_on, np.nan)  # the onset where the column melts
+        out["onset_pressure_gpa"][sl] = p_melt
+        np.multiply(p_melt, km_per_gpa, out=out["onset_depth_km"][sl])
         out["lid_depth_km"][sl] = top_km
         out["flag"][sl] = np.where(
             no_onset, FLAG_NO_ONSET, (p_on > cal) * np.uint8(FLAG_BEYOND_CALIBRATION)

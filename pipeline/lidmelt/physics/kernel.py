@@ -43,6 +43,13 @@ import numpy as np
 
 from lidmelt.errors import ModelError
 from lidmelt.physics.kernel_arrays import ONSET_STEP_GPA, kernel_arrays
+from lidmelt.physics.regime import (
+    LEAST_ANOMALY_MELT_KM,
+    REGIME_AMBIENT_AND_ANOMALY,
+    REGIME_AMBIENT_ONLY,
+    REGIME_ANOMALY_ONLY,
+    REGIME_NO_MELTING,
+)
 from lidmelt.physics.table import WATER_EXPONENT
 
 try:  # numba compiles the kernel; without it the numpy table path is used
@@ -75,6 +82,7 @@ ROWS = (
     "anomaly_melt_thickness_km",
     "melting_regime",
     "crustal_thickness_km",
+    "solidus_crossing_depth_km",
     "melt_production_mm_yr",
 )
 
@@ -214,24 +222,41 @@ def _column(tp, w, u, top_p, p_on, par, sat, vals):
 
 @_jit(inline="always")
 def _ambient_melt(w, u, top_p, p_on, par, sat, vals):
-    """H [km] of the ambient column (0 where it is flagged), and whether it needs numpy.
+    """H [km] and F at the top of the ambient column (0 where it is flagged or does not melt),
+    and whether it needs numpy.
 
     Looked up exactly as a cell's own H (:func:`_lookup` at the ambient Tp), so that a cell
     without anomaly gets an anomaly melt of exactly 0, not a rounding difference.
     """
     if not np.isfinite(p_on) or p_on <= top_p:
-        return 0.0, False
+        return 0.0, 0.0, False
+    if top_p > par[16]:  # an ambient top of its own beyond the table's nodes
+        return 0.0, 0.0, True
     s = _saturation(sat, p_on, 1.0 / par[2])
     if w > 0.0 and np.isfinite(s) and abs(w - s) <= _SATURATION_BAND * s:
-        return 0.0, True
+        return 0.0, 0.0, True
     if w > s:
-        return 0.0, False
+        return 0.0, 0.0, False
     xj = u * par[12]
     j = min(int(xj), vals.shape[1] - 1)
-    h = _lookup(vals, (par[18] - par[3]) * par[4], top_p * par[5], j, xj - j)[0]
+    h, f, _ = _lookup(vals, (par[18] - par[3]) * par[4], top_p * par[5], j, xj - j)
+    if not (np.isfinite(h) and np.isfinite(f)):
+        return 0.0, 0.0, True
+    return h, f, False
+
+
+@_jit(inline="always")
+def _regime(h, f, h_amb, f_amb, min_fraction, least):
+    """The melting regime class (:func:`lidmelt.physics.regime.melting_regime`, one cell)."""
     if not np.isfinite(h):
-        return 0.0, True
-    return h, False
+        return np.nan
+    if not (h > 0.0 and f >= min_fraction):
+        return float(REGIME_NO_MELTING)
+    if h_amb > 0.0 and f_amb >= min_fraction:
+        if h - h_amb >= least:
+            return float(REGIME_AMBIENT_AND_ANOMALY)
+        return float(REGIME_AMBIENT_ONLY)
+    return float(REGIME_ANOMALY_ONLY)
 
 
 @_jit(inline="always")
@@ -263,17 +288,20 @@ def _onset_any(tp, u, par, cv, first, inv):
 
 @_jit(refcount=False)
 def _cells(
-    tp, lid, water, w_stride, up, up_stride, par, cv, first, inv, sat, vals, out, flag, slow
-):
+    tp, lid, water, w_stride, up, up_stride, given, g_stride, par, cv, first, inv, sat, vals, out,
+    flag, slow,
+):  # fmt: skip
     """Every output of every cell into ``out`` (rows :data:`ROWS`) and ``flag``.
 
     Marks in ``slow`` (all False on entry) the cells left for the numpy path (their rows are
-    not written). Where ``par[23]`` (nodata) is not NaN, a cell with a non-finite input gets NaN
-    in every row and that flag value.
+    not written). Where ``par[23]`` (nodata) is not NaN, a cell with a non-finite Tp or water
+    or a NaN lid gets NaN in every row and that flag value. A lid of +inf: the column meets its
+    geotherm nowhere (it does not melt; top NaN). ``given`` (2, n) holds per cell the ambient
+    column's own top [km] and the excess to melt [K] where not NaN (the geotherm rule).
     """
     sol0, min_top, gpa_per_km, top_max, max_on = par[13], par[14], par[15], par[16], par[17]
     ambient, crust_ratio, water_max, hydrous, tp_max = par[18], par[19], par[20], par[21], par[22]
-    nodata = par[23]
+    nodata, min_fraction, least = par[23], par[24], par[25]
     nodata_on = np.isfinite(nodata)
     varying = par[11] > 0.0
     # one water content: one ambient onset for every cell
@@ -282,25 +310,25 @@ def _cells(
         p_amb = _onset_any(ambient, par[7], par, cv, first, inv)
     for n in range(tp.size):
         t, lid_km, w = tp[n], lid[n], water[n * w_stride]
-        if nodata_on and not (np.isfinite(t) and np.isfinite(lid_km) and np.isfinite(w)):
+        if nodata_on and not (np.isfinite(t) and lid_km == lid_km and np.isfinite(w)):
             for r in range(out.shape[0]):
                 out[r, n] = np.nan
             flag[n] = nodata
             continue
-        lid_ok = np.isfinite(lid_km) and lid_km >= 0.0
+        lid_ok = lid_km == lid_km and lid_km >= 0.0
         w_ok = np.isfinite(w) and w >= 0.0 and (hydrous > 0.0 or w == 0.0)
         top_km = max(lid_km, min_top)
         top_p = top_km * gpa_per_km
         valid = lid_ok and w_ok and np.isfinite(t) and t > sol0
         if (lid_ok and w_ok and w > water_max) or (
-            valid and (t < par[3] or t > tp_max or top_p > top_max)
+            valid and (t < par[3] or t > tp_max or (top_p > top_max and top_p < np.inf))
         ):
             slow[n] = True
             continue
         # u = water^0.75 on the curves (one water content: its u, or 0 on its own curve)
         u_curve = (w**WATER_EXPONENT if w > 0.0 else 0.0) if varying else par[7]
-        excess = np.nan
-        if lid_ok and w_ok and top_p <= max_on:
+        excess = given[1, n * g_stride]
+        if np.isnan(excess) and lid_ok and w_ok and top_p <= max_on:
             excess = _curve_interp(cv, top_p, 1.0 / par[2], u_curve) - ambient
         h = f = p_on = mean = np.nan
         fl = 1
@@ -310,23 +338,24 @@ def _cells(
             if to_numpy:
                 slow[n] = True
                 continue
-        h_amb = 0.0
+        h_amb = f_amb = 0.0
         if excess < 0.0 and np.isfinite(h):
             if varying:
                 p_amb = _onset_any(ambient, u_curve, par, cv, first, inv)
-            h_amb, to_numpy = _ambient_melt(w, u_curve, top_p, p_amb, par, sat, vals)
+            amb_top = given[0, n * g_stride]
+            amb_p = top_p if np.isnan(amb_top) else max(amb_top, min_top) * gpa_per_km
+            h_amb, f_amb, to_numpy = _ambient_melt(w, u_curve, amb_p, p_amb, par, sat, vals)
             if to_numpy:
                 slow[n] = True
                 continue
-        regime = np.nan
-        if np.isfinite(h):
-            regime = (1.0 if excess < 0.0 else 2.0) if h > 0.0 else 0.0
-        out[0, n], out[1, n], out[2, n] = h, p_on / gpa_per_km, p_on
-        out[3, n] = top_km if valid else np.nan
+        p_melt = p_on if h > 0.0 else np.nan
+        out[0, n], out[1, n], out[2, n] = h, p_melt / gpa_per_km, p_melt
+        out[3, n] = top_km if valid and top_km < np.inf else np.nan
         out[4, n], out[5, n], out[6, n] = f, mean, excess
         out[7, n] = max(h - h_amb, 0.0) if np.isfinite(h) else np.nan
-        out[8, n], out[9, n] = regime, h * crust_ratio
-        out[10, n] = f * up[n * up_stride]
+        out[8, n] = _regime(h, f, h_amb, f_amb, min_fraction, least)
+        out[9, n], out[10, n] = h * crust_ratio, p_on / gpa_per_km
+        out[11, n] = f * up[n * up_stride]
         flag[n] = fl
 
 
@@ -348,15 +377,19 @@ def compile_seconds() -> float:
 
 
 def evaluate_compiled(
-    table, tp, lid, water, *, ambient_c, min_top_km, upwelling, crust_ratio, out=None, nodata=None
-):
+    table, tp, lid, water, *, ambient_c, min_top_km, upwelling, crust_ratio, out=None, nodata=None,
+    ambient_lid=None, excess=None, min_fraction=0.0,
+):  # fmt: skip
     """Every output of 1-D cells by the compiled kernel, or None where it cannot serve them.
 
     ``water`` is a float (one water content) or an array like ``tp``; ``upwelling`` a float,
     an array like ``tp`` or None (no production). ``out``, a float32 C-contiguous array
     (len(ROWS), n), receives the rows (else one is made); ``nodata``, a flag value for cells
-    with a non-finite input (every row NaN). Returns (outputs by name as float32 arrays, flag as
-    uint8, mask of the cells left for the numpy path).
+    with a non-finite input (every row NaN). ``ambient_lid`` [km] and ``excess`` [K], arrays
+    like ``tp`` or None, give the ambient column's own top and the excess to melt where not NaN
+    (the geotherm rule); ``min_fraction`` is the regime's least extracted melt fraction.
+    Returns (outputs by name as float32 arrays, flag as uint8, mask of the cells left for the
+    numpy path).
     """
     if not AVAILABLE:
         return None
@@ -373,7 +406,14 @@ def evaluate_compiled(
     par = par.copy()
     par[14], par[18], par[19] = min_top_km, ambient_c, crust_ratio
     par[23] = np.nan if nodata is None else float(nodata)
+    par[24], par[25] = min_fraction, LEAST_ANOMALY_MELT_KM
     tp, lid = _plain(tp), _plain(lid)
+    given = np.full((2, 1), np.nan)
+    if ambient_lid is not None or excess is not None:
+        given = np.full((2, tp.size), np.nan)
+        for k, arr in enumerate((ambient_lid, excess)):
+            if arr is not None:
+                given[k] = arr
     w = np.array([float(water)]) if one else _plain(water)
     up = np.array([np.nan if upwelling is None else float(np.ravel(upwelling)[0])])
     if upwelling is not None and np.size(upwelling) > 1:
@@ -385,8 +425,8 @@ def evaluate_compiled(
     t = time.perf_counter()
     slow = np.zeros(tp.size, np.bool_)
     _cells(
-        tp, lid, w, 0 if one else 1, up, 0 if up.size == 1 else 1, par, cv, first, inv, sat,
-        vals, out, flag, slow,
+        tp, lid, w, 0 if one else 1, up, 0 if up.size == 1 else 1, given,
+        0 if given.shape[1] == 1 else 1, par, cv, first, inv, sat, vals, out, flag, slow,
     )  # fmt: skip
     if first_call:
         _COMPILE["seconds"] = time.perf_counter() - t
@@ -406,11 +446,13 @@ def use_compiled(compiled: bool | None) -> bool:
 
 
 def compiled_cells(table, tp, lid, water, *, ambient, min_top_km, upwelling, crust_ratio, clock,
-              numpy_path, out=None, nodata=None):  # fmt: skip
+              numpy_path, out=None, nodata=None, ambient_lid=None, excess=None,
+              min_fraction=0.0):  # fmt: skip
     """The compiled kernel on broadcast arrays; its left cells by ``numpy_path``; or None.
 
-    ``numpy_path(tp, lid, water, upwelling)`` returns the outputs of 1-D cells by name; ``out``
-    and ``nodata`` are :func:`evaluate_compiled`'s.
+    ``numpy_path(tp, lid, water, upwelling, ambient_lid, excess)`` returns the outputs of 1-D
+    cells by name; ``out``, ``nodata``, ``ambient_lid``, ``excess`` and ``min_fraction`` are
+    :func:`evaluate_compiled`'s (the last three also given to ``numpy_path``, None or arrays).
     """
     shape = tp.shape
     t = np.ascontiguousarray(tp).ravel()
@@ -423,9 +465,12 @@ def compiled_cells(table, tp, lid, water, *, ambient, min_top_km, upwelling, cru
     up = upwelling
     if upwelling is not None and np.ndim(upwelling):
         up = np.ascontiguousarray(np.broadcast_to(np.asarray(upwelling, float), shape)).ravel()
+    given = [None if a is None else np.ascontiguousarray(a, float).ravel()
+             for a in (ambient_lid, excess)]  # fmt: skip
     res = evaluate_compiled(
         table, t, d, w, ambient_c=ambient, min_top_km=float(min_top_km), upwelling=up,
-        crust_ratio=crust_ratio, out=out, nodata=nodata,
+        crust_ratio=crust_ratio, out=out, nodata=nodata, ambient_lid=given[0], excess=given[1],
+        min_fraction=min_fraction,
     )  # fmt: skip
     if res is None:
         return None
@@ -435,8 +480,9 @@ def compiled_cells(table, tp, lid, water, *, ambient, min_top_km, upwelling, cru
     start = time.perf_counter()
     if n_slow:
         sub = numpy_path(
-            t[slow], d[slow], w[slow] if np.ndim(w) else w, up[slow] if np.ndim(up) else up
-        )
+            t[slow], d[slow], w[slow] if np.ndim(w) else w, up[slow] if np.ndim(up) else up,
+            *(None if g is None else g[slow] for g in given),
+        )  # fmt: skip
         for name, arr in sub.items():
             out[name][slow] = arr
     if clock is not None:

@@ -116,7 +116,7 @@ def _arrays(table: MeltTable, water, model_arrays):
          inv_du_curve, 1.0 / du_table, float(model.solidus_c(0.0, 0.0)), 0.0,
          float(model.pressure_gpa(1.0)), table.top_pressure_max_gpa,
          model.max_onset_pressure_gpa, np.nan, 0.0, lay.water_max_wt_pct,
-         float(model.hydrous), lay.tp_max_c, np.nan],
+         float(model.hydrous), lay.tp_max_c, np.nan, 0.0, 0.0],
         float,
     )  # fmt: skip
     first = _first_nodes(curves, t0, n_t)
