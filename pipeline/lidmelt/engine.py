@@ -35,8 +35,10 @@ from lidmelt.grids.transaction import RunTransaction
 from lidmelt.physics import (
     FLAG_MEANINGS,
     evaluate_cells,
+    geotherm_tops,
     lid_lookup,
 )
+from lidmelt.physics.geotherm import geotherm_tops_direct
 from lidmelt.progress import band_reporter
 from lidmelt.run_inputs import (
     LID_INPUTS,
@@ -114,6 +116,7 @@ class KernelSettings:
     cooling: Any | None
     lid_isotherm_c: float
     ambient_c: float
+    top_of_melting: str = "isotherm"
     min_top_km: float
     method: str
     sources: dict[str, str]
@@ -150,9 +153,10 @@ def evaluate_chunk(
 ):
     """Every output of one chunk, stacked as (n_outputs + 1, y, x) float32 (flag last).
 
-    The lid is the input lid thickness where finite, else the isotherm depth of the cooling
-    model at the plate age (:func:`lidmelt.physics.lid_lookup`, within 0.01 km of the exact
-    depth); cells without a lid, anomaly or water are NaN (flag
+    The lid is the input lid thickness where finite, else from the plate age: the isotherm depth
+    of the cooling model (:func:`lidmelt.physics.lid_lookup`, within 0.01 km of the exact depth)
+    or, with ``top_of_melting = "geotherm"``, where each column meets its geotherm
+    (:func:`lidmelt.physics.geotherm_tops`); cells without a lid, anomaly or water are NaN (flag
     :data:`lidmelt.variables.FLAG_NODATA`), and so are outputs the inputs do not give (melt
     production without upwelling). ``clock``, a dict, accumulates the thread seconds spent on
     the lid and on melting. ``check_inputs=False`` skips the range check of input blocks that
@@ -166,14 +170,17 @@ def evaluate_chunk(
         if check_inputs and name in s.sources and np.ndim(block):
             check_input_range(block, name, s.sources[name])
     lid = np.broadcast_to(np.asarray(lid_grid, float), shape)
-    if s.cooling is not None:
+    tp = s.ambient_c + np.broadcast_to(np.asarray(anomaly, float), shape)
+    water_arg = water if np.ndim(water) == 0 else np.broadcast_to(water, shape)
+    geotherm = {}
+    if s.cooling is not None and s.top_of_melting == "geotherm":
+        lid, geotherm = _geotherm_lid(s, age, lid_grid, lid, tp, water_arg, shape)
+    elif s.cooling is not None:
         lookup = lid_lookup(s.lid_isotherm_c, model=s.cooling)  # built once, cached
         from_age = lookup.depth_km(np.broadcast_to(age, shape))
         given = np.ndim(lid_grid) or np.isfinite(lid_grid)
         lid = np.where(np.isfinite(lid), lid, from_age) if given else from_age
     t1 = time.perf_counter()
-    tp = s.ambient_c + np.broadcast_to(np.asarray(anomaly, float), shape)
-    water_arg = water if np.ndim(water) == 0 else np.broadcast_to(water, shape)
     out = np.empty((len(OUTPUTS) + 1, *shape), np.float32)
     rows = out.reshape(len(OUTPUTS) + 1, -1)
     res = evaluate_cells(
@@ -189,12 +196,30 @@ def evaluate_chunk(
         crust_density_kg_m3=s.crust_density_kg_m3,
         out=rows[:-1],
         nodata=FLAG_NODATA,
+        **geotherm,
     )
     rows[-1] = res["flag"].ravel()
     if clock is not None:  # dict updates of floats are atomic enough for a timing summary
         clock["lid_thread_s"] = clock.get("lid_thread_s", 0.0) + t1 - t0
         clock["melting_thread_s"] = clock.get("melting_thread_s", 0.0) + time.perf_counter() - t1
     return out
+
+
+def _geotherm_lid(s: KernelSettings, age, lid_grid, lid, tp, water, shape):
+    """The top of melting under the geotherm rule where the lid comes from the age (the lid
+    grid, where finite, stays the user's cap), and the kernel's ambient tops and excesses."""
+    age = np.broadcast_to(np.asarray(age, float), shape)
+    args = (s.cooling, tp, water, age)
+    kw = {"ambient_c": s.ambient_c, "min_top_km": s.min_top_km}
+    if s.table is not None:
+        top, amb, excess = geotherm_tops(s.table, *args, **kw)
+    else:
+        top, amb, excess = geotherm_tops_direct(s.model, *args, **kw)
+    if np.ndim(lid_grid) or np.isfinite(lid_grid):
+        user = np.isfinite(lid)
+        top = np.where(user, lid, top)
+        amb, excess = np.where(user, np.nan, amb), np.where(user, np.nan, excess)
+    return top, {"ambient_lid_depth_km": amb, "excess_k": excess}
 
 
 @dataclass(frozen=True, eq=False)
@@ -233,6 +258,7 @@ def kernel_settings(cfg, *, inputs: RunInputs, model, table, cooling) -> KernelS
     return KernelSettings(
         model=model, table=table, cooling=cooling, lid_isotherm_c=cfg.lithosphere.lid_isotherm_c,
         ambient_c=cfg.model.ambient_potential_temperature_c,
+        top_of_melting=cfg.lithosphere.top_of_melting,
         min_top_km=cfg.model.min_top_of_melting_km, method=cfg.compute.method,
         sources=inputs.sources(), crust_density_kg_m3=cfg.model.crust_density_kg_m3,
         upwelling="upwelling_mm_yr" in inputs.values,

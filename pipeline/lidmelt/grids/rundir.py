@@ -14,8 +14,10 @@ output variable (``<variable>.tif``), the run's inputs aligned to the target gri
 ``height``, ``bounds`` [west, south, east, north] in the grid CRS, ``registration`` ("pixel"
 or "gridline": the node/cell convention of the file that set the grid)},
 ``model`` {``name``, ``parameters`` {name: value}, ``reference``, ``sources``},
-``ambient_potential_temperature_c``, ``cooling`` ({``name``, ``lid_isotherm_c``,
-``parameters``, ``reference``, ``sources``} or null when a lid grid was given),
+``ambient_potential_temperature_c``, ``cooling`` ({``name``, ``top_of_melting`` ("geotherm"
+or "isotherm": the rule for the top of melting of a lid from plate age), ``lid_isotherm_c``
+(null under the geotherm rule), ``parameters``, ``reference``, ``sources``} or null when a lid
+grid was given),
 ``min_top_of_melting_km``,
 ``method`` (``"table"`` or ``"direct"``),
 ``inputs`` {name: {``file`` (aligned grid in this folder, or null for a constant), ``source``
@@ -357,7 +359,8 @@ def provenance_tags(
         "min_top_of_melting_km": cfg.model.min_top_of_melting_km,
         "cooling_model": cooling.name if cooling is not None else "none (lid grid)",
         "cooling_parameters": cooling.parameters() if cooling is not None else {},
-        "lid_isotherm_c": cfg.lithosphere.lid_isotherm_c if cooling is not None else None,
+        "lid_isotherm_c": _lid_isotherm(cfg, cooling),
+        "top_of_melting": cfg.lithosphere.top_of_melting if cooling is not None else None,
         "inputs": {
             name: {
                 "source": p.get("source"),
@@ -457,11 +460,20 @@ def _cooling_entry(cfg: Any, cooling: Any | None) -> dict[str, Any] | None:
         return None
     return {
         "name": cooling.name,
-        "lid_isotherm_c": cfg.lithosphere.lid_isotherm_c,
+        "top_of_melting": cfg.lithosphere.top_of_melting,
+        "lid_isotherm_c": _lid_isotherm(cfg, cooling),
         "parameters": cooling.parameters(),
         "reference": cooling.reference,
         "sources": dict(cooling.sources),
     }
+
+
+def _lid_isotherm(cfg: Any, cooling: Any | None) -> float | None:
+    """The lid isotherm [deg C] a run used: None without a cooling model or under the geotherm
+    rule (which does not read it)."""
+    if cooling is None or cfg.lithosphere.top_of_melting != "isotherm":
+        return None
+    return cfg.lithosphere.lid_isotherm_c
 
 
 def _registration(cfg: Any, provenance: Mapping[str, Mapping[str, Any]]) -> str:
@@ -551,10 +563,22 @@ def write_run_netcdf(
         for name in names:
             da = open_grid(run_dir / file_of(name), name=name, chunks=1024)
             da.attrs = {"units": registry[name].units, "long_name": registry[name].long_name}
+            da.attrs.update(_cf_classes(registry[name]))
             data[name] = da
     data[FLAG_VARIABLE.name] = _cf_flag_variable(run_dir)
     ds = xr.Dataset(data)
     return write_netcdf(ds, run_dir / NETCDF_NAME, attrs={"title": "lidmelt run", **tags})
+
+
+def _cf_classes(var: Any) -> dict[str, Any]:
+    """CF ``flag_values`` and ``flag_meanings`` of a categorical variable's classes (CF
+    conventions, section "Flags"), from the registry; none for other variables."""
+    if not var.classes:
+        return {}
+    return {
+        "flag_values": np.array([c.value for c in var.classes], dtype=np.float32),
+        "flag_meanings": " ".join(c.key for c in var.classes),
+    }
 
 
 def _cf_flag_variable(run_dir: Path) -> xr.DataArray:
