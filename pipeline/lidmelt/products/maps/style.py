@@ -26,10 +26,11 @@ diverging ``RdBu_r`` (ColorBrewer, Harrower & Brewer 2003, from memory), with li
 about zero (the larger magnitude of the 2nd and 98th percentiles) and the zero contour drawn.
 
 Categorical variables (``melting_regime``) have a style with :attr:`MapStyle.classes`: each
-class value gets one colour and a legend entry, and no colour bar is drawn. The regime colours
-are white (no melting, as in the other maps) and the blue and vermillion of the colour-blind
-safe palette of Okabe & Ito (2008), "Color Universal Design" (distinct for the common forms of
-colour-vision deficiency). Melt production (``melt_production_mm_yr``) is sequential
+class value gets one colour and a legend entry (its label from the registry,
+:attr:`lidmelt.variables.Variable.classes`), and no colour bar is drawn. The regime colours are
+white (no melting, as in the other maps) and the blue, reddish purple and vermillion of the
+colour-blind safe palette of Okabe & Ito (2008), "Color Universal Design" (distinct for the
+common forms of colour-vision deficiency). Melt production (``melt_production_mm_yr``) is sequential
 (``plasma``, whose light end is yellow, not white: the white "no melting" class stays distinct;
 magma and inferno end near white), with 0 drawn as "no melting".
 
@@ -55,6 +56,7 @@ from lidmelt.products.maps.probability import (
     PROBABILITY_LIMITS,
     extend_of,
 )
+from lidmelt.variables import OUTPUTS
 
 __all__ = [
     "CANDIDATE_COLOR",
@@ -136,11 +138,18 @@ class MapStyle:
     contours: tuple[float, ...] = ()
 
 
-#: The classes of ``melting_regime`` (colours: white, then Okabe & Ito 2008 blue, vermillion).
-REGIME_CLASSES = (
-    ClassStyle(0, ZERO_COLOR, "no melting"),
-    ClassStyle(1, "#0072B2", "ambient mantle melts (ridge-like, needs only upwelling)"),
-    ClassStyle(2, "#D55E00", "melts only because of the thermal anomaly"),
+#: Colours of the ``melting_regime`` classes by their registry key: white (no melting), then
+#: from Okabe & Ito (2008) blue (ambient mantle only), reddish purple (ambient melts and the
+#: anomaly adds: between the two) and vermillion (the anomaly only).
+_REGIME_COLORS = {
+    "no_melting": ZERO_COLOR,
+    "ambient_only": "#0072B2",
+    "ambient_and_anomaly": "#CC79A7",
+    "anomaly_only": "#D55E00",
+}
+#: The classes of ``melting_regime``: values and labels from the registry, colours above.
+REGIME_CLASSES = tuple(
+    ClassStyle(c.value, _REGIME_COLORS[c.key], c.label) for c in OUTPUTS["melting_regime"].classes
 )
 
 
