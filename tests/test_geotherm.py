@@ -126,11 +126,11 @@ def test_the_table_top_is_the_definition(tp, water, age, cooling):
 
 
 def test_the_table_tops_equal_direct_integration():
-    # direct_top_km (each column integrated at 0.005 GPa, the geotherm exact) against the
-    # table's search (the column's deficit interpolated as H is, the geotherm exact): the tops
-    # within 0.1 km, or within the distance the direct top moves over +-0.25 Ma of age (near a
-    # fold, where the geotherm barely touches the column, the top moves fast with age); the
-    # melt thickness within the table's tolerance (0.5 % or 0.02 km, tests/test_table.py)
+    # direct_top_km (each column integrated at 0.002 GPa, the geotherm exact) against the
+    # table's search (the column's deficit interpolated as H is): the tops within 0.1 km, or
+    # within the distance the direct top moves over +-0.5 Ma of age (near a fold, where the
+    # geotherm barely touches the column, the top moves fast with age); the melt thickness
+    # within the table's tolerance (0.5 % or 0.02 km, tests/test_table.py)
     rng = np.random.default_rng(3)
     n = 40
     tp = rng.uniform(1300.0, 1600.0, n)
@@ -139,11 +139,11 @@ def test_the_table_tops_equal_direct_integration():
     for cooling in MODELS:
         cm = get_cooling_model(cooling)
         top = geotherm_tops(get_table(KATZ), cm, tp, water, age, ambient_c=1350.0)[0]
-        ref = direct_top_km(KATZ, cm, tp, water, age)
+        ref = direct_top_km(KATZ, cm, tp, water, age, step_gpa=0.002)
         npt.assert_array_equal(np.isinf(top), np.isinf(ref))
         fin = np.isfinite(ref)
-        younger = direct_top_km(KATZ, cm, tp, water, np.maximum(age - 0.25, 0.0))
-        older = direct_top_km(KATZ, cm, tp, water, age + 0.25)
+        younger = direct_top_km(KATZ, cm, tp, water, np.maximum(age - 0.5, 0.0))
+        older = direct_top_km(KATZ, cm, tp, water, age + 0.5)
         with np.errstate(invalid="ignore"):
             moves = np.nan_to_num(np.abs(older - younger), nan=np.inf, posinf=np.inf)
         tol = np.maximum(0.1, moves)
@@ -166,9 +166,9 @@ def test_the_compiled_search_equals_the_numpy_search():
             args = (get_table(KATZ), get_cooling_model(cooling), tp, water, age)
             a = geotherm_tops(*args, ambient_c=1350.0, compiled=True)
             b = geotherm_tops(*args, ambient_c=1350.0, compiled=False)
-            # the same steps; the roots converge to 1e-7 GPa (3e-6 km) in each
+            # the same steps; the roots converge to 1e-5 GPa (3e-4 km) in each
             for x, y in zip(a, b, strict=True):
-                npt.assert_allclose(x, y, rtol=0.0, atol=1e-5)
+                npt.assert_allclose(x, y, rtol=0.0, atol=1e-3)
 
 
 @pytest.mark.parametrize("cooling", MODELS)

@@ -31,13 +31,22 @@ evaluates the cooling model exactly (the reference, and the path for cells outsi
 
 from __future__ import annotations
 
+import threading
+import weakref
+
 import numpy as np
 
 from lidmelt.errors import ModelError
 from lidmelt.physics.column import DEFAULT_MIN_TOP_KM, integrate_columns, onset_pressure_gpa
 from lidmelt.physics.cooling import CoolingModel, check_model, temperature_c
 from lidmelt.physics.geotherm_arrays import geotherm_arrays, node_depths_km
-from lidmelt.physics.geotherm_search import AVAILABLE, search_compiled, search_numpy
+from lidmelt.physics.geotherm_search import (
+    AMBIENT_STEP,
+    AVAILABLE,
+    ambient_tops,
+    search_compiled,
+    search_numpy,
+)
 from lidmelt.physics.melting import MeltingModel
 from lidmelt.physics.table import FALLBACK_STEP_GPA, MeltTable
 
@@ -132,11 +141,15 @@ def geotherm_tops(
         [lay.tp_min_c, 1.0 / lay.tp_step_k, table.pressure_gpa[1] - table.pressure_gpa[0],
          arrays.min_top_gpa, table.top_pressure_max_gpa, float(ambient_c),
          0.0 if n_w == 1 else 1.0 / (table.water_u[1] - table.water_u[0]),
-         lay.water_max_wt_pct if not one or in_table else -1.0],
+         lay.water_max_wt_pct if not one or in_table else -1.0, 0.0],
         float,
     )  # fmt: skip
     search = search_compiled if (AVAILABLE if compiled is None else compiled) else search_numpy
-    top, amb, excess, slow = search(arrays, par, tp, water, age)
+    amb_tab = None
+    if in_table and n_w == 1:  # one water content: the ambient column's tops against age
+        amb_tab = _ambient_table(arrays, par, search)
+        par[8] = 1.0 / AMBIENT_STEP
+    top, amb, excess, slow = search(arrays, par, tp, water, age, amb_tab)
     if slow.any():
         w_all = np.broadcast_to(np.asarray(water, float), tp.shape)
         _direct_cells(
@@ -144,6 +157,20 @@ def geotherm_tops(
         )
     to_km = float(model.depth_km(1.0))
     return (top * to_km).reshape(shape), (amb * to_km).reshape(shape), excess.reshape(shape)
+
+
+_AMBIENT_TABLES: weakref.WeakKeyDictionary = weakref.WeakKeyDictionary()
+_LOCK = threading.Lock()
+
+
+def _ambient_table(arrays, par, search):
+    """:func:`lidmelt.physics.geotherm_search.ambient_tops`, kept per arrays and ambient Tp."""
+    key = (float(par[5]), search.__name__)
+    with _LOCK:
+        kept = _AMBIENT_TABLES.setdefault(arrays, {})
+        if key not in kept:
+            kept[key] = ambient_tops(arrays, par, search)
+        return kept[key]
 
 
 def geotherm_tops_direct(

@@ -7,9 +7,13 @@ the shallowest pressure P >= P_min (the minimum top) and above its onset where s
 cell's sqrt(age / Ma): there the geotherm is at least as hot as the column
 (:mod:`lidmelt.physics.geotherm`). The running maximum of s* down each column bounds the cell's
 s* from above, so a binary search on it finds the first node that can qualify; the nodes from
-there are read one by one (usually one or two). Where no node qualifies, or the crossing found
-lies below the cell's onset (interpolated from the corners' onsets), the column meets its
-geotherm nowhere below the minimum top: the top is +inf (the column does not melt).
+there are read one by one (usually one or two), and the crossing lies between the first node
+that qualifies and the one above it. Where s* is smooth there, it is linear between them; where
+it rises steeply (next to a plate's base, :data:`STEEP`), the crossing is solved on the exact
+gap T_g - T_col (the column's deficit linear between the nodes, the geotherm exact), after
+moving to the node interval where that gap changes sign. Where no node qualifies, or the
+crossing found lies below the cell's onset (interpolated from the corners' onsets), the column
+meets its geotherm nowhere below the minimum top: the top is +inf (the column does not melt).
 
 Both paths compute the same thing: the compiled loop cell by cell, the numpy one on blocks of
 cells with every node at once (the compiled one is tested against it).
@@ -31,10 +35,24 @@ try:  # compiles the search; without it the numpy path does the same
 except ImportError:  # pragma: no cover - the numpy path is tested by forcing it
     numba = None
 
-__all__ = ["AVAILABLE", "search_compiled", "search_numpy"]
+__all__ = ["AVAILABLE", "ambient_tops", "search_compiled", "search_numpy"]
 
 AVAILABLE = numba is not None
 _BLOCK = 2048
+#: Across the node interval of the crossing, s* is taken as linear where it rises by between
+#: FLAT and STEEP of the cell's sqrt(age) (about 2 % per node on the half-space's rising
+#: branch [derived from the tables]); where it rises faster (next to a plate's base, where s*
+#: grows without bound: the node below lies on the mantle side at every age) or slower (near a
+#: fold, where a small error in s* moves the crossing far), the crossing is solved on the exact
+#: geotherm (a choice, checked against direct integration in tests/test_geotherm.py).
+STEEP = 0.05
+FLAT = 0.01
+#: Step [sqrt(Ma)] of the ambient column's tops against sqrt(age) (:func:`ambient_tops`): the
+#: top rises about 15 km per sqrt(Ma) near the ridge, so a kink between nodes errs by at most
+#: 0.01 km [derived].
+AMBIENT_STEP = 0.0025
+#: Width [GPa] to which the crossing is solved on the exact gap: 1e-5 GPa is 0.3 m of depth.
+ROOT_TOLERANCE_GPA = 1e-5
 
 
 def _jit(func):
@@ -126,6 +144,8 @@ def _theta(z, age, g):
     q_n, q_step = q, q * q * q  # q^(n^2) and q^(2n + 1) for n = 1
     theta = zeta
     for n in range(1, 11):  # sin(n x) by the Chebyshev recurrence
+        if q_n < 1e-17:  # the rest of the series is below double precision
+            break
         theta += 2.0 / (math.pi * n) * q_n * s_n
         s_prev, s_n = s_n, 2.0 * c1 * s_n - s_prev
         q_n *= q_step
@@ -133,7 +153,7 @@ def _theta(z, age, g):
     return theta
 
 
-@_helper
+@_inline
 def _gap(p, tp, age, i, j, a, c, deficit, depth, g, dp):
     """T_g - T_col [K] at pressure p: L linear between the cell's nodes, T_is and theta exact."""
     n_p = deficit.shape[2]
@@ -148,10 +168,10 @@ def _gap(p, tp, age, i, j, a, c, deficit, depth, g, dp):
 @_helper
 def _root(p_lo, g_lo, p_hi, g_hi, tp, age, i, j, a, c, deficit, depth, g, dp):
     """The shallowest pressure with T_g >= T_col in [p_lo, p_hi] (gap < 0 at p_lo, >= 0 at
-    p_hi): regula falsi, Illinois variant, to 1e-7 GPa (3 mm)."""
+    p_hi): regula falsi, Illinois variant, to :data:`ROOT_TOLERANCE_GPA`."""
     side = 0
     for _ in range(40):
-        if p_hi - p_lo < 1e-7:
+        if p_hi - p_lo < ROOT_TOLERANCE_GPA:
             break
         p = p_hi - g_hi * (p_hi - p_lo) / (g_hi - g_lo)
         if not (p > p_lo and p < p_hi):
@@ -170,7 +190,7 @@ def _root(p_lo, g_lo, p_hi, g_hi, tp, age, i, j, a, c, deficit, depth, g, dp):
     return p_hi
 
 
-@_helper
+@_inline
 def _first_node(x, j, c, s, arrays_s, arrays_run, onset, p_min, dp):
     """(i, a, node) of the first node (below the minimum top) whose interpolated s* >= s, the
     index of the minimum top's node interval where the minimum top itself qualifies, -1 where
@@ -201,7 +221,7 @@ def _first_node(x, j, c, s, arrays_s, arrays_run, onset, p_min, dp):
     return i, a, -1, k_end
 
 
-@_helper
+@_inline
 def _top(tp, x, j, c, age, s_star, s_run, onset, deficit, depth, g, p_min, dp, p_last):
     """(top [GPa] or +inf, whether decided here) of one cell (see the module doc)."""
     if not (x >= 0.0 and x <= s_star.shape[0] - 1.0):
@@ -214,8 +234,21 @@ def _top(tp, x, j, c, age, s_star, s_run, onset, deficit, depth, g, p_min, dp, p
     if k == -1:
         return np.inf, not deep
     k0 = int(p_min / dp)
-    # the node interval [p_lo, p_hi] about the crossing, checked and moved on the exact gap
-    p_hi = p_min if k == k0 else k * dp
+    if k == k0:
+        return p_min, True
+    on_cell = _onset_at(onset, i, j, a, c, np.inf)
+    # s* between the node above (or the minimum top) and node k: linear where it is smooth
+    p_lo = (k - 1) * dp if k - 1 > k0 else p_min
+    s_lo = _at(s_star, i, j, k - 1, a, c)
+    if k - 1 == k0:
+        s_lo += (p_min / dp - k0) * (_at(s_star, i, j, k0 + 1, a, c) - s_lo)
+    s_hi = _at(s_star, i, j, k, a, c)
+    if FLAT * s <= s_hi - s_lo <= STEEP * s:
+        top = p_lo + (s - s_lo) / (s_hi - s_lo) * (k * dp - p_lo)
+        return (top if top < on_cell else np.inf), True
+    # steep (next to a plate's base) or flat (near a fold): the node interval about the
+    # crossing, checked and moved on the exact gap, and the crossing solved on it
+    p_hi = k * dp
     g_hi = _gap(p_hi, tp, age, i, j, a, c, deficit, depth, g, dp)
     p_lo, g_lo = p_hi, g_hi
     if g_hi >= 0.0:
@@ -240,7 +273,24 @@ def _top(tp, x, j, c, age, s_star, s_run, onset, deficit, depth, g, p_min, dp, p
                 break
             p_lo, g_lo = p_hi, g_hi
     top = _root(p_lo, g_lo, p_hi, g_hi, tp, age, i, j, a, c, deficit, depth, g, dp)
-    return (top if top < _onset_at(onset, i, j, a, c, np.inf) else np.inf), True
+    return (top if top < on_cell else np.inf), True
+
+
+@_inline
+def _tabled(tab, y):
+    """The ambient top [GPa] at y = sqrt(age) / step of the table: linear between its nodes
+    where both are finite, +inf where both are, NaN (search it) elsewhere or without a table."""
+    if tab.size < 2:
+        return np.nan
+    m = int(y)
+    if m >= tab.size - 1:
+        return np.nan
+    lo, hi = tab[m], tab[m + 1]
+    if np.isfinite(lo) and np.isfinite(hi):
+        return lo + (y - m) * (hi - lo)
+    if np.isinf(lo) and np.isinf(hi):
+        return np.inf
+    return np.nan
 
 
 @_inline
@@ -257,12 +307,13 @@ def _least(least_tp, j, c, s, inv_ds):
 
 
 @_jit
-def _loop(tp, water, w_stride, age, par, s_star, s_run, onset, least_tp, deficit, depth, g, top,
-          amb, excess, slow):  # fmt: skip
+def _loop(tp, water, w_stride, age, par, s_star, s_run, onset, least_tp, deficit, depth, g,
+          amb_tab, top, amb, excess, slow):  # fmt: skip
     """Tops [GPa] of the cells and of their ambient columns, and the excess to melt [K].
 
     ``par``: Tp of the first node, 1/Tp step, pressure step, minimum top [GPa], deepest node
-    [GPa], ambient Tp, 1/(water-coordinate step) (0: one water slice), largest water [wt%].
+    [GPa], ambient Tp, 1/(water-coordinate step) (0: one water slice), largest water [wt%],
+    1/(sqrt-age step) of ``amb_tab`` (0: none; :func:`ambient_tops`).
     """
     t0, inv_dt, dp, p_min, p_last, ambient, inv_du, w_max = (
         par[0], par[1], par[2], par[3], par[4], par[5], par[6], par[7]
@@ -283,16 +334,23 @@ def _loop(tp, water, w_stride, age, par, s_star, s_run, onset, least_tp, deficit
             j = min(int(y), n_w - 2)
             c = y - j
         ex = _least(least_tp, j, c, math.sqrt(age_ma), 1.0 / SQRT_AGE_STEP) - ambient
-        p, done = _top(
-            t, (t - t0) * inv_dt, j, c, age_ma, s_star, s_run, onset, deficit, depth, g, p_min,
-            dp, p_last,
-        )  # fmt: skip
         p_amb, done_amb = np.nan, True
-        if ex < 0.0:
-            p_amb, done_amb = _top(
-                ambient, x_amb, j, c, age_ma, s_star, s_run, onset, deficit, depth, g, p_min,
-                dp, p_last,
+        if ex < 0.0 or t == ambient:
+            p_amb = _tabled(amb_tab, math.sqrt(age_ma) * par[8])
+            if np.isnan(p_amb):
+                p_amb, done_amb = _top(
+                    ambient, x_amb, j, c, age_ma, s_star, s_run, onset, deficit, depth, g,
+                    p_min, dp, p_last,
+                )  # fmt: skip
+        if t == ambient:  # the ambient column itself: the same top, so no anomaly melt
+            p, done = p_amb, done_amb
+        else:
+            p, done = _top(
+                t, (t - t0) * inv_dt, j, c, age_ma, s_star, s_run, onset, deficit, depth, g,
+                p_min, dp, p_last,
             )  # fmt: skip
+        if not ex < 0.0:
+            p_amb = np.nan
         if not (done and done_amb):
             slow[n] = True
             continue
@@ -304,10 +362,11 @@ def _plain(values):
     return np.require(values, float, ["C", "W"])
 
 
-def search_compiled(arrays: GeothermArrays, par, tp, water, age):
+def search_compiled(arrays: GeothermArrays, par, tp, water, age, amb_tab=None):
     """(top, ambient top [GPa], excess [K], cells left to the caller) by the compiled loop.
 
-    ``tp`` and ``age`` are 1-D float64 arrays, ``water`` a float or such an array.
+    ``tp`` and ``age`` are 1-D float64 arrays, ``water`` a float or such an array; ``amb_tab``
+    the ambient column's tops against sqrt(age) (:func:`ambient_tops`; ``par[8]`` its 1/step).
     """
     tp, age = _plain(tp), _plain(age)
     w = np.array([float(water)]) if np.ndim(water) == 0 else _plain(water)
@@ -316,7 +375,7 @@ def search_compiled(arrays: GeothermArrays, par, tp, water, age):
     _loop(
         tp, w, 0 if w.size == 1 and np.ndim(water) == 0 else 1, age, par, arrays.s_star,
         arrays.s_run, arrays.onset, arrays.least_tp, arrays.deficit, arrays.depth_km,
-        arrays.geotherm, *out, slow,
+        arrays.geotherm, np.zeros(1) if amb_tab is None else _plain(amb_tab), *out, slow,
     )  # fmt: skip
     return (*out, slow)
 
@@ -409,19 +468,51 @@ def _top_numpy(arrays: GeothermArrays, par, tp, x, i, a, j, c, age):
     n_tp = arrays.s_star.shape[0]
     dp, p_min, p_last = par[2], par[3], par[4]
     k0 = int(p_min / dp)
-    k, k_end, p_on = _first_node_numpy(arrays, par, i, a, j, c, np.sqrt(age))
+    s = np.sqrt(age)
+    k, k_end, p_on = _first_node_numpy(arrays, par, i, a, j, c, s)
     with np.errstate(invalid="ignore"):
         inside = (x >= 0.0) & (x <= n_tp - 1.0)
         deep = p_on >= p_last
     top = np.where(k == -2, p_min, np.inf)
-    decided = inside & ((k == -2) | ~deep)
-    todo = np.flatnonzero(inside & (k >= 0))
+    top = np.where(k == k0, p_min, top)
+    decided = inside & ((k == -2) | (k == k0) | ~deep)
+    on_cell = _gather(arrays.onset, i, a, j, c)
+    on_cell = np.where(np.isfinite(on_cell), on_cell, np.inf)
+    # s* between the node above (or the minimum top) and node k: linear where it is smooth
+    todo = np.flatnonzero(inside & (k > k0))
+    kk = k[todo]
+    s_lo = _nodes_at(arrays.s_star, kk - 1, i[todo], a[todo], j[todo], c[todo])
+    s_next = _nodes_at(arrays.s_star, np.full(kk.size, k0 + 1), i[todo], a[todo], j[todo], c[todo])
+    s_lo = np.where(kk - 1 == k0, s_lo + (p_min / dp - k0) * (s_next - s_lo), s_lo)
+    s_hi = _nodes_at(arrays.s_star, kk, i[todo], a[todo], j[todo], c[todo])
+    p_lo = np.where(kk - 1 > k0, (kk - 1) * dp, p_min)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        linear = p_lo + (s[todo] - s_lo) / (s_hi - s_lo) * (kk * dp - p_lo)
+    steep = ~((s_hi - s_lo >= FLAT * s[todo]) & (s_hi - s_lo <= STEEP * s[todo]))
+    top[todo] = np.where(linear < on_cell[todo], linear, np.inf)
+    decided[todo] = True
+    ref = todo[steep]
+    top[ref] = _exact_numpy(arrays, par, tp, age, i, a, j, c, k, k_end, ref, on_cell)
+    return np.where(inside, top, np.nan), decided
+
+
+def _nodes_at(arr, k, i, a, j, c):
+    """arr at node k of each cell, bilinear in Tp and water (1-D cells)."""
+    j1 = np.minimum(j + 1, arr.shape[1] - 1)
+    lo = arr[i, j, k] + a * (arr[i + 1, j, k] - arr[i, j, k])
+    hi = arr[i, j1, k] + a * (arr[i + 1, j1, k] - arr[i, j1, k])
+    return (lo + c * (hi - lo)).astype(np.float64)
+
+
+def _exact_numpy(arrays, par, tp, age, i, a, j, c, k, k_end, todo, on_cell):
+    """The tops of the cells ``todo`` on the exact gap (:func:`_top`'s steep branch)."""
+    dp, p_min = par[2], par[3]
 
     def gap(p, idx):
         return _gap_numpy(arrays, p, tp[idx], age[idx], i[idx], a[idx], j[idx], c[idx], dp)
 
     kk = k[todo].copy()
-    p_hi = np.where(kk == k0, p_min, kk * dp)
+    p_hi = kk * dp
     g_hi = gap(p_hi, todo)
     p_lo, g_lo = p_hi.copy(), g_hi.copy()
     found = np.zeros(todo.size, bool)
@@ -441,12 +532,10 @@ def _top_numpy(arrays: GeothermArrays, par, tp, x, i, a, j, c, age):
         up = np.zeros(todo.size, bool)
         up[keep] = True
     down = ~(g_hi >= 0.0)
-    kk[down] = np.maximum(kk[down], k0)
     while down.any():  # below: step down to the first node at or above the geotherm
         m = np.flatnonzero(down)
         kk[m] += 1
-        beyond = kk[m] > k_end[todo[m]]
-        m = m[~beyond]
+        m = m[kk[m] <= k_end[todo[m]]]
         p_lo[m], g_lo[m] = p_hi[m], g_hi[m]
         p_hi[m] = kk[m] * dp
         g_hi[m] = gap(p_hi[m], todo[m])
@@ -455,12 +544,8 @@ def _top_numpy(arrays: GeothermArrays, par, tp, x, i, a, j, c, age):
         down = np.zeros(todo.size, bool)
         down[m[~stop]] = True
     root = _root_numpy(arrays, par, p_lo, g_lo, p_hi, g_hi, found, gap, todo)
-    on_cell = _gather(arrays.onset, i[todo], a[todo], j[todo], c[todo])
-    on_cell = np.where(np.isfinite(on_cell), on_cell, np.inf)
-    res = np.where(at_min, p_min, np.where(found & (root < on_cell), root, np.inf))
-    top[todo] = res
-    decided[todo] |= at_min | found
-    return np.where(inside, top, np.nan), decided
+    res = np.where(found & (root < on_cell[todo]), root, np.inf)
+    return np.where(at_min, p_min, res)
 
 
 def _root_numpy(arrays, par, p_lo, g_lo, p_hi, g_hi, found, gap, todo):
@@ -469,7 +554,7 @@ def _root_numpy(arrays, par, p_lo, g_lo, p_hi, g_hi, found, gap, todo):
     side = np.zeros(p_lo.size, np.int8)
     act = np.flatnonzero(found)
     for _ in range(40):
-        act = act[p_hi[act] - p_lo[act] >= 1e-7]
+        act = act[p_hi[act] - p_lo[act] >= ROOT_TOLERANCE_GPA]
         if not act.size:
             break
         with np.errstate(invalid="ignore", divide="ignore"):
@@ -488,7 +573,7 @@ def _root_numpy(arrays, par, p_lo, g_lo, p_hi, g_hi, found, gap, todo):
     return p_hi
 
 
-def search_numpy(arrays: GeothermArrays, par, tp, water, age):
+def search_numpy(arrays: GeothermArrays, par, tp, water, age, amb_tab=None):
     """:func:`search_compiled` in numpy (blocks of cells, every node at once)."""
     n = tp.size
     w = np.broadcast_to(np.asarray(water, float), (n,))
@@ -504,16 +589,22 @@ def search_numpy(arrays: GeothermArrays, par, tp, water, age):
         x, i, a, j, c = _corners(arrays, par, t, ww)
         ag = np.where(valid, ag, 0.0)
         ex = _least_numpy(arrays, j, c, np.sqrt(ag)) - par[5]
-        p, done = _top_numpy(arrays, par, t, np.where(valid, x, np.nan), i, a, j, c, ag)
+        own = t == par[5]
         with np.errstate(invalid="ignore"):
-            amb_cells = valid & (ex < 0.0)
-        x_amb = np.where(amb_cells, (par[5] - par[0]) * par[1], np.nan)
+            amb_cells = valid & ((ex < 0.0) | own)
+        p_amb = np.where(amb_cells, _tabled_numpy(amb_tab, np.sqrt(ag) * par[8]), np.nan)
+        look = amb_cells & np.isnan(p_amb)
+        x_amb = np.where(look, (par[5] - par[0]) * par[1], np.nan)
         i_amb = np.clip(np.nan_to_num(x_amb).astype(np.intp), 0, arrays.s_star.shape[0] - 2)
-        p_amb, done_amb = _top_numpy(
+        found, done_amb = _top_numpy(
             arrays, par, np.full(t.size, par[5]), x_amb, i_amb, x_amb - i_amb, j, c, ag
         )
-        p_amb = np.where(amb_cells, p_amb, np.nan)
-        done_amb = done_amb | ~amb_cells
+        p_amb = np.where(look, found, p_amb)
+        done_amb = done_amb | ~look
+        p, done = _top_numpy(arrays, par, t, np.where(valid & ~own, x, np.nan), i, a, j, c, ag)
+        p, done = np.where(own, p_amb, p), np.where(own, done_amb, done)
+        with np.errstate(invalid="ignore"):
+            p_amb = np.where(ex < 0.0, p_amb, np.nan)
         left = valid & ~(done & done_amb)
         slow[sl] |= left
         keep = valid & ~left
@@ -521,6 +612,36 @@ def search_numpy(arrays: GeothermArrays, par, tp, water, age):
         amb[sl] = np.where(keep, p_amb, np.nan)
         excess[sl] = np.where(keep, ex, np.nan)
     return top, amb, excess, slow
+
+
+def _tabled_numpy(tab, y):
+    """:func:`_tabled` in numpy."""
+    if tab is None or tab.size < 2:
+        return np.full(y.shape, np.nan)
+    m = np.minimum(y.astype(np.intp), tab.size - 1)
+    inside = m < tab.size - 1
+    m1 = np.minimum(m + 1, tab.size - 1)
+    lo, hi = tab[m], tab[m1]
+    with np.errstate(invalid="ignore"):
+        both = np.isfinite(lo) & np.isfinite(hi)
+        out = np.where(both, lo + (y - m) * (hi - lo), np.nan)
+        out = np.where(np.isinf(lo) & np.isinf(hi), np.inf, out)
+    return np.where(inside, out, np.nan)
+
+
+def ambient_tops(arrays: GeothermArrays, par, search) -> np.ndarray:
+    """The ambient column's top [GPa] (+inf: none) at sqrt(age) = m :data:`AMBIENT_STEP` up to
+    sqrt(400 Ma), by ``search`` (:func:`search_compiled` or :func:`search_numpy`) with no table.
+
+    With one water content every cell's ambient column is the same function of age: read from
+    this table (linear between nodes where both are finite), it costs no search (the cells
+    between a finite node and an infinite one, about a fold, are searched).
+    """
+    s = AMBIENT_STEP * np.arange(round(20.0 / AMBIENT_STEP) + 1)
+    par = par.copy()
+    par[8] = 0.0
+    water = float(arrays.water_u[0]) ** (1.0 / WATER_EXPONENT)  # the one water content
+    return search(arrays, par, np.full(s.size, par[5]), water, s * s)[0]
 
 
 def _least_numpy(arrays: GeothermArrays, j, c, s):
