@@ -141,8 +141,7 @@ _OUTPUT_LIST = (
     Variable(
         name="lid_depth_km",
         units="km",
-        long_name="top of the melting column (lid base, or where the column meets its geotherm; "
-        "at least the crust base)",
+        long_name="top of the melting column (lid, geotherm or crust base)",
         style="depth",
         undefined_without_melt=True,
     ),
