@@ -275,3 +275,27 @@ def test_geotherm_tops_direct_matches_the_table_path():
 
 def test_the_default_rule_is_one_value():
     assert LithosphereOptions().top_of_melting == DEFAULT_TOP_OF_MELTING
+
+
+@pytest.mark.parametrize("cooling", MODELS)
+def test_the_ambient_columns_tops_from_their_table_equal_direct_integration(cooling):
+    # with one water content the ambient column's top is read from a table against sqrt(age)
+    # (lidmelt.physics.geotherm_search.ambient_tops): against direct integration (0.002 GPa)
+    # within 0.1 km at ages away from the folds (docs/physics.md: 11.2-17 Ma), 0.2 km in the
+    # wet GDH1 sliver just above the plate's base (the column's deficit there is a few K, and
+    # its interpolation in water, as the table's H, moves the crossing; the melt there is below
+    # 0.003 km), and the same top for the ambient column of a cell with an anomaly (its ambient
+    # top) and of a cell at ambient Tp (its own top)
+    cm = get_cooling_model(cooling)
+    ages = np.array([0.0, 0.3, 1.7, 4.0, 8.5, 9.9, 25.0, 40.0, 120.0])
+    for water in (0.0, 0.01):
+        top, _, _ = geotherm_tops(get_table(KATZ), cm, 1350.0, water, ages, ambient_c=1350.0)
+        _, amb, excess = geotherm_tops(get_table(KATZ), cm, 1400.0, water, ages, ambient_c=1350.0)
+        melts = excess < 0
+        npt.assert_array_equal(amb[melts], top[melts])
+        ref = direct_top_km(KATZ, cm, 1350.0, water, ages, step_gpa=0.002)
+        npt.assert_array_equal(np.isinf(top), np.isinf(ref))
+        fin = np.isfinite(ref)
+        base = cm.plate_thickness_km or np.inf
+        tol = np.where(ref > base - 1.0, 0.2, 0.1)
+        assert np.all(np.abs(top - ref)[fin] <= tol[fin]), (top, ref)
