@@ -443,6 +443,9 @@ def _print_table(args, model, tp: float, lid: float, values: dict) -> None:
     if not math.isfinite(ambient):
         print("  (no ambient Tp given: give --ambient C for the excess to melt and the melt the")
         print("   anomaly adds)")
+    if _geotherm(args) and not math.isfinite(lid):
+        print("  (the column meets its geotherm nowhere below the crust base: its onset lies in")
+        print("   the lid, so it does not melt; docs/physics.md, 'One mantle beneath the lid')")
     if args.profile:
         print(f"profile written to {args.profile}")
 
