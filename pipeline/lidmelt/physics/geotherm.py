@@ -40,12 +40,12 @@ from lidmelt.errors import ModelError
 from lidmelt.physics.column import DEFAULT_MIN_TOP_KM, integrate_columns, onset_pressure_gpa
 from lidmelt.physics.cooling import CoolingModel, check_model, temperature_c
 from lidmelt.physics.geotherm_arrays import geotherm_arrays, node_depths_km
+from lidmelt.physics.geotherm_numpy import search_numpy
 from lidmelt.physics.geotherm_search import (
     AMBIENT_STEP,
     AVAILABLE,
     ambient_tops,
     search_compiled,
-    search_numpy,
 )
 from lidmelt.physics.melting import MeltingModel
 from lidmelt.physics.table import FALLBACK_STEP_GPA, MeltTable
