@@ -15,9 +15,12 @@ its own:
 
 Prints per case the wall time, peak RSS, the ratio run / bound, the run's own stage times and the
 kernel's thread seconds; "outside kernel" is the run's wall time minus the kernel thread seconds
-divided by the workers (the part a faster kernel does not shorten, roughly). Run:
+divided by the workers (the part a faster kernel does not shorten, roughly). The runs use the
+workflow default for the top of melting (``--top-of-melting`` picks ``geotherm`` or
+``isotherm``; the geotherm rule's time is in the kernel's "lid" thread seconds). Run:
 
     .venv/bin/python benchmarks/bench_basin.py [--arcmin 1] [--workdir DIR] [--no-wet]
+        [--top-of-melting isotherm]
 
 The synthetic grids are invented (a sinusoidal age pattern and two Gaussian anomalies).
 """
@@ -38,6 +41,8 @@ import numpy as np
 
 #: Workers (threads) of the run; the machine the goals are set for has 2 cores.
 WORKERS = 2
+#: The rule for the top of melting of the runs (set from the command line).
+RULE = ["geotherm"]
 
 
 def make_inputs(folder: Path, width: int, height: int) -> None:
@@ -102,8 +107,9 @@ def run_bound(folder: Path, n_out: int) -> dict:
     return {"wall_s": wall, "files": n_out, "bytes": size}
 
 
-def run_lidmelt(folder: Path, water: float) -> dict:
-    """``run_basin`` on the inputs in ``folder``; dry unless ``water`` > 0 (constant, wt%)."""
+def run_lidmelt(folder: Path, water: float, rule: str) -> dict:
+    """``run_basin`` on the inputs in ``folder``; dry unless ``water`` > 0 (constant, wt%);
+    ``rule`` the top of melting (lithosphere.top_of_melting)."""
     from lidmelt.engine import run_basin
     from lidmelt.workflow import load_workflow
 
@@ -122,6 +128,8 @@ path = "{folder / "age.tif"}"
 [inputs.thermal_anomaly]
 path = "{folder / "anomaly.tif"}"
 {wet}
+[lithosphere]
+top_of_melting = "{rule}"
 [compute]
 chunk_size = 1024
 workers = {WORKERS}
@@ -145,8 +153,8 @@ workers = {WORKERS}
     }
 
 
-def child(mode: str, folder: Path, n_out: int, water: float) -> None:
-    result = run_bound(folder, n_out) if mode == "bound" else run_lidmelt(folder, water)
+def child(mode: str, folder: Path, n_out: int, water: float, rule: str) -> None:
+    result = run_bound(folder, n_out) if mode == "bound" else run_lidmelt(folder, water, rule)
     result["peak_rss_mb"] = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
     print(json.dumps(result))
 
@@ -154,7 +162,7 @@ def child(mode: str, folder: Path, n_out: int, water: float) -> None:
 def measure(mode: str, folder: Path, *, n_out: int = 0, water: float = 0.0) -> dict:
     """Run one case in a fresh process (its own peak RSS); return its JSON result."""
     cmd = [sys.executable, __file__, "--child", mode, "--workdir", str(folder)]
-    cmd += ["--n-out", str(n_out), "--water", str(water)]
+    cmd += ["--n-out", str(n_out), "--water", str(water), "--top-of-melting", RULE[0]]
     out = subprocess.run(cmd, capture_output=True, text=True, check=False)
     if out.returncode:
         sys.stderr.write(out.stderr)
@@ -190,9 +198,11 @@ def main() -> None:
     parser.add_argument("--no-wet", action="store_true", help="skip the wet run")
     parser.add_argument("--child")
     parser.add_argument("--n-out", type=int, default=0)
+    parser.add_argument("--top-of-melting", choices=("geotherm", "isotherm"), default="geotherm")
     args = parser.parse_args()
+    RULE[0] = args.top_of_melting
     if args.child:
-        child(args.child, args.workdir, args.n_out, args.water)
+        child(args.child, args.workdir, args.n_out, args.water, args.top_of_melting)
         return
     base = args.workdir or Path(tempfile.mkdtemp(prefix="lidmelt-bench-"))
     width = 360 * 60 // args.arcmin

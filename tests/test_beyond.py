@@ -12,8 +12,10 @@ Check values:
   K min(X_bulk / D, X_sat)^gamma at F = 0 (Table 2: K = 43, gamma = 0.75, D = 0.01; X_sat held at
   its 7 GPa value beyond it, lidmelt's choice).
 * The floor: PREM's pressure at 400 km, 13.35 GPa (Dziewonski & Anderson 1981, Table II).
-* lidmelt definitions (docs/physics.md): outputs finite or flagged, melt thickness monotonic in
-  Tp.
+* lidmelt definitions (docs/physics.md): outputs finite or flagged (those the registry leaves
+  undefined without melt, onset and mean melt pressure among them, finite where H > 0), melt
+  thickness monotonic in Tp. The onsets checked are the solidus crossings of the scan's columns
+  (``solidus_crossing_depth_km``: the onset whatever the lid).
 """
 
 import numpy as np
@@ -30,6 +32,7 @@ from lidmelt.physics import (
     melt_column,
 )
 from lidmelt.physics.table import TableLayout
+from lidmelt.variables import OUTPUTS
 
 WATERS = (0.0, 0.01, 0.05)
 LIDS = (0.0, 100.0, 250.0)
@@ -75,15 +78,17 @@ def check_scan(model_name, tp_step=1.0):
                 np.count_nonzero(r.flag & bit)
             )
         unusable = (r.flag & (FLAG_INVALID_INPUT | FLAG_NO_ONSET | FLAG_WATER_SATURATED)) > 0
+        melts = ~unusable & (r.melt_thickness_km > 0)
         for name, arr in r.as_dict().items():
-            if name in ("flag", "mean_melt_pressure_gpa", "deep_melt_share"):
-                continue  # undefined without melt: NaN where H = 0 (registry)
-            assert np.all(np.isfinite(arr[~unusable])), (model_name, w, name)
+            if name == "flag":
+                continue
+            defined = melts if OUTPUTS[name].undefined_without_melt else ~unusable
+            assert np.all(np.isfinite(arr[defined])), (model_name, w, name)
         h = np.where(unusable, np.nan, r.melt_thickness_km)
         ok = np.isfinite(h)
         assert np.all(np.diff(h[ok]) >= -1e-4), (model_name, w, np.diff(h[ok]).min())
         # onsets that are solidus crossings between 7 and 13.5 GPa (not the floor, flag 16)
-        p = r.onset_pressure_gpa
+        p = model.pressure_gpa(r.solidus_crossing_depth_km.astype(float))
         cross = ~unusable & (p > 7.0) & (p <= 13.5) & ~(r.flag & FLAG_UPPER_MANTLE_FLOOR > 0)
         if not cross.any():
             continue

@@ -8,7 +8,14 @@ import numpy as np
 import pytest
 
 from lidmelt.cli import main
-from lidmelt.physics import excess_to_melt_k, get_cooling_model, isotherm_depth_km, melt_column
+from lidmelt.physics import (
+    excess_to_melt_k,
+    geotherm_tops,
+    get_cooling_model,
+    get_table,
+    isotherm_depth_km,
+    melt_column,
+)
 from lidmelt.physics.cooling import seafloor_depth_m
 from lidmelt.physics.pressure import water_load_km
 
@@ -29,7 +36,9 @@ def run_json(capsys, *args):
 
 
 def test_json_has_every_key_and_matches_the_api(capsys):
-    doc = run_json(capsys, "--excess-temperature", "200", "--age", "80")
+    doc = run_json(
+        capsys, "--excess-temperature", "200", "--age", "80", "--top-of-melting", "isotherm"
+    )
     assert set(doc) >= KEYS
     half_space = get_cooling_model("half-space")
     lid = float(isotherm_depth_km(1100.0, 80.0, model=half_space))
@@ -57,6 +66,38 @@ def test_no_melt_gives_null_mean_pressure(capsys):
     doc = run_json(capsys, "--potential-temperature", "1350", "--lid-depth", "150")
     assert doc["melt_thickness_km"] == 0.0
     assert doc["mean_melt_pressure_gpa"] is None
+    # lidmelt definition: no onset where nothing melts; the solidus crossing stays (82.2 km at
+    # Tp 1350 C dry, docs/physics.md "Isentropic decompression melting")
+    assert doc["onset_depth_km"] is None
+    assert doc["onset_pressure_gpa"] is None
+    assert doc["solidus_crossing_depth_km"] == pytest.approx(82.2, abs=0.05)
+
+
+def test_the_geotherm_top_of_melting(capsys):
+    # lidmelt definition (docs/physics.md, "One mantle beneath the lid"): with --age the column
+    # melts up to where it meets the cooling model's geotherm (default rule), its depths below
+    # the seafloor beneath the water of the cooling model's seafloor depth at that age; the run
+    # reports the rule, and direct integration and the table agree within the table's tolerance
+    doc = run_json(capsys, "--excess-temperature", "0", "--age", "5")
+    table = run_json(capsys, "--excess-temperature", "0", "--age", "5", "--method", "table")
+    half_space = get_cooling_model("half-space")
+    load = float(water_load_km(seafloor_depth_m(5.0, model=half_space)))
+    top, _amb, excess = geotherm_tops(
+        get_table("katz2003"), half_space, 1350.0, 0.0, 5.0, ambient_c=1350.0,
+        water_load_km=load,
+    )  # fmt: skip
+    assert doc["top_of_melting"] == "geotherm"
+    assert doc["lid_isotherm_c"] is None
+    assert doc["lid_depth_km"] == pytest.approx(float(top), abs=0.3)
+    assert table["lid_depth_km"] == pytest.approx(float(top), abs=1e-4)
+    assert doc["melt_thickness_km"] == pytest.approx(table["melt_thickness_km"], abs=0.03)
+    assert doc["excess_to_melt_k"] == pytest.approx(float(excess), abs=1.5)
+    # beneath 60 Ma half-space seafloor the ambient column meets its geotherm nowhere
+    old = run_json(capsys, "--excess-temperature", "0", "--age", "60")
+    assert old["melt_thickness_km"] == 0.0
+    assert old["lid_depth_km"] is None
+    assert old["onset_depth_km"] is None
+    assert old["melting_regime"] == 0
 
 
 def test_model_parameter_override(capsys):
@@ -182,7 +223,8 @@ def test_the_ambient_used_is_reported_or_the_excess_omitted(capsys):
     tot = melt_column(1450.0, 30.0, 0.0, method="direct").melt_thickness_km
     # lidmelt definition (docs/physics.md): anomaly melt = H(ambient + anomaly) - H(ambient)
     assert doc["anomaly_melt_thickness_km"] == pytest.approx(float(tot - amb))
-    assert doc["melting_regime"] == 1  # ambient mantle melts beneath a 30 km lid
+    # ambient mantle melts beneath a 30 km lid and the anomaly adds (regime 2, the registry)
+    assert doc["melting_regime"] == 2
     # lidmelt definition: crust = H x 3300 / crust density
     assert doc["crustal_thickness_km"] == pytest.approx(float(tot) * 3300.0 / 2900.0)
     doc = run_json(

@@ -124,7 +124,8 @@ def test_melt_never_grows_as_the_lid_thickens():
     res = direct(1550.0, lid)
     assert np.all(np.diff(res.melt_thickness_km) <= 1e-12)
     assert np.all(np.diff(res.max_melt_fraction) <= 1e-12)
-    npt.assert_allclose(res.onset_depth_km, res.onset_depth_km[0])  # the onset is the lid's
+    # the solidus crossing does not depend on the lid (the onset is given where H > 0 only)
+    npt.assert_allclose(res.solidus_crossing_depth_km, res.solidus_crossing_depth_km[0])
 
 
 def test_old_thick_lid_ambient_versus_plume():
@@ -135,8 +136,8 @@ def test_old_thick_lid_ambient_versus_plume():
     ambient = direct(1350.0, lid)
     plume = direct(1350.0 + 250.0, lid)
     assert float(ambient.melt_thickness_km) == 0.0
-    assert np.isfinite(ambient.onset_depth_km)
-    assert float(ambient.onset_depth_km) < lid
+    assert np.isfinite(ambient.solidus_crossing_depth_km)
+    assert float(ambient.solidus_crossing_depth_km) < lid
     assert float(plume.melt_thickness_km) > 1.0
 
 
@@ -162,14 +163,17 @@ def test_outputs_definitions():
     )
 
 
-def test_zero_melt_keeps_the_onset():
-    # lidmelt definition (docs/physics.md, melt thickness): the onset is reported, H = 0, mean
-    # pressure NaN
+def test_zero_melt_keeps_the_solidus_crossing_not_the_onset():
+    # lidmelt definition (docs/physics.md, "Definitions lidmelt fixes"): where H = 0 the onset
+    # depth and pressure and the mean pressure are NaN (nothing melts), and the depth where the
+    # isentrope crosses the solidus is reported as the solidus crossing
     res = direct(1350.0, 120.0)
     assert float(res.melt_thickness_km) == 0.0
     assert float(res.max_melt_fraction) == 0.0
     assert np.isnan(res.mean_melt_pressure_gpa)
-    assert 70.0 < float(res.onset_depth_km) < 120.0
+    assert np.isnan(res.onset_depth_km)
+    assert np.isnan(res.onset_pressure_gpa)
+    assert 70.0 < float(res.solidus_crossing_depth_km) < 120.0
 
 
 def test_onset_is_the_shallowest_crossing():

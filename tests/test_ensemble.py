@@ -352,43 +352,64 @@ seed = 1
 """
 
 
-def test_members_without_an_onset_are_counted_not_zero(tmp_path):
-    """McKenzie & Bickle, an 80 km lid, a 400 K anomaly, ambient Tp uniform 1300-1500 C: the
-    hottest columns find no solidus crossing within the model's pressure range
-    (lidmelt.physics: no onset, NaN). Such members are counted and left out of the totals and
-    drivers, never taken as zero: the volume grows with Tp (hotter mantle melts more:
-    McKenzie & Bickle 1988), so Tp's rank correlation with it is positive."""
+def test_hot_members_melt_more_with_mckenzie_bickle(tmp_path):
+    """McKenzie & Bickle, an 80 km lid, a 400 K anomaly, ambient Tp uniform 1300-1500 C (the
+    case where members without an onset once counted as zero and Tp's rank correlation came out
+    negative): every column now has an onset (the hottest at the upper mantle's floor,
+    lidmelt.physics.FLAG_UPPER_MANTLE_FLOOR), and the volume grows with Tp (hotter mantle melts
+    more: McKenzie & Bickle 1988), so Tp's rank correlation with it is positive."""
     wf = tmp_path / "hot.toml"
     wf.write_text(NO_ONSET)
     cfg = load_workflow(wf, output_dir=tmp_path / "hot")
     stages = ensemble_stages(cfg, announce=False, candidates=ensemble_candidates)
-    with pytest.warns(UserWarning, match=r"ambient_potential_temperature_c from 14"):
-        run = run_basin(cfg, progress=False, extra_stages=stages)
+    run = run_basin(cfg, progress=False, extra_stages=stages)
     entry = run.summary["ensemble"]
     members = pd.read_csv(run.run_dir / "ensemble_members.csv")
-    tp = members["model.ambient_potential_temperature_c"].to_numpy()
-    hot = members["cells_without_value"].to_numpy() > 0
-    assert 0 < hot.sum() < len(members)
-    assert tp[hot].min() > tp[~hot].max()  # the hottest members, as the warning names
-    assert members.loc[hot, "melt_volume_km3"].isna().all()
-    assert (members.loc[hot, "cells_without_value"] == 25).all()  # every cell of the grid
-    assert entry["members_without_value"]["members"] == hot.sum()
-    assert entry["members_without_value"]["member_cells_no_solidus_crossing"] == 25 * hot.sum()
-    assert entry["totals"]["melt_volume_km3"]["members"] == (~hot).sum()
-    assert any("20 ensemble members" in w for w in run.summary["warnings"])
+    assert (members["cells_without_value"] == 0).all()
+    assert entry["totals"]["melt_volume_km3"]["members"] == len(members)
     (tp_driver,) = entry["drivers"]
     assert tp_driver["rank_correlation_melt_volume"] > 0.9
     assert tp_driver["rank_correlation_interval"][0] > 0
     (whole,) = entry["candidates"]["list"]  # the 400 K anomaly adds melt everywhere: one region
-    assert whole["members_without_value"] == hot.sum()
-    assert whole["members_melt_volume_km3"]["members"] == (~hot).sum()
-    assert members.loc[hot, "candidate_1_melt_volume_km3"].isna().all()
-    assert (members.loc[hot, "candidate_1_cells_without_value"] == 25).all()
     assert whole["drivers"][0]["rank_correlation_melt_volume"] > 0.9
+
+
+COLD = (
+    NO_ONSET.replace("constant = 80.0", "constant = 60.0")
+    .replace("constant = 400.0", "constant = 0.0")
+    .replace('"mckenzie-bickle1988"', '"katz2003"')
+    .replace("[1300.0, 1500.0]", "[1000.0, 1500.0]")
+)
+
+
+def test_members_without_a_value_are_counted_not_zero(tmp_path):
+    """Katz et al. 2003, a 60 km lid, no anomaly, ambient Tp uniform 1000-1500 C: the members
+    whose Tp is below the model's surface solidus (1085.7 C, Katz et al. 2003 Table 2 as coded
+    in lidmelt.physics) have no value in any cell (an invalid input, never a melt of 0). They are
+    counted and left out of the totals, percentiles and drivers."""
+    wf = tmp_path / "cold.toml"
+    wf.write_text(COLD)
+    cfg = load_workflow(wf, output_dir=tmp_path / "cold")
+    stages = ensemble_stages(cfg, announce=False, candidates=ensemble_candidates)
+    run = run_basin(cfg, progress=False, extra_stages=stages)
+    entry = run.summary["ensemble"]
+    members = pd.read_csv(run.run_dir / "ensemble_members.csv")
+    tp = members["model.ambient_potential_temperature_c"].to_numpy()
+    cold = members["cells_without_value"].to_numpy() > 0
+    assert 0 < cold.sum() < len(members)
+    assert tp[cold].max() < 1085.7 < tp[~cold].min()
+    assert members.loc[cold, "melt_volume_km3"].isna().all()
+    assert (members.loc[cold, "cells_without_value"] == 25).all()  # every cell of the grid
+    assert entry["members_without_value"]["members"] == cold.sum()
+    assert entry["members_without_value"]["member_cells_invalid_input"] == 25 * cold.sum()
+    assert entry["totals"]["melt_volume_km3"]["members"] == (~cold).sum()
+    assert any("20 ensemble members" in w for w in run.summary["warnings"])
+    (tp_driver,) = entry["drivers"]
+    assert tp_driver["rank_correlation_melt_volume"] > 0.9
     share = read(run, "members_without_value_fraction")
-    assert np.all(share == np.float32(hot.sum() / len(members)))
+    assert np.all(share == np.float32(cold.sum() / len(members)))
     p50 = read(run, "melt_thickness_km_p50")  # over the members with a value only
-    expected = np.percentile(members.loc[~hot, "melt_volume_km3"], 50, method="linear")
+    expected = np.percentile(members.loc[~cold, "melt_volume_km3"], 50, method="linear")
     area = run.summary["statistics"]["melt_volume_km3"] / float(
         read(run, "melt_thickness_km")[0, 0]
     )

@@ -9,7 +9,17 @@ import numpy as np
 import numpy.testing as npt
 import pytest
 
-from lidmelt.physics import evaluate_cells, excess_to_melt_k, melt_column
+from lidmelt.physics import (
+    EXTRACTION_MIN_MELT_FRACTION,
+    REGIME_AMBIENT_AND_ANOMALY,
+    REGIME_AMBIENT_ONLY,
+    REGIME_ANOMALY_ONLY,
+    REGIME_NO_MELTING,
+    evaluate_cells,
+    excess_to_melt_k,
+    melt_column,
+)
+from lidmelt.physics.regime import LEAST_ANOMALY_MELT_KM
 from lidmelt.variables import OUTPUTS
 
 
@@ -27,19 +37,66 @@ def test_every_registered_output_is_computed():
 
 def test_anomaly_melt_and_regime():
     # lidmelt definition: anomaly melt = H(Tp) - H(ambient), same lid and water, never negative;
-    # regime 1 where ambient mantle melts beneath the lid (excess to melt < 0), 2 where only the
-    # anomaly makes it melt, 0 where nothing melts
-    tp = np.array([1350.0, 1450.0, 1450.0, 1600.0, 1300.0, 1350.0])
-    lid = np.array([20.0, 20.0, 120.0, 120.0, 20.0, 150.0])
+    # regime (registry classes, lidmelt.physics.regime): 0 no melting, 1 ambient mantle only
+    # (the anomaly adds less than the least anomaly melt), 2 ambient melts and the anomaly adds,
+    # 3 the anomaly only (ambient mantle does not melt beneath this lid)
+    tp = np.array([1350.0, 1450.0, 1450.0, 1600.0, 1300.0, 1350.0, 1350.1])
+    lid = np.array([20.0, 20.0, 120.0, 120.0, 20.0, 150.0, 20.0])
     out = cells(tp, lid, 0.01)
     h = melt_column(tp, lid, 0.01, method="direct").melt_thickness_km
     h_amb = melt_column(1350.0, lid, 0.01, method="direct").melt_thickness_km
     npt.assert_allclose(out["anomaly_melt_thickness_km"], np.maximum(h - h_amb, 0.0), atol=1e-9)
     assert out["anomaly_melt_thickness_km"][0] == 0.0  # no anomaly: no added melt
     assert out["anomaly_melt_thickness_km"][4] == 0.0  # a cold anomaly adds nothing (never < 0)
+    # 0.1 K adds melt, but less than the least anomaly melt (the registry's negligible_below)
+    assert 0.0 < out["anomaly_melt_thickness_km"][6] < LEAST_ANOMALY_MELT_KM
     ambient_melts = excess_to_melt_k(lid, 0.01) < 0
-    assert list(ambient_melts) == [True, True, False, False, True, False]
-    npt.assert_array_equal(out["melting_regime"], [1, 1, 2, 2, 1, 0])
+    assert list(ambient_melts) == [True, True, False, False, True, False, True]
+    npt.assert_array_equal(out["melting_regime"], [1, 2, 3, 3, 1, 0, 1])
+
+
+def test_regime_classes_are_the_registry_classes():
+    # one place for the classes: the registry (lidmelt.variables), read by the physics
+    classes = {c.key: c.value for c in OUTPUTS["melting_regime"].classes}
+    assert classes == {
+        "no_melting": REGIME_NO_MELTING,
+        "ambient_only": REGIME_AMBIENT_ONLY,
+        "ambient_and_anomaly": REGIME_AMBIENT_AND_ANOMALY,
+        "anomaly_only": REGIME_ANOMALY_ONLY,
+    }
+    assert sorted(classes.values()) == [0, 1, 2, 3]
+
+
+def test_a_column_below_the_extraction_threshold_does_not_count_as_melting():
+    # lidmelt definition: a column whose melt fraction at the top of melting is below
+    # EXTRACTION_MIN_MELT_FRACTION (0.5 %, sources in lidmelt.physics.evaluate) is "not melting"
+    # for the regime; its raw melt thickness and fraction stay in the outputs. Lids just above
+    # the onset of Tp 1350 C (dry, 82.2 km; docs/physics.md) leave a little melt at the top.
+    lid = np.array([81.0, 79.0, 78.0, 70.0])
+    out = cells(np.full(4, 1350.0), lid)
+    f, h = out["max_melt_fraction"], out["melt_thickness_km"]
+    assert np.all(h > 0)
+    small = f < EXTRACTION_MIN_MELT_FRACTION
+    assert small.any()
+    assert not small.all()
+    npt.assert_array_equal(out["melting_regime"][small], REGIME_NO_MELTING)
+    npt.assert_array_equal(out["melting_regime"][~small], REGIME_AMBIENT_ONLY)
+
+
+def test_onset_is_nodata_where_nothing_melts_and_the_crossing_stays():
+    # lidmelt definition (issue: onset depth is defined only where the column melts): where
+    # H = 0 beneath a deep lid the onset depth and pressure are NaN; the solidus crossing depth
+    # is the depth where the isentrope meets the solidus whatever the lid (82.2 km for Tp 1350 C
+    # dry, docs/physics.md "Isentropic decompression melting"); excess to melt stays defined
+    for method in ("direct", "table"):
+        out = cells([1350.0, 1350.0], [20.0, 133.0], method=method)
+        assert out["melt_thickness_km"][1] == 0.0
+        assert np.isnan(out["onset_depth_km"][1])
+        assert np.isnan(out["onset_pressure_gpa"][1])
+        assert np.isnan(out["mean_melt_pressure_gpa"][1])
+        npt.assert_allclose(out["solidus_crossing_depth_km"], 82.2, atol=0.05)
+        npt.assert_allclose(out["onset_depth_km"][0], 82.2, atol=0.05)
+        assert np.all(np.isfinite(out["excess_to_melt_k"]))
 
 
 def test_crust_and_melt_production_follow_their_definitions():
@@ -65,7 +122,7 @@ def test_mckenzie_bickle_ridge_crust_at_1280_c():
         ambient_potential_temperature_c=1280.0,
     )
     assert float(out["crustal_thickness_km"][0]) == pytest.approx(7.0, abs=0.5)
-    assert out["melting_regime"][0] == 1  # a ridge: ambient mantle melts
+    assert out["melting_regime"][0] == REGIME_AMBIENT_ONLY  # a ridge: ambient mantle melts
 
 
 def test_table_and_direct_agree_on_the_new_outputs():

@@ -216,7 +216,7 @@ def test_profile_is_a_cross_section_with_named_waypoints(run, tmp_path):
     assert mid.get_ylabel() == "Melt thickness (km)"
     assert top.get_ylabel() == "Plate age (Ma)"
     legend = [t.get_text() for t in section.get_legend().get_texts()]
-    assert "top of the melting column (lid base or crust base)" in legend
+    assert "top of the melting column (lid, geotherm or crust base)" in legend
     assert "melting column" in legend
     labels = [t.get_text() for ax in fig.axes for t in ax.texts]
     assert {"Start", "Turn", "End"} <= set(labels)

@@ -105,7 +105,10 @@ def test_physics_uses_numpy_and_scipy_only():
             top = module.split(".")[0]
             assert top in allowed_top or top in stdlib_ok, (path.name, module)
             if top == "lidmelt":
-                assert stage_of(module) in ("physics", "errors", "files"), (path.name, module)
+                # the registry (a base module, numpy only) holds the regime's class values and
+                # the least anomaly melt the regime applies: one place for both (DEVELOPERS.md)
+                allowed = ("physics", "errors", "files", "variables")
+                assert stage_of(module) in allowed, (path.name, module)
 
 
 def test_imports_go_one_way():

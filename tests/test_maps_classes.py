@@ -18,6 +18,7 @@ from matplotlib.collections import QuadMesh
 from matplotlib.colors import to_rgb
 
 from lidmelt.products import maps
+from lidmelt.variables import OUTPUTS
 
 # An invented low-latitude box, 1 degree cells from 10 E, 10 N.
 BOX = Affine(1.0, 0.0, 10.0, 0.0, -1.0, 10.0)
@@ -135,18 +136,18 @@ def test_no_hatching_without_flags(blocks_run, make_flag_grid):
 
 
 def regime_fields():
-    """Columns of 10 cells from lon 10 to 50: nodata, regime 0, regime 1, regime 2."""
+    """Columns of 8 cells from lon 10 to 50: nodata, regime 0, 1, 2, 3 (the registry's classes)."""
     regime = np.zeros((20, 40))
-    regime[:, :10] = np.nan
-    regime[:, 20:30] = 1.0
-    regime[:, 30:] = 2.0
+    regime[:, :8] = np.nan
+    for value in (1, 2, 3):
+        regime[:, 8 * (value + 1) : 8 * (value + 2)] = float(value)
     melt = np.where(regime > 0, 3.0, 0.0)
-    melt[:, :10] = np.nan
+    melt[:, :8] = np.nan
     production = np.where(regime > 0, 2.0 * regime, 0.0)
-    production[:, :10] = np.nan
+    production[:, :8] = np.nan
     return {
         "melt_thickness_km": melt,
-        "anomaly_melt_thickness_km": np.where(regime == 2, melt, 0.0),
+        "anomaly_melt_thickness_km": np.where(regime >= 2, melt, 0.0),
         "melting_regime": regime,
         "melt_production_mm_yr": production,
     }
@@ -163,9 +164,16 @@ def test_melting_regime_is_drawn_as_classes_with_a_legend(make_run_dir, new_outp
         assert item.label in info.legend_labels
     assert "no data" in info.legend_labels
     assert "classes named in the legend" in info.caption
-    # Check values: white for no melting (as in the other maps); blue #0072B2 and vermillion
-    # #D55E00 from the colour-blind safe palette of Okabe & Ito (2008); nodata grey #c8c8c8.
-    expected = {25.0: "#ffffff", 35.0: "#0072B2", 45.0: "#D55E00", 15.0: maps.NODATA_COLOR}
+    # Check values: white for no melting (as in the other maps); blue #0072B2, reddish purple
+    # #CC79A7 and vermillion #D55E00 from the colour-blind safe palette of Okabe & Ito (2008);
+    # nodata grey #c8c8c8. The legend's texts are the registry's class labels.
+    expected = {
+        22.0: "#ffffff", 30.0: "#0072B2", 38.0: "#CC79A7", 46.0: "#D55E00",
+        14.0: maps.NODATA_COLOR,
+    }  # fmt: skip
+    assert [c.label for c in maps.REGIME_CLASSES] == [
+        c.label for c in OUTPUTS["melting_regime"].classes
+    ]
     colours = drawn_colours(info.ax)
     for lon, colour in expected.items():
         got = colours[10, int(lon - 10.0)]  # row 10 = lat -0.5; column = whole degrees from 10 E

@@ -320,3 +320,29 @@ def test_cli_screen_old_run_says_how_to_fix(make_run_dir, tmp_path, capsys):
     err = capsys.readouterr().err
     assert "anomaly_melt_thickness_km" in err
     assert "--basis total" in err
+
+
+def test_cells_whose_regime_says_no_melting_are_never_candidates(make_run_dir):
+    # lidmelt definition (docs/physics.md, "Melt that counts"): a column whose melt fraction at
+    # the top stays below the least that can be extracted is "not melting" (regime 0), so it is
+    # no candidate cell even where its raw anomaly melt passes the threshold. Alpha's disk is
+    # split: its western half regime 3 (the anomaly only), its eastern half regime 0.
+    x, y = centres()
+    lon, lat = TO_LONLAT.transform(x, y)
+    name, (px, py), radius, melt_radius, melt = PLUMES[0]
+    disk = geodesic_km(px, py, lon, lat) < melt_radius
+    west = disk & (x < px)
+    run = make_run_dir(
+        {
+            "melt_thickness_km": np.where(disk, melt, 0.0),
+            "anomaly_melt_thickness_km": np.where(disk, melt, 0.0),
+            "melting_regime": np.where(west, 3.0, 0.0),
+        },
+        transform=T,
+        crs="EPSG:6933",
+    )
+    plume_summary(run, [(name, (px, py), radius)])
+    out = screen(run, min_melt_thickness_km=1.0)
+    assert len(out) == 1
+    np.testing.assert_array_equal(shapely.contains_xy(out.iloc[0].geometry, x, y), west)
+    assert out.iloc[0]["n_cells"] == west.sum()

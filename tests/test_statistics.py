@@ -15,10 +15,10 @@ INTEGRALS = ["anomaly_melt_thickness_km"]
 
 
 def _stacked(rng, shape=(40, 30)):
-    """Invented outputs: NaN land, melting and non-melting cells, regimes 0/1/2, flag last."""
+    """Invented outputs: NaN land, melting and non-melting cells, regimes 0-3, flag last."""
     layers = rng.uniform(0.0, 20.0, (len(NAMES) + 1, *shape)).astype(np.float32)
     layers[K["melt_thickness_km"]][rng.random(shape) < 0.3] = 0.0
-    layers[K["melting_regime"]] = rng.integers(0, 3, shape)
+    layers[K["melting_regime"]] = rng.integers(0, 4, shape)
     land = rng.random(shape) < 0.25
     layers[: len(NAMES), land] = np.nan
     layers[K["onset_depth_km"]][layers[K["melt_thickness_km"]] == 0] = np.nan  # only melting
@@ -54,7 +54,7 @@ def test_statistics_from_chunk_records_equal_whole_grid_numpy():
     # reference values: the definitions in docs/physics.md ("Definitions") over the whole grid
     assert st["melting_cells"] == int(np.sum(thickness > 0))
     assert st["data_cells"] == int(np.sum(np.isfinite(thickness)))
-    for v in (0, 1, 2):
+    for v in (0, 1, 2, 3):  # the registry's classes
         assert st["regime_cells"][str(v)] == int(np.sum(regime == v))
     npt.assert_allclose(st["melting_area_km2"], area[thickness > 0].sum(), rtol=1e-12)
     npt.assert_allclose(st["melt_volume_km3"], np.nansum(thickness * area), rtol=1e-12)
@@ -72,7 +72,7 @@ def test_statistics_from_chunk_records_equal_whole_grid_numpy():
         assert got["min"] == float(np.nanmin(layer))  # exact: a value of the grid
         assert got["max"] == float(np.nanmax(layer))
         npt.assert_allclose(got["mean"], np.nanmean(layer.astype(np.float64)), rtol=1e-12)
-    ambient = regime == 1
+    ambient = (regime == 1) | (regime == 2)  # ambient mantle melts (docs/physics.md)
     assert st["ambient_melting"]["cells"] == int(ambient.sum())
     # the histogram median (0.5-wide bins, bin centre) lies within half a bin of numpy's median
     top = layers[K["lid_depth_km"]][ambient]

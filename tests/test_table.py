@@ -11,7 +11,7 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from lidmelt.physics import get_model, get_table, melt_column
+from lidmelt.physics import column_profile, get_model, get_table, melt_column
 from lidmelt.physics.table import (
     FALLBACK_STEP_GPA,
     MeltTable,
@@ -206,3 +206,28 @@ def test_table_steps_are_converged_including_the_deep_coarse_steps():
     assert np.nanmax(coarse_t.onset_gpa) > 13.0  # the deep coarse steps are really taken
     npt.assert_allclose(coarse_t.values[..., 0], fine_t.values[..., 0], atol=1e-3)
     npt.assert_allclose(coarse_t.values[..., 1], fine_t.values[..., 1], atol=1e-5)
+
+
+def test_the_columns_temperature_deficit_is_converged_and_zero_below_the_onset():
+    # identity of the integration: the latent-heat deficit T_is - T_col recorded at the nodes
+    # (for the geotherm top of melting) is the same with steps of 0.005 GPa to 0.05 K (a top
+    # moves by 0.05 K / (10 K/km), 5 m, where the geotherm crosses at its usual 10 K/km against
+    # the column's 1-3 K/km [derived]); it is 0 at and below the onset and positive above it
+    layout = TableLayout(tp_min_c=1300.0, tp_max_c=1500.0, tp_step_k=50.0, water_nodes=2)
+    fine = TableLayout(**{**layout.__dict__, "integration_step_gpa": 0.005})
+    model = get_model("katz2003")
+    coarse_t, fine_t = MeltTable.build(model, layout), MeltTable.build(model, fine)
+    npt.assert_allclose(coarse_t.deficit_k, fine_t.deficit_k, atol=0.05)
+    p = coarse_t.pressure_gpa
+    below = p[None, None, :] >= coarse_t.onset_gpa[:, :, None]
+    assert np.all(coarse_t.deficit_k[below] == 0.0)
+    above = ~below & (p[None, None, :] < coarse_t.onset_gpa[:, :, None] - 0.05)
+    assert np.all(coarse_t.deficit_k[above] > 0.0)
+    # the column of Tp 1350 C (dry): its temperature at the node 0.22 GPa (6.8 km) equals the
+    # direct profile's (lidmelt.physics.column_profile, tests/test_column.py) within 0.1 K
+    table = get_table(model)
+    i = int(np.argmin(np.abs(table.tp_c - 1350.0)))
+    k = round(0.22 / table.layout.pressure_step_gpa)
+    prof = column_profile(1350.0, float(model.depth_km(0.22)), 0.0, step_gpa=0.005, min_top_km=0.0)
+    t_col = model.solid_adiabat_c(1350.0, 0.22) - float(table.deficit_k[i, 0, k])
+    assert t_col == pytest.approx(float(prof["temperature_c"][-1]), abs=0.1)

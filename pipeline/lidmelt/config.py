@@ -37,6 +37,7 @@ __all__ = [
     "PLUME_SHAPES",
     "RESAMPLING_METHODS",
     "SAMPLING_METHODS",
+    "TOP_OF_MELTING_RULES",
     "ComputeOptions",
     "EnsembleOptions",
     "GridSpec",
@@ -70,6 +71,9 @@ INPUT_UNITS: dict[str, str] = {v.workflow_key: v.units for v in variables.INPUTS
 RESAMPLING_METHODS: tuple[str, ...] = ("bilinear", "nearest", "cubic", "average")
 #: How melting is evaluated: interpolate a precomputed lookup table, or integrate each column.
 METHODS: tuple[str, ...] = ("table", "direct")
+#: The rules for the top of melting of a lid from plate age (lidmelt.physics.geotherm, where
+#: they are defined; the default there and here agree, tests/test_geotherm.py).
+TOP_OF_MELTING_RULES: tuple[str, ...] = ("geotherm", "isotherm")
 #: Plume shapes (the shapes of ``lidmelt.grids.anomaly.Plume``).
 PLUME_SHAPES: tuple[str, ...] = ("gaussian", "cosine", "top-hat")
 #: Accepted ambient potential temperature, degrees C. Published ambient values run from about
@@ -384,14 +388,20 @@ class LithosphereOptions:
     cooling : str
         Cooling model name (see ``lidmelt.physics.cooling.get_cooling_model``).
     lid_isotherm_c : float
-        The lid base is the depth of this isotherm, degrees C (default 1100 °C, common
-        practice); it must lie below the cooling model's mantle temperature.
+        With ``top_of_melting = "isotherm"``, the lid base is the depth of this isotherm,
+        degrees C (default 1100 °C, common practice); it must lie below the cooling model's
+        mantle temperature.
+    top_of_melting : str
+        One of :data:`TOP_OF_MELTING_RULES`: ``"geotherm"`` (default; the column melts until it
+        meets the cooling model's conductive geotherm at the cell's age, whose mantle side is
+        the column's own isentrope) or ``"isotherm"`` (melting stops at the lid isotherm).
     parameters : Parameters
         Overrides of the cooling model's parameters.
     """
 
     cooling: str = "half-space"
     lid_isotherm_c: float = 1100.0
+    top_of_melting: str = "geotherm"
     parameters: Parameters = field(default_factory=Parameters)
 
 

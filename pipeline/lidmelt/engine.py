@@ -7,10 +7,10 @@ aligned onto the grid, or a constant), :func:`lid_cooling_model` (the lid from t
 a lid grid), :func:`build_kernel` (the lazy dask kernel over chunks: every variable of
 :data:`lidmelt.variables.OUTPUTS` and the validity flag), :func:`plan_geotiffs` and
 :func:`store_with_statistics` (one pass that stores every GeoTIFF and computes the summary
-statistics band by band), :func:`lidmelt.grids.rundir.write_run_netcdf` (optional) and the summary
-(:func:`lidmelt.grids.rundir.build_summary`). Peak memory is set by the chunk size, not by the
-grid size. Units, long names and ranges come from :mod:`lidmelt.variables`; file names and the
-summary format from :mod:`lidmelt.grids.rundir`.
+statistics band by band), :func:`lidmelt.grids.runnetcdf.write_run_netcdf` (optional) and the
+summary (:func:`lidmelt.grids.rundir.build_summary`). Peak memory is set by the chunk size,
+not by the grid size. Units, long names and ranges come from :mod:`lidmelt.variables`; file
+names and the summary format from :mod:`lidmelt.grids.rundir`.
 """
 
 from __future__ import annotations
@@ -30,6 +30,7 @@ from lidmelt.cluster import connect
 from lidmelt.grids import rundir
 from lidmelt.grids.area import cell_area_km2, row_areas_km2
 from lidmelt.grids.grid import Grid
+from lidmelt.grids.runnetcdf import write_run_netcdf
 from lidmelt.grids.store import GeoTiffItem, GeoTiffSet
 from lidmelt.grids.transaction import RunTransaction
 from lidmelt.physics import (
@@ -37,15 +38,15 @@ from lidmelt.physics import (
     evaluate_cells,
     lid_lookup,
 )
-from lidmelt.physics.cooling import seafloor_depth_m
-from lidmelt.physics.pressure import water_load_km
 from lidmelt.progress import band_reporter
 from lidmelt.run_inputs import (
     LID_INPUTS,
     READ_ERRORS,
     RunInputs,
+    chunk_water_load,
     explain_read_failure,
     files_read,
+    geotherm_lid,
     lid_cooling_model,
     load_inputs,
     load_model,
@@ -121,6 +122,7 @@ class KernelSettings:
     cooling: Any | None
     lid_isotherm_c: float
     ambient_c: float
+    top_of_melting: str = "isotherm"
     min_top_km: float
     method: str
     sources: dict[str, str]
@@ -159,9 +161,10 @@ def evaluate_chunk(
 ):
     """Every output of one chunk, stacked as (n_outputs + 1, y, x) float32 (flag last).
 
-    The lid is the input lid thickness where finite, else the isotherm depth of the cooling
-    model at the plate age (:func:`lidmelt.physics.lid_lookup`, within 0.01 km of the exact
-    depth); cells without a lid, anomaly or water are NaN (flag
+    The lid is the input lid thickness where finite, else from the plate age: the isotherm depth
+    of the cooling model (:func:`lidmelt.physics.lid_lookup`, within 0.01 km of the exact depth)
+    or, with ``top_of_melting = "geotherm"``, where each column meets its geotherm
+    (:func:`lidmelt.physics.geotherm_tops`); cells without a lid, anomaly or water are NaN (flag
     :data:`lidmelt.variables.FLAG_NODATA`), and so are outputs the inputs do not give (melt
     production without upwelling). The water above the seafloor loads the column
     (``settings.water_load``: the ``water_depth`` block [m] of a bathymetry, or the cooling
@@ -177,15 +180,23 @@ def evaluate_chunk(
         if check_inputs and name in s.sources and np.ndim(block):
             check_input_range(block, name, s.sources[name])
     lid = np.broadcast_to(np.asarray(lid_grid, float), shape)
-    if s.cooling is not None:
+    tp = s.ambient_c + np.broadcast_to(np.asarray(anomaly, float), shape)
+    water_arg = water if np.ndim(water) == 0 else np.broadcast_to(water, shape)
+    load = 0.0
+    if s.water_load == "bathymetry" or (s.water_load == "age" and s.cooling is not None):
+        load = chunk_water_load(s.water_load, age, water_depth, shape, s.cooling, s.model)
+    geotherm = {}
+    if s.cooling is not None and s.top_of_melting == "geotherm":
+        lid, geotherm = geotherm_lid(
+            s.model, s.table, s.cooling, (age, lid_grid, tp, water_arg, load), shape,
+            ambient_c=s.ambient_c, min_top_km=s.min_top_km,
+        )  # fmt: skip
+    elif s.cooling is not None:
         lookup = lid_lookup(s.lid_isotherm_c, model=s.cooling)  # built once, cached
         from_age = lookup.depth_km(np.broadcast_to(age, shape))
         given = np.ndim(lid_grid) or np.isfinite(lid_grid)
         lid = np.where(np.isfinite(lid), lid, from_age) if given else from_age
-    load = _water_load(s, age, water_depth, shape)
     t1 = time.perf_counter()
-    tp = s.ambient_c + np.broadcast_to(np.asarray(anomaly, float), shape)
-    water_arg = water if np.ndim(water) == 0 else np.broadcast_to(water, shape)
     out = np.empty((len(OUTPUTS) + 1, *shape), np.float32)
     rows = out.reshape(len(OUTPUTS) + 1, -1)
     res = evaluate_cells(
@@ -202,23 +213,13 @@ def evaluate_chunk(
         out=rows[:-1],
         nodata=FLAG_NODATA,
         water_load_km=load,
+        **geotherm,
     )
     rows[-1] = res["flag"].ravel()
     if clock is not None:  # dict updates of floats are atomic enough for a timing summary
         clock["lid_thread_s"] = clock.get("lid_thread_s", 0.0) + t1 - t0
         clock["melting_thread_s"] = clock.get("melting_thread_s", 0.0) + time.perf_counter() - t1
     return out
-
-
-def _water_load(s: KernelSettings, age, water_depth, shape):
-    """The water load's rock-equivalent depth [km] of a chunk (0.0 without one)."""
-    if s.water_load == "bathymetry":
-        depth_m = np.broadcast_to(np.asarray(water_depth, float), shape)
-    elif s.water_load == "age" and s.cooling is not None:
-        depth_m = seafloor_depth_m(np.broadcast_to(age, shape), model=s.cooling)
-    else:
-        return 0.0
-    return water_load_km(depth_m, s.model.lithostatic_density_kg_m3)
 
 
 @dataclass(frozen=True, eq=False)
@@ -257,6 +258,7 @@ def kernel_settings(cfg, *, inputs: RunInputs, model, table, cooling) -> KernelS
     return KernelSettings(
         model=model, table=table, cooling=cooling, lid_isotherm_c=cfg.lithosphere.lid_isotherm_c,
         ambient_c=cfg.model.ambient_potential_temperature_c,
+        top_of_melting=cfg.lithosphere.top_of_melting,
         min_top_km=cfg.model.min_top_of_melting_km, method=cfg.compute.method,
         sources=inputs.sources(), crust_density_kg_m3=cfg.model.crust_density_kg_m3,
         upwelling="upwelling_mm_yr" in inputs.values, water_load=inputs.water_load[0],
@@ -554,7 +556,7 @@ def _run_staged(
     if cfg.run.netcdf:
         t2 = time.perf_counter()
         files.append(
-            rundir.write_run_netcdf(
+            write_run_netcdf(
                 run_dir, outputs=list(lazy.outputs), gridded_inputs=inputs.gridded, tags=tags
             )
         )

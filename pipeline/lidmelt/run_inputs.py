@@ -30,15 +30,20 @@ from lidmelt.grids.anomaly import Plume, plume_anomaly, plume_cells
 from lidmelt.grids.grid import Grid, registration
 from lidmelt.grids.io import open_input, sha256_file
 from lidmelt.grids.lidref import apply_lid_reference, water_load_source
-from lidmelt.physics import get_cooling_model, get_model, get_table
+from lidmelt.physics import geotherm_tops, get_cooling_model, get_model, get_table
+from lidmelt.physics.cooling import seafloor_depth_m
+from lidmelt.physics.geotherm import geotherm_tops_direct
+from lidmelt.physics.pressure import water_load_km
 from lidmelt.variables import INPUTS, input_for_workflow_key
 
 __all__ = [
     "LID_INPUTS",
     "READ_ERRORS",
     "RunInputs",
+    "chunk_water_load",
     "explain_read_failure",
     "files_read",
+    "geotherm_lid",
     "lid_cooling_model",
     "load_inputs",
     "load_model",
@@ -383,3 +388,35 @@ def refuse_without_data(cfg, *, inputs: RunInputs, statistics: dict, flag_path, 
         + ". Fix the input that is out of range (its unit or its values) and run again."
     )
     raise InputError(msg)
+
+
+def chunk_water_load(source: str, age, water_depth, shape, cooling, model):
+    """The water load's rock-equivalent depth [km] of one chunk (:func:`lidmelt.physics.
+    pressure.water_load_km`): of the bathymetry's water depth block [m] (``source``
+    "bathymetry"), else of the cooling model's seafloor depth at the plate age ("age")."""
+    if source == "bathymetry":
+        depth_m = np.broadcast_to(np.asarray(water_depth, float), shape)
+    else:
+        depth_m = seafloor_depth_m(np.broadcast_to(age, shape), model=cooling)
+    return water_load_km(depth_m, model.lithostatic_density_kg_m3)
+
+
+def geotherm_lid(model, table, cooling, blocks, shape, *, ambient_c: float, min_top_km: float):
+    """The top of melting of one chunk under the geotherm rule where the lid comes from the age
+    (the lid grid, where finite, stays the user's cap), and the kernel's ambient tops and
+    excesses (:func:`lidmelt.physics.geotherm_tops`, by the table or, without one, by direct
+    integration). ``blocks``: the chunk's age, lid grid, Tp, water and water load [km] (the
+    geotherm's depths are below the seafloor, beneath that load)."""
+    age, lid_grid, tp, water, load = blocks
+    lid = np.broadcast_to(np.asarray(lid_grid, float), shape)
+    age = np.broadcast_to(np.asarray(age, float), shape)
+    kw = {"ambient_c": ambient_c, "min_top_km": min_top_km, "water_load_km": load}
+    if table is not None:
+        top, amb, excess = geotherm_tops(table, cooling, tp, water, age, **kw)
+    else:
+        top, amb, excess = geotherm_tops_direct(model, cooling, tp, water, age, **kw)
+    if np.ndim(lid_grid) or np.isfinite(lid_grid):
+        user = np.isfinite(lid)
+        top = np.where(user, lid, top)
+        amb, excess = np.where(user, np.nan, amb), np.where(user, np.nan, excess)
+    return top, {"ambient_lid_depth_km": amb, "excess_k": excess}

@@ -28,13 +28,22 @@ __all__ = [
 ]
 
 #: Warn when more than this fraction of the cells with data melt at the ambient temperature
-#: (melting regime 1): such a grid is dominated by ridge-like melting, not by its anomalies
-#: (lidmelt's choice, common practice for a "most of the map" warning).
+#: (melting regimes 1 and 2): such a grid is dominated by ridge-like melting, not by its
+#: anomalies (lidmelt's choice, common practice for a "most of the map" warning).
 AMBIENT_MELT_WARN_FRACTION = 0.25
-#: Histogram bins of the plate age (Ma) and the top of melting (km) of regime-1 cells, for
-#: their medians: 0.5 Ma and 0.5 km wide up to the inputs' accepted 400 (lidmelt.variables).
+#: Histogram bins of the plate age (Ma) and the top of melting (km) of the cells where ambient
+#: mantle melts, for their medians: 0.5 Ma and 0.5 km wide up to the inputs' accepted 400.
 _HIST_BINS, _HIST_RANGE = 800, (0.0, 400.0)
-_COUNTS = 9  # melting, data, melting area, volume, regime 0/1/2 counts, added-melt cells, area
+#: The regime classes (lidmelt.variables), and those in which ambient mantle melts.
+_REGIMES = tuple(c.value for c in OUTPUTS["melting_regime"].classes)
+_AMBIENT = tuple(
+    c.value
+    for c in OUTPUTS["melting_regime"].classes
+    if c.key in ("ambient_only", "ambient_and_anomaly")
+)
+_ADDED_AT = 4 + len(_REGIMES)  # the added-melt cells and their area follow the regime counts
+#: melting, data, melting area, volume, cells per regime class, added-melt cells and area
+_COUNTS = _ADDED_AT + 2
 #: The output whose cells "with added melt" are counted (not below its ``negligible_below``).
 _ADDED = "anomaly_melt_thickness_km"
 _KM3_PER_MM_KM2 = 1e-6  # 1 mm x 1 km2 = 1e-6 km3 (definition)
@@ -62,25 +71,24 @@ def chunk_record(
     ``block`` is (layers, y, x) (:data:`lidmelt.variables.OUTPUTS` order, the flag last);
     ``area`` the cell areas (km2), (y, x) or one column (y, 1) of row areas; ``age`` the plate
     age (y, x) or None. The record holds, in order: the :data:`_COUNTS` counts and sums
-    (melting cells, cells with data, melting area, melt volume, cells of regime 0, 1, 2), the
-    area integral of each of ``integrals``, per ``out_index`` the minimum, maximum, sum and
-    count of the cells with data (NaN minimum and maximum without any), then the histograms of
-    the top of melting and (with ``age``) the plate age of the regime-1 cells. Counts are
-    exact (float64 holds whole numbers up to 2**53).
+    (melting cells, cells with data, melting area, melt volume, cells of each regime class,
+    cells with added melt and their area), the area integral of each of ``integrals``, per
+    ``out_index`` the minimum, maximum, sum and count of the cells with data (NaN minimum and
+    maximum without any), then the histograms of the top of melting and (with ``age``) the
+    plate age of the cells where ambient mantle melts (regimes 1 and 2). Counts are exact
+    (float64 holds whole numbers up to 2**53).
     """
     thickness = block[0]
     regime = block[_index("melting_regime")]
     finite = np.isfinite(thickness)
     melting = thickness > 0
-    ambient = regime == 1
+    ambient = np.isin(regime, _AMBIENT)
     rec = [
         np.count_nonzero(melting),
         np.count_nonzero(finite),
         _area_sum(melting, area),
         _area_integral(thickness, finite, area),
-        np.count_nonzero(regime == 0),
-        np.count_nonzero(ambient),
-        np.count_nonzero(regime == 2),
+        *(np.count_nonzero(regime == v) for v in _REGIMES),
     ]
     added = added_melt(block[_index(_ADDED)])
     rec += [np.count_nonzero(added), _area_sum(added, area)]
@@ -190,7 +198,8 @@ def summarize_bands(bands: list[list], *, names: list[str], integrals: list[str]
     melting regime, the cells with added melt and their area (:func:`added_melt`) and the area
     integral of each of ``integrals`` (km3 for km, km3/yr for mm/yr) are sums over the chunks;
     per variable the minimum, maximum and mean over cells with data (None where no cell has
-    data); ``ambient_melting`` describes the regime-1 cells. The volumes come anomaly first:
+    data); ``ambient_melting`` describes the cells where ambient mantle melts (regimes 1 and
+    2). The volumes come anomaly first:
     ``anomaly_melt_volume_km3`` (the area integral of the anomaly melt thickness, exact),
     ``ambient_melt_volume_km3`` = total - anomaly-added, i.e. the area integral of
     min(H, H_ambient), the melt ambient mantle would give beneath the same lid (the anomaly
@@ -216,12 +225,13 @@ def summarize_bands(bands: list[list], *, names: list[str], integrals: list[str]
     out: dict[str, Any] = {"data_cells": int(totals[1]), "melting_cells": int(totals[0])}
     out.update(_volumes(totals, integrals))
     out["melting_area_km2"] = float(totals[2])
-    out["added_melt_cells"] = int(totals[7])
-    out["added_melt_area_km2"] = float(totals[8])
-    out["regime_cells"] = {str(v): int(totals[4 + v]) for v in (0, 1, 2)}
+    out["added_melt_cells"] = int(totals[_ADDED_AT])
+    out["added_melt_area_km2"] = float(totals[_ADDED_AT + 1])
+    out["regime_cells"] = {str(v): int(totals[4 + k]) for k, v in enumerate(_REGIMES)}
+    ambient = sum(int(totals[4 + _REGIMES.index(v)]) for v in _AMBIENT)
     out["ambient_melting"] = {
-        "cells": int(totals[5]),
-        "fraction_of_data_cells": float(totals[5] / totals[1]) if totals[1] else None,
+        "cells": ambient,
+        "fraction_of_data_cells": float(ambient / totals[1]) if totals[1] else None,
         "median_top_of_melting_km": _median_of_histogram(hists[0]),
         "median_plate_age_ma": _median_of_histogram(hists[1]) if len(hists) > 1 else None,
     }
@@ -282,7 +292,7 @@ def _ambient_melting_texts(statistics: dict, ambient_c: float) -> list[str]:
     )
     return [
         f"{amb['cells']} of {statistics['data_cells']} cells with data ({100 * frac:.0f} %) melt "
-        "at the ambient potential temperature (melting regime 1): there melting needs only "
+        "at the ambient potential temperature (melting regimes 1 and 2): there melting needs only "
         "upwelling, as at a spreading ridge, not a thermal anomaly. Likely cause: "
         + "; or ".join(causes)
         + ". Use anomaly_melt_thickness_km for the melt the anomalies add."

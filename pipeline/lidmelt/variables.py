@@ -32,6 +32,7 @@ __all__ = [
     "VARIABLES",
     "EnsembleName",
     "Variable",
+    "VariableClass",
     "check_input_range",
     "default_outputs",
     "ensemble_variable",
@@ -44,6 +45,19 @@ __all__ = [
     "probability_long_name",
     "probability_name",
 ]
+
+
+@dataclass(frozen=True)
+class VariableClass:
+    """One class of a categorical variable: its value, a one-word key and its meaning.
+
+    The key is the CF ``flag_meanings`` word (blank-free; CF conventions 1.8, section 3.5
+    "Flags", from memory); the label is what maps, legends, sampling and the report print.
+    """
+
+    value: int
+    key: str
+    label: str
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -83,9 +97,12 @@ class Variable:
     needs : str
         The workflow input (``workflow_key``) an output needs; without that input the output is
         neither computed nor written (``""``: none).
+    classes : tuple of VariableClass
+        The classes of a categorical variable, in value order: the one place their meanings are
+        written (maps, legends, NetCDF ``flag_values``/``flag_meanings``, sampling, the report).
     negligible_below : float
-        values below this are drawn and counted as none; the file keeps the exact value
-        (0.0: only values <= 0 are none, for the variables whose 0 means no melt).
+        Values below this are drawn and counted as none; the file keeps the exact value (0:
+        every value counts).
     """
 
     name: str
@@ -101,6 +118,7 @@ class Variable:
     categorical: bool = False
     default: bool = True
     needs: str = ""
+    classes: tuple[VariableClass, ...] = ()
     negligible_below: float = 0.0
 
     @property
@@ -120,22 +138,23 @@ _OUTPUT_LIST = (
     Variable(
         name="onset_depth_km",
         units="km",
-        long_name="onset depth of melting below the seafloor",
+        long_name="onset depth of melting below the seafloor (where the column melts)",
         style="depth",
         undefined_without_melt=True,
     ),
     Variable(
         name="onset_pressure_gpa",
         units="GPa",
-        long_name="onset pressure of melting",
+        long_name="onset pressure of melting (where the column melts)",
         style="depth",
         undefined_without_melt=True,
     ),
     Variable(
         name="lid_depth_km",
         units="km",
-        long_name="top of the melting column (lid base or crust base)",
+        long_name="top of the melting column (lid, geotherm or crust base)",
         style="depth",
+        undefined_without_melt=True,
     ),
     Variable(
         name="max_melt_fraction",
@@ -163,17 +182,27 @@ _OUTPUT_LIST = (
         long_name="melt thickness added by the thermal anomaly (above that of ambient mantle)",
         style="melt",
         zero_means_no_melt=True,
-        negligible_below=1e-3,  # placeholder (km): the physics sets it from the table's accuracy
+        # the table's stated accuracy on melt thickness (docs/physics.md, "The fast table";
+        # tests/test_table.py): an added melt thinner than that cannot be told from none
+        negligible_below=0.02,
     ),
     Variable(
         name="melting_regime",
         units="1",
         long_name=(
-            "melting regime (0 no melting, 1 ambient mantle melts beneath this lid, "
-            "2 melts only because of the thermal anomaly)"
+            "melting regime (0 no melting, 1 ambient mantle only, 2 ambient mantle melts and "
+            "the anomaly adds, 3 the anomaly only)"
         ),
         style="regime",
         categorical=True,
+        classes=(
+            VariableClass(0, "no_melting", "no melting"),
+            VariableClass(
+                1, "ambient_only", "ambient mantle only (ridge-like; the anomaly adds no melt)"
+            ),
+            VariableClass(2, "ambient_and_anomaly", "ambient mantle melts and the anomaly adds"),
+            VariableClass(3, "anomaly_only", "the anomaly only (ambient mantle does not melt)"),
+        ),
     ),
     Variable(
         name="crustal_thickness_km",
@@ -192,6 +221,16 @@ _OUTPUT_LIST = (
         ),
         style="share",
         undefined_without_melt=True,
+    ),
+    Variable(
+        name="solidus_crossing_depth_km",
+        units="km",
+        long_name=(
+            "depth at which the solid isentrope crosses the solidus, whatever the lid "
+            "(the onset of melting if nothing stopped it)"
+        ),
+        style="depth",
+        default=False,
     ),
     Variable(
         name="melt_production_mm_yr",

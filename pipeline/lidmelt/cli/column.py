@@ -17,29 +17,30 @@ from lidmelt.physics import (
     DEFAULT_AMBIENT_TP_C,
     DEFAULT_COOLING,
     DEFAULT_LID_ISOTHERM_C,
+    DEFAULT_TOP_OF_MELTING,
     FLAG_BEYOND_CALIBRATION,
     FLAG_INVALID_INPUT,
     FLAG_NO_ONSET,
     FLAG_UPPER_MANTLE_FLOOR,
     FLAG_WATER_SATURATED,
+    TOP_OF_MELTING_RULES,
     column_profile,
     evaluate_cells,
+    geotherm_tops,
     get_cooling_model,
     get_model,
+    get_table,
     isotherm_depth_km,
 )
 from lidmelt.physics.cooling import seafloor_depth_m
+from lidmelt.physics.geotherm import geotherm_tops_direct
 from lidmelt.physics.pressure import water_load_km
-from lidmelt.variables import INPUTS
+from lidmelt.variables import INPUTS, OUTPUTS
 
 __all__ = ["register"]
 
-#: Meanings of the melting regime values (lidmelt definition, docs/physics.md).
-_REGIMES = {
-    0: "(no melting)",
-    1: "(ambient mantle melts here: needs only upwelling)",
-    2: "(melts only because of the anomaly)",
-}
+#: Meanings of the melting regime values (the registry's, docs/physics.md).
+_REGIMES = {c.value: f"({c.label})" for c in OUTPUTS["melting_regime"].classes}
 
 
 def register(subparsers: argparse._SubParsersAction) -> None:
@@ -115,11 +116,20 @@ def _add_lid_options(p: argparse.ArgumentParser) -> None:
         help=f"cooling model for --age (default {DEFAULT_COOLING})",
     )
     p.add_argument(
+        "--top-of-melting",
+        default=DEFAULT_TOP_OF_MELTING,
+        choices=TOP_OF_MELTING_RULES,
+        help="with --age: 'geotherm' (melting stops where the column meets the cooling model's "
+        "conductive geotherm, whose mantle side is the column's own isentrope) or 'isotherm' "
+        f"(at the lid isotherm) (default {DEFAULT_TOP_OF_MELTING})",
+    )
+    p.add_argument(
         "--lid-isotherm",
         type=float,
         default=DEFAULT_LID_ISOTHERM_C,
         metavar="C",
-        help=f"isotherm that defines the lid base [deg C] (default {DEFAULT_LID_ISOTHERM_C:g})",
+        help="isotherm that defines the lid base with --top-of-melting isotherm [deg C] "
+        f"(default {DEFAULT_LID_ISOTHERM_C:g})",
     )
     p.add_argument(
         "--water-depth",
@@ -295,12 +305,28 @@ def _unit_hints(args: argparse.Namespace, tp: float) -> list[str]:
 _PLUME_EXCESS_K = 500.0
 
 
-def _lid_km(args: argparse.Namespace) -> float:
-    """The lid base [km]: given, or the lid isotherm's depth at ``--age`` in the cooling model."""
+def _geotherm(args: argparse.Namespace) -> bool:
+    """Whether the top of melting comes from the geotherm rule (``--age`` given)."""
+    return args.age is not None and args.top_of_melting == "geotherm"
+
+
+def _lid_km(args, model, tp: float, ambient: float, load: float) -> tuple[float, dict[str, float]]:
+    """The lid base [km]: given, or from ``--age``: the lid isotherm's depth in the cooling
+    model, or the geotherm top (+inf where the column meets its geotherm nowhere) with the
+    ambient column's top and the excess to melt for :func:`evaluate_cells` (``load``: the water
+    load's rock-equivalent depth [km], beneath which the geotherm's depths are measured)."""
     if args.age is None:
-        return float(args.lid_depth)
+        return float(args.lid_depth), {}
     cooling = get_cooling_model(args.cooling)
-    return float(isotherm_depth_km(args.lid_isotherm, args.age, model=cooling))
+    if not _geotherm(args):
+        return float(isotherm_depth_km(args.lid_isotherm, args.age, model=cooling)), {}
+    kw = {"ambient_c": ambient, "min_top_km": args.min_top, "water_load_km": load}
+    if args.method == "table":
+        tops = geotherm_tops(get_table(model), cooling, tp, args.water, args.age, **kw)
+    else:
+        tops = geotherm_tops_direct(model, cooling, tp, args.water, args.age, **kw)
+    top, amb, excess = (float(v) for v in tops)
+    return top, {"ambient_lid_depth_km": amb, "excess_k": excess}
 
 
 def _water_depth_m(args: argparse.Namespace) -> float:
@@ -357,11 +383,11 @@ def run(args: argparse.Namespace) -> int:
     else:
         ambient = DEFAULT_AMBIENT_TP_C if args.ambient is None else args.ambient
         tp = ambient + args.excess_temperature
-    lid = _lid_km(args)
     water_depth = _water_depth_m(args)
     load = float(water_load_km(water_depth, model.lithostatic_density_kg_m3))
     for note in _unit_hints(args, tp):  # before any error, which they may explain
         print(f"note: {note}.", file=sys.stderr)
+    lid, given = _lid_km(args, model, tp, tp if ambient is None else ambient, load)
     out = evaluate_cells(
         tp,
         lid,
@@ -372,6 +398,7 @@ def run(args: argparse.Namespace) -> int:
         min_top_km=args.min_top,
         crust_density_kg_m3=args.crust_density,
         water_load_km=load,
+        **given,
     )
     flag = int(out.pop("flag"))
     _check_flag(flag, model, tp, args, out)
@@ -382,8 +409,9 @@ def run(args: argparse.Namespace) -> int:
     values["ambient_potential_temperature_c"] = math.nan if ambient is None else ambient
     values["water_depth_m"] = water_depth
     if args.profile:
+        top = lid if math.isfinite(lid) else values["solidus_crossing_depth_km"]
         prof = column_profile(
-            tp, lid, args.water, model=model, min_top_km=args.min_top, water_load_km=load
+            tp, top, args.water, model=model, min_top_km=args.min_top, water_load_km=load
         )
         _write_profile_csv(args.profile, prof)
     if flag & FLAG_BEYOND_CALIBRATION:
@@ -419,12 +447,14 @@ def _json_document(args, model, tp: float, lid: float, flag: int, values: dict) 
         }
     )
     if args.age is not None:
+        geotherm = _geotherm(args)
         doc.update(
             {
                 "plate_age_ma": args.age,
                 "cooling": args.cooling,
-                "lid_isotherm_c": args.lid_isotherm,
-                "lid_base_km": lid,
+                "top_of_melting": args.top_of_melting,
+                "lid_isotherm_c": None if geotherm else args.lid_isotherm,
+                "lid_base_km": None if geotherm else lid,
             }
         )
     return doc
@@ -434,12 +464,16 @@ def _print_table(args, model, tp: float, lid: float, values: dict) -> None:
     lid_label = "lid base"
     if args.age is not None:
         lid_label += f" ({args.cooling}, {args.lid_isotherm:g} C at {args.age:g} Ma)"
+    top_label = "top of melting"
+    if _geotherm(args):
+        top_label += f" (meets the {args.cooling} geotherm at {args.age:g} Ma)"
     rows = [
         ("potential temperature", tp, "C"),
-        (lid_label, lid, "km"),
-        ("top of melting", values["lid_depth_km"], "km"),
+        *(() if _geotherm(args) else ((lid_label, lid, "km"),)),
+        (top_label, values["lid_depth_km"], "km"),
         ("onset depth", values["onset_depth_km"], "km"),
         ("onset pressure", values["onset_pressure_gpa"], "GPa"),
+        ("solidus crossing (whatever the lid)", values["solidus_crossing_depth_km"], "km"),
         ("melt thickness", values["melt_thickness_km"], "km"),
         ("max melt fraction", values["max_melt_fraction"], ""),
         ("mean melt pressure", values["mean_melt_pressure_gpa"], "GPa"),
@@ -466,6 +500,9 @@ def _print_table(args, model, tp: float, lid: float, values: dict) -> None:
     if not math.isfinite(ambient):
         print("  (no ambient Tp given: give --ambient C for the excess to melt and the melt the")
         print("   anomaly adds)")
+    if _geotherm(args) and not math.isfinite(lid):
+        print("  (the column meets its geotherm nowhere below the crust base: its onset lies in")
+        print("   the lid, so it does not melt; docs/physics.md, 'One mantle beneath the lid')")
     if args.profile:
         print(f"profile written to {args.profile}")
 

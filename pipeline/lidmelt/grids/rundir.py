@@ -7,15 +7,18 @@ it through :class:`RunDir`.
 A run directory holds ``summary.json`` (with the marker ``"lidmelt_run": 1``), one GeoTIFF per
 output variable (``<variable>.tif``), the run's inputs aligned to the target grid
 (``input_<name>.tif``), ``validity_flag.tif`` and optionally ``lidmelt.nc``, ``maps/`` and
-``report.html``. The keys of ``summary.json`` that readers may rely on:
+``report.html`` (the NetCDF is written by :mod:`lidmelt.grids.runnetcdf`). The keys of
+``summary.json`` that readers may rely on:
 
 ``lidmelt_run`` (int, format version), ``lidmelt_version``, ``created_utc``,
 ``grid`` {``crs_wkt``, ``transform`` (6 affine coefficients a, b, c, d, e, f), ``width``,
 ``height``, ``bounds`` [west, south, east, north] in the grid CRS, ``registration`` ("pixel"
 or "gridline": the node/cell convention of the file that set the grid)},
 ``model`` {``name``, ``parameters`` {name: value}, ``reference``, ``sources``},
-``ambient_potential_temperature_c``, ``cooling`` ({``name``, ``lid_isotherm_c``,
-``parameters``, ``reference``, ``sources``} or null when a lid grid was given),
+``ambient_potential_temperature_c``, ``cooling`` ({``name``, ``top_of_melting`` ("geotherm"
+or "isotherm": the rule for the top of melting of a lid from plate age), ``lid_isotherm_c``
+(null under the geotherm rule), ``parameters``, ``reference``, ``sources``} or null when a lid
+grid was given),
 ``min_top_of_melting_km``,
 ``method`` (``"table"`` or ``"direct"``),
 ``inputs`` {name: {``file`` (aligned grid in this folder, or null for a constant), ``source``
@@ -46,11 +49,9 @@ import xarray as xr
 from lidmelt import __version__
 from lidmelt.errors import InputError, RunDirError
 from lidmelt.files import write_json_atomic
-from lidmelt.grids.io import open_grid
 from lidmelt.grids.manifest import check_written, seal_summary, verify_manifest
 from lidmelt.grids.transaction import leftovers, lock_holder
-from lidmelt.grids.write import write_netcdf
-from lidmelt.physics import FLAG_INVALID_INPUT, FLAG_KEYS, FLAG_MEANINGS, FLAG_WATER_SATURATED
+from lidmelt.physics import FLAG_INVALID_INPUT, FLAG_MEANINGS, FLAG_WATER_SATURATED
 from lidmelt.variables import (
     FLAG_NODATA,
     FLAG_VARIABLE,
@@ -58,6 +59,7 @@ from lidmelt.variables import (
     OUTPUTS,
     ensemble_variable,
     input_for_workflow_key,
+    is_legacy_probability,
 )
 
 __all__ = [
@@ -75,7 +77,6 @@ __all__ = [
     "provenance_tags",
     "read_flags",
     "seal_run",
-    "write_run_netcdf",
     "write_summary",
 ]
 
@@ -240,7 +241,10 @@ def _check_entries(path: Path, summary: Mapping[str, Any]) -> None:
     for group, file_of in (("outputs", output_file), ("inputs", input_file)):
         for name, entry in _entries(summary, group).items():
             known = name in INPUTS if group == "inputs" else name in OUTPUTS
-            known = known or (group == "outputs" and ensemble_variable(name) is not None)
+            # an ensemble map of this lidmelt, or of an earlier one (products refuse those
+            # with their own message: run again)
+            ensemble = ensemble_variable(name) is not None or is_legacy_probability(name)
+            known = known or (group == "outputs" and ensemble)
             listed = entry.get("file") if isinstance(entry, dict) else None
             if not known or listed not in (None, file_of(name)):
                 msg = (
@@ -377,7 +381,8 @@ def provenance_tags(
         "min_top_of_melting_km": cfg.model.min_top_of_melting_km,
         "cooling_model": cooling.name if cooling is not None else "none (lid grid)",
         "cooling_parameters": cooling.parameters() if cooling is not None else {},
-        "lid_isotherm_c": cfg.lithosphere.lid_isotherm_c if cooling is not None else None,
+        "lid_isotherm_c": _lid_isotherm(cfg, cooling),
+        "top_of_melting": cfg.lithosphere.top_of_melting if cooling is not None else None,
         "inputs": {
             name: {
                 "source": p.get("source"),
@@ -478,11 +483,20 @@ def _cooling_entry(cfg: Any, cooling: Any | None) -> dict[str, Any] | None:
         return None
     return {
         "name": cooling.name,
-        "lid_isotherm_c": cfg.lithosphere.lid_isotherm_c,
+        "top_of_melting": cfg.lithosphere.top_of_melting,
+        "lid_isotherm_c": _lid_isotherm(cfg, cooling),
         "parameters": cooling.parameters(),
         "reference": cooling.reference,
         "sources": dict(cooling.sources),
     }
+
+
+def _lid_isotherm(cfg: Any, cooling: Any | None) -> float | None:
+    """The lid isotherm [deg C] a run used: None without a cooling model or under the geotherm
+    rule (which does not read it)."""
+    if cooling is None or cfg.lithosphere.top_of_melting != "isotherm":
+        return None
+    return cfg.lithosphere.lid_isotherm_c
 
 
 def _registration(cfg: Any, provenance: Mapping[str, Mapping[str, Any]]) -> str:
@@ -558,37 +572,3 @@ def seal_run(run_dir: str | Path, doc: Mapping[str, Any], *, sources: Mapping[st
     written = json.loads(path.read_text(encoding="utf-8"))
     verify_manifest(run_dir, written)
     return path
-
-
-def write_run_netcdf(
-    run_dir: Path, *, outputs: list[str], gridded_inputs: list[str], tags: dict[str, Any]
-) -> Path:
-    """One CF NetCDF of every variable, read back lazily from the finished GeoTIFFs."""
-    data = {}
-    for names, registry, file_of in (
-        (outputs, OUTPUTS, output_file),
-        (gridded_inputs, INPUTS, input_file),
-    ):
-        for name in names:
-            da = open_grid(run_dir / file_of(name), name=name, chunks=1024)
-            da.attrs = {"units": registry[name].units, "long_name": registry[name].long_name}
-            data[name] = da
-    data[FLAG_VARIABLE.name] = _cf_flag_variable(run_dir)
-    ds = xr.Dataset(data)
-    return write_netcdf(ds, run_dir / NETCDF_NAME, attrs={"title": "lidmelt run", **tags})
-
-
-def _cf_flag_variable(run_dir: Path) -> xr.DataArray:
-    """The validity flags as a CF flag variable: uint8 bits with ``flag_masks`` and
-    ``flag_meanings`` (CF conventions, section "Flags"), fill value the flags' nodata."""
-    da = open_grid(run_dir / FLAG_FILE, name=FLAG_VARIABLE.name, chunks=1024)
-    da = da.fillna(FLAG_NODATA).astype(np.uint8)
-    bits = sorted(FLAG_KEYS)
-    da.attrs = {
-        "units": FLAG_VARIABLE.units,
-        "long_name": FLAG_VARIABLE.long_name,
-        "flag_masks": np.array(bits, dtype=np.uint8),
-        "flag_meanings": " ".join(FLAG_KEYS[b] for b in bits),
-        "_FillValue": np.uint8(FLAG_NODATA),
-    }
-    return da.rio.write_nodata(FLAG_NODATA, encoded=False)

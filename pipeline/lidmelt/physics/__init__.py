@@ -5,6 +5,7 @@ Nothing in this subpackage reads or writes files, except the melting table's dis
 """
 
 from lidmelt.physics._jitcache import cache_note as compiled_cache_note
+from lidmelt.physics.cells import evaluate_cells
 from lidmelt.physics.column import column_profile
 from lidmelt.physics.cooling import COOLING_MODELS, get_cooling_model, isotherm_depth_km
 from lidmelt.physics.evaluate import (
@@ -17,14 +18,15 @@ from lidmelt.physics.evaluate import (
     FLAG_NO_ONSET,
     FLAG_UPPER_MANTLE_FLOOR,
     FLAG_WATER_SATURATED,
-    REGIME_AMBIENT_MELTS,
+    REGIME_AMBIENT_AND_ANOMALY,
+    REGIME_AMBIENT_ONLY,
     REGIME_ANOMALY_ONLY,
     REGIME_NO_MELTING,
     ColumnResult,
-    evaluate_cells,
     excess_to_melt_k,
     melt_column,
 )
+from lidmelt.physics.geotherm import DEFAULT_TOP_OF_MELTING, TOP_OF_MELTING_RULES, geotherm_tops
 from lidmelt.physics.lidlookup import LidLookup, lid_lookup
 from lidmelt.physics.melting import MODELS, MeltingModel, get_model
 from lidmelt.physics.table import MeltTable, get_table
@@ -35,6 +37,7 @@ __all__ = [
     "DEFAULT_AMBIENT_TP_C",
     "DEFAULT_COOLING",
     "DEFAULT_LID_ISOTHERM_C",
+    "DEFAULT_TOP_OF_MELTING",
     "EXTRACTION_MIN_MELT_FRACTION",
     "FLAG_BEYOND_CALIBRATION",
     "FLAG_INVALID_INPUT",
@@ -44,9 +47,11 @@ __all__ = [
     "FLAG_UPPER_MANTLE_FLOOR",
     "FLAG_WATER_SATURATED",
     "MODELS",
-    "REGIME_AMBIENT_MELTS",
+    "REGIME_AMBIENT_AND_ANOMALY",
+    "REGIME_AMBIENT_ONLY",
     "REGIME_ANOMALY_ONLY",
     "REGIME_NO_MELTING",
+    "TOP_OF_MELTING_RULES",
     "ColumnResult",
     "LidLookup",
     "MeltTable",
@@ -55,6 +60,7 @@ __all__ = [
     "compiled_cache_note",
     "evaluate_cells",
     "excess_to_melt_k",
+    "geotherm_tops",
     "get_cooling_model",
     "get_model",
     "get_table",

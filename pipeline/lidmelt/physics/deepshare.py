@@ -98,7 +98,7 @@ def top_pressure(model, top_km, load_km, gpa_per_km):
     z = top_km + load_km
     lin = z * gpa_per_km
     with np.errstate(invalid="ignore"):
-        deep = z > model.depth_pressure.join_km
+        deep = (z > model.depth_pressure.join_km) & (z < np.inf)
     return np.where(deep, model.depth_pressure.pressure_gpa(z), lin) if deep.any() else lin
 
 
@@ -106,6 +106,6 @@ def onset_depth(model, p_on, load_km, km_per_gpa):
     """Depth below the seafloor [km] of ``p_on`` (the inverse of :func:`top_pressure`)."""
     lin = p_on * km_per_gpa
     with np.errstate(invalid="ignore"):
-        deep = p_on > model.depth_pressure.join_gpa
+        deep = (p_on > model.depth_pressure.join_gpa) & (p_on < np.inf)
     z = np.where(deep, model.depth_pressure.depth_km(p_on), lin) if deep.any() else lin
     return z - load_km

@@ -4,8 +4,9 @@
 the onset and integrates the column (:mod:`lidmelt.physics.column`) or interpolates the
 precomputed table (:mod:`lidmelt.physics.table`), and assembles every output variable and the
 bit flag (:func:`finish_outputs`). :func:`excess_to_melt_k` inverts the onset condition at the
-top of melting. :func:`evaluate_cells` computes every output variable of a run from the cell
-inputs (the column outputs, the melt the anomaly adds, the regime, crust and melt production).
+top of melting. :func:`lidmelt.physics.cells.evaluate_cells` computes every output variable of
+a run from the cell inputs (the column outputs, the melt the anomaly adds, the regime, crust
+and melt production); :data:`EXTRACTION_MIN_MELT_FRACTION` is its least extracted melt fraction.
 
 Definitions (docs/physics.md, section "Definitions lidmelt fixes"):
 
@@ -16,7 +17,8 @@ Definitions (docs/physics.md, section "Definitions lidmelt fixes"):
   surface down to ``model.max_onset_pressure_gpa``.
 * Melt thickness H = integral of F dz from the top of melting to the onset [km]; 0 where the
   onset is shallower than the top. Max melt fraction is F at the top; mean melt pressure is
-  integral of P dF / F_top (NaN where no melt).
+  integral of P dF / F_top, onset depth and pressure are given where H > 0 (NaN where no melt);
+  the solidus crossing depth is the onset's depth whatever the lid.
 * Water is batch-partitioned and stays in the column.
 """
 
@@ -57,10 +59,17 @@ from lidmelt.physics.flags import (
 from lidmelt.physics.kernel import ROWS as OUTPUT_ROWS
 from lidmelt.physics.kernel import compiled_cells, use_compiled
 from lidmelt.physics.melting import MeltingModel, get_model
+from lidmelt.physics.regime import (
+    REGIME_AMBIENT_AND_ANOMALY,
+    REGIME_AMBIENT_ONLY,
+    REGIME_ANOMALY_ONLY,
+    REGIME_NO_MELTING,
+)
 from lidmelt.physics.table import FALLBACK_STEP_GPA, MeltTable, get_table
 
 __all__ = [
     "COLUMN_OUTPUTS",
+    "EXTRACTION_MIN_MELT_FRACTION",
     "FLAG_BEYOND_CALIBRATION",
     "FLAG_INVALID_INPUT",
     "FLAG_KEYS",
@@ -69,11 +78,11 @@ __all__ = [
     "FLAG_UPPER_MANTLE_FLOOR",
     "FLAG_WATER_SATURATED",
     "OUTPUT_ROWS",
-    "REGIME_AMBIENT_MELTS",
+    "REGIME_AMBIENT_AND_ANOMALY",
+    "REGIME_AMBIENT_ONLY",
     "REGIME_ANOMALY_ONLY",
     "REGIME_NO_MELTING",
     "ColumnResult",
-    "evaluate_cells",
     "excess_to_melt_k",
     "finish_outputs",
     "input_flags",
@@ -81,7 +90,20 @@ __all__ = [
 ]
 
 _BLOCK = 1 << 16
-EXTRACTION_MIN_MELT_FRACTION = 0.005  # placeholder; the value and its source come with issue 18
+
+#: The least melt fraction at the top of melting for which a column counts as melting (regime,
+#: ensemble probability, screening); below it the melt stays in the matrix. Geochemical models
+#: of ridge melting have melt separate from the matrix at porosities of order 0.1 % (Faul 2001,
+#: Nature 410, 920, abstract [verified]); U-series disequilibria give 0.1-0.2 % of melt beneath
+#: a ridge (Lundstrom, Gill, Williams & Perfit 1995, Science 270, 1958, abstract [verified]) and
+#: a residual porosity of "a few parts per thousand" (Bourdon & Elliott 2010, in Timescales of
+#: Magmatic Processes, Wiley, abstract [verified]); near-fractional melting needs porosities
+#: below 1 % (Kelemen, Hirth, Shimizu, Spiegelman & Dick 1997, Phil. Trans. R. Soc. A 355, 283,
+#: abstract [verified; journal from memory]). lidmelt takes 0.5 %, "a few parts per thousand" at
+#: its upper end, so that a column counted as melting has made more melt than any of these
+#: estimates leaves behind (a choice). F is a mass fraction and porosity a volume fraction
+#: (about F rho_s / rho_f, 14 % more [derived]), well inside the spread of the estimates.
+EXTRACTION_MIN_MELT_FRACTION = 0.005
 
 COLUMN_OUTPUTS = (
     "melt_thickness_km",
@@ -91,6 +113,7 @@ COLUMN_OUTPUTS = (
     "max_melt_fraction",
     "mean_melt_pressure_gpa",
     "deep_melt_share",
+    "solidus_crossing_depth_km",
 )
 
 
@@ -101,9 +124,9 @@ class ColumnResult:
     Attributes
     ----------
     melt_thickness_km, onset_depth_km, onset_pressure_gpa, lid_depth_km, max_melt_fraction,
-    mean_melt_pressure_gpa, deep_melt_share : numpy.ndarray
-        The output variables (``lid_depth_km`` is the top of melting used); their units and
-        long names are in :mod:`lidmelt.variables`.
+    mean_melt_pressure_gpa, deep_melt_share, solidus_crossing_depth_km : numpy.ndarray
+        The output variables (``lid_depth_km`` is the top of melting used; the onset is NaN
+        where H = 0, the solidus crossing is not); units and long names: :mod:`lidmelt.variables`.
     flag : numpy.ndarray of uint8
         Bit flags ``FLAG_*``; 0 where the cell is valid and calibrated.
     model : MeltingModel
@@ -117,6 +140,7 @@ class ColumnResult:
     max_melt_fraction: np.ndarray
     mean_melt_pressure_gpa: np.ndarray
     deep_melt_share: np.ndarray
+    solidus_crossing_depth_km: np.ndarray
     flag: np.ndarray
     model: MeltingModel
 
@@ -141,7 +165,8 @@ def finish_outputs(
         p_on = np.where(invalid, np.nan, p_on)  # an invalid cell has no onset to flag
         no_onset = ~invalid & ~np.isfinite(p_on)
         flag = flag | np.where(no_onset, FLAG_NO_ONSET, 0).astype(np.uint8)
-        flag = flag | beyond_flags(model, p_on, np.where(invalid, np.nan, top_p))
+        # an infinite top (the column meets its geotherm nowhere) rests on no phase boundary
+        flag = flag | beyond_flags(model, p_on, np.where(invalid | np.isinf(top_p), np.nan, top_p))
         saturated = np.isfinite(p_on) & (w > model.water_saturated_bulk_wt_pct(p_on))
         flag = flag | np.where(saturated, FLAG_WATER_SATURATED, 0).astype(np.uint8)
         bad = invalid | no_onset | saturated
@@ -151,14 +176,16 @@ def finish_outputs(
         mean_p = np.where(melting & (f > 0), int_p_df / np.where(f > 0, f, 1.0), np.nan)
         p_on = np.where(bad, np.nan, p_on)
         share = deep_melt_share(model, h, p_on, top_p, *deep)
+        p_melt = np.where(h > 0, p_on, np.nan)  # the onset where the column melts
     return ColumnResult(
         melt_thickness_km=h,
-        onset_depth_km=model.depth_km(p_on, load_km),
-        onset_pressure_gpa=p_on,
-        lid_depth_km=np.where(invalid, np.nan, top_km),
+        onset_depth_km=model.depth_km(p_melt, load_km),
+        onset_pressure_gpa=p_melt,
+        lid_depth_km=np.where(invalid | np.isinf(top_km), np.nan, top_km),
         max_melt_fraction=f,
         mean_melt_pressure_gpa=mean_p,
         deep_melt_share=share,
+        solidus_crossing_depth_km=model.depth_km(p_on, load_km),
         flag=flag,
         model=model,
     )
@@ -184,7 +211,8 @@ def melt_column(
     potential_temperature_c : array_like
         Potential temperature Tp of the mantle [deg C] (ambient plus thermal anomaly).
     lid_depth_km : array_like
-        Depth of the lid base (lithosphere) below the seafloor [km], >= 0.
+        Depth of the lid base (lithosphere) below the seafloor [km], >= 0 (+inf: the column
+        meets its geotherm nowhere and does not melt, :mod:`lidmelt.physics.geotherm`).
     water_wt_pct : array_like, optional
         Water in the bulk source [wt%] (0.01 wt% = 100 ppm). Default 0 (dry).
     model : str or MeltingModel, optional
@@ -229,7 +257,7 @@ def melt_column(
             res = compiled_cells(
                 tab, tp, lid, w, ambient=np.nan, min_top_km=min_top_km, upwelling=None,
                 crust_ratio=1.0, clock=None, load=water_load_km,
-                numpy_path=lambda t, d, ww, _, zw: _table_columns(
+                numpy_path=lambda t, d, ww, _, zw, *__: _table_columns(
                     tab, t, *np.broadcast_arrays(d, ww, zw), min_top_km=min_top_km
                 ).as_dict(),
             )  # fmt: skip
@@ -249,7 +277,7 @@ def _direct(model, tp, lid, w, *, min_top_km, step_gpa, load_km):
     top_km = top_of_melting_km(np.where(ok, lid, 0.0), min_top_km)
     p_on = np.full(tp.shape, np.nan)
     p_on[ok] = onset_pressure_gpa(model, tp[ok], w[ok])
-    top_p = model.pressure_gpa(top_km, load_km)
+    top_p = model.pressure_gpa(np.where(np.isinf(top_km), np.nan, top_km), load_km)
     t_ok, w_ok = np.where(ok, tp, 1300.0), np.where(ok, w, 0.0)
     res = integrate_columns(model, t_ok, w_ok, p_on, top_p, step_gpa=step_gpa)
     deep = direct_at_calibration(model, t_ok, w_ok, p_on, top_p, step_gpa)
@@ -302,163 +330,6 @@ def excess_to_melt_k(
             | (top_p > model.max_onset_pressure_gpa)
         )
     return np.where(bad, np.nan, tp_k - 273.15 - float(ambient_potential_temperature_c))
-
-
-# ------------------------------------------------------------------------------------------------
-# every output of a cell
-# ------------------------------------------------------------------------------------------------
-#: Regime values of the ``melting_regime`` output (docs/physics.md, "Definitions").
-REGIME_NO_MELTING, REGIME_AMBIENT_MELTS, REGIME_ANOMALY_ONLY = 0, 1, 2
-
-
-def evaluate_cells(
-    potential_temperature_c,
-    lid_depth_km,
-    water_wt_pct=0.0,
-    *,
-    ambient_potential_temperature_c: float,
-    model: str | MeltingModel = "katz2003",
-    method: str = "table",
-    table: MeltTable | None = None,
-    min_top_km: float = DEFAULT_MIN_TOP_KM,
-    upwelling_mm_yr=None,
-    crust_density_kg_m3: float = 2900.0,
-    compiled: bool | None = None,
-    clock: dict | None = None,
-    out: np.ndarray | None = None,
-    nodata: int | None = None,
-    water_load_km=0.0,
-) -> dict[str, np.ndarray]:
-    """Every output variable of :mod:`lidmelt.variables` and the ``"flag"``, for arrays of cells.
-
-    Beside the column outputs of :func:`melt_column` (Tp = ambient + anomaly):
-
-    * ``excess_to_melt_k``: :func:`excess_to_melt_k` at the ambient Tp.
-    * ``anomaly_melt_thickness_km``: H(Tp) - H(ambient), same lid and water, never negative.
-      H(ambient) is non-zero only where ambient mantle melts beneath the lid, that is where the
-      excess to melt is negative, so the ambient column is evaluated only there.
-    * ``melting_regime``: 0 no melting (H = 0); 1 H > 0 and ambient mantle melts beneath this lid
-      (melting needs only upwelling); 2 H > 0 only because of the anomaly. NaN where H is.
-    * ``crustal_thickness_km``: H rho_s / rho_crust, rho_s the model's solid density.
-    * ``melt_production_mm_yr`` (only with ``upwelling_mm_yr``): W F(top), the rock-equivalent
-      melt volume per unit area and time leaving the top of a steady one-dimensional column
-      (mass balance: solid flux rho_s W enters, a fraction F(top) of it leaves as melt).
-
-    Definitions: docs/physics.md, section "Definitions lidmelt fixes"; ``water_wt_pct`` may stay a
-    scalar (the table's fast path). Returns arrays of the broadcast input shape.
-
-    The table path runs in the compiled kernel (:mod:`lidmelt.physics.kernel`, float32 outputs)
-    where numba imports and ``compiled`` is not False, else in numpy; ``compiled=True`` requires
-    the kernel. Cells the kernel leaves (outside the table's nodes, or on the edge of the
-    saturation flag) take the numpy path; ``clock``, a dict, then accumulates their number
-    (``numpy_cells``) and seconds (``numpy_s``), and ``cells`` counts every cell.
-
-    ``out``, a float32 C-contiguous array (len(:data:`OUTPUT_ROWS`), number of cells), receives
-    every output in that order (NaN where an output is not given: melt production without
-    upwelling), without further copies on the compiled path; ``nodata``, a flag value, marks
-    cells with a non-finite Tp, lid or water: every output NaN, the flag ``nodata``.
-    ``water_load_km``: the water load, a scalar or an array like the cells (:func:`melt_column`).
-    """
-    model = get_model(model)
-    if method == "table" and use_compiled(compiled):
-        tab = table if table is not None else get_table(model)
-        shape = np.broadcast_shapes(np.shape(potential_temperature_c), np.shape(lid_depth_km))
-        tp = np.broadcast_to(np.asarray(potential_temperature_c, float), shape)
-        lid = np.broadcast_to(np.asarray(lid_depth_km, float), shape)
-        water = water_wt_pct
-        if np.ndim(water):
-            water = np.broadcast_to(np.asarray(water, float), shape)
-
-        def numpy_path(t, d, w, up, zw):
-            return _numpy_cells(
-                t, d, w, ambient_potential_temperature_c=ambient_potential_temperature_c,
-                model=model, method=method, table=tab, min_top_km=min_top_km,
-                upwelling_mm_yr=up, crust_density_kg_m3=crust_density_kg_m3, water_load_km=zw,
-            )  # fmt: skip
-
-        res = compiled_cells(
-            tab, tp, lid, water, ambient=float(ambient_potential_temperature_c),
-            min_top_km=min_top_km, upwelling=upwelling_mm_yr,
-            crust_ratio=model.solid_density_kg_m3 / crust_density_kg_m3, clock=clock,
-            numpy_path=numpy_path, out=out, nodata=nodata, load=water_load_km,
-        )  # fmt: skip
-        if res is not None:
-            return res
-    res = _numpy_cells(
-        potential_temperature_c, lid_depth_km, water_wt_pct,
-        ambient_potential_temperature_c=ambient_potential_temperature_c, model=model,
-        method=method, table=table, min_top_km=min_top_km, upwelling_mm_yr=upwelling_mm_yr,
-        crust_density_kg_m3=crust_density_kg_m3, water_load_km=water_load_km,
-    )  # fmt: skip
-    return _into(res, out, nodata, potential_temperature_c, lid_depth_km, water_wt_pct)
-
-
-def _into(res, out, nodata, tp, lid, water):
-    """``res`` with ``nodata`` applied and, with ``out``, copied into its rows (numpy path)."""
-    if nodata is not None:
-        shape = res["flag"].shape
-        with np.errstate(invalid="ignore"):
-            missing = ~(
-                np.isfinite(np.broadcast_to(tp, shape))
-                & np.isfinite(np.broadcast_to(lid, shape))
-                & np.isfinite(np.broadcast_to(water, shape))
-            )
-        res = {k: np.where(missing, nodata if k == "flag" else np.nan, v) for k, v in res.items()}
-        res["flag"] = res["flag"].astype(np.uint8)
-    if out is None:
-        return res
-    for k, name in enumerate(OUTPUT_ROWS):
-        out[k] = np.ravel(res[name]) if name in res else np.nan
-    views = {name: out[k].reshape(res["flag"].shape) for k, name in enumerate(OUTPUT_ROWS)}
-    return {**{n: v for n, v in views.items() if n in res}, "flag": res["flag"]}
-
-
-def _numpy_cells(
-    potential_temperature_c, lid_depth_km, water_wt_pct, *, ambient_potential_temperature_c,
-    model, method, table, min_top_km, upwelling_mm_yr, crust_density_kg_m3, water_load_km=0.0,
-):  # fmt: skip
-    """:func:`evaluate_cells` by numpy (the table's numpy path or direct integration)."""
-    model = get_model(model)
-    shape = np.broadcast_shapes(np.shape(potential_temperature_c), np.shape(lid_depth_km))
-    lid = np.broadcast_to(np.asarray(lid_depth_km, float), shape)
-    load = np.broadcast_to(np.asarray(water_load_km, float), shape)
-    common = {"model": model, "method": method, "table": table, "min_top_km": min_top_km}
-    common["compiled"] = False
-    out = melt_column(
-        potential_temperature_c, lid, water_wt_pct, water_load_km=load, **common
-    ).as_dict()
-    ambient = float(ambient_potential_temperature_c)
-    excess = excess_to_melt_k(
-        lid,
-        water_wt_pct,
-        ambient_potential_temperature_c=ambient,
-        model=model,
-        min_top_km=min_top_km,
-        water_load_km=load,
-    )
-    out["excess_to_melt_k"] = excess
-    h = out["melt_thickness_km"]
-    with np.errstate(invalid="ignore"):
-        ambient_melts = np.broadcast_to(excess < 0, h.shape)
-    h_ambient = np.zeros(h.shape, h.dtype)
-    if ambient_melts.any():
-        water = np.broadcast_to(np.asarray(water_wt_pct, float), h.shape)
-        w_sel = water[ambient_melts] if np.ndim(water_wt_pct) else float(water_wt_pct)
-        amb = melt_column(
-            ambient, lid[ambient_melts], w_sel, water_load_km=load[ambient_melts], **common
-        )
-        h_ambient[ambient_melts] = np.nan_to_num(amb.melt_thickness_km, nan=0.0)
-    with np.errstate(invalid="ignore"):
-        out["anomaly_melt_thickness_km"] = np.maximum(h - h_ambient, 0.0)
-        regime = np.where(ambient_melts, REGIME_AMBIENT_MELTS, REGIME_ANOMALY_ONLY)
-        regime = np.where(h > 0, regime, REGIME_NO_MELTING).astype(h.dtype)
-        out["melting_regime"] = np.where(np.isnan(h), np.nan, regime).astype(h.dtype)
-        out["crustal_thickness_km"] = h * (model.solid_density_kg_m3 / crust_density_kg_m3)
-        if upwelling_mm_yr is not None:
-            out["melt_production_mm_yr"] = out["max_melt_fraction"] * np.asarray(
-                upwelling_mm_yr, float
-            )
-    return out
 
 
 # ------------------------------------------------------------------------------------------------
@@ -545,8 +416,11 @@ def _table_one_water(table, tp, lid, water, min_top_km, out, load):
             out["mean_melt_pressure_gpa"][sl] = np.where(f > 0, mean_p, np.nan)
         out["melt_thickness_km"][sl] = h
         out["max_melt_fraction"][sl] = f
-        out["onset_pressure_gpa"][sl] = p_on
-        out["onset_depth_km"][sl] = onset_depth(model, p_on, load[sl], km_per_gpa)
+        z_on = onset_depth(model, p_on, load[sl], km_per_gpa)
+        out["solidus_crossing_depth_km"][sl] = z_on
+        melts = h > 0  # the onset where the column melts
+        out["onset_pressure_gpa"][sl] = np.where(melts, p_on, np.nan)
+        out["onset_depth_km"][sl] = np.where(melts, z_on, np.nan)
         out["lid_depth_km"][sl] = top_km
         out["flag"][sl] = np.where(no_onset, FLAG_NO_ONSET, beyond_flags(model, p_on, top_p))
         deep = table_at_calibration(table, tp[sl], water, p_on, top_p)

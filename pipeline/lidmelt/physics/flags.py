@@ -57,14 +57,15 @@ FLAG_KEYS = {
 
 def input_flags(model, potential_temperature_c, lid_depth_km, water_wt_pct):
     """FLAG_INVALID_INPUT where inputs are NaN, the lid negative, water negative (or, for an
-    anhydrous model, non-zero), or Tp at or below the surface solidus."""
+    anhydrous model, non-zero), or Tp at or below the surface solidus. A lid of +inf is valid:
+    the column meets its geotherm nowhere (:mod:`lidmelt.physics.geotherm`) and does not melt."""
     tp, lid, w = np.broadcast_arrays(
         np.asarray(potential_temperature_c, float),
         np.asarray(lid_depth_km, float),
         np.asarray(water_wt_pct, float),
     )
     with np.errstate(invalid="ignore"):
-        bad = ~np.isfinite(tp) | ~np.isfinite(lid) | ~np.isfinite(w) | (lid < 0) | (w < 0)
+        bad = ~np.isfinite(tp) | np.isnan(lid) | ~np.isfinite(w) | (lid < 0) | (w < 0)
         if not model.hydrous:
             bad |= w > 0
         bad |= tp <= model.solidus_c(0.0, 0.0)

@@ -45,6 +45,13 @@ import numpy as np
 from lidmelt.errors import ModelError
 from lidmelt.physics._jitcache import njit
 from lidmelt.physics.kernel_arrays import ONSET_STEP_GPA, kernel_arrays
+from lidmelt.physics.regime import (
+    LEAST_ANOMALY_MELT_KM,
+    REGIME_AMBIENT_AND_ANOMALY,
+    REGIME_AMBIENT_ONLY,
+    REGIME_ANOMALY_ONLY,
+    REGIME_NO_MELTING,
+)
 from lidmelt.physics.table import WATER_EXPONENT
 
 try:  # numba compiles the kernel; without it the numpy table path is used
@@ -78,6 +85,7 @@ ROWS = (
     "melting_regime",
     "crustal_thickness_km",
     "deep_melt_share",
+    "solidus_crossing_depth_km",
     "melt_production_mm_yr",
 )
 
@@ -202,9 +210,12 @@ def _saturation(sat, p, inv_step):
 @_jit(inline="always")
 def _pressure_of_depth(z, par, zp):
     """P [GPa] at rock-equivalent depth z [km]: constant rho g above the join (``par[25]``),
-    the tabulated PREM relation below (``zp`` rows: P, Z; :mod:`lidmelt.physics.pressure`)."""
+    the tabulated PREM relation below (``zp`` rows: P, Z; :mod:`lidmelt.physics.pressure`);
+    +inf (a column that meets its geotherm nowhere) stays +inf."""
     if not z > par[25]:
         return z * par[15]
+    if z == np.inf:
+        return np.inf
     # PREM's rho g exceeds the constant one below the join: the node is at or after the guess
     k = min(int((z - par[25]) * par[15] * par[26]), zp.shape[0] - 2)
     while k + 2 < zp.shape[0] and zp[k + 1, 1] < z:
@@ -245,7 +256,7 @@ def _column(tp, w, u, top_p, p_on, par, sat, vals, zp, rough, deep):
     p_step, tp_min, inv_dtp, inv_dp, cal = par[2], par[3], par[4], par[5], par[6]
     if not np.isfinite(p_on):
         return 2, np.nan, np.nan, np.nan, np.nan, np.nan, False
-    flag = 4 if (p_on > cal or top_p > cal) else 0
+    flag = 4 if (p_on > cal or cal < top_p < np.inf) else 0
     if p_on >= par[17] - 1e-9:
         flag |= 16
     s = _saturation(sat, p_on, 1.0 / p_step)
@@ -270,24 +281,42 @@ def _column(tp, w, u, top_p, p_on, par, sat, vals, zp, rough, deep):
 
 @_jit(inline="always")
 def _ambient_melt(w, u, top_p, p_on, par, sat, vals, deep):
-    """H [km] of the ambient column (0 where it is flagged), and whether it needs numpy.
+    """H [km] and F at the top of the ambient column (0 where it is flagged or does not melt),
+    and whether it needs numpy.
 
     Looked up exactly as a cell's own H (:func:`_lookup` at the ambient Tp), so that a cell
     without anomaly gets an anomaly melt of exactly 0, not a rounding difference.
     """
     if not np.isfinite(p_on) or p_on <= top_p:
-        return 0.0, False
+        return 0.0, 0.0, False
+    if top_p > par[16]:  # an ambient top of its own beyond the table's nodes
+        return 0.0, 0.0, True
     s = _saturation(sat, p_on, 1.0 / par[2])
     if w > 0.0 and np.isfinite(s) and abs(w - s) <= _SATURATION_BAND * s:
-        return 0.0, True
+        return 0.0, 0.0, True
     if w > s:
-        return 0.0, False
+        return 0.0, 0.0, False
     xj = u * par[12]
     j = min(int(xj), vals.shape[1] - 1)
-    h = _lookup_at(vals, deep, par, (par[18] - par[3]) * par[4], top_p * par[5], j, xj - j)[0]
+    x = (par[18] - par[3]) * par[4]
+    h, f, _ = _lookup_at(vals, deep, par, x, top_p * par[5], j, xj - j)
+    if not (np.isfinite(h) and np.isfinite(f)):
+        return 0.0, 0.0, True
+    return h, f, False
+
+
+@_jit(inline="always")
+def _regime(h, f, h_amb, f_amb, min_fraction, least):
+    """The melting regime class (:func:`lidmelt.physics.regime.melting_regime`, one cell)."""
     if not np.isfinite(h):
-        return 0.0, True
-    return h, False
+        return np.nan
+    if not (h > 0.0 and f >= min_fraction):
+        return float(REGIME_NO_MELTING)
+    if h_amb > 0.0 and f_amb >= min_fraction:
+        if h - h_amb >= least:
+            return float(REGIME_AMBIENT_AND_ANOMALY)
+        return float(REGIME_AMBIENT_ONLY)
+    return float(REGIME_ANOMALY_ONLY)
 
 
 @_jit(inline="always")
@@ -322,18 +351,21 @@ def _onset_any(tp, u, par, cv, first, inv):
 
 @_jit(refcount=False)
 def _cells(
-    tp, lid, water, w_stride, up, up_stride, par, cv, first, inv, sat, vals, out, flag, slow,
-    load, load_stride, zp, rough, deep,
+    tp, lid, water, w_stride, up, up_stride, given, g_stride, par, cv, first, inv, sat, vals, out,
+    flag, slow, load, load_stride, zp, rough, deep,
 ):  # fmt: skip
     """Every output of every cell into ``out`` (rows :data:`ROWS`) and ``flag``.
 
     Marks in ``slow`` (all False on entry) the cells left for the numpy path (their rows are
-    not written). Where ``par[23]`` (nodata) is not NaN, a cell with a non-finite input gets NaN
-    in every row and that flag value.
+    not written). Where ``par[23]`` (nodata) is not NaN, a cell with a non-finite Tp or water
+    or a NaN lid gets NaN in every row and that flag value. A lid of +inf: the column meets its
+    geotherm nowhere (it does not melt; top NaN). ``given`` (2, n) holds per cell the ambient
+    column's own top [km] and the excess to melt [K] where not NaN (the geotherm rule);
+    ``load`` the water load's rock-equivalent depth [km].
     """
     sol0, min_top, top_max, max_on = par[13], par[14], par[16], par[17]
     ambient, crust_ratio, water_max, hydrous, tp_max = par[18], par[19], par[20], par[21], par[22]
-    nodata = par[23]
+    nodata, min_fraction, least = par[23], par[28], par[29]
     nodata_on = np.isfinite(nodata)
     varying = par[11] > 0.0
     # one water content: one ambient onset for every cell
@@ -342,25 +374,26 @@ def _cells(
         p_amb = _onset_any(ambient, par[7], par, cv, first, inv)
     for n in range(tp.size):
         t, lid_km, w = tp[n], lid[n], water[n * w_stride]
-        if nodata_on and not (np.isfinite(t) and np.isfinite(lid_km) and np.isfinite(w)):
+        if nodata_on and not (np.isfinite(t) and lid_km == lid_km and np.isfinite(w)):
             for r in range(out.shape[0]):
                 out[r, n] = np.nan
             flag[n] = nodata
             continue
-        lid_ok = np.isfinite(lid_km) and lid_km >= 0.0
+        lid_ok = lid_km == lid_km and lid_km >= 0.0
         w_ok = np.isfinite(w) and w >= 0.0 and (hydrous > 0.0 or w == 0.0)
+        zw = load[n * load_stride]
         top_km = max(lid_km, min_top)
-        top_p = _pressure_of_depth(top_km + load[n * load_stride], par, zp)
+        top_p = _pressure_of_depth(top_km + zw, par, zp)
         valid = lid_ok and w_ok and np.isfinite(t) and t > sol0
         if (lid_ok and w_ok and w > water_max) or (
-            valid and (t < par[3] or t > tp_max or top_p > top_max)
+            valid and (t < par[3] or t > tp_max or top_max < top_p < np.inf)
         ):
             slow[n] = True
             continue
         # u = water^0.75 on the curves (one water content: its u, or 0 on its own curve)
         u_curve = (w**WATER_EXPONENT if w > 0.0 else 0.0) if varying else par[7]
-        excess = np.nan
-        if lid_ok and w_ok and top_p <= max_on:
+        excess = given[1, n * g_stride]
+        if np.isnan(excess) and lid_ok and w_ok and top_p <= max_on:
             excess = _curve_interp(cv, top_p, 1.0 / par[2], u_curve) - ambient
         h = f = p_on = mean = share = np.nan
         fl = 1
@@ -372,25 +405,29 @@ def _cells(
             if to_numpy:
                 slow[n] = True
                 continue
-        h_amb = 0.0
+        h_amb = f_amb = 0.0
         if excess < 0.0 and np.isfinite(h):
             if varying:
                 p_amb = _onset_any(ambient, u_curve, par, cv, first, inv)
-            h_amb, to_numpy = _ambient_melt(w, u_curve, top_p, p_amb, par, sat, vals, deep)
+            amb_top = given[0, n * g_stride]
+            amb_p = top_p
+            if not np.isnan(amb_top):
+                amb_p = _pressure_of_depth(max(amb_top, min_top) + zw, par, zp)
+            h_amb, f_amb, to_numpy = _ambient_melt(w, u_curve, amb_p, p_amb, par, sat, vals, deep)
             if to_numpy:
                 slow[n] = True
                 continue
-        regime = np.nan
-        if np.isfinite(h):
-            regime = (1.0 if excess < 0.0 else 2.0) if h > 0.0 else 0.0
-        out[0, n], out[2, n] = h, p_on
-        out[1, n] = _depth_of_pressure(p_on, par, zp) - load[n * load_stride]
-        out[3, n] = top_km if valid else np.nan
+        z_on = _depth_of_pressure(p_on, par, zp) - zw
+        melts = h > 0.0  # the onset where the column melts
+        out[0, n] = h
+        out[1, n] = z_on if melts else np.nan
+        out[2, n] = p_on if melts else np.nan
+        out[3, n] = top_km if valid and top_km < np.inf else np.nan
         out[4, n], out[5, n], out[6, n] = f, mean, excess
         out[7, n] = max(h - h_amb, 0.0) if np.isfinite(h) else np.nan
-        out[8, n], out[9, n] = regime, h * crust_ratio
-        out[10, n] = share
-        out[11, n] = f * up[n * up_stride]
+        out[8, n] = _regime(h, f, h_amb, f_amb, min_fraction, least)
+        out[9, n], out[10, n], out[11, n] = h * crust_ratio, share, z_on
+        out[12, n] = f * up[n * up_stride]
         flag[n] = fl
 
 
@@ -413,7 +450,7 @@ def compile_seconds() -> float:
 
 def evaluate_compiled(
     table, tp, lid, water, *, ambient_c, min_top_km, upwelling, crust_ratio, out=None,
-    nodata=None, load=0.0,
+    nodata=None, load=0.0, ambient_lid=None, excess=None, min_fraction=0.0,
 ):  # fmt: skip
     """Every output of 1-D cells by the compiled kernel, or None where it cannot serve them.
 
@@ -421,8 +458,11 @@ def evaluate_compiled(
     an array like ``tp`` or None (no production); ``load`` the water load's rock-equivalent
     depth [km], a float or an array like ``tp``. ``out``, a float32 C-contiguous array
     (len(ROWS), n), receives the rows (else one is made); ``nodata``, a flag value for cells
-    with a non-finite input (every row NaN). Returns (outputs by name as float32 arrays, flag as
-    uint8, mask of the cells left for the numpy path).
+    with a non-finite input (every row NaN). ``ambient_lid`` [km] and ``excess`` [K], arrays
+    like ``tp`` or None, give the ambient column's own top and the excess to melt where not NaN
+    (the geotherm rule); ``min_fraction`` is the regime's least extracted melt fraction.
+    Returns (outputs by name as float32 arrays, flag as uint8, mask of the cells left for the
+    numpy path).
     """
     if not AVAILABLE:
         return None
@@ -439,7 +479,14 @@ def evaluate_compiled(
     par = par.copy()
     par[14], par[18], par[19] = min_top_km, ambient_c, crust_ratio
     par[23] = np.nan if nodata is None else float(nodata)
+    par[28], par[29] = min_fraction, LEAST_ANOMALY_MELT_KM
     tp, lid = _plain(tp), _plain(lid)
+    given = np.full((2, 1), np.nan)
+    if ambient_lid is not None or excess is not None:
+        given = np.full((2, tp.size), np.nan)
+        for k, arr in enumerate((ambient_lid, excess)):
+            if arr is not None:
+                given[k] = arr
     w = np.array([float(water)]) if one else _plain(water)
     up = np.array([np.nan if upwelling is None else float(np.ravel(upwelling)[0])])
     if upwelling is not None and np.size(upwelling) > 1:
@@ -454,8 +501,9 @@ def evaluate_compiled(
     t = time.perf_counter()
     slow = np.zeros(tp.size, np.bool_)
     _cells(
-        tp, lid, w, 0 if one else 1, up, 0 if up.size == 1 else 1, par, cv, first, inv, sat,
-        vals, out, flag, slow, zw, 0 if zw.size == 1 else 1, zp, rough, deep,
+        tp, lid, w, 0 if one else 1, up, 0 if up.size == 1 else 1, given,
+        0 if given.shape[1] == 1 else 1, par, cv, first, inv, sat, vals, out, flag, slow, zw,
+        0 if zw.size == 1 else 1, zp, rough, deep,
     )  # fmt: skip
     if first_call:
         _COMPILE["seconds"] = time.perf_counter() - t
@@ -475,11 +523,14 @@ def use_compiled(compiled: bool | None) -> bool:
 
 
 def compiled_cells(table, tp, lid, water, *, ambient, min_top_km, upwelling, crust_ratio, clock,
-              numpy_path, out=None, nodata=None, load=0.0):  # fmt: skip
+              numpy_path, out=None, nodata=None, load=0.0, ambient_lid=None, excess=None,
+              min_fraction=0.0):  # fmt: skip
     """The compiled kernel on broadcast arrays; its left cells by ``numpy_path``; or None.
 
-    ``numpy_path(tp, lid, water, upwelling, load)`` returns the outputs of 1-D cells by name;
-    ``out``, ``nodata`` and ``load`` (the water load) are :func:`evaluate_compiled`'s.
+    ``numpy_path(tp, lid, water, upwelling, load, ambient_lid, excess)`` returns the outputs of
+    1-D cells by name; ``out``, ``nodata``, ``load`` (the water load), ``ambient_lid``,
+    ``excess`` and ``min_fraction`` are :func:`evaluate_compiled`'s (``load``, ``ambient_lid``
+    and ``excess`` also given to ``numpy_path``, floats, None or arrays).
     """
     shape = tp.shape
     t = np.ascontiguousarray(tp).ravel()
@@ -495,9 +546,12 @@ def compiled_cells(table, tp, lid, water, *, ambient, min_top_km, upwelling, cru
     zw = float(np.ravel(load)[0]) if np.size(load) == 1 else load
     if np.ndim(zw):
         zw = np.ascontiguousarray(np.broadcast_to(np.asarray(zw, float), shape)).ravel()
+    given = [None if a is None else np.ascontiguousarray(a, float).ravel()
+             for a in (ambient_lid, excess)]  # fmt: skip
     res = evaluate_compiled(
         table, t, d, w, ambient_c=ambient, min_top_km=float(min_top_km), upwelling=up,
-        crust_ratio=crust_ratio, out=out, nodata=nodata, load=zw,
+        crust_ratio=crust_ratio, out=out, nodata=nodata, load=zw, ambient_lid=given[0],
+        excess=given[1], min_fraction=min_fraction,
     )  # fmt: skip
     if res is None:
         return None
@@ -508,7 +562,7 @@ def compiled_cells(table, tp, lid, water, *, ambient, min_top_km, upwelling, cru
     if n_slow:
         sub = numpy_path(
             t[slow], d[slow], w[slow] if np.ndim(w) else w, up[slow] if np.ndim(up) else up,
-            zw[slow] if np.ndim(zw) else zw,
+            zw[slow] if np.ndim(zw) else zw, *(None if g is None else g[slow] for g in given),
         )  # fmt: skip
         for name, arr in sub.items():
             out[name][slow] = arr

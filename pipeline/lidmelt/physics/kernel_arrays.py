@@ -137,6 +137,9 @@ def _arrays(table: MeltTable, water, model_arrays):
     if exact is None or exact.shape[0] == 0:
         i0, exact = table.tp_c.size, np.zeros((2, 1, table.pressure_gpa.size, 3), np.float32)
     par = np.append(par, float(i0))  # par[27]: the first Tp node of the exact columns
+    # par[28], par[29]: the regime's least extracted melt fraction and least anomaly melt [km]
+    # (set per call by the kernel's entry point)
+    par = np.append(par, [0.0, 0.0])
     deep = np.ascontiguousarray(exact.reshape(exact.shape[0], 1, -1, 3), dtype=np.float32)
     return par, cv, first, inv, sat, vals, zp, _rough(table, water), deep
 

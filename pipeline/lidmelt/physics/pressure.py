@@ -219,21 +219,21 @@ class DepthPressure:
         return float(self.nodes_km[0])
 
     def depth_km(self, pressure_gpa):
-        """Z(P) [km], the rock-equivalent depth of pressure P [GPa]."""
+        """Z(P) [km], the rock-equivalent depth of pressure P [GPa] (+inf stays +inf)."""
         p = np.asarray(pressure_gpa, float)
         lin = p * GPA / (self.density_kg_m3 * self.gravity_m_s2) / 1e3
         with np.errstate(invalid="ignore"):
-            deep = p > self.join_gpa
+            deep = (p > self.join_gpa) & (p < np.inf)
         if not np.any(deep):
             return lin
         return np.where(deep, np.interp(p, self.nodes_gpa, self.nodes_km), lin)
 
     def pressure_gpa(self, depth_km):
-        """P(Z) [GPa], the inverse of :meth:`depth_km`."""
+        """P(Z) [GPa], the inverse of :meth:`depth_km` (+inf stays +inf)."""
         z = np.asarray(depth_km, float)
         lin = z * 1e3 * self.density_kg_m3 * self.gravity_m_s2 / GPA
         with np.errstate(invalid="ignore"):
-            deep = z > self.join_km
+            deep = (z > self.join_km) & (z < np.inf)
         if not np.any(deep):
             return lin
         return np.where(deep, np.interp(z, self.nodes_km, self.nodes_gpa), lin)

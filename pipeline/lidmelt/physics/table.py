@@ -45,9 +45,10 @@ __all__ = [
 ]
 
 #: Changes with the physics a table stores beyond its parameters: 3 = phase boundaries continued
-#: with published high-pressure shapes, PREM below 7.25 GPa, the upper mantle's floor.
-TABLE_FORMAT = 3
-_ARRAYS = ("tp_c", "water_u", "pressure_gpa", "onset_gpa", "values")
+#: with published high-pressure shapes, PREM below 7.25 GPa, the upper mantle's floor; 4 = each
+#: column's latent-heat deficit at every node (the geotherm top of melting) as well.
+TABLE_FORMAT = 4
+_ARRAYS = ("tp_c", "water_u", "pressure_gpa", "onset_gpa", "values", "deficit_k")
 WATER_EXPONENT = 0.75  # the water coordinate u = water^0.75 (Katz et al. 2003 gamma)
 # Step of the direct integration for the few cells the table cannot do: 0.04 GPa changes melt
 # thickness by < 4e-4 km against 0.0025 GPa (tests/test_column.py::test_step_convergence), far
@@ -108,6 +109,8 @@ class MeltTable:
         self.pressure_gpa = arrays["pressure_gpa"]
         self.onset_gpa = arrays["onset_gpa"]  # (n_tp, n_water)
         self.values = arrays["values"]  # (n_tp, n_water, n_p, 3): H km, F, int P dF
+        # (n_tp, n_water, n_p): the column's temperature below its solid isentrope [K]
+        self.deficit_k = arrays["deficit_k"]
         self._slices: dict[float, np.ndarray] = {}
 
     # -- building --------------------------------------------------------------------------------
@@ -142,12 +145,16 @@ class MeltTable:
             values[..., k] = rec[key][:, ::ratio]
         values = values.reshape(n_tp, layout.water_nodes, n_p, 3)
         values[~np.isfinite(onset)] = np.nan
+        deficit = _deficit_k(model, tt.ravel(), onset.ravel(), pressure, rec, ratio)
+        deficit = deficit.reshape(n_tp, layout.water_nodes, n_p)
+        deficit[~np.isfinite(onset)] = np.nan
         arrays = {
             "tp_c": tp,
             "water_u": water_u,
             "pressure_gpa": pressure,
             "onset_gpa": onset,
             "values": values,
+            "deficit_k": deficit,
         }
         return cls(model, layout, arrays)
 
@@ -161,6 +168,7 @@ class MeltTable:
                 pressure_gpa=self.pressure_gpa,
                 onset_gpa=self.onset_gpa,
                 values=self.values,
+                deficit_k=self.deficit_k,
                 key=np.array(table_key(self.model, self.layout)),
                 content_sha256=np.array(content_sha256(self.arrays())),
             )
@@ -343,6 +351,22 @@ class MeltTable:
                 & (water >= 0)
                 & (water <= lay.water_max_wt_pct)
             )
+
+
+def _deficit_k(model, tp, onset, pressure, rec, ratio):
+    """T_is(P) - T_col(P) [K] of each column at the pressure nodes (float32): how far latent
+    heat has cooled the melting column below its solid isentrope T_is; 0 below the onset.
+
+    T_col is the column's temperature path (the solid isentrope below the onset, the isentropic
+    melting path above it; :func:`lidmelt.physics.column.integrate_columns`). The deficit, not
+    T_col itself, is stored: it is exactly 0 below the onset, so interpolating it between Tp
+    nodes does not smear the kink of T_col at the onset (T_is is exact at any Tp).
+    """
+    t_col = rec["node_temperature_c"][:, ::ratio]
+    t_is = model.solid_adiabat_c(tp[:, None], pressure[None, :])
+    with np.errstate(invalid="ignore"):
+        above = pressure[None, :] < onset[:, None]
+    return np.where(above, t_is - t_col, 0.0).astype(np.float32)
 
 
 @lru_cache(maxsize=16)

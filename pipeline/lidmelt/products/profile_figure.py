@@ -30,7 +30,7 @@ __all__ = ["NEAR_KM", "NearStation", "make_profile_figure", "plot_profile", "sta
 #: Stations within this distance (km) of a profile point are marked on the profile.
 NEAR_KM = 50.0
 
-_LID_LABEL = "top of the melting column (lid base or crust base)"
+_LID_LABEL = "top of the melting column (lid, geotherm or crust base)"
 #: Line colours (Okabe & Ito 2008 palette, from memory): plate age blue, thermal anomaly
 #: vermillion, onset bluish green, so that no two lines of the figure share a colour.
 _ONSET_COLOR = "#009E73"

@@ -19,12 +19,15 @@ edge gets NaN and the status ``outside_grid``; it is never dropped.
 
 The status describes the run's data coverage and is taken from ``melt_thickness_km`` (NaN only
 where the run has no data; 0 where the mantle does not melt). Variables that are NaN by
-definition at some data cells (``onset_depth_km`` where the mantle never reaches its solidus,
-``mean_melt_pressure_gpa`` where it does not melt) follow the same per-variable rule. The
+definition at some data cells (``onset_depth_km`` and ``mean_melt_pressure_gpa`` where the
+column does not melt) follow the same per-variable rule. The
 variables that are not defined without melt (:attr:`lidmelt.variables.Variable.
 undefined_without_melt`: onset depth and pressure, mean melt pressure) are NaN at every point
 whose sampled ``melt_thickness_km`` is 0, also in a run whose files hold a value there; tables
 shown to people say "no melting" there (:func:`shown_without_melt`).
+
+A categorical variable with classes in the registry (``melting_regime``) is followed by
+``<name>_class``, the meaning of the class (the registry's label; "" where there is none).
 
 Validity flag
 -------------
@@ -337,6 +340,9 @@ def sample_run(
         values, flagged = apply_stencil(classes if categorical else stencil, grid_values)
         values = zero_float_noise(values, grid_values)
         columns[name] = values
+        if categorical and VARIABLES[name].classes:  # the class meanings, from the registry
+            labels = {float(c.value): c.label for c in VARIABLES[name].classes}
+            columns[f"{name}_class"] = np.array([labels.get(float(v), "") for v in values], object)
         if name == ref:
             status[flagged] = STATUS_NEXT_TO_NODATA
             status[~np.isfinite(values)] = STATUS_NODATA

@@ -13,6 +13,8 @@ at a spreading ridge) is not taken for an intraplate candidate; ``"total"`` the 
 ``melt_thickness_km``. ``min_age_ma`` leaves out cells of younger plate age (the run's
 ``plate_age_ma`` input).
 
+Cells whose melting regime says "no melting" (nothing melts, or the melt fraction at the top
+stays below the least that can be extracted: docs/physics.md) are never candidate cells.
 Candidate regions are groups of cells with the basis's melt >= the threshold that touch along
 an edge or at a corner (8-connectivity; on a global geographic grid also across the antimeridian
 seam), whose area is at least ``min_area_km2``. Each becomes a (Multi)Polygon along its cells'
@@ -82,7 +84,7 @@ from lidmelt.grids.rundir import RunDir
 from lidmelt.products import ensemble as ens
 from lidmelt.products import sampling as smp
 from lidmelt.products.regions import ANOMALY_MELT_VARIABLE, GEOD, Zones, transform_geometries
-from lidmelt.variables import PROBABILITY_BASES, parse_ensemble_name
+from lidmelt.variables import OUTPUTS, PROBABILITY_BASES, parse_ensemble_name
 
 if TYPE_CHECKING:
     import geopandas as gpd
@@ -228,9 +230,8 @@ def screen(
         anomaly_melt_thickness_km, or (``min_probability``) no probability map of the basis and
         threshold (naming those it has).
     """
-    thr, min_area, p_min = _check_thresholds(
-        min_melt_thickness_km, min_area_km2, min_probability, probability
-    )
+    limits = (min_melt_thickness_km, min_area_km2, min_probability, probability)
+    thr, min_area, p_min = _check_thresholds(*limits)
     _check_basis(basis)
     run = smp.as_run(run)
     zones = Zones.load(run)
@@ -238,11 +239,12 @@ def screen(
     values = _basis_values(zones, basis, run=run)
     prob_name, prob = _probability(run, grid, probability, basis, screening=p_min is not None)
     mask = np.ones(values.shape, dtype=bool) & _passing(values, thr) & _passing(prob, p_min)
+    mask &= _melting(run, grid)
     if min_age_ma is not None:
         mask &= _old_enough(zones, min_age_ma, run=run)
     labels, n = _label(mask, periodic=grid.is_periodic)
-    records = _candidate_records(zones, labels, n, min_area, volume=BASIS_VOLUME[basis],
-                                 probability=prob)  # fmt: skip
+    volume = BASIS_VOLUME[basis]
+    records = _candidate_records(zones, labels, n, min_area, volume=volume, probability=prob)
     _match_plumes(records, labels, zones, run_plumes(run))
     polygons = _component_polygons(labels, np.array([r["label"] for r in records]), grid.affine)
     stats = [*zones.columns, *_what_probability(records, basis, prob_name)]
@@ -320,6 +322,20 @@ def _check_thresholds(
         )
         raise InputError(msg)
     return thr, min_area, p_min
+
+
+#: The regime class of cells that do not melt (the registry's).
+_NO_MELTING = next(c.value for c in OUTPUTS["melting_regime"].classes if c.key == "no_melting")
+
+
+def _melting(run: RunDir, grid: Any) -> np.ndarray | bool:
+    """Cells whose melting regime is not "no melting" (a column below the least extracted
+    melt fraction does not count, docs/physics.md); True everywhere without a regime grid."""
+    if "melting_regime" not in run.outputs:
+        return True
+    regime = smp.load_variable(run, "melting_regime", grid)
+    with np.errstate(invalid="ignore"):
+        return np.isfinite(regime) & (regime != _NO_MELTING)
 
 
 def _passing(values: np.ndarray | None, least: float | None) -> np.ndarray | bool:
@@ -556,7 +572,11 @@ def ensemble_candidates(context: Any) -> Candidates:
     melt, anomaly = (_staged_grid(context.run_dir, n) for n in wanted)
     zones = Zones(grid=grid, melt=melt, onset=None, anomaly=None, anomaly_melt=anomaly,
                   row_areas=row_areas_km2(grid) if grid.is_geographic else None)  # fmt: skip
-    labels, n = _label(np.asarray(_passing(anomaly, threshold)), periodic=grid.is_periodic)
+    mask = np.asarray(_passing(anomaly, threshold))
+    if "melting_regime" in cfg.outputs.variables:  # as screen: "no melting" cells never count
+        regime = _staged_grid(context.run_dir, "melting_regime")
+        mask = mask & np.isfinite(regime) & (regime != _NO_MELTING)
+    labels, n = _label(mask, periodic=grid.is_periodic)
     records = _candidate_records(zones, labels, n, 0.0, volume=BASIS_VOLUME["anomaly"])
     kept = records[: int(cfg.ensemble.candidates)]
     _match_plumes(kept, labels, zones, run_plumes(context.inputs.provenance))

@@ -35,8 +35,8 @@ the value of the cell that contains the station. Statuses:
     (bilinear only) One of the four cells around the station has no data: the values are those
     of the cell containing the station (nearest-cell fallback), not an interpolation.
 
-A variable that is NaN by definition at some cells (``onset_depth_km`` where the mantle never
-reaches its solidus) follows the same rule on its own cells; the variables not defined where
+A variable that is NaN by definition at some cells (``onset_depth_km`` where the column does
+not melt) follows the same rule on its own cells; the variables not defined where
 nothing melts (onset depth and pressure, mean melt pressure) are NaN at a station whose melt
 thickness is 0 (``lidmelt sample`` prints "no melting" there). Within the outer half cell of the
 grid the values are those of the edge cells. When every station lies outside the grid but some

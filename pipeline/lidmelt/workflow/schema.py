@@ -50,7 +50,7 @@ SCHEMA: dict[str, tuple[str, ...]] = {
         "parameters",
     ),
     "model.parameters": ("*",),
-    "lithosphere": ("cooling", "lid_isotherm_c", "parameters"),
+    "lithosphere": ("cooling", "lid_isotherm_c", "top_of_melting", "parameters"),
     "lithosphere.parameters": ("*",),
     "compute": ("chunk_size", "workers", "method", "scheduler", "max_cells"),
     "outputs": ("variables", "cloud_optimized"),

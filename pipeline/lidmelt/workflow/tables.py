@@ -16,6 +16,7 @@ from lidmelt.config import (
     METHODS,
     MIN_CHUNK_SIZE,
     OUTPUT_VARIABLES,
+    TOP_OF_MELTING_RULES,
     ComputeOptions,
     GridSpec,
     Inputs,
@@ -286,6 +287,7 @@ _MODEL_READERS: dict[str, Reader] = {
 _LITHOSPHERE_READERS: dict[str, Reader] = {
     "cooling": partial(string, example="gdh1"),
     "lid_isotherm_c": _lid_isotherm,
+    "top_of_melting": partial(choice, choices=TOP_OF_MELTING_RULES),
     "parameters": _read_parameters,
 }
 

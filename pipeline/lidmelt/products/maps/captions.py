@@ -68,6 +68,8 @@ def describe_lid(summary: dict[str, Any], grid_share: float | None = None) -> st
     if lid is not None:
         name, iso = lid
         iso_text = f" to the {iso:g} °C isotherm" if iso is not None else ""
+        if (summary.get("cooling") or {}).get("top_of_melting") == "geotherm":
+            iso_text = " (melting up to where each column meets that geotherm)"
         cooling = f"{name} cooling of the plate age{iso_text}"
     if grid_share is None or grid_share <= 0.0:
         return f"lid from {cooling}" if cooling else "lid from the lid-thickness grid"

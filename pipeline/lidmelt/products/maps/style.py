@@ -10,7 +10,8 @@ Colours: nodata is a neutral light grey (:data:`NODATA_COLOR`); in the variables
 "no melting" (``melt_thickness_km``, ``max_melt_fraction``) a zero cell is white
 (:data:`ZERO_COLOR`), so it differs both from nodata and from the lowest colour of the scale
 (the smallest non-zero melt); in the variables that are undefined where nothing melts
-(``onset_depth_km``, ``onset_pressure_gpa``, ``mean_melt_pressure_gpa``), cells where
+(``onset_depth_km``, ``onset_pressure_gpa``, ``mean_melt_pressure_gpa``, and ``lid_depth_km``
+where a column meets its geotherm nowhere), cells where
 ``melt_thickness_km`` is 0 are white too. Colour limits are the 2nd and 98th percentiles of the
 valid cells (:data:`PERCENTILES`; for the two melt amounts: 0 to the 99.5th percentile of the
 melting cells, :data:`MELT_TOP_PERCENTILE`, so that the few hot plume cells keep their
@@ -27,10 +28,11 @@ diverging ``RdBu_r`` (ColorBrewer, Harrower & Brewer 2003, from memory), with li
 about zero (the larger magnitude of the 2nd and 98th percentiles) and the zero contour drawn.
 
 Categorical variables (``melting_regime``) have a style with :attr:`MapStyle.classes`: each
-class value gets one colour and a legend entry, and no colour bar is drawn. The regime colours
-are white (no melting, as in the other maps) and the blue and vermillion of the colour-blind
-safe palette of Okabe & Ito (2008), "Color Universal Design" (distinct for the common forms of
-colour-vision deficiency). Melt production (``melt_production_mm_yr``) is sequential
+class value gets one colour and a legend entry (its label from the registry,
+:attr:`lidmelt.variables.Variable.classes`), and no colour bar is drawn. The regime colours are
+white (no melting, as in the other maps) and the blue, reddish purple and vermillion of the
+colour-blind safe palette of Okabe & Ito (2008), "Color Universal Design" (distinct for the
+common forms of colour-vision deficiency). Melt production (``melt_production_mm_yr``) is sequential
 (``plasma``, whose light end is yellow, not white: the white "no melting" class stays distinct;
 magma and inferno end near white), with 0 drawn as "no melting".
 
@@ -57,6 +59,7 @@ from lidmelt.products.maps.probability import (
     PROBABILITY_LIMITS,
     extend_of,
 )
+from lidmelt.variables import OUTPUTS
 
 __all__ = [
     "CANDIDATE_COLOR",
@@ -140,11 +143,18 @@ class MapStyle:
     contours: tuple[float, ...] = ()
 
 
-#: The classes of ``melting_regime`` (colours: white, then Okabe & Ito 2008 blue, vermillion).
-REGIME_CLASSES = (
-    ClassStyle(0, ZERO_COLOR, "no melting"),
-    ClassStyle(1, "#0072B2", "ambient mantle melts (ridge-like, needs only upwelling)"),
-    ClassStyle(2, "#D55E00", "melts only because of the thermal anomaly"),
+#: Colours of the ``melting_regime`` classes by their registry key: white (no melting), then
+#: from Okabe & Ito (2008) blue (ambient mantle only), reddish purple (ambient melts and the
+#: anomaly adds: between the two) and vermillion (the anomaly only).
+_REGIME_COLORS = {
+    "no_melting": ZERO_COLOR,
+    "ambient_only": "#0072B2",
+    "ambient_and_anomaly": "#CC79A7",
+    "anomaly_only": "#D55E00",
+}
+#: The classes of ``melting_regime``: values and labels from the registry, colours above.
+REGIME_CLASSES = tuple(
+    ClassStyle(c.value, _REGIME_COLORS[c.key], c.label) for c in OUTPUTS["melting_regime"].classes
 )
 
 

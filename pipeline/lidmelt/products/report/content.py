@@ -114,6 +114,8 @@ def job_line(summary: dict[str, Any]) -> str:
         lid = f"lid from plate age by {name} cooling"
         if iso is not None:
             lid += f" to the {iso:g} °C isotherm"
+        elif _get(summary, "cooling", "top_of_melting", default=None) == "geotherm":
+            lid += ", melting up to where each column meets its geotherm"
     else:
         lid = "lid from a lid-thickness grid"
     when = summary.get("created_utc") or "an unrecorded time"
@@ -212,14 +214,25 @@ def _model_section(summary: dict[str, Any]) -> Section:
     return Section("model", "Melting model", blocks)
 
 
+def _rule_text(cooling: dict[str, Any]) -> str:
+    """The run's rule for the top of melting (summary ``cooling.top_of_melting``)."""
+    if cooling.get("top_of_melting") == "geotherm":
+        return (
+            "Top of melting: where each column meets the cooling model's conductive geotherm at "
+            "its age, whose mantle side is the column's own isentrope (geotherm rule; "
+            'docs/physics.md, "One mantle beneath the lid"). Lid isotherm: not used.'
+        )
+    return (
+        "Top of melting: the lid isotherm (isotherm rule). "
+        f"Lid isotherm: {format_value(cooling.get('lid_isotherm_c'))} °C."
+    )
+
+
 def _lid_section(summary: dict[str, Any]) -> Section:
     cooling = summary.get("cooling")
     blocks: list[Block]
     if isinstance(cooling, dict) and cooling:
-        blocks = [
-            f"Cooling model: {cooling.get('name') or 'not recorded'}.",
-            f"Lid isotherm: {format_value(cooling.get('lid_isotherm_c'))} °C.",
-        ]
+        blocks = [f"Cooling model: {cooling.get('name') or 'not recorded'}.", _rule_text(cooling)]
         if cooling.get("reference"):
             blocks.append(f"Reference: {cooling['reference']}.")
         table, sources = _parameter_table(cooling, fallback=str(cooling.get("reference") or ""))
