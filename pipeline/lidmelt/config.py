@@ -44,6 +44,7 @@ __all__ = [
     "Inputs",
     "LithosphereOptions",
     "ModelOptions",
+    "MotionOptions",
     "OutputOptions",
     "Parameters",
     "PlumeSpec",
@@ -524,6 +525,25 @@ class EnsembleOptions:
 
 
 @dataclass(frozen=True, kw_only=True)
+class MotionOptions:
+    """The ``[motion]`` table (docs/workflow.md): ``rotations`` holds the rows (age_ma, pole_lat,
+    pole_lon, angle_deg) of ``rotations_file``; ``plate_rotations`` per plate id of the grid
+    ``plate_ids_file`` its file and rows (``rotations`` serves the other ids); ``drift`` per
+    plume (name, ages, lon, lat) of ``drift_file``; the history runs from 0 to ``max_age_ma``
+    in steps of ``step_ma`` (Ma); ``duration_min_melt_km``: the anomaly's melt that counts."""
+
+    max_age_ma: float
+    step_ma: float = 1.0
+    rotations_file: Path | None = None
+    rotations: tuple[tuple[float, float, float, float], ...] = ()
+    plate_ids_file: Path | None = None
+    plate_rotations: tuple[tuple[int, Path, tuple], ...] = ()
+    drift_file: Path | None = None
+    drift: tuple[tuple[str, tuple, tuple, tuple], ...] = ()
+    duration_min_melt_km: float = 1.0
+
+
+@dataclass(frozen=True, kw_only=True)
 class RunConfig:
     """One validated run configuration, as read from a workflow file.
 
@@ -539,6 +559,8 @@ class RunConfig:
         The validated tables.
     ensemble : EnsembleOptions or None
         The ``[ensemble]`` table, if the workflow has one.
+    motion : MotionOptions or None
+        The ``[motion]`` table, if the workflow has one.
     """
 
     workflow_path: Path
@@ -552,6 +574,7 @@ class RunConfig:
     compute: ComputeOptions
     outputs: OutputOptions
     ensemble: EnsembleOptions | None = None
+    motion: MotionOptions | None = None
 
     def to_dict(self) -> dict[str, Any]:
         """A JSON-serialisable dict of the whole configuration, for provenance."""

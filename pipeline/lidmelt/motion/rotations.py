@@ -53,7 +53,8 @@ EARTH_RADIUS_KM = 6371.0
 
 def unit_vectors(lon_deg, lat_deg) -> np.ndarray:
     """Unit vectors (..., 3) of points given by longitude and latitude in degrees."""
-    lon, lat = np.radians(np.asarray(lon_deg, float)), np.radians(np.asarray(lat_deg, float))
+    lon, lat = np.broadcast_arrays(np.radians(np.asarray(lon_deg, float)),
+                                   np.radians(np.asarray(lat_deg, float)))  # fmt: skip
     cos_lat = np.cos(lat)
     return np.stack([cos_lat * np.cos(lon), cos_lat * np.sin(lon), np.sin(lat)], axis=-1)
 
