@@ -286,10 +286,9 @@ _HISTORY_LIST = (
     Variable(
         name="peak_melt_time_ma",
         units="Ma",
-        long_name="time of the largest melt thickness (before present)",
+        long_name="time of the largest melt thickness (before present; NaN: never melted)",
         kind="history",
         style="history_time",
-        undefined_without_melt=True,
     ),
     Variable(
         name="peak_anomaly_melt_thickness_km",
@@ -302,10 +301,12 @@ _HISTORY_LIST = (
     Variable(
         name="peak_anomaly_melt_time_ma",
         units="Ma",
-        long_name="time of the largest melt added by the thermal anomaly (before present)",
+        long_name=(
+            "time of the largest melt added by the thermal anomaly (before present; NaN: none "
+            "added)"
+        ),
         kind="history",
         style="history_time",
-        undefined_without_melt=True,
     ),
     Variable(
         name="melting_duration_myr",

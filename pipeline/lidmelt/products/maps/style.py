@@ -167,6 +167,11 @@ STYLES: dict[str, MapStyle] = {
     ),
     # a share of the ensemble's members (those without a value): fixed 0 to 1, like probability
     "member_fraction": MapStyle("cividis", limits=PROBABILITY_LIMITS),
+    # times of a history's peaks (Ma before present): the whole range, so the age progression
+    # along a hotspot track shows from its youngest to its oldest end; NaN: never melted
+    "history_time": MapStyle("cividis", percentiles=FULL_RANGE),
+    # how long the melt the anomaly added reached the threshold (Myr): 0 is no such melting
+    "duration": MapStyle("viridis", zero_is_no_melt=True),
 }
 #: Style of a variable the registry does not know, or whose key has no entry.
 DEFAULT_STYLE = MapStyle("viridis")
