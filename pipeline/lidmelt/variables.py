@@ -302,8 +302,8 @@ _HISTORY_LIST = (
         name="peak_anomaly_melt_time_ma",
         units="Ma",
         long_name=(
-            "time of the largest melt added by the thermal anomaly (before present; NaN: none "
-            "added)"
+            "time of the largest melt added by the thermal anomaly (before present; NaN: it "
+            "never reached the melting duration's threshold)"
         ),
         kind="history",
         style="history_time",

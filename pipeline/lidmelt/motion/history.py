@@ -25,8 +25,10 @@ Definitions (lidmelt's own; docs/workflow.md, ``[motion]``, says why):
   threshold with a melt fraction at the top of melting of at least
   :data:`lidmelt.physics.EXTRACTION_MIN_MELT_FRACTION` (each step stands for the time within
   half a step of it, :func:`lidmelt.motion.plan.step_weights`), and with an upwelling input the
-  time integral of the melt production (mm/yr x Myr = km: the melt thickness produced). A
-  time of a peak is NaN where that peak is 0 (nothing melted).
+  time integral of the melt production (mm/yr x Myr = km: the melt thickness produced). The
+  time of the largest melt is NaN where nothing melted; the time of the largest melt the
+  anomaly added is NaN where that melt never reached the threshold (a few metres added beneath
+  young seafloor by a plume's far tail have no time worth mapping).
 """
 
 from __future__ import annotations
@@ -201,8 +203,9 @@ class _Reduction:
             self.produced += weight * np.nan_to_num(out[_INDEX["melt_production_mm_yr"]])
 
     def layers(self) -> np.ndarray:
-        for peak, when in ((self.peak, self.peak_t), (self.apeak, self.apeak_t)):
-            when[~(peak > 0)] = np.nan
+        pairs = ((self.peak, self.peak_t, 0.0), (self.apeak, self.apeak_t, self.threshold))
+        for peak, when, least in pairs:
+            when[~((peak > 0) & (peak >= least))] = np.nan
         layers = [self.peak, self.peak_t, self.apeak, self.apeak_t, self.duration]
         if self.plan.upwelling:
             layers.append(self.produced)  # mm/yr x Myr = km

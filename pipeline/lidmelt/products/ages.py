@@ -4,8 +4,9 @@ For each feature of a table (``lon``, ``lat``, ``age_ma`` and optionally ``age_e
 standard error in Myr), at the cell that holds it (nearest cell centre):
 
 - ``predicted_age_ma``: the time of the largest melt the thermal anomaly added there
-  (``peak_anomaly_melt_time_ma`` of the run's history: when the plume passed beneath; the time
-  of the largest total melt would often be the ridge's, when the seafloor formed);
+  (``peak_anomaly_melt_time_ma`` of the run's history: when the plume passed beneath, or a
+  little before, where the lid was thinner then; the time of the largest total melt would often
+  be the ridge's, when the seafloor formed), given only within a melting swath (below);
 - ``residual_myr`` = observed minus predicted, and ``residual_sigma`` = that over
   ``age_error_ma`` (empty without an error);
 - ``peak_melt_thickness_km``, ``peak_anomaly_melt_thickness_km`` and ``melting_duration_myr``;
@@ -135,7 +136,8 @@ def feature_ages(run: RunDir | str | os.PathLike[str], features: str | os.PathLi
     sampled = {n: load_variable(run, n, grid).ravel()[stencil.nearest] for n in HISTORY_SAMPLED}
     lon, lat = _lonlat(gdf, x, y)
     placed = place_on_tracks(points, lon, lat)
-    predicted = sampled["peak_anomaly_melt_time_ma"]
+    swath = sampled["melting_duration_myr"] > 0
+    predicted = np.where(swath, sampled["peak_anomaly_melt_time_ma"], np.nan)
     residual = ages - predicted
     new = {
         "plume": placed.plume,
@@ -147,7 +149,7 @@ def feature_ages(run: RunDir | str | os.PathLike[str], features: str | os.PathLi
         "peak_melt_thickness_km": sampled["peak_melt_thickness_km"],
         "peak_anomaly_melt_thickness_km": sampled["peak_anomaly_melt_thickness_km"],
         "melting_duration_myr": sampled["melting_duration_myr"],
-        "in_melting_swath": sampled["melting_duration_myr"] > 0,
+        "in_melting_swath": swath,
     }
     frame = frame.drop(columns=[c for c in AGE_COLUMNS if c in frame.columns])
     for name in AGE_COLUMNS:

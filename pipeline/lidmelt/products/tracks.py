@@ -10,9 +10,10 @@ interpolated linearly between the two points).
 
 The age-distance figure (:func:`age_distance_figure`) has one column per plume: on top the
 predicted progression as a line (time against distance along the track) with the observed ages
-as points with their error bars; below, the melt thickness along the track then (and the melt
-the anomaly added), with the stretch where the seafloor did not yet exist shaded. Drawn with
-matplotlib's Agg canvas.
+as points with their error bars (hollow outside the melting swath) and the history's predicted
+age at each feature (the time of its largest added melt) as crosses; below, the melt thickness
+along the track then (and the melt the anomaly added), with the stretch where the seafloor did
+not yet exist shaded. Drawn with matplotlib's Agg canvas.
 """
 
 from __future__ import annotations
@@ -118,12 +119,30 @@ def _draw_progression(ax, track: pd.DataFrame, features: pd.DataFrame | None) ->
     ax.plot(track["along_track_km"], track["time_ma"], color=_PREDICTED, lw=1.8,
             label="predicted: time above the plume")  # fmt: skip
     if features is not None and len(features):
+        inside = features["in_melting_swath"].to_numpy(bool)
         err = features.get("age_error_ma")
-        ax.errorbar(
-            features["distance_along_track_km"], features["age_ma"],
-            yerr=None if err is None else np.nan_to_num(err.to_numpy(float)), fmt="o",
-            color=_OBSERVED, ms=5, capsize=3, lw=1, label="observed ages",
-        )  # fmt: skip
+        err = None if err is None else np.nan_to_num(err.to_numpy(float))
+        for keep, style in (
+            (inside, {"color": _OBSERVED, "label": "observed ages"}),
+            (
+                ~inside,
+                {"color": "0.5", "mfc": "none", "label": "observed, outside the melting swath"},
+            ),
+        ):
+            if keep.any():
+                ax.errorbar(
+                    features["distance_along_track_km"][keep], features["age_ma"][keep],
+                    yerr=None if err is None else err[keep], fmt="o", ms=5, capsize=3, lw=1,
+                    **style,
+                )  # fmt: skip
+        ax.plot(
+            features["distance_along_track_km"],
+            features["predicted_age_ma"],
+            "x",
+            color=_PREDICTED,
+            ms=6,
+            label="predicted at the feature: largest added melt",
+        )
     ax.set_ylabel("age (Ma)")
     ax.grid(alpha=0.3)
     ax.legend(fontsize=8, loc="upper left")
