@@ -33,7 +33,7 @@ Definitions (lidmelt's own; docs/workflow.md, ``[motion]``, says why):
 
 from __future__ import annotations
 
-from dataclasses import dataclass, replace
+from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
@@ -43,12 +43,19 @@ from scipy.spatial.transform import Rotation
 from lidmelt.engine import KernelSettings, evaluate_chunk
 from lidmelt.grids.anomaly import plume_profile
 from lidmelt.grids.grid import Grid
-from lidmelt.motion.plan import DEFAULT_PLATE, PlumeTrack, reach_cosine
-from lidmelt.motion.rotations import EARTH_RADIUS_KM, lonlat, unit_vectors
+from lidmelt.motion.plan import DEFAULT_PLATE, PlumeTrack
+from lidmelt.motion.rotations import EARTH_RADIUS_KM, unit_vectors
 from lidmelt.physics import EXTRACTION_MIN_MELT_FRACTION
 from lidmelt.variables import HISTORY, OUTPUTS
 
-__all__ = ["FrameField", "HistoryPlan", "frame_inputs", "history_layers", "reduce_history"]
+__all__ = [
+    "FrameField",
+    "HistoryPlan",
+    "cells_cap",
+    "frame_inputs",
+    "history_layers",
+    "reduce_history",
+]
 
 _INDEX = {name: list(OUTPUTS).index(name) for name in OUTPUTS}
 
@@ -57,18 +64,75 @@ _INDEX = {name: list(OUTPUTS).index(name) for name in OUTPUTS}
 class FrameField:
     """A property of the mantle, fixed in the plumes' frame: a constant, or a grid on the run's
     grid (``values``, float32) sampled at positions (bilinear; beyond the grid its edge values,
-    :func:`scipy.ndimage.map_coordinates` mode ``"nearest"``)."""
+    :func:`scipy.ndimage.map_coordinates` mode ``"nearest"``).
+
+    A grid that departs from its ``baseline`` (its median) only inside a spherical cap (unit
+    vector ``cap_centre``, cosine ``cap_cos`` of its radius, widened by a cell diagonal for the
+    bilinear neighbours) is sampled only at positions inside the cap; everywhere else it is the
+    baseline. A grid departing from its baseline on its border has no cap (``cap_cos`` -2).
+    """
 
     constant: float
     values: np.ndarray | None = None
+    baseline: float = 0.0
+    cap_centre: np.ndarray | None = None
+    cap_cos: float = -2.0
 
-    def at(self, grid: Grid, lon: np.ndarray, lat: np.ndarray) -> np.ndarray | float:
-        """The field at longitudes and latitudes (degrees)."""
+    @classmethod
+    def from_grid(cls, grid: Grid, values: np.ndarray) -> FrameField:
+        """The field of a grid on ``grid`` (its cap, if it has one)."""
+        values = np.asarray(values, np.float32)
+        finite = values[np.isfinite(values)]
+        baseline = float(np.median(finite)) if finite.size else 0.0
+        away = ~(values == baseline)
+        border = np.concatenate([away[0], away[-1], away[:, 0], away[:, -1]])
+        if not away.any():
+            return cls(0.0, values, baseline, np.array([0.0, 0.0, 1.0]), 2.0)
+        if border.any():
+            return cls(0.0, values, baseline)
+        rows, cols = np.nonzero(away)
+        lon, lat = grid.lonlat_centres()
+        units = unit_vectors(lon[rows, cols], lat[rows, cols])
+        centre = units.sum(axis=0)
+        if np.linalg.norm(centre) < 1e-9:
+            return cls(0.0, values, baseline)
+        centre /= np.linalg.norm(centre)
+        dx, dy = grid.resolution
+        step = np.radians(np.hypot(dx, dy)) if grid.is_geographic else np.pi  # no cap if not
+        angle = float(np.arccos(np.clip(np.min(units @ centre), -1.0, 1.0))) + 2.0 * step
+        cap_cos = float(np.cos(angle)) if angle < np.pi else -2.0
+        return cls(0.0, values, baseline, centre, cap_cos)
+
+    def at(
+        self, grid: Grid, xyz: np.ndarray, rotation: Rotation, bounds: tuple | None = None
+    ) -> np.ndarray | float:
+        """The field at the positions ``rotation`` gives the unit vectors ``xyz`` (n, 3); with
+        ``bounds`` (a cap around them: unit centre, angle) a cap out of reach costs nothing."""
         if self.values is None:
             return self.constant
-        gx, gy = grid.to_grid_xy(lon, lat, "EPSG:4326")
+        matrix = rotation.as_matrix()
+        out = np.full(len(xyz), self.baseline)
+        if self.cap_centre is not None:
+            seen = matrix.T @ self.cap_centre  # the cap's centre on today's plate
+            if bounds is not None and _apart(bounds, seen, np.arccos(max(self.cap_cos, -1.0))):
+                return self.baseline
+            near = np.flatnonzero(xyz @ seen >= self.cap_cos)
+            if not near.size:
+                return self.baseline
+            xyz = xyz[near]
+        else:
+            near = slice(None)
+        # the positions then, row by row of the matrix (three products, no threaded gemm)
+        x, y, z = (xyz @ row for row in matrix)
+        lon, lat = np.degrees(np.arctan2(y, x)), np.degrees(np.arctan2(z, np.hypot(x, y)))
+        if grid.is_geographic:  # the cell index straight from the transform (grid.to_grid_xy)
+            gx, gy = grid.wrap_x(lon), lat
+        else:
+            gx, gy = grid.to_grid_xy(lon, lat, "EPSG:4326")
         row, col = grid.fractional_index(gx, gy)
-        return map_coordinates(self.values, [row, col], order=1, mode="nearest", prefilter=False)
+        out[near] = map_coordinates(self.values, [row, col], order=1, mode="nearest",
+                                    prefilter=False)  # fmt: skip
+        return out
 
 
 def history_layers(upwelling: bool) -> list[str]:
@@ -99,29 +163,59 @@ class HistoryPlan:
     upwelling: bool
 
 
-def frame_inputs(plan: HistoryPlan, xyz: np.ndarray, plate: int, k: int) -> list:
+def _apart(bounds: tuple, point: np.ndarray, reach: float) -> bool:
+    """Whether every cell within ``bounds`` (unit centre, angle) lies farther than ``reach``
+    (radians) from the unit vector ``point``."""
+    centre, angle = bounds
+    return float(np.arccos(np.clip(centre @ point, -1.0, 1.0))) > reach + angle
+
+
+def cells_cap(xyz: np.ndarray) -> tuple[np.ndarray, float]:
+    """A cap holding the unit vectors ``xyz`` (n, 3): its unit centre and angle (radians)."""
+    centre = xyz.sum(axis=0)
+    norm = np.linalg.norm(centre)
+    if norm < 1e-9:
+        return np.array([0.0, 0.0, 1.0]), np.pi
+    centre /= norm
+    return centre, float(np.arccos(np.clip(np.min(xyz @ centre), -1.0, 1.0))) + 1e-9
+
+
+def frame_inputs(
+    plan: HistoryPlan, xyz: np.ndarray, plate: int, k: int, bounds: tuple | None = None
+) -> list:
     """The anomaly, water and upwelling (K, wt%, mm/yr) of cells ``xyz`` (n, 3) on ``plate`` at
     step ``k``: the mantle's fields at their positions then, plus the plumes around their track
-    points on that plate."""
-    needs_position = any(f.values is not None for f in plan.fields.values())
-    where = lonlat(plan.rotations[plate][k].apply(xyz)) if needs_position else (None, None)
-    out = [plan.fields[n].at(plan.grid, *where) for n in ("thermal_anomaly_k", "water_wt_pct")]
-    up = plan.fields["upwelling_mm_yr"].at(plan.grid, *where) if plan.upwelling else 0.0
-    anomaly = np.broadcast_to(np.asarray(out[0], float), xyz.shape[:1]).copy()
-    up = np.broadcast_to(np.asarray(up, float), xyz.shape[:1]).copy() if plan.upwelling else up
-    for track in plan.plumes:
-        if plate not in track.tracks:
+    points on that plate; ``bounds`` (:func:`cells_cap` of ``xyz``) spares the plumes and
+    fields out of reach."""
+    rotation = plan.rotations[plate][k]
+    n = xyz.shape[0]
+    at = {name: f.at(plan.grid, xyz, rotation, bounds) for name, f in plan.fields.items()}
+    anomaly = _writable(at["thermal_anomaly_k"], n)
+    water = at["water_wt_pct"]
+    up = _writable(at["upwelling_mm_yr"], n) if plan.upwelling else 0.0
+    tracks = [t for t in plan.plumes if plate in t.tracks]
+    if bounds is not None:
+        tracks = [t for t in tracks if not _apart(bounds, t.tracks[plate][k], t.reach_rad)]
+    if not tracks:
+        return [anomaly, water, up]
+    for track in tracks:
+        cosine = xyz @ track.tracks[plate][k]  # a product per plume: no threaded gemm
+        near = np.flatnonzero(cosine >= track.reach_cos)
+        if not near.size:
             continue
-        cos_d = xyz @ track.tracks[plate][k]
-        near = cos_d >= reach_cosine(track.plume, EARTH_RADIUS_KM)
-        if not near.any():
-            continue
-        dist = EARTH_RADIUS_KM * np.arccos(np.clip(cos_d[near], -1.0, 1.0))
-        unit = plume_profile(dist, replace(track.plume, peak_excess_k=1.0))
+        dist = EARTH_RADIUS_KM * np.arccos(np.minimum(cosine[near], 1.0))
+        unit = plume_profile(dist, track.unit)
         anomaly[near] += track.plume.peak_excess_k * unit
         if plan.upwelling and track.upwelling is not None:
             up[near] += track.upwelling * unit
-    return [anomaly, out[1], up]
+    return [anomaly, water, up]
+
+
+def _writable(value, n: int) -> np.ndarray:
+    """``value`` (a number or an array of n) as a new float64 array of n."""
+    if np.ndim(value):
+        return np.asarray(value, float).copy()
+    return np.full(n, float(value))
 
 
 def _today(plan: HistoryPlan, blocks, shape) -> list:
@@ -131,22 +225,41 @@ def _today(plan: HistoryPlan, blocks, shape) -> list:
     return vals
 
 
-def _step_inputs(plan, today, xyz, plates, k, shape) -> list:
+def _step_inputs(plan, today, xyz, groups, k, shape) -> list:
     """The kernel's inputs at step ``k`` > 0: age then (NaN before the seafloor formed), no lid
-    grid, the frame inputs of each plate's cells (NaN for cells without rotations)."""
+    grid, the frame inputs of each plate's cells (``groups``: plate id and its cells, a flat
+    index array or None for all; NaN for cells without rotations)."""
     age = np.asarray(today[0], float) - plan.times[k]
     age = np.where(age >= 0.0, age, np.nan)
-    fields = [np.full(shape, np.nan) for _ in range(3)]
-    for plate in np.unique(plates):
-        if plate not in plan.rotations:
-            continue
-        mask = plates == plate
-        values = frame_inputs(plan, xyz[mask.ravel()], int(plate), k)
-        for field, value in zip(fields, values, strict=True):
-            field[mask] = value
+    if len(groups) == 1 and groups[0][1] is None:
+        values = frame_inputs(plan, xyz, groups[0][0], k, groups[0][2])
+        fields = [np.reshape(v, shape) if np.ndim(v) else v for v in values]
+    else:
+        fields = [np.full(shape, np.nan) for _ in range(3)]
+        for plate, cells, bounds in groups:
+            values = frame_inputs(plan, xyz[cells], plate, k, bounds)
+            for out, value in zip(fields, values, strict=True):
+                out.ravel()[cells] = value
     if not plan.upwelling:
         fields[2] = 0.0
     return [age, np.nan, *fields, np.nan]
+
+
+def _plate_groups(plan: HistoryPlan, plates, xyz: np.ndarray) -> list[tuple]:
+    """Each plate of the chunk with rotations, its cells (flat indices; None: every cell) and
+    their cap (:func:`cells_cap`)."""
+    if plates is None:
+        return [(DEFAULT_PLATE, None, cells_cap(xyz))]
+    flat = np.asarray(plates).ravel()
+    known = np.isin(flat, list(plan.rotations))
+    fallback = DEFAULT_PLATE if DEFAULT_PLATE in plan.rotations else None
+    flat = np.where(known, flat, -2 if fallback is None else fallback)
+    groups = []
+    for plate in np.unique(flat):
+        if plate in plan.rotations:
+            cells = np.flatnonzero(flat == plate)
+            groups.append((int(plate), cells, cells_cap(xyz[cells])))
+    return groups
 
 
 def reduce_history(plan: HistoryPlan, window: tuple[int, int, int, int], blocks, plates=None):
@@ -157,18 +270,14 @@ def reduce_history(plan: HistoryPlan, window: tuple[int, int, int, int], blocks,
     shape = (r1 - r0, c1 - c0)
     lon, lat = plan.grid.lonlat_centres(rows=slice(r0, r1), cols=slice(c0, c1))
     xyz = unit_vectors(lon, lat).reshape(-1, 3)
-    if plates is None:
-        plates = np.full(shape, DEFAULT_PLATE)
-    else:
-        known = np.isin(plates, list(plan.rotations))
-        plates = np.where(known, plates, DEFAULT_PLATE if DEFAULT_PLATE in plan.rotations else -2)
+    groups = _plate_groups(plan, plates, xyz)
     today = _today(plan, blocks, shape)
     acc = _Reduction(shape, plan)
     for k, t in enumerate(plan.times):
         if k == 0:
             out = evaluate_chunk(*today, settings=plan.settings)
         else:
-            vals = _step_inputs(plan, today, xyz, plates, k, shape)
+            vals = _step_inputs(plan, today, xyz, groups, k, shape)
             out = evaluate_chunk(*vals, settings=plan.settings, check_inputs=False)
         acc.add(out, float(t), float(plan.weights[k]))
     return acc.layers()

@@ -8,13 +8,18 @@ R(t)^-1 applied to its position at t (:meth:`lidmelt.motion.rotations.RotationHi
 
 from __future__ import annotations
 
-from dataclasses import dataclass
-from typing import Any
+from dataclasses import dataclass, replace
+from functools import cached_property
 
 import numpy as np
 
 from lidmelt.grids.anomaly import Plume
-from lidmelt.motion.rotations import RotationHistory, slerp_positions, unit_vectors
+from lidmelt.motion.rotations import (
+    EARTH_RADIUS_KM,
+    RotationHistory,
+    slerp_positions,
+    unit_vectors,
+)
 
 __all__ = [
     "DEFAULT_PLATE",
@@ -82,6 +87,21 @@ class PlumeTrack:
     lat: np.ndarray
     tracks: dict[int, np.ndarray]
 
+    @cached_property
+    def unit(self) -> Plume:
+        """The plume's profile for a peak of 1 (its upwelling uses the same shape)."""
+        return replace(self.plume, peak_excess_k=1.0)
+
+    @cached_property
+    def reach_rad(self) -> float:
+        """The angle (radians) of the plume's reach on the sphere of the rotations."""
+        return self.plume.reach_km / EARTH_RADIUS_KM
+
+    @cached_property
+    def reach_cos(self) -> float:
+        """The cosine of :attr:`reach_rad` (-1: a reach of half the circumference or more)."""
+        return -1.0 if self.reach_rad >= np.pi else float(np.cos(self.reach_rad))
+
     def track_lonlat(self, plate: int) -> tuple[np.ndarray, np.ndarray]:
         """The track on ``plate`` as longitudes and latitudes (degrees)."""
         from lidmelt.motion.rotations import lonlat
@@ -101,10 +121,3 @@ def build_tracks(cfg, times: np.ndarray, rotations: dict[int, RotationHistory]) 
                        tracks)
         )  # fmt: skip
     return tuple(out)
-
-
-def reach_cosine(plume: Any, radius_km: float) -> float:
-    """The cosine of the angle of the plume's reach on a sphere of ``radius_km`` (a reach of
-    half the circumference or more: -1, every point)."""
-    angle = plume.reach_km / radius_km
-    return -1.0 if angle >= np.pi else float(np.cos(angle))

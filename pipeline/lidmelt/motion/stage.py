@@ -61,7 +61,7 @@ def _frame_fields(context: StageContext) -> dict[str, FrameField]:
     for name in _FRAME_INPUTS:
         value = values.get(name, 0.0)
         if hasattr(value, "data"):
-            out[name] = FrameField(0.0, np.asarray(value.values, np.float32))
+            out[name] = FrameField.from_grid(context.target, np.asarray(value.values))
         else:
             out[name] = FrameField(float(value))
     return out
@@ -163,6 +163,7 @@ def run_motion_stage(context: StageContext) -> tuple[list[Path], dict[str, Any]]
     t0 = time.perf_counter()
     cfg = context.cfg
     plan, arrays, plates = _plan(context)
+    t_plan = time.perf_counter()
     names = history_layers(plan.upwelling)
     template = context.target.template(int(cfg.compute.chunk_size))
     items = []
@@ -197,6 +198,7 @@ def run_motion_stage(context: StageContext) -> tuple[list[Path], dict[str, Any]]
         ),
         "tracks": track_summary(points, plan),
         "history_s": t1 - t0,
+        "history_plan_s": t_plan - t0,
         "compute_s": time.perf_counter() - t0,
     }
     outputs = {
