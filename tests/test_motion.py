@@ -196,3 +196,44 @@ def test_run_records_the_history(moving):
     track = s["motion"]["tracks"][0]
     npt.assert_allclose(track["mean_rate_km_per_myr"], SPEED_KM_MYR * np.cos(np.radians(0.1)),
                         rtol=0.01)  # fmt: skip
+
+
+def test_a_plume_drifting_with_the_plate_stays_over_one_point(tmp_path):
+    # identity: a plume carried exactly like the plate (its position R(t) P) has the track
+    # R(t)^-1 R(t) P = P: every track point is the plume's position today
+    lon0, lat0 = mk.PLUME["longitude"], mk.PLUME["latitude"]
+    rows = "".join(f"Solo,{t:g},{lon0 + mk.OMEGA * t!r},{lat0}\n" for t in range(1, 21))
+    (tmp_path / "drift.csv").write_text("plume,age_ma,lon,lat\n" + rows, encoding="utf-8")
+    run = open_run(mk.run(tmp_path, motion='plume_drift = "drift.csv"'))
+    points = pd.read_csv(run.path / "track_points.csv")
+    assert len(points) == 21
+    npt.assert_allclose(points["lon"], lon0, atol=1e-9)
+    npt.assert_allclose(points["lat"], lat0, atol=1e-9)
+    assert run.summary["motion"]["files"]["plume_drift"]["source"].endswith("drift.csv")
+
+
+def test_a_plate_id_grid_gives_each_plate_its_rotations(tmp_path):
+    # west of 10 W a second plate that does not move (angle 0): the track on the moving plate
+    # stops where it reaches that plate (t = 10 Myr at 1 deg/Myr), and the fixed plate's
+    # cells never pass over the plume, 10 degrees east of them
+    import rasterio
+    from rasterio.transform import from_origin
+
+    ids = np.where(mk.cell_lon() < -10.0, 2, 1).astype("int16")
+    with rasterio.open(
+        tmp_path / "plates.tif", "w", driver="GTiff", height=mk.HEIGHT, width=mk.WIDTH, count=1,
+        dtype="int16", crs="EPSG:4326", transform=from_origin(mk.WEST, mk.NORTH, mk.RES, mk.RES),
+    ) as dst:  # fmt: skip
+        dst.write(np.broadcast_to(ids, (mk.HEIGHT, mk.WIDTH)), 1)
+    tmp_path.mkdir(exist_ok=True)
+    (tmp_path / "fixed.csv").write_text(mk.rotations_text(omega=0.0), encoding="utf-8")
+    motion = (
+        'plate_ids = "plates.tif"\n[motion.plate_rotations]\n1 = "rotations.csv"\n2 = "fixed.csv"'
+    )
+    run = open_run(mk.run(tmp_path, motion=motion))
+    points = pd.read_csv(run.path / "track_points.csv")
+    npt.assert_allclose(points["time_ma"], np.arange(0.0, 11.0))
+    assert run.summary["motion"]["plates"] == [1, 2]
+    added = run.open("peak_anomaly_melt_thickness_km").values
+    assert np.all(added[:, mk.cell_lon() < -11.0] == 0.0)
+    assert np.nanmax(added[:, (mk.cell_lon() > -9.0) & (mk.cell_lon() < -1.0)]) > 1.0

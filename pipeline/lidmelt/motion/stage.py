@@ -189,7 +189,8 @@ def run_motion_stage(context: StageContext) -> tuple[list[Path], dict[str, Any]]
         "steps": len(plan.times),
         "duration_min_melt_km": motion.duration_min_melt_km,
         "files": _files_entry(cfg),
-        "plates": sorted(int(p) for p in plan.rotations),
+        "plates": sorted(int(p) for p in plan.rotations if p != DEFAULT_PLATE),
+        "default_rotations": DEFAULT_PLATE in plan.rotations,
         "frame": (
             "plumes and the mantle's anomaly, water and upwelling grids fixed in the plumes' "
             "frame (grids sampled at each cell's position then, their edge values beyond "
