@@ -36,6 +36,7 @@ __all__ = [
     "along_track_km",
     "place_on_tracks",
     "read_track_points",
+    "tracks_figure",
 ]
 
 #: Parts each segment between two track points is divided into when a point is placed.
@@ -115,7 +116,9 @@ def place_on_tracks(points: pd.DataFrame, lon, lat) -> OnTrack:
     )
 
 
-def _draw_progression(ax, track: pd.DataFrame, features: pd.DataFrame | None) -> None:
+def _draw_progression(
+    ax, track: pd.DataFrame, features: pd.DataFrame | None, *, legend: bool = True
+) -> None:
     ax.plot(track["along_track_km"], track["time_ma"], color=_PREDICTED, lw=1.8,
             label="predicted: time above the plume")  # fmt: skip
     if features is not None and len(features):
@@ -145,10 +148,11 @@ def _draw_progression(ax, track: pd.DataFrame, features: pd.DataFrame | None) ->
         )
     ax.set_ylabel("age (Ma)")
     ax.grid(alpha=0.3)
-    ax.legend(fontsize=8, loc="upper left")
+    if legend:
+        ax.legend(fontsize=8, loc="upper left")
 
 
-def _draw_melt(ax, track: pd.DataFrame) -> None:
+def _draw_melt(ax, track: pd.DataFrame, *, legend: bool = True) -> None:
     d = track["along_track_km"].to_numpy(float)
     ax.plot(d, track["melt_thickness_km"], color="0.15", lw=1.6, label="melt thickness then")
     ax.plot(d, track["anomaly_melt_thickness_km"], color=_ADDED, lw=1.4, ls="--",
@@ -158,10 +162,11 @@ def _draw_melt(ax, track: pd.DataFrame) -> None:
         lo, hi = d[unformed].min(), d[unformed].max()
         ax.axvspan(lo, hi, color="0.85", zorder=0, label="seafloor not yet formed")
     ax.set_ylabel("melt (km)")
-    ax.set_xlabel("distance along the hotspot track from the plume today (km)")
+    ax.set_xlabel("distance along the track from the plume today (km)", fontsize=9)
     ax.set_ylim(bottom=0)
     ax.grid(alpha=0.3)
-    ax.legend(fontsize=8, loc="upper right")
+    if legend:
+        ax.legend(fontsize=8, loc="upper right")
 
 
 def age_distance_figure(
@@ -183,11 +188,48 @@ def age_distance_figure(
         top = fig.add_subplot(grid[0, k])
         bottom = fig.add_subplot(grid[1, k], sharex=top)
         mine = None if features is None else features[features["plume"] == name]
-        _draw_progression(top, track, mine)
-        _draw_melt(bottom, track)
+        _draw_progression(top, track, mine, legend=k == 0)
+        _draw_melt(bottom, track, legend=k == 0)
         top.set_title(f"hotspot track of {name}", fontsize=10)
         top.tick_params(labelbottom=False, labelsize=8)
         bottom.tick_params(labelsize=8)
     fig.text(0.09, 0.975, title or "Age against distance along the hotspot tracks",
              fontsize=12, fontweight="bold", va="top")  # fmt: skip
+    return fig
+
+
+#: Colours of the plumes in :func:`tracks_figure` (Okabe & Ito 2008, from memory), in turn.
+_PLUME_COLOURS = ("#0072B2", "#D55E00", "#009E73", "#CC79A7", "#E69F00", "#56B4E9", "#000000")
+
+
+def tracks_figure(points: pd.DataFrame, *, title: str = "") -> Any:
+    """Every plume's track on two shared panels: the predicted age against distance along it
+    (top) and the melt thickness then (bottom; dashed: the melt the anomaly added), a colour per
+    plume. Returns the figure."""
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.figure import Figure
+
+    fig = Figure(figsize=(8.0, 6.4), dpi=150, facecolor="white")
+    FigureCanvasAgg(fig)
+    grid = fig.add_gridspec(2, 1, height_ratios=(1.2, 1), hspace=0.08, left=0.1, right=0.97,
+                            top=0.9, bottom=0.09)  # fmt: skip
+    top = fig.add_subplot(grid[0])
+    bottom = fig.add_subplot(grid[1], sharex=top)
+    for k, name in enumerate(dict.fromkeys(points["plume"])):
+        track = points[points["plume"] == name]
+        colour = _PLUME_COLOURS[k % len(_PLUME_COLOURS)]
+        d = track["along_track_km"]
+        top.plot(d, track["time_ma"], color=colour, lw=1.8, label=name)
+        bottom.plot(d, track["melt_thickness_km"], color=colour, lw=1.6)
+        bottom.plot(d, track["anomaly_melt_thickness_km"], color=colour, lw=1.0, ls="--")
+    top.set_ylabel("predicted age (Ma)")
+    top.legend(fontsize=8, loc="upper left", title="plume", title_fontsize=8)
+    top.tick_params(labelbottom=False, labelsize=8)
+    bottom.set_ylabel("melt then (km)")
+    bottom.set_xlabel("distance along the hotspot track from the plume today (km)")
+    bottom.set_ylim(bottom=0)
+    bottom.tick_params(labelsize=8)
+    for ax in (top, bottom):
+        ax.grid(alpha=0.3)
+    fig.text(0.1, 0.975, title or "The hotspot tracks", fontsize=12, fontweight="bold", va="top")
     return fig

@@ -5,8 +5,8 @@ table, :mod:`lidmelt.motion`): what the history is (its span and step, the rotat
 what moves with the plate and what stays in the plumes' frame, the threshold of the melting
 duration), one row per plume's hotspot track (its points within the grid and their span, its
 length and mean rate, its largest melt then, the points where the seafloor did not yet exist),
-and the age-distance figure of the tracks (:func:`lidmelt.products.tracks.age_distance_figure`:
-the predicted progression and the melt along each track). The maps of the history's outputs
+and the figure of the tracks (:func:`lidmelt.products.tracks.tracks_figure`: the predicted
+progression and the melt along each track). The maps of the history's outputs
 (peak melt, its time, the duration) are among the run's maps.
 """
 
@@ -18,7 +18,7 @@ from typing import Any
 from lidmelt.errors import LidmeltError
 from lidmelt.grids.rundir import RunDir
 from lidmelt.products.report.content import Block, MapImage, Section, Table, format_sig
-from lidmelt.products.tracks import age_distance_figure, read_track_points
+from lidmelt.products.tracks import read_track_points, tracks_figure
 
 __all__ = ["history_section", "tracks_table"]
 
@@ -73,13 +73,14 @@ def history_section(run: RunDir, *, dpi: float, width_in: float) -> Section | No
         blocks += ["The hotspot tracks on today's plate:", tracks_table(tracks)]
     try:
         points = read_track_points(run)
-        fig = age_distance_figure(points, title="The chain's history along its hotspot tracks")
-        fig.set_size_inches(width_in, width_in * 0.7)
+        fig = tracks_figure(points, title="The chain's history along its hotspot tracks")
+        fig.set_size_inches(width_in, 0.8 * width_in)
     except LidmeltError as exc:
         return Section("history", "The chain's history", (*blocks, f"No figure: {exc}"))
     caption = (
         "Predicted age against distance along each hotspot track (top) and the melt thickness "
-        "then along it (bottom; grey: the seafloor did not yet exist); track_points.csv"
+        "then along it (bottom; dashed: the melt the thermal anomaly added; a line ends where "
+        "the track leaves the grid or the seafloor did not yet exist); track_points.csv"
     )
     blocks.append(MapImage("hotspot_tracks", _png(fig, dpi), "image/png", "history", caption))
     return Section("history", "The chain's history", tuple(blocks))
