@@ -63,7 +63,8 @@ def _numbers(frame: pd.DataFrame, column: str, source: str, *, positive: bool) -
     NaN, no error given); else an error naming the rows."""
     text = frame[column].astype(str).str.strip()
     values = pd.to_numeric(text, errors="coerce").to_numpy(float)
-    empty = text.isin(["", "nan", "None"]).to_numpy() if positive else np.zeros(len(text), bool)
+    blank = (frame[column].isna() | text.isin(["", "nan", "None"])).to_numpy()
+    empty = blank if positive else np.zeros(len(text), bool)
     with np.errstate(invalid="ignore"):
         bad = ~empty & (~np.isfinite(values) | (values <= 0 if positive else values < 0))
     if bad.any():
