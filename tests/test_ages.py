@@ -38,7 +38,10 @@ def features(tmp_path):
     t = np.array([2.0, 5.0, 8.0])
     lon = mk.PLUME["longitude"] - mk.OMEGA * t
     ages = t + np.array([0.5, -1.0, 0.0])
-    rows = [f"S{k},{float(x)!r},0.125,{float(a)!r},0.5" for k, (x, a) in enumerate(zip(lon, ages))]
+    rows = [
+        f"S{k},{float(x)!r},0.125,{float(a)!r},0.5"
+        for k, (x, a) in enumerate(zip(lon, ages, strict=False))
+    ]
     rows.append("Far,-5.125,-8.125,3.0,")
     path = tmp_path / "dated.csv"
     path.write_text("name,lon,lat,age_ma,age_error_ma\n" + "\n".join(rows) + "\n", "utf-8")
@@ -66,7 +69,8 @@ def test_ages_are_predicted_where_the_plume_passed(moving, features):
     npt.assert_allclose(near["peak_melt_thickness_km"], peak[row, cols])
     far = table.iloc[3]
     assert not far["in_melting_swath"]
-    assert np.isnan(far["predicted_age_ma"]) and np.isnan(far["residual_sigma"])
+    assert np.isnan(far["predicted_age_ma"])
+    assert np.isnan(far["residual_sigma"])
 
 
 def test_ages_command_writes_the_table_and_the_figure(moving, features, tmp_path, capsys):
