@@ -63,6 +63,7 @@ def measure(out: Path, workers: int) -> dict[str, float]:
         "single_total_s": single.timings_s["total_s"],
         "history_s": both.summary["motion"]["history_s"],
         "plan_s": both.summary["motion"]["history_plan_s"],
+        "history_kernel_s": both.summary["motion"]["history_kernel_thread_s"],
         "run_with_history_s": total,
     }
 
@@ -82,6 +83,12 @@ def report(r: dict[str, float], workers: int) -> None:
     print(
         f"  of which the plan (inputs without plumes, tracks) {r['plan_s']:.2f} s; the steps "
         f"alone {loop / 1e6:.2f} M steps x cells/s = {loop / kernel_rate:.2f} x the kernel rate"
+    )
+    hk = r["history_kernel_s"]
+    print(
+        f"  the kernel inside the history {hk:.2f} s = {steps * cells / hk / 1e6:.2f} M cells/s "
+        f"(the columns then melt more often than today's: younger, thinner lids); the "
+        f"rest {r['history_s'] - r['plan_s'] - hk:.2f} s"
     )
     print(f"  run with history {r['run_with_history_s']:.2f} s = {ratio:.1f} x the single run "
           "(goal < 20)")  # fmt: skip

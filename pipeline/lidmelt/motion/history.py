@@ -33,7 +33,8 @@ Definitions (lidmelt's own; docs/workflow.md, ``[motion]``, says why):
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
+from pathlib import Path
 from typing import Any
 
 import numpy as np
@@ -49,6 +50,7 @@ from lidmelt.physics import EXTRACTION_MIN_MELT_FRACTION
 from lidmelt.variables import HISTORY, OUTPUTS
 
 __all__ = [
+    "TODAY_NEEDED",
     "FrameField",
     "HistoryPlan",
     "cells_cap",
@@ -125,11 +127,12 @@ class FrameField:
         # the positions then, row by row of the matrix (three products, no threaded gemm)
         x, y, z = (xyz @ row for row in matrix)
         lon, lat = np.degrees(np.arctan2(y, x)), np.degrees(np.arctan2(z, np.hypot(x, y)))
-        if grid.is_geographic:  # the cell index straight from the transform (grid.to_grid_xy)
-            gx, gy = grid.wrap_x(lon), lat
+        if grid.is_geographic:  # the cell index straight from the transform (no snapping:
+            a, _, c, _, e, f = grid.transform  # the interpolation needs none)
+            col = (grid.wrap_x(lon) - c) / a - 0.5
+            row = (lat - f) / e - 0.5
         else:
-            gx, gy = grid.to_grid_xy(lon, lat, "EPSG:4326")
-        row, col = grid.fractional_index(gx, gy)
+            row, col = grid.fractional_index(*grid.to_grid_xy(lon, lat, "EPSG:4326"))
         out[near] = map_coordinates(self.values, [row, col], order=1, mode="nearest",
                                     prefilter=False)  # fmt: skip
         return out
@@ -161,6 +164,11 @@ class HistoryPlan:
     scalars: tuple[Any, ...]
     threshold_km: float
     upwelling: bool
+    clock: dict[str, float] = field(default_factory=dict)  # the kernel's thread seconds
+    #: today's outputs the reductions need, as the run wrote them (the step t = 0 read from
+    #: them, not computed again); None: the step t = 0 goes through the kernel with today's
+    #: input blocks
+    today_files: dict[str, Path] | None = None
 
 
 def _apart(bounds: tuple, point: np.ndarray, reach: float) -> bool:
@@ -274,13 +282,35 @@ def reduce_history(plan: HistoryPlan, window: tuple[int, int, int, int], blocks,
     today = _today(plan, blocks, shape)
     acc = _Reduction(shape, plan)
     for k, t in enumerate(plan.times):
-        if k == 0:
-            out = evaluate_chunk(*today, settings=plan.settings)
+        if k == 0 and plan.today_files is not None:
+            out = _read_today(plan.today_files, window)
+        elif k == 0:
+            out = evaluate_chunk(*today, settings=plan.settings, clock=plan.clock)
         else:
             vals = _step_inputs(plan, today, xyz, groups, k, shape)
-            out = evaluate_chunk(*vals, settings=plan.settings, check_inputs=False)
+            out = evaluate_chunk(*vals, settings=plan.settings, check_inputs=False,
+                                 clock=plan.clock)  # fmt: skip
         acc.add(out, float(t), float(plan.weights[k]))
     return acc.layers()
+
+
+#: Today's outputs the reductions read (the last with an upwelling input).
+TODAY_NEEDED = (
+    "melt_thickness_km", "anomaly_melt_thickness_km", "max_melt_fraction", "melt_production_mm_yr",
+)  # fmt: skip
+
+
+def _read_today(files: dict[str, Path], window: tuple[int, int, int, int]) -> np.ndarray:
+    """Today's outputs of one chunk from the run's files, in the kernel's rows (others NaN)."""
+    import rasterio
+    from rasterio.windows import Window
+
+    r0, r1, c0, c1 = window
+    out = np.full((len(OUTPUTS) + 1, r1 - r0, c1 - c0), np.nan, np.float32)
+    for name, path in files.items():
+        with rasterio.open(path) as src:
+            out[_INDEX[name]] = src.read(1, window=Window(c0, r0, c1 - c0, r1 - r0))
+    return out
 
 
 class _Reduction:

@@ -25,7 +25,13 @@ from lidmelt.grids import rundir
 from lidmelt.grids.align import align
 from lidmelt.grids.io import open_grid, sha256_file
 from lidmelt.grids.store import GeoTiffItem, GeoTiffSet
-from lidmelt.motion.history import FrameField, HistoryPlan, history_layers, reduce_history
+from lidmelt.motion.history import (
+    TODAY_NEEDED,
+    FrameField,
+    HistoryPlan,
+    history_layers,
+    reduce_history,
+)
 from lidmelt.motion.plan import (
     DEFAULT_PLATE,
     build_tracks,
@@ -102,13 +108,19 @@ def _plan(context: StageContext) -> tuple[HistoryPlan, list, np.ndarray | None]:
     )
     template = context.target.template(int(cfg.compute.chunk_size))
     args = kernel_arguments(inputs, template=template)
+    upwelling = "upwelling_mm_yr" in inputs.values
+    needed = [n for n in TODAY_NEEDED if upwelling or n != "melt_production_mm_yr"]
+    today = None
+    if all(n in cfg.outputs.variables for n in needed):  # t = 0 read from the run's files
+        today = {n: context.run_dir / rundir.output_file(n) for n in needed}
+        args = args[:1]  # the steps after the present need today's age alone
     scalars = tuple(None if hasattr(a, "dask") else a for a in args)
     plan = HistoryPlan(
         settings=settings, grid=context.target, times=times, weights=step_weights(times),
         rotations={p: h.at(times) for p, h in rotations.items()},
         plumes=build_tracks(cfg, times, rotations), fields=_frame_fields(context),
-        scalars=scalars, threshold_km=motion.duration_min_melt_km,
-        upwelling="upwelling_mm_yr" in inputs.values,
+        scalars=scalars, threshold_km=motion.duration_min_melt_km, upwelling=upwelling,
+        today_files=today,
     )  # fmt: skip
     plates = _plate_grid(context, set(rotations))
     return plan, [a for a in args if hasattr(a, "dask")], plates
@@ -200,6 +212,8 @@ def run_motion_stage(context: StageContext) -> tuple[list[Path], dict[str, Any]]
         "tracks": track_summary(points, plan),
         "history_s": t1 - t0,
         "history_plan_s": t_plan - t0,
+        # thread seconds in the kernel (lid and melting; local threads only)
+        "history_kernel_thread_s": sum(plan.clock.values()),
         "compute_s": time.perf_counter() - t0,
     }
     outputs = {
