@@ -246,3 +246,30 @@ def test_the_present_read_from_the_files_or_computed_agree(moving, tmp_path):
     other = open_run(mk.run(tmp_path, extra='[outputs]\nvariables = ["melt_thickness_km"]'))
     for name in ("peak_melt_thickness_km", "peak_anomaly_melt_time_ma", "melting_duration_myr"):
         npt.assert_array_equal(other.open(name).values, moving.open(name).values, err_msg=name)
+
+
+def test_integrated_production_is_the_time_sum_of_w_times_f(tmp_path):
+    # with a constant upwelling W and no plume upwelling, a cell far from the track produced
+    # W F(top) at every step where its seafloor existed: the trapezoid sum over the steps
+    # (weights 0.5 at the ends, 1 between: max_age_ma at every step) of W x the melt fraction
+    # at the top of a single column at the ambient Tp and the lid then (mm/yr x Myr = km)
+    w = 40.0
+    run = open_run(mk.run(tmp_path, extra=f"[inputs.upwelling]\nconstant = {w}"))
+    assert "integrated_melt_production_km" in run.outputs
+    got = run.open("integrated_melt_production_km").values
+    row = int(np.argmax(np.abs(mk.cell_lat() - mk.PLUME["latitude"])))  # 9.9 degrees away
+    age = mk.age_field(mk.cell_lon())
+    times = np.arange(0.0, mk.MAX_AGE + 1.0)
+    weights = np.where((times == 0) | (times == mk.MAX_AGE), 0.5, 1.0)
+    expected = np.zeros(age.shape)
+    for t, weight in zip(times, weights, strict=True):
+        formed = age - t >= 0
+        f = column_then(np.full(formed.sum(), 1350.0), age[formed] - t).max_melt_fraction
+        expected[formed] += weight * w * f
+    tol = w * 2e-3 * mk.MAX_AGE  # the table's 2e-3 on F (tests/test_table.py) at every step
+    assert expected.max() > 20 * tol  # the ridge's young cells produced melt
+    assert np.all(np.abs(got[row] - expected) <= tol), np.max(np.abs(got[row] - expected))
+    # the plume's track produced more than the same age far from it
+    near = int(np.argmin(np.abs(mk.cell_lat() - mk.PLUME["latitude"])))
+    west = (mk.cell_lon() > -8.0) & (mk.cell_lon() < -2.0)
+    assert np.all(got[near, west] > got[row, west])
