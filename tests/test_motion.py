@@ -273,3 +273,35 @@ def test_integrated_production_is_the_time_sum_of_w_times_f(tmp_path):
     near = int(np.argmin(np.abs(mk.cell_lat() - mk.PLUME["latitude"])))
     west = (mk.cell_lon() > -8.0) & (mk.cell_lon() < -2.0)
     assert np.all(got[near, west] > got[row, west])
+
+
+def test_a_mantle_grid_is_read_at_each_cells_position_then(tmp_path):
+    # an anomaly grid rising 10 K per degree of longitude, fixed in the plumes' frame: a cell
+    # on today's longitude L lay at L + omega t at time t (the plate turns east about the north
+    # pole), on a cell centre of the grid at every whole Myr, so its Tp then is 1350 + 10 (L +
+    # omega t + 30) (bilinear sampling is exact on a linear field). Hotter and beneath a
+    # younger lid the further back, it melted most at the last step before its seafloor formed
+    # (t* = the whole Myr below its age, at most the history's 20): one column at that Tp and
+    # the lid then. The row 10 degrees from the plume's track has no plume melt.
+    import rasterio
+    from rasterio.transform import from_origin
+
+    ramp = np.broadcast_to(10.0 * (mk.cell_lon() + 30.0), (mk.HEIGHT, mk.WIDTH))
+    with rasterio.open(
+        tmp_path / "ramp.tif", "w", driver="GTiff", height=mk.HEIGHT, width=mk.WIDTH, count=1,
+        dtype="float32", crs="EPSG:4326", transform=from_origin(mk.WEST, mk.NORTH, mk.RES, mk.RES),
+    ) as dst:  # fmt: skip
+        dst.write(ramp.astype("float32"), 1)
+    run = open_run(mk.run(tmp_path, extra='[inputs.thermal_anomaly]\npath = "ramp.tif"'))
+    row = int(np.argmax(np.abs(mk.cell_lat() - mk.PLUME["latitude"])))
+    lon = mk.cell_lon()
+    age = mk.age_field(lon)
+    t_star = np.minimum(np.floor(age), mk.MAX_AGE)
+    inside = lon + mk.OMEGA * t_star < lon[-1] + 1e-9  # within the grid then (no edge values)
+    ref = column_then(1350.0 + 10.0 * (lon + mk.OMEGA * t_star + 30.0), age - t_star)
+    melts = inside & (ref.melt_thickness_km > 0)
+    assert melts.sum() > 50
+    h = ref.melt_thickness_km[melts]
+    peak = run.open("peak_melt_thickness_km").values[row, melts]
+    assert np.all(np.abs(peak - h) <= table_tolerance(h)), np.max(np.abs(peak - h))
+    npt.assert_array_equal(run.open("peak_melt_time_ma").values[row, melts], t_star[melts])
