@@ -305,3 +305,31 @@ def test_a_mantle_grid_is_read_at_each_cells_position_then(tmp_path):
     peak = run.open("peak_melt_thickness_km").values[row, melts]
     assert np.all(np.abs(peak - h) <= table_tolerance(h)), np.max(np.abs(peak - h))
     npt.assert_array_equal(run.open("peak_melt_time_ma").values[row, melts], t_star[melts])
+
+
+def test_a_grid_departing_inside_a_cap_is_sampled_as_the_whole_grid():
+    # identity: a field that departs from its median only inside a cap is sampled only there;
+    # at any rotation the result equals the plain bilinear sampling of the whole grid
+    from scipy.spatial.transform import Rotation
+
+    from lidmelt.grids.grid import Grid
+    from lidmelt.motion.history import FrameField
+    from lidmelt.motion.rotations import finite_rotation, unit_vectors
+
+    grid = Grid.from_extent(-30.0, 10.0, -10.0, 10.0, 0.25)
+    lon, lat = grid.lonlat_centres()
+    d = great_circle_km(lon, lat, -12.0, 2.0)
+    values = (np.exp(-((d / 200.0) ** 2)) * (d < 600.0) * 80.0).astype("float32")
+    capped = FrameField.from_grid(grid, values)
+    assert capped.cap_centre is not None  # the cap is in use
+    assert capped.cap_cos > -1.0
+    whole = FrameField(0.0, capped.values, capped.baseline)
+    xyz = unit_vectors(lon, lat).reshape(-1, 3)
+    rotations = [Rotation.identity(), finite_rotation(90.0, 0.0, 6.0), finite_rotation(20.0, 40.0,
+                 -9.0), finite_rotation(90.0, 0.0, 60.0)]  # fmt: skip
+    seen = 0
+    for rotation in rotations:
+        a, b = capped.at(grid, xyz, rotation), whole.at(grid, xyz, rotation)
+        npt.assert_allclose(np.broadcast_to(a, b.shape), b, atol=1e-4)
+        seen += int(np.sum(b > 1.0))
+    assert seen > 1000
