@@ -158,6 +158,10 @@ def test_far_from_the_track_a_cell_keeps_its_own_columns(moving):
     none_then = ref.melt_thickness_km == 0
     assert none_then.sum() > 20
     assert np.array_equal(peak[:, none_then], today[:, none_then])
+    # and no time: nothing melted there at any step; where it melted the time is one of the steps
+    when = moving.open("peak_melt_time_ma").values[far]
+    assert np.isnan(when[:, none_then]).all()
+    assert np.isin(when[:, ~none_then], np.arange(0.0, mk.MAX_AGE + 1.0)).all()
     # where the lid then was thinner than today's, the cell melted more then (the ridge)
     assert np.all(peak[0, ~none_then] > today[0, ~none_then])
 
