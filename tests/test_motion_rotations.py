@@ -110,7 +110,7 @@ def test_cox_hart_table_7_3_interpolation():
     # Australia relative to Antarctica at 37 and 42 Ma (Cox & Hart 1986, Table 7-3); at 40 Ma
     # the interpolated rotation is 10.89 S, 145.35 W, 22.36 deg (PlateKinematics.jl
     # documentation, "Interpolate Finite Rotations"); at 30 Ma, between the present and
-    # 37 Ma, the 37 Ma pole with 16.62 deg
+    # 37 Ma, the 37 Ma pole with 16.62 deg (closed form: 20.5 deg x 30 / 37)
     hist = RotationHistory.from_rows([37.0, 42.0], [11.9, 10.3], [34.4, 34.8], [-20.5, -23.6])
     lat, lon, angle = pole_and_angle(hist.at([40.0, 30.0]))
     # pole_and_angle gives the positive angle: the antipole of a negative rotation
