@@ -126,7 +126,9 @@ class FrameField:
             near = slice(None)
         # the positions then, row by row of the matrix (three products, no threaded gemm)
         x, y, z = (xyz @ row for row in matrix)
-        lon, lat = np.degrees(np.arctan2(y, x)), np.degrees(np.arctan2(z, np.hypot(x, y)))
+        # latitude from z alone (arcsin of a unit vector's z: within 1e-6 degree of the
+        # arctangent form even at the poles, where a grid's bilinear weights do not need more)
+        lon, lat = np.degrees(np.arctan2(y, x)), np.degrees(np.arcsin(np.clip(z, -1.0, 1.0)))
         if grid.is_geographic:  # the cell index straight from the transform (no snapping:
             a, _, c, _, e, f = grid.transform  # the interpolation needs none)
             col = (grid.wrap_x(lon) - c) / a - 0.5
