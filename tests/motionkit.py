@@ -55,8 +55,11 @@ def rotations_text(omega: float = OMEGA, max_age: float = MAX_AGE) -> str:
     return f"age_ma,pole_lat,pole_lon,angle_deg\n{max_age:g},90,0,{omega * max_age:g}\n"
 
 
-def workflow(folder: Path, *, extra: str = "", motion: str = "", age=None) -> Path:
-    """The synthetic basin's files and workflow in ``folder``; return the workflow path."""
+def workflow(
+    folder: Path, *, extra: str = "", motion: str = "", age=None, plume_keys: str = ""
+) -> Path:
+    """The synthetic basin's files and workflow in ``folder`` (``plume_keys``: more keys of the
+    plume's table); return the workflow path."""
     folder.mkdir(parents=True, exist_ok=True)
     write_age(folder / "age.tif", age)
     (folder / "rotations.csv").write_text(rotations_text(), encoding="utf-8")
@@ -75,6 +78,7 @@ path = "age.tif"
 [[inputs.thermal_anomaly.plumes]]
 name = "Solo"
 {plume}
+{plume_keys}
 [compute]
 chunk_size = 64
 {extra}

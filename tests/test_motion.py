@@ -337,3 +337,37 @@ def test_a_grid_departing_inside_a_cap_is_sampled_as_the_whole_grid():
         npt.assert_allclose(np.broadcast_to(a, b.shape), b, atol=1e-4)
         seen += int(np.sum(b > 1.0))
     assert seen > 1000
+
+
+def test_a_plumes_upwelling_moves_with_its_track(tmp_path):
+    # no upwelling but the plume's own (peak U0 = 100 mm/yr with its gaussian shape): a cell on
+    # the plume's row 4 to 9 degrees west of it (beyond the plume's reach today) produced, at
+    # each step t, U(d) F(top) with d its great-circle distance to the track point of t (on
+    # the sphere of the rotations), F of one column at Tp(d) and the lid then; summed with the
+    # trapezoid weights
+    u0 = 100.0
+    run = open_run(
+        mk.run(tmp_path, extra="[inputs.upwelling]\nconstant = 0.0",
+               plume_keys=f"peak_upwelling_mm_yr = {u0}")
+    )  # fmt: skip
+    got = run.open("integrated_melt_production_km").values
+    row = int(np.argmin(np.abs(mk.cell_lat() - mk.PLUME["latitude"])))
+    west = np.arange(4, 10)
+    lon = mk.PLUME["longitude"] - mk.OMEGA * west  # cell centres
+    col = np.rint((lon - mk.WEST) / mk.RES - 0.5).astype(int)
+    times = np.arange(0.0, mk.MAX_AGE + 1.0)
+    weights = np.where((times == 0) | (times == mk.MAX_AGE), 0.5, 1.0)
+    expected, tol = np.zeros(lon.shape), np.zeros(lon.shape)
+    for t, weight in zip(times, weights, strict=True):
+        d = great_circle_km(lon, mk.cell_lat()[row], mk.PLUME["longitude"] - mk.OMEGA * t,
+                            mk.PLUME["latitude"])  # fmt: skip
+        shape = np.exp(-((d / mk.PLUME["radius_km"]) ** 2))
+        age_then = mk.age_field(lon) - t
+        formed = age_then >= 0
+        f = np.zeros(lon.shape)
+        ref = column_then(1350.0 + mk.PLUME["peak_excess_k"] * shape[formed], age_then[formed])
+        f[formed] = ref.max_melt_fraction
+        expected += weight * u0 * shape * f
+        tol += weight * u0 * shape * 2e-3  # the table's 2e-3 on F (tests/test_table.py)
+    assert np.all(expected > 10.0)
+    assert np.all(np.abs(got[row, col] - expected) <= tol), (got[row, col], expected, tol)
