@@ -4,10 +4,8 @@ A :class:`RunConfig` is what :func:`lidmelt.workflow.load_workflow` returns afte
 validating a workflow file; the engine, the products and the report read it. Every table is a
 frozen, hashable dataclass (safe to share between threads, to cache and to pickle), and
 :meth:`RunConfig.to_dict` gives the JSON provenance record. This module imports only the
-standard library and :mod:`lidmelt.variables`, so that every stage can type against it.
-
-The names of the inputs and outputs, their units and their accepted ranges come from the
-variable registry :mod:`lidmelt.variables`.
+standard library and :mod:`lidmelt.variables` (the registry of the inputs' and outputs' names,
+units and accepted ranges), so that every stage can type against it.
 """
 
 from __future__ import annotations
@@ -45,6 +43,7 @@ __all__ = [
     "Inputs",
     "LithosphereOptions",
     "ModelOptions",
+    "MotionOptions",
     "OutputOptions",
     "Parameters",
     "PlumeSpec",
@@ -84,10 +83,8 @@ AMBIENT_TP_RANGE_C: tuple[float, float] = (1000.0, 2000.0)
 #: Accepted lid isotherm, degrees C, exclusive bounds (common practice: above the surface and
 #: below any cooling model's mantle temperature).
 LID_ISOTHERM_RANGE_C: tuple[float, float] = (0.0, 1600.0)
-#: Distributions of ``[ensemble.vary]`` and the names of their parameters, in the order the
-#: workflow writes them (``normal = [mean, sd]``, ``lognormal = [median, sigma_ln]``: the
-#: natural logarithm is normal with that median and standard deviation; ``choice`` takes a list
-#: of values and optional ``weights``).
+#: Distributions of ``[ensemble.vary]``, their parameters in the workflow's order (``lognormal
+#: = [median, sigma_ln]``: ln is normal with that median and sd; ``choice``: values, ``weights``).
 DISTRIBUTIONS: dict[str, tuple[str, ...]] = {
     "normal": ("mean", "sd"),
     "uniform": ("low", "high"),
@@ -97,16 +94,15 @@ DISTRIBUTIONS: dict[str, tuple[str, ...]] = {
 }
 #: How the members are drawn: Latin hypercube (McKay, Beckman & Conover 1979) or plain random.
 SAMPLING_METHODS: tuple[str, ...] = ("latin_hypercube", "random")
-#: Smallest chunk side, cells (smaller chunks cost more in overhead than they save; common
-#: practice).
+#: Smallest chunk side, cells (smaller cost more in overhead than they save; common practice).
 MIN_CHUNK_SIZE = 64
-#: The most plumes a workflow may have, inline and catalogue rows together (each is checked
-#: before the run; hotspot catalogues hold tens to hundreds, common practice). Their cost on
-#: the grid is bounded by ``compute.max_cells`` (:func:`lidmelt.grids.anomaly.plume_cells`).
+#: The most plumes a workflow may have, inline and catalogue rows together (hotspot catalogues
+#: hold tens to hundreds, common practice); their cost is bounded by ``compute.max_cells``.
 MAX_PLUMES = 10_000
 #: Default of ``compute.max_cells``: the largest grid a run accepts (cells). 500 million cells
 #: are 2 GB per float32 output before compression; a global 1 arc-minute grid has 233 million.
 DEFAULT_MAX_CELLS = 500_000_000
+_NO_RECORD = {"record": False}  # a field left out of the provenance record (RunConfig.to_dict)
 
 
 class Parameters(Mapping[str, Any]):
@@ -388,13 +384,12 @@ class LithosphereOptions:
     cooling : str
         Cooling model name (see ``lidmelt.physics.cooling.get_cooling_model``).
     lid_isotherm_c : float
-        With ``top_of_melting = "isotherm"``, the lid base is the depth of this isotherm,
-        degrees C (default 1100 °C, common practice); it must lie below the cooling model's
-        mantle temperature.
+        With ``top_of_melting = "isotherm"``: the lid base's isotherm, degrees C (default 1100
+        °C, common practice), below the cooling model's mantle temperature.
     top_of_melting : str
-        One of :data:`TOP_OF_MELTING_RULES`: ``"geotherm"`` (default; the column melts until it
-        meets the cooling model's conductive geotherm at the cell's age, whose mantle side is
-        the column's own isentrope) or ``"isotherm"`` (melting stops at the lid isotherm).
+        :data:`TOP_OF_MELTING_RULES`: ``"geotherm"`` (default; melting stops at the cooling
+        model's geotherm at the cell's age, whose mantle side is the column's own isentrope) or
+        ``"isotherm"`` (at the lid isotherm).
     parameters : Parameters
         Overrides of the cooling model's parameters.
     """
@@ -528,9 +523,26 @@ class EnsembleOptions:
     candidate_min_melt_km: float = 1.0
     vary: tuple[VarySpec, ...] = ()
     samples: tuple[tuple[Any, ...], ...] = field(default=(), repr=False, compare=False)
-    configs: tuple[Any, ...] = field(
-        default=(), repr=False, compare=False, metadata={"record": False}
-    )
+    configs: tuple[Any, ...] = field(default=(), repr=False, compare=False, metadata=_NO_RECORD)
+
+
+@dataclass(frozen=True, kw_only=True)
+class MotionOptions:
+    """The ``[motion]`` table (docs/workflow.md): ``rotations`` holds the rows (age_ma, pole_lat,
+    pole_lon, angle_deg) of ``rotations_file``; ``plate_rotations`` per plate id of the grid
+    ``plate_ids_file`` its file and rows (``rotations`` serves the other ids); ``drift`` per
+    plume (name, ages, lon, lat) of ``drift_file``; the history runs from 0 to ``max_age_ma``
+    in steps of ``step_ma`` (Ma); ``duration_min_melt_km``: the anomaly's melt that counts."""
+
+    max_age_ma: float
+    step_ma: float = 1.0
+    rotations_file: Path | None = None
+    rotations: tuple[tuple[float, float, float, float], ...] = ()
+    plate_ids_file: Path | None = None
+    plate_rotations: tuple[tuple[int, Path, tuple], ...] = ()
+    drift_file: Path | None = None
+    drift: tuple[tuple[str, tuple, tuple, tuple], ...] = ()
+    duration_min_melt_km: float = 1.0
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -549,6 +561,8 @@ class RunConfig:
         The validated tables.
     ensemble : EnsembleOptions or None
         The ``[ensemble]`` table, if the workflow has one.
+    motion : MotionOptions or None
+        The ``[motion]`` table, if the workflow has one.
     """
 
     workflow_path: Path
@@ -562,6 +576,7 @@ class RunConfig:
     compute: ComputeOptions
     outputs: OutputOptions
     ensemble: EnsembleOptions | None = None
+    motion: MotionOptions | None = None
 
     def to_dict(self) -> dict[str, Any]:
         """A JSON-serialisable dict of the whole configuration, for provenance."""

@@ -444,7 +444,10 @@ def _run_stages(stages, context: StageContext, files: list[Path]) -> dict[str, A
     for stage in stages:
         stage_files, stage_entries = stage(context)
         files += stage_files
-        entries.update(stage_entries)
+        for key, value in stage_entries.items():  # two stages' outputs and warnings add up
+            if key in entries and key in ("outputs", "warnings"):
+                value = {**entries[key], **value} if key == "outputs" else entries[key] + value
+            entries[key] = value
     return entries
 
 

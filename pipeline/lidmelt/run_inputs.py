@@ -77,12 +77,17 @@ class RunInputs:
 
 def files_read(cfg) -> list[Path]:
     """Every file a run of ``cfg`` reads: its input grids (and a lid's bathymetry), its plume
-    catalogue and its workflow file (a run must not replace a folder that holds one)."""
+    catalogue, its motion files and its workflow file (a run must not replace a folder that
+    holds one)."""
     paths = input_paths(cfg)
     anomaly = cfg.inputs.thermal_anomaly
     workflow = getattr(cfg, "workflow_path", None)
     if anomaly is not None and getattr(anomaly, "plumes_file", None) and workflow is not None:
         paths.append(Path(workflow).parent / Path(anomaly.plumes_file).expanduser())
+    motion = getattr(cfg, "motion", None)
+    if motion is not None:
+        paths += [p for p in (motion.rotations_file, motion.plate_ids_file, motion.drift_file) if p]
+        paths += [path for _, path, _ in motion.plate_rotations]
     return [*paths, Path(workflow)] if workflow is not None else paths
 
 

@@ -24,6 +24,7 @@ __all__ = [
     "DEFAULT_PROBABILITY_THRESHOLD_KM",
     "FLAG_NODATA",
     "FLAG_VARIABLE",
+    "HISTORY",
     "INPUTS",
     "MELT_PROBABILITY",
     "MEMBERS_WITHOUT_VALUE",
@@ -74,7 +75,8 @@ class Variable:
         Readable name for titles, tables and the CF ``long_name`` attribute.
     kind : str
         ``"output"`` (computed by the kernel), ``"input"`` (an aligned workflow input) or
-        ``"flag"`` (the validity bit flags) or ``"ensemble"`` (a reduction over ensemble members).
+        ``"flag"`` (the validity bit flags), ``"ensemble"`` (a reduction over ensemble members)
+        or ``"history"`` (a reduction over the steps of a history through time).
     style : str
         Key of the map style (colour scale, limits) in the presentation registry of the maps.
     valid_range : tuple of float, optional
@@ -309,6 +311,61 @@ _INPUT_LIST = (
     ),
 )
 
+#: Outputs of a history through time (a workflow's ``[motion]`` table; lidmelt.motion.history
+#: defines them): written beside the kernel's outputs, never computed by the kernel itself.
+_HISTORY_LIST = (
+    Variable(
+        name="peak_melt_thickness_km",
+        units="km",
+        long_name="largest melt thickness the cell received over the history",
+        kind="history",
+        style="melt",
+        zero_means_no_melt=True,
+    ),
+    Variable(
+        name="peak_melt_time_ma",
+        units="Ma",
+        long_name="time of the largest melt thickness (before present; NaN: never melted)",
+        kind="history",
+        style="history_time",
+    ),
+    Variable(
+        name="peak_anomaly_melt_thickness_km",
+        units="km",
+        long_name="largest melt thickness added by the thermal anomaly over the history",
+        kind="history",
+        style="melt",
+        zero_means_no_melt=True,
+    ),
+    Variable(
+        name="peak_anomaly_melt_time_ma",
+        units="Ma",
+        long_name=(
+            "time of the largest melt added by the thermal anomaly (before present; NaN: it "
+            "never reached the melting duration's threshold)"
+        ),
+        kind="history",
+        style="history_time",
+    ),
+    Variable(
+        name="melting_duration_myr",
+        units="Myr",
+        long_name="time during which the melt the thermal anomaly adds reached the threshold",
+        kind="history",
+        style="duration",
+        zero_means_no_melt=True,
+    ),
+    Variable(
+        name="integrated_melt_production_km",
+        units="km",
+        long_name="melt produced over the history (time integral of the melt production)",
+        kind="history",
+        style="melt",
+        zero_means_no_melt=True,
+        needs="upwelling",
+    ),
+)
+
 #: The validity bit flags (uint8; bit meanings in :data:`lidmelt.physics.FLAG_MEANINGS`).
 FLAG_VARIABLE = Variable(
     name="validity_flag", units="1", long_name="validity bit flags", kind="flag", style="flag"
@@ -322,8 +379,12 @@ OUTPUTS: dict[str, Variable] = {v.name: v for v in _OUTPUT_LIST}
 INPUTS: dict[str, Variable] = {v.name: v for v in _INPUT_LIST}
 #: Outputs written when the workflow does not list them (needing no optional input).
 DEFAULT_OUTPUTS: tuple[str, ...] = tuple(v.name for v in _OUTPUT_LIST if v.default and not v.needs)
+#: Outputs of a history through time (``[motion]``), in file order.
+HISTORY: dict[str, Variable] = {v.name: v for v in _HISTORY_LIST}
 #: Every variable by name.
-VARIABLES: dict[str, Variable] = {**OUTPUTS, **INPUTS, FLAG_VARIABLE.name: FLAG_VARIABLE}
+VARIABLES: dict[str, Variable] = {
+    **OUTPUTS, **HISTORY, **INPUTS, FLAG_VARIABLE.name: FLAG_VARIABLE
+}  # fmt: skip
 
 
 #: What a probability of melting is of (its basis): the melt the thermal anomaly adds (the

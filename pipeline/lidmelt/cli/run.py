@@ -11,6 +11,7 @@ from lidmelt.engine import run_basin
 from lidmelt.ensemble import ensemble_stages
 from lidmelt.grids.rundir import RunDir
 from lidmelt.grids.transaction import RunLock, clean_leftovers
+from lidmelt.motion import motion_stages
 from lidmelt.products.maps import draw_run_maps, resolve_coastlines
 from lidmelt.products.maps.overview import draw_overview
 from lidmelt.products.report import write_report
@@ -114,6 +115,7 @@ def run(args: argparse.Namespace) -> int:
     scheduler_address(cfg)  # a malformed LIDMELT_SCHEDULER is refused before anything starts
     # refuses what will not fit, first; the candidates of the deterministic run get drivers
     stages = ensemble_stages(cfg, announce=not args.quiet, candidates=ensemble_candidates)
+    stages += motion_stages(cfg)  # the history through time and the hotspot tracks
     products = _products(not args.no_maps and cfg.run.maps, cfg.run.report, cfg.run.output_dir)
     with print_warnings("run"):
         result = run_basin(

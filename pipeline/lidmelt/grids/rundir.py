@@ -55,6 +55,7 @@ from lidmelt.physics import FLAG_INVALID_INPUT, FLAG_MEANINGS, FLAG_WATER_SATURA
 from lidmelt.variables import (
     FLAG_NODATA,
     FLAG_VARIABLE,
+    HISTORY,
     INPUTS,
     OUTPUTS,
     ensemble_variable,
@@ -159,13 +160,9 @@ class RunDir:
 
     @property
     def outputs(self) -> list[str]:
-        """Names of the output variables, in the order the run wrote them: registered ones and
-        the layers of an ensemble (:func:`lidmelt.variables.ensemble_variable`)."""
-        return [
-            n
-            for n in _entries(self.summary, "outputs")
-            if n in OUTPUTS or ensemble_variable(n) is not None
-        ]
+        """Names of the output variables, in the order the run wrote them: registered ones, the
+        layers of an ensemble (:func:`lidmelt.variables.ensemble_variable`) and of a history."""
+        return [n for n in _entries(self.summary, "outputs") if _is_output(n)]
 
     @property
     def inputs(self) -> list[str]:
@@ -240,11 +237,7 @@ def _check_entries(path: Path, summary: Mapping[str, Any]) -> None:
     after the run is refused like any tampered run, not skipped."""
     for group, file_of in (("outputs", output_file), ("inputs", input_file)):
         for name, entry in _entries(summary, group).items():
-            known = name in INPUTS if group == "inputs" else name in OUTPUTS
-            # an ensemble map of this lidmelt, or of an earlier one (products refuse those
-            # with their own message: run again)
-            ensemble = ensemble_variable(name) is not None or is_legacy_probability(name)
-            known = known or (group == "outputs" and ensemble)
+            known = name in INPUTS if group == "inputs" else _is_output(name)
             listed = entry.get("file") if isinstance(entry, dict) else None
             if not known or listed not in (None, file_of(name)):
                 msg = (
@@ -254,6 +247,13 @@ def _check_entries(path: Path, summary: Mapping[str, Any]) -> None:
                     "'lidmelt run' again to rewrite the folder."
                 )
                 raise RunDirError(msg)
+
+
+def _is_output(name: str) -> bool:
+    """A name a run writes as an output: the kernel's, an ensemble's or a history's."""
+    # an ensemble map of an earlier lidmelt passes: products refuse it with "run again"
+    ensemble = ensemble_variable(name) is not None or is_legacy_probability(name)
+    return name in OUTPUTS or name in HISTORY or ensemble
 
 
 def _entries(summary: Mapping[str, Any], group: str) -> dict[str, Any]:

@@ -13,6 +13,7 @@ from lidmelt.config import RunConfig
 from lidmelt.errors import LidmeltError, WorkflowError
 from lidmelt.workflow.checks import Context, shortened, shown, user_path
 from lidmelt.workflow.ensemble import read_ensemble
+from lidmelt.workflow.motion import read_motion
 from lidmelt.workflow.overrides import apply_override
 from lidmelt.workflow.tables import read_config
 
@@ -94,6 +95,9 @@ def load_workflow(
             checked.add((member_cfg.model, member_cfg.lithosphere))
         return member_cfg
 
+    motion = read_motion(ctx, tree, cfg)
+    if motion is not None:
+        cfg = dataclasses.replace(cfg, motion=motion)
     ensemble = read_ensemble(ctx, tree, member, functools.partial(_fits, cfg, source))
     return cfg if ensemble is None else dataclasses.replace(cfg, ensemble=ensemble)
 

@@ -28,7 +28,17 @@ _PLUME_KEYS = (
 #: keys are checked by the model functions (see ``validate_models``); ``"[]"`` marks an array of
 #: tables.
 SCHEMA: dict[str, tuple[str, ...]] = {
-    "": ("run", "grid", "inputs", "model", "lithosphere", "compute", "outputs", "ensemble"),
+    "": (
+        "run",
+        "grid",
+        "inputs",
+        "model",
+        "lithosphere",
+        "compute",
+        "outputs",
+        "ensemble",
+        "motion",
+    ),
     "run": ("name", "output_dir", "netcdf", "maps", "report"),
     "grid": ("like", "extent", "resolution", "crs"),
     "inputs": INPUT_NAMES,
@@ -67,6 +77,16 @@ SCHEMA: dict[str, tuple[str, ...]] = {
         "vary",
     ),
     "ensemble.vary": ("*",),
+    "motion": (
+        "rotations",
+        "max_age_ma",
+        "step_ma",
+        "duration_min_melt_km",
+        "plate_ids",
+        "plate_rotations",
+        "plume_drift",
+    ),
+    "motion.plate_rotations": ("*",),
 }
 #: The tables of :data:`SCHEMA` (not the arrays of tables).
 TABLES = frozenset(k for k in SCHEMA if k and not k.endswith("[]"))

@@ -66,12 +66,17 @@ def no_melt_mask(run: RunDir, values: np.ndarray, style: VariableStyle) -> np.nd
     melts (onset depth, onset pressure, mean melt pressure), every cell with
     ``melt_thickness_km == 0`` is "no melting", whether the file holds NaN or a value there
     (runs before issue 20 kept an onset where the solidus is crossed beneath the lid, but
-    nothing melts): the map never shows such a value as data.
+    nothing melts): the map never shows such a value as data. For the times of a history's
+    peaks, a NaN cell where the run has data is "no melting" (it never melted, or the melt the
+    anomaly added never reached the threshold).
     """
     if style.zero_is_no_melt:
         return np.isfinite(values) & ~style.melting(values)
-    if style.nan_is_no_melt and "melt_thickness_km" in run.outputs:
+    wanted = style.nan_is_no_melt or style.nan_with_data_is_no_melt
+    if wanted and "melt_thickness_km" in run.outputs:
         melt = np.asarray(run.open("melt_thickness_km").values, dtype=float)
+        if melt.shape == values.shape and style.nan_with_data_is_no_melt:
+            return np.isnan(values) & np.isfinite(melt)
         if melt.shape == values.shape:
             return melt == 0.0
     return None

@@ -126,7 +126,7 @@ def check_variable(run: RunDir, variable: str) -> str:
         Naming the valid variables of the run.
     """
     valid = run.outputs + run.inputs
-    if variable not in valid and is_legacy_probability(variable):
+    if is_legacy_probability(variable):
         get_variable(variable)  # an earlier lidmelt's probability map: says to run again
     if variable not in valid:
         msg = (

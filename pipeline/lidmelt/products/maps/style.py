@@ -141,6 +141,7 @@ class MapStyle:
     percentiles: tuple[float, float] = PERCENTILES
     limits: tuple[float, float] | None = None
     contours: tuple[float, ...] = ()
+    nan_with_data_is_no_melt: bool = False  # a history's times: NaN where a cell never melted
 
 
 #: Colours of the ``melting_regime`` classes by their registry key: white (no melting), then
@@ -177,12 +178,22 @@ STYLES: dict[str, MapStyle] = {
     ),
     # a share of the ensemble's members (those without a value): fixed 0 to 1, like probability
     "member_fraction": MapStyle("cividis", limits=PROBABILITY_LIMITS),
+    # times of a history's peaks (Ma before present): the whole range, so the age progression
+    # along a hotspot track shows from its youngest to its oldest end; NaN: never melted
+    "history_time": MapStyle("cividis", percentiles=FULL_RANGE, nan_with_data_is_no_melt=True),
+    # how long the melt the anomaly added reached the threshold (Myr): 0 is no such melting
+    "duration": MapStyle("viridis", zero_is_no_melt=True),
 }
 #: Style of a variable the registry does not know, or whose key has no entry.
 DEFAULT_STYLE = MapStyle("viridis")
 #: Legend text of the no-melt class per variable (default "no melting"): the anomaly melt is
 #: the melt the anomaly adds, so its white cells may melt as ambient mantle does.
-NO_MELT_LABELS = {"anomaly_melt_thickness_km": "no added melt"}
+NO_MELT_LABELS = {
+    "anomaly_melt_thickness_km": "no added melt",
+    "peak_melt_time_ma": "never melted",
+    "peak_anomaly_melt_time_ma": "added melt never reached the threshold",
+    "melting_duration_myr": "added melt never reached the threshold",
+}
 
 _UNIT_LABELS = {"1": "dimensionless", "": "no unit given", "degC": "°C", "wt%": "wt %"}
 
@@ -213,8 +224,9 @@ class VariableStyle:
     classes : tuple of ClassStyle
         Non-empty for a categorical variable: drawn class by class, with a legend entry each
         and no colour bar.
-    diverging, percentiles, limits, contours
-        As in :class:`MapStyle`.
+    diverging, percentiles, limits, contours, nan_with_data_is_no_melt
+        As in :class:`MapStyle` (the last: a NaN cell where the run has data means "no
+        melting", e.g. the time of a history's peak where nothing melted).
     """
 
     cmap: str
@@ -228,6 +240,7 @@ class VariableStyle:
     percentiles: tuple[float, float] = PERCENTILES
     limits: tuple[float, float] | None = None
     contours: tuple[float, ...] = ()
+    nan_with_data_is_no_melt: bool = False
 
     @property
     def categorical(self) -> bool:
@@ -263,6 +276,7 @@ def style_for(variable: str) -> VariableStyle:
         percentiles=key.percentiles,
         limits=key.limits,
         contours=key.contours,
+        nan_with_data_is_no_melt=key.nan_with_data_is_no_melt,
     )
 
 

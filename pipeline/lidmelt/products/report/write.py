@@ -18,6 +18,7 @@ from lidmelt.products.maps import (
 )
 from lidmelt.products.report.content import MapImage
 from lidmelt.products.report.ensemble import ensemble_section
+from lidmelt.products.report.history import history_section
 from lidmelt.products.report.html_page import render_html
 from lidmelt.products.report.pdf import write_pdf
 from lidmelt.products.report.sites import find_site_files, sites_map, sites_section
@@ -171,7 +172,8 @@ def write_report(
     if site_map is not None:
         images.append(site_map)
     ensemble = ensemble_section(run, dpi=REPORT_MAP_DPI, width_in=REPORT_MAP_WIDTH_IN)
-    extra_sections = [s for s in (ensemble, extra) if s is not None]
+    history = history_section(run, dpi=REPORT_MAP_DPI, width_in=REPORT_MAP_WIDTH_IN)
+    extra_sections = [s for s in (ensemble, history, extra) if s is not None]
     write_text_atomic(out, render_html(run, images, extra_sections))
     if pdf:
         write_pdf(run, images, out.with_suffix(".pdf"), extra_sections)
