@@ -35,6 +35,7 @@ from matplotlib.font_manager import FontProperties
 from lidmelt.errors import InputError
 from lidmelt.grids.rundir import RunDir
 from lidmelt.products import ensemble as ens
+from lidmelt.products.maps import flags as fl
 from lidmelt.products.maps import layout as lay
 from lidmelt.products.maps import marks as mk
 from lidmelt.products.maps import overlays as ov
@@ -216,6 +217,7 @@ def _caption(
         parts.append("Rings: plume centres named in the workflow.")
     if any(f.flag_bits for f in fields):
         parts.append("Hatched: cells the validity flags mark (see the single maps).")
+    parts += [fl.deep_caption(f.deep_cells, summary) for f in fields if f.deep_cells is not None]
     parts.append(f"Projection: {proj_name}. {model_line(summary)}.")
     return " ".join(parts)
 
