@@ -152,3 +152,26 @@ def test_melt_maps_hatch_exactly_the_cells_above_a_quarter(make_run_dir, variabl
     _, other = maps.make_map_figure(run, "deep_melt_share", dpi=60, coastlines=False)
     assert _hatched_cells(other.ax, DEEP_HATCH) is None
     assert other.deep_hatched_cells == 0
+
+
+def test_overview_melt_panel_hatches_the_same_cells(make_run_dir):
+    pytest.importorskip("cartopy.crs")
+    import shapely
+
+    from lidmelt.products import maps
+    from lidmelt.products.maps.flags import DEEP_HATCH
+
+    share = np.zeros((8, 10))
+    for row, col in ABOVE:
+        share[row, col] = 0.6
+    share[3, 3] = 0.25  # exactly a quarter: not above, not hatched
+    fields = {"melt_thickness_km": np.full((8, 10), 5.0), "deep_melt_share": share}
+    model = {"name": "katz2003", "parameters": {"calibrated_max_pressure_gpa": 7.0}}
+    run = make_run_dir(fields, transform=BOX, summary={"model": model}, name="deepview")
+    _, info = maps.make_overview_figure(run, coastlines=False, dpi=60)
+    assert info.variables == ("melt_thickness_km",)  # the one panel, (a)
+    # Check value: the unit boxes of the cells set above 0.25 by hand (as above).
+    boxes = shapely.union_all([shapely.box(10 + c, 9 - r, 11 + c, 10 - r) for r, c in ABOVE])
+    drawn = _hatched_cells(info.axes[0], DEEP_HATCH)
+    assert drawn.symmetric_difference(boxes).area == pytest.approx(0.0, abs=1e-9)
+    assert "Hatched with horizontal lines in (a) (5 cells)" in info.caption

@@ -244,8 +244,9 @@ def deep_legend_handles(cells: np.ndarray | None, summary: dict[str, Any]) -> li
     return [Patch(facecolor="white", edgecolor=HATCH_COLOR, lw=0.5, hatch=DEEP_HATCH, label=label)]
 
 
-def deep_caption(cells: np.ndarray | None, summary: dict[str, Any]) -> str:
-    """The caption's sentence on the deep-share hatching (empty when nothing is hatched)."""
+def deep_caption(cells: np.ndarray | None, summary: dict[str, Any], panel: str = "") -> str:
+    """The caption's sentence on the deep-share hatching (empty when nothing is hatched);
+    ``panel`` names the overview's panel ("c": "in (c)")."""
     if cells is None:
         return ""
     pc = calibrated_pressure_gpa(summary)
@@ -255,7 +256,8 @@ def deep_caption(cells: np.ndarray | None, summary: dict[str, Any]) -> str:
         else ("the model's calibrated pressure")
     )
     return (
-        f"Hatched with horizontal lines ({int(cells.sum()):,} cells): more than "
+        f"Hatched with horizontal lines{f' in ({panel})' if panel else ''} "
+        f"({int(cells.sum()):,} cells): more than "
         f"{100 * DEEP_SHARE_HATCHED:g} % of the melt is made beyond {where} "
         f"(deep_melt_share > {DEEP_SHARE_HATCHED:g}), where the solidus follows a continued "
         "published curve."

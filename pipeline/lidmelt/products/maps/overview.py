@@ -217,9 +217,10 @@ def _caption(
         parts.append("Rings: plume centres named in the workflow.")
     if any(f.flag_bits for f in fields):
         parts.append("Hatched: cells the validity flags mark (see the single maps).")
-    parts += [fl.deep_caption(f.deep_cells, summary) for f in fields if f.deep_cells is not None]
+    for k, f in enumerate(fields):  # the melt panel: cells made mostly beyond calibration
+        parts.append(fl.deep_caption(f.deep_cells, summary, chr(ord("a") + k)))
     parts.append(f"Projection: {proj_name}. {model_line(summary)}.")
-    return " ".join(parts)
+    return " ".join(p for p in parts if p)
 
 
 @dataclass
