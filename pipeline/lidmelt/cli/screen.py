@@ -28,6 +28,7 @@ SHOWN_COLUMNS = (
     "min_plate_age_ma",
     "max_plate_age_ma",
     "flagged_fraction",
+    "deep_melt_share",
     "melt_production_km3_yr",
     "probability_basis",
     "probability_threshold_km",

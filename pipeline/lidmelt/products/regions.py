@@ -257,9 +257,42 @@ class Zones:
         if self.production is not None:
             out["melt_production_km3_yr"] = _KM_PER_MM * _area_sum(self.production, flat, area)
         if self.deep_share is not None:
-            share = np.nan_to_num(self.deep_share.ravel()[flat], nan=0.0)
-            deep = float((share * thick * area).sum())
+            deep = _deep_volume(self.deep_share, flat, thick, area)
             out["deep_melt_share"] = deep / volume if volume > 0 else math.nan
+        return out
+
+    @property
+    def candidate_columns(self) -> list[str]:
+        """The statistics columns of a screening candidate: :attr:`columns`, and always
+        ``deep_melt_share`` (NaN without that output)."""
+        return [c for c in STAT_COLUMNS if c in self.columns or c == "deep_melt_share"]
+
+    def candidate_stats(self, flat: np.ndarray) -> dict[str, float]:
+        """The statistics of a screening candidate: :meth:`stats`, with ``deep_melt_share``
+        the share of its anomaly melt volume made beyond the calibrated pressure.
+
+        lidmelt's definition: sum of deep_melt_share x melt thickness x area (the melt volume
+        made beyond the calibrated pressure P_c) over sum of anomaly melt thickness x area
+        (the volume the thermal anomaly adds), capped at 1. Melt beyond P_c is made only in
+        columns whose onset is deeper than P_c, all of them far hotter than ambient mantle (at
+        ambient Tp the onset is well inside the calibrated range; docs/physics.md, "How much
+        is extrapolation"), so that volume is counted as part of what the anomaly adds. The
+        cap keeps it a share (the hot column makes at least the ambient melt within P_c, so
+        the deep volume exceeds the anomaly's only by interpolation error). NaN without the
+        deep_melt_share or anomaly melt output, or with no anomaly melt.
+        """
+        out = self.stats(flat)
+        out["deep_melt_share"] = math.nan
+        if self.deep_share is None or self.anomaly_melt is None:
+            return out
+        thick = self.melt.ravel()[flat]
+        valid = np.isfinite(thick)
+        flat, thick = flat[valid], thick[valid]
+        area = self.areas(flat)
+        anomaly = _area_sum(self.anomaly_melt, flat, area)
+        if anomaly > 0:
+            deep = _deep_volume(self.deep_share, flat, thick, area)
+            out["deep_melt_share"] = min(1.0, deep / anomaly)
         return out
 
     def _flagged_fraction(self, flat: np.ndarray) -> float | None:
@@ -288,6 +321,13 @@ def _area_sum(values: np.ndarray, flat: np.ndarray, area: np.ndarray) -> float:
     """Sum of ``values`` (a grid) times cell area over the cells ``flat`` (NaN counts as 0)."""
     v = values.ravel()[flat]
     return float(np.where(np.isfinite(v), v * area, 0.0).sum())
+
+
+def _deep_volume(share: np.ndarray, flat: np.ndarray, thick: np.ndarray, area: np.ndarray) -> float:
+    """Melt volume (km^3) made beyond the calibrated pressure in the cells ``flat``: the sum
+    of ``share`` (the deep_melt_share grid; NaN, where nothing melts, counts as 0) times
+    their melt thickness ``thick`` (km) times their area (km^2)."""
+    return float((np.nan_to_num(share.ravel()[flat], nan=0.0) * thick * area).sum())
 
 
 # --------------------------------------------------------------------------------------------

@@ -21,10 +21,12 @@ seam), whose area is at least ``min_area_km2``. Each becomes a (Multi)Polygon al
 edges, with the statistics columns of :mod:`lidmelt.products.regions` (``area_km2`` is the area
 of the region's cells, equal to that of its polygon, which follows the cell edges; the optional
 columns appear where the run has their variable: anomaly melt volume, plate-age range, flagged
-fraction, melt production) plus ``rank`` (1 = largest melt volume of the basis:
-``anomaly_melt_volume_km3`` or ``melt_volume_km3``), ``plume``, ``plume_match`` and
-``centroid_lon``/``centroid_lat`` (WGS84 degrees: the area-weighted mean position of its cells
-on the sphere).
+fraction, melt production) except ``deep_melt_share``, which for a candidate is the share
+of its ANOMALY melt volume made beyond the model's calibrated pressure (capped at 1; NaN
+without that output: :meth:`~lidmelt.products.regions.Zones.candidate_stats`), plus ``rank``
+(1 = largest melt volume of the basis: ``anomaly_melt_volume_km3`` or ``melt_volume_km3``),
+``plume``, ``plume_match`` and ``centroid_lon``/``centroid_lat`` (WGS84 degrees: the
+area-weighted mean position of its cells on the sphere).
 
 Probability screening
 ---------------------
@@ -247,7 +249,7 @@ def screen(
     records = _candidate_records(zones, labels, n, min_area, volume=volume, probability=prob)
     _match_plumes(records, labels, zones, run_plumes(run))
     polygons = _component_polygons(labels, np.array([r["label"] for r in records]), grid.affine)
-    stats = [*zones.columns, *_what_probability(records, basis, prob_name)]
+    stats = [*zones.candidate_columns, *_what_probability(records, basis, prob_name)]
     out = _candidate_frame(records, stats, polygons, grid.pyproj_crs)
     out.attrs["lidmelt_basis"] = basis
     out.attrs["lidmelt_probability"] = prob_name
@@ -425,7 +427,7 @@ def _candidate_records(
     records: list[dict[str, Any]] = []
     for label in range(1, n + 1):
         flat = cells[bounds[label - 1] : bounds[label]]
-        stats = zones.stats(flat)
+        stats = zones.candidate_stats(flat)
         if stats["data_area_km2"] < min_area:
             continue
         if probability is not None:

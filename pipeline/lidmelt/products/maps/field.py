@@ -55,6 +55,7 @@ class Field:
     no_melt: np.ndarray | None
     flag_bits: tuple[int, ...] = ()
     flag_grid: Any = None
+    deep_cells: np.ndarray | None = None  # hatched: melt mostly made beyond calibration
     contours: tuple[float, ...] = ()  # the labelled contour levels drawn (set by draw_data)
 
 
@@ -137,6 +138,9 @@ def open_field(run: RunDir, variable: str, opts: MapOptions) -> Field:
         no_melt=no_melt,
         flag_bits=bits,
         flag_grid=flags if bits else None,
+        deep_cells=None
+        if opts.flags is False
+        else fl.deep_share_cells(run, variable, values.shape),
     )
 
 
@@ -169,6 +173,8 @@ def draw_data(ax: Any, f: Field, map_px: tuple[float, float], *, fs: float = 8.0
     )
     if f.flag_bits:
         fl.draw_flag_hatching(ax, f.flag_grid, f.flag_bits, da=f.da, src_crs=f.src_crs, step=step)
+    if f.deep_cells is not None:
+        fl.draw_hatching(ax, f.deep_cells, fl.DEEP_HATCH, da=f.da, src_crs=f.src_crs, step=step)
     if f.style.diverging:
         draw_zero_contour(ax, f)
     if f.style.contours:

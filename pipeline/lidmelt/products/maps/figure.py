@@ -143,7 +143,7 @@ def _compose_text(
         proj_name=f.proj_name,
         age=opts.age_contours is not False,
         coast_path=opts.coastlines or None,
-        flag_note=fl.flag_caption(opts.flags or None, f.flag_bits),
+        flag_note=_hatch_note(f, opts, summary),
         outside=view.outside,
         plumes=bool(view.plumes),
         grid_share=lid_grid_share(run),
@@ -159,6 +159,16 @@ def _compose_text(
         caption=caption,
         cap=wrap(caption, 0.85 * fs, cap_w),
     )
+
+
+def _hatch_note(f: Field, opts: MapOptions, summary: dict[str, Any]) -> str:
+    """The caption's sentences on the hatched cells: flagged, then mostly made beyond the
+    calibrated pressure."""
+    notes = (
+        fl.flag_caption(opts.flags or None, f.flag_bits),
+        fl.deep_caption(f.deep_cells, summary),
+    )
+    return " ".join(n for n in notes if n)
 
 
 def _fix_size(
@@ -232,7 +242,9 @@ def _draw_text(fig: Figure, f: Field, page: pg.PageLayout, text: _Text) -> Any:
     return cbar
 
 
-def _legend_handles(f: Field, opts: MapOptions, fs: float, view: _View) -> list[Any]:
+def _legend_handles(
+    f: Field, opts: MapOptions, fs: float, view: _View, summary: dict[str, Any]
+) -> list[Any]:
     """Legend entries: the classes of a categorical map, then overlays, then hatching."""
     has_stations = opts.stations is not None and len(opts.stations.lon) > 0
     handles = ov.legend_handles(
@@ -252,7 +264,8 @@ def _legend_handles(f: Field, opts: MapOptions, fs: float, view: _View) -> list[
     handles += contour_legend_handles(crossing_levels(f.values, f.style.contours))
     if view.plumes:
         handles.append(mk.plume_legend_handle(fs))
-    return class_legend_handles(f.style.classes) + handles + fl.flag_legend_handles(f.flag_bits)
+    hatched = fl.flag_legend_handles(f.flag_bits) + fl.deep_legend_handles(f.deep_cells, summary)
+    return class_legend_handles(f.style.classes) + handles + hatched
 
 
 def make_map_figure(
@@ -292,7 +305,10 @@ def render_map(run: RunDir, variable: str, opts: MapOptions) -> tuple[Figure, Ma
     f = open_field(run, variable, opts)
     fig, ax, page, view = _start_page(f, opts, run.summary)
     legend = pg.place_legend(
-        fig, _legend_handles(f, opts, page.fs, view), page, colorbar=not f.style.categorical
+        fig,
+        _legend_handles(f, opts, page.fs, view, run.summary),
+        page,
+        colorbar=not f.style.categorical,
     )
     text = _compose_text(fig, page, f, run, opts, view)
     _fix_size(fig, ax, legend, page, text, top=view.labels["top"], dpi=opts.dpi)
@@ -329,6 +345,7 @@ def render_map(run: RunDir, variable: str, opts: MapOptions) -> tuple[Figure, Ma
         decimation=step,
         categorical=f.style.categorical,
         flag_bits=f.flag_bits,
+        deep_hatched_cells=0 if f.deep_cells is None else int(f.deep_cells.sum()),
         plumes=tuple(p.name for p in view.plumes),
         zero_contour=f.style.diverging,
         contour_levels=f.contours,

@@ -12,7 +12,12 @@ the melting column (the lid) does not depend on the onset or the water, and the 
 is found at the lid, not at the onset, so flags about the onset and the water are not drawn on
 those two maps.
 
-Hatched areas are polygons of the flagged cells (traced with :func:`rasterio.features.shapes`)
+The melt-thickness maps (:data:`DEEP_HATCHED_VARIABLES`) are also hatched, with their own
+pattern and legend entry, where more than :data:`DEEP_SHARE_HATCHED` of a cell's melt is made
+beyond the melting model's calibrated pressure (the run's ``deep_melt_share`` output:
+:func:`deep_share_cells`), where the solidus follows a continued published curve.
+
+Hatched areas are polygons of the hatched cells (traced with :func:`rasterio.features.shapes`)
 drawn as vectors with a transparent face, so the data colours stay visible beneath them; each
 hatch line is dark over a wider white line, so it shows on dark and light colours alike. On a
 thinned data layer a block of cells is hatched if any of its cells is flagged, so that small
@@ -21,12 +26,13 @@ flagged areas do not vanish.
 
 from __future__ import annotations
 
+import math
 from typing import Any
 
 import numpy as np
 from matplotlib.patches import Patch
 
-from lidmelt.grids.rundir import FlagGrid
+from lidmelt.grids.rundir import FlagGrid, RunDir
 from lidmelt.physics import (
     FLAG_BEYOND_CALIBRATION,
     FLAG_NO_ONSET,
@@ -34,13 +40,21 @@ from lidmelt.physics import (
 )
 
 __all__ = [
+    "DEEP_HATCH",
+    "DEEP_HATCHED_VARIABLES",
+    "DEEP_SHARE_HATCHED",
     "FLAG_HATCHES",
     "FLAG_SHORT_LABELS",
     "HATCH_COLOR",
     "MARKED_FLAGS",
     "NOT_CONCERNED",
+    "calibrated_pressure_gpa",
     "concerns",
+    "deep_caption",
+    "deep_legend_handles",
+    "deep_share_cells",
     "draw_flag_hatching",
+    "draw_hatching",
     "flag_caption",
     "flag_counts",
     "flag_legend_handles",
@@ -61,6 +75,16 @@ FLAG_SHORT_LABELS = {
     FLAG_NO_ONSET: "no solidus crossing (flagged)",
     FLAG_WATER_SATURATED: "free water at onset (flagged)",
 }
+#: The share of a cell's melt made beyond the calibrated pressure (``deep_melt_share``) above
+#: which the melt-thickness maps hatch the cell: more than a quarter of its melt then rests on
+#: phase relations continued beyond the model's calibration. lidmelt's choice, the value
+#: issue 18 asks for; no published source (a reader's threshold, not a physical one).
+DEEP_SHARE_HATCHED = 0.25
+#: Hatch pattern of those cells (horizontal lines: distinct from every flag's pattern, and
+#: readable over the "beyond calibration" flag's diagonal lines, which cover them too).
+DEEP_HATCH = "---"
+#: The maps hatched where the deep share exceeds :data:`DEEP_SHARE_HATCHED`.
+DEEP_HATCHED_VARIABLES = frozenset({"melt_thickness_km", "anomaly_melt_thickness_km"})
 #: Colour of the hatch lines: near black, over a wider white hatch of the same pattern (a
 #: halo), so that the hatching shows on the dark and the light ends of every colour scale.
 HATCH_COLOR = "0.1"
@@ -108,10 +132,11 @@ def _block_any(mask: np.ndarray, step: int) -> np.ndarray:
     return padded.reshape(padded.shape[0] // step, step, -1, step).any(axis=(1, 3))
 
 
-def draw_flag_hatching(
-    ax: Any, flags: FlagGrid, bits: tuple[int, ...], *, da: Any, src_crs: Any, step: int
+def draw_hatching(
+    ax: Any, cells: np.ndarray, hatch: str, *, da: Any, src_crs: Any, step: int
 ) -> list[Any]:
-    """Hatch the cells carrying each of ``bits`` over the data layer; return the artists.
+    """Hatch the True ``cells`` (a mask on the grid of ``da``) with ``hatch`` over the data
+    layer (a halo and a line layer); return the artists (none when no cell is set).
 
     ``da`` is the drawn variable (its grid transform places the polygons); ``step`` is the
     data layer's stride.
@@ -121,29 +146,37 @@ def draw_flag_hatching(
     from shapely.geometry import shape
 
     transform = da.rio.transform() * Affine.scale(step)
-    artists = []
-    for bit in bits:
-        mask = _block_any(flags.cells_with(bit), step)
-        if not mask.any():
-            continue
-        geoms = [
-            shape(geom) for geom, _ in shapes(mask.astype(np.uint8), mask=mask, transform=transform)
-        ]
-        for colour, width, zorder in _HATCH_LAYERS:
-            artists.append(
-                ax.add_geometries(
-                    geoms,
-                    crs=src_crs,
-                    facecolor="none",
-                    edgecolor="none",
-                    linewidth=0.0,
-                    hatch=FLAG_HATCHES[bit],
-                    hatchcolor=colour,
-                    hatch_linewidth=width,
-                    zorder=zorder,
-                )
-            )
-    return artists
+    mask = _block_any(cells, step)
+    if not mask.any():
+        return []
+    geoms = [
+        shape(geom) for geom, _ in shapes(mask.astype(np.uint8), mask=mask, transform=transform)
+    ]
+    return [
+        ax.add_geometries(
+            geoms,
+            crs=src_crs,
+            facecolor="none",
+            edgecolor="none",
+            linewidth=0.0,
+            hatch=hatch,
+            hatchcolor=colour,
+            hatch_linewidth=width,
+            zorder=zorder,
+        )
+        for colour, width, zorder in _HATCH_LAYERS
+    ]
+
+
+def draw_flag_hatching(
+    ax: Any, flags: FlagGrid, bits: tuple[int, ...], *, da: Any, src_crs: Any, step: int
+) -> list[Any]:
+    """Hatch the cells carrying each of ``bits`` over the data layer; return the artists
+    (:func:`draw_hatching`, one pattern per bit)."""
+    kw = {"da": da, "src_crs": src_crs, "step": step}
+    return [
+        a for bit in bits for a in draw_hatching(ax, flags.cells_with(bit), FLAG_HATCHES[bit], **kw)
+    ]
 
 
 def flag_legend_handles(bits: tuple[int, ...]) -> list[Any]:
@@ -169,3 +202,63 @@ def flag_caption(flags: FlagGrid | None, bits: tuple[int, ...]) -> str:
         for bit in bits
     ]
     return "Hatched: flagged cells (" + "; ".join(parts) + ")."
+
+
+def calibrated_pressure_gpa(summary: dict[str, Any]) -> float | None:
+    """The melting model's calibrated pressure (GPa) the run recorded
+    (``model.parameters.calibrated_max_pressure_gpa``), or None."""
+    params = (summary.get("model") or {}).get("parameters") or {}
+    try:
+        pc = float(params["calibrated_max_pressure_gpa"])
+    except (KeyError, TypeError, ValueError):
+        return None
+    return pc if math.isfinite(pc) else None
+
+
+def deep_share_cells(run: RunDir, variable: str, shape: tuple[int, ...]) -> np.ndarray | None:
+    """The cells a map of ``variable`` hatches as made mostly beyond the calibrated pressure:
+    ``deep_melt_share`` > :data:`DEEP_SHARE_HATCHED` (NaN, no melt, is never hatched); None
+    for other variables, a run without that output, another grid shape or no such cell."""
+    if variable not in DEEP_HATCHED_VARIABLES or "deep_melt_share" not in run.outputs:
+        return None
+    share = np.asarray(run.open("deep_melt_share").values, dtype=float)
+    if share.shape != tuple(shape):
+        return None
+    with np.errstate(invalid="ignore"):
+        cells = np.isfinite(share) & (share > DEEP_SHARE_HATCHED)
+    return cells if cells.any() else None
+
+
+def _beyond_text(summary: dict[str, Any]) -> str:
+    pc = calibrated_pressure_gpa(summary)
+    return f"{pc:g} GPa" if pc is not None else "the calibrated pressure"
+
+
+def deep_legend_handles(cells: np.ndarray | None, summary: dict[str, Any]) -> list[Any]:
+    """The legend entry of the deep-share hatching (none when nothing is hatched)."""
+    if cells is None:
+        return []
+    label = (
+        f"more than {100 * DEEP_SHARE_HATCHED:g} % of the melt made beyond {_beyond_text(summary)}"
+    )
+    return [Patch(facecolor="white", edgecolor=HATCH_COLOR, lw=0.5, hatch=DEEP_HATCH, label=label)]
+
+
+def deep_caption(cells: np.ndarray | None, summary: dict[str, Any], panel: str = "") -> str:
+    """The caption's sentence on the deep-share hatching (empty when nothing is hatched);
+    ``panel`` names the overview's panel ("c": "in (c)")."""
+    if cells is None:
+        return ""
+    pc = calibrated_pressure_gpa(summary)
+    where = (
+        f"{pc:g} GPa, the model's calibrated pressure"
+        if pc is not None
+        else ("the model's calibrated pressure")
+    )
+    return (
+        f"Hatched with horizontal lines{f' in ({panel})' if panel else ''} "
+        f"({int(cells.sum()):,} cells): more than "
+        f"{100 * DEEP_SHARE_HATCHED:g} % of the melt is made beyond {where} "
+        f"(deep_melt_share > {DEEP_SHARE_HATCHED:g}), where the solidus follows a continued "
+        "published curve."
+    )

@@ -47,7 +47,8 @@ class MapOptions:
         none; False: draw none, silently.
     flags : bool (or a loaded :class:`.flags.FlagGrid`)
         Hatch the flagged cells of output variables (:mod:`.flags`) when the run has a
-        validity flag grid; False: draw no hatching.
+        validity flag grid, and the melt-thickness maps' cells made mostly beyond the
+        calibrated pressure (:func:`.flags.deep_share_cells`); False: draw no hatching.
     plumes : bool
         Mark and name the workflow's plume centres (``summary.json``,
         ``inputs.thermal_anomaly_k.plumes``) when the run has any.
@@ -102,6 +103,7 @@ class MapInfo:
     decimation: int = 1
     categorical: bool = False
     flag_bits: tuple[int, ...] = ()
+    deep_hatched_cells: int = 0
     plumes: tuple[str, ...] = ()
     zero_contour: bool = False
     contour_levels: tuple[float, ...] = ()
@@ -142,7 +144,8 @@ def resolve_options(run: RunDir, opts: MapOptions) -> MapOptions:
     """Check the figure size, read the overlay files, find coastlines and the age grid, once.
 
     Returns options holding loaded stations and candidates, a coastline Path or False, the
-    plate-age DataArray or False, and the validity flag grid or False; resolving them again
+    plate-age DataArray or False, and the validity flag grid (None: the run has none; False:
+    hatching turned off); resolving them again
     changes nothing and warns no more.
 
     Raises
@@ -172,5 +175,5 @@ def resolve_options(run: RunDir, opts: MapOptions) -> MapOptions:
         candidate_labels=labels,
         coastlines=coast if coast is not None else False,
         age_contours=age if age is not None else False,
-        flags=flags if flags is not None else False,
+        flags=flags,
     )

@@ -35,6 +35,7 @@ from matplotlib.font_manager import FontProperties
 from lidmelt.errors import InputError
 from lidmelt.grids.rundir import RunDir
 from lidmelt.products import ensemble as ens
+from lidmelt.products.maps import flags as fl
 from lidmelt.products.maps import layout as lay
 from lidmelt.products.maps import marks as mk
 from lidmelt.products.maps import overlays as ov
@@ -216,8 +217,10 @@ def _caption(
         parts.append("Rings: plume centres named in the workflow.")
     if any(f.flag_bits for f in fields):
         parts.append("Hatched: cells the validity flags mark (see the single maps).")
+    for k, f in enumerate(fields):  # the melt panel: cells made mostly beyond calibration
+        parts.append(fl.deep_caption(f.deep_cells, summary, chr(ord("a") + k)))
     parts.append(f"Projection: {proj_name}. {model_line(summary)}.")
-    return " ".join(parts)
+    return " ".join(p for p in parts if p)
 
 
 @dataclass

@@ -4,17 +4,22 @@
 ``RUN_DIR/candidates.gpkg`` when present) adds a map of the melt thickness with both overlaid,
 a table of the run's values at each station (:func:`lidmelt.products.sites.sample_stations`)
 and a table of the candidate regions (``lidmelt screen``), numbers to 3 significant figures.
+Under the table, one sentence says how much of the anomaly melt volume of candidate #1 comes
+from beyond the melting model's calibrated pressure (:func:`deep_melt_sentence`); the table
+gives that share for every candidate, in percent.
 """
 
 from __future__ import annotations
 
 import io
+import math
 import warnings
 from pathlib import Path
 from typing import Any
 
 from lidmelt.grids.rundir import RunDir
 from lidmelt.products.maps import make_map_figure
+from lidmelt.products.maps.flags import calibrated_pressure_gpa
 from lidmelt.products.report.blocks import Block, MapImage, Section, Table, format_sig
 from lidmelt.products.report.labels import column_label
 from lidmelt.products.sampling import shown_without_melt
@@ -22,8 +27,10 @@ from lidmelt.products.sampling import shown_without_melt
 __all__ = [
     "CANDIDATES_NAME",
     "CANDIDATE_SHOWN",
+    "DEEP_SHARE_HEADING",
     "STATIONS_NAME",
     "STATION_SHOWN",
+    "deep_melt_sentence",
     "find_site_files",
     "sites_map",
     "sites_section",
@@ -53,7 +60,10 @@ CANDIDATE_SHOWN = (
     "ambient_melt_volume_km3",
     "melt_volume_km3",
     "flagged_fraction",
+    "deep_melt_share",
 )
+#: Heading of the candidates' ``deep_melt_share`` column (shown in percent).
+DEEP_SHARE_HEADING = "Anomaly melt from beyond the calibrated pressure (%)"
 
 
 def find_site_files(
@@ -92,13 +102,46 @@ def _station_table(run: RunDir, path: Path) -> Table:
     return Table(header, rows)
 
 
-def _candidate_table(path: Path) -> Table:
-    import geopandas as gpd
+def _as_float(value: Any) -> float:
+    try:
+        return float(value)
+    except (TypeError, ValueError):
+        return math.nan
 
-    gdf = gpd.read_file(path)
+
+def _percent(share: Any) -> str:
+    """A share (0..1) as a percentage to 3 significant figures, "-" when not finite."""
+    value = _as_float(share)
+    return format_sig(100.0 * value) if math.isfinite(value) else "-"
+
+
+def _candidate_table(gdf: Any) -> Table:
     cols = [c for c in CANDIDATE_SHOWN if c in gdf.columns]
-    rows = tuple(tuple(_cell(row[c]) for c in cols) for _, row in gdf.iterrows())
-    return Table(tuple(column_label(c) for c in cols), rows)
+    rows = tuple(
+        tuple(_percent(row[c]) if c == "deep_melt_share" else _cell(row[c]) for c in cols)
+        for _, row in gdf.iterrows()
+    )
+    header = (DEEP_SHARE_HEADING if c == "deep_melt_share" else column_label(c) for c in cols)
+    return Table(tuple(header), rows)
+
+
+def deep_melt_sentence(gdf: Any, summary: dict[str, Any]) -> str:
+    """How much of the anomaly melt volume of candidate #1 comes from beyond the model's
+    calibrated pressure (the summary's ``calibrated_max_pressure_gpa``); "" without
+    candidates, without a finite ``deep_melt_share`` or without that pressure."""
+    if not len(gdf) or "deep_melt_share" not in gdf.columns:
+        return ""
+    first = gdf.sort_values("rank").iloc[0] if "rank" in gdf.columns else gdf.iloc[0]
+    share, pc = _as_float(first["deep_melt_share"]), calibrated_pressure_gpa(summary)
+    if pc is None or not math.isfinite(share):
+        return ""
+    plume = first.get("plume")
+    name = f" ({plume})" if isinstance(plume, str) and plume else ""
+    return (
+        f"{_percent(share)} % of the anomaly melt volume of candidate #1{name} comes from "
+        f"beyond {pc:g} GPa (the model's calibrated pressure), where the solidus follows a "
+        "continued published curve."
+    )
 
 
 def sites_section(run: RunDir, stations: Path | None, candidates: Path | None) -> Section | None:
@@ -112,10 +155,15 @@ def sites_section(run: RunDir, stations: Path | None, candidates: Path | None) -
             _station_table(run, stations),
         ]
     if candidates is not None:
+        import geopandas as gpd
+
+        gdf = gpd.read_file(candidates)
         blocks += [
             f"Candidate regions of {candidates.name} (rank 1 = largest melt volume):",
-            _candidate_table(candidates),
+            _candidate_table(gdf),
         ]
+        sentence = deep_melt_sentence(gdf, run.summary)
+        blocks += [sentence] if sentence else []
     return Section("sites", "Stations and candidate regions", tuple(blocks))
 
 
