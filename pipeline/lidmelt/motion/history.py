@@ -42,8 +42,8 @@ from scipy.ndimage import map_coordinates
 from scipy.spatial.transform import Rotation
 
 from lidmelt.engine import KernelSettings, evaluate_chunk
-from lidmelt.grids.anomaly import plume_profile
 from lidmelt.grids.grid import Grid
+from lidmelt.motion.geometry import SHAPE_CODES, add_plumes, sample_rotated
 from lidmelt.motion.plan import DEFAULT_PLATE, PlumeTrack
 from lidmelt.motion.rotations import EARTH_RADIUS_KM, unit_vectors
 from lidmelt.physics import EXTRACTION_MIN_MELT_FRACTION
@@ -112,13 +112,23 @@ class FrameField:
         ``bounds`` (a cap around them: unit centre, angle) a cap out of reach costs nothing."""
         if self.values is None:
             return self.constant
+        if self.cap_cos > 1.0:  # a grid equal to its baseline everywhere
+            return self.baseline
         matrix = rotation.as_matrix()
+        seen, cap_cos = np.zeros(3), -2.0
+        if self.cap_centre is not None:
+            seen, cap_cos = matrix.T @ self.cap_centre, self.cap_cos  # the cap on today's plate
+            if bounds is not None and _apart(bounds, seen, np.arccos(max(cap_cos, -1.0))):
+                return self.baseline
+        if grid.is_geographic:  # one compiled loop over the cells (lidmelt.motion.geometry)
+            a, _, c, _, e, f = grid.transform
+            out = np.empty(len(xyz))
+            sample_rotated(xyz, matrix, self.values, np.array([a, c, e, f], float),
+                           float(grid.x_centre), seen, cap_cos, self.baseline, out)  # fmt: skip
+            return out
         out = np.full(len(xyz), self.baseline)
         if self.cap_centre is not None:
-            seen = matrix.T @ self.cap_centre  # the cap's centre on today's plate
-            if bounds is not None and _apart(bounds, seen, np.arccos(max(self.cap_cos, -1.0))):
-                return self.baseline
-            near = np.flatnonzero(xyz @ seen >= self.cap_cos)
+            near = np.flatnonzero(xyz @ seen >= cap_cos)
             if not near.size:
                 return self.baseline
             xyz = xyz[near]
@@ -129,12 +139,7 @@ class FrameField:
         # latitude from z alone (arcsin of a unit vector's z: within 1e-6 degree of the
         # arctangent form even at the poles, where a grid's bilinear weights do not need more)
         lon, lat = np.degrees(np.arctan2(y, x)), np.degrees(np.arcsin(np.clip(z, -1.0, 1.0)))
-        if grid.is_geographic:  # the cell index straight from the transform (no snapping:
-            a, _, c, _, e, f = grid.transform  # the interpolation needs none)
-            col = (grid.wrap_x(lon) - c) / a - 0.5
-            row = (lat - f) / e - 0.5
-        else:
-            row, col = grid.fractional_index(*grid.to_grid_xy(lon, lat, "EPSG:4326"))
+        row, col = grid.fractional_index(*grid.to_grid_xy(lon, lat, "EPSG:4326"))
         out[near] = map_coordinates(self.values, [row, col], order=1, mode="nearest",
                                     prefilter=False)  # fmt: skip
         return out
@@ -208,16 +213,14 @@ def frame_inputs(
         tracks = [t for t in tracks if not _apart(bounds, t.tracks[plate][k], t.reach_rad)]
     if not tracks:
         return [anomaly, water, up]
-    for track in tracks:
-        cosine = xyz @ track.tracks[plate][k]  # a product per plume: no threaded gemm
-        near = np.flatnonzero(cosine >= track.reach_cos)
-        if not near.size:
-            continue
-        dist = EARTH_RADIUS_KM * np.arccos(np.minimum(cosine[near], 1.0))
-        unit = plume_profile(dist, track.unit)
-        anomaly[near] += track.plume.peak_excess_k * unit
-        if plan.upwelling and track.upwelling is not None:
-            up[near] += track.upwelling * unit
+    points = np.array([t.tracks[plate][k] for t in tracks])
+    params = np.array([t.profile_params for t in tracks])
+    if not plan.upwelling:
+        params[:, 4] = 0.0
+    shapes = np.array([SHAPE_CODES[t.plume.shape] for t in tracks], np.int64)
+    # one compiled loop over the cells, every plume's distance and profile in it
+    add_plumes(xyz, points, params, shapes, EARTH_RADIUS_KM, anomaly,
+               up if plan.upwelling else anomaly[:0])  # fmt: skip
     return [anomaly, water, up]
 
 

@@ -102,6 +102,15 @@ class PlumeTrack:
         """The cosine of :attr:`reach_rad` (-1: a reach of half the circumference or more)."""
         return -1.0 if self.reach_rad >= np.pi else float(np.cos(self.reach_rad))
 
+    @cached_property
+    def profile_params(self) -> np.ndarray:
+        """The plume's numbers for :func:`lidmelt.motion.geometry.add_plumes`: the cosine of
+        its reach, its radius and reach (km), its peak excess (K) and upwelling (mm/yr, 0 for
+        none)."""
+        up = 0.0 if self.upwelling is None else float(self.upwelling)
+        plume = self.plume
+        return np.array([self.reach_cos, plume.radius_km, plume.reach_km, plume.peak_excess_k, up])
+
     def track_lonlat(self, plate: int) -> tuple[np.ndarray, np.ndarray]:
         """The track on ``plate`` as longitudes and latitudes (degrees)."""
         from lidmelt.motion.rotations import lonlat
