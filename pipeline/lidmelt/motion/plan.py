@@ -8,7 +8,7 @@ R(t)^-1 applied to its position at t (:meth:`lidmelt.motion.rotations.RotationHi
 
 from __future__ import annotations
 
-from dataclasses import dataclass, replace
+from dataclasses import dataclass
 from functools import cached_property
 
 import numpy as np
@@ -86,11 +86,6 @@ class PlumeTrack:
     lon: np.ndarray
     lat: np.ndarray
     tracks: dict[int, np.ndarray]
-
-    @cached_property
-    def unit(self) -> Plume:
-        """The plume's profile for a peak of 1 (its upwelling uses the same shape)."""
-        return replace(self.plume, peak_excess_k=1.0)
 
     @cached_property
     def reach_rad(self) -> float:
