@@ -53,16 +53,17 @@ def _bilinear(values, row, col):
     return (1.0 - wr) * top + wr * bottom
 
 
-def sample_rotated(xyz, matrix, values, transform, centre, seen, cap_cos, baseline, out):
+def sample_rotated(xyz, alive, matrix, values, transform, centre, seen, cap_cos, baseline, out):
     """Fill ``out`` (n) with the grid ``values`` (float32, geographic) at the positions
     ``matrix`` (3, 3) gives the unit vectors ``xyz`` (n, 3) (module notes); ``transform`` is
     the grid's affine (a, c, e, f: x scale, x origin, y scale, y origin, degrees), ``centre``
     its longitude centre for wrapping; a cell whose ``xyz @ seen`` is below ``cap_cos`` (the
-    field's cap seen on today's plate) gets ``baseline``."""
+    field's cap seen on today's plate), or not ``alive`` (n, bool: a cell whose seafloor did
+    not exist then, which the kernel gives nothing), gets ``baseline``."""
     a, c, e, f = transform[0], transform[1], transform[2], transform[3]
     for i in range(xyz.shape[0]):
         px, py, pz = xyz[i, 0], xyz[i, 1], xyz[i, 2]
-        if px * seen[0] + py * seen[1] + pz * seen[2] < cap_cos:
+        if not alive[i] or px * seen[0] + py * seen[1] + pz * seen[2] < cap_cos:
             out[i] = baseline
             continue
         x = matrix[0, 0] * px + matrix[0, 1] * py + matrix[0, 2] * pz
@@ -84,12 +85,15 @@ def _profile(d, shape, radius, reach):
     return 1.0 if d <= radius else 0.0
 
 
-def add_plumes(xyz, points, params, shapes, earth_radius, anomaly, up):
-    """Add each plume's profile at the cells ``xyz`` (n, 3) to ``anomaly`` and ``up`` (n):
+def add_plumes(xyz, alive, points, params, shapes, earth_radius, anomaly, up):
+    """Add each plume's profile at the cells ``xyz`` (n, 3) that are ``alive`` (n, bool; the
+    others are left as they are) to ``anomaly`` and ``up`` (n):
     ``points`` (P, 3) their track points now, ``params`` (P, 5) their cosine of the reach,
     radius (km), reach (km), peak excess (K) and peak upwelling (mm/yr; 0 for none),
     ``shapes`` (P) their :data:`SHAPE_CODES`; distances on a sphere of ``earth_radius`` km."""
     for i in range(xyz.shape[0]):
+        if not alive[i]:
+            continue
         px, py, pz = xyz[i, 0], xyz[i, 1], xyz[i, 2]
         for p in range(points.shape[0]):
             cosine = px * points[p, 0] + py * points[p, 1] + pz * points[p, 2]

@@ -106,10 +106,17 @@ class FrameField:
         return cls(0.0, values, baseline, centre, cap_cos)
 
     def at(
-        self, grid: Grid, xyz: np.ndarray, rotation: Rotation, bounds: tuple | None = None
+        self,
+        grid: Grid,
+        xyz: np.ndarray,
+        rotation: Rotation,
+        bounds: tuple | None = None,
+        alive: np.ndarray | None = None,
     ) -> np.ndarray | float:
         """The field at the positions ``rotation`` gives the unit vectors ``xyz`` (n, 3); with
-        ``bounds`` (a cap around them: unit centre, angle) a cap out of reach costs nothing."""
+        ``bounds`` (a cap around them: unit centre, angle) a cap out of reach costs nothing;
+        with ``alive`` (n, bool) cells not alive may get the baseline instead (on a geographic
+        grid they do: the history's cells without seafloor then, which the kernel ignores)."""
         if self.values is None:
             return self.constant
         if self.cap_cos > 1.0:  # a grid equal to its baseline everywhere
@@ -123,7 +130,8 @@ class FrameField:
         if grid.is_geographic:  # one compiled loop over the cells (lidmelt.motion.geometry)
             a, _, c, _, e, f = grid.transform
             out = np.empty(len(xyz))
-            sample_rotated(xyz, matrix, self.values, np.array([a, c, e, f], float),
+            alive = np.ones(len(xyz), bool) if alive is None else alive
+            sample_rotated(xyz, alive, matrix, self.values, np.array([a, c, e, f], float),
                            float(grid.x_centre), seen, cap_cos, self.baseline, out)  # fmt: skip
             return out
         out = np.full(len(xyz), self.baseline)
@@ -196,15 +204,23 @@ def cells_cap(xyz: np.ndarray) -> tuple[np.ndarray, float]:
 
 
 def frame_inputs(
-    plan: HistoryPlan, xyz: np.ndarray, plate: int, k: int, bounds: tuple | None = None
+    plan: HistoryPlan,
+    xyz: np.ndarray,
+    plate: int,
+    k: int,
+    bounds: tuple | None = None,
+    alive: np.ndarray | None = None,
 ) -> list:
     """The anomaly, water and upwelling (K, wt%, mm/yr) of cells ``xyz`` (n, 3) on ``plate`` at
     step ``k``: the mantle's fields at their positions then, plus the plumes around their track
     points on that plate; ``bounds`` (:func:`cells_cap` of ``xyz``) spares the plumes and
-    fields out of reach."""
+    fields out of reach; ``alive`` (n, bool; default all) the cells not alive (no seafloor
+    then: the kernel gives them nothing whatever their inputs), which keep the fields'
+    baselines."""
     rotation = plan.rotations[plate][k]
     n = xyz.shape[0]
-    at = {name: f.at(plan.grid, xyz, rotation, bounds) for name, f in plan.fields.items()}
+    alive = np.ones(n, bool) if alive is None else alive
+    at = {name: f.at(plan.grid, xyz, rotation, bounds, alive) for name, f in plan.fields.items()}
     anomaly = _writable(at["thermal_anomaly_k"], n)
     water = at["water_wt_pct"]
     up = _writable(at["upwelling_mm_yr"], n) if plan.upwelling else 0.0
@@ -219,7 +235,7 @@ def frame_inputs(
         params[:, 4] = 0.0
     shapes = np.array([SHAPE_CODES[t.plume.shape] for t in tracks], np.int64)
     # one compiled loop over the cells, every plume's distance and profile in it
-    add_plumes(xyz, points, params, shapes, EARTH_RADIUS_KM, anomaly,
+    add_plumes(xyz, alive, points, params, shapes, EARTH_RADIUS_KM, anomaly,
                up if plan.upwelling else anomaly[:0])  # fmt: skip
     return [anomaly, water, up]
 
@@ -242,15 +258,17 @@ def _step_inputs(plan, today, xyz, groups, k, shape) -> list:
     """The kernel's inputs at step ``k`` > 0: age then (NaN before the seafloor formed), no lid
     grid, the frame inputs of each plate's cells (``groups``: plate id and its cells, a flat
     index array or None for all; NaN for cells without rotations)."""
-    age = np.asarray(today[0], float) - plan.times[k]
-    age = np.where(age >= 0.0, age, np.nan)
+    age = np.broadcast_to(np.asarray(today[0], float), shape) - plan.times[k]
+    alive = age >= 0.0  # False where NaN: no seafloor then, no lid, nothing from the kernel
+    age[~alive] = np.nan
+    alive = alive.ravel()
     if len(groups) == 1 and groups[0][1] is None:
-        values = frame_inputs(plan, xyz, groups[0][0], k, groups[0][2])
+        values = frame_inputs(plan, xyz, groups[0][0], k, groups[0][2], alive)
         fields = [np.reshape(v, shape) if np.ndim(v) else v for v in values]
     else:
         fields = [np.full(shape, np.nan) for _ in range(3)]
         for plate, cells, bounds in groups:
-            values = frame_inputs(plan, xyz[cells], plate, k, bounds)
+            values = frame_inputs(plan, xyz[cells], plate, k, bounds, alive[cells])
             for out, value in zip(fields, values, strict=True):
                 out.ravel()[cells] = value
     if not plan.upwelling:
