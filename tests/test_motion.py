@@ -339,6 +339,29 @@ def test_a_grid_departing_inside_a_cap_is_sampled_as_the_whole_grid():
     assert seen > 1000
 
 
+def test_a_grid_is_read_at_the_rotated_positions_with_its_edge_values_beyond():
+    # a field linear in longitude and latitude (2 K per degree east, 5 K per degree north):
+    # bilinear sampling is exact on it (an identity), and beyond the grid its edge values are
+    # those of the position clamped to the outermost cell centres; the positions then are
+    # scipy's rotation of today's unit vectors, read back as longitude and latitude
+    from lidmelt.grids.grid import Grid
+    from lidmelt.motion.history import FrameField
+    from lidmelt.motion.rotations import finite_rotation, lonlat, unit_vectors
+
+    grid = Grid.from_extent(-30.0, 10.0, -10.0, 10.0, 0.25)
+    lon, lat = grid.lonlat_centres()
+    field = FrameField.from_grid(grid, 2.0 * lon + 5.0 * lat)
+    xyz = unit_vectors(lon, lat).reshape(-1, 3)
+    outside = 0
+    for rotation in (finite_rotation(20.0, 40.0, -4.0), finite_rotation(-60.0, -20.0, 7.0)):
+        lon_then, lat_then = lonlat(rotation.apply(xyz))
+        lon_c = np.clip(lon_then, -29.875, 9.875)
+        lat_c = np.clip(lat_then, -9.875, 9.875)
+        outside += int(np.sum((lon_c != lon_then) | (lat_c != lat_then)))
+        npt.assert_allclose(field.at(grid, xyz, rotation), 2.0 * lon_c + 5.0 * lat_c, atol=1e-4)
+    assert outside > 1000
+
+
 def test_a_plumes_upwelling_moves_with_its_track(tmp_path):
     # no upwelling but the plume's own (peak U0 = 100 mm/yr with its gaussian shape): a cell on
     # the plume's row 4 to 9 degrees west of it (beyond the plume's reach today) produced, at

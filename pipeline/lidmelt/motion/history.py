@@ -42,8 +42,8 @@ from scipy.ndimage import map_coordinates
 from scipy.spatial.transform import Rotation
 
 from lidmelt.engine import KernelSettings, evaluate_chunk
-from lidmelt.grids.anomaly import plume_profile
 from lidmelt.grids.grid import Grid
+from lidmelt.motion.geometry import SHAPE_CODES, add_plumes, sample_rotated
 from lidmelt.motion.plan import DEFAULT_PLATE, PlumeTrack
 from lidmelt.motion.rotations import EARTH_RADIUS_KM, unit_vectors
 from lidmelt.physics import EXTRACTION_MIN_MELT_FRACTION
@@ -106,19 +106,37 @@ class FrameField:
         return cls(0.0, values, baseline, centre, cap_cos)
 
     def at(
-        self, grid: Grid, xyz: np.ndarray, rotation: Rotation, bounds: tuple | None = None
+        self,
+        grid: Grid,
+        xyz: np.ndarray,
+        rotation: Rotation,
+        bounds: tuple | None = None,
+        alive: np.ndarray | None = None,
     ) -> np.ndarray | float:
         """The field at the positions ``rotation`` gives the unit vectors ``xyz`` (n, 3); with
-        ``bounds`` (a cap around them: unit centre, angle) a cap out of reach costs nothing."""
+        ``bounds`` (a cap around them: unit centre, angle) a cap out of reach costs nothing;
+        with ``alive`` (n, bool) cells not alive may get the baseline instead (on a geographic
+        grid they do: the history's cells without seafloor then, which the kernel ignores)."""
         if self.values is None:
             return self.constant
+        if self.cap_cos > 1.0:  # a grid equal to its baseline everywhere
+            return self.baseline
         matrix = rotation.as_matrix()
+        seen, cap_cos = np.zeros(3), -2.0
+        if self.cap_centre is not None:
+            seen, cap_cos = matrix.T @ self.cap_centre, self.cap_cos  # the cap on today's plate
+            if bounds is not None and _apart(bounds, seen, np.arccos(max(cap_cos, -1.0))):
+                return self.baseline
+        if grid.is_geographic:  # one compiled loop over the cells (lidmelt.motion.geometry)
+            a, _, c, _, e, f = grid.transform
+            out = np.empty(len(xyz))
+            alive = np.ones(len(xyz), bool) if alive is None else alive
+            sample_rotated(xyz, alive, matrix, self.values, np.array([a, c, e, f], float),
+                           float(grid.x_centre), seen, cap_cos, self.baseline, out)  # fmt: skip
+            return out
         out = np.full(len(xyz), self.baseline)
         if self.cap_centre is not None:
-            seen = matrix.T @ self.cap_centre  # the cap's centre on today's plate
-            if bounds is not None and _apart(bounds, seen, np.arccos(max(self.cap_cos, -1.0))):
-                return self.baseline
-            near = np.flatnonzero(xyz @ seen >= self.cap_cos)
+            near = np.flatnonzero(xyz @ seen >= cap_cos)
             if not near.size:
                 return self.baseline
             xyz = xyz[near]
@@ -129,12 +147,7 @@ class FrameField:
         # latitude from z alone (arcsin of a unit vector's z: within 1e-6 degree of the
         # arctangent form even at the poles, where a grid's bilinear weights do not need more)
         lon, lat = np.degrees(np.arctan2(y, x)), np.degrees(np.arcsin(np.clip(z, -1.0, 1.0)))
-        if grid.is_geographic:  # the cell index straight from the transform (no snapping:
-            a, _, c, _, e, f = grid.transform  # the interpolation needs none)
-            col = (grid.wrap_x(lon) - c) / a - 0.5
-            row = (lat - f) / e - 0.5
-        else:
-            row, col = grid.fractional_index(*grid.to_grid_xy(lon, lat, "EPSG:4326"))
+        row, col = grid.fractional_index(*grid.to_grid_xy(lon, lat, "EPSG:4326"))
         out[near] = map_coordinates(self.values, [row, col], order=1, mode="nearest",
                                     prefilter=False)  # fmt: skip
         return out
@@ -191,15 +204,23 @@ def cells_cap(xyz: np.ndarray) -> tuple[np.ndarray, float]:
 
 
 def frame_inputs(
-    plan: HistoryPlan, xyz: np.ndarray, plate: int, k: int, bounds: tuple | None = None
+    plan: HistoryPlan,
+    xyz: np.ndarray,
+    plate: int,
+    k: int,
+    bounds: tuple | None = None,
+    alive: np.ndarray | None = None,
 ) -> list:
     """The anomaly, water and upwelling (K, wt%, mm/yr) of cells ``xyz`` (n, 3) on ``plate`` at
     step ``k``: the mantle's fields at their positions then, plus the plumes around their track
     points on that plate; ``bounds`` (:func:`cells_cap` of ``xyz``) spares the plumes and
-    fields out of reach."""
+    fields out of reach; ``alive`` (n, bool; default all) the cells not alive (no seafloor
+    then: the kernel gives them nothing whatever their inputs), which keep the fields'
+    baselines."""
     rotation = plan.rotations[plate][k]
     n = xyz.shape[0]
-    at = {name: f.at(plan.grid, xyz, rotation, bounds) for name, f in plan.fields.items()}
+    alive = np.ones(n, bool) if alive is None else alive
+    at = {name: f.at(plan.grid, xyz, rotation, bounds, alive) for name, f in plan.fields.items()}
     anomaly = _writable(at["thermal_anomaly_k"], n)
     water = at["water_wt_pct"]
     up = _writable(at["upwelling_mm_yr"], n) if plan.upwelling else 0.0
@@ -208,16 +229,14 @@ def frame_inputs(
         tracks = [t for t in tracks if not _apart(bounds, t.tracks[plate][k], t.reach_rad)]
     if not tracks:
         return [anomaly, water, up]
-    for track in tracks:
-        cosine = xyz @ track.tracks[plate][k]  # a product per plume: no threaded gemm
-        near = np.flatnonzero(cosine >= track.reach_cos)
-        if not near.size:
-            continue
-        dist = EARTH_RADIUS_KM * np.arccos(np.minimum(cosine[near], 1.0))
-        unit = plume_profile(dist, track.unit)
-        anomaly[near] += track.plume.peak_excess_k * unit
-        if plan.upwelling and track.upwelling is not None:
-            up[near] += track.upwelling * unit
+    points = np.array([t.tracks[plate][k] for t in tracks])
+    params = np.array([t.profile_params for t in tracks])
+    if not plan.upwelling:
+        params[:, 4] = 0.0
+    shapes = np.array([SHAPE_CODES[t.plume.shape] for t in tracks], np.int64)
+    # one compiled loop over the cells, every plume's distance and profile in it
+    add_plumes(xyz, alive, points, params, shapes, EARTH_RADIUS_KM, anomaly,
+               up if plan.upwelling else anomaly[:0])  # fmt: skip
     return [anomaly, water, up]
 
 
@@ -239,15 +258,17 @@ def _step_inputs(plan, today, xyz, groups, k, shape) -> list:
     """The kernel's inputs at step ``k`` > 0: age then (NaN before the seafloor formed), no lid
     grid, the frame inputs of each plate's cells (``groups``: plate id and its cells, a flat
     index array or None for all; NaN for cells without rotations)."""
-    age = np.asarray(today[0], float) - plan.times[k]
-    age = np.where(age >= 0.0, age, np.nan)
+    age = np.broadcast_to(np.asarray(today[0], float), shape) - plan.times[k]
+    alive = age >= 0.0  # False where NaN: no seafloor then, no lid, nothing from the kernel
+    age[~alive] = np.nan
+    alive = alive.ravel()
     if len(groups) == 1 and groups[0][1] is None:
-        values = frame_inputs(plan, xyz, groups[0][0], k, groups[0][2])
+        values = frame_inputs(plan, xyz, groups[0][0], k, groups[0][2], alive)
         fields = [np.reshape(v, shape) if np.ndim(v) else v for v in values]
     else:
         fields = [np.full(shape, np.nan) for _ in range(3)]
         for plate, cells, bounds in groups:
-            values = frame_inputs(plan, xyz[cells], plate, k, bounds)
+            values = frame_inputs(plan, xyz[cells], plate, k, bounds, alive[cells])
             for out, value in zip(fields, values, strict=True):
                 out.ravel()[cells] = value
     if not plan.upwelling:

@@ -8,7 +8,7 @@ R(t)^-1 applied to its position at t (:meth:`lidmelt.motion.rotations.RotationHi
 
 from __future__ import annotations
 
-from dataclasses import dataclass, replace
+from dataclasses import dataclass
 from functools import cached_property
 
 import numpy as np
@@ -88,11 +88,6 @@ class PlumeTrack:
     tracks: dict[int, np.ndarray]
 
     @cached_property
-    def unit(self) -> Plume:
-        """The plume's profile for a peak of 1 (its upwelling uses the same shape)."""
-        return replace(self.plume, peak_excess_k=1.0)
-
-    @cached_property
     def reach_rad(self) -> float:
         """The angle (radians) of the plume's reach on the sphere of the rotations."""
         return self.plume.reach_km / EARTH_RADIUS_KM
@@ -101,6 +96,15 @@ class PlumeTrack:
     def reach_cos(self) -> float:
         """The cosine of :attr:`reach_rad` (-1: a reach of half the circumference or more)."""
         return -1.0 if self.reach_rad >= np.pi else float(np.cos(self.reach_rad))
+
+    @cached_property
+    def profile_params(self) -> np.ndarray:
+        """The plume's numbers for :func:`lidmelt.motion.geometry.add_plumes`: the cosine of
+        its reach, its radius and reach (km), its peak excess (K) and upwelling (mm/yr, 0 for
+        none)."""
+        up = 0.0 if self.upwelling is None else float(self.upwelling)
+        plume = self.plume
+        return np.array([self.reach_cos, plume.radius_km, plume.reach_km, plume.peak_excess_k, up])
 
     def track_lonlat(self, plate: int) -> tuple[np.ndarray, np.ndarray]:
         """The track on ``plate`` as longitudes and latitudes (degrees)."""

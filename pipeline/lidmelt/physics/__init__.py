@@ -5,6 +5,7 @@ Nothing in this subpackage reads or writes files, except the melting table's dis
 """
 
 from lidmelt.physics._jitcache import cache_note as compiled_cache_note
+from lidmelt.physics._jitcache import compiled_function
 from lidmelt.physics.cells import evaluate_cells
 from lidmelt.physics.column import column_profile
 from lidmelt.physics.cooling import COOLING_MODELS, get_cooling_model, isotherm_depth_km
@@ -58,6 +59,7 @@ __all__ = [
     "MeltingModel",
     "column_profile",
     "compiled_cache_note",
+    "compiled_function",
     "evaluate_cells",
     "excess_to_melt_k",
     "geotherm_tops",

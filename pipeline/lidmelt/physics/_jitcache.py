@@ -22,7 +22,7 @@ try:
 except ImportError:  # pragma: no cover - lidmelt.physics.kernel uses numpy paths without it
     numba = None
 
-__all__ = ["cache_note", "njit"]
+__all__ = ["cache_note", "compiled_function", "njit"]
 
 #: The note of this process (set once, by the first function that needed a fallback).
 _NOTE: list[str] = []
@@ -92,3 +92,11 @@ def cache_note() -> str | None:
     """One line on where compiled code went when numba's own places were not writable, or
     None when they were."""
     return _NOTE[0] if _NOTE else None
+
+
+def compiled_function(func: Callable, **options: Any) -> Any:
+    """``func`` compiled without the GIL (:func:`njit`, numpy's error model: a division by zero
+    gives inf or NaN as in numpy), or ``func`` itself where numba is missing."""
+    if numba is None:  # pragma: no cover - numba is a dependency
+        return func
+    return njit(func, nogil=True, error_model="numpy", **options)
