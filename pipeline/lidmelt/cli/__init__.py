@@ -18,7 +18,18 @@ import sys
 import traceback
 
 from lidmelt import __version__
-from lidmelt.cli import cache, column, map, profile, regions, report, run, sample, screen
+from lidmelt.cli import (
+    assess,
+    cache,
+    column,
+    map,
+    profile,
+    regions,
+    report,
+    run,
+    sample,
+    screen,
+)
 from lidmelt.cli._failures import Terminated, bounded, describe_failure, termination_as_interrupt
 from lidmelt.errors import LidmeltError
 from lidmelt.physics import compiled_cache_note
@@ -26,7 +37,7 @@ from lidmelt.physics import compiled_cache_note
 __all__ = ["COMMANDS", "build_parser", "main"]
 
 #: The command modules, in the order ``lidmelt --help`` lists them.
-COMMANDS = (column, run, sample, profile, regions, screen, map, report, cache)
+COMMANDS = (column, run, sample, profile, regions, screen, assess, map, report, cache)
 
 
 def build_parser() -> argparse.ArgumentParser:
