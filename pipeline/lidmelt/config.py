@@ -37,6 +37,7 @@ __all__ = [
     "PLUME_SHAPES",
     "RESAMPLING_METHODS",
     "SAMPLING_METHODS",
+    "AssessOptions",
     "ComputeOptions",
     "EnsembleOptions",
     "GridSpec",
@@ -524,6 +525,19 @@ class EnsembleOptions:
 
 
 @dataclass(frozen=True, kw_only=True)
+class AssessOptions:
+    """The ``[assess]`` table: known features that score the run and each ensemble member:
+    ``features`` (absolute path), the ``crs`` of a CSV's coordinates, and the members' weights
+    (:mod:`lidmelt.ensemble.posterior`): AUC <= ``rejection_auc`` gets none, the others
+    ((AUC - rejection_auc)/(1 - rejection_auc))^``likelihood_shape``."""
+
+    features: Path
+    crs: str | None = None
+    rejection_auc: float = 0.5
+    likelihood_shape: float = 1.0
+
+
+@dataclass(frozen=True, kw_only=True)
 class RunConfig:
     """One validated run configuration, as read from a workflow file.
 
@@ -539,6 +553,8 @@ class RunConfig:
         The validated tables.
     ensemble : EnsembleOptions or None
         The ``[ensemble]`` table, if the workflow has one.
+    assess : AssessOptions or None
+        The ``[assess]`` table, if the workflow has one.
     """
 
     workflow_path: Path
@@ -552,6 +568,7 @@ class RunConfig:
     compute: ComputeOptions
     outputs: OutputOptions
     ensemble: EnsembleOptions | None = None
+    assess: AssessOptions | None = None
 
     def to_dict(self) -> dict[str, Any]:
         """A JSON-serialisable dict of the whole configuration, for provenance."""

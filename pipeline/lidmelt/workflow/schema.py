@@ -28,7 +28,17 @@ _PLUME_KEYS = (
 #: keys are checked by the model functions (see ``validate_models``); ``"[]"`` marks an array of
 #: tables.
 SCHEMA: dict[str, tuple[str, ...]] = {
-    "": ("run", "grid", "inputs", "model", "lithosphere", "compute", "outputs", "ensemble"),
+    "": (
+        "run",
+        "grid",
+        "inputs",
+        "model",
+        "lithosphere",
+        "compute",
+        "outputs",
+        "ensemble",
+        "assess",
+    ),
     "run": ("name", "output_dir", "netcdf", "maps", "report"),
     "grid": ("like", "extent", "resolution", "crs"),
     "inputs": INPUT_NAMES,
@@ -67,6 +77,7 @@ SCHEMA: dict[str, tuple[str, ...]] = {
         "vary",
     ),
     "ensemble.vary": ("*",),
+    "assess": ("features", "crs", "rejection_auc", "likelihood_shape"),
 }
 #: The tables of :data:`SCHEMA` (not the arrays of tables).
 TABLES = frozenset(k for k in SCHEMA if k and not k.endswith("[]"))
