@@ -245,7 +245,7 @@ def test_bad_feature_files_are_refused_naming_the_file(small_run, tmp_path, caps
 
 
 def test_the_command_writes_the_json_and_the_figure(small_run, tmp_path, capsys):
-    run, v = small_run
+    run, _ = small_run
     rows = [("a", *centre(5, 5)), ("b", *centre(6, 20))]
     assert main(["assess", str(run), str(write_features(tmp_path / "f.csv", rows))]) == 0
     doc = json.loads((run / "assess.json").read_text())
@@ -261,3 +261,34 @@ def test_the_command_writes_the_json_and_the_figure(small_run, tmp_path, capsys)
     from lidmelt.grids.rundir import open_run
 
     open_run(run)
+
+
+@pytest.mark.slow
+def test_the_demo_auc_equals_sklearn_within_0001(tmp_path):
+    """The invented demo basin and its invented known seamounts: the assessment's AUC equals
+    scikit-learn's area-weighted ROC area within 0.001 (issue 22)."""
+    from pathlib import Path
+
+    import rasterio
+
+    from lidmelt.grids.area import row_areas_km2
+    from lidmelt.grids.features import nearest_cells, read_feature_points
+    from lidmelt.products.sampling import as_run, run_grid
+
+    root = Path(__file__).resolve().parents[1]
+    out = tmp_path / "demo"
+    argv = ["run", str(root / "workflows" / "demo.toml"), "-o", str(out), "--quiet", "--no-maps"]
+    assert main([*argv, "--set", "run.netcdf=false"]) == 0
+    known = root / "grids_demo" / "known_seamounts.csv"
+    doc = assess(out, known)
+    grid = run_grid(as_run(out))
+    with rasterio.open(out / "anomaly_melt_thickness_km.tif") as src:
+        v = src.read(1)
+    fp = read_feature_points(known)
+    inside, flat = nearest_cells(grid, *grid.to_grid_xy(fp.x, fp.y, fp.crs))
+    f = v.ravel()[flat[inside]]
+    f = f[np.isfinite(f)].astype(np.float64)
+    assert f.size == doc["n_features_used"] == 20
+    expected = sklearn_auc(v, row_areas_km2(grid)[:, None], f)
+    assert abs(doc["auc"] - expected) < 0.001
+    assert doc["auc"] > 0.5
