@@ -292,3 +292,17 @@ def test_the_demo_auc_equals_sklearn_within_0001(tmp_path):
     expected = sklearn_auc(v, row_areas_km2(grid)[:, None], f)
     assert abs(doc["auc"] - expected) < 0.001
     assert doc["auc"] > 0.5
+
+
+def test_the_report_shows_the_assessment(small_run, tmp_path, capsys):
+    from lidmelt.products.report import write_report
+
+    run, _ = small_run
+    rows = [("a", *centre(5, 5)), ("b", *centre(6, 20)), ("far", 40.0, 0.0)]
+    assert main(["assess", str(run), str(write_features(tmp_path / "f.csv", rows))]) == 0
+    doc = json.loads((run / "assess.json").read_text())
+    page = write_report(run, maps=[]).read_text(encoding="utf-8")
+    assert 'id="assess"' in page
+    assert f"AUC {doc['auc']:.3f}" in page
+    assert "far (outside grid)" in page
+    assert "Studentized" in page

@@ -208,3 +208,28 @@ def test_weighted_probability_of_packed_masks():
     got = weighted_probability(np.full((1, 2), 0.5, np.float32), masks, w)
     # identity: (0.5 + 0.2) / 1.0 and (0.2) / (0.5 + 0.2)
     np.testing.assert_allclose(got, [[0.7, 0.2 / 0.7]], rtol=1e-6)
+
+
+@pytest.mark.parametrize(
+    ("text", "expected"),
+    [
+        ("name,x_pos,y_pos\na,1,1\n", "no recognisable coordinate columns"),
+        ("name,longitude,latitude\n", "has a header but no rows"),
+        ("name,longitude,latitude\na,40,0\nb,41,1\n", "lie outside the run's grid"),
+    ],
+    ids=["no-coordinates", "header-only", "all-outside"],
+)
+def test_a_workflow_with_bad_known_features_writes_nothing(tmp_path, capsys, text, expected):
+    from lidmelt.cli import main
+
+    bad = tmp_path / "known.csv"
+    bad.write_text(text)
+    wf = workflow(tmp_path / "in", 3, bad)
+    out = tmp_path / "out"
+    assert main(["run", str(wf), "-o", str(out), "--quiet"]) == 1
+    err = capsys.readouterr().err
+    assert err.startswith("lidmelt run: error: ")  # before the run starts: no other line
+    assert str(bad) in err
+    assert expected in err
+    assert not out.exists()
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["in", "known.csv"]

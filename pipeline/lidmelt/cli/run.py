@@ -9,6 +9,7 @@ from lidmelt.cli._common import print_warnings
 from lidmelt.cluster import scheduler_address
 from lidmelt.engine import run_basin
 from lidmelt.ensemble import ensemble_stages
+from lidmelt.ensemble.scoring import locate
 from lidmelt.grids.rundir import RunDir
 from lidmelt.grids.transaction import RunLock, clean_leftovers
 from lidmelt.products.assess import ASSESS_NAME, assess, write_assessment
@@ -16,6 +17,7 @@ from lidmelt.products.maps import draw_run_maps, resolve_coastlines
 from lidmelt.products.maps.overview import draw_overview
 from lidmelt.products.report import write_report
 from lidmelt.products.screening import ensemble_candidates
+from lidmelt.run_inputs import resolve_target_grid
 from lidmelt.workflow import load_workflow
 
 __all__ = ["register"]
@@ -128,6 +130,8 @@ def run(args: argparse.Namespace) -> int:
     if args.clean:
         return _clean(cfg)
     scheduler_address(cfg)  # a malformed LIDMELT_SCHEDULER is refused before anything starts
+    if cfg.assess is not None:  # known features all outside the grid: refused before the run
+        locate(cfg.assess, resolve_target_grid(cfg))
     # refuses what will not fit, first; the candidates of the deterministic run get drivers
     stages = ensemble_stages(cfg, announce=not args.quiet, candidates=ensemble_candidates)
     products = _products(not args.no_maps and cfg.run.maps, cfg.run.report, cfg.run.output_dir, cfg)
