@@ -233,3 +233,26 @@ def test_a_workflow_with_bad_known_features_writes_nothing(tmp_path, capsys, tex
     assert expected in err
     assert not out.exists()
     assert sorted(p.name for p in tmp_path.iterdir()) == ["in", "known.csv"]
+
+
+def test_lidmelt_run_writes_the_assessment_naming_the_final_run(tmp_path, capsys):
+    """The run's own assessment is computed in the staged run, but its JSON names the folder
+    the run ends up in (no staging folder), and the ensemble's members are scored beside it."""
+    import json
+
+    from lidmelt.cli import main
+
+    known = tmp_path / "known.csv"
+    known.write_text("name,longitude,latitude\nnear,-20.0,2.0\naway,-10.0,-5.0\nout,40.0,0.0\n")
+    wf = workflow(tmp_path / "in", 3, known)
+    out = tmp_path / "out"
+    assert main(["run", str(wf), "-o", str(out), "--quiet"]) == 0
+    text = (out / "assess.json").read_text()
+    doc = json.loads(text)
+    assert doc["run"] == str(out.absolute())
+    assert "staging" not in text
+    assert f"lidmelt screen {out.absolute()} " in doc["candidates"]["note"]
+    assert doc["variable"] == "melt_probability_anomaly_ge_1km"  # an ensemble's default
+    assert (doc["n_features"], doc["n_features_used"], doc["n_outside_grid"]) == (3, 2, 1)
+    assert (out / "maps" / "success_rate.png").is_file()
+    assert len(pd.read_csv(out / "ensemble_members.csv")["auc"].dropna()) == 3

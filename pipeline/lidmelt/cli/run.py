@@ -74,8 +74,9 @@ def _assessment(cfg, staged: Path) -> list[Path]:
     if getattr(cfg, "assess", None) is None:
         return []
     seed = cfg.ensemble.seed if cfg.ensemble is not None else 0
-    doc = assess(staged, cfg.assess.features, crs=cfg.assess.crs, seed=seed)
-    doc["run"] = str(Path(cfg.run.output_dir).absolute())
+    shown = Path(cfg.run.output_dir).absolute()  # where the run will be, named in its notes
+    doc = assess(RunDir(staged, shown_as=shown), cfg.assess.features, crs=cfg.assess.crs,
+                 seed=seed)  # fmt: skip
     return list(write_assessment(doc, staged / ASSESS_NAME, run_dir=staged))
 
 

@@ -52,7 +52,7 @@ def default_variable(run: RunDir) -> str:
     if _BASES["anomaly"] in run.outputs:
         return _BASES["anomaly"]
     msg = (
-        f"run {str(run.path)!r} has no anomaly_melt_thickness_km, the variable scored by "
+        f"run {str(run.shown_path)!r} has no anomaly_melt_thickness_km, the variable scored by "
         f"default; its outputs are {', '.join(run.outputs)}. Choose one with --variable V, "
         "or run the workflow again with the default outputs."
     )
@@ -77,8 +77,8 @@ def default_thresholds(run: RunDir, variable: str, values: np.ndarray) -> tuple[
 def _check_variable(run: RunDir, variable: str) -> None:
     if variable not in run.outputs:
         msg = (
-            f"variable {variable!r} is not an output of run {str(run.path)!r}; its outputs are "
-            f"{', '.join(run.outputs)}. Give one of them with --variable."
+            f"variable {variable!r} is not an output of run {str(run.shown_path)!r}; its outputs "
+            f"are {', '.join(run.outputs)}. Give one of them with --variable."
         )
         raise InputError(msg)
 
@@ -99,8 +99,9 @@ def _read_bands(run: RunDir, variable: str, grid: Grid):
     with rasterio.open(run.file(variable)) as src:
         if (src.height, src.width) != (grid.height, grid.width):
             msg = (
-                f"{variable!r} in {str(run.path)!r} has shape {(src.height, src.width)}, but its "
-                f"summary.json gives a {grid.height} x {grid.width} grid: run 'lidmelt run' again."
+                f"{variable!r} in {str(run.shown_path)!r} has shape {(src.height, src.width)}, but "
+                f"its summary.json gives a {grid.height} x {grid.width} grid: run 'lidmelt run' "
+                "again."
             )
             raise RunDirError(msg)
         for row0 in range(0, grid.height, BAND_ROWS):
@@ -148,7 +149,7 @@ def _refuse_unplaced(fp: FeaturePoints, run: RunDir, inside: np.ndarray, used: n
     if not inside.any():
         msg = (
             f"all {len(fp)} features of {fp.source} lie outside the grid of run "
-            f"{str(run.path)!r} (bounds {bounds} in the grid's CRS; e.g. {fp.names[0]} at "
+            f"{str(run.shown_path)!r} (bounds {bounds} in the grid's CRS; e.g. {fp.names[0]} at "
             f"longitude {fp.lon[0]:.6g}, latitude {fp.lat[0]:.6g}). Give the features of this "
             "basin, or check the file's CRS and its longitude/latitude columns."
         )
@@ -156,7 +157,7 @@ def _refuse_unplaced(fp: FeaturePoints, run: RunDir, inside: np.ndarray, used: n
     if not used.any():
         msg = (
             f"none of the {int(inside.sum())} features of {fp.source} inside the grid of run "
-            f"{str(run.path)!r} lies on a cell with data (all on nodata, e.g. land or beyond "
+            f"{str(run.shown_path)!r} lies on a cell with data (all on nodata, e.g. land or beyond "
             "the margin), so nothing can be scored. Give features on the run's ocean cells."
         )
         raise InputError(msg)
@@ -236,7 +237,7 @@ def assess(
     regions = candidate_features(run, fp, inside, candidates)
     n_used = int(used.sum())
     return {
-        "lidmelt_assess": 1, "run": str(run.path), "variable": variable,
+        "lidmelt_assess": 1, "run": str(run.shown_path), "variable": variable,
         "units": smp.units_of(run, [variable])[variable], "features_file": fp.source,
         "n_features": len(fp), "n_features_used": n_used,
         "n_outside_grid": int((status == "outside_grid").sum()),

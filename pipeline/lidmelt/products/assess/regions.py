@@ -56,7 +56,7 @@ def candidate_features(
     path = _candidate_file(run, given)
     if path is None:
         note = (
-            f"no candidate regions: run 'lidmelt screen {run.path} --min-melt-thickness KM' "
+            f"no candidate regions: run 'lidmelt screen {run.shown_path} --min-melt-thickness KM' "
             "(it writes RUN_DIR/candidates.gpkg), or give --candidates FILE"
         )
         return CandidateFeatures({"file": None, "note": note}, [None] * len(fp))
