@@ -306,3 +306,24 @@ def test_the_report_shows_the_assessment(small_run, tmp_path, capsys):
     assert f"AUC {doc['auc']:.3f}" in page
     assert "far (outside grid)" in page
     assert "Studentized" in page
+
+
+def test_a_float32_cell_at_the_threshold_is_captured_like_its_area(make_run_dir, tmp_path):
+    """The grid holds float32: a cell of float32(1.3) lies in B = {V >= 1.3} (its area is in B's
+    share), so a feature on it is captured too, though float64(float32(1.3)) < 1.3 (identity
+    of float32 rounding; the same holds for a probability of 45/50 against 0.9)."""
+    v = field(shape=(20, 40), seed=3)
+    v[np.isclose(v, 1.3, atol=1e-3)] = 0.0  # no other cell near the threshold
+    v[5, 5] = v[6, 20] = np.float32(1.3)
+    assert float(np.float32(1.3)) < 1.3
+    run = make_run_dir({"anomaly_melt_thickness_km": v}, transform=TRANSFORM)
+    rows = [("on", *centre(5, 5)), ("low", *centre(4, 1))]
+    doc = assess(run, write_features(tmp_path / "f.csv", rows), thresholds=[1.3])
+    (t,) = doc["thresholds"]
+    assert t["captured"] == 1 + int(v[4, 1] >= np.float32(1.3))
+    from lidmelt.grids.area import row_areas_km2
+    from lidmelt.products.sampling import as_run, run_grid
+
+    area = np.broadcast_to(row_areas_km2(run_grid(as_run(run)))[:, None], v.shape)
+    in_b = area[np.isfinite(v) & (v >= np.float32(1.3))].sum() / area[np.isfinite(v)].sum()
+    assert t["area_fraction"] == pytest.approx(float(in_b), rel=1e-12)

@@ -134,7 +134,7 @@ def _background(blocks, grid: Grid, features: np.ndarray, thresholds: list[float
         finite = np.isfinite(block)
         cells += int(finite.sum())
         for k, t in enumerate(thresholds):
-            above[k] += float(np.broadcast_to(area, block.shape)[block >= t].sum())
+            above[k] += float(np.broadcast_to(area, block.shape)[block >= np.float32(t)].sum())
     return ranks, cells, above
 
 
@@ -233,7 +233,9 @@ def assess(
     auc_b = counts @ scores.scores.astype(np.float32) / used.sum()
     score_all = np.full(len(fp), np.nan)
     score_all[used] = scores.scores
-    captured = [int((values[used] >= t).sum()) for t in thresholds]
+    # in float32 like the grid's cells (_background): a probability of 45/50 stored as
+    # float32(0.9) is at or above a threshold of 0.9, though float64(float32(0.9)) < 0.9
+    captured = [int((values[used].astype(np.float32) >= np.float32(t)).sum()) for t in thresholds]
     regions = candidate_features(run, fp, inside, candidates)
     n_used = int(used.sum())
     return {
