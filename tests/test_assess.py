@@ -113,6 +113,18 @@ def test_random_features_give_an_interval_holding_one_half():
     assert held >= 180, held
 
 
+def test_expanded_levels_follow_hesterberg_by_hand():
+    """Hesterberg (2015): a' = Phi(sqrt(n/(n-1)) t_(a, n-1)). By hand for n = 10, 90 %:
+    t_(0.05, 9) = -1.833 (Student t table), x sqrt(10/9) = -1.9322, Phi(-1.9322) = 0.02666
+    (normal table: Phi(1.93) = 0.9732, Phi(1.94) = 0.9738); wider than the plain 5 %."""
+    from lidmelt.ensemble.score import expanded_levels
+
+    lo, hi = expanded_levels(10)
+    assert lo == pytest.approx(2.666, abs=0.01)
+    assert hi == pytest.approx(100 - 2.666, abs=0.01)
+    assert expanded_levels(1) == pytest.approx((5.0, 95.0))  # n < 2: the plain levels
+
+
 def test_features_at_the_highest_cells_score_above_095():
     v = field(seed=8)
     top = np.argsort(np.nan_to_num(v, nan=-1.0).ravel())[-30:]
@@ -327,3 +339,31 @@ def test_a_float32_cell_at_the_threshold_is_captured_like_its_area(make_run_dir,
     area = np.broadcast_to(row_areas_km2(run_grid(as_run(run)))[:, None], v.shape)
     in_b = area[np.isfinite(v) & (v >= np.float32(1.3))].sum() / area[np.isfinite(v)].sum()
     assert t["area_fraction"] == pytest.approx(float(in_b), rel=1e-12)
+
+
+def test_polygons_in_another_crs_count_once_by_a_point_inside_them(small_run, tmp_path):
+    """A U-shaped outline (its centroid lies in the notch, outside it) and a square, written in
+    Web Mercator: each is one feature, placed at a point inside its own outline (checked with
+    shapely in the file's CRS), and takes the value of the cell that holds that point."""
+    import geopandas as gpd
+    import shapely
+    from pyproj import Transformer
+
+    run, v = small_run
+    u = shapely.Polygon([(-8, -3), (-5, -3), (-5, 0), (-6, 0), (-6, -2), (-7, -2), (-7, 0),
+                         (-8, 0)])  # fmt: skip
+    square = shapely.box(-2.9, 1.1, -2.1, 1.9)
+    assert not u.contains(u.centroid)
+    gdf = gpd.GeoDataFrame({"name": ["u", "square"]}, geometry=[u, square], crs="EPSG:4326")
+    merc = gdf.to_crs("EPSG:3857")
+    merc.to_file(tmp_path / "outlines.gpkg")
+    doc = assess(run, tmp_path / "outlines.gpkg")
+    assert doc["n_features_used"] == 2
+    to_merc = Transformer.from_crs("EPSG:4326", "EPSG:3857", always_xy=True)
+    for feature, outline in zip(doc["features"], merc.geometry, strict=True):
+        assert feature["kind"] == "polygon"
+        x, y = to_merc.transform(feature["longitude"], feature["latitude"])
+        assert outline.contains(shapely.Point(x, y)), feature["name"]
+        col = int((feature["longitude"] + 10.0) // 0.5)
+        row = int((5.0 - feature["latitude"]) // 0.5)
+        assert feature["value"] == pytest.approx(float(v[row, col]), abs=0.0)

@@ -185,6 +185,8 @@ def test_glue_weights_and_weighted_statistics():
     np.testing.assert_allclose(w, [0, 0, 1 / 3, 2 / 3, 0])
     assert effective_members(np.full(10, 0.1)) == pytest.approx(10.0)
     assert glue_weights(np.array([0.3, 0.5]), 0.5, 1.0).sum() == 0.0
+    # shape N = 2 by hand: L = (0.25/0.5)^2 = 0.25 and (0.5/0.5)^2 = 1, so w = 0.2 and 0.8
+    np.testing.assert_allclose(glue_weights(np.array([0.75, 1.0]), 0.5, 2.0), [0.2, 0.8])
     # equal weights: mid-point interpolation is Hyndman & Fan definition 5 ((k - 1/2)/n)
     values = np.array([4.0, 1.0, 3.0, 2.0])
     assert weighted_quantiles(values, np.ones(4), [50.0, 12.5, 87.5]) == [2.5, 1.0, 4.0]
