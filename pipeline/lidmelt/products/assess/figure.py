@@ -109,9 +109,22 @@ def posterior_figure(
             _choice_panel(ax, entry)
         else:
             _numeric_panel(ax, entry, np.asarray(samples[entry["key"]], float), weights)
-        ax.set_title("\n".join(textwrap.wrap(entry["key"], 48)), fontsize="small")
+        ax.set_title(_key_title(entry["key"]), fontsize="small")
         ax.tick_params(labelsize="small")
     for ax in axes[len(entries) :]:
         ax.set_visible(False)
-    axes[0].legend(fontsize="x-small", loc="best")
+    # above the panels, not on one: a legend inside a panel hides its tallest bars
+    handles, labels = axes[0].get_legend_handles_labels()
+    fig.legend(handles, labels, loc="outside upper center", ncols=2, fontsize="small")
     return fig
+
+
+def _key_title(key: str, width: int = 40) -> str:
+    """A workflow key on lines of at most about ``width`` characters, broken after its dots
+    (a dotted key has no spaces for textwrap to break at)."""
+    lines = [""]
+    for part in key.replace(".", ".\0").split("\0"):
+        if lines[-1] and len(lines[-1]) + len(part) > width:
+            lines.append("")
+        lines[-1] += part
+    return "\n".join(lines)
