@@ -9,6 +9,7 @@ It writes, next to itself:
 * ``plate_age_ma.tif``          plate age (Ma), float32 GeoTIFF, EPSG:4326, 0.1 degree, nodata NaN
 * ``background_anomaly_k.nc``   a broad, weak thermal anomaly (K), CF-1.8 NetCDF, 0.25 degree
 * ``stations.csv``, ``track.csv``, ``boxes.geojson``   invented cruise stations, track, boxes
+* ``known_seamounts.csv``       invented "known" seamounts, to score the demo maps against
 
 and prints the plume centres of the invented hotspot chain with the seafloor age beneath each
 (those centres are listed in README.md; they are not a grid). The script is deterministic
@@ -255,6 +256,41 @@ def write_boxes(path: Path) -> None:
     tmp.replace(path)
 
 
+#: Seed of the invented known seamounts (their own, so the grids above do not change).
+SEAMOUNT_SEED = 20260222
+#: Invented seamounts per plume (near its centre, within about one radius) and elsewhere.
+SEAMOUNTS_NEAR = {"Ardent": 5, "Brisa": 4, "Corvel": 3, "Dunmar": 2}
+SEAMOUNTS_ELSEWHERE = 6
+
+
+def known_seamounts(age: np.ndarray) -> list[tuple]:
+    """INVENTED known seamounts: some near the plumes (a Gaussian scatter of 0.6 radius about
+    each centre), some scattered over the rest of the ocean (more than 3 radii from every
+    plume), one on the nodata margin and one west of the grid (to show that such features are
+    counted and named, not dropped)."""
+    rng = np.random.default_rng(SEAMOUNT_SEED)
+    rows = []
+    for p in PLUMES:
+        for _ in range(SEAMOUNTS_NEAR[p["name"]]):
+            sd = 0.6 * p["radius_km"] / KM_PER_DEGREE
+            lon = p["longitude"] + rng.normal(0.0, sd) / math.cos(math.radians(p["latitude"]))
+            rows.append((lon, p["latitude"] + rng.normal(0.0, sd), f"near {p['name']}"))
+    while len(rows) < sum(SEAMOUNTS_NEAR.values()) + SEAMOUNTS_ELSEWHERE:
+        lon, lat = rng.uniform(WEST + 1, EAST - 1), rng.uniform(SOUTH + 1, NORTH - 1)
+        far = all(
+            great_circle_km(lon, lat, p["longitude"], p["latitude"]) > 3 * p["radius_km"]
+            for p in PLUMES
+        )
+        if far and np.isfinite(sample(age, lon, lat)):
+            rows.append((lon, lat, "away from the plumes"))
+    rows += [(-11.2, -5.0, "on the nodata margin"), (-52.5, -2.0, "west of the grid")]
+    return [
+        (f"KS{k + 1:02d}", f"Veyra seamount {k + 1}", round(float(lon), 3), round(float(lat), 3),
+         setting)
+        for k, (lon, lat, setting) in enumerate(rows)
+    ]  # fmt: skip
+
+
 def sample(age: np.ndarray, lon: float, lat: float) -> float:
     """Age of the cell containing (lon, lat); NaN outside the grid."""
     col = math.floor((lon - WEST) / RES)
@@ -262,6 +298,12 @@ def sample(age: np.ndarray, lon: float, lat: float) -> float:
     if 0 <= row < age.shape[0] and 0 <= col < age.shape[1]:
         return float(age[row, col])
     return math.nan
+
+
+def write_seamounts(age: np.ndarray) -> None:
+    """Write ``known_seamounts.csv`` (INVENTED; see :func:`known_seamounts`)."""
+    header = ["id", "name", "longitude", "latitude", "setting"]
+    write_csv(HERE / "known_seamounts.csv", header, known_seamounts(age))
 
 
 def main() -> None:
@@ -275,6 +317,7 @@ def main() -> None:
     write_csv(HERE / "stations.csv", ["id", "name", "longitude", "latitude"], STATIONS)
     write_csv(HERE / "track.csv", ["longitude", "latitude"], TRACK)
     write_boxes(HERE / "boxes.geojson")
+    write_seamounts(age)
 
     print(
         f"plate_age_ma.tif: {age.shape[1]} x {age.shape[0]} cells of {RES} deg, "

@@ -33,6 +33,7 @@ def _table_cache(tmp_path_factory):
 
 UNITS = {
     "melt_thickness_km": "km",
+    "anomaly_melt_thickness_km": "km",
     "onset_depth_km": "km",
     "onset_pressure_gpa": "GPa",
     "lid_depth_km": "km",

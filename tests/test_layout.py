@@ -15,7 +15,7 @@ import pytest
 
 PACKAGE = Path(__file__).resolve().parents[1] / "pipeline" / "lidmelt"
 #: Modules every layer may import: errors, the variable registry, the atomic write, the config.
-BASE = ["__init__", "errors", "variables", "files", "config"]
+BASE = ["__init__", "errors", "variables", "files", "config", "config_tables"]
 #: The layers from the bottom up; a module may import its own layer and those below it.
 LAYERS = [
     {"physics"},

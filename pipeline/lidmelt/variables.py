@@ -45,6 +45,7 @@ __all__ = [
     "percentile_name",
     "probability_long_name",
     "probability_name",
+    "weighted_probability_name",
 ]
 
 
@@ -399,7 +400,8 @@ DEFAULT_PROBABILITY_BASIS = "anomaly"
 DEFAULT_PROBABILITY_THRESHOLD_KM = 1.0
 _BASIS_TEXT = {"anomaly": "the melt the thermal anomaly adds", "total": "the melt thickness"}
 _PROBABILITY = re.compile(
-    r"^melt_probability_(?P<basis>[a-z]+)_ge_(?P<t>[0-9]+(?:\.[0-9]+)?(?:e[-+]?[0-9]+)?)km$"
+    r"^melt_probability_(?P<basis>[a-z]+)_ge_(?P<t>[0-9]+(?:\.[0-9]+)?(?:e[-+]?[0-9]+)?)km"
+    r"(?P<weighted>_weighted)?$"
 )
 _LEGACY_PROBABILITY = re.compile(r"^melt_probability(?:_ge_[0-9.e+-]+km)?$")
 
@@ -409,8 +411,9 @@ class EnsembleName:
     """What the name of an ensemble output says.
 
     ``kind``: ``"probability"`` (``basis`` of :data:`PROBABILITY_BASES`, ``base`` its variable,
-    ``threshold_km``), ``"percentile"`` (``base`` the output, ``percentile`` 0-100) or
-    ``"count"`` (:data:`MEMBERS_WITHOUT_VALUE`).
+    ``threshold_km``), ``"weighted_probability"`` (the same, its members weighted by their
+    agreement with known features: :func:`weighted_probability_name`), ``"percentile"``
+    (``base`` the output, ``percentile`` 0-100) or ``"count"`` (:data:`MEMBERS_WITHOUT_VALUE`).
     """
 
     kind: str
@@ -424,6 +427,13 @@ def probability_name(basis: str, threshold_km: float) -> str:
     """``melt_probability_<basis>_ge_<T>km`` (T as ``%g``): the probability that a member's melt
     of ``basis`` reaches ``threshold_km`` km, e.g. ``melt_probability_anomaly_ge_1km``."""
     return f"melt_probability_{basis}_ge_{float(threshold_km):g}km"
+
+
+def weighted_probability_name(basis: str, threshold_km: float) -> str:
+    """``melt_probability_<basis>_ge_<T>km_weighted``: the probability of
+    :func:`probability_name` with each member weighted by its score against known features
+    (``[assess]``; :mod:`lidmelt.ensemble.posterior`)."""
+    return probability_name(basis, threshold_km) + "_weighted"
 
 
 def percentile_name(base: str, q: float) -> str:
@@ -440,7 +450,8 @@ def parse_ensemble_name(name: str) -> EnsembleName | None:
     if match and match["basis"] in PROBABILITY_BASES:
         basis = match["basis"]
         base = PROBABILITY_BASES[basis]
-        return EnsembleName("probability", base=base, basis=basis, threshold_km=float(match["t"]))
+        kind = "weighted_probability" if match["weighted"] else "probability"
+        return EnsembleName(kind, base=base, basis=basis, threshold_km=float(match["t"]))
     base, sep, q = name.rpartition("_p")
     if sep and base in OUTPUTS and q.replace(".", "", 1).isdigit() and float(q) <= 100.0:
         return EnsembleName("percentile", base=base, percentile=float(q))
@@ -504,8 +515,10 @@ def ensemble_variable(name: str) -> Variable | None:
         return None
     if parsed.kind == "count":
         return MEMBERS_WITHOUT_VALUE
-    if parsed.kind == "probability":
+    if parsed.kind in ("probability", "weighted_probability"):
         long_name = probability_long_name(parsed.basis, parsed.threshold_km)
+        if parsed.kind == "weighted_probability":
+            long_name += ", members weighted by their score against the known features"
         return replace(MELT_PROBABILITY, name=name, long_name=long_name)
     var = OUTPUTS[parsed.base]
     plain = var.long_name.split(" (")[0]

@@ -20,6 +20,7 @@ import traceback
 from lidmelt import __version__
 from lidmelt.cli import (
     ages,
+    assess,
     cache,
     column,
     map,
@@ -37,7 +38,7 @@ from lidmelt.physics import compiled_cache_note
 __all__ = ["COMMANDS", "build_parser", "main"]
 
 #: The command modules, in the order ``lidmelt --help`` lists them.
-COMMANDS = (column, run, sample, profile, regions, screen, ages, map, report, cache)
+COMMANDS = (column, run, sample, profile, regions, screen, ages, assess, map, report, cache)
 
 
 def build_parser() -> argparse.ArgumentParser:

@@ -9,13 +9,16 @@ from lidmelt.cli._common import print_warnings
 from lidmelt.cluster import scheduler_address
 from lidmelt.engine import run_basin
 from lidmelt.ensemble import ensemble_stages
+from lidmelt.ensemble.scoring import locate
 from lidmelt.grids.rundir import RunDir
 from lidmelt.grids.transaction import RunLock, clean_leftovers
 from lidmelt.motion import motion_stages
+from lidmelt.products.assess import ASSESS_NAME, assess, write_assessment
 from lidmelt.products.maps import draw_run_maps, resolve_coastlines
 from lidmelt.products.maps.overview import draw_overview
 from lidmelt.products.report import write_report
 from lidmelt.products.screening import ensemble_candidates
+from lidmelt.run_inputs import resolve_target_grid
 from lidmelt.workflow import load_workflow
 
 __all__ = ["register"]
@@ -66,17 +69,33 @@ def register(subparsers: argparse._SubParsersAction) -> None:
     p.set_defaults(func=run)
 
 
-def _products(draw_maps: bool, report: bool, dest: Path):
-    """The figures drawn into the staged run (swapped into place with it), or None."""
+def _assessment(cfg, staged: Path) -> list[Path]:
+    """With ``[assess]``: the run scored against its known features (``assess.json`` and
+    ``maps/success_rate.png`` in the staged run, outside its manifest like the maps)."""
+    if getattr(cfg, "assess", None) is None:
+        return []
+    seed = cfg.ensemble.seed if cfg.ensemble is not None else 0
+    shown = Path(cfg.run.output_dir).absolute()  # where the run will be, named in its notes
+    doc = assess(RunDir(staged, shown_as=shown), cfg.assess.features, crs=cfg.assess.crs,
+                 seed=seed)  # fmt: skip
+    return list(write_assessment(doc, staged / ASSESS_NAME, run_dir=staged))
+
+
+def _products(draw_maps: bool, report: bool, dest: Path, cfg=None):
+    """The assessment and figures drawn into the staged run (swapped into place with it), or
+    None when there are none."""
     if not draw_maps:
-        return None
+        if getattr(cfg, "assess", None) is None:
+            return None
+        return lambda staged: _assessment(cfg, staged)
 
     def draw(staged: Path) -> list[Path]:
+        scored = _assessment(cfg, staged)
         run_dir = RunDir(staged, shown_as=dest.absolute())
         coast = resolve_coastlines(None) or False  # looked up (and its absence noted) once
         maps = list(draw_run_maps(run_dir, coastlines=coast))
         overview = draw_overview(run_dir, coastlines=False, formats=("png", "pdf"))
-        drawn = [*maps, *overview]
+        drawn = [*scored, *maps, *overview]
         # the report 'lidmelt report RUN_DIR' writes: it reuses the maps just drawn (the
         # overview too) and draws the input maps, naming files relative to the run directory
         return [*drawn, write_report(run_dir, coastlines=coast)] if report else drawn
@@ -113,10 +132,12 @@ def run(args: argparse.Namespace) -> int:
     if args.clean:
         return _clean(cfg)
     scheduler_address(cfg)  # a malformed LIDMELT_SCHEDULER is refused before anything starts
+    if cfg.assess is not None:  # known features all outside the grid: refused before the run
+        locate(cfg.assess, resolve_target_grid(cfg))
     # refuses what will not fit, first; the candidates of the deterministic run get drivers
     stages = ensemble_stages(cfg, announce=not args.quiet, candidates=ensemble_candidates)
     stages += motion_stages(cfg)  # the history through time and the hotspot tracks
-    products = _products(not args.no_maps and cfg.run.maps, cfg.run.report, cfg.run.output_dir)
+    products = _products(not args.no_maps and cfg.run.maps, cfg.run.report, cfg.run.output_dir, cfg)
     with print_warnings("run"):
         result = run_basin(
             cfg,

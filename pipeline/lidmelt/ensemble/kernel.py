@@ -31,6 +31,13 @@ Definitions (lidmelt's own; docs/workflow.md, [ensemble]):
 - per candidate, from the first probability map: the sums of area x probability, of the area
   with a probability and of the area with probability >= :data:`LIKELY` (exact like the totals),
   and the largest probability.
+- with known features (``[assess]``, :mod:`lidmelt.ensemble.posterior`): per member the basis
+  melt at each feature's cell (``feature_values``: NaN where it has no value; each feature lies
+  in one chunk, so the chunks' arrays add up) and the area of its cells with a value in the bins
+  of :func:`lidmelt.ensemble.score.bin_keys` (``score_bins``: flat indices member x NBINS + bin
+  and their area quanta, only the bins that hold area; combined into one dense histogram), and
+  the members' melting indicators of the first threshold where they differ (``masks``:
+  :func:`lidmelt.ensemble.posterior.pack_masks`; not combined: the stage keeps them on disk).
 """
 
 from __future__ import annotations
@@ -41,6 +48,8 @@ from typing import Any
 import numpy as np
 
 from lidmelt.engine import KernelSettings, evaluate_chunk
+from lidmelt.ensemble.posterior import pack_masks
+from lidmelt.ensemble.score import NBINS, bin_keys
 from lidmelt.physics import EXTRACTION_MIN_MELT_FRACTION, FLAG_INVALID_INPUT, FLAG_NO_ONSET
 from lidmelt.variables import (
     FLAG_NODATA,
@@ -56,6 +65,7 @@ __all__ = [
     "LIKELY",
     "MAXIMA",
     "QUANTUM",
+    "SPARSE",
     "TOTALS",
     "MemberPlan",
     "combine_sums",
@@ -75,6 +85,8 @@ QUANTUM = 2.0**-20
 LIKELY = 0.5
 #: Sums of :func:`reduce_chunk` combined by their largest value, not added.
 MAXIMA = ("candidate_max_probability",)
+#: Sums given as (flat indices, values) pairs, added into a dense array of the combined sums.
+SPARSE = ("score_bins",)
 _INDEX = {name: list(OUTPUTS).index(name) for name in OUTPUTS}
 
 
@@ -101,6 +113,7 @@ class MemberPlan:
     percentiles: tuple[float, ...]
     candidates: int = 0
     basis: str = "anomaly"
+    features: int = 0  # known features to score each member against ([assess])
 
 
 def member_percentiles(stack: np.ndarray, percentiles) -> np.ndarray:
@@ -151,10 +164,16 @@ def _candidate_cells(labels, candidates: int) -> list[np.ndarray]:
     return [np.flatnonzero(flat == k) for k in range(1, candidates + 1)]
 
 
-def empty_sums(members: int, candidates: int) -> dict[str, np.ndarray]:
-    """Zeroed sums of one chunk (module notes)."""
+def empty_sums(members: int, candidates: int, features: int = 0) -> dict[str, np.ndarray]:
+    """Zeroed sums of one chunk (module notes); with ``features``, the features' values and
+    the members' dense score histograms (the combined sums' form of ``score_bins``)."""
     zeros = np.zeros
+    scored = {}
+    if features:
+        scored = {"feature_values": zeros((members, features)),
+                  "score_bins": zeros(members * NBINS, np.int64)}  # fmt: skip
     return {
+        **scored,
         "totals": zeros((len(TOTALS), members), np.int64),
         "cells_without_value": zeros(members, np.int64),
         "cells_no_onset": zeros(members, np.int64),
@@ -173,7 +192,9 @@ def combine_sums(total: dict[str, np.ndarray], part: dict[str, np.ndarray]) -> N
     for key, value in part.items():
         if key in MAXIMA:
             np.maximum(total[key], value, out=total[key])
-        else:
+        elif key in SPARSE:
+            np.add.at(total[key], value[0], value[1])
+        elif key != "masks":
             total[key] += value
 
 
@@ -219,14 +240,45 @@ def _candidate_probability(sums, probability: np.ndarray, area: np.ndarray, cell
             sums["candidate_max_probability"][k] = int(np.rint(pc[ok].max() / QUANTUM))
 
 
+def _score_bins(basis: np.ndarray, area_quanta: np.ndarray, m: int) -> tuple[np.ndarray, ...]:
+    """Member ``m``'s area quanta per bin of its basis melt (cells with a value), as flat
+    indices m x NBINS + bin and sums of the bins that hold area. Zero cells (most of an ocean)
+    go to bin 0 by one sum; only the cells with melt are binned one by one."""
+    finite = np.isfinite(basis)
+    positive = basis > 0
+    zero = int(area_quanta[finite & ~positive].sum())
+    # integer quanta summed in float64 are exact below 2^53 (a chunk's area is far below)
+    counts = np.bincount(bin_keys(basis[positive]), weights=area_quanta[positive],
+                         minlength=NBINS)  # fmt: skip
+    counts[0] += zero
+    bins = np.flatnonzero(counts)
+    return m * NBINS + bins, np.rint(counts[bins]).astype(np.int64)
+
+
+def _feature_values(sums, m: int, basis: np.ndarray, features) -> None:
+    """Member ``m``'s basis melt at the chunk's feature cells (``features``: ids and local
+    flat indices)."""
+    if features is not None and len(features[0]):
+        sums["feature_values"][m, features[0]] = basis.ravel()[features[1]]
+
+
+def _masks(indicators: np.ndarray, valued: np.ndarray, has_data: np.ndarray) -> dict:
+    """The members' indicators where they differ or some member has no value (module notes)."""
+    members = indicators.shape[0]
+    count = indicators.sum(axis=0)
+    agree = (valued.sum(axis=0) == members) & ((count == 0) | (count == members))
+    return pack_masks(indicators, valued, (has_data & ~agree).ravel())
+
+
 def reduce_chunk(
-    plan: MemberPlan, area: np.ndarray, group_blocks, labels=None
+    plan: MemberPlan, area: np.ndarray, group_blocks, labels=None, features=None
 ) -> tuple[np.ndarray, dict[str, np.ndarray]]:
     """Evaluate every member on one chunk and reduce them (module notes).
 
     Returns the reduced layers ((n_layers, y, x) float32, in :func:`layer_names` order) and the
     chunk's sums (int64 multiples of :data:`QUANTUM` or counts, by name; combine the chunks'
-    with :func:`combine_sums`).
+    with :func:`combine_sums`). ``features`` (with ``plan.features``): the ids of the known
+    features in this chunk and their flat indices in it.
     """
     area = np.asarray(area, np.float64)
     shape = area.shape
@@ -243,6 +295,10 @@ def reduce_chunk(
     without_value = np.zeros(shape, np.int64)
     has_data = np.zeros(shape, bool)
     area_quanta = _quanta(area)
+    scoring = plan.features > 0
+    if scoring:
+        sums["feature_values"] = np.zeros((members, plan.features))
+        bins, indicators = [], np.zeros((2, members, *shape), bool)
     checked: set[int] = set()  # input groups whose blocks were range-checked in this chunk
     for m, (settings, group) in enumerate(zip(plan.settings, plan.groups, strict=True)):
         out = evaluate_chunk(*values[group], settings=settings, check_inputs=group not in checked)
@@ -252,14 +308,24 @@ def reduce_chunk(
         without_value += _member_sums(sums, m, out, (area, area_quanta), cells)
         has_data |= out[-1] != FLAG_NODATA
         basis = out[basis_row]
-        with_value += np.isfinite(basis)
+        valued = np.isfinite(basis)
+        with_value += valued
         extracted = out[_INDEX["max_melt_fraction"]] >= f_min
         for t, threshold in enumerate(thresholds):
-            melting[t] += extracted & (basis >= threshold)
+            melts = extracted & (basis >= threshold)
+            melting[t] += melts
+            if scoring and t == 0:
+                indicators[0, m], indicators[1, m] = melts, valued
+        if scoring:
+            bins.append(_score_bins(basis, area_quanta, m))
+            _feature_values(sums, m, basis, features)
     with np.errstate(invalid="ignore", divide="ignore"):
         probability = np.where(with_value > 0, melting / with_value, np.nan).astype(np.float32)
     if cells:
         _candidate_probability(sums, probability[0], area, cells)
+    if scoring:
+        sums["score_bins"] = tuple(np.concatenate(parts) for parts in zip(*bins, strict=True))
+        sums["masks"] = _masks(indicators[0], indicators[1], has_data)
     pcts = [member_percentiles(stacks[b], plan.percentiles) for b in range(len(BASES))]
     lacking = np.where(has_data, without_value / members, np.nan).astype(np.float32)[None]
     return np.concatenate([probability, *pcts, lacking]), sums

@@ -14,6 +14,7 @@ from __future__ import annotations
 
 import functools
 import sys
+import tempfile
 import time
 import uuid
 import warnings
@@ -44,6 +45,15 @@ from lidmelt.ensemble.kernel import (
     reduce_chunk,
 )
 from lidmelt.ensemble.missing import missing_summary, missing_warning
+from lidmelt.ensemble.posterior import glue_weights
+from lidmelt.ensemble.scoring import (
+    assessment_entry,
+    feature_blocks,
+    locate,
+    masks_size,
+    member_scores,
+    write_weighted,
+)
 from lidmelt.errors import WorkflowError
 from lidmelt.files import write_text_atomic
 from lidmelt.grids import rundir
@@ -51,11 +61,12 @@ from lidmelt.grids.area import cell_area_km2
 from lidmelt.grids.store import GeoTiffItem, GeoTiffSet
 from lidmelt.physics import EXTRACTION_MIN_MELT_FRACTION
 from lidmelt.run_inputs import lid_cooling_model, load_inputs, load_model
-from lidmelt.variables import ensemble_variable
+from lidmelt.variables import PROBABILITY_BASES, ensemble_variable, weighted_probability_name
 
 __all__ = [
     "MEMBERS_FILE",
     "SCHEDULER_ENV",
+    "SCORE_COLUMNS",
     "check_memory",
     "ensemble_stages",
     "estimate_memory_bytes",
@@ -64,6 +75,8 @@ __all__ = [
 
 #: The members' sampled values and basin totals, in the run directory.
 MEMBERS_FILE = "ensemble_members.csv"
+#: Its columns of each member's score against the known features ([assess]).
+SCORE_COLUMNS = ("auc", "auc_bound", "features_scored", "weight")
 #: Bytes per cell of one member's kernel evaluation in flight (float64 temporaries of the
 #: column evaluation and the stacked outputs; measured with bench_ensemble.py, rounded up).
 _KERNEL_BYTES_PER_CELL = 400
@@ -73,15 +86,17 @@ _INPUT_BYTES_PER_CELL = 5 * 8
 
 def estimate_memory_bytes(cfg, *, groups: int | None = None) -> int:
     """Peak memory of the ensemble: per worker, one chunk of every member's kept outputs (three
-    float32 layers and their sorted copy), the input blocks of every input group, one member's
-    kernel temporaries and the reduced layers."""
+    float32 layers and their sorted copy; with known features two bool indicators too), the
+    input blocks of every input group, one member's kernel temporaries and the reduced
+    layers."""
     ens = cfg.ensemble
     side = int(cfg.compute.chunk_size)
     cells = side * side
     groups = groups if groups is not None else len({c.inputs for c in ens.configs}) or 1
     layers = len(layer_names(ens.probability_basis, ens.thresholds_km, ens.percentiles))
+    scoring = 2 if getattr(cfg, "assess", None) is not None else 0  # members' indicators
     per_cell = (
-        ens.members * 3 * 4 * 2
+        ens.members * (3 * 4 * 2 + scoring)
         + groups * _INPUT_BYTES_PER_CELL
         + _KERNEL_BYTES_PER_CELL
         + layers * 4 * 2
@@ -135,7 +150,9 @@ def _table_key(cfg) -> tuple:
     return (cfg.model.name, cfg.model.parameters)
 
 
-def _plan(context: StageContext, candidates: int = 0) -> tuple[MemberPlan, list[list], int]:
+def _plan(
+    context: StageContext, candidates: int = 0, features: int = 0
+) -> tuple[MemberPlan, list[list], int]:
     """The members' plan, each input group's kernel arguments, and the tables built."""
     cfg = context.cfg
     ens = cfg.ensemble
@@ -168,7 +185,7 @@ def _plan(context: StageContext, candidates: int = 0) -> tuple[MemberPlan, list[
     used = {_table_key(m) for m in ens.configs}
     tables = len(used) if cfg.compute.method == "table" else 0
     plan = MemberPlan(tuple(settings), tuple(member_groups), scalars, ens.thresholds_km,
-                      ens.percentiles, candidates, ens.probability_basis)  # fmt: skip
+                      ens.percentiles, candidates, ens.probability_basis, features)  # fmt: skip
     return plan, [[a for a in arg if hasattr(a, "dask")] for arg in args], tables
 
 
@@ -184,10 +201,12 @@ def _label_blocks(labels: np.ndarray | None, chunks: tuple) -> list[list]:
 
 
 def _compute_rows(
-    context: StageContext, plan: MemberPlan, group_arrays, write, labels=None
+    context: StageContext, plan: MemberPlan, group_arrays, write, labels=None, scoring=None
 ) -> dict[str, np.ndarray]:
     """Reduce every chunk, one row of chunks at a time; ``write(row0, layers)`` each row;
-    return the chunks' sums combined (:func:`lidmelt.ensemble.kernel.combine_sums`)."""
+    return the chunks' sums combined (:func:`lidmelt.ensemble.kernel.combine_sums`). With
+    ``scoring`` (the known features' cells and a folder), each chunk's member masks are saved
+    there and listed in the sums' ``"masks"`` by (row, column) of chunks."""
     import dask
 
     cfg = context.cfg
@@ -196,6 +215,9 @@ def _compute_rows(
     template = context.target.template(chunks).data
     area = area.rechunk(template.chunks)
     label_blocks = _label_blocks(labels, area.chunks)
+    cells, folder = scoring if scoring is not None else (None, None)
+    feature_at = feature_blocks(cells, area.chunks, context.target.width)
+    chunk_grid = area.chunks
     area = area.to_delayed()
     blocks = [[a.to_delayed(optimize_graph=False) for a in arrays] for arrays in group_arrays]
     token = uuid.uuid4().hex
@@ -204,7 +226,8 @@ def _compute_rows(
         plan_d = client.scatter(plan, broadcast=True, hash=False)
     else:
         plan_d = dask.delayed(plan, name=f"lidmelt-ensemble-plan-{token}", traverse=False)
-    sums = empty_sums(len(plan.settings), plan.candidates)
+    sums = empty_sums(len(plan.settings), plan.candidates, plan.features)
+    masks: dict = {}
     kwargs = {"scheduler": "threads", "num_workers": int(cfg.compute.workers)}
     if client is not None:
         kwargs = {"scheduler": client.get}
@@ -216,38 +239,53 @@ def _compute_rows(
                 area[i, j],
                 [[b[i, j] for b in g] for g in blocks],
                 label_blocks[i][j],
+                feature_at[i][j],
                 dask_key_name=f"lidmelt-ensemble-{token}-{i}-{j}",
             )
             for j in range(area.shape[1])
         ]
         results = dask.compute(*tasks, **kwargs)
         layers = np.concatenate([r[0] for r in results], axis=2)
-        for r in results:
+        for j, r in enumerate(results):
+            if "masks" in r[1]:
+                masks[i, j] = folder / f"masks_{i}_{j}.npz"
+                np.savez(masks[i, j], **r[1]["masks"])
             combine_sums(sums, r[1])
         write(row0, list(layers))
         row0 += layers.shape[1]
+    if masks:
+        sums["masks"] = masks
+        sums["chunks"] = chunk_grid
     return sums
 
 
 def _csv_number(value: float) -> str:
-    """A CSV cell: the number's repr, or empty for NaN (no value)."""
+    """A CSV cell: the number's repr (an integer as it is), or empty for NaN (no value)."""
+    if isinstance(value, np.integer | int):
+        return str(int(value))
     return "" if np.isnan(value) else repr(float(value))
 
 
-def _members_csv(ens, totals: np.ndarray, missing: np.ndarray, volumes, volume_missing) -> str:
+def _members_csv(
+    ens, totals: np.ndarray, missing: np.ndarray, volumes, volume_missing, scores=None
+) -> str:
     """The text of :data:`MEMBERS_FILE`: member, each varied key, the basin totals (empty where
     the member has no value in some cell) and its cells without a value, then per tracked
-    candidate its melt volume and cells without a value."""
+    candidate its melt volume and cells without a value; with known features each member's
+    ``auc``, ``auc_bound``, ``features_scored`` and ``weight`` (:data:`SCORE_COLUMNS`)."""
     ranks = range(1, len(volumes) + 1)
     head = ["member", *(s.key for s in ens.vary), *TOTALS, "cells_without_value"]
     for rank in ranks:
         head += [candidate_column(rank), candidate_missing_column(rank)]
+    head += list(SCORE_COLUMNS) if scores is not None else []
     rows = [",".join(head)]
     for m, sample in enumerate(ens.samples):
         cells = [str(m + 1), *(repr(v) if not isinstance(v, str) else v for v in sample)]
         cells += [_csv_number(v) for v in totals[:, m]] + [str(int(missing[m]))]
         for k in range(len(volumes)):
             cells += [_csv_number(volumes[k, m]), str(int(volume_missing[k, m]))]
+        if scores is not None:
+            cells += [_csv_number(scores[c][m]) for c in SCORE_COLUMNS]
         rows.append(",".join(cells))
     return "\n".join(rows) + "\n"
 
@@ -289,16 +327,57 @@ def _candidates_entry(found: Candidates, ens, sums, names: list[str]) -> dict[st
     return {**found.screening, "tracked": found.count, "list": listed}
 
 
+def _score_members(context: StageContext, sums, cells, items, names) -> tuple[dict, list, list]:
+    """After the pass: each member's score and weight, the summary's ``assessment`` entry and
+    the weighted probability map (:mod:`lidmelt.ensemble.scoring`); returns the scores (by
+    column), the written files and warnings."""
+    cfg, ens = context.cfg, context.cfg.ensemble
+    options = cfg.assess
+    scores = member_scores(sums, ens.members)
+    weights = glue_weights(scores["auc"], options.rejection_auc, options.likelihood_shape)
+    scores["weight"] = weights
+    basis_variable = PROBABILITY_BASES[ens.probability_basis]
+    entry = assessment_entry(ens, options, cells, scores, weights, basis_variable)
+    files, notes = [], []
+    if weights.sum() > 0:
+        name = weighted_probability_name(ens.probability_basis, ens.thresholds_km[0])
+        var = ensemble_variable(name)
+        tags = {**context.tags, "variable": name, "units": var.units}
+        template = items[0].da
+        item = GeoTiffItem(template, context.run_dir / rundir.output_file(name), var.long_name,
+                           var.units, tags)  # fmt: skip
+        with GeoTiffSet([item], cog=cfg.outputs.cloud_optimized, verify=False) as out:
+            write_weighted(out, items[0].path, sums["masks"], weights, sums["chunks"])
+        files.append(item.path)
+        items.append(item)
+        names.append(name)
+        entry["weighted_probability"] = name
+    else:
+        notes.append(
+            f"no ensemble member ranks the known features of {options.features.name} better "
+            f"than assess.rejection_auc = {options.rejection_auc:g} (largest AUC "
+            f"{np.nanmax(scores['auc']) if np.isfinite(scores['auc']).any() else 'none'}): no "
+            "member is behavioural, so there are no weights and no weighted probability map."
+        )
+        entry["weighted_probability"] = None
+    entry["masks_bytes"] = masks_size(sums.get("masks", {}))
+    return {"entry": entry, "scores": scores}, files, notes
+
+
 def run_ensemble_stage(
     context: StageContext, candidates: CandidateSource | None = None
 ) -> tuple[list[Path], dict[str, Any]]:
     """Evaluate the ensemble of ``context.cfg`` and write its layers, CSV and summary entry
-    (with ``candidates``, a source of the deterministic run's candidates: their drivers too)."""
+    (with ``candidates``, a source of the deterministic run's candidates: their drivers too;
+    with ``[assess]``, each member's score, its weight and the weighted probability)."""
     t0 = time.perf_counter()
     cfg = context.cfg
     ens = cfg.ensemble
+    assessing = getattr(cfg, "assess", None) is not None
+    cells = locate(cfg.assess, context.target) if assessing else None
     found = _screen(context, candidates)
-    plan, group_arrays, tables = _plan(context, found.count if found else 0)
+    plan, group_arrays, tables = _plan(context, found.count if found else 0,
+                                       cells.count if cells else 0)  # fmt: skip
     names = layer_names(ens.probability_basis, ens.thresholds_km, ens.percentiles)
     template = context.target.template(int(cfg.compute.chunk_size))
     items = []
@@ -307,20 +386,45 @@ def run_ensemble_stage(
         tags = {**context.tags, "variable": name, "units": var.units}
         path = context.run_dir / rundir.output_file(name)
         items.append(GeoTiffItem(template, path, var.long_name, var.units, tags))
-    # the run checks every file before it is sealed (rundir.seal_run): no read-back here
-    with GeoTiffSet(items, cog=cfg.outputs.cloud_optimized, verify=False) as out:
-        labels = found.labels if found and found.count else None
-        sums = _compute_rows(context, plan, group_arrays, out.write_rows, labels)
+    with tempfile.TemporaryDirectory(dir=context.run_dir.parent, prefix="masks-") as folder:
+        # the run checks every file before it is sealed (rundir.seal_run): no read-back here
+        with GeoTiffSet(items, cog=cfg.outputs.cloud_optimized, verify=False) as out:
+            labels = found.labels if found and found.count else None
+            scoring = (cells, Path(folder)) if cells is not None else None
+            sums = _compute_rows(context, plan, group_arrays, out.write_rows, labels, scoring)
+        t1 = time.perf_counter()
+        scored, weighted_files, notes = (
+            _score_members(context, sums, cells, items, names) if assessing else (None, [], [])
+        )
+        scoring_s = time.perf_counter() - t1
     missing = sums["cells_without_value"]
     totals = _with_values(sums["totals"], np.broadcast_to(missing, sums["totals"].shape))
     volumes = _with_values(sums["candidate_volume"], sums["candidate_cells_without_value"])
-    text = _members_csv(ens, totals, missing, volumes, sums["candidate_cells_without_value"])
-    files = [item.path for item in items]
+    text = _members_csv(ens, totals, missing, volumes, sums["candidate_cells_without_value"],
+                        scored["scores"] if scored else None)  # fmt: skip
+    files = [item.path for item in items if item.path not in weighted_files] + weighted_files
     files.append(write_text_atomic(context.run_dir / MEMBERS_FILE, text))
     lacking = missing_summary(ens.vary, ens.samples, sums)
     warning = missing_warning(lacking, ens.members)
-    if warning:
-        warnings.warn(warning, UserWarning, stacklevel=2)
+    run_warnings = [w for w in (warning, *notes) if w]
+    for w in run_warnings:
+        warnings.warn(w, UserWarning, stacklevel=2)
+    entry = _entry(cfg, ens, names, plan, tables, lacking, totals, found, sums)
+    if scored:
+        entry["assessment"] = {**scored["entry"], "scoring_s": scoring_s}
+    entry["compute_s"] = time.perf_counter() - t0
+    outputs = {
+        name: {"file": item.path.name, "units": item.units, "long_name": item.description}
+        for name, item in zip(names, items, strict=True)
+    }
+    extra = {"ensemble": entry, "outputs": outputs}
+    if run_warnings:
+        extra["warnings"] = run_warnings
+    return files, extra
+
+
+def _entry(cfg, ens, names, plan, tables, lacking, totals, found, sums) -> dict[str, Any]:
+    """The summary's ``"ensemble"`` entry (without its assessment and time)."""
     entry = {
         "members": ens.members,
         "seed": ens.seed,
@@ -340,18 +444,10 @@ def run_ensemble_stage(
         },
         "drivers": drivers(ens.vary, ens.samples, totals[1], seed=ens.seed),
         "drivers_method": {"interval": INTERVAL, "replicates": REPLICATES},
-        "compute_s": time.perf_counter() - t0,
     }
     if found is not None:
         entry["candidates"] = (
             _candidates_entry(found, ens, sums, names) if found.count else
             {**found.screening, "tracked": 0, "list": []}
         )  # fmt: skip
-    outputs = {
-        name: {"file": item.path.name, "units": item.units, "long_name": item.description}
-        for name, item in zip(names, items, strict=True)
-    }
-    extra = {"ensemble": entry, "outputs": outputs}
-    if warning:
-        extra["warnings"] = [warning]
-    return files, extra
+    return entry

@@ -56,6 +56,7 @@ import pyproj
 
 from lidmelt.errors import InputError, RunDirError
 from lidmelt.files import atomic_path
+from lidmelt.grids.features import nearest_cells
 from lidmelt.grids.grid import Grid, lonlat_from
 from lidmelt.grids.rundir import RunDir, open_run, read_flags
 from lidmelt.grids.vector import describe_rows
@@ -238,27 +239,19 @@ class Stencil:
 
 
 def make_stencil(grid: Grid, gx: np.ndarray, gy: np.ndarray, *, method: str) -> Stencil:
-    """Compute the sampling stencil of grid-CRS points ``(gx, gy)``."""
+    """Compute the sampling stencil of grid-CRS points ``(gx, gy)`` (the containing cell by
+    :func:`lidmelt.grids.features.nearest_cells`)."""
     h, w = grid.height, grid.width
+    inside, nearest = nearest_cells(grid, gx, gy)
+    if method == "nearest":
+        return Stencil(inside=inside, nearest=nearest, corners=(), weights=())
+
     row, col = grid.fractional_index(gx, gy)
     finite = np.isfinite(row) & np.isfinite(col)
     row = np.where(finite, row, 0.0)
     col = np.where(finite, col, 0.0)
-    inside = finite & (row >= -0.5) & (row <= h - 0.5)
     if grid.is_periodic:
         col = np.mod(col + 0.5, w) - 0.5
-    else:
-        inside &= (col >= -0.5) & (col <= w - 0.5)
-
-    rn = np.clip(np.floor(row + 0.5), 0, h - 1).astype(np.intp)
-    if grid.is_periodic:
-        cn = np.mod(np.floor(col + 0.5), w).astype(np.intp)
-    else:
-        cn = np.clip(np.floor(col + 0.5), 0, w - 1).astype(np.intp)
-    nearest = rn * w + cn
-    if method == "nearest":
-        return Stencil(inside=inside, nearest=nearest, corners=(), weights=())
-
     r0, r1, t = _axis_pair(row, h, periodic=False)
     c0, c1, u = _axis_pair(col, w, periodic=grid.is_periodic)
     corners = (r0 * w + c0, r0 * w + c1, r1 * w + c0, r1 * w + c1)

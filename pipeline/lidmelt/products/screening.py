@@ -95,12 +95,17 @@ if TYPE_CHECKING:
 __all__ = [
     "BASES",
     "BASIS_VOLUME",
+    "CANDIDATES_NAME",
     "CANDIDATE_COLUMNS",
     "PLUME_MATCHES",
     "ensemble_candidates",
     "screen",
     "write_candidates",
 ]
+
+#: Where ``lidmelt screen`` writes its candidates by default, in the run directory (outside its
+#: manifest), and where the report and ``lidmelt assess`` look for them.
+CANDIDATES_NAME = "candidates.gpkg"
 
 #: Extra columns of a screening result.
 CANDIDATE_COLUMNS = ("rank", "plume", "plume_match", "centroid_lon", "centroid_lat")

@@ -11,6 +11,7 @@ from typing import Any
 
 from lidmelt.config import RunConfig
 from lidmelt.errors import LidmeltError, WorkflowError
+from lidmelt.workflow.assess import read_assess
 from lidmelt.workflow.checks import Context, shortened, shown, user_path
 from lidmelt.workflow.ensemble import read_ensemble
 from lidmelt.workflow.motion import read_motion
@@ -99,7 +100,9 @@ def load_workflow(
     if motion is not None:
         cfg = dataclasses.replace(cfg, motion=motion)
     ensemble = read_ensemble(ctx, tree, member, functools.partial(_fits, cfg, source))
-    return cfg if ensemble is None else dataclasses.replace(cfg, ensemble=ensemble)
+    cfg = cfg if ensemble is None else dataclasses.replace(cfg, ensemble=ensemble)
+    assess = read_assess(ctx, tree, workflow_path.parent)
+    return cfg if assess is None else dataclasses.replace(cfg, assess=assess)
 
 
 def _read_text(source: str, workflow_path: Path) -> str:

@@ -38,6 +38,7 @@ SCHEMA: dict[str, tuple[str, ...]] = {
         "outputs",
         "ensemble",
         "motion",
+        "assess",
     ),
     "run": ("name", "output_dir", "netcdf", "maps", "report"),
     "grid": ("like", "extent", "resolution", "crs"),
@@ -87,6 +88,7 @@ SCHEMA: dict[str, tuple[str, ...]] = {
         "plume_drift",
     ),
     "motion.plate_rotations": ("*",),
+    "assess": ("features", "crs", "rejection_auc", "likelihood_shape"),
 }
 #: The tables of :data:`SCHEMA` (not the arrays of tables).
 TABLES = frozenset(k for k in SCHEMA if k and not k.endswith("[]"))

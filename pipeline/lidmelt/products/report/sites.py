@@ -23,6 +23,7 @@ from lidmelt.products.maps.flags import calibrated_pressure_gpa
 from lidmelt.products.report.blocks import Block, MapImage, Section, Table, format_sig
 from lidmelt.products.report.labels import column_label
 from lidmelt.products.sampling import shown_without_melt
+from lidmelt.products.screening import CANDIDATES_NAME
 
 __all__ = [
     "CANDIDATES_NAME",
@@ -36,9 +37,8 @@ __all__ = [
     "sites_section",
 ]
 
-#: Where ``lidmelt screen`` writes its candidates by default and the report looks for them,
-#: and the station file the report looks for (in the run directory, outside its manifest).
-CANDIDATES_NAME = "candidates.gpkg"
+#: The station file the report looks for (in the run directory, outside its manifest); the
+#: candidates' file is :data:`lidmelt.products.screening.CANDIDATES_NAME`.
 STATIONS_NAME = "stations.csv"
 
 #: Station columns shown (those the run has), after the station's name.

@@ -16,6 +16,7 @@ from lidmelt.products.maps import (
     require_file,
     resolve_coastlines,
 )
+from lidmelt.products.report.assess import assess_section
 from lidmelt.products.report.content import MapImage
 from lidmelt.products.report.ensemble import ensemble_section
 from lidmelt.products.report.history import history_section
@@ -173,7 +174,8 @@ def write_report(
         images.append(site_map)
     ensemble = ensemble_section(run, dpi=REPORT_MAP_DPI, width_in=REPORT_MAP_WIDTH_IN)
     history = history_section(run, dpi=REPORT_MAP_DPI, width_in=REPORT_MAP_WIDTH_IN)
-    extra_sections = [s for s in (ensemble, history, extra) if s is not None]
+    scored = assess_section(run, dpi=REPORT_MAP_DPI)
+    extra_sections = [s for s in (ensemble, history, scored, extra) if s is not None]
     write_text_atomic(out, render_html(run, images, extra_sections))
     if pdf:
         write_pdf(run, images, out.with_suffix(".pdf"), extra_sections)
