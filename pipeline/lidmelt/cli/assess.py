@@ -25,7 +25,7 @@ def register(subparsers: argparse._SubParsersAction) -> None:
             "any CRS) against every ocean cell of the run, weighted by cell area: the success-"
             "rate curve (fraction of features captured against fraction of the ocean area, "
             "cells ranked by V from the highest), its AUC (the area-weighted probability that "
-            "a feature's cell outranks a random ocean cell, ties counted half) with a 90 %% "
+            "a feature's cell outranks a random ocean cell, ties counted half) with a 90 % "
             "bootstrap interval over the features, the weights-of-evidence contrast at a few "
             "thresholds and the features in each candidate region of 'lidmelt screen'. "
             "Features outside the grid or on nodata are counted and listed. V defaults to the "
