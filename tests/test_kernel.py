@@ -177,3 +177,32 @@ def test_no_anomaly_means_exactly_no_anomaly_melt(compiled):
         )  # fmt: skip
         assert (out["melt_thickness_km"] > 0).any()  # the ambient mantle melts under thin lids
         npt.assert_array_equal(out["anomaly_melt_thickness_km"], 0.0)
+
+
+@compiled_only
+@pytest.mark.parametrize("model", ["katz2003", "mckenzie-bickle1988"])
+def test_water_varying_per_cell_on_hot_columns_stays_in_the_kernel_within_tolerance(model):
+    # hot wet cells whose onsets lie beyond the calibrated pressure or at the upper mantle's
+    # floor (Tp 1500-1900 C, water 0-0.05 wt% cell by cell, lid 0-250 km): the kernel reads the
+    # table's finer water nodes there (MeltTable.deep_values) within the table tolerance of the
+    # direct integration, and leaves only the cells near the jump of the onset to the floor
+    # (under a tenth) to the numpy path. McKenzie & Bickle (1988) is anhydrous: dry cells.
+    rng = np.random.default_rng(5)
+    n = 500
+    tp, lid = rng.uniform(1500.0, 1900.0, n), rng.uniform(0.0, 250.0, n)
+    w = rng.uniform(0.0, 0.05, n) if model == "katz2003" else 0.0
+    clock = {}
+    fast = evaluate_cells(
+        tp, lid, w, ambient_potential_temperature_c=1350.0, model=model, clock=clock,
+        compiled=True,
+    )  # fmt: skip
+    direct = melt_column(tp, lid, w, model=model, method="direct")
+    h_d, h_k = direct.melt_thickness_km, fast["melt_thickness_km"]
+    assert np.all(np.isfinite(h_d))
+    assert np.count_nonzero(direct.onset_pressure_gpa > 7.0) > 200
+    assert np.all(np.abs(h_k - h_d) <= np.maximum(0.005 * np.abs(h_d), 0.02))
+    npt.assert_array_equal(fast["flag"], direct.flag)
+    npt.assert_allclose(fast["onset_depth_km"], direct.onset_depth_km, atol=0.2)
+    # the share is a ratio of two readings each within 0.5 %: within 1 %
+    npt.assert_allclose(fast["deep_melt_share"], direct.deep_melt_share, atol=1e-2)
+    assert clock["numpy_cells"] < n // 10
