@@ -80,8 +80,9 @@ class TableLayout:
     ``water_nodes`` (they erred by up to 8.7 times the table tolerance on hot wet cells), so the
     Tp nodes from one before the first onset beyond it on are also integrated on
     ``deep_water_nodes`` water nodes (``MeltTable.deep_values``): with 41, linear in the water
-    coordinate errs by at most 0.21 times the tolerance there, with 21 by 0.69
-    (tests/test_table.py, a choice of accuracy against size: about 90 MB for Katz).
+    coordinate erred by at most 0.21 times the tolerance there away from the jump of the onset
+    to the upper mantle's floor and 1.002 next to it, with 81 by 0.78 next to it (hot wet cells,
+    tests/test_kernel.py; a choice of accuracy against size: about 170 MB for Katz).
     """
 
     tp_min_c: float = 1100.0
@@ -93,7 +94,7 @@ class TableLayout:
     integration_step_gpa: float = 0.02
     top_pressure_max_gpa: float = 13.4
     deep_integration_step_gpa: float = 0.1
-    deep_water_nodes: int = 41
+    deep_water_nodes: int = 81
 
 
 def table_key(model: MeltingModel, layout: TableLayout) -> str:
