@@ -85,7 +85,8 @@ def test_no_valid_in_range_cell_leaves_the_kernel():
     # and at one water content. Only columns whose onset lies beyond the calibrated pressure
     # leave (lidmelt choice, physics/kernel_arrays.py::_rough): at a water content on a table
     # node those near the tangency of isentrope and continued solidus, between water nodes all
-    # of them; away from them none does.
+    # of them; away from them none does. Where water varies cell by cell none leaves (the
+    # table's finer water nodes beyond the calibrated pressure).
     rng = np.random.default_rng(11)
     n = 200_000
     tp, lid = rng.uniform(1200.0, 1700.0, n), rng.uniform(0.0, 250.0, n)
@@ -97,6 +98,9 @@ def test_no_valid_in_range_cell_leaves_the_kernel():
         clock = {}
         evaluate_cells(tp, lid, w, ambient_potential_temperature_c=1350.0, clock=clock)
         assert clock["cells"] == n
+        if np.ndim(w):  # water varying: the finer water nodes beyond P_c, none leaves
+            assert clock["numpy_cells"] == 0
+            continue
         assert 0 < clock["numpy_cells"] <= np.count_nonzero(~outside)
         clock = {}
         w_out = w if np.ndim(w) == 0 else w[outside]
@@ -177,3 +181,33 @@ def test_no_anomaly_means_exactly_no_anomaly_melt(compiled):
         )  # fmt: skip
         assert (out["melt_thickness_km"] > 0).any()  # the ambient mantle melts under thin lids
         npt.assert_array_equal(out["anomaly_melt_thickness_km"], 0.0)
+
+
+@compiled_only
+@pytest.mark.parametrize("model", ["katz2003", "mckenzie-bickle1988"])
+def test_water_varying_per_cell_on_hot_columns_stays_in_the_kernel_within_tolerance(model):
+    # hot wet cells whose onsets lie beyond the calibrated pressure or at the upper mantle's
+    # floor (Tp 1500-1900 C, water 0-0.05 wt% cell by cell, lid 0-250 km): the kernel reads the
+    # table's finer water nodes there (MeltTable.deep_values) within the table tolerance of the
+    # direct integration, and leaves none of them to the numpy path (dry, one water content: only
+    # those near the jump of the onset to the floor, under a tenth). McKenzie & Bickle (1988) is
+    # anhydrous: dry cells.
+    rng = np.random.default_rng(5)
+    n = 500
+    tp, lid = rng.uniform(1500.0, 1900.0, n), rng.uniform(0.0, 250.0, n)
+    w = rng.uniform(0.0, 0.05, n) if model == "katz2003" else 0.0
+    clock = {}
+    fast = evaluate_cells(
+        tp, lid, w, ambient_potential_temperature_c=1350.0, model=model, clock=clock,
+        compiled=True,
+    )  # fmt: skip
+    direct = melt_column(tp, lid, w, model=model, method="direct")
+    h_d, h_k = direct.melt_thickness_km, fast["melt_thickness_km"]
+    assert np.all(np.isfinite(h_d))
+    assert np.count_nonzero(direct.onset_pressure_gpa > 7.0) > 200
+    assert np.all(np.abs(h_k - h_d) <= np.maximum(0.005 * np.abs(h_d), 0.02))
+    npt.assert_array_equal(fast["flag"], direct.flag)
+    npt.assert_allclose(fast["onset_depth_km"], direct.onset_depth_km, atol=0.2)
+    # the share is a ratio of two readings each within 0.5 %: within 1 %
+    npt.assert_allclose(fast["deep_melt_share"], direct.deep_melt_share, atol=1e-2)
+    assert clock["numpy_cells"] == 0 if np.ndim(w) else clock["numpy_cells"] < n // 10

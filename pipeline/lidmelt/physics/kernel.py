@@ -187,12 +187,16 @@ def _lookup(vals, x, y, j, c):
 
 
 @_jit(inline="always")
-def _lookup_at(vals, deep, par, x, y, j, c):
-    """:func:`_lookup`, from the columns integrated at exactly this water content (``deep``,
-    Tp nodes from ``par[27]`` on; :meth:`MeltTable.deep_columns`) where it has them."""
+def _lookup_at(vals, deep, par, x, y, j, c, u):
+    """:func:`_lookup`, from the deep columns where they are (Tp nodes from ``par[27]`` on):
+    integrated at exactly this water content (:meth:`MeltTable.deep_columns`), or where water
+    varies on the finer water nodes (:attr:`MeltTable.deep_values`, linear in u between them,
+    water step 1 / ``par[30]``)."""
     i0 = par[27]
     if x >= i0:
-        return _lookup(deep, x - i0, y, 0, 0.0)
+        xf = u * par[30]
+        jf = min(int(xf), deep.shape[1] - 1)
+        return _lookup(deep, x - i0, y, jf, xf - jf)
     return _lookup(vals, x, y, j, c)
 
 
@@ -235,7 +239,7 @@ def _depth_of_pressure(p, par, zp):
 
 
 @_jit(inline="always")
-def _deep_share(vals, deep, x, j, c, h, top_p, p_on, par, zp):
+def _deep_share(vals, deep, x, j, c, u, h, top_p, p_on, par, zp):
     """H_deep / H (:mod:`lidmelt.physics.deepshare`): H and F at the top P_c from the table."""
     cal = par[6]
     if not h > 0.0:
@@ -244,7 +248,7 @@ def _deep_share(vals, deep, x, j, c, h, top_p, p_on, par, zp):
         return 0.0
     if top_p >= cal:
         return 1.0
-    h_c, f_c, _ = _lookup_at(vals, deep, par, x, cal * par[5], j, c)
+    h_c, f_c, _ = _lookup_at(vals, deep, par, x, cal * par[5], j, c, u)
     dz = _depth_of_pressure(cal, par, zp) - _depth_of_pressure(top_p, par, zp)
     return min(max((h_c + f_c * dz) / h, 0.0), 1.0)
 
@@ -269,13 +273,14 @@ def _column(tp, w, u, top_p, p_on, par, sat, vals, zp, rough, deep):
     x, y = (tp - tp_min) * inv_dtp, top_p * inv_dp
     xj = u * par[12]
     j = min(int(xj), vals.shape[1] - 1)
-    if rough[min(int(x), rough.shape[0] - 1), min(j, rough.shape[1] - 1)]:
+    jr = min(int(u * par[31]), rough.shape[1] - 1)
+    if rough[min(int(x), rough.shape[0] - 1), jr]:
         return flag, p_on, np.nan, np.nan, np.nan, np.nan, True
-    h, f, g = _lookup_at(vals, deep, par, x, y, j, xj - j)
+    h, f, g = _lookup_at(vals, deep, par, x, y, j, xj - j, u)
     if not (np.isfinite(h) and np.isfinite(f)):
         return flag, p_on, np.nan, np.nan, np.nan, np.nan, True
     mean = min(max(g / f, top_p), p_on) if f > 0.0 else np.nan
-    share = _deep_share(vals, deep, x, j, xj - j, h, top_p, p_on, par, zp)
+    share = _deep_share(vals, deep, x, j, xj - j, u, h, top_p, p_on, par, zp)
     return flag, p_on, h, f, mean, share, False
 
 
@@ -299,7 +304,7 @@ def _ambient_melt(w, u, top_p, p_on, par, sat, vals, deep):
     xj = u * par[12]
     j = min(int(xj), vals.shape[1] - 1)
     x = (par[18] - par[3]) * par[4]
-    h, f, _ = _lookup_at(vals, deep, par, x, top_p * par[5], j, xj - j)
+    h, f, _ = _lookup_at(vals, deep, par, x, top_p * par[5], j, xj - j, u)
     if not (np.isfinite(h) and np.isfinite(f)):
         return 0.0, 0.0, True
     return h, f, False

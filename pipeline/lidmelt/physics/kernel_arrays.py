@@ -133,43 +133,72 @@ def _arrays(table: MeltTable, water, model_arrays):
         _check_water_steps(inv, g0, dg, us, u_nodes, t0)
     cv = np.ascontiguousarray(np.stack([g0, dg, us], axis=1))
     vals = np.ascontiguousarray(vals, dtype=np.float32)
-    i0, exact = (table.tp_c.size, None) if water is None else table.deep_columns(water)
-    if exact is None or exact.shape[0] == 0:
+    if water is None:  # the finer water nodes beyond the calibrated pressure
+        exact = table.deep_values
+        i0 = table.tp_c.size - exact.shape[0]
+        du_deep = lay.water_max_wt_pct**WATER_EXPONENT / max(exact.shape[1] - 1, 1) or np.inf
+    else:  # the columns integrated at exactly this water
+        i0, exact = table.deep_columns(water)
+        du_deep = np.inf
+    if exact.shape[0] == 0:
+        du_deep = np.inf
         i0, exact = table.tp_c.size, np.zeros((2, 1, table.pressure_gpa.size, 3), np.float32)
     par = np.append(par, float(i0))  # par[27]: the first Tp node of the exact columns
     # par[28], par[29]: the regime's least extracted melt fraction and least anomaly melt [km]
     # (set per call by the kernel's entry point)
     par = np.append(par, [0.0, 0.0])
-    deep = np.ascontiguousarray(exact.reshape(exact.shape[0], 1, -1, 3), dtype=np.float32)
-    return par, cv, first, inv, sat, vals, zp, _rough(table, water), deep
+    exact = exact if exact.ndim == 4 else exact[:, None]  # (Tp, water, pressure, 3)
+    deep = np.ascontiguousarray(exact, dtype=np.float32)
+    rough, du_rough = _rough(table, water, i0, exact.shape[1])
+    # par[30], par[31]: 1 / the water step of the deep columns and of the rough intervals'
+    # water axis (0: one water content)
+    par = np.append(par, [1.0 / du_deep, 1.0 / du_rough])
+    return par, cv, first, inv, sat, vals, zp, rough, deep
 
 
-def _rough(table: MeltTable, water):
-    """(n_tp - 1, n) uint8: Tp intervals the kernel leaves to the numpy path, for one water
-    content (n = 1) or every water interval.
+def _jump_rough(onset, floor_gpa):
+    """(n_tp - 1, ...) bool: Tp intervals within two of the jump of the onset to the upper
+    mantle's floor (axis 0), where H is not bilinear in Tp (see :func:`_rough`)."""
+    floor = onset >= floor_gpa - 1e-9
+    jump = floor[:-1] != floor[1:]
+    rough = jump.copy()
+    for shift in (1, 2):  # two intervals on either side
+        rough[shift:] |= jump[:-shift]
+        rough[:-shift] |= jump[shift:]
+    return rough
+
+
+def _rough(table: MeltTable, water, i0, n_deep_w):
+    """((n_tp - 1, n) uint8, water step of its columns): Tp intervals the kernel leaves to the
+    numpy path, for one water content (n = 1, step inf) or where water varies (the table's water
+    intervals without the finer water nodes of :attr:`MeltTable.deep_values`, their number
+    ``n_deep_w``, else none).
 
     Beyond P_c the continued solidus flattens towards the isentrope (Herzberg et al. 2000): the
     onset moves fast with Tp, then jumps to the upper mantle's floor where the isentrope no
-    longer meets the solidus, and H is not smooth in Tp there. For one water content the kernel's
-    onset is exact (the curve) and the table's columns are integrated at that water
-    (:meth:`MeltTable.deep_columns`), so only the intervals within two nodes of that jump are
-    left (bilinear H erred by up to 1.8 times the table tolerance there, 0.5 elsewhere in the
-    band). Where water varies, every interval beyond P_c that the numpy path integrates
-    directly (:meth:`MeltTable.rough`) is left too.
+    longer meets the solidus, and H is not smooth in Tp there. Where the kernel reads columns
+    integrated at the cell's water (one water content, :meth:`MeltTable.deep_columns`) or on
+    the finer water nodes (water varying, Tp nodes from ``i0`` on), only the intervals within
+    two nodes of that jump are left for one water content (bilinear H erred by up to 1.8 times
+    the table tolerance there, 0.5 elsewhere in the band). Where water varies, none is left:
+    on the finer water nodes (81) the kernel erred by at most 0.78 times the tolerance on 2500
+    hot wet cells next to that jump (Tp 1500-1700 C, water 0-0.05 wt%; with 41 nodes 1.002,
+    0.82 with the jump interval left, 0.29 with one interval either side, [derived: these
+    figures]); before ``i0`` no onset is beyond P_c.
+    Without finer columns (an anhydrous model), every interval beyond P_c that the numpy path
+    integrates directly (:meth:`MeltTable.rough`) is left.
     """
-    if water is None:
+    model, floor = table.model, table.model.max_onset_pressure_gpa
+    if water is not None:
+        onset = onset_pressure_gpa(model, table.tp_c, float(water))
+        return np.ascontiguousarray(_jump_rough(onset, floor)[:, None], np.uint8), np.inf
+    u_max = table.layout.water_max_wt_pct**WATER_EXPONENT
+    if i0 >= table.tp_c.size or n_deep_w < 2:  # no finer columns: the numpy path's intervals
         deep = table.beyond_intervals(table.onset_gpa)
         rough = table.rough & (deep[:, :-1] | deep[:, 1:] if deep.shape[1] > 1 else deep)
-    else:
-        onset = onset_pressure_gpa(table.model, table.tp_c, float(water))
-        floor = onset >= table.model.max_onset_pressure_gpa - 1e-9
-        jump = floor[:-1] != floor[1:]
-        rough = jump.copy()
-        for shift in (1, 2):  # two intervals on either side
-            rough[shift:] |= jump[:-shift]
-            rough[:-shift] |= jump[shift:]
-        rough = rough[:, None]
-    return np.ascontiguousarray(rough, dtype=np.uint8)
+        n_c = rough.shape[1]
+        return np.ascontiguousarray(rough, np.uint8), (u_max / n_c if u_max > 0 else np.inf)
+    return np.zeros((table.tp_c.size - 1, 1), np.uint8), np.inf
 
 
 def _check_water_steps(inv, g0, dg, us, u_nodes, t0):

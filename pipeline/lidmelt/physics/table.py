@@ -46,9 +46,13 @@ __all__ = [
 
 #: Changes with the physics a table stores beyond its parameters: 3 = phase boundaries continued
 #: with published high-pressure shapes, PREM below 7.25 GPa, the upper mantle's floor; 4 = each
-#: column's latent-heat deficit at every node (the geotherm top of melting) as well.
-TABLE_FORMAT = 4
-_ARRAYS = ("tp_c", "water_u", "pressure_gpa", "onset_gpa", "values", "deficit_k")
+#: column's latent-heat deficit at every node (the geotherm top of melting) as well; 5 = the
+#: columns beyond the calibrated pressure on finer water nodes as well (``deep_values``).
+TABLE_FORMAT = 5
+_ARRAYS = (
+    "tp_c", "water_u", "pressure_gpa", "onset_gpa", "values", "deficit_k", "deep_values",
+)  # fmt: skip
+_NODE_KEYS = ("node_melt_thickness_km", "node_melt_fraction", "node_int_p_df_gpa")
 WATER_EXPONENT = 0.75  # the water coordinate u = water^0.75 (Katz et al. 2003 gamma)
 # Step of the direct integration for the few cells the table cannot do: 0.04 GPa changes melt
 # thickness by < 4e-4 km against 0.0025 GPa (tests/test_column.py::test_step_convergence), far
@@ -71,6 +75,14 @@ class TableLayout:
     Columns are integrated in steps of ``integration_step_gpa`` at the nodes and of
     ``deep_integration_step_gpa`` below the deepest node, where nothing is recorded; against
     steps of 0.005 GPa both change node values by < 1e-3 km (tests/test_table.py).
+
+    Beyond the calibrated pressure H and F are not linear in the water coordinate between the
+    ``water_nodes`` (they erred by up to 8.7 times the table tolerance on hot wet cells), so the
+    Tp nodes from one before the first onset beyond it on are also integrated on
+    ``deep_water_nodes`` water nodes (``MeltTable.deep_values``): with 41, linear in the water
+    coordinate erred by at most 0.21 times the tolerance there away from the jump of the onset
+    to the upper mantle's floor and 1.002 next to it, with 81 by 0.78 next to it (hot wet cells,
+    tests/test_kernel.py; a choice of accuracy against size: about 170 MB for Katz).
     """
 
     tp_min_c: float = 1100.0
@@ -82,6 +94,7 @@ class TableLayout:
     integration_step_gpa: float = 0.02
     top_pressure_max_gpa: float = 13.4
     deep_integration_step_gpa: float = 0.1
+    deep_water_nodes: int = 81
 
 
 def table_key(model: MeltingModel, layout: TableLayout) -> str:
@@ -111,6 +124,9 @@ class MeltTable:
         self.values = arrays["values"]  # (n_tp, n_water, n_p, 3): H km, F, int P dF
         # (n_tp, n_water, n_p): the column's temperature below its solid isentrope [K]
         self.deficit_k = arrays["deficit_k"]
+        # (n_deep, deep_water_nodes, n_p, 3): the columns of the last n_deep Tp nodes on the
+        # finer water nodes (:class:`TableLayout`); empty for an anhydrous model
+        self.deep_values = arrays["deep_values"]
         self._slices: dict[float, np.ndarray] = {}
 
     # -- building --------------------------------------------------------------------------------
@@ -129,22 +145,8 @@ class MeltTable:
         pressure = layout.pressure_step_gpa * np.arange(n_p)
         tt, ww = np.meshgrid(tp, water, indexing="ij")
         onset = onset_pressure_gpa(model, tt, ww)
-        rec = integrate_columns(
-            model,
-            tt.ravel(),
-            ww.ravel(),
-            onset.ravel(),
-            0.0,
-            step_gpa=layout.integration_step_gpa,
-            record_nodes=(n_p - 1) * ratio + 1,
-            deep_step_gpa=layout.deep_integration_step_gpa,
-        )
-        keys = ("node_melt_thickness_km", "node_melt_fraction", "node_int_p_df_gpa")
-        values = np.empty((n_tp * layout.water_nodes, n_p, 3), np.float32)
-        for k, key in enumerate(keys):
-            values[..., k] = rec[key][:, ::ratio]
+        values, rec = _node_columns(model, layout, tt.ravel(), ww.ravel(), onset.ravel(), n_p)
         values = values.reshape(n_tp, layout.water_nodes, n_p, 3)
-        values[~np.isfinite(onset)] = np.nan
         deficit = _deficit_k(model, tt.ravel(), onset.ravel(), pressure, rec, ratio)
         deficit = deficit.reshape(n_tp, layout.water_nodes, n_p)
         deficit[~np.isfinite(onset)] = np.nan
@@ -155,6 +157,7 @@ class MeltTable:
             "onset_gpa": onset,
             "values": values,
             "deficit_k": deficit,
+            "deep_values": _deep_values(model, layout, tp, onset, n_p),
         }
         return cls(model, layout, arrays)
 
@@ -169,6 +172,7 @@ class MeltTable:
                 onset_gpa=self.onset_gpa,
                 values=self.values,
                 deficit_k=self.deficit_k,
+                deep_values=self.deep_values,
                 key=np.array(table_key(self.model, self.layout)),
                 content_sha256=np.array(content_sha256(self.arrays())),
             )
@@ -270,15 +274,8 @@ class MeltTable:
             res = (n_tp, np.zeros((0, n_p, 3), np.float32))
             if 0.0 < c < 1.0 and self.water_u.size > 1 and deep.size:
                 i0 = min(max(int(deep[0]) - 1, 0), n_tp - 2)
-                ratio = round(lay.pressure_step_gpa / lay.integration_step_gpa)
-                rec = integrate_columns(
-                    self.model, self.tp_c[i0:], key, onset[i0:], 0.0,
-                    step_gpa=lay.integration_step_gpa, record_nodes=(n_p - 1) * ratio + 1,
-                    deep_step_gpa=lay.deep_integration_step_gpa,
-                )  # fmt: skip
-                keys = ("node_melt_thickness_km", "node_melt_fraction", "node_int_p_df_gpa")
-                vals = np.stack([rec[k][:, ::ratio] for k in keys], axis=-1).astype(np.float32)
-                vals[~np.isfinite(onset[i0:])] = np.nan
+                tp = self.tp_c[i0:]
+                vals, _ = _node_columns(self.model, lay, tp, np.full(tp.size, key), onset[i0:], n_p)
                 res = (i0, vals)
             if len(cache) > 16:
                 cache.clear()
@@ -351,6 +348,37 @@ class MeltTable:
                 & (water >= 0)
                 & (water <= lay.water_max_wt_pct)
             )
+
+
+def _node_columns(model, layout, tp, water, onset, n_p):
+    """((n, n_p, 3) float32 H, F and integral of P dF at the pressure nodes of columns (Tp,
+    water, onset), NaN without an onset; the integration's record) by one integration each."""
+    ratio = round(layout.pressure_step_gpa / layout.integration_step_gpa)
+    rec = integrate_columns(
+        model, tp, water, onset, 0.0, step_gpa=layout.integration_step_gpa,
+        record_nodes=(n_p - 1) * ratio + 1, deep_step_gpa=layout.deep_integration_step_gpa,
+    )  # fmt: skip
+    vals = np.stack([rec[k][:, ::ratio] for k in _NODE_KEYS], axis=-1).astype(np.float32)
+    vals[~np.isfinite(onset)] = np.nan
+    return vals, rec
+
+
+def _deep_values(model, layout, tp, onset, n_p):
+    """(n_deep, deep_water_nodes, n_p, 3) float32: the columns of the Tp nodes from one before
+    the first onset beyond the calibrated pressure (at any water node) on, on the finer water
+    nodes (:class:`TableLayout`); empty where the model is anhydrous or no onset is that deep.
+    """
+    n_w = layout.deep_water_nodes
+    with np.errstate(invalid="ignore"):
+        deep = np.flatnonzero((onset > model.calibrated_max_pressure_gpa).any(axis=1))
+    if not model.hydrous or n_w < 2 or deep.size == 0 or layout.water_max_wt_pct <= 0:
+        return np.zeros((0, max(n_w, 1), n_p, 3), np.float32)
+    i0 = min(max(int(deep[0]) - 1, 0), tp.size - 2)
+    water = np.linspace(0.0, layout.water_max_wt_pct**WATER_EXPONENT, n_w) ** (1.0 / WATER_EXPONENT)
+    tt, ww = np.meshgrid(tp[i0:], water, indexing="ij")
+    on = onset_pressure_gpa(model, tt, ww)
+    vals, _ = _node_columns(model, layout, tt.ravel(), ww.ravel(), on.ravel(), n_p)
+    return vals.reshape(tt.shape[0], n_w, n_p, 3)
 
 
 def _deficit_k(model, tp, onset, pressure, rec, ratio):

@@ -32,7 +32,7 @@ __all__ = [
     "touch",
 ]
 
-#: Default size limit of the cache folder (MB); a table of the default layout is about 35 MB.
+#: Default size limit of the cache folder (MB); a Katz table of the default layout is about 220 MB.
 DEFAULT_MAX_MB = 1024.0
 _PATTERN = "*.npz"
 
