@@ -112,7 +112,7 @@ def test_held_out_shares_over_seeds(truth, seed):
     check_held_out(drivers(VARY, samples, volume, seed=seed), truth)
 
 
-@pytest.mark.slow
+@pytest.mark.long  # about 3 minutes per seed: not in the default run (pytest -m long)
 @pytest.mark.parametrize("seed", SEEDS[:2])
 def test_held_out_shares_of_a_run(tmp_path, truth, seed):
     """The same check through a whole run (run_basin, the summary's drivers of the basin)."""

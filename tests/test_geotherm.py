@@ -194,6 +194,7 @@ def test_the_table_tops_equal_direct_integration(loaded):
         assert np.all(np.abs(h_table - h_direct)[ok] <= np.maximum(0.005 * h_direct, 0.02)[ok])
 
 
+@pytest.mark.long  # about 2 minutes (the numpy search of 54,000 cells): pytest -m long
 @pytest.mark.skipif(not AVAILABLE, reason="numba cannot be imported")
 def test_the_compiled_search_equals_the_numpy_search():
     rng = np.random.default_rng(5)

@@ -4,8 +4,8 @@ Check values: Rodrigues' rotation formula and the geometry of the sphere (closed
 turned about the north pole, the small circle of a constant angular velocity, whose arc is
 omega t R sin(delta) and whose chord is 2 R sin(delta) sin(omega t / 2)); the finite rotations
 of Cox & Hart (1986, Plate Tectonics: How It Works, Tables 7-1 and 7-3) with the stage pole and
-the interpolated rotation worked from them in the documentation of PlateKinematics.jl
-(examples "From Finite Rotation to Euler Vector" and "Interpolate Finite Rotations").
+the interpolated rotation worked from them in the documentation of an open-source
+plate-kinematics package (its worked examples of a stage Euler vector and of interpolation).
 """
 
 import numpy as np
@@ -94,7 +94,7 @@ def test_constant_angular_velocity_traces_a_small_circle():
 def test_cox_hart_table_7_1_stage_pole():
     # Eurasia relative to North America at 53 and 83 Ma (Cox & Hart 1986, Table 7-1); the
     # stage pole from 83 to 53 Ma is at 78.09 N, 75.94 W turning 0.4 deg/Myr (worked in the
-    # PlateKinematics.jl documentation, "From two Finite Rotations (Stage Euler Vector)")
+    # documentation of an open-source plate-kinematics package, its stage Euler vector example)
     r53 = finite_rotation(40.0, 145.0, -11.4)
     r83 = finite_rotation(70.5, 150.1, -20.3)
     lat, lon, angle = pole_and_angle(stage_rotation(r83, r53))
@@ -108,8 +108,8 @@ def test_cox_hart_table_7_1_stage_pole():
 
 def test_cox_hart_table_7_3_interpolation():
     # Australia relative to Antarctica at 37 and 42 Ma (Cox & Hart 1986, Table 7-3); at 40 Ma
-    # the interpolated rotation is 10.89 S, 145.35 W, 22.36 deg (PlateKinematics.jl
-    # documentation, "Interpolate Finite Rotations"); at 30 Ma, between the present and
+    # the interpolated rotation is 10.89 S, 145.35 W, 22.36 deg (the same documentation,
+    # its interpolation example); at 30 Ma, between the present and
     # 37 Ma, the 37 Ma pole with 16.62 deg (closed form: 20.5 deg x 30 / 37)
     hist = RotationHistory.from_rows([37.0, 42.0], [11.9, 10.3], [34.4, 34.8], [-20.5, -23.6])
     lat, lon, angle = pole_and_angle(hist.at([40.0, 30.0]))

@@ -2,8 +2,8 @@
 
 Conventions (Cox & Hart 1986, *Plate Tectonics: How It Works*, Blackwell, chapters 4 and 7 on
 finite rotations, their addition and stage poles; the rules below recalled from memory and
-checked against the book's Tables 7-1 and 7-3 as worked in the documentation of the
-PlateKinematics.jl package, tests/test_motion_rotations.py):
+checked against the book's Tables 7-1 and 7-3 as worked in the documentation of an
+open-source plate-kinematics package, tests/test_motion_rotations.py):
 
 - A point is a unit vector of the sphere from its latitude and longitude (geocentric
   spherical coordinates; plate reconstructions treat the Earth as a sphere, common practice).
