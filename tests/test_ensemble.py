@@ -384,8 +384,8 @@ COLD = (
 
 def test_members_without_a_value_are_counted_not_zero(tmp_path):
     """Katz et al. 2003, a 60 km lid, no anomaly, ambient Tp uniform 1000-1500 C: the members
-    whose Tp is below the model's surface solidus (1085.7 C, Katz et al. 2003 Table 2 as coded
-    in lidmelt.physics) have no value in any cell (an invalid input, never a melt of 0). They are
+    whose Tp is below the model's surface solidus (A1 = 1085.7 C, Katz et al. 2003 Table 2,
+    from memory, not checked against the publication) have no value in any cell (an invalid input, never a melt of 0). They are
     counted and left out of the totals, percentiles and drivers."""
     wf = tmp_path / "cold.toml"
     wf.write_text(COLD)

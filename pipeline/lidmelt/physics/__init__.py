@@ -12,6 +12,11 @@ from lidmelt.physics.cooling import COOLING_MODELS, get_cooling_model, isotherm_
 from lidmelt.physics.evaluate import (
     COLUMN_OUTPUTS,
     EXTRACTION_MIN_MELT_FRACTION,
+    ColumnResult,
+    excess_to_melt_k,
+    melt_column,
+)
+from lidmelt.physics.flags import (
     FLAG_BEYOND_CALIBRATION,
     FLAG_INVALID_INPUT,
     FLAG_KEYS,
@@ -19,17 +24,16 @@ from lidmelt.physics.evaluate import (
     FLAG_NO_ONSET,
     FLAG_UPPER_MANTLE_FLOOR,
     FLAG_WATER_SATURATED,
-    REGIME_AMBIENT_AND_ANOMALY,
-    REGIME_AMBIENT_ONLY,
-    REGIME_ANOMALY_ONLY,
-    REGIME_NO_MELTING,
-    ColumnResult,
-    excess_to_melt_k,
-    melt_column,
 )
 from lidmelt.physics.geotherm import DEFAULT_TOP_OF_MELTING, TOP_OF_MELTING_RULES, geotherm_tops
 from lidmelt.physics.lidlookup import LidLookup, lid_lookup
 from lidmelt.physics.melting import MODELS, MeltingModel, get_model
+from lidmelt.physics.regime import (
+    REGIME_AMBIENT_AND_ANOMALY,
+    REGIME_AMBIENT_ONLY,
+    REGIME_ANOMALY_ONLY,
+    REGIME_NO_MELTING,
+)
 from lidmelt.physics.table import MeltTable, get_table
 
 __all__ = [

@@ -45,12 +45,8 @@ from lidmelt.physics.deepshare import (
     top_pressure,
 )
 from lidmelt.physics.flags import (
-    FLAG_BEYOND_CALIBRATION,
     FLAG_INVALID_INPUT,
-    FLAG_KEYS,
-    FLAG_MEANINGS,
     FLAG_NO_ONSET,
-    FLAG_UPPER_MANTLE_FLOOR,
     FLAG_WATER_SATURATED,
     beyond_flags,
     input_flags,
@@ -59,33 +55,15 @@ from lidmelt.physics.flags import (
 from lidmelt.physics.kernel import ROWS as OUTPUT_ROWS
 from lidmelt.physics.kernel import compiled_cells, use_compiled
 from lidmelt.physics.melting import MeltingModel, get_model
-from lidmelt.physics.regime import (
-    REGIME_AMBIENT_AND_ANOMALY,
-    REGIME_AMBIENT_ONLY,
-    REGIME_ANOMALY_ONLY,
-    REGIME_NO_MELTING,
-)
 from lidmelt.physics.table import FALLBACK_STEP_GPA, MeltTable, get_table
 
 __all__ = [
     "COLUMN_OUTPUTS",
     "EXTRACTION_MIN_MELT_FRACTION",
-    "FLAG_BEYOND_CALIBRATION",
-    "FLAG_INVALID_INPUT",
-    "FLAG_KEYS",
-    "FLAG_MEANINGS",
-    "FLAG_NO_ONSET",
-    "FLAG_UPPER_MANTLE_FLOOR",
-    "FLAG_WATER_SATURATED",
     "OUTPUT_ROWS",
-    "REGIME_AMBIENT_AND_ANOMALY",
-    "REGIME_AMBIENT_ONLY",
-    "REGIME_ANOMALY_ONLY",
-    "REGIME_NO_MELTING",
     "ColumnResult",
     "excess_to_melt_k",
     "finish_outputs",
-    "input_flags",
     "melt_column",
 ]
 
