@@ -485,6 +485,11 @@ def run_basin(
         Run after the outputs are stored, each ``stage(StageContext) -> (files, summary
         entries)`` (an ``"outputs"`` entry adds to the run's outputs), e.g. the ensemble.
 
+    Returns
+    -------
+    RunResult
+        The run directory, its files, the summary and the timings.
+
     Raises
     ------
     LidmeltError

@@ -9,7 +9,13 @@ from __future__ import annotations
 
 
 class LidmeltError(Exception):
-    """Base class of every error lidmelt raises on bad input or configuration."""
+    """Base class of every error lidmelt raises on bad input or configuration.
+
+    Its message says what was wrong (with the value), what was expected (with the unit) and how
+    to fix it; the command line prints it on one line and exits with status 1. Catch it to
+    handle any of lidmelt's errors (the subclasses name the kind: ``InputError``, ``GridError``,
+    ``ModelError``, ``WorkflowError`` ...).
+    """
 
 
 class InputError(LidmeltError, ValueError):

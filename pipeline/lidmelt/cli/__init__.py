@@ -58,7 +58,19 @@ def build_parser() -> argparse.ArgumentParser:
 
 
 def main(argv: list[str] | None = None) -> int:
-    """Run the command line; return the exit status."""
+    """Run the command line.
+
+    Parameters
+    ----------
+    argv : list of str, optional
+        The arguments after ``lidmelt`` (default: the process's).
+
+    Returns
+    -------
+    int
+        The exit status: 0 success, 1 an error of the input or the machine, 130 interrupted,
+        143 terminated.
+    """
     parser = build_parser()
     args = parser.parse_args(argv)
     if not getattr(args, "func", None):

@@ -88,7 +88,20 @@ def estimate_memory_bytes(cfg, *, groups: int | None = None) -> int:
     """Peak memory of the ensemble: per worker, one chunk of every member's kept outputs (three
     float32 layers and their sorted copy; with known features two bool indicators too), the
     input blocks of every input group, one member's kernel temporaries and the reduced
-    layers."""
+    layers.
+
+    Parameters
+    ----------
+    cfg : RunConfig
+        The validated workflow (its ensemble, grid and chunks).
+    groups : int, optional
+        The number of input groups; by default counted from the workflow.
+
+    Returns
+    -------
+    int
+        The estimated peak in bytes.
+    """
     ens = cfg.ensemble
     side = int(cfg.compute.chunk_size)
     cells = side * side
@@ -127,8 +140,26 @@ def ensemble_stages(
     """The extra stages of :func:`lidmelt.engine.run_basin` for ``cfg``: the ensemble, if the
     workflow has one, its memory checked (and stated on stderr) before the run starts.
 
-    ``candidates(context)`` screens the deterministic run (:mod:`lidmelt.ensemble.candidates`);
-    without it (or with ``[ensemble] candidates = 0``) only the basin totals get drivers.
+    Parameters
+    ----------
+    cfg : RunConfig
+        The validated workflow.
+    announce : bool
+        Print the members' memory estimate on stderr.
+    candidates : callable, optional
+        ``candidates(context)`` screens the deterministic run
+        (:mod:`lidmelt.ensemble.candidates`); without it (or with ``[ensemble] candidates = 0``)
+        only the basin totals get drivers.
+
+    Returns
+    -------
+    tuple
+        The stages to pass as ``run_basin(cfg, extra_stages=...)``; empty without an ensemble.
+
+    Raises
+    ------
+    ConfigError
+        If the members would not fit in memory (the message gives the estimate and the limit).
     """
     if getattr(cfg, "ensemble", None) is None:
         return ()

@@ -279,7 +279,23 @@ def _missing_run(path: Path) -> RunDirError:
 
 
 def open_run(path: str | Path) -> RunDir:
-    """Open and validate a run directory; see :class:`RunDir`."""
+    """Open and validate a run directory.
+
+    Parameters
+    ----------
+    path : str or pathlib.Path
+        The run folder ``lidmelt run`` wrote (it holds ``summary.json``).
+
+    Returns
+    -------
+    RunDir
+        The run's grids, summary and variables, read on demand.
+
+    Raises
+    ------
+    InputError
+        If the folder is missing, is not a finished run, or was made by an earlier lidmelt.
+    """
     return RunDir(path)
 
 

@@ -345,6 +345,22 @@ def read_points(
 ) -> gpd.GeoDataFrame:
     """Read points from a CSV (coordinate columns) or any point file GDAL reads.
 
+    Parameters
+    ----------
+    path : str or os.PathLike
+        A CSV or text table, or a vector file (GeoPackage, GeoJSON, shapefile ...).
+    lon_column, lat_column : str, optional
+        The coordinate columns of a table; by default found among the usual names.
+    crs : optional
+        The CRS of a table's coordinates (anything pyproj accepts); default WGS 84 degrees.
+    what : str
+        What the points are, for messages (``"station"``).
+
+    Returns
+    -------
+    geopandas.GeoDataFrame
+        One row per point, with the file's other columns.
+
     Raises
     ------
     InputError
@@ -483,6 +499,20 @@ def read_polygons(
     data: gpd.GeoDataFrame | str | os.PathLike[str], *, crs: Any = None, what: str = "polygon"
 ) -> gpd.GeoDataFrame:
     """Polygon features in their own CRS, checked (and repaired) by :func:`check_polygons`.
+
+    Parameters
+    ----------
+    data : geopandas.GeoDataFrame or str or os.PathLike
+        Polygons, or a vector file that holds them.
+    crs : optional
+        The CRS to assume when the file has none (anything pyproj accepts).
+    what : str
+        What the polygons are, for messages (``"polygon"``).
+
+    Returns
+    -------
+    geopandas.GeoDataFrame
+        The polygons, valid, in their own CRS.
 
     Raises
     ------

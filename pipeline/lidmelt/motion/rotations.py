@@ -69,7 +69,26 @@ def lonlat(xyz) -> tuple[np.ndarray, np.ndarray]:
 
 def finite_rotation(pole_lat, pole_lon, angle_deg) -> Rotation:
     """The finite rotation about the Euler pole (degrees) by ``angle_deg`` (right-hand rule:
-    positive anticlockwise seen from above the pole); arrays give a stack of rotations."""
+    positive anticlockwise seen from above the pole); arrays give a stack of rotations.
+
+    Parameters
+    ----------
+    pole_lat, pole_lon : float or array_like
+        The Euler pole [degrees].
+    angle_deg : float or array_like
+        The rotation angle [degrees].
+
+    Returns
+    -------
+    scipy.spatial.transform.Rotation
+        One rotation, or a stack when the arguments are arrays.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> r = finite_rotation(90.0, 0.0, 90.0)  # about the north pole by 90 degrees
+    >>> np.round(r.apply([1.0, 0.0, 0.0]), 12) + 0.0
+    array([0., 1., 0.])"""
     axis = unit_vectors(pole_lon, pole_lat)
     return Rotation.from_rotvec(np.radians(np.asarray(angle_deg, float))[..., None] * axis)
 
@@ -147,7 +166,15 @@ def slerp_positions(ages, lon_deg, lat_deg, times) -> tuple[np.ndarray, np.ndarr
 class RotationHistory:
     """The total rotations of one plate at the ages of a rotations table, R(0) the identity.
 
-    ``ages`` ascend from 0; ``rotations`` is a stack of as many finite rotations.
+    Parameters
+    ----------
+    ages : numpy.ndarray
+        The table's ages [Ma], ascending from 0.
+    rotations : scipy.spatial.transform.Rotation
+        A stack of as many total rotations, the first the identity.
+
+    Notes
+    -----
     :meth:`at` interpolates along the stage rotation between the two rows around each time
     (constant angular velocity about the stage pole; module notes).
     """

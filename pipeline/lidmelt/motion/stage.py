@@ -51,7 +51,17 @@ _FRAME_INPUTS = ("thermal_anomaly_k", "water_wt_pct", "upwelling_mm_yr")
 
 def motion_stages(cfg) -> tuple:
     """The extra stages of :func:`lidmelt.engine.run_basin` for ``cfg``: the history, if the
-    workflow has a ``[motion]`` table."""
+    workflow has a ``[motion]`` table.
+
+    Parameters
+    ----------
+    cfg : RunConfig
+        The validated workflow.
+
+    Returns
+    -------
+    tuple
+        The stages to pass as ``run_basin(cfg, extra_stages=...)``; empty without motion."""
     return (run_motion_stage,) if getattr(cfg, "motion", None) is not None else ()
 
 

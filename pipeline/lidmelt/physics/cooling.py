@@ -264,6 +264,7 @@ def get_cooling_model(name: str | CoolingModel, **overrides: Any) -> CoolingMode
     Returns
     -------
     CoolingModel
+        The registered model, or a validated copy with the replaced fields.
 
     Raises
     ------

@@ -94,6 +94,8 @@ class MeltingModel:
         (:meth:`continued_pressure`) and outputs resting on them are flagged. Units: GPa.
     reference : str
         Citation of the parameter set.
+    sources : dict of str to str
+        The source of each field's value (author, year, table or equation), or "user override".
     """
 
     name: str
@@ -586,10 +588,22 @@ def get_model(name: str | MeltingModel = "katz2003", **parameters: Any) -> Melti
         its ``sources`` mark the overridden fields "user override", and its parameter values
         travel with every result made from it.
 
+    Returns
+    -------
+    MeltingModel
+        The registered model, or a frozen copy with the overridden fields.
+
     Raises
     ------
     ModelError
         Unknown model name or parameter name (the message suggests the nearest), or an invalid
         value.
+
+    Examples
+    --------
+    >>> get_model("katz2003").name
+    'katz2003'
+    >>> get_model("katz2003", cpx_mass_fraction=0.15).cpx_mass_fraction
+    0.15
     """
     return lookup(name, MODELS, "melting model", MeltingModel, **parameters)

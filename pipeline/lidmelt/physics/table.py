@@ -111,7 +111,17 @@ def table_key(model: MeltingModel, layout: TableLayout) -> str:
 class MeltTable:
     """Tabulated melting columns of one model.
 
-    Evaluate it with ``lidmelt.physics.melt_column(..., table=table)``.
+    Evaluate it with ``lidmelt.physics.melt_column(..., table=table)``; build one with
+    :func:`get_table`.
+
+    Parameters
+    ----------
+    model : MeltingModel
+        The melting model the columns were integrated with.
+    layout : TableLayout
+        The nodes of the table: potential temperature, water and top-of-melting pressure.
+    arrays : dict of str to numpy.ndarray
+        The tabulated outputs on those nodes, by name.
     """
 
     def __init__(self, model: MeltingModel, layout: TableLayout, arrays: dict[str, np.ndarray]):
@@ -413,5 +423,18 @@ def _cached_table(model: MeltingModel, layout: TableLayout, folder: str) -> Melt
 def get_table(
     model: str | MeltingModel = "katz2003", layout: TableLayout = TableLayout()
 ) -> MeltTable:
-    """The table of ``model``, from memory, the disk cache, or built now (a few seconds)."""
+    """The table of ``model``, from memory, the disk cache, or built now (a few seconds).
+
+    Parameters
+    ----------
+    model : str or MeltingModel
+        A registry name or a model object (see :func:`get_model`).
+    layout : TableLayout
+        The table's nodes; the default is the one every run uses.
+
+    Returns
+    -------
+    MeltTable
+        The table, shared by every caller in this process.
+    """
     return _cached_table(get_model(model), layout, str(cache_dir()))

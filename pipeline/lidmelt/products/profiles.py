@@ -296,10 +296,24 @@ def sample_track(
 def write_profile(
     gdf: gpd.GeoDataFrame, path: str | os.PathLike[str], *, title: str = "", **figure: Any
 ) -> tuple[Path, Path]:
-    """Write a profile's CSV and its PNG figure beside it (same stem); return both paths.
+    """Write a profile's CSV and its PNG figure beside it (same stem).
 
-    ``figure`` holds the further options of :func:`plot_profile` (waypoint names, stations,
-    the run for the inset map, a subtitle).
+    Parameters
+    ----------
+    gdf : geopandas.GeoDataFrame
+        The profile :func:`sample_track` returned.
+    path : str or os.PathLike
+        The ``.csv`` file; the figure gets the same stem and ``.png``.
+    title : str
+        The figure's title.
+    **figure
+        Further options of :func:`plot_profile` (waypoint names, stations, the run for the
+        inset map, a subtitle).
+
+    Returns
+    -------
+    tuple of pathlib.Path
+        The CSV and the PNG.
     """
     path = smp.check_output_path(path, (".csv",), what="profile")
     png = path.with_suffix(".png")

@@ -461,7 +461,7 @@ def region_statistics(
     *,
     crs: Any = None,
 ) -> gpd.GeoDataFrame:
-    """Statistics of a run inside each polygon (see the module notes for the columns).
+    """Compute a run's statistics inside each polygon (the module notes list the columns).
 
     Parameters
     ----------
@@ -562,7 +562,20 @@ def _with_statistics(
 
 
 def write_regions(gdf: gpd.GeoDataFrame, path: str | os.PathLike[str]) -> Path:
-    """Write region statistics as GeoPackage or CSV (by the suffix; a CSV has no geometry)."""
+    """Write region statistics as GeoPackage or CSV (by the suffix; a CSV has no geometry).
+
+    Parameters
+    ----------
+    gdf : geopandas.GeoDataFrame
+        The statistics :func:`region_statistics` returned.
+    path : str or os.PathLike
+        A ``.gpkg`` or ``.csv`` file, written atomically.
+
+    Returns
+    -------
+    pathlib.Path
+        The file written.
+    """
     path = smp.check_output_path(path, (".gpkg", ".csv"), what="region statistics")
     with atomic_path(path) as temp:
         if path.suffix.lower() == ".csv":

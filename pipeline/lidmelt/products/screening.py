@@ -183,11 +183,11 @@ def screen(
     run: RunDir | str | os.PathLike[str],
     *,
     min_melt_thickness_km: float | None = None,
+    min_probability: float | None = None,
+    probability: str | float | None = None,
     min_area_km2: float = 0.0,
     basis: str = "anomaly",
     min_age_ma: float | None = None,
-    min_probability: float | None = None,
-    probability: str | float | None = None,
 ) -> gpd.GeoDataFrame:
     """Find candidate regions: connected groups of cells that melt at least a threshold.
 
@@ -536,7 +536,20 @@ def _rfc7946(gdf: gpd.GeoDataFrame) -> gpd.GeoDataFrame:
 
 def write_candidates(gdf: gpd.GeoDataFrame, path: str | os.PathLike[str]) -> tuple[Path, Path]:
     """Write screening candidates as GeoPackage (grid CRS) and GeoJSON (RFC 7946, lon/lat)
-    beside it with the same stem; both atomically. Return the two paths."""
+    beside it with the same stem; both atomically.
+
+    Parameters
+    ----------
+    gdf : geopandas.GeoDataFrame
+        The candidates :func:`screen` returned.
+    path : str or os.PathLike
+        The ``.gpkg`` file; the GeoJSON gets the same stem.
+
+    Returns
+    -------
+    tuple of pathlib.Path
+        The GeoPackage and the GeoJSON.
+    """
     path = smp.check_output_path(path, (".gpkg",), what="candidate regions")
     geojson = path.with_suffix(".geojson")
     lonlat = _rfc7946(gdf)

@@ -155,6 +155,18 @@ def write_stations(gdf: gpd.GeoDataFrame, path: str | os.PathLike[str]) -> Path:
     complete. A CSV has no geometry column: it keeps the stations' own coordinate columns, or
     gets ``longitude``/``latitude`` (WGS84 degrees) when the stations came from a vector file.
 
+    Parameters
+    ----------
+    gdf : geopandas.GeoDataFrame
+        The stations :func:`sample_stations` returned.
+    path : str or os.PathLike
+        A ``.csv`` or ``.gpkg`` file.
+
+    Returns
+    -------
+    pathlib.Path
+        The file written.
+
     Raises
     ------
     lidmelt.errors.InputError

@@ -200,9 +200,32 @@ def assess(
 ) -> dict[str, Any]:
     """Score the run's ``variable`` against known ``features`` (module notes).
 
-    Returns the assessment as a JSON-ready dict (docs/assess.md lists its keys): ``variable``,
-    ``n_features``, ``n_features_used``, ``auc``, ``auc_ci90``, ``curve``, ``thresholds`` and
-    the rest.
+    Parameters
+    ----------
+    run : RunDir or str or os.PathLike
+        A finished run.
+    features : FeaturePoints or str or os.PathLike
+        The known features (seamounts, volcanoes): a CSV or vector file of points.
+    variable : str, optional
+        The output ranked; by default an ensemble run's probability of melting of its
+        screening basis, else the melt the thermal anomaly adds.
+    thresholds : list of float, optional
+        The values of ``variable`` at which weights of evidence are given (default: a
+        probability 0.1, 0.5, 0.9; a melt thickness 0.5, 1, 2 km; another variable the
+        quartiles of the features' values).
+    candidates : str or os.PathLike, optional
+        Candidate regions (``lidmelt screen``) to count the features in.
+    seed : int
+        Seed of the bootstrap resamples of the 90 % interval.
+    crs : optional
+        The CRS of a feature table's coordinates (default WGS 84 degrees).
+
+    Returns
+    -------
+    dict
+        The assessment, ready for JSON (docs/assess.md lists its keys): ``variable``,
+        ``n_features``, ``n_features_used``, ``auc``, ``auc_ci90``, ``curve``, ``thresholds``
+        and the rest.
 
     Raises
     ------

@@ -48,7 +48,23 @@ def check_output(path: str | os.PathLike[str]) -> Path:
 def write_assessment(
     doc: dict[str, Any], path: str | os.PathLike[str], *, run_dir: Path | None = None
 ) -> tuple[Path, Path]:
-    """Write ``doc`` as JSON to ``path`` and its figure (:func:`figure_path`); return both."""
+    """Write an assessment as JSON and draw its success-rate figure.
+
+    Parameters
+    ----------
+    doc : dict
+        The assessment :func:`assess` returned.
+    path : str or os.PathLike
+        The ``.json`` file, written atomically.
+    run_dir : pathlib.Path, optional
+        The run assessed: the default file (``assessment.json`` in the run) puts its figure in
+        the run's maps folder; any other file gets its figure beside it (suffix ``.png``).
+
+    Returns
+    -------
+    tuple of pathlib.Path
+        The JSON file and the figure.
+    """
     path = check_output(path)
     figure = figure_path(path, run_dir)
     figure.parent.mkdir(parents=True, exist_ok=True)

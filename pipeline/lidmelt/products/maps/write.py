@@ -96,8 +96,28 @@ def save_figure(
 def draw_map(run: RunDir | str | Path, variable: str, *, path: str | Path, **options: Any) -> Path:
     """Draw one variable of a run and write it to ``path`` (png, pdf or svg by suffix).
 
-    The options are the fields of :class:`MapOptions` (as for :func:`make_map_figure`); the
-    written image is ``width_in * dpi`` pixels wide. Returns ``path``.
+    Parameters
+    ----------
+    run : RunDir or str or pathlib.Path
+        A finished run (see :func:`lidmelt.grids.open_run`).
+    variable : str
+        An output variable of the run, e.g. ``"melt_thickness_km"``.
+    path : str or pathlib.Path
+        The image file; its suffix chooses the format.
+    **options
+        The fields of :class:`MapOptions` (projection, colour limits, overlays, ``width_in``,
+        ``dpi`` ...); the written image is ``width_in * dpi`` pixels wide.
+
+    Returns
+    -------
+    pathlib.Path
+        ``path``.
+
+    Raises
+    ------
+    InputError
+        If the variable is not in the run, the suffix is not png, pdf or svg, or an option is
+        invalid.
     """
     path = Path(path)
     _check_suffix(path)
