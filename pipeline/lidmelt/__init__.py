@@ -1,7 +1,16 @@
 """lidmelt: maps of predicted mantle melt productivity beneath oceanic lithosphere.
 
-The one-column entry points are :func:`melt_column` and :func:`excess_to_melt_k`; basin runs go
-through :mod:`lidmelt.workflow` and :mod:`lidmelt.engine`.
+The one-column entry points are :func:`melt_column` and :func:`excess_to_melt_k`; a basin run
+is :func:`lidmelt.workflow.load_workflow` then :func:`lidmelt.workflow.run_basin`, and a
+finished run's products come from :mod:`lidmelt.products`. The public names are those in
+``__all__`` of ``lidmelt`` and of its subpackages whose names have no leading underscore
+(docs/api.md lists them); every module whose name starts with an underscore is private and may
+change without notice.
+
+Attributes
+----------
+__version__ : str
+    The installed version (``"0+unknown"`` in a source tree that is not installed).
 """
 
 from importlib.metadata import PackageNotFoundError, version

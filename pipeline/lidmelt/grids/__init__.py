@@ -8,6 +8,12 @@
 - :mod:`.vector`: points, tracks and polygons from CSV or vector files;
 - :mod:`.geotiff`, :mod:`.write`, :mod:`.store`: GeoTIFF and NetCDF writing;
 - :mod:`.rundir`: the run directory, read and written.
+
+Attributes
+----------
+RESAMPLING_METHODS : dict of str to rasterio.enums.Resampling
+    The resampling names :func:`align` accepts (``"nearest"``, ``"bilinear"``, ``"cubic"``
+    ...: GDAL warper kernels).
 """
 
 from lidmelt.grids.align import RESAMPLING_METHODS, align

@@ -1,7 +1,23 @@
 """Pure numpy/scipy physics: melting models, the isentropic column, its table, cooling models.
 
 Nothing in this subpackage reads or writes files, except the melting table's disk cache
-(:mod:`lidmelt.physics.table`). Callers outside the subpackage import from here.
+(:mod:`lidmelt.physics.table`).
+
+Attributes
+----------
+MODELS : dict of str to MeltingModel
+    The published melting models by registry name (``"katz2003"``: Katz, Spiegelman &
+    Langmuir 2003; ``"mckenzie-bickle1988"``: McKenzie & Bickle 1988).
+COOLING_MODELS : mapping of str to CoolingModel
+    The cooling models of oceanic lithosphere by name (``"half-space"``, ``"gdh1"``: Stein &
+    Stein 1992, ``"ps77"``: Parsons & Sclater 1977), read-only.
+FLAG_MEANINGS : dict of int to str
+    What each bit of the ``flag`` output means (invalid input, no onset, beyond the
+    calibrated pressure, water-saturated, the upper mantle's floor).
+TOP_OF_MELTING_RULES : tuple of str
+    The rules for where a column beneath a lid from plate age stops melting: ``"geotherm"``
+    (the default: where it meets its plate's conductive geotherm) and ``"isotherm"`` (at the
+    depth of the lid-base isotherm).
 """
 
 from lidmelt.physics._jitcache import cache_note as compiled_cache_note

@@ -20,7 +20,9 @@ Modules: :mod:`~lidmelt.workflow.checks` (single values), :mod:`~lidmelt.workflo
 keys), :mod:`~lidmelt.workflow.inputs` and :mod:`~lidmelt.workflow.tables` (the tables),
 :mod:`~lidmelt.workflow.overrides` (``--set``) and :mod:`~lidmelt.workflow.load`. The
 configuration classes live in :mod:`lidmelt.config` (only :class:`RunConfig`, the type
-:func:`load_workflow` returns, is re-exported here).
+:func:`load_workflow` returns, is re-exported here). :func:`run_basin` runs one
+(``run_basin(load_workflow("workflows/demo.toml"))``), as ``lidmelt run`` does without the
+maps and the report.
 """
 
 from lidmelt.config import RunConfig
