@@ -61,6 +61,7 @@ from lidmelt.variables import (
     ensemble_variable,
     input_for_workflow_key,
     is_legacy_probability,
+    legacy_message,
 )
 
 __all__ = [
@@ -237,6 +238,10 @@ def _check_entries(path: Path, summary: Mapping[str, Any]) -> None:
     after the run is refused like any tampered run, not skipped."""
     for group, file_of in (("outputs", output_file), ("inputs", input_file)):
         for name, entry in _entries(summary, group).items():
+            renamed = group == "outputs" and not is_legacy_probability(str(name))
+            if renamed and (legacy := legacy_message(str(name))):
+                msg = f"run directory {str(path)!r} was made by an earlier lidmelt: {legacy}"
+                raise RunDirError(msg)
             known = name in INPUTS if group == "inputs" else _is_output(name)
             listed = entry.get("file") if isinstance(entry, dict) else None
             if not known or listed not in (None, file_of(name)):
