@@ -36,7 +36,7 @@ UNITS = {
     "anomaly_melt_thickness_km": "km",
     "onset_depth_km": "km",
     "onset_pressure_gpa": "GPa",
-    "lid_depth_km": "km",
+    "melting_top_km": "km",
     "max_melt_fraction": "1",
     "mean_melt_pressure_gpa": "GPa",
     "excess_to_melt_k": "K",

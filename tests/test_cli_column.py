@@ -23,7 +23,7 @@ KEYS = {
     "melt_thickness_km",
     "onset_depth_km",
     "onset_pressure_gpa",
-    "lid_depth_km",
+    "melting_top_km",
     "max_melt_fraction",
     "mean_melt_pressure_gpa",
     "excess_to_melt_k",
@@ -49,14 +49,14 @@ def test_json_has_every_key_and_matches_the_api(capsys):
     assert doc["water_depth_m"] == pytest.approx(depth_m)
     res = melt_column(1550.0, lid, 0.0, method="direct", water_load_km=load)
     assert doc["melt_thickness_km"] == pytest.approx(float(res.melt_thickness_km))
-    assert doc["lid_depth_km"] == pytest.approx(lid)
+    assert doc["melting_top_km"] == pytest.approx(lid)
     assert doc["excess_to_melt_k"] == pytest.approx(
         float(excess_to_melt_k(lid, water_load_km=load))
     )
     # physically sensible (common practice): a 200 K plume under 80 Ma seafloor melts from below
     # the lid; the onset is deeper than the lid and the excess needed is below the 200 K given
     assert doc["melt_thickness_km"] > 0
-    assert doc["onset_depth_km"] > doc["lid_depth_km"]
+    assert doc["onset_depth_km"] > doc["melting_top_km"]
     assert 0 < doc["excess_to_melt_k"] < 200
     assert doc["validity_flag"] == 0
     assert doc["model"] == "katz2003"
@@ -88,14 +88,14 @@ def test_the_geotherm_top_of_melting(capsys):
     )  # fmt: skip
     assert doc["top_of_melting"] == "geotherm"
     assert doc["lid_isotherm_c"] is None
-    assert doc["lid_depth_km"] == pytest.approx(float(top), abs=0.3)
-    assert table["lid_depth_km"] == pytest.approx(float(top), abs=1e-4)
+    assert doc["melting_top_km"] == pytest.approx(float(top), abs=0.3)
+    assert table["melting_top_km"] == pytest.approx(float(top), abs=1e-4)
     assert doc["melt_thickness_km"] == pytest.approx(table["melt_thickness_km"], abs=0.03)
     assert doc["excess_to_melt_k"] == pytest.approx(float(excess), abs=1.5)
     # beneath 60 Ma half-space seafloor the ambient column meets its geotherm nowhere
     old = run_json(capsys, "--excess-temperature", "0", "--age", "60")
     assert old["melt_thickness_km"] == 0.0
-    assert old["lid_depth_km"] is None
+    assert old["melting_top_km"] is None
     assert old["onset_depth_km"] is None
     assert old["melting_regime"] == 0
 

@@ -38,7 +38,7 @@ def test_ridge_at_ambient_makes_normal_oceanic_crust():
     # JGR 97, 19683; from memory). Default model, ambient Tp 1350 C, no lid, top at 7 km.
     res = direct(1350.0, 0.0)
     assert 7.1 - 0.8 <= float(res.melt_thickness_km) <= 7.1 + 0.8
-    assert float(res.lid_depth_km) == 7.0
+    assert float(res.melting_top_km) == 7.0
     assert res.flag == 0
 
 
@@ -153,11 +153,11 @@ def test_water_moves_the_onset_more_than_the_melt():
 def test_outputs_definitions():
     res = direct(np.array([1350.0, 1550.0]), np.array([30.0, 3.0]))
     # top of melting = max(lid, 7 km) (lidmelt definition, docs/physics.md)
-    npt.assert_allclose(res.lid_depth_km, [30.0, 7.0])
+    npt.assert_allclose(res.melting_top_km, [30.0, 7.0])
     # onset pressure and depth agree through P = rho g z
     npt.assert_allclose(res.onset_depth_km, K.depth_km(res.onset_pressure_gpa))
     # the mean pressure of melting lies between the top and the onset
-    top_p = K.pressure_gpa(res.lid_depth_km)
+    top_p = K.pressure_gpa(res.melting_top_km)
     assert np.all(
         (res.mean_melt_pressure_gpa > top_p) & (res.mean_melt_pressure_gpa < res.onset_pressure_gpa)
     )
@@ -273,4 +273,4 @@ def test_properties_monotone_and_bounded(cells):
     f = base.max_melt_fraction[ok]
     assert np.all((f >= 0) & (f <= 1))
     melts = ok & (h > 0)
-    assert np.all(base.onset_depth_km[melts] > base.lid_depth_km[melts])
+    assert np.all(base.onset_depth_km[melts] > base.melting_top_km[melts])

@@ -161,7 +161,7 @@ def test_demo_cells_equal_melt_column(demo_run):
     tol = np.maximum(0.005 * ref.melt_thickness_km, 0.02)  # the table tolerance
     assert np.all(np.abs(h - ref.melt_thickness_km) <= tol + 1e-5)
     npt.assert_allclose(out["onset_depth_km"][ys, xs], ref.onset_depth_km, atol=0.2)
-    npt.assert_allclose(out["lid_depth_km"][ys, xs], ref.lid_depth_km, atol=0.1)
+    npt.assert_allclose(out["melting_top_km"][ys, xs], ref.melting_top_km, atol=0.1)
     npt.assert_allclose(out["max_melt_fraction"][ys, xs], ref.max_melt_fraction, atol=2e-3)
     excess = direct_excess_k(
         get_model("katz2003"), half_space, 0.0, cell_age, ambient_c=1350.0, water_load_km=load
@@ -403,7 +403,7 @@ def test_lid_limit_is_the_registry_one(tmp_path):
     ok = with_lid_grid(tmp_path / "ok", np.full((40, 60), 390.0))
     res = run_basin(load_workflow(ok, output_dir=tmp_path / "ok_out"), progress=False)
     # the lid grid wins over the age: every cell's lid is 390 km (identity with the input)
-    npt.assert_allclose(open_run(res.run_dir).open("lid_depth_km").values, 390.0)
+    npt.assert_allclose(open_run(res.run_dir).open("melting_top_km").values, 390.0)
 
 
 def test_write_summary_is_read_back_by_run_dir(tmp_path):
@@ -526,7 +526,7 @@ def test_lid_given_below_sea_level_loses_the_water_depth(tmp_path):
     result = run_basin(load_workflow(wf, output_dir=tmp_path / "out"), progress=False)
     run = open_run(result.run_dir)
     age = run.open("plate_age_ma").values
-    lid = run.open("lid_depth_km").values
+    lid = run.open("melting_top_km").values
     depth_km = seafloor_depth_m(age, model=get_cooling_model("half-space")) / 1000.0
     ok = np.isfinite(age)
     np.testing.assert_allclose(lid[ok], np.maximum(150.0 - depth_km[ok], 7.0), rtol=1e-5)

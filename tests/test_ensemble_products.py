@@ -639,15 +639,33 @@ def test_an_ensemble_run_lists_its_layers_as_outputs(tmp_path):
 
 def test_captions_write_ordinals_in_english():
     """'2nd and 98th', not '2th' (the excess to melt has limits at those percentiles)."""
-    from lidmelt.products.maps.captions import map_caption
+    from lidmelt.products.maps.captions import CaptionOptions, map_caption
 
     style = style_for("excess_to_melt_k")
     assert style.percentiles == (2.0, 98.0)
-    text = map_caption({}, style=style, no_melt=False, extend="neither", proj_name="Mercator",
-                       age=False, coast_path=None)  # fmt: skip
+    text = map_caption(
+        {},
+        CaptionOptions(
+            style=style,
+            no_melt=False,
+            extend="neither",
+            proj_name="Mercator",
+            age=False,
+            coast_path=None,
+        ),
+    )
     assert "from the 2nd and 98th percentiles" in text
-    melt = map_caption({}, style=style_for("melt_thickness_km"), no_melt=True, extend="neither",
-                       proj_name="Mercator", age=False, coast_path=None)  # fmt: skip
+    melt = map_caption(
+        {},
+        CaptionOptions(
+            style=style_for("melt_thickness_km"),
+            no_melt=True,
+            extend="neither",
+            proj_name="Mercator",
+            age=False,
+            coast_path=None,
+        ),
+    )
     assert "to the 99.5th percentile" in melt
 
 

@@ -51,7 +51,7 @@ def fields():
         "melt_thickness_km": melt,
         "onset_depth_km": onset,
         "excess_to_melt_k": excess,
-        "lid_depth_km": lid,
+        "melting_top_km": lid,
         "plate_age_ma": 1.0 + 3.0 * x + 0.0 * y,
         "thermal_anomaly_k": np.exp(-((x - 5) ** 2 + (y - 10) ** 2) / 20.0) * 200.0,
     }
@@ -120,7 +120,7 @@ def test_plumes_ranks_and_labels_stay_inside_the_frame(run, tmp_path):
 
 
 def test_latitude_labels_on_both_sides(run):
-    fig, info = maps.make_map_figure(run, "lid_depth_km", coastlines=False, dpi=50)
+    fig, info = maps.make_map_figure(run, "melting_top_km", coastlines=False, dpi=50)
     fig.canvas.draw()
     gl = info.gridliner
     left = [a.get_text() for a in gl.left_label_artists if a.get_visible()]
@@ -179,7 +179,7 @@ def test_overview_has_its_panels_labels_and_vector_copies(run, tmp_path):
         "melt_thickness_km",
         "onset_depth_km",
         "excess_to_melt_k",
-        "lid_depth_km",
+        "melting_top_km",
     )
     assert info.colorbar_labels[2] == "Melt thickness (km)"
     onset = fields()["onset_depth_km"][fields()["melt_thickness_km"] > 0]
@@ -243,7 +243,7 @@ def test_profile_is_a_cross_section_with_named_waypoints(run, tmp_path):
 
 def test_colour_bars_label_both_ends_of_their_scale(run):
     """Check values: the colour limits the map reports (vmin, vmax) are tick positions."""
-    for name in ("melt_thickness_km", "onset_depth_km", "excess_to_melt_k", "lid_depth_km"):
+    for name in ("melt_thickness_km", "onset_depth_km", "excess_to_melt_k", "melting_top_km"):
         _, info = maps.make_map_figure(run, name, coastlines=False, dpi=60)
         ticks = list(info.colorbar.get_ticks())
         assert ticks[0] == pytest.approx(info.vmin), name
@@ -273,7 +273,7 @@ def test_onset_flags_are_not_hatched_on_the_lid_or_the_excess(run, add_validity_
     for name, hatched in (
         ("onset_depth_km", True),
         ("melt_thickness_km", True),
-        ("lid_depth_km", False),
+        ("melting_top_km", False),
         ("excess_to_melt_k", False),
     ):
         _, info = maps.make_map_figure(run, name, coastlines=False, dpi=60)

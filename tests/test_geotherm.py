@@ -309,7 +309,7 @@ def test_a_lid_grid_stays_the_users_cap_and_the_isotherm_rule_is_unchanged(water
     lid = np.array([[np.nan, 50.0, np.nan], [3.0, np.nan, 90.0]])
     anomaly = np.array([[0.0, 100.0, 200.0], [0.0, 150.0, 250.0]])
     depth = np.array([[2600.0, 3100.0, 4200.0], [5000.0, 5600.0, 6100.0]])
-    row = list(OUTPUTS).index("lid_depth_km")
+    row = list(OUTPUTS).index("melting_top_km")
     out = evaluate_chunk(age, lid, anomaly, 0.0, 0.0, depth, settings=geo)
     given = np.isfinite(lid)
     npt.assert_allclose(out[row][given], np.maximum(lid[given], 7.0))

@@ -155,7 +155,7 @@ def test_engine_lid_from_age_is_the_lookup():
     given = lid_lookup(1100.0, model=GDH1).depth_km(age)
     same = evaluate_chunk(age, given, 150.0, 0.0, settings=settings)
     npt.assert_array_equal(out, same)
-    lid = out[list(OUTPUTS).index("lid_depth_km")]
+    lid = out[list(OUTPUTS).index("melting_top_km")]
     exact = isotherm_depth_km(1100.0, age, model=GDH1)
     npt.assert_allclose(lid, exact, atol=TOLERANCE_KM + 1e-5 * exact.max())  # float32 output
 

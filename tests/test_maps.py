@@ -409,7 +409,7 @@ def test_every_registered_variable_has_a_map_style():
         "onset_pressure_gpa": ("cividis_r", False, True),
         # the top of melting is nodata where a column meets its geotherm nowhere and does not
         # melt (the geotherm rule, docs/physics.md "One mantle beneath the lid")
-        "lid_depth_km": ("cividis_r", False, True),
+        "melting_top_km": ("cividis_r", False, True),
         "max_melt_fraction": ("plasma", True, False),
         "mean_melt_pressure_gpa": ("cividis_r", False, True),
         "excess_to_melt_k": ("RdBu_r", False, False),

@@ -90,7 +90,7 @@ def test_track_point_melt_is_one_column_at_tp_and_lid_then(points):
     h = got["melt_thickness_km"].to_numpy()
     assert np.all(np.abs(h - ref.melt_thickness_km) <= table_tolerance(ref.melt_thickness_km))
     npt.assert_allclose(got["onset_depth_km"], ref.onset_depth_km, atol=0.2)
-    npt.assert_allclose(got["lid_depth_then_km"], ref.lid_depth_km, atol=0.02)
+    npt.assert_allclose(got["melting_top_then_km"], ref.melting_top_km, atol=0.02)
     # the melt the anomaly adds: minus the ambient column beneath the same lid
     amb = column_then(np.full(formed.sum(), 1350.0), age_then[formed])
     added = ref.melt_thickness_km - amb.melt_thickness_km

@@ -40,7 +40,7 @@ def fields_across():
     return {
         "melt_thickness_km": 0.25 * (x - 150.0) + 0.5 * y + 20.0,
         "onset_depth_km": 100.0 + 0.5 * y,
-        "lid_depth_km": 40.0 + 0.25 * (x - 150.0),
+        "melting_top_km": 40.0 + 0.25 * (x - 150.0),
         "thermal_anomaly_k": 2.0 * x,
     }
 

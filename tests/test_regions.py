@@ -118,7 +118,7 @@ def regional(make_run_dir):
     fields = {
         "melt_thickness_km": melt,
         "onset_depth_km": onset,
-        "lid_depth_km": np.full((40, 60), 50.0),
+        "melting_top_km": np.full((40, 60), 50.0),
         "thermal_anomaly_k": anomaly,
     }
     run = make_run_dir(fields, transform=REGIONAL)

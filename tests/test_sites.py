@@ -28,7 +28,7 @@ OUTPUTS = [
     "melt_thickness_km",
     "onset_depth_km",
     "onset_pressure_gpa",
-    "lid_depth_km",
+    "melting_top_km",
     "max_melt_fraction",
     "mean_melt_pressure_gpa",
     "excess_to_melt_k",
@@ -117,7 +117,7 @@ def test_nearest_takes_the_containing_cell(regional_run):
     out = sample_stations(regional_run, points(lon, lat), method="nearest")
     clon = -40.0 + 0.5 * (np.floor((lon + 40.0) / 0.5) + 0.5)
     clat = 10.0 - 0.5 * (np.floor((10.0 - lat) / 0.5) + 0.5)
-    np.testing.assert_array_equal(out["lid_depth_km"], linear_value("lid_depth_km", clon, clat))
+    np.testing.assert_array_equal(out["melting_top_km"], linear_value("melting_top_km", clon, clat))
 
 
 def test_projected_grid_and_station_file_in_another_crs(make_run_dir, tmp_path):
@@ -163,13 +163,13 @@ def test_grid_across_the_antimeridian(make_run_dir, tmp_path):
         out = sample_stations(run, points(lon, lat))
         assert (out["status"] == "ok").all()
         np.testing.assert_allclose(
-            out["lid_depth_km"], linear_value("lid_depth_km", lon_east, lat), atol=1e-9
+            out["melting_top_km"], linear_value("melting_top_km", lon_east, lat), atol=1e-9
         )
     csv = tmp_path / "stations_0_360.csv"
     pd.DataFrame({"site": list("ABCDE"), "lon": lon_east, "lat": lat}).to_csv(csv, index=False)
     out = sample_stations(run, csv)
     np.testing.assert_allclose(
-        out["lid_depth_km"], linear_value("lid_depth_km", lon_east, lat), atol=1e-9
+        out["melting_top_km"], linear_value("melting_top_km", lon_east, lat), atol=1e-9
     )
     np.testing.assert_array_equal(out["lon"], lon_east)  # the file's columns are kept as given
 
@@ -181,7 +181,7 @@ def test_global_grid_interpolates_across_the_seam(make_run_dir, tmp_path):
     t = Affine(2.0, 0.0, -180.0, 0.0, -2.0, 90.0)
     x, _ = centres(t, 90, 180)
     col = np.broadcast_to(np.arange(180.0), (90, 180))  # column number as the field
-    run = make_run_dir({"melt_thickness_km": col, "lid_depth_km": 0.0 * x}, transform=t)
+    run = make_run_dir({"melt_thickness_km": col, "melting_top_km": 0.0 * x}, transform=t)
     lon = np.array([179.9, -179.9, 180.0, 0.5])
     lat = np.array([1.0, 1.0, 1.0, 1.0])  # lat 1 N is a row centre: no interpolation in y
     out = sample_stations(run, points(lon, lat))
@@ -213,8 +213,8 @@ def test_outer_half_cell_holds_the_edge_value(regional_run):
     """Between the outermost cell centre (-39.75 E) and the grid edge (-40 E) the coordinate is
     held at the centre (documented rule), so the value is the edge column's."""
     out = sample_stations(regional_run, points([-39.9, -40.0], [0.25, 0.25]))
-    expected = linear_value("lid_depth_km", -39.75, 0.25)
-    np.testing.assert_allclose(out["lid_depth_km"], [expected, expected], atol=1e-12)
+    expected = linear_value("melting_top_km", -39.75, 0.25)
+    np.testing.assert_allclose(out["melting_top_km"], [expected, expected], atol=1e-12)
     assert list(out["status"]) == ["ok", "ok"]
 
 
@@ -240,7 +240,7 @@ def test_nodata_and_next_to_nodata(make_run_dir):
     assert np.isnan(out.loc[2, "onset_depth_km"])
     # ... while the other variables there interpolate normally.
     np.testing.assert_allclose(
-        out.loc[2, "lid_depth_km"], linear_value("lid_depth_km", -37.1, 7.1), atol=1e-9
+        out.loc[2, "melting_top_km"], linear_value("melting_top_km", -37.1, 7.1), atol=1e-9
     )
 
 
@@ -349,7 +349,7 @@ def test_csv_columns_named_by_option_and_crs(regional_run, tmp_path):
     pd.DataFrame({"E": e, "N": n}).to_csv(csv, sep=";", index=False)
     out = sample_stations(regional_run, csv, lon_column="E", lat_column="N", crs="EPSG:3857")
     np.testing.assert_allclose(
-        out["lid_depth_km"], linear_value("lid_depth_km", lon, lat), atol=1e-8
+        out["melting_top_km"], linear_value("melting_top_km", lon, lat), atol=1e-8
     )
 
 
@@ -400,7 +400,7 @@ def test_cli_sample_nearest_to_gpkg(regional_run, tmp_path):
     assert main(["sample", str(regional_run), str(csv), "--method", "nearest", "-o", str(out)]) == 0
     g = gpd.read_file(out)
     # Containing cell centre (-20.25, 0.25).
-    assert g.loc[0, "lid_depth_km"] == linear_value("lid_depth_km", -20.25, 0.25)
+    assert g.loc[0, "melting_top_km"] == linear_value("melting_top_km", -20.25, 0.25)
 
 
 @pytest.mark.parametrize(
@@ -541,7 +541,7 @@ def test_categorical_variables_are_sampled_at_the_nearest_cell(make_run_dir):
     assert list(out["melting_regime"]) == [1.0, 2.0]
     # the amounts beside it are still interpolated (a linear field is reproduced exactly)
     np.testing.assert_allclose(
-        out["lid_depth_km"], linear_value("lid_depth_km", np.array([-25.1, -24.9]), 0.1)
+        out["melting_top_km"], linear_value("melting_top_km", np.array([-25.1, -24.9]), 0.1)
     )
 
 
@@ -558,8 +558,8 @@ def test_station_longitudes_follow_the_grid_convention(make_run_dir, tmp_path):
     out = sample_stations(run, csv)
     np.testing.assert_allclose(out["lon"], [215.0, 210.5])
     np.testing.assert_allclose(
-        out["lid_depth_km"],
-        linear_value("lid_depth_km", np.array([215.0, 210.5]), np.array([1.0, -2.0])),
+        out["melting_top_km"],
+        linear_value("melting_top_km", np.array([215.0, 210.5]), np.array([1.0, -2.0])),
     )
 
 

@@ -75,7 +75,7 @@ def test_statistics_from_chunk_records_equal_whole_grid_numpy():
     ambient = (regime == 1) | (regime == 2)  # ambient mantle melts (docs/physics.md)
     assert st["ambient_melting"]["cells"] == int(ambient.sum())
     # the histogram median (0.5-wide bins, bin centre) lies within half a bin of numpy's median
-    top = layers[K["lid_depth_km"]][ambient]
+    top = layers[K["melting_top_km"]][ambient]
     assert abs(st["ambient_melting"]["median_top_of_melting_km"] - np.median(top)) <= 0.5
     assert abs(st["ambient_melting"]["median_plate_age_ma"] - np.median(age[ambient])) <= 0.5
 

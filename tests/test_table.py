@@ -22,7 +22,7 @@ from lidmelt.physics.table import (
 
 
 def assert_within_tolerance(direct, table):
-    for name in ("melt_thickness_km", "onset_depth_km", "max_melt_fraction", "lid_depth_km"):
+    for name in ("melt_thickness_km", "onset_depth_km", "max_melt_fraction", "melting_top_km"):
         a, b = getattr(direct, name), getattr(table, name)
         npt.assert_array_equal(np.isnan(a), np.isnan(b), err_msg=name)
     npt.assert_array_equal(direct.flag, table.flag)

@@ -37,7 +37,7 @@ RUN_FILES = {  # what a run of runkit.basin() writes (registry names; identity)
     "excess_to_melt_k.tif",
     "input_plate_age_ma.tif",
     "input_thermal_anomaly_k.tif",
-    "lid_depth_km.tif",
+    "melting_top_km.tif",
     "lidmelt.nc",
     "max_melt_fraction.tif",
     "mean_melt_pressure_gpa.tif",
@@ -84,8 +84,8 @@ def copy_run(src, dst):
         (lambda d: (d / "melt_thickness_km.tif").write_bytes(b"II*\x00"), "has 4 bytes"),
         (lambda d: (d / "onset_depth_km.tif").unlink(), "'onset_depth_km.tif' is missing"),
         (
-            lambda d: (d / "lid_depth_km.tif").write_bytes(
-                (d / "onset_depth_km.tif").read_bytes()[: (d / "lid_depth_km.tif").stat().st_size]
+            lambda d: (d / "melting_top_km.tif").write_bytes(
+                (d / "onset_depth_km.tif").read_bytes()[: (d / "melting_top_km.tif").stat().st_size]
             ),
             "SHA-256",
         ),
@@ -328,14 +328,14 @@ def test_a_previous_run_holding_an_input_of_this_run_is_refused(first_run, tmp_p
     wf = tmp_path / "w.toml"
     wf.write_text(
         '[run]\nname = "selfin"\nmaps = false\nreport = false\n[grid]\nlike = "lid_thickness"\n'
-        '[inputs.lid_thickness]\npath = "prev/lid_depth_km.tif"\n[compute]\nchunk_size = 64\n'
+        '[inputs.lid_thickness]\npath = "prev/melting_top_km.tif"\n[compute]\nchunk_size = 64\n'
     )
     before = runkit.snapshot(tmp_path)
     for dest in (prev, prev / "."):
         assert main(["run", str(wf), "-o", str(dest), "--quiet"]) == 1
         runkit.refused(
             capsys.readouterr().err, "run", f"output folder '{prev}",
-            f"holds '{prev / 'lid_depth_km.tif'}', which this run reads",
+            f"holds '{prev / 'melting_top_km.tif'}', which this run reads",
             "Give another output folder (-o OUT_DIR or run.output_dir), or move the file out",
         )  # fmt: skip
     assert runkit.snapshot(tmp_path) == before  # the input and the previous run are intact

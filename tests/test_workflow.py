@@ -240,7 +240,7 @@ def test_defaults_are_applied(basin, tmp_path, monkeypatch):
         "melt_thickness_km",
         "onset_depth_km",
         "onset_pressure_gpa",
-        "lid_depth_km",
+        "melting_top_km",
         "max_melt_fraction",
         "mean_melt_pressure_gpa",
         "excess_to_melt_k",
@@ -433,7 +433,7 @@ def test_set_overrides_types_and_nested_keys(tmp_path, basin):
             'compute.method="direct"',  # a TOML string
             "run.netcdf=true",  # a TOML boolean
             "compute.workers = 1",  # spaces around '=' are allowed
-            'outputs.variables=["lid_depth_km"]',  # a TOML array
+            'outputs.variables=["melting_top_km"]',  # a TOML array
             "inputs.thermal_anomaly.plumes.1.peak_excess_k=300",  # plume 1
             "run.name=first",
             "run.name=second",  # a later item wins
@@ -446,7 +446,7 @@ def test_set_overrides_types_and_nested_keys(tmp_path, basin):
     assert cfg.compute.method == "direct"
     assert cfg.run.netcdf is True
     assert cfg.compute.workers == 1
-    assert cfg.outputs.variables == ("lid_depth_km",)
+    assert cfg.outputs.variables == ("melting_top_km",)
     assert cfg.inputs.thermal_anomaly.plumes[0].peak_excess_k == 300.0
     assert cfg.run.name == "second"
     assert len(cfg.overrides) == 11

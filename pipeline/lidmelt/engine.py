@@ -574,8 +574,7 @@ def _run_staged(
         cfg=cfg, run_dir=run_dir, target=target, inputs=inputs, model=model, table=table,
         cooling=cooling, tags=tags, progress=progress, client=client,
     )  # fmt: skip
-    summary = rundir.build_summary(
-        cfg,
+    record = rundir.RunRecord(
         grid=target,
         model=model,
         cooling=cooling,
@@ -586,6 +585,7 @@ def _run_staged(
         warnings=run_warnings,
         extra={"water_load": inputs.water_load[2], **_run_stages(extra_stages, context, files)},
     )
+    summary = rundir.build_summary(cfg, record)
     files.append(run_dir / rundir.SUMMARY_NAME)
     timings["total_s"] = time.perf_counter() - t0
     return RunResult(run_dir, files, summary, timings, inputs.sources())

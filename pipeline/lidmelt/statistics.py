@@ -102,7 +102,7 @@ def chunk_record(
             rec += [values.min(), values.max(), values.sum(dtype=np.float64), values.size]
         else:
             rec += [np.nan, np.nan, 0.0, 0]
-    top = block[_index("lid_depth_km")][ambient]
+    top = block[_index("melting_top_km")][ambient]
     hists = [np.histogram(top, bins=_HIST_BINS, range=_HIST_RANGE)[0]]
     if age is not None:
         hists.append(np.histogram(age[ambient], bins=_HIST_BINS, range=_HIST_RANGE)[0])

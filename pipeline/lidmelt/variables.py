@@ -153,7 +153,7 @@ _OUTPUT_LIST = (
         undefined_without_melt=True,
     ),
     Variable(
-        name="lid_depth_km",
+        name="melting_top_km",
         units="km",
         long_name="top of the melting column (lid, geotherm or crust base)",
         style="depth",
@@ -464,6 +464,30 @@ def is_legacy_probability(name: str) -> bool:
     return bool(_LEGACY_PROBABILITY.match(name))
 
 
+#: Outputs an earlier lidmelt wrote under another name: the old name -> the name now.
+RENAMED_OUTPUTS: dict[str, str] = {"lid_depth_km": "melting_top_km"}
+
+
+def legacy_message(name: str) -> str | None:
+    """The one text of every error about ``name``, an output of an earlier lidmelt renamed since
+    (:data:`RENAMED_OUTPUTS`, or its ``_p<q>``) or a probability map of no basis; else None."""
+    base, sep, q = name.rpartition("_p")
+    now = RENAMED_OUTPUTS[base] + sep + q if sep and base in RENAMED_OUTPUTS else None
+    if (now := now or RENAMED_OUTPUTS.get(name)) is not None:
+        return (
+            f"{name!r} is the name an earlier lidmelt gave the {get_variable(now).long_name}; it "
+            f"is now {now!r} (the GeoTIFF {now}.tif, the NetCDF variable {now}). Write {now!r}, "
+            "and run 'lidmelt run' again on a run folder made by an earlier lidmelt."
+        )
+    if not is_legacy_probability(name):
+        return None
+    return (
+        f"{name!r} is a probability map of an ensemble run made by an earlier lidmelt (of any "
+        f"melt, no basis); they are now named {probability_name('anomaly', 1)} (basis 'anomaly' "
+        "or 'total', threshold in km). Run 'lidmelt run' on the ensemble workflow again."
+    )
+
+
 #: The probability of melting by default (a template: each basis and threshold has its own name,
 #: :func:`probability_name`; :func:`ensemble_variable` gives its Variable).
 MELT_PROBABILITY = Variable(
@@ -510,8 +534,7 @@ def ensemble_variable(name: str) -> Variable | None:
     a percentile ``<output>_p<q>`` keeps its output's unit and style;
     ``members_without_value_fraction`` is a fraction of the members.
     """
-    parsed = parse_ensemble_name(name)
-    if parsed is None:
+    if (parsed := parse_ensemble_name(name)) is None:
         return None
     if parsed.kind == "count":
         return MEMBERS_WITHOUT_VALUE
@@ -529,25 +552,17 @@ def ensemble_variable(name: str) -> Variable | None:
 def get_variable(name: str) -> Variable:
     """The registered variable ``name`` (or an ensemble output, :func:`ensemble_variable`);
     an :class:`InputError` listing the names otherwise."""
-    derived = ensemble_variable(name)
-    if derived is not None:
+    if (derived := ensemble_variable(name)) is not None:
         return derived
-    if is_legacy_probability(name):
-        msg = (
-            f"{name!r} is a probability map of an ensemble run made by an earlier lidmelt (of "
-            "any melt, with no basis); probability maps are now named "
-            f"{probability_name('anomaly', 1.0)} (basis 'anomaly' or 'total', threshold in km). "
-            "Run 'lidmelt run' on the ensemble workflow again to write them."
-        )
-        raise InputError(msg)
-    try:
-        return VARIABLES[name]
-    except KeyError:
+    if legacy := legacy_message(name):
+        raise InputError(legacy)
+    if name not in VARIABLES:
         msg = (
             f"unknown variable {name!r}; lidmelt knows {', '.join(VARIABLES)}. "
             "Check the spelling (the unit is part of the name)."
         )
-        raise InputError(msg) from None
+        raise InputError(msg)
+    return VARIABLES[name]
 
 
 def default_outputs(given_inputs) -> tuple[str, ...]:

@@ -470,7 +470,7 @@ def _print_table(args, model, tp: float, lid: float, values: dict) -> None:
     rows = [
         ("potential temperature", tp, "C"),
         *(() if _geotherm(args) else ((lid_label, lid, "km"),)),
-        (top_label, values["lid_depth_km"], "km"),
+        (top_label, values["melting_top_km"], "km"),
         ("onset depth", values["onset_depth_km"], "km"),
         ("onset pressure", values["onset_pressure_gpa"], "GPa"),
         ("solidus crossing (whatever the lid)", values["solidus_crossing_depth_km"], "km"),

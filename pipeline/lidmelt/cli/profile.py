@@ -29,7 +29,7 @@ _SHOWN = (
     "lat",
     "melt_thickness_km",
     "onset_depth_km",
-    "lid_depth_km",
+    "melting_top_km",
     "status",
     "validity_flag",
 )
@@ -45,7 +45,7 @@ def register(subparsers: argparse._SubParsersAction) -> None:
             "Sample every variable of a run every KM km along the geodesics (WGS84) joining a "
             "track's waypoints; write a CSV and, next to it, a PNG cross-section: plate age "
             "and anomaly, melt thickness, and the melting column between the top of the "
-            "melting column (lid_depth_km: lid, geotherm or crust base) and the onset depth. The "
+            "melting column (melting_top_km: lid, geotherm or crust base) and the onset depth. The "
             "output never overwrites the track."
         ),
     )

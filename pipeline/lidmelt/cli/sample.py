@@ -27,7 +27,7 @@ from lidmelt.products.sites import OUTPUT_SUFFIXES, sample_stations, write_stati
 __all__ = ["register"]
 
 # Output variables shown in the printed table (the file holds all of them).
-_SHOWN_VARIABLES = ("melt_thickness_km", "onset_depth_km", "lid_depth_km")
+_SHOWN_VARIABLES = ("melt_thickness_km", "onset_depth_km", "melting_top_km")
 
 
 def register(subparsers: argparse._SubParsersAction) -> None:

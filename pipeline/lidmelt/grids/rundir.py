@@ -61,6 +61,7 @@ from lidmelt.variables import (
     ensemble_variable,
     input_for_workflow_key,
     is_legacy_probability,
+    legacy_message,
 )
 
 __all__ = [
@@ -237,6 +238,10 @@ def _check_entries(path: Path, summary: Mapping[str, Any]) -> None:
     after the run is refused like any tampered run, not skipped."""
     for group, file_of in (("outputs", output_file), ("inputs", input_file)):
         for name, entry in _entries(summary, group).items():
+            renamed = group == "outputs" and not is_legacy_probability(str(name))
+            if renamed and (legacy := legacy_message(str(name))):
+                msg = f"run directory {str(path)!r} was made by an earlier lidmelt: {legacy}"
+                raise RunDirError(msg)
             known = name in INPUTS if group == "inputs" else _is_output(name)
             listed = entry.get("file") if isinstance(entry, dict) else None
             if not known or listed not in (None, file_of(name)):
@@ -412,25 +417,13 @@ def provenance_tags(
     }
 
 
-def build_summary(
-    cfg: Any,
-    *,
-    grid: Any,
-    model: Any,
-    cooling: Any | None,
-    provenance: Mapping[str, Mapping[str, Any]],
-    gridded_inputs: Collection[str],
-    outputs: Sequence[str],
-    statistics: Mapping[str, Any],
-    warnings: Sequence[str] = (),
-    extra: Mapping[str, Any] | None = None,
-) -> dict[str, Any]:
-    """The ``summary.json`` document of a run (keys in the module docstring).
+@dataclass(frozen=True, kw_only=True)
+class RunRecord:
+    """What a run used and what it wrote, as its ``summary.json`` records them
+    (:func:`build_summary`).
 
-    Parameters
+    Attributes
     ----------
-    cfg : RunConfig
-        The run configuration.
     grid : Grid
         The grid of every output.
     model, cooling
@@ -449,25 +442,41 @@ def build_summary(
         Entries of further stages (e.g. ``"ensemble"``); an ``"outputs"`` entry adds to the
         outputs, a ``"warnings"`` entry to the warnings.
     """
-    extra = dict(extra or {})
+
+    grid: Any
+    model: Any
+    cooling: Any | None
+    provenance: Mapping[str, Mapping[str, Any]]
+    gridded_inputs: Collection[str]
+    outputs: Sequence[str]
+    statistics: Mapping[str, Any]
+    warnings: Sequence[str] = ()
+    extra: Mapping[str, Any] | None = None
+
+
+def build_summary(cfg: Any, record: RunRecord) -> dict[str, Any]:
+    """The ``summary.json`` document of a run (keys in the module docstring) from its
+    configuration ``cfg`` (RunConfig) and what it used and wrote (:class:`RunRecord`)."""
+    r = record
+    extra = dict(r.extra or {})
     doc = {
         "lidmelt_run": RUN_FORMAT_VERSION,
         "lidmelt_version": __version__,
         "created_utc": datetime.now(UTC).strftime("%Y-%m-%dT%H:%M:%SZ"),
-        "grid": {**grid.to_dict(), "registration": _registration(cfg, provenance)},
+        "grid": {**r.grid.to_dict(), "registration": _registration(cfg, r.provenance)},
         "model": {
-            "name": model.name,
-            "parameters": model.parameters(),
-            "reference": model.reference,
-            "sources": dict(model.sources),
+            "name": r.model.name,
+            "parameters": r.model.parameters(),
+            "reference": r.model.reference,
+            "sources": dict(r.model.sources),
         },
         "ambient_potential_temperature_c": cfg.model.ambient_potential_temperature_c,
-        "cooling": _cooling_entry(cfg, cooling),
+        "cooling": _cooling_entry(cfg, r.cooling),
         "min_top_of_melting_km": cfg.model.min_top_of_melting_km,
         "method": cfg.compute.method,
         "inputs": {
-            name: {**prov, "file": input_file(name) if name in gridded_inputs else None}
-            for name, prov in provenance.items()
+            name: {**prov, "file": input_file(name) if name in r.gridded_inputs else None}
+            for name, prov in r.provenance.items()
         },
         "outputs": {
             name: {
@@ -475,15 +484,15 @@ def build_summary(
                 "units": OUTPUTS[name].units,
                 "long_name": OUTPUTS[name].long_name,
             }
-            for name in outputs
+            for name in r.outputs
         },
         "validity_flag": {
             "file": FLAG_FILE,
             "nodata": FLAG_NODATA,
             "meanings": {str(k): v for k, v in FLAG_MEANINGS.items()},
         },
-        "statistics": dict(statistics),
-        "warnings": list(warnings),
+        "statistics": dict(r.statistics),
+        "warnings": list(r.warnings),
         "workflow_file": str(cfg.workflow_path),
         "workflow_overrides": list(cfg.overrides),
         "workflow": cfg.text,

@@ -28,6 +28,7 @@ Without numba both run as plain Python (slow, but the same numbers).
 from __future__ import annotations
 
 import math
+from typing import NamedTuple
 
 import numpy as np
 
@@ -56,13 +57,30 @@ def _bilinear(values, row, col):
     return (1.0 - wr) * top + wr * bottom
 
 
-def sample_rotated(xyz, alive, matrix, values, transform, centre, seen, cap_cos, baseline, out):
-    """Fill ``out`` (n) with the grid ``values`` (float32, geographic) at the positions
-    ``matrix`` (3, 3) gives the unit vectors ``xyz`` (n, 3) (module notes); ``transform`` is
-    the grid's affine (a, c, e, f: x scale, x origin, y scale, y origin, degrees), ``centre``
-    its longitude centre for wrapping; a cell whose ``xyz @ seen`` is below ``cap_cos`` (the
-    field's cap seen on today's plate), or not ``alive`` (n, bool: a cell whose seafloor did
-    not exist then, which the kernel gives nothing), gets ``baseline``."""
+class SampledField(NamedTuple):
+    """A geographic grid as :func:`sample_rotated` reads it (numba takes it as a named tuple).
+
+    ``values`` (float32, rows by columns) and its affine ``transform`` (a, c, e, f: x scale,
+    x origin, y scale, y origin, degrees), ``centre`` its longitude centre for wrapping;
+    ``seen`` (3) and ``cap_cos``: the field's cap seen on today's plate (a cell whose
+    ``xyz @ seen`` is below ``cap_cos`` is outside it); ``baseline`` the value outside it.
+    """
+
+    values: np.ndarray
+    transform: np.ndarray
+    centre: float
+    seen: np.ndarray
+    cap_cos: float
+    baseline: float
+
+
+def sample_rotated(xyz, alive, matrix, field, out):
+    """Fill ``out`` (n) with the grid of ``field`` (:class:`SampledField`) at the positions
+    ``matrix`` (3, 3) gives the unit vectors ``xyz`` (n, 3) (module notes); a cell outside the
+    field's cap, or not ``alive`` (n, bool: a cell whose seafloor did not exist then, which the
+    kernel gives nothing), gets the field's baseline."""
+    values, transform, centre, seen = field.values, field.transform, field.centre, field.seen
+    cap_cos, baseline = field.cap_cos, field.baseline
     a, c, e, f = transform[0], transform[1], transform[2], transform[3]
     for i in range(xyz.shape[0]):
         px, py, pz = xyz[i, 0], xyz[i, 1], xyz[i, 2]

@@ -43,7 +43,7 @@ from scipy.spatial.transform import Rotation
 
 from lidmelt.engine import KernelSettings, evaluate_chunk
 from lidmelt.grids.grid import Grid
-from lidmelt.motion.geometry import SHAPE_CODES, add_plumes, sample_rotated
+from lidmelt.motion.geometry import SHAPE_CODES, SampledField, add_plumes, sample_rotated
 from lidmelt.motion.plan import DEFAULT_PLATE, PlumeTrack
 from lidmelt.motion.rotations import EARTH_RADIUS_KM, unit_vectors
 from lidmelt.physics import EXTRACTION_MIN_MELT_FRACTION
@@ -131,8 +131,9 @@ class FrameField:
             a, _, c, _, e, f = grid.transform
             out = np.empty(len(xyz))
             alive = np.ones(len(xyz), bool) if alive is None else alive
-            sample_rotated(xyz, alive, matrix, self.values, np.array([a, c, e, f], float),
-                           float(grid.x_centre), seen, cap_cos, self.baseline, out)  # fmt: skip
+            field = SampledField(self.values, np.array([a, c, e, f], float),
+                                 float(grid.x_centre), seen, cap_cos, self.baseline)  # fmt: skip
+            sample_rotated(xyz, alive, matrix, field, out)
             return out
         out = np.full(len(xyz), self.baseline)
         if self.cap_centre is not None:

@@ -43,11 +43,11 @@ TRACKS_GEOJSON = "hotspot_tracks.geojson"
 TRACK_POINTS_FILE = "track_points.csv"
 #: The columns of :data:`TRACK_POINTS_FILE`, in order.
 TRACK_COLUMNS = (
-    "plume", "time_ma", "lon", "lat", "seafloor_age_then_ma", "lid_depth_then_km",
+    "plume", "time_ma", "lon", "lat", "seafloor_age_then_ma", "melting_top_then_km",
     "melt_thickness_km", "anomaly_melt_thickness_km", "onset_depth_km", "validity_flag",
 )  # fmt: skip
 _KERNEL_COLUMNS = {
-    "lid_depth_then_km": "lid_depth_km",
+    "melting_top_then_km": "melting_top_km",
     "melt_thickness_km": "melt_thickness_km",
     "anomaly_melt_thickness_km": "anomaly_melt_thickness_km",
     "onset_depth_km": "onset_depth_km",

@@ -87,7 +87,7 @@ COLUMN_OUTPUTS = (
     "melt_thickness_km",
     "onset_depth_km",
     "onset_pressure_gpa",
-    "lid_depth_km",
+    "melting_top_km",
     "max_melt_fraction",
     "mean_melt_pressure_gpa",
     "deep_melt_share",
@@ -101,9 +101,9 @@ class ColumnResult:
 
     Attributes
     ----------
-    melt_thickness_km, onset_depth_km, onset_pressure_gpa, lid_depth_km, max_melt_fraction,
+    melt_thickness_km, onset_depth_km, onset_pressure_gpa, melting_top_km, max_melt_fraction,
     mean_melt_pressure_gpa, deep_melt_share, solidus_crossing_depth_km : numpy.ndarray
-        The output variables (``lid_depth_km`` is the top of melting used; the onset is NaN
+        The output variables (``melting_top_km`` is the top of melting used; the onset is NaN
         where H = 0, the solidus crossing is not); units and long names: :mod:`lidmelt.variables`.
     flag : numpy.ndarray of uint8
         Bit flags ``FLAG_*``; 0 where the cell is valid and calibrated.
@@ -114,7 +114,7 @@ class ColumnResult:
     melt_thickness_km: np.ndarray
     onset_depth_km: np.ndarray
     onset_pressure_gpa: np.ndarray
-    lid_depth_km: np.ndarray
+    melting_top_km: np.ndarray
     max_melt_fraction: np.ndarray
     mean_melt_pressure_gpa: np.ndarray
     deep_melt_share: np.ndarray
@@ -159,7 +159,7 @@ def finish_outputs(
         melt_thickness_km=h,
         onset_depth_km=model.depth_km(p_melt, load_km),
         onset_pressure_gpa=p_melt,
-        lid_depth_km=np.where(invalid | np.isinf(top_km), np.nan, top_km),
+        melting_top_km=np.where(invalid | np.isinf(top_km), np.nan, top_km),
         max_melt_fraction=f,
         mean_melt_pressure_gpa=mean_p,
         deep_melt_share=share,
@@ -399,7 +399,7 @@ def _table_one_water(table, tp, lid, water, min_top_km, out, load):
         melts = h > 0  # the onset where the column melts
         out["onset_pressure_gpa"][sl] = np.where(melts, p_on, np.nan)
         out["onset_depth_km"][sl] = np.where(melts, z_on, np.nan)
-        out["lid_depth_km"][sl] = top_km
+        out["melting_top_km"][sl] = top_km
         out["flag"][sl] = np.where(no_onset, FLAG_NO_ONSET, beyond_flags(model, p_on, top_p))
         deep = table_at_calibration(table, tp[sl], water, p_on, top_p)
         out["deep_melt_share"][sl] = deep_melt_share(model, h, p_on, top_p, *deep)

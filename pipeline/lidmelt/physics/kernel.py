@@ -77,7 +77,7 @@ ROWS = (
     "melt_thickness_km",
     "onset_depth_km",
     "onset_pressure_gpa",
-    "lid_depth_km",
+    "melting_top_km",
     "max_melt_fraction",
     "mean_melt_pressure_gpa",
     "excess_to_melt_k",

@@ -2,7 +2,7 @@
 
 From the top: plate age and thermal anomaly (the inputs) against distance, then the melt
 thickness, then the section itself with depth downward: the top of the melting column (the
-deeper of the lid base and the crust base, ``lid_depth_km``) and the onset depth of melting
+deeper of the lid base and the crust base, ``melting_top_km``) and the onset depth of melting
 as lines, the melting column shaded between them and the lid shaded above. Waypoints are
 dotted verticals named at the top (their names from the track file, else WP1, WP2, ...);
 stations near the track (within :data:`NEAR_KM` km) are marked at their distance along it;
@@ -108,7 +108,7 @@ def _draw_melt(ax: Any, gdf: Any, d: np.ndarray) -> None:
 
 def _draw_section(ax: Any, gdf: Any, d: np.ndarray) -> None:
     """Bottom panel: depth downward; lid shaded, the melting column shaded between lines."""
-    lid, onset = _column(gdf, "lid_depth_km"), _column(gdf, "onset_depth_km")
+    lid, onset = _column(gdf, "melting_top_km"), _column(gdf, "onset_depth_km")
     melt = _column(gdf, "melt_thickness_km")
     if lid is not None:
         ax.fill_between(d, 0, lid, color="0.85", lw=0, label="lid (and crust)")
@@ -245,7 +245,7 @@ def make_profile_figure(
     ----------
     gdf : geopandas.GeoDataFrame
         The result of :func:`lidmelt.products.profiles.sample_track` (needs ``distance_km``
-        and one of ``melt_thickness_km``, ``onset_depth_km``, ``lid_depth_km``).
+        and one of ``melt_thickness_km``, ``onset_depth_km``, ``melting_top_km``).
     title : str
         The track's name (default "Track profile").
     waypoint_names : sequence of str
@@ -265,11 +265,11 @@ def make_profile_figure(
     from matplotlib.backends.backend_agg import FigureCanvasAgg
     from matplotlib.figure import Figure
 
-    needed = {"melt_thickness_km", "onset_depth_km", "lid_depth_km"}
+    needed = {"melt_thickness_km", "onset_depth_km", "melting_top_km"}
     if "distance_km" not in gdf.columns or not needed & set(gdf.columns):
         msg = (
             f"the profile table has columns {', '.join(map(str, gdf.columns))}; expected "
-            "distance_km and melt_thickness_km, onset_depth_km or lid_depth_km. Give the "
+            "distance_km and melt_thickness_km, onset_depth_km or melting_top_km. Give the "
             "result of sample_track()."
         )
         raise InputError(msg)

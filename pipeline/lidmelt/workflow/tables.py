@@ -347,6 +347,9 @@ def _read_outputs(ctx: Context, values: dict[str, Any], inputs: Inputs) -> Outpu
         raise wrong_type(ctx, key, names, "a non-empty array of variable names", example)
     chosen: list[str] = []
     for value in names:
+        if isinstance(value, str) and (legacy := variables.legacy_message(value)):
+            msg = f"{ctx.where(key)} lists {value!r}: {legacy}"
+            raise WorkflowError(msg)
         name = choice(ctx, key, value, OUTPUT_VARIABLES)
         if name in chosen:
             msg = f"{ctx.where(key)} lists {name!r} twice; list each variable once."

@@ -32,7 +32,7 @@ from lidmelt.products import ensemble as ens
 from lidmelt.products import sampling as smp
 from lidmelt.products.assess.evidence import curve, weights_of_evidence
 from lidmelt.products.assess.regions import candidate_features
-from lidmelt.variables import DEFAULT_PROBABILITY_THRESHOLD_KM
+from lidmelt.variables import DEFAULT_PROBABILITY_THRESHOLD_KM, legacy_message
 from lidmelt.variables import PROBABILITY_BASES as _BASES
 
 __all__ = ["BAND_ROWS", "STATUSES", "assess", "default_thresholds", "default_variable"]
@@ -75,6 +75,8 @@ def default_thresholds(run: RunDir, variable: str, values: np.ndarray) -> tuple[
 
 
 def _check_variable(run: RunDir, variable: str) -> None:
+    if variable not in run.outputs and (legacy := legacy_message(variable)):
+        raise InputError(legacy)  # an earlier lidmelt's name: says what it is now
     if variable not in run.outputs:
         msg = (
             f"variable {variable!r} is not an output of run {str(run.shown_path)!r}; its outputs "

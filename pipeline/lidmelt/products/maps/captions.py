@@ -6,6 +6,7 @@ lid's origin (:func:`lid_model`) is shared with the run report.
 
 from __future__ import annotations
 
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
@@ -193,44 +194,72 @@ def _limits_text(
     return limits
 
 
-def map_caption(
-    summary: dict[str, Any],
-    *,
-    style: VariableStyle,
-    no_melt: bool,
-    extend: str,
-    proj_name: str,
-    age: bool,
-    coast_path: Path | None,
-    flag_note: str = "",
-    outside: bool = False,
-    plumes: bool = False,
-    grid_share: float | None = None,
-    ensemble: bool = False,
-    contours: tuple[float, ...] | None = None,
-) -> str:
-    """The caption: what the run used, colour limits and classes, hatching, projection, version.
+@dataclass(frozen=True, kw_only=True)
+class CaptionOptions:
+    """What a map's caption says beyond its run's ``summary.json`` (:func:`map_caption`).
 
-    ``flag_note`` is the sentence on the hatched (flagged) cells, if any
-    (:func:`.flags.flag_caption`); ``outside`` says the view shows area beyond the grid;
-    ``grid_share`` is :func:`lid_grid_share`; ``ensemble`` marks a layer of the ensemble;
-    ``contours`` the style's contour levels that are drawn (None: all of them).
+    Attributes
+    ----------
+    style : VariableStyle
+        The map style of the variable drawn (its colour limits, contours, classes).
+    no_melt : bool
+        Cells that do not melt are drawn white (the variable is not defined there).
+    extend : str
+        The colour bar's arrows (matplotlib's ``"neither"``, ``"min"``, ``"max"``, ``"both"``).
+    proj_name : str
+        The name of the map projection.
+    age : bool
+        Dashed plate-age contours are drawn.
+    coast_path : Path or None
+        The coastline file drawn; None: no coastlines.
+    flag_note : str
+        The sentence on the hatched (flagged) cells, if any (:func:`.flags.flag_caption`).
+    outside : bool
+        The view shows area beyond the grid.
+    plumes : bool
+        Rings mark the plume centres of the workflow.
+    grid_share : float or None
+        :func:`lid_grid_share` (None: the run has no lid-thickness grid).
+    ensemble : bool
+        The layer is one of an ensemble (its basis is the ensemble's, :func:`ensemble_basis`).
+    contours : tuple of float or None
+        The style's contour levels that are drawn (None: all of them).
     """
+
+    style: VariableStyle
+    no_melt: bool
+    extend: str
+    proj_name: str
+    age: bool
+    coast_path: Path | None
+    flag_note: str = ""
+    outside: bool = False
+    plumes: bool = False
+    grid_share: float | None = None
+    ensemble: bool = False
+    contours: tuple[float, ...] | None = None
+
+
+def map_caption(summary: dict[str, Any], options: CaptionOptions) -> str:
+    """The caption: what the run used, colour limits and classes, hatching, projection, version
+    (``options``: :class:`CaptionOptions`)."""
+    o = options
     grey = "grey: no data in the grid"
-    if outside:
+    if o.outside:
         grey += "; pale blue-grey: outside the grid"
+    limits = _limits_text(o.style, no_melt=o.no_melt, extend=o.extend, contours=o.contours)
     parts = [
-        ensemble_basis(summary) if ensemble else run_basis(summary, grid_share),
-        f"{_limits_text(style, no_melt=no_melt, extend=extend, contours=contours)}; {grey}.",
+        ensemble_basis(summary) if o.ensemble else run_basis(summary, o.grid_share),
+        f"{limits}; {grey}.",
     ]
-    if flag_note:
-        parts.append(flag_note)
-    if plumes:
+    if o.flag_note:
+        parts.append(o.flag_note)
+    if o.plumes:
         parts.append("Rings: plume centres named in the workflow.")
-    parts.append(f"Projection: {proj_name}.")
-    if age:
+    parts.append(f"Projection: {o.proj_name}.")
+    if o.age:
         parts.append("Dashed contours: plate age (Ma).")
-    if coast_path is None:
+    if o.coast_path is None:
         parts.append("No coastlines drawn (no local coastline data).")
     parts.append(f"lidmelt {summary.get('lidmelt_version', __version__)}.")
     return " ".join(parts)

@@ -44,7 +44,12 @@ from lidmelt.products.maps import layout as lay
 from lidmelt.products.maps import marks as mk
 from lidmelt.products.maps import overlays as ov
 from lidmelt.products.maps import page as pg
-from lidmelt.products.maps.captions import lid_grid_share, map_caption, model_line
+from lidmelt.products.maps.captions import (
+    CaptionOptions,
+    lid_grid_share,
+    map_caption,
+    model_line,
+)
 from lidmelt.products.maps.field import Field, draw_data, open_field
 from lidmelt.products.maps.labels import spread_labels
 from lidmelt.products.maps.options import (
@@ -137,18 +142,20 @@ def _compose_text(
     cbar_label = "" if f.style.categorical else colorbar_label(f.long_name, f.units)
     caption = map_caption(
         summary,
-        style=f.style,
-        no_melt=f.no_melt is not None,
-        extend=f.extend,
-        proj_name=f.proj_name,
-        age=opts.age_contours is not False,
-        coast_path=opts.coastlines or None,
-        flag_note=_hatch_note(f, opts, summary),
-        outside=view.outside,
-        plumes=bool(view.plumes),
-        grid_share=lid_grid_share(run),
-        ensemble=ensemble_variable(f.variable) is not None,
-        contours=crossing_levels(f.values, f.style.contours),
+        CaptionOptions(
+            style=f.style,
+            no_melt=f.no_melt is not None,
+            extend=f.extend,
+            proj_name=f.proj_name,
+            age=opts.age_contours is not False,
+            coast_path=opts.coastlines or None,
+            flag_note=_hatch_note(f, opts, summary),
+            outside=view.outside,
+            plumes=bool(view.plumes),
+            grid_share=lid_grid_share(run),
+            ensemble=ensemble_variable(f.variable) is not None,
+            contours=crossing_levels(f.values, f.style.contours),
+        ),
     )
     cap_w = max(page.map_w + page.right - 0.15, text_w - 0.1)
     return _Text(

@@ -95,7 +95,7 @@ _HATCH_LAYERS = (("white", 1.8, 1.5), (HATCH_COLOR, 0.8, 1.6))
 #: Variables that no marked flag concerns: every marked flag is about the onset of melting or
 #: the source water at the onset, which neither the lid nor the excess to melt (found at the
 #: lid) depends on.
-NOT_CONCERNED = frozenset({"lid_depth_km", "excess_to_melt_k"})
+NOT_CONCERNED = frozenset({"melting_top_km", "excess_to_melt_k"})
 
 
 def concerns(bit: int, variable: str) -> bool:

@@ -20,7 +20,7 @@ from lidmelt.grids.rundir import RunDir, open_run, read_flags
 from lidmelt.products.maps import layout as lay
 from lidmelt.products.maps import overlays as ov
 from lidmelt.products.maps.style import NODATA_COLOR
-from lidmelt.variables import get_variable, is_legacy_probability
+from lidmelt.variables import get_variable, legacy_message
 
 __all__ = ["MapInfo", "MapOptions", "as_run", "check_variable", "resolve_options"]
 
@@ -128,8 +128,8 @@ def check_variable(run: RunDir, variable: str) -> str:
         Naming the valid variables of the run.
     """
     valid = run.outputs + run.inputs
-    if is_legacy_probability(variable):
-        get_variable(variable)  # an earlier lidmelt's probability map: says to run again
+    if legacy_message(variable):
+        get_variable(variable)  # an earlier lidmelt's name: says what it is now, to run again
     if variable not in valid:
         msg = (
             f"variable {variable!r} is not in run {str(run.path)!r}. Valid names: "

@@ -69,7 +69,7 @@ OVERVIEW_PANELS = (
     ("anomaly_melt_thickness_km", "melt_thickness_km"),
     ("onset_depth_km",),
     ("excess_to_melt_k", "melting_regime"),
-    ("lid_depth_km",),
+    ("melting_top_km",),
 )
 #: Height (in) above each panel for its two-line title.
 _TITLE_H = 0.36

@@ -10,7 +10,7 @@ Colours: nodata is a neutral light grey (:data:`NODATA_COLOR`); in the variables
 "no melting" (``melt_thickness_km``, ``max_melt_fraction``) a zero cell is white
 (:data:`ZERO_COLOR`), so it differs both from nodata and from the lowest colour of the scale
 (the smallest non-zero melt); in the variables that are undefined where nothing melts
-(``onset_depth_km``, ``onset_pressure_gpa``, ``mean_melt_pressure_gpa``, and ``lid_depth_km``
+(``onset_depth_km``, ``onset_pressure_gpa``, ``mean_melt_pressure_gpa``, and ``melting_top_km``
 where a column meets its geotherm nowhere), cells where
 ``melt_thickness_km`` is 0 are white too. Colour limits are the 2nd and 98th percentiles of the
 valid cells (:data:`PERCENTILES`; for the two melt amounts: 0 to the 99.5th percentile of the

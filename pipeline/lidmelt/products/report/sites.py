@@ -45,7 +45,7 @@ STATIONS_NAME = "stations.csv"
 STATION_SHOWN = (
     "melt_thickness_km",
     "onset_depth_km",
-    "lid_depth_km",
+    "melting_top_km",
     "excess_to_melt_k",
     "flag_meaning",
     "status",
