@@ -334,7 +334,8 @@ def test_same_outputs_whatever_the_chunking_and_workers(tmp_path):
 
 @pytest.mark.slow
 def test_distributed_local_cluster_matches_threads(tmp_path):
-    distributed = pytest.importorskip("distributed")
+    import distributed  # required (pyproject): a missing one fails, never skips
+
     base = run_ensemble(tmp_path, "threads", vary=DEMO_VARY, lid=70.0, chunk=64)
     with distributed.LocalCluster(
         n_workers=2, threads_per_worker=1, processes=True, dashboard_address=None
