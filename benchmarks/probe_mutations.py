@@ -157,6 +157,14 @@ MUTATIONS: tuple[Mutation, ...] = (
         ),
     ),
     Mutation(
+        "histogram percentiles by another definition",
+        PKG + "products/maps/members.py",
+        'value = float(np.percentile(values, float(key[1:]), method="linear"))',
+        'value = float(np.percentile(values, float(key[1:]), method="lower"))',
+        "the member histogram's percentile lines by the lower order statistic, not definition 7",
+        ("tests/test_ensemble_products.py::test_member_histogram_marks_the_percentiles",),
+    ),
+    Mutation(
         "least added melt >= as >",
         PKG + "statistics.py",
         "return (anomaly_melt > 0) & (anomaly_melt >= least)",
