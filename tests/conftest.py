@@ -18,6 +18,14 @@ import pytest
 os.environ.setdefault("CARTOPY_DATA_DIR", str(Path(__file__).parent / "data" / "no-cartopy-data"))
 
 
+def pytest_terminal_summary(terminalreporter):
+    """Print the tallies the test files kept (runkit.TALLIES): no test has to run last."""
+    import runkit
+
+    for name, counts in runkit.TALLIES.items():
+        terminalreporter.write_line(f"{name} tally: {counts}")
+
+
 @pytest.fixture(autouse=True, scope="session")
 def _table_cache(tmp_path_factory):
     """Build melting tables once per test session, in a private cache folder."""

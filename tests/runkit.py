@@ -14,6 +14,14 @@ import numpy as np
 
 ROOT = Path(__file__).resolve().parents[1]
 PIPELINE = ROOT / "pipeline"
+#: Counts kept by test files (faults tried, fuzz cases), printed once at the end of the session
+#: by ``tests/conftest.py::pytest_terminal_summary``, whatever tests ran and in whatever order.
+TALLIES: dict[str, dict[str, int]] = {}
+
+
+def tally(name: str, **counts: int) -> dict[str, int]:
+    """The session's tally ``name`` (made with ``counts`` the first time), to add to."""
+    return TALLIES.setdefault(name, dict(counts))
 
 
 def write_age(path: Path, *, nan: bool = False, shape=(24, 36)) -> Path:

@@ -13,6 +13,7 @@ import subprocess
 import sys
 from pathlib import Path
 
+import distributed
 import numpy as np
 import pytest
 import rasterio
@@ -23,8 +24,6 @@ from lidmelt.cluster import SCHEDULER_ENV, check_workers, input_paths, scheduler
 from lidmelt.engine import run_basin
 from lidmelt.errors import ClusterError
 from lidmelt.workflow import load_workflow
-
-distributed = pytest.importorskip("distributed")
 
 
 def _basin(folder: Path, *, extra: str = "") -> Path:

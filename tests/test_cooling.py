@@ -93,17 +93,31 @@ def test_half_space_thermal_thickness_is_2_32_sqrt_kappa_t(age_ma):
 
 
 def test_half_space_worked_numbers():
-    # Turcotte & Schubert 2002 formulas, worked numbers [derived] for kappa = 1e-6, dT = 1300 K,
-    # alpha = 3e-5,
-    # rho_m = 3300, rho_w = 1000, k = 3.3: z_L = 41, 92, 117 km at 10, 50, 80 Ma (to the nearest
-    # km); w - d_r = 0.355 km sqrt(t); q = 136 and 43 mW/m^2 at 10 and 100 Ma. (Its "130 km at
-    # 100 Ma" and "13.0 km sqrt(t)" use the rounded 2.32 of Turcotte & Schubert: 2.3262 gives
-    # 13.07 km sqrt(t), checked exactly in the test above, so they are not repeated here.)
-    z = isotherm_depth_km(1170.0, [10.0, 50.0, 80.0], model=HALF_SPACE)
-    npt.assert_allclose(z, [41.0, 92.0, 117.0], atol=0.5)
-    w = seafloor_depth_m([1.0, 100.0], model=HALF_SPACE) - HALF_SPACE.ridge_depth_m
-    npt.assert_allclose(w, [355.0, 3550.0], rtol=0.5 / 355)
-    npt.assert_allclose(heat_flow_mw_m2([10.0, 100.0], model=HALF_SPACE), [136, 43], atol=0.5)
+    # Turcotte & Schubert 2002 formulas (sections 4.15-4.16, 4.23; from memory), computed here
+    # from their stated inputs kappa = 1e-6 m^2/s, T0 = 0, Tm = 1300 C, alpha = 3e-5 /K,
+    # rho_m = 3300, rho_w = 1000 kg/m^3, k = 3.3 W/m/K, 1 Ma = 3.15576e13 s (Julian years):
+    # z_L = 2 erfinv(0.9) sqrt(kappa t); w - d_r = 2 rho_m alpha (Tm - T0) sqrt(kappa t / pi) /
+    # (rho_m - rho_w); q = k (Tm - T0) / sqrt(pi kappa t). docs/physics.md quotes them rounded
+    # [derived]: z_L = 41, 92, 117 km at 10, 50, 80 Ma; w - d_r = 0.355 km sqrt(t/Ma); q = 136
+    # and 43 mW/m^2 at 10 and 100 Ma: the rounding is checked too.
+    kappa, tm, alpha, rho_m, rho_w, k, ma = 1e-6, 1300.0, 3e-5, 3300.0, 1000.0, 3.3, 3.15576e13
+    assert (HALF_SPACE.diffusivity_m2_s, HALF_SPACE.surface_temperature_c) == (kappa, 0.0)
+    assert (HALF_SPACE.mantle_temperature_c, HALF_SPACE.expansivity_k) == (tm, alpha)
+    assert (HALF_SPACE.mantle_density_kg_m3, HALF_SPACE.water_density_kg_m3) == (rho_m, rho_w)
+    assert HALF_SPACE.conductivity_w_m_k == k
+    t = np.array([10.0, 50.0, 80.0])
+    z_l = 2.0 * special.erfinv(0.9) * np.sqrt(kappa * t * ma) / 1e3  # km
+    npt.assert_array_equal(np.round(z_l), [41.0, 92.0, 117.0])  # as the docs quote them
+    npt.assert_allclose(isotherm_depth_km(0.9 * tm, t, model=HALF_SPACE), z_l, rtol=1e-6)
+    t = np.array([1.0, 100.0])
+    w = 2.0 * rho_m * alpha * tm * np.sqrt(kappa * t * ma / np.pi) / (rho_m - rho_w)  # m
+    npt.assert_allclose(w / np.sqrt(t), 355.0, atol=0.5)  # 0.355 km sqrt(t/Ma)
+    got = seafloor_depth_m(t, model=HALF_SPACE) - HALF_SPACE.ridge_depth_m
+    npt.assert_allclose(got, w, rtol=1e-9)
+    t = np.array([10.0, 100.0])
+    q = 1e3 * k * tm / np.sqrt(np.pi * kappa * t * ma)  # mW/m^2
+    npt.assert_array_equal(np.round(q), [136.0, 43.0])
+    npt.assert_allclose(heat_flow_mw_m2(t, model=HALF_SPACE), q, rtol=1e-9)
 
 
 @pytest.mark.parametrize("model", ALL_MODELS, ids=lambda m: m.name)
@@ -195,22 +209,38 @@ def test_ps77_heat_flow_matches_parsons_sclater_fit():
 
 
 def test_lid_isotherm_depends_on_model_trap_12():
-    # [derived] (docs/physics.md, lithosphere from plate age), quoted in whole km: at 100 Ma the
-    # 1100 C isotherm is at
-    # 69 km in the GDH1 plate, 84 km in a half-space with GDH1 constants, and 113 km in a
-    # half-space with Tm = 1300 C and kappa = 1e-6 m^2/s. The middle figure is 83.5 km
-    # rounded up (2 sqrt(kappa t) erfinv(1100/1450) = 2 x 50.39 km x 0.8284), so the
-    # tolerance is 1 km, not half a km.
+    # docs/physics.md (trap 12) quotes in whole km [derived]: at 100 Ma the 1100 C isotherm is
+    # at 69 km in the GDH1 plate, 84 km in a half-space with GDH1 constants and 113 km in a
+    # half-space with Tm = 1300 C and kappa = 1e-6 m^2/s. Computed here from the stated inputs
+    # (T0 = 0; GDH1: a = 95 km, Tm = 1450 C, kappa = k/(rho_m c_p) = 3.138/(3330 x 1171) m^2/s,
+    # Stein & Stein 1992; 1 Ma = 3.15576e13 s): half-space z = 2 sqrt(kappa t) erfinv(T/Tm)
+    # (Turcotte & Schubert section 4.15); plate: the root in z of the plate's Fourier series
+    # (Parsons & Sclater 1977; fourier_reference above, 3000 terms) by brentq. The middle
+    # figure is 83.5 km, which the docs round up to 84.
+    ma, t, iso = 3.15576e13, 100.0, 1100.0
+    kappa_gdh1 = 3.138 / (3330.0 * 1171.0)
+    assert (GDH1.plate_thickness_km, GDH1.mantle_temperature_c) == (95.0, 1450.0)
+    npt.assert_allclose(GDH1.diffusivity_m2_s, kappa_gdh1, rtol=1e-12)
+
+    def half_space_km(tm, kappa):
+        return 2.0 * math.sqrt(kappa * t * ma) * special.erfinv(iso / tm) / 1e3
+
+    def plate_km(z):
+        return fourier_reference(GDH1, [z], [t])[0][0, 0] - iso
+
+    expected = [
+        brentq(plate_km, 1.0, 94.0, xtol=1e-9),
+        half_space_km(1450.0, kappa_gdh1),
+        half_space_km(1300.0, 1e-6),
+    ]
+    npt.assert_allclose(expected, [69.0, 83.5, 113.0], atol=0.5)  # the docs' whole km
     gdh1_half_space = get_cooling_model(
         "half-space",
         mantle_temperature_c=GDH1.mantle_temperature_c,
         diffusivity_m2_s=GDH1.diffusivity_m2_s,
     )
-    got = [
-        float(isotherm_depth_km(1100.0, 100.0, model=m))
-        for m in (GDH1, gdh1_half_space, HALF_SPACE)
-    ]
-    npt.assert_allclose(got, [69.0, 84.0, 113.0], atol=1.0)
+    got = [float(isotherm_depth_km(iso, t, model=m)) for m in (GDH1, gdh1_half_space, HALF_SPACE)]
+    npt.assert_allclose(got, expected, atol=1e-3)  # km: the module's tabulated isotherms
 
 
 # ------------------------------------------------------------------------------------------
@@ -398,9 +428,9 @@ def test_named_models_and_registry():
     assert COOLING_MODELS["gdh1"] is GDH1
     assert COOLING_MODELS["ps77"] is PS77
     # Stein & Stein 1992: GDH1 a = 95 km, Tm = 1450 C [verified (secondary)]; kappa = k / (rho cp)
-    # = 3.138 / (3330 * 1171) = 8.04e-7 m^2/s [derived].
+    # = 3.138 / (3330 * 1171) = 8.05e-7 m^2/s [derived], computed here.
     assert (GDH1.plate_thickness_km, GDH1.mantle_temperature_c) == (95.0, 1450.0)
-    npt.assert_allclose(GDH1.diffusivity_m2_s, 8.04e-7, rtol=1e-3)
+    npt.assert_allclose(GDH1.diffusivity_m2_s, 3.138 / (3330.0 * 1171.0), rtol=1e-12)
     # Parsons & Sclater 1977: PS77 a = 125 km, Tm = 1350 C, alpha = 3.2e-5 [verified: abstract];
     # a^2 / (pi^2 kappa) = 62.8 Ma [verified: abstract, fit decay time].
     assert (PS77.plate_thickness_km, PS77.mantle_temperature_c, PS77.expansivity_k) == (

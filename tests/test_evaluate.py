@@ -99,14 +99,19 @@ def test_onset_is_nodata_where_nothing_melts_and_the_crossing_stays():
         assert np.all(np.isfinite(out["excess_to_melt_k"]))
 
 
-def test_crust_and_melt_production_follow_their_definitions():
-    out = cells([1450.0, 1300.0], [30.0, 100.0], upwelling_mm_yr=np.array([50.0, 50.0]))
+@pytest.mark.parametrize("method", ["direct", "table"])  # numpy, and compiled where it imports
+def test_crust_and_melt_production_follow_their_definitions(method):
+    # each path on its own against the definitions: comparing the paths with each other cannot
+    # catch a bug both share (DEVELOPERS.md, "Testing")
+    out = cells(
+        [1450.0, 1300.0], [30.0, 100.0], upwelling_mm_yr=np.array([50.0, 50.0]), method=method
+    )
     # lidmelt definition: crust = H rho_s / rho_crust = H x 3300 / 2900 by default
     npt.assert_allclose(out["crustal_thickness_km"], out["melt_thickness_km"] * 3300.0 / 2900.0)
     # lidmelt definition: production = W x F(top); 0 where nothing melts
     npt.assert_allclose(out["melt_production_mm_yr"], 50.0 * out["max_melt_fraction"])
     assert out["melt_production_mm_yr"][1] == 0.0
-    dense = cells([1450.0], [30.0], crust_density_kg_m3=2800.0)
+    dense = cells([1450.0], [30.0], crust_density_kg_m3=2800.0, method=method)
     npt.assert_allclose(dense["crustal_thickness_km"], out["melt_thickness_km"][0] * 3300 / 2800)
 
 

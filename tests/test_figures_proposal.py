@@ -6,14 +6,11 @@ them: numpy's min/max/percentile, arithmetic, the rules documented in lidmelt.pr
 
 from __future__ import annotations
 
+import cartopy.crs as ccrs
 import matplotlib.image as mpimg
 import numpy as np
 import pytest
 from affine import Affine
-
-pytest.importorskip("cartopy.crs")
-
-import cartopy.crs as ccrs
 
 from lidmelt.products import maps
 from lidmelt.products.profile_figure import make_profile_figure

@@ -6,6 +6,7 @@ or 0.02 km on melt thickness, 0.2 km on onset depth, 2e-3 on F). The goal that n
 in-range cell leaves the kernel for slow integration is the one of the kernel's issue.
 """
 
+import numba  # noqa: F401 - required (pyproject): a missing numba fails here, never skips
 import numpy as np
 import numpy.testing as npt
 import pytest
@@ -13,8 +14,6 @@ import pytest
 from lidmelt.errors import ModelError
 from lidmelt.physics import evaluate_cells, excess_to_melt_k, kernel, melt_column
 from test_table import assert_within_tolerance
-
-compiled_only = pytest.mark.skipif(not kernel.AVAILABLE, reason="numba cannot be imported")
 
 
 def sample(n, seed, water):
@@ -25,7 +24,7 @@ def sample(n, seed, water):
     return tp, lid, w
 
 
-@pytest.mark.parametrize("compiled", [pytest.param(True, marks=compiled_only), False])
+@pytest.mark.parametrize("compiled", [True, False])
 @pytest.mark.parametrize("water", [0.0, 0.01, "varying"])
 def test_both_paths_equal_direct_within_the_table_tolerance(compiled, water):
     tp, lid, w = sample(160, 7, water)
@@ -37,7 +36,6 @@ def test_both_paths_equal_direct_within_the_table_tolerance(compiled, water):
     assert np.sum(direct.melt_thickness_km > 0) > 40  # the sample really melts
 
 
-@compiled_only
 @pytest.mark.parametrize("water", [0.0, 0.01, "varying"])
 def test_every_output_of_the_kernel_equals_the_numpy_path(water):
     tp, lid, w = sample(20000, 3, water)
@@ -66,7 +64,6 @@ def test_every_output_of_the_kernel_equals_the_numpy_path(water):
     )
 
 
-@compiled_only
 def tangency_band_c(water, model="katz2003"):
     """(lo, hi): the Tp whose onsets lie beyond the calibrated pressure below the floor, from
     Tp*(P) = (T_sol(P) + 273.15) exp(-alpha_s P / (rho_s c_p)) - 273.15 (the onset condition,
@@ -110,7 +107,6 @@ def test_no_valid_in_range_cell_leaves_the_kernel():
         assert clock["numpy_cells"] == 0
 
 
-@compiled_only
 def test_cells_outside_the_table_take_the_numpy_path():
     # Tp 1950 C lies beyond the table's Tp nodes (to 1900 C) and a 450 km top below its
     # deepest top node (TableLayout): those cells go to the numpy path, the rest stay
@@ -148,8 +144,6 @@ def test_out_and_nodata_give_the_same_values_on_both_paths(compiled):
     hand where an input is NaN)."""
     from lidmelt.physics.evaluate import OUTPUT_ROWS
 
-    if compiled and not kernel.AVAILABLE:
-        pytest.skip("numba is not installed")
     rng = np.random.default_rng(3)
     tp = rng.uniform(1300.0, 1600.0, 500)
     lid = rng.uniform(0.0, 150.0, 500)
@@ -171,8 +165,6 @@ def test_no_anomaly_means_exactly_no_anomaly_melt(compiled):
     """Where Tp equals the ambient Tp the anomaly adds nothing: anomaly melt thickness exactly
     0 (check value: its definition H(ambient + 0) - H(ambient), docs/physics.md), also where the
     ambient mantle melts (young seafloor, thin lids) and with water."""
-    if compiled and not kernel.AVAILABLE:
-        pytest.skip("numba is not installed")
     lid = np.linspace(0.0, 120.0, 2000)
     for water in (0.0, 0.01):
         out = evaluate_cells(
@@ -183,7 +175,6 @@ def test_no_anomaly_means_exactly_no_anomaly_melt(compiled):
         npt.assert_array_equal(out["anomaly_melt_thickness_km"], 0.0)
 
 
-@compiled_only
 @pytest.mark.parametrize("model", ["katz2003", "mckenzie-bickle1988"])
 def test_water_varying_per_cell_on_hot_columns_stays_in_the_kernel_within_tolerance(model):
     # hot wet cells whose onsets lie beyond the calibrated pressure or at the upper mantle's

@@ -12,15 +12,12 @@ import socket
 import time
 import urllib.request
 
-import numpy as np
-import pytest
-from affine import Affine
-
-pytest.importorskip("cartopy.crs")
-
 import cartopy
 import cartopy.crs as ccrs
 import matplotlib.image as mpimg
+import numpy as np
+import pytest
+from affine import Affine
 from matplotlib import colormaps
 from matplotlib.colors import to_rgb
 from matplotlib.text import Text

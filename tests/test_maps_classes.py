@@ -7,13 +7,10 @@ flags from ``validity_flag.tif``. Fields are small invented grids written with t
 
 from __future__ import annotations
 
+import cartopy.crs as ccrs
 import numpy as np
 import pytest
 from affine import Affine
-
-pytest.importorskip("cartopy.crs")
-
-import cartopy.crs as ccrs
 from matplotlib.collections import QuadMesh
 from matplotlib.colors import to_rgb
 

@@ -16,16 +16,13 @@ import socket
 import time
 import urllib.request
 
+import cartopy.crs  # noqa: F401 - required (pyproject): a missing one fails, never skips
+import matplotlib.image as mpimg
 import numpy as np
 import pytest
 from affine import Affine
 
 from conftest import reseal
-
-pytest.importorskip("cartopy.crs")
-
-import matplotlib.image as mpimg
-
 from lidmelt.cli import main
 from lidmelt.errors import InputError, RunDirError
 from lidmelt.products import report

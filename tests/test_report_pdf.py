@@ -8,14 +8,13 @@ and the PDF magic number (ISO 32000-1, 7.5.2).
 from __future__ import annotations
 
 import numpy as np
+import pypdfium2 as pdfium  # the [test] extra (pyproject): a missing one fails
+import pypdfium2.raw as pdfium_raw
 import pytest
 from affine import Affine
 
-pdfium = pytest.importorskip("pypdfium2")
-import pypdfium2.raw as pdfium_raw  # noqa: E402
-
-from lidmelt.products import report  # noqa: E402
-from lidmelt.products.report.pdf import MARGIN_PT, PAGE_PT  # noqa: E402
+from lidmelt.products import report
+from lidmelt.products.report.pdf import MARGIN_PT, PAGE_PT
 
 BOX = Affine(1.0, 0.0, 10.0, 0.0, -1.0, 10.0)  # invented: 1 deg cells from 10 E, 10 N
 WARNING = "more than a quarter of the cells with data melt at the ambient temperature (invented)"

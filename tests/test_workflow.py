@@ -177,8 +177,8 @@ def test_choices_match_the_stages_that_use_them():
 
     assert set(RESAMPLING_METHODS) == set(ALIGN_RESAMPLING)
     assert set(PLUME_SHAPES) == set(ANOMALY_SHAPES)
-    melting = pytest.importorskip("lidmelt.physics.melting")
-    cooling = pytest.importorskip("lidmelt.physics.cooling")
+    from lidmelt.physics import cooling, melting
+
     text = (ROOT / "docs" / "workflow.md").read_text(encoding="utf-8")
     for name in (*melting.MODELS, *cooling.COOLING_MODELS):
         assert f"`{name}`" in text, name
@@ -740,13 +740,6 @@ def test_not_utf8(basin):
 # Model names and parameters (checked by lidmelt.physics through validate_models)
 
 
-@pytest.fixture
-def physics():
-    pytest.importorskip("lidmelt.physics.melting")
-    pytest.importorskip("lidmelt.physics.cooling")
-
-
-@pytest.mark.usefixtures("physics")
 @pytest.mark.parametrize(
     ("item", "match"),
     [
@@ -775,14 +768,12 @@ def test_model_errors(basin, item, match):
         load_workflow(basin(), overrides=[item])
 
 
-@pytest.mark.usefixtures("physics")
 def test_model_errors_in_file(basin):
     """A bad model name written in the file (not by --set) is reported without a --set note."""
     with pytest.raises(WorkflowError, match=r"^'model\.name' = 'katz2030' in basin\.toml is not"):
         load_workflow(basin(edit("[model]\n", '[model]\nname = "katz2030"\n')))
 
 
-@pytest.mark.usefixtures("physics")
 def test_valid_model_overrides_pass(basin):
     """Valid names and parameters pass: the GDH1 mantle is at 1450 C (Stein & Stein 1992), so a
     1350 C lid isotherm is allowed there; 0.15 is a valid cpx mass fraction (Katz et al. 2003,

@@ -20,6 +20,15 @@ from lidmelt.grids.grid import Grid
 
 __all__ = ["authalic_q", "cell_area_km2", "cell_areas_km2", "row_areas_km2"]
 
+#: Total surface area of the WGS 84 ellipsoid, km² (S = 5.10065621724e14 m²): NIMA TR8350.2
+#: (2000), Department of Defense World Geodetic System 1984, 3rd ed., Table 3.3 "WGS 84
+#: Ellipsoid Derived Geometric Constants" [value from memory; the table verified (secondary):
+#: geodesy codes cite Table 3.3 for the other derived geometric constants, the eccentricity and
+#: the mean radius of semi-axes]. It follows from Table 3.1's a = 6378137 m and 1/f =
+#: 298.257223563 by the closed form 2 pi a^2 [1 + (1 - e^2)/e atanh(e)] (tests/test_regions.py).
+#: The one home of this number: tests compare cell-area sums with it.
+WGS84_SURFACE_AREA_KM2 = 510_065_621.724
+
 
 def authalic_q(lat_deg: Any, eccentricity: float) -> np.ndarray:
     """The function q of the authalic latitude (dimensionless).

@@ -129,6 +129,6 @@ def _marks(values: np.ndarray, given: Mapping[str, Any] | None) -> dict[str, flo
     for key in ("p10", "p50", "p90"):
         value = (given or {}).get(key)
         if not isinstance(value, int | float) or not np.isfinite(value):
-            value = float(np.percentile(values, float(key[1:])))
+            value = float(np.percentile(values, float(key[1:]), method="linear"))
         out[key] = float(value)
     return out
