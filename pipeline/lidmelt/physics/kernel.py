@@ -44,6 +44,13 @@ import numpy as np
 
 from lidmelt.errors import ModelError
 from lidmelt.physics._jitcache import njit
+from lidmelt.physics.flags import (
+    FLAG_BEYOND_CALIBRATION,
+    FLAG_INVALID_INPUT,
+    FLAG_NO_ONSET,
+    FLAG_UPPER_MANTLE_FLOOR,
+    FLAG_WATER_SATURATED,
+)
 from lidmelt.physics.kernel_arrays import ONSET_STEP_GPA, kernel_arrays
 from lidmelt.physics.regime import (
     LEAST_ANOMALY_MELT_KM,
@@ -188,13 +195,14 @@ def _lookup(vals, x, y, j, c):
 
 @_jit(inline="always")
 def _lookup_at(vals, deep, par, x, y, j, c, u):
-    """:func:`_lookup`, from the deep columns where they are (Tp nodes from ``par[27]`` on):
-    integrated at exactly this water content (:meth:`MeltTable.deep_columns`), or where water
-    varies on the finer water nodes (:attr:`MeltTable.deep_values`, linear in u between them,
-    water step 1 / ``par[30]``)."""
-    i0 = par[27]
+    """:func:`_lookup`, from the deep columns where they are (Tp nodes from
+    ``par.deep_tp_node`` on): integrated at exactly this water content
+    (:meth:`MeltTable.deep_columns`), or where water varies on the finer water nodes
+    (:attr:`MeltTable.deep_values`, linear in u between them, water step 1 /
+    ``par.deep_inv_water_step``)."""
+    i0 = par.deep_tp_node
     if x >= i0:
-        xf = u * par[30]
+        xf = u * par.deep_inv_water_step
         jf = min(int(xf), deep.shape[1] - 1)
         return _lookup(deep, x - i0, y, jf, xf - jf)
     return _lookup(vals, x, y, j, c)
@@ -213,15 +221,15 @@ def _saturation(sat, p, inv_step):
 
 @_jit(inline="always")
 def _pressure_of_depth(z, par, zp):
-    """P [GPa] at rock-equivalent depth z [km]: constant rho g above the join (``par[25]``),
+    """P [GPa] at rock-equivalent depth z [km]: constant rho g above the join (``par.join_km``),
     the tabulated PREM relation below (``zp`` rows: P, Z; :mod:`lidmelt.physics.pressure`);
     +inf (a column that meets its geotherm nowhere) stays +inf."""
-    if not z > par[25]:
-        return z * par[15]
+    if not z > par.join_km:
+        return z * par.gpa_per_km
     if z == np.inf:
         return np.inf
     # PREM's rho g exceeds the constant one below the join: the node is at or after the guess
-    k = min(int((z - par[25]) * par[15] * par[26]), zp.shape[0] - 2)
+    k = min(int((z - par.join_km) * par.gpa_per_km * par.inv_node_step), zp.shape[0] - 2)
     while k + 2 < zp.shape[0] and zp[k + 1, 1] < z:
         k += 1
     a = (z - zp[k, 1]) / (zp[k + 1, 1] - zp[k, 1])
@@ -231,9 +239,9 @@ def _pressure_of_depth(z, par, zp):
 @_jit(inline="always")
 def _depth_of_pressure(p, par, zp):
     """Rock-equivalent depth [km] of pressure p [GPa] (the inverse of the above)."""
-    if not p > par[24]:
-        return p / par[15]
-    x = (p - par[24]) * par[26]
+    if not p > par.join_gpa:
+        return p / par.gpa_per_km
+    x = (p - par.join_gpa) * par.inv_node_step
     k = min(int(x), zp.shape[0] - 2)
     return zp[k, 1] + (x - k) * (zp[k + 1, 1] - zp[k, 1])
 
@@ -241,14 +249,14 @@ def _depth_of_pressure(p, par, zp):
 @_jit(inline="always")
 def _deep_share(vals, deep, x, j, c, u, h, top_p, p_on, par, zp):
     """H_deep / H (:mod:`lidmelt.physics.deepshare`): H and F at the top P_c from the table."""
-    cal = par[6]
+    cal = par.calibrated_max_gpa
     if not h > 0.0:
         return np.nan
     if p_on <= cal:
         return 0.0
     if top_p >= cal:
         return 1.0
-    h_c, f_c, _ = _lookup_at(vals, deep, par, x, cal * par[5], j, c, u)
+    h_c, f_c, _ = _lookup_at(vals, deep, par, x, cal * par.inv_pressure_step, j, c, u)
     dz = _depth_of_pressure(cal, par, zp) - _depth_of_pressure(top_p, par, zp)
     return min(max((h_c + f_c * dz) / h, 0.0), 1.0)
 
@@ -257,23 +265,23 @@ def _deep_share(vals, deep, x, j, c, u, h, top_p, p_on, par, zp):
 def _column(tp, w, u, top_p, p_on, par, sat, vals, zp, rough, deep):
     """One valid cell with its onset: (flag, onset [GPa], H, F, mean melt pressure, deep melt
     share, to numpy)."""
-    p_step, tp_min, inv_dtp, inv_dp, cal = par[2], par[3], par[4], par[5], par[6]
+    cal = par.calibrated_max_gpa
     if not np.isfinite(p_on):
-        return 2, np.nan, np.nan, np.nan, np.nan, np.nan, False
-    flag = 4 if (p_on > cal or cal < top_p < np.inf) else 0
-    if p_on >= par[17] - 1e-9:
-        flag |= 16
-    s = _saturation(sat, p_on, 1.0 / p_step)
+        return FLAG_NO_ONSET, np.nan, np.nan, np.nan, np.nan, np.nan, False
+    flag = FLAG_BEYOND_CALIBRATION if (p_on > cal or cal < top_p < np.inf) else 0
+    if p_on >= par.max_onset_gpa - 1e-9:
+        flag |= FLAG_UPPER_MANTLE_FLOOR
+    s = _saturation(sat, p_on, 1.0 / par.onset_step_gpa)
     if w > 0.0 and np.isfinite(s) and abs(w - s) <= _SATURATION_BAND * s:
         return flag, p_on, np.nan, np.nan, np.nan, np.nan, True
     if w > s:
-        return flag | 8, np.nan, np.nan, np.nan, np.nan, np.nan, False
+        return flag | FLAG_WATER_SATURATED, np.nan, np.nan, np.nan, np.nan, np.nan, False
     if p_on <= top_p:
         return flag, p_on, 0.0, 0.0, np.nan, np.nan, False
-    x, y = (tp - tp_min) * inv_dtp, top_p * inv_dp
-    xj = u * par[12]
+    x, y = (tp - par.tp_min_c) * par.inv_tp_step, top_p * par.inv_pressure_step
+    xj = u * par.table_inv_water_step
     j = min(int(xj), vals.shape[1] - 1)
-    jr = min(int(u * par[31]), rough.shape[1] - 1)
+    jr = min(int(u * par.rough_inv_water_step), rough.shape[1] - 1)
     if rough[min(int(x), rough.shape[0] - 1), jr]:
         return flag, p_on, np.nan, np.nan, np.nan, np.nan, True
     h, f, g = _lookup_at(vals, deep, par, x, y, j, xj - j, u)
@@ -294,17 +302,17 @@ def _ambient_melt(w, u, top_p, p_on, par, sat, vals, deep):
     """
     if not np.isfinite(p_on) or p_on <= top_p:
         return 0.0, 0.0, False
-    if top_p > par[16]:  # an ambient top of its own beyond the table's nodes
+    if top_p > par.top_max_gpa:  # an ambient top of its own beyond the table's nodes
         return 0.0, 0.0, True
-    s = _saturation(sat, p_on, 1.0 / par[2])
+    s = _saturation(sat, p_on, 1.0 / par.onset_step_gpa)
     if w > 0.0 and np.isfinite(s) and abs(w - s) <= _SATURATION_BAND * s:
         return 0.0, 0.0, True
     if w > s:
         return 0.0, 0.0, False
-    xj = u * par[12]
+    xj = u * par.table_inv_water_step
     j = min(int(xj), vals.shape[1] - 1)
-    x = (par[18] - par[3]) * par[4]
-    h, f, _ = _lookup_at(vals, deep, par, x, top_p * par[5], j, xj - j, u)
+    x = (par.ambient_c - par.tp_min_c) * par.inv_tp_step
+    h, f, _ = _lookup_at(vals, deep, par, x, top_p * par.inv_pressure_step, j, xj - j, u)
     if not (np.isfinite(h) and np.isfinite(f)):
         return 0.0, 0.0, True
     return h, f, False
@@ -344,13 +352,14 @@ def _onset_fast(tp, u, inv, t0, inv_dt, inv_du):
 @_jit(inline="always")
 def _onset_any(tp, u, par, cv, first, inv):
     """Onset [GPa]: the inverse table where it is smooth, else the search of the curve."""
-    p_on = _onset_fast(tp, u, inv, par[0], par[1], par[11])
+    t0, inv_dt, inv_du = par.onset_tp0_c, par.onset_inv_tp_step, par.curve_inv_water_step
+    p_on = _onset_fast(tp, u, inv, t0, inv_dt, inv_du)
     if np.isfinite(p_on):
         return p_on
-    j = min(int(u * par[11]), first.shape[0] - 1)
-    p_on = _onset(tp, u, j, cv, first, par[0], par[1], par[2])
+    j = min(int(u * inv_du), first.shape[0] - 1)
+    p_on = _onset(tp, u, j, cv, first, t0, inv_dt, par.onset_step_gpa)
     if np.isnan(p_on) and tp > _curve_at(cv, 0, u):
-        return par[17]  # above the solidus down to the upper mantle's floor: onset there
+        return par.max_onset_gpa  # above the solidus down to the upper mantle's floor: onset there
     return p_on
 
 
@@ -362,21 +371,19 @@ def _cells(
     """Every output of every cell into ``out`` (rows :data:`ROWS`) and ``flag``.
 
     Marks in ``slow`` (all False on entry) the cells left for the numpy path (their rows are
-    not written). Where ``par[23]`` (nodata) is not NaN, a cell with a non-finite Tp or water
+    not written). Where ``par.nodata`` is not NaN, a cell with a non-finite Tp or water
     or a NaN lid gets NaN in every row and that flag value. A lid of +inf: the column meets its
     geotherm nowhere (it does not melt; top NaN). ``given`` (2, n) holds per cell the ambient
     column's own top [km] and the excess to melt [K] where not NaN (the geotherm rule);
     ``load`` the water load's rock-equivalent depth [km].
     """
-    sol0, min_top, top_max, max_on = par[13], par[14], par[16], par[17]
-    ambient, crust_ratio, water_max, hydrous, tp_max = par[18], par[19], par[20], par[21], par[22]
-    nodata, min_fraction, least = par[23], par[28], par[29]
+    min_top, ambient, nodata = par.min_top_km, par.ambient_c, par.nodata
     nodata_on = np.isfinite(nodata)
-    varying = par[11] > 0.0
+    varying = par.curve_inv_water_step > 0.0
     # one water content: one ambient onset for every cell
     p_amb = np.nan
     if np.isfinite(ambient):
-        p_amb = _onset_any(ambient, par[7], par, cv, first, inv)
+        p_amb = _onset_any(ambient, par.water_u, par, cv, first, inv)
     for n in range(tp.size):
         t, lid_km, w = tp[n], lid[n], water[n * w_stride]
         if nodata_on and not (np.isfinite(t) and lid_km == lid_km and np.isfinite(w)):
@@ -385,23 +392,23 @@ def _cells(
             flag[n] = nodata
             continue
         lid_ok = lid_km == lid_km and lid_km >= 0.0
-        w_ok = np.isfinite(w) and w >= 0.0 and (hydrous > 0.0 or w == 0.0)
+        w_ok = np.isfinite(w) and w >= 0.0 and (par.hydrous > 0.0 or w == 0.0)
         zw = load[n * load_stride]
         top_km = max(lid_km, min_top)
         top_p = _pressure_of_depth(top_km + zw, par, zp)
-        valid = lid_ok and w_ok and np.isfinite(t) and t > sol0
-        if (lid_ok and w_ok and w > water_max) or (
-            valid and (t < par[3] or t > tp_max or top_max < top_p < np.inf)
+        valid = lid_ok and w_ok and np.isfinite(t) and t > par.surface_solidus_c
+        if (lid_ok and w_ok and w > par.water_max_wt_pct) or (
+            valid and (t < par.tp_min_c or t > par.tp_max_c or par.top_max_gpa < top_p < np.inf)
         ):
             slow[n] = True
             continue
         # u = water^0.75 on the curves (one water content: its u, or 0 on its own curve)
-        u_curve = (w**WATER_EXPONENT if w > 0.0 else 0.0) if varying else par[7]
+        u_curve = (w**WATER_EXPONENT if w > 0.0 else 0.0) if varying else par.water_u
         excess = given[1, n * g_stride]
-        if np.isnan(excess) and lid_ok and w_ok and top_p <= max_on:
-            excess = _curve_interp(cv, top_p, 1.0 / par[2], u_curve) - ambient
+        if np.isnan(excess) and lid_ok and w_ok and top_p <= par.max_onset_gpa:
+            excess = _curve_interp(cv, top_p, 1.0 / par.onset_step_gpa, u_curve) - ambient
         h = f = p_on = mean = share = np.nan
-        fl = 1
+        fl = FLAG_INVALID_INPUT
         if valid:
             p_on = _onset_any(t, u_curve, par, cv, first, inv)
             fl, p_on, h, f, mean, share, to_numpy = _column(
@@ -430,8 +437,8 @@ def _cells(
         out[3, n] = top_km if valid and top_km < np.inf else np.nan
         out[4, n], out[5, n], out[6, n] = f, mean, excess
         out[7, n] = max(h - h_amb, 0.0) if np.isfinite(h) else np.nan
-        out[8, n] = _regime(h, f, h_amb, f_amb, min_fraction, least)
-        out[9, n], out[10, n], out[11, n] = h * crust_ratio, share, z_on
+        out[8, n] = _regime(h, f, h_amb, f_amb, par.min_fraction, par.least_anomaly_km)
+        out[9, n], out[10, n], out[11, n] = h * par.crust_ratio, share, z_on
         out[12, n] = f * up[n * up_stride]
         flag[n] = fl
 
@@ -481,10 +488,14 @@ def evaluate_compiled(
     if arrays is None:
         return None
     par, cv, first, inv, sat, vals, zp, rough, deep = arrays
-    par = par.copy()
-    par[14], par[18], par[19] = min_top_km, ambient_c, crust_ratio
-    par[23] = np.nan if nodata is None else float(nodata)
-    par[28], par[29] = min_fraction, LEAST_ANOMALY_MELT_KM
+    par = par._replace(
+        min_top_km=float(min_top_km),
+        ambient_c=float(ambient_c),
+        crust_ratio=float(crust_ratio),
+        nodata=np.nan if nodata is None else float(nodata),
+        min_fraction=float(min_fraction),
+        least_anomaly_km=float(LEAST_ANOMALY_MELT_KM),
+    )
     tp, lid = _plain(tp), _plain(lid)
     given = np.full((2, 1), np.nan)
     if ambient_lid is not None or excess is not None:
