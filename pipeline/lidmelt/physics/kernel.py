@@ -52,6 +52,7 @@ from lidmelt.physics.flags import (
     FLAG_WATER_SATURATED,
 )
 from lidmelt.physics.kernel_arrays import ONSET_STEP_GPA, kernel_arrays
+from lidmelt.physics.kernel_records import Cells, KernelCall, KernelTimings
 from lidmelt.physics.regime import (
     LEAST_ANOMALY_MELT_KM,
     REGIME_AMBIENT_AND_ANOMALY,
@@ -460,26 +461,21 @@ def compile_seconds() -> float:
     return _COMPILE["seconds"]
 
 
-def evaluate_compiled(
-    table, tp, lid, water, *, ambient_c, min_top_km, upwelling, crust_ratio, out=None,
-    nodata=None, load=0.0, ambient_lid=None, excess=None, min_fraction=0.0,
-):  # fmt: skip
+def evaluate_compiled(table, cells: Cells, call: KernelCall, out=None):
     """Every output of 1-D cells by the compiled kernel, or None where it cannot serve them.
 
-    ``water`` is a float (one water content) or an array like ``tp``; ``upwelling`` a float,
-    an array like ``tp`` or None (no production); ``load`` the water load's rock-equivalent
-    depth [km], a float or an array like ``tp``. ``out``, a float32 C-contiguous array
-    (len(ROWS), n), receives the rows (else one is made); ``nodata``, a flag value for cells
-    with a non-finite input (every row NaN). ``ambient_lid`` [km] and ``excess`` [K], arrays
-    like ``tp`` or None, give the ambient column's own top and the excess to melt where not NaN
-    (the geotherm rule); ``min_fraction`` is the regime's least extracted melt fraction.
+    ``cells`` (:class:`~lidmelt.physics.kernel_records.Cells`): Tp and lid 1-D float arrays;
+    water a float (one water content) or an array like Tp; upwelling a float, an array like Tp
+    or None (no production); the water load a float or an array like Tp; the ambient column's
+    own top and the excess to melt None or arrays like Tp. ``call``: the settings of the call.
+    ``out``, a float32 C-contiguous array (len(ROWS), n), receives the rows (else one is made).
     Returns (outputs by name as float32 arrays, flag as uint8, mask of the cells left for the
     numpy path).
     """
     if not AVAILABLE:
         return None
-    lay = table.layout
-    if np.isfinite(ambient_c) and not lay.tp_min_c <= ambient_c <= lay.tp_max_c:
+    lay, water = table.layout, cells.water_wt_pct
+    if np.isfinite(call.ambient_c) and not lay.tp_min_c <= call.ambient_c <= lay.tp_max_c:
         return None
     one = np.ndim(water) == 0
     if one and not 0.0 <= float(water) <= lay.water_max_wt_pct:
@@ -489,21 +485,20 @@ def evaluate_compiled(
         return None
     par, cv, first, inv, sat, vals, zp, rough, deep = arrays
     par = par._replace(
-        min_top_km=float(min_top_km),
-        ambient_c=float(ambient_c),
-        crust_ratio=float(crust_ratio),
-        nodata=np.nan if nodata is None else float(nodata),
-        min_fraction=float(min_fraction),
-        least_anomaly_km=float(LEAST_ANOMALY_MELT_KM),
-    )
-    tp, lid = _plain(tp), _plain(lid)
+        min_top_km=float(call.min_top_km), ambient_c=float(call.ambient_c),
+        crust_ratio=float(call.crust_ratio),
+        nodata=np.nan if call.nodata is None else float(call.nodata),
+        min_fraction=float(call.min_fraction), least_anomaly_km=float(LEAST_ANOMALY_MELT_KM),
+    )  # fmt: skip
+    tp, lid = _plain(cells.potential_temperature_c), _plain(cells.lid_depth_km)
     given = np.full((2, 1), np.nan)
-    if ambient_lid is not None or excess is not None:
+    if cells.ambient_lid_depth_km is not None or cells.excess_k is not None:
         given = np.full((2, tp.size), np.nan)
-        for k, arr in enumerate((ambient_lid, excess)):
+        for k, arr in enumerate((cells.ambient_lid_depth_km, cells.excess_k)):
             if arr is not None:
                 given[k] = arr
     w = np.array([float(water)]) if one else _plain(water)
+    upwelling, load = cells.upwelling_mm_yr, cells.water_load_km
     up = np.array([np.nan if upwelling is None else float(np.ravel(upwelling)[0])])
     if upwelling is not None and np.size(upwelling) > 1:
         up = _plain(np.broadcast_to(np.asarray(upwelling, float), tp.shape))
@@ -538,37 +533,40 @@ def use_compiled(compiled: bool | None) -> bool:
     return AVAILABLE if compiled is None else bool(compiled)
 
 
-def compiled_cells(table, tp, lid, water, *, ambient, min_top_km, upwelling, crust_ratio, clock,
-              numpy_path, out=None, nodata=None, load=0.0, ambient_lid=None, excess=None,
-              min_fraction=0.0):  # fmt: skip
-    """The compiled kernel on broadcast arrays; its left cells by ``numpy_path``; or None.
-
-    ``numpy_path(tp, lid, water, upwelling, load, ambient_lid, excess)`` returns the outputs of
-    1-D cells by name; ``out``, ``nodata``, ``load`` (the water load), ``ambient_lid``,
-    ``excess`` and ``min_fraction`` are :func:`evaluate_compiled`'s (``load``, ``ambient_lid``
-    and ``excess`` also given to ``numpy_path``, floats, None or arrays).
-    """
-    shape = tp.shape
-    t = np.ascontiguousarray(tp).ravel()
-    d = np.ascontiguousarray(lid).ravel()
-    w = water
-    if np.ndim(water):
-        w = np.ascontiguousarray(water).ravel()
+def _flat_cells(cells: Cells, shape) -> Cells:
+    """``cells`` as 1-D C-contiguous arrays of the cells of ``shape`` (one water content or
+    one water load a float; upwelling broadcast where it is an array)."""
+    w = cells.water_wt_pct
+    if np.ndim(w):
+        w = np.ascontiguousarray(w).ravel()
         if w.size and w.min() == w.max():  # one water content (NaN never equals)
             w = float(w[0])
-    up = upwelling
-    if upwelling is not None and np.ndim(upwelling):
-        up = np.ascontiguousarray(np.broadcast_to(np.asarray(upwelling, float), shape)).ravel()
+    up = cells.upwelling_mm_yr
+    if up is not None and np.ndim(up):
+        up = np.ascontiguousarray(np.broadcast_to(np.asarray(up, float), shape)).ravel()
+    load = cells.water_load_km
     zw = float(np.ravel(load)[0]) if np.size(load) == 1 else load
     if np.ndim(zw):
         zw = np.ascontiguousarray(np.broadcast_to(np.asarray(zw, float), shape)).ravel()
-    given = [None if a is None else np.ascontiguousarray(a, float).ravel()
-             for a in (ambient_lid, excess)]  # fmt: skip
-    res = evaluate_compiled(
-        table, t, d, w, ambient_c=ambient, min_top_km=float(min_top_km), upwelling=up,
-        crust_ratio=crust_ratio, out=out, nodata=nodata, load=zw, ambient_lid=given[0],
-        excess=given[1], min_fraction=min_fraction,
+    amb, ex = (None if a is None else np.ascontiguousarray(a, float).ravel()
+               for a in (cells.ambient_lid_depth_km, cells.excess_k))  # fmt: skip
+    return Cells(
+        np.ascontiguousarray(cells.potential_temperature_c).ravel(),
+        np.ascontiguousarray(cells.lid_depth_km).ravel(), w, up, zw, amb, ex,
     )  # fmt: skip
+
+
+def compiled_cells(table, cells: Cells, call: KernelCall, *, numpy_path, out=None):
+    """The compiled kernel on cells of one shape (Tp and lid broadcast arrays); the cells it
+    leaves by ``numpy_path``; or None where it cannot serve them.
+
+    ``numpy_path(cells)`` returns the outputs of 1-D :class:`Cells` by name; ``out`` is
+    :func:`evaluate_compiled`'s. Returns (outputs and ``"flag"`` by name, in the cells' shape;
+    :class:`~lidmelt.physics.kernel_records.KernelTimings`).
+    """
+    shape = np.shape(cells.potential_temperature_c)
+    flat = _flat_cells(cells, shape)
+    res = evaluate_compiled(table, flat, call, out=out)
     if res is None:
         return None
     out, flag, slow = res
@@ -576,14 +574,8 @@ def compiled_cells(table, tp, lid, water, *, ambient, min_top_km, upwelling, cru
     n_slow = int(np.count_nonzero(slow))
     start = time.perf_counter()
     if n_slow:
-        sub = numpy_path(
-            t[slow], d[slow], w[slow] if np.ndim(w) else w, up[slow] if np.ndim(up) else up,
-            zw[slow] if np.ndim(zw) else zw, *(None if g is None else g[slow] for g in given),
-        )  # fmt: skip
-        for name, arr in sub.items():
+        for name, arr in numpy_path(flat.select(slow)).items():
             out[name][slow] = arr
-    if clock is not None:
-        clock["cells"] = clock.get("cells", 0) + t.size
-        clock["numpy_cells"] = clock.get("numpy_cells", 0) + n_slow
-        clock["numpy_s"] = clock.get("numpy_s", 0.0) + time.perf_counter() - start
-    return {name: arr.reshape(shape) for name, arr in out.items()}
+    n = flat.potential_temperature_c.size
+    timings = KernelTimings(n, n_slow, time.perf_counter() - start)
+    return {name: arr.reshape(shape) for name, arr in out.items()}, timings

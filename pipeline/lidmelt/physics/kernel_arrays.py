@@ -11,11 +11,11 @@ from __future__ import annotations
 
 import threading
 import weakref
-from typing import NamedTuple
 
 import numpy as np
 
 from lidmelt.physics.column import onset_pressure_gpa
+from lidmelt.physics.kernel_records import CALL_FIELDS, KernelParameters
 from lidmelt.physics.melting import MeltingModel
 from lidmelt.physics.table import WATER_EXPONENT, MeltTable
 
@@ -35,55 +35,6 @@ ONSET_STEP_GPA = 0.005
 TP_INDEX_STEP_K = 0.25
 #: Water nodes of the bracketing curves where water varies (a choice of speed).
 WATER_CURVES = 65
-
-
-class KernelParameters(NamedTuple):
-    """The compiled kernel's scalars, read by name (every field a float).
-
-    A named tuple of floats: numba passes it by value as one struct of doubles whose fields it
-    reads at fixed offsets known when compiling (the loop keeps them in registers); it needs
-    no reference counting (the kernel's loop is compiled without it) and is immutable, so the
-    per-call fields are set on a copy (:meth:`_replace`). The fields from ``min_top_km`` on are
-    set per call by :func:`lidmelt.physics.kernel.evaluate_compiled`; the others come from the
-    table and the water content (:func:`kernel_arrays`).
-    """
-
-    onset_tp0_c: float  #: Tp [deg C] of the first node of the onset index's Tp grid
-    onset_inv_tp_step: float  #: 1 / :data:`TP_INDEX_STEP_K`
-    onset_step_gpa: float  #: :data:`ONSET_STEP_GPA`, the onset curve's pressure step
-    tp_min_c: float  #: the table's first Tp node [deg C]
-    inv_tp_step: float  #: 1 / the table's Tp step [1/K]
-    inv_pressure_step: float  #: 1 / the table's top-pressure step [1/GPa]
-    calibrated_max_gpa: float  #: the model's calibrated pressure P_c [GPa]
-    water_u: float  #: one water content's coordinate u = water^0.75 (0: none)
-    curve_inv_water_step: float  #: 1 / the water curves' u step (0: one water content)
-    table_inv_water_step: float  #: 1 / the table's u step (0 with one water node)
-    surface_solidus_c: float  #: the dry solidus at P = 0 [deg C]
-    gpa_per_km: float  #: pressure of 1 km of rock above the PREM join [GPa]
-    top_max_gpa: float  #: the table's deepest top of melting [GPa]
-    max_onset_gpa: float  #: the deepest onset searched (the upper mantle's floor) [GPa]
-    water_max_wt_pct: float  #: the table's largest water content [wt%]
-    hydrous: float  #: 1.0 for a hydrous model, else 0.0
-    tp_max_c: float  #: the table's last Tp node [deg C]
-    join_gpa: float  #: pressure of the join of constant rho g and PREM [GPa]
-    join_km: float  #: depth of that join [km]
-    inv_node_step: float  #: 1 / the pressure step of the PREM depth nodes [1/GPa]
-    deep_tp_node: float  #: the first Tp node of the deep columns
-    deep_inv_water_step: float  #: 1 / the deep columns' u step (0: one water content)
-    rough_inv_water_step: float  #: 1 / the rough intervals' u step (0: one water content)
-    min_top_km: float  #: the minimum top of melting [km] (per call)
-    ambient_c: float  #: ambient Tp [deg C], NaN for none (per call)
-    crust_ratio: float  #: solid over crust density (per call)
-    nodata: float  #: flag value of a cell without data, NaN for none (per call)
-    min_fraction: float  #: the regime's least extracted melt fraction (per call)
-    least_anomaly_km: float  #: the regime's least anomaly melt [km] (per call)
-
-
-#: The per-call fields of :class:`KernelParameters` before a call sets them.
-CALL_FIELDS = {
-    "min_top_km": np.nan, "ambient_c": np.nan, "crust_ratio": np.nan, "nodata": np.nan,
-    "min_fraction": np.nan, "least_anomaly_km": np.nan,
-}  # fmt: skip
 
 
 # ------------------------------------------------------------------------------------------------
