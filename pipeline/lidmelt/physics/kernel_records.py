@@ -14,10 +14,10 @@ import numpy as np
 class KernelParameters(NamedTuple):
     """The compiled kernel's scalars, read by name (every field a float).
 
-    A named tuple of floats: numba passes it by value as one struct of doubles whose fields it
-    reads at fixed offsets known when compiling (the loop keeps them in registers); it needs
-    no reference counting (the kernel's loop is compiled without it) and is immutable, so the
-    per-call fields are set on a copy (:meth:`_replace`). The fields from ``min_top_km`` on are
+    A named tuple of floats: numba passes it by value, as one tuple of doubles whose fields it
+    reads at offsets fixed when compiling (no array lookup by index); it needs no reference
+    counting (the kernel's loop is compiled without it) and is immutable, so the per-call
+    fields are set on a copy (:meth:`_replace`). The fields from ``min_top_km`` on are
     set per call by :func:`lidmelt.physics.kernel.evaluate_compiled`; the others come from the
     table and the water content (:func:`~lidmelt.physics.kernel_arrays.kernel_arrays`).
     """
