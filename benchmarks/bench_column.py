@@ -41,7 +41,9 @@ def main() -> None:
     os.environ.setdefault("LIDMELT_CACHE_DIR", tempfile.mkdtemp(prefix="lidmelt-bench-"))
 
     from lidmelt.physics import MODELS, evaluate_cells, get_model, get_table, melt_column
+    from lidmelt.physics.cells import CellOptions
     from lidmelt.physics.kernel import AVAILABLE, compile_seconds
+    from lidmelt.physics.kernel_records import Cells
     from lidmelt.physics.reference import solve_ivp_column
     from lidmelt.physics.table import MeltTable
 
@@ -53,7 +55,9 @@ def main() -> None:
     if AVAILABLE:  # before any other call, so that this one compiles (or loads numba's cache)
         t = time.perf_counter()
         evaluate_cells(
-            np.full(64, 1400.0), np.full(64, 50.0), 0.0, ambient_potential_temperature_c=1350.0
+            Cells(np.full(64, 1400.0), np.full(64, 50.0), 0.0),
+            CellOptions(ambient_potential_temperature_c=1350.0),
+            dtype=np.float32,
         )
         print(
             f"compiled kernel, first call: {time.perf_counter() - t:.2f} s (compiling it, or "
@@ -96,12 +100,16 @@ def main() -> None:
         f"table / naive: {rates['table, water 0.0'] / naive:.3g} x; "
         f"direct / naive: {rates['direct vectorized, dry'] / naive:.3g} x"
     )
-    kernel_rates(evaluate_cells, table, rng, args.kernel_cells, chunk, AVAILABLE)
+    kernel_rates(table, rng, args.kernel_cells, chunk, AVAILABLE)
     engine_rates(table, args.kernel_cells)
 
 
-def kernel_rates(evaluate_cells, table, rng, cells, chunk, compiled_available) -> None:
+def kernel_rates(table, rng, cells, chunk, compiled_available) -> None:
     """Cells/s of evaluate_cells (every output and the flag), numpy table path vs compiled."""
+    from lidmelt.physics import evaluate_cells
+    from lidmelt.physics.cells import CellOptions
+    from lidmelt.physics.kernel_records import Cells
+
     tp = rng.uniform(1300.0, 1600.0, cells)
     lid = rng.uniform(0.0, 150.0, cells)
     cases = {
@@ -119,21 +127,21 @@ def kernel_rates(evaluate_cells, table, rng, cells, chunk, compiled_available) -
     for case, water in cases.items():
         for path, compiled in paths:
             best, best_clock = np.inf, {}
+            options = CellOptions(
+                ambient_potential_temperature_c=1350.0, table=table, compiled=compiled
+            )
             for _ in range(2):
-                clock = {}
+                clock = {"numpy_cells": 0, "numpy_s": 0.0}
                 t = time.perf_counter()
                 for start in range(0, cells, chunk):
                     sl = slice(start, start + chunk)
-                    evaluate_cells(
-                        tp[sl],
-                        lid[sl],
-                        water if np.ndim(water) == 0 else water[sl],
-                        ambient_potential_temperature_c=1350.0,
-                        table=table,
+                    sub = Cells(
+                        tp[sl], lid[sl], water if np.ndim(water) == 0 else water[sl],
                         upwelling_mm_yr=upwelling[: tp[sl].size],
-                        compiled=compiled,
-                        clock=clock,
-                    )
+                    )  # fmt: skip
+                    timings = evaluate_cells(sub, options, dtype=np.float32).timings
+                    clock["numpy_cells"] += timings.numpy_cells
+                    clock["numpy_s"] += timings.numpy_s
                 took = time.perf_counter() - t
                 if took < best:
                     best, best_clock = took, clock
@@ -154,7 +162,7 @@ def engine_rates(table, cells: int) -> None:
     a run writes, on 1024 x 1024 chunks of an invented smooth basin (ages 0-180 Ma along x, a
     Gaussian plume of 250 K, 8 % land as NaN). The goals are the isotherm rule's; the geotherm
     rule's is to stay within a few times the isotherm rule's."""
-    from lidmelt.engine import KernelSettings, evaluate_chunk
+    from lidmelt.engine import ChunkInputs, KernelSettings, evaluate_chunk
     from lidmelt.physics import get_cooling_model
 
     side = 1024
@@ -177,12 +185,13 @@ def engine_rates(table, cells: int) -> None:
             lid_isotherm_c=1100.0, ambient_c=1350.0, min_top_km=7.0, method="table",
             sources={}, top_of_melting=rule,
         )  # fmt: skip
-        evaluate_chunk(age, np.nan, anomaly, water, settings=settings)  # warm the caches
+        blocks = ChunkInputs(age, np.nan, anomaly, water)
+        evaluate_chunk(blocks, settings=settings)  # warm the caches
         best = np.inf
         for _ in range(2):
             t = time.perf_counter()
             for _ in range(reps):
-                evaluate_chunk(age, np.nan, anomaly, water, settings=settings)
+                evaluate_chunk(blocks, settings=settings)
             best = min(best, time.perf_counter() - t)
         rate = reps * side * side / best / 1e6
         goal = goals[case] if rule == "isotherm" else ""

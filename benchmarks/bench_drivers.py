@@ -26,6 +26,8 @@ from lidmelt.config import VarySpec
 from lidmelt.ensemble.drivers import drivers
 from lidmelt.ensemble.sampling import draw_members
 from lidmelt.physics import evaluate_cells, get_model, get_table
+from lidmelt.physics.cells import CellOptions
+from lidmelt.physics.kernel_records import Cells
 
 LID_KM, TP, WATER = 60.0, (1325.0, 1375.0), (0.0, 0.05)
 VARY = (
@@ -37,11 +39,12 @@ VARY = (
 
 def melt(tp: np.ndarray, water: np.ndarray) -> np.ndarray:
     model = get_model("katz2003")
-    out = evaluate_cells(
-        tp, np.full(tp.shape, LID_KM), water, ambient_potential_temperature_c=1350.0,
-        model=model, table=get_table(model), min_top_km=7.0,
+    options = CellOptions(
+        ambient_potential_temperature_c=1350.0, model=model, table=get_table(model),
+        min_top_km=7.0,
     )  # fmt: skip
-    return np.asarray(out["melt_thickness_km"], float)
+    out = evaluate_cells(Cells(tp, np.full(tp.shape, LID_KM), water), options, dtype=np.float64)
+    return out.outputs["melt_thickness_km"]
 
 
 def truth(n: int = 400) -> list[float]:

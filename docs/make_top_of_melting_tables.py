@@ -23,7 +23,9 @@ from lidmelt.physics import (
     get_table,
     lid_lookup,
 )
+from lidmelt.physics.cells import CellOptions
 from lidmelt.physics.cooling import seafloor_depth_m
+from lidmelt.physics.kernel_records import Cells
 from lidmelt.physics.pressure import water_load_km
 
 MODELS = ("half-space", "gdh1", "ps77")
@@ -46,10 +48,11 @@ def melt(rule: str, cooling: str, tp, water: float, age) -> np.ndarray:
     else:
         lid = lid_lookup(1100.0, model=cm).depth_km(age)
     out = evaluate_cells(
-        tp, lid, water, ambient_potential_temperature_c=AMBIENT, table=TABLE,
-        water_load_km=load, **extra,
-    )  # fmt: skip
-    return np.asarray(out["melt_thickness_km"], float)
+        Cells(tp, lid, water, water_load_km=load, **extra),
+        CellOptions(ambient_potential_temperature_c=AMBIENT, table=TABLE),
+        dtype=np.float64,
+    )
+    return out.outputs["melt_thickness_km"]
 
 
 def ambient_table() -> None:

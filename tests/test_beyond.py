@@ -152,12 +152,15 @@ def test_lid_deeper_than_calibration_flags_the_excess_to_melt():
     # boundaries is flagged; a 250 km lid puts the top of melting (7.9 GPa, PREM below 7.25 GPa)
     # beyond 7 GPa, where the excess to melt reads the continued solidus
     from lidmelt.physics import evaluate_cells
+    from lidmelt.physics.cells import CellOptions
+    from lidmelt.physics.kernel_records import Cells
 
     for compiled in (True, False):
         out = evaluate_cells(
-            np.array([1350.0, 1350.0]), np.array([250.0, 100.0]), 0.0,
-            ambient_potential_temperature_c=1350.0, compiled=compiled,
-        )  # fmt: skip
+            Cells(np.array([1350.0, 1350.0]), np.array([250.0, 100.0]), 0.0),
+            CellOptions(ambient_potential_temperature_c=1350.0, compiled=compiled),
+            dtype=np.float64,
+        ).as_dict()
         assert out["flag"][0] & FLAG_BEYOND_CALIBRATION
         assert out["flag"][1] == 0
         assert np.isfinite(out["excess_to_melt_k"][0])

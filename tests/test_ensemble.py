@@ -23,6 +23,8 @@ from lidmelt.ensemble.missing import key_contrast, missing_summary, missing_warn
 from lidmelt.ensemble.sampling import draw_members, inverse_cdf, unit_samples
 from lidmelt.errors import InputError, WorkflowError
 from lidmelt.physics import EXTRACTION_MIN_MELT_FRACTION, evaluate_cells, get_model, get_table
+from lidmelt.physics.cells import CellOptions
+from lidmelt.physics.kernel_records import Cells
 from lidmelt.products.screening import ensemble_candidates
 from lidmelt.variables import ensemble_variable, get_variable, parse_ensemble_name
 from lidmelt.workflow import load_workflow
@@ -66,10 +68,13 @@ def katz_cells(tp, lid, water=0.0, ambient=1350.0):
     """Every output of cells (Katz et al. 2003 by its table, as the runs evaluate them)."""
     model = get_model("katz2003")
     tp = np.atleast_1d(np.asarray(tp, float))
-    return evaluate_cells(
-        tp, np.full(tp.shape, lid), water, ambient_potential_temperature_c=ambient,
-        model=model, table=get_table(model), min_top_km=7.0,
+    options = CellOptions(
+        ambient_potential_temperature_c=ambient, model=model, table=get_table(model),
+        min_top_km=7.0,
     )  # fmt: skip
+    return evaluate_cells(
+        Cells(tp, np.full(tp.shape, lid), water), options, dtype=np.float32
+    ).as_dict()
 
 
 def read(run, name):

@@ -22,6 +22,8 @@ from lidmelt.ensemble import ensemble_stages
 from lidmelt.ensemble.drivers import MONOTONE_ONLY, NOISE, design_matrix, drivers, spearman
 from lidmelt.ensemble.sampling import draw_members
 from lidmelt.physics import evaluate_cells, get_model, get_table
+from lidmelt.physics.cells import CellOptions
+from lidmelt.physics.kernel_records import Cells
 from lidmelt.workflow import load_workflow
 
 LID_KM = 60.0
@@ -39,12 +41,12 @@ def melt(tp, water, crust=2900.0):
     """H (km) of cells beneath the held-out lid (Katz et al. 2003 by its table, as runs do)."""
     model = get_model("katz2003")
     tp = np.asarray(tp, float)
-    out = evaluate_cells(
-        tp, np.full(tp.shape, LID_KM), np.asarray(water, float),
+    options = CellOptions(
         ambient_potential_temperature_c=1350.0, model=model, table=get_table(model),
         min_top_km=7.0, crust_density_kg_m3=crust,
     )  # fmt: skip
-    return np.asarray(out["melt_thickness_km"], float)
+    cells = Cells(tp, np.full(tp.shape, LID_KM), np.asarray(water, float))
+    return evaluate_cells(cells, options, dtype=np.float64).outputs["melt_thickness_km"]
 
 
 def quadrature_shares(n: int) -> tuple[float, float]:

@@ -19,14 +19,17 @@ from lidmelt.physics import (
     excess_to_melt_k,
     melt_column,
 )
+from lidmelt.physics.cells import CellOptions
+from lidmelt.physics.kernel_records import Cells
 from lidmelt.physics.regime import LEAST_ANOMALY_MELT_KM
 from lidmelt.variables import OUTPUTS
 
 
-def cells(tp, lid, water=0.0, **kw):
+def cells(tp, lid, water=0.0, upwelling_mm_yr=None, **kw):
     kw.setdefault("ambient_potential_temperature_c", 1350.0)
     kw.setdefault("method", "direct")
-    return evaluate_cells(np.asarray(tp, float), np.asarray(lid, float), water, **kw)
+    given = Cells(np.asarray(tp, float), np.asarray(lid, float), water, upwelling_mm_yr)
+    return evaluate_cells(given, CellOptions(**kw), dtype=np.float64).as_dict()
 
 
 def test_every_registered_output_is_computed():

@@ -23,7 +23,7 @@ import pytest
 from scipy import special
 
 from lidmelt.config import LithosphereOptions
-from lidmelt.engine import KernelSettings, evaluate_chunk
+from lidmelt.engine import ChunkInputs, KernelSettings, evaluate_chunk
 from lidmelt.physics import (
     DEFAULT_TOP_OF_MELTING,
     column_profile,
@@ -34,10 +34,12 @@ from lidmelt.physics import (
     get_table,
     melt_column,
 )
+from lidmelt.physics.cells import CellOptions
 from lidmelt.physics.cooling import SECONDS_PER_MA, seafloor_depth_m, temperature_c
 from lidmelt.physics.geotherm import direct_excess_k, direct_top_km, geotherm_tops_direct
 from lidmelt.physics.geotherm_arrays import LOAD_STEP_KM, critical_sqrt_age
 from lidmelt.physics.geotherm_search import AVAILABLE
+from lidmelt.physics.kernel_records import Cells
 from lidmelt.physics.pressure import water_load_km
 from lidmelt.variables import OUTPUTS
 
@@ -79,12 +81,12 @@ def geotherm_h(tp, water, age, cooling, *, ambient=1350.0, compiled=None, load=0
     top, amb, excess = geotherm_tops(
         table, cm, tp, water, age, ambient_c=ambient, compiled=compiled, water_load_km=load
     )
-    out = evaluate_cells(
-        np.broadcast_to(np.asarray(tp, float), np.shape(top)), top, water,
-        ambient_potential_temperature_c=ambient, table=table, ambient_lid_depth_km=amb,
-        excess_k=excess, water_load_km=load,
+    cells = Cells(
+        np.broadcast_to(np.asarray(tp, float), np.shape(top)), top, water, water_load_km=load,
+        ambient_lid_depth_km=amb, excess_k=excess,
     )  # fmt: skip
-    return top, out
+    options = CellOptions(ambient_potential_temperature_c=ambient, table=table)
+    return top, evaluate_cells(cells, options, dtype=np.float64).as_dict()
 
 
 @pytest.mark.parametrize("water", [0.0, 0.01])
@@ -310,14 +312,15 @@ def test_a_lid_grid_stays_the_users_cap_and_the_isotherm_rule_is_unchanged(water
     anomaly = np.array([[0.0, 100.0, 200.0], [0.0, 150.0, 250.0]])
     depth = np.array([[2600.0, 3100.0, 4200.0], [5000.0, 5600.0, 6100.0]])
     row = list(OUTPUTS).index("melting_top_km")
-    out = evaluate_chunk(age, lid, anomaly, 0.0, 0.0, depth, settings=geo)
+    out = evaluate_chunk(ChunkInputs(age, lid, anomaly, 0.0, 0.0, depth), settings=geo)
     given = np.isfinite(lid)
     npt.assert_allclose(out[row][given], np.maximum(lid[given], 7.0))
     from lidmelt.physics import lid_lookup
 
     iso_lid = np.where(given, lid, lid_lookup(1100.0, model=kw["cooling"]).depth_km(age))
-    a = evaluate_chunk(age, lid, anomaly, 0.0, 0.0, depth, settings=iso)
-    b = evaluate_chunk(np.full(age.shape, np.nan), iso_lid, anomaly, 0.0, 0.0, depth, settings=iso)
+    a = evaluate_chunk(ChunkInputs(age, lid, anomaly, 0.0, 0.0, depth), settings=iso)
+    nan_age = np.full(age.shape, np.nan)
+    b = evaluate_chunk(ChunkInputs(nan_age, iso_lid, anomaly, 0.0, 0.0, depth), settings=iso)
     npt.assert_array_equal(a, b)
 
 

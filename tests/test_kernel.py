@@ -13,6 +13,8 @@ import pytest
 
 from lidmelt.errors import ModelError
 from lidmelt.physics import evaluate_cells, excess_to_melt_k, kernel, melt_column
+from lidmelt.physics.cells import CellOptions
+from lidmelt.physics.kernel_records import Cells
 from test_table import assert_within_tolerance
 
 
@@ -41,9 +43,14 @@ def test_every_output_of_the_kernel_equals_the_numpy_path(water):
     tp, lid, w = sample(20000, 3, water)
     tp[::97] = np.nan
     lid[5::89] = np.nan
-    common = {"ambient_potential_temperature_c": 1350.0, "upwelling_mm_yr": 30.0}
-    fast = evaluate_cells(tp, lid, w, compiled=True, **common)
-    slow = evaluate_cells(tp, lid, w, compiled=False, **common)
+    cells = Cells(tp, lid, w, upwelling_mm_yr=30.0)
+    fast, slow = (
+        evaluate_cells(
+            cells, CellOptions(ambient_potential_temperature_c=1350.0, compiled=compiled),
+            dtype=np.float64,
+        ).as_dict()
+        for compiled in (True, False)
+    )  # fmt: skip
     assert set(fast) == set(slow)
     npt.assert_array_equal(fast["flag"], slow["flag"])
     for name in fast:
@@ -92,19 +99,18 @@ def test_no_valid_in_range_cell_leaves_the_kernel():
         on_node = np.ndim(w) == 0 and w in (0.0, 0.1)  # the table's first and last water nodes
         band = tangency_band_c(w) if on_node else (lo, np.inf)
         outside = (tp < band[0]) | (tp > band[1])
-        clock = {}
-        evaluate_cells(tp, lid, w, ambient_potential_temperature_c=1350.0, clock=clock)
-        assert clock["cells"] == n
+        options = CellOptions(ambient_potential_temperature_c=1350.0)
+        clock = evaluate_cells(Cells(tp, lid, w), options, dtype=np.float32).timings
+        assert clock.cells == n
         if np.ndim(w):  # water varying: the finer water nodes beyond P_c, none leaves
-            assert clock["numpy_cells"] == 0
+            assert clock.numpy_cells == 0
             continue
-        assert 0 < clock["numpy_cells"] <= np.count_nonzero(~outside)
-        clock = {}
+        assert 0 < clock.numpy_cells <= np.count_nonzero(~outside)
         w_out = w if np.ndim(w) == 0 else w[outside]
-        evaluate_cells(
-            tp[outside], lid[outside], w_out, ambient_potential_temperature_c=1350.0, clock=clock
-        )
-        assert clock["numpy_cells"] == 0
+        clock = evaluate_cells(
+            Cells(tp[outside], lid[outside], w_out), options, dtype=np.float32
+        ).timings
+        assert clock.numpy_cells == 0
 
 
 def test_cells_outside_the_table_take_the_numpy_path():
@@ -112,21 +118,29 @@ def test_cells_outside_the_table_take_the_numpy_path():
     # deepest top node (TableLayout): those cells go to the numpy path, the rest stay
     tp = np.array([1950.0, 1400.0, 1900.0, 1450.0])
     lid = np.array([30.0, 30.0, 450.0, 60.0])
-    clock = {}
-    fast = evaluate_cells(tp, lid, 0.0, ambient_potential_temperature_c=1350.0, clock=clock)
-    slow = evaluate_cells(tp, lid, 0.0, ambient_potential_temperature_c=1350.0, compiled=False)
-    assert clock["numpy_cells"] == 2
+    options = CellOptions(ambient_potential_temperature_c=1350.0)
+    res = evaluate_cells(Cells(tp, lid, 0.0), options, dtype=np.float64)
+    fast, clock = res.as_dict(), res.timings
+    slow = evaluate_cells(
+        Cells(tp, lid, 0.0), CellOptions(ambient_potential_temperature_c=1350.0, compiled=False),
+        dtype=np.float64,
+    ).as_dict()  # fmt: skip
+    assert clock.numpy_cells == 2
     npt.assert_array_equal(fast["flag"], slow["flag"])
     npt.assert_allclose(fast["melt_thickness_km"], slow["melt_thickness_km"], rtol=1e-5)
 
 
 def test_without_numba_the_numpy_path_runs_and_compiled_true_says_why(monkeypatch):
     monkeypatch.setattr(kernel, "AVAILABLE", False)
-    out = evaluate_cells([1450.0], [40.0], 0.01, ambient_potential_temperature_c=1350.0)
-    assert out["excess_to_melt_k"].dtype == np.float64  # the numpy path's dtype
+    options = CellOptions(ambient_potential_temperature_c=1350.0)
+    out = evaluate_cells(Cells([1450.0], [40.0], 0.01), options, dtype=np.float64).outputs
+    assert out["excess_to_melt_k"].dtype == np.float64  # the dtype asked
     assert out["melt_thickness_km"][0] > 0
     with pytest.raises(ModelError, match=r"numba cannot be imported.*compiled=False"):
-        evaluate_cells([1450.0], [40.0], ambient_potential_temperature_c=1350.0, compiled=True)
+        evaluate_cells(
+            Cells([1450.0], [40.0]),
+            CellOptions(ambient_potential_temperature_c=1350.0, compiled=True), dtype=np.float64,
+        )  # fmt: skip
 
 
 def test_rows_are_the_registry_order():
@@ -150,9 +164,11 @@ def test_out_and_nodata_give_the_same_values_on_both_paths(compiled):
     tp[::7] = np.nan
     lid[::11] = np.nan
     kw = {"ambient_potential_temperature_c": 1350.0, "compiled": compiled}
-    plain = evaluate_cells(tp, lid, 0.01, **kw)
+    plain = evaluate_cells(Cells(tp, lid, 0.01), CellOptions(**kw), dtype=np.float64).as_dict()
     out = np.full((len(OUTPUT_ROWS), tp.size), -1.0, np.float32)
-    got = evaluate_cells(tp, lid, 0.01, out=out, nodata=255, **kw)
+    got = evaluate_cells(
+        Cells(tp, lid, 0.01), CellOptions(**kw, nodata=255), dtype=np.float32, out=out
+    ).as_dict()
     missing = ~(np.isfinite(tp) & np.isfinite(lid))
     npt.assert_array_equal(got["flag"], np.where(missing, 255, plain["flag"]))
     for k, name in enumerate(OUTPUT_ROWS):
@@ -168,9 +184,10 @@ def test_no_anomaly_means_exactly_no_anomaly_melt(compiled):
     lid = np.linspace(0.0, 120.0, 2000)
     for water in (0.0, 0.01):
         out = evaluate_cells(
-            np.full(lid.size, 1350.0), lid, water, ambient_potential_temperature_c=1350.0,
-            compiled=compiled,
-        )  # fmt: skip
+            Cells(np.full(lid.size, 1350.0), lid, water),
+            CellOptions(ambient_potential_temperature_c=1350.0, compiled=compiled),
+            dtype=np.float64,
+        ).outputs
         assert (out["melt_thickness_km"] > 0).any()  # the ambient mantle melts under thin lids
         npt.assert_array_equal(out["anomaly_melt_thickness_km"], 0.0)
 
@@ -187,11 +204,12 @@ def test_water_varying_per_cell_on_hot_columns_stays_in_the_kernel_within_tolera
     n = 500
     tp, lid = rng.uniform(1500.0, 1900.0, n), rng.uniform(0.0, 250.0, n)
     w = rng.uniform(0.0, 0.05, n) if model == "katz2003" else 0.0
-    clock = {}
-    fast = evaluate_cells(
-        tp, lid, w, ambient_potential_temperature_c=1350.0, model=model, clock=clock,
-        compiled=True,
-    )  # fmt: skip
+    res = evaluate_cells(
+        Cells(tp, lid, w),
+        CellOptions(ambient_potential_temperature_c=1350.0, model=model, compiled=True),
+        dtype=np.float64,
+    )
+    fast, clock = res.as_dict(), res.timings
     direct = melt_column(tp, lid, w, model=model, method="direct")
     h_d, h_k = direct.melt_thickness_km, fast["melt_thickness_km"]
     assert np.all(np.isfinite(h_d))
@@ -201,4 +219,22 @@ def test_water_varying_per_cell_on_hot_columns_stays_in_the_kernel_within_tolera
     npt.assert_allclose(fast["onset_depth_km"], direct.onset_depth_km, atol=0.2)
     # the share is a ratio of two readings each within 0.5 %: within 1 %
     npt.assert_allclose(fast["deep_melt_share"], direct.deep_melt_share, atol=1e-2)
-    assert clock["numpy_cells"] == 0 if np.ndim(w) else clock["numpy_cells"] < n // 10
+    assert clock.numpy_cells == 0 if np.ndim(w) else clock.numpy_cells < n // 10
+
+
+@pytest.mark.parametrize("compiled", [pytest.param(True, marks=compiled_only), False])
+def test_the_outputs_have_the_dtype_the_caller_asks(compiled):
+    """The caller chooses the dtype on either path (lidmelt's API); an ``out`` of another dtype
+    is refused. Check values: the float32 outputs are the float64 ones rounded to float32
+    (the compiled kernel stores float32, so there they are equal)."""
+    tp, lid = np.array([1450.0, 1350.0, np.nan]), np.array([40.0, 20.0, 30.0])
+    options = CellOptions(ambient_potential_temperature_c=1350.0, compiled=compiled)
+    wide = evaluate_cells(Cells(tp, lid, 0.01), options, dtype=np.float64).outputs
+    narrow = evaluate_cells(Cells(tp, lid, 0.01), options, dtype=np.float32).outputs
+    for name in wide:
+        assert wide[name].dtype == np.float64, name
+        assert narrow[name].dtype == np.float32, name
+        npt.assert_array_equal(narrow[name], wide[name].astype(np.float32), err_msg=name)
+    out = np.empty((13, 3), np.float32)
+    with pytest.raises(ModelError, match="out has dtype float32"):
+        evaluate_cells(Cells(tp, lid, 0.01), options, dtype=np.float64, out=out)

@@ -9,7 +9,7 @@ import numpy.testing as npt
 import pytest
 from scipy.optimize import brentq
 
-from lidmelt.engine import KernelSettings, evaluate_chunk
+from lidmelt.engine import ChunkInputs, KernelSettings, evaluate_chunk
 from lidmelt.errors import ModelError
 from lidmelt.physics import get_model, lid_lookup
 from lidmelt.physics.cooling import (
@@ -151,9 +151,9 @@ def test_engine_lid_from_age_is_the_lookup():
         sources={},
     )
     age = np.array([[0.5, 7.3, 23.0], [61.0, 140.0, 390.0]], np.float32)
-    out = evaluate_chunk(age, np.nan, 150.0, 0.0, settings=settings)
+    out = evaluate_chunk(ChunkInputs(age, np.nan, 150.0, 0.0), settings=settings)
     given = lid_lookup(1100.0, model=GDH1).depth_km(age)
-    same = evaluate_chunk(age, given, 150.0, 0.0, settings=settings)
+    same = evaluate_chunk(ChunkInputs(age, given, 150.0, 0.0), settings=settings)
     npt.assert_array_equal(out, same)
     lid = out[list(OUTPUTS).index("melting_top_km")]
     exact = isotherm_depth_km(1100.0, age, model=GDH1)

@@ -21,7 +21,7 @@ import uuid
 from collections.abc import Callable
 from dataclasses import dataclass, field, replace
 from pathlib import Path
-from typing import Any
+from typing import Any, NamedTuple
 
 import numpy as np
 import xarray as xr
@@ -38,6 +38,8 @@ from lidmelt.physics import (
     evaluate_cells,
     lid_lookup,
 )
+from lidmelt.physics.cells import CellOptions
+from lidmelt.physics.kernel_records import Cells
 from lidmelt.progress import band_reporter
 from lidmelt.run_inputs import (
     LID_INPUTS,
@@ -146,18 +148,22 @@ class LazyRun:
     clock: dict[str, float]
 
 
+class ChunkInputs(NamedTuple):
+    """The input blocks of one chunk (arrays that broadcast together, or constants), in the
+    order of :data:`_KERNEL_INPUTS`: plate age [Ma], lid thickness [km] (NaN: from the age),
+    thermal anomaly [K], water [wt%], upwelling [mm/yr] and water depth [m]."""
+
+    plate_age_ma: Any
+    lid_thickness_km: Any
+    thermal_anomaly_k: Any
+    water_wt_pct: Any
+    upwelling_mm_yr: Any = 0.0
+    water_depth_m: Any = np.nan
+
+
 # ---- the kernel ----------------------------------------------------------------------------------
 def evaluate_chunk(
-    age,
-    lid_grid,
-    anomaly,
-    water,
-    upwelling=0.0,
-    water_depth=np.nan,
-    *,
-    settings: KernelSettings,
-    clock=None,
-    check_inputs: bool = True,
+    blocks: ChunkInputs, *, settings: KernelSettings, clock=None, check_inputs: bool = True
 ):
     """Every output of one chunk, stacked as (n_outputs + 1, y, x) float32 (flag last).
 
@@ -167,14 +173,15 @@ def evaluate_chunk(
     (:func:`lidmelt.physics.geotherm_tops`); cells without a lid, anomaly or water are NaN (flag
     :data:`lidmelt.variables.FLAG_NODATA`), and so are outputs the inputs do not give (melt
     production without upwelling). The water above the seafloor loads the column
-    (``settings.water_load``: the ``water_depth`` block [m] of a bathymetry, or the cooling
-    model's seafloor depth at the plate age; none otherwise). ``clock``, a dict, accumulates the
-    thread seconds spent on the lid and on melting. ``check_inputs=False`` skips the range
+    (``settings.water_load``: the ``water_depth_m`` block of a bathymetry, or the cooling
+    model's seafloor depth at the plate age; none otherwise). ``clock``, a dict shared by the
+    chunks of a run (dask threads), accumulates the thread seconds spent on the lid and on
+    melting. ``check_inputs=False`` skips the range
     check of input blocks that were already checked (an ensemble's members sharing one input group).
     """
     s = settings
     t0 = time.perf_counter()
-    blocks = (age, lid_grid, anomaly, water, upwelling, water_depth)
+    age, lid_grid, anomaly, water, upwelling, water_depth = blocks
     shape = np.broadcast_shapes(*(np.shape(a) for a in blocks))
     for name, block in zip(_KERNEL_INPUTS, blocks, strict=True):
         if check_inputs and name in s.sources and np.ndim(block):
@@ -199,23 +206,17 @@ def evaluate_chunk(
     t1 = time.perf_counter()
     out = np.empty((len(OUTPUTS) + 1, *shape), np.float32)
     rows = out.reshape(len(OUTPUTS) + 1, -1)
-    res = evaluate_cells(
-        tp,
-        lid,
-        water_arg,
-        ambient_potential_temperature_c=s.ambient_c,
-        model=s.model,
-        method=s.method,
-        table=s.table,
-        min_top_km=s.min_top_km,
-        upwelling_mm_yr=np.broadcast_to(upwelling, shape) if s.upwelling else None,
-        crust_density_kg_m3=s.crust_density_kg_m3,
-        out=rows[:-1],
+    cells = Cells(
+        tp, lid, water_arg, water_load_km=load,
+        upwelling_mm_yr=np.broadcast_to(upwelling, shape) if s.upwelling else None, **geotherm,
+    )  # fmt: skip
+    options = CellOptions(
+        ambient_potential_temperature_c=s.ambient_c, model=s.model, method=s.method,
+        table=s.table, min_top_km=s.min_top_km, crust_density_kg_m3=s.crust_density_kg_m3,
         nodata=FLAG_NODATA,
-        water_load_km=load,
-        **geotherm,
-    )
-    rows[-1] = res["flag"].ravel()
+    )  # fmt: skip
+    res = evaluate_cells(cells, options, dtype=np.float32, out=rows[:-1])
+    rows[-1] = res.flag.ravel()
     if clock is not None:  # dict updates of floats are atomic enough for a timing summary
         clock["lid_thread_s"] = clock.get("lid_thread_s", 0.0) + t1 - t0
         clock["melting_thread_s"] = clock.get("melting_thread_s", 0.0) + time.perf_counter() - t1
@@ -239,7 +240,7 @@ class _ChunkKernel:
         shape = block_info[None]["chunk-shape"][1:]
         vals = [next(it) if s is None else s for s in self.scalars]
         vals[0] = np.broadcast_to(vals[0], shape)  # the lid from age needs an age everywhere
-        return evaluate_chunk(*vals, settings=settings, clock=self.clock)
+        return evaluate_chunk(ChunkInputs(*vals), settings=settings, clock=self.clock)
 
 
 def _as_dask(value, chunks: int):

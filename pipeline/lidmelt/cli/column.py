@@ -10,6 +10,8 @@ import sys
 from pathlib import Path
 from typing import Any
 
+import numpy as np
+
 from lidmelt.config import DEFAULT_CRUST_DENSITY_KG_M3
 from lidmelt.errors import InputError
 from lidmelt.files import atomic_path
@@ -32,8 +34,10 @@ from lidmelt.physics import (
     get_table,
     isotherm_depth_km,
 )
+from lidmelt.physics.cells import CellOptions
 from lidmelt.physics.cooling import seafloor_depth_m
 from lidmelt.physics.geotherm import geotherm_tops_direct
+from lidmelt.physics.kernel_records import Cells
 from lidmelt.physics.pressure import water_load_km
 from lidmelt.variables import INPUTS, OUTPUTS
 
@@ -388,19 +392,14 @@ def run(args: argparse.Namespace) -> int:
     for note in _unit_hints(args, tp):  # before any error, which they may explain
         print(f"note: {note}.", file=sys.stderr)
     lid, given = _lid_km(args, model, tp, tp if ambient is None else ambient, load)
-    out = evaluate_cells(
-        tp,
-        lid,
-        args.water,
-        ambient_potential_temperature_c=tp if ambient is None else ambient,
-        model=model,
-        method=args.method,
-        min_top_km=args.min_top,
-        crust_density_kg_m3=args.crust_density,
-        water_load_km=load,
-        **given,
+    options = CellOptions(
+        ambient_potential_temperature_c=tp if ambient is None else ambient, model=model,
+        method=args.method, min_top_km=args.min_top, crust_density_kg_m3=args.crust_density,
+    )  # fmt: skip
+    res = evaluate_cells(
+        Cells(tp, lid, args.water, water_load_km=load, **given), options, dtype=np.float64
     )
-    flag = int(out.pop("flag"))
+    out, flag = dict(res.outputs), int(res.flag)
     _check_flag(flag, model, tp, args, out)
     values = {name: float(v) for name, v in out.items()}
     if ambient is None:  # only Tp given: no ambient to compare with

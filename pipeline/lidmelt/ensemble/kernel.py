@@ -47,7 +47,7 @@ from typing import Any
 
 import numpy as np
 
-from lidmelt.engine import KernelSettings, evaluate_chunk
+from lidmelt.engine import ChunkInputs, KernelSettings, evaluate_chunk
 from lidmelt.ensemble.posterior import pack_masks
 from lidmelt.ensemble.score import NBINS, bin_keys
 from lidmelt.physics import EXTRACTION_MIN_MELT_FRACTION, FLAG_INVALID_INPUT, FLAG_NO_ONSET
@@ -301,7 +301,9 @@ def reduce_chunk(
         bins, indicators = [], np.zeros((2, members, *shape), bool)
     checked: set[int] = set()  # input groups whose blocks were range-checked in this chunk
     for m, (settings, group) in enumerate(zip(plan.settings, plan.groups, strict=True)):
-        out = evaluate_chunk(*values[group], settings=settings, check_inputs=group not in checked)
+        out = evaluate_chunk(
+            ChunkInputs(*values[group]), settings=settings, check_inputs=group not in checked
+        )
         checked.add(group)
         for b, name in enumerate(BASES):
             stacks[b, m] = out[_INDEX[name]]

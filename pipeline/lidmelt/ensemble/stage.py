@@ -18,6 +18,7 @@ import tempfile
 import time
 import uuid
 import warnings
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
@@ -440,7 +441,7 @@ def run_ensemble_stage(
     run_warnings = [w for w in (warning, *notes) if w]
     for w in run_warnings:
         warnings.warn(w, UserWarning, stacklevel=2)
-    entry = _entry(cfg, ens, names, plan, tables, lacking, totals, found, sums)
+    entry = _entry(cfg, names, plan, tables, _Reduced(sums, totals, lacking, found))
     if scored:
         entry["assessment"] = {**scored["entry"], "scoring_s": scoring_s}
     entry["compute_s"] = time.perf_counter() - t0
@@ -454,8 +455,21 @@ def run_ensemble_stage(
     return files, extra
 
 
-def _entry(cfg, ens, names, plan, tables, lacking, totals, found, sums) -> dict[str, Any]:
+@dataclass(frozen=True, eq=False)
+class _Reduced:
+    """What the members gave: the sums of the chunks, the members' totals (NaN where a member
+    lacks a value), the summary of the members without a value and the tracked candidates
+    (None without screening)."""
+
+    sums: dict[str, Any]
+    totals: np.ndarray
+    lacking: dict[str, Any]
+    found: Candidates | None
+
+
+def _entry(cfg, names, plan, tables, reduced: _Reduced) -> dict[str, Any]:
     """The summary's ``"ensemble"`` entry (without its assessment and time)."""
+    ens, totals, found = cfg.ensemble, reduced.totals, reduced.found
     entry = {
         "members": ens.members,
         "seed": ens.seed,
@@ -469,7 +483,7 @@ def _entry(cfg, ens, names, plan, tables, lacking, totals, found, sums) -> dict[
         "input_groups": len(plan.scalars),
         "memory_estimate_gb": estimate_memory_bytes(cfg, groups=len(plan.scalars)) / 1e9,
         "outputs": names,
-        "members_without_value": lacking,
+        "members_without_value": reduced.lacking,
         "totals": {
             name: total_statistics(totals[k], ens.percentiles) for k, name in enumerate(TOTALS)
         },
@@ -478,7 +492,7 @@ def _entry(cfg, ens, names, plan, tables, lacking, totals, found, sums) -> dict[
     }
     if found is not None:
         entry["candidates"] = (
-            _candidates_entry(found, ens, sums, names) if found.count else
+            _candidates_entry(found, ens, reduced.sums, names) if found.count else
             {**found.screening, "tracked": 0, "list": []}
         )  # fmt: skip
     return entry

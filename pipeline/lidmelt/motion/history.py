@@ -41,7 +41,7 @@ import numpy as np
 from scipy.ndimage import map_coordinates
 from scipy.spatial.transform import Rotation
 
-from lidmelt.engine import KernelSettings, evaluate_chunk
+from lidmelt.engine import ChunkInputs, KernelSettings, evaluate_chunk
 from lidmelt.grids.grid import Grid
 from lidmelt.motion.geometry import SHAPE_CODES, SampledField, add_plumes, sample_rotated
 from lidmelt.motion.plan import DEFAULT_PLATE, PlumeTrack
@@ -309,10 +309,10 @@ def reduce_history(plan: HistoryPlan, window: tuple[int, int, int, int], blocks,
         if k == 0 and plan.today_files is not None:
             out = _read_today(plan.today_files, window)
         elif k == 0:
-            out = evaluate_chunk(*today, settings=plan.settings, clock=plan.clock)
+            out = evaluate_chunk(ChunkInputs(*today), settings=plan.settings, clock=plan.clock)
         else:
             vals = _step_inputs(plan, today, xyz, groups, k, shape)
-            out = evaluate_chunk(*vals, settings=plan.settings, check_inputs=False,
+            out = evaluate_chunk(ChunkInputs(*vals), settings=plan.settings, check_inputs=False,
                                  clock=plan.clock)  # fmt: skip
         acc.add(out, float(t), float(plan.weights[k]))
     return acc.layers()

@@ -18,7 +18,7 @@ from typing import Any
 
 import numpy as np
 
-from lidmelt.engine import evaluate_chunk
+from lidmelt.engine import ChunkInputs, evaluate_chunk
 from lidmelt.files import atomic_path
 from lidmelt.grids.motionfiles import write_tracks
 from lidmelt.motion.history import HistoryPlan, frame_inputs
@@ -110,11 +110,11 @@ def track_points(plan: HistoryPlan, age: np.ndarray, plates: np.ndarray | None) 
             fields[j, i] = np.asarray(value, float).reshape(-1)[0]
     ok = age_then >= 0.0
     upwelling = fields[2] if plan.upwelling else 0.0
-    out = evaluate_chunk(
+    blocks = ChunkInputs(
         np.where(ok, age_then, np.nan)[None], np.nan, fields[0][None], fields[1][None],
         np.broadcast_to(upwelling, (n,))[None] if plan.upwelling else 0.0, np.nan,
-        settings=plan.settings, check_inputs=False,
     )  # fmt: skip
+    out = evaluate_chunk(blocks, settings=plan.settings, check_inputs=False)
     index = list(OUTPUTS)
     columns: dict[str, np.ndarray] = {
         "plume": np.array([p[0] for p in points], dtype=object),

@@ -54,6 +54,7 @@ from lidmelt.physics.flags import (
 )
 from lidmelt.physics.kernel import ROWS as OUTPUT_ROWS
 from lidmelt.physics.kernel import compiled_cells, use_compiled
+from lidmelt.physics.kernel_records import Cells, KernelCall
 from lidmelt.physics.melting import MeltingModel, get_model
 from lidmelt.physics.table import FALLBACK_STEP_GPA, MeltTable, get_table
 
@@ -129,14 +130,26 @@ class ColumnResult:
         return out
 
 
-def finish_outputs(
-    model, tp, w, top_km, p_on, melt_thickness_km, f_top, int_p_df, flag, *, deep, load_km=0.0
-):
+@dataclass(frozen=True)
+class ColumnIntegrals:
+    """The integrals of columns from their onset to their top: H [km], F at the top and the
+    integral of P dF [GPa] (the keys of :func:`lidmelt.physics.column.integrate_columns`)."""
+
+    melt_thickness_km: np.ndarray
+    max_melt_fraction: np.ndarray
+    int_p_df_gpa: np.ndarray
+
+
+def finish_outputs(model, cells: Cells, p_on, integrals: ColumnIntegrals, flag, *, deep):
     """Assemble a ColumnResult from onset and integrals; set the derived flags and NaNs.
 
-    ``deep``: (H, F) of the columns with their top at the calibrated pressure
-    (:mod:`lidmelt.physics.deepshare`); ``load_km``: the water load's rock-equivalent depth.
+    ``cells``: Tp, water and water load (its rock-equivalent depth [km]) of the cells, with
+    ``lid_depth_km`` their top of melting [km]; ``deep``: (H, F) of the columns with their
+    top at the calibrated pressure (:mod:`lidmelt.physics.deepshare`).
     """
+    w, top_km, load_km = cells.water_wt_pct, cells.lid_depth_km, cells.water_load_km
+    melt_thickness_km, f_top = integrals.melt_thickness_km, integrals.max_melt_fraction
+    int_p_df = integrals.int_p_df_gpa
     with np.errstate(invalid="ignore", divide="ignore"):
         top_p = model.pressure_gpa(top_km, load_km)
         invalid = (flag & FLAG_INVALID_INPUT) > 0
@@ -232,15 +245,18 @@ def melt_column(
     if method == "table":
         tab = table if table is not None else get_table(model)
         if use_compiled(compiled):
+            call = KernelCall(ambient_c=np.nan, min_top_km=min_top_km, crust_ratio=1.0)
             res = compiled_cells(
-                tab, tp, lid, w, ambient=np.nan, min_top_km=min_top_km, upwelling=None,
-                crust_ratio=1.0, clock=None, load=water_load_km,
-                numpy_path=lambda t, d, ww, _, zw, *__: _table_columns(
-                    tab, t, *np.broadcast_arrays(d, ww, zw), min_top_km=min_top_km
+                tab, Cells(tp, lid, w, water_load_km=water_load_km), call,
+                numpy_path=lambda sub: _table_columns(
+                    tab, sub.potential_temperature_c,
+                    *np.broadcast_arrays(sub.lid_depth_km, sub.water_wt_pct, sub.water_load_km),
+                    min_top_km=min_top_km,
                 ).as_dict(),
             )  # fmt: skip
             if res is not None:
-                return ColumnResult(**{k: res[k] for k in (*COLUMN_OUTPUTS, "flag")}, model=model)
+                out = res[0]
+                return ColumnResult(**{k: out[k] for k in (*COLUMN_OUTPUTS, "flag")}, model=model)
         return _table_columns(tab, tp, lid, w, load, min_top_km=min_top_km)
     if method != "direct":
         msg = f"unknown method {method!r}; use 'table' (fast) or 'direct' (integrates each column)."
@@ -259,19 +275,12 @@ def _direct(model, tp, lid, w, *, min_top_km, step_gpa, load_km):
     t_ok, w_ok = np.where(ok, tp, 1300.0), np.where(ok, w, 0.0)
     res = integrate_columns(model, t_ok, w_ok, p_on, top_p, step_gpa=step_gpa)
     deep = direct_at_calibration(model, t_ok, w_ok, p_on, top_p, step_gpa)
-    return finish_outputs(
-        model,
-        tp,
-        w,
-        top_km,
-        p_on,
-        res["melt_thickness_km"].reshape(tp.shape),
-        res["max_melt_fraction"].reshape(tp.shape),
-        res["int_p_df_gpa"].reshape(tp.shape),
-        flag,
-        deep=deep,
-        load_km=load_km,
-    )
+    integrals = ColumnIntegrals(
+        *(res[k].reshape(tp.shape) for k in ("melt_thickness_km", "max_melt_fraction",
+                                             "int_p_df_gpa"))
+    )  # fmt: skip
+    cells = Cells(tp, top_km, w, water_load_km=load_km)
+    return finish_outputs(model, cells, p_on, integrals, flag, deep=deep)
 
 
 def excess_to_melt_k(
@@ -441,10 +450,10 @@ def _table_any_water(table, tp, lid, w, min_top_km, load):
     if wet.any():  # the onset is not linear in water: make it exact by Newton steps
         p_on[wet] = refine_onset_gpa(model, t[wet], ww[wet], p_on[wet])
     deep = table_at_calibration(table, t, ww, np.where(good, p_on, np.nan), top_p)
+    integrals = ColumnIntegrals(vals[:, 0], vals[:, 1], vals[:, 2])
     res = finish_outputs(
-        model, tp, w, top_km, p_on, vals[:, 0], vals[:, 1], vals[:, 2], flag, deep=deep,
-        load_km=load,
-    )  # fmt: skip
+        model, Cells(tp, top_km, w, water_load_km=load), p_on, integrals, flag, deep=deep
+    )
     out = res.as_dict()
     with np.errstate(invalid="ignore"):
         out["mean_melt_pressure_gpa"] = np.clip(out["mean_melt_pressure_gpa"], top_p, p_on)

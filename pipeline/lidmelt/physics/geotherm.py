@@ -38,6 +38,7 @@ from __future__ import annotations
 
 import threading
 import weakref
+from typing import NamedTuple
 
 import numpy as np
 
@@ -47,6 +48,7 @@ from lidmelt.physics.cooling import CoolingModel, check_model, temperature_c
 from lidmelt.physics.geotherm_arrays import (
     LOAD_MAX_KM,
     LOAD_STEP_KM,
+    SearchParameters,
     geotherm_arrays,
     node_depths_km,
 )
@@ -145,26 +147,26 @@ def geotherm_tops(
     in_table = one and 0.0 <= w_one <= lay.water_max_wt_pct
     arrays = geotherm_arrays(table, cooling, min_top_km, w_one if in_table else None)
     n_w = arrays.s_star.shape[1]
-    par = np.array(
-        [lay.tp_min_c, 1.0 / lay.tp_step_k, table.pressure_gpa[1] - table.pressure_gpa[0],
-         np.nan, table.top_pressure_max_gpa, float(ambient_c),
-         0.0 if n_w == 1 else 1.0 / (table.water_u[1] - table.water_u[0]),
-         lay.water_max_wt_pct if not one or in_table else -1.0, 0.0, 1.0 / LOAD_STEP_KM,
-         LOAD_MAX_KM],
-        float,
+    values = (
+        lay.tp_min_c, 1.0 / lay.tp_step_k, table.pressure_gpa[1] - table.pressure_gpa[0],
+        table.top_pressure_max_gpa, float(ambient_c),
+        0.0 if n_w == 1 else 1.0 / (table.water_u[1] - table.water_u[0]),
+        lay.water_max_wt_pct if not one or in_table else -1.0, 0.0, 1.0 / LOAD_STEP_KM,
+        LOAD_MAX_KM,
     )  # fmt: skip
+    par = SearchParameters(*(float(v) for v in values))
     search = search_compiled if (AVAILABLE if compiled is None else compiled) else search_numpy
     amb_tab = None
     if in_table and n_w == 1:  # one water content: the ambient column's tops against age
         amb_tab = _ambient_table(arrays, par, search, _load_rows(load))
-        par[8] = 1.0 / AMBIENT_STEP
+        par = par._replace(inv_ambient_step=1.0 / AMBIENT_STEP)
     top, amb, excess, slow = search(arrays, par, tp, water, age, load, p_min, amb_tab)
     if slow.any():
         w_all = np.broadcast_to(np.asarray(water, float), tp.shape)
         z_all = np.broadcast_to(load, tp.shape)
         _direct_cells(
-            model, cooling, tp, w_all, age, slow, ambient_c, min_top_km, z_all,
-            out=(top, amb, excess),
+            model, cooling, _Columns(tp, w_all, age, z_all), slow, ambient_c=ambient_c,
+            min_top_km=min_top_km, out=(top, amb, excess),
         )  # fmt: skip
     return (
         model.depth_km(top, load).reshape(shape),
@@ -199,7 +201,7 @@ _LOCK = threading.Lock()
 def _ambient_table(arrays, par, search, n_loads: int):
     """:func:`lidmelt.physics.geotherm_search.ambient_tops`, kept per arrays and ambient Tp
     (made again with more load rows when a call needs them)."""
-    key = (float(par[5]), search.__name__)
+    key = (float(par.ambient_c), search.__name__)
     with _LOCK:
         kept = _AMBIENT_TABLES.setdefault(arrays, {})
         if key not in kept or kept[key].shape[0] < n_loads:
@@ -230,7 +232,10 @@ def geotherm_tops_direct(
     with np.errstate(invalid="ignore"):
         valid = (age >= 0.0) & np.isfinite(tp) & (water >= 0.0) & (load >= 0.0)
     if valid.any():
-        _direct_cells(model, cooling, tp, water, age, valid, ambient_c, min_top_km, load, out=out)
+        _direct_cells(
+            model, cooling, _Columns(tp, water, age, load), valid, ambient_c=ambient_c,
+            min_top_km=min_top_km, out=out,
+        )  # fmt: skip
     return (
         model.depth_km(out[0], load).reshape(shape),
         model.depth_km(out[1], load).reshape(shape),
@@ -238,9 +243,19 @@ def geotherm_tops_direct(
     )
 
 
-def _direct_cells(model, cooling, tp, water, age, slow, ambient_c, min_top_km, load, *, out):
-    """The cells ``slow`` by direct integration, into ``out`` (top, ambient top [GPa], excess);
-    ``load`` the cells' water loads [km]."""
+class _Columns(NamedTuple):
+    """1-D cells: Tp [deg C], water [wt%], plate age [Ma] and water load [km]."""
+
+    tp: np.ndarray
+    water: np.ndarray
+    age: np.ndarray
+    load: np.ndarray
+
+
+def _direct_cells(model, cooling, cells: _Columns, slow, *, ambient_c, min_top_km, out):
+    """The cells ``slow`` of ``cells`` by direct integration, into ``out`` (top, ambient top
+    [GPa], excess)."""
+    tp, water, age, load = cells
     top, amb, excess = out
     idx = np.flatnonzero(slow)
     w, ag, zw = water[idx], age[idx], load[idx]

@@ -29,6 +29,7 @@ import math
 import threading
 import weakref
 from dataclasses import dataclass, field
+from typing import NamedTuple
 
 import numpy as np
 from scipy import special
@@ -161,7 +162,7 @@ class GeothermArrays:
     min_top_km: float
     deficit: np.ndarray
     depth_km: np.ndarray
-    geotherm: np.ndarray
+    geotherm: GeothermNumbers
     model: object
     cooling: CoolingModel
     tp_c: np.ndarray
@@ -243,19 +244,43 @@ def least_tp_of_loads(arrays: GeothermArrays, n_loads: int) -> np.ndarray:
     return out
 
 
-def geotherm_numbers(cooling: CoolingModel, model) -> np.ndarray:
-    """What the exact geotherm needs, as one float array: kind (0 half-space, 1 plate),
-    1 / (2 sqrt(kappa Ma)) [1/km], plate thickness a [km] (0 for the half-space),
-    kappa Ma / a^2, the surface temperature T0 [deg C], and the melting model's solid
-    isentrope coefficient alpha_s / (rho_s c_p) [1/GPa]."""
+class GeothermNumbers(NamedTuple):
+    """What the exact geotherm needs, read by name (every field a float: a named tuple of
+    floats, which numba passes by value, as :class:`lidmelt.physics.kernel_records.
+    KernelParameters`)."""
+
+    plate: float  #: 0.0 for the half-space, 1.0 for a plate
+    inv_two_sqrt_kappa: float  #: 1 / (2 sqrt(kappa Ma)) [1/km]
+    plate_thickness_km: float  #: the plate thickness a [km] (0 for the half-space)
+    tau_per_ma: float  #: kappa Ma / a^2 (0 for the half-space)
+    surface_c: float  #: the surface temperature T0 [deg C]
+    adiabat_per_gpa: float  #: the melting model's solid isentrope alpha_s / (rho_s c_p) [1/GPa]
+
+
+class SearchParameters(NamedTuple):
+    """The scalars of the geotherm search (:mod:`lidmelt.physics.geotherm_search`), read by
+    name (every field a float, as in :class:`GeothermNumbers`)."""
+
+    tp_min_c: float  #: Tp of the table's first node [deg C]
+    inv_tp_step: float  #: 1 / the table's Tp step [1/K]
+    pressure_step_gpa: float  #: the table's pressure step [GPa]
+    top_max_gpa: float  #: the deepest top node [GPa]
+    ambient_c: float  #: ambient Tp [deg C]
+    inv_water_step: float  #: 1 / the water-coordinate step (0: one water slice)
+    water_max_wt_pct: float  #: the largest water held [wt%] (-1: none; the cells go direct)
+    inv_ambient_step: float  #: 1 / the sqrt(age) step of the ambient table (0: no table)
+    inv_load_step: float  #: 1 / :data:`LOAD_STEP_KM`
+    load_max_km: float  #: the largest water load held [km] (beyond it the cell goes direct)
+
+
+def geotherm_numbers(cooling: CoolingModel, model) -> GeothermNumbers:
+    """What the exact geotherm needs (:class:`GeothermNumbers`)."""
     plate = cooling.kind != "half-space"
     a_km = cooling.plate_thickness_km if plate else 0.0
     tau = cooling.diffusivity_m2_s * SECONDS_PER_MA / (a_km * 1e3) ** 2 if plate else 0.0
-    return np.array(
-        [float(plate), 0.5 / _km_per_sqrt_ma(cooling), a_km, tau,
-         cooling.surface_temperature_c, model.adiabat_coefficient_per_gpa],
-        float,
-    )  # fmt: skip
+    values = (plate, 0.5 / _km_per_sqrt_ma(cooling), a_km, tau, cooling.surface_temperature_c,
+              model.adiabat_coefficient_per_gpa)  # fmt: skip
+    return GeothermNumbers(*(float(v) for v in values))
 
 
 def _least_tp(tp, s_star, onset, p, p_min, model, water_u):

@@ -10,6 +10,8 @@ loop).
 
 from __future__ import annotations
 
+from typing import NamedTuple
+
 import numpy as np
 from scipy import special
 
@@ -23,14 +25,32 @@ __all__ = ["search_numpy"]
 _BLOCK = 2048
 
 
+class _Cells(NamedTuple):
+    """1-D cells of a block: Tp [deg C], age [Ma], Tp index and fraction, water index and
+    fraction (:func:`_corners`), minimum top [GPa] and water load [km]."""
+
+    tp: np.ndarray
+    age: np.ndarray
+    i: np.ndarray
+    a: np.ndarray
+    j: np.ndarray
+    c: np.ndarray
+    p_min: np.ndarray
+    zw: np.ndarray
+
+    def take(self, idx) -> _Cells:
+        """The cells ``idx`` (an index array or mask)."""
+        return _Cells(*(v[idx] for v in self))
+
+
 def _corners(arrays: GeothermArrays, par, tp, w):
     """Tp index and fraction, water index and fraction of 1-D cells (indices clipped)."""
     n_tp, n_w = arrays.s_star.shape[0], arrays.s_star.shape[1]
-    x = (tp - par[0]) * par[1]
+    x = (tp - par.tp_min_c) * par.inv_tp_step
     with np.errstate(invalid="ignore"):
         i = np.clip(np.nan_to_num(x).astype(np.intp), 0, n_tp - 2)
-        if par[6] > 0.0:
-            y = np.maximum(w, 0.0) ** WATER_EXPONENT * par[6]
+        if par.inv_water_step > 0.0:
+            y = np.maximum(w, 0.0) ** WATER_EXPONENT * par.inv_water_step
             j = np.clip(np.nan_to_num(y).astype(np.intp), 0, n_w - 2)
             c = np.where(w > 0.0, y - j, 0.0)
         else:
@@ -49,11 +69,12 @@ def _gather(arr, i, a, j, c):
     return lo + c2 * (hi - lo)
 
 
-def _first_node_numpy(arrays: GeothermArrays, par, i, a, j, c, s, p_min):
+def _first_node_numpy(arrays: GeothermArrays, par, cells: _Cells, s):
     """:func:`_first_node` for 1-D cells with every node at once: (node, deepest node, the
     corners' deepest onset, the node of the minimum top)."""
+    i, a, j, c, p_min = cells.i, cells.a, cells.j, cells.c, cells.p_min
     n_p = arrays.s_star.shape[2]
-    dp = par[2]
+    dp = par.pressure_step_gpa
     j1 = np.minimum(j + 1, arrays.onset.shape[1] - 1)
     corners = [arrays.onset[ii, jj] for ii in (i, i + 1) for jj in (j, np.where(c > 0, j1, j))]
     p_on = np.fmax.reduce(corners)
@@ -74,20 +95,23 @@ def _theta_numpy(z, age, g):
     """:func:`_theta` in numpy (:mod:`lidmelt.physics._plate` for the plate)."""
     out = np.where(z > 0.0, 1.0, 0.0)
     young = ~(age > 0.0)
-    if g[0] == 0.0:
+    if g.plate == 0.0:
         with np.errstate(invalid="ignore", divide="ignore"):
-            hs = special.erf(np.maximum(z, 0.0) * g[1] / np.sqrt(np.where(young, 1.0, age)))
+            hs = special.erf(
+                np.maximum(z, 0.0) * g.inv_two_sqrt_kappa / np.sqrt(np.where(young, 1.0, age))
+            )
         return np.where(young, out, hs)
-    zeta = z / g[2]
+    zeta = z / g.plate_thickness_km
     inside = ~young & (zeta > 0.0) & (zeta < 1.0)
     out = np.where(~young & (zeta <= 0.0), 0.0, out)
     if inside.any():
-        out[inside] = _plate.theta(zeta[inside], age[inside] * g[3])
+        out[inside] = _plate.theta(zeta[inside], age[inside] * g.tau_per_ma)
     return out
 
 
-def _gap_numpy(arrays: GeothermArrays, p, tp, age, i, a, j, c, dp, zw):
-    """:func:`_gap` in numpy."""
+def _gap_numpy(arrays: GeothermArrays, p, cells: _Cells, dp):
+    """:func:`_gap` in numpy (at the pressures ``p`` of ``cells``)."""
+    tp, age, i, a, j, c, _, zw = cells
     d, depth, g = arrays.deficit, arrays.depth_km, arrays.geotherm
     k = np.minimum((p / dp).astype(np.intp), d.shape[2] - 2)
     f = p / dp - k
@@ -100,17 +124,18 @@ def _gap_numpy(arrays: GeothermArrays, p, tp, age, i, a, j, c, dp, zw):
 
     lo, hi = at(k), at(k + 1)
     z = depth[k] + f * (depth[k + 1] - depth[k]) - zw
-    t_is = (tp + 273.15) * np.exp(g[5] * p) - 273.15
-    return lo + f * (hi - lo) - (t_is - g[4]) * (1.0 - _theta_numpy(z, age, g))
+    t_is = (tp + 273.15) * np.exp(g.adiabat_per_gpa * p) - 273.15
+    return lo + f * (hi - lo) - (t_is - g.surface_c) * (1.0 - _theta_numpy(z, age, g))
 
 
-def _top_numpy(arrays: GeothermArrays, par, tp, x, i, a, j, c, age, p_min, zw):
+def _top_numpy(arrays: GeothermArrays, par, x, cells: _Cells):
     """(top [GPa] or +inf, decided) of 1-D cells: :func:`_top` step by step for all at once;
-    ``p_min`` and ``zw`` the cells' minimum tops [GPa] and water loads [km]."""
+    ``x`` the cells' Tp coordinate (NaN: not searched)."""
+    i, a, j, c, p_min, zw = cells.i, cells.a, cells.j, cells.c, cells.p_min, cells.zw
     n_tp = arrays.s_star.shape[0]
-    dp, p_last = par[2], par[4]
-    s = np.sqrt(age)
-    k, k_end, p_on, k0 = _first_node_numpy(arrays, par, i, a, j, c, s, p_min)
+    dp, p_last = par.pressure_step_gpa, par.top_max_gpa
+    s = np.sqrt(cells.age)
+    k, k_end, p_on, k0 = _first_node_numpy(arrays, par, cells, s)
     loaded = zw > 0.0
     with np.errstate(invalid="ignore"):
         inside = (x >= 0.0) & (x <= n_tp - 1.0)
@@ -122,7 +147,7 @@ def _top_numpy(arrays: GeothermArrays, par, tp, x, i, a, j, c, age, p_min, zw):
     on_cell = np.where(np.isfinite(on_cell), on_cell, np.inf)
     # beneath a load the tabulated s* bound the cell's: the minimum top on the exact gap
     lm = np.flatnonzero(inside & loaded & (k >= k0))
-    g_min = _gap_numpy(arrays, p_min[lm], tp[lm], age[lm], i[lm], a[lm], j[lm], c[lm], dp, zw[lm])
+    g_min = _gap_numpy(arrays, p_min[lm], cells.take(lm), dp)
     top[lm[g_min >= 0.0]] = p_min[lm[g_min >= 0.0]]
     decided[lm] = True
     rest = lm[~(g_min >= 0.0)]
@@ -142,7 +167,7 @@ def _top_numpy(arrays: GeothermArrays, par, tp, x, i, a, j, c, age, p_min, zw):
     top[todo] = np.where(linear < on_cell[todo], linear, np.inf)
     decided[todo] = True
     ref = np.concatenate([todo[steep], rest])
-    top[ref] = _exact_numpy(arrays, par, (tp, age, i, a, j, c), k, k_end, ref, on_cell, p_min, zw)
+    top[ref] = _exact_numpy(arrays, par, cells, (k, k_end), ref, on_cell)
     return np.where(inside, top, np.nan), decided
 
 
@@ -154,16 +179,16 @@ def _nodes_at(arr, k, i, a, j, c):
     return (lo + c * (hi - lo)).astype(np.float64)
 
 
-def _exact_numpy(arrays, par, cells, k, k_end, todo, on_cell, p_min, zw):
-    """The tops of the cells ``todo`` on the exact gap (:func:`_top`'s exact branch);
-    ``cells``: (tp, age, i, a, j, c) of every cell."""
-    dp = par[2]
-    tp, age, i, a, j, c = cells
+def _exact_numpy(arrays, par, cells: _Cells, nodes, todo, on_cell):
+    """The tops of the cells ``todo`` (of ``cells``) on the exact gap (:func:`_top`'s exact
+    branch); ``nodes``: (first node, deepest node) of every cell."""
+    dp = par.pressure_step_gpa
+    k, k_end = nodes
 
     def gap(p, idx):
-        return _gap_numpy(arrays, p, tp[idx], age[idx], i[idx], a[idx], j[idx], c[idx], dp, zw[idx])
+        return _gap_numpy(arrays, p, cells.take(idx), dp)
 
-    pm = p_min[todo]
+    pm = cells.p_min[todo]
     kk = k[todo].copy()
     p_hi = kk * dp
     g_hi = gap(p_hi, todo)
@@ -240,28 +265,35 @@ def search_numpy(arrays: GeothermArrays, par, tp, water, age, load, p_min, amb_t
         t, ww, ag, zw, pm = tp[sl], w[sl], age[sl], zw_all[sl], pm_all[sl]
         with np.errstate(invalid="ignore"):
             valid = (ag >= 0.0) & np.isfinite(t) & (ww >= 0.0) & (zw >= 0.0)
-            slow[sl] = valid & ((ww > par[7]) | (zw > par[10]) | (pm >= par[4] - par[2]))
+            slow[sl] = valid & (
+                (ww > par.water_max_wt_pct)
+                | (zw > par.load_max_km)
+                | (pm >= par.top_max_gpa - par.pressure_step_gpa)
+            )
             valid &= ~slow[sl]
         x, i, a, j, c = _corners(arrays, par, t, ww)
         ag = np.where(valid, ag, 0.0)
         zw = np.where(valid, zw, 0.0)
         pm = np.where(valid, pm, 0.0)
-        yl = zw * par[9]
-        ex = _least_numpy(least, j, c, np.sqrt(ag), yl) - par[5]
-        own = t == par[5]
+        yl = zw * par.inv_load_step
+        ex = _least_numpy(least, j, c, np.sqrt(ag), yl) - par.ambient_c
+        own = t == par.ambient_c
         with np.errstate(invalid="ignore"):
             amb_cells = valid & ((ex < 0.0) | own)
-        p_amb = np.where(amb_cells, _tabled_numpy(amb_tab, np.sqrt(ag) * par[8], yl), np.nan)
+        p_amb = np.where(
+            amb_cells, _tabled_numpy(amb_tab, np.sqrt(ag) * par.inv_ambient_step, yl), np.nan
+        )
         look = amb_cells & np.isnan(p_amb)
-        x_amb = np.where(look, (par[5] - par[0]) * par[1], np.nan)
+        x_amb = np.where(look, (par.ambient_c - par.tp_min_c) * par.inv_tp_step, np.nan)
         i_amb = np.clip(np.nan_to_num(x_amb).astype(np.intp), 0, arrays.s_star.shape[0] - 2)
         found, done_amb = _top_numpy(
-            arrays, par, np.full(t.size, par[5]), x_amb, i_amb, x_amb - i_amb, j, c, ag, pm, zw
-        )
+            arrays, par, x_amb,
+            _Cells(np.full(t.size, par.ambient_c), ag, i_amb, x_amb - i_amb, j, c, pm, zw),
+        )  # fmt: skip
         p_amb = np.where(look, found, p_amb)
         done_amb = done_amb | ~look
         x_own = np.where(valid & ~own, x, np.nan)
-        p, done = _top_numpy(arrays, par, t, x_own, i, a, j, c, ag, pm, zw)
+        p, done = _top_numpy(arrays, par, x_own, _Cells(t, ag, i, a, j, c, pm, zw))
         p, done = np.where(own, p_amb, p), np.where(own, done_amb, done)
         with np.errstate(invalid="ignore"):
             p_amb = np.where(ex < 0.0, p_amb, np.nan)

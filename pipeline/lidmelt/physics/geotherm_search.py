@@ -134,14 +134,14 @@ def _theta(z, age, g):
         return 0.0  # at or above the seafloor: the surface temperature
     if not age > 0.0:
         return 1.0
-    if g[0] == 0.0:
-        return math.erf(z * g[1] / math.sqrt(age))
-    zeta = z / g[2]
+    if g.plate == 0.0:
+        return math.erf(z * g.inv_two_sqrt_kappa / math.sqrt(age))
+    zeta = z / g.plate_thickness_km
     if zeta >= 1.0:
         return 1.0
     if zeta <= 0.0:
         return 0.0
-    tau = age * g[3]
+    tau = age * g.tau_per_ma
     if tau < 0.1:
         inv = 0.5 / math.sqrt(tau)
         u = 0.0
@@ -172,8 +172,8 @@ def _gap(p, tp, age, i, j, a, c, deficit, depth, g, dp, zw):
     f = p / dp - k
     lo, hi = _at(deficit, i, j, k, a, c), _at(deficit, i, j, k + 1, a, c)
     z = depth[k] + f * (depth[k + 1] - depth[k]) - zw
-    t_is = (tp + 273.15) * math.exp(g[5] * p) - 273.15
-    return lo + f * (hi - lo) - (t_is - g[4]) * (1.0 - _theta(z, age, g))
+    t_is = (tp + 273.15) * math.exp(g.adiabat_per_gpa * p) - 273.15
+    return lo + f * (hi - lo) - (t_is - g.surface_c) * (1.0 - _theta(z, age, g))
 
 
 @_helper
@@ -352,15 +352,13 @@ def _loop(tp, water, w_stride, age, load, z_stride, p_min_of, par, s_star, s_run
     """Tops [GPa] of the cells and of their ambient columns, and the excess to melt [K].
 
     ``load`` and ``p_min_of`` (stride ``z_stride``): each cell's water load [km] and minimum top
-    [GPa]. ``par``: Tp of the first node, 1/Tp step, pressure step, (unused), deepest node
-    [GPa], ambient Tp, 1/(water-coordinate step) (0: one water slice), largest water [wt%],
-    1/(sqrt-age step) of ``amb_tab`` (0: none; :func:`ambient_tops`), 1/load step, largest
-    load [km] (beyond it the cell is left to the caller).
+    [GPa]. ``par``: :class:`~lidmelt.physics.geotherm_arrays.SearchParameters` (its
+    ``inv_ambient_step`` that of ``amb_tab``, 0 for none; :func:`ambient_tops`); ``g``:
+    :class:`~lidmelt.physics.geotherm_arrays.GeothermNumbers`.
     """
-    t0, inv_dt, dp, p_last, ambient, inv_du, w_max = (
-        par[0], par[1], par[2], par[4], par[5], par[6], par[7]
-    )  # fmt: skip
-    inv_dl, load_max = par[9], par[10]
+    t0, inv_dt, dp, p_last = par.tp_min_c, par.inv_tp_step, par.pressure_step_gpa, par.top_max_gpa
+    ambient, inv_du, w_max = par.ambient_c, par.inv_water_step, par.water_max_wt_pct
+    inv_dl, load_max = par.inv_load_step, par.load_max_km
     n_w = s_star.shape[1]
     x_amb = (ambient - t0) * inv_dt
     for n in range(tp.size):
@@ -381,7 +379,7 @@ def _loop(tp, water, w_stride, age, load, z_stride, p_min_of, par, s_star, s_run
         ex = _least(least_tp, j, c, sa, 1.0 / SQRT_AGE_STEP, zw * inv_dl) - ambient
         p_amb, done_amb = np.nan, True
         if ex < 0.0 or t == ambient:
-            p_amb = _tabled(amb_tab, sa * par[8], zw * inv_dl)
+            p_amb = _tabled(amb_tab, sa * par.inv_ambient_step, zw * inv_dl)
             if np.isnan(p_amb):
                 p_amb, done_amb = _top(
                     ambient, x_amb, j, c, age_ma, s_star, s_run, onset, deficit, depth, g,
@@ -420,8 +418,8 @@ def search_compiled(arrays: GeothermArrays, par, tp, water, age, load, p_min, am
     ``tp`` and ``age`` are 1-D float64 arrays, ``water`` a float or such an array, ``load``
     (water load [km]) and ``p_min`` (minimum top [GPa]) floats or such arrays (both the same);
     ``amb_tab`` the ambient column's tops against load and sqrt(age) (:func:`ambient_tops`;
-    ``par[8]`` its 1/step in sqrt(age)). The least melting Tp beneath the loads comes from
-    :func:`lidmelt.physics.geotherm_arrays.least_tp_for`.
+    ``par.inv_ambient_step`` its 1/step in sqrt(age)). The least melting Tp beneath the loads
+    comes from :func:`lidmelt.physics.geotherm_arrays.least_tp_for`.
     """
     tp, age = _plain(tp), _plain(age)
     w = np.array([float(water)]) if np.ndim(water) == 0 else _plain(water)
@@ -450,13 +448,12 @@ def ambient_tops(arrays: GeothermArrays, par, search, n_loads: int = 1) -> np.nd
     (the cells next to an infinite node, about a fold, are searched).
     """
     s = AMBIENT_STEP * np.arange(round(20.0 / AMBIENT_STEP) + 1)
-    par = par.copy()
-    par[8] = 0.0
+    par = par._replace(inv_ambient_step=0.0)
     water = float(arrays.water_u[0]) ** (1.0 / WATER_EXPONENT)  # the one water content
     rows = []
     for m in range(max(int(n_loads), 1)):
         load = m * LOAD_STEP_KM
         p_min = float(arrays.model.pressure_gpa(arrays.min_top_km, load))
-        tp = np.full(s.size, par[5])
+        tp = np.full(s.size, par.ambient_c)
         rows.append(search(arrays, par, tp, water, s * s, load, p_min)[0])
     return np.stack(rows)

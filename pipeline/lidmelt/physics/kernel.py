@@ -44,7 +44,15 @@ import numpy as np
 
 from lidmelt.errors import ModelError
 from lidmelt.physics._jitcache import njit
+from lidmelt.physics.flags import (
+    FLAG_BEYOND_CALIBRATION,
+    FLAG_INVALID_INPUT,
+    FLAG_NO_ONSET,
+    FLAG_UPPER_MANTLE_FLOOR,
+    FLAG_WATER_SATURATED,
+)
 from lidmelt.physics.kernel_arrays import ONSET_STEP_GPA, kernel_arrays
+from lidmelt.physics.kernel_records import Cells, KernelCall, KernelTimings
 from lidmelt.physics.regime import (
     LEAST_ANOMALY_MELT_KM,
     REGIME_AMBIENT_AND_ANOMALY,
@@ -188,13 +196,14 @@ def _lookup(vals, x, y, j, c):
 
 @_jit(inline="always")
 def _lookup_at(vals, deep, par, x, y, j, c, u):
-    """:func:`_lookup`, from the deep columns where they are (Tp nodes from ``par[27]`` on):
-    integrated at exactly this water content (:meth:`MeltTable.deep_columns`), or where water
-    varies on the finer water nodes (:attr:`MeltTable.deep_values`, linear in u between them,
-    water step 1 / ``par[30]``)."""
-    i0 = par[27]
+    """:func:`_lookup`, from the deep columns where they are (Tp nodes from
+    ``par.deep_tp_node`` on): integrated at exactly this water content
+    (:meth:`MeltTable.deep_columns`), or where water varies on the finer water nodes
+    (:attr:`MeltTable.deep_values`, linear in u between them, water step 1 /
+    ``par.deep_inv_water_step``)."""
+    i0 = par.deep_tp_node
     if x >= i0:
-        xf = u * par[30]
+        xf = u * par.deep_inv_water_step
         jf = min(int(xf), deep.shape[1] - 1)
         return _lookup(deep, x - i0, y, jf, xf - jf)
     return _lookup(vals, x, y, j, c)
@@ -213,15 +222,15 @@ def _saturation(sat, p, inv_step):
 
 @_jit(inline="always")
 def _pressure_of_depth(z, par, zp):
-    """P [GPa] at rock-equivalent depth z [km]: constant rho g above the join (``par[25]``),
+    """P [GPa] at rock-equivalent depth z [km]: constant rho g above the join (``par.join_km``),
     the tabulated PREM relation below (``zp`` rows: P, Z; :mod:`lidmelt.physics.pressure`);
     +inf (a column that meets its geotherm nowhere) stays +inf."""
-    if not z > par[25]:
-        return z * par[15]
+    if not z > par.join_km:
+        return z * par.gpa_per_km
     if z == np.inf:
         return np.inf
     # PREM's rho g exceeds the constant one below the join: the node is at or after the guess
-    k = min(int((z - par[25]) * par[15] * par[26]), zp.shape[0] - 2)
+    k = min(int((z - par.join_km) * par.gpa_per_km * par.inv_node_step), zp.shape[0] - 2)
     while k + 2 < zp.shape[0] and zp[k + 1, 1] < z:
         k += 1
     a = (z - zp[k, 1]) / (zp[k + 1, 1] - zp[k, 1])
@@ -231,9 +240,9 @@ def _pressure_of_depth(z, par, zp):
 @_jit(inline="always")
 def _depth_of_pressure(p, par, zp):
     """Rock-equivalent depth [km] of pressure p [GPa] (the inverse of the above)."""
-    if not p > par[24]:
-        return p / par[15]
-    x = (p - par[24]) * par[26]
+    if not p > par.join_gpa:
+        return p / par.gpa_per_km
+    x = (p - par.join_gpa) * par.inv_node_step
     k = min(int(x), zp.shape[0] - 2)
     return zp[k, 1] + (x - k) * (zp[k + 1, 1] - zp[k, 1])
 
@@ -241,14 +250,14 @@ def _depth_of_pressure(p, par, zp):
 @_jit(inline="always")
 def _deep_share(vals, deep, x, j, c, u, h, top_p, p_on, par, zp):
     """H_deep / H (:mod:`lidmelt.physics.deepshare`): H and F at the top P_c from the table."""
-    cal = par[6]
+    cal = par.calibrated_max_gpa
     if not h > 0.0:
         return np.nan
     if p_on <= cal:
         return 0.0
     if top_p >= cal:
         return 1.0
-    h_c, f_c, _ = _lookup_at(vals, deep, par, x, cal * par[5], j, c, u)
+    h_c, f_c, _ = _lookup_at(vals, deep, par, x, cal * par.inv_pressure_step, j, c, u)
     dz = _depth_of_pressure(cal, par, zp) - _depth_of_pressure(top_p, par, zp)
     return min(max((h_c + f_c * dz) / h, 0.0), 1.0)
 
@@ -257,23 +266,23 @@ def _deep_share(vals, deep, x, j, c, u, h, top_p, p_on, par, zp):
 def _column(tp, w, u, top_p, p_on, par, sat, vals, zp, rough, deep):
     """One valid cell with its onset: (flag, onset [GPa], H, F, mean melt pressure, deep melt
     share, to numpy)."""
-    p_step, tp_min, inv_dtp, inv_dp, cal = par[2], par[3], par[4], par[5], par[6]
+    cal = par.calibrated_max_gpa
     if not np.isfinite(p_on):
-        return 2, np.nan, np.nan, np.nan, np.nan, np.nan, False
-    flag = 4 if (p_on > cal or cal < top_p < np.inf) else 0
-    if p_on >= par[17] - 1e-9:
-        flag |= 16
-    s = _saturation(sat, p_on, 1.0 / p_step)
+        return FLAG_NO_ONSET, np.nan, np.nan, np.nan, np.nan, np.nan, False
+    flag = FLAG_BEYOND_CALIBRATION if (p_on > cal or cal < top_p < np.inf) else 0
+    if p_on >= par.max_onset_gpa - 1e-9:
+        flag |= FLAG_UPPER_MANTLE_FLOOR
+    s = _saturation(sat, p_on, 1.0 / par.onset_step_gpa)
     if w > 0.0 and np.isfinite(s) and abs(w - s) <= _SATURATION_BAND * s:
         return flag, p_on, np.nan, np.nan, np.nan, np.nan, True
     if w > s:
-        return flag | 8, np.nan, np.nan, np.nan, np.nan, np.nan, False
+        return flag | FLAG_WATER_SATURATED, np.nan, np.nan, np.nan, np.nan, np.nan, False
     if p_on <= top_p:
         return flag, p_on, 0.0, 0.0, np.nan, np.nan, False
-    x, y = (tp - tp_min) * inv_dtp, top_p * inv_dp
-    xj = u * par[12]
+    x, y = (tp - par.tp_min_c) * par.inv_tp_step, top_p * par.inv_pressure_step
+    xj = u * par.table_inv_water_step
     j = min(int(xj), vals.shape[1] - 1)
-    jr = min(int(u * par[31]), rough.shape[1] - 1)
+    jr = min(int(u * par.rough_inv_water_step), rough.shape[1] - 1)
     if rough[min(int(x), rough.shape[0] - 1), jr]:
         return flag, p_on, np.nan, np.nan, np.nan, np.nan, True
     h, f, g = _lookup_at(vals, deep, par, x, y, j, xj - j, u)
@@ -294,17 +303,17 @@ def _ambient_melt(w, u, top_p, p_on, par, sat, vals, deep):
     """
     if not np.isfinite(p_on) or p_on <= top_p:
         return 0.0, 0.0, False
-    if top_p > par[16]:  # an ambient top of its own beyond the table's nodes
+    if top_p > par.top_max_gpa:  # an ambient top of its own beyond the table's nodes
         return 0.0, 0.0, True
-    s = _saturation(sat, p_on, 1.0 / par[2])
+    s = _saturation(sat, p_on, 1.0 / par.onset_step_gpa)
     if w > 0.0 and np.isfinite(s) and abs(w - s) <= _SATURATION_BAND * s:
         return 0.0, 0.0, True
     if w > s:
         return 0.0, 0.0, False
-    xj = u * par[12]
+    xj = u * par.table_inv_water_step
     j = min(int(xj), vals.shape[1] - 1)
-    x = (par[18] - par[3]) * par[4]
-    h, f, _ = _lookup_at(vals, deep, par, x, top_p * par[5], j, xj - j, u)
+    x = (par.ambient_c - par.tp_min_c) * par.inv_tp_step
+    h, f, _ = _lookup_at(vals, deep, par, x, top_p * par.inv_pressure_step, j, xj - j, u)
     if not (np.isfinite(h) and np.isfinite(f)):
         return 0.0, 0.0, True
     return h, f, False
@@ -344,13 +353,14 @@ def _onset_fast(tp, u, inv, t0, inv_dt, inv_du):
 @_jit(inline="always")
 def _onset_any(tp, u, par, cv, first, inv):
     """Onset [GPa]: the inverse table where it is smooth, else the search of the curve."""
-    p_on = _onset_fast(tp, u, inv, par[0], par[1], par[11])
+    t0, inv_dt, inv_du = par.onset_tp0_c, par.onset_inv_tp_step, par.curve_inv_water_step
+    p_on = _onset_fast(tp, u, inv, t0, inv_dt, inv_du)
     if np.isfinite(p_on):
         return p_on
-    j = min(int(u * par[11]), first.shape[0] - 1)
-    p_on = _onset(tp, u, j, cv, first, par[0], par[1], par[2])
+    j = min(int(u * inv_du), first.shape[0] - 1)
+    p_on = _onset(tp, u, j, cv, first, t0, inv_dt, par.onset_step_gpa)
     if np.isnan(p_on) and tp > _curve_at(cv, 0, u):
-        return par[17]  # above the solidus down to the upper mantle's floor: onset there
+        return par.max_onset_gpa  # above the solidus down to the upper mantle's floor: onset there
     return p_on
 
 
@@ -362,21 +372,19 @@ def _cells(
     """Every output of every cell into ``out`` (rows :data:`ROWS`) and ``flag``.
 
     Marks in ``slow`` (all False on entry) the cells left for the numpy path (their rows are
-    not written). Where ``par[23]`` (nodata) is not NaN, a cell with a non-finite Tp or water
+    not written). Where ``par.nodata`` is not NaN, a cell with a non-finite Tp or water
     or a NaN lid gets NaN in every row and that flag value. A lid of +inf: the column meets its
     geotherm nowhere (it does not melt; top NaN). ``given`` (2, n) holds per cell the ambient
     column's own top [km] and the excess to melt [K] where not NaN (the geotherm rule);
     ``load`` the water load's rock-equivalent depth [km].
     """
-    sol0, min_top, top_max, max_on = par[13], par[14], par[16], par[17]
-    ambient, crust_ratio, water_max, hydrous, tp_max = par[18], par[19], par[20], par[21], par[22]
-    nodata, min_fraction, least = par[23], par[28], par[29]
+    min_top, ambient, nodata = par.min_top_km, par.ambient_c, par.nodata
     nodata_on = np.isfinite(nodata)
-    varying = par[11] > 0.0
+    varying = par.curve_inv_water_step > 0.0
     # one water content: one ambient onset for every cell
     p_amb = np.nan
     if np.isfinite(ambient):
-        p_amb = _onset_any(ambient, par[7], par, cv, first, inv)
+        p_amb = _onset_any(ambient, par.water_u, par, cv, first, inv)
     for n in range(tp.size):
         t, lid_km, w = tp[n], lid[n], water[n * w_stride]
         if nodata_on and not (np.isfinite(t) and lid_km == lid_km and np.isfinite(w)):
@@ -385,23 +393,23 @@ def _cells(
             flag[n] = nodata
             continue
         lid_ok = lid_km == lid_km and lid_km >= 0.0
-        w_ok = np.isfinite(w) and w >= 0.0 and (hydrous > 0.0 or w == 0.0)
+        w_ok = np.isfinite(w) and w >= 0.0 and (par.hydrous > 0.0 or w == 0.0)
         zw = load[n * load_stride]
         top_km = max(lid_km, min_top)
         top_p = _pressure_of_depth(top_km + zw, par, zp)
-        valid = lid_ok and w_ok and np.isfinite(t) and t > sol0
-        if (lid_ok and w_ok and w > water_max) or (
-            valid and (t < par[3] or t > tp_max or top_max < top_p < np.inf)
+        valid = lid_ok and w_ok and np.isfinite(t) and t > par.surface_solidus_c
+        if (lid_ok and w_ok and w > par.water_max_wt_pct) or (
+            valid and (t < par.tp_min_c or t > par.tp_max_c or par.top_max_gpa < top_p < np.inf)
         ):
             slow[n] = True
             continue
         # u = water^0.75 on the curves (one water content: its u, or 0 on its own curve)
-        u_curve = (w**WATER_EXPONENT if w > 0.0 else 0.0) if varying else par[7]
+        u_curve = (w**WATER_EXPONENT if w > 0.0 else 0.0) if varying else par.water_u
         excess = given[1, n * g_stride]
-        if np.isnan(excess) and lid_ok and w_ok and top_p <= max_on:
-            excess = _curve_interp(cv, top_p, 1.0 / par[2], u_curve) - ambient
+        if np.isnan(excess) and lid_ok and w_ok and top_p <= par.max_onset_gpa:
+            excess = _curve_interp(cv, top_p, 1.0 / par.onset_step_gpa, u_curve) - ambient
         h = f = p_on = mean = share = np.nan
-        fl = 1
+        fl = FLAG_INVALID_INPUT
         if valid:
             p_on = _onset_any(t, u_curve, par, cv, first, inv)
             fl, p_on, h, f, mean, share, to_numpy = _column(
@@ -430,8 +438,8 @@ def _cells(
         out[3, n] = top_km if valid and top_km < np.inf else np.nan
         out[4, n], out[5, n], out[6, n] = f, mean, excess
         out[7, n] = max(h - h_amb, 0.0) if np.isfinite(h) else np.nan
-        out[8, n] = _regime(h, f, h_amb, f_amb, min_fraction, least)
-        out[9, n], out[10, n], out[11, n] = h * crust_ratio, share, z_on
+        out[8, n] = _regime(h, f, h_amb, f_amb, par.min_fraction, par.least_anomaly_km)
+        out[9, n], out[10, n], out[11, n] = h * par.crust_ratio, share, z_on
         out[12, n] = f * up[n * up_stride]
         flag[n] = fl
 
@@ -453,26 +461,21 @@ def compile_seconds() -> float:
     return _COMPILE["seconds"]
 
 
-def evaluate_compiled(
-    table, tp, lid, water, *, ambient_c, min_top_km, upwelling, crust_ratio, out=None,
-    nodata=None, load=0.0, ambient_lid=None, excess=None, min_fraction=0.0,
-):  # fmt: skip
+def evaluate_compiled(table, cells: Cells, call: KernelCall, out=None):
     """Every output of 1-D cells by the compiled kernel, or None where it cannot serve them.
 
-    ``water`` is a float (one water content) or an array like ``tp``; ``upwelling`` a float,
-    an array like ``tp`` or None (no production); ``load`` the water load's rock-equivalent
-    depth [km], a float or an array like ``tp``. ``out``, a float32 C-contiguous array
-    (len(ROWS), n), receives the rows (else one is made); ``nodata``, a flag value for cells
-    with a non-finite input (every row NaN). ``ambient_lid`` [km] and ``excess`` [K], arrays
-    like ``tp`` or None, give the ambient column's own top and the excess to melt where not NaN
-    (the geotherm rule); ``min_fraction`` is the regime's least extracted melt fraction.
+    ``cells`` (:class:`~lidmelt.physics.kernel_records.Cells`): Tp and lid 1-D float arrays;
+    water a float (one water content) or an array like Tp; upwelling a float, an array like Tp
+    or None (no production); the water load a float or an array like Tp; the ambient column's
+    own top and the excess to melt None or arrays like Tp. ``call``: the settings of the call.
+    ``out``, a float32 C-contiguous array (len(ROWS), n), receives the rows (else one is made).
     Returns (outputs by name as float32 arrays, flag as uint8, mask of the cells left for the
     numpy path).
     """
     if not AVAILABLE:
         return None
-    lay = table.layout
-    if np.isfinite(ambient_c) and not lay.tp_min_c <= ambient_c <= lay.tp_max_c:
+    lay, water = table.layout, cells.water_wt_pct
+    if np.isfinite(call.ambient_c) and not lay.tp_min_c <= call.ambient_c <= lay.tp_max_c:
         return None
     one = np.ndim(water) == 0
     if one and not 0.0 <= float(water) <= lay.water_max_wt_pct:
@@ -481,18 +484,21 @@ def evaluate_compiled(
     if arrays is None:
         return None
     par, cv, first, inv, sat, vals, zp, rough, deep = arrays
-    par = par.copy()
-    par[14], par[18], par[19] = min_top_km, ambient_c, crust_ratio
-    par[23] = np.nan if nodata is None else float(nodata)
-    par[28], par[29] = min_fraction, LEAST_ANOMALY_MELT_KM
-    tp, lid = _plain(tp), _plain(lid)
+    par = par._replace(
+        min_top_km=float(call.min_top_km), ambient_c=float(call.ambient_c),
+        crust_ratio=float(call.crust_ratio),
+        nodata=np.nan if call.nodata is None else float(call.nodata),
+        min_fraction=float(call.min_fraction), least_anomaly_km=float(LEAST_ANOMALY_MELT_KM),
+    )  # fmt: skip
+    tp, lid = _plain(cells.potential_temperature_c), _plain(cells.lid_depth_km)
     given = np.full((2, 1), np.nan)
-    if ambient_lid is not None or excess is not None:
+    if cells.ambient_lid_depth_km is not None or cells.excess_k is not None:
         given = np.full((2, tp.size), np.nan)
-        for k, arr in enumerate((ambient_lid, excess)):
+        for k, arr in enumerate((cells.ambient_lid_depth_km, cells.excess_k)):
             if arr is not None:
                 given[k] = arr
     w = np.array([float(water)]) if one else _plain(water)
+    upwelling, load = cells.upwelling_mm_yr, cells.water_load_km
     up = np.array([np.nan if upwelling is None else float(np.ravel(upwelling)[0])])
     if upwelling is not None and np.size(upwelling) > 1:
         up = _plain(np.broadcast_to(np.asarray(upwelling, float), tp.shape))
@@ -527,37 +533,40 @@ def use_compiled(compiled: bool | None) -> bool:
     return AVAILABLE if compiled is None else bool(compiled)
 
 
-def compiled_cells(table, tp, lid, water, *, ambient, min_top_km, upwelling, crust_ratio, clock,
-              numpy_path, out=None, nodata=None, load=0.0, ambient_lid=None, excess=None,
-              min_fraction=0.0):  # fmt: skip
-    """The compiled kernel on broadcast arrays; its left cells by ``numpy_path``; or None.
-
-    ``numpy_path(tp, lid, water, upwelling, load, ambient_lid, excess)`` returns the outputs of
-    1-D cells by name; ``out``, ``nodata``, ``load`` (the water load), ``ambient_lid``,
-    ``excess`` and ``min_fraction`` are :func:`evaluate_compiled`'s (``load``, ``ambient_lid``
-    and ``excess`` also given to ``numpy_path``, floats, None or arrays).
-    """
-    shape = tp.shape
-    t = np.ascontiguousarray(tp).ravel()
-    d = np.ascontiguousarray(lid).ravel()
-    w = water
-    if np.ndim(water):
-        w = np.ascontiguousarray(water).ravel()
+def _flat_cells(cells: Cells, shape) -> Cells:
+    """``cells`` as 1-D C-contiguous arrays of the cells of ``shape`` (one water content or
+    one water load a float; upwelling broadcast where it is an array)."""
+    w = cells.water_wt_pct
+    if np.ndim(w):
+        w = np.ascontiguousarray(w).ravel()
         if w.size and w.min() == w.max():  # one water content (NaN never equals)
             w = float(w[0])
-    up = upwelling
-    if upwelling is not None and np.ndim(upwelling):
-        up = np.ascontiguousarray(np.broadcast_to(np.asarray(upwelling, float), shape)).ravel()
+    up = cells.upwelling_mm_yr
+    if up is not None and np.ndim(up):
+        up = np.ascontiguousarray(np.broadcast_to(np.asarray(up, float), shape)).ravel()
+    load = cells.water_load_km
     zw = float(np.ravel(load)[0]) if np.size(load) == 1 else load
     if np.ndim(zw):
         zw = np.ascontiguousarray(np.broadcast_to(np.asarray(zw, float), shape)).ravel()
-    given = [None if a is None else np.ascontiguousarray(a, float).ravel()
-             for a in (ambient_lid, excess)]  # fmt: skip
-    res = evaluate_compiled(
-        table, t, d, w, ambient_c=ambient, min_top_km=float(min_top_km), upwelling=up,
-        crust_ratio=crust_ratio, out=out, nodata=nodata, load=zw, ambient_lid=given[0],
-        excess=given[1], min_fraction=min_fraction,
+    amb, ex = (None if a is None else np.ascontiguousarray(a, float).ravel()
+               for a in (cells.ambient_lid_depth_km, cells.excess_k))  # fmt: skip
+    return Cells(
+        np.ascontiguousarray(cells.potential_temperature_c).ravel(),
+        np.ascontiguousarray(cells.lid_depth_km).ravel(), w, up, zw, amb, ex,
     )  # fmt: skip
+
+
+def compiled_cells(table, cells: Cells, call: KernelCall, *, numpy_path, out=None):
+    """The compiled kernel on cells of one shape (Tp and lid broadcast arrays); the cells it
+    leaves by ``numpy_path``; or None where it cannot serve them.
+
+    ``numpy_path(cells)`` returns the outputs of 1-D :class:`Cells` by name; ``out`` is
+    :func:`evaluate_compiled`'s. Returns (outputs and ``"flag"`` by name, in the cells' shape;
+    :class:`~lidmelt.physics.kernel_records.KernelTimings`).
+    """
+    shape = np.shape(cells.potential_temperature_c)
+    flat = _flat_cells(cells, shape)
+    res = evaluate_compiled(table, flat, call, out=out)
     if res is None:
         return None
     out, flag, slow = res
@@ -565,14 +574,8 @@ def compiled_cells(table, tp, lid, water, *, ambient, min_top_km, upwelling, cru
     n_slow = int(np.count_nonzero(slow))
     start = time.perf_counter()
     if n_slow:
-        sub = numpy_path(
-            t[slow], d[slow], w[slow] if np.ndim(w) else w, up[slow] if np.ndim(up) else up,
-            zw[slow] if np.ndim(zw) else zw, *(None if g is None else g[slow] for g in given),
-        )  # fmt: skip
-        for name, arr in sub.items():
+        for name, arr in numpy_path(flat.select(slow)).items():
             out[name][slow] = arr
-    if clock is not None:
-        clock["cells"] = clock.get("cells", 0) + t.size
-        clock["numpy_cells"] = clock.get("numpy_cells", 0) + n_slow
-        clock["numpy_s"] = clock.get("numpy_s", 0.0) + time.perf_counter() - start
-    return {name: arr.reshape(shape) for name, arr in out.items()}
+    n = flat.potential_temperature_c.size
+    timings = KernelTimings(n, n_slow, time.perf_counter() - start)
+    return {name: arr.reshape(shape) for name, arr in out.items()}, timings

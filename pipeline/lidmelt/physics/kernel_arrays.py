@@ -15,6 +15,7 @@ import weakref
 import numpy as np
 
 from lidmelt.physics.column import onset_pressure_gpa
+from lidmelt.physics.kernel_records import CALL_FIELDS, KernelParameters
 from lidmelt.physics.melting import MeltingModel
 from lidmelt.physics.table import WATER_EXPONENT, MeltTable
 
@@ -85,8 +86,9 @@ def _arrays(table: MeltTable, water, model_arrays):
     """The kernel's arrays for one water content (a float) or for water varying (None).
 
     For one water content the table's values are not copied: the kernel interpolates them in
-    the water coordinate of that content (``par[7]``), as where water varies, so that the arrays
-    of many contents (an ensemble's members) are small enough to keep.
+    the water coordinate of that content (:attr:`KernelParameters.water_u`), as where water
+    varies, so that the arrays of many contents (an ensemble's members) are small enough to
+    keep.
     """
     model, lay = table.model, table.layout
     p, sat, form = model_arrays
@@ -113,16 +115,6 @@ def _arrays(table: MeltTable, water, model_arrays):
     t0 = float(np.floor(np.min(curves[:, 0])))
     n_t = int(np.ceil((np.max(curves) - t0) / TP_INDEX_STEP_K)) + 2
     du_table = table.water_u[1] - table.water_u[0] if table.water_u.size > 1 else np.inf
-    par = np.array(
-        [t0, 1.0 / TP_INDEX_STEP_K, ONSET_STEP_GPA, lay.tp_min_c, 1.0 / lay.tp_step_k,
-         1.0 / lay.pressure_step_gpa, model.calibrated_max_pressure_gpa, u_one, 0.0, 0.0, 0.0,
-         inv_du_curve, 1.0 / du_table, float(model.solidus_c(0.0, 0.0)), 0.0,
-         float(model.pressure_gpa(1.0)), table.top_pressure_max_gpa,
-         model.max_onset_pressure_gpa, np.nan, 0.0, lay.water_max_wt_pct,
-         float(model.hydrous), lay.tp_max_c, np.nan, depth.join_gpa, depth.join_km,
-         1.0 / depth.node_step_gpa],
-        float,
-    )  # fmt: skip
     first = _first_nodes(curves, t0, n_t)
     inv = np.stack([_inverse(c, f, t0) for c, f in zip(curves, first, strict=True)])
     # the continued solidus has a kink at P_c (highpressure.py): onsets across it are searched
@@ -143,16 +135,24 @@ def _arrays(table: MeltTable, water, model_arrays):
     if exact.shape[0] == 0:
         du_deep = np.inf
         i0, exact = table.tp_c.size, np.zeros((2, 1, table.pressure_gpa.size, 3), np.float32)
-    par = np.append(par, float(i0))  # par[27]: the first Tp node of the exact columns
-    # par[28], par[29]: the regime's least extracted melt fraction and least anomaly melt [km]
-    # (set per call by the kernel's entry point)
-    par = np.append(par, [0.0, 0.0])
     exact = exact if exact.ndim == 4 else exact[:, None]  # (Tp, water, pressure, 3)
     deep = np.ascontiguousarray(exact, dtype=np.float32)
     rough, du_rough = _rough(table, water, i0, exact.shape[1])
-    # par[30], par[31]: 1 / the water step of the deep columns and of the rough intervals'
-    # water axis (0: one water content)
-    par = np.append(par, [1.0 / du_deep, 1.0 / du_rough])
+    fields = dict(
+        onset_tp0_c=t0, onset_inv_tp_step=1.0 / TP_INDEX_STEP_K, onset_step_gpa=ONSET_STEP_GPA,
+        tp_min_c=lay.tp_min_c, inv_tp_step=1.0 / lay.tp_step_k,
+        inv_pressure_step=1.0 / lay.pressure_step_gpa,
+        calibrated_max_gpa=model.calibrated_max_pressure_gpa, water_u=u_one,
+        curve_inv_water_step=inv_du_curve, table_inv_water_step=1.0 / du_table,
+        surface_solidus_c=float(model.solidus_c(0.0, 0.0)),
+        gpa_per_km=float(model.pressure_gpa(1.0)), top_max_gpa=table.top_pressure_max_gpa,
+        max_onset_gpa=model.max_onset_pressure_gpa, water_max_wt_pct=lay.water_max_wt_pct,
+        hydrous=float(model.hydrous), tp_max_c=lay.tp_max_c, join_gpa=depth.join_gpa,
+        join_km=depth.join_km, inv_node_step=1.0 / depth.node_step_gpa, deep_tp_node=float(i0),
+        deep_inv_water_step=1.0 / du_deep, rough_inv_water_step=1.0 / du_rough,
+        **CALL_FIELDS,
+    )  # fmt: skip
+    par = KernelParameters(**{name: float(v) for name, v in fields.items()})
     return par, cv, first, inv, sat, vals, zp, rough, deep
 
 
