@@ -222,7 +222,7 @@ def test_water_varying_per_cell_on_hot_columns_stays_in_the_kernel_within_tolera
     assert clock.numpy_cells == 0 if np.ndim(w) else clock.numpy_cells < n // 10
 
 
-@pytest.mark.parametrize("compiled", [pytest.param(True, marks=compiled_only), False])
+@pytest.mark.parametrize("compiled", [True, False])
 def test_the_outputs_have_the_dtype_the_caller_asks(compiled):
     """The caller chooses the dtype on either path (lidmelt's API); an ``out`` of another dtype
     is refused. Check values: the float32 outputs are the float64 ones rounded to float32

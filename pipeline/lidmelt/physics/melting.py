@@ -585,8 +585,7 @@ def get_model(name: str | MeltingModel = "katz2003", **parameters: Any) -> Melti
         are ignored) or a model object.
     **parameters
         Overrides of named fields, e.g. ``cpx_mass_fraction=0.15``. The variant keeps the name,
-        its ``sources`` mark the overridden fields "user override", and its parameter values
-        travel with every result made from it.
+        its ``sources`` mark them "user override"; its values travel with every result.
 
     Returns
     -------
@@ -596,14 +595,6 @@ def get_model(name: str | MeltingModel = "katz2003", **parameters: Any) -> Melti
     Raises
     ------
     ModelError
-        Unknown model name or parameter name (the message suggests the nearest), or an invalid
-        value.
-
-    Examples
-    --------
-    >>> get_model("katz2003").name
-    'katz2003'
-    >>> get_model("katz2003", cpx_mass_fraction=0.15).cpx_mass_fraction
-    0.15
+        Unknown model or parameter name (the message suggests the nearest), or a bad value.
     """
     return lookup(name, MODELS, "melting model", MeltingModel, **parameters)
