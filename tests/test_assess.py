@@ -200,7 +200,8 @@ def test_assessment_of_a_run_equals_sklearn_and_lists_what_it_cannot_score(small
 
 def test_features_in_candidate_regions_are_listed(small_run, tmp_path):
     run, v = small_run
-    from lidmelt.products.screening import screen, write_candidates
+    from lidmelt.products.candidate_files import write_candidates
+    from lidmelt.products.screening import screen
 
     found = screen(run, min_melt_thickness_km=2.0)
     write_candidates(found, run / "candidates.gpkg")

@@ -16,8 +16,9 @@ import pytest
 from affine import Affine
 
 from lidmelt.grids.rundir import open_run
+from lidmelt.products.candidate_files import write_candidates
 from lidmelt.products.report.sites import DEEP_SHARE_HEADING, sites_section
-from lidmelt.products.screening import screen, write_candidates
+from lidmelt.products.screening import screen
 
 # 3 rows x 2 columns of 10 x 30 degree cells from 0 E, 90 N: the rows are the latitude bands
 # 60-90 N, 30-60 N and 0-30 N.

@@ -25,8 +25,9 @@ from lidmelt.cli import main
 from lidmelt.errors import GridError, InputError
 from lidmelt.grids.area import WGS84_SURFACE_AREA_KM2, cell_areas_km2, row_areas_km2
 from lidmelt.grids.grid import Grid
+from lidmelt.products.candidate_files import write_candidates
 from lidmelt.products.regions import region_statistics
-from lidmelt.products.screening import screen, write_candidates
+from lidmelt.products.screening import screen
 
 GEOD = pyproj.Geod(ellps="WGS84")
 

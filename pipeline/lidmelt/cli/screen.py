@@ -9,9 +9,10 @@ from pathlib import Path
 import pandas as pd
 
 from lidmelt.cli._common import format_table, print_warnings, run_dir_option
+from lidmelt.products.candidate_files import write_candidates
 from lidmelt.products.report.sites import CANDIDATES_NAME
 from lidmelt.products.sampling import check_output_path
-from lidmelt.products.screening import BASES, screen, write_candidates
+from lidmelt.products.screening import BASES, screen
 from lidmelt.variables import parse_ensemble_name
 
 __all__ = ["SHOWN_COLUMNS", "register"]

@@ -9,11 +9,12 @@ candidate regions, map figures and the report.
 Nothing here parses arguments or prints: the command line (:mod:`lidmelt.cli`) does.
 """
 
+from lidmelt.products.candidate_files import write_candidates
 from lidmelt.products.maps import draw_map, draw_run_maps, make_map_figure
 from lidmelt.products.profiles import sample_track, write_profile
 from lidmelt.products.regions import region_statistics, write_regions
 from lidmelt.products.report import write_report
-from lidmelt.products.screening import screen, write_candidates
+from lidmelt.products.screening import screen
 from lidmelt.products.sites import sample_stations, write_stations
 
 __all__ = [

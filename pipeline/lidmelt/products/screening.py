@@ -74,18 +74,16 @@ from typing import TYPE_CHECKING, Any
 
 import numpy as np
 import pandas as pd
-import pyproj
 
 from lidmelt.ensemble.candidates import Candidates
 from lidmelt.errors import InputError, RunDirError
-from lidmelt.files import atomic_paths
 from lidmelt.grids import rundir
 from lidmelt.grids.area import row_areas_km2
 from lidmelt.grids.grid import WGS84
 from lidmelt.grids.rundir import RunDir
 from lidmelt.products import ensemble as ens
 from lidmelt.products import sampling as smp
-from lidmelt.products.regions import ANOMALY_MELT_VARIABLE, GEOD, Zones, transform_geometries
+from lidmelt.products.regions import ANOMALY_MELT_VARIABLE, GEOD, Zones
 from lidmelt.variables import OUTPUTS, PROBABILITY_BASES, parse_ensemble_name
 
 if TYPE_CHECKING:
@@ -100,7 +98,6 @@ __all__ = [
     "PLUME_MATCHES",
     "ensemble_candidates",
     "screen",
-    "write_candidates",
 ]
 
 #: Where ``lidmelt screen`` writes its candidates by default, in the run directory (outside its
@@ -512,53 +509,6 @@ def _edge_cells(mask: np.ndarray) -> np.ndarray:
     from scipy import ndimage
 
     return mask & ~ndimage.binary_erosion(mask, border_value=0)
-
-
-def _rfc7946(gdf: gpd.GeoDataFrame) -> gpd.GeoDataFrame:
-    """Polygons in WGS84 longitude/latitude, split at the antimeridian into -180..180."""
-    import shapely
-    from shapely import affinity
-
-    src = pyproj.CRS.from_user_input(gdf.crs)
-    geoms = transform_geometries(gdf.geometry.to_numpy(), src, WGS84)
-    out = []
-    for g in geoms:
-        parts = []
-        for k in (-1, 0, 1):
-            box = shapely.box(-180.0 + 360.0 * k, -90.0, 180.0 + 360.0 * k, 90.0)
-            if g.intersects(box):
-                piece = g.intersection(box)
-                piece = affinity.translate(piece, xoff=-360.0 * k)
-                parts += [p for p in shapely.get_parts(piece) if p.geom_type == "Polygon"]
-        out.append(shapely.MultiPolygon(parts) if len(parts) != 1 else parts[0])
-    return gdf.set_geometry(out, crs=WGS84) if len(gdf) else gdf.to_crs(WGS84)
-
-
-def write_candidates(gdf: gpd.GeoDataFrame, path: str | os.PathLike[str]) -> tuple[Path, Path]:
-    """Write screening candidates as GeoPackage (grid CRS) and GeoJSON (RFC 7946, lon/lat)
-    beside it with the same stem; both atomically.
-
-    Parameters
-    ----------
-    gdf : geopandas.GeoDataFrame
-        The candidates :func:`screen` returned.
-    path : str or os.PathLike
-        The ``.gpkg`` file; the GeoJSON gets the same stem.
-
-    Returns
-    -------
-    tuple of pathlib.Path
-        The GeoPackage and the GeoJSON.
-    """
-    path = smp.check_output_path(path, (".gpkg",), what="candidate regions")
-    geojson = path.with_suffix(".geojson")
-    lonlat = _rfc7946(gdf)
-    with atomic_paths(path, geojson) as (gpkg_tmp, json_tmp):
-        gdf.to_file(gpkg_tmp, driver="GPKG", layer="candidates", promote_to_multi=True)
-        lonlat.to_file(
-            json_tmp, driver="GeoJSON", layer="candidates", RFC7946="YES", promote_to_multi=True
-        )
-    return path, geojson
 
 
 #: The fields of a screening record an ensemble candidate keeps in the summary.

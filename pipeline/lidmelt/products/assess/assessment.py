@@ -190,6 +190,18 @@ def _thresholds(thresholds, above_km2, area_km2, captured, n_used, cells, screen
     return out
 
 
+def _place(run: RunDir, variable: str, grid: Grid, fp: FeaturePoints):
+    """The features on the grid: inside it, their values, the grid's blocks of ``variable``,
+    those used (on a cell with data) and each feature's status."""
+    _check_variable(run, variable)
+    inside, cells = _locate(fp, grid)
+    values, blocks = _scan(run, variable, grid, cells, inside)
+    used = inside & np.isfinite(values)
+    _refuse_unplaced(fp, run, inside, used)
+    status = np.where(used, "used", np.where(inside, "nodata", "outside_grid"))
+    return inside, values, blocks, used, status
+
+
 def assess(
     run: RunDir | str | os.PathLike[str],
     features: FeaturePoints | str | os.PathLike[str],
@@ -209,12 +221,9 @@ def assess(
     features : FeaturePoints or str or os.PathLike
         The known features (seamounts, volcanoes): a CSV or vector file of points.
     variable : str, optional
-        The output ranked; by default an ensemble run's probability of melting of its
-        screening basis, else the melt the thermal anomaly adds.
+        The output ranked (default: :func:`default_variable`).
     thresholds : list of float, optional
-        The values of ``variable`` at which weights of evidence are given (default: a
-        probability 0.1, 0.5, 0.9; a melt thickness 0.5, 1, 2 km; another variable the
-        quartiles of the features' values).
+        Where weights of evidence are given (default: :func:`default_thresholds`).
     candidates : str or os.PathLike, optional
         Candidate regions (``lidmelt screen``) to count the features in.
     seed : int
@@ -226,14 +235,13 @@ def assess(
     -------
     dict
         The assessment, ready for JSON (docs/assess.md lists its keys): ``variable``,
-        ``n_features``, ``n_features_used``, ``auc``, ``auc_ci90``, ``curve``, ``thresholds``
-        and the rest.
+        ``n_features``, ``n_features_used``, ``auc``, ``auc_ci90``, ``curve``, ``thresholds``...
 
     Raises
     ------
     InputError
-        A feature file that is missing, empty, without coordinates or CRS, whose features all
-        lie outside the grid or none on a cell with data; an unknown variable.
+        A bad feature file (missing, empty, no coordinates or CRS, off every data cell) or an
+        unknown variable.
     RunDirError
         ``run`` is not a run directory.
     """
@@ -241,16 +249,12 @@ def assess(
     grid = smp.run_grid(run)
     fp = features if isinstance(features, FeaturePoints) else read_feature_points(features, crs=crs)
     variable = variable or default_variable(run)
-    _check_variable(run, variable)
-    inside, cells = _locate(fp, grid)
-    values, blocks = _scan(run, variable, grid, cells, inside)
-    used = inside & np.isfinite(values)
-    _refuse_unplaced(fp, run, inside, used)
-    status = np.where(used, "used", np.where(inside, "nodata", "outside_grid"))
-    if thresholds is None:
-        thresholds, screening = default_thresholds(run, variable, values[used])
-    else:
-        thresholds, screening = sorted(float(t) for t in thresholds), math.nan
+    inside, values, blocks, used, status = _place(run, variable, grid, fp)
+    thresholds, screening = (
+        default_thresholds(run, variable, values[used])
+        if thresholds is None
+        else (sorted(float(t) for t in thresholds), math.nan)
+    )
     ranks, n_cells, above = _background(blocks, grid, values[used], thresholds)
     del blocks
     scores = ranks.scores()
