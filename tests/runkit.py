@@ -5,6 +5,7 @@ from __future__ import annotations
 
 import hashlib
 import os
+import signal
 import subprocess
 import sys
 import time
@@ -102,11 +103,19 @@ def lidmelt(*args: str, timeout: float = 300) -> subprocess.CompletedProcess:
     )
 
 
+def _default_sigint() -> None:
+    """In the child: SIGINT back to its default action, as in a terminal's foreground job."""
+    signal.signal(signal.SIGINT, signal.SIG_DFL)
+
+
 def start(*args: str) -> subprocess.Popen:
-    """Start ``lidmelt ARGS`` in a subprocess (its output captured)."""
+    """Start ``lidmelt ARGS`` in a subprocess (its output captured) that takes SIGINT as a
+    Ctrl-C: a test session started in the background by a non-interactive shell ignores SIGINT,
+    and its children would inherit that (the fault tests' SIGINT would then never land)."""
     return subprocess.Popen(
-        command(*args), env=env(), stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True
-    )
+        command(*args), env=env(), stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
+        preexec_fn=_default_sigint,
+    )  # fmt: skip
 
 
 def snapshot(folder: Path) -> dict[str, str]:
