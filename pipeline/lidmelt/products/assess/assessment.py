@@ -234,14 +234,12 @@ def assess(
     Returns
     -------
     dict
-        The assessment, ready for JSON (docs/assess.md lists its keys): ``variable``,
-        ``n_features``, ``n_features_used``, ``auc``, ``auc_ci90``, ``curve``, ``thresholds``...
+        The assessment, ready for JSON (docs/assess.md lists its keys: ``auc``, ``curve``...).
 
     Raises
     ------
     InputError
-        A bad feature file (missing, empty, no coordinates or CRS, off every data cell) or an
-        unknown variable.
+        A bad feature file (missing, empty, no CRS, off every data cell) or unknown variable.
     RunDirError
         ``run`` is not a run directory.
     """
@@ -250,11 +248,10 @@ def assess(
     fp = features if isinstance(features, FeaturePoints) else read_feature_points(features, crs=crs)
     variable = variable or default_variable(run)
     inside, values, blocks, used, status = _place(run, variable, grid, fp)
-    thresholds, screening = (
-        default_thresholds(run, variable, values[used])
-        if thresholds is None
-        else (sorted(float(t) for t in thresholds), math.nan)
-    )
+    if thresholds is None:
+        thresholds, screening = default_thresholds(run, variable, values[used])
+    else:
+        thresholds, screening = sorted(float(t) for t in thresholds), math.nan
     ranks, n_cells, above = _background(blocks, grid, values[used], thresholds)
     del blocks
     scores = ranks.scores()
@@ -262,8 +259,7 @@ def assess(
     auc_b = counts @ scores.scores.astype(np.float32) / used.sum()
     score_all = np.full(len(fp), np.nan)
     score_all[used] = scores.scores
-    # in float32 like the grid's cells (_background): a probability of 45/50 stored as
-    # float32(0.9) is at or above a threshold of 0.9, though float64(float32(0.9)) < 0.9
+    # compared in float32 like the grid's cells (_background): float64(float32(0.9)) < 0.9
     captured = [int((values[used].astype(np.float32) >= np.float32(t)).sum()) for t in thresholds]
     regions = candidate_features(run, fp, inside, candidates)
     n_used = int(used.sum())
