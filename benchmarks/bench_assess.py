@@ -51,8 +51,8 @@ def invented_features(run_dir: Path, count: int, out: Path, seed: int = 0) -> Pa
 def bench_global_assess(folder: Path) -> None:
     from bench_basin import make_inputs
 
-    from lidmelt.engine import run_basin
-    from lidmelt.products.assess import assess
+    from lidmelt._engine import run_basin
+    from lidmelt.products._assess._assessment import assess
     from lidmelt.workflow import load_workflow
 
     make_inputs(folder, 10800, 5400)
@@ -70,7 +70,7 @@ def bench_global_assess(folder: Path) -> None:
 
 
 def stage_seconds(cfg) -> tuple[float, dict]:
-    from lidmelt.engine import run_basin
+    from lidmelt._engine import run_basin
     from lidmelt.ensemble import ensemble_stages
 
     t0 = time.perf_counter()

@@ -51,8 +51,8 @@ def make_inputs(folder: Path, width: int, height: int) -> None:
     import rioxarray  # noqa: F401
     import xarray as xr
 
-    from lidmelt.grids.grid import Grid
-    from lidmelt.grids.write import write_geotiff
+    from lidmelt.grids._grid import Grid
+    from lidmelt.grids._write import write_geotiff
 
     res = 360.0 / width
     half = height * res / 2.0
@@ -110,7 +110,7 @@ def run_bound(folder: Path, n_out: int) -> dict:
 def run_lidmelt(folder: Path, water: float, rule: str) -> dict:
     """``run_basin`` on the inputs in ``folder``; dry unless ``water`` > 0 (constant, wt%);
     ``rule`` the top of melting (lithosphere.top_of_melting)."""
-    from lidmelt.engine import run_basin
+    from lidmelt._engine import run_basin
     from lidmelt.workflow import load_workflow
 
     wet = f"[inputs.water]\nconstant = {water}\n" if water > 0 else ""

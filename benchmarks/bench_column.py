@@ -8,7 +8,7 @@ as a basin run does. Run:
 
 Inputs are random cells (Tp 1300-1600 C: ambient plus plumes up to 250 K; lid 0-150 km),
 dry and with 0.01 wt% water. The naive baseline is what a user would otherwise write: one
-scipy.integrate.solve_ivp call per cell (lidmelt.physics.reference), timed on a few cells.
+scipy.integrate.solve_ivp call per cell (lidmelt.physics._reference), timed on a few cells.
 
 The kernel section times lidmelt.physics.evaluate_cells, every output a run writes and the
 flag (ambient 1350 C, upwelling given), dry, at 0.01 wt% water and with water varying
@@ -41,11 +41,11 @@ def main() -> None:
     os.environ.setdefault("LIDMELT_CACHE_DIR", tempfile.mkdtemp(prefix="lidmelt-bench-"))
 
     from lidmelt.physics import MODELS, evaluate_cells, get_model, get_table, melt_column
-    from lidmelt.physics.cells import CellOptions
-    from lidmelt.physics.kernel import AVAILABLE, compile_seconds
-    from lidmelt.physics.kernel_records import Cells
-    from lidmelt.physics.reference import solve_ivp_column
-    from lidmelt.physics.table import MeltTable
+    from lidmelt.physics._cells import CellOptions
+    from lidmelt.physics._kernel import AVAILABLE, compile_seconds
+    from lidmelt.physics._kernel_records import Cells
+    from lidmelt.physics._reference import solve_ivp_column
+    from lidmelt.physics._table import MeltTable
 
     for name in MODELS:  # every registered melting model, at its published parameters
         t = time.perf_counter()
@@ -107,8 +107,8 @@ def main() -> None:
 def kernel_rates(table, rng, cells, chunk, compiled_available) -> None:
     """Cells/s of evaluate_cells (every output and the flag), numpy table path vs compiled."""
     from lidmelt.physics import evaluate_cells
-    from lidmelt.physics.cells import CellOptions
-    from lidmelt.physics.kernel_records import Cells
+    from lidmelt.physics._cells import CellOptions
+    from lidmelt.physics._kernel_records import Cells
 
     tp = rng.uniform(1300.0, 1600.0, cells)
     lid = rng.uniform(0.0, 150.0, cells)
@@ -156,13 +156,13 @@ def kernel_rates(table, rng, cells, chunk, compiled_available) -> None:
 
 
 def engine_rates(table, cells: int) -> None:
-    """Cells/s per core of the kernel inside the engine (:func:`lidmelt.engine.evaluate_chunk`):
+    """Cells/s per core of the kernel inside the engine (:func:`lidmelt._engine.evaluate_chunk`):
     the top of melting from plate age (half-space and GDH1; the isotherm rule and the geotherm
     rule, lithosphere.top_of_melting), Tp, every output, the flag and the stacked float32 chunk
     a run writes, on 1024 x 1024 chunks of an invented smooth basin (ages 0-180 Ma along x, a
     Gaussian plume of 250 K, 8 % land as NaN). The goals are the isotherm rule's; the geotherm
     rule's is to stay within a few times the isotherm rule's."""
-    from lidmelt.engine import ChunkInputs, KernelSettings, evaluate_chunk
+    from lidmelt._engine import ChunkInputs, KernelSettings, evaluate_chunk
     from lidmelt.physics import get_cooling_model
 
     side = 1024

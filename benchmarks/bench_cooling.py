@@ -1,5 +1,5 @@
 """Throughput of the lid from plate age: the lookup (lidmelt.physics.lid_lookup) vs the exact
-lidmelt.physics.cooling.isotherm_depth_km, in cells per second on one core.
+lidmelt.physics._cooling.isotherm_depth_km, in cells per second on one core.
 
 Run:  .venv/bin/python benchmarks/bench_cooling.py [--cells 4194304] [--repeat 5]
 
@@ -18,7 +18,9 @@ import time
 
 import numpy as np
 
-from lidmelt.physics import cooling, lid_lookup, lidlookup
+from lidmelt.physics import _cooling as cooling
+from lidmelt.physics import _lidlookup as lidlookup
+from lidmelt.physics._lidlookup import lid_lookup
 
 
 def invented_ages(cells: int, *, seed: int = 0) -> np.ndarray:

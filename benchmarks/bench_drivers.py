@@ -6,7 +6,7 @@ The case is the held-out check of tests/test_ensemble_drivers.py: a uniform basi
 water uniform on 0-0.05 wt% (both matter), and the crust density (2800-3000 kg/m3), which does
 not change the melt thickness (its true share is 0). The true shares come from the midpoint rule
 on a 400 x 400 grid of the two keys. For each member count N and seeds 1..S (Latin hypercube;
-``--sampling random``: plain random members), lidmelt.ensemble.drivers estimates the shares;
+``--sampling random``: plain random members), lidmelt.ensemble._drivers estimates the shares;
 the script prints, per key, the mean and the standard deviation of the estimates over the
 seeds, the largest error, the mean width of the 90 % interval and how often it holds the truth,
 and the run time of one drivers call. Run:
@@ -22,12 +22,12 @@ import time
 
 import numpy as np
 
-from lidmelt.config import VarySpec
-from lidmelt.ensemble.drivers import drivers
-from lidmelt.ensemble.sampling import draw_members
+from lidmelt._config_tables import VarySpec
+from lidmelt.ensemble._drivers import drivers
+from lidmelt.ensemble._sampling import draw_members
 from lidmelt.physics import evaluate_cells, get_model, get_table
-from lidmelt.physics.cells import CellOptions
-from lidmelt.physics.kernel_records import Cells
+from lidmelt.physics._cells import CellOptions
+from lidmelt.physics._kernel_records import Cells
 
 LID_KM, TP, WATER = 60.0, (1325.0, 1375.0), (0.0, 0.05)
 VARY = (

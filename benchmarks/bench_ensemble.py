@@ -29,7 +29,7 @@ ROOT = Path(__file__).resolve().parents[1]
 
 def measure(workflow: Path, out: Path, overrides: list[str]) -> dict[str, float]:
     """Times of one run without and with its ensemble."""
-    from lidmelt.engine import run_basin
+    from lidmelt._engine import run_basin
     from lidmelt.ensemble import ensemble_stages
     from lidmelt.workflow import load_workflow
 
@@ -81,7 +81,7 @@ def bench_percentiles(members: int = 50, side: int = 256, repeats: int = 5) -> N
     far from melting, 60 % of the cells are 0 in every member and 5 % have no value (NaN)."""
     import numpy as np
 
-    from lidmelt.ensemble.kernel import member_percentiles
+    from lidmelt.ensemble._kernel import member_percentiles
 
     rng = np.random.default_rng(0)
     stack = rng.random((members, side, side)).astype(np.float32)

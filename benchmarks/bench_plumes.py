@@ -5,7 +5,7 @@ Run:  .venv/bin/python benchmarks/bench_plumes.py [--rows 1000] [--grid 36x24]
 Writes an invented basin (a plate-age GeoTIFF of the given size at 0.25 degree, its cells on
 0-20 Ma) and an invented catalogue of ROWS plumes of radius 50-400 km and 1-5 K inside it, then
 prints the seconds of ``load_workflow`` (the rows read and checked), of ``run_basin`` and the
-estimate of the plumes' work (``lidmelt.grids.anomaly.plume_cells``: cells within reach,
+estimate of the plumes' work (``lidmelt.grids._anomaly.plume_cells``: cells within reach,
 summed). Goal (issue 24): a 1000-row catalogue on a small grid in seconds, not the 35 s (and
 more) of a dask layer per plume, whose graph optimisation grew with the square of the plumes.
 """
@@ -51,9 +51,9 @@ def write_basin(folder: Path, rows: int, width: int, height: int) -> Path:
 
 
 def main() -> None:
-    from lidmelt.engine import run_basin
-    from lidmelt.grids.anomaly import Plume, plume_cells
-    from lidmelt.run_inputs import resolve_target_grid
+    from lidmelt._engine import run_basin
+    from lidmelt._run_inputs import resolve_target_grid
+    from lidmelt.grids._anomaly import Plume, plume_cells
     from lidmelt.workflow import load_workflow
 
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])

@@ -41,7 +41,7 @@ def steps_override(steps: int) -> list[str]:
 
 def measure(out: Path, workers: int) -> dict[str, float]:
     """Times of the single run and of the run with a 100-step history."""
-    from lidmelt.engine import run_basin
+    from lidmelt._engine import run_basin
     from lidmelt.motion import motion_stages
     from lidmelt.workflow import load_workflow
 
@@ -96,7 +96,7 @@ def report(r: dict[str, float], workers: int) -> None:
 
 _CHILD = """
 import json, resource, sys, time
-from lidmelt.engine import run_basin
+from lidmelt._engine import run_basin
 from lidmelt.motion import motion_stages
 from lidmelt.workflow import load_workflow
 cfg = load_workflow(sys.argv[1], overrides=sys.argv[3:], output_dir=sys.argv[2])

@@ -44,7 +44,7 @@ def lazy_grid():
     import dask.array as dsa
     import numpy as np
 
-    from lidmelt.grids.grid import Grid
+    from lidmelt.grids._grid import Grid
 
     target = Grid.from_extent(-180.0, 180.0, -90.0, 90.0, 1.0 / 30.0)
     assert target.shape == (HEIGHT, WIDTH)
@@ -67,8 +67,8 @@ def lazy_grid():
 def run_case(case: str) -> dict:
     import numpy as np
 
-    from lidmelt.grids.align import align
-    from lidmelt.grids.write import write_geotiff
+    from lidmelt.grids._align import align
+    from lidmelt.grids._write import write_geotiff
 
     target, da = lazy_grid()
     baseline = peak_rss_mb()

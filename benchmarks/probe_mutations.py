@@ -51,7 +51,7 @@ class Mutation:
 MUTATIONS: tuple[Mutation, ...] = (
     Mutation(
         "latent-heat sign",
-        PKG + "physics/column.py",
+        PKG + "physics/_column.py",
         "- abar * self.dp_pa + self.ds * (f - self.f0), t1",
         "- abar * self.dp_pa - self.ds * (f - self.f0), t1",
         "the entropy of melting enters the column's entropy balance with the wrong sign",
@@ -59,7 +59,7 @@ MUTATIONS: tuple[Mutation, ...] = (
     ),
     Mutation(
         "half-space constant",
-        PKG + "physics/cooling.py",
+        PKG + "physics/_cooling.py",
         "scale = 0.5e3 / math.sqrt(model.diffusivity_m2_s * SECONDS_PER_MA)",
         "scale = 1.0e3 / math.sqrt(model.diffusivity_m2_s * SECONDS_PER_MA)",
         "half-space temperature erf(z / sqrt(kappa t)) instead of erf(z / (2 sqrt(kappa t)))",
@@ -67,7 +67,7 @@ MUTATIONS: tuple[Mutation, ...] = (
     ),
     Mutation(
         "water depression sign",
-        PKG + "physics/melting.py",
+        PKG + "physics/_melting.py",
         "return t - self.water_depression_k_c * np.maximum(x, 0.0)",
         "return t + self.water_depression_k_c * np.maximum(x, 0.0)",
         "water raises the solidus instead of lowering it (Katz et al. 2003 Delta T = K X^gamma)",
@@ -75,7 +75,7 @@ MUTATIONS: tuple[Mutation, ...] = (
     ),
     Mutation(
         "percentile rank",
-        PKG + "ensemble/kernel.py",
+        PKG + "ensemble/_kernel.py",
         "h = (float(q) / 100.0) * last",
         "h = (float(q) / 100.0) * (last + 1)",
         "percentile rank h = q N / 100 instead of q (N - 1) / 100 (Hyndman & Fan definition 7)",
@@ -83,7 +83,7 @@ MUTATIONS: tuple[Mutation, ...] = (
     ),
     Mutation(
         "anomaly melt subtraction",
-        PKG + "physics/cells.py",
+        PKG + "physics/_cells.py",
         "np.maximum(h - h_amb, 0.0)",
         "np.maximum(h - 0.5 * h_amb, 0.0)",
         "the melt the anomaly adds subtracts half the ambient column's melt (numpy path)",
@@ -91,7 +91,7 @@ MUTATIONS: tuple[Mutation, ...] = (
     ),
     Mutation(
         "latitude in areas",
-        PKG + "grids/area.py",
+        PKG + "grids/_area.py",
         "s = np.sin(np.radians(np.asarray(lat_deg, dtype=np.float64)))",
         "s = np.cos(np.radians(np.asarray(lat_deg, dtype=np.float64)))",
         "the authalic q function takes cos(latitude) for sin(latitude)",
@@ -99,7 +99,7 @@ MUTATIONS: tuple[Mutation, ...] = (
     ),
     Mutation(
         "sampling indices",
-        PKG + "products/sampling.py",
+        PKG + "products/_sampling.py",
         "corners = (r0 * w + c0, r0 * w + c1, r1 * w + c0, r1 * w + c1)",
         "corners = (r0 * w + c0, r1 * w + c0, r0 * w + c1, r1 * w + c1)",
         "bilinear sampling pairs the two off-diagonal corners with each other's weights",
@@ -107,7 +107,7 @@ MUTATIONS: tuple[Mutation, ...] = (
     ),
     Mutation(
         "crust density ratio",
-        PKG + "physics/cells.py",
+        PKG + "physics/_cells.py",
         "crust_ratio=model.solid_density_kg_m3 / crust_density_kg_m3, clock=clock",
         "crust_ratio=crust_density_kg_m3 / model.solid_density_kg_m3, clock=clock",
         "crustal thickness H rho_c / rho_s instead of H rho_s / rho_c (compiled path)",
@@ -115,7 +115,7 @@ MUTATIONS: tuple[Mutation, ...] = (
     ),
     Mutation(
         "solid adiabat constant",
-        PKG + "physics/melting.py",
+        PKG + "physics/_melting.py",
         "self.solid_expansivity_k / (self.solid_density_kg_m3 * self.specific_heat_j_kg_k) * GPA",
         "self.solid_expansivity_k / (self.solid_density_kg_m3 * self.specific_heat_j_kg_k) * 1e8",
         "the solid isentrope's alpha_s / (rho_s c_p) per GPa taken per 0.1 GPa (a unit constant)",
@@ -123,7 +123,7 @@ MUTATIONS: tuple[Mutation, ...] = (
     ),
     Mutation(
         "probability >= T as > T",
-        PKG + "ensemble/kernel.py",
+        PKG + "ensemble/_kernel.py",
         "melts = extracted & (basis >= threshold)",
         "melts = extracted & (basis > threshold)",
         "a member whose melt equals the threshold T does not count as reaching it",
@@ -131,7 +131,7 @@ MUTATIONS: tuple[Mutation, ...] = (
     ),
     Mutation(
         "one permutation for every key",
-        PKG + "ensemble/sampling.py",
+        PKG + "ensemble/_sampling.py",
         "    for d in range(dims):\n        strata = rng.permutation(members)\n",
         "    strata = rng.permutation(members)\n    for d in range(dims):\n",
         "the Latin hypercube reuses one stratum order for every key (its columns are correlated)",
@@ -139,7 +139,7 @@ MUTATIONS: tuple[Mutation, ...] = (
     ),
     Mutation(
         "triangular branches swapped",
-        PKG + "ensemble/sampling.py",
+        PKG + "ensemble/_sampling.py",
         "out = np.where(u < cut, left, right)",
         "out = np.where(u < cut, right, left)",
         "the triangular inverse CDF takes the upper branch below the mode's probability",
@@ -147,7 +147,7 @@ MUTATIONS: tuple[Mutation, ...] = (
     ),
     Mutation(
         "histogram median at the upper edge",
-        PKG + "statistics.py",
+        PKG + "_statistics.py",
         "return _HIST_RANGE[0] + (k + 0.5) * width",
         "return _HIST_RANGE[0] + (k + 1.0) * width",
         "the median of the binned values is the bin's upper edge, not its centre",
@@ -158,7 +158,7 @@ MUTATIONS: tuple[Mutation, ...] = (
     ),
     Mutation(
         "histogram percentiles by another definition",
-        PKG + "products/maps/members.py",
+        PKG + "products/_maps/_members.py",
         'value = float(np.percentile(values, float(key[1:]), method="linear"))',
         'value = float(np.percentile(values, float(key[1:]), method="lower"))',
         "the member histogram's percentile lines by the lower order statistic, not definition 7",
@@ -166,7 +166,7 @@ MUTATIONS: tuple[Mutation, ...] = (
     ),
     Mutation(
         "least added melt >= as >",
-        PKG + "statistics.py",
+        PKG + "_statistics.py",
         "return (anomaly_melt > 0) & (anomaly_melt >= least)",
         "return (anomaly_melt > 0) & (anomaly_melt > least)",
         "a cell whose anomaly melt equals the least amount (0.02 km) is not counted as added melt",

@@ -7,7 +7,7 @@ top of melting (dry and 0.01 wt% water), hot columns, and the jumps where the ge
 touches the column (the fold). Katz et al. (2003) dry or wet, ambient Tp 1350 C, minimum top
 7 km, the lid isotherm 1100 C; the water above the seafloor loads every column as in a run
 without bathymetry (the cooling model's seafloor depth at the age,
-lidmelt.physics.cooling.seafloor_depth_m; lidmelt.physics.pressure.water_load_km); every number
+lidmelt.physics._cooling.seafloor_depth_m; lidmelt.physics._pressure.water_load_km); every number
 by lidmelt's Python API on the melting table (lidmelt.physics.evaluate_cells; the geotherm tops
 by lidmelt.physics.geotherm_tops).
 """
@@ -16,17 +16,13 @@ from __future__ import annotations
 
 import numpy as np
 
-from lidmelt.physics import (
-    evaluate_cells,
-    geotherm_tops,
-    get_cooling_model,
-    get_table,
-    lid_lookup,
-)
-from lidmelt.physics.cells import CellOptions
-from lidmelt.physics.cooling import seafloor_depth_m
-from lidmelt.physics.kernel_records import Cells
-from lidmelt.physics.pressure import water_load_km
+from lidmelt.physics import evaluate_cells, get_cooling_model, get_table
+from lidmelt.physics._cells import CellOptions
+from lidmelt.physics._cooling import seafloor_depth_m
+from lidmelt.physics._geotherm import geotherm_tops
+from lidmelt.physics._kernel_records import Cells
+from lidmelt.physics._lidlookup import lid_lookup
+from lidmelt.physics._pressure import water_load_km
 
 MODELS = ("half-space", "gdh1", "ps77")
 AGES = (0.0, 1.0, 5.0, 10.0, 15.0, 20.0, 30.0, 45.0, 60.0, 80.0, 100.0, 150.0)

@@ -60,7 +60,7 @@ def reseal(path, **changes):
     """Rewrite ``path``'s summary.json with ``changes`` and the manifest of the files now there
     (what a test that edits a run directory by hand must do: lidmelt refuses a folder whose
     files or summary differ from its manifest)."""
-    from lidmelt.grids.rundir import SUMMARY_NAME, write_summary
+    from lidmelt.grids._rundir import SUMMARY_NAME, write_summary
 
     doc = json.loads((Path(path) / SUMMARY_NAME).read_text(encoding="utf-8"))
     doc.update(changes)
@@ -76,7 +76,7 @@ def write_run_dir(path, fields, *, transform, crs="EPSG:4326", summary=None):
     import rasterio
     from rasterio.crs import CRS
 
-    from lidmelt.grids.rundir import write_summary
+    from lidmelt.grids._rundir import write_summary
 
     path = Path(path)
     path.mkdir(parents=True, exist_ok=True)
@@ -175,7 +175,7 @@ def write_validity_flag(path, flags):
     import rasterio
     from affine import Affine
 
-    from lidmelt.grids.rundir import write_summary
+    from lidmelt.grids._rundir import write_summary
     from lidmelt.physics import FLAG_MEANINGS
 
     path = Path(path)

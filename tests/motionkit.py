@@ -98,7 +98,7 @@ max_age_ma = {MAX_AGE}
 
 def run(folder: Path, **kwargs):
     """Run the synthetic basin in-process; return the run directory."""
-    from lidmelt.engine import run_basin
+    from lidmelt._engine import run_basin
     from lidmelt.motion import motion_stages
     from lidmelt.workflow import load_workflow
 

@@ -14,14 +14,14 @@ import pandas as pd
 import pytest
 
 import motionkit as mk
+from lidmelt._variables import HISTORY
 from lidmelt.cli import main
-from lidmelt.grids.rundir import open_run
-from lidmelt.motion.rotations import EARTH_RADIUS_KM
-from lidmelt.products.ages import AGE_COLUMNS, feature_ages
-from lidmelt.products.maps.style import style_for
-from lidmelt.products.report import write_report
-from lidmelt.products.sites import sample_stations
-from lidmelt.variables import HISTORY
+from lidmelt.grids._rundir import open_run
+from lidmelt.motion._rotations import EARTH_RADIUS_KM
+from lidmelt.products._ages import AGE_COLUMNS, feature_ages
+from lidmelt.products._maps._style import style_for
+from lidmelt.products._report._write import write_report
+from lidmelt.products._sites import sample_stations
 
 SPEED = np.radians(mk.OMEGA) * EARTH_RADIUS_KM * np.cos(np.radians(mk.PLUME["latitude"]))
 

@@ -19,7 +19,7 @@ from affine import Affine
 from sklearn.metrics import roc_auc_score
 
 from lidmelt.cli import main
-from lidmelt.ensemble.score import (
+from lidmelt.ensemble._score import (
     NBINS,
     ExactRanks,
     bin_keys,
@@ -28,8 +28,8 @@ from lidmelt.ensemble.score import (
     interval,
     resample_counts,
 )
-from lidmelt.products.assess import assess
-from lidmelt.products.assess.evidence import weights_of_evidence
+from lidmelt.products._assess._assessment import assess
+from lidmelt.products._assess._evidence import weights_of_evidence
 
 TRANSFORM = Affine(0.5, 0.0, -10.0, 0.0, -0.5, 5.0)  # 0.5 degree cells, north-up
 
@@ -96,7 +96,7 @@ def test_binned_scores_are_within_their_bound_of_the_exact():
 
 def test_random_features_give_an_interval_holding_one_half():
     """Features drawn from the ocean in proportion to area: their mean score is 1/2 (module
-    notes of lidmelt.ensemble.score), so a 90 % interval holds 0.5 in about 90 % of draws
+    notes of lidmelt.ensemble._score), so a 90 % interval holds 0.5 in about 90 % of draws
     (200 seeds, 50 features each, fixed before running; Binomial(200, 0.9) has sd 4.2)."""
     v = field(shape=(60, 80), seed=7)
     rows = np.linspace(1.0, 2.0, v.shape[0])[:, None]
@@ -117,7 +117,7 @@ def test_expanded_levels_follow_hesterberg_by_hand():
     """Hesterberg (2015): a' = Phi(sqrt(n/(n-1)) t_(a, n-1)). By hand for n = 10, 90 %:
     t_(0.05, 9) = -1.833 (Student t table), x sqrt(10/9) = -1.9322, Phi(-1.9322) = 0.02666
     (normal table: Phi(1.93) = 0.9732, Phi(1.94) = 0.9738); wider than the plain 5 %."""
-    from lidmelt.ensemble.score import expanded_levels
+    from lidmelt.ensemble._score import expanded_levels
 
     lo, hi = expanded_levels(10)
     assert lo == pytest.approx(2.666, abs=0.01)
@@ -177,8 +177,8 @@ def test_assessment_of_a_run_equals_sklearn_and_lists_what_it_cannot_score(small
     rows += [("east", *centre(10, 38)), ("far", 40.0, 0.0)]
     doc = assess(run, write_features(tmp_path / "f.csv", rows))
     f = v.ravel()[cells].astype(np.float64)
-    from lidmelt.grids.area import row_areas_km2
-    from lidmelt.products.sampling import as_run, run_grid
+    from lidmelt.grids._area import row_areas_km2
+    from lidmelt.products._sampling import as_run, run_grid
 
     area = row_areas_km2(run_grid(as_run(run)))[:, None]
     assert doc["auc"] == pytest.approx(sklearn_auc(v, area, f), abs=1e-12)
@@ -200,8 +200,8 @@ def test_assessment_of_a_run_equals_sklearn_and_lists_what_it_cannot_score(small
 
 def test_features_in_candidate_regions_are_listed(small_run, tmp_path):
     run, v = small_run
-    from lidmelt.products.candidate_files import write_candidates
-    from lidmelt.products.screening import screen
+    from lidmelt.products._candidate_files import write_candidates
+    from lidmelt.products._screening import screen
 
     found = screen(run, min_melt_thickness_km=2.0)
     write_candidates(found, run / "candidates.gpkg")
@@ -271,7 +271,7 @@ def test_the_command_writes_the_json_and_the_figure(small_run, tmp_path, capsys)
     assert (run / "maps" / "success_rate.png").is_file()
     assert "AUC" in capsys.readouterr().out
     # the run itself is untouched: its manifest still verifies
-    from lidmelt.grids.rundir import open_run
+    from lidmelt.grids._rundir import open_run
 
     open_run(run)
 
@@ -284,9 +284,9 @@ def test_the_demo_auc_equals_sklearn_within_0001(tmp_path):
 
     import rasterio
 
-    from lidmelt.grids.area import row_areas_km2
-    from lidmelt.grids.features import nearest_cells, read_feature_points
-    from lidmelt.products.sampling import as_run, run_grid
+    from lidmelt.grids._area import row_areas_km2
+    from lidmelt.grids._features import nearest_cells, read_feature_points
+    from lidmelt.products._sampling import as_run, run_grid
 
     root = Path(__file__).resolve().parents[1]
     out = tmp_path / "demo"
@@ -308,7 +308,7 @@ def test_the_demo_auc_equals_sklearn_within_0001(tmp_path):
 
 
 def test_the_report_shows_the_assessment(small_run, tmp_path, capsys):
-    from lidmelt.products.report import write_report
+    from lidmelt.products._report._write import write_report
 
     run, _ = small_run
     rows = [("a", *centre(5, 5)), ("b", *centre(6, 20)), ("far", 40.0, 0.0)]
@@ -334,8 +334,8 @@ def test_a_float32_cell_at_the_threshold_is_captured_like_its_area(make_run_dir,
     doc = assess(run, write_features(tmp_path / "f.csv", rows), thresholds=[1.3])
     (t,) = doc["thresholds"]
     assert t["captured"] == 1 + int(v[4, 1] >= np.float32(1.3))
-    from lidmelt.grids.area import row_areas_km2
-    from lidmelt.products.sampling import as_run, run_grid
+    from lidmelt.grids._area import row_areas_km2
+    from lidmelt.products._sampling import as_run, run_grid
 
     area = np.broadcast_to(row_areas_km2(run_grid(as_run(run)))[:, None], v.shape)
     in_b = area[np.isfinite(v) & (v >= np.float32(1.3))].sum() / area[np.isfinite(v)].sum()

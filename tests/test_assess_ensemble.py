@@ -2,7 +2,7 @@
 GLUE weights, weighted distributions and the weighted probability.
 
 Check values: each member's exact AUC, computed from its own deterministic run by the exact
-ranks of lidmelt.products.assess (themselves checked against scikit-learn in test_assess.py);
+ranks of lidmelt.products._assess (themselves checked against scikit-learn in test_assess.py);
 sampling error of a weighted mean of a key independent of the weights, sd / sqrt(effective
 members) (Kish 1965, from memory; 3 standard errors, common practice); the identity that
 features drawn from one member's own map are best ranked by that map.
@@ -16,16 +16,16 @@ import pytest
 import rasterio
 
 import runkit
-from lidmelt.engine import run_basin
+from lidmelt._engine import run_basin
 from lidmelt.ensemble import ensemble_stages
-from lidmelt.ensemble.posterior import (
+from lidmelt.ensemble._posterior import (
     effective_members,
     glue_weights,
     weighted_distributions,
     weighted_probability,
     weighted_quantiles,
 )
-from lidmelt.products.assess import assess
+from lidmelt.products._assess._assessment import assess
 from lidmelt.workflow import load_workflow
 
 WORKFLOW = """
@@ -190,7 +190,7 @@ def test_glue_weights_and_weighted_statistics():
     # equal weights: mid-point interpolation is Hyndman & Fan definition 5 ((k - 1/2)/n)
     values = np.array([4.0, 1.0, 3.0, 2.0])
     assert weighted_quantiles(values, np.ones(4), [50.0, 12.5, 87.5]) == [2.5, 1.0, 4.0]
-    from lidmelt.config import VarySpec
+    from lidmelt._config_tables import VarySpec
 
     spec = VarySpec(key="lithosphere.cooling", distribution="choice",
                     parameters=("half-space", "gdh1"))  # fmt: skip
@@ -201,7 +201,7 @@ def test_glue_weights_and_weighted_statistics():
 
 
 def test_weighted_probability_of_packed_masks():
-    from lidmelt.ensemble.posterior import pack_masks
+    from lidmelt.ensemble._posterior import pack_masks
 
     melting = np.array([[[1, 0]], [[0, 0]], [[1, 1]]], bool)  # 3 members, a 1 x 2 chunk
     valued = np.array([[[1, 1]], [[1, 0]], [[1, 1]]], bool)

@@ -22,17 +22,16 @@ import numpy as np
 import numpy.testing as npt
 import pytest
 
-from lidmelt.physics import (
+from lidmelt._variables import OUTPUTS
+from lidmelt.physics import get_model, melt_column
+from lidmelt.physics._flags import (
     FLAG_BEYOND_CALIBRATION,
     FLAG_INVALID_INPUT,
     FLAG_NO_ONSET,
     FLAG_UPPER_MANTLE_FLOOR,
     FLAG_WATER_SATURATED,
-    get_model,
-    melt_column,
 )
-from lidmelt.physics.table import TableLayout
-from lidmelt.variables import OUTPUTS
+from lidmelt.physics._table import TableLayout
 
 WATERS = (0.0, 0.01, 0.05)
 LIDS = (0.0, 100.0, 250.0)
@@ -152,8 +151,8 @@ def test_lid_deeper_than_calibration_flags_the_excess_to_melt():
     # boundaries is flagged; a 250 km lid puts the top of melting (7.9 GPa, PREM below 7.25 GPa)
     # beyond 7 GPa, where the excess to melt reads the continued solidus
     from lidmelt.physics import evaluate_cells
-    from lidmelt.physics.cells import CellOptions
-    from lidmelt.physics.kernel_records import Cells
+    from lidmelt.physics._cells import CellOptions
+    from lidmelt.physics._kernel_records import Cells
 
     for compiled in (True, False):
         out = evaluate_cells(

@@ -10,14 +10,14 @@ import pytest
 from lidmelt.cli import main
 from lidmelt.physics import (
     excess_to_melt_k,
-    geotherm_tops,
     get_cooling_model,
     get_table,
     isotherm_depth_km,
     melt_column,
 )
-from lidmelt.physics.cooling import seafloor_depth_m
-from lidmelt.physics.pressure import water_load_km
+from lidmelt.physics._cooling import seafloor_depth_m
+from lidmelt.physics._geotherm import geotherm_tops
+from lidmelt.physics._pressure import water_load_km
 
 KEYS = {
     "melt_thickness_km",

@@ -12,9 +12,9 @@ import errno
 import pytest
 
 import runkit
+from lidmelt._errors import ModelError
 from lidmelt.cli import main
 from lidmelt.cli._failures import describe_failure
-from lidmelt.errors import ModelError
 from lidmelt.physics import get_model
 
 
@@ -161,7 +161,7 @@ def test_a_mistyped_distribution_is_an_unknown_distribution(tmp_path, capsys):
 
 def _no_drawing(monkeypatch):
     """Fail the test if any member is drawn (the refusal must come first)."""
-    import lidmelt.workflow.ensemble as reader
+    import lidmelt.workflow._ensemble as reader
 
     def drawn(*args, **kwargs):
         raise AssertionError("members were drawn before the ensemble was refused")
@@ -185,7 +185,7 @@ def test_a_billion_members_are_refused_before_any_is_drawn(tmp_path, capsys, mon
     )  # fmt: skip
     figure = float(re.search(r"needs about ([0-9.e+]+) GB", line)[1])
     # at least the members' kept layers: 64^2 cells x 2 workers x 1e9 members x 3 float32
-    # outputs and their sorted copy (24 bytes; the estimate of lidmelt.ensemble.stage)
+    # outputs and their sorted copy (24 bytes; the estimate of lidmelt.ensemble._stage)
     assert figure >= 64**2 * 2 * 1e9 * 24 / 1e9
 
 
@@ -273,7 +273,7 @@ FLOOR_M = -3000.0 - 40.0 * __import__("numpy").mgrid[0:24, 0:36][1]
     ids=["depth-positive-down", "km-as-m", "cm-as-m"],
 )  # fmt: skip
 def test_bathymetry_of_the_wrong_sign_or_unit_is_refused(tmp_path, capsys, elevation, parts):
-    # check values: the invented floor above and the rule of lidmelt.grids.lidref (most cells
+    # check values: the invented floor above and the rule of lidmelt.grids._lidref (most cells
     # below sea level; the deepest seafloor about 11 km, from memory)
     wf = _bathymetry_basin(tmp_path, elevation)
     run_refused(
@@ -285,7 +285,7 @@ def test_bathymetry_of_the_wrong_sign_or_unit_is_refused(tmp_path, capsys, eleva
 
 def test_bathymetry_in_km_labelled_so_equals_metres(tmp_path):
     # identity: the same floor in m, and in km with its units saying so, give the same lid
-    from lidmelt.engine import run_basin
+    from lidmelt._engine import run_basin
     from lidmelt.workflow import load_workflow
 
     lids = []
@@ -329,7 +329,7 @@ def with_catalogue(wf):
 
 
 def test_a_catalogue_row_named_like_an_unnamed_plume_is_refused(tmp_path, capsys):
-    # the unnamed inline plume is 'plume 1' (lidmelt.products.screening.run_plumes' rule)
+    # the unnamed inline plume is 'plume 1' (lidmelt.products._screening.run_plumes' rule)
     wf = runkit.basin(tmp_path / "in")
     (tmp_path / "in" / "hs.csv").write_text(
         "name,lon,lat,radius_km,peak_excess_k\nX,-20,5,100,10\nplume 1,-22,5,100,10\n"
@@ -358,8 +358,8 @@ def test_plumes_reaching_too_many_cells_are_refused_with_the_estimate(tmp_path, 
 def test_more_plumes_than_allowed_are_refused_before_they_are_checked(
     tmp_path, capsys, monkeypatch
 ):
-    # the limit lowered to 40 for speed; the rule is the same at lidmelt.config.MAX_PLUMES
-    import lidmelt.workflow.inputs as reader
+    # the limit lowered to 40 for speed; the rule is the same at lidmelt._config.MAX_PLUMES
+    import lidmelt.workflow._inputs as reader
 
     monkeypatch.setattr(reader, "MAX_PLUMES", 40)
     checked = []
@@ -374,7 +374,7 @@ def test_more_plumes_than_allowed_are_refused_before_they_are_checked(
 
 
 def test_a_catalogue_of_a_million_rows_is_refused_before_it_is_read(tmp_path, capsys, monkeypatch):
-    import lidmelt.grids.catalogue as catalogue
+    import lidmelt.grids._catalogue as catalogue
 
     def read(*args, **kwargs):
         raise AssertionError("the catalogue's rows were read before it was refused")

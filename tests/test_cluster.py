@@ -20,9 +20,9 @@ import rasterio
 from rasterio.transform import from_origin
 
 import runkit
-from lidmelt.cluster import SCHEDULER_ENV, check_workers, input_paths, scheduler_address
-from lidmelt.engine import run_basin
-from lidmelt.errors import ClusterError
+from lidmelt._cluster import SCHEDULER_ENV, check_workers, input_paths, scheduler_address
+from lidmelt._engine import run_basin
+from lidmelt._errors import ClusterError
 from lidmelt.workflow import load_workflow
 
 

@@ -12,20 +12,22 @@ from hypothesis import strategies as st
 from scipy.optimize import brentq
 
 from lidmelt.physics import (
-    FLAG_BEYOND_CALIBRATION,
-    FLAG_INVALID_INPUT,
-    FLAG_NO_ONSET,
-    FLAG_UPPER_MANTLE_FLOOR,
-    FLAG_WATER_SATURATED,
     column_profile,
     excess_to_melt_k,
     get_cooling_model,
     isotherm_depth_km,
     melt_column,
 )
-from lidmelt.physics.column import onset_pressure_gpa
-from lidmelt.physics.melting import GPA, KATZ2003
-from lidmelt.physics.reference import solve_ivp_column
+from lidmelt.physics._column import onset_pressure_gpa
+from lidmelt.physics._flags import (
+    FLAG_BEYOND_CALIBRATION,
+    FLAG_INVALID_INPUT,
+    FLAG_NO_ONSET,
+    FLAG_UPPER_MANTLE_FLOOR,
+    FLAG_WATER_SATURATED,
+)
+from lidmelt.physics._melting import GPA, KATZ2003
+from lidmelt.physics._reference import solve_ivp_column
 
 K = KATZ2003
 
@@ -101,7 +103,7 @@ def test_direct_agrees_with_an_independent_solve_ivp_solution(tp, lid, water):
 def test_step_convergence():
     # the default step (0.01 GPa) and the table's fallback step (0.04 GPa) are converged:
     # against 0.0025 GPa they change H by < 1e-3 km
-    from lidmelt.physics.table import FALLBACK_STEP_GPA
+    from lidmelt.physics._table import FALLBACK_STEP_GPA
 
     tp = np.array([1300.0, 1350.0, 1550.0, 1600.0, 1400.0])
     water = np.array([0.0, 0.01, 0.0, 0.0, 0.1])

@@ -1,4 +1,4 @@
-"""Tests for lidmelt.physics.cooling: half-space and plate cooling models.
+"""Tests for lidmelt.physics._cooling: half-space and plate cooling models.
 
 Every check value names its source beside it, with a mark: [verified] (read in the source),
 [verified (secondary)] (read in a later text that quotes it), [from memory] (not checked against
@@ -19,21 +19,21 @@ import pytest
 from scipy import special
 from scipy.optimize import brentq
 
-from lidmelt.errors import LidmeltError, ModelError
-from lidmelt.physics import cooling
-from lidmelt.physics.cooling import (
+from lidmelt._errors import LidmeltError, ModelError
+from lidmelt.physics import _cooling as cooling
+from lidmelt.physics._cooling import (
     COOLING_MODELS,
     GDH1,
     HALF_SPACE,
     PS77,
     SECONDS_PER_MA,
-    CoolingModel,
     get_cooling_model,
     heat_flow_mw_m2,
     isotherm_depth_km,
     seafloor_depth_m,
     temperature_c,
 )
+from lidmelt.physics._cooling_model import CoolingModel
 
 PLATES = [GDH1, PS77]
 ALL_MODELS = [HALF_SPACE, GDH1, PS77]
@@ -560,7 +560,7 @@ def test_cooling_imports_only_numpy_scipy_and_stdlib():
     allowed = {"__future__", "dataclasses", "difflib", "functools", "math", "numbers", "types"}
     allowed |= {"typing", "numpy", "scipy", "lidmelt"}
     assert roots <= allowed, roots - allowed
-    assert "from lidmelt.errors import" in Path(cooling.__file__).read_text(encoding="utf-8")
+    assert "from lidmelt._errors import" in Path(cooling.__file__).read_text(encoding="utf-8")
 
 
 def test_every_parameter_names_its_source_and_overrides_are_marked():

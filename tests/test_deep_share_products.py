@@ -15,10 +15,12 @@ import numpy as np
 import pytest
 from affine import Affine
 
-from lidmelt.grids.rundir import open_run
-from lidmelt.products.candidate_files import write_candidates
-from lidmelt.products.report.sites import DEEP_SHARE_HEADING, sites_section
-from lidmelt.products.screening import screen
+from lidmelt.grids._rundir import open_run
+from lidmelt.products._candidate_files import write_candidates
+from lidmelt.products._maps._figure import make_map_figure
+from lidmelt.products._maps._overview import make_overview_figure
+from lidmelt.products._report._sites import DEEP_SHARE_HEADING, sites_section
+from lidmelt.products._screening import screen
 
 # 3 rows x 2 columns of 10 x 30 degree cells from 0 E, 90 N: the rows are the latitude bands
 # 60-90 N, 30-60 N and 0-30 N.
@@ -126,8 +128,7 @@ def _hatched_cells(ax, hatch):
 def test_melt_maps_hatch_exactly_the_cells_above_a_quarter(make_run_dir, variable):
     import shapely
 
-    from lidmelt.products import maps
-    from lidmelt.products.maps.flags import DEEP_HATCH
+    from lidmelt.products._maps._flags import DEEP_HATCH
 
     share = np.zeros((8, 10))
     for row, col in ABOVE:
@@ -138,7 +139,7 @@ def test_melt_maps_hatch_exactly_the_cells_above_a_quarter(make_run_dir, variabl
     fields["anomaly_melt_thickness_km"] = np.full((8, 10), 2.0)
     model = {"name": "katz2003", "parameters": {"calibrated_max_pressure_gpa": 7.0}}
     run = make_run_dir(fields, transform=BOX, summary={"model": model}, name="deepmap")
-    _, info = maps.make_map_figure(run, variable, dpi=60, coastlines=False)
+    _, info = make_map_figure(run, variable, dpi=60, coastlines=False)
     assert info.decimation == 1
     drawn = _hatched_cells(info.ax, DEEP_HATCH)
     # Check value: the unit boxes of the cells set above 0.25 by hand (row r spans latitude
@@ -150,7 +151,7 @@ def test_melt_maps_hatch_exactly_the_cells_above_a_quarter(make_run_dir, variabl
     assert "more than 25 % of the melt made beyond 7 GPa" in info.legend_labels
     assert "(5 cells): more than 25 % of the melt is made beyond 7 GPa" in info.caption
     # Other maps are not hatched for it.
-    _, other = maps.make_map_figure(run, "deep_melt_share", dpi=60, coastlines=False)
+    _, other = make_map_figure(run, "deep_melt_share", dpi=60, coastlines=False)
     assert _hatched_cells(other.ax, DEEP_HATCH) is None
     assert other.deep_hatched_cells == 0
 
@@ -158,8 +159,7 @@ def test_melt_maps_hatch_exactly_the_cells_above_a_quarter(make_run_dir, variabl
 def test_overview_melt_panel_hatches_the_same_cells(make_run_dir):
     import shapely
 
-    from lidmelt.products import maps
-    from lidmelt.products.maps.flags import DEEP_HATCH
+    from lidmelt.products._maps._flags import DEEP_HATCH
 
     share = np.zeros((8, 10))
     for row, col in ABOVE:
@@ -168,7 +168,7 @@ def test_overview_melt_panel_hatches_the_same_cells(make_run_dir):
     fields = {"melt_thickness_km": np.full((8, 10), 5.0), "deep_melt_share": share}
     model = {"name": "katz2003", "parameters": {"calibrated_max_pressure_gpa": 7.0}}
     run = make_run_dir(fields, transform=BOX, summary={"model": model}, name="deepview")
-    _, info = maps.make_overview_figure(run, coastlines=False, dpi=60)
+    _, info = make_overview_figure(run, coastlines=False, dpi=60)
     assert info.variables == ("melt_thickness_km",)  # the one panel, (a)
     # Check value: the unit boxes of the cells set above 0.25 by hand (as above).
     boxes = shapely.union_all([shapely.box(10 + c, 9 - r, 11 + c, 10 - r) for r, c in ABOVE])

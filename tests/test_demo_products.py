@@ -3,7 +3,7 @@
 One ``lidmelt run workflows/demo.toml`` (the invented demo basin, with maps and report) into a
 temporary folder; check values are the report's own structure (its sections and images, read
 back from the page), the definition of the ambient volume (total minus anomaly-added, docs of
-lidmelt.statistics) and the stamp that ``lidmelt map --overview`` writes into a PNG.
+lidmelt._statistics) and the stamp that ``lidmelt map --overview`` writes into a PNG.
 """
 
 from __future__ import annotations
@@ -85,9 +85,9 @@ def test_readme_overview_image_shows_the_current_demo_run(demo):
     drawn again with the command the README names."""
     from PIL import Image
 
-    from lidmelt.grids.rundir import open_run
-    from lidmelt.products.maps.overview import run_stamp
-    from lidmelt.products.maps.write import STAMP_KEY
+    from lidmelt.grids._rundir import open_run
+    from lidmelt.products._maps._overview import run_stamp
+    from lidmelt.products._maps._write import STAMP_KEY
 
     with Image.open(README_IMAGE) as image:
         stamp = image.text.get(STAMP_KEY)

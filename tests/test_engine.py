@@ -15,16 +15,16 @@ import pytest
 import rasterio
 from rasterio.transform import from_origin
 
+from lidmelt._engine import run_basin
+from lidmelt._errors import InputError, LidmeltError
+from lidmelt._variables import DEFAULT_OUTPUTS, FLAG_VARIABLE, INPUTS, OUTPUTS
 from lidmelt.cli import main
-from lidmelt.engine import run_basin
-from lidmelt.errors import InputError, LidmeltError
-from lidmelt.grids.manifest import MANIFEST_KEY, SUMMARY_HASH_KEY, summary_sha256
-from lidmelt.grids.rundir import RUN_FORMAT_VERSION, SUMMARY_NAME, open_run, write_summary
+from lidmelt.grids._manifest import MANIFEST_KEY, SUMMARY_HASH_KEY, summary_sha256
+from lidmelt.grids._rundir import RUN_FORMAT_VERSION, SUMMARY_NAME, open_run, write_summary
 from lidmelt.physics import get_cooling_model, get_model, melt_column
-from lidmelt.physics.cooling import seafloor_depth_m
-from lidmelt.physics.geotherm import direct_excess_k, direct_top_km
-from lidmelt.physics.pressure import water_load_km
-from lidmelt.variables import DEFAULT_OUTPUTS, FLAG_VARIABLE, INPUTS, OUTPUTS
+from lidmelt.physics._cooling import seafloor_depth_m
+from lidmelt.physics._geotherm import direct_excess_k, direct_top_km
+from lidmelt.physics._pressure import water_load_km
 from lidmelt.workflow import load_workflow
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -148,7 +148,7 @@ def test_demo_cells_equal_melt_column(demo_run):
     ys = np.concatenate([iy[pick], melt_y[pick_m]])
     xs = np.concatenate([ix[pick], melt_x[pick_m]])
     # the demo's rule is the default geotherm rule: each column's top by direct integration and
-    # the exact half-space geotherm (lidmelt.physics.geotherm.direct_top_km, tested against the
+    # the exact half-space geotherm (lidmelt.physics._geotherm.direct_top_km, tested against the
     # definition in tests/test_geotherm.py), then the column by direct integration; the water
     # load is the half-space seafloor depth at the age (docs/physics.md, "Depth and pressure";
     # the demo has a plate age and no bathymetry), the geotherm's depths below that seafloor
@@ -180,8 +180,8 @@ def test_demo_summary(demo_run):
         st["variables"]["melt_thickness_km"]["max"], np.nanmax(thickness), rtol=1e-6
     )
     # volume = sum of thickness x ellipsoidal cell area (authalic latitude, Snyder 1987 eq. 3-12)
-    from lidmelt.grids.area import cell_area_km2
-    from lidmelt.grids.grid import Grid
+    from lidmelt.grids._area import cell_area_km2
+    from lidmelt.grids._grid import Grid
 
     area = cell_area_km2(Grid.from_dict(s["grid"])).values
     npt.assert_allclose(st["melt_volume_km3"], np.nansum(thickness * area), rtol=1e-5)
@@ -247,8 +247,8 @@ variables = ["melt_thickness_km", "max_melt_fraction", "crustal_thickness_km",
     npt.assert_allclose(production, 40.0 * f_top, atol=40.0 * 2e-3)  # table tolerance on F
     crust = run.open("crustal_thickness_km").values
     npt.assert_allclose(crust, h * 3300.0 / 2800.0, rtol=0.006)  # table tolerance on H
-    from lidmelt.grids.area import cell_area_km2
-    from lidmelt.grids.grid import Grid
+    from lidmelt.grids._area import cell_area_km2
+    from lidmelt.grids._grid import Grid
 
     area = cell_area_km2(Grid.from_dict(run.summary["grid"])).values.sum()
     st = run.summary["statistics"]
@@ -395,7 +395,7 @@ def test_cli_run_and_bad_inputs(tmp_path, capsys):
 
 
 def test_lid_limit_is_the_registry_one(tmp_path):
-    # one limit for the lid thickness: lidmelt.variables (400 km); 450 km is refused, 390 km runs
+    # one limit for the lid thickness: lidmelt._variables (400 km); 450 km is refused, 390 km runs
     assert INPUTS["lid_thickness_km"].valid_range == (0.0, 400.0)
     deep = with_lid_grid(tmp_path / "deep", np.full((40, 60), 450.0))
     with pytest.raises(InputError, match="outside 0 to 400"):
@@ -471,8 +471,8 @@ def test_demo_screening_finds_the_plumes_not_the_ridge_flank(demo_run):
     # so only the first two are candidates; the young ridge flank melts at ambient Tp only.
     # Check values: the names written in workflows/demo.toml; the anomaly basis is issue 11's
     # definition (docs/physics.md, "anomaly melt thickness").
-    from lidmelt.products.sampling import sample_points
-    from lidmelt.products.screening import run_plumes, screen
+    from lidmelt.products._sampling import sample_points
+    from lidmelt.products._screening import run_plumes, screen
 
     run = open_run(demo_run.run_dir)
     plumes = run_plumes(run)
@@ -502,7 +502,7 @@ def test_netcdf_flag_variable_follows_cf(demo_run):
     # blank-separated flag_meanings; lidmelt's bits are those of lidmelt.physics.FLAG_KEYS.
     import xarray as xr
 
-    from lidmelt.physics import FLAG_KEYS
+    from lidmelt.physics._flags import FLAG_KEYS
 
     with xr.open_dataset(demo_run.run_dir / "lidmelt.nc", mask_and_scale=False) as ds:
         flag = ds["validity_flag"]
@@ -517,8 +517,8 @@ def test_netcdf_flag_variable_follows_cf(demo_run):
 def test_lid_given_below_sea_level_loses_the_water_depth(tmp_path):
     # A lid base 150 km below sea level lies 150 km minus the water depth below the seafloor;
     # with no bathymetry grid the water depth is the cooling model's seafloor depth at the
-    # plate age (lidmelt.physics.cooling.seafloor_depth_m, half-space): an identity check.
-    from lidmelt.physics.cooling import get_cooling_model, seafloor_depth_m
+    # plate age (lidmelt.physics._cooling.seafloor_depth_m, half-space): an identity check.
+    from lidmelt.physics._cooling import get_cooling_model, seafloor_depth_m
 
     wf = with_lid_grid(tmp_path / "b", np.full((40, 60), 150.0))
     text = wf.read_text().replace('path = "lid.tif"', 'path = "lid.tif"\nreference = "sea_level"')

@@ -15,18 +15,19 @@ import rasterio
 from scipy.optimize import brentq
 from scipy.stats import chi2
 
-from lidmelt.config import VarySpec
-from lidmelt.engine import run_basin
+from lidmelt._config_tables import VarySpec
+from lidmelt._engine import run_basin
+from lidmelt._errors import InputError, WorkflowError
+from lidmelt._variables import ensemble_variable, get_variable, parse_ensemble_name
 from lidmelt.ensemble import ensemble_stages
-from lidmelt.ensemble.kernel import member_percentiles
-from lidmelt.ensemble.missing import key_contrast, missing_summary, missing_warning
-from lidmelt.ensemble.sampling import draw_members, inverse_cdf, unit_samples
-from lidmelt.errors import InputError, WorkflowError
-from lidmelt.physics import EXTRACTION_MIN_MELT_FRACTION, evaluate_cells, get_model, get_table
-from lidmelt.physics.cells import CellOptions
-from lidmelt.physics.kernel_records import Cells
-from lidmelt.products.screening import ensemble_candidates
-from lidmelt.variables import ensemble_variable, get_variable, parse_ensemble_name
+from lidmelt.ensemble._kernel import member_percentiles
+from lidmelt.ensemble._missing import key_contrast, missing_summary, missing_warning
+from lidmelt.ensemble._sampling import draw_members, inverse_cdf, unit_samples
+from lidmelt.physics import evaluate_cells, get_model, get_table
+from lidmelt.physics._cells import CellOptions
+from lidmelt.physics._evaluate import EXTRACTION_MIN_MELT_FRACTION
+from lidmelt.physics._kernel_records import Cells
+from lidmelt.products._screening import ensemble_candidates
 from lidmelt.workflow import load_workflow
 
 BASE = """
@@ -246,7 +247,7 @@ def test_probability_equals_fraction_of_anomaly_interval_that_adds_the_threshold
 def test_a_column_below_the_extraction_minimum_does_not_count(tmp_path):
     """Two Tp beneath a 60 km lid: one whose melt fraction at the top is half the extraction
     minimum, one with twice it (roots found on the kernel). Both melt more than the threshold
-    (1 m); only the second counts (the definition, lidmelt.ensemble.kernel)."""
+    (1 m); only the second counts (the definition, lidmelt.ensemble._kernel)."""
     lid = 60.0
 
     def top(tp, target):
@@ -493,7 +494,7 @@ def test_memory_limit_refuses_what_will_not_fit(tmp_path):
         r"needs about ([0-9.e+]+) GB, over ensemble\.memory_limit_gb = 2 GB", str(refused.value)
     )
     # at least the members' kept layers: 2048^2 cells x 2 workers x 500 members x 3 float32
-    # outputs and their sorted copy (24 bytes; the estimate documented in lidmelt.ensemble.stage)
+    # outputs and their sorted copy (24 bytes; the estimate documented in lidmelt.ensemble._stage)
     assert float(figure[1]) >= 2048**2 * 2 * 500 * 24 / 1e9
     # the stage checks again with the members' input groups (here one: the lower bound above)
     cfg = load_workflow(wf, overrides=["ensemble.memory_limit_gb=1e6"])

@@ -6,11 +6,11 @@ Check values and their sources:
   exactly 1 (Spearman 1904: the ranks are equal); a candidate's melt volume grows with its own
   plume's peak excess (a hotter plume melts more under the same lid: PHYSICS.md, melting grows
   with potential temperature).
-- A cosine plume adds nothing beyond its radius (lidmelt.grids.anomaly, ``"cosine"``): a
+- A cosine plume adds nothing beyond its radius (lidmelt.grids._anomaly, ``"cosine"``): a
   candidate of the other plume, 400 km away, has the same volume in every member, so its
-  rank correlation and variance fraction are None (lidmelt.ensemble.drivers: None when the
+  rank correlation and variance fraction are None (lidmelt.ensemble._drivers: None when the
   volume is constant), and that volume is the deterministic one up to the rounding of each
-  cell's term to 2^-20 km3 (lidmelt.ensemble.kernel: at most 2^-21 per cell).
+  cell's term to 2^-20 km3 (lidmelt.ensemble._kernel: at most 2^-21 per cell).
 - The candidates, their order and plumes are those of ``lidmelt screen --min-melt-thickness
   T`` on the same run (the documented rule: docs/workflow.md, [ensemble]).
 - Same workflow and seed, same outputs whatever the chunking and workers (issue 12).
@@ -25,11 +25,11 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from lidmelt.engine import run_basin
+from lidmelt._engine import run_basin
+from lidmelt._errors import WorkflowError
 from lidmelt.ensemble import ensemble_stages
-from lidmelt.errors import WorkflowError
-from lidmelt.products.report import write_report
-from lidmelt.products.screening import ensemble_candidates, screen
+from lidmelt.products._report._write import write_report
+from lidmelt.products._screening import ensemble_candidates, screen
 from lidmelt.workflow import load_workflow
 
 TWO_PLUMES = """

@@ -1,10 +1,10 @@
 """What drives an ensemble's totals: rank correlations and first-order variance shares with
-their bootstrap intervals (lidmelt.ensemble.drivers), against known answers.
+their bootstrap intervals (lidmelt.ensemble._drivers), against known answers.
 
 The held-out check: a uniform basin (a constant lid, every cell alike, so a member's melt
 volume is the basin's area times its melt thickness H and the shares are those of H), three keys
 varied over 200 members: the ambient Tp, the source water and the crust density, which enters
-only the crustal thickness and not H (lidmelt.physics.evaluate), so its share is exactly 0. The
+only the crustal thickness and not H (lidmelt.physics._evaluate), so its share is exactly 0. The
 true first-order shares S_i = Var(E[H | X_i]) / Var(H) (Sobol' 1993) come from quadrature of
 the kernel itself, not from the estimator: the midpoint rule on a 400 x 400 grid of (Tp, water)
 over their uniform ranges (E[H | Tp] the mean over the water nodes, and so on), checked to agree
@@ -16,14 +16,14 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from lidmelt.config import VarySpec
-from lidmelt.engine import run_basin
+from lidmelt._config_tables import VarySpec
+from lidmelt._engine import run_basin
 from lidmelt.ensemble import ensemble_stages
-from lidmelt.ensemble.drivers import MONOTONE_ONLY, NOISE, design_matrix, drivers, spearman
-from lidmelt.ensemble.sampling import draw_members
+from lidmelt.ensemble._drivers import MONOTONE_ONLY, NOISE, design_matrix, drivers, spearman
+from lidmelt.ensemble._sampling import draw_members
 from lidmelt.physics import evaluate_cells, get_model, get_table
-from lidmelt.physics.cells import CellOptions
-from lidmelt.physics.kernel_records import Cells
+from lidmelt.physics._cells import CellOptions
+from lidmelt.physics._kernel_records import Cells
 from lidmelt.workflow import load_workflow
 
 LID_KM = 60.0

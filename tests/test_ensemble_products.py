@@ -29,17 +29,18 @@ import rasterio
 from affine import Affine
 
 from conftest import reseal
+from lidmelt._errors import InputError, RunDirError
+from lidmelt._variables import ordinal
 from lidmelt.cli import main
-from lidmelt.ensemble.drivers import NOISE
-from lidmelt.errors import InputError, RunDirError
-from lidmelt.products import ensemble as ens
-from lidmelt.products.maps import make_map_figure, style_for
-from lidmelt.products.maps.members import member_histogram
-from lidmelt.products.maps.probability import draw_level_contours, fixed_limits
-from lidmelt.products.report import write_report
-from lidmelt.products.report.ensemble import ordered_drivers
-from lidmelt.products.screening import screen
-from lidmelt.variables import ordinal
+from lidmelt.ensemble._drivers import NOISE
+from lidmelt.products import _ensemble as ens
+from lidmelt.products._maps._figure import make_map_figure
+from lidmelt.products._maps._members import member_histogram
+from lidmelt.products._maps._probability import draw_level_contours, fixed_limits
+from lidmelt.products._maps._style import style_for
+from lidmelt.products._report._ensemble import ordered_drivers
+from lidmelt.products._report._write import write_report
+from lidmelt.products._screening import screen
 
 CELL_KM2 = 400.0  # 20 km x 20 km cells of an equal-area grid
 T = Affine(20_000.0, 0, 0.0, 0, -20_000.0, 400_000.0)  # 40 rows x 60 columns
@@ -124,7 +125,7 @@ def members_table(n=200, seed=3):
 
 def percentile_hf7(values, q):
     """The q-th percentile by Hyndman & Fan (1996, Am. Stat. 50, 361-365) definition 7, the one
-    the runs use (lidmelt.ensemble.kernel, module notes), written out here from the definition:
+    the runs use (lidmelt.ensemble._kernel, module notes), written out here from the definition:
     sorted x_0 <= ... <= x_(N-1), h = (N - 1) q / 100, x_floor(h) + (h - floor(h)) (x_next -
     x_floor(h)). Worked by hand: the values 1..5 give p10 = 1.4, p50 = 3, p90 = 4.6."""
     x = sorted(float(v) for v in values)
@@ -245,7 +246,7 @@ def test_ensemble_names():
 
 
 def test_run_probability_is_the_first_threshold(ensemble_run):
-    from lidmelt.grids.rundir import open_run
+    from lidmelt.grids._rundir import open_run
 
     run = open_run(ensemble_run[0])
     assert ens.run_probability(run) == P1
@@ -496,7 +497,7 @@ def test_overview_of_an_ensemble_shows_its_probability_and_spread(ensemble_run, 
     """Beside the deterministic panels: the run's probability of melting and the spread of the
     melt the anomaly adds, p90 - p10 (constructed: 1.5 x 2 km - 0.5 x 2 km = 2 km in A's core,
     0 elsewhere: the colour scale runs from 0 to its 99.5th percentile of the non-zero cells)."""
-    from lidmelt.products.maps import make_overview_figure
+    from lidmelt.products._maps._overview import make_overview_figure
 
     run, _, _ = ensemble_run
     fig, info = make_overview_figure(run, coastlines=False, dpi=60)
@@ -632,10 +633,10 @@ def test_an_ensemble_run_lists_its_layers_as_outputs(tmp_path):
     """The ensemble's layers are outputs of the run like any other (summary "outputs"), so
     every product finds them; the default maps take the probability maps, not the percentiles.
     Check values: the layer names of the ensemble contract (docs/workflow.md [ensemble])."""
-    from lidmelt.engine import run_basin
+    from lidmelt._engine import run_basin
     from lidmelt.ensemble import ensemble_stages
-    from lidmelt.grids.rundir import open_run
-    from lidmelt.products.maps.write import default_map_variables
+    from lidmelt.grids._rundir import open_run
+    from lidmelt.products._maps._write import default_map_variables
     from lidmelt.workflow import load_workflow
 
     root = Path(__file__).resolve().parents[1]
@@ -655,7 +656,7 @@ def test_an_ensemble_run_lists_its_layers_as_outputs(tmp_path):
 
 def test_captions_write_ordinals_in_english():
     """'2nd and 98th', not '2th' (the excess to melt has limits at those percentiles)."""
-    from lidmelt.products.maps.captions import CaptionOptions, map_caption
+    from lidmelt.products._maps._captions import CaptionOptions, map_caption
 
     style = style_for("excess_to_melt_k")
     assert style.percentiles == (2.0, 98.0)
@@ -689,7 +690,7 @@ def test_an_ensemble_layer_is_captioned_as_an_ensemble():
     """An ensemble map says how many members were drawn, how, and what was varied; the run's
     own lid, water and ambient Tp are named as the workflow's, not every member's (values of
     this invented summary)."""
-    from lidmelt.products.maps.captions import ensemble_basis
+    from lidmelt.products._maps._captions import ensemble_basis
 
     summary = {
         "ensemble": {"members": 8, "sampling": "latin_hypercube", "seed": 12, "vary": VARY},

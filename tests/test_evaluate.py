@@ -9,20 +9,18 @@ import numpy as np
 import numpy.testing as npt
 import pytest
 
-from lidmelt.physics import (
-    EXTRACTION_MIN_MELT_FRACTION,
+from lidmelt._variables import OUTPUTS
+from lidmelt.physics import evaluate_cells, excess_to_melt_k, melt_column
+from lidmelt.physics._cells import CellOptions
+from lidmelt.physics._evaluate import EXTRACTION_MIN_MELT_FRACTION
+from lidmelt.physics._kernel_records import Cells
+from lidmelt.physics._regime import (
+    LEAST_ANOMALY_MELT_KM,
     REGIME_AMBIENT_AND_ANOMALY,
     REGIME_AMBIENT_ONLY,
     REGIME_ANOMALY_ONLY,
     REGIME_NO_MELTING,
-    evaluate_cells,
-    excess_to_melt_k,
-    melt_column,
 )
-from lidmelt.physics.cells import CellOptions
-from lidmelt.physics.kernel_records import Cells
-from lidmelt.physics.regime import LEAST_ANOMALY_MELT_KM
-from lidmelt.variables import OUTPUTS
 
 
 def cells(tp, lid, water=0.0, upwelling_mm_yr=None, **kw):
@@ -40,7 +38,7 @@ def test_every_registered_output_is_computed():
 
 def test_anomaly_melt_and_regime():
     # lidmelt definition: anomaly melt = H(Tp) - H(ambient), same lid and water, never negative;
-    # regime (registry classes, lidmelt.physics.regime): 0 no melting, 1 ambient mantle only
+    # regime (registry classes, lidmelt.physics._regime): 0 no melting, 1 ambient mantle only
     # (the anomaly adds less than the least anomaly melt), 2 ambient melts and the anomaly adds,
     # 3 the anomaly only (ambient mantle does not melt beneath this lid)
     tp = np.array([1350.0, 1450.0, 1450.0, 1600.0, 1300.0, 1350.0, 1350.1])
@@ -59,7 +57,7 @@ def test_anomaly_melt_and_regime():
 
 
 def test_regime_classes_are_the_registry_classes():
-    # one place for the classes: the registry (lidmelt.variables), read by the physics
+    # one place for the classes: the registry (lidmelt._variables), read by the physics
     classes = {c.key: c.value for c in OUTPUTS["melting_regime"].classes}
     assert classes == {
         "no_melting": REGIME_NO_MELTING,
@@ -72,7 +70,7 @@ def test_regime_classes_are_the_registry_classes():
 
 def test_a_column_below_the_extraction_threshold_does_not_count_as_melting():
     # lidmelt definition: a column whose melt fraction at the top of melting is below
-    # EXTRACTION_MIN_MELT_FRACTION (0.5 %, sources in lidmelt.physics.evaluate) is "not melting"
+    # EXTRACTION_MIN_MELT_FRACTION (0.5 %, sources in lidmelt.physics._evaluate) is "not melting"
     # for the regime; its raw melt thickness and fraction stay in the outputs. Lids just above
     # the onset of Tp 1350 C (dry, 82.2 km; docs/physics.md) leave a little melt at the top.
     lid = np.array([81.0, 79.0, 78.0, 70.0])

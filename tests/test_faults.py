@@ -22,7 +22,7 @@ from pathlib import Path
 import pytest
 
 import runkit
-from lidmelt.grids.rundir import open_run
+from lidmelt.grids._rundir import open_run
 
 #: What a run folder's parent may hold after a finished command: the run only.
 ONLY_RUN = ["run"]

@@ -1,7 +1,7 @@
 """Issue 14: every figure kind draws with the right labels and limits (maps, overview, profile).
 
 Runs are small invented grids (the ``make_run_dir`` fixture). Check values are named beside
-them: numpy's min/max/percentile, arithmetic, the rules documented in lidmelt.products.maps.
+them: numpy's min/max/percentile, arithmetic, the rules documented in lidmelt.products._maps.
 """
 
 from __future__ import annotations
@@ -12,9 +12,14 @@ import numpy as np
 import pytest
 from affine import Affine
 
-from lidmelt.products import maps
-from lidmelt.products.profile_figure import make_profile_figure
-from lidmelt.products.profiles import sample_track
+from lidmelt.products import _maps as maps
+from lidmelt.products._maps._figure import make_map_figure
+from lidmelt.products._maps._layout import choose_projection
+from lidmelt.products._maps._overlays import load_stations
+from lidmelt.products._maps._overview import draw_overview, make_overview_figure
+from lidmelt.products._maps._style import NODATA_COLOR, OUTSIDE_COLOR, ZERO_COLOR
+from lidmelt.products._profile_figure import make_profile_figure
+from lidmelt.products._profiles import sample_track
 
 # Invented low-latitude box, 1 degree cells: lon 10..40, lat -10..10.
 BOX = Affine(1.0, 0.0, 10.0, 0.0, -1.0, 10.0)
@@ -60,7 +65,7 @@ def run(make_run_dir):
 
 
 def test_excess_to_melt_is_diverging_about_zero_with_its_zero_contour(run):
-    _fig, info = maps.make_map_figure(run, "excess_to_melt_k", coastlines=False, dpi=50)
+    _fig, info = make_map_figure(run, "excess_to_melt_k", coastlines=False, dpi=50)
     values = fields()["excess_to_melt_k"]
     # Check value: symmetric limits at the larger magnitude of numpy's 2nd/98th percentiles.
     lo, hi = np.percentile(values, [2, 98])
@@ -72,18 +77,18 @@ def test_excess_to_melt_is_diverging_about_zero_with_its_zero_contour(run):
 
 
 def test_onset_depth_spans_its_whole_range_and_is_not_drawn_where_nothing_melts(run):
-    _fig, info = maps.make_map_figure(run, "onset_depth_km", coastlines=False, dpi=50)
+    _fig, info = make_map_figure(run, "onset_depth_km", coastlines=False, dpi=50)
     f = fields()
     melting = f["onset_depth_km"][f["melt_thickness_km"] > 0]
     # Check values: numpy min and max of the melting cells (80 km and the 250 km core); the
     # 70 km of the cells that do not melt is not part of the scale.
     assert (info.vmin, info.vmax) == pytest.approx((melting.min(), melting.max()))
-    assert info.zero_color == maps.ZERO_COLOR
+    assert info.zero_color == ZERO_COLOR
     assert "not defined there and is not drawn" in info.caption
 
 
 def test_colorbar_label_does_not_double_its_parenthesis(run):
-    _fig, info = maps.make_map_figure(run, "melt_thickness_km", coastlines=False, dpi=50)
+    _fig, info = make_map_figure(run, "melt_thickness_km", coastlines=False, dpi=50)
     assert info.title == "Melt thickness (column-integrated melt fraction)"
     assert info.colorbar_label == "Melt thickness (km)"
     assert info.colorbar_label.count("(") == 1
@@ -99,7 +104,7 @@ def test_plumes_ranks_and_labels_stay_inside_the_frame(run, tmp_path):
     ).to_file(cands)
     stations = tmp_path / "st.csv"
     stations.write_text("name,lon,lat\nA station with a long name,39.8,9.8\n", encoding="utf-8")
-    fig, info = maps.make_map_figure(
+    fig, info = make_map_figure(
         run, "melt_thickness_km", candidates=cands, stations=stations, coastlines=False, dpi=60
     )
     assert info.plumes == ("Invented A", "Invented B")
@@ -117,7 +122,7 @@ def test_plumes_ranks_and_labels_stay_inside_the_frame(run, tmp_path):
 
 
 def test_latitude_labels_on_both_sides(run):
-    fig, info = maps.make_map_figure(run, "melting_top_km", coastlines=False, dpi=50)
+    fig, info = make_map_figure(run, "melting_top_km", coastlines=False, dpi=50)
     fig.canvas.draw()
     gl = info.gridliner
     left = [a.get_text() for a in gl.left_label_artists if a.get_visible()]
@@ -131,14 +136,14 @@ def test_latitude_labels_on_both_sides(run):
 
 
 def test_outside_of_the_grid_differs_from_nodata_and_is_said(run):
-    _fig, info = maps.make_map_figure(
+    _fig, info = make_map_figure(
         run, "melt_thickness_km", region=(0.0, 50.0, -20.0, 20.0), coastlines=False, dpi=40
     )
     assert info.outside_grid
     assert "outside the grid" in info.legend_labels
     assert "outside the grid" in info.caption
-    assert maps.OUTSIDE_COLOR != maps.NODATA_COLOR
-    _fig, inside = maps.make_map_figure(run, "melt_thickness_km", coastlines=False, dpi=40)
+    assert OUTSIDE_COLOR != NODATA_COLOR
+    _fig, inside = make_map_figure(run, "melt_thickness_km", coastlines=False, dpi=40)
     assert not inside.outside_grid
 
 
@@ -152,7 +157,7 @@ def test_caption_states_lid_water_and_ambient_as_used(make_run_dir):
         "lid_thickness_km": {"units": "km", "file": "input_lid_thickness_km.tif"},
     }
     run = make_run_dir(f, transform=BOX, name="lidgrid", summary={**SUMMARY, "inputs": inputs})
-    _fig, info = maps.make_map_figure(run, "melt_thickness_km", coastlines=False, dpi=40)
+    _fig, info = make_map_figure(run, "melt_thickness_km", coastlines=False, dpi=40)
     # Check value: 15 of 30 columns -> 50 % of the cells from the grid, the rest from cooling.
     assert "lid-thickness grid where it has data (50 % of the cells)" in info.caption
     assert "half-space cooling" in info.caption
@@ -162,14 +167,14 @@ def test_caption_states_lid_water_and_ambient_as_used(make_run_dir):
 
 def test_regional_basin_across_the_equator_is_not_in_a_world_projection():
     # An invented 60 x 40 degree basin from 32 S to 8 N (centre 12 S, beyond 30 deg, so neither
-    # Mercator nor conic): rule 5 of lidmelt.products.maps.layout, no longer Robinson.
-    proj, reason = maps.choose_projection((-60.0, 0.0, -32.0, 8.0))
+    # Mercator nor conic): rule 5 of lidmelt.products._maps._layout, no longer Robinson.
+    proj, reason = choose_projection((-60.0, 0.0, -32.0, 8.0))
     assert isinstance(proj, ccrs.LambertAzimuthalEqualArea)
     assert "regional" in reason
 
 
 def test_overview_has_its_panels_labels_and_vector_copies(run, tmp_path):
-    fig, info = maps.make_overview_figure(run, coastlines=False, dpi=60)
+    fig, info = make_overview_figure(run, coastlines=False, dpi=60)
     assert info.variables == (
         "plate_age_ma",
         "thermal_anomaly_k",
@@ -186,7 +191,7 @@ def test_overview_has_its_panels_labels_and_vector_copies(run, tmp_path):
     assert "(a) Plate age" in texts
     assert "(f) Top of the melting column" in texts
     assert "source water 0.01 wt %" in info.caption
-    paths = maps.draw_overview(run, out_dir=tmp_path, coastlines=False)
+    paths = draw_overview(run, out_dir=tmp_path, coastlines=False)
     assert [p.name for p in paths] == ["overview.png", "overview.pdf", "overview.svg"]
     png = mpimg.imread(paths[0])
     # Check value: 7.2 in at the 300 dpi default = 2160 pixels wide.
@@ -199,13 +204,13 @@ def test_profile_is_a_cross_section_with_named_waypoints(run, tmp_path):
     track = tmp_path / "leg_7.csv"
     track.write_text("name,lon,lat\nStart,12,0\nTurn,25,5\nEnd,38,-5\n", encoding="utf-8")
     gdf = sample_track(run, track, spacing_km=25.0)
-    stations = maps.load_stations(_station_file(tmp_path))
+    stations = load_stations(_station_file(tmp_path))
     fig = make_profile_figure(
         gdf,
         title="Profile along leg 7",
         waypoint_names=["Start", "Turn", "End"],
         stations=stations,
-        run=maps.figure.as_run(run),
+        run=maps._figure.as_run(run),
     )
     top, mid, section = fig.axes[0], fig.axes[1], fig.axes[2]
     assert section.yaxis_inverted()  # depth downward
@@ -241,7 +246,7 @@ def test_profile_is_a_cross_section_with_named_waypoints(run, tmp_path):
 def test_colour_bars_label_both_ends_of_their_scale(run):
     """Check values: the colour limits the map reports (vmin, vmax) are tick positions."""
     for name in ("melt_thickness_km", "onset_depth_km", "excess_to_melt_k", "melting_top_km"):
-        _, info = maps.make_map_figure(run, name, coastlines=False, dpi=60)
+        _, info = make_map_figure(run, name, coastlines=False, dpi=60)
         ticks = list(info.colorbar.get_ticks())
         assert ticks[0] == pytest.approx(info.vmin), name
         assert ticks[-1] == pytest.approx(info.vmax), name
@@ -253,7 +258,7 @@ def test_colour_bars_label_both_ends_of_their_scale(run):
 def test_thermal_anomaly_scale_resolves_every_plume(run):
     """The anomaly input spans its whole range (numpy's min and max of the invented field), so
     a 200 K plume core is not drawn in the colour of a 135 K flank."""
-    _, info = maps.make_map_figure(run, "thermal_anomaly_k", coastlines=False, dpi=60)
+    _, info = make_map_figure(run, "thermal_anomaly_k", coastlines=False, dpi=60)
     field = fields()["thermal_anomaly_k"]
     assert (info.vmin, info.vmax) == pytest.approx((field.min(), field.max()), rel=1e-6)
     assert info.extend == "neither"
@@ -262,7 +267,7 @@ def test_thermal_anomaly_scale_resolves_every_plume(run):
 def test_onset_flags_are_not_hatched_on_the_lid_or_the_excess(run, add_validity_flag):
     """Flag 4 (onset beyond calibration) concerns the onset and the melt, not the lid (the
     lid does not depend on the onset) nor the excess to melt (found at the lid)."""
-    from lidmelt.physics import FLAG_BEYOND_CALIBRATION
+    from lidmelt.physics._flags import FLAG_BEYOND_CALIBRATION
 
     flags = np.zeros((20, 30), dtype=np.uint8)
     flags[5:8, 20:25] = FLAG_BEYOND_CALIBRATION
@@ -273,7 +278,7 @@ def test_onset_flags_are_not_hatched_on_the_lid_or_the_excess(run, add_validity_
         ("melting_top_km", False),
         ("excess_to_melt_k", False),
     ):
-        _, info = maps.make_map_figure(run, name, coastlines=False, dpi=60)
+        _, info = make_map_figure(run, name, coastlines=False, dpi=60)
         assert (FLAG_BEYOND_CALIBRATION in info.flag_bits) is hatched, name
 
 
@@ -283,7 +288,7 @@ def test_labels_of_plumes_stations_and_candidates_do_not_overlap(run, tmp_path):
     import geopandas as gpd
     from shapely.geometry import box
 
-    from lidmelt.products.maps.labels import label_overlaps
+    from lidmelt.products._maps._labels import label_overlaps
 
     cands = tmp_path / "cands.gpkg"
     gpd.GeoDataFrame({"rank": [1]}, geometry=[box(15.0, -2.0, 20.0, 0.5)], crs="EPSG:4326").to_file(
@@ -295,7 +300,7 @@ def test_labels_of_plumes_stations_and_candidates_do_not_overlap(run, tmp_path):
         "Invented B summit,39.4,9.4\n",
         encoding="utf-8",
     )
-    fig, info = maps.make_map_figure(
+    fig, info = make_map_figure(
         run, "melt_thickness_km", candidates=cands, stations=stations, coastlines=False, dpi=60
     )
     fig.canvas.draw()
@@ -313,10 +318,10 @@ def test_labels_of_plumes_stations_and_candidates_do_not_overlap(run, tmp_path):
 
 def test_plume_marks_leave_the_hatching_beneath_them_visible(run):
     """The plume mark is an open ring (no face), so flagged cells under it show their hatch."""
-    from lidmelt.products.maps.marks import PLUME_MARKER
+    from lidmelt.products._maps._marks import PLUME_MARKER
 
     assert PLUME_MARKER["mfc"] == "none"
-    _, info = maps.make_map_figure(run, "melt_thickness_km", coastlines=False, dpi=60)
+    _, info = make_map_figure(run, "melt_thickness_km", coastlines=False, dpi=60)
     rings = [line for line in info.ax.get_lines() if line.get_marker() == "o"]
     assert rings
     assert all(line.get_markerfacecolor() == "none" for line in rings)
@@ -331,9 +336,9 @@ def _station_file(tmp_path):
 def test_anomaly_melt_map_draws_tails_below_the_least_amount_as_no_added_melt(make_run_dir):
     """Cells below the registry's least anomaly melt (Variable.negligible_below) are drawn in
     the "no added melt" class and do not set the colour scale; the file keeps them."""
-    from lidmelt.products.maps.field import open_field
-    from lidmelt.products.maps.options import MapOptions, resolve_options
-    from lidmelt.variables import OUTPUTS
+    from lidmelt._variables import OUTPUTS
+    from lidmelt.products._maps._field import open_field
+    from lidmelt.products._maps._options import MapOptions, resolve_options
 
     least = OUTPUTS["anomaly_melt_thickness_km"].negligible_below
     added = np.zeros((20, 30))
@@ -345,10 +350,10 @@ def test_anomaly_melt_map_draws_tails_below_the_least_amount_as_no_added_melt(ma
         transform=BOX,
         name="tails",
     )
-    _, info = maps.make_map_figure(run, "anomaly_melt_thickness_km", coastlines=False, dpi=60)
+    _, info = make_map_figure(run, "anomaly_melt_thickness_km", coastlines=False, dpi=60)
     assert f"no added melt (< {least:g} km)" in info.legend_labels
     assert "no melting" not in info.legend_labels  # ambient mantle melts there: not "none"
-    as_run = maps.figure.as_run(run)
+    as_run = maps._figure.as_run(run)
     field = open_field(as_run, "anomaly_melt_thickness_km", resolve_options(as_run, MapOptions()))
     assert field.no_melt[:, 10:20].all()  # tails drawn as none
     assert not field.no_melt[:, 20:].any()

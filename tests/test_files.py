@@ -9,7 +9,7 @@ import stat
 
 import pytest
 
-from lidmelt.files import atomic_path, atomic_paths, write_json_atomic
+from lidmelt._files import atomic_path, atomic_paths, write_json_atomic
 
 
 def test_written_file_has_the_mode_of_an_ordinary_new_file(tmp_path):

@@ -17,10 +17,10 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 import runkit
+from lidmelt._errors import LidmeltError
+from lidmelt._run_inputs import resolve_target_grid
 from lidmelt.cli import main
-from lidmelt.errors import LidmeltError
 from lidmelt.physics import get_cooling_model, get_model
-from lidmelt.run_inputs import resolve_target_grid
 from lidmelt.workflow import load_workflow
 
 #: Cases tried, printed at the end of the session (conftest); hypothesis itself fails a test

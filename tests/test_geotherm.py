@@ -1,4 +1,4 @@
-"""The top of melting under the geotherm rule (lidmelt.physics.geotherm).
+"""The top of melting under the geotherm rule (lidmelt.physics._geotherm).
 
 Check values: lidmelt's definition (docs/physics.md, "One mantle beneath the lid": the top is
 the shallowest depth between the crust base and the onset where the cooling model's geotherm,
@@ -8,9 +8,9 @@ proven in tests/test_column.py) and the cooling models' temperature (tests/test_
 and the issue's requirements: the ridge column unchanged within 0.05 km, the three cooling
 models within 0.1 km of each other beneath seafloor older than 60 Ma (ambient Tp 1350 C, dry and
 0.01 wt%). Depth is below the seafloor: beneath a water load (its rock-equivalent depth Z(P_w),
-lidmelt.physics.pressure) the column keeps its pressures and the geotherm is read at
+lidmelt.physics._pressure) the column keeps its pressures and the geotherm is read at
 z = Z(P) - Z(P_w); the loads used are the cooling models' own seafloor depths at the cell's age
-(lidmelt.physics.cooling.seafloor_depth_m, tests/test_cooling.py), as a run without bathymetry
+(lidmelt.physics._cooling.seafloor_depth_m, tests/test_cooling.py), as a run without bathymetry
 uses them, and arbitrary loads between the load nodes.
 """
 
@@ -22,26 +22,30 @@ import numpy.testing as npt
 import pytest
 from scipy import special
 
-from lidmelt.config import LithosphereOptions
-from lidmelt.engine import ChunkInputs, KernelSettings, evaluate_chunk
+from lidmelt._config import LithosphereOptions
+from lidmelt._engine import ChunkInputs, KernelSettings, evaluate_chunk
+from lidmelt._variables import OUTPUTS
 from lidmelt.physics import (
-    DEFAULT_TOP_OF_MELTING,
     column_profile,
     evaluate_cells,
-    geotherm_tops,
     get_cooling_model,
     get_model,
     get_table,
     melt_column,
 )
-from lidmelt.physics.cells import CellOptions
-from lidmelt.physics.cooling import SECONDS_PER_MA, seafloor_depth_m, temperature_c
-from lidmelt.physics.geotherm import direct_excess_k, direct_top_km, geotherm_tops_direct
-from lidmelt.physics.geotherm_arrays import LOAD_STEP_KM, critical_sqrt_age
-from lidmelt.physics.geotherm_search import AVAILABLE
-from lidmelt.physics.kernel_records import Cells
-from lidmelt.physics.pressure import water_load_km
-from lidmelt.variables import OUTPUTS
+from lidmelt.physics._cells import CellOptions
+from lidmelt.physics._cooling import SECONDS_PER_MA, seafloor_depth_m, temperature_c
+from lidmelt.physics._geotherm import (
+    DEFAULT_TOP_OF_MELTING,
+    direct_excess_k,
+    direct_top_km,
+    geotherm_tops,
+    geotherm_tops_direct,
+)
+from lidmelt.physics._geotherm_arrays import LOAD_STEP_KM, critical_sqrt_age
+from lidmelt.physics._geotherm_search import AVAILABLE
+from lidmelt.physics._kernel_records import Cells
+from lidmelt.physics._pressure import water_load_km
 
 MODELS = ("half-space", "gdh1", "ps77")
 KATZ = get_model("katz2003")
@@ -315,7 +319,7 @@ def test_a_lid_grid_stays_the_users_cap_and_the_isotherm_rule_is_unchanged(water
     out = evaluate_chunk(ChunkInputs(age, lid, anomaly, 0.0, 0.0, depth), settings=geo)
     given = np.isfinite(lid)
     npt.assert_allclose(out[row][given], np.maximum(lid[given], 7.0))
-    from lidmelt.physics import lid_lookup
+    from lidmelt.physics._lidlookup import lid_lookup
 
     iso_lid = np.where(given, lid, lid_lookup(1100.0, model=kw["cooling"]).depth_km(age))
     a = evaluate_chunk(ChunkInputs(age, lid, anomaly, 0.0, 0.0, depth), settings=iso)
@@ -343,7 +347,7 @@ def test_the_default_rule_is_one_value():
 @pytest.mark.parametrize("loaded", [False, True])
 def test_the_ambient_columns_tops_from_their_table_equal_direct_integration(cooling, loaded):
     # with one water content the ambient column's top is read from a table against sqrt(age)
-    # and the water load (lidmelt.physics.geotherm_search.ambient_tops; loads of the cooling
+    # and the water load (lidmelt.physics._geotherm_search.ambient_tops; loads of the cooling
     # model's seafloor depth, between the table's load nodes): against direct integration
     # (0.002 GPa)
     # within 0.1 km at ages away from the folds (docs/physics.md: 11.2-17 Ma), 0.2 km in the

@@ -1,4 +1,4 @@
-"""Tests of lidmelt.grids.align: the target grid and resampling onto it.
+"""Tests of lidmelt.grids._align: the target grid and resampling onto it.
 
 The alignment checks sample one analytic field, f = 10 sin(lon) cos(lat) + 0.1 lat (K, defined
 here), on a source grid, align it, and compare with f evaluated at the target cell centres.
@@ -19,9 +19,9 @@ import pytest
 import xarray as xr
 from pyproj import CRS
 
-from lidmelt.errors import GridError
-from lidmelt.grids.align import align
-from lidmelt.grids.grid import Grid
+from lidmelt._errors import GridError
+from lidmelt.grids._align import align
+from lidmelt.grids._grid import Grid
 
 DEG = math.pi / 180.0
 # WGS 84 / EPSG:3857 sphere radius a = 6378137 m (EPSG Guidance Note 7-2, Popular
@@ -339,7 +339,7 @@ def gridline_global(step=3.0, *, node_offset=None):
 
 
 def test_gridline_global_input_as_target_grid():
-    from lidmelt.grids.grid import registration, registration_note
+    from lidmelt.grids._grid import registration, registration_note
 
     da = gridline_global()
     assert registration(da) == "gridline"
@@ -357,7 +357,7 @@ def test_gridline_global_input_as_target_grid():
 
 
 def test_gridline_attribute_and_wide_grid_errors():
-    from lidmelt.grids.grid import registration
+    from lidmelt.grids._grid import registration
 
     assert registration(gridline_global(node_offset=1)) == "pixel"
     lon = np.arange(0.5, 363.0, 1.0)  # 363 one-degree cell centres: more than one turn
@@ -396,7 +396,7 @@ def test_coarsening_polar_stereographic_stays_inside_each_cell(caplog):
 
     src = polar_source()
     target = Grid.from_extent(-180, 180, -80, -56, 2.0)
-    with caplog.at_level(logging.INFO, logger="lidmelt.grids.align"):
+    with caplog.at_level(logging.INFO, logger="lidmelt.grids._align"):
         out = align(src, target, name="age")
     assert "cell means" in caplog.text
     assert out.attrs["resampling"] == "average (cell means)"

@@ -1,4 +1,4 @@
-"""Tests of lidmelt.grids.anomaly: plume thermal anomalies.
+"""Tests of lidmelt.grids._anomaly: plume thermal anomalies.
 
 Distances for the check values come from pyproj.Geod (WGS 84), an independent geodesic library,
 or from the closed form on the equator: two points on the equator less than (1 - f) 180 degrees
@@ -18,9 +18,9 @@ import pytest
 import xarray as xr
 from pyproj import Geod
 
-from lidmelt.errors import GridError, InputError
-from lidmelt.grids.anomaly import Plume, plume_anomaly, plume_profile
-from lidmelt.grids.grid import Grid
+from lidmelt._errors import GridError, InputError
+from lidmelt.grids._anomaly import Plume, plume_anomaly, plume_profile
+from lidmelt.grids._grid import Grid
 
 A_WGS84_KM = 6378.137
 GEOD = Geod(ellps="WGS84")
@@ -253,7 +253,7 @@ def test_many_plumes_lazy_equal_the_eager_sum():
     # more than SHARED_PLUMES plumes are summed in one task per block: the same arithmetic as
     # the eager (numpy) sum, so equal bit for bit; fewer, one layer each (unit profile times
     # the peak: equal to rounding)
-    from lidmelt.grids.anomaly import SHARED_PLUMES
+    from lidmelt.grids._anomaly import SHARED_PLUMES
 
     t = Grid.from_extent(150.0, 210.0, -40.0, 40.0, 1.0)
     rng = np.random.default_rng(4)
@@ -273,7 +273,7 @@ def test_many_plumes_lazy_equal_the_eager_sum():
 
 def test_plume_cells_estimates_the_cells_within_reach():
     # check values: the cells whose pyproj.Geod distance is within the reach, counted
-    from lidmelt.grids.anomaly import plume_cells
+    from lidmelt.grids._anomaly import plume_cells
 
     t = Grid.from_extent(-40.0, 40.0, -50.0, 50.0, 0.5)
     for plume in (Plume(0.0, 10.0, 150.0, 100.0), Plume(5.0, -30.0, 900.0, 50.0, shape="cosine")):

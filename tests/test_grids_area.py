@@ -1,4 +1,4 @@
-"""Tests of lidmelt.grids.area: cell areas on the ellipsoid.
+"""Tests of lidmelt.grids._area: cell areas on the ellipsoid.
 
 Check values: the WGS 84 total surface area, Archimedes' hat-box theorem on a sphere, and
 pyproj.Geod.polygon_area_perimeter (geodesic polygons, an independent library) on cell
@@ -13,9 +13,9 @@ import numpy as np
 import numpy.testing as npt
 import pytest
 
-from lidmelt.errors import GridError
-from lidmelt.grids.area import WGS84_SURFACE_AREA_KM2, cell_area_km2
-from lidmelt.grids.grid import Grid
+from lidmelt._errors import GridError
+from lidmelt.grids._area import WGS84_SURFACE_AREA_KM2, cell_area_km2
+from lidmelt.grids._grid import Grid
 
 # EPSG:3857 sphere radius a = 6378137 m (EPSG Guidance Note 7-2 [from memory])
 R_3857 = 6378137.0
@@ -47,7 +47,7 @@ def densified_cell_area_km2(geod, west, east, south, north, n=64):
 
 def test_global_total_is_wgs84_area():
     area = cell_area_km2(Grid.from_extent(-180, 180, -90, 90, 1.0))
-    # the published total (its source: lidmelt.grids.area.WGS84_SURFACE_AREA_KM2)
+    # the published total (its source: lidmelt.grids._area.WGS84_SURFACE_AREA_KM2)
     # closed-form cell areas: equal to the 12 figures of the table, to rounding
     assert float(area.sum()) == pytest.approx(WGS84_SURFACE_AREA_KM2, rel=1e-11)
     assert area.attrs["units"] == "km2"

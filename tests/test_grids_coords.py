@@ -1,4 +1,4 @@
-"""Tests of coordinates in degrees and minutes (lidmelt.grids.vector.parse_angle, read_points)
+"""Tests of coordinates in degrees and minutes (lidmelt.grids._vector.parse_angle, read_points)
 and of screening centroids in the grid's longitude convention (issue 13)."""
 
 from __future__ import annotations
@@ -8,8 +8,8 @@ import math
 import numpy as np
 import pytest
 
-from lidmelt.errors import InputError
-from lidmelt.grids.vector import parse_angle, read_points
+from lidmelt._errors import InputError
+from lidmelt.grids._vector import parse_angle, read_points
 
 
 @pytest.mark.parametrize(
@@ -54,7 +54,7 @@ def test_station_file_in_degrees_and_minutes(tmp_path):
 def test_screening_centroids_in_the_grid_longitude_convention(make_run_dir):
     from affine import Affine
 
-    from lidmelt.products.screening import screen
+    from lidmelt.products._screening import screen
 
     melt = np.zeros((20, 40))
     melt[8:12, 10:14] = 2.0  # cells 190-194 E, 8-12 N of a 180..220 grid (1-degree cells)

@@ -1,5 +1,5 @@
 """Tests of the per-input options of issue 13: text grids, crs/x_name/y_name, units, scale,
-offset, nodata and the shear-velocity scaling (lidmelt.grids.io.open_input, grids.textgrid,
+offset, nodata and the shear-velocity scaling (lidmelt.grids._io.open_input, grids.textgrid,
 grids.units).
 
 Every round trip writes an analytic field, f(x, y) = 0.5 x + 2 y + 10 (defined here), at cell
@@ -16,9 +16,9 @@ import numpy.testing as npt
 import pytest
 import xarray as xr
 
-from lidmelt.errors import GridError, InputError
-from lidmelt.grids.io import open_grid, open_input
-from lidmelt.grids.units import dlnvs_to_kelvin, unit_factor
+from lidmelt._errors import GridError, InputError
+from lidmelt.grids._io import open_grid, open_input
+from lidmelt.grids._units import dlnvs_to_kelvin, unit_factor
 
 
 def f(x, y):
@@ -106,7 +106,7 @@ def test_a_text_grid_spanning_a_huge_lattice_is_refused_by_its_size_first(tmp_pa
 
 
 def test_a_text_grid_file_too_large_is_refused_before_it_is_read(tmp_path, monkeypatch):
-    import lidmelt.grids.textgrid as textgrid
+    import lidmelt.grids._textgrid as textgrid
 
     monkeypatch.setattr(textgrid, "MAX_TEXT_GRID_BYTES", 100)
     path = tmp_path / "g.xyz"
@@ -173,7 +173,7 @@ def test_crs_key_contradicting_the_file(tmp_path):
 def test_units_converted_to_the_expected_unit(tmp_path, units, factor, caplog):
     path = tmp_path / "age.nc"
     _, _, z = xyz_netcdf(path, units=units)
-    with caplog.at_level(logging.INFO, logger="lidmelt.grids.io"):
+    with caplog.at_level(logging.INFO, logger="lidmelt.grids._io"):
         da = open_input(spec(path, crs="EPSG:4326"), name="plate_age_ma", units_expected="Ma")
     npt.assert_allclose(da.values, z[::-1] * factor, rtol=1e-12)
     if factor != 1.0:

@@ -1,4 +1,4 @@
-"""Tests of lidmelt.grids.io: reading GeoTIFF and CF NetCDF grids.
+"""Tests of lidmelt.grids._io: reading GeoTIFF and CF NetCDF grids.
 
 Input files are written here with rasterio and xarray/netCDF4 directly (not with lidmelt's
 writer), from fields defined in the tests; the check values are those fields, transformed by
@@ -17,8 +17,8 @@ import xarray as xr
 from pyproj import CRS
 from rasterio.transform import from_origin
 
-from lidmelt.errors import GridError, InputError
-from lidmelt.grids.io import GRID_FORMATS, detect_format, normalise_units, open_grid, sha256_file
+from lidmelt._errors import GridError, InputError
+from lidmelt.grids._io import GRID_FORMATS, detect_format, normalise_units, open_grid, sha256_file
 
 
 def smooth_field(lon, lat):

@@ -1,7 +1,7 @@
-"""Tests of lidmelt.grids.write: GeoTIFF and CF NetCDF output.
+"""Tests of lidmelt.grids._write: GeoTIFF and CF NetCDF output.
 
 Files are read back with rasterio and netCDF4 directly (independent readers) and with
-lidmelt.grids.io.open_grid; the check values are the arrays written (round-trip identity).
+lidmelt.grids._io.open_grid; the check values are the arrays written (round-trip identity).
 """
 
 from __future__ import annotations
@@ -18,13 +18,13 @@ import xarray as xr
 from dask.callbacks import Callback
 from pyproj import CRS
 
-from lidmelt.errors import GridError, InputError
-from lidmelt.grids import write as write_module
-from lidmelt.grids.geotiff import check_blocks, tile_aligned
-from lidmelt.grids.grid import Grid
-from lidmelt.grids.io import open_grid
-from lidmelt.grids.store import GeoTiffItem, GeoTiffSet
-from lidmelt.grids.write import write_geotiff, write_netcdf
+from lidmelt._errors import GridError, InputError
+from lidmelt.grids import _write as write_module
+from lidmelt.grids._geotiff import check_blocks, tile_aligned
+from lidmelt.grids._grid import Grid
+from lidmelt.grids._io import open_grid
+from lidmelt.grids._store import GeoTiffItem, GeoTiffSet
+from lidmelt.grids._write import write_geotiff, write_netcdf
 
 
 def grid(target, values):

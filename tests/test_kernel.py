@@ -11,10 +11,11 @@ import numpy as np
 import numpy.testing as npt
 import pytest
 
-from lidmelt.errors import ModelError
-from lidmelt.physics import evaluate_cells, excess_to_melt_k, kernel, melt_column
-from lidmelt.physics.cells import CellOptions
-from lidmelt.physics.kernel_records import Cells
+from lidmelt._errors import ModelError
+from lidmelt.physics import _kernel as kernel
+from lidmelt.physics import evaluate_cells, excess_to_melt_k, melt_column
+from lidmelt.physics._cells import CellOptions
+from lidmelt.physics._kernel_records import Cells
 from test_table import assert_within_tolerance
 
 
@@ -145,8 +146,8 @@ def test_without_numba_the_numpy_path_runs_and_compiled_true_says_why(monkeypatc
 
 def test_rows_are_the_registry_order():
     """The engine writes the kernel's rows straight into its stacked array, in registry order."""
-    from lidmelt.physics.evaluate import OUTPUT_ROWS
-    from lidmelt.variables import OUTPUTS
+    from lidmelt._variables import OUTPUTS
+    from lidmelt.physics._kernel import ROWS as OUTPUT_ROWS
 
     assert tuple(OUTPUTS) == OUTPUT_ROWS
 
@@ -156,7 +157,7 @@ def test_out_and_nodata_give_the_same_values_on_both_paths(compiled):
     """``out=`` receives every output in OUTPUT_ROWS order and ``nodata=`` blanks cells with a
     non-finite input; check values: the same call without them (NaN and the flag 255 put in by
     hand where an input is NaN)."""
-    from lidmelt.physics.evaluate import OUTPUT_ROWS
+    from lidmelt.physics._kernel import ROWS as OUTPUT_ROWS
 
     rng = np.random.default_rng(3)
     tp = rng.uniform(1300.0, 1600.0, 500)

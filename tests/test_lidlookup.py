@@ -1,4 +1,4 @@
-"""The lid-from-age lookup (lidmelt.physics.lidlookup) against the exact isotherm depth."""
+"""The lid-from-age lookup (lidmelt.physics._lidlookup) against the exact isotherm depth."""
 
 from __future__ import annotations
 
@@ -9,10 +9,11 @@ import numpy.testing as npt
 import pytest
 from scipy.optimize import brentq
 
-from lidmelt.engine import ChunkInputs, KernelSettings, evaluate_chunk
-from lidmelt.errors import ModelError
-from lidmelt.physics import get_model, lid_lookup
-from lidmelt.physics.cooling import (
+from lidmelt._engine import ChunkInputs, KernelSettings, evaluate_chunk
+from lidmelt._errors import ModelError
+from lidmelt._variables import OUTPUTS
+from lidmelt.physics import get_model
+from lidmelt.physics._cooling import (
     GDH1,
     HALF_SPACE,
     PS77,
@@ -20,8 +21,7 @@ from lidmelt.physics.cooling import (
     isotherm_depth_km,
     temperature_c,
 )
-from lidmelt.physics.lidlookup import AGE_MAX_MA, TOLERANCE_KM
-from lidmelt.variables import OUTPUTS
+from lidmelt.physics._lidlookup import AGE_MAX_MA, TOLERANCE_KM, lid_lookup
 
 PLATES = (GDH1, PS77)
 # Isotherms as fractions of Tm - T0: 5 %, the default 1100 C in GDH1, 0.9, and 1 K below Tm (the
@@ -39,7 +39,7 @@ def _isotherm(model, fraction):
 @pytest.mark.parametrize("model", PLATES, ids=lambda m: m.name)
 @pytest.mark.parametrize("fraction", FRACTIONS)
 def test_plate_lookup_within_bound_at_random_ages_nodes_and_midpoints(model, fraction):
-    # Bound stated by lidmelt.physics.lidlookup (TOLERANCE_KM = 0.01 km against
+    # Bound stated by lidmelt.physics._lidlookup (TOLERANCE_KM = 0.01 km against
     # isotherm_depth_km, 0-400 Ma); linear interpolation errs most near the steps' midpoints.
     iso = _isotherm(model, fraction)
     lookup = lid_lookup(iso, model=model)
@@ -87,7 +87,7 @@ def test_half_space_lookup_is_the_exact_function():
 
 @pytest.mark.parametrize("model", PLATES, ids=lambda m: m.name)
 def test_plate_lookup_edges_match_the_exact_function(model):
-    # Module conventions (lidmelt.physics.cooling): NaN and negative ages give NaN, age 0 gives
+    # Module conventions (lidmelt.physics._cooling): NaN and negative ages give NaN, age 0 gives
     # 0; ages beyond the nodes are the exact function's values, not clipped.
     lookup = lid_lookup(1100.0, model=model)
     ages = np.array([np.nan, -1.0, -1e-12, 0.0, AGE_MAX_MA, AGE_MAX_MA + 0.5, 2000.0])

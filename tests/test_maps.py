@@ -1,4 +1,4 @@
-"""Tests of lidmelt.products.maps: figure size, colours, overlays, offline safety, CLI errors.
+"""Tests of lidmelt.products._maps: figure size, colours, overlays, offline safety, CLI errors.
 
 Fields are small invented grids written with the ``make_run_dir`` fixture. Check values come
 from independent sources named beside them: matplotlib's colour tables, numpy's percentile,
@@ -22,9 +22,20 @@ from matplotlib import colormaps
 from matplotlib.colors import to_rgb
 from matplotlib.text import Text
 
+from lidmelt._errors import InputError
 from lidmelt.cli import main
-from lidmelt.errors import InputError
-from lidmelt.products import maps
+from lidmelt.products._maps._figure import make_map_figure
+from lidmelt.products._maps._layout import check_region, choose_projection, make_projection
+from lidmelt.products._maps._overlays import COASTLINE_RELPATH, find_coastlines, load_stations
+from lidmelt.products._maps._style import (
+    NODATA_COLOR,
+    STYLES,
+    ZERO_COLOR,
+    colour_limits,
+    encode_classes,
+    style_for,
+)
+from lidmelt.products._maps._write import draw_map, draw_run_maps
 
 # An invented low-latitude box, 1 degree cells: lon 10..40, lat -10..10.
 BOX = Affine(1.0, 0.0, 10.0, 0.0, -1.0, 10.0)
@@ -85,7 +96,7 @@ def test_png_has_requested_pixel_size_and_is_not_blank(blocks_run, tmp_path):
     # Check value: a figure width_in wide saved at dpi has width_in * dpi pixels (matplotlib's
     # definition of dpi; 4 in x 50 dpi = 200 px). Not blank: a single-colour image has zero
     # variance (identity); a map with data, grey nodata and text has far more than 100.
-    out = maps.draw_map(
+    out = draw_map(
         blocks_run,
         "melt_thickness_km",
         path=tmp_path / "m.png",
@@ -95,7 +106,7 @@ def test_png_has_requested_pixel_size_and_is_not_blank(blocks_run, tmp_path):
     )
     img = mpimg.imread(out)
     assert img.shape[1] == 200
-    fig, _ = maps.make_map_figure(
+    fig, _ = make_map_figure(
         blocks_run, "melt_thickness_km", dpi=50, width_in=4.0, coastlines=False
     )
     assert img.shape[0] == round(fig.get_size_inches()[1] * 50)  # not cropped ("tight")
@@ -104,7 +115,7 @@ def test_png_has_requested_pixel_size_and_is_not_blank(blocks_run, tmp_path):
 
 def test_pixel_size_at_publication_settings(blocks_run, tmp_path):
     # Check value: 3.5 in x 300 dpi = 1050 px (a one-column journal figure, common practice).
-    out = maps.draw_map(
+    out = draw_map(
         blocks_run,
         "melt_thickness_km",
         path=tmp_path / "m.png",
@@ -116,14 +127,14 @@ def test_pixel_size_at_publication_settings(blocks_run, tmp_path):
 
 
 def test_nodata_zero_melt_and_melt_colours_differ(blocks_run):
-    fig, info = maps.make_map_figure(
+    fig, info = make_map_figure(
         blocks_run, "melt_thickness_km", coastlines=False, dpi=80, width_in=6.0
     )
     nodata = pixel_at(fig, info.ax, 13.3, 2.3)
     zero = pixel_at(fig, info.ax, 23.3, 2.3)
     melt = pixel_at(fig, info.ax, 33.3, 2.3)
     # Nodata is the documented neutral light grey (r = g = b), within rounding.
-    np.testing.assert_allclose(nodata, np.array(to_rgb(maps.NODATA_COLOR)) * 255, atol=2)
+    np.testing.assert_allclose(nodata, np.array(to_rgb(NODATA_COLOR)) * 255, atol=2)
     assert np.ptp(nodata) <= 2
     # Zero melt must be visibly different from nodata (common practice: > 40 of 255 in RGB).
     assert np.linalg.norm(zero - nodata) > 40
@@ -131,16 +142,16 @@ def test_nodata_zero_melt_and_melt_colours_differ(blocks_run):
     # matplotlib's own viridis table gives its colour (independent of lidmelt).
     np.testing.assert_allclose(melt, np.array(colormaps["viridis"](1.0)[:3]) * 255, atol=3)
     assert np.linalg.norm(zero - melt) > 40
-    assert info.zero_color == maps.ZERO_COLOR
+    assert info.zero_color == ZERO_COLOR
 
 
 def test_undefined_onset_depth_where_no_melting_is_not_nodata(blocks_run):
-    fig, info = maps.make_map_figure(
+    fig, info = make_map_figure(
         blocks_run, "onset_depth_km", coastlines=False, dpi=80, width_in=6.0
     )
     nodata = pixel_at(fig, info.ax, 13.3, 2.3)  # melt thickness NaN too: no data
     no_melt = pixel_at(fig, info.ax, 23.3, 2.3)  # melt thickness 0: no melting
-    np.testing.assert_allclose(nodata, np.array(to_rgb(maps.NODATA_COLOR)) * 255, atol=2)
+    np.testing.assert_allclose(nodata, np.array(to_rgb(NODATA_COLOR)) * 255, atol=2)
     assert np.linalg.norm(no_melt - nodata) > 40
 
 
@@ -148,19 +159,19 @@ def test_colour_limits_are_robust_percentiles():
     # Check value: for 0, 1, ..., 100 the 2nd and 98th percentiles (linear interpolation) are
     # 2 and 98 (identity of an arithmetic sequence); numpy.percentile agrees independently.
     values = np.arange(101.0)
-    vmin, vmax, extend = maps.colour_limits(values)
+    vmin, vmax, extend = colour_limits(values)
     assert (vmin, vmax) == pytest.approx((2.0, 98.0))
     assert (vmin, vmax) == pytest.approx(tuple(np.percentile(values, [2, 98])))
     assert extend == "both"
     with_nan = np.concatenate([values, [np.nan] * 50])
-    assert maps.colour_limits(with_nan)[:2] == pytest.approx((2.0, 98.0))
+    assert colour_limits(with_nan)[:2] == pytest.approx((2.0, 98.0))
 
 
 def test_colour_limits_of_melt_start_at_zero():
     # Melt amounts: 0 to the 99.5th percentile of the positive values (documented rule);
     # positives 1..100 -> 99.5th percentile 99.505 (numpy.percentile, linear).
     values = np.concatenate([np.zeros(500), np.arange(1.0, 101.0)])
-    vmin, vmax, extend = maps.colour_limits(values, zero_is_no_melt=True)
+    vmin, vmax, extend = colour_limits(values, zero_is_no_melt=True)
     assert vmin == 0.0
     assert vmax == pytest.approx(np.percentile(np.arange(1.0, 101.0), 99.5))
     assert extend == "max"
@@ -175,7 +186,7 @@ def test_colour_limits_follow_the_region(make_run_dir):
     ramp = np.tile(np.linspace(1.0, 2.0, 15), (20, 1))
     values[:, 15:] = ramp
     run = make_run_dir({"plate_age_ma": values}, transform=BOX, name="ramp")
-    _, info = maps.make_map_figure(
+    _, info = make_map_figure(
         run, "plate_age_ma", region=(25.2, 40.0, -10.0, 10.0), coastlines=False, dpi=40
     )
     assert (info.vmin, info.vmax) == pytest.approx(tuple(np.percentile(ramp, [2, 98])))
@@ -185,7 +196,7 @@ def test_colour_limits_follow_the_region(make_run_dir):
 
 
 def test_constant_field_gets_a_valid_window():
-    vmin, vmax, extend = maps.colour_limits(np.full(10, 7.0))
+    vmin, vmax, extend = colour_limits(np.full(10, 7.0))
     assert vmin < 7.0 < vmax
     assert extend == "neither"
 
@@ -193,7 +204,7 @@ def test_constant_field_gets_a_valid_window():
 def test_one_sixth_rule_standard_parallels():
     # Check value: S = 30, N = 60 -> 30 + 30/6 = 35 and 60 - 30/6 = 55 (arithmetic of the
     # one-sixth rule; Snyder 1987, from memory).
-    proj, _ = maps.choose_projection((-20.0, 10.0, 30.0, 60.0))
+    proj, _ = choose_projection((-20.0, 10.0, 30.0, 60.0))
     assert isinstance(proj, ccrs.LambertConformal)
     assert float(proj.proj4_params["lat_1"]) == pytest.approx(35.0)
     assert float(proj.proj4_params["lat_2"]) == pytest.approx(55.0)
@@ -214,13 +225,13 @@ def test_one_sixth_rule_standard_parallels():
 def test_automatic_projection_rule(region, expected):
     # Check values: the rule in the module docstring (issue 5 spec: Mercator for low
     # latitudes, conic for mid latitudes, polar stereographic near the poles, Robinson global).
-    proj, reason = maps.choose_projection(region)
+    proj, reason = choose_projection(region)
     assert type(proj) is expected
     assert "automatic" in reason
 
 
 def test_projection_by_name_is_case_insensitive_and_centred():
-    proj, name = maps.make_projection("mercator", (150.0, 170.0, -10.0, 10.0))
+    proj, name = make_projection("mercator", (150.0, 170.0, -10.0, 10.0))
     assert isinstance(proj, ccrs.Mercator)
     assert name == "Mercator"
     assert float(proj.proj4_params["lon_0"]) == pytest.approx(160.0)  # (150 + 170) / 2
@@ -238,7 +249,7 @@ def test_projected_grid_uses_its_footprint(make_run_dir):
         crs="EPSG:3031",
         transform=Affine(10000.0, 0, -200000.0, 0, -10000.0, 200000.0),
     )
-    _fig, info = maps.make_map_figure(run, "melt_thickness_km", coastlines=False, dpi=50)
+    _fig, info = make_map_figure(run, "melt_thickness_km", coastlines=False, dpi=50)
     assert "south polar" in info.projection
     # Check value: the grid's x extent (+-200 km in EPSG:3031, true scale at 71 S) converted
     # by pyproj into the map projection (true scale at the pole): the extent is the grid's.
@@ -265,7 +276,7 @@ def test_overlays_are_drawn(basin_run, tmp_path):
         ],
         crs="EPSG:4326",
     ).to_file(cands)
-    _fig, info = maps.make_map_figure(
+    _fig, info = make_map_figure(
         basin_run,
         "melt_thickness_km",
         stations=stations,
@@ -287,7 +298,7 @@ def test_station_file_without_lon_lat_columns_is_rejected(tmp_path):
     bad = tmp_path / "s.csv"
     bad.write_text("name,easting,northing\nA,1,2\n", encoding="utf-8")
     with pytest.raises(InputError, match="longitude column"):
-        maps.load_stations(bad)
+        load_stations(bad)
 
 
 def test_coastlines_from_a_local_file_are_drawn(basin_run, tmp_path, monkeypatch, caplog):
@@ -296,21 +307,21 @@ def test_coastlines_from_a_local_file_are_drawn(basin_run, tmp_path, monkeypatch
 
     # A pre-existing cartopy data tree holding an (invented) ne_110m_coastline.shp.
     root = tmp_path / "cartopy-data"
-    shp = root / maps.COASTLINE_RELPATH
+    shp = root / COASTLINE_RELPATH
     shp.parent.mkdir(parents=True)
     gpd.GeoDataFrame(
         {"id": [1]}, geometry=[LineString([(-27.3, -14), (-27.3, -40)])], crs="EPSG:4326"
     ).to_file(shp)
     monkeypatch.setenv("CARTOPY_DATA_DIR", str(root))
-    assert maps.find_coastlines() == shp
-    with caplog.at_level(logging.WARNING, logger="lidmelt.products.maps"):
-        fig, info = maps.make_map_figure(basin_run, "melt_thickness_km", dpi=60)
+    assert find_coastlines() == shp
+    with caplog.at_level(logging.WARNING, logger="lidmelt.products._maps"):
+        fig, info = make_map_figure(basin_run, "melt_thickness_km", dpi=60)
     assert info.coastlines == shp
     assert not [r for r in caplog.records if "coastline" in r.getMessage()]
     # The line at 27.3 W is drawn in black over the white (no melt) part of the basin; the
     # same pixel is light without it.
     assert pixel_at(fig, info.ax, -27.3, -17.0, half=0).max() < 128
-    bare, bare_info = maps.make_map_figure(basin_run, "melt_thickness_km", dpi=60, coastlines=False)
+    bare, bare_info = make_map_figure(basin_run, "melt_thickness_km", dpi=60, coastlines=False)
     assert pixel_at(bare, bare_info.ax, -27.3, -17.0, half=0).min() > 200
 
 
@@ -319,7 +330,7 @@ def test_all_text_lies_inside_the_figure(basin_run, tmp_path):
     stations = tmp_path / "s.csv"
     stations.write_text("name,lon,lat\nST-1,-11,-20\n", encoding="utf-8")
     for width in (3.5, 8.0):
-        fig, info = maps.make_map_figure(
+        fig, info = make_map_figure(
             basin_run,
             "onset_depth_km",
             stations=stations,
@@ -345,9 +356,9 @@ def test_all_text_lies_inside_the_figure(basin_run, tmp_path):
 
 def test_render_time_of_a_400_by_300_grid(basin_run, tmp_path):
     # Budget from the issue: a 400 x 300 grid map in well under 3 s.
-    maps.make_map_figure(basin_run, "melt_thickness_km", coastlines=False, dpi=30)  # warm-up
+    make_map_figure(basin_run, "melt_thickness_km", coastlines=False, dpi=30)  # warm-up
     start = time.perf_counter()
-    maps.draw_map(basin_run, "melt_thickness_km", path=tmp_path / "m.png", coastlines=False)
+    draw_map(basin_run, "melt_thickness_km", path=tmp_path / "m.png", coastlines=False)
     assert time.perf_counter() - start < 3.0
 
 
@@ -355,7 +366,7 @@ def test_render_time_of_a_400_by_300_grid(basin_run, tmp_path):
 
 
 def test_colorbar_label_has_long_name_and_unit(blocks_run):
-    _fig, info = maps.make_map_figure(blocks_run, "melt_thickness_km", coastlines=False, dpi=50)
+    _fig, info = make_map_figure(blocks_run, "melt_thickness_km", coastlines=False, dpi=50)
     drawn = info.colorbar.ax.get_xlabel()
     assert drawn == info.colorbar_label
     assert "(km)" in drawn  # the run's unit for melt_thickness_km
@@ -371,7 +382,7 @@ def test_title_and_caption_name_model_and_ambient_temperature(make_run_dir):
             "ambient_potential_temperature_c": 1333.0,
         },
     )
-    fig, info = maps.make_map_figure(run, "melt_thickness_km", coastlines=False, dpi=50)
+    fig, info = make_map_figure(run, "melt_thickness_km", coastlines=False, dpi=50)
     texts = " ".join(t.get_text() for t in fig.texts).replace("\n", " ")
     assert "invented_model" in texts
     assert "1333 °C" in texts
@@ -380,11 +391,11 @@ def test_title_and_caption_name_model_and_ambient_temperature(make_run_dir):
 
 
 def test_run_maps_default_folder_formats_and_no_temp_files(blocks_run):
-    paths = maps.draw_run_maps(blocks_run, fmt="svg", dpi=40, width_in=4.0, coastlines=False)
+    paths = draw_run_maps(blocks_run, fmt="svg", dpi=40, width_in=4.0, coastlines=False)
     assert [p.name for p in paths] == ["melt_thickness_km.svg", "onset_depth_km.svg"]
     assert all(p.parent == blocks_run / "maps" for p in paths)
     assert b"<svg" in paths[0].read_bytes()[:2000]
-    pdf = maps.draw_run_maps(
+    pdf = draw_run_maps(
         blocks_run, fmt="pdf", variables=["onset_depth_km"], dpi=40, width_in=4.0, coastlines=False
     )
     assert pdf[0].read_bytes()[:5] == b"%PDF-"  # PDF magic number (ISO 32000-1, 7.5.2)
@@ -393,13 +404,13 @@ def test_run_maps_default_folder_formats_and_no_temp_files(blocks_run):
 
 
 def test_every_registered_variable_has_a_map_style():
-    # The style keys of lidmelt.variables all have an entry in the presentation registry, and
+    # The style keys of lidmelt._variables all have an entry in the presentation registry, and
     # each variable keeps the colour map and no-melt classes the module docstring documents
     # (depths and pressures cividis_r, melt viridis, melt fraction plasma; the excess to melt
     # diverging RdBu_r since issue 14, which asks for a diverging scale for signed quantities).
-    from lidmelt.variables import VARIABLES
+    from lidmelt._variables import VARIABLES
 
-    assert {v.style for v in VARIABLES.values()} <= set(maps.STYLES)
+    assert {v.style for v in VARIABLES.values()} <= set(STYLES)
     documented = {
         "melt_thickness_km": ("viridis", True, False),
         "onset_depth_km": ("cividis_r", False, True),
@@ -416,10 +427,10 @@ def test_every_registered_variable_has_a_map_style():
         "water_wt_pct": ("cividis", False, False),
     }
     for name, expected in documented.items():
-        style = maps.style_for(name)
+        style = style_for(name)
         assert (style.cmap, style.zero_is_no_melt, style.nan_is_no_melt) == expected, name
         assert style.title == VARIABLES[name].title
-    assert maps.style_for("not_registered_k").cmap == "viridis"
+    assert style_for("not_registered_k").cmap == "viridis"
 
 
 # Offline safety ------------------------------------------------------------------------------
@@ -436,8 +447,8 @@ def test_nothing_tries_to_download(blocks_run, tmp_path, monkeypatch, caplog):
     monkeypatch.setattr(socket, "create_connection", refuse)
     monkeypatch.setattr(socket.socket, "connect", refuse)
     monkeypatch.setenv("CARTOPY_DATA_DIR", str(tmp_path / "empty"))
-    with caplog.at_level(logging.WARNING, logger="lidmelt.products.maps"):
-        paths = maps.draw_run_maps(blocks_run, out_dir=tmp_path / "maps", dpi=40)
+    with caplog.at_level(logging.WARNING, logger="lidmelt.products._maps"):
+        paths = draw_run_maps(blocks_run, out_dir=tmp_path / "maps", dpi=40)
     assert len(paths) == 2
     assert all(p.is_file() for p in paths)
     assert calls == []
@@ -458,7 +469,7 @@ def test_nothing_tries_to_download(blocks_run, tmp_path, monkeypatch, caplog):
 
 def test_unknown_projection_lists_valid_names():
     with pytest.raises(InputError, match=r"Valid names: .*Robinson"):
-        maps.make_projection("Mercatorr", (0.0, 10.0, 0.0, 10.0))
+        make_projection("Mercatorr", (0.0, 10.0, 0.0, 10.0))
 
 
 @pytest.mark.parametrize(
@@ -466,7 +477,7 @@ def test_unknown_projection_lists_valid_names():
 )
 def test_bad_region_is_rejected(region):
     with pytest.raises(InputError, match="expected"):
-        maps.check_region(region)
+        check_region(region)
 
 
 def test_cli_unknown_variable(blocks_run, capsys):
@@ -533,20 +544,20 @@ def test_values_at_or_below_the_lower_limit_get_the_first_scale_colour():
     # demo excess-to-melt map); any limits must work, these are the ones that once failed
     vmin, vmax = -210.17019073486327, 126.78192291259765
     values = np.array([[vmin - 5.0, vmin, vmax, np.nan]])
-    out, cmap, norm = maps.encode_classes(values, mpl.colormaps["inferno"], vmin, vmax, None)
+    out, cmap, norm = encode_classes(values, mpl.colormaps["inferno"], vmin, vmax, None)
     colours = cmap(norm(out))[0]
     first, last = mpl.colormaps["inferno"].resampled(256)([0.0, 1.0])
     np.testing.assert_allclose(colours[0], first)
     np.testing.assert_allclose(colours[1], first)
     np.testing.assert_allclose(colours[2], last)
-    np.testing.assert_allclose(colours[3][:3], mpl.colors.to_rgb(maps.NODATA_COLOR))
+    np.testing.assert_allclose(colours[3][:3], mpl.colors.to_rgb(NODATA_COLOR))
 
 
 def test_deep_melt_share_has_a_fixed_scale_from_0_to_1():
     # lidmelt choice (products/maps/style.py, key "share"): a share of the melt is drawn on
     # fixed limits 0 and 1 (its definition's range, docs/physics.md "How much is extrapolation"),
     # so that maps of runs compare and an all-zero map is not stretched to +-1e-7
-    from lidmelt.products.maps.style import style_for
+    from lidmelt.products._maps._style import style_for
 
     style = style_for("deep_melt_share")
     assert style.limits == (0.0, 1.0)

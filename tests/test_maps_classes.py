@@ -14,8 +14,10 @@ from affine import Affine
 from matplotlib.collections import QuadMesh
 from matplotlib.colors import to_rgb
 
-from lidmelt.products import maps
-from lidmelt.variables import OUTPUTS
+from lidmelt._variables import OUTPUTS
+from lidmelt.products._maps._figure import make_map_figure
+from lidmelt.products._maps._style import NODATA_COLOR, REGIME_CLASSES, ZERO_COLOR
+from lidmelt.products._maps._write import draw_run_maps
 
 # An invented low-latitude box, 1 degree cells from 10 E, 10 N.
 BOX = Affine(1.0, 0.0, 10.0, 0.0, -1.0, 10.0)
@@ -46,7 +48,7 @@ def drawn_colours(ax):
 def new_outputs(monkeypatch):
     """The issue-11 outputs in the registry, as their specification names them (added only
     where the registry does not know them yet)."""
-    from lidmelt import variables
+    from lidmelt import _variables as variables
 
     specs = (
         variables.Variable(
@@ -73,14 +75,14 @@ def new_outputs(monkeypatch):
 
 
 def test_flagged_cells_are_hatched_with_a_legend_entry(blocks_run, make_flag_grid):
-    from lidmelt.physics import FLAG_BEYOND_CALIBRATION, FLAG_NO_ONSET, FLAG_WATER_SATURATED
+    from lidmelt.physics._flags import FLAG_BEYOND_CALIBRATION, FLAG_NO_ONSET, FLAG_WATER_SATURATED
 
     flags = np.zeros((20, 30), dtype=np.uint8)
     flags[:, :10] = 255  # the NaN block: no data
     flags[5:10, 22:27] = FLAG_BEYOND_CALIBRATION  # a block inside the 5 km melt
     flags[12:14, 22:24] = FLAG_NO_ONSET | FLAG_BEYOND_CALIBRATION
     make_flag_grid(blocks_run, flags, transform=BOX)
-    fig, info = maps.make_map_figure(blocks_run, "melt_thickness_km", dpi=50, coastlines=False)
+    fig, info = make_map_figure(blocks_run, "melt_thickness_km", dpi=50, coastlines=False)
     # Check values: the bits the test set (4 and 2; not 8), in the order of MARKED_FLAGS.
     assert info.flag_bits == (FLAG_BEYOND_CALIBRATION, FLAG_NO_ONSET)
     assert FLAG_WATER_SATURATED not in info.flag_bits
@@ -112,7 +114,7 @@ def test_flagged_cells_are_hatched_with_a_legend_entry(blocks_run, make_flag_gri
 
 def test_no_hatching_without_flags(blocks_run, make_flag_grid):
     # No flag grid at all (the fixture writes none): nothing hatched, no legend entry.
-    _, info = maps.make_map_figure(blocks_run, "melt_thickness_km", dpi=40, coastlines=False)
+    _, info = make_map_figure(blocks_run, "melt_thickness_km", dpi=40, coastlines=False)
     assert info.flag_bits == ()
     assert hatches_of(info.ax) == []
     assert not any("flagged" in label for label in info.legend_labels)
@@ -120,13 +122,13 @@ def test_no_hatching_without_flags(blocks_run, make_flag_grid):
     flags = np.zeros((20, 30), dtype=np.uint8)
     flags[:, :10] = 1
     make_flag_grid(blocks_run, flags, transform=BOX)
-    _, info = maps.make_map_figure(blocks_run, "melt_thickness_km", dpi=40, coastlines=False)
+    _, info = make_map_figure(blocks_run, "melt_thickness_km", dpi=40, coastlines=False)
     assert info.flag_bits == ()
     assert hatches_of(info.ax) == []
     # flags=False turns the hatching off.
     flags[0, 25] = 4
     make_flag_grid(blocks_run, flags, transform=BOX)
-    _, info = maps.make_map_figure(
+    _, info = make_map_figure(
         blocks_run, "melt_thickness_km", dpi=40, coastlines=False, flags=False
     )
     assert info.flag_bits == ()
@@ -152,12 +154,12 @@ def regime_fields():
 
 def test_melting_regime_is_drawn_as_classes_with_a_legend(make_run_dir, new_outputs):
     run = make_run_dir(regime_fields(), transform=BOX, name="regime")
-    fig, info = maps.make_map_figure(run, "melting_regime", dpi=60, coastlines=False)
+    fig, info = make_map_figure(run, "melting_regime", dpi=60, coastlines=False)
     assert info.categorical
     assert info.colorbar is None
     assert info.colorbar_label == ""
     assert len(fig.axes) == 1  # the map only: no colour-bar axes
-    for item in maps.REGIME_CLASSES:
+    for item in REGIME_CLASSES:
         assert item.label in info.legend_labels
     assert "no data" in info.legend_labels
     assert "classes named in the legend" in info.caption
@@ -166,11 +168,9 @@ def test_melting_regime_is_drawn_as_classes_with_a_legend(make_run_dir, new_outp
     # nodata grey #c8c8c8. The legend's texts are the registry's class labels.
     expected = {
         22.0: "#ffffff", 30.0: "#0072B2", 38.0: "#CC79A7", 46.0: "#D55E00",
-        14.0: maps.NODATA_COLOR,
+        14.0: NODATA_COLOR,
     }  # fmt: skip
-    assert [c.label for c in maps.REGIME_CLASSES] == [
-        c.label for c in OUTPUTS["melting_regime"].classes
-    ]
+    assert [c.label for c in REGIME_CLASSES] == [c.label for c in OUTPUTS["melting_regime"].classes]
     colours = drawn_colours(info.ax)
     for lon, colour in expected.items():
         got = colours[10, int(lon - 10.0)]  # row 10 = lat -0.5; column = whole degrees from 10 E
@@ -179,13 +179,13 @@ def test_melting_regime_is_drawn_as_classes_with_a_legend(make_run_dir, new_outp
 
 def test_melt_production_style_is_sequential_with_no_melting_white(make_run_dir, new_outputs):
     run = make_run_dir(regime_fields(), transform=BOX, name="production")
-    _, info = maps.make_map_figure(run, "melt_production_mm_yr", dpi=60, coastlines=False)
+    _, info = make_map_figure(run, "melt_production_mm_yr", dpi=60, coastlines=False)
     # Check values: the documented style (plasma, sequential), 0 = no melting drawn white.
     assert info.cmap == "plasma"
     assert not info.categorical
     assert info.colorbar is not None
     assert info.vmin == 0.0
-    assert info.zero_color == maps.ZERO_COLOR
+    assert info.zero_color == ZERO_COLOR
     assert "no melting" in info.legend_labels
     assert np.allclose(drawn_colours(info.ax)[10, 15], 1.0)  # 25 E, regime 0: white
     assert info.colorbar_label.startswith("Melt production")
@@ -193,7 +193,7 @@ def test_melt_production_style_is_sequential_with_no_melting_white(make_run_dir,
 
 def test_run_maps_include_the_anomaly_melt_and_the_regime(make_run_dir, new_outputs):
     run = make_run_dir(regime_fields(), transform=BOX, name="all")
-    paths = maps.draw_run_maps(run, dpi=30, width_in=4.0, coastlines=False)
+    paths = draw_run_maps(run, dpi=30, width_in=4.0, coastlines=False)
     names = [p.stem for p in paths]
     assert "anomaly_melt_thickness_km" in names
     assert "melting_regime" in names

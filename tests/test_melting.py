@@ -11,9 +11,9 @@ import numpy as np
 import numpy.testing as npt
 import pytest
 
-from lidmelt.errors import ModelError
+from lidmelt._errors import ModelError
 from lidmelt.physics import melt_column
-from lidmelt.physics.melting import KATZ2003, MCKENZIE_BICKLE1988, MODELS, get_model
+from lidmelt.physics._melting import KATZ2003, MCKENZIE_BICKLE1988, MODELS, get_model
 
 K = KATZ2003
 

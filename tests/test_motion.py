@@ -17,13 +17,13 @@ import pytest
 
 import motionkit as mk
 from lidmelt import melt_column
-from lidmelt.grids.motionfiles import read_tracks
-from lidmelt.grids.rundir import open_run
-from lidmelt.motion import TRACK_COLUMNS
-from lidmelt.motion.rotations import EARTH_RADIUS_KM, great_circle_km
+from lidmelt.grids._motionfiles import read_tracks
+from lidmelt.grids._rundir import open_run
+from lidmelt.motion._rotations import EARTH_RADIUS_KM, great_circle_km
+from lidmelt.motion._tracks import TRACK_COLUMNS
 from lidmelt.physics import get_cooling_model, isotherm_depth_km
-from lidmelt.physics.cooling import seafloor_depth_m
-from lidmelt.physics.pressure import water_load_km
+from lidmelt.physics._cooling import seafloor_depth_m
+from lidmelt.physics._pressure import water_load_km
 
 SPEED_KM_MYR = np.radians(mk.OMEGA) * EARTH_RADIUS_KM  # omega R on the equator (closed form)
 HALF_SPACE = get_cooling_model("half-space")
@@ -316,9 +316,9 @@ def test_a_grid_departing_inside_a_cap_is_sampled_as_the_whole_grid():
     # at any rotation the result equals the plain bilinear sampling of the whole grid
     from scipy.spatial.transform import Rotation
 
-    from lidmelt.grids.grid import Grid
-    from lidmelt.motion.history import FrameField
-    from lidmelt.motion.rotations import finite_rotation, unit_vectors
+    from lidmelt.grids._grid import Grid
+    from lidmelt.motion._history import FrameField
+    from lidmelt.motion._rotations import finite_rotation, unit_vectors
 
     grid = Grid.from_extent(-30.0, 10.0, -10.0, 10.0, 0.25)
     lon, lat = grid.lonlat_centres()
@@ -344,9 +344,9 @@ def test_a_grid_is_read_at_the_rotated_positions_with_its_edge_values_beyond():
     # bilinear sampling is exact on it (an identity), and beyond the grid its edge values are
     # those of the position clamped to the outermost cell centres; the positions then are
     # scipy's rotation of today's unit vectors, read back as longitude and latitude
-    from lidmelt.grids.grid import Grid
-    from lidmelt.motion.history import FrameField
-    from lidmelt.motion.rotations import finite_rotation, lonlat, unit_vectors
+    from lidmelt.grids._grid import Grid
+    from lidmelt.motion._history import FrameField
+    from lidmelt.motion._rotations import finite_rotation, lonlat, unit_vectors
 
     grid = Grid.from_extent(-30.0, 10.0, -10.0, 10.0, 0.25)
     lon, lat = grid.lonlat_centres()

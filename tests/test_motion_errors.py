@@ -11,9 +11,9 @@ import pytest
 
 import motionkit as mk
 import runkit
+from lidmelt._errors import InputError
 from lidmelt.cli import main
-from lidmelt.errors import InputError
-from lidmelt.grids.motionfiles import read_plume_drift, read_rotations
+from lidmelt.grids._motionfiles import read_plume_drift, read_rotations
 
 
 def refused(capsys, argv, folder, *parts):

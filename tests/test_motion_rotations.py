@@ -12,7 +12,7 @@ import numpy as np
 import numpy.testing as npt
 import pytest
 
-from lidmelt.motion.rotations import (
+from lidmelt.motion._rotations import (
     EARTH_RADIUS_KM,
     RotationHistory,
     compose,

@@ -1,4 +1,4 @@
-"""Depth and pressure (lidmelt.physics.pressure) against PREM.
+"""Depth and pressure (lidmelt.physics._pressure) against PREM.
 
 Check values: PREM's tabulated pressures (Dziewonski & Anderson 1981, Table II; as listed in
 the PREM table of a mineral-physics library, read there): 2.45 GPa at 80 km, 7.11 GPa at
@@ -12,7 +12,7 @@ import numpy as np
 import numpy.testing as npt
 
 from lidmelt.physics import get_model
-from lidmelt.physics.pressure import (
+from lidmelt.physics._pressure import (
     UPPER_MANTLE_FLOOR_GPA,
     _enclosed_mass_kg,
     depth_pressure,

@@ -1,4 +1,4 @@
-"""Tests of lidmelt.products.profiles (ship-track profiles, ``lidmelt profile``).
+"""Tests of lidmelt.products._profiles (ship-track profiles, ``lidmelt profile``).
 
 Check values: geodesic distances and azimuths from pyproj.Geod (WGS84), an independent
 implementation (Karney 2013) of the geodesic problems; linear fields reproduced exactly by
@@ -16,10 +16,12 @@ import pytest
 import shapely
 from affine import Affine
 
+from lidmelt._errors import InputError
 from lidmelt.cli import main
-from lidmelt.errors import InputError
-from lidmelt.physics import FLAG_BEYOND_CALIBRATION, FLAG_MEANINGS
-from lidmelt.products.profiles import plot_profile, read_track, sample_track, track_points
+from lidmelt.physics import FLAG_MEANINGS
+from lidmelt.physics._flags import FLAG_BEYOND_CALIBRATION
+from lidmelt.products._profile_figure import plot_profile
+from lidmelt.products._profiles import read_track, sample_track, track_points
 
 GEOD = pyproj.Geod(ellps="WGS84")
 

@@ -1,4 +1,4 @@
-"""Tests of lidmelt.products.regions (region statistics, screening, ``lidmelt regions`` and
+"""Tests of lidmelt.products._regions (region statistics, screening, ``lidmelt regions`` and
 ``lidmelt screen``) and of the geodesic cell areas they use.
 
 Check values: pyproj.Geod (WGS84; Karney 2013) polygon areas of cells and polygons; the closed
@@ -21,13 +21,13 @@ import pytest
 import shapely
 from affine import Affine
 
+from lidmelt._errors import GridError, InputError
 from lidmelt.cli import main
-from lidmelt.errors import GridError, InputError
-from lidmelt.grids.area import WGS84_SURFACE_AREA_KM2, cell_areas_km2, row_areas_km2
-from lidmelt.grids.grid import Grid
-from lidmelt.products.candidate_files import write_candidates
-from lidmelt.products.regions import region_statistics
-from lidmelt.products.screening import screen
+from lidmelt.grids._area import WGS84_SURFACE_AREA_KM2, cell_areas_km2, row_areas_km2
+from lidmelt.grids._grid import Grid
+from lidmelt.products._candidate_files import write_candidates
+from lidmelt.products._regions import region_statistics
+from lidmelt.products._screening import screen
 
 GEOD = pyproj.Geod(ellps="WGS84")
 
@@ -78,7 +78,7 @@ def test_global_cell_areas_sum_to_the_ellipsoid_surface():
     surface = 2 * math.pi * a**2 * (1 + (1 - e**2) / e * math.atanh(e)) / 1e6
     total = row_areas_km2(grid).sum() * 360
     np.testing.assert_allclose(total, surface, rtol=1e-12)
-    # the published value (lidmelt.grids.area.WGS84_SURFACE_AREA_KM2 names its source)
+    # the published value (lidmelt.grids._area.WGS84_SURFACE_AREA_KM2 names its source)
     np.testing.assert_allclose(total, WGS84_SURFACE_AREA_KM2, rtol=1e-11)
 
 

@@ -1,7 +1,7 @@
 """The output once named ``lid_depth_km`` is ``melting_top_km`` (it holds the top of the melting
 column, not the lid): a workflow, an option or a run folder that uses the old name is refused
 with a message naming the new one, and a run folder of an earlier lidmelt is refused by every
-product with "run 'lidmelt run' again" (lidmelt.variables.legacy_message, the one text)."""
+product with "run 'lidmelt run' again" (lidmelt._variables.legacy_message, the one text)."""
 
 from __future__ import annotations
 
@@ -11,10 +11,10 @@ import numpy as np
 import pytest
 from affine import Affine
 
+from lidmelt._errors import InputError, RunDirError, WorkflowError
+from lidmelt._variables import OUTPUTS, get_variable
 from lidmelt.cli import main
-from lidmelt.errors import InputError, RunDirError, WorkflowError
-from lidmelt.grids.rundir import open_run
-from lidmelt.variables import OUTPUTS, get_variable
+from lidmelt.grids._rundir import open_run
 from lidmelt.workflow import load_workflow
 
 ROOT = Path(__file__).resolve().parents[1]

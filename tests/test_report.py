@@ -1,4 +1,4 @@
-"""Tests of lidmelt.products.report: content, provenance, escaping, self-containment, PDF, CLI.
+"""Tests of lidmelt.products._report: content, provenance, escaping, self-containment, PDF, CLI.
 
 The run directories are small invented grids from the ``make_run_dir`` fixture; the summary
 values are the test's own inputs, so every check value is "what the summary says" (the report
@@ -23,9 +23,10 @@ import pytest
 from affine import Affine
 
 from conftest import reseal
+from lidmelt._errors import InputError, RunDirError
 from lidmelt.cli import main
-from lidmelt.errors import InputError, RunDirError
-from lidmelt.products import report
+from lidmelt.products._report._content import format_sig, format_value
+from lidmelt.products._report._write import REPORT_MAP_DPI, REPORT_MAP_WIDTH_IN, write_report
 
 BOX = Affine(1.0, 0.0, 10.0, 0.0, -1.0, 10.0)  # invented: 1 deg cells from 10 E, 10 N
 
@@ -89,12 +90,12 @@ def html_of(path):
 
 
 def test_report_carries_every_parameter_value_and_input_hash(run):
-    out = report.write_report(run)
+    out = write_report(run)
     assert out == run / "report.html"
     text = html_of(out)
     # Check values: the summary's own numbers, shown with every stored digit (repr).
     for name, value in SUMMARY["model"]["parameters"].items():
-        assert f"<td>{name}</td><td>{report.format_value(value)}</td>" in text
+        assert f"<td>{name}</td><td>{format_value(value)}</td>" in text
     assert "<td>1.2e-06</td>" in text
     assert "<td>false</td>" in text
     for name, value in SUMMARY["cooling"]["parameters"].items():
@@ -107,7 +108,7 @@ def test_report_carries_every_parameter_value_and_input_hash(run):
 def test_parameter_sources_per_row_with_reference_fallback(run):
     # Issue 14: each source is written once, in a numbered list; every parameter row names
     # its source by number (the summary's per-parameter source, else the model reference).
-    text = html_of(report.write_report(run, maps=[]))
+    text = html_of(write_report(run, maps=[]))
     assert "<td>a1_c</td><td>1085.7</td><td>[1]</td>" in text
     assert "<td>[1]</td><td>Katz et al. (2003) Table 2, A1</td>" in text
     ref = "Katz, Spiegelman &amp; Langmuir (2003), G-cubed 4(9), Table 2"
@@ -117,7 +118,7 @@ def test_parameter_sources_per_row_with_reference_fallback(run):
 
 
 def test_summary_numbers_lid_and_version(run):
-    text = html_of(report.write_report(run, maps=[]))
+    text = html_of(write_report(run, maps=[]))
     assert "1,234,567" in text  # melting cells (a count): exact, thousands separators
     # Issue 14: statistics to 3 significant figures (45678.9 -> 45,700; 123456 -> 123,000).
     assert "45,700 km²" in text
@@ -131,13 +132,13 @@ def test_summary_numbers_lid_and_version(run):
 
 
 def test_caution_is_present(run):
-    text = html_of(report.write_report(run, maps=[]))
+    text = html_of(write_report(run, maps=[]))
     assert "not a volcanic hazard assessment" in text
     assert "volcano observatories and civil-protection agencies" in text
 
 
 def test_strings_from_files_are_escaped(run):
-    text = html_of(report.write_report(run, maps=[]))
+    text = html_of(write_report(run, maps=[]))
     assert "<script>" not in text
     assert "<b>" not in text
     assert "&lt;script&gt;alert(&#x27;x&#x27;)&lt;/script&gt;" in text
@@ -145,7 +146,7 @@ def test_strings_from_files_are_escaped(run):
 
 
 def test_page_is_self_contained_with_embedded_png_maps(run):
-    text = html_of(report.write_report(run))
+    text = html_of(write_report(run))
     # No resource from outside: no external links, scripts, stylesheets or fonts.
     assert not re.search(r"""(src|href)\s*=\s*["']?(https?:|//)""", text)
     assert "<link" not in text
@@ -158,7 +159,7 @@ def test_page_is_self_contained_with_embedded_png_maps(run):
     png = base64.b64decode(images[0])
     assert png[:8] == b"\x89PNG\r\n\x1a\n"  # PNG signature (PNG spec, section 5.2)
     pixels = mpimg.imread(io.BytesIO(png), format="png")
-    assert pixels.shape[1] == report.REPORT_MAP_WIDTH_IN * report.REPORT_MAP_DPI
+    assert pixels.shape[1] == REPORT_MAP_WIDTH_IN * REPORT_MAP_DPI
     assert np.var(pixels[..., :3]) > 0.001  # not blank
 
 
@@ -167,14 +168,14 @@ def test_fresh_maps_in_run_dir_are_reused_and_stale_ones_redrawn(run):
     maps_dir.mkdir()
     fake = maps_dir / "melt_thickness_km.png"
     fake.write_bytes(b"\x89PNG\r\n\x1a\n" + b"invented bytes")
-    text = html_of(report.write_report(run))
+    text = html_of(write_report(run))
     assert base64.b64encode(fake.read_bytes()).decode() in text
     # named relative to the run directory (a run writes its report in a staging folder)
     assert "(melt_thickness_km; maps/melt_thickness_km.png)" in text
     assert str(fake) not in text
     old = time.time() - 3600  # older than summary.json: redrawn for the report
     os.utime(fake, (old, old))
-    text = html_of(report.write_report(run))
+    text = html_of(write_report(run))
     assert base64.b64encode(fake.read_bytes()).decode() not in text
     assert "rendered for this report" in text
 
@@ -184,18 +185,18 @@ def test_given_maps_and_no_maps(run, tmp_path):
     svg.write_text(
         '<svg xmlns="http://www.w3.org/2000/svg" width="4" height="4"/>', encoding="utf-8"
     )
-    text = html_of(report.write_report(run, maps=[svg], path=tmp_path / "r.html"))
+    text = html_of(write_report(run, maps=[svg], path=tmp_path / "r.html"))
     assert 'src="data:image/svg+xml;base64,' in text
-    text = html_of(report.write_report(run, maps=[], path=tmp_path / "r.html"))
+    text = html_of(write_report(run, maps=[], path=tmp_path / "r.html"))
     assert "No maps were included." in text
     with pytest.raises(InputError, match="does not exist"):
-        report.write_report(run, maps=[tmp_path / "none.png"])
+        write_report(run, maps=[tmp_path / "none.png"])
     with pytest.raises(InputError, match=r"\.png or \.svg"):
-        report.write_report(run, maps=[run / "summary.json"])
+        write_report(run, maps=[run / "summary.json"])
 
 
 def test_pdf_has_text_and_map_pages(run):
-    out = report.write_report(run, pdf=True)
+    out = write_report(run, pdf=True)
     pdf = out.with_suffix(".pdf").read_bytes()
     assert pdf[:5] == b"%PDF-"  # PDF magic number (ISO 32000-1, 7.5.2)
     # Page objects: "/Type /Page" not followed by "s" (ISO 32000-1, 7.7.3.3). At least the
@@ -211,7 +212,7 @@ def test_no_network_and_no_temporary_files(run, monkeypatch):
     monkeypatch.setattr(urllib.request, "urlopen", refuse)
     monkeypatch.setattr(socket, "create_connection", refuse)
     monkeypatch.setattr(socket.socket, "connect", refuse)
-    report.write_report(run, pdf=True)
+    write_report(run, pdf=True)
     leftovers = [p.name for p in run.iterdir() if ".tmp" in p.name]
     assert leftovers == []
 
@@ -222,16 +223,16 @@ def test_missing_summary_fields_do_not_break_the_page(make_run_dir):
         transform=BOX,
         summary={"statistics": {}, "cooling": None, "workflow": ""},
     )
-    text = html_of(report.write_report(path, maps=[]))
+    text = html_of(write_report(path, maps=[]))
     assert "records no statistics" in text
     assert "lid came from a lid-thickness grid" in text
 
 
 def test_bad_output_name_and_bad_run(run, tmp_path):
     with pytest.raises(InputError, match=r"must end in \.html"):
-        report.write_report(run, path=tmp_path / "report.txt", maps=[])
+        write_report(run, path=tmp_path / "report.txt", maps=[])
     with pytest.raises(RunDirError, match=r"no summary\.json"):
-        report.write_report(tmp_path)
+        write_report(tmp_path)
 
 
 def test_cli_report(run, tmp_path, capsys):
@@ -281,7 +282,7 @@ def flagged_run(make_run_dir, make_flag_grid):
 def test_report_counts_cells_per_flag_bit(flagged_run):
     from lidmelt.physics import FLAG_MEANINGS
 
-    text = html_of(report.write_report(flagged_run, maps=[]))
+    text = html_of(write_report(flagged_run, maps=[]))
     # Check values: counts by construction of the fixture's grid (600 cells, 60 without data,
     # 540 with data; bit 4: 25 + 1; bit 2: 6; bit 8: 1; no flag: 540 - 32 = 508).
     assert '<section id="flags"><h2>Validity flags</h2>' in text
@@ -297,21 +298,21 @@ def test_report_counts_cells_per_flag_bit(flagged_run):
 
 
 def test_report_without_a_flag_grid_says_so(run):
-    text = html_of(report.write_report(run, maps=[]))
+    text = html_of(write_report(run, maps=[]))
     assert "has no validity flag grid" in text
 
 
 def test_warnings_are_shown_near_the_top(flagged_run, run):
-    text = html_of(report.write_report(flagged_run, maps=[]))
+    text = html_of(write_report(flagged_run, maps=[]))
     assert f"<li>{WARNING}</li>" in text
     # Near the top: after the job line, before the caution and every section.
     assert text.index('class="job"') < text.index('id="warnings"') < text.index('class="caution"')
     assert text.index('id="warnings"') < text.index("<section")
-    assert 'id="warnings"' not in html_of(report.write_report(run, maps=[]))  # none, no box
+    assert 'id="warnings"' not in html_of(write_report(run, maps=[]))  # none, no box
 
 
 def test_anomaly_basis_and_further_statistics_to_three_figures(flagged_run):
-    text = html_of(report.write_report(flagged_run, maps=[]))
+    text = html_of(write_report(flagged_run, maps=[]))
     # Check values: the summary's own numbers rounded to 3 significant figures (45678.9 ->
     # 45,700; 0.012345 -> 0.0123); counts (integers) are exact.
     added = "<td>Melt volume added by the thermal anomaly</td><td>45,700 km³</td>"
@@ -329,9 +330,9 @@ def test_anomaly_basis_and_further_statistics_to_three_figures(flagged_run):
 
 def test_format_sig():
     # Check values: rounding to 3 significant figures by hand.
-    assert report.format_sig(45678.9) == "45,700"
-    assert report.format_sig(2.25) == "2.25"
-    assert report.format_sig(-0.0012345, unit="K") == "-0.00123 K"
-    assert report.format_sig(1.0e-7) == "1.00e-07"
-    assert report.format_sig(999.96) == "1,000"
-    assert report.format_sig(1234567) == "1,234,567"  # a count: exact
+    assert format_sig(45678.9) == "45,700"
+    assert format_sig(2.25) == "2.25"
+    assert format_sig(-0.0012345, unit="K") == "-0.00123 K"
+    assert format_sig(1.0e-7) == "1.00e-07"
+    assert format_sig(999.96) == "1,000"
+    assert format_sig(1234567) == "1,234,567"  # a count: exact

@@ -19,7 +19,7 @@ import pytest
 from affine import Affine
 
 from conftest import reseal
-from lidmelt.products import report
+from lidmelt.products._report._write import write_report
 
 CHROMIUM = shutil.which("chromium") or shutil.which("chromium-browser")
 pytestmark = pytest.mark.skipif(
@@ -116,7 +116,7 @@ def report_html(make_run_dir, tmp_path):
         "name,lon,lat\nA station with a long descriptive name,15.2,4.8\nB,22.7,0.5\n",
         encoding="utf-8",
     )
-    return report.write_report(run, coastlines=False, stations=stations)
+    return write_report(run, coastlines=False, stations=stations)
 
 
 @pytest.mark.parametrize("width", [1280, 600])

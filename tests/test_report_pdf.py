@@ -1,6 +1,6 @@
 """The report's PDF as a reader sees it: its pages rendered and read back with pypdfium2.
 
-Check values: the page geometry of lidmelt.products.report.pdf (A4, its margins, the header and
+Check values: the page geometry of lidmelt.products._report._pdf (A4, its margins, the header and
 footer band inside the page), the fixture's own summary and flag counts (as in test_report.py),
 and the PDF magic number (ISO 32000-1, 7.5.2).
 """
@@ -13,8 +13,8 @@ import pypdfium2.raw as pdfium_raw
 import pytest
 from affine import Affine
 
-from lidmelt.products import report
-from lidmelt.products.report.pdf import MARGIN_PT, PAGE_PT
+from lidmelt.products._report._pdf import MARGIN_PT, PAGE_PT
+from lidmelt.products._report._write import write_report
 
 BOX = Affine(1.0, 0.0, 10.0, 0.0, -1.0, 10.0)  # invented: 1 deg cells from 10 E, 10 N
 WARNING = "more than a quarter of the cells with data melt at the ambient temperature (invented)"
@@ -57,7 +57,7 @@ def pdf_path(make_run_dir, make_flag_grid):
     flags[10:12, 10:13] = 2  # 6 cells without onset
     flags[0, 20] = 4 | 8  # 1 cell beyond calibration and water-saturated
     make_flag_grid(path, flags, transform=BOX)
-    out = report.write_report(path, pdf=True, coastlines=False)
+    out = write_report(path, pdf=True, coastlines=False)
     return out.with_suffix(".pdf")
 
 

@@ -1,9 +1,9 @@
-"""Errors about a run's inputs name the workflow key and the file (lidmelt.run_inputs).
+"""Errors about a run's inputs name the workflow key and the file (lidmelt._run_inputs).
 
 The basin is the tests' tiny invented one (tests/runkit.py: 24 x 36 cells of 0.25 degrees west
 of 30 W, one plume); damaged files are made here by overwriting bytes in the middle of a valid
 compressed file. Check values: the keys and paths the test wrote, the registry's accepted range
-of the water input (lidmelt.variables) and the model's own saturation (its method).
+of the water input (lidmelt._variables) and the model's own saturation (its method).
 """
 
 from __future__ import annotations

@@ -1,4 +1,4 @@
-"""Tests of lidmelt.products.screening (``lidmelt screen``) on the anomaly and total bases.
+"""Tests of lidmelt.products._screening (``lidmelt screen``) on the anomaly and total bases.
 
 The basin is the tests' own invention: an equal-area grid (EPSG:6933, 20 km cells) with a
 spreading ridge on its west edge, plate age rising 1 Ma per 25 km away from it, ambient melt
@@ -20,10 +20,10 @@ import shapely
 from affine import Affine
 
 from conftest import reseal
+from lidmelt._errors import InputError, RunDirError
 from lidmelt.cli import main
-from lidmelt.errors import InputError, RunDirError
-from lidmelt.products.regions import region_statistics
-from lidmelt.products.screening import screen
+from lidmelt.products._regions import region_statistics
+from lidmelt.products._screening import screen
 
 CELL_KM2 = 400.0  # 20 km x 20 km cells of an equal-area grid
 T = Affine(20_000.0, 0, 0.0, 0, -20_000.0, 1_000_000.0)  # 100 rows x 150 columns
@@ -305,7 +305,7 @@ def test_cli_screen_writes_into_the_run_folder_where_the_report_finds_it(
     assert (run / "candidates.geojson").is_file()
     assert list(here.iterdir()) == []
     assert f"wrote {run / 'candidates.gpkg'}" in capsys.readouterr().out
-    from lidmelt.products.report import write_report
+    from lidmelt.products._report._write import write_report
 
     page = write_report(run, coastlines=False).read_text(encoding="utf-8")
     assert "Candidate regions of candidates.gpkg" in page

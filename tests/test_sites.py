@@ -1,4 +1,4 @@
-"""Tests of lidmelt.products.sites (station sampling, ``lidmelt sample``).
+"""Tests of lidmelt.products._sites (station sampling, ``lidmelt sample``).
 
 The grids are the tests' own fields written by the ``make_run_dir`` fixture; check values come
 from analytic identities (interpolation at a node returns the node value; bilinear
@@ -19,10 +19,11 @@ import pyproj
 import pytest
 from affine import Affine
 
+from lidmelt._errors import InputError, RunDirError
 from lidmelt.cli import main
-from lidmelt.errors import InputError, RunDirError
-from lidmelt.physics import FLAG_BEYOND_CALIBRATION, FLAG_MEANINGS
-from lidmelt.products.sites import sample_stations, write_stations
+from lidmelt.physics import FLAG_MEANINGS
+from lidmelt.physics._flags import FLAG_BEYOND_CALIBRATION
+from lidmelt.products._sites import sample_stations, write_stations
 
 OUTPUTS = [
     "melt_thickness_km",
@@ -530,7 +531,7 @@ def test_cli_sample_never_overwrites_its_stations(make_run_dir, tmp_path, capsys
 
 
 def test_categorical_variables_are_sampled_at_the_nearest_cell(make_run_dir):
-    """melting_regime holds classes (lidmelt.variables: categorical): between a cell of class 1
+    """melting_regime holds classes (lidmelt._variables: categorical): between a cell of class 1
     and one of class 2 a station gets the class of the cell it lies in, never 1.5 (the bilinear
     mean of the two, which is no class)."""
     x, y = centres(REGIONAL, 40, 60)

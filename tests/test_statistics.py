@@ -1,4 +1,4 @@
-"""The run's summary statistics from per-chunk records (lidmelt.statistics)."""
+"""The run's summary statistics from per-chunk records (lidmelt._statistics)."""
 
 from __future__ import annotations
 
@@ -6,8 +6,8 @@ import dask.array as dsa
 import numpy as np
 import numpy.testing as npt
 
-from lidmelt.statistics import band_parts, summarize_bands
-from lidmelt.variables import OUTPUTS
+from lidmelt._statistics import band_parts, summarize_bands
+from lidmelt._variables import OUTPUTS
 
 NAMES = list(OUTPUTS)
 K = {name: k for k, name in enumerate(NAMES)}
@@ -129,7 +129,7 @@ def test_row_area_column_gives_the_full_area_grid_results():
 def test_cells_with_added_melt_leave_out_values_below_the_least_amount():
     """Check values: numpy on the invented grid with the registry's least anomaly melt
     (Variable.negligible_below) as the threshold; tails below it count as none, a value equal
-    to it (as the outputs hold it, float32) counts (lidmelt.statistics.added_melt: "not below
+    to it (as the outputs hold it, float32) counts (lidmelt._statistics.added_melt: "not below
     the least amount", as the maps draw it)."""
     rng = np.random.default_rng(6)
     layers = _stacked(rng, shape=(24, 18))

@@ -12,13 +12,8 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from lidmelt.physics import column_profile, get_model, get_table, melt_column
-from lidmelt.physics.table import (
-    FALLBACK_STEP_GPA,
-    MeltTable,
-    TableLayout,
-    cache_dir,
-    table_key,
-)
+from lidmelt.physics._table import FALLBACK_STEP_GPA, MeltTable, TableLayout, table_key
+from lidmelt.physics._tablecache import cache_dir
 
 
 def assert_within_tolerance(direct, table):
@@ -96,7 +91,7 @@ def test_outside_the_table_falls_back_to_direct_not_clipping():
     tp = np.array([1950.0, 1400.0, 1150.0, 1900.0])
     w = np.array([0.0, 0.15, 0.0, 0.0])
     lid = np.array([30.0, 30.0, 30.0, 450.0])
-    # the fallback integrates at FALLBACK_STEP_GPA (lidmelt.physics.table): compare with exactly
+    # the fallback integrates at FALLBACK_STEP_GPA (lidmelt.physics._table): compare with exactly
     # that integration (the step's own error is bounded in tests/test_column.py)
     direct = melt_column(tp, lid, w, method="direct", step_gpa=FALLBACK_STEP_GPA)
     table = melt_column(tp, lid, w, method="table")
@@ -168,7 +163,7 @@ def test_cache_size_limit_evicts_the_least_recently_used(tmp_path, monkeypatch, 
     import os
 
     from lidmelt.cli import main
-    from lidmelt.physics.tablecache import enforce_limit
+    from lidmelt.physics._tablecache import enforce_limit
 
     monkeypatch.setenv("LIDMELT_CACHE_DIR", str(tmp_path))
     for k, size in enumerate((400_000, 300_000, 200_000)):

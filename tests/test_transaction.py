@@ -1,6 +1,6 @@
 """A run is a transaction: lock, staging folder, manifest, one swap; readers check the manifest.
 
-Check values come from the definitions in lidmelt.grids.transaction and lidmelt.grids.manifest
+Check values come from the definitions in lidmelt.grids._transaction and lidmelt.grids._manifest
 (identities: the files a run leaves, the messages it gives), not from computed numbers.
 """
 
@@ -20,17 +20,17 @@ import pytest
 from affine import Affine
 
 import runkit
+from lidmelt._engine import run_basin
+from lidmelt._errors import InputError, RunDirError
 from lidmelt.cli import main
-from lidmelt.engine import run_basin
-from lidmelt.errors import InputError, RunDirError
-from lidmelt.grids.grid import Grid
-from lidmelt.grids.manifest import MANIFEST_KEY, verify_manifest
-from lidmelt.grids.rundir import SUMMARY_NAME
-from lidmelt.grids.transaction import RunLock, RunTransaction, leftovers, lock_path
+from lidmelt.grids._grid import Grid
+from lidmelt.grids._manifest import MANIFEST_KEY, verify_manifest
+from lidmelt.grids._rundir import SUMMARY_NAME
+from lidmelt.grids._transaction import RunLock, RunTransaction, leftovers, lock_path
 from lidmelt.workflow import load_workflow
 
 #: The module (the package exports a function of the same name).
-align_module = importlib.import_module("lidmelt.grids.align")
+align_module = importlib.import_module("lidmelt.grids._align")
 
 RUN_FILES = {  # what a run of runkit.basin() writes (registry names; identity)
     "anomaly_melt_thickness_km.tif",
@@ -202,7 +202,7 @@ def test_wait_waits_for_the_other_run(tmp_path):
         [
             sys.executable,
             "-c",
-            "import sys, time; from lidmelt.grids.transaction import RunLock\n"
+            "import sys, time; from lidmelt.grids._transaction import RunLock\n"
             f"with RunLock({str(dest)!r}):\n print('held', flush=True); time.sleep(1.5)",
         ],
         env=runkit.env(),
@@ -280,7 +280,7 @@ def test_a_rerun_replaces_the_whole_folder_in_one_swap(first_run, tmp_path):
 
 def test_verify_manifest_names_files_outside_the_folder(tmp_path):
     doc = {"manifest": {"files": {"../x": {"size": 1, "sha256": "0"}}}}
-    from lidmelt.grids.manifest import summary_sha256
+    from lidmelt.grids._manifest import summary_sha256
 
     doc["summary_sha256"] = summary_sha256(doc)
     with pytest.raises(RunDirError, match="outside the folder"):
@@ -358,7 +358,7 @@ def test_a_run_into_the_folder_of_its_workflow_file_is_refused(first_run, tmp_pa
 
 def test_the_root_folder_is_refused_before_any_lock_file(tmp_path, capsys, monkeypatch):
     # as root nothing stops a file in '/': the refusal must come before the lock is opened
-    from lidmelt.grids import transaction
+    from lidmelt.grids import _transaction as transaction
 
     def no_lock(self):
         raise AssertionError(f"a lock file was opened at {self.path}")

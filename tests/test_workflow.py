@@ -1,4 +1,4 @@
-"""Tests of lidmelt.workflow and lidmelt.config: reading, overriding and validating workflow files.
+"""Tests of lidmelt.workflow and lidmelt._config: reading, overriding and validating workflow files.
 
 Check values are the inputs the tests write themselves, the defaults documented in
 docs/workflow.md (with the published source of the physical ones), the path rules of
@@ -16,11 +16,11 @@ from pathlib import Path
 
 import pytest
 
-from lidmelt.config import OUTPUT_VARIABLES, Parameters, RunConfig
-from lidmelt.errors import WorkflowError
-from lidmelt.variables import INPUTS
+from lidmelt._config import OUTPUT_VARIABLES, Parameters, RunConfig
+from lidmelt._errors import WorkflowError
+from lidmelt._variables import INPUTS
 from lidmelt.workflow import load_workflow
-from lidmelt.workflow.schema import ALL_KEYS, SCHEMA
+from lidmelt.workflow._schema import ALL_KEYS, SCHEMA
 
 ROOT = Path(__file__).resolve().parents[1]
 
@@ -171,13 +171,14 @@ def test_demo_loads_and_matches_the_demo_readme(monkeypatch):
 def test_choices_match_the_stages_that_use_them():
     """The workflow's choices are the ones the grid stage accepts (lidmelt.grids as reference),
     and the model names documented in docs/workflow.md are the physics registries' names."""
-    from lidmelt.config import PLUME_SHAPES, RESAMPLING_METHODS
-    from lidmelt.grids.align import RESAMPLING_METHODS as ALIGN_RESAMPLING
-    from lidmelt.grids.anomaly import PLUME_SHAPES as ANOMALY_SHAPES
+    from lidmelt._config import PLUME_SHAPES, RESAMPLING_METHODS
+    from lidmelt.grids._align import RESAMPLING_METHODS as ALIGN_RESAMPLING
+    from lidmelt.grids._anomaly import PLUME_SHAPES as ANOMALY_SHAPES
 
     assert set(RESAMPLING_METHODS) == set(ALIGN_RESAMPLING)
     assert set(PLUME_SHAPES) == set(ANOMALY_SHAPES)
-    from lidmelt.physics import cooling, melting
+    from lidmelt.physics import _cooling as cooling
+    from lidmelt.physics import _melting as melting
 
     text = (ROOT / "docs" / "workflow.md").read_text(encoding="utf-8")
     for name in (*melting.MODELS, *cooling.COOLING_MODELS):
@@ -186,7 +187,7 @@ def test_choices_match_the_stages_that_use_them():
 
 def test_plume_spec_gives_the_anomaly_builders_plume(basin):
     """PlumeSpec.plume_fields() builds the anomaly builder's Plume with the workflow's values."""
-    from lidmelt.grids.anomaly import Plume
+    from lidmelt.grids._anomaly import Plume
 
     cfg = load_workflow(basin())
     plume = Plume(**cfg.inputs.thermal_anomaly.plumes[0].plume_fields())
@@ -248,7 +249,7 @@ def test_defaults_are_applied(basin, tmp_path, monkeypatch):
         "melting_regime",
         "deep_melt_share",
     )  # the ten default variables of docs/workflow.md, in that order (crustal thickness only
-    # when listed, melt production only with an upwelling input: lidmelt.variables)
+    # when listed, melt production only with an upwelling input: lidmelt._variables)
     assert cfg.overrides == ()
 
 
@@ -392,7 +393,7 @@ def test_absolute_and_home_paths(tmp_path, monkeypatch):
 @pytest.mark.parametrize("var", list(INPUTS.values()), ids=lambda v: v.workflow_key)
 def test_constant_ranges_are_the_registry_ranges(basin, var):
     """inputs.<name>.constant accepts values up to the upper bound of the variable registry's
-    valid_range (lidmelt.variables) and refuses a value above it with the registry's advice:
+    valid_range (lidmelt._variables) and refuses a value above it with the registry's advice:
     one limit for each input, the one the engine applies to grid values too."""
     low, high = var.valid_range
     path = basin(
@@ -636,14 +637,14 @@ ERROR_CASES = [
     ("workers < 1", "chunk_size = 1024", "workers = 0", r"'compute\.workers'.*expected at least 1"),
     ("plume radius 0", "radius_km = 250.0", "radius_km = 0.0", r"expected a radius > 0 km"),
     (
-        # lidmelt.grids.anomaly.Plume requires |peak_excess_k| < 1000 K.
+        # lidmelt.grids._anomaly.Plume requires |peak_excess_k| < 1000 K.
         "plume excess of 1000 K",
         "peak_excess_k = 250.0",
         "peak_excess_k = 1000.0",
         r"'inputs\.thermal_anomaly\.plumes\.1'.*not valid.*too large",
     ),
     (
-        # 1.0 / 0.3 = 3.33 cells (arithmetic); lidmelt.grids.grid.Grid needs whole cells.
+        # 1.0 / 0.3 = 3.33 cells (arithmetic); lidmelt.grids._grid.Grid needs whole cells.
         "extent not a whole number of cells",
         'like = "plate_age"',
         "extent = [0.0, 1.0, 0.0, 1.0]\nresolution = 0.3",

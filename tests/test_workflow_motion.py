@@ -10,7 +10,7 @@ from __future__ import annotations
 import json
 from pathlib import Path
 
-from lidmelt.run_inputs import files_read
+from lidmelt._run_inputs import files_read
 from lidmelt.workflow import load_workflow
 
 ROOT = Path(__file__).resolve().parents[1]

@@ -8,9 +8,9 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from lidmelt.errors import InputError, WorkflowError
-from lidmelt.grids.catalogue import read_plume_catalogue
-from lidmelt.grids.lidref import lid_below_seafloor_km
+from lidmelt._errors import InputError, WorkflowError
+from lidmelt.grids._catalogue import read_plume_catalogue
+from lidmelt.grids._lidref import lid_below_seafloor_km
 from lidmelt.workflow import load_workflow
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -95,8 +95,8 @@ def test_lid_below_seafloor():
 def test_lid_reference_needs_a_water_depth():
     from types import SimpleNamespace
 
-    from lidmelt.grids.grid import Grid
-    from lidmelt.grids.lidref import apply_lid_reference
+    from lidmelt.grids._grid import Grid
+    from lidmelt.grids._lidref import apply_lid_reference
 
     spec = SimpleNamespace(reference="sea_level", bathymetry=None)
     cfg = SimpleNamespace(inputs=SimpleNamespace(lid_thickness=spec))

@@ -20,6 +20,15 @@ try:
 except PackageNotFoundError:  # running from a source tree without installation
     __version__ = "0+unknown"
 
-from lidmelt.physics import excess_to_melt_k, get_model, melt_column
+from lidmelt._errors import LidmeltError
+from lidmelt.physics._evaluate import ColumnResult, excess_to_melt_k, melt_column
+from lidmelt.physics._melting import get_model
 
-__all__ = ["__version__", "excess_to_melt_k", "get_model", "melt_column"]
+__all__ = [
+    "ColumnResult",
+    "LidmeltError",
+    "__version__",
+    "excess_to_melt_k",
+    "get_model",
+    "melt_column",
+]

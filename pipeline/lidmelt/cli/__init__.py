@@ -4,7 +4,7 @@ One module per command (``lidmelt.cli.<command>``), each with ``register(subpars
 its parser and sets ``func``, a callable ``func(args) -> int``; options that several commands
 share come from the parent parsers in :mod:`lidmelt.cli._common`.
 
-One error handler (:func:`main`): errors derived from :class:`lidmelt.errors.LidmeltError` and
+One error handler (:func:`main`): errors derived from :class:`lidmelt._errors.LidmeltError` and
 the expected failures of :func:`lidmelt.cli._failures.describe_failure` (disk full, no
 permission, damaged GeoTIFF or NetCDF, out of memory) print one line without a traceback and
 exit with status 1; Ctrl-C (SIGINT) exits with 130 and SIGTERM with 143, after the same
@@ -18,27 +18,39 @@ import sys
 import traceback
 
 from lidmelt import __version__
+from lidmelt._errors import LidmeltError
 from lidmelt.cli import (
-    ages,
-    assess,
-    cache,
-    column,
-    map,
-    profile,
-    regions,
-    report,
-    run,
-    sample,
-    screen,
+    _ages,
+    _assess,
+    _cache,
+    _column,
+    _map,
+    _profile,
+    _regions,
+    _report,
+    _run,
+    _sample,
+    _screen,
 )
 from lidmelt.cli._failures import Terminated, bounded, describe_failure, termination_as_interrupt
-from lidmelt.errors import LidmeltError
-from lidmelt.physics import compiled_cache_note
+from lidmelt.physics._jitcache import cache_note as compiled_cache_note
 
-__all__ = ["COMMANDS", "build_parser", "main"]
+__all__ = ["main"]
 
 #: The command modules, in the order ``lidmelt --help`` lists them.
-COMMANDS = (column, run, sample, profile, regions, screen, ages, assess, map, report, cache)
+COMMANDS = (
+    _column,
+    _run,
+    _sample,
+    _profile,
+    _regions,
+    _screen,
+    _ages,
+    _assess,
+    _map,
+    _report,
+    _cache,
+)
 
 
 def build_parser() -> argparse.ArgumentParser:

@@ -15,18 +15,8 @@ from collections.abc import Iterator, Sequence
 
 import pandas as pd
 
-from lidmelt.products.sampling import FLAG_COLUMN, FLAG_MEANING_COLUMN, METHODS, STATUSES
-from lidmelt.variables import FLAG_NODATA
-
-__all__ = [
-    "coordinate_options",
-    "flag_summary",
-    "format_table",
-    "print_warnings",
-    "run_dir_option",
-    "sampling_method_option",
-    "status_summary",
-]
+from lidmelt._variables import FLAG_NODATA
+from lidmelt.products._sampling import FLAG_COLUMN, FLAG_MEANING_COLUMN, METHODS, STATUSES
 
 
 def run_dir_option() -> argparse.ArgumentParser:

@@ -13,8 +13,6 @@ import re
 import signal
 from typing import Any
 
-__all__ = ["MESSAGE_CHARS", "Terminated", "bounded", "describe_failure", "termination_as_interrupt"]
-
 #: The longest error message the command line prints (characters); a longer one (a hostile
 #: value echoed by a library) keeps its start and its end, where the file and the fix are.
 MESSAGE_CHARS = 2000

@@ -1,7 +1,7 @@
 """The parameter object of a conductive cooling model of oceanic lithosphere.
 
 :class:`CoolingModel` is frozen and validated; the named, cited instances and the functions of
-age that use them are in :mod:`lidmelt.physics.cooling`.
+age that use them are in :mod:`lidmelt.physics._cooling`.
 """
 
 from __future__ import annotations
@@ -11,10 +11,8 @@ import math
 import numbers
 from dataclasses import dataclass
 
-from lidmelt.errors import ModelError
+from lidmelt._errors import ModelError
 from lidmelt.physics._registry import quoted, suggest
-
-__all__ = ["NUMERIC_FIELDS", "CoolingModel"]
 
 _KINDS = ("half-space", "plate")
 

@@ -19,10 +19,8 @@ from typing import Any
 
 try:
     import numba
-except ImportError:  # pragma: no cover - lidmelt.physics.kernel uses numpy paths without it
+except ImportError:  # pragma: no cover - lidmelt.physics._kernel uses numpy paths without it
     numba = None
-
-__all__ = ["cache_note", "compiled_function", "njit"]
 
 #: The note of this process (set once, by the first function that needed a fallback).
 _NOTE: list[str] = []

@@ -27,15 +27,6 @@ from collections.abc import Callable
 import numpy as np
 from scipy import special
 
-__all__ = [
-    "TAU_SWITCH",
-    "heat_flow_factor",
-    "isotherm_depth_table",
-    "isotherm_fraction",
-    "subsidence_fraction",
-    "theta",
-]
-
 # Dimensionless age tau = kappa t / a^2 at which the plate evaluation switches from the image
 # series (below) to the Fourier series (at and above). Truncation at the switch: Fourier term
 # n = 11 is exp(-121 pi^2 0.1) ~ 1e-52; image term k = 3 is erfc(6 / (2 sqrt(0.1))) ~ 1e-40.

@@ -15,9 +15,7 @@ import difflib
 from collections.abc import Iterable, Mapping
 from typing import Any, TypeVar
 
-from lidmelt.errors import ModelError
-
-__all__ = ["lookup", "override_fields", "quoted", "suggest"]
+from lidmelt._errors import ModelError
 
 _M = TypeVar("_M")
 

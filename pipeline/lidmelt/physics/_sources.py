@@ -7,8 +7,6 @@ that the run's summary and report say so plainly."""
 
 from __future__ import annotations
 
-__all__ = ["KATZ_SOURCES", "MB1988_SOURCES", "NOT_CHECKED"]
-
 #: The mark of a value recalled from memory and not checked against its publication.
 NOT_CHECKED = "from memory, not checked against the publication"
 

@@ -1,0 +1,211 @@
+"""A run on a dask.distributed cluster: where its scheduler is, the connection, its failures.
+
+One home for the scheduler of a run, used by :func:`lidmelt._engine.run_basin` (the kernel, the
+GeoTIFFs and the statistics) and by the ensemble stage. The address comes from ``[compute]
+scheduler`` in the workflow, else from the environment variable :data:`SCHEDULER_ENV`; without
+either the run uses local threads. :func:`connect` opens the client for the whole run, checks
+that the workers can run lidmelt and read the run's input files, and turns a lost worker or
+scheduler into a :class:`lidmelt._errors.ClusterError` (the run then writes nothing).
+
+Where the work runs: the workers evaluate the chunks (reading their windows of the input files
+themselves, at the same paths as the run's process); the run's process (the client) builds the
+melting table once and sends it to each worker once, and writes every output file itself, so
+the workers need no access to the output folder.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import logging
+import os
+from collections.abc import Iterator
+from pathlib import Path
+from typing import Any
+
+from lidmelt._errors import ClusterError, LidmeltError
+
+#: Environment variable naming a dask.distributed scheduler when the workflow gives none.
+SCHEDULER_ENV = "LIDMELT_SCHEDULER"
+#: Seconds to wait for a first worker on a scheduler that has none.
+WORKER_WAIT_S = 20.0
+
+
+def scheduler_address(cfg) -> str | None:
+    """``cfg.compute.scheduler``, else the :data:`SCHEDULER_ENV` variable, else None; checked
+    by :func:`check_address`."""
+    given = getattr(cfg.compute, "scheduler", None)
+    address = (given or os.environ.get(SCHEDULER_ENV, "")).strip()
+    if not address:
+        return None
+    return check_address(address, where="compute.scheduler" if given else SCHEDULER_ENV)
+
+
+def check_address(address: str, *, where: str) -> str:
+    """``address`` if dask.distributed can connect to it (``scheme://host:port``, a known
+    scheme, a port 1-65535), else a ClusterError naming ``where`` (the key or variable).
+
+    Checked before any client is made: dask takes a malformed address only to fail in its
+    connection loop, then hangs on shutdown.
+    """
+    from distributed.comm.addressing import parse_address, parse_host_port
+    from distributed.comm.registry import get_backend
+
+    shown = address if len(address) <= 80 else f"{address[:77]}..."
+    try:
+        scheme, location = parse_address(address)
+        get_backend(scheme)
+        if scheme != "inproc":
+            host, port = parse_host_port(location)
+            if not host or not 0 < int(port) < 65536:
+                msg = f"expected a host and a port from 1 to 65535, found {location!r}"
+                raise ValueError(msg)
+    except (ValueError, TypeError) as exc:
+        msg = (
+            f"{where} is {shown!r}, not a dask scheduler address ({exc}); expected "
+            "'tcp://host:port', e.g. 'tcp://127.0.0.1:8786' (dask scheduler prints it when it "
+            "starts). Fix the address, or remove it to run on local threads."
+        )
+        raise ClusterError(msg) from None
+    return address
+
+
+def input_paths(cfg) -> list[Path]:
+    """Every input file of ``cfg``: the grids of ``[inputs]`` and a lid's bathymetry grid."""
+    paths = [spec.path for spec in cfg.inputs.given().values() if spec.path is not None]
+    lid = cfg.inputs.lid_thickness
+    if lid is not None and getattr(lid, "bathymetry", None) is not None:
+        paths.append(lid.bathymetry)
+    return [Path(p) for p in paths]
+
+
+def worker_report(paths: list[str]) -> dict[str, Any]:
+    """Run on each worker by :func:`check_workers`: its lidmelt version and unreadable paths."""
+    import lidmelt
+
+    missing = [p for p in paths if not os.access(p, os.R_OK)]
+    return {"version": lidmelt.__version__, "missing": missing}
+
+
+def check_workers(client, paths: list[Path]) -> int:
+    """The number of workers; ClusterError unless every one runs this lidmelt and reads
+    every path in ``paths`` (the workers read their windows of the input files)."""
+    import lidmelt
+
+    try:
+        reports = client.run(worker_report, [str(p) for p in paths])
+    except Exception as exc:  # a worker without lidmelt fails to unpickle worker_report
+        msg = (
+            f"the workers of the dask scheduler could not run lidmelt ({type(exc).__name__}: "
+            f"{exc}); expected lidmelt {lidmelt.__version__} installed in every worker's "
+            "environment. Install it there (the same version and dependencies as here)."
+        )
+        raise ClusterError(msg) from exc
+    for worker, report in sorted(reports.items()):
+        if report["version"] != lidmelt.__version__:
+            msg = (
+                f"worker {worker} runs lidmelt {report['version']}, this run "
+                f"{lidmelt.__version__}; expected the same version everywhere. Install "
+                f"lidmelt {lidmelt.__version__} in the workers' environment."
+            )
+            raise ClusterError(msg)
+        if report["missing"]:
+            msg = (
+                f"worker {worker} cannot read the input file(s) {report['missing']}; the "
+                "workers read the inputs at the same paths as this run. Mount the shared file "
+                "system at the same path on every worker (or copy the inputs there)."
+            )
+            raise ClusterError(msg)
+    return len(reports)
+
+
+def _open_client(address: str):
+    """A client of the scheduler at ``address`` with at least one worker; ClusterError if not."""
+    from distributed import Client
+
+    where = f"compute.scheduler or {SCHEDULER_ENV}"
+    try:
+        client = Client(address, set_as_default=False)
+    except (OSError, TimeoutError, ValueError) as exc:
+        msg = (
+            f"cannot reach the dask scheduler {address!r} ({where}): {exc}; expected a running "
+            "scheduler at 'tcp://host:port'. Start it (dask scheduler), check the address and "
+            f"the network, or remove the setting to run on local threads."
+        )
+        raise ClusterError(msg) from exc
+    try:
+        client.wait_for_workers(1, timeout=WORKER_WAIT_S)
+    except (OSError, TimeoutError) as exc:
+        client.close()
+        msg = (
+            f"the dask scheduler {address!r} ({where}) has no worker after {WORKER_WAIT_S:g} "
+            "s; expected at least one. Start workers (dask worker " + address + ")."
+        )
+        raise ClusterError(msg) from exc
+    return client
+
+
+def _lost(exc: BaseException, client) -> bool:
+    """True for a failure of the cluster itself (a lost worker, scheduler or connection): a
+    failure of the kind, or any failure once the client has lost its scheduler."""
+    from distributed import KilledWorker
+    from distributed.client import FutureCancelledError
+    from distributed.comm import CommClosedError
+
+    if isinstance(exc, KilledWorker | FutureCancelledError | CommClosedError):
+        return True
+    return not isinstance(exc, LidmeltError) and client.status != "running"
+
+
+def _short(exc: BaseException) -> str:
+    """The first line of ``exc``'s message, at most 200 characters."""
+    text = (str(exc).strip().splitlines() or [""])[0]
+    return text if len(text) <= 200 else f"{text[:197]}..."
+
+
+@contextlib.contextmanager
+def _quiet_dask_logs() -> Iterator[None]:
+    """No log records of dask.distributed in this process within the block: a lost worker or
+    scheduler is reported once, as lidmelt's ClusterError, not also as dask's tracebacks of its
+    reconnection attempts (the scheduler's and the workers' own logs keep theirs)."""
+    known = list(logging.root.manager.loggerDict)
+    names = ["distributed", *(n for n in known if n.startswith("distributed."))]
+    loggers = [logging.getLogger(n) for n in names]
+    levels = [lg.level for lg in loggers]
+    for lg in loggers:
+        lg.setLevel(logging.CRITICAL + 1)
+    try:
+        yield
+    finally:
+        for lg, level in zip(loggers, levels, strict=True):
+            lg.setLevel(level)
+
+
+@contextlib.contextmanager
+def connect(cfg, *, paths: list[Path] | None = None) -> Iterator[Any]:
+    """The dask.distributed client of ``cfg``'s scheduler for the block, or None (threads).
+
+    The workers are checked (:func:`check_workers`) against ``paths`` (default: every input
+    file of ``cfg``). Inside the block, a lost worker, scheduler or connection becomes a
+    ClusterError; errors raised by lidmelt on a worker (an input out of range) pass as they are.
+    """
+    address = scheduler_address(cfg)
+    if address is None:
+        yield None
+        return
+    with _quiet_dask_logs():
+        client = _open_client(address)
+        try:
+            check_workers(client, input_paths(cfg) if paths is None else paths)
+            yield client
+        except Exception as exc:
+            if not _lost(exc, client):
+                raise
+            msg = (
+                f"the dask cluster at {address!r} failed during the run ({type(exc).__name__}: "
+                f"{_short(exc)}): a worker or the scheduler was lost; nothing was written. Look "
+                "at the workers' and the scheduler's logs (a worker killed for memory: lower "
+                "compute.chunk_size or give each worker more memory), then run again."
+            )
+            raise ClusterError(msg) from exc
+        finally:
+            client.close(timeout=5)
