@@ -108,8 +108,8 @@ MUTATIONS: tuple[Mutation, ...] = (
     Mutation(
         "crust density ratio",
         PKG + "physics/_cells.py",
-        "crust_ratio=model.solid_density_kg_m3 / crust_density_kg_m3, clock=clock",
-        "crust_ratio=crust_density_kg_m3 / model.solid_density_kg_m3, clock=clock",
+        "crust_ratio=model.solid_density_kg_m3 / options.crust_density_kg_m3,",
+        "crust_ratio=options.crust_density_kg_m3 / model.solid_density_kg_m3,",
         "crustal thickness H rho_c / rho_s instead of H rho_s / rho_c (compiled path)",
         ("tests/test_evaluate.py::test_crust_and_melt_production_follow_their_definitions",),
     ),
