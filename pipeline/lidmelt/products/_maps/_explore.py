@@ -75,9 +75,9 @@ def _notes(run: RunDir, data: dict[str, Any]) -> list[str]:
     if f["stride"] > 1:
         s = f["stride"]
         notes.append(
-            f"This grid is too large for one page: every {s}th cell in each direction is shown "
-            f"and read ({f['cols']} x {f['rows']}; each is the GeoTIFF cell at the centre of "
-            f"its {s} x {s} block, its value exact). Read every cell with 'lidmelt sample'."
+            f"This grid is too large for one page: it is shown and read one cell per {s} x {s} "
+            f"block ({f['cols']} x {f['rows']} cells; each the GeoTIFF cell at its block's "
+            "centre, its value exact). Read any cell with 'lidmelt sample'."
         )
     return notes
 
