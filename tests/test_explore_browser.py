@@ -87,6 +87,9 @@ _PROBE = """<script>
     out.legend = document.getElementById("legend").textContent;
     document.getElementById("zoom-in").click();
     out.zoomed = read(%(row)d, %(col)d);
+    document.getElementById("fit").click();
+    out.nodata = read(2, 1);
+    out.dry = read(2, 5);
     out.resources = performance.getEntriesByType("resource").map((e) => e.name);
     out.width = document.documentElement.clientWidth;
     out.scrollWidth = document.documentElement.scrollWidth;
@@ -204,6 +207,15 @@ def test_page_loads_offline_switches_layers_and_reads_the_geotiff_values(page, t
     assert after["pixel"] == _png_pixel(html, "onset_depth_km", row, col)
     assert before["hash"] != after["hash"]
     assert "Onset" in result["legend"] or "onset" in result["legend"]
+    # a cell without data (column 1) and a cell that does not melt (0 km, onset undefined)
+    nodata = {v["name"]: v["text"] for v in result["nodata"]["values"]}
+    assert nodata == {"melt_thickness_km": "melt_thickness_kmno data",
+                      "onset_depth_km": "onset_depth_kmno data"}  # fmt: skip
+    assert result["nodata"]["flags"] == ["no input data"]
+    dry = {v["name"]: v["text"] for v in result["dry"]["values"]}
+    assert dry == {"melt_thickness_km": "melt_thickness_km0 km (no melting)",
+                   "onset_depth_km": "onset_depth_kmno melting"}  # fmt: skip
+    assert result["dry"]["flags"] == ["no flag set (valid cell)"]
     # zooming moves the cell on the screen; the readout still reads the same cell
     assert result["zoomed"]["at"] != after["at"]
     assert result["zoomed"]["pixel"] == after["pixel"]
