@@ -3,8 +3,10 @@
 from __future__ import annotations
 
 import argparse
+from pathlib import Path
 
 from lidmelt.cli._common import run_dir_option
+from lidmelt.products._maps._explore import EXPLORE_NAME, write_explore_page
 from lidmelt.products._maps._overview import draw_overview
 from lidmelt.products._maps._write import FORMATS, draw_run_maps
 
@@ -13,6 +15,12 @@ _OVERVIEW_HELP = (
     "overview.png (300 dpi, or --dpi), overview.pdf and overview.svg"
 )
 
+
+_EXPLORE_HELP = (
+    "write only the interactive map page maps/explore.html (or OUT_DIR/explore.html): pan, "
+    "zoom, switch layers, read every layer's value and the cell's flags under the pointer; "
+    "self-contained, opens offline in a browser"
+)
 
 _FORMAT_HELP = "figure format (default png; with --overview: only this format, default all three)"
 
@@ -74,6 +82,7 @@ def register(subparsers: argparse._SubParsersAction) -> None:
         help="local coastline shapefile to draw (never downloaded)",
     )
     p.add_argument("--overview", action="store_true", help=_OVERVIEW_HELP)
+    p.add_argument("--explore", action="store_true", help=_EXPLORE_HELP)
     p.add_argument("--format", dest="fmt", choices=FORMATS, default=None, help=_FORMAT_HELP)
     p.add_argument(
         "--dpi", type=float, default=150.0, help="resolution in dots per inch (default 150)"
@@ -96,6 +105,13 @@ def register(subparsers: argparse._SubParsersAction) -> None:
 
 def run(args: argparse.Namespace) -> int:
     """Draw the maps (or the overview) and print the files written."""
+    if args.explore:
+        out = Path(args.out_dir) / EXPLORE_NAME if args.out_dir else None
+        page = write_explore_page(
+            args.run_dir, path=out, stations=args.stations, candidates=args.candidates
+        )
+        print(page)
+        return 0
     if args.overview:
         dpi = args.dpi if args.dpi != 150.0 else 300.0
         written = draw_overview(

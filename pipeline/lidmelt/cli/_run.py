@@ -16,6 +16,7 @@ from lidmelt.grids._transaction import RunLock, clean_leftovers
 from lidmelt.motion import motion_stages
 from lidmelt.products._assess._assessment import assess
 from lidmelt.products._assess._write import ASSESS_NAME, write_assessment
+from lidmelt.products._maps._explore import write_explore_page
 from lidmelt.products._maps._overlays import resolve_coastlines
 from lidmelt.products._maps._overview import draw_overview
 from lidmelt.products._maps._write import draw_run_maps
@@ -95,7 +96,7 @@ def _products(draw_maps: bool, report: bool, dest: Path, cfg=None):
         coast = resolve_coastlines(None) or False  # looked up (and its absence noted) once
         maps = list(draw_run_maps(run_dir, coastlines=coast))
         overview = draw_overview(run_dir, coastlines=False, formats=("png", "pdf"))
-        drawn = [*scored, *maps, *overview]
+        drawn = [*scored, *maps, *overview, write_explore_page(run_dir)]
         # the report 'lidmelt report RUN_DIR' writes: it reuses the maps just drawn (the
         # overview too) and draws the input maps, naming files relative to the run directory
         return [*drawn, write_report(run_dir, coastlines=coast)] if report else drawn

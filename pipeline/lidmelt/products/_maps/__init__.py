@@ -13,5 +13,7 @@ The package keeps presentation apart from drawing:
 - :mod:`._marks`: named plume centres and candidate rank labels;
 - :mod:`._figure`: :func:`make_map_figure`, the figure drawn in named steps;
 - :mod:`._overview`: :func:`make_overview_figure`, inputs and results as panels on one page;
-- :mod:`._write`: :func:`draw_map`, :func:`draw_run_maps` and :func:`save_figure`.
+- :mod:`._write`: :func:`draw_map`, :func:`draw_run_maps` and :func:`save_figure`;
+- :mod:`._explore`: the interactive map page ``maps/explore.html`` (its data in
+  :mod:`._explore_data` and :mod:`._explore_marks`, its script in :mod:`._explore_script`).
 """

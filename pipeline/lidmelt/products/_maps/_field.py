@@ -69,16 +69,42 @@ def no_melt_mask(run: RunDir, values: np.ndarray, style: VariableStyle) -> np.nd
     peaks, a NaN cell where the run has data is "no melting" (it never melted, or the melt the
     anomaly added never reached the threshold).
     """
+    wanted = style.nan_is_no_melt or style.nan_with_data_is_no_melt
+    melt = None
+    if wanted and not style.zero_is_no_melt and "melt_thickness_km" in run.outputs:
+        melt = np.asarray(run.open("melt_thickness_km").values, dtype=float)
+    return no_melt_cells(values, style, melt)
+
+
+def no_melt_cells(
+    values: np.ndarray, style: VariableStyle, melt: np.ndarray | None
+) -> np.ndarray | None:
+    """The "no melting" cells of :func:`no_melt_mask`, given the run's ``melt_thickness_km``
+    on the same cells (or None when the run has none)."""
     if style.zero_is_no_melt:
         return np.isfinite(values) & ~style.melting(values)
     wanted = style.nan_is_no_melt or style.nan_with_data_is_no_melt
-    if wanted and "melt_thickness_km" in run.outputs:
-        melt = np.asarray(run.open("melt_thickness_km").values, dtype=float)
-        if melt.shape == values.shape and style.nan_with_data_is_no_melt:
+    if wanted and melt is not None and melt.shape == values.shape:
+        if style.nan_with_data_is_no_melt:
             return np.isnan(values) & np.isfinite(melt)
-        if melt.shape == values.shape:
-            return melt == 0.0
+        return melt == 0.0
     return None
+
+
+def field_limits(style: VariableStyle, shown: np.ndarray) -> tuple[float, float, str]:
+    """Colour limits and colour-bar ``extend`` of the cells ``shown`` (no-melt cells NaN
+    except for the melt amounts), as the style sets them (:func:`._style.colour_limits`)."""
+    if style.categorical:
+        return 0.0, float(len(style.classes) - 1), "neither"
+    if style.limits is not None:
+        return fixed_limits(shown, style.limits)
+    return colour_limits(
+        shown,
+        zero_is_no_melt=style.zero_is_no_melt,
+        diverging=style.diverging,
+        percentiles=style.percentiles,
+        negligible_below=style.negligible_below,
+    )
 
 
 def open_field(run: RunDir, variable: str, opts: MapOptions) -> Field:
@@ -102,18 +128,7 @@ def open_field(run: RunDir, variable: str, opts: MapOptions) -> Field:
     if no_melt is not None and not style.zero_is_no_melt:
         shown = np.where(no_melt, np.nan, values)
     in_view = shown[lay.region_mask(da, region)] if region_given else shown
-    if style.categorical:
-        vmin, vmax, extend = 0.0, float(len(style.classes) - 1), "neither"
-    elif style.limits is not None:
-        vmin, vmax, extend = fixed_limits(in_view, style.limits)
-    else:
-        vmin, vmax, extend = colour_limits(
-            in_view,
-            zero_is_no_melt=style.zero_is_no_melt,
-            diverging=style.diverging,
-            percentiles=style.percentiles,
-            negligible_below=style.negligible_below,
-        )
+    vmin, vmax, extend = field_limits(style, in_view)
     flags = opts.flags
     hatch = variable in run.outputs and isinstance(flags, FlagGrid)
     same = hatch and flags.values.shape == values.shape
