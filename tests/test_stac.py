@@ -302,3 +302,42 @@ def test_run_files_skip_temporaries_and_count_a_store_once(tmp_path):
     store.mkdir(parents=True)
     (store / "0").write_bytes(b"x")
     assert run_files(tmp_path) == ["lidmelt.zarr", "maps/a.png"]
+
+
+def test_a_resealed_run_keeps_the_catalogue_outside_its_manifest(ensemble_run, tmp_path):
+    """A run resealed after the Item was written (conftest.reseal, as a test that edits a run
+    does) does not take the Item into its manifest: the Item lists the sealed summary."""
+    from conftest import reseal
+
+    copy = tmp_path / "run"
+    shutil.copytree(ensemble_run, copy)
+    reseal(copy)
+    files = _load(copy / "summary.json")["manifest"]["files"]
+    assert "summary.json" not in files
+    assert not CATALOGUE_NAMES & set(files), sorted(files)
+    assert "melt_thickness_km.tif" in files
+
+
+@pytest.mark.parametrize(
+    ("west", "width", "bbox", "parts"),
+    [
+        # RFC 7946 sec. 5.2: a bbox crossing the antimeridian has west > east (170 E to 170 W)
+        (170.0, 20, [170.0, -10.0, -170.0, 10.0], 2),
+        (0.0, 360, [-180.0, -10.0, 180.0, 10.0], 1),  # a whole circle in 0-360 longitudes
+        (200.0, 20, [-160.0, -10.0, -140.0, 10.0], 1),  # 200-220 E is 160-140 W
+    ],
+)
+def test_longitudes_past_180_are_wrapped(make_run_dir, west, width, bbox, parts):
+    transform = Affine(1.0, 0.0, west, 0.0, -1.0, 10.0)
+    values = np.ones((20, width), dtype=np.float32)
+    run = make_run_dir({"melt_thickness_km": values}, transform=transform)
+    write_run_catalogue(run)
+    item = _load(run / "stac_item.json")
+    assert stac_errors(item) == []
+    assert item["bbox"] == pytest.approx(bbox)
+    geometry = item["geometry"]
+    polygons = geometry["coordinates"] if geometry["type"] == "MultiPolygon" else [0]
+    assert len(polygons) == parts
+    lons = np.asarray(geometry["coordinates"], dtype=float).reshape(-1, 2)[:, 0]
+    assert lons.min() >= -180.0
+    assert lons.max() <= 180.0

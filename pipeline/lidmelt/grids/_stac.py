@@ -45,6 +45,11 @@ from lidmelt.grids._manifest import CATALOGUE_NAMES, COLLECTION_NAME, ITEM_NAME
 _DENSIFY = 20
 #: Decimal places of the footprint's coordinates (about 1 cm).
 _PRECISION = 7
+#: The ensemble's settings a Collection summarises (keys of the summary's ``ensemble`` entry).
+_ENSEMBLE_KEYS = (
+    "members", "seed", "sampling", "thresholds_km", "percentiles", "percentile_definition",
+    "outputs",
+)  # fmt: skip
 #: Media types by file suffix (the GeoTIFF's is rio-stac's).
 _MEDIA = {
     ".nc": "application/netcdf",
@@ -142,13 +147,17 @@ def ensemble_collection(
 
 
 def _ensemble_summaries(entry: Mapping[str, Any]) -> dict[str, Any]:
-    """The ensemble's settings as collection summaries (scalars and lists of scalars only)."""
+    """The ensemble's settings (:data:`_ENSEMBLE_KEYS` of its summary entry) as collection
+    summaries, each a list; the varied keys by name."""
     out: dict[str, Any] = {}
-    for key, value in entry.items():
+    for key in _ENSEMBLE_KEYS:
+        value = entry.get(key)
         if isinstance(value, bool | int | float | str):
             out[f"lidmelt:ensemble_{key}"] = [value]
         elif isinstance(value, list) and all(isinstance(v, int | float | str) for v in value):
             out[f"lidmelt:ensemble_{key}"] = list(value)
+    if isinstance(entry.get("vary"), dict):
+        out["lidmelt:ensemble_varied"] = sorted(str(k) for k in entry["vary"])
     return out
 
 
@@ -260,7 +269,28 @@ def _footprint(run_dir: Path, summary: Mapping[str, Any]) -> dict[str, Any]:
         "transform": rasterio.Affine(*grid["transform"][:6]),
     }
     with rasterio.MemoryFile() as mem, mem.open(**profile) as src:
-        return get_dataset_geom(src, densify_pts=_DENSIFY, precision=_PRECISION)
+        return _wrapped(get_dataset_geom(src, densify_pts=_DENSIFY, precision=_PRECISION))
+
+
+def _wrapped(found: dict[str, Any]) -> dict[str, Any]:
+    """A footprint with longitudes past 180 E (a grid in 0-360 longitudes) brought into
+    -180..180 as RFC 7946 (sec. 5.2, 3.1.9) asks: a whole circle becomes -180..180; a grid that
+    crosses the antimeridian gets a bbox with west > east and a MultiPolygon of its two sides."""
+    from rio_stac.stac import bbox_to_geom
+
+    west, south, east, north = found["bbox"]
+    if east <= 180.0:
+        return found
+    if east - west >= 360.0:
+        bbox = [-180.0, south, 180.0, north]
+    elif west >= 180.0:
+        bbox = [west - 360.0, south, east - 360.0, north]
+    else:
+        sides = [bbox_to_geom((west, south, 180.0, north)),
+                 bbox_to_geom((-180.0, south, east - 360.0, north))]  # fmt: skip
+        geom = {"type": "MultiPolygon", "coordinates": [g["coordinates"] for g in sides]}
+        return {"bbox": [west, south, east - 360.0, north], "footprint": geom}
+    return {"bbox": bbox, "footprint": bbox_to_geom(bbox)}
 
 
 def _run_time(summary: Mapping[str, Any]) -> datetime:
