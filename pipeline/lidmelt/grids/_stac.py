@@ -259,14 +259,16 @@ def _footprint(run_dir: Path, summary: Mapping[str, Any]) -> dict[str, Any]:
     from rio_stac.stac import get_dataset_geom
 
     grid = summary["grid"]
+    # one cell spanning the whole grid (same corners, same bounds): no grid-sized memory
+    whole = rasterio.Affine.scale(int(grid["width"]), int(grid["height"]))
     profile = {
         "driver": "MEM",
-        "width": int(grid["width"]),
-        "height": int(grid["height"]),
+        "width": 1,
+        "height": 1,
         "count": 1,
         "dtype": "uint8",
         "crs": rasterio.crs.CRS.from_wkt(grid["crs_wkt"]),
-        "transform": rasterio.Affine(*grid["transform"][:6]),
+        "transform": rasterio.Affine(*grid["transform"][:6]) * whole,
     }
     with rasterio.MemoryFile() as mem, mem.open(**profile) as src:
         return _wrapped(get_dataset_geom(src, densify_pts=_DENSIFY, precision=_PRECISION))
