@@ -40,6 +40,7 @@ from pystac.extensions.raster import DataType, RasterBand, RasterExtension, Stat
 from lidmelt._files import write_json_atomic
 from lidmelt._variables import ensemble_variable
 from lidmelt.grids._manifest import CATALOGUE_NAMES, COLLECTION_NAME, ITEM_NAME
+from lidmelt.grids._rundir import SUMMARY_NAME
 
 #: Points added along each edge of the footprint before it is reprojected to WGS 84.
 _DENSIFY = 20
@@ -87,7 +88,7 @@ def write_run_catalogue(run_dir: str | Path) -> list[Path]:
     Reads ``summary.json`` and every file's header (GeoTIFFs); returns the paths written.
     """
     run_dir = Path(run_dir)
-    summary = json.loads((run_dir / "summary.json").read_text(encoding="utf-8"))
+    summary = json.loads((run_dir / SUMMARY_NAME).read_text(encoding="utf-8"))
     files = run_files(run_dir)
     item = run_item(run_dir, summary, files)
     written = []
@@ -187,7 +188,7 @@ def _roles(path: Path) -> list[str]:
     """The asset's roles (STAC's common roles where one fits)."""
     if path.parts[0] == "maps" or path.suffix.lower() == ".png":
         return ["overview", "visual"]
-    if path.name == "summary.json":
+    if path.name == SUMMARY_NAME:
         return ["metadata"]
     if path.stem.startswith("report"):
         return ["metadata", "report"]
