@@ -50,6 +50,46 @@ class Mutation:
 
 MUTATIONS: tuple[Mutation, ...] = (
     Mutation(
+        "STAC shape order",
+        PKG + "grids/_stac.py",
+        'proj.shape = [int(n) for n in info["shape"]]',
+        'proj.shape = [int(n) for n in info["shape"]][::-1]',
+        "the Item's proj:shape gives [columns, rows] instead of [rows, columns]",
+        ("tests/test_stac.py::test_raster_assets_match_their_geotiff_headers",),
+    ),
+    Mutation(
+        "STAC footprint CRS",
+        PKG + "grids/_stac.py",
+        '"crs": rasterio.crs.CRS.from_wkt(grid["crs_wkt"]),',
+        '"crs": rasterio.crs.CRS.from_epsg(4326),',
+        "the footprint is taken as WGS 84 whatever the grid's CRS (no reprojection)",
+        ("tests/test_stac.py::test_projected_grid_footprint_is_reprojected_to_wgs84",),
+    ),
+    Mutation(
+        "STAC antimeridian",
+        PKG + "grids/_stac.py",
+        "    if east <= 180.0:\n        return found",
+        "    if east <= 360.0:\n        return found",
+        "a footprint in 0-360 longitudes is left past 180 E (not RFC 7946)",
+        ("tests/test_stac.py::test_longitudes_past_180_are_wrapped",),
+    ),
+    Mutation(
+        "STAC statistics swapped",
+        PKG + "grids/_stac.py",
+        'minimum=stats["min"], maximum=stats["max"]',
+        'minimum=stats["max"], maximum=stats["min"]',
+        "the raster band's minimum and maximum are swapped",
+        ("tests/test_stac.py::test_raster_assets_match_their_geotiff_headers",),
+    ),
+    Mutation(
+        "STAC catalogue in the manifest",
+        PKG + "grids/_manifest.py",
+        "rel not in FIGURE_NAMES | CATALOGUE_NAMES",
+        "rel not in FIGURE_NAMES",
+        "a resealed run takes its STAC Item into the manifest the Item lists",
+        ("tests/test_stac.py::test_a_resealed_run_keeps_the_catalogue_outside_its_manifest",),
+    ),
+    Mutation(
         "latent-heat sign",
         PKG + "physics/_column.py",
         "- abar * self.dp_pa + self.ds * (f - self.f0), t1",

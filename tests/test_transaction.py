@@ -24,7 +24,7 @@ from lidmelt._engine import run_basin
 from lidmelt._errors import InputError, RunDirError
 from lidmelt.cli import main
 from lidmelt.grids._grid import Grid
-from lidmelt.grids._manifest import MANIFEST_KEY, verify_manifest
+from lidmelt.grids._manifest import ITEM_NAME, MANIFEST_KEY, verify_manifest
 from lidmelt.grids._rundir import SUMMARY_NAME
 from lidmelt.grids._transaction import RunLock, RunTransaction, leftovers, lock_path
 from lidmelt.workflow import load_workflow
@@ -48,6 +48,7 @@ RUN_FILES = {  # what a run of runkit.basin() writes (registry names; identity)
     "deep_melt_share.tif",
     "summary.json",
     "validity_flag.tif",
+    "stac_item.json",  # the run's STAC Item, written last (docs/stac.md)
 }
 
 
@@ -64,7 +65,8 @@ def test_a_run_leaves_its_folder_and_nothing_beside_it(first_run):
     assert set(runkit.snapshot(res.run_dir)) == RUN_FILES
     assert [p.name for p in res.run_dir.parent.iterdir()] == ["run"]  # no lock, no staging
     summary = json.loads((res.run_dir / SUMMARY_NAME).read_text())
-    assert set(summary[MANIFEST_KEY]["files"]) == RUN_FILES - {SUMMARY_NAME}
+    # the summary and the STAC Item (which lists the sealed summary) are outside the manifest
+    assert set(summary[MANIFEST_KEY]["files"]) == RUN_FILES - {SUMMARY_NAME, ITEM_NAME}
     for name, entry in summary[MANIFEST_KEY]["files"].items():
         assert entry["size"] == (res.run_dir / name).stat().st_size
         assert entry["sha256"] == runkit.snapshot(res.run_dir)[name]

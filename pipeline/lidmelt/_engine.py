@@ -54,6 +54,7 @@ from lidmelt.grids import _rundir as rundir
 from lidmelt.grids._area import cell_area_km2, row_areas_km2
 from lidmelt.grids._grid import Grid
 from lidmelt.grids._runnetcdf import write_run_netcdf
+from lidmelt.grids._stac import write_run_catalogue
 from lidmelt.grids._store import GeoTiffItem, GeoTiffSet
 from lidmelt.grids._transaction import RunTransaction
 from lidmelt.physics import FLAG_MEANINGS, evaluate_cells
@@ -492,6 +493,7 @@ def run_basin(
         rundir.seal_run(tx.staging, result.summary, sources=result.sources)
         result.timings_s["seal_s"] = time.perf_counter() - t0
         drawn = list(products(tx.staging)) if products else []
+        drawn += write_run_catalogue(tx.staging)  # STAC: lists every file, so written last
         t1 = time.perf_counter()
         tx.commit()
         result.timings_s["commit_s"] = time.perf_counter() - t1

@@ -3,7 +3,8 @@
 A run records in ``summary.json`` a ``manifest`` {``files`` {relative name: {``size``,
 ``sha256``}}} of every file it wrote except the summary itself and the figures (``maps/``,
 ``report.html``, ``report.pdf``: derived products that ``lidmelt map`` and ``lidmelt report``
-may redraw in place at any time, so they live outside the manifest), and ``summary_sha256``, the
+may redraw in place at any time, so they live outside the manifest; and the STAC Item and
+Collection, written after them), and ``summary_sha256``, the
 SHA-256 of the summary's canonical JSON (sorted keys, no blanks) without that key. Before a run
 is swapped into place, :func:`check_written` checks every file (each GeoTIFF's blocks lie inside
 the file, the flag grid read back completely, the NetCDF read variable by variable in row bands,
@@ -34,6 +35,12 @@ MANIFEST_KEY = "manifest"
 SUMMARY_HASH_KEY = "summary_sha256"
 #: Names (first path part) of derived figures, outside the manifest.
 FIGURE_NAMES = frozenset({"maps", "report.html", "report.pdf"})
+#: The run's STAC Item and (ensemble) Collection (:mod:`lidmelt.grids._stac`): written last,
+#: after the seal and the figures, since they list every file of the run (the summary with its
+#: manifest included), so they are outside the manifest.
+ITEM_NAME = "stac_item.json"
+COLLECTION_NAME = "stac_collection.json"
+CATALOGUE_NAMES = frozenset({ITEM_NAME, COLLECTION_NAME})
 #: Rows per band when a NetCDF variable is read back.
 _NC_ROWS = 512
 #: Files read back (or hashed) at once: GDAL, HDF5 and hashlib release the GIL while they work.
@@ -74,7 +81,7 @@ def _manifest_files(folder: Path, summary_name: str) -> list[str]:
         dirs[:] = sorted(d for d in dirs if not (rel_root == Path() and d in FIGURE_NAMES))
         for name in sorted(files):
             rel = (rel_root / name).as_posix()
-            if rel != summary_name and rel not in FIGURE_NAMES:
+            if rel != summary_name and rel not in FIGURE_NAMES | CATALOGUE_NAMES:
                 names.append(rel)
     return names
 
