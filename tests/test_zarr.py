@@ -89,9 +89,9 @@ def test_store_has_cf_attributes_chunks_and_consolidated_metadata(runs):
         assert (var.attrs.get("grid_mapping") or var.encoding["grid_mapping"]) == "spatial_ref"
         assert var.encoding["preferred_chunks"] == {"y": 24, "x": 36}, name  # grid < 64
         assert var.rio.crs == crs, name
-    assert ds["melt_thickness_km"].attrs["_FillValue"] != ds["melt_thickness_km"].attrs[
-        "_FillValue"
-    ]  # NaN, as the GeoTIFFs' nodata
+    assert (
+        ds["melt_thickness_km"].attrs["_FillValue"] != ds["melt_thickness_km"].attrs["_FillValue"]
+    )  # NaN, as the GeoTIFFs' nodata
     flag = ds[FLAG_VARIABLE.name].attrs
     assert flag["_FillValue"] == 255
     assert list(flag["flag_masks"]) == sorted(FLAG_KEYS)
@@ -122,7 +122,7 @@ def test_store_chunks_are_the_runs_chunks(tmp_path):
 
 
 def test_products_read_a_run_without_geotiffs(runs, tmp_path):
-    wf, plain, _, only = runs
+    _, plain, _, only = runs
     assert not list(only.glob("*.tif"))
     a, b = open_run(plain), open_run(only)
     assert a.outputs == b.outputs
@@ -139,7 +139,7 @@ def test_products_read_a_run_without_geotiffs(runs, tmp_path):
     rows = {k: list(csv.reader(v.open())) for k, v in out.items()}
     assert rows["plain"] == rows["only"]
     assert len(rows["only"]) == 4
-    with pytest.raises(RunDirError, match="outputs.geotiff = true"):
+    with pytest.raises(RunDirError, match=r"outputs\.geotiff = true"):
         b.file("melt_thickness_km")  # a command that reads GeoTIFFs is told why
 
 
@@ -169,6 +169,55 @@ def test_formats_that_cannot_go_together_are_refused(runs):
     with pytest.raises(WorkflowError, match="zarr = true"):
         load_workflow(wf, overrides=["outputs.geotiff=false", "outputs.zarr=false"])
     cfg = load_workflow(wf, overrides=["outputs.geotiff=false"])  # the basin has run.netcdf
-    with pytest.raises(WorkflowError, match="run.netcdf = true"):
+    with pytest.raises(WorkflowError, match=r"run\.netcdf = true"):
         run_basin(cfg, output_dir=wf.parent / "never", progress=False)
     assert not (wf.parent / "never").exists()
+
+
+@pytest.mark.slow
+def test_workers_write_the_store_on_a_cluster(tmp_path, monkeypatch):
+    import dask.array.core
+    import distributed
+
+    from test_cluster import _basin, _cluster
+
+    class StoreTasks(distributed.WorkerPlugin):  # counts the chunks each worker stored
+        name = "store-tasks"
+
+        def setup(self, worker):
+            self.done = []
+
+        def transition(self, key, start, finish, **kwargs):
+            # a chunk stored: dask.array.store's task (the getitem of its result is none)
+            if start == "executing" and finish == "memory" and str(key).startswith("('store-map"):
+                self.done.append(str(key))
+
+    here = []  # chunks stored in this process (the run's): wrapped where dask stores a chunk
+    real = dask.array.core.load_store_chunk
+
+    def counted(*args, **kwargs):
+        here.append(1)
+        return real(*args, **kwargs)
+
+    monkeypatch.setattr(dask.array.core, "load_store_chunk", counted)
+    wf = _basin(tmp_path / "in", extra=ZARR)
+    overrides = ["outputs.geotiff=false", "run.netcdf=false"]
+    cfg = load_workflow(wf, overrides=overrides)
+    threads = run_basin(cfg, output_dir=tmp_path / "threads", progress=False)
+    arrays = len(threads.summary["zarr"]["variables"])  # outputs, inputs and the flags
+    assert len(here) == 10 * 3 * arrays  # threads: every chunk of every array stored here
+    here.clear()
+    with _cluster() as cluster, distributed.Client(cluster) as client:
+        client.register_plugin(StoreTasks())
+        at = f'compute.scheduler="{cluster.scheduler_address}"'
+        cfg = load_workflow(wf, overrides=[*overrides, at])
+        other = run_basin(cfg, output_dir=tmp_path / "cluster", progress=False)
+        done = client.run(lambda dask_worker: dask_worker.plugins["store-tasks"].done)
+    assert here == []  # no chunk was stored by the run's process
+    keys = [k for keys in done.values() for k in keys]
+    assert len(set(keys)) == len(keys) == 10 * 3 * arrays  # every one by a worker, once
+    a = xr.open_zarr(threads.run_dir / ZARR_NAME, mask_and_scale=False)
+    b = xr.open_zarr(other.run_dir / ZARR_NAME, mask_and_scale=False)
+    for name in a.data_vars:
+        assert a[name].values.tobytes() == b[name].values.tobytes(), name
+    assert threads.summary["statistics"] == other.summary["statistics"]
