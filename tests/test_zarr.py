@@ -22,7 +22,6 @@ import rasterio
 import xarray as xr
 import zarr
 
-import runkit
 from lidmelt._engine import run_basin
 from lidmelt._errors import RunDirError, WorkflowError
 from lidmelt._variables import FLAG_VARIABLE, INPUTS, OUTPUTS
@@ -37,9 +36,12 @@ ZARR = "[outputs]\nzarr = true\n"
 
 @pytest.fixture(scope="module")
 def runs(tmp_path_factory):
-    """The tiny basin run three ways: GeoTIFFs only, GeoTIFFs and the store, the store only."""
+    """The cluster tests' basin (640 x 160 cells, chunks of 64: 10 x 3 chunks, two bands of
+    rows) run three ways: GeoTIFFs only, GeoTIFFs and the store, the store only."""
+    from test_cluster import _basin
+
     folder = tmp_path_factory.mktemp("zarr")
-    wf = runkit.basin(folder / "in", extra=ZARR)
+    wf = _basin(folder / "in", extra=ZARR)
     both = run_basin(load_workflow(wf), output_dir=folder / "both", progress=False).run_dir
     only = run_basin(
         load_workflow(wf, overrides=["outputs.geotiff=false", "run.netcdf=false"]),
@@ -87,7 +89,7 @@ def test_store_has_cf_attributes_chunks_and_consolidated_metadata(runs):
         assert var.attrs["units"] == registry.units, name
         assert var.attrs["long_name"] == registry.long_name, name
         assert (var.attrs.get("grid_mapping") or var.encoding["grid_mapping"]) == "spatial_ref"
-        assert var.encoding["preferred_chunks"] == {"y": 24, "x": 36}, name  # grid < 64
+        assert var.encoding["preferred_chunks"] == {"y": 64, "x": 64}, name  # chunk_size
         assert var.rio.crs == crs, name
     assert (
         ds["melt_thickness_km"].attrs["_FillValue"] != ds["melt_thickness_km"].attrs["_FillValue"]
@@ -109,16 +111,12 @@ def test_store_has_cf_attributes_chunks_and_consolidated_metadata(runs):
     assert f"{ZARR_NAME}/melt_thickness_km/c/0/0" in manifest  # every chunk is in the manifest
 
 
-def test_store_chunks_are_the_runs_chunks(tmp_path):
-    # a grid larger than one chunk: 640 x 160 cells in chunks of 64 (the cluster tests' basin)
-    from test_cluster import _basin
-
-    wf = _basin(tmp_path / "in", extra=ZARR)
-    cfg = load_workflow(wf, overrides=["outputs.geotiff=false", "run.netcdf=false"])
-    run = run_basin(cfg, output_dir=tmp_path / "out", progress=False).run_dir
-    array = zarr.open_array(str(run / ZARR_NAME), path="melt_thickness_km", mode="r")
-    assert array.chunks == (64, 64)
-    assert array.nchunks_initialized == array.nchunks == 10 * 3
+def test_every_chunk_is_written(runs):
+    only = runs[3]
+    for name in open_run(only).summary["zarr"]["variables"]:
+        array = zarr.open_array(str(only / ZARR_NAME), path=name, mode="r")
+        assert array.chunks == (64, 64)
+        assert array.nchunks_initialized == array.nchunks == 10 * 3, name
 
 
 def test_products_read_a_run_without_geotiffs(runs, tmp_path):
@@ -131,7 +129,7 @@ def test_products_read_a_run_without_geotiffs(runs, tmp_path):
         xr.testing.assert_identical(a.open(name), b.open(name))
     np.testing.assert_array_equal(read_flags(a).values, read_flags(b).values)
     stations = tmp_path / "stations.csv"
-    stations.write_text("name,lon,lat\nA,-25.0,7.0\nB,-27.3,8.1\nC,-20.0,1.0\n")
+    stations.write_text("name,lon,lat\nA,-25.0,7.0\nB,-27.3,8.1\nC,-23.0,-15.0\n")
     out = {}
     for run in (plain, only):
         out[run.name] = tmp_path / f"{run.name}.csv"
@@ -221,3 +219,22 @@ def test_workers_write_the_store_on_a_cluster(tmp_path, monkeypatch):
     for name in a.data_vars:
         assert a[name].values.tobytes() == b[name].values.tobytes(), name
     assert threads.summary["statistics"] == other.summary["statistics"]
+
+
+@pytest.mark.slow
+def test_an_ensembles_layers_join_the_store(tmp_path):
+    from test_ensemble import run_ensemble
+
+    vary = '"model.ambient_potential_temperature_c" = { uniform = [1300.0, 1450.0] }'
+    run = run_ensemble(tmp_path, "ens", vary=vary, members=8, extra=["outputs.zarr=true"])
+    layers = [n for n in run.summary["outputs"] if n not in OUTPUTS]
+    assert len(layers) >= 4  # the probability and the percentiles of the ensemble
+    ds = xr.open_zarr(run.run_dir / ZARR_NAME, mask_and_scale=False)
+    tifs = sorted(run.run_dir.glob("*.tif"))
+    assert sorted(ds.data_vars) == sorted(p.stem.removeprefix("input_") for p in tifs)
+    for tif in tifs:
+        name = tif.stem.removeprefix("input_")
+        assert ds[name].values.tobytes() == _raw(tif).tobytes(), name
+    for name in layers:
+        assert ds[name].attrs["units"] == run.summary["outputs"][name]["units"], name
+    assert open_run(run.run_dir).open(layers[0]).shape == ds[layers[0]].shape

@@ -407,12 +407,17 @@ def store_with_statistics(
         extra = functools.partial(lambda base, rows: [*base(rows), store.band(rows)], extra)
     rows = 2 * ref_chunks[0][0]
     t0 = time.perf_counter()
-    with GeoTiffSet(items, cog=cog, verify=False) as out:
-        bands = out.compute(
-            extra=extra, band_rows=rows, num_workers=workers, report=report, scheduler=scheduler,
-            height=lazy.stacked.shape[1],
-        )  # fmt: skip
-        t1 = time.perf_counter()
+    try:
+        with GeoTiffSet(items, cog=cog, verify=False) as out:
+            bands = out.compute(
+                extra=extra, band_rows=rows, num_workers=workers, report=report,
+                scheduler=scheduler, height=lazy.stacked.shape[1],
+            )  # fmt: skip
+            t1 = time.perf_counter()
+    except BaseException:
+        if store is not None:  # threads may still be writing chunks into the staged store
+            store.close()
+        raise
     bands = [band[:-1] for band in bands] if store is not None else bands
     lazy.clock["store_s"] = t1 - t0
     lazy.clock["finish_files_s"] = time.perf_counter() - t1

@@ -16,11 +16,19 @@ to the run's process; with local threads the same tasks run on the threads. The 
 the store's chunks (the run's ``chunk_size``), so no two tasks write the same chunk and no lock
 is needed. Every chunk is written, even one that holds only fill values, so a missing chunk is
 a damaged store (:func:`check_store`).
+
+zarr does its I/O on a thread of its own: a write the run's process waits for goes on after an
+interrupt, and would make the staging folder again after the run removed it. So the writes of
+the run's process (the metadata, the layers of further stages, the consolidation) hold SIGINT
+and SIGTERM back until they are done
+(:func:`lidmelt.grids._transaction.signals_deferred`), and the chunk writes of dask threads are
+waited for, and later ones dropped, when the run stops (:meth:`RunStore.close`).
 """
 
 from __future__ import annotations
 
 import contextlib
+import threading
 import warnings
 from collections.abc import Mapping
 from dataclasses import dataclass
@@ -32,6 +40,8 @@ import xarray as xr
 
 from lidmelt._errors import RunDirError
 from lidmelt.grids._geotiff import check_dtype_nodata, convert_block, to_json
+from lidmelt.grids._grid import transform_of
+from lidmelt.grids._transaction import signals_deferred
 
 #: The Zarr format of the run's store (module docstring: why 3).
 ZARR_FORMAT = 3
@@ -67,12 +77,16 @@ def _root_attrs(tags: Mapping[str, Any]) -> dict[str, Any]:
 
 def _dataset(layers: list[StoreLayer], tags: Mapping[str, Any], chunks: int):
     """The store's Dataset (lazy data) and its encoding: chunks, dtypes, fill values."""
+    from rioxarray.rioxarray import affine_to_coords
+
     first = layers[0].da
-    crs = first.rio.crs
+    crs, transform = first.rio.crs, transform_of(first)
+    # the cell centres as rioxarray gives them from a GeoTIFF's transform: the same floats
+    coords = affine_to_coords(transform, first.sizes["x"], first.sizes["y"])
     data, encoding = {}, {}
     for layer in layers:
         dtype = np.dtype(layer.dtype)
-        da = xr.DataArray(layer.da.data, coords={"y": first["y"], "x": first["x"]}, dims=("y", "x"))
+        da = xr.DataArray(layer.da.data, coords=coords, dims=("y", "x"))
         da.attrs = dict(layer.attrs)
         data[layer.name] = da
         shape = (min(chunks, da.sizes["y"]), min(chunks, da.sizes["x"]))
@@ -82,12 +96,50 @@ def _dataset(layers: list[StoreLayer], tags: Mapping[str, Any], chunks: int):
             "_FillValue": _fill(dtype, layer.nodata),
         }
     ds = xr.Dataset(data).rio.write_crs(crs)  # the grid_mapping variable "spatial_ref" (CF)
-    ds = ds.rio.write_transform(first.rio.transform())  # GDAL's GeoTransform, as in the GeoTIFFs
+    ds = ds.rio.write_transform(transform)  # GDAL's GeoTransform, as in the GeoTIFFs
     for name in data:
         ds[name].encoding = {}
         ds[name].attrs["grid_mapping"] = "spatial_ref"
     ds.attrs = _root_attrs(tags)
     return ds, encoding
+
+
+class _Region:
+    """A :func:`dask.array.store` target writing into one array of the store, that can be
+    closed: a run interrupted while dask threads write waits for the writes in progress and
+    drops later ones (the staging folder is being removed: a late chunk would make it again).
+    A copy sent to a worker writes only while the store's folder exists (a path; a URL always).
+    """
+
+    def __init__(self, array: Any, root: str) -> None:
+        self.array, self.root = array, root
+        self._cond = threading.Condition()
+        self._busy = 0
+        self._closed = False
+
+    def __getstate__(self) -> dict[str, Any]:
+        return {"array": self.array, "root": self.root}
+
+    def __setstate__(self, state: dict[str, Any]) -> None:
+        self.__init__(state["array"], state["root"])
+
+    def __setitem__(self, key: Any, value: Any) -> None:
+        with self._cond:
+            if self._closed or not ("://" in self.root or Path(self.root).is_dir()):
+                return
+            self._busy += 1
+        try:
+            self.array[key] = value
+        finally:
+            with self._cond:
+                self._busy -= 1
+                self._cond.notify_all()
+
+    def close(self) -> None:
+        """Wait for the writes in progress; drop any later one."""
+        with self._cond:
+            self._closed = True
+            self._cond.wait_for(lambda: self._busy == 0)
 
 
 class RunStore:
@@ -109,15 +161,20 @@ class RunStore:
         import zarr
 
         ds, encoding = _dataset(self.layers, tags, self.chunks)
-        ds.to_zarr(
-            self.store, mode="w-", compute=False, consolidated=False, zarr_format=ZARR_FORMAT,
-            encoding=encoding, write_empty_chunks=True,
-        )  # fmt: skip
-        self._targets = [
-            zarr.open_array(self.store, path=layer.name, mode="r+").with_config(_CONFIG)
-            for layer in self.layers
-        ]
+        with signals_deferred():  # zarr's I/O thread would finish after an interrupt (below)
+            ds.to_zarr(
+                self.store, mode="w-", compute=False, consolidated=False, zarr_format=ZARR_FORMAT,
+                encoding=encoding, write_empty_chunks=True,
+            )  # fmt: skip
+        arrays = [zarr.open_array(self.store, path=x.name, mode="r+") for x in self.layers]
+        self._targets = [_Region(a.with_config(_CONFIG), self.store) for a in arrays]
         return self
+
+    def close(self) -> None:
+        """Stop writing (an interrupted run): wait for the chunks being written by this
+        process's threads, drop later ones."""
+        for target in self._targets:
+            target.close()
 
     def band(self, rows: slice) -> Any:
         """One delayed task writing rows ``rows`` of every array, chunk by chunk, where the
@@ -139,10 +196,11 @@ class RunStore:
             return
         ds, encoding = _dataset(layers, {}, self.chunks)
         ds.attrs = {}
-        ds.to_zarr(
-            self.store, mode="a", consolidated=False, zarr_format=ZARR_FORMAT,
-            encoding=encoding, write_empty_chunks=True,
-        )  # fmt: skip
+        with signals_deferred():
+            ds.to_zarr(
+                self.store, mode="a", consolidated=False, zarr_format=ZARR_FORMAT,
+                encoding=encoding, write_empty_chunks=True,
+            )  # fmt: skip
         self.layers = [*self.layers, *layers]
 
     def finish(self) -> None:
@@ -150,7 +208,7 @@ class RunStore:
         the store only once every chunk is there)."""
         import zarr
 
-        with _quiet():
+        with _quiet(), signals_deferred():
             zarr.consolidate_metadata(self.store, zarr_format=ZARR_FORMAT)
 
 
