@@ -50,6 +50,38 @@ class Mutation:
 
 MUTATIONS: tuple[Mutation, ...] = (
     Mutation(
+        "Zarr band rows reversed",
+        PKG + "grids/_zarr.py",
+        "part = layer.da.data[rows]",
+        "part = layer.da.data[rows][::-1]",
+        "each band of the Zarr store written upside down (every chunk there, wrong values)",
+        ("tests/test_zarr.py::test_store_equals_every_geotiff_bit_for_bit",),
+    ),
+    Mutation(
+        "Zarr missing chunk passes",
+        PKG + "grids/_zarr.py",
+        "if array.nchunks_initialized != array.nchunks:",
+        "if array.nchunks_initialized > array.nchunks:",
+        "the seal's check of the store lets a missing chunk through",
+        ("tests/test_zarr.py::test_a_damaged_store_is_refused",),
+    ),
+    Mutation(
+        "Zarr-only run reads the wrong array",
+        PKG + "grids/_rundir.py",
+        "da = open_variable(self.path / ZARR_NAME, name)",
+        "da = open_variable(self.path / ZARR_NAME, self.outputs[0])",
+        "a run without GeoTIFFs gives every product the first output's array",
+        ("tests/test_zarr.py::test_products_read_a_run_without_geotiffs",),
+    ),
+    Mutation(
+        "Zarr flag masks",
+        PKG + "_run_store.py",
+        'attrs["flag_masks"] = np.array(bits, dtype=np.uint8)',
+        'attrs["flag_masks"] = np.array(bits[1:], dtype=np.uint8)',
+        "the store's validity flags lose their first CF flag mask",
+        ("tests/test_zarr.py::test_store_has_cf_attributes_chunks_and_consolidated_metadata",),
+    ),
+    Mutation(
         "latent-heat sign",
         PKG + "physics/_column.py",
         "- abar * self.dp_pa + self.ds * (f - self.f0), t1",
