@@ -26,6 +26,7 @@ from typing import Any, NamedTuple
 import numpy as np
 import xarray as xr
 
+from lidmelt import _run_store as run_store
 from lidmelt._cluster import connect
 from lidmelt._progress import band_reporter
 from lidmelt._run_inputs import (
@@ -41,13 +42,6 @@ from lidmelt._run_inputs import (
     load_model,
     refuse_without_data,
     resolve_target_grid,
-)
-from lidmelt._run_store import (
-    add_stage_layers,
-    check_formats,
-    flag_source,
-    plan_store,
-    record_formats,
 )
 from lidmelt._statistics import ambient_melting_warnings, band_parts, summarize_bands
 from lidmelt._variables import (
@@ -418,7 +412,9 @@ def store_with_statistics(
         if store is not None:  # threads may still be writing chunks into the staged store
             store.close()
         raise
-    bands = [band[:-1] for band in bands] if store is not None else bands
+    if store is not None:  # consolidated now, so a refused run's flags can be read back
+        store.finish()
+        bands = [band[:-1] for band in bands]
     lazy.clock["store_s"] = t1 - t0
     lazy.clock["finish_files_s"] = time.perf_counter() - t1
     return summarize_bands(bands, names=names, integrals=integrals)
@@ -524,7 +520,7 @@ def _run_staged(
     """Every stage of a run, writing into ``run_dir`` (the staging folder); ``client``: a
     dask.distributed client computes the chunks, or None (local threads)."""
     t0 = time.perf_counter()
-    check_formats(cfg)
+    run_store.check_formats(cfg)
     chunks = int(cfg.compute.chunk_size)
     model, table = load_model(cfg)
     timings = {"table_s": time.perf_counter() - t0}
@@ -543,7 +539,7 @@ def _run_staged(
     items = plan_geotiffs(
         run_dir, lazy=lazy, inputs=inputs, template=template, chunks=chunks, tags=tags
     )
-    store = plan_store(cfg, run_dir, items, tags=tags)
+    store = run_store.plan_store(cfg, run_dir, items, tags=tags)
     t1 = time.perf_counter()
     statistics = store_with_statistics(
         items if cfg.outputs.geotiff else [],
@@ -556,11 +552,8 @@ def _run_staged(
         cog=cfg.outputs.cloud_optimized,
         store=store,
     )
-    if store is not None:
-        store.finish()  # consolidated now, so a refused run's flags can be read back
-    refuse_without_data(
-        cfg, inputs=inputs, statistics=statistics, flag_path=flag_source(cfg, run_dir), model=model
-    )
+    flags = run_store.flag_source(cfg, run_dir)
+    refuse_without_data(cfg, inputs=inputs, statistics=statistics, flag_path=flags, model=model)
     run_warnings = ambient_melting_warnings(
         statistics, ambient_c=cfg.model.ambient_potential_temperature_c, issue=True
     )
@@ -594,8 +587,9 @@ def _run_staged(
         warnings=run_warnings,
         extra={"water_load": inputs.water_load[2], **staged},
     )
-    add_stage_layers(store, run_dir, staged)
-    summary = record_formats(rundir.build_summary(cfg, record), store, cfg.outputs.geotiff)
+    run_store.add_stage_layers(store, run_dir, staged)
+    summary = rundir.build_summary(cfg, record)
+    summary = run_store.record_formats(summary, store, cfg.outputs.geotiff)
     files.append(run_dir / rundir.SUMMARY_NAME)
     timings["total_s"] = time.perf_counter() - t0
     return RunResult(run_dir, files, summary, timings, inputs.sources())
