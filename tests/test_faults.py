@@ -74,7 +74,11 @@ MOMENTS = {
     "GeoTIFFs being written": lambda parent: runkit.staged(parent, "run", "*.tif*"),
     "NetCDF being written": lambda parent: runkit.staged(parent, "run", "*.nc*"),
     "summary written": lambda parent: runkit.staged(parent, "run", "summary.json"),
+    # a run with [outputs] zarr = true: the first chunks of its store are there
+    "Zarr store being written": lambda parent: runkit.staged(parent, "run", "lidmelt.zarr/*/c"),
 }
+#: The moments of every run (the GeoTIFF run's); the store's is tried with a store's run.
+RUN_MOMENTS = [m for m in MOMENTS if "Zarr" not in m]
 SIGNALS = {
     "SIGKILL": (signal.SIGKILL, -9),
     "SIGTERM": (signal.SIGTERM, 143),
@@ -157,10 +161,35 @@ def test_sigint_while_writing_keeps_the_old_run(tiny, tmp_path):
 
 
 @pytest.mark.slow
-@pytest.mark.parametrize("moment", list(MOMENTS))
+@pytest.mark.parametrize("moment", RUN_MOMENTS)
 @pytest.mark.parametrize("sig_name", list(SIGNALS))
 def test_killed_run_keeps_the_old_run(tiny, tmp_path, moment, sig_name):
     kill_at(tiny, tmp_path, moment, sig_name)
+
+
+@pytest.fixture(scope="module")
+def tiny_zarr(tmp_path_factory):
+    """The tiny basin writing its Zarr store too, and a finished run of it (the 'old' run)."""
+    folder = tmp_path_factory.mktemp("faults_zarr")
+    wf = runkit.basin(folder / "in", extra="[outputs]\nzarr = true\n")
+    out = folder / "ref" / "run"
+    done = runkit.lidmelt("run", str(wf), "-o", str(out), "--quiet")
+    assert done.returncode == 0, done.stderr
+    assert (out / "lidmelt.zarr" / "zarr.json").is_file()
+    return wf, out
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize(
+    ("moment", "sig_name"),
+    [
+        *(("Zarr store being written", s) for s in SIGNALS),
+        ("staging created", "SIGKILL"),
+        ("summary written", "SIGINT"),
+    ],
+)
+def test_killed_zarr_run_keeps_the_old_run(tiny_zarr, tmp_path, moment, sig_name):
+    kill_at(tiny_zarr, tmp_path, moment, sig_name)
 
 
 # ---- two runs at once ----------------------------------------------------------------------------

@@ -20,7 +20,7 @@ BASE = ["__init__", "errors", "variables", "files", "config", "config_tables"]
 LAYERS = [
     {"physics"},
     {"grids"},
-    {"engine", "cluster", "statistics", "progress", "run_inputs"},
+    {"engine", "cluster", "statistics", "progress", "run_inputs", "run_store"},
     {"ensemble", "motion"},
     {"products"},
     {"workflow"},

@@ -393,10 +393,13 @@ class OutputOptions:
     """The ``[outputs]`` table: which variables to write (default DEFAULT_OUTPUT_VARIABLES, plus
     the outputs that need an optional input when the workflow gives it), and whether the
     GeoTIFFs get the Cloud-Optimized layout (a second pass over every file; off by default,
-    see docs/workflow.md)."""
+    see docs/workflow.md), whether the run writes its Zarr store ``lidmelt.zarr`` and whether
+    it writes the GeoTIFFs (``geotiff = false`` needs ``zarr = true``)."""
 
     variables: tuple[str, ...] = DEFAULT_OUTPUT_VARIABLES
     cloud_optimized: bool = False
+    zarr: bool = False
+    geotiff: bool = True
 
 
 @dataclass(frozen=True, kw_only=True)

@@ -26,6 +26,7 @@ from typing import Any, NamedTuple
 import numpy as np
 import xarray as xr
 
+from lidmelt import _run_store as run_store
 from lidmelt._cluster import connect
 from lidmelt._progress import band_reporter
 from lidmelt._run_inputs import (
@@ -365,6 +366,7 @@ def store_with_statistics(
     inputs: RunInputs | None = None,
     scheduler: Any = None,
     cog: bool = False,
+    store: Any = None,
 ) -> dict[str, Any]:
     """Store every GeoTIFF and compute the summary statistics in one dask pass.
 
@@ -376,8 +378,10 @@ def store_with_statistics(
     Cloud-Optimized layout (``[outputs] cloud_optimized``). The files are only checked for structure
     here: the run checks every file before it is sealed (:func:`lidmelt.grids._rundir.seal_run`).
     ``scheduler``, a dask.distributed client (:func:`lidmelt._cluster.connect`), computes the
-    chunks on its workers; the files are written here. Returns the ``statistics`` entry of the
-    summary (:func:`lidmelt._statistics.summarize_bands`).
+    chunks on its workers; the files are written here. ``store``, the run's Zarr store
+    (:class:`lidmelt.grids._zarr.RunStore`), is written in the same pass by the tasks that
+    compute the chunks (on the workers with ``scheduler``). Returns the ``statistics`` entry of
+    the summary (:func:`lidmelt._statistics.summarize_bands`).
     """
     names = list(lazy.outputs)
     out_index = [k for k, name in enumerate(OUTPUTS) if name in lazy.outputs]
@@ -394,13 +398,24 @@ def store_with_statistics(
         out_index=out_index,
         integrals=[list(OUTPUTS).index(n) for n in integrals],
     )
+    if store is not None:  # the band's store task joins its statistics (dropped from results)
+        extra = functools.partial(lambda base, rows: [*base(rows), store.band(rows)], extra)
     rows = 2 * ref_chunks[0][0]
     t0 = time.perf_counter()
-    with GeoTiffSet(items, cog=cog, verify=False) as out:
-        bands = out.compute(
-            extra=extra, band_rows=rows, num_workers=workers, report=report, scheduler=scheduler
-        )
-        t1 = time.perf_counter()
+    try:
+        with GeoTiffSet(items, cog=cog, verify=False) as out:
+            bands = out.compute(
+                extra=extra, band_rows=rows, num_workers=workers, report=report,
+                scheduler=scheduler, height=lazy.stacked.shape[1],
+            )  # fmt: skip
+            t1 = time.perf_counter()
+    except BaseException:
+        if store is not None:  # threads may still be writing chunks into the staged store
+            store.close()
+        raise
+    if store is not None:  # consolidated now, so a refused run's flags can be read back
+        store.finish()
+        bands = [band[:-1] for band in bands]
     lazy.clock["store_s"] = t1 - t0
     lazy.clock["finish_files_s"] = time.perf_counter() - t1
     return summarize_bands(bands, names=names, integrals=integrals)
@@ -507,6 +522,7 @@ def _run_staged(
     """Every stage of a run, writing into ``run_dir`` (the staging folder); ``client``: a
     dask.distributed client computes the chunks, or None (local threads)."""
     t0 = time.perf_counter()
+    run_store.check_formats(cfg)
     chunks = int(cfg.compute.chunk_size)
     model, table = load_model(cfg)
     timings = {"table_s": time.perf_counter() - t0}
@@ -525,9 +541,10 @@ def _run_staged(
     items = plan_geotiffs(
         run_dir, lazy=lazy, inputs=inputs, template=template, chunks=chunks, tags=tags
     )
+    store = run_store.plan_store(cfg, run_dir, items, tags=tags)
     t1 = time.perf_counter()
     statistics = store_with_statistics(
-        items,
+        items if cfg.outputs.geotiff else [],
         lazy=lazy,
         area=statistics_area(target, chunks=chunks),
         workers=int(cfg.compute.workers),
@@ -535,16 +552,17 @@ def _run_staged(
         inputs=inputs,
         scheduler=client,
         cog=cfg.outputs.cloud_optimized,
+        store=store,
     )
-    refuse_without_data(
-        cfg, inputs=inputs, statistics=statistics, flag_path=run_dir / rundir.FLAG_FILE, model=model
-    )
+    flags = run_store.flag_source(cfg, run_dir)
+    refuse_without_data(cfg, inputs=inputs, statistics=statistics, flag_path=flags, model=model)
     run_warnings = ambient_melting_warnings(
         statistics, ambient_c=cfg.model.ambient_potential_temperature_c, issue=True
     )
     timings["compute_and_write_s"] = time.perf_counter() - t1
     timings.update(lazy.clock)  # thread seconds inside the kernel (overlapping the I/O)
-    files = [item.path for item in items]
+    files = [item.path for item in items] if cfg.outputs.geotiff else []
+    files += [] if store is None else [run_dir / rundir.ZARR_NAME]
 
     if cfg.run.netcdf:
         t2 = time.perf_counter()
@@ -559,6 +577,7 @@ def _run_staged(
         cfg=cfg, run_dir=run_dir, target=target, inputs=inputs, model=model, table=table,
         cooling=cooling, tags=tags, progress=progress, client=client,
     )  # fmt: skip
+    staged = _run_stages(extra_stages, context, files)
     record = rundir.RunRecord(
         grid=target,
         model=model,
@@ -568,9 +587,11 @@ def _run_staged(
         outputs=list(lazy.outputs),
         statistics=statistics,
         warnings=run_warnings,
-        extra={"water_load": inputs.water_load[2], **_run_stages(extra_stages, context, files)},
+        extra={"water_load": inputs.water_load[2], **staged},
     )
+    run_store.add_stage_layers(store, run_dir, staged)
     summary = rundir.build_summary(cfg, record)
+    summary = run_store.record_formats(summary, store, cfg.outputs.geotiff)
     files.append(run_dir / rundir.SUMMARY_NAME)
     timings["total_s"] = time.perf_counter() - t0
     return RunResult(run_dir, files, summary, timings, inputs.sources())

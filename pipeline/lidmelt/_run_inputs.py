@@ -349,11 +349,18 @@ def refuse_without_data(cfg, *, inputs: RunInputs, statistics: dict, flag_path, 
         return
     import rasterio
 
-    from lidmelt._variables import FLAG_NODATA
+    from lidmelt._variables import FLAG_NODATA, FLAG_VARIABLE
     from lidmelt.physics import FLAG_MEANINGS
 
-    with rasterio.open(flag_path) as src:
-        counts = np.bincount(src.read(1).ravel(), minlength=256)
+    if Path(flag_path).suffix == ".zarr":  # a run without GeoTIFFs: its store's flag array
+        from lidmelt.grids._zarr import flag_counts
+
+        counts = np.zeros(256, np.int64)
+        for value, n in flag_counts(flag_path, FLAG_VARIABLE.name).items():
+            counts[value] = n
+    else:
+        with rasterio.open(flag_path) as src:
+            counts = np.bincount(src.read(1).ravel(), minlength=256)
     inside = int(counts[:FLAG_NODATA].sum())
     why = [
         f"{int(counts[[v for v in range(FLAG_NODATA) if v & bit]].sum()):,} of them: {text} "

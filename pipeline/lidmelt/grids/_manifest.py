@@ -28,6 +28,8 @@ import numpy as np
 
 from lidmelt._errors import RunDirError
 from lidmelt.grids._geotiff import check_blocks
+from lidmelt.grids._zarr import check_store
+from lidmelt.grids._zarr import flag_counts as store_flag_counts
 
 #: The summary's key holding the manifest.
 MANIFEST_KEY = "manifest"
@@ -213,7 +215,9 @@ def _check_netcdf(path: Path) -> None:
 
 def check_written(folder: str | Path, *, flag_file: str | None = None) -> FileCheck:
     """Check every file under ``folder``: GeoTIFFs whole (every block inside the file; the
-    ``flag_file`` read back completely), NetCDF and JSON must parse completely.
+    ``flag_file`` read back completely), NetCDF and JSON must parse completely, a Zarr store
+    (``*.zarr``) must have its consolidated metadata and every chunk of every array (its flag
+    array is read back completely where the run has no ``flag_file``).
 
     Returns the files' sizes and, for ``flag_file``, the count of cells per flag value.
 
@@ -251,4 +255,9 @@ def check_written(folder: str | Path, *, flag_file: str | None = None) -> FileCh
         for path, counts in zip(paths, pool.map(read, paths), strict=True):
             if path.relative_to(folder).as_posix() == flag_file:
                 check.flag_counts = counts or {}
+    for store in sorted(p for p in folder.glob("*.zarr") if p.is_dir()):
+        arrays = check_store(store)  # every chunk of every array there, metadata consolidated
+        flag = Path(flag_file).stem if flag_file else None
+        if flag in arrays and not (folder / str(flag_file)).is_file():
+            check.flag_counts = store_flag_counts(store, flag)
     return check

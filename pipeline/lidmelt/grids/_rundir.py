@@ -62,6 +62,7 @@ from lidmelt._variables import (
 )
 from lidmelt.grids._manifest import check_written, seal_summary, verify_manifest
 from lidmelt.grids._transaction import leftovers, lock_holder
+from lidmelt.grids._zarr import in_store, open_variable, store_flags, stored_names
 from lidmelt.physics import FLAG_MEANINGS
 from lidmelt.physics._flags import FLAG_INVALID_INPUT, FLAG_WATER_SATURATED
 
@@ -73,6 +74,8 @@ RUN_FORMAT_VERSION = 1
 FLAG_FILE = f"{FLAG_VARIABLE.name}.tif"
 #: The optional CF NetCDF of every output and aligned input.
 NETCDF_NAME = "lidmelt.nc"
+#: The optional Zarr store of every grid of the run (:mod:`lidmelt.grids._zarr`).
+ZARR_NAME = "lidmelt.zarr"
 
 
 def output_file(name: str) -> str:
@@ -136,11 +139,12 @@ class RunDir:
 
     def _listed_files(self) -> list[str]:
         """The files the summary lists (named by the registry, never by the summary)."""
-        names = [output_file(n) for n in self.outputs]
-        names += [input_file(n) for n in self.inputs]
-        if self.summary.get("validity_flag"):
+        store = [f"{ZARR_NAME}/zarr.json"] if stored_names(self.summary) else []
+        names = [output_file(n) for n in self.outputs if not in_store(self.summary, n)]
+        names += [input_file(n) for n in self.inputs if not in_store(self.summary, n)]
+        if self.summary.get("validity_flag") and not in_store(self.summary, FLAG_VARIABLE.name):
             names.append(FLAG_FILE)
-        return names
+        return names + store
 
     @property
     def outputs(self) -> list[str]:
@@ -151,14 +155,20 @@ class RunDir:
     @property
     def inputs(self) -> list[str]:
         """Names of the aligned inputs that have a grid file in this folder."""
-        entries = _entries(self.summary, "inputs")
-        return [
-            k for k, v in entries.items() if k in INPUTS and isinstance(v, dict) and v.get("file")
-        ]
+        entries, stored = _entries(self.summary, "inputs"), stored_names(self.summary)
+        known = [k for k, v in entries.items() if k in INPUTS and isinstance(v, dict)]
+        return [k for k in known if entries[k].get("file") or k in stored]
 
     def file(self, name: str) -> Path:
         """Path of the GeoTIFF holding output variable or aligned input ``name``."""
         for names, file_of in ((self.outputs, output_file), (self.inputs, input_file)):
+            if name in names and in_store(self.summary, name):
+                msg = (
+                    f"{name!r} of run {str(self.shown_path)!r} is in its {ZARR_NAME} only "
+                    "(outputs.geotiff = false); this command reads GeoTIFFs: run again with "
+                    "outputs.geotiff = true."
+                )
+                raise RunDirError(msg)
             if name in names:
                 return self.checked(file_of(name))
         valid = ", ".join(self.outputs + self.inputs)
@@ -172,9 +182,13 @@ class RunDir:
         """
         import rioxarray  # noqa: F401  (registers the .rio accessor)
 
-        path = self.file(name)
-        with xr.open_dataarray(path, engine="rasterio", mask_and_scale=True) as src:
-            da = src.squeeze("band", drop=True).load()
+        if in_store(self.summary, name) and name in self.outputs + self.inputs:
+            self.checked(f"{ZARR_NAME}/zarr.json")
+            da = open_variable(self.path / ZARR_NAME, name)
+        else:
+            path = self.file(name)
+            with xr.open_dataarray(path, engine="rasterio", mask_and_scale=True) as src:
+                da = src.squeeze("band", drop=True).load()
         da = da.astype(np.float64)
         da.encoding = {}
         entry = self.summary.get("outputs", {}).get(name) or self.summary["inputs"][name]
@@ -337,12 +351,16 @@ def read_flags(run: RunDir) -> FlagGrid | None:
     import rasterio
 
     entry = run.summary.get("validity_flag") or {}
-    if FLAG_FILE not in run.manifest_files:
+    if in_store(run.summary, FLAG_VARIABLE.name):
+        path = run.checked(f"{ZARR_NAME}/zarr.json").parent
+        values, nodata = store_flags(path, FLAG_VARIABLE.name), FLAG_NODATA
+    elif FLAG_FILE not in run.manifest_files:
         return None
-    path = run.checked(FLAG_FILE)
-    with rasterio.open(path) as src:
-        values = src.read(1).astype(np.uint8)
-        nodata = src.nodata
+    else:
+        path = run.checked(FLAG_FILE)
+        with rasterio.open(path) as src:
+            values = src.read(1).astype(np.uint8)
+            nodata = src.nodata
     grid = run.summary.get("grid") or {}
     expected = (grid.get("height"), grid.get("width"))
     if values.shape != expected:

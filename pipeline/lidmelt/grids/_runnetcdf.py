@@ -32,14 +32,14 @@ def write_run_netcdf(
         for name in names:
             da = open_grid(run_dir / file_of(name), name=name, chunks=1024)
             da.attrs = {"units": registry[name].units, "long_name": registry[name].long_name}
-            da.attrs.update(_cf_classes(registry[name]))
+            da.attrs.update(cf_classes(registry[name]))
             data[name] = da
     data[FLAG_VARIABLE.name] = _cf_flag_variable(run_dir)
     ds = xr.Dataset(data)
     return write_netcdf(ds, run_dir / NETCDF_NAME, attrs={"title": "lidmelt run", **tags})
 
 
-def _cf_classes(var: Any) -> dict[str, Any]:
+def cf_classes(var: Any) -> dict[str, Any]:
     """CF ``flag_values`` and ``flag_meanings`` of a categorical variable's classes (CF
     conventions, section "Flags"), from the registry; none for other variables."""
     if not var.classes:

@@ -110,6 +110,7 @@ class GeoTiffSet:
         num_workers: int | None = None,
         report: Callable[[int, int], None] | None = None,
         scheduler: Any = None,
+        height: int | None = None,
     ) -> list[list[Any]]:
         """Store every item band by band, computing ``extra(rows)`` with each band.
 
@@ -119,7 +120,8 @@ class GeoTiffSet:
         memory, whatever the grid size. Returns the computed ``extra`` of every band;
         ``report(done, total)`` is called after each band. With ``scheduler``, a
         dask.distributed client, its workers compute and this process writes each block as it
-        arrives (:func:`lidmelt.grids._remote.store_on_client`).
+        arrives (:func:`lidmelt.grids._remote.store_on_client`). ``height``: the rows of the
+        grid (default: the first item's; needed without items, when only ``extra`` is computed).
         """
         import dask
         import dask.array as dsa
@@ -137,7 +139,7 @@ class GeoTiffSet:
             )
             sources.append(data)
             targets.append(windows)
-        height = self.items[0].da.sizes["y"]
+        height = height or self.items[0].da.sizes["y"]
         step = height if not band_rows else max(TILE, band_rows // TILE * TILE)
         bands = [slice(r, min(r + step, height)) for r in range(0, height, step)]
         results = []

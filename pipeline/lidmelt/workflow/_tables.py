@@ -335,7 +335,15 @@ _COMPUTE_READERS: dict[str, Reader] = {
 
 def _read_outputs(ctx: Context, values: dict[str, Any], inputs: Inputs) -> OutputOptions:
     given = inputs.available()
-    flags = read_fields(ctx, "outputs", values, {"cloud_optimized": boolean})
+    keys = ("cloud_optimized", "zarr", "geotiff")
+    flags = read_fields(ctx, "outputs", values, dict.fromkeys(keys, boolean))
+    if not flags.get("geotiff", True) and not flags.get("zarr", False):
+        msg = (
+            f"{ctx.where('outputs.geotiff')} is false and outputs.zarr is not true: the run "
+            "would write no grid. Set zarr = true (the Zarr store lidmelt.zarr) or drop "
+            "geotiff = false."
+        )
+        raise WorkflowError(msg)
     if "variables" not in values:
         return OutputOptions(variables=variables.default_outputs(given), **flags)
     key = "outputs.variables"
