@@ -29,6 +29,7 @@ from lidmelt.cli import main
 from lidmelt.grids._manifest import check_written
 from lidmelt.grids._rundir import ZARR_NAME, open_run, read_flags
 from lidmelt.physics._flags import FLAG_KEYS
+from lidmelt.products._maps._explore import page_data
 from lidmelt.workflow import load_workflow
 
 ZARR = "[outputs]\nzarr = true\n"
@@ -139,6 +140,8 @@ def test_products_read_a_run_without_geotiffs(runs, tmp_path):
     assert len(rows["only"]) == 4
     with pytest.raises(RunDirError, match=r"outputs\.geotiff = true"):
         b.file("melt_thickness_km")  # a command that reads GeoTIFFs is told why
+    # the map page embeds the same layers, values and flags from either format
+    assert page_data(a) == page_data(b)
 
 
 def test_a_damaged_store_is_refused(runs, tmp_path):

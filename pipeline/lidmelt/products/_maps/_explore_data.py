@@ -17,7 +17,6 @@ import io
 import math
 import zlib
 from dataclasses import dataclass
-from pathlib import Path
 from typing import Any
 
 import numpy as np
@@ -26,7 +25,8 @@ from matplotlib import colormaps
 from matplotlib.image import imsave
 
 from lidmelt import __version__
-from lidmelt.grids._rundir import FLAG_FILE, RunDir, read_flags
+from lidmelt.grids._rundir import RunDir, read_flags
+from lidmelt.grids._zarr import in_store
 from lidmelt.products._maps._field import field_limits, no_melt_cells
 from lidmelt.products._maps._style import (
     NODATA_COLOR,
@@ -76,15 +76,17 @@ def display_stride(height: int, width: int, layers: int, budget: int = CELL_BUDG
     return s
 
 
-def read_shown(path: Path, frame: GridFrame) -> np.ndarray:
-    """Band 1 of a GeoTIFF at the shown cells (float64, nodata as NaN), read block-free."""
+def read_shown(run: RunDir, name: str, frame: GridFrame) -> np.ndarray:
+    """A variable at the shown cells (float64, nodata as NaN), from its GeoTIFF or, in a run
+    without GeoTIFFs, from the run's Zarr store (:meth:`RunDir.open`)."""
+    o, s = frame.offset, frame.stride
+    if in_store(run.summary, name):
+        return np.ascontiguousarray(run.open(name).values[o::s, o::s])
     import rasterio
 
-    with rasterio.open(path) as src:
+    with rasterio.open(run.file(name)) as src:
         band = src.read(1, masked=True)
-    o, s = frame.offset, frame.stride
-    values = band[o::s, o::s]
-    return np.ma.filled(values.astype(np.float64), np.nan)
+    return np.ma.filled(band[o::s, o::s].astype(np.float64), np.nan)
 
 
 def _b64(raw: bytes) -> str:
@@ -143,7 +145,7 @@ def layer_colours(values: np.ndarray, melt: np.ndarray | None, variable: str) ->
 
 def layer_entry(run: RunDir, name: str, frame: GridFrame, melt: np.ndarray | None) -> dict:
     """One layer of the page: name, title, unit, image, legend, values (float32, base64)."""
-    values = read_shown(run.file(name), frame)
+    values = read_shown(run, name, frame)
     colours = layer_colours(values, melt, name)
     entry = run.summary.get("outputs", {}).get(name) or {}
     units = str(entry.get("units", ""))
@@ -166,9 +168,9 @@ def layer_entry(run: RunDir, name: str, frame: GridFrame, melt: np.ndarray | Non
 
 def flag_entry(run: RunDir, frame: GridFrame) -> dict | None:
     """The validity flags at the shown cells (uint8, base64) and their meanings, or None."""
-    if FLAG_FILE not in run.manifest_files:
+    flags = read_flags(run)  # from the GeoTIFF or the run's Zarr store
+    if flags is None:
         return None
-    flags = read_flags(run)
     o, s = frame.offset, frame.stride
     shown = np.ascontiguousarray(flags.values[o::s, o::s], dtype=np.uint8)
     meanings = {str(bit): str(text) for bit, text in sorted(flags.meanings.items())}
@@ -176,11 +178,16 @@ def flag_entry(run: RunDir, frame: GridFrame) -> dict | None:
 
 
 def grid_frame(run: RunDir, layers: int, budget: int = CELL_BUDGET) -> GridFrame:
-    """The run's grid (from its first output's GeoTIFF) and the stride that fits the page."""
-    import rasterio
+    """The run's grid (from its first output) and the stride that fits the page."""
+    name = run.outputs[0]
+    if in_store(run.summary, name):
+        da = run.open(name)
+        (h, w), transform, crs = da.shape, da.rio.transform(), da.rio.crs
+    else:
+        import rasterio
 
-    with rasterio.open(run.file(run.outputs[0])) as src:
-        h, w, transform, crs = src.height, src.width, src.transform, src.crs
+        with rasterio.open(run.file(name)) as src:
+            h, w, transform, crs = src.height, src.width, src.transform, src.crs
     return GridFrame(h, w, transform, crs, display_stride(h, w, layers, budget))
 
 
@@ -206,4 +213,4 @@ def melt_of(run: RunDir, frame: GridFrame) -> np.ndarray | None:
     """The run's melt thickness at the shown cells (the no-melt classes), or None."""
     if "melt_thickness_km" not in run.outputs:
         return None
-    return read_shown(run.file("melt_thickness_km"), frame)
+    return read_shown(run, "melt_thickness_km", frame)
