@@ -16,8 +16,6 @@ import base64
 import io
 import json
 import re
-import shutil
-import subprocess
 
 import matplotlib.image as mpimg
 import numpy as np
@@ -25,10 +23,10 @@ import pytest
 import rasterio
 from affine import Affine
 
+from browserkit import CHROMIUM, run_probe
 from conftest import write_validity_flag
 from lidmelt.products._maps._explore import write_explore_page
 
-CHROMIUM = shutil.which("chromium") or shutil.which("chromium-browser")
 pytestmark = pytest.mark.skipif(
     CHROMIUM is None, reason="chromium is not installed (apt-get install -y chromium)"
 )
@@ -114,26 +112,7 @@ def _render(page, tmp_path, width):
     text = text.replace("</body>", _PROBE % {"row": CELL[0], "col": CELL[1]} + "</body>")
     probe = tmp_path / f"probe_{width}.html"
     probe.write_text(text, encoding="utf-8")
-    cmd = [
-        CHROMIUM,
-        "--headless",
-        "--no-sandbox",
-        "--disable-gpu",
-        "--disable-background-networking",
-        "--disable-component-update",
-        "--disable-sync",
-        "--no-first-run",
-        f"--user-data-dir={tmp_path / f'chromium-profile-{width}'}",
-        f"--window-size={width},900",
-        "--virtual-time-budget=10000",
-        "--dump-dom",
-        probe.as_uri(),
-    ]
-    done = subprocess.run(cmd, capture_output=True, text=True, timeout=180, check=False)
-    match = re.search(r'<pre id="probe-result">(.*?)</pre>', done.stdout, re.S)
-    assert match, f"chromium gave no result (exit {done.returncode}): {done.stderr[-2000:]}"
-    raw = match.group(1).replace("&quot;", '"').replace("&lt;", "<").replace("&gt;", ">")
-    return json.loads(raw.replace("&amp;", "&"))
+    return run_probe(probe, tmp_path, width, budget_ms=10000, timeout=180)
 
 
 @pytest.fixture(scope="module")

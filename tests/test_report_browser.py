@@ -10,18 +10,15 @@ with its reason, where chromium is not installed (.ci/run installs it).
 from __future__ import annotations
 
 import json
-import re
-import shutil
-import subprocess
 
 import numpy as np
 import pytest
 from affine import Affine
 
+from browserkit import CHROMIUM, run_probe
 from conftest import reseal
 from lidmelt.products._report._write import write_report
 
-CHROMIUM = shutil.which("chromium") or shutil.which("chromium-browser")
 pytestmark = pytest.mark.skipif(
     CHROMIUM is None, reason="chromium is not installed (apt-get install -y chromium)"
 )
@@ -61,26 +58,7 @@ def _render(html_path, tmp_path, width):
     probe = tmp_path / f"probe_{width}.html"
     text = html_path.read_text(encoding="utf-8").replace("</body>", _PROBE + "</body>")
     probe.write_text(text, encoding="utf-8")
-    profile = tmp_path / f"chromium-profile-{width}"
-    cmd = [
-        CHROMIUM,
-        "--headless",
-        "--no-sandbox",
-        "--disable-gpu",
-        "--disable-background-networking",
-        "--disable-component-update",
-        "--disable-sync",
-        "--no-first-run",
-        f"--user-data-dir={profile}",
-        f"--window-size={width},900",
-        "--virtual-time-budget=5000",
-        "--dump-dom",
-        probe.as_uri(),
-    ]
-    done = subprocess.run(cmd, capture_output=True, text=True, timeout=120, check=False)
-    match = re.search(r'<pre id="probe-result">(.*?)</pre>', done.stdout, re.S)
-    assert match, f"chromium gave no result (exit {done.returncode}): {done.stderr[-2000:]}"
-    return json.loads(match.group(1).replace("&quot;", '"').replace("&amp;", "&"))
+    return run_probe(probe, tmp_path, width, budget_ms=5000, timeout=120)
 
 
 @pytest.fixture
