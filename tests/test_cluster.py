@@ -11,6 +11,7 @@ import os
 import socket
 import subprocess
 import sys
+from dataclasses import dataclass
 from pathlib import Path
 
 import distributed
@@ -138,6 +139,67 @@ def test_workers_that_cannot_read_an_input_are_refused(tmp_path):
         assert check_workers(client, [Path(__file__)]) == 1
         with pytest.raises(ClusterError, match="cannot read the input file"):
             check_workers(client, [tmp_path / "elsewhere" / "age.tif"])
+
+
+def test_workers_read_the_table_from_its_file_where_they_can(tmp_path):
+    import copy
+    from dataclasses import replace
+
+    from lidmelt._cluster import share
+    from lidmelt.physics import get_table
+
+    table = get_table("mckenzie-bickle1988")
+    assert table.file is not None  # the session's cache folder holds it
+    private = copy.copy(table)  # the same table in a cache folder the workers cannot read
+    private.file = replace(table.file, path=str(tmp_path / "private" / "table.npz"))
+
+    def kinds(value):  # on the worker: what each place holds
+        return [type(v).__name__ for v in (value[0].table, value[1], value[2]["table"])]
+
+    with (
+        distributed.LocalCluster(
+            n_workers=1, threads_per_worker=1, processes=False, dashboard_address=":0"
+        ) as cluster,
+        distributed.Client(cluster, set_as_default=False) as client,
+    ):
+        # tables in dataclass fields and tuples are named by their file; others stay
+        sent = share(client, (_Holder(table), table, {"table": table}))
+        assert client.submit(kinds, sent).result() == ["TableFile", "TableFile", "MeltTable"]
+        sent = share(client, (_Holder(private), private, {"table": private}))
+        assert client.submit(kinds, sent).result() == ["MeltTable", "MeltTable", "MeltTable"]
+
+
+@pytest.mark.slow
+def test_workers_map_the_table_and_load_the_kernel_on_connecting(tmp_path):
+    import time
+
+    from lidmelt._cluster import connect
+    from lidmelt._run_inputs import load_model
+
+    wf = _basin(tmp_path / "in")
+
+    def prepared():  # on a worker: the tables it mapped, and whether the kernel ran there
+        from lidmelt.physics import _table
+
+        return [ref.path for ref in _table._FROM_FILE], "lidmelt._engine" in sys.modules
+
+    with _cluster() as cluster:
+        cfg = load_workflow(wf, overrides=[f'compute.scheduler="{cluster.scheduler_address}"'])
+        _, table = load_model(cfg)  # the run's table, in the session's cache folder
+        with connect(cfg) as client:
+            deadline = time.monotonic() + 60
+            while time.monotonic() < deadline:
+                found = client.run(prepared)
+                if all(paths and kernel for paths, kernel in found.values()):
+                    break
+                time.sleep(0.2)
+    assert len(found) == 2
+    assert all(paths == [table.file.path] and kernel for paths, kernel in found.values())
+
+
+@dataclass(frozen=True)
+class _Holder:
+    table: object
 
 
 # ---- a malformed address; a worker or the scheduler killed during the run -------------------

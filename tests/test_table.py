@@ -5,6 +5,8 @@ published values, identities and an independent solve_ivp solution); the toleran
 issue's: 0.5 % or 0.02 km on melt thickness, whichever is larger, and 0.2 km on onset depth.
 """
 
+from pathlib import Path
+
 import numpy as np
 import numpy.testing as npt
 import pytest
@@ -226,3 +228,36 @@ def test_the_columns_temperature_deficit_is_converged_and_zero_below_the_onset()
     prof = column_profile(1350.0, float(model.depth_km(0.22)), 0.0, step_gpa=0.005, min_top_km=0.0)
     t_col = model.solid_adiabat_c(1350.0, 0.22) - float(table.deficit_k[i, 0, k])
     assert t_col == pytest.approx(float(prof["temperature_c"][-1]), abs=0.1)
+
+
+def test_a_table_file_gives_the_same_table_or_refuses(tmp_path, monkeypatch):
+    # what a cluster's workers get in place of the table (lidmelt._cluster.share): the file,
+    # its content's SHA-256 and stamp; check values: the table itself (identity)
+    from dataclasses import replace
+
+    from lidmelt._errors import ModelError
+    from lidmelt.physics import _table
+
+    monkeypatch.setenv("LIDMELT_CACHE_DIR", str(tmp_path))
+    model = get_model("katz2003", beta1=1.45)  # a parameter set no other test caches in memory
+    table = get_table(model, SMALL)
+    ref = table.file
+    assert ref is not None
+    assert ref.path == str(next(cache_dir().glob("*.npz")))
+    loaded = ref.load()
+    assert loaded is not table
+    assert loaded.file == ref
+    for name, array in table.arrays().items():
+        npt.assert_array_equal(getattr(loaded, name), array, err_msg=name)
+        assert not getattr(loaded, name).flags.owndata  # mapped from the file, not copied
+    assert ref.load() is loaded  # mapped once per process
+    with pytest.raises(ModelError, match="is no longer the run's table"):
+        replace(ref, content_sha256="0" * 64).load()  # the file records another content
+    MeltTable.build(model, SMALL).save(Path(ref.path))  # rebuilt: the same bytes, a new file
+    assert ref.load().file == ref  # the kept mapping still holds the run's file
+    _table._FROM_FILE.clear()  # a process that had not mapped it: the file is another now
+    with pytest.raises(ModelError, match="is no longer the run's table"):
+        ref.load()
+    with pytest.raises(ModelError, match="is gone"):
+        replace(ref, path=str(tmp_path / "gone.npz")).load()
+    assert MeltTable.build(model, SMALL).file is None  # not from a file: sent whole

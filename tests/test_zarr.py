@@ -177,46 +177,60 @@ def test_formats_that_cannot_go_together_are_refused(runs):
 
 @pytest.mark.slow
 def test_workers_write_the_store_on_a_cluster(tmp_path, monkeypatch):
-    import dask.array.core
     import distributed
 
+    from lidmelt.grids import _zarr
     from test_cluster import _basin, _cluster
 
-    class StoreTasks(distributed.WorkerPlugin):  # counts the chunks each worker stored
-        name = "store-tasks"
+    class StoreWrites(distributed.WorkerPlugin):  # counts each worker's tasks and chunk writes
+        name = "store-writes"
 
         def setup(self, worker):
-            self.done = []
+            self.tasks, self.chunks = [], []
+            from lidmelt.grids import _zarr as on_worker
+
+            real = on_worker._Region.__setitem__
+
+            def counted(region, key, value):
+                self.chunks.append(1)
+                return real(region, key, value)
+
+            on_worker._Region.__setitem__ = counted
 
         def transition(self, key, start, finish, **kwargs):
-            # a chunk stored: dask.array.store's task (the getitem of its result is none)
-            if start == "executing" and finish == "memory" and str(key).startswith("('store-map"):
-                self.done.append(str(key))
+            if start == "executing" and finish == "memory" and _zarr.STORE_TASK in str(key):
+                self.tasks.append(str(key))
 
-    here = []  # chunks stored in this process (the run's): wrapped where dask stores a chunk
-    real = dask.array.core.load_store_chunk
+    here = []  # chunks written in this process (the run's)
+    real = _zarr._Region.__setitem__
 
-    def counted(*args, **kwargs):
+    def counted(region, key, value):
         here.append(1)
-        return real(*args, **kwargs)
+        return real(region, key, value)
 
-    monkeypatch.setattr(dask.array.core, "load_store_chunk", counted)
+    monkeypatch.setattr(_zarr._Region, "__setitem__", counted)
     wf = _basin(tmp_path / "in", extra=ZARR)
     overrides = ["outputs.geotiff=false", "run.netcdf=false"]
     cfg = load_workflow(wf, overrides=overrides)
     threads = run_basin(cfg, output_dir=tmp_path / "threads", progress=False)
     arrays = len(threads.summary["zarr"]["variables"])  # outputs, inputs and the flags
-    assert len(here) == 10 * 3 * arrays  # threads: every chunk of every array stored here
+    assert len(here) == 10 * 3 * arrays  # threads: every chunk of every array written here
     here.clear()
     with _cluster() as cluster, distributed.Client(cluster) as client:
-        client.register_plugin(StoreTasks())
+        client.register_plugin(StoreWrites())
         at = f'compute.scheduler="{cluster.scheduler_address}"'
         cfg = load_workflow(wf, overrides=[*overrides, at])
         other = run_basin(cfg, output_dir=tmp_path / "cluster", progress=False)
-        done = client.run(lambda dask_worker: dask_worker.plugins["store-tasks"].done)
-    assert here == []  # no chunk was stored by the run's process
-    keys = [k for keys in done.values() for k in keys]
-    assert len(set(keys)) == len(keys) == 10 * 3 * arrays  # every one by a worker, once
+        done = client.run(
+            lambda dask_worker: (
+                dask_worker.plugins["store-writes"].tasks,
+                len(dask_worker.plugins["store-writes"].chunks),
+            )
+        )
+    assert here == []  # no chunk was written by the run's process
+    keys = [k for tasks, _ in done.values() for k in tasks]
+    assert len(set(keys)) == len(keys) == 10 * 3  # one task per chunk, each run once
+    assert sum(n for _, n in done.values()) == 10 * 3 * arrays  # every array's every chunk
     a = xr.open_zarr(threads.run_dir / ZARR_NAME, mask_and_scale=False)
     b = xr.open_zarr(other.run_dir / ZARR_NAME, mask_and_scale=False)
     for name in a.data_vars:

@@ -27,7 +27,7 @@ import numpy as np
 import xarray as xr
 
 from lidmelt import _run_store as run_store
-from lidmelt._cluster import connect
+from lidmelt._cluster import connect, share
 from lidmelt._progress import band_reporter
 from lidmelt._run_inputs import (
     LID_INPUTS,
@@ -62,6 +62,7 @@ from lidmelt.physics import FLAG_MEANINGS, evaluate_cells
 from lidmelt.physics._cells import CellOptions
 from lidmelt.physics._kernel_records import Cells
 from lidmelt.physics._lidlookup import lid_lookup
+from lidmelt.physics._table import TableFile
 
 #: The kernel's inputs, in the order of its positional arguments.
 _KERNEL_INPUTS = (
@@ -164,6 +165,8 @@ def evaluate_chunk(
     check of input blocks that were already checked (an ensemble's members sharing one input group).
     """
     s = settings
+    if isinstance(s.table, TableFile):  # a cluster's worker: the table read once from its file
+        s = replace(s, table=s.table.load())
     t0 = time.perf_counter()
     age, lid_grid, anomaly, water, upwelling, water_depth = blocks
     shape = np.broadcast_shapes(*(np.shape(a) for a in blocks))
@@ -305,7 +308,7 @@ def _shared(value, name: str, client):
     import dask
 
     if client is not None:
-        return client.scatter(value, broadcast=True, hash=False)
+        return share(client, value)
     return dask.delayed(value, name=name, traverse=False)
 
 
@@ -541,7 +544,7 @@ def _run_staged(
     items = plan_geotiffs(
         run_dir, lazy=lazy, inputs=inputs, template=template, chunks=chunks, tags=tags
     )
-    store = run_store.plan_store(cfg, run_dir, items, tags=tags)
+    store = run_store.plan_store(cfg, run_dir, items, tags=tags, stacked=lazy.stacked)
     t1 = time.perf_counter()
     statistics = store_with_statistics(
         items if cfg.outputs.geotiff else [],

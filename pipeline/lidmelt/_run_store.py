@@ -59,16 +59,24 @@ def _attrs(item: GeoTiffItem, name: str) -> dict[str, Any]:
     return attrs
 
 
-def plan_store(cfg, run_dir: Path, items: list[GeoTiffItem], *, tags: dict[str, Any]):
+def plan_store(
+    cfg, run_dir: Path, items: list[GeoTiffItem], *, tags: dict[str, Any], stacked: Any = None
+):
     """The run's :class:`RunStore` with its metadata written (every array of ``items``, named
-    by its ``variable`` tag), or None when the workflow asks no Zarr store."""
+    by its ``variable`` tag), or None when the workflow asks no Zarr store. ``stacked``, the
+    kernel's (outputs and flag, y, x) dask array, gives the outputs' and the flag's blocks."""
     if not cfg.outputs.zarr:
         return None
+    order = [*OUTPUTS, FLAG_VARIABLE.name]
     layers = [
-        StoreLayer(name, item.da, _attrs(item, name), dtype=item.dtype, nodata=item.nodata)
+        StoreLayer(
+            name, item.da, _attrs(item, name), dtype=item.dtype, nodata=item.nodata,
+            index=order.index(name) if name in order and stacked is not None else None,
+        )
         for item, name in ((i, i.tags["variable"]) for i in items)
-    ]
-    store = RunStore(run_dir / rundir.ZARR_NAME, layers, chunks=int(cfg.compute.chunk_size))
+    ]  # fmt: skip
+    chunks = int(cfg.compute.chunk_size)
+    store = RunStore(run_dir / rundir.ZARR_NAME, layers, chunks=chunks, stacked=stacked)
     return store.create(tags)
 
 

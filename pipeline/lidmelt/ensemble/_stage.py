@@ -24,6 +24,7 @@ from typing import Any
 
 import numpy as np
 
+from lidmelt._cluster import share
 from lidmelt._engine import StageContext, kernel_arguments, kernel_settings
 from lidmelt._errors import WorkflowError
 from lidmelt._files import write_text_atomic
@@ -244,7 +245,7 @@ def _compute_rows(
     token = uuid.uuid4().hex
     client = context.client  # the run's (lidmelt._cluster.connect), or None: local threads
     if client is not None:  # the plan and its tables go to each worker once, not every row
-        plan_d = client.scatter(plan, broadcast=True, hash=False)
+        plan_d = share(client, plan)
     else:
         plan_d = dask.delayed(plan, name=f"lidmelt-ensemble-plan-{token}", traverse=False)
     sums = empty_sums(len(plan.settings), plan.candidates, plan.features)

@@ -69,3 +69,29 @@ def store_on_client(client, sources: list, targets: list, extra: list) -> list[A
         return _rebuild(extra, values)
     finally:
         client.cancel([*futures, *(f for x in flat for f in futures_of(x))])
+
+
+def compute_on_client(client, bands: list[list], report=None) -> list[list]:
+    """Compute each band's dask objects (a list per band) on ``client``, in one graph: the
+    workers go from band to band without waiting for the run's process between them (a run
+    whose outputs the workers write themselves, e.g. a Zarr store alone). The scheduler runs
+    the tasks in the graph's order, band by band, and each chunk's results leave the workers'
+    memory once written, so the workers hold a few chunks each, not the grid. (One graph, not
+    one per band: graphs submitted apart are optimised apart, and their fused tasks of shared
+    inputs then clash by name.) Returns the results band by band; ``report(done, total)``
+    after each band.
+    """
+    sizes = [len(_flatten(band)) for band in bands]
+    futures = client.compute([x for band in bands for x in _flatten(band)])
+    results = []
+    try:
+        start = 0
+        for k, (band, size) in enumerate(zip(bands, sizes, strict=True)):
+            values = client.gather(futures[start : start + size])
+            start += size
+            results.append(_rebuild(band, iter(values)))
+            if report:
+                report(k + 1, len(bands))
+    finally:
+        client.cancel(futures)
+    return results

@@ -39,7 +39,7 @@ from lidmelt.grids._geotiff import (
     tile_aligned,
     write_failed,
 )
-from lidmelt.grids._remote import store_on_client
+from lidmelt.grids._remote import compute_on_client, store_on_client
 
 
 @dataclass
@@ -142,6 +142,8 @@ class GeoTiffSet:
         height = height or self.items[0].da.sizes["y"]
         step = height if not band_rows else max(TILE, band_rows // TILE * TILE)
         bands = [slice(r, min(r + step, height)) for r in range(0, height, step)]
+        if scheduler is not None and not sources:  # nothing written here: no band waits
+            return compute_on_client(scheduler, [extra(rows) for rows in bands], report)
         results = []
         with dask.config.set(scheduler="threads", num_workers=num_workers):
             for k, rows in enumerate(bands):

@@ -19,6 +19,7 @@ from typing import Any
 
 import numpy as np
 
+from lidmelt._cluster import share
 from lidmelt._engine import StageContext, kernel_arguments, kernel_settings
 from lidmelt._errors import InputError
 from lidmelt._run_inputs import load_inputs
@@ -145,7 +146,7 @@ def _compute_rows(context: StageContext, plan: HistoryPlan, arrays, plates, writ
     token = uuid.uuid4().hex
     client = context.client
     if client is not None:  # the plan and its table go to each worker once
-        plan_d = client.scatter(plan, broadcast=True, hash=False)
+        plan_d = share(client, plan)
         kwargs: dict[str, Any] = {"scheduler": client.get}
     else:
         plan_d = dask.delayed(plan, name=f"lidmelt-history-plan-{token}", traverse=False)

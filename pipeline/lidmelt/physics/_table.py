@@ -22,6 +22,7 @@ from __future__ import annotations
 import contextlib
 import hashlib
 import json
+import threading
 import warnings
 from dataclasses import asdict, dataclass
 from functools import lru_cache
@@ -29,7 +30,9 @@ from pathlib import Path
 
 import numpy as np
 
+from lidmelt._errors import ModelError
 from lidmelt._files import atomic_path
+from lidmelt.physics import _tablecache as cache
 from lidmelt.physics._column import integrate_columns, onset_pressure_gpa
 from lidmelt.physics._melting import MeltingModel, get_model
 from lidmelt.physics._tablecache import cache_dir, content_sha256, enforce_limit, touch
@@ -128,6 +131,8 @@ class MeltTable:
         # finer water nodes (:class:`TableLayout`); empty for an anhydrous model
         self.deep_values = arrays["deep_values"]
         self._slices: dict[float, np.ndarray] = {}
+        #: the cache file holding exactly these arrays (set when loaded from or saved to it)
+        self.file: TableFile | None = None
 
     # -- building --------------------------------------------------------------------------------
     @classmethod
@@ -164,6 +169,7 @@ class MeltTable:
     def save(self, path: Path) -> None:
         """Write the table as .npz, atomically (:func:`lidmelt._files.atomic_path`)."""
         with atomic_path(path) as tmp, tmp.open("wb") as fh:
+            digest = content_sha256(self.arrays())
             np.savez(
                 fh,
                 tp_c=self.tp_c,
@@ -174,8 +180,11 @@ class MeltTable:
                 deficit_k=self.deficit_k,
                 deep_values=self.deep_values,
                 key=np.array(table_key(self.model, self.layout)),
-                content_sha256=np.array(content_sha256(self.arrays())),
+                content_sha256=np.array(digest),
             )
+        with path.open("rb") as fh:
+            stamp = cache.file_stamp(fh.fileno())
+        self.file = TableFile(str(path), self.model, self.layout, digest, stamp)
 
     def arrays(self) -> dict[str, np.ndarray]:
         """The table's arrays by name (what is saved and checksummed)."""
@@ -191,7 +200,8 @@ class MeltTable:
         if not path.is_file():
             return None
         try:
-            with np.load(path, allow_pickle=False) as data:
+            with path.open("rb") as fh, np.load(fh, allow_pickle=False) as data:
+                stamp = cache.file_stamp(fh.fileno())
                 if str(data["key"]) != table_key(model, layout):
                     return None
                 arrays = {k: data[k] for k in _ARRAYS}
@@ -201,7 +211,9 @@ class MeltTable:
         else:
             if recorded == content_sha256(arrays):
                 touch(path)
-                return cls(model, layout, arrays)
+                table = cls(model, layout, arrays)
+                table.file = TableFile(str(path), model, layout, recorded, stamp)
+                return table
             why = "does not match its recorded SHA-256"
         warnings.warn(f"melting table cache file {str(path)!r} {why}; rebuilt.", stacklevel=2)
         return None
@@ -350,6 +362,75 @@ class MeltTable:
             )
 
 
+@dataclass(frozen=True)
+class TableFile:
+    """A melting table named by its cache file: what a dask.distributed cluster's workers get
+    in place of the table when each of them can read the file (a few hundred bytes, not the
+    table's 220 MB sent to every worker; :func:`lidmelt._cluster.share`).
+
+    The run's process checked the file's content against ``content_sha256`` as it read it
+    (:meth:`MeltTable.load`) and noted the file's ``stamp`` (inode and size,
+    :func:`lidmelt.physics._tablecache.file_stamp`); a worker maps the file into memory
+    (:func:`lidmelt.physics._tablecache.map_npz`: workers on one machine share one copy) and
+    takes it only if it is that same file holding that same recorded SHA-256, so it computes
+    with exactly the run's table, or not at all.
+    """
+
+    path: str
+    model: MeltingModel
+    layout: TableLayout
+    content_sha256: str
+    stamp: tuple[int, int]
+
+    def load(self) -> MeltTable:
+        """The table, mapped once per process (kept for later chunks and runs of the process).
+
+        Raises
+        ------
+        ModelError
+            If the file is gone or is no longer the run's table (the cache was cleared or the
+            table rebuilt while the run went on).
+        """
+        with _FROM_FILE_LOCK:  # waits for a mapping in progress (read_table_file)
+            found = _FROM_FILE.get(self)
+        if found is None:
+            found = read_table_file(self.path, self.model, self.layout)
+            if found is None or found.file != self:
+                msg = (
+                    f"the melting table file {self.path!r} is gone or is no longer the run's "
+                    "table (the table cache was cleared or the table rebuilt during the run); "
+                    f"expected content SHA-256 {self.content_sha256[:16]}.... Run again."
+                )
+                raise ModelError(msg)
+        return found
+
+
+#: Tables mapped from cache files in this process (a cluster's worker), by their
+#: :class:`TableFile`: :func:`read_table_file` and :meth:`TableFile.load`; the last few kept.
+_FROM_FILE: dict[TableFile, MeltTable] = {}
+_FROM_FILE_LOCK = threading.Lock()
+
+
+def read_table_file(path: str, model: MeltingModel, layout: TableLayout) -> MeltTable | None:
+    """The table in the cache file ``path``, mapped into memory (None if it is missing,
+    damaged or made for other parameters: never rebuilt here), kept for
+    :meth:`TableFile.load` in this process, which takes it only for the file the run's
+    process checked. One file is mapped at a time."""
+    with _FROM_FILE_LOCK:
+        try:
+            arrays, stamp = cache.map_npz(Path(path))
+            if str(arrays["key"]) != table_key(model, layout):
+                return None
+            table = MeltTable(model, layout, {k: arrays[k] for k in _ARRAYS})
+        except (OSError, ValueError, KeyError):
+            return None
+        table.file = TableFile(path, model, layout, str(arrays["content_sha256"]), stamp)
+        _FROM_FILE[table.file] = table
+        while len(_FROM_FILE) > 4:
+            del _FROM_FILE[next(iter(_FROM_FILE))]
+    return table
+
+
 def _node_columns(model, layout, tp, water, onset, n_p):
     """((n, n_p, 3) float32 H, F and integral of P dF at the pressure nodes of columns (Tp,
     water, onset), NaN without an onset; the integration's record) by one integration each."""
@@ -397,10 +478,14 @@ def _deficit_k(model, tp, onset, pressure, rec, ratio):
     return np.where(above, t_is - t_col, 0.0).astype(np.float32)
 
 
+def table_path(model: MeltingModel, layout: TableLayout, folder: str | Path) -> Path:
+    """The cache file of ``model``'s table with ``layout`` in the cache folder ``folder``."""
+    return Path(folder) / f"{model.name}-{table_key(model, layout)[:16]}.npz"
+
+
 @lru_cache(maxsize=16)
 def _cached_table(model: MeltingModel, layout: TableLayout, folder: str) -> MeltTable:
-    key = table_key(model, layout)
-    path = Path(folder) / f"{model.name}-{key[:16]}.npz"
+    path = table_path(model, layout, folder)
     table = MeltTable.load(path, model, layout)
     if table is None:
         table = MeltTable.build(model, layout)

@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import contextlib
 import hashlib
+import io
 import os
 from collections.abc import Mapping
 from dataclasses import dataclass
@@ -136,3 +137,47 @@ def clear_cache() -> list[Path]:
                 path.unlink(missing_ok=True)
                 removed.append(path)
     return removed
+
+
+def file_stamp(fd: int) -> tuple[int, int]:
+    """(inode, size) of an open file: which file a path named when it was read. Tables are
+    written to a temporary file and renamed into place (:func:`lidmelt._files.atomic_path`),
+    so a rebuilt table is another inode; touching a table (:func:`touch`) keeps its stamp."""
+    st = os.fstat(fd)
+    return (st.st_ino, st.st_size)
+
+
+def map_npz(path: Path) -> tuple[dict[str, np.ndarray], tuple[int, int]]:
+    """The arrays of an uncompressed .npz file (what :func:`numpy.savez` writes) as read-only
+    views of the file mapped into memory, and its :func:`file_stamp`.
+
+    Nothing is copied: processes that map the same file share its pages (a cluster's workers
+    on one machine hold one copy of a table, not one each). Raises ``ValueError`` for a
+    compressed or damaged member, ``OSError`` if the file cannot be read.
+    """
+    import mmap
+    import struct
+    import zipfile
+
+    from numpy.lib import format as fmt
+
+    with path.open("rb") as fh:
+        stamp = file_stamp(fh.fileno())
+        buffer = mmap.mmap(fh.fileno(), 0, access=mmap.ACCESS_READ)
+        members = zipfile.ZipFile(fh).infolist()
+    arrays = {}
+    for info in members:
+        if info.compress_type != zipfile.ZIP_STORED or not info.filename.endswith(".npy"):
+            msg = f"member {info.filename!r} is compressed or not an array"
+            raise ValueError(msg)
+        head = buffer[info.header_offset : info.header_offset + 30]
+        name_len, extra_len = struct.unpack("<HH", head[26:30])
+        start = info.header_offset + 30 + name_len + extra_len
+        npy = io.BytesIO(buffer[start : start + min(info.file_size, 65536)])
+        version = fmt.read_magic(npy)
+        read = fmt.read_array_header_1_0 if version == (1, 0) else fmt.read_array_header_2_0
+        shape, fortran, dtype = read(npy)
+        arrays[info.filename[:-4]] = np.ndarray(
+            shape, dtype, buffer=buffer, offset=start + npy.tell(), order="F" if fortran else "C"
+        )
+    return arrays, stamp
