@@ -75,7 +75,7 @@ def check_store_url(url: str, *, where: str) -> str:
             "scheme."
         )
         raise WorkflowError(msg)
-    if url.rstrip("/").endswith("://"):
+    if not url[len(protocol) + 3 :].strip("/"):
         msg = f"{where} is {url!r}: it names no folder; expected e.g. 's3://bucket/lidmelt-runs'."
         raise WorkflowError(msg)
     return url.rstrip("/")
