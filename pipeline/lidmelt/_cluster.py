@@ -149,7 +149,8 @@ def check_store_workers(client, url: str | None) -> None:
             msg = (
                 f"worker {worker} cannot write the Zarr store at {url!r} (outputs.zarr_url): "
                 f"{problem}; the workers write the store's chunks themselves. Install the "
-                "package in every worker's environment (with the same credentials' setup)."
+                "file system's package in every worker's environment, and give the workers the "
+                "store's credentials (docs/cluster.md)."
             )
             raise ClusterError(msg)
 
