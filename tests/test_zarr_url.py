@@ -32,6 +32,7 @@ from lidmelt import _engine
 from lidmelt._engine import run_basin
 from lidmelt._errors import ClusterError, RunDirError, WorkflowError
 from lidmelt.cli import main
+from lidmelt.grids._manifest import check_written
 from lidmelt.grids._rundir import ZARR_NAME, open_run
 from lidmelt.workflow import load_workflow
 
@@ -233,6 +234,11 @@ def test_a_killed_run_leaves_the_old_store_intact(file_run, tmp_path, sig_name):
             assert "consolidated_metadata" not in root or not root["consolidated_metadata"]
 
 
+def open_run_url(run_dir: Path) -> str:
+    """The store URL a run folder's summary records (read without opening the run)."""
+    return json.loads((run_dir / "summary.json").read_text())["zarr"]["url"]
+
+
 def test_a_changed_or_missing_remote_store_is_refused(file_run, tmp_path, capsys):
     wf = file_run[0]
     url = (tmp_path / "stores").as_uri()
@@ -246,6 +252,8 @@ def test_a_changed_or_missing_remote_store_is_refused(file_run, tmp_path, capsys
     chunk.unlink()  # a chunk missing
     with pytest.raises(RunDirError, match=r"'onset_depth_km': 29 chunks .* 30 chunks"):
         open_run(dest)
+    with pytest.raises(RunDirError, match=r"'onset_depth_km' .* has 29 of its 30 chunks"):
+        check_written(dest, flag_file="validity_flag.tif", store_url=open_run_url(dest))
     chunk.write_bytes(data)
     open_run(dest)  # as the run wrote it: accepted again
     fsspec.filesystem("file").rm(str(store), recursive=True)
