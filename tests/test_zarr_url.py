@@ -198,6 +198,7 @@ def test_a_killed_run_leaves_the_old_store_intact(file_run, tmp_path, sig_name):
     at += ["--set", "run.netcdf=false", "--quiet"]
     done = runkit.lidmelt("run", str(wf), "-o", str(dest), *at)
     assert done.returncode == 0, done.stderr
+    assert f"wrote {open_run(dest).store()} (the run's Zarr store)" in done.stdout
     old_store, old_run = _objects(folder.as_uri()), runkit.snapshot(dest)
     old = set(_stores(folder.as_uri()))
     sig, code = {"SIGTERM": (signal.SIGTERM, 143), "SIGKILL": (signal.SIGKILL, -9)}[sig_name]

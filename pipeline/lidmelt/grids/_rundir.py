@@ -28,7 +28,9 @@ grid was given),
 ``statistics`` {``data_cells``, ``melting_cells``, ``melting_area_km2``, ``melt_volume_km3``,
 ``variables`` {variable: {``min``, ``max``, ``mean``} (null where no cell has data)}},
 ``workflow_file``, ``workflow_overrides`` (the ``--set`` overrides), ``workflow`` (the
-workflow text).
+workflow text); with a Zarr store ``zarr`` {``store``, ``zarr_format``, ``variables``; for a
+store at ``[outputs] zarr_url`` also ``url``, ``arrays`` {name: {``chunks``, ``bytes``}} and
+``metadata_bytes``: :mod:`lidmelt.grids._objstore`}.
 
 The GeoTIFFs and the NetCDF carry :func:`provenance_tags` (version, model and its parameters,
 cooling model, input sources and checksums, workflow text) as metadata.
