@@ -124,10 +124,26 @@ MUTATIONS: tuple[Mutation, ...] = (
     Mutation(
         "Zarr-only run reads the wrong array",
         PKG + "grids/_rundir.py",
-        "da = open_variable(self.path / ZARR_NAME, name)",
-        "da = open_variable(self.path / ZARR_NAME, self.outputs[0])",
+        "da = open_variable(self.store(), name)",
+        "da = open_variable(self.store(), self.outputs[0])",
         "a run without GeoTIFFs gives every product the first output's array",
         ("tests/test_zarr.py::test_products_read_a_run_without_geotiffs",),
+    ),
+    Mutation(
+        "URL store kept after a failure",
+        PKG + "grids/_transaction.py",
+        "for undo in [] if self.committed else reversed(self._on_abort):",
+        "for undo in [] if not self.committed else reversed(self._on_abort):",
+        "a run that fails after it created its store at [outputs] zarr_url leaves the store",
+        ("tests/test_zarr_url.py::test_a_run_failing_during_its_bands_removes_its_store",),
+    ),
+    Mutation(
+        "URL store's bytes unchecked",
+        PKG + "grids/_objstore.py",
+        "        if want != got:",
+        '        if want["chunks"] != got["chunks"]:',
+        "a product opens a run whose store at a URL has a chunk of another size than recorded",
+        ("tests/test_zarr_url.py::test_a_changed_or_missing_remote_store_is_refused",),
     ),
     Mutation(
         "Zarr flag masks",

@@ -12,7 +12,9 @@ themselves, at the same paths as the run's process); the run's process (the clie
 melting table once and each worker reads it once from its cache file, or gets it sent once
 where a worker cannot read that file (:func:`share`); the run's process writes every GeoTIFF
 itself, so the workers need no access to the output folder (the chunks of a Zarr store are
-written by the workers: :mod:`lidmelt.grids._zarr`).
+written by the workers: :mod:`lidmelt.grids._zarr`, into the staging folder or at
+``[outputs] zarr_url``, whose fsspec file system each worker must import,
+:func:`check_store_workers`).
 """
 
 from __future__ import annotations
@@ -177,6 +179,41 @@ def _prepare_worker(path: str | None, cfg) -> None:
     evaluate_chunk(ChunkInputs(age, np.nan, anomaly, water), settings=settings)
 
 
+def store_report(protocol: str) -> str | None:
+    """Run on each worker by :func:`check_store_workers`: None when it can import the fsspec
+    file system of ``protocol``, else what is wrong."""
+    from lidmelt.grids._objstore import filesystem_problem
+
+    return filesystem_problem(protocol)
+
+
+def check_store_workers(client, url: str | None) -> None:
+    """ClusterError unless every worker can write the run's Zarr store at ``url`` (``[outputs]
+    zarr_url``: the workers write its chunks): each must import the URL's fsspec file system;
+    a ``memory://`` store lives in one process and is refused. Nothing without ``url``."""
+    from lidmelt.grids._objstore import url_protocol
+
+    protocol = url_protocol(url or "")
+    if protocol is None:
+        return
+    if protocol == "memory":
+        msg = (
+            f"outputs.zarr_url is {url!r}: a memory:// file system lives in one process, and on "
+            "a dask cluster the workers write the store's chunks. Give a URL every worker "
+            "reaches (s3://..., a shared file:// folder), or run on local threads."
+        )
+        raise ClusterError(msg)
+    for worker, problem in sorted(client.run(store_report, protocol).items()):
+        if problem is not None:
+            msg = (
+                f"worker {worker} cannot write the Zarr store at {url!r} (outputs.zarr_url): "
+                f"{problem}; the workers write the store's chunks themselves. Install the "
+                "file system's package in every worker's environment, and give the workers the "
+                "store's credentials (docs/cluster.md)."
+            )
+            raise ClusterError(msg)
+
+
 def _open_client(address: str):
     """A client of the scheduler at ``address`` with at least one worker; ClusterError if not."""
     from distributed import Client
@@ -255,6 +292,7 @@ def connect(cfg, *, paths: list[Path] | None = None) -> Iterator[Any]:
         client = _open_client(address)
         try:
             check_workers(client, input_paths(cfg) if paths is None else paths)
+            check_store_workers(client, getattr(cfg.outputs, "zarr_url", None))
             prepare_workers(client, cfg)
             yield client
         except Exception as exc:

@@ -393,12 +393,14 @@ class OutputOptions:
     """The ``[outputs]`` table: which variables to write (default DEFAULT_OUTPUT_VARIABLES, plus
     the outputs that need an optional input when the workflow gives it), and whether the
     GeoTIFFs get the Cloud-Optimized layout (a second pass over every file; off by default,
-    see docs/workflow.md), whether the run writes its Zarr store ``lidmelt.zarr`` and whether
-    it writes the GeoTIFFs (``geotiff = false`` needs ``zarr = true``)."""
+    see docs/workflow.md), whether the run writes its Zarr store ``lidmelt.zarr``, where
+    (``zarr_url``: an fsspec folder URL that gets a new store per run; None: in the run
+    folder) and whether it writes the GeoTIFFs (``geotiff = false`` needs ``zarr = true``)."""
 
     variables: tuple[str, ...] = DEFAULT_OUTPUT_VARIABLES
     cloud_optimized: bool = False
     zarr: bool = False
+    zarr_url: str | None = None
     geotiff: bool = True
 
 

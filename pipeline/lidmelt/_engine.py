@@ -213,11 +213,7 @@ def evaluate_chunk(
 @dataclass(frozen=True, eq=False)
 class _ChunkKernel:
     """:func:`evaluate_chunk` as a dask block function: constants filled in, age broadcast.
-
-    The settings (with the melting table, tens of MB) come as the ``settings`` argument, one
-    node of the graph that every chunk depends on: a dask.distributed scheduler sends them to
-    each worker once, not with every task.
-    """
+    The settings come as one node of the graph every chunk depends on (:func:`_shared`)."""
 
     scalars: tuple  # per kernel input: its constant, or None where a dask block is passed
     clock: dict[str, float]  # filled on local threads only (a worker's copy stays there)
@@ -271,8 +267,8 @@ def build_kernel(
     """The lazy kernel over the chunks of ``template``: one dask graph for every output.
 
     The outputs not in ``cfg.outputs.variables`` are computed (they share the column) but not
-    returned in :attr:`LazyRun.outputs`. With ``client`` (dask.distributed), the settings and
-    the table are sent to every worker once (scattered), not with each band's graph.
+    returned in :attr:`LazyRun.outputs`. With ``client`` (dask.distributed), the settings
+    reach every worker once (:func:`lidmelt._cluster.share`), not with each band's graph.
     """
     import dask.array as dsa
 
@@ -303,8 +299,9 @@ def build_kernel(
 
 
 def _shared(value, name: str, client):
-    """``value`` as one node of a dask graph: on ``client``'s workers (scattered to each, once),
-    or a delayed value for local threads. Never part of each task (a table is tens of MB)."""
+    """``value`` as one node of a dask graph: on ``client``'s workers (:func:`share`: once
+    each, a melting table by its file), or a delayed value for local threads. Never part of
+    each task (a table is 220 MB)."""
     import dask
 
     if client is not None:
@@ -501,7 +498,8 @@ def run_basin(
     dest, reads = output_dir or cfg.run.output_dir, files_read(cfg)
     with RunTransaction(dest, wait=wait, inputs=reads) as tx, connect(cfg) as client:
         try:
-            result = _run_staged(cfg, tx.staging, progress, extra_stages, client)
+            at = run_store.store_location(cfg, tx)  # a new store at [outputs] zarr_url
+            result = _run_staged(cfg, tx.staging, progress, extra_stages, client, store_at=at)
         except READ_ERRORS as exc:  # a damaged input file? name it and its workflow key
             explained = explain_read_failure(cfg, exc)
             if explained is None:
@@ -520,10 +518,11 @@ def run_basin(
 
 
 def _run_staged(
-    cfg, run_dir: Path, progress: bool | None, extra_stages: tuple, client
+    cfg, run_dir: Path, progress: bool | None, extra_stages: tuple, client, *, store_at=None
 ) -> RunResult:
     """Every stage of a run, writing into ``run_dir`` (the staging folder); ``client``: a
-    dask.distributed client computes the chunks, or None (local threads)."""
+    dask.distributed client computes the chunks, or None (local threads); ``store_at``: the
+    URL of the run's Zarr store (:func:`lidmelt._run_store.store_location`), or None."""
     t0 = time.perf_counter()
     run_store.check_formats(cfg)
     chunks = int(cfg.compute.chunk_size)
@@ -544,7 +543,7 @@ def _run_staged(
     items = plan_geotiffs(
         run_dir, lazy=lazy, inputs=inputs, template=template, chunks=chunks, tags=tags
     )
-    store = run_store.plan_store(cfg, run_dir, items, tags=tags, stacked=lazy.stacked)
+    store = run_store.plan_store(cfg, run_dir, items, tags=tags, at=store_at, stacked=lazy.stacked)
     t1 = time.perf_counter()
     statistics = store_with_statistics(
         items if cfg.outputs.geotiff else [],
@@ -557,7 +556,7 @@ def _run_staged(
         cog=cfg.outputs.cloud_optimized,
         store=store,
     )
-    flags = run_store.flag_source(cfg, run_dir)
+    flags = run_store.flag_source(cfg, run_dir, store)
     refuse_without_data(cfg, inputs=inputs, statistics=statistics, flag_path=flags, model=model)
     run_warnings = ambient_melting_warnings(
         statistics, ambient_c=cfg.model.ambient_potential_temperature_c, issue=True
@@ -565,7 +564,7 @@ def _run_staged(
     timings["compute_and_write_s"] = time.perf_counter() - t1
     timings.update(lazy.clock)  # thread seconds inside the kernel (overlapping the I/O)
     files = [item.path for item in items] if cfg.outputs.geotiff else []
-    files += [] if store is None else [run_dir / rundir.ZARR_NAME]
+    files += run_store.local_files(store)
 
     if cfg.run.netcdf:
         t2 = time.perf_counter()

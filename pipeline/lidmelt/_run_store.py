@@ -7,6 +7,7 @@ The store itself (metadata first, then chunk by chunk where the chunks are compu
 
 from __future__ import annotations
 
+import functools
 from pathlib import Path
 from typing import Any
 
@@ -15,9 +16,10 @@ import numpy as np
 from lidmelt._errors import WorkflowError
 from lidmelt._variables import FLAG_VARIABLE, INPUTS, OUTPUTS
 from lidmelt.grids import _rundir as rundir
+from lidmelt.grids._objstore import list_store, new_store_url, remove_store
 from lidmelt.grids._runnetcdf import cf_classes
 from lidmelt.grids._store import GeoTiffItem
-from lidmelt.grids._zarr import ZARR_FORMAT, RunStore, StoreLayer
+from lidmelt.grids._zarr import ZARR_FORMAT, RunStore, StoreLayer, is_url
 from lidmelt.physics._flags import FLAG_KEYS
 
 
@@ -59,11 +61,31 @@ def _attrs(item: GeoTiffItem, name: str) -> dict[str, Any]:
     return attrs
 
 
+def store_location(cfg, tx) -> str | None:
+    """The URL of the run's new store under ``[outputs] zarr_url``
+    (:func:`lidmelt.grids._objstore.new_store_url`, named after the run folder), its removal
+    registered with the run's transaction ``tx`` (on any failure before the swap); None for a
+    store in the run folder or no store."""
+    folder = getattr(cfg.outputs, "zarr_url", None)
+    if not cfg.outputs.zarr or not folder:
+        return None
+    url = new_store_url(folder, tx.dest.name)
+    tx.on_abort(functools.partial(remove_store, url))
+    return url
+
+
 def plan_store(
-    cfg, run_dir: Path, items: list[GeoTiffItem], *, tags: dict[str, Any], stacked: Any = None
+    cfg,
+    run_dir: Path,
+    items: list[GeoTiffItem],
+    *,
+    tags: dict[str, Any],
+    at: str | None = None,
+    stacked: Any = None,
 ):
     """The run's :class:`RunStore` with its metadata written (every array of ``items``, named
-    by its ``variable`` tag), or None when the workflow asks no Zarr store. ``stacked``, the
+    by its ``variable`` tag), or None when the workflow asks no Zarr store. The store is
+    ``run_dir / lidmelt.zarr``, or at the URL ``at`` (:func:`store_location`); ``stacked``, the
     kernel's (outputs and flag, y, x) dask array, gives the outputs' and the flag's blocks."""
     if not cfg.outputs.zarr:
         return None
@@ -75,8 +97,8 @@ def plan_store(
         )
         for item, name in ((i, i.tags["variable"]) for i in items)
     ]  # fmt: skip
-    chunks = int(cfg.compute.chunk_size)
-    store = RunStore(run_dir / rundir.ZARR_NAME, layers, chunks=chunks, stacked=stacked)
+    where = at or run_dir / rundir.ZARR_NAME
+    store = RunStore(where, layers, chunks=int(cfg.compute.chunk_size), stacked=stacked)
     return store.create(tags)
 
 
@@ -100,20 +122,32 @@ def add_stage_layers(store: RunStore | None, run_dir: Path, entries: dict[str, A
     store.finish()
 
 
-def flag_source(cfg, run_dir: Path) -> Path:
+def flag_source(cfg, run_dir: Path, store: RunStore | None = None) -> Path | str:
     """Where the run's validity flags are read back: the GeoTIFF, else the store."""
-    return run_dir / (rundir.FLAG_FILE if cfg.outputs.geotiff else rundir.ZARR_NAME)
+    if cfg.outputs.geotiff or store is None:
+        return run_dir / rundir.FLAG_FILE
+    return store.store if is_url(store.store) else Path(store.store)
+
+
+def local_files(store: RunStore | None) -> list[Path]:
+    """The store as a file of the run folder (none for a store at a URL, or no store)."""
+    return [] if store is None or is_url(store.store) else [Path(store.store)]
 
 
 def record_formats(doc: dict[str, Any], store: Any, geotiff: bool) -> dict[str, Any]:
     """``doc`` with its ``zarr`` entry {``store``, ``zarr_format``, ``variables``} when the run
-    wrote a Zarr store (:class:`lidmelt.grids._zarr.RunStore`, or None); without GeoTIFFs the
-    ``file`` of every output, input and the flags is null (readers take the store)."""
+    wrote a Zarr store (:class:`lidmelt.grids._zarr.RunStore`, or None); a store at a URL adds
+    ``url`` and what it holds (:func:`lidmelt.grids._objstore.list_store`: chunks and bytes per
+    array, the root metadata's bytes). Without GeoTIFFs the ``file`` of every output, input and
+    the flags is null (readers take the store)."""
     if store is None:
         return doc
     doc = dict(doc)
     names = [layer.name for layer in store.layers]
     doc["zarr"] = {"store": rundir.ZARR_NAME, "zarr_format": ZARR_FORMAT, "variables": names}
+    if is_url(store.store):
+        doc["zarr"] = {**doc["zarr"], "store": store.store, "url": store.store}
+        doc["zarr"].update(list_store(store.store))
     if not geotiff:
         for group in ("outputs", "inputs"):
             doc[group] = {

@@ -158,4 +158,7 @@ def run(args: argparse.Namespace) -> int:
     print(f"  in {result.timings_s['total_s']:.1f} s")
     for path in files:
         print(f"  wrote {path}")
+    url = (result.summary.get("zarr") or {}).get("url")
+    if url:  # [outputs] zarr_url: the run's new store, outside the run folder
+        print(f"  wrote {url} (the run's Zarr store)")
     return 0

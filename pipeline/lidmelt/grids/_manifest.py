@@ -26,10 +26,12 @@ from typing import Any
 
 import numpy as np
 
-from lidmelt._errors import RunDirError
+from lidmelt._errors import InputError, RunDirError
+from lidmelt._variables import FLAG_NODATA
 from lidmelt.grids._geotiff import check_blocks
 from lidmelt.grids._zarr import check_store
 from lidmelt.grids._zarr import flag_counts as store_flag_counts
+from lidmelt.physics._flags import FLAG_INVALID_INPUT, FLAG_WATER_SATURATED
 
 #: The summary's key holding the manifest.
 MANIFEST_KEY = "manifest"
@@ -213,11 +215,14 @@ def _check_netcdf(path: Path) -> None:
                 var[row : row + _NC_ROWS, ...]
 
 
-def check_written(folder: str | Path, *, flag_file: str | None = None) -> FileCheck:
+def check_written(
+    folder: str | Path, *, flag_file: str | None = None, store_url: str | None = None
+) -> FileCheck:
     """Check every file under ``folder``: GeoTIFFs whole (every block inside the file; the
     ``flag_file`` read back completely), NetCDF and JSON must parse completely, a Zarr store
-    (``*.zarr``) must have its consolidated metadata and every chunk of every array (its flag
-    array is read back completely where the run has no ``flag_file``).
+    (``*.zarr``, and the run's store at ``store_url`` when it has one) must have its consolidated
+    metadata and every chunk of every array (its flag array is read back completely where the
+    run has no ``flag_file``).
 
     Returns the files' sizes and, for ``flag_file``, the count of cells per flag value.
 
@@ -255,9 +260,48 @@ def check_written(folder: str | Path, *, flag_file: str | None = None) -> FileCh
         for path, counts in zip(paths, pool.map(read, paths), strict=True):
             if path.relative_to(folder).as_posix() == flag_file:
                 check.flag_counts = counts or {}
-    for store in sorted(p for p in folder.glob("*.zarr") if p.is_dir()):
+    stores = sorted(p for p in folder.glob("*.zarr") if p.is_dir())
+    for store in [*stores, *([store_url] if store_url else [])]:
         arrays = check_store(store)  # every chunk of every array there, metadata consolidated
         flag = Path(flag_file).stem if flag_file else None
         if flag in arrays and not (folder / str(flag_file)).is_file():
             check.flag_counts = store_flag_counts(store, flag)
     return check
+
+
+def check_evaluable(flag_counts: Mapping[int, int], *, sources: Mapping[str, str]) -> None:
+    """Refuse a run where no cell has data, or no cell with data can be evaluated.
+
+    ``flag_counts`` are the cells per validity flag value (as read back from the flag grid);
+    ``sources`` name where each input came from.
+
+    Raises
+    ------
+    InputError
+        Saying why: every input NaN over the grid, Tp at or below the surface solidus, or the
+        source water above saturation, in every cell.
+    """
+    with_data = {v: n for v, n in flag_counts.items() if v != FLAG_NODATA and n}
+    given = ", ".join(f"{k} from {v}" for k, v in sources.items()) or "no inputs"
+    if not with_data:
+        msg = (
+            "no cell of the grid has data: every cell lacks a lid (plate age or lid thickness), "
+            f"a thermal anomaly or a water content ({given}). Check that the input grids "
+            "overlap the grid's extent and are not all NaN (nodata)."
+        )
+        raise InputError(msg)
+    bad = FLAG_INVALID_INPUT | FLAG_WATER_SATURATED
+    if all(v & bad for v in with_data):
+        invalid = sum(n for v, n in with_data.items() if v & FLAG_INVALID_INPUT)
+        why = (
+            "the potential temperature is at or below the surface solidus (or an input is "
+            "out of range)"
+            if invalid
+            else "the source water is above saturation at the onset of melting"
+        )
+        msg = (
+            f"none of the {sum(with_data.values())} cells with data can be evaluated: {why} "
+            f"in every cell ({given}). Raise model.ambient_potential_temperature_c or the "
+            "thermal anomaly, or lower the water content (wt%)."
+        )
+        raise InputError(msg)

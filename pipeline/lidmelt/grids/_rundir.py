@@ -28,7 +28,9 @@ grid was given),
 ``statistics`` {``data_cells``, ``melting_cells``, ``melting_area_km2``, ``melt_volume_km3``,
 ``variables`` {variable: {``min``, ``max``, ``mean``} (null where no cell has data)}},
 ``workflow_file``, ``workflow_overrides`` (the ``--set`` overrides), ``workflow`` (the
-workflow text).
+workflow text); with a Zarr store ``zarr`` {``store``, ``zarr_format``, ``variables``; for a
+store at ``[outputs] zarr_url`` also ``url``, ``arrays`` {name: {``chunks``, ``bytes``}} and
+``metadata_bytes``: :mod:`lidmelt.grids._objstore`}.
 
 The GeoTIFFs and the NetCDF carry :func:`provenance_tags` (version, model and its parameters,
 cooling model, input sources and checksums, workflow text) as metadata.
@@ -47,7 +49,7 @@ import numpy as np
 import xarray as xr
 
 from lidmelt import __version__
-from lidmelt._errors import InputError, RunDirError
+from lidmelt._errors import RunDirError
 from lidmelt._files import write_json_atomic
 from lidmelt._variables import (
     FLAG_NODATA,
@@ -60,11 +62,11 @@ from lidmelt._variables import (
     is_legacy_probability,
     legacy_message,
 )
-from lidmelt.grids._manifest import check_written, seal_summary, verify_manifest
+from lidmelt.grids._manifest import check_evaluable, check_written, seal_summary, verify_manifest
+from lidmelt.grids._objstore import check_recorded, store_url
 from lidmelt.grids._transaction import leftovers, lock_holder
 from lidmelt.grids._zarr import in_store, open_variable, store_flags, stored_names
 from lidmelt.physics import FLAG_MEANINGS
-from lidmelt.physics._flags import FLAG_INVALID_INPUT, FLAG_WATER_SATURATED
 
 #: The run summary (JSON) in a run directory.
 SUMMARY_NAME = "summary.json"
@@ -136,10 +138,12 @@ class RunDir:
         self.summary: dict[str, Any] = summary
         self._stats = verify_manifest(self.path, summary, needed=self._listed_files())
         _check_entries(self.path, summary)
+        check_recorded(summary)  # a store at a URL: there, as the run recorded it
 
     def _listed_files(self) -> list[str]:
         """The files the summary lists (named by the registry, never by the summary)."""
-        store = [f"{ZARR_NAME}/zarr.json"] if stored_names(self.summary) else []
+        local = stored_names(self.summary) and not store_url(self.summary)
+        store = [f"{ZARR_NAME}/zarr.json"] if local else []
         names = [output_file(n) for n in self.outputs if not in_store(self.summary, n)]
         names += [input_file(n) for n in self.inputs if not in_store(self.summary, n)]
         if self.summary.get("validity_flag") and not in_store(self.summary, FLAG_VARIABLE.name):
@@ -183,8 +187,7 @@ class RunDir:
         import rioxarray  # noqa: F401  (registers the .rio accessor)
 
         if in_store(self.summary, name) and name in self.outputs + self.inputs:
-            self.checked(f"{ZARR_NAME}/zarr.json")
-            da = open_variable(self.path / ZARR_NAME, name)
+            da = open_variable(self.store(), name)
         else:
             path = self.file(name)
             with xr.open_dataarray(path, engine="rasterio", mask_and_scale=True) as src:
@@ -200,6 +203,11 @@ class RunDir:
         """Load several variables (default: every output and input) into one Dataset."""
         names = names or self.outputs + self.inputs
         return xr.Dataset({n: self.open(n) for n in names})
+
+    def store(self) -> str | Path:
+        """The run's Zarr store: its URL (``[outputs] zarr_url``, checked when the run was
+        opened), else its folder here (checked unchanged since then)."""
+        return store_url(self.summary) or self.checked(f"{ZARR_NAME}/zarr.json").parent
 
     @property
     def manifest_files(self) -> list[str]:
@@ -352,8 +360,8 @@ def read_flags(run: RunDir) -> FlagGrid | None:
 
     entry = run.summary.get("validity_flag") or {}
     if in_store(run.summary, FLAG_VARIABLE.name):
-        path = run.checked(f"{ZARR_NAME}/zarr.json").parent
-        values, nodata = store_flags(path, FLAG_VARIABLE.name), FLAG_NODATA
+        path = Path(run.store())
+        values, nodata = store_flags(run.store(), FLAG_VARIABLE.name), FLAG_NODATA
     elif FLAG_FILE not in run.manifest_files:
         return None
     else:
@@ -545,44 +553,6 @@ def write_summary(run_dir: str | Path, doc: Mapping[str, Any]) -> Path:
     )
 
 
-def check_evaluable(flag_counts: Mapping[int, int], *, sources: Mapping[str, str]) -> None:
-    """Refuse a run where no cell has data, or no cell with data can be evaluated.
-
-    ``flag_counts`` are the cells per validity flag value (as read back from the flag grid);
-    ``sources`` name where each input came from.
-
-    Raises
-    ------
-    InputError
-        Saying why: every input NaN over the grid, Tp at or below the surface solidus, or the
-        source water above saturation, in every cell.
-    """
-    with_data = {v: n for v, n in flag_counts.items() if v != FLAG_NODATA and n}
-    given = ", ".join(f"{k} from {v}" for k, v in sources.items()) or "no inputs"
-    if not with_data:
-        msg = (
-            "no cell of the grid has data: every cell lacks a lid (plate age or lid thickness), "
-            f"a thermal anomaly or a water content ({given}). Check that the input grids "
-            "overlap the grid's extent and are not all NaN (nodata)."
-        )
-        raise InputError(msg)
-    bad = FLAG_INVALID_INPUT | FLAG_WATER_SATURATED
-    if all(v & bad for v in with_data):
-        invalid = sum(n for v, n in with_data.items() if v & FLAG_INVALID_INPUT)
-        why = (
-            "the potential temperature is at or below the surface solidus (or an input is "
-            "out of range)"
-            if invalid
-            else "the source water is above saturation at the onset of melting"
-        )
-        msg = (
-            f"none of the {sum(with_data.values())} cells with data can be evaluated: {why} "
-            f"in every cell ({given}). Raise model.ambient_potential_temperature_c or the "
-            "thermal anomaly, or lower the water content (wt%)."
-        )
-        raise InputError(msg)
-
-
 def seal_run(run_dir: str | Path, doc: Mapping[str, Any], *, sources: Mapping[str, str]) -> Path:
     """Check every file of a staged run, then write its summary with the manifest.
 
@@ -592,9 +562,10 @@ def seal_run(run_dir: str | Path, doc: Mapping[str, Any], *, sources: Mapping[st
     Returns the summary's path (read back and verified).
     """
     run_dir = Path(run_dir)
-    check = check_written(run_dir, flag_file=FLAG_FILE)
+    check = check_written(run_dir, flag_file=FLAG_FILE, store_url=store_url(doc))
     check_evaluable(check.flag_counts, sources=sources)
     path = write_summary(run_dir, doc)
     written = json.loads(path.read_text(encoding="utf-8"))
     verify_manifest(run_dir, written)
+    check_recorded(written)  # a store at a URL: every chunk there, as recorded
     return path

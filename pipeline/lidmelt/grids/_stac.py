@@ -9,7 +9,8 @@ item, so the folder may move: every GeoTIFF (with the projection extension's ``p
 ``proj:wkt2``, ``proj:shape``, ``proj:transform`` and ``proj:bbox``, read from the file's header
 by rio-stac, and the raster extension's band: data type, nodata, unit and the run's own
 min/max/mean from the summary, so no grid is read again), the NetCDF, the summary, tracks,
-candidates, the maps and the report (a Zarr store is one asset).
+candidates, the maps and the report (a Zarr store is one asset; a store at an fsspec URL,
+``[outputs] zarr_url``, has that absolute URL as its href).
 
 A run with an ``[ensemble]`` table also gets ``stac_collection.json``: a Collection that holds
 the ensemble's layers (percentiles, probabilities, members without a value) and its tables as
@@ -40,7 +41,8 @@ from pystac.extensions.raster import DataType, RasterBand, RasterExtension, Stat
 from lidmelt._files import write_json_atomic
 from lidmelt._variables import ensemble_variable
 from lidmelt.grids._manifest import CATALOGUE_NAMES, COLLECTION_NAME, ITEM_NAME
-from lidmelt.grids._rundir import SUMMARY_NAME
+from lidmelt.grids._objstore import store_url
+from lidmelt.grids._rundir import SUMMARY_NAME, ZARR_NAME
 
 #: Points added along each edge of the footprint before it is reprojected to WGS 84.
 _DENSIFY = 20
@@ -117,6 +119,11 @@ def run_item(run_dir: Path, summary: Mapping[str, Any], files: list[str]) -> pys
     RasterExtension.add_to(item)
     for rel in files:
         item.add_asset(rel, file_asset(run_dir, rel, summary))
+    url = store_url(summary)
+    if url is not None:  # a store at [outputs] zarr_url: its absolute URL, under the usual key
+        title = "the run's Zarr store (every grid), outside the run folder"
+        asset = pystac.Asset(href=url, title=title, media_type=_MEDIA[".zarr"], roles=["data"])
+        item.add_asset(ZARR_NAME, asset)
     return item
 
 

@@ -10,7 +10,9 @@ has it (Linux 3.15+: the destination holds the complete old run, then the comple
 elsewhere the old run is renamed aside and the new one into place (between the two renames the
 destination is missing and readers are told a run is in progress; a run killed there has its old
 run restored by the next run). The old run is removed afterwards. On any error, or an
-interruption, the staging folder is removed and the destination is left as it was.
+interruption, the staging folder is removed and the destination is left as it was; what the run
+wrote elsewhere and registered (:meth:`RunTransaction.on_abort`: a Zarr store at a URL) is
+removed too.
 """
 
 from __future__ import annotations
@@ -327,6 +329,7 @@ class RunTransaction:
         self._lock = RunLock(self.dest, wait=wait)
         self.staging: Path | None = None
         self.committed = False
+        self._on_abort: list[Any] = []
 
     def __enter__(self) -> RunTransaction:
         # refused before the lock file is made beside the destination; checked again with it
@@ -346,6 +349,11 @@ class RunTransaction:
             raise
         return self
 
+    def on_abort(self, undo: Any) -> None:
+        """Call ``undo()`` if the run ends without :meth:`commit` (after the staging folder is
+        removed): what the run wrote outside its staging folder, e.g. a Zarr store at a URL."""
+        self._on_abort.append(undo)
+
     def commit(self) -> None:
         """Swap the staging folder into place (the lock is still held)."""
         if self.staging is None:
@@ -361,5 +369,7 @@ class RunTransaction:
             try:
                 if self.staging is not None and self.staging.parent.exists():
                     shutil.rmtree(self.staging.parent, ignore_errors=True)
+                for undo in [] if self.committed else reversed(self._on_abort):
+                    undo()
             finally:
                 self._lock.__exit__(*exc)

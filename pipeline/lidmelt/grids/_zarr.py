@@ -42,6 +42,7 @@ import xarray as xr
 from lidmelt._errors import RunDirError
 from lidmelt.grids._geotiff import check_dtype_nodata, convert_block, to_json
 from lidmelt.grids._grid import transform_of
+from lidmelt.grids._objstore import store_options
 from lidmelt.grids._transaction import signals_deferred
 
 #: The Zarr format of the run's store (module docstring: why 3).
@@ -174,6 +175,18 @@ class _ChunkWriter:
         return np.ones((1, 1), np.int8)
 
 
+def zarr_target(location: str) -> Any:
+    """What zarr writes to for ``location``: a path as it is, an fsspec URL as zarr's
+    ``FsspecStore`` with its file system's options (:func:`lidmelt.grids._objstore.store_options`).
+    """
+    if not is_url(location):
+        return location
+    from zarr.storage import FsspecStore
+
+    options = store_options(location)
+    return FsspecStore.from_url(location, storage_options=options or None, read_only=False)
+
+
 class RunStore:
     """The run's Zarr store at ``store`` (a path or an fsspec URL).
 
@@ -189,6 +202,7 @@ class RunStore:
         self.chunks = chunks
         self.stacked = stacked  # the kernel's (layers, y, x) dask array: StoreLayer.index
         self._targets: list[Any] = []
+        self._zarr = zarr_target(self.store)
 
     def create(self, tags: Mapping[str, Any]) -> RunStore:
         """Write every array's metadata, the coordinates and the grid mapping (no chunk of
@@ -198,10 +212,10 @@ class RunStore:
         ds, encoding = _dataset(self.layers, tags, self.chunks)
         with signals_deferred():  # zarr's I/O thread would finish after an interrupt (below)
             ds.to_zarr(
-                self.store, mode="w-", compute=False, consolidated=False, zarr_format=ZARR_FORMAT,
+                self._zarr, mode="w-", compute=False, consolidated=False, zarr_format=ZARR_FORMAT,
                 encoding=encoding, write_empty_chunks=True,
             )  # fmt: skip
-        arrays = [zarr.open_array(self.store, path=x.name, mode="r+") for x in self.layers]
+        arrays = [zarr.open_array(self._zarr, path=x.name, mode="r+") for x in self.layers]
         self._targets = [_Region(a.with_config(_CONFIG), self.store) for a in arrays]
         return self
 
@@ -246,7 +260,7 @@ class RunStore:
         ds.attrs = {}
         with signals_deferred():
             ds.to_zarr(
-                self.store, mode="a", consolidated=False, zarr_format=ZARR_FORMAT,
+                self._zarr, mode="a", consolidated=False, zarr_format=ZARR_FORMAT,
                 encoding=encoding, write_empty_chunks=True,
             )  # fmt: skip
         self.layers = [*self.layers, *layers]
@@ -257,7 +271,7 @@ class RunStore:
         import zarr
 
         with _quiet(), signals_deferred():
-            zarr.consolidate_metadata(self.store, zarr_format=ZARR_FORMAT)
+            zarr.consolidate_metadata(self._zarr, zarr_format=ZARR_FORMAT)
 
 
 @contextlib.contextmanager

@@ -62,7 +62,7 @@ SCHEMA: dict[str, tuple[str, ...]] = {
     "lithosphere": ("cooling", "lid_isotherm_c", "top_of_melting", "parameters"),
     "lithosphere.parameters": ("*",),
     "compute": ("chunk_size", "workers", "method", "scheduler", "max_cells"),
-    "outputs": ("variables", "cloud_optimized", "zarr", "geotiff"),
+    "outputs": ("variables", "cloud_optimized", "zarr", "zarr_url", "geotiff"),
     "ensemble": (
         "members",
         "seed",

@@ -333,6 +333,23 @@ _COMPUTE_READERS: dict[str, Reader] = {
 # [outputs]
 
 
+def _zarr_url(ctx: Context, value: Any, *, zarr: bool) -> str:
+    """``[outputs] zarr_url``: an fsspec folder URL whose file system is installed, given
+    with ``zarr = true`` (:func:`lidmelt.grids._objstore.check_store_url`)."""
+    from lidmelt.grids._objstore import check_store_url
+
+    key = "outputs.zarr_url"
+    url = string(ctx, key, value, example="s3://bucket/lidmelt-runs").strip()
+    if not zarr:
+        msg = (
+            f"{ctx.where(key)} is {shortened(url)!r} but outputs.zarr is not true: zarr_url "
+            "says where the run's Zarr store goes. Add zarr = true to [outputs], or remove "
+            "zarr_url."
+        )
+        raise WorkflowError(msg)
+    return check_store_url(url, where=ctx.where(key))
+
+
 def _read_outputs(ctx: Context, values: dict[str, Any], inputs: Inputs) -> OutputOptions:
     given = inputs.available()
     keys = ("cloud_optimized", "zarr", "geotiff")
@@ -344,6 +361,8 @@ def _read_outputs(ctx: Context, values: dict[str, Any], inputs: Inputs) -> Outpu
             "geotiff = false."
         )
         raise WorkflowError(msg)
+    if "zarr_url" in values:
+        flags["zarr_url"] = _zarr_url(ctx, values["zarr_url"], zarr=flags.get("zarr", False))
     if "variables" not in values:
         return OutputOptions(variables=variables.default_outputs(given), **flags)
     key = "outputs.variables"
