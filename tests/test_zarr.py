@@ -97,6 +97,9 @@ def test_store_has_cf_attributes_chunks_and_consolidated_metadata(runs):
     )  # NaN, as the GeoTIFFs' nodata
     flag = ds[FLAG_VARIABLE.name].attrs
     assert flag["_FillValue"] == 255
+    group = zarr.open_group(str(both / ZARR_NAME), mode="r")
+    assert group[FLAG_VARIABLE.name].fill_value == 255  # zarr's own: a missing chunk reads nodata
+    assert np.isnan(group["melt_thickness_km"].fill_value)
     assert list(flag["flag_masks"]) == sorted(FLAG_KEYS)
     assert flag["flag_meanings"].split() == [FLAG_KEYS[b] for b in sorted(FLAG_KEYS)]
     regime = ds["melting_regime"].attrs

@@ -100,7 +100,8 @@ def _dataset(layers: list[StoreLayer], tags: Mapping[str, Any], chunks: int):
         encoding[layer.name] = {
             "dtype": dtype,
             "chunks": shape,
-            "_FillValue": _fill(dtype, layer.nodata),
+            "_FillValue": _fill(dtype, layer.nodata),  # CF: read back as nodata
+            "fill_value": _fill(dtype, layer.nodata),  # zarr's own: a missing chunk, nodata
         }
     ds = xr.Dataset(data).rio.write_crs(crs)  # the grid_mapping variable "spatial_ref" (CF)
     ds = ds.rio.write_transform(transform)  # GDAL's GeoTransform, as in the GeoTIFFs
