@@ -145,6 +145,19 @@ def test_products_read_a_run_without_geotiffs(runs, tmp_path):
         b.file("melt_thickness_km")  # a command that reads GeoTIFFs is told why
     # the map page embeds the same layers, values and flags from either format
     assert page_data(a) == page_data(b)
+    # the assessment reads its variable band by band from either format: the same scores
+    features = tmp_path / "features.csv"
+    features.write_text("name,longitude,latitude\n" + "".join(
+        f"f{k},{-29.7 + 0.9 * k},{9.0 - 3.1 * k}\n" for k in range(8)
+    ))  # fmt: skip
+    scores = {}
+    for run in (plain, only):
+        doc = tmp_path / f"assess-{run.name}.json"
+        assert main(["assess", str(run), str(features), "-o", str(doc)]) == 0
+        found = json.loads(doc.read_text())
+        scores[run.name] = {k: v for k, v in found.items() if k not in ("run", "candidates")}
+    assert scores["plain"] == scores["only"]
+    assert scores["only"]["n_features_used"] >= 4
 
 
 def test_a_damaged_store_is_refused(runs, tmp_path):

@@ -345,6 +345,22 @@ def is_url(text: str) -> bool:
     return "://" in text
 
 
+def store_bands(path: str | Path, name: str, rows: int):
+    """Yield ``(rows, block)``: the array ``name`` of the store ``rows`` rows at a time, as
+    float32 with NaN where it holds its fill value (the nodata)."""
+    import zarr
+
+    array = zarr.open_array(zarr_target(str(path)), path=name, mode="r")
+    for row0 in range(0, array.shape[0], rows):
+        band = slice(row0, min(row0 + rows, array.shape[0]))
+        block = np.asarray(array[band])
+        nodata = block == array.fill_value if block.dtype.kind != "f" else None
+        block = block.astype(np.float32)
+        if nodata is not None:
+            block[nodata] = np.nan
+        yield band, block
+
+
 def store_flags(path: str | Path, name: str) -> np.ndarray:
     """The uint8 array ``name`` of the store (the validity flags), raw values."""
     import zarr

@@ -30,6 +30,7 @@ from lidmelt.grids._area import cell_area_km2, row_areas_km2
 from lidmelt.grids._features import FeaturePoints, nearest_cells, read_feature_points
 from lidmelt.grids._grid import Grid
 from lidmelt.grids._rundir import RunDir
+from lidmelt.grids._zarr import in_store, store_bands
 from lidmelt.products import _ensemble as ens
 from lidmelt.products import _sampling as smp
 from lidmelt.products._assess._evidence import curve, weights_of_evidence
@@ -92,10 +93,13 @@ def _areas(grid: Grid, rows: slice) -> np.ndarray:
 
 def _read_bands(run: RunDir, variable: str, grid: Grid):
     """Yield ``(rows, block)``: the variable as float32 (NaN nodata), :data:`BAND_ROWS` rows
-    at a time."""
+    at a time, from its GeoTIFF or the run's Zarr store."""
     import rasterio
     from rasterio.windows import Window
 
+    if in_store(run.summary, variable):
+        yield from store_bands(run.store(), variable, BAND_ROWS)
+        return
     with rasterio.open(run.file(variable)) as src:
         if (src.height, src.width) != (grid.height, grid.width):
             msg = (
