@@ -48,6 +48,11 @@ function bytes(b64) {
   return out;
 }
 async function inflate(b64) {
+  if (typeof DecompressionStream === "undefined") {  // Chrome 80, Firefox 113, Safari 16.4 on
+    $("values").textContent = "This browser cannot read the page's values (it lacks "
+      + "DecompressionStream): open the page in a browser from 2023 on.";
+    throw new Error("DecompressionStream is not available");
+  }
   const stream = new Blob([bytes(b64)]).stream().pipeThrough(new DecompressionStream("deflate"));
   return new Uint8Array(await new Response(stream).arrayBuffer());
 }
