@@ -126,11 +126,12 @@ def check_workers(client, paths: list[Path]) -> int:
 
 def prepare_workers(client, cfg) -> None:
     """Start, on every worker and without waiting, what it needs before its first chunk:
-    importing the kernel's modules (1.5 s), reading the run's melting table from its cache file
-    when this process can name it (0.4 s for the default Katz table) and loading the compiled
-    kernel (0.5-1 s); meanwhile this process loads its own
-    table and inputs (benchmarks/bench_zarr.py). Best effort: a worker that cannot do it does
-    it with its first chunk, where any failure is reported.
+    importing the kernel's modules (1.5 s), mapping the run's melting table from its cache file
+    when this process can name it, and loading the compiled kernel and the table's lookups by
+    evaluating a tiny chunk (0.4 s); meanwhile this process loads its own table and inputs
+    (benchmarks/bench_zarr.py: the first chunk of a worker took 1.2-2.4 s before, 0.06 s
+    after). Best effort: a worker that cannot do it does it with its first chunk, where any
+    failure is reported.
     """
     from lidmelt.physics import get_model
     from lidmelt.physics._table import TableLayout, table_path
@@ -313,10 +314,10 @@ def share(client, value: Any) -> Any:
     """``value`` on every worker of ``client`` (scattered to each once: one future), with each
     melting table it holds (in a dataclass field, or a tuple of them) replaced by its
     :class:`lidmelt.physics._table.TableFile` where every worker can read the table's cache
-    file, which each worker then reads once (:meth:`TableFile.load`).
+    file, which each worker then maps into memory once (:meth:`TableFile.load`).
 
     Sending a 220 MB table to each of two workers took 2.4 s of a 21 s global run
-    (benchmarks/bench_zarr.py); reading it from the file takes each worker 0.5 s, in parallel.
+    (benchmarks/bench_zarr.py); mapping the file takes a worker milliseconds.
     A worker that cannot read the file (another machine, a private cache folder) gets the table.
     """
     readable: dict[str, bool] = {}
