@@ -49,7 +49,7 @@ def invented_features(run_dir: Path, count: int, out: Path, seed: int = 0) -> Pa
 
 
 def bench_global_assess(folder: Path) -> None:
-    from bench_basin import make_inputs
+    from bench_basin import global_workflow, make_inputs
 
     from lidmelt._engine import run_basin
     from lidmelt.products._assess._assessment import assess
@@ -57,7 +57,7 @@ def bench_global_assess(folder: Path) -> None:
 
     make_inputs(folder, 10800, 5400)
     wf = folder / "global.toml"
-    wf.write_text(GLOBAL.format(folder=folder))
+    wf.write_text(global_workflow(folder, name="global", chunk_size=512))
     cfg = load_workflow(wf, output_dir=folder / "run")
     run_basin(cfg, progress=False)
     features = invented_features(folder / "run", 10_000, folder / "features.csv")
@@ -105,22 +105,6 @@ def bench_ensemble(workflow: Path, out: Path, overrides: list[str], repeats: int
           f" s (a second pass over the members would cost about {without:.1f} s)")  # fmt: skip
 
 
-GLOBAL = """
-[run]
-name = "global"
-maps = false
-report = false
-[grid]
-like = "plate_age"
-[inputs.plate_age]
-path = "{folder}/age.tif"
-[inputs.thermal_anomaly]
-path = "{folder}/anomaly.tif"
-[compute]
-chunk_size = 512
-"""
-
-
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--members", type=int, default=100)
@@ -147,7 +131,10 @@ def main() -> None:
         if args.global_grid:
             wf = folder / "global" / "global.toml"
             feats = folder / "global" / "features.csv"
-            wf.write_text(GLOBAL.format(folder=folder / "global") + ENSEMBLE.format(feats))
+            from bench_basin import global_workflow
+
+            text = global_workflow(folder / "global", name="global", chunk_size=512)
+            wf.write_text(text + ENSEMBLE.format(feats))
             bench_ensemble(wf, folder / "gens", [f"ensemble.members={args.members}"], args.repeats)
 
 

@@ -107,6 +107,25 @@ def run_bound(folder: Path, n_out: int) -> dict:
     return {"wall_s": wall, "files": n_out, "bytes": size}
 
 
+def global_workflow(folder: Path, *, name: str, chunk_size: int, extra: str = "") -> str:
+    """The workflow text of a run on the grids :func:`make_inputs` wrote in ``folder`` (no maps,
+    no report, the age grid's grid), with ``extra`` after its ``chunk_size`` line."""
+    return f"""
+[run]
+name = "{name}"
+maps = false
+report = false
+[grid]
+like = "plate_age"
+[inputs.plate_age]
+path = "{folder}/age.tif"
+[inputs.thermal_anomaly]
+path = "{folder}/anomaly.tif"
+[compute]
+chunk_size = {chunk_size}
+{extra}"""
+
+
 def run_lidmelt(folder: Path, water: float, rule: str) -> dict:
     """``run_basin`` on the inputs in ``folder``; dry unless ``water`` > 0 (constant, wt%);
     ``rule`` the top of melting (lithosphere.top_of_melting)."""

@@ -114,37 +114,28 @@ def main() -> None:
         )
         report("demo grid", r)
         if args.global_grid:
-            from bench_basin import make_inputs  # the invented global inputs (age, anomaly)
+            from bench_basin import global_workflow, make_inputs  # invented age and anomaly
 
             make_inputs(out, 10800, 5400)
             wf = out / "global.toml"
-            wf.write_text(GLOBAL.format(folder=out))
+            wf.write_text(
+                global_workflow(out, name="global_ensemble", chunk_size=512, extra=GLOBAL_ENSEMBLE)
+            )
             r = measure(wf, out / "global", [*sets, "ensemble.members=100"])
             report("2' global grid", r)
             print(f"  goal: 100 members of the 2' global grid in < 600 s: {r['ensemble_s']:.0f} s")
 
 
-GLOBAL = """
-[run]
-name = "global_ensemble"
-maps = false
-report = false
-[grid]
-like = "plate_age"
-[inputs.plate_age]
-path = "{folder}/age.tif"
-[inputs.thermal_anomaly]
-path = "{folder}/anomaly.tif"
-[compute]
-chunk_size = 512
-[ensemble]
+#: The ensemble of the global benchmark run (after the workflow of
+#: :func:`bench_basin.global_workflow`).
+GLOBAL_ENSEMBLE = """[ensemble]
 members = 100
 memory_limit_gb = 8
 [ensemble.vary]
-"model.ambient_potential_temperature_c" = {{ normal = [1350.0, 25.0] }}
-"inputs.water.constant" = {{ uniform = [0.005, 0.03] }}
-"lithosphere.lid_isotherm_c" = {{ uniform = [1050.0, 1250.0] }}
-"lithosphere.cooling" = {{ choice = ["half-space", "gdh1"] }}
+"model.ambient_potential_temperature_c" = { normal = [1350.0, 25.0] }
+"inputs.water.constant" = { uniform = [0.005, 0.03] }
+"lithosphere.lid_isotherm_c" = { uniform = [1050.0, 1250.0] }
+"lithosphere.cooling" = { choice = ["half-space", "gdh1"] }
 """
 
 

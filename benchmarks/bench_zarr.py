@@ -36,26 +36,9 @@ import time
 from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).parent))
-from bench_basin import make_inputs  # the same invented inputs
+from bench_basin import global_workflow, make_inputs  # the same invented inputs
 
-#: The workflow of every case; FORMATS fills in the [outputs] table.
-WORKFLOW = """
-[run]
-name = "bench"
-maps = false
-report = false
-[grid]
-like = "plate_age"
-[inputs.plate_age]
-path = "{folder}/age.tif"
-[inputs.thermal_anomaly]
-path = "{folder}/anomaly.tif"
-[compute]
-chunk_size = 1024
-workers = 2
-[outputs]
-{outputs}
-"""
+#: The [outputs] table of each format.
 FORMATS = {"zarr": "zarr = true\ngeotiff = false", "tif": ""}
 
 
@@ -73,7 +56,9 @@ def child(folder: Path, fmt: str, cluster: bool, out: Path, cold: bool = False) 
     from lidmelt.workflow import load_workflow
 
     wf = folder / f"{fmt}.toml"
-    wf.write_text(WORKFLOW.format(folder=folder, outputs=FORMATS[fmt]), encoding="utf-8")
+    extra = f"workers = 2\n[outputs]\n{FORMATS[fmt]}\n"
+    text = global_workflow(folder, name="bench", chunk_size=1024, extra=extra)
+    wf.write_text(text, encoding="utf-8")
     overrides = []
     local = None
     if cluster:
